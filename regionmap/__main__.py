@@ -1,0 +1,3 @@
+from regionmap.cli import main
+
+raise SystemExit(main())
