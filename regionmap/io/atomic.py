@@ -1,0 +1,63 @@
+"""Atomic file writes: write beside the target, then rename over it.
+
+An interrupted write leaves the previous file untouched and at most a hidden temporary file
+(``.<name>.<random>.tmp<suffix>``, the suffix kept so GDAL picks the right driver) that the next write of the same target removes.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import os
+import tempfile
+from collections.abc import Iterator
+from pathlib import Path
+
+from regionmap.errors import OutputError
+
+__all__ = ["atomic_path", "atomic_write_text"]
+
+
+def _clean_leftovers(target: Path) -> None:
+    for old in target.parent.glob(f".{target.name}.*.tmp{target.suffix}"):
+        with contextlib.suppress(OSError):
+            old.unlink()
+
+
+@contextlib.contextmanager
+def atomic_path(path: str | os.PathLike) -> Iterator[Path]:
+    """Yield a temporary path in the target's folder; rename it onto ``path`` on success.
+
+    On any exception the temporary file is removed and the old ``path`` (if any) is kept.
+
+    Raises
+    ------
+    OutputError
+        When the target folder cannot be created or written.
+    """
+    target = Path(path)
+    try:
+        target.parent.mkdir(parents=True, exist_ok=True)
+        _clean_leftovers(target)
+        fd, tmp_name = tempfile.mkstemp(
+            prefix=f".{target.name}.", suffix=f".tmp{target.suffix}", dir=target.parent
+        )
+        os.close(fd)
+    except OSError as exc:
+        raise OutputError(f"cannot write {target}: {exc.strerror or exc}") from exc
+    tmp = Path(tmp_name)
+    try:
+        yield tmp
+        if not tmp.exists():
+            raise OutputError(f"writing {target}: the writer produced no file")
+        os.replace(tmp, target)
+    except BaseException:
+        with contextlib.suppress(OSError):
+            tmp.unlink()
+        raise
+
+
+def atomic_write_text(path: str | os.PathLike, text: str) -> Path:
+    """Write ``text`` (UTF-8) to ``path`` atomically and return the path."""
+    with atomic_path(path) as tmp:
+        tmp.write_text(text, encoding="utf-8")
+    return Path(path)
