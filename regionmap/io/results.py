@@ -1,0 +1,251 @@
+"""Streaming writers for ``cells.nc`` (per-cell diagnostics over time) and ``profiles.nc``
+(daily layer snapshots).
+
+Both files are created up front with their full dimensions and filled chunk by chunk as the
+cell chunks of a run finish, so memory holds one chunk's results at a time. The files are
+written under a temporary name and renamed on :meth:`close` (see
+:mod:`regionmap.io.atomic`).
+
+``cells.nc`` follows the CF discrete-sampling-geometry convention for time series
+(``featureType = timeSeries``, CF-1.8 §9): instance dimension ``cell`` with ``cell_id`` as the
+``timeseries_id``.
+"""
+
+from __future__ import annotations
+
+from contextlib import ExitStack
+from pathlib import Path
+
+import netCDF4
+import numpy as np
+import pandas as pd
+
+from regionmap import CAUTION, __version__
+from regionmap.io.atomic import atomic_path
+
+__all__ = ["DIAGNOSTICS", "AMOUNTS", "CellsNcWriter", "ProfilesNcWriter"]
+
+_EPOCH = "seconds since 1970-01-01 00:00:00"
+_FILL_I8 = np.int8(-127)
+_FILL_I16 = np.int16(-32767)
+
+#: name → (dtype, attributes) of the per-time diagnostics (DESIGN §3 names).
+DIAGNOSTICS: dict[str, tuple[str, dict]] = {
+    "snow_depth_cm": ("f4", {"standard_name": "surface_snow_thickness", "units": "cm", "long_name": "snow depth (vertical)"}),
+    "swe_kg_m2": ("f4", {"standard_name": "surface_snow_amount", "units": "kg m-2", "long_name": "snow water equivalent incl. liquid water"}),
+    "new_snow_24h_cm": ("f4", {"units": "cm", "long_name": "depth of snow deposited in the last 24 h, as settled now"}),
+    "new_snow_72h_cm": ("f4", {"units": "cm", "long_name": "depth of snow deposited in the last 72 h, as settled now"}),
+    "new_snow_72h_kg_m2": ("f4", {"units": "kg m-2", "long_name": "snowfall water equivalent of the last 72 h"}),
+    "crust_count": ("i1", {"units": "1", "long_name": "number of crusts and ice layers in the column"}),
+    "depth_hoar_present": ("i1", {"units": "1", "long_name": "column holds depth hoar thicker than the threshold", "flag_values": np.array([0, 1], "i1"), "flag_meanings": "absent present"}),
+    "pwl_present": ("i1", {"units": "1", "long_name": "column holds a persistent weak layer (FC, DH or SH)", "flag_values": np.array([0, 1], "i1"), "flag_meanings": "absent present"}),
+    "pwl_depth_cm": ("f4", {"units": "cm", "long_name": "vertical depth below the surface of the top of the uppermost persistent weak layer"}),
+    "threshold_count_max": ("f4", {"units": "1", "long_name": "largest structural threshold count over the column's interfaces"}),
+    "liquid_water_kg_m2": ("f4", {"units": "kg m-2", "long_name": "liquid water held in the snowpack"}),
+}
+
+#: name → (dtype, attributes) of the per-interval amounts (with ``time_bnds``).
+AMOUNTS: dict[str, tuple[str, dict]] = {
+    "snowfall_kg_m2": ("f4", {"standard_name": "snowfall_amount", "units": "kg m-2"}),
+    "rain_kg_m2": ("f4", {"standard_name": "rainfall_amount", "units": "kg m-2"}),
+    "runoff_kg_m2": ("f4", {"standard_name": "runoff_amount", "units": "kg m-2", "long_name": "liquid water leaving the base of the snowpack"}),
+    "sublimation_kg_m2": ("f4", {"standard_name": "surface_snow_sublimation_amount", "units": "kg m-2", "long_name": "net sublimation (negative: deposition)"}),
+}
+
+_FILLS = {"f4": np.float32(np.nan), "i1": _FILL_I8, "i2": _FILL_I16}
+
+
+def _seconds(times) -> np.ndarray:
+    return np.asarray(times, dtype="datetime64[s]").astype(np.int64)
+
+
+def _fill_for(dtype: str):
+    return _FILLS.get(dtype)
+
+
+class CellsNcWriter:
+    """Create ``cells.nc`` for a cell table and output times; fill it chunk by chunk.
+
+    Parameters
+    ----------
+    path : target file (written atomically on :meth:`close`).
+    cells : pandas DataFrame indexed by ``cell_id`` (the cell table of
+        :class:`regionmap.cells.CellSet`).
+    times : (time,) datetime64 end of each output interval [UTC].
+    interval_start : (time,) datetime64 start of each output interval (``time_bnds``).
+    is_forecast : (time,) bool, True where the forcing was forecast.
+    extra : name → (dtype, attrs) of further (cell, time) diagnostics to store.
+    global_attrs : added to the file's global attributes.
+    """
+
+    def __init__(self, path, cells: pd.DataFrame, times, interval_start, is_forecast, *,
+                 extra: dict | None = None, global_attrs: dict | None = None):
+        self.path = Path(path)
+        self._stack = ExitStack()
+        self._tmp = self._stack.enter_context(atomic_path(self.path))
+        self.variables = {**DIAGNOSTICS, **AMOUNTS, **(extra or {})}
+        n_cell, n_time = len(cells), len(times)
+        nc = netCDF4.Dataset(self._tmp, "w", format="NETCDF4")
+        self._nc = nc
+        nc.setncatts({
+            "Conventions": "CF-1.8",
+            "featureType": "timeSeries",
+            "title": "regionmap per-cell snowpack diagnostics",
+            "source": f"regionmap {__version__}",
+            "caution": CAUTION,
+            **(global_attrs or {}),
+        })
+        nc.createDimension("cell", n_cell)
+        nc.createDimension("time", n_time)
+        nc.createDimension("nv", 2)
+        time = nc.createVariable("time", "i8", ("time",))
+        time.setncatts({"standard_name": "time", "units": _EPOCH, "calendar": "standard", "bounds": "time_bnds", "axis": "T"})
+        time[:] = _seconds(times)
+        bnds = nc.createVariable("time_bnds", "i8", ("time", "nv"))
+        bnds[:] = np.stack([_seconds(interval_start), _seconds(times)], axis=1)
+        fc = nc.createVariable("is_forecast", "i1", ("time",))
+        fc.setncatts({"long_name": "forcing at this time was forecast (after the analysis time)", "flag_values": np.array([0, 1], "i1"), "flag_meanings": "analysis forecast"})
+        fc[:] = np.asarray(is_forecast, dtype=np.int8)
+        cid = nc.createVariable("cell_id", "i4", ("cell",))
+        cid.setncatts({"cf_role": "timeseries_id", "long_name": "cell identifier"})
+        cid[:] = cells.index.to_numpy(np.int32)
+        self._write_cell_table(cells)
+        chunk_cells = max(1, min(256, n_cell))
+        chunk_time = max(1, min(744, n_time))
+        for name, (dtype, attrs) in self.variables.items():
+            var = nc.createVariable(
+                name, dtype, ("cell", "time"), zlib=True, complevel=4, shuffle=True,
+                chunksizes=(chunk_cells, chunk_time), fill_value=_fill_for(dtype),
+            )
+            attrs = dict(attrs)
+            if name in AMOUNTS:
+                attrs["cell_methods"] = "time: sum"
+            attrs["coordinates"] = "cell_id lat lon elevation_m"
+            var.setncatts(attrs)
+
+    def _write_cell_table(self, cells: pd.DataFrame) -> None:
+        nc = self._nc
+        spec = {
+            "zone": ("str", {"long_name": "forecast zone"}),
+            "band_lower_m": ("f8", {"units": "m", "long_name": "lower edge of the elevation band (-inf: open)"}),
+            "band_upper_m": ("f8", {"units": "m", "long_name": "upper edge of the elevation band (inf: open)"}),
+            "aspect_sector": ("str", {"long_name": "aspect sector (N, NE, ... or flat)"}),
+            "slope_class": ("i2", {"long_name": "slope class index (0 when slopes are not split)"}),
+            "elevation_m": ("f4", {"standard_name": "surface_altitude", "units": "m", "long_name": "mean elevation of the cell"}),
+            "slope_deg": ("f4", {"units": "degree", "long_name": "mean slope angle"}),
+            "aspect_deg": ("f4", {"units": "degree", "long_name": "circular-mean aspect (0 = N, clockwise)"}),
+            "area_km2": ("f8", {"units": "km2", "long_name": "cell area"}),
+            "pixel_count": ("i4", {"units": "1"}),
+            "sky_view_frac": ("f4", {"units": "1", "long_name": "mean sky-view factor"}),
+            "lat": ("f8", {"standard_name": "latitude", "units": "degrees_north"}),
+            "lon": ("f8", {"standard_name": "longitude", "units": "degrees_east"}),
+        }
+        for name, (dtype, attrs) in spec.items():
+            if name not in cells.columns:
+                continue
+            values = cells[name].to_numpy()
+            if dtype == "str":
+                var = nc.createVariable(name, str, ("cell",))
+                var[:] = np.asarray(values, dtype=object).astype(str)
+            else:
+                var = nc.createVariable(name, dtype, ("cell",))
+                var[:] = np.asarray(values, dtype=dtype)
+            var.setncatts(attrs)
+
+    def write_chunk(self, cell_positions: np.ndarray, diagnostics: dict[str, np.ndarray]) -> None:
+        """Write one chunk's (cell, time) arrays at the given positions along ``cell``.
+
+        ``cell_positions`` must be a contiguous increasing range (chunks are contiguous in
+        ``cell_id`` order).
+        """
+        pos = np.asarray(cell_positions)
+        lo, hi = int(pos[0]), int(pos[-1]) + 1
+        if hi - lo != pos.size:
+            raise ValueError("cell_positions must be a contiguous range")
+        for name, (dtype, _) in self.variables.items():
+            if name in diagnostics:
+                values = np.asarray(diagnostics[name])
+                if dtype.startswith("i"):
+                    fill = _fill_for(dtype)
+                    values = np.where(np.isfinite(values), values, fill).astype(dtype)
+                self._nc.variables[name][lo:hi, :] = values
+
+    def close(self) -> Path:
+        """Finish the file and rename it into place."""
+        self._nc.close()
+        self._stack.close()
+        return self.path
+
+    def abort(self) -> None:
+        """Drop the partly written file, keeping any older one."""
+        try:
+            self._nc.close()
+        finally:
+            self._stack.__exit__(RuntimeError, RuntimeError("aborted"), None)
+
+
+class ProfilesNcWriter:
+    """Create ``profiles.nc`` (dims ``cell``, ``day``, ``layer``) and fill it chunk by chunk.
+
+    Parameters
+    ----------
+    path : target file.
+    cell_ids : (cell,) int cell identifiers.
+    days : (day,) datetime64 snapshot times [UTC].
+    n_layers : layer slots per snapshot (bottom layer first).
+    layer_vars : name → (dtype, attrs); dtype ``"str"`` for the classification codes.
+    """
+
+    def __init__(self, path, cell_ids, days, n_layers: int, layer_vars: dict[str, tuple[str, dict]]):
+        self.path = Path(path)
+        self._stack = ExitStack()
+        self._tmp = self._stack.enter_context(atomic_path(self.path))
+        nc = netCDF4.Dataset(self._tmp, "w", format="NETCDF4")
+        self._nc = nc
+        self.layer_vars = layer_vars
+        nc.setncatts({"Conventions": "CF-1.8", "title": "regionmap daily layer snapshots", "source": f"regionmap {__version__}", "caution": CAUTION})
+        nc.createDimension("cell", len(cell_ids))
+        nc.createDimension("day", len(days))
+        nc.createDimension("layer", n_layers)
+        cid = nc.createVariable("cell_id", "i4", ("cell",))
+        cid[:] = np.asarray(cell_ids, dtype=np.int32)
+        day = nc.createVariable("day", "i8", ("day",))
+        day.setncatts({"standard_name": "time", "units": _EPOCH, "calendar": "standard"})
+        day[:] = _seconds(days)
+        lc = nc.createVariable("layer_count", "i2", ("cell", "day"), zlib=True, fill_value=_FILL_I16)
+        lc.setncatts({"long_name": "number of layers in use (bottom first)"})
+        for name, (dtype, attrs) in layer_vars.items():
+            if dtype == "str":
+                var = nc.createVariable(name, str, ("cell", "day", "layer"))
+            else:
+                var = nc.createVariable(
+                    name, dtype, ("cell", "day", "layer"), zlib=True, complevel=4, shuffle=True,
+                    chunksizes=(max(1, min(64, len(cell_ids))), max(1, min(31, len(days))), n_layers),
+                    fill_value=_fill_for(dtype),
+                )
+            var.setncatts(attrs)
+
+    def write_chunk(self, cell_positions: np.ndarray, layer_count: np.ndarray, fields: dict[str, np.ndarray]) -> None:
+        """Write one chunk's snapshots: ``layer_count`` (cell, day), fields (cell, day, layer)."""
+        pos = np.asarray(cell_positions)
+        lo, hi = int(pos[0]), int(pos[-1]) + 1
+        self._nc.variables["layer_count"][lo:hi, :] = np.asarray(layer_count, dtype=np.int16)
+        for name, (dtype, _) in self.layer_vars.items():
+            if name in fields:
+                values = np.asarray(fields[name])
+                if dtype == "str":
+                    self._nc.variables[name][lo:hi, :, :] = np.asarray(values, dtype=object).astype(str)
+                else:
+                    self._nc.variables[name][lo:hi, :, :] = values
+
+    def close(self) -> Path:
+        self._nc.close()
+        self._stack.close()
+        return self.path
+
+    def abort(self) -> None:
+        try:
+            self._nc.close()
+        finally:
+            self._stack.__exit__(RuntimeError, RuntimeError("aborted"), None)
+
