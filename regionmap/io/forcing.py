@@ -1,0 +1,1082 @@
+"""Read gridded NWP forcing (CF NetCDF or Zarr) into canonical, hourly, lazy arrays.
+
+The conventions are those of DESIGN §3 "Forcing conventions":
+
+* a time label closes its interval; interval means and sums come from ``time_bnds`` and
+  ``cell_methods``; amounts accumulated since a reference time are recognised from bounds
+  that share a start, or from ``accumulated = true`` in the mapping — never from values;
+* every time transformation (de-accumulation, coarser → hourly, sub-hourly → hourly, later
+  files winning) is one sparse linear operator per variable, built once from the time
+  coordinates alone; amounts are conserved, states interpolated linearly;
+* units are converted with pint (:mod:`regionmap.io.units`), never guessed.
+
+Without ``time_bnds`` a label's interval starts at the previous label (the first label of an
+accumulated series is then only the baseline of the next). Steps longer than 3 h without
+bounds are gaps; with contiguous bounds, coarser steps up to 6 h are data by design.
+
+Data checks (NaN runs, negative precipitation, RH above 100 %) are made by one pass over the
+data at open time, so bad input fails before a long run and ``counts`` is known; the values
+themselves stay lazy (dask) and are recomputed block by block when used.
+"""
+
+from __future__ import annotations
+
+import glob as _glob
+import os
+import re
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import dask
+import dask.array as da
+import numpy as np
+import cf_xarray  # noqa: F401  (registers the .cf accessor)
+import xarray as xr
+from scipy import sparse
+
+from regionmap.errors import ConfigError, ForcingReadError, GridMismatchError
+from regionmap.io import units as U
+from pyproj import CRS, Transformer
+from scipy.interpolate import RectBivariateSpline
+from scipy.spatial import cKDTree
+
+__all__ = ["GridForcing", "open_forcing", "MAX_GAP_H", "NEGATIVE_PRECIP_TOL_KG_M2"]
+
+MAX_GAP_H = 3
+"""Longest run of missing hours that is filled by interpolation (and counted)."""
+MAX_STATE_STEP_H = 6
+"""Longest step between labels over which states are interpolated when bounds say so."""
+NEGATIVE_PRECIP_TOL_KG_M2 = 0.05
+"""De-accumulated amounts down to minus this are rounding noise: clipped to 0 and counted."""
+
+_TARGET = {
+    "air_temperature": "K",
+    "relative_humidity": "1",
+    "specific_humidity": "1",
+    "dew_point_temperature": "K",
+    "wind_speed": "m s-1",
+    "wind_from_direction": "degree",
+    "eastward_wind": "m s-1",
+    "northward_wind": "m s-1",
+    "surface_downwelling_shortwave_flux_in_air": "W m-2",
+    "integral_wrt_time_of_surface_downwelling_shortwave_flux_in_air": "J m-2",
+    "surface_downwelling_longwave_flux_in_air": "W m-2",
+    "integral_wrt_time_of_surface_downwelling_longwave_flux_in_air": "J m-2",
+    "precipitation_flux": "kg m-2 s-1",
+    "lwe_precipitation_rate": "kg m-2 s-1",
+    "precipitation_amount": "kg m-2",
+    "lwe_thickness_of_precipitation_amount": "kg m-2",
+    "surface_air_pressure": "Pa",
+    "freezing_rain_frac": "1",
+    "upper_air_temperature": "K",
+}
+_AMOUNTS = {
+    "precipitation_amount",
+    "lwe_thickness_of_precipitation_amount",
+    "integral_wrt_time_of_surface_downwelling_shortwave_flux_in_air",
+    "integral_wrt_time_of_surface_downwelling_longwave_flux_in_air",
+}
+_FLUXES = {
+    "precipitation_flux",
+    "lwe_precipitation_rate",
+    "surface_downwelling_shortwave_flux_in_air",
+    "surface_downwelling_longwave_flux_in_air",
+    "freezing_rain_frac",
+}
+# role -> alternatives (tuples of standard names that together provide it)
+_ROLES = {
+    "air_temperature": [("air_temperature",)],
+    "humidity": [("relative_humidity",), ("specific_humidity",), ("dew_point_temperature",)],
+    "wind": [("wind_speed", "wind_from_direction"), ("eastward_wind", "northward_wind")],
+    "shortwave": [
+        ("surface_downwelling_shortwave_flux_in_air",),
+        ("integral_wrt_time_of_surface_downwelling_shortwave_flux_in_air",),
+    ],
+    "precipitation": [
+        ("precipitation_flux",),
+        ("precipitation_amount",),
+        ("lwe_thickness_of_precipitation_amount",),
+        ("lwe_precipitation_rate",),
+    ],
+    "longwave": [
+        ("surface_downwelling_longwave_flux_in_air",),
+        ("integral_wrt_time_of_surface_downwelling_longwave_flux_in_air",),
+    ],
+    "pressure": [("surface_air_pressure",)],
+    "freezing_rain": [("freezing_rain_frac",)],
+    "upper_air": [("upper_air_temperature",)],
+}
+_OPTIONAL = {"longwave", "pressure", "freezing_rain", "upper_air"}
+_OUTPUTS = {  # canonical output -> roles it needs
+    "air_temperature": ("air_temperature",),
+    "relative_humidity": ("humidity", "air_temperature", "pressure"),
+    "surface_air_pressure": ("pressure",),
+    "wind_speed": ("wind",),
+    "wind_from_direction": ("wind",),
+    "shortwave_down": ("shortwave",),
+    "longwave_down": ("longwave",),
+    "precipitation": ("precipitation",),
+    "freezing_rain_frac": ("freezing_rain",),
+    "upper_air_temperature": ("upper_air",),
+}
+_OUT_UNITS = {
+    "air_temperature": "K", "relative_humidity": "1", "surface_air_pressure": "Pa",
+    "wind_speed": "m s-1", "wind_from_direction": "degree", "shortwave_down": "W m-2",
+    "longwave_down": "W m-2", "precipitation": "kg m-2", "freezing_rain_frac": "1",
+    "upper_air_temperature": "K",
+}
+_MAPPING_KEYS = {"name", "units", "accumulated"}
+_H = 3600
+
+
+@dataclass
+class _Source:
+    """One input variable across all files, with its conversion and time operator."""
+
+    standard_name: str
+    names: list[str]  # variable name in each file
+    paths: list[str]
+    data: da.Array  # files concatenated along native time, (time, [level], y, x)
+    scale: float
+    offset: float
+    kind: str  # "point" or "interval"
+    file_of: np.ndarray  # native index -> file index
+    t_all: np.ndarray  # native labels [s since epoch]
+    level_pa: np.ndarray | None = None
+    D: sparse.csr_matrix | None = None  # native values -> native amounts (interval kind)
+    S: sparse.csr_matrix | None = None  # native (amounts) -> hourly
+    covered: np.ndarray | None = None
+
+    def label(self) -> str:
+        return f"variable {self.names[0]!r} ({self.standard_name}) in {self.paths[0]}"
+
+
+@dataclass
+class GridForcing:
+    """Canonical hourly forcing on the model grid (time label = end of interval).
+
+    Attributes
+    ----------
+    time : ndarray (time,) datetime64[s]
+    air_temperature, relative_humidity, surface_air_pressure, wind_speed,
+    wind_from_direction, shortwave_down, precipitation : xarray.DataArray (time, y, x) float32
+        [K], [1], [Pa], [m s-1], [deg, from, 0 = N], [W m-2 interval mean], [kg m-2 per hour].
+    longwave_down, freezing_rain_frac : DataArray (time, y, x) or None
+        [W m-2 interval mean]; liquid share falling as freezing rain [1].
+    upper_air_temperature : DataArray (time, level, y, x) or None, with
+        ``upper_air_pressure_pa`` (level,) [Pa].
+    surface_altitude : ndarray (y, x) float64 [m]
+    grid : :class:`ForcingGrid` (``lon``, ``lat``, ``crs``, native ``x``/``y``)
+    heights_m : dict ``{"wind": m, "temperature": m}`` and ``heights_source``.
+    counts : dict for run.json: ``gap_hours_filled``, ``nan_filled``,
+        ``negative_precip_clipped``, ``rh_clipped``.
+    reads : int — number of :meth:`read_block` calls (tests check reads per time block).
+    """
+
+    time: np.ndarray
+    air_temperature: xr.DataArray
+    relative_humidity: xr.DataArray
+    surface_air_pressure: xr.DataArray
+    wind_speed: xr.DataArray
+    wind_from_direction: xr.DataArray
+    shortwave_down: xr.DataArray
+    longwave_down: xr.DataArray | None
+    precipitation: xr.DataArray
+    surface_altitude: np.ndarray
+    grid: ForcingGrid
+    heights_m: dict
+    heights_source: str
+    counts: dict
+    paths: list[str]
+    upper_air_temperature: xr.DataArray | None = None
+    upper_air_pressure_pa: np.ndarray | None = None
+    freezing_rain_frac: xr.DataArray | None = None
+    reads: int = 0
+    points_read: int = 0
+    _sources: dict = field(default_factory=dict, repr=False)
+
+    # geometry pass-throughs
+    @property
+    def lon(self) -> np.ndarray:
+        return self.grid.lon
+
+    @property
+    def lat(self) -> np.ndarray:
+        return self.grid.lat
+
+    @property
+    def crs(self):
+        return self.grid.crs
+
+    def grid_index_of(self, lon, lat):
+        """Fractional (row along y, column along x) indices of points; NaN outside."""
+        return self.grid.index_of(lon, lat)
+
+    def extent_lonlat(self):
+        """(lon_min, lon_max, lat_min, lat_max) of the grid points [deg]."""
+        return self.grid.extent_lonlat()
+
+    def check_covers(self, lon, lat) -> None:
+        """Raise GridMismatchError unless every point lies inside the grid (4 neighbours)."""
+        self.grid.check_covers(lon, lat, where=self.paths[0])
+
+    @property
+    def available(self) -> list[str]:
+        return [n for n in _OUTPUTS if getattr(self, n) is not None]
+
+    def read_block(self, names, iy, ix, time_slice=slice(None)) -> dict:
+        """Read canonical series for some grid points over a block of hours.
+
+        Only the file chunks that hold these points, and only the native time steps the
+        block needs (plus a few hours of margin for gap filling), are read.
+
+        Parameters
+        ----------
+        names : sequence of str — canonical names (see :attr:`available`).
+        iy, ix : int arrays (point,) — grid row and column of each point.
+        time_slice : slice of hourly indices into :attr:`time`.
+
+        Returns
+        -------
+        dict name -> float32 ndarray (time, point); ``upper_air_temperature`` is
+        (time, level, point).
+        """
+        iy = np.asarray(iy, dtype=np.intp)
+        ix = np.asarray(ix, dtype=np.intp)
+        n_h = self.time.size
+        start, stop, step = time_slice.indices(n_h)
+        if step != 1:
+            raise ValueError("read_block takes a contiguous time slice")
+        lo, hi = max(0, start - MAX_GAP_H - 1), min(n_h, stop + MAX_GAP_H + 1)
+        rows = np.arange(lo, hi)
+        self.reads += 1
+        self.points_read += iy.size * len(names)
+        alt = self.surface_altitude[iy, ix]
+        out, _ = _compute(self._sources, list(names), rows, alt, lambda s, cols: _read_points(s, cols, iy, ix))
+        cut = slice(start - lo, stop - lo)
+        return {k: v[cut] for k, v in out.items()}
+
+
+# ----------------------------------------------------------------------------- opening
+
+
+def open_forcing(path_or_glob, *, variables=None, heights_m=None, start=None, end=None,
+                 static_path=None, base_dir=None) -> GridForcing:
+    """Open CF NetCDF/Zarr forcing (one file or a glob) as canonical hourly arrays.
+
+    Parameters
+    ----------
+    path_or_glob : str or path, or a ``[forcing]`` settings object
+        A file, a Zarr store or a glob; sorted, later files win where times overlap. A
+        settings object (with ``path``, ``variables``, ``heights_m``, ``start``, ``end``,
+        ``static``) supplies all options at once.
+    variables : mapping, optional
+        ``{standard_name: {name=, units=, accumulated=}}``; also the keys
+        ``freezing_rain_frac`` and ``upper_air_temperature``. ``None``: by standard_name only.
+    heights_m : mapping, optional
+        ``{"wind": m, "temperature": m}`` where the file has no ``height`` coordinates.
+    start, end : datetime-like, optional
+        First and last hourly label wanted; ``None``: what all variables cover.
+    static_path : path, optional
+        File with ``surface_altitude`` or ``surface_geopotential``.
+    base_dir : path, optional
+        Directory that relative paths are relative to (the config file's).
+
+    Raises
+    ------
+    ForcingReadError, ConfigError, GridMismatchError
+    """
+    if hasattr(path_or_glob, "path") and not isinstance(path_or_glob, (str, os.PathLike)):
+        s = path_or_glob
+        return open_forcing(s.path, variables=s.variables, heights_m=s.heights_m, start=s.start,
+                            end=s.end, static_path=getattr(s, "static", None), base_dir=base_dir)
+    paths = _expand(path_or_glob, base_dir)
+    mapping = _normalise_mapping(variables)
+    datasets = [_open_one(p) for p in paths]
+    tdims = [_time_dim(ds, p) for ds, p in zip(datasets, paths)]
+    times = [_file_times(ds, td, p) for ds, td, p in zip(datasets, tdims, paths)]
+
+    chosen = {}
+    for role, alternatives in _ROLES.items():
+        found = _resolve_role(role, alternatives, datasets, paths, mapping, heights_m)
+        if found is None:
+            if role in _OPTIONAL:
+                continue
+            _missing(role, alternatives, datasets[0], paths[0])
+        chosen[role] = found
+    ref = chosen["air_temperature"][0]
+    ydim, xdim = ref[1][0].dims[-2:]
+    grid = grid_from_dataset(datasets[0], ref[1][0], paths[0])
+    shape = (datasets[0].sizes[ydim], datasets[0].sizes[xdim])
+
+    sources = {}
+    for role, members in chosen.items():
+        sources[role] = [_make_source(sn, das, paths, times, tdims, (ydim, xdim), shape, mapping)
+                         for sn, das in members]
+    alt = _surface_altitude(static_path, base_dir, datasets, paths, (ydim, xdim), shape)
+
+    wide = _wide_axis(times)
+    for members in sources.values():
+        for s in members:
+            _build_operator(s, times, wide, mapping)
+    hours = _final_axis(sources, wide, start, end, paths)
+    gap_hours = _check_gaps(sources, hours)
+    heights, height_src = _heights(chosen, heights_m)
+    counts = _validate(sources, alt, hours.size)
+    counts["gap_hours_filled"] = gap_hours
+    arrays = {name: _lazy(sources, name, alt, hours) for name in _OUTPUTS}
+    up = sources.get("upper_air")
+    return GridForcing(
+        time=hours.astype("datetime64[s]"),
+        surface_altitude=alt,
+        grid=grid,
+        heights_m=heights,
+        heights_source=height_src,
+        counts=counts,
+        paths=paths,
+        upper_air_pressure_pa=None if up is None else up[0].level_pa,
+        _sources=sources,
+        **arrays,
+    )
+
+
+def _expand(path_or_glob, base_dir) -> list[str]:
+    text = os.fspath(path_or_glob)
+    if base_dir is not None and not os.path.isabs(text):
+        text = os.path.join(os.fspath(base_dir), text)
+    if any(c in text for c in "*?["):
+        paths = sorted(_glob.glob(text))
+        if not paths:
+            raise ForcingReadError(f"forcing: no file matches {text!r}; check [forcing] path")
+        return paths
+    if not os.path.exists(text):
+        raise ForcingReadError(f"forcing file {text!r} does not exist; check [forcing] path")
+    return [text]
+
+
+def _open_one(path: str) -> xr.Dataset:
+    try:
+        if path.rstrip("/").endswith(".zarr") or os.path.isdir(path):
+            return xr.open_zarr(path, chunks={})
+        return xr.open_dataset(path, chunks={}, decode_timedelta=False)
+    except Exception as exc:
+        raise ForcingReadError(
+            f"forcing file {path!r} cannot be opened as NetCDF or Zarr ({type(exc).__name__}: {exc})"
+        ) from None
+
+
+def _normalise_mapping(variables) -> dict:
+    out = {}
+    for key, entry in dict(variables or {}).items():
+        if not isinstance(entry, dict):
+            entry = {k: getattr(entry, k) for k in _MAPPING_KEYS if hasattr(entry, k)}
+        unknown = set(entry) - _MAPPING_KEYS
+        if key not in _TARGET or unknown or "name" not in entry:
+            raise ConfigError(
+                f"[forcing] variables.{key}: expected a key among {sorted(_TARGET)} with fields "
+                f"name (required), units, accumulated; got {entry!r}"
+            )
+        out[key] = dict(entry)
+    return out
+
+
+def _time_dim(ds: xr.Dataset, path: str) -> str:
+    for name, coord in ds.coords.items():
+        if coord.ndim == 1 and np.issubdtype(coord.dtype, np.datetime64):
+            return coord.dims[0]
+    raise ForcingReadError(f"forcing file {path!r}: no decodable time coordinate (CF units "
+                           f"'hours since ...' expected)")
+
+
+def _file_times(ds, tdim, path):
+    """Labels and (optional) bounds in int64 seconds; checks order and duplicates."""
+    t = ds[tdim].values.astype("datetime64[s]").astype(np.int64)
+    d = np.diff(t)
+    if np.any(d <= 0):
+        k = int(np.argmax(d <= 0))
+        what = "duplicated" if d[k] == 0 else "not increasing"
+        raise ForcingReadError(
+            f"forcing file {path!r}, variable {tdim!r}: times are {what} at "
+            f"{np.datetime64(int(t[k + 1]), 's')} (after {np.datetime64(int(t[k]), 's')}); "
+            f"expected strictly increasing labels; hint: sort the file or drop duplicates")
+    bname = ds[tdim].attrs.get("bounds") or ds[tdim].encoding.get("bounds")
+    bounds = None
+    if bname and bname in ds:
+        bounds = ds[bname].values.astype("datetime64[s]").astype(np.int64)
+        if bounds.shape != (t.size, 2) or np.any(bounds[:, 1] != t) or np.any(bounds[:, 0] >= t):
+            raise ForcingReadError(
+                f"forcing file {path!r}, variable {bname!r}: time bounds must be (time, 2) with "
+                f"the label as the interval end (DESIGN §3); hint: relabel to interval ends")
+    return {"t": t, "bounds": bounds, "path": path}
+
+
+def _candidates(ds, sn):
+    return [ds[v] for v in ds.cf.standard_names.get(sn, []) if v in ds.data_vars]
+
+
+def _vertical_dims(var):
+    return list(var.dims[1:-2])
+
+
+def _height_of(var):
+    if "height" in var.coords and var["height"].ndim == 0:
+        return float(var["height"].values)
+    return None
+
+
+def _pick(sn, cands, path, want_height, upper):
+    """Choose among variables sharing a standard name (DESIGN §3)."""
+    cands = [c for c in cands if bool(_vertical_dims(c)) == upper]
+    if len(cands) <= 1:
+        return cands[0] if cands else None
+    if want_height is not None:
+        hit = [c for c in cands if _height_of(c) is not None and abs(_height_of(c) - want_height) < 1e-6]
+        if len(hit) == 1:
+            return hit[0]
+    listing = ", ".join(f"{c.name} (height {_height_of(c)})" for c in cands)
+    raise ForcingReadError(
+        f"forcing file {path!r}: several variables have standard_name {sn!r}: {listing}; "
+        f"expected one, or a scalar 'height' coordinate matching [forcing] heights_m; hint: "
+        f"set heights_m or map the variable by name in [forcing] variables")
+
+
+def _resolve_role(role, alternatives, datasets, paths, mapping, heights_m):
+    want = _hget(heights_m, "wind" if role == "wind" else "temperature")
+    for alt in alternatives:
+        per_sn = []
+        for sn in alt:
+            das = []
+            for ds, p in zip(datasets, paths):
+                if sn in mapping:
+                    name = mapping[sn]["name"]
+                    if name not in ds:
+                        raise ForcingReadError(
+                            f"forcing file {p!r}: variable {name!r} named in [forcing] "
+                            f"variables.{sn} is missing; found {sorted(ds.data_vars)}")
+                    das.append(ds[name])
+                    continue
+                if sn in ("freezing_rain_frac", "upper_air_temperature"):
+                    das.append(_pick("air_temperature", _candidates(ds, "air_temperature"), p, None, True)
+                               if sn == "upper_air_temperature" else None)
+                    continue
+                das.append(_pick(sn, _candidates(ds, sn), p, want, False))
+            if any(d is None for d in das):
+                if not all(d is None for d in das):
+                    k = [d is None for d in das].index(True)
+                    raise ForcingReadError(f"forcing file {paths[k]!r}: variable with standard_name "
+                                           f"{sn!r} is missing but present in {paths[0]!r}")
+                break
+            per_sn.append((sn, das))
+        else:
+            return per_sn
+    return None
+
+
+def _missing(role, alternatives, ds, path):
+    alts = " or ".join(" + ".join(a) for a in alternatives)
+    raise ForcingReadError(
+        f"forcing file {path!r}: no variable for {role}: expected standard_name {alts}; found "
+        f"standard names {sorted(ds.cf.standard_names)} and variables {sorted(ds.data_vars)}; "
+        f"hint: map the file's names in [forcing] variables")
+
+
+def _hget(obj, key):
+    if obj is None:
+        return None
+    return obj.get(key) if isinstance(obj, dict) else getattr(obj, key, None)
+
+
+def _heights(chosen, heights_m):
+    heights, source = {}, "file"
+    for key, role in (("temperature", "air_temperature"), ("wind", "wind")):
+        h_file = _height_of(chosen[role][0][1][0])
+        h_arg = _hget(heights_m, key)
+        if h_file is not None and h_arg is not None and abs(h_file - float(h_arg)) > 1e-6:
+            raise ConfigError(f"[forcing] heights_m.{key} = {h_arg} m but the file's 'height' "
+                              f"coordinate says {h_file} m; hint: drop heights_m.{key}")
+        if h_file is None and h_arg is None:
+            source = "standard exposure (WMO: 2 m temperature, 10 m wind)"
+        elif h_file is None and source == "file":
+            source = "[forcing] heights_m"
+        heights[key] = h_file if h_file is not None else float(h_arg if h_arg is not None
+                                                               else (2.0 if key == "temperature" else 10.0))
+    return heights, source
+
+
+def _cell_method(var) -> str | None:
+    m = re.search(r"time\s*:\s*(\w+)", str(var.attrs.get("cell_methods", "")))
+    return m.group(1) if m else None
+
+
+def _make_source(sn, das, paths, times, tdims, spatial, shape, mapping):
+    entry = mapping.get(sn, {})
+    var = das[0]
+    units = entry.get("units") or var.attrs.get("units")
+    where = f"forcing file {paths[0]!r}, variable {var.name!r} ({sn})"
+    if units is None:
+        raise ForcingReadError(f"{where}: no 'units' attribute; expected units convertible to "
+                               f"{_TARGET[sn]!r}; hint: give units in [forcing] variables.{sn}")
+    try:
+        scale, offset = U.affine_conversion(units, _TARGET[sn])
+    except U.UnitsProblem as exc:
+        raise ForcingReadError(f"{where}: {exc}; expected units convertible to {_TARGET[sn]!r}; "
+                               f"hint: fix the attribute or set units in [forcing] variables") from None
+    method = _cell_method(var)
+    kind = "interval" if sn in _AMOUNTS or sn in _FLUXES else "point"
+    if method == "point" and sn in _FLUXES:
+        kind = "point"
+    if method not in (None, "point", "mean", "sum"):
+        raise ForcingReadError(f"{where}: cell_methods 'time: {method}' cannot be used; expected "
+                               f"time: mean, sum or point")
+    blocks, level_pa = [], None
+    for d, p, td in zip(das, paths, tdims):
+        if d.dims[-2:] != spatial or tuple(d.shape[-2:]) != shape or d.dims[0] != td:
+            raise GridMismatchError(f"forcing file {p!r}, variable {d.name!r}: dims {d.dims} "
+                                    f"{d.shape}; expected (time, [level,] {spatial[0]}, "
+                                    f"{spatial[1]}) with grid {shape}")
+        blocks.append(d.data if isinstance(d.data, da.Array) else da.from_array(d.data))
+    if sn == "upper_air_temperature":
+        level_pa = _level_pressure(das[0], paths[0])
+    file_of = np.concatenate([np.full(t["t"].size, k) for k, t in enumerate(times)])
+    t_all = np.concatenate([t["t"] for t in times])
+    return _Source(sn, [d.name for d in das], paths, da.concatenate(blocks, axis=0), scale,
+                   offset, kind, file_of, t_all, level_pa)
+
+
+def _level_pressure(var, path):
+    lev = var[var.dims[1]]
+    try:
+        scale, offset = U.affine_conversion(lev.attrs.get("units", ""), "Pa")
+    except U.UnitsProblem:
+        raise ForcingReadError(f"forcing file {path!r}, variable {var.name!r}: vertical coordinate "
+                               f"{lev.name!r} must be pressure (units Pa or hPa), got "
+                               f"{lev.attrs.get('units')!r}") from None
+    return lev.values.astype(np.float64) * scale + offset
+
+
+def _surface_altitude(static_path, base_dir, datasets, paths, spatial, shape):
+    if static_path is not None:
+        sp = _expand(static_path, base_dir)[0]
+        datasets, paths = [_open_one(sp)], [sp]
+    ds, p = datasets[0], paths[0]
+    for sn, target, factor in (("surface_altitude", "m", 1.0), ("surface_geopotential", "m2 s-2", 1 / U.G0_M_S2)):
+        cands = _candidates(ds, sn)
+        if not cands:
+            continue
+        var = cands[0]
+        try:
+            scale, offset = U.affine_conversion(var.attrs.get("units", ""), target)
+        except U.UnitsProblem as exc:
+            raise ForcingReadError(f"forcing file {p!r}, variable {var.name!r} ({sn}): {exc}") from None
+        while var.ndim > 2:
+            var = var.isel({var.dims[0]: 0})
+        if tuple(var.shape) != shape:
+            raise GridMismatchError(f"static file {p!r}, variable {var.name!r}: grid {var.shape}, "
+                                    f"expected {shape} like the forcing")
+        return (np.asarray(var.values, dtype=np.float64) * scale + offset) * factor
+    raise ForcingReadError(f"forcing file {p!r}: no model terrain: expected standard_name "
+                           f"surface_altitude or surface_geopotential; hint: give [forcing] static")
+
+
+# --------------------------------------------------------------------------------- grid
+
+
+@dataclass
+class ForcingGrid:
+    """Geometry of the forcing grid.
+
+    ``kind`` is ``"latlon1d"``, ``"projected"`` (x/y in metres, ``crs`` from the CF
+    grid_mapping) or ``"latlon2d"`` (2-D latitude/longitude without a mapping; ``crs`` None).
+    ``x``, ``y`` are the native 1-D coordinates (deg or m), None for ``latlon2d``.
+    """
+
+    kind: str
+    lon: np.ndarray
+    lat: np.ndarray
+    crs: CRS | None
+    x: np.ndarray | None = None
+    y: np.ndarray | None = None
+    _inverse: object = field(default=None, repr=False)
+
+    @property
+    def shape(self):
+        return self.lon.shape
+
+    def extent_lonlat(self):
+        return (float(np.nanmin(self.lon)), float(np.nanmax(self.lon)),
+                float(np.nanmin(self.lat)), float(np.nanmax(self.lat)))
+
+    def index_of(self, lon, lat):
+        """Fractional (row along y, column along x) of points [index units]; NaN outside."""
+        lon = np.atleast_1d(np.asarray(lon, dtype=np.float64))
+        lat = np.atleast_1d(np.asarray(lat, dtype=np.float64))
+        if self.kind == "latlon1d":
+            if np.nanmax(self.x) > 180.0:
+                lon = np.mod(lon, 360.0)
+            fi, fj = _axis_index(self.y, lat), _axis_index(self.x, lon)
+        elif self.kind == "projected":
+            px, py = Transformer.from_crs("EPSG:4326", self.crs, always_xy=True).transform(lon, lat)
+            fi, fj = _axis_index(self.y, np.asarray(py)), _axis_index(self.x, np.asarray(px))
+        else:
+            fi, fj = self._invert_2d(lon, lat)
+        ny, nx = self.shape
+        bad = ~((fi >= 0) & (fi <= ny - 1) & (fj >= 0) & (fj <= nx - 1))
+        return np.where(bad, np.nan, fi), np.where(bad, np.nan, fj)
+
+    def _invert_2d(self, lon, lat):
+        """Newton inversion of cubic-spline maps (row, col) -> local azimuthal metres."""
+        if self._inverse is None:
+            lon0, lat0 = float(np.mean(self.lon)), float(np.mean(self.lat))
+            tr = Transformer.from_crs("EPSG:4326", f"+proj=aeqd +lat_0={lat0} +lon_0={lon0} +datum=WGS84",
+                                      always_xy=True)
+            gx, gy = tr.transform(self.lon, self.lat)
+            ny, nx = self.shape
+            ii, jj = np.arange(ny, dtype=float), np.arange(nx, dtype=float)
+            kx, ky = min(3, ny - 1), min(3, nx - 1)
+            self._inverse = (tr, RectBivariateSpline(ii, jj, gx, kx=kx, ky=ky),
+                             RectBivariateSpline(ii, jj, gy, kx=kx, ky=ky),
+                             cKDTree(np.c_[gx.ravel(), gy.ravel()]), np.hypot(*np.gradient(gx)).mean())
+        tr, sx, sy, tree, spacing = self._inverse
+        px, py = tr.transform(lon, lat)
+        _, nearest = tree.query(np.c_[px, py])
+        fi, fj = np.divmod(nearest, self.shape[1])
+        fi, fj = fi.astype(float), fj.astype(float)
+        ny, nx = self.shape
+        for _ in range(30):
+            rx, ry = sx.ev(fi, fj) - px, sy.ev(fi, fj) - py
+            a, b = sx.ev(fi, fj, dx=1), sx.ev(fi, fj, dy=1)
+            c, d = sy.ev(fi, fj, dx=1), sy.ev(fi, fj, dy=1)
+            det = a * d - b * c
+            fi = np.clip(fi - (d * rx - b * ry) / det, -1.0, ny)
+            fj = np.clip(fj - (a * ry - c * rx) / det, -1.0, nx)
+        rx, ry = sx.ev(fi, fj) - px, sy.ev(fi, fj) - py
+        lost = np.hypot(rx, ry) > 1e-6 * spacing
+        return np.where(lost, np.nan, fi), np.where(lost, np.nan, fj)
+
+    def check_covers(self, lon, lat, where="forcing") -> None:
+        """Raise GridMismatchError unless every point has 4 surrounding grid points."""
+        lon = np.atleast_1d(np.asarray(lon, dtype=np.float64))
+        lat = np.atleast_1d(np.asarray(lat, dtype=np.float64))
+        fi, _ = self.index_of(lon, lat)
+        out = np.isnan(fi)
+        if out.any():
+            g = self.extent_lonlat()
+            raise GridMismatchError(
+                f"forcing grid of {where!r} does not cover {int(out.sum())} of {lon.size} points: "
+                f"grid extent lon {g[0]:.4f}..{g[1]:.4f}, lat {g[2]:.4f}..{g[3]:.4f}; points span "
+                f"lon {lon.min():.4f}..{lon.max():.4f}, lat {lat.min():.4f}..{lat.max():.4f}; "
+                f"hint: use forcing over a larger domain than the DEM and zones")
+
+
+def _axis_index(coord, value):
+    """Fractional index of values along a monotonic 1-D coordinate (NaN outside)."""
+    idx = np.arange(coord.size, dtype=np.float64)
+    if coord.size > 1 and coord[-1] < coord[0]:
+        coord, idx = coord[::-1], idx[::-1]
+    return np.interp(value, coord, idx, left=np.nan, right=np.nan)
+
+
+def _is_axis(coord, kind):
+    sn, units = coord.attrs.get("standard_name", ""), str(coord.attrs.get("units", ""))
+    if kind == "lon":
+        return sn == "longitude" or units in ("degrees_east", "degree_east", "degrees_E", "degreeE")
+    if kind == "lat":
+        return sn == "latitude" or units in ("degrees_north", "degree_north", "degrees_N", "degreeN")
+    return sn in ("projection_x_coordinate", "projection_y_coordinate", "grid_longitude",
+                  "grid_latitude") or units in ("m", "km", "metre", "meter", "kilometre")
+
+
+def _coord_along(ds, dim):
+    """The 1-D coordinate along ``dim``: the dimension coordinate, else one with axis meaning."""
+    if dim in ds.coords:
+        return ds[dim]
+    for c in ds.coords.values():
+        if c.dims == (dim,) and any(_is_axis(c, k) for k in ("lon", "lat", "xy")):
+            return c
+    return None
+
+
+def grid_from_dataset(ds: xr.Dataset, var: xr.DataArray, path: str) -> ForcingGrid:
+    """Recognise the grid of ``var``: 1-D lat/lon, projected x/y with a grid_mapping, or
+    2-D latitude/longitude (DESIGN §3)."""
+    ydim, xdim = var.dims[-2:]
+    xc, yc = _coord_along(ds, xdim), _coord_along(ds, ydim)
+    gm = var.attrs.get("grid_mapping") or var.encoding.get("grid_mapping")
+    crs = None
+    if gm:
+        if gm not in ds.variables:
+            raise ForcingReadError(f"forcing file {path!r}, variable {var.name!r}: grid_mapping "
+                                   f"{gm!r} names no variable in the file")
+        try:
+            crs = CRS.from_cf(dict(ds[gm].attrs))
+        except Exception as exc:
+            raise ForcingReadError(f"forcing file {path!r}, grid_mapping {gm!r}: not a CF grid "
+                                   f"mapping pyproj understands ({exc})") from None
+    if xc is not None and yc is not None and _is_axis(xc, "lon") and _is_axis(yc, "lat"):
+        x, y = xc.values.astype(np.float64), yc.values.astype(np.float64)
+        lon, lat = np.meshgrid(np.where(x > 180, x - 360, x), y)
+        return ForcingGrid("latlon1d", lon, lat, crs or CRS.from_epsg(4326), x, y)
+    if xc is not None and yc is not None and _is_axis(xc, "xy") and _is_axis(yc, "xy"):
+        if crs is None:
+            raise ForcingReadError(f"forcing file {path!r}, variable {var.name!r}: projected x/y "
+                                   f"coordinates need a grid_mapping attribute (CF §5.6)")
+        try:
+            sx, _ = U.affine_conversion(xc.attrs.get("units", "m"), "m")
+            sy, _ = U.affine_conversion(yc.attrs.get("units", "m"), "m")
+        except U.UnitsProblem as exc:
+            raise ForcingReadError(f"forcing file {path!r}: grid coordinate units: {exc}") from None
+        x, y = xc.values.astype(np.float64) * sx, yc.values.astype(np.float64) * sy
+        xx, yy = np.meshgrid(x, y)
+        lon, lat = Transformer.from_crs(crs, "EPSG:4326", always_xy=True).transform(xx, yy)
+        return ForcingGrid("projected", np.asarray(lon), np.asarray(lat), crs, x, y)
+    two_d = {k: c for k, c in ds.variables.items() if c.dims == (ydim, xdim)}
+    lon2 = [c for c in two_d.values() if _is_axis(c, "lon")]
+    lat2 = [c for c in two_d.values() if _is_axis(c, "lat")]
+    if lon2 and lat2:
+        lon = np.asarray(lon2[0].values, dtype=np.float64)
+        return ForcingGrid("latlon2d", np.where(lon > 180, lon - 360, lon),
+                           np.asarray(lat2[0].values, dtype=np.float64), None)
+    raise ForcingReadError(
+        f"forcing file {path!r}, variable {var.name!r}: grid not recognised: expected 1-D "
+        f"latitude/longitude, projected x/y with a grid_mapping, or 2-D latitude/longitude on "
+        f"({ydim}, {xdim}) (units degrees_north/degrees_east)")
+
+
+# ------------------------------------------------------------------------ time operators
+
+
+def _wide_axis(times):
+    lo = min(int(t["t"][0]) if t["bounds"] is None else int(t["bounds"][0, 0]) for t in times)
+    lo -= MAX_STATE_STEP_H * _H
+    hi = max(int(t["t"][-1]) for t in times)
+    return np.arange(-(-lo // _H) * _H, (hi // _H) * _H + 1, _H, dtype=np.int64)
+
+
+def _native_intervals(tinfo, accumulated, where):
+    """Per native step: start of its value's interval, same-run flag, start of its own
+    interval after de-accumulation, and whether it defines an interval at all."""
+    t, b = tinfo["t"], tinfo["bounds"]
+    if b is not None:
+        starts = b[:, 0]
+        same = np.r_[False, starts[1:] == starts[:-1]]
+        if accumulated and not same.any() and t.size > 1:
+            raise ForcingReadError(f"{where}: accumulated = true in [forcing] variables but the "
+                                   f"time bounds do not share a start; hint: drop accumulated")
+        return starts, same, np.where(same, np.r_[t[0], t[:-1]], starts), np.ones(t.size, bool)
+    prev = np.r_[t[0] - (t[1] - t[0] if t.size > 1 else _H), t[:-1]]
+    if accumulated:  # one run from the first label, which is the baseline only
+        same = np.r_[False, np.ones(t.size - 1, bool)]
+        return np.full(t.size, t[0]), same, prev, same
+    return prev, np.zeros(t.size, bool), prev, np.ones(t.size, bool)
+
+
+def _build_operator(s: _Source, times, hours, mapping):
+    """Sparse operators native -> hourly (``S``) and values -> amounts (``D``).
+
+    Amounts are spread over the hours they overlap in proportion to the overlap, so every
+    interval's amount is conserved; states are linear in time between labels. An hour is
+    owned by the last file that covers it whole (later files win).
+    """
+    acc = bool(mapping.get(s.standard_name, {}).get("accumulated", False))
+    n_native, n_h = s.file_of.size, hours.size
+    offsets = np.r_[0, np.cumsum([t["t"].size for t in times])]
+    owner = np.full(n_h, -1)
+    parts, d_parts = [], []
+    for k, tinfo in enumerate(times):
+        t, off = tinfo["t"], offsets[k]
+        where = f"forcing file {tinfo['path']!r}, variable {s.names[k]!r}"
+        step = np.diff(t)
+        limit = (MAX_STATE_STEP_H if tinfo["bounds"] is not None else MAX_GAP_H) * _H
+        if step.size and step.max() > limit:
+            j = int(np.argmax(step))
+            raise ForcingReadError(
+                f"{where}: gap of {step[j] / _H:g} h after {np.datetime64(int(t[j]), 's')}; expected "
+                f"steps of at most {limit // _H} h; hint: fill the gap, or give time_bnds when the "
+                f"file is coarser by design")
+        idx = np.arange(t.size)
+        if s.kind == "point":
+            h = np.flatnonzero((hours >= t[0]) & (hours <= t[-1]))
+            owner[h] = k
+            continue
+        starts, same, begin, valid = _native_intervals(tinfo, acc, where)
+        basis = np.ones(t.size) if s.standard_name in _AMOUNTS else (t - starts).astype(np.float64)
+        prev = np.maximum(idx - 1, 0)
+        d_parts.append((np.r_[idx, idx[same]] + off, np.r_[idx, prev[same]] + off,
+                        np.r_[basis, -basis[prev][same]]))
+        a, b, gi = begin[valid], t[valid], (idx + off)[valid]
+        h_first = -(-(a + 1) // _H) * _H
+        nk = ((-(-b // _H) * _H - h_first) // _H + 1).astype(np.int64)
+        rep = np.repeat(np.arange(a.size), nk)
+        hl = h_first[rep] + (np.arange(rep.size) - np.repeat(np.cumsum(nk) - nk, nk)) * _H
+        ov = (np.minimum(b[rep], hl) - np.maximum(a[rep], hl - _H)).astype(np.float64)
+        keep = (ov > 0) & (hl >= hours[0]) & (hl <= hours[-1])
+        hrow = (hl[keep] - hours[0]) // _H
+        cover = np.bincount(hrow, weights=ov[keep], minlength=n_h)
+        owner[np.isclose(cover, _H)] = k
+        parts.append((hrow, gi[rep][keep], (ov / (b - a)[rep])[keep], np.full(hrow.size, k)))
+    if s.kind == "point":
+        parts = []
+        for k, tinfo in enumerate(times):
+            h, t = np.flatnonzero(owner == k), tinfo["t"]
+            if t.size == 1:
+                parts.append((h, np.full(h.size, offsets[k]), np.ones(h.size), None))
+                continue
+            j = np.clip(np.searchsorted(t, hours[h], side="right") - 1, 0, t.size - 2)
+            w = (hours[h] - t[j]) / (t[j + 1] - t[j])
+            parts.append((np.r_[h, h], np.r_[j, j + 1] + offsets[k], np.r_[1 - w, w], None))
+    else:
+        parts = [(r[o], c[o], v[o], None) for r, c, v, f in parts for o in [owner[r] == f]]
+        r, c, v = (np.concatenate(x) for x in zip(*d_parts))
+        s.D = sparse.csr_matrix((v, (r, c)), shape=(n_native, n_native))
+    r, c, v = (np.concatenate([p[i] for p in parts]) if parts else np.empty(0) for i in range(3))
+    S = sparse.csr_matrix((v.astype(np.float64), (r.astype(np.int64), c.astype(np.int64))),
+                          shape=(n_h, n_native))
+    S.eliminate_zeros()
+    s.S, s.covered = S, owner >= 0
+
+
+def _final_axis(sources, wide, start, end, paths):
+    """Hours covered by every variable, cut to [start, end]; operators cut alike."""
+    lo, hi = 0, wide.size - 1
+    for members in sources.values():
+        for s in members:
+            cov = np.flatnonzero(s.covered)
+            if cov.size == 0:
+                raise ForcingReadError(f"{s.label()}: covers no whole hour")
+            lo, hi = max(lo, cov[0]), min(hi, cov[-1])
+    for val, name in ((start, "start"), (end, "end")):
+        if val is None:
+            continue
+        v = int(np.datetime64(val, "s").astype(np.int64))
+        k = int((v - wide[0]) // _H) if name == "end" else int(-(-(v - wide[0]) // _H))
+        if not lo <= k <= hi:
+            raise ForcingReadError(
+                f"forcing {paths[0]!r}: [forcing] {name} = {np.datetime64(v, 's')} lies outside the "
+                f"hours every variable covers, {np.datetime64(int(wide[lo]), 's')} .. "
+                f"{np.datetime64(int(wide[hi]), 's')}; hint: change [forcing] {name}")
+        lo, hi = (k, hi) if name == "start" else (lo, k)
+    if hi < lo:
+        raise ForcingReadError(f"forcing {paths[0]!r}: no whole hour is covered by all variables")
+    for members in sources.values():
+        for s in members:
+            s.S, s.covered = s.S[lo:hi + 1], s.covered[lo:hi + 1]
+    return wide[lo:hi + 1]
+
+
+def _check_gaps(sources, hours) -> int:
+    """Uncovered hours: runs longer than MAX_GAP_H fail; shorter ones are counted."""
+    missing = np.zeros(hours.size, bool)
+    for members in sources.values():
+        for s in members:
+            run, (at, _) = _longest_run(~s.covered[:, None])
+            if run > MAX_GAP_H:
+                raise ForcingReadError(
+                    f"{s.label()}: {run} h without data from {np.datetime64(int(hours[at]) - _H, 's')} "
+                    f"(files {s.paths}); expected gaps of at most {MAX_GAP_H} h; hint: fill the "
+                    f"forcing or choose [forcing] start/end around the gap")
+            missing |= ~s.covered
+    return int(missing.sum())
+
+
+# --------------------------------------------------------------------------- computation
+
+
+def _longest_run(mask):
+    """Longest run of True along axis 0 of a (time, point) mask, and (start, point)."""
+    if not mask.any():
+        return 0, (0, 0)
+    idx = np.arange(mask.shape[0])[:, None]
+    length = np.where(mask, idx - np.maximum.accumulate(np.where(~mask, idx, -1), axis=0), 0)
+    t_end, p = divmod(int(np.argmax(length)), mask.shape[1])
+    run = int(length[t_end, p])
+    return run, (t_end - run + 1, p)
+
+
+def _fill_nan(y):
+    """Linear interpolation along time over NaN runs (persistence at the ends)."""
+    bad = np.isnan(y)
+    if not bad.any():
+        return y
+    n = y.shape[0]
+    idx = np.arange(n)[:, None]
+    prev = np.maximum.accumulate(np.where(~bad, idx, -1), axis=0)
+    nxt = np.minimum.accumulate(np.where(~bad, idx, n)[::-1], axis=0)[::-1]
+    cols = np.broadcast_to(np.arange(y.shape[1]), y.shape)
+    yp, yn = y[np.clip(prev, 0, n - 1), cols], y[np.clip(nxt, 0, n - 1), cols]
+    yp, yn = np.where(prev < 0, yn, yp), np.where(nxt >= n, yp, yn)
+    w = np.where((prev >= 0) & (nxt < n), (idx - prev) / np.maximum(nxt - prev, 1), 0.0)
+    return np.where(bad, yp + w * (yn - yp), y)
+
+
+def _series(s: _Source, rows, reader, stats, fn=None):
+    """Hourly float64 series (rows, [level,] point) of one source: converted, brought to
+    hourly, gap-filled and checked. ``fn`` (optional) maps converted values first."""
+    S = s.S[rows]
+    need = np.unique(S.indices)
+    D = s.D[need] if s.kind == "interval" else None
+    raw_cols = np.unique(D.indices) if D is not None else need
+    x = reader(s, raw_cols).astype(np.float64) * s.scale + s.offset
+    if fn is not None:
+        x = fn(x)
+    rest = x.shape[1:]
+    x = x.reshape(x.shape[0], -1)
+    if D is None:
+        y = S[:, raw_cols] @ x
+    else:
+        amount = D[:, raw_cols] @ x
+        if "precipitation" in s.standard_name and amount.size:
+            worst = np.nanmin(amount, initial=0.0)
+            if worst < -NEGATIVE_PRECIP_TOL_KG_M2:
+                r, p = np.unravel_index(np.nanargmin(amount), amount.shape)
+                k = need[r]
+                raise ForcingReadError(
+                    f"forcing file {s.paths[s.file_of[k]]!r}, variable {s.names[s.file_of[k]]!r}: "
+                    f"precipitation of {worst:.3f} kg m-2 in the interval ending "
+                    f"{np.datetime64(int(s.t_all[k]), 's')} at grid point {p}; expected >= "
+                    f"-{NEGATIVE_PRECIP_TOL_KG_M2} kg m-2; hint: an accumulation reset not marked "
+                    f"by time_bnds, or accumulated = true on a per-interval variable")
+            neg = amount < 0
+            stats["negative_precip_clipped"] += int(neg.sum())
+            amount[neg] = 0.0
+        y = S[:, need] @ amount / _H  # interval means; amounts are re-multiplied by the caller
+    y[~s.covered[rows]] = np.nan
+    run, (t_at, p_at) = _longest_run(np.isnan(y))
+    if run > MAX_GAP_H:
+        raise ForcingReadError(
+            f"{s.label()}: {run} consecutive missing hours (NaN) at grid point {p_at} from "
+            f"hourly step {int(rows[t_at])}; expected NaN runs of at most {MAX_GAP_H} h; hint: "
+            f"fill the forcing or choose [forcing] start/end around them")
+    stats["nan_filled"] += int((np.isnan(y) & s.covered[rows][:, None]).sum())
+    y = _fill_nan(y)
+    return y.reshape((y.shape[0],) + rest)
+
+
+def _available(sources, name):
+    return name == "surface_air_pressure" or _OUTPUTS[name][0] in sources
+
+
+def _compute(sources, names, rows, alt, reader):
+    """Canonical outputs at points; ``reader(source, native_cols) -> (cols, [level,] point)``."""
+    stats = {"nan_filled": 0, "negative_precip_clipped": 0, "rh_clipped": 0}
+    cache = {}
+
+    def get(role, k=0, fn=None, tag=None):
+        if (role, k, tag) not in cache:
+            cache[(role, k, tag)] = _series(sources[role][k], rows, reader, stats, fn)
+        return cache[(role, k, tag)]
+
+    def pressure():
+        if "pressure" in sources:
+            return get("pressure")
+        return np.broadcast_to(U.pressure_standard_atmosphere(alt), (rows.size, alt.size))
+
+    out = {}
+    for name in names:
+        if name not in _OUTPUTS or not _available(sources, name):
+            raise KeyError(f"forcing has no {name!r}; available: "
+                           f"{[n for n in _OUTPUTS if _available(sources, n)]}")
+        if name in ("air_temperature", "shortwave_down", "longwave_down", "upper_air_temperature"):
+            v = get(_OUTPUTS[name][0])
+        elif name == "precipitation":
+            v = get("precipitation") * _H
+        elif name == "freezing_rain_frac":
+            v = np.clip(get("freezing_rain"), 0.0, 1.0)
+        elif name == "surface_air_pressure":
+            v = pressure()
+        elif name == "relative_humidity":
+            sn = sources["humidity"][0].standard_name
+            if sn == "relative_humidity":
+                v = get("humidity")
+            elif sn == "specific_humidity":
+                v = U.relative_humidity_from_specific_humidity(get("humidity"), get("air_temperature"),
+                                                               pressure())
+            else:
+                v = U.relative_humidity_from_dew_point(get("humidity"), get("air_temperature"))
+            stats["rh_clipped"] += int(((v > 1.0) | (v < 0.0)).sum())
+            v = np.clip(v, 0.0, 1.0)
+        elif sources["wind"][0].standard_name == "eastward_wind":
+            v = U.wind_from_components(get("wind", 0), get("wind", 1))[name == "wind_from_direction"]
+        elif name == "wind_speed":
+            v = get("wind", 0)
+        else:  # direction interpolated through its unit vector
+            sin = get("wind", 1, lambda d: np.sin(np.radians(d)), "sin")
+            cos = get("wind", 1, lambda d: np.cos(np.radians(d)), "cos")
+            v = np.mod(np.degrees(np.arctan2(sin, cos)), 360.0)
+        out[name] = np.asarray(v, dtype=np.float32)
+    return out, stats
+
+
+def _read_points(s: _Source, cols, iy, ix):
+    arr = s.data[cols]
+    got = arr.vindex[(slice(None),) * (arr.ndim - 2) + (iy, ix)].compute()
+    return np.moveaxis(got, 0, -1)  # (cols, [level,] point)
+
+
+def _members(sources, names):
+    roles = {r for n in names for r in _OUTPUTS[n] if r in sources}
+    return [(r, k) for r in sorted(roles) for k in range(len(sources[r]))]
+
+
+def _chunked(sources, members, alt):
+    n = max(sources[r][k].data.shape[0] * int(np.prod(sources[r][k].data.shape[1:-2])) for r, k in members)
+    side = int(max(8, min(256, np.sqrt(4e6 / max(n, 1)))))
+    cy, cx = min(side, alt.shape[0]), min(side, alt.shape[1])
+    arrays = [sources[r][k].data.rechunk((-1,) * (sources[r][k].data.ndim - 2) + (cy, cx))
+              for r, k in members]
+    return arrays, da.from_array(alt, chunks=(cy, cx))
+
+
+def _block_fn(sources, names, members, rows):
+    """A function of (alt block, *source blocks) -> (dict of (rows, ..., cy, cx), stats)."""
+    def fn(alt_blk, *blocks):
+        lookup = {id(sources[r][k]): b for (r, k), b in zip(members, blocks)}
+
+        def reader(s, cols):
+            b = lookup[id(s)][cols]
+            return b.reshape(b.shape[:-2] + (-1,))
+
+        out, stats = _compute(sources, names, rows, alt_blk.reshape(-1), reader)
+        return {k: v.reshape(v.shape[:-1] + alt_blk.shape) for k, v in out.items()}, stats
+    return fn
+
+
+def _lazy(sources, name, alt, hours):
+    """The canonical DataArray ``name`` as a dask graph over spatial blocks (or None)."""
+    if not _available(sources, name):
+        return None
+    coords = {"time": hours.astype("datetime64[ns]")}
+    attrs = {"units": _OUT_UNITS[name]}
+    members = _members(sources, [name])
+    if not members:  # pressure from the standard atmosphere at model height
+        p = da.broadcast_to(da.from_array(U.pressure_standard_atmosphere(alt).astype(np.float32)),
+                            (hours.size,) + alt.shape)
+        return xr.DataArray(p, dims=("time", "y", "x"), coords=coords, name=name, attrs=attrs)
+    arrays, alt_d = _chunked(sources, members, alt)
+    fn = _block_fn(sources, [name], members, np.arange(hours.size))
+    extra = arrays[0].shape[1:-2] if name == "upper_air_temperature" else ()
+    lead = (None,) * (1 + len(extra))
+
+    def block(alt_blk, *blocks):
+        return fn(alt_blk[(0,) * len(lead)], *blocks)[0][name]
+
+    chunks = ((hours.size,),) + tuple((e,) for e in extra) + alt_d.chunks
+    data = da.map_blocks(block, alt_d[lead], *arrays, chunks=chunks, dtype=np.float32)
+    dims = ("time",) + (("level",) if extra else ()) + ("y", "x")
+    return xr.DataArray(data, dims=dims, coords=coords, name=name, attrs=attrs)
+
+
+def _validate(sources, alt, n_h) -> dict:
+    """One pass over all data: raise on bad values, count repairs (for run.json)."""
+    names = [n for n in _OUTPUTS if _available(sources, n) and _members(sources, [n])]
+    members = _members(sources, names)
+    arrays, alt_d = _chunked(sources, members, alt)
+    fn = _block_fn(sources, names, members, np.arange(n_h))
+    blocks = [a.to_delayed().reshape((-1,) + a.numblocks[-2:])[0] for a in arrays]
+    alt_blocks = alt_d.to_delayed()
+    tasks = [dask.delayed(lambda *a: fn(*a)[1])(alt_blocks[j, i], *[b[j, i] for b in blocks])
+             for j in range(alt_d.numblocks[0]) for i in range(alt_d.numblocks[1])]
+    counts = {"nan_filled": 0, "negative_precip_clipped": 0, "rh_clipped": 0}
+    for r in dask.compute(*tasks):
+        for k in counts:
+            counts[k] += r[k]
+    return counts

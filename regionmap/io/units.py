@@ -1,0 +1,177 @@
+"""Unit handling and the small conversions the forcing reader needs.
+
+Units are parsed with pint through cf_xarray's CF-aware registry; the two gaps the design
+notes (``degree_C`` spellings, and depth of water ↔ mass per area) are handled here
+explicitly, never guessed. Every conversion is affine (``value * scale + offset``), so the
+reader can apply it lazily and exactly.
+
+Physics helpers (plain NumPy, float64):
+
+* :func:`saturation_vapour_pressure_buck1981` — over water, Buck (1981).
+* :func:`pressure_standard_atmosphere` — ICAO Doc 7488 / ISO 2533 troposphere.
+* :func:`relative_humidity_from_specific_humidity`, :func:`relative_humidity_from_dew_point`.
+* :func:`wind_from_components`, :func:`components_from_wind`.
+"""
+
+from __future__ import annotations
+
+import re
+
+import numpy as np
+
+__all__ = [
+    "WATER_DENSITY_KG_M3",
+    "G0_M_S2",
+    "normalise_units",
+    "affine_conversion",
+    "saturation_vapour_pressure_buck1981",
+    "pressure_standard_atmosphere",
+    "relative_humidity_from_specific_humidity",
+    "relative_humidity_from_dew_point",
+    "wind_from_components",
+    "components_from_wind",
+]
+
+WATER_DENSITY_KG_M3 = 1000.0
+"""Density of liquid water used for depth ↔ mass of precipitation (1 mm = 1 kg m-2)."""
+
+G0_M_S2 = 9.80665
+"""Standard gravity (CGPM 1901), for geopotential ↔ geopotential height."""
+
+_CELSIUS = re.compile(r"^\s*(deg(ree)?s?[ _]?c(elsius)?|°\s?c|c(elsius)?)\s*$", re.IGNORECASE)
+
+
+class UnitsProblem(ValueError):
+    """Raised by :func:`affine_conversion`; the reader re-raises it with file and variable."""
+
+
+def normalise_units(units: str) -> str:
+    """Spell a CF units string so pint understands it.
+
+    CF allows ``degree_C``, ``degrees_C``, ``degC``, ``Celsius`` (UDUNITS spellings) that
+    cf_xarray's registry does not all know; they become ``degC``. ``%`` becomes ``percent``.
+    """
+    text = str(units).strip()
+    if _CELSIUS.match(text):
+        return "degC"
+    if text == "%":
+        return "percent"
+    return text
+
+
+def _quantity(values, units: str):
+    from cf_xarray.units import units as ureg
+
+    try:
+        return ureg.Quantity(np.asarray(values, dtype=np.float64), normalise_units(units))
+    except Exception as exc:  # pint raises several unrelated types for bad strings
+        raise UnitsProblem(f"units {units!r} are not understood ({type(exc).__name__}: {exc})") from None
+
+
+def affine_conversion(units: str, target: str) -> tuple[float, float]:
+    """Return ``(scale, offset)`` with ``value_target = value * scale + offset``.
+
+    Parameters
+    ----------
+    units : str
+        The file's units string (CF / UDUNITS spelling).
+    target : str
+        The canonical units, e.g. ``"K"``, ``"kg m-2"``, ``"kg m-2 s-1"``.
+
+    Notes
+    -----
+    A depth of liquid water (``mm``, ``m``) converts to mass per area, and a depth rate
+    (``mm h-1``, ``m s-1`` of water) to a mass flux, through the density of water
+    ``WATER_DENSITY_KG_M3`` = 1000 kg m-3, explicitly: pint alone cannot know that the
+    length is a water-equivalent thickness.
+
+    Raises
+    ------
+    UnitsProblem
+        Units not parseable, or not convertible to ``target``.
+    """
+    from cf_xarray.units import units as ureg
+
+    src = _quantity([0.0, 1.0], units)
+    dst_units = ureg.Unit(normalise_units(target))
+    mass_per_area = ureg.Unit("kg m-2").dimensionality
+    if dst_units.dimensionality in (mass_per_area, (ureg.Unit("kg m-2 s-1")).dimensionality):
+        water = ureg.Quantity(WATER_DENSITY_KG_M3, "kg m-3")
+        if (src * water).dimensionality == dst_units.dimensionality:
+            src = src * water
+    try:
+        out = src.to(dst_units).magnitude
+    except Exception:
+        raise UnitsProblem(
+            f"units {units!r} ({src.dimensionality}) cannot be converted to {target!r} "
+            f"({dst_units.dimensionality})"
+        ) from None
+    offset = float(out[0])
+    return float(out[1] - out[0]), offset
+
+
+def saturation_vapour_pressure_buck1981(t_air_k):
+    """Saturation vapour pressure over liquid water [Pa].
+
+    Parameters
+    ----------
+    t_air_k : array_like
+        Temperature [K].
+
+    Notes
+    -----
+    e_s = 611.21 exp(17.502 T / (240.97 + T)), T in degC (Buck 1981, Eq. 8 constants for
+    water, the set METHODS.md lists).
+
+    References
+    ----------
+    Buck, A. L. (1981): New equations for computing vapor pressure and enhancement factor.
+    J. Appl. Meteorol. 20, 1527-1532. doi:10.1175/1520-0450(1981)020<1527:NEFCVP>2.0.CO;2
+    """
+    t_c = np.asarray(t_air_k, dtype=np.float64) - 273.15
+    return 611.21 * np.exp(17.502 * t_c / (240.97 + t_c))
+
+
+def pressure_standard_atmosphere(elevation_m):
+    """Pressure of the ICAO standard atmosphere at a geopotential height [Pa].
+
+    p = 101325 (1 - 0.0065 h / 288.15)^5.25588 (ICAO Doc 7488, ISO 2533:1975 troposphere).
+    """
+    h = np.asarray(elevation_m, dtype=np.float64)
+    return 101325.0 * (1.0 - 0.0065 * h / 288.15) ** 5.25588
+
+
+def relative_humidity_from_specific_humidity(q_kg_kg, t_air_k, pressure_pa):
+    """Relative humidity over water [1] from specific humidity.
+
+    Vapour pressure e = q p / (ε + (1 - ε) q), ε = 0.622 (ratio of the gas constants of dry
+    air and water vapour); RH = e / e_s(T) with :func:`saturation_vapour_pressure_buck1981`.
+    (Wallace & Hobbs 2006, Atmospheric Science, Eq. 3.57-3.62.)
+    """
+    q = np.asarray(q_kg_kg, dtype=np.float64)
+    e_pa = q * np.asarray(pressure_pa, dtype=np.float64) / (0.622 + 0.378 * q)
+    return e_pa / saturation_vapour_pressure_buck1981(t_air_k)
+
+
+def relative_humidity_from_dew_point(t_dew_k, t_air_k):
+    """Relative humidity over water [1] = e_s(T_d) / e_s(T) (Buck 1981 saturation curve)."""
+    return saturation_vapour_pressure_buck1981(t_dew_k) / saturation_vapour_pressure_buck1981(t_air_k)
+
+
+def wind_from_components(u_m_s, v_m_s):
+    """Speed [m s-1] and meteorological direction the wind blows *from* [deg, 0 = N].
+
+    direction = atan2(-u, -v) mod 360 (WMO convention; calm air gets 0).
+    """
+    u = np.asarray(u_m_s, dtype=np.float64)
+    v = np.asarray(v_m_s, dtype=np.float64)
+    speed = np.hypot(u, v)
+    direction = np.mod(np.degrees(np.arctan2(-u, -v)), 360.0)
+    return speed, np.where(speed > 0, direction, 0.0)
+
+
+def components_from_wind(speed_m_s, from_direction_deg):
+    """Eastward and northward components [m s-1] of a wind blowing from a direction."""
+    rad = np.radians(np.asarray(from_direction_deg, dtype=np.float64))
+    speed = np.asarray(speed_m_s, dtype=np.float64)
+    return -speed * np.sin(rad), -speed * np.cos(rad)
