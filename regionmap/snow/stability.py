@@ -148,43 +148,54 @@ def _absolute_count(v0, v1, v2, v3, v4, v5):
 
 
 @njit(cache=True, nogil=True, error_model="numpy")
-def _rel(v, lo, hi):
-    if hi > lo:
-        return (v - lo) / (hi - lo)
-    return 0.0
-
-
-@njit(cache=True, nogil=True, error_model="numpy")
-def _column_ranges(n, thickness_m, grain_size_mm, hardness_index, grain_code, vmin, vmax):
-    """Minimum and maximum of each oriented variable over the column's interfaces."""
-    for i in range(N_CRITERIA):
-        vmin[i] = np.inf
-        vmax[i] = -np.inf
-    depth_m = 0.0
+def _column_variables(n, thickness_m, grain_size_mm, hardness_index, grain_code, var, depth_m):
+    """Oriented variables ``var[:, k]`` and depth ``depth_m[k]`` of interfaces 0..n-2."""
+    d = 0.0
     for k in range(n - 2, -1, -1):
-        depth_m += thickness_m[k + 1]
-        v = _interface_variables(k, depth_m, grain_size_mm, hardness_index, grain_code)
-        for i in range(N_CRITERIA):
-            if v[i] < vmin[i]:
-                vmin[i] = v[i]
-            if v[i] > vmax[i]:
-                vmax[i] = v[i]
+        d += thickness_m[k + 1]
+        depth_m[k] = d
+        v = _interface_variables(k, d, grain_size_mm, hardness_index, grain_code)
+        var[0, k] = v[0]
+        var[1, k] = v[1]
+        var[2, k] = v[2]
+        var[3, k] = v[3]
+        var[4, k] = v[4]
+        var[5, k] = v[5]
 
 
 @njit(cache=True, nogil=True, error_model="numpy")
-def _interface_score(k, depth_m, grain_size_mm, hardness_index, grain_code, relative, vmin, vmax):
-    v0, v1, v2, v3, v4, v5 = _interface_variables(
-        k, depth_m, grain_size_mm, hardness_index, grain_code
-    )
-    if not relative:
-        return _absolute_count(v0, v1, v2, v3, v4, v5)
-    s = _rel(v0, vmin[0], vmax[0])
-    s += _rel(v1, vmin[1], vmax[1])
-    s += _rel(v2, vmin[2], vmax[2])
-    s += _rel(v3, vmin[3], vmax[3])
-    s += _rel(v4, vmin[4], vmax[4])
-    if s > 0.0:
-        s += _rel(v5, vmin[5], vmax[5])
+def _row_scaling(var, i, n):
+    """Minimum of ``var[i, :n-1]`` and 1 / (max - min), 0 where there is no spread."""
+    lo = np.inf
+    hi = -np.inf
+    for k in range(n - 1):
+        lo = min(lo, var[i, k])
+        hi = max(hi, var[i, k])
+    return lo, (1.0 / (hi - lo) if hi > lo else 0.0)
+
+
+@njit(cache=True, nogil=True, error_model="numpy")
+def _relative_scaling(n, var):
+    """Per variable, minimum over the column's interfaces and inverse span (two 6-tuples)."""
+    l0, i0 = _row_scaling(var, 0, n)
+    l1, i1 = _row_scaling(var, 1, n)
+    l2, i2 = _row_scaling(var, 2, n)
+    l3, i3 = _row_scaling(var, 3, n)
+    l4, i4 = _row_scaling(var, 4, n)
+    l5, i5 = _row_scaling(var, 5, n)
+    return (l0, l1, l2, l3, l4, l5), (i0, i1, i2, i3, i4, i5)
+
+
+@njit(cache=True, nogil=True, error_model="numpy")
+def _relative_sum(v, lo, inv):
+    """Relative threshold sum of one interface (6-tuples: variables, minima, inverse spans)."""
+    s = (v[0] - lo[0]) * inv[0]
+    s += (v[1] - lo[1]) * inv[1]
+    s += (v[2] - lo[2]) * inv[2]
+    s += (v[3] - lo[3]) * inv[3]
+    s += (v[4] - lo[4]) * inv[4]
+    if s > 0.0:  # depth counts only where the interface stands out structurally
+        s += (v[5] - lo[5]) * inv[5]
     return s
 
 
@@ -219,11 +230,12 @@ def threshold_count_interfaces(
     Notes
     -----
     Compiled; never raises. The caller supplies output arrays of at least
-    ``len(thickness_m) - 1`` elements. See the module docstring for the criteria, the weak
-    layer rule and the relative scores; sources: McCammon & Schweizer (2002), Proc. ISSW;
-    Schweizer & Jamieson (2007), Cold Reg. Sci. Technol. 47, doi:10.1016/j.coldregions.
-    2006.08.011; Monti, Schweizer & Fierz (2014), Cold Reg. Sci. Technol. 103,
-    doi:10.1016/j.coldregions.2014.03.009.
+    ``len(thickness_m) - 1`` elements. Allocates a small scratch array per call; for many
+    columns use :func:`threshold_count_columns`. See the module docstring for the criteria,
+    the weak-layer rule and the relative scores; sources: McCammon & Schweizer (2002), Proc.
+    ISSW; Schweizer & Jamieson (2007), Cold Reg. Sci. Technol. 47,
+    doi:10.1016/j.coldregions.2006.08.011; Monti, Schweizer & Fierz (2014), Cold Reg. Sci.
+    Technol. 103, doi:10.1016/j.coldregions.2014.03.009.
     """
     n = min(max(layer_count, 0), thickness_m.shape[0])
     for k in range(out_count.shape[0]):
@@ -231,17 +243,18 @@ def threshold_count_interfaces(
         out_depth_m[k] = np.nan
     if n < 2:
         return
-    vmin = np.empty(N_CRITERIA)
-    vmax = np.empty(N_CRITERIA)
+    var = np.empty((N_CRITERIA, n))
+    _column_variables(n, thickness_m, grain_size_mm, hardness_index, grain_code, var, out_depth_m)
     if relative:
-        _column_ranges(n, thickness_m, grain_size_mm, hardness_index, grain_code, vmin, vmax)
-    depth_m = 0.0
-    for k in range(n - 2, -1, -1):
-        depth_m += thickness_m[k + 1]
-        out_count[k] = _interface_score(
-            k, depth_m, grain_size_mm, hardness_index, grain_code, relative, vmin, vmax
-        )
-        out_depth_m[k] = depth_m
+        lo, inv = _relative_scaling(n, var)
+        for k in range(n - 1):
+            v = (var[0, k], var[1, k], var[2, k], var[3, k], var[4, k], var[5, k])
+            out_count[k] = _relative_sum(v, lo, inv)
+    else:
+        for k in range(n - 1):
+            out_count[k] = _absolute_count(
+                var[0, k], var[1, k], var[2, k], var[3, k], var[4, k], var[5, k]
+            )
 
 
 @njit(cache=True, nogil=True, error_model="numpy")
@@ -277,26 +290,35 @@ def threshold_count_columns(
     -----
     Compiled; never raises. Same criteria and sources as :func:`threshold_count_interfaces`.
     """
-    vmin = np.empty(N_CRITERIA)
-    vmax = np.empty(N_CRITERIA)
     n_layer = thickness_m.shape[1]
+    var = np.empty((N_CRITERIA, max(n_layer, 1)))
+    depth_m = np.empty(max(n_layer, 1))
     for c in range(layer_count.shape[0]):
         n = min(max(layer_count[c], 0), n_layer)
-        best = 0.0
-        best_depth_m = np.nan
         th = thickness_m[c]
         e = grain_size_mm[c]
         h = hardness_index[c]
         g = grain_code[c]
+        best = 0.0
+        best_depth_m = np.nan
         if n >= 2 and relative:
-            _column_ranges(n, th, e, h, g, vmin, vmax)
-        depth_m = 0.0
-        for k in range(n - 2, -1, -1):
-            depth_m += th[k + 1]
-            s = _interface_score(k, depth_m, e, h, g, relative, vmin, vmax)
-            if s > best:
-                best = s
-                best_depth_m = depth_m
+            _column_variables(n, th, e, h, g, var, depth_m)
+            lo, inv = _relative_scaling(n, var)
+            for k in range(n - 2, -1, -1):
+                v = (var[0, k], var[1, k], var[2, k], var[3, k], var[4, k], var[5, k])
+                s = _relative_sum(v, lo, inv)
+                if s > best:
+                    best = s
+                    best_depth_m = depth_m[k]
+        elif n >= 2:
+            d = 0.0
+            for k in range(n - 2, -1, -1):
+                d += th[k + 1]
+                v = _interface_variables(k, d, e, h, g)
+                s = _absolute_count(v[0], v[1], v[2], v[3], v[4], v[5])
+                if s > best:
+                    best = s
+                    best_depth_m = d
         out_count[c] = best
         out_depth_m[c] = best_depth_m
 
@@ -397,7 +419,8 @@ def threshold_count_reference(
     if relative:
         lo = v.min(axis=1, keepdims=True)
         span = v.max(axis=1, keepdims=True) - lo
-        scores = np.divide(v - lo, span, out=np.zeros_like(v), where=span > 0)
+        inv_span = np.divide(1.0, span, out=np.zeros_like(span), where=span > 0)
+        scores = (v - lo) * inv_span
         structural = scores[0] + scores[1] + scores[2] + scores[3] + scores[4]
         scores[5] = np.where(structural > 0, scores[5], 0.0)
     else:
