@@ -12,7 +12,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from regionmap.errors import InputError
-from regionmap.snow.codes import GRAIN_CODES
+from regionmap.snow.codes import GRAIN_CODES, PERSISTENT_CODES
 from regionmap.snow.stability import (
     threshold_count_columns,
     threshold_count_interfaces,
@@ -118,3 +118,16 @@ def test_profile_wrapper_rejects_bad_input():
         threshold_counts_of_profile([0.1, 0.2], [1.0, 1.0], [1.0, 2.0], ["RG", "FC"])
     with pytest.raises(InputError, match="mode.*'lemons'"):
         threshold_counts_of_profile([0.1, 0.2], [1.0, 1.0], [1.0, 2.0], [3, 3], mode="lemons")
+
+
+@pytest.mark.parametrize("code", GRAIN_CODES[1:])
+def test_compiled_persistent_table_matches_codes(code):
+    # The compiled kernels freeze the persistent-type table at compile time; this guards
+    # against a stale numba cache after a change of regionmap.snow.codes. Persistent types
+    # (FC, DH, SH and their subclasses) after Schweizer & Jamieson (2007) / codes.PERSISTENT_CODES.
+    # Weak layer: F 3 mm of `code` under a 1F 0.5 mm slab at 40 cm: all other five criteria met.
+    count, _ = threshold_counts_of_profile(
+        [0.05, 0.40], [3.0, 0.5], [1.0, 3.0], [GRAIN_CODES.index(code), GRAIN_CODES.index("RG")],
+        mode="absolute",
+    )
+    assert count[0] == (6.0 if code in PERSISTENT_CODES else 5.0)
