@@ -16,8 +16,10 @@ from regionmap.snow.codes import GRAIN_CODES, PERSISTENT_CODES
 from regionmap.snow.stability import (
     threshold_count_columns,
     threshold_count_interfaces,
+    N_CRITERIA,
     threshold_count_reference,
     threshold_counts_of_profile,
+    worst_interface_column,
     worst_interface_reference,
 )
 
@@ -56,11 +58,15 @@ def test_columns_kernel_equals_reference(data, relative):
     out_c = np.full(lc.size, -7.0)
     out_d = np.full(lc.size, -7.0)
     threshold_count_columns(lc, th, e, h, g, relative, out_c, out_d)
+    scratch = np.full((N_CRITERIA + 1, th.shape[1]), 1e300)  # reused dirty across columns
     for c, n in enumerate(lc):
         ref_c, ref_d = worst_interface_reference(th[c, :n], e[c, :n], h[c, :n], g[c, :n],
                                                  relative)
         assert out_c[c] == ref_c
         np.testing.assert_array_equal(out_d[c], ref_d)
+        one_c, one_d = worst_interface_column(n, th[c], e[c], h[c], g[c], relative, scratch)
+        assert one_c == ref_c
+        np.testing.assert_array_equal(one_d, ref_d)
 
 
 @settings(deadline=None, max_examples=150)

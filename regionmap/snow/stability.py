@@ -79,6 +79,7 @@ __all__ = [
     "N_CRITERIA",
     "threshold_count_interfaces",
     "threshold_count_columns",
+    "worst_interface_column",
     "threshold_counts_of_profile",
     "threshold_count_reference",
     "worst_interface_reference",
@@ -258,6 +259,67 @@ def threshold_count_interfaces(
 
 
 @njit(cache=True, nogil=True, error_model="numpy")
+def worst_interface_column(
+    layer_count, thickness_m, grain_size_mm, hardness_index, grain_code, relative, scratch
+):
+    """Worst interface of one column, without allocating: for calls from inside kernels.
+
+    Parameters
+    ----------
+    layer_count : int
+        Active layers (bottom first); clipped to the array length.
+    thickness_m, grain_size_mm, hardness_index : ndarray (layer,) float64
+        Thickness [m], grain size [mm], hand-hardness index (F = 1 ... I = 6).
+    grain_code : ndarray (layer,) int
+        Indices into :data:`regionmap.snow.codes.GRAIN_CODES`.
+    relative : bool
+        True: relative threshold sum (Monti et al. 2014, our reading); False: absolute count
+        (Schweizer & Jamieson 2007).
+    scratch : ndarray (N_CRITERIA + 1, >= layer) float64
+        Work space, overwritten.
+
+    Returns
+    -------
+    count : float
+        Largest score over the column's interfaces, 0..6; 0 with fewer than two layers.
+    depth_m : float
+        Depth below the surface of that interface [m], the shallowest on ties; NaN when no
+        interface scores above 0.
+
+    Notes
+    -----
+    Compiled; never raises. Criteria and sources as in :func:`threshold_count_interfaces`.
+    """
+    n = min(max(layer_count, 0), thickness_m.shape[0])
+    best = 0.0
+    best_depth_m = np.nan
+    if n < 2:
+        return best, best_depth_m
+    if relative:
+        depth_m = scratch[N_CRITERIA]
+        _column_variables(n, thickness_m, grain_size_mm, hardness_index, grain_code, scratch,
+                          depth_m)
+        lo, inv = _relative_scaling(n, scratch)
+        for k in range(n - 2, -1, -1):
+            v = (scratch[0, k], scratch[1, k], scratch[2, k], scratch[3, k], scratch[4, k],
+                 scratch[5, k])
+            s = _relative_sum(v, lo, inv)
+            if s > best:
+                best = s
+                best_depth_m = depth_m[k]
+    else:
+        d = 0.0
+        for k in range(n - 2, -1, -1):
+            d += thickness_m[k + 1]
+            v = _interface_variables(k, d, grain_size_mm, hardness_index, grain_code)
+            s = _absolute_count(v[0], v[1], v[2], v[3], v[4], v[5])
+            if s > best:
+                best = s
+                best_depth_m = d
+    return best, best_depth_m
+
+
+@njit(cache=True, nogil=True, error_model="numpy")
 def threshold_count_columns(
     layer_count, thickness_m, grain_size_mm, hardness_index, grain_code, relative,
     out_count, out_depth_m,
@@ -288,39 +350,16 @@ def threshold_count_columns(
 
     Notes
     -----
-    Compiled; never raises. Same criteria and sources as :func:`threshold_count_interfaces`.
+    Compiled; never raises; allocates one work array per call (use
+    :func:`worst_interface_column` with your own work array to call it per cell inside a
+    kernel). Same criteria and sources as :func:`threshold_count_interfaces`.
     """
-    n_layer = thickness_m.shape[1]
-    var = np.empty((N_CRITERIA, max(n_layer, 1)))
-    depth_m = np.empty(max(n_layer, 1))
+    scratch = np.empty((N_CRITERIA + 1, max(thickness_m.shape[1], 1)))
     for c in range(layer_count.shape[0]):
-        n = min(max(layer_count[c], 0), n_layer)
-        th = thickness_m[c]
-        e = grain_size_mm[c]
-        h = hardness_index[c]
-        g = grain_code[c]
-        best = 0.0
-        best_depth_m = np.nan
-        if n >= 2 and relative:
-            _column_variables(n, th, e, h, g, var, depth_m)
-            lo, inv = _relative_scaling(n, var)
-            for k in range(n - 2, -1, -1):
-                v = (var[0, k], var[1, k], var[2, k], var[3, k], var[4, k], var[5, k])
-                s = _relative_sum(v, lo, inv)
-                if s > best:
-                    best = s
-                    best_depth_m = depth_m[k]
-        elif n >= 2:
-            d = 0.0
-            for k in range(n - 2, -1, -1):
-                d += th[k + 1]
-                v = _interface_variables(k, d, e, h, g)
-                s = _absolute_count(v[0], v[1], v[2], v[3], v[4], v[5])
-                if s > best:
-                    best = s
-                    best_depth_m = d
-        out_count[c] = best
-        out_depth_m[c] = best_depth_m
+        out_count[c], out_depth_m[c] = worst_interface_column(
+            layer_count[c], thickness_m[c], grain_size_mm[c], hardness_index[c], grain_code[c],
+            relative, scratch,
+        )
 
 
 def _profile_arrays(thickness_m, grain_size_mm, hardness_index, grain_code):
