@@ -97,19 +97,31 @@ def make_forcing(grid="projected_m", precip="amount", n_h=48, ny=6, nx=7, *, amo
     data.update(extra or {})
     ds = xr.Dataset(data, coords={"time": ("time", t, tattrs), **coords})
     ds["time_bnds"] = (("time", "nv"), bnds)
-    ds["t2m"] = ds["t2m"].assign_coords(height=xr.DataArray(2.0, attrs={"units": "m"}))
-    ds["u10"] = ds["u10"].assign_coords(height=xr.DataArray(10.0, attrs={"units": "m"}))
-    ds["v10"] = ds["v10"].assign_coords(height=xr.DataArray(10.0, attrs={"units": "m"}))
+    ds = ds.assign_coords(height2=xr.DataArray(2.0, attrs=HEIGHT), height10=xr.DataArray(10.0, attrs=HEIGHT))
+    own_coords(ds, "t2m", "height2")
+    for name in ("u10", "v10"):
+        own_coords(ds, name, "height10")
     if gm:
         ds["crs"] = xr.DataArray(np.int32(0), attrs=LCC)
     ds.attrs["Conventions"] = "CF-1.8"
     return ds
 
 
+HEIGHT = {"units": "m", "standard_name": "height", "axis": "Z", "positive": "up"}
+
+
+def own_coords(ds, name, height):
+    """CF per-variable ``coordinates`` attribute (xarray would list every scalar coord)."""
+    spatial = [c for c in ds.coords if ds[c].ndim > 0 and c != "time" and set(ds[c].dims) <= set(ds[name].dims)]
+    ds[name].encoding["coordinates"] = " ".join([height] + spatial)
+
+
 def write(ds, tmp_path, name="f.nc"):
     path = tmp_path / name
-    enc = {"time": {"units": "hours since 2025-10-01 00:00:00", "dtype": "float64"},
-           "time_bnds": {"units": "hours since 2025-10-01 00:00:00", "dtype": "float64"}}
+    enc = {k: {"units": "hours since 2025-10-01 00:00:00", "dtype": "float64"}
+           for k in ("time", "time_bnds") if k in ds.variables}
+    if "time_bnds" not in ds.variables:
+        ds["time"].attrs.pop("bounds", None)
     ds.to_netcdf(path, encoding=enc)
     return path
 
@@ -155,4 +167,5 @@ def test_reader_matrix_linear_field_and_deaccumulation(tmp_path, grid, precip):
     else:
         np.testing.assert_allclose(precip_out, amounts, rtol=1e-6, atol=1e-7)
     assert gf.time[0] == T0 and gf.time.size == 48
+    assert gf.heights_m == {"temperature": 2.0, "wind": 10.0} and gf.heights_source == "file"
     assert gf.counts == {"nan_filled": 0, "negative_precip_clipped": 0, "rh_clipped": 0, "gap_hours_filled": 0}

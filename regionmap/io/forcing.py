@@ -146,9 +146,10 @@ class _Source:
     D: sparse.csr_matrix | None = None  # native values -> native amounts (interval kind)
     S: sparse.csr_matrix | None = None  # native (amounts) -> hourly
     covered: np.ndarray | None = None
+    hours: np.ndarray | None = None
 
     def label(self) -> str:
-        return f"variable {self.names[0]!r} ({self.standard_name}) in {self.paths[0]}"
+        return f"forcing file {self.paths[0]!r}, variable {self.names[0]!r} ({self.standard_name})"
 
 
 @dataclass
@@ -419,9 +420,12 @@ def _vertical_dims(var):
 
 
 def _height_of(var):
-    if "height" in var.coords and var["height"].ndim == 0:
-        return float(var["height"].values)
-    return None
+    """The variable's own scalar height coordinate [m] (CF: named in its ``coordinates``)."""
+    own = str(var.encoding.get("coordinates") or var.attrs.get("coordinates") or "").split()
+    found = [c for c in var.coords.values() if c.ndim == 0 and (
+        c.attrs.get("standard_name") == "height" or str(c.name).startswith("height"))]
+    mine = [c for c in found if c.name in own] or (found if len(found) == 1 else [])
+    return float(mine[0].values) if mine else None
 
 
 def _pick(sn, cands, path, want_height, upper):
@@ -790,8 +794,8 @@ def _build_operator(s: _Source, times, hours, mapping):
         if step.size and step.max() > limit:
             j = int(np.argmax(step))
             raise ForcingReadError(
-                f"{where}: gap of {step[j] / _H:g} h after {np.datetime64(int(t[j]), 's')}; expected "
-                f"steps of at most {limit // _H} h; hint: fill the gap, or give time_bnds when the "
+                f"{where}: a step of {step[j] / _H:g} h ({step[j] / _H - 1:g} h missing) after "
+                f"{np.datetime64(int(t[j]), 's')}; expected steps of at most {limit // _H} h; hint: fill the gap, or give time_bnds when the "
                 f"file is coarser by design")
         idx = np.arange(t.size)
         if s.kind == "point":
@@ -859,7 +863,7 @@ def _final_axis(sources, wide, start, end, paths):
         raise ForcingReadError(f"forcing {paths[0]!r}: no whole hour is covered by all variables")
     for members in sources.values():
         for s in members:
-            s.S, s.covered = s.S[lo:hi + 1], s.covered[lo:hi + 1]
+            s.S, s.covered, s.hours = s.S[lo:hi + 1], s.covered[lo:hi + 1], wide[lo:hi + 1]
     return wide[lo:hi + 1]
 
 
@@ -940,11 +944,11 @@ def _series(s: _Source, rows, reader, stats, fn=None):
             amount[neg] = 0.0
         y = S[:, need] @ amount / _H  # interval means; amounts are re-multiplied by the caller
     y[~s.covered[rows]] = np.nan
-    run, (t_at, p_at) = _longest_run(np.isnan(y))
+    run, (t_at, _) = _longest_run(np.isnan(y))
     if run > MAX_GAP_H:
         raise ForcingReadError(
-            f"{s.label()}: {run} consecutive missing hours (NaN) at grid point {p_at} from "
-            f"hourly step {int(rows[t_at])}; expected NaN runs of at most {MAX_GAP_H} h; hint: "
+            f"{s.label()}: {run} consecutive missing hours (NaN) from "
+            f"{np.datetime64(int(s.hours[rows[t_at]]), 's')}; expected NaN runs of at most {MAX_GAP_H} h; hint: "
             f"fill the forcing or choose [forcing] start/end around them")
     stats["nan_filled"] += int((np.isnan(y) & s.covered[rows][:, None]).sum())
     y = _fill_nan(y)
