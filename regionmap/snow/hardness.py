@@ -114,7 +114,8 @@ def hardness_index_from_density(density_kg_m3, grain_code, crust_kind):
     Parameters
     ----------
     density_kg_m3 : float
-        Layer density (ice plus liquid per volume) [kg m-3].
+        Layer density [kg m-3]. The fits are of dry-snow density: for a wet layer pass the
+        ice mass per volume.
     grain_code : int
         Index into :data:`regionmap.snow.codes.GRAIN_CODES`.
     crust_kind : int

@@ -29,7 +29,8 @@ implementation details (our choices, to be checked against the paper):
   |hardness difference|, depth-window indicator (1 inside 0.18-0.94 m, else 0);
 * score_i = (v_i - min_i) / (max_i - min_i) over the column's interfaces, 0 where the
   column has no spread in that variable (standardising by mean and standard deviation first
-  would not change this min-max result, which is affine-invariant);
+  would not change this min-max result, which is affine-invariant; computed as
+  (v_i - min_i) * (1 / (max_i - min_i)));
 * depth counts only for an interface that stands out structurally (one of the other five
   scores above 0): depth alone is no weakness, and without this rule every interface of a
   uniform column inside the window would score 1;
@@ -37,7 +38,8 @@ implementation details (our choices, to be checked against the paper):
 
 Consequences to keep in mind: in relative mode a column with a single interface, or a
 uniform column, scores 0 everywhere; the worst interface of every column scores high even
-where the column has no real weakness. Interfaces below the depth window still score in the
+where the column has no real weakness, and tiny spreads (1.000 against 1.001 mm) are
+stretched to the full 0..1 range. Interfaces below the depth window still score in the
 other five criteria, so deep persistent layers stay visible.
 
 This is structural guidance derived from a model, for trained people: it is never a
