@@ -7,6 +7,7 @@ Sign convention: a lapse rate is the *decrease* of a quantity per metre of heigh
 from __future__ import annotations
 
 import numpy as np
+import scipy.sparse as sp
 
 from .thermo import (
     dew_point_from_vapour_pressure_buck1981,
@@ -136,8 +137,9 @@ def dew_point_from_relative_humidity(t_k, rh_frac) -> np.ndarray:
 
 
 def grid_lapse_fit(
-    t_nb_k: np.ndarray,
-    z_nb_m: np.ndarray,
+    t_points_k: np.ndarray,
+    z_points_m: np.ndarray,
+    neighbours: np.ndarray,
     fallback_lapse_k_m: np.ndarray,
     *,
     bounds_k_m: tuple[float, float] = (-0.015, 0.0098),
@@ -148,10 +150,12 @@ def grid_lapse_fit(
 
     Parameters
     ----------
-    t_nb_k : ndarray (cell, time, neighbour) float64
-        Temperature of each cell's neighbouring grid points [K].
-    z_nb_m : ndarray (cell, neighbour) float64
-        Model terrain height of those points [m].
+    t_points_k : ndarray (point, time) float64
+        Temperature at the grid points [K].
+    z_points_m : ndarray (point,) float64
+        Model terrain height of the points [m].
+    neighbours : ndarray (cell, k) int
+        For each cell, the positions (into ``point``) of its k neighbouring grid points.
     fallback_lapse_k_m : ndarray broadcastable to (cell, time) float64
         Lapse rate used where the fit is poor (monthly or fixed) [K m-1].
     bounds_k_m : (float, float)
@@ -172,16 +176,26 @@ def grid_lapse_fit(
     Notes
     -----
     Ordinary least squares of T on z per cell and step; the lapse rate is minus the slope.
-    A poor fit (R^2 < ``min_r2``, or too little height spread) falls back, so noisy
-    neighbourhoods do not invent structure while a clear inversion is kept.
+    The sums are sparse matrix products, so no (cell, k, time) array is formed. A poor fit
+    (R^2 < ``min_r2``, or too little height spread) falls back, so noisy neighbourhoods do
+    not invent structure while a clear inversion is kept.
     """
-    z = np.asarray(z_nb_m, dtype=np.float64)
-    za = z - z.mean(axis=1, keepdims=True)
-    szz = np.sum(za * za, axis=1)  # (cell,)
-    ta = t_nb_k - t_nb_k.mean(axis=2, keepdims=True)
-    szt = np.einsum("ctn,cn->ct", ta, za)
-    stt = np.sum(ta * ta, axis=2)
-    spread_ok = (z.max(axis=1) - z.min(axis=1)) >= min_z_range_m
+    nb = np.asarray(neighbours, dtype=np.int64)
+    n_cell, k = nb.shape
+    z = np.asarray(z_points_m, dtype=np.float64)
+    z_nb = z[nb]
+    za = z_nb - z_nb.mean(axis=1, keepdims=True)
+    szz = np.sum(za * za, axis=1)
+    rows = np.repeat(np.arange(n_cell), k)
+    shape = (n_cell, z.size)
+    cov = sp.csr_matrix((za.ravel(), (rows, nb.ravel())), shape=shape)
+    mean = sp.csr_matrix((np.full(n_cell * k, 1.0 / k), (rows, nb.ravel())), shape=shape)
+    t = np.asarray(t_points_k, dtype=np.float64)
+    t = t - t.mean(axis=0, keepdims=True)  # remove a common offset: E[T^2] - E[T]^2 stays exact
+    szt = np.asarray(cov @ t)
+    t_mean = np.asarray(mean @ t)
+    stt = np.maximum(k * (np.asarray(mean @ (t * t)) - t_mean * t_mean), 0.0)
+    spread_ok = (z_nb.max(axis=1) - z_nb.min(axis=1)) >= min_z_range_m
     safe_szz = np.where(szz > 0, szz, 1.0)
     slope = szt / safe_szz[:, None]
     r2 = np.divide(szt * szt, safe_szz[:, None] * stt, out=np.zeros_like(stt), where=stt > 0)

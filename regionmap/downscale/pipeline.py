@@ -1,0 +1,495 @@
+"""NWP grid forcing -> hourly per-cell forcing, vectorised over cells x time.
+
+Each surrounding grid point's value is brought to the cell's elevation, then interpolated
+with the cell's sparse weights. Where an adjustment is linear in the height difference with
+one coefficient per cell and step (temperature, dew point, log pressure), that equals
+interpolating and then adjusting by the weighted model-height difference, which is how it
+is computed; the non-linear precipitation factor is folded into one sparse matrix per month.
+The grid points a batch needs are read once per time block.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+import scipy.sparse as sp
+
+from regionmap.errors import InputError
+
+from . import bias as _bias
+from . import lapse as _lapse
+from . import longwave as _lw
+from . import phase as _phase
+from . import precip as _precip
+from . import solar as _solar
+from . import thermo as _thermo
+from . import wind as _wind
+from .settings import DownscaleSettings
+from .types import CellForcing
+from .weights import CellWeights
+
+__all__ = ["CellBatch", "prepare_cells", "downscale_cells", "downscale_record"]
+
+_G0 = 9.80665
+_RD = 287.04749097718457
+_SERIES = ("t_air_k", "rh_frac", "pressure_pa", "wind_m_s", "sw_in_w_m2", "lw_in_w_m2",
+           "precip_kg_m2", "snow_frac", "freezing_rain_frac")
+_BIAS_TARGET = {  # [bias] key -> (CellForcing field, scale of the offset to canonical units)
+    "air_temperature": ("t_air_k", 1.0),
+    "relative_humidity": ("rh_frac", 0.01),  # offsets in %
+    "wind_speed": ("wind_m_s", 1.0),
+    "shortwave_down": ("sw_in_w_m2", 1.0),
+    "longwave_down": ("lw_in_w_m2", 1.0),
+    "precipitation": ("precip_kg_m2", 1.0),
+    "surface_air_pressure": ("pressure_pa", 1.0),
+}
+
+
+@dataclass
+class CellBatch:
+    """What the pipeline needs of a set of cells (a whole CellSet or a chunk of it).
+
+    Attributes
+    ----------
+    cell_id : ndarray (cell,) int64
+    elevation_m, slope_deg, aspect_deg, sky_view_frac, lon_deg, lat_deg, area_m2 :
+        ndarray (cell,) float64 [m, deg, deg, 1, deg, deg, m2]; aspect NaN for flat cells.
+    zone_code : ndarray (cell,) int64 — zone index, for zone-conserving drift.
+    sx_deg : ndarray (cell, direction) float64, with ``sx_directions_deg`` (direction,).
+    sun_azimuth_deg, sun_elevation_deg : ndarray (n_az,), (n_el,) — sunlit table axes.
+    sunlit_fraction, sunlit_cos_incidence : ndarray (cell, n_az, n_el) float32.
+    weights : CellWeights — rows for these cells.
+    """
+
+    cell_id: np.ndarray
+    elevation_m: np.ndarray
+    slope_deg: np.ndarray
+    aspect_deg: np.ndarray
+    sky_view_frac: np.ndarray
+    lon_deg: np.ndarray
+    lat_deg: np.ndarray
+    area_m2: np.ndarray
+    zone_code: np.ndarray
+    sx_deg: np.ndarray
+    sx_directions_deg: np.ndarray
+    sun_azimuth_deg: np.ndarray
+    sun_elevation_deg: np.ndarray
+    sunlit_fraction: np.ndarray
+    sunlit_cos_incidence: np.ndarray
+    weights: CellWeights
+    _per_cell: tuple = field(
+        default=("cell_id", "elevation_m", "slope_deg", "aspect_deg", "sky_view_frac",
+                 "lon_deg", "lat_deg", "area_m2", "zone_code", "sx_deg", "sunlit_fraction",
+                 "sunlit_cos_incidence"),
+        repr=False,
+    )
+
+    @property
+    def n_cells(self) -> int:
+        return int(np.size(self.cell_id))
+
+    def subset(self, cells) -> "CellBatch":
+        """Some cells of the batch (positions), weights included."""
+        kw = {name: getattr(self, name) for name in (
+            "sx_directions_deg", "sun_azimuth_deg", "sun_elevation_deg")}
+        for name in self._per_cell:
+            kw[name] = getattr(self, name)[cells]
+        return CellBatch(weights=self.weights.rows(cells), **kw)
+
+
+def _month_index(time: np.ndarray) -> np.ndarray:
+    """Month (0 = January) of each interval's middle (labels are interval ends)."""
+    mid = np.asarray(time, dtype="datetime64[s]") - np.timedelta64(1800, "s")
+    return mid.astype("datetime64[M]").astype(np.int64) % 12
+
+
+def _freezing_rain_source(gf) -> str:
+    if getattr(gf, "freezing_rain_frac", None) is not None:
+        return "forcing variable freezing_rain_frac"
+    if getattr(gf, "upper_air_temperature", None) is not None:
+        return "upper-air temperature, Bourgouin (2000) energy areas"
+    return "none: the forcing has no upper-air or precipitation-type information, so no freezing rain is flagged"
+
+
+def downscale_record(grid_forcing, settings: DownscaleSettings) -> dict:
+    """What the downscaling did, for run.json: methods and the freezing-rain source."""
+    return {
+        "interpolation": settings.interpolation,
+        "lapse": settings.lapse,
+        "pressure": settings.pressure,
+        "precip_elevation": settings.precip_elevation,
+        "drift": settings.drift,
+        "phase": settings.phase,
+        "freezing_rain_source": _freezing_rain_source(grid_forcing),
+        "longwave": (
+            "forcing longwave, cloud factor carried to the cell"
+            if getattr(grid_forcing, "longwave_down", None) is not None
+            else "estimated: clear-sky emissivity and a clearness-index cloud proxy"
+        ),
+        "wind": settings.wind,
+        "solar_substeps": settings.solar_substeps,
+    }
+
+
+def _points_needed(batch: CellBatch, settings: DownscaleSettings) -> np.ndarray:
+    cols = np.unique(batch.weights.matrix.indices)
+    if settings.lapse == "grid":
+        cols = np.union1d(cols, batch.weights.neighbours.ravel())
+    return cols.astype(np.int64)
+
+
+def _cell_lapse(settings, month_index, lat_deg):
+    """Temperature and dew-point lapse rates (cell, time) [K m-1] before any grid fit."""
+    t_month, vp_month = _lapse.monthly_lapse_rates_kunkel1989(
+        month_index[None, :] + 1, lat_deg[:, None]
+    )
+    td_lapse = _lapse.dew_point_lapse_liston_elder2006(vp_month)
+    if settings.lapse == "fixed":
+        t_month = np.full_like(t_month, settings.lapse_fixed_k_per_km / 1000.0)
+    return t_month, td_lapse
+
+
+def _precip_matrices(wmat: sp.csr_matrix, dz_pair: np.ndarray, months: np.ndarray, settings):
+    """One sparse (cell, point) matrix per month: weight x elevation factor of the pair."""
+    out = {}
+    for m in np.unique(months):
+        if settings.precip_elevation == "none":
+            out[m] = wmat
+            continue
+        chi = (settings.precip_chi_per_km if settings.precip_chi_per_km is not None
+               else _precip.THORNTON1997_CHI_PER_KM[m]) * settings.precip_chi_scale
+        fac = _precip.precip_factor_thornton1997(dz_pair, chi, bounds=settings.precip_factor_bounds)
+        out[m] = sp.csr_matrix((wmat.data * fac, wmat.indices, wmat.indptr), shape=wmat.shape)
+    return out
+
+
+def _read(gf, names, iy, ix, tslice) -> dict:
+    raw = gf.read_block(names, iy, ix, tslice)
+    return {k: np.ascontiguousarray(np.moveaxis(np.asarray(v, dtype=np.float64), 0, -1))
+            for k, v in raw.items()}
+
+
+def _chunk_block(gf, batch: CellBatch, settings, data, z_pts, time, month_idx, carry):
+    """Downscale one chunk of cells over one time block; returns a dict of (cell, time)."""
+    w = batch.weights.matrix  # (cell, point) with columns = union positions
+    z_c = batch.elevation_m[:, None]
+    dz = z_c - (w @ z_pts)[:, None]  # cell minus weighted model height [m]
+    t_pts, rh_pts = data["air_temperature"], np.clip(data["relative_humidity"], 1e-4, 1.0)
+    t_w = w @ t_pts
+    lapse_t, lapse_td = _cell_lapse(settings, month_idx, batch.lat_deg)
+    if settings.lapse == "grid":
+        lapse_t, _ = _lapse.grid_lapse_fit(
+            t_pts, z_pts, batch.weights.neighbours, lapse_t,
+            bounds_k_m=(settings.grid_lapse_bounds_k_per_km[0] / 1000.0,
+                        settings.grid_lapse_bounds_k_per_km[1] / 1000.0),
+            min_r2=settings.grid_lapse_min_r2, min_z_range_m=settings.grid_lapse_min_range_m,
+        )
+    t_c = _lapse.adjust_temperature_lapse(t_w, dz, lapse_t)
+    td_pts = _lapse.dew_point_from_relative_humidity(t_pts, rh_pts)
+    td_c = _lapse.adjust_temperature_lapse(w @ td_pts, dz, lapse_td)
+    rh_c = _lapse.humidity_at_new_temperature(t_c, td_c)
+    e_c = rh_c * _thermo.saturation_vapour_pressure_water_buck1981(t_c)
+
+    if settings.pressure == "standard_atmosphere":
+        p_c = np.broadcast_to(_thermo.pressure_standard_atmosphere_icao(z_c), t_c.shape).copy()
+    else:
+        lnp = w @ np.log(data["surface_air_pressure"])
+        p_c = _thermo.pressure_hypsometric(np.exp(lnp), 0.5 * (t_w + t_c), dz)
+
+    # wind: scalar mean speed, speed-weighted vector-mean direction
+    spd, wdir = data["wind_speed"], np.radians(data["wind_from_direction"])
+    speed = w @ spd
+    wdir_c = np.mod(np.degrees(np.arctan2(w @ (spd * np.sin(wdir)), w @ (spd * np.cos(wdir)))), 360.0)
+    factor = np.ones_like(speed)
+    sx_now = None
+    if settings.wind in ("winstral", "both") or settings.drift:
+        sx_now = _wind.sx_at_direction(batch.sx_deg, batch.sx_directions_deg, wdir_c)
+    if settings.wind in ("winstral", "both"):
+        factor = factor * _wind.wind_factor_winstral_sx(
+            sx_now, coef_per_deg=settings.wind_sx_coef_per_deg, bounds=settings.wind_factor_bounds)
+    if settings.wind in ("liston_sturm", "both"):
+        factor = factor * _wind.wind_factor_liston_sturm1998(
+            batch.slope_deg[:, None], batch.aspect_deg[:, None], wdir_c,
+            slope_ref_deg=settings.liston_sturm_slope_ref_deg, bounds=settings.wind_factor_bounds)
+    wind_c = speed * np.clip(factor, *settings.wind_factor_bounds)
+
+    # precipitation: elevation factor per (cell, point) pair, per month
+    pair_row = np.repeat(np.arange(w.shape[0]), np.diff(w.indptr))
+    dz_pair = batch.elevation_m[pair_row] - z_pts[w.indices]
+    mats = _precip_matrices(w, dz_pair, month_idx, settings)
+    precip_pts = np.maximum(data["precipitation"], 0.0)
+    p_cell = np.empty_like(t_c)
+    for m, mat in mats.items():
+        sel = month_idx == m
+        p_cell[:, sel] = mat @ precip_pts[:, sel]
+
+    # phase and freezing rain
+    if settings.phase == "jennings2018":
+        snow = _phase.snow_fraction_jennings2018(t_c, rh_c)
+    elif settings.phase == "wet_bulb":
+        tw = _thermo.wet_bulb_temperature_normand(t_c, rh_c, p_c)
+        snow = _phase.snow_fraction_wet_bulb_threshold(
+            tw, threshold_k=273.15 + settings.phase_threshold_c, half_width_k=settings.phase_half_width_k)
+    else:
+        snow = _phase.snow_fraction_air_temperature_threshold(
+            t_c, threshold_k=273.15 + settings.phase_threshold_c, half_width_k=settings.phase_half_width_k)
+    if "freezing_rain_frac" in data:
+        aloft = w @ np.clip(data["freezing_rain_frac"], 0.0, 1.0)
+    elif "upper_air_temperature" in data:
+        ua = data["upper_air_temperature"]  # (level, point, time)
+        melt, cold = _phase.bourgouin2000_areas(
+            t_pts, data["surface_air_pressure"], ua, np.asarray(gf.upper_air_pressure_pa))
+        aloft = w @ _phase.freezing_rain_fraction_bourgouin2000(melt, cold)
+    else:
+        aloft = np.zeros_like(t_c)
+    snow, fzra = _phase.freezing_rain_at_cell(snow, aloft, t_c)
+
+    # shortwave with interval-mean geometry and the sunlit-fraction table
+    terms = _solar.substep_sun_terms(time, 3600.0, settings.solar_substeps)
+    cosz, beam = _solar.interval_sun_geometry(
+        terms, batch.lat_deg, batch.lon_deg, batch.sun_azimuth_deg, batch.sun_elevation_deg,
+        batch.sunlit_fraction, batch.sunlit_cos_incidence)
+    ghi_c = w @ np.maximum(data["shortwave_down"], 0.0)
+    sw_c, kt = _solar.slope_shortwave_interval_mean(
+        ghi_c, terms["extra_w_m2"][None, :], cosz, beam, batch.sky_view_frac[:, None],
+        settings.terrain_albedo_frac)
+
+    # longwave
+    eps_clr_c = _lw.clear_sky_emissivity(e_c, t_c, settings.longwave_clear_sky)
+    if "longwave_down" in data:
+        e_pts = rh_pts * _thermo.saturation_vapour_pressure_water_buck1981(t_pts)
+        cf = w @ _lw.cloud_factor(data["longwave_down"], e_pts, t_pts, settings.longwave_clear_sky)
+        eps_c = cf * eps_clr_c
+    else:
+        day = cosz >= settings.cloud_proxy_min_cos_zenith
+        cloud_now = _lw.cloud_fraction_from_clearness_index(kt, kt_clear=settings.kt_clear)
+        initial = carry.get("cloud")
+        if initial is None:
+            first = np.argmax(day, axis=1)
+            initial = np.where(day.any(axis=1), cloud_now[np.arange(day.shape[0]), first],
+                               settings.cloud_frac_without_daylight)
+        cloud = _lw.fill_night_forward(cloud_now, day, initial)
+        carry["cloud"] = cloud[:, -1].copy()
+        eps_c = _lw.emissivity_all_sky_crawford_duchon1999(cloud, eps_clr_c)
+    lw_c = _lw.longwave_at_cell(eps_c, t_c, batch.sky_view_frac[:, None],
+                                terrain_emissivity=settings.terrain_emissivity)
+    return {
+        "t_air_k": t_c, "rh_frac": rh_c, "pressure_pa": p_c, "wind_m_s": wind_c,
+        "sw_in_w_m2": sw_c, "lw_in_w_m2": lw_c, "precip_kg_m2": p_cell, "snow_frac": snow,
+        "freezing_rain_frac": fzra, "_sx_now": sx_now,
+    }
+
+
+def _apply_bias(out: dict, month_idx: np.ndarray, settings: DownscaleSettings) -> None:
+    for key, corr in settings.bias.items():
+        if key not in _BIAS_TARGET:
+            raise InputError(
+                f"[bias] {key}: unknown variable; expected one of {sorted(_BIAS_TARGET)}"
+            )
+        name, scale = _BIAS_TARGET[key]
+        offset = corr.get("offset")
+        if offset is not None:
+            offset = np.asarray(offset, dtype=np.float64) * scale
+        out[name] = _bias.apply_offset_factor(out[name], month_idx, offset=offset,
+                                              factor=corr.get("factor"))
+    for table in settings.quantile_tables:
+        if table.variable not in _BIAS_TARGET:
+            raise InputError(
+                f"[bias] quantile_mapping: table for {table.variable!r} has no downscaled "
+                f"series; expected one of {sorted(_BIAS_TARGET)}"
+            )
+        name = _BIAS_TARGET[table.variable][0]
+        out[name] = _bias.apply_quantile_table(out[name], month_idx, table)
+    out["rh_frac"] = np.clip(out["rh_frac"], 0.0, 1.0)
+    for name in ("wind_m_s", "sw_in_w_m2", "lw_in_w_m2", "precip_kg_m2"):
+        out[name] = np.maximum(out[name], 0.0)
+
+
+def downscale_cells(
+    grid_forcing, cells_subset: CellBatch, settings: DownscaleSettings, time_slice: slice = slice(None)
+) -> CellForcing:
+    """Hourly per-cell forcing for a batch of cells over a slice of the forcing's hours.
+
+    Parameters
+    ----------
+    grid_forcing : regionmap.io.forcing.GridForcing
+        Canonical hourly grid forcing (anything with ``time``, ``surface_altitude``,
+        ``read_block``, ``heights_m`` and the optional variables as attributes).
+    cells_subset : CellBatch
+        The cells, with weights built once by :func:`prepare_cells`.
+    settings : DownscaleSettings
+    time_slice : slice
+        Contiguous hourly indices into ``grid_forcing.time``.
+
+    Returns
+    -------
+    CellForcing
+        (cell, time) series in the batch's cell order. With ``drift`` on, precipitation is
+        redistributed so that each zone's area-weighted total over the cells of this batch is
+        kept at every step: pass whole zones.
+    """
+    times_all = np.asarray(grid_forcing.time, dtype="datetime64[s]")
+    start, stop, step = time_slice.indices(times_all.size)
+    if step != 1 or stop <= start:
+        raise InputError(
+            f"downscale: time_slice must be a non-empty contiguous slice of the forcing's "
+            f"{times_all.size} hours, got {time_slice!r}"
+        )
+    time = times_all[start:stop]
+    month_idx = _month_index(time)
+    n_cell, n_t = cells_subset.n_cells, time.size
+    out = {name: np.empty((n_cell, n_t)) for name in _SERIES}
+    sx_all = np.empty((n_cell, n_t)) if settings.drift else None
+
+    names = ["air_temperature", "relative_humidity", "surface_air_pressure", "wind_speed",
+             "wind_from_direction", "shortwave_down", "precipitation"]
+    for opt in ("longwave_down", "freezing_rain_frac", "upper_air_temperature"):
+        if getattr(grid_forcing, opt, None) is not None:
+            names.append(opt)
+            if opt == "freezing_rain_frac":
+                break  # a precipitation-type variable wins over upper-air temperatures
+
+    points = _points_needed(cells_subset, settings)
+    ny, nx = cells_subset.weights.grid_shape
+    iy, ix = points // nx, points % nx
+    z_pts = np.asarray(grid_forcing.surface_altitude, dtype=np.float64)[iy, ix]
+    remap = np.full(ny * nx, -1, dtype=np.int64)
+    remap[points] = np.arange(points.size)
+    chunks = []
+    for c0 in range(0, n_cell, settings.chunk_cells):
+        sel = np.arange(c0, min(c0 + settings.chunk_cells, n_cell))
+        chunk = cells_subset.subset(sel)
+        wm = chunk.weights.matrix
+        local = CellWeights(
+            sp.csr_matrix((wm.data, remap[wm.indices], wm.indptr), shape=(sel.size, points.size)),
+            (ny, nx), remap[chunk.weights.neighbours], chunk.weights.method)
+        chunk.weights = local
+        chunks.append((sel, chunk, {}))
+
+    for t0 in range(start, stop, settings.time_block_h):
+        t1 = min(t0 + settings.time_block_h, stop)
+        data = _read(grid_forcing, names, iy, ix, slice(t0, t1))
+        cols = slice(t0 - start, t1 - start)
+        for sel, chunk, carry in chunks:
+            res = _chunk_block(grid_forcing, chunk, settings, data, z_pts, time[cols],
+                               month_idx[cols], carry)
+            for name in out:
+                out[name][sel, cols] = res[name]
+            if sx_all is not None:
+                sx_all[sel, cols] = res["_sx_now"]
+
+    if settings.drift:
+        zone = np.unique(cells_subset.zone_code, return_inverse=True)[1]
+        out["precip_kg_m2"] = out["precip_kg_m2"] * _precip.drift_factor_exposure(
+            sx_all, out["precip_kg_m2"], zone, cells_subset.area_m2,
+            coef_per_deg=settings.drift_coef_per_deg, bounds=settings.drift_bounds)
+    _apply_bias(out, month_idx, settings)
+    heights = grid_forcing.heights_m
+    if not {"wind", "temperature"} <= set(heights):
+        raise InputError(
+            f"downscale: the forcing's measurement heights must give 'wind' and "
+            f"'temperature' [m], got {heights!r}. Hint: set [forcing] heights_m."
+        )
+    return CellForcing(
+        time=time,
+        wind_height_m=float(heights["wind"]),
+        temp_height_m=float(heights["temperature"]),
+        dt_s=3600.0,
+        **out,
+    )
+
+
+def _cell_pixels(cellset) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """(pixel_cell, lon, lat) of every in-zone pixel of a CellSet [deg]."""
+    missing = [a for a in ("index", "transform", "crs") if getattr(cellset, a, None) is None]
+    if missing:
+        raise InputError(
+            f"downscale: the cell set lacks {', '.join(missing)}; interpolation weights are "
+            "built from each cell's pixels and need the pixel->cell index with its affine "
+            "transform and CRS. Hint: pass pixel_cell / pixel_lon_deg / pixel_lat_deg."
+        )
+    from pyproj import CRS, Transformer
+
+    index = np.asarray(cellset.index)
+    rows, cols = np.nonzero(index >= 0)
+    a = cellset.transform
+    x = a.c + (cols + 0.5) * a.a + (rows + 0.5) * a.b
+    y = a.f + (cols + 0.5) * a.d + (rows + 0.5) * a.e
+    to_ll = Transformer.from_crs(CRS.from_user_input(cellset.crs), "EPSG:4326", always_xy=True)
+    lon, lat = to_ll.transform(x, y)
+    return index[rows, cols].astype(np.int64), np.asarray(lon), np.asarray(lat)
+
+
+def prepare_cells(
+    cellset,
+    grid_forcing,
+    settings: DownscaleSettings,
+    *,
+    pixel_cell: np.ndarray | None = None,
+    pixel_lon_deg: np.ndarray | None = None,
+    pixel_lat_deg: np.ndarray | None = None,
+) -> CellBatch:
+    """Collect what downscaling needs of a CellSet and build its weights once.
+
+    Parameters
+    ----------
+    cellset : regionmap.cells.CellSet
+        ``table`` (indexed by cell_id 0..n-1), ``sx_deg`` with ``sx_directions_deg``,
+        ``sunlit``; pixels from ``index`` + ``transform`` + ``crs`` unless given.
+    grid_forcing : GridForcing
+        For ``grid_index_of``, ``extent_lonlat`` and ``surface_altitude``.
+    settings : DownscaleSettings
+    pixel_cell, pixel_lon_deg, pixel_lat_deg : ndarray (pixel,), optional
+        Cell of each pixel and its centre [deg], overriding the CellSet's index.
+
+    Returns
+    -------
+    CellBatch
+        For all cells in ``cell_id`` order; take chunks with :meth:`CellBatch.subset`.
+
+    Raises
+    ------
+    GridMismatchError
+        The forcing grid does not cover every cell (both extents in the message).
+    """
+    import pandas as pd
+
+    from .weights import build_cell_weights
+
+    table = cellset.table
+    n = len(table)
+    if pixel_cell is None:
+        pixel_cell, pixel_lon_deg, pixel_lat_deg = _cell_pixels(cellset)
+    directions = getattr(cellset, "sx_directions_deg", None)
+    if directions is None:
+        raise InputError(
+            "downscale: the cell set has sx_deg but no sx_directions_deg (the wind "
+            "directions of its columns) [deg]."
+        )
+    weights = build_cell_weights(
+        grid_forcing.grid_index_of, grid_forcing.extent_lonlat,
+        np.shape(grid_forcing.surface_altitude), pixel_cell, pixel_lon_deg, pixel_lat_deg, n,
+        table["lon"].to_numpy(float), table["lat"].to_numpy(float),
+        method=settings.interpolation, lapse_radius=settings.grid_lapse_radius,
+        where=str(getattr(grid_forcing, "paths", ["forcing grid"])[0]),
+    )
+    sun = cellset.sunlit
+    return CellBatch(
+        cell_id=table.index.to_numpy(np.int64),
+        elevation_m=table["elevation_m"].to_numpy(float),
+        slope_deg=table["slope_deg"].to_numpy(float),
+        aspect_deg=table["aspect_deg"].to_numpy(float),
+        sky_view_frac=table["sky_view_frac"].to_numpy(float),
+        lon_deg=table["lon"].to_numpy(float),
+        lat_deg=table["lat"].to_numpy(float),
+        area_m2=table["area_km2"].to_numpy(float) * 1e6,
+        zone_code=pd.factorize(table["zone"])[0].astype(np.int64),
+        sx_deg=np.asarray(cellset.sx_deg, dtype=np.float64),
+        sx_directions_deg=np.asarray(directions, dtype=np.float64),
+        sun_azimuth_deg=np.asarray(sun.azimuth_deg, dtype=np.float64),
+        sun_elevation_deg=np.asarray(sun.elevation_deg, dtype=np.float64),
+        sunlit_fraction=np.asarray(sun.fraction),
+        sunlit_cos_incidence=np.asarray(sun.cos_incidence),
+        weights=weights,
+    )
