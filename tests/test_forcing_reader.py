@@ -91,9 +91,8 @@ def make_forcing(grid="projected_m", precip="amount", n_h=48, ny=6, nx=7, *, amo
         acc = np.concatenate([np.cumsum(amounts[:reset_at], axis=0), np.cumsum(amounts[reset_at:], axis=0)])
         data["pr"] = (dims, acc, {"standard_name": "precipitation_amount", "units": "kg m-2", "cell_methods": "time: sum"})
         bnds[:reset_at, 0] = bnds[0, 0]
-        bnds[reset_at:, 0] = bnds[reset_at, 0]
-    for name in drop:
-        data.pop(name)
+        if reset_at < n_h:
+            bnds[reset_at:, 0] = bnds[reset_at, 0]
     data.update(extra or {})
     ds = xr.Dataset(data, coords={"time": ("time", t, tattrs), **coords})
     ds["time_bnds"] = (("time", "nv"), bnds)
@@ -101,6 +100,7 @@ def make_forcing(grid="projected_m", precip="amount", n_h=48, ny=6, nx=7, *, amo
     own_coords(ds, "t2m", "height2")
     for name in ("u10", "v10"):
         own_coords(ds, name, "height10")
+    ds = ds.drop_vars(list(drop))
     if gm:
         ds["crs"] = xr.DataArray(np.int32(0), attrs=LCC)
     ds.attrs["Conventions"] = "CF-1.8"

@@ -358,7 +358,8 @@ def _expand(path_or_glob, base_dir) -> list[str]:
 def _open_one(path: str) -> xr.Dataset:
     try:
         if path.rstrip("/").endswith(".zarr") or os.path.isdir(path):
-            return xr.open_zarr(path, chunks={})
+            consolidated = os.path.exists(os.path.join(path, ".zmetadata"))
+            return xr.open_zarr(path, chunks={}, consolidated=consolidated)
         return xr.open_dataset(path, chunks={}, decode_timedelta=False)
     except Exception as exc:
         raise ForcingReadError(

@@ -59,9 +59,27 @@ def normalise_units(units: str) -> str:
     return text
 
 
-def _quantity(values, units: str):
-    from cf_xarray.units import units as ureg
+_UREG = None
 
+
+def _registry():
+    """cf_xarray's CF-aware pint registry, without letting it replace pint's application
+    registry (importing ``cf_xarray.units`` does that, which breaks MetPy quantities made
+    before it)."""
+    global _UREG
+    if _UREG is None:
+        import pint
+
+        previous = pint.get_application_registry().get()
+        from cf_xarray.units import units as ureg
+
+        pint.set_application_registry(previous)
+        _UREG = ureg
+    return _UREG
+
+
+def _quantity(values, units: str):
+    ureg = _registry()
     try:
         return ureg.Quantity(np.asarray(values, dtype=np.float64), normalise_units(units))
     except Exception as exc:  # pint raises several unrelated types for bad strings
@@ -90,8 +108,7 @@ def affine_conversion(units: str, target: str) -> tuple[float, float]:
     UnitsProblem
         Units not parseable, or not convertible to ``target``.
     """
-    from cf_xarray.units import units as ureg
-
+    ureg = _registry()
     src = _quantity([0.0, 1.0], units)
     dst_units = ureg.Unit(normalise_units(target))
     mass_per_area = ureg.Unit("kg m-2").dimensionality
