@@ -1,0 +1,203 @@
+"""Terrain analysis on the DEM grid: slope, aspect, curvature, horizon, sky view, exposure.
+
+All kernels run on a metric grid; a geographic DEM is analysed on its UTM view
+(:meth:`regionmap.io.dem.Dem.metric`) and the results are brought back to the DEM grid.
+Azimuths and aspects are relative to grid north of the grid they were computed on.
+"""
+
+from __future__ import annotations
+
+import os
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+
+from regionmap.errors import ConfigError
+from regionmap.io.dem import Dem, read_dem, reproject_to_grid
+from regionmap.terrain.horizon import (
+    horizon_sky_view_dozier_frew1990,
+    max_upwind_slope_winstral2002,
+    sky_view_dozier_frew1990,
+)
+from regionmap.terrain.slope import curvature_liston_sturm1998, slope_aspect_horn1981
+
+__all__ = [
+    "TerrainSettings",
+    "Terrain",
+    "compute_terrain",
+    "write_terrain_layers",
+    "slope_aspect_horn1981",
+    "curvature_liston_sturm1998",
+    "horizon_sky_view_dozier_frew1990",
+    "sky_view_dozier_frew1990",
+    "max_upwind_slope_winstral2002",
+]
+
+
+@dataclass(frozen=True)
+class TerrainSettings:
+    """Terrain-analysis options (the ``[terrain]`` config section).
+
+    Attributes
+    ----------
+    n_azimuths : int
+        Horizon azimuths, equally spaced from north (4–72, default 16).
+    horizon_distance_m : float
+        Horizon search distance [m] (default 5000).
+    exposure_directions : int
+        Wind-direction sectors for Sx, equally spaced from north (default 8).
+    exposure_distance_m : float
+        Upwind search distance d_max for Sx [m] (default 300, common later practice [mem]).
+    curvature_length_m : float
+        Curvature length scale η [m] (default 500).
+    earth_curvature : bool
+        Lower distant terrain by d²/2R in the horizon scan (default True).
+    """
+
+    n_azimuths: int = 16
+    horizon_distance_m: float = 5000.0
+    exposure_directions: int = 8
+    exposure_distance_m: float = 300.0
+    curvature_length_m: float = 500.0
+    earth_curvature: bool = True
+
+    def __post_init__(self):
+        checks = [
+            ("n_azimuths", 4 <= int(self.n_azimuths) <= 72, "an integer from 4 to 72"),
+            ("horizon_distance_m", self.horizon_distance_m > 0, "a positive distance in metres"),
+            ("exposure_directions", 1 <= int(self.exposure_directions) <= 72, "an integer from 1 to 72"),
+            ("exposure_distance_m", self.exposure_distance_m > 0, "a positive distance in metres"),
+            ("curvature_length_m", self.curvature_length_m > 0, "a positive distance in metres"),
+        ]
+        for key, ok, expected in checks:
+            if not ok:
+                raise ConfigError(f"[terrain] {key} = {getattr(self, key)!r}: expected {expected}")
+
+    @property
+    def horizon_azimuths_deg(self) -> np.ndarray:
+        return np.arange(self.n_azimuths) * (360.0 / self.n_azimuths)
+
+    @property
+    def exposure_directions_deg(self) -> np.ndarray:
+        return np.arange(self.exposure_directions) * (360.0 / self.exposure_directions)
+
+
+@dataclass
+class Terrain:
+    """Terrain layers on the DEM grid (see DEVELOPERS.md, internal contracts).
+
+    Attributes
+    ----------
+    slope_deg, aspect_deg : ndarray (y, x) float64
+        Horn (1981) slope and aspect [deg]; aspect 0 = north, clockwise, NaN where flat.
+    curvature : ndarray (y, x) float64
+        Liston & Sturm (1998) curvature [1].
+    horizon_deg : ndarray (azimuth, y, x) float32
+        Horizon elevation angle [deg] at ``horizon_azimuths_deg``.
+    sky_view_frac : ndarray (y, x) float64
+        Dozier & Frew (1990) sky-view factor [1].
+    sx_deg : ndarray (direction, y, x) float32
+        Winstral et al. (2002) maximum upwind slope [deg] for wind from
+        ``sx_directions_deg`` (positive = sheltered).
+    """
+
+    slope_deg: np.ndarray
+    aspect_deg: np.ndarray
+    curvature: np.ndarray
+    horizon_deg: np.ndarray
+    horizon_azimuths_deg: np.ndarray
+    sky_view_frac: np.ndarray
+    sx_deg: np.ndarray
+    sx_directions_deg: np.ndarray
+
+
+def compute_terrain(dem: Dem, settings: TerrainSettings | None = None, *, progress=None) -> Terrain:
+    """All terrain layers of a DEM, on the DEM's grid.
+
+    Parameters
+    ----------
+    dem : Dem
+    settings : TerrainSettings (defaults when None)
+    progress : callable or None
+        Called with a number of finished steps (n_azimuths + exposure_directions + 2 in total).
+    """
+    settings = settings or TerrainSettings()
+    m = dem.metric()
+    dx, dy = m.spacing_m()
+    z = m.elevation_m
+    slope, aspect = slope_aspect_horn1981(z, dx, dy)
+    curv = curvature_liston_sturm1998(z, dx, dy, settings.curvature_length_m)
+    if progress is not None:
+        progress(1)
+    az = settings.horizon_azimuths_deg
+    horizon, sky = horizon_sky_view_dozier_frew1990(
+        z, dx, dy, slope, aspect, az, settings.horizon_distance_m,
+        earth_curvature=settings.earth_curvature, progress=progress,
+    )
+    dirs = settings.exposure_directions_deg
+    sx = max_upwind_slope_winstral2002(z, dx, dy, dirs, settings.exposure_distance_m, progress=progress)
+    if m is not dem:
+        slope, aspect, curv, horizon, sky, sx = _back_to_grid(m, dem, slope, aspect, curv, horizon, sky, sx)
+    if progress is not None:
+        progress(1)
+    return Terrain(slope, aspect, curv, horizon, az, sky, sx, dirs)
+
+
+def _back_to_grid(m: Dem, dem: Dem, slope, aspect, curv, horizon, sky, sx):
+    """Bilinear reprojection from the metric view to the DEM grid (aspect via its unit vector)."""
+    a = np.radians(aspect)
+    vec = reproject_to_grid(np.stack([np.sin(a), np.cos(a), slope, curv, sky]), m, dem)
+    aspect_out = np.degrees(np.arctan2(vec[0], vec[1])) % 360.0
+    aspect_out[(vec[0] == 0) & (vec[1] == 0) | np.isnan(vec[0])] = np.nan
+    slope_out, curv_out, sky_out = vec[2], vec[3], vec[4]
+    aspect_out[np.isnan(slope_out)] = np.nan
+    horizon_out = reproject_to_grid(horizon, m, dem).astype(np.float32)
+    sx_out = reproject_to_grid(sx, m, dem).astype(np.float32)
+    return slope_out, aspect_out, curv_out, horizon_out, sky_out, sx_out
+
+
+def write_terrain_layers(
+    dem_path: str | os.PathLike,
+    out_dir: str | os.PathLike,
+    settings: TerrainSettings | None = None,
+    progress: bool = True,
+) -> list[Path]:
+    """Compute the terrain of a DEM file and write each layer as a GeoTIFF on its grid.
+
+    Files: ``slope_deg.tif``, ``aspect_deg.tif``, ``curvature.tif``, ``sky_view_frac.tif``,
+    ``horizon_deg.tif`` (one band per azimuth), ``sx_deg.tif`` (one band per wind direction).
+
+    Returns
+    -------
+    list of Path : the files written.
+    """
+    from tqdm import tqdm
+
+    from regionmap.io.writers import write_geotiff
+
+    settings = settings or TerrainSettings()
+    dem = read_dem(dem_path)
+    out = Path(out_dir)
+    out.mkdir(parents=True, exist_ok=True)
+    steps = settings.n_azimuths + settings.exposure_directions + 2 + 6
+    written: list[Path] = []
+    with tqdm(total=steps, desc="terrain", unit="step", disable=not progress) as bar:
+        t = compute_terrain(dem, settings, progress=bar.update)
+        layers = [
+            ("slope_deg", t.slope_deg.astype(np.float32), "slope angle [deg] (Horn 1981)"),
+            ("aspect_deg", t.aspect_deg.astype(np.float32), "aspect [deg], 0 = north, clockwise; nodata where flat"),
+            ("curvature", t.curvature.astype(np.float32), "curvature [1] (Liston & Sturm 1998)"),
+            ("sky_view_frac", t.sky_view_frac.astype(np.float32), "sky-view factor [1] (Dozier & Frew 1990)"),
+            ("horizon_deg", t.horizon_deg,
+             [f"horizon angle [deg] at azimuth {a:g} deg" for a in t.horizon_azimuths_deg]),
+            ("sx_deg", t.sx_deg,
+             [f"max upwind slope Sx [deg], wind from {a:g} deg (Winstral et al. 2002)" for a in t.sx_directions_deg]),
+        ]
+        for name, arr, desc in layers:
+            written.append(
+                write_geotiff(out / f"{name}.tif", arr, transform=dem.transform, crs=dem.crs,
+                              nodata=-9999.0, description=desc, tags={"source_dem": str(dem.path)})
+            )
+            bar.update(1)
+    return written

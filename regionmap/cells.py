@@ -1,0 +1,331 @@
+"""Band cells: the DEM pixels of each zone grouped by elevation band x aspect sector
+[x slope class], with their pixel->cell index and sunlit-fraction tables."""
+
+from __future__ import annotations
+
+import math
+from concurrent.futures import ThreadPoolExecutor
+from dataclasses import dataclass, field
+
+import numba
+import numpy as np
+import pandas as pd
+
+from regionmap.errors import ConfigError, InputError
+
+__all__ = ["CellSettings", "SunlitTable", "CellSet", "build_cells", "sector_names", "sunlit_tables"]
+
+_SECTORS = {
+    4: ["N", "E", "S", "W"],
+    8: ["N", "NE", "E", "SE", "S", "SW", "W", "NW"],
+    16: ["N", "NNE", "NE", "ENE", "E", "ESE", "SE", "SSE", "S", "SSW", "SW", "WSW", "W", "WNW", "NW", "NNW"],
+}
+
+
+def sector_names(n: int) -> list[str]:
+    """Aspect-sector labels for 4, 8 or 16 sectors (sector 0 centred on north), plus ``flat``."""
+    return _SECTORS[n] + ["flat"]
+
+
+@dataclass(frozen=True)
+class CellSettings:
+    """How pixels are grouped into cells (the ``[cells]`` config section).
+
+    Attributes
+    ----------
+    band_edges_m : tuple of float or None
+        Band edges [m]; bands are open-ended below the first and above the last edge.
+    band_step_m : float or None
+        Alternative to ``band_edges_m``: edges every ``band_step_m`` metres (multiples of it).
+    aspect_sectors : int
+        4, 8 or 16 aspect sectors, the first centred on north.
+    flat_below_deg : float
+        Pixels with a slope below this [deg] form the ``flat`` sector.
+    slope_classes_deg : tuple of float
+        Optional slope-class edges [deg]; class k spans [edge k-1, edge k).
+    sun_azimuth_step_deg, sun_elevation_step_deg : float
+        Resolution of the sunlit-fraction table: azimuths 0, step, … < 360 and elevations
+        0, step, … ≤ 90 [deg].
+    small_below_pixels : int
+        Cells with fewer pixels are flagged ``small`` (kept, never dropped).
+    """
+
+    band_edges_m: tuple[float, ...] | None = None
+    band_step_m: float | None = 300.0
+    aspect_sectors: int = 8
+    flat_below_deg: float = 10.0
+    slope_classes_deg: tuple[float, ...] = ()
+    sun_azimuth_step_deg: float = 10.0
+    sun_elevation_step_deg: float = 5.0
+    small_below_pixels: int = 25
+
+    def __post_init__(self):
+        if self.band_edges_m is not None:
+            e = np.asarray(self.band_edges_m, dtype=float)
+            if e.size == 0 or np.any(np.diff(e) <= 0):
+                raise ConfigError(f"[cells] band_edges_m = {list(self.band_edges_m)}: expected strictly increasing edges in metres")
+        elif self.band_step_m is None or not self.band_step_m > 0:
+            raise ConfigError(f"[cells] band_step_m = {self.band_step_m!r}: expected a positive step in metres (or give band_edges_m)")
+        if self.aspect_sectors not in _SECTORS:
+            raise ConfigError(f"[cells] aspect_sectors = {self.aspect_sectors!r}: expected 4, 8 or 16")
+        if not 0 <= self.flat_below_deg < 90:
+            raise ConfigError(f"[cells] flat_below_deg = {self.flat_below_deg!r}: expected 0 <= value < 90 degrees")
+        s = np.asarray(self.slope_classes_deg, dtype=float)
+        if s.size and (np.any(np.diff(s) <= 0) or s[0] <= 0 or s[-1] >= 90):
+            raise ConfigError(f"[cells] slope_classes_deg = {list(self.slope_classes_deg)}: expected increasing edges between 0 and 90")
+        if not (0 < self.sun_azimuth_step_deg <= 90 and 0 < self.sun_elevation_step_deg <= 45):
+            raise ConfigError("[cells] sun grid steps: expected 0 < azimuth step <= 90 and 0 < elevation step <= 45 degrees")
+
+    def edges_for(self, elevation_m: np.ndarray) -> np.ndarray:
+        """Band edges [m] for the given elevations."""
+        if self.band_edges_m is not None:
+            return np.asarray(self.band_edges_m, dtype=float)
+        lo = math.floor(np.nanmin(elevation_m) / self.band_step_m) * self.band_step_m
+        hi = math.ceil(np.nanmax(elevation_m) / self.band_step_m) * self.band_step_m
+        return np.arange(lo, hi + 0.5 * self.band_step_m, self.band_step_m)
+
+
+@dataclass
+class SunlitTable:
+    """Per-cell sunlit fraction over a sun azimuth x elevation grid.
+
+    Attributes
+    ----------
+    azimuth_deg : ndarray (n_az,) sun azimuths [deg], 0 = north, clockwise
+    elevation_deg : ndarray (n_el,) sun elevations [deg]
+    fraction : ndarray (cell, n_az, n_el) float32
+        Share of the cell's pixels in sun: the sun above the pixel's horizon in that azimuth
+        (horizon interpolated linearly between horizon azimuths) and cos(incidence) > 0 [1].
+    cos_incidence : ndarray (cell, n_az, n_el) float32
+        Mean cosine of the incidence angle over the sunlit pixels (0 where none is lit) [1].
+    """
+
+    azimuth_deg: np.ndarray
+    elevation_deg: np.ndarray
+    fraction: np.ndarray
+    cos_incidence: np.ndarray
+
+
+@dataclass
+class CellSet:
+    """Cells of a region (see DEVELOPERS.md, internal contracts)."""
+
+    table: pd.DataFrame
+    sx_deg: np.ndarray
+    sx_directions_deg: np.ndarray
+    index: np.ndarray
+    sunlit: SunlitTable
+    transform: object = None
+    crs: object = None
+    band_edges_m: np.ndarray = field(default_factory=lambda: np.array([]))
+
+    def polygons(self):
+        """Cell polygons (MultiPolygon per cell, from the index raster) with the cell table,
+        as a GeoDataFrame in the DEM CRS."""
+        import geopandas as gpd
+        import shapely
+        from rasterio.features import shapes
+        from shapely.geometry import shape
+
+        geoms, ids = [], []
+        for geom, value in shapes(self.index, mask=self.index >= 0, transform=self.transform, connectivity=4):
+            geoms.append(shape(geom))
+            ids.append(int(value))
+        ids = np.asarray(ids, dtype=np.int64)
+        order = np.argsort(ids, kind="stable")
+        multi = shapely.multipolygons(np.asarray(geoms, dtype=object)[order], indices=np.searchsorted(
+            np.unique(ids), ids[order]))
+        frame = self.table.loc[np.unique(ids)].reset_index()
+        return gpd.GeoDataFrame(frame, geometry=list(multi), crs=self.crs)
+
+
+@numba.njit(cache=True, nogil=True, error_model="numpy")
+def _sunlit_kernel(cell, hor, slope_rad, aspect_rad, hor_az_rad, sun_az_rad, sun_el_rad, count, cos_sum):
+    """Accumulate sunlit pixel counts and cos(incidence) sums per cell (pixels given as lists)."""
+    n_pix = cell.size
+    n_h = hor_az_rad.size
+    n_az = sun_az_rad.size
+    n_el = sun_el_rad.size
+    dphi = 2.0 * math.pi / n_h
+    sin_el = np.sin(sun_el_rad)
+    cos_el = np.cos(sun_el_rad)
+    for p in range(n_pix):
+        c = cell[p]
+        s = slope_rad[p]
+        a = aspect_rad[p]
+        cs = math.cos(s)
+        ss = math.sin(s)
+        for j in range(n_az):
+            # horizon in the sun's azimuth, linear between neighbouring horizon azimuths
+            x = sun_az_rad[j] / dphi
+            k0 = int(math.floor(x))
+            f = x - k0
+            k0 = k0 % n_h
+            k1 = (k0 + 1) % n_h
+            h = (1.0 - f) * hor[k0, p] + f * hor[k1, p]
+            cos_rel = math.cos(sun_az_rad[j] - a) if a == a else 0.0
+            for k in range(n_el):
+                if sun_el_rad[k] <= h:
+                    continue
+                ci = sin_el[k] * cs + cos_el[k] * ss * cos_rel
+                if ci > 0.0:
+                    count[c, j, k] += 1.0
+                    cos_sum[c, j, k] += ci
+
+
+def sunlit_tables(cell_of_pixel, horizon_deg_pixels, slope_deg, aspect_deg, horizon_azimuths_deg,
+                  n_cells, sun_azimuth_deg, sun_elevation_deg) -> SunlitTable:
+    """Sunlit fraction and mean cos(incidence) per cell from its own pixels.
+
+    Parameters
+    ----------
+    cell_of_pixel : ndarray (pixel,) int64 cell of each listed pixel
+    horizon_deg_pixels : ndarray (azimuth, pixel) horizon angles [deg]
+    slope_deg, aspect_deg : ndarray (pixel,) [deg] (aspect NaN where flat)
+    horizon_azimuths_deg : ndarray (azimuth,) equally spaced from 0 [deg]
+    n_cells : int
+    sun_azimuth_deg, sun_elevation_deg : ndarray the sun grid [deg]
+
+    Notes
+    -----
+    cos θi = cos θz cos S + sin θz sin S cos(φsun − A) (Liu & Jordan 1963, Solar Energy 7(2),
+    https://doi.org/10.1016/0038-092X(63)90006-9); a pixel is lit when cos θi > 0 and the sun
+    stands above its horizon angle in that azimuth.
+    """
+    hor = np.ascontiguousarray(np.radians(horizon_deg_pixels.astype(np.float64)))
+    sl = np.radians(np.asarray(slope_deg, dtype=np.float64))
+    asp = np.radians(np.asarray(aspect_deg, dtype=np.float64))
+    az = np.radians(np.asarray(sun_azimuth_deg, dtype=np.float64))
+    el = np.radians(np.asarray(sun_elevation_deg, dtype=np.float64))
+    haz = np.radians(np.asarray(horizon_azimuths_deg, dtype=np.float64))
+    cells = np.asarray(cell_of_pixel, dtype=np.int64)
+    halves = np.array_split(np.arange(cells.size), 2)
+
+    def work(idx):
+        count = np.zeros((n_cells, az.size, el.size))
+        cos_sum = np.zeros_like(count)
+        _sunlit_kernel(cells[idx], np.ascontiguousarray(hor[:, idx]), sl[idx], asp[idx], haz, az, el, count, cos_sum)
+        return count, cos_sum
+
+    with ThreadPoolExecutor(2) as pool:
+        parts = list(pool.map(work, halves))
+    count = parts[0][0] + parts[1][0]
+    cos_sum = parts[0][1] + parts[1][1]
+    n_pix = np.bincount(cells, minlength=n_cells).astype(float)[:, None, None]
+    with np.errstate(invalid="ignore", divide="ignore"):
+        fraction = np.where(n_pix > 0, count / np.maximum(n_pix, 1), 0.0)
+        cos_mean = np.where(count > 0, cos_sum / np.maximum(count, 1), 0.0)
+    return SunlitTable(np.asarray(sun_azimuth_deg, float), np.asarray(sun_elevation_deg, float),
+                       fraction.astype(np.float32), cos_mean.astype(np.float32))
+
+
+def build_cells(dem, terrain, zones, settings: CellSettings | None = None) -> CellSet:
+    """Group the valid DEM pixels inside each zone into cells.
+
+    Parameters
+    ----------
+    dem : regionmap.io.dem.Dem
+    terrain : regionmap.terrain.Terrain on the DEM grid
+    zones : GeoDataFrame from :func:`regionmap.io.zones.read_zones` (columns ``zone``, geometry)
+    settings : CellSettings (defaults when None)
+
+    Returns
+    -------
+    CellSet
+        Cells ordered by zone (file order), band, sector (N clockwise, then flat), slope
+        class; ``cell_id`` 0..n-1.
+
+    Raises
+    ------
+    InputError
+        A zone covers no valid DEM pixel (named).
+    """
+    from pyproj import Transformer
+    from rasterio.features import rasterize
+
+    settings = settings or CellSettings()
+    z = dem.elevation_m
+    ny, nx = z.shape
+    zone_idx = rasterize(
+        [(g, i) for i, g in enumerate(zones.geometry)], out_shape=(ny, nx), transform=dem.transform,
+        fill=-1, dtype="int32", all_touched=False,
+    )
+    valid = (zone_idx >= 0) & np.isfinite(z) & np.isfinite(terrain.slope_deg)
+    counts = np.bincount(zone_idx[valid], minlength=len(zones))
+    empty = [zones.zone.iloc[i] for i in np.flatnonzero(counts == 0)]
+    if empty:
+        raise InputError(f"zones {empty}: no valid DEM pixel (pixel centre with data) inside; "
+                         f"the zone is smaller than a pixel or lies on nodata of DEM {dem.path}")
+    rows, cols = np.nonzero(valid)
+    zp = z[rows, cols]
+    slope = terrain.slope_deg[rows, cols]
+    aspect = terrain.aspect_deg[rows, cols]
+    edges = settings.edges_for(zp)
+    band = np.searchsorted(edges, zp, side="right")  # 0 = below the first edge
+    n_sec = settings.aspect_sectors
+    width = 360.0 / n_sec
+    flat = (slope < settings.flat_below_deg) | np.isnan(aspect)
+    sector = np.where(flat, n_sec, np.floor(((np.nan_to_num(aspect) + 0.5 * width) % 360.0) / width)).astype(np.int64)
+    sclass_edges = np.asarray(settings.slope_classes_deg, dtype=float)
+    sclass = np.searchsorted(sclass_edges, slope, side="right") if sclass_edges.size else np.zeros(slope.size, np.int64)
+    n_band = edges.size + 1
+    n_cls = sclass_edges.size + 1
+    key = ((zone_idx[rows, cols].astype(np.int64) * n_band + band) * (n_sec + 1) + sector) * n_cls + sclass
+    keys, cell = np.unique(key, return_inverse=True)
+    n = keys.size
+    area = dem.pixel_area_m2()[rows, cols]
+    w_sum = np.bincount(cell, area, n)
+
+    def mean(v, weights=area):
+        ok = np.isfinite(v)
+        num = np.bincount(cell[ok], (v * weights)[ok], n)
+        den = np.bincount(cell[ok], weights[ok], n)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            return np.where(den > 0, num / den, np.nan)
+
+    a_rad = np.radians(aspect)
+    asp_mean = np.degrees(np.arctan2(mean(np.sin(a_rad)), mean(np.cos(a_rad)))) % 360.0  # circular mean
+    xs, ys = dem.pixel_centres()
+    x_mean = mean(xs[cols])
+    y_mean = mean(ys[rows])
+    lon, lat = Transformer.from_crs(dem.crs, "EPSG:4326", always_xy=True).transform(x_mean, y_mean)
+    k_cls = keys % n_cls
+    k_sec = (keys // n_cls) % (n_sec + 1)
+    k_band = (keys // (n_cls * (n_sec + 1))) % n_band
+    k_zone = keys // (n_cls * (n_sec + 1) * n_band)
+    lower = np.concatenate([[-np.inf], edges])[k_band]
+    upper = np.concatenate([edges, [np.inf]])[k_band]
+    pix = np.bincount(cell, minlength=n)
+    names = np.asarray(sector_names(n_sec))
+    table = pd.DataFrame({
+        "zone": zones.zone.to_numpy()[k_zone],
+        "band_lower_m": lower,
+        "band_upper_m": upper,
+        "aspect_sector": names[k_sec],
+        "slope_class": k_cls.astype(np.int64),
+        "slope_lower_deg": np.concatenate([[0.0], sclass_edges])[k_cls],
+        "slope_upper_deg": np.concatenate([sclass_edges, [90.0]])[k_cls],
+        "pixel_count": pix.astype(np.int64),
+        "area_km2": w_sum / 1e6,
+        "elevation_m": mean(zp),
+        "slope_deg": mean(slope),
+        "aspect_deg": asp_mean,
+        "sky_view_frac": mean(terrain.sky_view_frac[rows, cols]),
+        "curvature": mean(terrain.curvature[rows, cols]),
+        "lon": np.asarray(lon),
+        "lat": np.asarray(lat),
+        "x": x_mean,
+        "y": y_mean,
+        "small": pix < settings.small_below_pixels,
+    })
+    table.index = pd.RangeIndex(n, name="cell_id")
+    sx = np.stack([mean(terrain.sx_deg[d][rows, cols].astype(np.float64)) for d in range(terrain.sx_deg.shape[0])], axis=1) \
+        if terrain.sx_deg.shape[0] else np.zeros((n, 0))
+    index = np.full((ny, nx), -1, dtype=np.int32)
+    index[rows, cols] = cell
+    sun_az = np.arange(0.0, 360.0 - 1e-9, settings.sun_azimuth_step_deg)
+    sun_el = np.arange(0.0, 90.0 + 1e-9, settings.sun_elevation_step_deg)
+    sunlit = sunlit_tables(cell, terrain.horizon_deg[:, rows, cols], slope, aspect,
+                           terrain.horizon_azimuths_deg, n, sun_az, sun_el)
+    return CellSet(table, sx.astype(np.float32), np.asarray(terrain.sx_directions_deg), index, sunlit,
+                   transform=dem.transform, crs=dem.crs, band_edges_m=edges)

@@ -1,0 +1,169 @@
+"""The invented demo region: a deterministic mountain DEM and four forecast zones.
+
+Everything here is invented. The range, its zones and their names are made up; the
+coordinates (WGS 84 / UTM zone 32N) are placeholders that give the invented range a
+mid-latitude position for solar geometry, not a real place.
+
+Model output is guidance for trained people and never a substitute for field
+observations, the local avalanche service and professional standards.
+"""
+
+from __future__ import annotations
+
+import os
+from pathlib import Path
+
+import numpy as np
+
+__all__ = [
+    "DEMO_CRS",
+    "DEMO_ZONE_NAMES",
+    "demo_elevation_m",
+    "demo_transform",
+    "make_demo_dem",
+    "make_demo_zones",
+    "run_demo",
+    "SHIPPED_DEM",
+    "SHIPPED_ZONES",
+]
+
+DEMO_CRS = "EPSG:32632"  # placeholder coordinates for an invented range
+_NX = _NY = 300
+_PIXEL_M = 100.0
+_X0, _Y_TOP = 600_000.0, 5_210_000.0
+DEMO_ZONE_NAMES = ("Zelvorn Crest", "Yrlen Cirque", "Brasktal Front", "Quessa Basin")
+
+_REPO = Path(__file__).resolve().parent.parent
+SHIPPED_DEM = _REPO / "dem_samples" / "demo_range.tif"
+SHIPPED_ZONES = _REPO / "zones" / "demo_zones.geojson"
+
+
+def demo_transform():
+    from affine import Affine
+
+    return Affine(_PIXEL_M, 0.0, _X0, 0.0, -_PIXEL_M, _Y_TOP)
+
+
+def _ridge(x, y, pts, height, half_width):
+    """A ridge of given crest height above its surroundings along a polyline (km)."""
+    pts = np.asarray(pts, dtype=float)
+    d = np.full(x.shape, np.inf)
+    for (x1, y1), (x2, y2) in zip(pts[:-1], pts[1:]):
+        vx, vy = x2 - x1, y2 - y1
+        t = np.clip(((x - x1) * vx + (y - y1) * vy) / (vx * vx + vy * vy), 0.0, 1.0)
+        d = np.minimum(d, np.hypot(x - (x1 + t * vx), y - (y1 + t * vy)))
+    return height * np.exp(-((d / half_width) ** 2))
+
+
+def demo_elevation_m() -> np.ndarray:
+    """The demo DEM (300 x 300 at 100 m), elevations 1200–3200 m, deterministic.
+
+    A curved main ridge running WSW–ENE, side ridges running N–S, NW–SE and NE–SW, a few
+    summits, a deep north-facing cirque cut into the main ridge, and a fixed sum of
+    sinusoids as texture (no random numbers, so every platform builds the same grid).
+    """
+    x1 = (np.arange(_NX) + 0.5) * _PIXEL_M / 1000.0  # km east of the west edge
+    y1 = 30.0 - (np.arange(_NY) + 0.5) * _PIXEL_M / 1000.0  # km north of the south edge
+    x, y = np.meshgrid(x1, y1)
+    h = 0.015 * (x + y)  # gentle rise to the north-east
+    main = [(0.0, 13.0), (6.0, 15.5), (12.0, 14.5), (18.0, 16.5), (24.0, 15.0), (30.0, 17.0)]
+    h = h + _ridge(x, y, main, 1.55, 2.0)
+    h = h + _ridge(x, y, [(6.0, 15.5), (5.5, 22.0), (7.0, 28.0)], 1.0, 1.3)  # N-S spur
+    h = h + _ridge(x, y, [(21.0, 15.8), (25.0, 10.0), (28.5, 4.0)], 1.05, 1.3)  # NW-SE spur
+    h = h + _ridge(x, y, [(12.0, 14.5), (8.5, 9.0), (4.0, 3.0)], 0.9, 1.3)  # NE-SW spur
+    h = h + _ridge(x, y, [(24.0, 15.0), (26.0, 22.0), (23.0, 27.5)], 0.8, 1.2)  # northern spur
+    for (px, py, ph, pw) in [(18.0, 16.3, 0.55, 1.3), (6.0, 15.7, 0.35, 1.0), (26.0, 21.5, 0.3, 1.1),
+                             (9.5, 6.0, 0.25, 1.2)]:
+        h = h + ph * np.exp(-(((x - px) ** 2 + (y - py) ** 2) / pw**2))
+    # north-facing cirque: a bowl on the north flank of the main ridge below the summit
+    cx, cy = 18.0, 18.3
+    r = np.hypot((x - cx) / 1.6, (y - cy) / 1.9)
+    h = h - 0.75 * np.exp(-(r**4))
+    # side valleys and ribs cut into the flanks (stronger where the terrain is high)
+    texture = (
+        0.20 * np.sin(2.1 * x + 0.7) * np.cos(1.7 * y + 0.3)
+        + 0.12 * np.sin(3.9 * x - 2.3 * y + 1.1)
+        + 0.07 * np.cos(6.3 * x + 5.1 * y + 2.0)
+        + 0.04 * np.sin(9.7 * x - 8.3 * y + 0.4)
+    )
+    h = h + texture * (0.35 + h / 2.0)
+    return 1200.0 + 2000.0 * (h - h.min()) / (h.max() - h.min())
+
+
+def make_demo_dem(path: str | os.PathLike) -> Path:
+    """Write the demo DEM as a GeoTIFF (float32, metres, EPSG:32632 placeholder coordinates)."""
+    from regionmap.io.writers import write_geotiff
+
+    z = demo_elevation_m().astype(np.float32)
+    return write_geotiff(
+        path, z, transform=demo_transform(), crs=DEMO_CRS, nodata=-9999.0,
+        description="elevation [m] of an invented mountain range (demo data)",
+        tags={"source": "regionmap.demo.make_demo_dem (invented terrain)", "units": "m"},
+    )
+
+
+def demo_zones():
+    """The four invented demo zones as a GeoDataFrame in the DEM CRS (shared edges)."""
+    import geopandas as gpd
+    from shapely.geometry import Polygon
+
+    def p(xy_km):
+        return Polygon([(_X0 + 1000.0 * a, _Y_TOP - 30_000.0 + 1000.0 * b) for a, b in xy_km])
+
+    # corners of the four zones; the boundary runs along the main ridge and a N-S line
+    w, e, s, n = 1.5, 28.5, 1.5, 28.5
+    mid_n = (14.5, n)
+    mid_s = (15.5, s)
+    west_ridge = [(w, 13.2), (6.0, 15.3), (12.0, 14.3)]
+    centre = (15.0, 15.2)
+    east_ridge = [(18.0, 16.2), (24.0, 14.8), (e, 16.0)]
+    zones = [
+        p([(w, n), mid_n, centre, *reversed(west_ridge)]),          # north-west
+        p([mid_n, (e, n), *reversed(east_ridge), centre]),          # north-east (the cirque)
+        p([*west_ridge, centre, mid_s, (w, s)]),                    # south-west
+        p([centre, *east_ridge, (e, s), mid_s]),                    # south-east
+    ]
+    return gpd.GeoDataFrame({"name": list(DEMO_ZONE_NAMES)}, geometry=zones, crs=DEMO_CRS)
+
+
+def make_demo_zones(path: str | os.PathLike) -> Path:
+    """Write the demo zones as GeoJSON (EPSG:4326, attribute ``name``)."""
+    from regionmap.io.writers import write_geojson
+
+    return write_geojson(path, demo_zones())
+
+
+def run_demo(out: str | os.PathLike, progress: bool = True) -> int:
+    """Build the demo region, compute terrain and cells, and print the per-zone cell table.
+
+    Returns the exit status (0).
+    """
+    from regionmap import CAUTION
+    from regionmap.cells import CellSettings, build_cells
+    from regionmap.io.dem import read_dem
+    from regionmap.io.writers import write_geopackage, write_geotiff
+    from regionmap.io.zones import read_zones
+    from regionmap.terrain import TerrainSettings, compute_terrain
+
+    out = Path(out)
+    out.mkdir(parents=True, exist_ok=True)
+    dem_path = make_demo_dem(out / "demo_range.tif")
+    zones_path = make_demo_zones(out / "demo_zones.geojson")
+    dem = read_dem(dem_path)
+    zones = read_zones(zones_path, "name", dem)
+    terrain = compute_terrain(dem, TerrainSettings())
+    cells = build_cells(dem, terrain, zones, CellSettings(band_edges_m=(1500, 1800, 2100, 2400, 2700, 3000)))
+    (out / "maps").mkdir(exist_ok=True)
+    write_geotiff(out / "maps" / "cell_id.tif", cells.index, transform=dem.transform, crs=dem.crs,
+                  nodata=-1, description="cell_id (pixel -> cell index)")
+    write_geopackage(out / "zones.gpkg", {"cells": cells.polygons()})
+    t = cells.table
+    summary = t.groupby("zone", sort=False).agg(
+        cells=("pixel_count", "size"), area_km2=("area_km2", "sum"), small_cells=("small", "sum"),
+        min_elevation_m=("elevation_m", "min"), max_elevation_m=("elevation_m", "max"),
+        mean_sky_view=("sky_view_frac", "mean"),
+    )
+    print(summary.round(2).to_string())
+    print(f"\n{len(t)} cells; outputs in {out}")
+    print(CAUTION)
+    return 0
