@@ -97,7 +97,7 @@ class DownscaleSettings:
     bias: dict = field(default_factory=dict)
     quantile_tables: list = field(default_factory=list)
     chunk_cells: int = 1000
-    time_block_h: int = 744
+    time_block_h: int = 168
 
     def __post_init__(self) -> None:
         for key, allowed in _CHOICES.items():
