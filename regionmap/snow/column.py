@@ -1,0 +1,259 @@
+"""Entry point of the snow column: :func:`run_columns`.
+
+Checks the hand-over (state, forcing, settings) in Python, then lets the compiled driver
+(:func:`regionmap.snow.batch.run_cells`) step blocks of cells through the whole period on a
+few threads (the kernel releases the GIL). Cells are independent, so results do not depend on
+the block a cell falls in or on the number of threads.
+
+Model output is guidance for trained people, never a substitute for field observations, the
+local avalanche service or professional standards.
+"""
+
+from __future__ import annotations
+
+from concurrent.futures import ThreadPoolExecutor
+
+import numpy as np
+import xarray as xr
+
+from regionmap.downscale.types import CellForcing
+from regionmap.errors import GridMismatchError, InputError, warn
+from regionmap.snow import batch as B
+from regionmap.snow.codes import crust_codes_to_strings, grain_codes_to_strings
+from regionmap.snow.constants import EPOCH_2000_S
+from regionmap.snow.kernel import EV_FREEZING_RAIN, EV_RAIN_ON_SNOW, ST_EVENT_OVERFLOW
+from regionmap.snow.params import SnowParams
+from regionmap.snow.state import SnowState
+
+__all__ = ["run_columns", "snapshots_to_dataset", "DIAGNOSTICS_64", "DIAGNOSTICS_32",
+           "EVENT_KINDS"]
+
+#: cells.nc names of the float64 diagnostics (mass budget), by row of ``batch.d64``
+DIAGNOSTICS_64 = {
+    "swe_kg_m2": B.D64_SWE,
+    "snowfall_kg_m2": B.D64_SNOW,  # interval sums from here on
+    "rain_kg_m2": B.D64_RAIN,
+    "runoff_kg_m2": B.D64_RUNOFF,
+    "sublimation_kg_m2": B.D64_SUBL,
+    "deposition_kg_m2": B.D64_DEPO,
+    "mass_residual_kg_m2": B.D64_MASS_RES,
+}
+#: float32 diagnostics: name -> (row, dtype of the returned array)
+DIAGNOSTICS_32 = {
+    "snow_depth_cm": (B.D32_DEPTH_CM, np.float32),
+    "new_snow_24h_cm": (B.D32_HN24_CM, np.float32),
+    "new_snow_72h_cm": (B.D32_HN72_CM, np.float32),
+    "new_snow_72h_kg_m2": (B.D32_HN72_KG, np.float32),
+    "crust_count": (B.D32_CRUST, np.int16),
+    "crust_count_melt_freeze": (B.D32_CRUST_MF, np.int16),
+    "crust_count_sun": (B.D32_CRUST_SUN, np.int16),
+    "crust_count_rain": (B.D32_CRUST_RAIN, np.int16),
+    "crust_count_glaze": (B.D32_CRUST_GLAZE, np.int16),
+    "depth_hoar_present": (B.D32_DH_PRESENT, np.int8),
+    "depth_hoar_thickness_cm": (B.D32_DH_THICK_CM, np.float32),
+    "pwl_present": (B.D32_PWL, np.int8),
+    "pwl_depth_cm": (B.D32_PWL_DEPTH_CM, np.float32),
+    "pwl_thickness_cm": (B.D32_PWL_THICK_CM, np.float32),
+    "pwl_grain_size_mm": (B.D32_PWL_GRAIN_MM, np.float32),
+    "pwl_grain_code": (B.D32_PWL_CODE, np.int8),
+    "threshold_count_max": (B.D32_TC_MAX, np.float32),
+    "threshold_depth_cm": (B.D32_TC_DEPTH_CM, np.float32),
+    "liquid_water_kg_m2": (B.D32_LIQ_KG, np.float32),
+    "surface_temperature_k": (B.D32_TS_K, np.float32),
+    "surface_wetness_class": (B.D32_WETNESS, np.int8),
+    "energy_residual_w_m2": (B.D32_ENERGY_RES, np.float32),
+    "layer_count": (B.D32_LAYERS, np.int16),
+    "albedo": (B.D32_ALBEDO, np.float32),
+    "surface_hoar_size_mm": (B.D32_SH_MM, np.float32),
+}
+EVENT_KINDS = {EV_RAIN_ON_SNOW: "rain-on-snow", EV_FREEZING_RAIN: "freezing-rain"}
+
+
+def _check(state: SnowState, forcing: CellForcing, params: SnowParams, diag_every_h: int,
+           snapshot_hour_utc) -> None:
+    if not isinstance(forcing, CellForcing):
+        raise InputError(f"run_columns: forcing must be a CellForcing, got {type(forcing).__name__}")
+    if state.n_cells != forcing.n_cells:
+        raise GridMismatchError(
+            f"run_columns: the snow state has {state.n_cells} cells but the forcing has "
+            f"{forcing.n_cells}; hint: state and forcing must cover the same cells in the same order")
+    if state.max_layers != params.max_layers:
+        raise InputError(
+            f"run_columns: state has {state.max_layers} layer slots but [snow] max_layers = "
+            f"{params.max_layers}; hint: keep max_layers when continuing from a state")
+    if forcing.dt_s != 3600.0:
+        raise InputError(f"run_columns: forcing dt_s must be 3600 (hourly), got {forcing.dt_s}")
+    if forcing.n_steps == 0:
+        raise InputError("run_columns: the forcing has no time steps")
+    steps = np.diff(forcing.time.astype("datetime64[s]").astype(np.int64))
+    if steps.size and np.any(steps != 3600):
+        raise InputError("run_columns: forcing times must be hourly without gaps; hint: the "
+                         "downscaling brings all forcing to hourly")
+    start = forcing.time[0].astype("datetime64[s]")
+    expected = (state.time.astype("datetime64[s]") + np.timedelta64(3600, "s"))
+    if state.counters[:, 0].any() and start != expected:
+        raise InputError(
+            f"run_columns: forcing starts at {start} but the state is valid at {state.time}; "
+            f"expected the first step to end at {expected}; hint: continue from the state "
+            "written at the end of the previous period")
+    t0 = int(forcing.time[0].astype("datetime64[s]").astype(np.int64))
+    t1 = int(forcing.time[-1].astype("datetime64[s]").astype(np.int64))
+    lim = EPOCH_2000_S + np.array([-(2**31) + 1, 2**31 - 1])
+    if t0 < lim[0] or t1 > lim[1]:
+        raise InputError(f"run_columns: forcing times {forcing.time[0]}..{forcing.time[-1]} outside "
+                         "1932-2068 (layer times are int32 seconds since 2000)")
+    if not isinstance(diag_every_h, (int, np.integer)) or diag_every_h < 1 or forcing.n_steps % diag_every_h:
+        raise InputError(
+            f"run_columns: diag_every_h must be a positive integer dividing the {forcing.n_steps} "
+            f"steps, got {diag_every_h!r}")
+    if snapshot_hour_utc is not None and not (0 <= int(snapshot_hour_utc) <= 23):
+        raise InputError(f"run_columns: snapshot_hour_utc must be 0..23 or None, got {snapshot_hour_utc!r}")
+    if state.fingerprint and state.fingerprint != params.fingerprint():
+        warn("run_columns: the state was written with other snow settings (fingerprint "
+             f"{state.fingerprint} != {params.fingerprint()}); continuing with the new ones")
+
+
+def run_columns(state: SnowState, forcing: CellForcing, params: SnowParams | None = None,
+                diag_every_h: int = 1, snapshot_hour_utc: int | None = None, *,
+                with_snapshots: bool = True, threads: int = 2, block_cells: int = 64):
+    """Step every cell of ``state`` through the forcing period.
+
+    Parameters
+    ----------
+    state : SnowState
+        State valid one step before the first forcing time (not modified).
+    forcing : CellForcing
+        Hourly forcing, same cells in the same order.
+    params : SnowParams, optional
+        Settings (defaults when None).
+    diag_every_h : int
+        Diagnostics every this many steps (must divide the number of steps).
+    snapshot_hour_utc : int or None
+        Hour (UTC, of the interval end) of the daily layer snapshots; None: the hour of the
+        last forcing step, so the final profile is always included.
+    with_snapshots : bool
+        False skips the daily layer snapshots (saves memory on very large batches).
+    threads, block_cells : int
+        Worker threads and cells per block handed to the compiled driver.
+
+    Returns
+    -------
+    state : SnowState
+        The state at the end of the period.
+    diagnostics : dict
+        ``time`` (out_time,) datetime64[s] interval ends; per-cell (cell, out_time) arrays
+        named as in cells.nc (DESIGN 3) plus extras (see :data:`DIAGNOSTICS_64`,
+        :data:`DIAGNOSTICS_32`; interval sums: snowfall, rain, runoff, sublimation,
+        deposition, mass residual; energy residual is an interval mean); ``status`` (cell,)
+        int32 bitmask (kernel status bits); and the event log as 1-D arrays of one row per
+        (event, cell): ``event_kind`` (strings), ``event_id`` (start hour since 1970),
+        ``event_cell`` (cell index), ``event_first_time`` / ``event_last_time`` (interval
+        ends of the first and last hour) and ``event_amount_kg_m2``.
+    snapshots : dict
+        ``time`` (day,) and, on (cell, day, layer): ``thickness_m``, ``ice_kg_m2``,
+        ``liquid_kg_m2``, ``temperature_k``, ``grain_size_mm``, ``hardness_index``
+        (float32, NaN where unused), ``grain_code``, ``crust_code`` (int8),
+        ``deposition_time``, ``formation_time`` (int64 s since 1970), ``event_id``;
+        ``layer_count`` (cell, day). :func:`snapshots_to_dataset` makes profiles.nc of it.
+    """
+    params = SnowParams() if params is None else params
+    _check(state, forcing, params, int(diag_every_h) if isinstance(diag_every_h, (int, np.integer)) else diag_every_h,
+           snapshot_hour_utc)
+    diag_every = int(diag_every_h)
+    new = state.copy()
+    n_cells, n_steps, cap = state.n_cells, forcing.n_steps, state.max_layers
+    time_s = forcing.time.astype("datetime64[s]").astype(np.int64)
+    hour = (time_s[-1] // 3600) % 24 if snapshot_hour_utc is None else int(snapshot_hour_utc)
+    snap_day = np.full(n_steps, -1, dtype=np.int64)
+    if with_snapshots:
+        is_snap = (time_s // 3600) % 24 == hour
+        snap_day[is_snap] = np.arange(int(is_snap.sum()))
+    n_days = int(snap_day.max() + 1) if with_snapshots else 0
+    n_out = n_steps // diag_every
+    d64 = np.zeros((B.N_D64, n_cells, n_out))
+    d32 = np.zeros((B.N_D32, n_cells, n_out), dtype=np.float32)
+    sf_out = np.zeros((B.N_SF, n_cells, n_days, cap), dtype=np.float32)
+    si_out = np.zeros((B.N_SI_SNAP, n_cells, n_days, cap), dtype=np.int32)
+    sn_out = np.zeros((n_cells, n_days), dtype=np.int32)
+    max_events = max(4, min(n_steps // 7 + 1, 256))
+    ev_kind = np.zeros((n_cells, max_events), dtype=np.int8)
+    ev_id = np.zeros((n_cells, max_events), dtype=np.int64)
+    ev_first = np.zeros((n_cells, max_events), dtype=np.int64)
+    ev_last = np.zeros((n_cells, max_events), dtype=np.int64)
+    ev_amount = np.zeros((n_cells, max_events))
+    ev_n = np.zeros(n_cells, dtype=np.int64)
+    status = np.zeros(n_cells, dtype=np.int32)
+    p = params.as_array()
+    f = forcing
+
+    def work(c0: int, c1: int) -> None:
+        B.run_cells(
+            c0, c1, time_s, f.t_air_k, f.rh_frac, f.pressure_pa, f.wind_m_s, f.sw_in_w_m2,
+            f.lw_in_w_m2, f.precip_kg_m2, f.snow_frac, f.freezing_rain_frac, float(f.dt_s),
+            float(f.wind_height_m), float(f.temp_height_m), p,
+            new.thickness_m, new.ice_kg_m2, new.liquid_kg_m2, new.temperature_k,
+            new.grain_size_mm, new.dendricity, new.facetedness, new.grain_code, new.crust_code,
+            new.flags, new.deposition_time_s2000, new.formation_time_s2000, new.event_id,
+            new.surface, new.counters, new.new_snow_kg_m2, new.new_snow_m, diag_every, d64,
+            d32, snap_day, sf_out, si_out, sn_out, ev_kind, ev_id, ev_first, ev_last,
+            ev_amount, ev_n, status)
+
+    edges = list(range(0, n_cells, max(int(block_cells), 1))) + [n_cells]
+    blocks = list(zip(edges[:-1], edges[1:]))
+    if threads > 1 and len(blocks) > 1:
+        with ThreadPoolExecutor(max_workers=int(threads)) as pool:
+            list(pool.map(lambda b: work(*b), blocks))
+    else:
+        for b in blocks:
+            work(*b)
+    new.time = forcing.time[-1].astype("datetime64[s]")
+    new.fingerprint = params.fingerprint()
+
+    out_time = forcing.time[diag_every - 1::diag_every].astype("datetime64[s]")
+    diagnostics: dict = {"time": out_time, "status": status}
+    for name, row in DIAGNOSTICS_64.items():
+        diagnostics[name] = d64[row]
+    for name, (row, dtype) in DIAGNOSTICS_32.items():
+        diagnostics[name] = d32[row].astype(dtype) if dtype is not np.float32 else d32[row]
+    if np.any(status & ST_EVENT_OVERFLOW):
+        warn("run_columns: the event log overflowed for some cells; later events are missing")
+    cells, slots = np.nonzero(np.arange(max_events)[None, :] < ev_n[:, None])
+    kinds = ev_kind[cells, slots]
+    diagnostics["event_kind"] = np.array([EVENT_KINDS[int(k)] for k in kinds], dtype=object)
+    diagnostics["event_id"] = ev_id[cells, slots]
+    diagnostics["event_cell"] = cells.astype(np.int64)
+    diagnostics["event_first_time"] = ev_first[cells, slots].astype("datetime64[s]")
+    diagnostics["event_last_time"] = ev_last[cells, slots].astype("datetime64[s]")
+    diagnostics["event_amount_kg_m2"] = ev_amount[cells, slots]
+
+    snapshots = {"time": forcing.time[snap_day >= 0].astype("datetime64[s]"), "layer_count": sn_out}
+    for name, row in (("thickness_m", B.SF_THICK), ("ice_kg_m2", B.SF_ICE),
+                      ("liquid_kg_m2", B.SF_LIQ), ("temperature_k", B.SF_TEMP),
+                      ("grain_size_mm", B.SF_GRAIN), ("hardness_index", B.SF_HARD)):
+        snapshots[name] = sf_out[row]
+    snapshots["grain_code"] = si_out[B.SI_CODE].astype(np.int8)
+    snapshots["crust_code"] = si_out[B.SI_CRUST].astype(np.int8)
+    used = np.arange(cap)[None, None, :] < sn_out[:, :, None]
+    for name, row in (("deposition_time", B.SI_DEP), ("formation_time", B.SI_FORM)):
+        snapshots[name] = np.where(used, si_out[row].astype(np.int64) + EPOCH_2000_S, -1)
+    snapshots["event_id"] = si_out[B.SI_EVENT]
+    return new, diagnostics, snapshots
+
+
+def snapshots_to_dataset(snapshots: dict, cell_id: np.ndarray) -> xr.Dataset:
+    """profiles.nc content from :func:`run_columns` snapshots (codes as strings, DESIGN 3)."""
+    dims = ("cell", "day", "layer")
+    used = np.arange(snapshots["thickness_m"].shape[2])[None, None, :] < snapshots["layer_count"][:, :, None]
+    ds = xr.Dataset(coords={"cell_id": (("cell",), np.asarray(cell_id)),
+                            "time": (("day",), snapshots["time"].astype("datetime64[ns]"))})
+    ds["layer_count"] = (("cell", "day"), snapshots["layer_count"])
+    for name in ("thickness_m", "ice_kg_m2", "liquid_kg_m2", "temperature_k", "grain_size_mm",
+                 "hardness_index"):
+        ds[name] = (dims, snapshots[name])
+    ds["grain_class"] = (dims, np.where(used, grain_codes_to_strings(snapshots["grain_code"]), "").astype(str))
+    ds["crust_kind"] = (dims, np.where(used, crust_codes_to_strings(snapshots["crust_code"]), "").astype(str))
+    for name in ("deposition_time", "formation_time"):
+        ds[name] = (dims, snapshots[name], {"units": "seconds since 1970-01-01"})
+    ds["event_id"] = (dims, snapshots["event_id"], {"units": "hours since 1970-01-01"})
+    ds.attrs["layer_order"] = "bottom first"
+    return ds

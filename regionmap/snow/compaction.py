@@ -1,0 +1,88 @@
+"""Settlement of snow layers: overburden viscosity and destructive settling of new snow.
+
+Anderson (1976), NOAA Tech. Rep. NWS 19, as written by Jordan (1991), CRREL Special Report
+91-16 ("SNTHERM.89"), Eqs. 34-36 (recalled [mem]).
+"""
+
+from __future__ import annotations
+
+import math
+
+from numba import njit
+
+from regionmap.snow.constants import T_MELT_K
+
+__all__ = [
+    "viscosity_anderson1976",
+    "destructive_settling_rate_anderson1976",
+    "compaction_strain_rate",
+]
+
+
+@njit(cache=True, nogil=True, error_model="numpy")
+def viscosity_anderson1976(density_kg_m3, t_k, eta0_pa_s, c_t_per_k, c_rho_m3_kg):
+    """Compactive viscosity of snow (Anderson 1976; Jordan 1991).
+
+    Parameters
+    ----------
+    density_kg_m3 : float
+        Layer density [kg m-3].
+    t_k : float
+        Layer temperature [K].
+    eta0_pa_s : float
+        Viscosity coefficient eta0 [N s m-2] (3.6e6 in Jordan 1991).
+    c_t_per_k, c_rho_m3_kg : float
+        Temperature and density coefficients (0.08 K-1 and 0.021 m3 kg-1).
+
+    Returns
+    -------
+    float
+        eta = eta0 exp(c_t (273.15 - T)) exp(c_rho rho) [N s m-2].
+    """
+    return eta0_pa_s * math.exp(c_t_per_k * (T_MELT_K - t_k)) * math.exp(c_rho_m3_kg * density_kg_m3)
+
+
+@njit(cache=True, nogil=True, error_model="numpy")
+def destructive_settling_rate_anderson1976(density_kg_m3, t_k, wet, rate0_per_s, rho_d_kg_m3):
+    """Destructive (metamorphic) settling of new snow (Anderson 1976; Jordan 1991, Eq. 35).
+
+    Parameters
+    ----------
+    density_kg_m3 : float
+        Layer density [kg m-3].
+    t_k : float
+        Layer temperature [K].
+    wet : bool
+        Liquid water present (doubles the rate, c4 = 2).
+    rate0_per_s : float
+        Rate coefficient (2.778e-6 s-1).
+    rho_d_kg_m3 : float
+        Density up to which the full rate applies (100 kg m-3).
+
+    Returns
+    -------
+    float
+        Magnitude of the strain rate [s-1]: c1 c3 c4 exp(-0.04 (273.15 - T)) with
+        c3 = exp(-0.046 (rho - rho_d)) above rho_d.
+    """
+    c3 = 1.0
+    if density_kg_m3 > rho_d_kg_m3:
+        c3 = math.exp(-0.046 * (density_kg_m3 - rho_d_kg_m3))
+    c4 = 2.0 if wet else 1.0
+    return rate0_per_s * c3 * c4 * math.exp(-0.04 * (T_MELT_K - t_k))
+
+
+@njit(cache=True, nogil=True, error_model="numpy")
+def compaction_strain_rate(
+    density_kg_m3, t_k, wet, load_pa, eta0_pa_s, c_t_per_k, c_rho_m3_kg, rate0_per_s, rho_d_kg_m3
+):
+    """Total compaction rate -(1/dz) d(dz)/dt [s-1]: overburden load / viscosity + destructive.
+
+    Ice layers (density above 800 kg m-3) do not compact.
+    """
+    if density_kg_m3 >= 800.0:
+        return 0.0
+    eta = viscosity_anderson1976(density_kg_m3, t_k, eta0_pa_s, c_t_per_k, c_rho_m3_kg)
+    return load_pa / eta + destructive_settling_rate_anderson1976(
+        density_kg_m3, t_k, wet, rate0_per_s, rho_d_kg_m3
+    )

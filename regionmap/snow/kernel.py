@@ -1,0 +1,784 @@
+"""The column kernel: steps cells through a whole period in one compiled call.
+
+Each cell is independent: its layers are copied into small work arrays, stepped through all
+time steps (the time loop is inside the kernel), and written back, so a result never depends
+on which block or thread a cell falls in. The process functions called here live in their own
+modules with their sources (newsnow, compaction, conduction, surface, radiation, water,
+metamorphism, crusts, surface_hoar, layering, diagnostics).
+
+Order of processes in a step: precipitation partition -> surface-hoar burial and snowfall ->
+glaze -> rain -> surface energy balance coupled implicitly to conduction (snow + soil) ->
+melt/refreeze from enthalpy -> deposition/sublimation -> percolation with ponding -> crust
+formation -> compaction -> metamorphism -> surface hoar growth/destruction -> merging ->
+albedo -> closure bookkeeping and diagnostics.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+from numba import njit
+
+from regionmap.snow.compaction import compaction_strain_rate
+from regionmap.snow.conduction import snow_conductivity, solve_tridiagonal
+from regionmap.snow.constants import (
+    C_ICE_J_KG_K,
+    C_WATER_J_KG_K,
+    GRAVITY_M_S2,
+    L_FUSION_J_KG,
+    RHO_ICE_KG_M3,
+    RHO_WATER_KG_M3,
+    T_MELT_K,
+)
+from regionmap.snow.crusts import (
+    FLAG_WAS_WET,
+    FLAG_WET_MELT,
+    FLAG_WET_RAIN,
+    FLAG_WET_SUN,
+    GLAZE,
+    crust_kind_on_refreeze,
+    glaze_thickness_m,
+)
+from regionmap.snow.layering import (
+    F_DEND,
+    F_FACET,
+    F_GRAIN,
+    F_ICE,
+    F_LIQ,
+    F_ROWS,
+    F_TEMP,
+    F_THICK,
+    I_CODE,
+    I_CRUST,
+    I_DEP,
+    I_EVENT,
+    I_FLAGS,
+    I_FORM,
+    I_ROWS,
+    insert_top,
+    merge_pair,
+    merge_pass,
+    remove_layer,
+)
+from regionmap.snow.metamorphism import (
+    classify_grain,
+    dendricity_rate_brun1992,
+    facetedness_rate,
+    grain_growth_marbouty1980,
+    grain_growth_wet_brun1989,
+)
+from regionmap.snow.newsnow import new_snow_density
+from regionmap.snow.params import N_SOIL, SOIL_THICKNESS_M
+from regionmap.snow.params import (
+    P_ALBEDO_DRY_DECAY_PER_DAY,
+    P_ALBEDO_MAX,
+    P_ALBEDO_MIN,
+    P_ALBEDO_REFRESH_PER_KG_M2,
+    P_ALBEDO_WET_EFOLD_PER_DAY,
+    P_BARRIER_DENSITY_KG_M3,
+    P_CAPILLARY_RATIO,
+    P_COMPACTION_C_RHO_M3_KG,
+    P_COMPACTION_C_T_PER_K,
+    P_COMPACTION_ETA0_PA_S,
+    P_CONDUCTIVITY_MODEL,
+    P_CRUST_WET_FRAC,
+    P_DEEP_GROUND_TEMPERATURE_K,
+    P_DEPTH_HOAR_MIN_GRAIN_MM,
+    P_EMISSIVITY,
+    P_EVENT_GAP_H,
+    P_EVENT_MIN_KG_M2,
+    P_FACET_RATE_PER_DAY,
+    P_GRADIENT_ROUND_K_M,
+    P_GRADIENT_STRONG_K_M,
+    P_IRREDUCIBLE_PORE_FRAC,
+    P_KINETIC_GROWTH_M_S,
+    P_MERGE_DEPTH_FRAC,
+    P_NEAR_SURFACE_DEPTH_M,
+    P_NEW_LAYER_MAX_M,
+    P_NEW_SNOW_DENSITY_MODEL,
+    P_NEW_SNOW_GRAIN_MM,
+    P_NEWTON_ITERATIONS,
+    P_COUPLING_ITERATIONS,
+    P_POND_PORE_FRAC,
+    P_ROUGHNESS_M,
+    P_ROUND_RATE_PER_DAY,
+    P_SETTLING_RATE0_PER_S,
+    P_SETTLING_RHO_D_KG_M3,
+    P_SH_BURIAL_WIND_MAX_M_S,
+    P_SH_DENSITY_KG_M3,
+    P_SH_DESTROY_SW_W_M2,
+    P_SH_DESTROY_WIND_M_S,
+    P_SH_MIN_MASS_KG_M2,
+    P_SH_WIND_MAX_M_S,
+    P_SNOW_EVENT_GAP_H,
+    P_SOIL_CONDUCTIVITY_W_M_K,
+    P_SOIL_HEAT_CAPACITY_J_M3_K,
+    P_STABLE_FLOOR_FRAC,
+    P_SW_SURFACE_FRAC,
+    P_WIND_MIN_M_S,
+)
+from regionmap.snow.radiation import albedo_douville1995, penetration_fraction
+from regionmap.snow.surface import (
+    solve_surface_temperature,
+    specific_humidity,
+    surface_fluxes,
+    vapour_pressure_water_buck1981,
+)
+from regionmap.snow.surface_hoar import (
+    surface_hoar_destroyed,
+    surface_hoar_forms,
+    surface_hoar_size_mm,
+)
+from regionmap.snow.water import is_flow_barrier, layer_enthalpy, percolate_column, resolve_phase
+
+# per-cell surface state vector (float64)
+V_ALBEDO, V_TSURF, V_SH_MASS, V_SNOW_AGE_H, V_SNOW_GAP_H, V_RAIN_GAP_H, V_FZ_GAP_H = range(7)
+V_SOIL = 7  # soil temperatures V_SOIL .. V_SOIL + N_SOIL - 1, deepest first
+N_SV = V_SOIL + N_SOIL
+# per-cell integer state vector
+J_N, J_SNOW_EV, J_RAIN_EV, J_FZ_EV, J_SH_START = range(5)
+N_SI = 5
+RING_H = 72  # hours of new-snow history
+
+# accumulated fluxes of one step (float64)
+A_SNOW, A_RAIN, A_RUNOFF, A_SUBL, A_DEPO, A_MASS_RES, A_ENERGY_RES, A_RAIN_ON_SNOW, A_FZ = range(9)
+N_ACC = 9
+
+# status bits
+ST_LAYER_FULL = 1  # no room for a new layer: snow added to the top layer instead
+ST_EVENT_OVERFLOW = 2  # event log full for this cell
+ST_NONFINITE = 4  # a non-finite value appeared (cell state kept, step skipped)
+
+# event kinds in the log
+EV_RAIN_ON_SNOW, EV_FREEZING_RAIN = 1, 2
+
+_SOIL_DZ = np.array(SOIL_THICKNESS_M, dtype=np.float64)
+_PP, _SH, _DH, _MF, _MFCR, _IF = 1, 9, 8, 10, 11, 12
+
+
+@njit(cache=True, nogil=True, error_model="numpy")
+def _f32(x):
+    return np.float64(np.float32(x))
+
+
+@njit(cache=True, nogil=True, error_model="numpy")
+def column_enthalpy(fw, n, sh_mass):
+    """Enthalpy of the column relative to liquid water at 0 degC [J m-2] (SH at 0 degC)."""
+    e = -L_FUSION_J_KG * sh_mass
+    for i in range(n):
+        e += layer_enthalpy(fw[F_ICE, i], fw[F_LIQ, i], fw[F_TEMP, i])
+    return e
+
+
+@njit(cache=True, nogil=True, error_model="numpy")
+def column_mass(fw, n, sh_mass):
+    """Ice + liquid + surface hoar [kg m-2]."""
+    m = sh_mass
+    for i in range(n):
+        m += fw[F_ICE, i] + fw[F_LIQ, i]
+    return m
+
+
+@njit(cache=True, nogil=True, error_model="numpy")
+def _set_layer(fw, iw, i, thick, ice, t_k, grain_mm, dend, facet, code, crust, dep, event):
+    fw[F_THICK, i] = thick
+    fw[F_ICE, i] = ice
+    fw[F_LIQ, i] = 0.0
+    fw[F_TEMP, i] = t_k
+    fw[F_GRAIN, i] = grain_mm
+    fw[F_DEND, i] = dend
+    fw[F_FACET, i] = facet
+    iw[I_CODE, i] = code
+    iw[I_CRUST, i] = crust
+    iw[I_FLAGS, i] = 0
+    iw[I_DEP, i] = dep
+    iw[I_FORM, i] = dep
+    iw[I_EVENT, i] = event
+
+
+@njit(cache=True, nogil=True, error_model="numpy")
+def _make_room(fw, iw, n, now_s, p, cap):
+    """Merge until a slot is free; returns (n, ok)."""
+    if n < cap:
+        return n, True
+    n = merge_pass(fw, iw, n, now_s, p[P_NEW_LAYER_MAX_M], p[P_MERGE_DEPTH_FRAC], cap - 1)
+    return n, n < cap
+
+
+@njit(cache=True, nogil=True, error_model="numpy")
+def _add_snowfall(fw, iw, n, mass, t_air, wind, now_s, event, p, cap):
+    """New snow: fills the top PP layer of the same event up to the new-layer thickness, then
+    opens new thin layers. Returns (n, status)."""
+    rho = new_snow_density(int(p[P_NEW_SNOW_DENSITY_MODEL]), t_air, wind)
+    t_snow = min(t_air, T_MELT_K)
+    max_dz = p[P_NEW_LAYER_MAX_M]
+    status = 0
+    remaining = mass
+    while remaining > 0.0:
+        top = n - 1
+        if (n > 0 and iw[I_CODE, top] == _PP and iw[I_EVENT, top] == event
+                and fw[F_THICK, top] < max_dz * 0.999 and fw[F_LIQ, top] == 0.0):
+            room_kg = (max_dz - fw[F_THICK, top]) * rho
+            add = min(remaining, room_kg)
+            c_old = C_ICE_J_KG_K * fw[F_ICE, top]
+            c_add = C_ICE_J_KG_K * add
+            fw[F_TEMP, top] = (c_old * fw[F_TEMP, top] + c_add * t_snow) / (c_old + c_add)
+            fw[F_GRAIN, top] = (fw[F_ICE, top] * fw[F_GRAIN, top] + add * p[P_NEW_SNOW_GRAIN_MM]) / (fw[F_ICE, top] + add)
+            fw[F_DEND, top] = (fw[F_ICE, top] * fw[F_DEND, top] + add) / (fw[F_ICE, top] + add)
+            fw[F_FACET, top] = fw[F_ICE, top] * fw[F_FACET, top] / (fw[F_ICE, top] + add)
+            fw[F_ICE, top] += add
+            fw[F_THICK, top] += add / rho
+            remaining -= add
+            continue
+        n, ok = _make_room(fw, iw, n, now_s, p, cap)
+        if not ok:
+            status |= ST_LAYER_FULL
+            top = n - 1
+            c_old = C_ICE_J_KG_K * fw[F_ICE, top]
+            c_add = C_ICE_J_KG_K * remaining
+            fw[F_TEMP, top] = (c_old * fw[F_TEMP, top] + c_add * t_snow) / (c_old + c_add)
+            fw[F_ICE, top] += remaining
+            fw[F_THICK, top] += remaining / rho
+            remaining = 0.0
+            continue
+        add = min(remaining, max_dz * rho)
+        n = insert_top(fw, iw, n)
+        _set_layer(fw, iw, n - 1, add / rho, add, t_snow, p[P_NEW_SNOW_GRAIN_MM], 1.0, 0.0,
+                   _PP, 0, now_s, event)
+        remaining -= add
+    return n, status
+
+
+@njit(cache=True, nogil=True, error_model="numpy")
+def _glaze(fw, iw, n, water, now_s, event, p, cap):
+    """Freezing rain on a sub-freezing surface: a glaze (IF) of ``water`` kg m-2 at 0 degC;
+    its latent heat warms the layers below, top down, as far as their cold content allows;
+    what cannot freeze stays liquid in the glaze layer. Returns (n, status)."""
+    status = 0
+    top = n - 1
+    if iw[I_CODE, top] == _IF and iw[I_CRUST, top] == GLAZE and iw[I_EVENT, top] == event:
+        g = top
+    else:
+        n, ok = _make_room(fw, iw, n, now_s, p, cap)
+        if not ok:
+            return n, ST_LAYER_FULL
+        n = insert_top(fw, iw, n)
+        g = n - 1
+        _set_layer(fw, iw, g, 0.0, 0.0, T_MELT_K, 1.0, 0.0, 0.0, _IF, GLAZE, now_s, event)
+    # the water arrives liquid at 0 degC (zero enthalpy); heat to extract to freeze it
+    h_g = layer_enthalpy(fw[F_ICE, g], fw[F_LIQ, g], fw[F_TEMP, g])
+    m_g = fw[F_ICE, g] + fw[F_LIQ, g] + water
+    need = L_FUSION_J_KG * m_g + h_g  # heat to remove to reach all ice at 0 degC
+    for i in range(g - 1, -1, -1):
+        if need <= 0.0:
+            break
+        h_i = layer_enthalpy(fw[F_ICE, i], fw[F_LIQ, i], fw[F_TEMP, i])
+        m_i = fw[F_ICE, i] + fw[F_LIQ, i]
+        cold = -L_FUSION_J_KG * m_i - h_i  # heat that brings layer i to 0 degC, dry
+        if cold > 0.0:
+            q = min(cold, need)
+            ice_i, liq_i, t_i, _ = resolve_phase(m_i, h_i + q)
+            fw[F_ICE, i] = ice_i
+            fw[F_LIQ, i] = liq_i
+            fw[F_TEMP, i] = t_i
+            need -= q
+            h_g -= q
+    ice_g, liq_g, t_g, _ = resolve_phase(m_g, h_g)
+    fw[F_ICE, g] = ice_g
+    fw[F_LIQ, g] = liq_g
+    fw[F_TEMP, g] = t_g
+    fw[F_THICK, g] = glaze_thickness_m(ice_g) + liq_g / RHO_WATER_KG_M3
+    iw[I_FORM, g] = now_s
+    return n, status
+
+
+@njit(cache=True, nogil=True, error_model="numpy")
+def _energy_and_conduction(fw, n, sv, ta, q_air, pres, wind, sw_in, lw_in, dt, zu, zt, p,
+                           tn, kn, cn, dzn, sn, lo, di, up, rhs, work, sol):
+    """Surface energy balance coupled to one backward-Euler conduction step of snow + soil.
+
+    Returns (q_surface_net, sw_into_snow, ground_flux, sw_absorbed, lw_net, sensible,
+    latent, vapour_flux, t_surf).
+    """
+    ns = N_SOIL
+    m = ns + n
+    ks = p[P_SOIL_CONDUCTIVITY_W_M_K]
+    for i in range(ns):
+        dzn[i] = _SOIL_DZ[i]
+        kn[i] = ks
+        cn[i] = p[P_SOIL_HEAT_CAPACITY_J_M3_K] * _SOIL_DZ[i]
+        tn[i] = sv[V_SOIL + i]
+        sn[i] = 0.0
+    model_k = int(p[P_CONDUCTIVITY_MODEL])
+    for l in range(n):
+        j = ns + l
+        dzn[j] = fw[F_THICK, l]
+        dens = fw[F_ICE, l] / max(fw[F_THICK, l], 1e-9)
+        kn[j] = snow_conductivity(model_k, dens)
+        cn[j] = C_ICE_J_KG_K * fw[F_ICE, l] + C_WATER_J_KG_K * fw[F_LIQ, l]
+        tn[j] = fw[F_TEMP, l]
+        sn[j] = 0.0
+    albedo = sv[V_ALBEDO]
+    sw_abs = (1.0 - albedo) * sw_in if n > 0 else 0.0
+    sw_surf = p[P_SW_SURFACE_FRAC] * sw_abs
+    remaining = sw_abs - sw_surf
+    for l in range(n - 1, -1, -1):
+        dens = fw[F_ICE, l] / max(fw[F_THICK, l], 1e-9)
+        a = remaining * penetration_fraction(dens, fw[F_GRAIN, l], fw[F_THICK, l])
+        sn[ns + l] = a
+        remaining -= a
+    sw_snow = sw_abs - sw_surf - remaining
+    if n > 0:
+        sn[ns - 1] += remaining  # what passes the snow warms the soil
+    # top boundary G = a_top + b_top * T_top: the skin balance linearised about Ts*, Ts*
+    # re-found from the latest top-layer temperature (outer iterations), so that at the end
+    # the skin balance holds at the end-of-step temperatures
+    eps = p[P_EMISSIVITY]
+    z0 = p[P_ROUGHNESS_M]
+    floor = p[P_STABLE_FLOOR_FRAC]
+    top = m - 1
+    k_s = 2.0 * kn[top] / dzn[top]
+    robin = True
+    ts_star = T_MELT_K
+    dq = 0.0
+    q_star = 0.0
+    t_top_est = tn[top]
+    k_deep = ks / (0.5 * dzn[0])
+    for i in range(m - 1):
+        work[m + i] = 1.0 / (0.5 * dzn[i] / kn[i] + 0.5 * dzn[i + 1] / kn[i + 1])
+    n_outer = int(p[P_COUPLING_ITERATIONS]) if n > 0 else 1
+    for _ in range(n_outer):
+        if n > 0:
+            ts_star, dq, _r = solve_surface_temperature(
+                sv[V_TSURF] if robin else T_MELT_K, t_top_est, k_s, ta, q_air, pres, wind,
+                lw_in, sw_surf, eps, zu, zt, z0, floor, int(p[P_NEWTON_ITERATIONS]))
+            q_star = surface_fluxes(ts_star, ta, q_air, pres, wind, lw_in, sw_surf, eps, zu,
+                                    zt, z0, floor)[0]
+            if ts_star >= T_MELT_K:
+                robin = False
+                a_top = q_star
+                b_top = 0.0
+            else:
+                robin = True
+                a_top = k_s * (q_star - dq * ts_star) / (k_s - dq)
+                b_top = k_s * dq / (k_s - dq)
+        else:
+            # bare ground: the soil surface follows the air temperature
+            a_top = k_s * ta
+            b_top = -k_s
+        for i in range(m):
+            di[i] = cn[i] / dt
+            rhs[i] = cn[i] / dt * tn[i] + sn[i]
+            lo[i] = 0.0
+            up[i] = 0.0
+        di[0] += k_deep
+        rhs[0] += k_deep * p[P_DEEP_GROUND_TEMPERATURE_K]
+        for i in range(m - 1):
+            kint = work[m + i]
+            di[i] += kint
+            di[i + 1] += kint
+            up[i] = -kint
+            lo[i + 1] = -kint
+        di[top] -= b_top
+        rhs[top] += a_top
+        solve_tridiagonal(lo, di, up, rhs, m, work, sol)
+        t_top_est = sol[top]
+    for i in range(m):
+        tn[i] = sol[i]
+    for i in range(ns):
+        sv[V_SOIL + i] = tn[i]
+    if n == 0:
+        sv[V_TSURF] = tn[top]
+        return 0.0, 0.0, 0.0, 0.0, 0.0, 0.0, 0.0, 0.0, tn[top]
+    for l in range(n):
+        fw[F_TEMP, l] = tn[ns + l]
+    kint = 1.0 / (0.5 * dzn[ns - 1] / kn[ns - 1] + 0.5 * dzn[ns] / kn[ns])
+    ground = kint * (tn[ns - 1] - tn[ns])
+    if robin:
+        ts = (q_star - dq * ts_star + k_s * tn[top]) / (k_s - dq)
+        ts = min(ts, T_MELT_K)
+    else:
+        ts = T_MELT_K
+    q_net, sens, lat, vap = surface_fluxes(ts, ta, q_air, pres, wind, lw_in, sw_surf, eps, zu,
+                                           zt, z0, floor)
+    lw_net = q_net - sw_surf - sens - lat
+    return q_net, sw_snow, ground, sw_abs, lw_net, sens, lat, vap, ts
+
+
+@njit(cache=True, nogil=True, error_model="numpy")
+def _resolve_all(fw, n):
+    """Melt/refreeze every layer from its enthalpy; heat beyond melting a whole layer passes
+    to the layer below. Returns heat leaving through the base [J m-2]."""
+    excess = 0.0
+    for i in range(n - 1, -1, -1):
+        h = layer_enthalpy(fw[F_ICE, i], fw[F_LIQ, i], fw[F_TEMP, i]) + excess
+        ice, liq, t, excess = resolve_phase(fw[F_ICE, i] + fw[F_LIQ, i], h)
+        fw[F_ICE, i] = ice
+        fw[F_LIQ, i] = liq
+        fw[F_TEMP, i] = t
+    return excess
+
+
+@njit(cache=True, nogil=True, error_model="numpy")
+def _vapour_exchange(fw, iw, n, sv, mass, to_hoar):
+    """Deposition (mass > 0) onto surface hoar or the top layer; sublimation (mass < 0) from
+    surface hoar, then the top layers. Returns (n, applied mass)."""
+    if mass > 0.0:
+        if to_hoar:
+            sv[V_SH_MASS] += mass
+        else:
+            top = n - 1
+            dens = fw[F_ICE, top] / max(fw[F_THICK, top], 1e-9)
+            fw[F_ICE, top] += mass
+            fw[F_THICK, top] += mass / dens
+        return n, mass
+    need = -mass
+    take = min(need, sv[V_SH_MASS])
+    sv[V_SH_MASS] -= take
+    need -= take
+    while need > 0.0 and n > 0:
+        top = n - 1
+        m_top = fw[F_ICE, top] + fw[F_LIQ, top]
+        if m_top > need:
+            frac = need / m_top
+            from_ice = min(need, fw[F_ICE, top])
+            fw[F_ICE, top] -= from_ice
+            fw[F_LIQ, top] -= need - from_ice
+            fw[F_THICK, top] *= 1.0 - frac
+            need = 0.0
+        else:
+            need -= m_top
+            fw[F_ICE, top] = 0.0
+            fw[F_LIQ, top] = 0.0
+            n = remove_layer(fw, iw, n, top)
+    return n, mass + need
+
+
+@njit(cache=True, nogil=True, error_model="numpy")
+def _bury_or_drop_hoar(fw, iw, n, sv, si, wind, now_s, p, cap):
+    """At snowfall: keep surface hoar as a buried SH layer when the wind is light and there is
+    enough of it, else mix it into the top layer."""
+    m_sh = sv[V_SH_MASS]
+    sv[V_SH_MASS] = 0.0
+    top = n - 1
+    if wind <= p[P_SH_BURIAL_WIND_MAX_M_S] and m_sh >= p[P_SH_MIN_MASS_KG_M2]:
+        n, ok = _make_room(fw, iw, n, now_s, p, cap)
+        if ok:
+            t_top = fw[F_TEMP, n - 1]
+            n = insert_top(fw, iw, n)
+            rho = p[P_SH_DENSITY_KG_M3]
+            _set_layer(fw, iw, n - 1, m_sh / rho, m_sh, t_top, surface_hoar_size_mm(m_sh, rho),
+                       0.0, 1.0, _SH, 0, si[J_SH_START], si[J_SH_START] // 3600)
+            iw[I_FORM, n - 1] = now_s
+            return n
+        top = n - 1
+    dens = fw[F_ICE, top] / max(fw[F_THICK, top], 1e-9)
+    fw[F_ICE, top] += m_sh
+    fw[F_THICK, top] += m_sh / dens
+    return n
+
+
+@njit(cache=True, nogil=True, error_model="numpy")
+def _wet_flags_and_crusts(fw, iw, n, rain_event, rain_wetting, solar_melt, now_s, p):
+    """Tag wet layers with the source of their water; turn refrozen wet layers into crusts."""
+    wet_src = FLAG_WET_RAIN | FLAG_WET_SUN | FLAG_WET_MELT
+    from_top = True
+    for i in range(n - 1, -1, -1):
+        liq = fw[F_LIQ, i]
+        fl = iw[I_FLAGS, i]
+        if liq > 0.0:
+            if rain_wetting and from_top:
+                if not fl & FLAG_WET_RAIN:
+                    iw[I_EVENT, i] = rain_event
+                fl |= FLAG_WET_RAIN
+            elif not fl & wet_src:
+                fl |= FLAG_WET_SUN if solar_melt else FLAG_WET_MELT
+            if liq / (RHO_WATER_KG_M3 * max(fw[F_THICK, i], 1e-9)) >= p[P_CRUST_WET_FRAC]:
+                fl |= FLAG_WAS_WET
+        else:
+            from_top = False
+            if fl & FLAG_WAS_WET and fw[F_TEMP, i] < T_MELT_K:
+                kind = crust_kind_on_refreeze(iw[I_CRUST, i], fl)
+                if iw[I_CRUST, i] == 0:
+                    iw[I_FORM, i] = now_s
+                iw[I_CRUST, i] = kind
+                if iw[I_CODE, i] != _IF:
+                    iw[I_CODE, i] = _MFCR
+                fl &= ~(FLAG_WAS_WET | wet_src)
+            elif fl & wet_src and fw[F_TEMP, i] < T_MELT_K:
+                fl &= ~wet_src
+        iw[I_FLAGS, i] = fl
+
+
+@njit(cache=True, nogil=True, error_model="numpy")
+def _compact(fw, n, dt, p):
+    """Settle every layer under its overburden plus destructive settling (backward Euler)."""
+    load = 0.0
+    for i in range(n - 1, -1, -1):
+        m = fw[F_ICE, i] + fw[F_LIQ, i]
+        dens = fw[F_ICE, i] / max(fw[F_THICK, i], 1e-9)
+        rate = compaction_strain_rate(
+            dens, fw[F_TEMP, i], fw[F_LIQ, i] > 0.0, GRAVITY_M_S2 * (load + 0.5 * m),
+            p[P_COMPACTION_ETA0_PA_S], p[P_COMPACTION_C_T_PER_K],
+            p[P_COMPACTION_C_RHO_M3_KG], p[P_SETTLING_RATE0_PER_S],
+            p[P_SETTLING_RHO_D_KG_M3])
+        dz = fw[F_THICK, i] / (1.0 + rate * dt)
+        dz_min = fw[F_ICE, i] / RHO_ICE_KG_M3 + fw[F_LIQ, i] / RHO_WATER_KG_M3
+        fw[F_THICK, i] = max(dz, dz_min)
+        load += m
+
+
+@njit(cache=True, nogil=True, error_model="numpy")
+def _metamorphose(fw, iw, n, sv, ts, dt, p):
+    """Grain evolution of every layer from its hourly temperature gradient, temperature,
+    density and wetness; then its grain class."""
+    days = dt / 86400.0
+    depth = 0.0
+    for i in range(n - 1, -1, -1):
+        dz = fw[F_THICK, i]
+        if i == n - 1:
+            t_up = ts
+            d_up = 0.5 * dz
+        else:
+            t_up = fw[F_TEMP, i + 1]
+            d_up = 0.5 * (dz + fw[F_THICK, i + 1])
+        if i == 0:
+            t_dn = sv[V_SOIL + N_SOIL - 1]
+            d_dn = 0.5 * (dz + _SOIL_DZ[N_SOIL - 1])
+        else:
+            t_dn = fw[F_TEMP, i - 1]
+            d_dn = 0.5 * (dz + fw[F_THICK, i - 1])
+        grad = (t_up - t_dn) / (d_up + d_dn)
+        centre = depth + 0.5 * dz
+        depth += dz
+        code = iw[I_CODE, i]
+        if code == _IF:
+            continue
+        t = fw[F_TEMP, i]
+        dens = fw[F_ICE, i] / max(dz, 1e-9)
+        m = fw[F_ICE, i] + fw[F_LIQ, i]
+        wet = fw[F_LIQ, i] / (RHO_WATER_KG_M3 * max(dz, 1e-9)) > 1e-4
+        d = fw[F_DEND, i]
+        f = fw[F_FACET, i]
+        gs = fw[F_GRAIN, i]
+        if wet:
+            pct = 100.0 * fw[F_LIQ, i] / max(m, 1e-12)
+            d = d - dendricity_rate_brun1992(t, grad, pct) * days
+            f = f - 1.0 * days
+            gs = grain_growth_wet_brun1989(gs, pct, dt)
+        elif code != _SH:
+            d = d - dendricity_rate_brun1992(t, grad, 0.0) * days
+            f = f + facetedness_rate(t, dens, grad, p[P_GRADIENT_ROUND_K_M],
+                                     p[P_GRADIENT_STRONG_K_M], p[P_FACET_RATE_PER_DAY],
+                                     p[P_ROUND_RATE_PER_DAY]) * days
+            gs = grain_growth_marbouty1980(gs, t, dens, grad, dt, p[P_KINETIC_GROWTH_M_S])
+        fw[F_DEND, i] = min(max(d, 0.0), 1.0)
+        fw[F_FACET, i] = min(max(f, 0.0), 1.0)
+        fw[F_GRAIN, i] = gs
+        if iw[I_CRUST, i] != 0 and code == _MFCR and not wet:
+            continue
+        iw[I_CODE, i] = classify_grain(code, fw[F_DEND, i], fw[F_FACET, i], gs, wet,
+                                       centre < p[P_NEAR_SURFACE_DEPTH_M],
+                                       p[P_DEPTH_HOAR_MIN_GRAIN_MM])
+
+
+@njit(cache=True, nogil=True, error_model="numpy")
+def _cleanup(fw, iw, n):
+    """Remove ice-free layers (their water moves down, or leaves) and fold layers thinner
+    than 0.1 mm into a neighbour. Returns (n, water leaving the base [kg m-2])."""
+    out = 0.0
+    i = n - 1
+    while i >= 0:
+        if fw[F_ICE, i] <= 0.0:
+            if i > 0:
+                fw[F_LIQ, i - 1] += fw[F_LIQ, i]
+            else:
+                out += fw[F_LIQ, i]
+            n = remove_layer(fw, iw, n, i)
+        elif fw[F_THICK, i] < 1e-4 and n > 1 and iw[I_CODE, i] != _IF:
+            k = i - 1 if i > 0 else 0
+            n = merge_pair(fw, iw, n, k)
+            h = layer_enthalpy(fw[F_ICE, k], fw[F_LIQ, k], fw[F_TEMP, k])
+            ice, liq, t, _ = resolve_phase(fw[F_ICE, k] + fw[F_LIQ, k], h)
+            fw[F_ICE, k] = ice
+            fw[F_LIQ, k] = liq
+            fw[F_TEMP, k] = t
+        i -= 1
+        if i > n - 1:
+            i = n - 1
+    return n, out
+
+
+@njit(cache=True, nogil=True, error_model="numpy")
+def _step(fw, iw, sv, si, ring_m, ring_d, ta, rh, pres, wind_raw, sw_in, lw_in, precip, sf,
+          fzf, now_s, hour_abs, dt, zu, zt, p, cap, wk, wb, acc):
+    """Advance one cell by one step; fills ``acc`` (N_ACC,) and returns a status bitmask."""
+    for k in range(N_ACC):
+        acc[k] = 0.0
+    status = 0
+    n = si[J_N]
+    wind = max(wind_raw, p[P_WIND_MIN_M_S])
+    hours = dt / 3600.0
+    e_before = column_enthalpy(fw, n, sv[V_SH_MASS])
+    m_before = column_mass(fw, n, sv[V_SH_MASS])
+    e_mass = 0.0
+    liquid = precip * (1.0 - sf)
+    snow = precip * sf
+    fz = min(precip * fzf, liquid)
+    rain = liquid - fz
+    acc[A_SNOW] = snow
+    acc[A_RAIN] = liquid
+    # event identities (start hour since 1970) of snowfall, rain and freezing rain
+    if snow > 0.0:
+        if sv[V_SNOW_GAP_H] >= p[P_SNOW_EVENT_GAP_H] or si[J_SNOW_EV] == 0:
+            si[J_SNOW_EV] = hour_abs
+        sv[V_SNOW_GAP_H] = 0.0
+    else:
+        sv[V_SNOW_GAP_H] += hours
+    if liquid > 0.0:
+        if sv[V_RAIN_GAP_H] >= p[P_EVENT_GAP_H] or si[J_RAIN_EV] == 0:
+            si[J_RAIN_EV] = hour_abs
+        sv[V_RAIN_GAP_H] = 0.0
+    else:
+        sv[V_RAIN_GAP_H] += hours
+    if fz > 0.0:
+        if sv[V_FZ_GAP_H] >= p[P_EVENT_GAP_H] or si[J_FZ_EV] == 0:
+            si[J_FZ_EV] = hour_abs
+        sv[V_FZ_GAP_H] = 0.0
+    else:
+        sv[V_FZ_GAP_H] += hours
+    # burial of surface hoar, then snowfall
+    slot = hour_abs % RING_H
+    ring_m[slot] = 0.0
+    ring_d[slot] = 0.0
+    if snow > 0.0:
+        e0 = column_enthalpy(fw, n, sv[V_SH_MASS])
+        if sv[V_SH_MASS] > 0.0 and n > 0:
+            n = _bury_or_drop_hoar(fw, iw, n, sv, si, wind_raw, now_s, p, cap)
+        n, st = _add_snowfall(fw, iw, n, snow, ta, wind, now_s, si[J_SNOW_EV], p, cap)
+        status |= st
+        e_mass += column_enthalpy(fw, n, sv[V_SH_MASS]) - e0
+        ring_m[slot] = snow
+        ring_d[slot] = snow / new_snow_density(int(p[P_NEW_SNOW_DENSITY_MODEL]), ta, wind)
+        if snow >= 0.1:
+            sv[V_SNOW_AGE_H] = 0.0
+    sv[V_SNOW_AGE_H] += hours
+    # freezing rain on a sub-freezing snow surface: glaze
+    if fz > 0.0 and n > 0 and sv[V_TSURF] < T_MELT_K:
+        e0 = column_enthalpy(fw, n, sv[V_SH_MASS])
+        n, st = _glaze(fw, iw, n, fz, now_s, si[J_FZ_EV], p, cap)
+        status |= st
+        e_mass += column_enthalpy(fw, n, sv[V_SH_MASS]) - e0
+        if st == 0:
+            acc[A_FZ] = fz
+            fz = 0.0
+    rain += fz
+    # rain: liquid at its temperature (at least 0 degC) into the top layer
+    runoff = 0.0
+    rain_wetting = False
+    if rain > 0.0:
+        if n > 0:
+            top = n - 1
+            heat = C_WATER_J_KG_K * (max(ta, T_MELT_K) - T_MELT_K) * rain
+            h = layer_enthalpy(fw[F_ICE, top], fw[F_LIQ, top], fw[F_TEMP, top]) + heat
+            ice, liq, t, _ = resolve_phase(fw[F_ICE, top] + fw[F_LIQ, top] + rain, h)
+            fw[F_ICE, top] = ice
+            fw[F_LIQ, top] = liq
+            fw[F_TEMP, top] = t
+            e_mass += heat
+            acc[A_RAIN_ON_SNOW] = rain
+            rain_wetting = rain >= p[P_EVENT_MIN_KG_M2]
+        else:
+            runoff += rain
+    # surface energy balance + conduction
+    q_air = specific_humidity(rh * vapour_pressure_water_buck1981(ta), pres)
+    top_dry = n > 0 and fw[F_LIQ, n - 1] <= 0.0
+    for i in range(n):
+        wk[0, i] = fw[F_ICE, i]
+    q_net, sw_snow, ground, sw_abs, lw_net, sens, lat, vap, ts = _energy_and_conduction(
+        fw, n, sv, ta, q_air, pres, wind, sw_in, lw_in, dt, zu, zt, p,
+        wk[1], wk[2], wk[3], wk[4], wk[5], wk[6], wk[7], wk[8], wk[9], wk[10], wk[11])
+    e_flux = dt * (q_net + sw_snow + ground)
+    if n > 0:
+        sv[V_TSURF] = ts
+    excess = _resolve_all(fw, n)
+    if excess > 0.0:
+        e_flux -= excess
+        sv[V_SOIL + N_SOIL - 1] += excess / (p[P_SOIL_HEAT_CAPACITY_J_M3_K] * _SOIL_DZ[N_SOIL - 1])
+    for i in range(n):
+        if fw[F_ICE, i] < wk[0, i] and wk[0, i] > 0.0:
+            fw[F_THICK, i] *= fw[F_ICE, i] / wk[0, i]
+    melting = n > 0 and fw[F_LIQ, n - 1] > 0.0 and ts >= T_MELT_K
+    solar_melt = top_dry and sw_abs > max(lw_net + sens + lat, 0.0) and rain <= 0.0
+    # deposition / sublimation; surface hoar grows from deposition under its conditions
+    if n > 0:
+        to_hoar = surface_hoar_forms(vap, wind_raw, ts, ta, snow, p[P_SH_WIND_MAX_M_S])
+        if to_hoar and sv[V_SH_MASS] <= 0.0:
+            si[J_SH_START] = now_s
+        e0 = column_enthalpy(fw, n, sv[V_SH_MASS])
+        n, applied = _vapour_exchange(fw, iw, n, sv, vap * dt, to_hoar)
+        e_mass += column_enthalpy(fw, n, sv[V_SH_MASS]) - e0
+        if applied > 0.0:
+            acc[A_DEPO] = applied
+        else:
+            acc[A_SUBL] = -applied
+    n, out = _cleanup(fw, iw, n)
+    runoff += out
+    # percolation with ponding above barriers
+    for i in range(n):
+        wb[i] = False
+        if i > 0:
+            dens_dn = fw[F_ICE, i - 1] / max(fw[F_THICK, i - 1], 1e-9)
+            wb[i] = is_flow_barrier(dens_dn, iw[I_CODE, i - 1] == _IF, fw[F_GRAIN, i],
+                                    fw[F_GRAIN, i - 1], p[P_BARRIER_DENSITY_KG_M3],
+                                    p[P_CAPILLARY_RATIO])
+    if n > 0:
+        runoff += percolate_column(n, fw[F_ICE], fw[F_LIQ], fw[F_TEMP], fw[F_THICK], wb,
+                                   p[P_IRREDUCIBLE_PORE_FRAC], p[P_POND_PORE_FRAC], 0.0)
+    acc[A_RUNOFF] = runoff
+    _wet_flags_and_crusts(fw, iw, n, si[J_RAIN_EV], rain_wetting, solar_melt, now_s, p)
+    _compact(fw, n, dt, p)
+    _metamorphose(fw, iw, n, sv, ts, dt, p)
+    # surface hoar destruction: into the top layer
+    if sv[V_SH_MASS] > 0.0:
+        if n == 0:
+            sv[V_SH_MASS] = 0.0  # cannot happen with mass kept; guard
+        elif surface_hoar_destroyed(wind_raw, melting, sw_abs, p[P_SH_DESTROY_WIND_M_S],
+                                    p[P_SH_DESTROY_SW_W_M2]):
+            e0 = column_enthalpy(fw, n, sv[V_SH_MASS])
+            top = n - 1
+            dens = fw[F_ICE, top] / max(fw[F_THICK, top], 1e-9)
+            fw[F_ICE, top] += sv[V_SH_MASS]
+            fw[F_THICK, top] += sv[V_SH_MASS] / dens
+            sv[V_SH_MASS] = 0.0
+            e_mass += column_enthalpy(fw, n, 0.0) - e0
+    n = merge_pass(fw, iw, n, now_s, p[P_NEW_LAYER_MAX_M], p[P_MERGE_DEPTH_FRAC], cap - 2)
+    if n > 0:
+        sv[V_ALBEDO] = albedo_douville1995(
+            sv[V_ALBEDO], melting, snow, dt, p[P_ALBEDO_MIN], p[P_ALBEDO_MAX],
+            p[P_ALBEDO_DRY_DECAY_PER_DAY], p[P_ALBEDO_WET_EFOLD_PER_DAY],
+            p[P_ALBEDO_REFRESH_PER_KG_M2])
+    else:
+        sv[V_ALBEDO] = p[P_ALBEDO_MAX]
+        sv[V_TSURF] = min(ta, T_MELT_K)
+    # storage precision: these fields are kept as float32 in the state
+    for i in range(n):
+        fw[F_THICK, i] = _f32(fw[F_THICK, i])
+        fw[F_TEMP, i] = _f32(fw[F_TEMP, i])
+        fw[F_GRAIN, i] = _f32(fw[F_GRAIN, i])
+        fw[F_DEND, i] = _f32(fw[F_DEND, i])
+        fw[F_FACET, i] = _f32(fw[F_FACET, i])
+    for k in range(N_SV):
+        if k != V_SH_MASS:
+            sv[k] = _f32(sv[k])
+    ring_m[slot] = _f32(ring_m[slot])
+    ring_d[slot] = _f32(ring_d[slot])
+    # closure
+    m_after = column_mass(fw, n, sv[V_SH_MASS])
+    e_after = column_enthalpy(fw, n, sv[V_SH_MASS])
+    acc[A_MASS_RES] = (m_after - m_before) - (snow + liquid + acc[A_DEPO] - acc[A_SUBL] - runoff)
+    if n > 0 or m_before > 0.0:
+        acc[A_ENERGY_RES] = (e_after - e_before - e_mass - e_flux) / dt
+    si[J_N] = n
+    return status

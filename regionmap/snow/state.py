@@ -1,0 +1,321 @@
+"""State of a batch of snow columns, and its ``state.nc`` form (DESIGN 3).
+
+In memory, layer arrays are (cell, layer) bottom first, with the precision the kernel keeps
+(float64 ice and liquid mass; float32 thickness, temperature, grain size and microstructure;
+int32 times in seconds since 2000-01-01 and event ids in hours since 1970). On file, times are
+int64 seconds since 1970 and grain classes / crust kinds are the code strings of
+:mod:`regionmap.snow.codes`. A save/load round trip restores the state bit for bit.
+"""
+
+from __future__ import annotations
+
+import os
+import tempfile
+from dataclasses import dataclass, fields
+from pathlib import Path
+
+import numpy as np
+import xarray as xr
+
+from regionmap.errors import InputError, OutputError
+from regionmap.snow.codes import (
+    crust_codes_to_strings,
+    crust_strings_to_codes,
+    grain_codes_to_strings,
+    grain_strings_to_codes,
+)
+from regionmap.snow.constants import EPOCH_2000_S, T_MELT_K
+from regionmap.snow.kernel import (
+    J_FZ_EV,
+    J_N,
+    J_RAIN_EV,
+    J_SH_START,
+    J_SNOW_EV,
+    N_SI,
+    N_SV,
+    RING_H,
+    V_ALBEDO,
+    V_FZ_GAP_H,
+    V_RAIN_GAP_H,
+    V_SH_MASS,
+    V_SNOW_AGE_H,
+    V_SNOW_GAP_H,
+    V_SOIL,
+    V_TSURF,
+)
+from regionmap.snow.params import N_SOIL, SOIL_THICKNESS_M
+
+__all__ = ["SnowState", "LAYER_FIELDS"]
+
+#: (name, in-memory dtype) of the (cell, layer) arrays
+LAYER_FIELDS: tuple[tuple[str, type], ...] = (
+    ("thickness_m", np.float32),
+    ("ice_kg_m2", np.float64),
+    ("liquid_kg_m2", np.float64),
+    ("temperature_k", np.float32),
+    ("grain_size_mm", np.float32),
+    ("dendricity", np.float32),
+    ("facetedness", np.float32),
+    ("grain_code", np.int8),
+    ("crust_code", np.int8),
+    ("flags", np.int8),
+    ("deposition_time_s2000", np.int32),
+    ("formation_time_s2000", np.int32),
+    ("event_id", np.int32),
+)
+_CELL_FLOAT = (
+    ("albedo", V_ALBEDO, "1", "snow surface albedo"),
+    ("surface_temperature_k", V_TSURF, "K", "snow surface (skin) temperature"),
+    ("surface_hoar_kg_m2", V_SH_MASS, "kg m-2", "surface hoar on the surface, not yet buried"),
+    ("snow_age_h", V_SNOW_AGE_H, "h", "hours since the last snowfall"),
+    ("hours_since_snowfall", V_SNOW_GAP_H, "h", "dry hours since snowfall (event gap)"),
+    ("hours_since_rain", V_RAIN_GAP_H, "h", "dry hours since rain (event gap)"),
+    ("hours_since_freezing_rain", V_FZ_GAP_H, "h", "dry hours since freezing rain"),
+)
+_CELL_INT = (
+    ("snowfall_event_id", J_SNOW_EV, "current deposition event, start hour since 1970"),
+    ("rain_event_id", J_RAIN_EV, "current rain event, start hour since 1970"),
+    ("freezing_rain_event_id", J_FZ_EV, "current freezing-rain event, start hour since 1970"),
+    ("surface_hoar_start_s2000", J_SH_START, "start of surface-hoar growth, s since 2000"),
+)
+
+
+@dataclass
+class SnowState:
+    """Snow columns of a batch of cells at one valid time.
+
+    Attributes
+    ----------
+    time : numpy.datetime64
+        Valid time of the state (end of the last step run).
+    cell_id : ndarray (cell,) int64
+    layer_count : ndarray (cell,) int32
+        Active layers, bottom first; slots above are zero.
+    thickness_m ... event_id : ndarray (cell, layer)
+        See :data:`LAYER_FIELDS`. ``grain_code`` / ``crust_code`` index
+        :data:`regionmap.snow.codes.GRAIN_CODES` / ``CRUST_KINDS``; ``flags`` the formation
+        flags of :mod:`regionmap.snow.crusts`; ``event_id`` the event that made the layer
+        what it is (the snowfall event, the rain event for rain-soaked layers and rain
+        crusts, the freezing-rain event for a glaze, the growth start for buried SH), hours
+        since 1970.
+    surface : ndarray (cell, N_SV) float64
+        Per-cell surface, soil and event-gap state (albedo, surface temperature,
+        surface-hoar mass, snow age, gap hours, soil temperatures deepest first).
+    counters : ndarray (cell, N_SI) int64
+        Layer count and current event ids.
+    new_snow_kg_m2, new_snow_m : ndarray (cell, 72) float32
+        Hourly new-snow mass and fresh depth, slot = hour since 1970 modulo 72.
+    fingerprint : str
+        Settings fingerprint of the run that wrote the state ("" when fresh).
+    """
+
+    time: np.datetime64
+    cell_id: np.ndarray
+    thickness_m: np.ndarray
+    ice_kg_m2: np.ndarray
+    liquid_kg_m2: np.ndarray
+    temperature_k: np.ndarray
+    grain_size_mm: np.ndarray
+    dendricity: np.ndarray
+    facetedness: np.ndarray
+    grain_code: np.ndarray
+    crust_code: np.ndarray
+    flags: np.ndarray
+    deposition_time_s2000: np.ndarray
+    formation_time_s2000: np.ndarray
+    event_id: np.ndarray
+    surface: np.ndarray
+    counters: np.ndarray
+    new_snow_kg_m2: np.ndarray
+    new_snow_m: np.ndarray
+    fingerprint: str = ""
+
+    # ---------------------------------------------------------------- construction
+    @classmethod
+    def empty(cls, n_cells: int, max_layers: int = 50, *, time="2000-01-01T00:00",
+              cell_id=None, soil_temperature_k: float = 273.15) -> "SnowState":
+        """Snow-free cells at ``time`` with soil at ``soil_temperature_k``."""
+        n = int(n_cells)
+        layers = {name: np.zeros((n, max_layers), dtype=dt) for name, dt in LAYER_FIELDS}
+        surface = np.zeros((n, N_SV))
+        surface[:, V_ALBEDO] = 0.85
+        surface[:, V_TSURF] = T_MELT_K
+        surface[:, V_SNOW_GAP_H] = 1e3
+        surface[:, V_RAIN_GAP_H] = 1e3
+        surface[:, V_FZ_GAP_H] = 1e3
+        surface[:, V_SOIL:V_SOIL + N_SOIL] = np.float32(soil_temperature_k)
+        counters = np.zeros((n, N_SI), dtype=np.int64)
+        ids = np.arange(n, dtype=np.int64) if cell_id is None else np.asarray(cell_id, np.int64)
+        return cls(time=np.datetime64(time, "s"), cell_id=ids, surface=surface,
+                   counters=counters, new_snow_kg_m2=np.zeros((n, RING_H), np.float32),
+                   new_snow_m=np.zeros((n, RING_H), np.float32), **layers)
+
+    @property
+    def n_cells(self) -> int:
+        return self.thickness_m.shape[0]
+
+    @property
+    def max_layers(self) -> int:
+        return self.thickness_m.shape[1]
+
+    @property
+    def layer_count(self) -> np.ndarray:
+        return self.counters[:, J_N].astype(np.int32)
+
+    def copy(self) -> "SnowState":
+        kw = {f.name: getattr(self, f.name) for f in fields(self)}
+        for k, v in kw.items():
+            if isinstance(v, np.ndarray):
+                kw[k] = v.copy()
+        return SnowState(**kw)
+
+    def swe_kg_m2(self) -> np.ndarray:
+        """Snow water equivalent per cell, surface hoar included [kg m-2]."""
+        return (self.ice_kg_m2.sum(1) + self.liquid_kg_m2.sum(1)) + self.surface[:, V_SH_MASS]
+
+    def nbytes_per_cell(self) -> float:
+        total = sum(getattr(self, f.name).nbytes for f in fields(self)
+                    if isinstance(getattr(self, f.name), np.ndarray))
+        return total / max(self.n_cells, 1)
+
+    # ---------------------------------------------------------------- state.nc
+    def to_dataset(self) -> xr.Dataset:
+        """The ``state.nc`` layout (DESIGN 3): (cell, layer) bottom first, strings for codes."""
+        n_layer = self.max_layers
+        active = np.arange(n_layer)[None, :] < self.layer_count[:, None]
+        dims = ("cell", "layer")
+
+        def t64(a):
+            out = a.astype(np.int64) + EPOCH_2000_S
+            return np.where(active, out, np.int64(-1))
+
+        from regionmap.snow.diagnostics import layer_hardness_array
+
+        ds = xr.Dataset(
+            {
+                "layer_count": (("cell",), self.layer_count, {"long_name": "active layers, bottom first"}),
+                "thickness_m": (dims, self.thickness_m, {"units": "m"}),
+                "ice_kg_m2": (dims, self.ice_kg_m2, {"units": "kg m-2"}),
+                "liquid_kg_m2": (dims, self.liquid_kg_m2, {"units": "kg m-2"}),
+                "temperature_k": (dims, self.temperature_k, {"units": "K"}),
+                "grain_size_mm": (dims, self.grain_size_mm, {"units": "mm"}),
+                "hardness_index": (dims, layer_hardness_array(self), {
+                    "units": "1", "long_name": "hand hardness index F=1 ... I=6 (Fierz et al. 2009)"}),
+                "dendricity": (dims, self.dendricity, {"units": "1"}),
+                "facetedness": (dims, self.facetedness, {"units": "1"}),
+                "grain_class": (dims, np.where(active, grain_codes_to_strings(self.grain_code), "").astype(str)),
+                "crust_kind": (dims, np.where(active, crust_codes_to_strings(self.crust_code), "").astype(str)),
+                "formation_flags": (dims, self.flags, {"long_name": "formation flag bits (regionmap.snow.crusts)"}),
+                "deposition_time": (dims, t64(self.deposition_time_s2000), {
+                    "units": "seconds since 1970-01-01", "_FillValue_note": "-1 where unused"}),
+                "formation_time": (dims, t64(self.formation_time_s2000), {
+                    "units": "seconds since 1970-01-01"}),
+                "event_id": (dims, self.event_id, {"units": "hours since 1970-01-01",
+                                                   "long_name": "start hour of the forming event"}),
+                "soil_temperature_k": (("cell", "soil_layer"), self.surface[:, V_SOIL:V_SOIL + N_SOIL], {"units": "K"}),
+                "new_snow_history_kg_m2": (("cell", "ring_hour"), self.new_snow_kg_m2, {"units": "kg m-2"}),
+                "new_snow_history_m": (("cell", "ring_hour"), self.new_snow_m, {"units": "m"}),
+            },
+            coords={
+                "cell_id": (("cell",), self.cell_id),
+                "soil_thickness_m": (("soil_layer",), np.array(SOIL_THICKNESS_M)),
+                "time": self.time.astype("datetime64[ns]"),
+            },
+            attrs={"title": "regionmap snow state", "settings_fingerprint": self.fingerprint,
+                   "layer_order": "bottom first",
+                   "caution": "model guidance for trained people; never a substitute for field "
+                              "observations, the local avalanche service or professional standards"},
+        )
+        for name, k, units, long in _CELL_FLOAT:
+            ds[name] = (("cell",), self.surface[:, k], {"units": units, "long_name": long})
+        for name, k, long in _CELL_INT:
+            ds[name] = (("cell",), self.counters[:, k], {"long_name": long})
+        return ds
+
+    @classmethod
+    def from_dataset(cls, ds: xr.Dataset, *, source: str = "state dataset") -> "SnowState":
+        """Rebuild a state from :meth:`to_dataset` output; raises InputError if malformed."""
+        need = ["layer_count", "thickness_m", "ice_kg_m2", "liquid_kg_m2", "temperature_k",
+                "grain_size_mm", "dendricity", "facetedness", "grain_class", "crust_kind",
+                "formation_flags", "deposition_time", "formation_time", "event_id",
+                "soil_temperature_k", "new_snow_history_kg_m2", "new_snow_history_m"]
+        need += [n for n, *_ in _CELL_FLOAT] + [n for n, *_ in _CELL_INT]
+        missing = [v for v in need if v not in ds.variables]
+        if missing or "time" not in ds.coords or "cell_id" not in ds.coords:
+            raise InputError(
+                f"{source}: not a regionmap snow state; missing variables {missing or ['time/cell_id']}; "
+                "hint: pass a state.nc written by regionmap")
+        count = ds["layer_count"].values.astype(np.int64)
+        n, n_layer = ds["thickness_m"].shape
+        if count.min(initial=0) < 0 or count.max(initial=0) > n_layer:
+            raise InputError(f"{source}: layer_count must be within 0..{n_layer}, got "
+                             f"{count.min()}..{count.max()}")
+        active = np.arange(n_layer)[None, :] < count[:, None]
+        try:
+            grain = grain_strings_to_codes(np.where(active, ds["grain_class"].values, ""))
+            crust = crust_strings_to_codes(np.where(active, ds["crust_kind"].values, "none"))
+        except KeyError as exc:
+            raise InputError(f"{source}: unknown grain class or crust kind {exc}; expected the "
+                             "codes of regionmap.snow.codes") from None
+
+        def s2000(name):
+            v = ds[name].values.astype(np.int64) - EPOCH_2000_S
+            return np.where(active, v, 0).astype(np.int32)
+
+        layers = {
+            "thickness_m": ds["thickness_m"].values.astype(np.float32),
+            "ice_kg_m2": ds["ice_kg_m2"].values.astype(np.float64),
+            "liquid_kg_m2": ds["liquid_kg_m2"].values.astype(np.float64),
+            "temperature_k": ds["temperature_k"].values.astype(np.float32),
+            "grain_size_mm": ds["grain_size_mm"].values.astype(np.float32),
+            "dendricity": ds["dendricity"].values.astype(np.float32),
+            "facetedness": ds["facetedness"].values.astype(np.float32),
+            "grain_code": grain.astype(np.int8),
+            "crust_code": crust.astype(np.int8),
+            "flags": ds["formation_flags"].values.astype(np.int8),
+            "deposition_time_s2000": s2000("deposition_time"),
+            "formation_time_s2000": s2000("formation_time"),
+            "event_id": ds["event_id"].values.astype(np.int32),
+        }
+        surface = np.zeros((n, N_SV))
+        for name, k, *_ in _CELL_FLOAT:
+            surface[:, k] = ds[name].values
+        surface[:, V_SOIL:V_SOIL + N_SOIL] = ds["soil_temperature_k"].values
+        counters = np.zeros((n, N_SI), dtype=np.int64)
+        counters[:, J_N] = count
+        for name, k, _ in _CELL_INT:
+            counters[:, k] = ds[name].values
+        return cls(
+            time=np.datetime64(ds["time"].values, "s"),
+            cell_id=ds["cell_id"].values.astype(np.int64), surface=surface, counters=counters,
+            new_snow_kg_m2=ds["new_snow_history_kg_m2"].values.astype(np.float32),
+            new_snow_m=ds["new_snow_history_m"].values.astype(np.float32),
+            fingerprint=str(ds.attrs.get("settings_fingerprint", "")), **layers)
+
+    def save(self, path) -> Path:
+        """Write ``state.nc`` atomically (temporary file in the same folder, then os.replace)."""
+        path = Path(path)
+        try:
+            path.parent.mkdir(parents=True, exist_ok=True)
+            fd, tmp = tempfile.mkstemp(prefix=".tmp-", suffix=".nc", dir=path.parent)
+            os.close(fd)
+            self.to_dataset().to_netcdf(tmp, engine="netcdf4")
+            os.replace(tmp, path)
+        except OSError as exc:
+            raise OutputError(f"{path}: cannot write the snow state ({exc}); hint: check the "
+                              "folder exists and is writable") from None
+        return path
+
+    @classmethod
+    def load(cls, path) -> "SnowState":
+        """Read a ``state.nc`` written by :meth:`save`."""
+        path = Path(path)
+        if not path.is_file():
+            raise InputError(f"{path}: snow state file not found; hint: give the state.nc of an "
+                             "earlier run (--continue-from)")
+        try:
+            with xr.open_dataset(path, engine="netcdf4") as ds:
+                ds.load()
+        except (OSError, ValueError) as exc:
+            raise InputError(f"{path}: cannot read as NetCDF ({exc}); expected a state.nc") from None
+        return cls.from_dataset(ds, source=str(path))
