@@ -145,7 +145,7 @@ class CalibrationResult:
     settings : dict
         ``{exposure_class: {variable: Correction}}``; class ``"all"`` holds settings for the
         whole region, the classes of :data:`regionmap.io.stations.EXPOSURE_CLASSES` those
-        for cells of that class only.
+        for cells of that class only (``exposure = "<class>"`` in the ``[bias]`` entries).
     qm_tables : list of QuantileMappingTable
         Tables when ``method="quantile_mapping"`` (each with its ``exposure_class``).
     skill : pandas.DataFrame
@@ -560,7 +560,8 @@ def _toml_number(x: float) -> str:
 _MONTHS = ("Jan", "Feb", "Mar", "Apr", "May", "Jun", "Jul", "Aug", "Sep", "Oct", "Nov", "Dec")
 
 
-def _toml_line(c: Correction) -> str:
+def _toml_entry(c: Correction, exposure_class: str) -> tuple[str, str]:
+    """One inline table ``{ factor = … }`` (plus ``exposure = "…"``) and its comment."""
     scale = _CONFIG_UNIT_SCALE.get(c.variable, 1.0) if c.kind == "offset" else 1.0
     values = [v * scale for v in c.values]
     text = (
@@ -568,11 +569,14 @@ def _toml_line(c: Correction) -> str:
         if len(values) == 1
         else "[" + ", ".join(_toml_number(v) for v in values) + "]"
     )
-    line = f"{c.variable} = {{ {c.kind} = {text} }}"
+    entry = f"{c.kind} = {text}"
+    if exposure_class != "all":
+        entry += f', exposure = "{exposure_class}"'
+    comment = ""
     if c.own_fit and not all(c.own_fit):
         pooled = [m for m, own in zip(_MONTHS, c.own_fit) if not own]
-        line += f"  # {', '.join(pooled)}: all-month value (too little data)"
-    return line
+        comment = f"{', '.join(pooled)}: all-month value (too little data)"
+    return "{ " + entry + " }", comment
 
 
 def bias_toml(result: CalibrationResult, *, quantile_mapping_file: str = "qm.nc") -> str:
@@ -588,11 +592,11 @@ def bias_toml(result: CalibrationResult, *, quantile_mapping_file: str = "qm.nc"
     Returns
     -------
     str
-        ``[bias]`` with one ``variable = { offset = … }`` or ``{ factor = … }`` per
-        region-wide variable (offsets in the config's units: K, %, m s-1, W m-2; a list of
-        twelve = per month), ``quantile_mapping = "…"`` when there are tables, and one
-        ``[bias.exposure.<class>]`` table per exposure class for the settings that apply to
-        cells of that class only.
+        ``[bias]`` with one entry per variable: ``variable = { offset = … }`` or
+        ``{ factor = … }`` for the whole region, or a list of such tables each with
+        ``exposure = "<class>"`` for settings that apply only to cells of that exposure
+        class (offsets in the config's units: K, %, m s-1, W m-2; a list of twelve = per
+        month); ``quantile_mapping = "…"`` when there are tables.
     """
     lines = ["# Bias settings fitted by `regionmap calibrate`"]
     if result.stations:
@@ -602,13 +606,19 @@ def bias_toml(result: CalibrationResult, *, quantile_mapping_file: str = "qm.nc"
         lines.append(f"# over {a} .. {b} UTC")
     lines.append("# Guidance only: check against field observations before relying on it.")
     lines.append("[bias]")
-    for c in result.settings.get("all", {}).values():
-        lines.append(_toml_line(c))
+    by_variable: dict[str, list[tuple[str, Correction]]] = {}
+    for cls in ("all",) + EXPOSURE_CLASSES:
+        for variable, c in result.settings.get(cls, {}).items():
+            by_variable.setdefault(variable, []).append((cls, c))
+    for variable, entries in by_variable.items():
+        rendered = [_toml_entry(c, cls) for cls, c in entries]
+        if len(entries) == 1 and entries[0][0] == "all":
+            entry, comment = rendered[0]
+            lines.append(f"{variable} = {entry}" + (f"  # {comment}" if comment else ""))
+        else:
+            lines.append(f"{variable} = [  # each entry applies to cells of its exposure class only")
+            lines.extend(f"    {entry}," + (f"  # {comment}" if comment else "") for entry, comment in rendered)
+            lines.append("]")
     if result.qm_tables:
         lines.append(f'quantile_mapping = "{quantile_mapping_file}"')
-    for cls in EXPOSURE_CLASSES:
-        if result.settings.get(cls):
-            lines.append("")
-            lines.append(f"[bias.exposure.{cls}]   # applies to {cls} cells only")
-            lines.extend(_toml_line(c) for c in result.settings[cls].values())
     return "\n".join(lines) + "\n"

@@ -26,6 +26,7 @@ from regionmap.calibrate import (
     fit_factor,
     fit_offset,
 )
+from regionmap.config import BiasSection
 from regionmap.errors import InputError
 
 START, HOURS = "2025-12-01T01:00", 24 * 120  # December to March
@@ -98,6 +99,7 @@ def test_per_month_offsets_recovered_and_unfitted_months_pooled():
     assert c.own_fit[4] is False and c.values[4] == pytest.approx(pooled, abs=0.05)
     doc = tomllib.loads(bias_toml(result))
     assert len(doc["bias"]["air_temperature"]["offset"]) == 12
+    assert BiasSection(**doc["bias"]).air_temperature[0].offset[0] == pytest.approx(c.values[0], abs=1e-3)
 
 
 def test_quantile_mapping_method_tables_and_toml():
@@ -107,6 +109,7 @@ def test_quantile_mapping_method_tables_and_toml():
     assert ("wind_speed", "sheltered") in keys and ("air_temperature", "all") in keys
     doc = tomllib.loads(bias_toml(result, quantile_mapping_file="qm.nc"))
     assert doc["bias"]["quantile_mapping"] == "qm.nc"
+    assert BiasSection(**doc["bias"]).quantile_mapping.name == "qm.nc"
     skill = result.skill.set_index(["exposure_class", "variable", "stage"])
     assert abs(skill.loc[("all", "air_temperature", "cross_validated")]["bias"]) < 0.1
 
@@ -121,9 +124,14 @@ def test_bias_toml_parses_with_config_units():
     assert doc["bias"]["precipitation"]["factor"] == pytest.approx(1 / 1.6, rel=0.05)
     # [bias] offsets for relative humidity are in percent (config contract)
     assert doc["bias"]["relative_humidity"]["offset"] == pytest.approx(5.0, rel=1e-3)
-    assert doc["bias"]["exposure"]["sheltered"]["wind_speed"]["factor"] == pytest.approx(0.2, rel=0.05)
+    wind = {e["exposure"]: e["factor"] for e in doc["bias"]["wind_speed"]}
+    assert wind["sheltered"] == pytest.approx(0.2, rel=0.05) and set(wind) == {"sheltered", "exposed"}
     assert "quantile_mapping" not in doc["bias"]
     assert "Guidance only" in text
+    # the config schema (regionmap.config, extra keys forbidden) accepts what we print
+    section = BiasSection(**doc["bias"])
+    assert [e.exposure for e in section.wind_speed] == ["sheltered", "exposed"]
+    assert section.air_temperature[0].exposure == "all"
 
 
 def test_refuses_too_little_data_and_states_minimum():
