@@ -1,0 +1,134 @@
+"""regionmap's colours and figure conventions, used by every figure.
+
+Two palettes, designed here:
+
+* **Grain classes** — one colour per main class of the International Classification for
+  Seasonal Snow on the Ground (Fierz et al. 2009), taken from the eight colours of Okabe &
+  Ito (2008), a set chosen to stay distinguishable for the common forms of colour-vision
+  deficiency. Subclasses (``FCxr``, ``MFcr`` …) take their main class's colour; figures write
+  the code itself on the layer, so the colour is never the only cue. The assignment of colours
+  to classes is our own.
+* **Metric values** — a sequential ramp from near-white to deep indigo, one hue with a
+  lightness that falls monotonically, so order is readable without colour vision (the
+  argument of Crameri, Shephard & Heron 2020). It deliberately holds no green, yellow,
+  orange or red, so nobody reads a map or an overview as an avalanche danger rating.
+
+References
+----------
+.. [1] Okabe, M. & Ito, K. (2008). Color Universal Design (CUD): how to make figures and
+   presentations that are friendly to colorblind people. J*FLY Data Depository for
+   Drosophila Researchers. (The eight colours are also listed in Wong, B. 2011, Points of
+   view: Color blindness, Nature Methods 8, 441, doi:10.1038/nmeth.1618.)
+.. [2] Fierz, C. et al. (2009). The International Classification for Seasonal Snow on the
+   Ground. IHP-VII Technical Documents in Hydrology 83, UNESCO-IHP, Paris.
+.. [3] Crameri, F., Shephard, G. E. & Heron, P. J. (2020). The misuse of colour in science
+   communication. Nature Communications 11, 5444, doi:10.1038/s41467-020-19160-7.
+"""
+
+from __future__ import annotations
+
+import re
+from pathlib import Path
+
+import numpy as np
+from matplotlib.colors import LinearSegmentedColormap, to_rgb
+from matplotlib.figure import Figure
+
+__all__ = [
+    "OKABE_ITO",
+    "GRAIN_MAIN_COLOURS",
+    "grain_colour",
+    "grain_main_class",
+    "METRIC_CMAP",
+    "METRIC_RAMP",
+    "text_colour_on",
+    "relative_luminance",
+    "PRINT_DPI",
+    "REPORT_DPI",
+    "new_figure",
+    "slug",
+    "save_png",
+]
+
+#: The eight colours of Okabe & Ito (2008), by their published names.
+OKABE_ITO: dict[str, str] = {
+    "black": "#000000",
+    "orange": "#E69F00",
+    "sky blue": "#56B4E9",
+    "bluish green": "#009E73",
+    "yellow": "#F0E442",
+    "blue": "#0072B2",
+    "vermillion": "#D55E00",
+    "reddish purple": "#CC79A7",
+}
+
+#: Main grain class → colour (our assignment of the Okabe & Ito set).
+GRAIN_MAIN_COLOURS: dict[str, str] = {
+    "PP": OKABE_ITO["sky blue"],
+    "DF": OKABE_ITO["bluish green"],
+    "RG": OKABE_ITO["yellow"],
+    "FC": OKABE_ITO["orange"],
+    "DH": OKABE_ITO["vermillion"],
+    "SH": OKABE_ITO["reddish purple"],
+    "MF": OKABE_ITO["blue"],
+    "IF": OKABE_ITO["black"],
+}
+_UNKNOWN_GRAIN = "#BBBBBB"
+
+#: The sequential ramp for metric values, light to dark (regionmap's own).
+METRIC_RAMP: tuple[str, ...] = (
+    "#F7F7FB", "#DCDFF0", "#B9BFE1", "#959ECF", "#737CBB", "#5559A3", "#3B3C86", "#232262",
+)
+METRIC_CMAP = LinearSegmentedColormap.from_list("regionmap_indigo", METRIC_RAMP, N=256)
+METRIC_CMAP.set_bad("#FFFFFF", 0.0)
+
+#: Print resolution of the PNGs under figures/ [dots per inch].
+PRINT_DPI = 200
+#: Resolution of the copies embedded in report.html [dots per inch].
+REPORT_DPI = 72
+
+
+def grain_main_class(code: str) -> str:
+    """Main class of a grain code: the first two letters (``FCxr`` → ``FC``)."""
+    return str(code)[:2]
+
+
+def grain_colour(code: str) -> str:
+    """Colour of a grain-class code (subclasses take their main class's colour)."""
+    return GRAIN_MAIN_COLOURS.get(grain_main_class(code), _UNKNOWN_GRAIN)
+
+
+def relative_luminance(colour) -> float:
+    """Relative luminance of an sRGB colour (IEC 61966-2-1 transfer, WCAG 2 weights) [0–1]."""
+    rgb = np.asarray(to_rgb(colour), dtype=np.float64)
+    lin = np.where(rgb <= 0.04045, rgb / 12.92, ((rgb + 0.055) / 1.055) ** 2.4)
+    return float(lin @ np.array([0.2126, 0.7152, 0.0722]))
+
+
+def text_colour_on(colour) -> str:
+    """Black or white, whichever contrasts more with ``colour`` (WCAG 2 contrast ratio)."""
+    lum = relative_luminance(colour)
+    return "black" if (lum + 0.05) / 0.05 >= 1.05 / (lum + 0.05) else "white"
+
+
+def new_figure(width_in: float, height_in: float) -> Figure:
+    """A matplotlib Figure on the Agg canvas, outside pyplot (no display, no global state)."""
+    fig = Figure(figsize=(width_in, height_in), layout="constrained")
+    return fig
+
+
+def slug(text: str) -> str:
+    """File-name-safe lower-case form of a name (``"Upper Vell"`` → ``upper-vell``)."""
+    s = re.sub(r"[^0-9a-zA-Z]+", "-", str(text)).strip("-").lower()
+    return s or "x"
+
+
+def save_png(fig: Figure, path: Path, *, dpi: int = PRINT_DPI) -> Path:
+    """Save a figure as PNG (folders created), atomically."""
+    from regionmap.io.atomic import atomic_path
+
+    path = Path(path)
+    path.parent.mkdir(parents=True, exist_ok=True)
+    with atomic_path(path) as tmp:
+        fig.savefig(tmp, dpi=dpi, format="png")
+    return path
