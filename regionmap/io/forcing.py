@@ -34,6 +34,7 @@ import cf_xarray  # noqa: F401  (registers the .cf accessor)
 import xarray as xr
 from scipy import sparse
 
+from regionmap.downscale import thermo as _thermo
 from regionmap.errors import ConfigError, ForcingReadError, GridMismatchError
 from regionmap.io import units as U
 from pyproj import CRS, Transformer
@@ -649,6 +650,8 @@ class ForcingGrid:
         ny, nx = self.shape
         for _ in range(30):
             rx, ry = sx.ev(fi, fj) - px, sy.ev(fi, fj) - py
+            if np.all(np.hypot(rx, ry) < 1e-9 * spacing):
+                break
             a, b = sx.ev(fi, fj, dx=1), sx.ev(fi, fj, dy=1)
             c, d = sy.ev(fi, fj, dx=1), sy.ev(fi, fj, dy=1)
             det = a * d - b * c
@@ -973,7 +976,7 @@ def _compute(sources, names, rows, alt, reader):
     def pressure():
         if "pressure" in sources:
             return get("pressure")
-        return np.broadcast_to(U.pressure_standard_atmosphere(alt), (rows.size, alt.size))
+        return np.broadcast_to(_thermo.pressure_standard_atmosphere_icao(alt), (rows.size, alt.size))
 
     out = {}
     for name in names:
@@ -993,7 +996,7 @@ def _compute(sources, names, rows, alt, reader):
             if sn == "relative_humidity":
                 v = get("humidity")
             elif sn == "specific_humidity":
-                v = U.relative_humidity_from_specific_humidity(get("humidity"), get("air_temperature"),
+                v = _thermo.relative_humidity_from_specific_humidity(get("humidity"), get("air_temperature"),
                                                                pressure())
             else:
                 v = U.relative_humidity_from_dew_point(get("humidity"), get("air_temperature"))
@@ -1053,7 +1056,7 @@ def _lazy(sources, name, alt, hours):
     attrs = {"units": _OUT_UNITS[name]}
     members = _members(sources, [name])
     if not members:  # pressure from the standard atmosphere at model height
-        p = da.broadcast_to(da.from_array(U.pressure_standard_atmosphere(alt).astype(np.float32)),
+        p = da.broadcast_to(da.from_array(_thermo.pressure_standard_atmosphere_icao(alt).astype(np.float32)),
                             (hours.size,) + alt.shape)
         return xr.DataArray(p, dims=("time", "y", "x"), coords=coords, name=name, attrs=attrs)
     arrays, alt_d = _chunked(sources, members, alt)

@@ -7,9 +7,7 @@ reader can apply it lazily and exactly.
 
 Physics helpers (plain NumPy, float64):
 
-* :func:`saturation_vapour_pressure_buck1981` — over water, Buck (1981).
-* :func:`pressure_standard_atmosphere` — ICAO Doc 7488 / ISO 2533 troposphere.
-* :func:`relative_humidity_from_specific_humidity`, :func:`relative_humidity_from_dew_point`.
+* :func:`relative_humidity_from_dew_point` (saturation curve from ``downscale.thermo``).
 * :func:`wind_from_components`, :func:`components_from_wind`.
 """
 
@@ -19,14 +17,13 @@ import re
 
 import numpy as np
 
+from regionmap.downscale.thermo import saturation_vapour_pressure_water_buck1981
+
 __all__ = [
     "WATER_DENSITY_KG_M3",
     "G0_M_S2",
     "normalise_units",
     "affine_conversion",
-    "saturation_vapour_pressure_buck1981",
-    "pressure_standard_atmosphere",
-    "relative_humidity_from_specific_humidity",
     "relative_humidity_from_dew_point",
     "wind_from_components",
     "components_from_wind",
@@ -127,52 +124,11 @@ def affine_conversion(units: str, target: str) -> tuple[float, float]:
     return float(out[1] - out[0]), offset
 
 
-def saturation_vapour_pressure_buck1981(t_air_k):
-    """Saturation vapour pressure over liquid water [Pa].
-
-    Parameters
-    ----------
-    t_air_k : array_like
-        Temperature [K].
-
-    Notes
-    -----
-    e_s = 611.21 exp(17.502 T / (240.97 + T)), T in degC (Buck 1981, Eq. 8 constants for
-    water, the set METHODS.md lists).
-
-    References
-    ----------
-    Buck, A. L. (1981): New equations for computing vapor pressure and enhancement factor.
-    J. Appl. Meteorol. 20, 1527-1532. doi:10.1175/1520-0450(1981)020<1527:NEFCVP>2.0.CO;2
-    """
-    t_c = np.asarray(t_air_k, dtype=np.float64) - 273.15
-    return 611.21 * np.exp(17.502 * t_c / (240.97 + t_c))
-
-
-def pressure_standard_atmosphere(elevation_m):
-    """Pressure of the ICAO standard atmosphere at a geopotential height [Pa].
-
-    p = 101325 (1 - 0.0065 h / 288.15)^5.25588 (ICAO Doc 7488, ISO 2533:1975 troposphere).
-    """
-    h = np.asarray(elevation_m, dtype=np.float64)
-    return 101325.0 * (1.0 - 0.0065 * h / 288.15) ** 5.25588
-
-
-def relative_humidity_from_specific_humidity(q_kg_kg, t_air_k, pressure_pa):
-    """Relative humidity over water [1] from specific humidity.
-
-    Vapour pressure e = q p / (ε + (1 - ε) q), ε = 0.622 (ratio of the gas constants of dry
-    air and water vapour); RH = e / e_s(T) with :func:`saturation_vapour_pressure_buck1981`.
-    (Wallace & Hobbs 2006, Atmospheric Science, Eq. 3.57-3.62.)
-    """
-    q = np.asarray(q_kg_kg, dtype=np.float64)
-    e_pa = q * np.asarray(pressure_pa, dtype=np.float64) / (0.622 + 0.378 * q)
-    return e_pa / saturation_vapour_pressure_buck1981(t_air_k)
-
-
 def relative_humidity_from_dew_point(t_dew_k, t_air_k):
-    """Relative humidity over water [1] = e_s(T_d) / e_s(T) (Buck 1981 saturation curve)."""
-    return saturation_vapour_pressure_buck1981(t_dew_k) / saturation_vapour_pressure_buck1981(t_air_k)
+    """Relative humidity over water [1] = e_s(T_d) / e_s(T), with the Buck (1981) water curve
+    of :func:`regionmap.downscale.thermo.saturation_vapour_pressure_water_buck1981`."""
+    es = saturation_vapour_pressure_water_buck1981
+    return es(t_dew_k) / es(t_air_k)
 
 
 def wind_from_components(u_m_s, v_m_s):
