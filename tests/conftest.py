@@ -1,0 +1,36 @@
+"""Shared fixtures: the shipped demo region, its terrain and cells (built once per session)."""
+
+from __future__ import annotations
+
+import pytest
+
+
+@pytest.fixture(scope="session")
+def demo_dem():
+    from regionmap.demo import SHIPPED_DEM
+    from regionmap.io.dem import read_dem
+
+    return read_dem(SHIPPED_DEM)
+
+
+@pytest.fixture(scope="session")
+def demo_zones(demo_dem):
+    from regionmap.demo import SHIPPED_ZONES
+    from regionmap.io.zones import read_zones
+
+    return read_zones(SHIPPED_ZONES, "name", demo_dem)
+
+
+@pytest.fixture(scope="session")
+def demo_terrain(demo_dem):
+    from regionmap.terrain import TerrainSettings, compute_terrain
+
+    return compute_terrain(demo_dem, TerrainSettings())
+
+
+@pytest.fixture(scope="session")
+def demo_cells(demo_dem, demo_terrain, demo_zones):
+    from regionmap.cells import CellSettings, build_cells
+
+    return build_cells(demo_dem, demo_terrain, demo_zones,
+                       CellSettings(band_edges_m=(1500, 1800, 2100, 2400, 2700, 3000)))
