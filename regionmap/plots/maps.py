@@ -1,0 +1,235 @@
+"""Zone maps: one metric raster over a hillshade of the DEM.
+
+Each map shows ``maps/<metric>.tif`` on regionmap's sequential ramp over a hillshade of the
+run's DEM, the zone outlines with their names, the rain-crust lines of ``zones.gpkg`` with
+their elevations written on them, a colour bar with units, a north arrow and a scale bar.
+
+The hillshade is matplotlib's :class:`matplotlib.colors.LightSource` (illumination from
+azimuth 315°, 45° above the horizon — the usual cartographic convention, light from the
+upper left; common practice). The DEM is the one recorded in ``run.json``
+(``config.region.dem``); when it cannot be found the map is drawn on a plain background,
+with a warning and a note on the figure.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+from matplotlib import patheffects
+from matplotlib.colors import BoundaryNorm, LightSource, Normalize
+from matplotlib.lines import Line2D
+
+from regionmap.errors import InputError, warn
+from regionmap.plots.outputs import METRICS, Metric, RunOutputs
+from regionmap.plots.style import METRIC_CMAP, new_figure, save_png
+
+__all__ = ["available_maps", "find_dem", "hillshade", "plot_metric_map", "write_metric_map"]
+
+_HALO = [patheffects.withStroke(linewidth=2.5, foreground="white")]
+
+
+def _outputs(out) -> RunOutputs:
+    return out if isinstance(out, RunOutputs) else RunOutputs(out)
+
+
+def available_maps(out) -> list[str]:
+    """Metric names with a raster under ``maps/`` (``cell_id`` excluded), sorted."""
+    out = _outputs(out)
+    return sorted(p.stem for p in (out.out_dir / "maps").glob("*.tif") if p.stem != "cell_id")
+
+
+def find_dem(out) -> Path | None:
+    """The run's DEM file from ``run.json`` ``config.region.dem`` (relative paths against the
+    output folder), or None when it is not recorded or not on disk."""
+    out = _outputs(out)
+    value = out.run.get("config", {}).get("region", {}).get("dem") if isinstance(out.run.get("config"), dict) else None
+    if not value:
+        return None
+    p = Path(value)
+    if not p.is_absolute():
+        p = out.out_dir / p
+    return p if p.is_file() else None
+
+
+def hillshade(elevation_m: np.ndarray, dx_m: float, dy_m: float) -> np.ndarray:
+    """Hillshade (0 dark … 1 lit) of a DEM with matplotlib's LightSource, light from 315°
+    at 45° (common cartographic practice); NaN where the DEM has no data.
+
+    Parameters
+    ----------
+    elevation_m : ndarray (y, x) float64 [m], NaN for nodata.
+    dx_m, dy_m : pixel size [m].
+    """
+    z = np.asarray(elevation_m, dtype=np.float64)
+    bad = ~np.isfinite(z)
+    filled = np.where(bad, np.nanmean(z) if (~bad).any() else 0.0, z)
+    shade = LightSource(azdeg=315, altdeg=45).hillshade(filled, vert_exag=1.0, dx=dx_m, dy=dy_m)
+    return np.where(bad, np.nan, shade)
+
+
+def _extent(transform, shape) -> tuple[float, float, float, float]:
+    left, top = transform.c, transform.f
+    right = left + transform.a * shape[1]
+    bottom = top + transform.e * shape[0]
+    return left, right, bottom, top
+
+
+def _metres_per_unit(crs, lat_deg: float) -> tuple[float, float]:
+    if crs is not None and crs.is_geographic:
+        return 111_320.0 * np.cos(np.deg2rad(lat_deg)), 110_540.0
+    return 1.0, 1.0
+
+
+def _nice_length_m(width_m: float) -> float:
+    target = width_m / 5.0
+    p = 10 ** np.floor(np.log10(target))
+    return float(max(s * p for s in (1, 2, 5) if s * p <= target))
+
+
+def _metric_of(name: str, units: str, description: str) -> Metric:
+    if name in METRICS:
+        return METRICS[name]
+    return Metric(name, description.split(":")[0] or name.replace("_", " "), units or "1", name)
+
+
+def _read_map(out: RunOutputs, name: str):
+    import rasterio
+
+    path = out.out_dir / "maps" / f"{name}.tif"
+    if not path.is_file():
+        raise InputError(f"{path} is missing; this run has maps for {available_maps(out)}")
+    with rasterio.open(path) as src:
+        data = src.read(1, masked=True)
+        tags = src.tags()
+        info = (src.transform, src.crs, (src.descriptions or ("",))[0] or "", src.dtypes[0])
+    return data, tags, info
+
+
+def plot_metric_map(out, metric: str, *, show_rain_crust: bool = True):
+    """Draw the zone map of one metric.
+
+    Parameters
+    ----------
+    out : output folder (path) or :class:`RunOutputs`.
+    metric : name of a raster under ``maps/`` (e.g. ``snow_depth_cm``).
+    show_rain_crust : draw the rain-crust lines of ``zones.gpkg``.
+
+    Returns
+    -------
+    matplotlib Figure with one map axes (images: hillshade and metric; the zone outlines and
+    rain-crust lines as line collections; legend entries for both; a colour bar labelled
+    with the metric and its units; artists with gid ``north-arrow`` and ``scale-bar``).
+
+    Raises
+    ------
+    InputError
+        When the raster is missing.
+    """
+    out = _outputs(out)
+    data, tags, (transform, crs, description, dtype) = _read_map(out, metric)
+    m = _metric_of(metric, tags.get("units", ""), description)
+    values = np.ma.masked_invalid(data.astype(np.float64) * m.scale)
+    extent = _extent(transform, data.shape)
+    lat = float(np.nanmean(out.table["lat"])) if "lat" in out.table else 45.0
+    kx, ky = _metres_per_unit(crs, lat)
+    fig = new_figure(7.5, 6.6)
+    ax = fig.add_subplot(1, 1, 1)
+    dem_path = find_dem(out)
+    note = ""
+    if dem_path is not None:
+        from regionmap.io.dem import read_dem
+
+        dem = read_dem(dem_path)
+        shade = hillshade(dem.elevation_m, abs(dem.transform.a) * kx, abs(dem.transform.e) * ky)
+        ax.imshow(np.ma.masked_invalid(shade), cmap="gray", vmin=0.0, vmax=1.0, extent=_extent(dem.transform, shade.shape),
+                  interpolation="nearest", zorder=0, gid="hillshade")
+    else:
+        warn(f"{out.out_dir / 'run.json'}: config.region.dem is not recorded or not on disk; map drawn without hillshade")
+        note = "DEM not found: no hillshade"
+    if np.issubdtype(np.dtype(dtype), np.integer):
+        top = int(max(1, values.max() if values.count() else 1))
+        norm = BoundaryNorm(np.arange(-0.5, top + 1.5), METRIC_CMAP.N)
+    else:
+        top = m.vmax if m.vmax is not None else (float(values.max()) if values.count() else 1.0)
+        norm = Normalize(0.0, top if top > 0 else 1.0)
+    im = ax.imshow(values, cmap=METRIC_CMAP, norm=norm, extent=extent, interpolation="nearest", alpha=0.72, zorder=1,
+                   gid="metric")
+    cbar = fig.colorbar(im, ax=ax, shrink=0.8, pad=0.02)
+    if isinstance(norm, BoundaryNorm):
+        cbar.set_ticks(np.arange(0, top + 1))
+    cbar.set_label(f"{m.label} [{m.units}]")
+    handles = []
+    zones = out.zones
+    if crs is not None and zones.crs is not None and zones.crs != crs:
+        zones = zones.to_crs(crs)
+    zones.boundary.plot(ax=ax, color="#111111", linewidth=1.2, zorder=3)
+    for name, geom in zip(zones["zone"], zones.geometry):
+        p = geom.representative_point()
+        ax.text(p.x, p.y, str(name), ha="center", va="center", fontsize=9, weight="bold", zorder=5,
+                path_effects=_HALO)
+    handles.append(Line2D([], [], color="#111111", linewidth=1.2, label="zone boundary"))
+    if show_rain_crust:
+        lines = out.rain_crust_lines
+        if len(lines):
+            if crs is not None and lines.crs is not None and lines.crs != crs:
+                lines = lines.to_crs(crs)
+            styles = {"upper": ("-", "rain-crust line, upper limit (rain-snow transition)"),
+                      "lower": ("--", "rain-crust line, lower limit (snow line at the time)")}
+            for limit, (ls, label) in styles.items():
+                part = lines[lines["limit"] == limit] if "limit" in lines.columns else lines
+                if not len(part):
+                    continue
+                part.plot(ax=ax, color="black", linewidth=1.6, linestyle=ls, zorder=4)
+                for geom, elev in zip(part.geometry, part["elevation_m"]):
+                    longest = max(getattr(geom, "geoms", [geom]), key=lambda g: g.length)
+                    p = longest.interpolate(0.5, normalized=True)
+                    ax.text(p.x, p.y, f"{10 * round(float(elev) / 10):.0f} m", fontsize=7, zorder=6,
+                            path_effects=_HALO, gid="rain-crust-label")
+                handles.append(Line2D([], [], color="black", linewidth=1.6, linestyle=ls, label=label))
+    ax.legend(handles=handles, loc="upper left", fontsize=7, framealpha=0.85)
+    ax.set_xlim(extent[0], extent[1])
+    ax.set_ylim(extent[2], extent[3])
+    ax.set_aspect(ky / kx if kx != 1.0 else "equal")
+    unit = "deg" if crs is not None and crs.is_geographic else "m"
+    ax.set_xlabel(f"x [{unit}]" + (f" ({crs.to_string()})" if crs is not None else ""))
+    ax.set_ylabel(f"y [{unit}]")
+    ax.ticklabel_format(useOffset=False, style="plain")
+    _north_arrow(ax)
+    _scale_bar(ax, extent, kx)
+    when = tags.get("valid_time", pd.Timestamp(out.map_time).strftime("%Y-%m-%dT%H:%M:%SZ"))
+    status = "forecast" if out.forecast_at(out.time_in_run(when, what=f"maps/{metric}.tif valid_time")) else "analysis"
+    ax.set_title(f"{m.label}\nvalid {when.replace('T', ' ').replace('Z', ' UTC')} ({status})" + (f"; {note}" if note else ""),
+                 fontsize=10)
+    return fig
+
+
+def _north_arrow(ax) -> None:
+    ax.annotate("N", xy=(0.93, 0.95), xytext=(0.93, 0.83), xycoords="axes fraction", ha="center", va="center",
+                fontsize=11, weight="bold", arrowprops={"arrowstyle": "-|>", "color": "black", "lw": 1.5},
+                gid="north-arrow", zorder=7, path_effects=_HALO)
+
+
+def _scale_bar(ax, extent, metres_per_unit_x: float) -> None:
+    from matplotlib.patches import Rectangle
+
+    left, right, bottom, top = extent
+    width_m = (right - left) * metres_per_unit_x
+    length_m = _nice_length_m(width_m)
+    length_u = length_m / metres_per_unit_x
+    x0 = left + 0.05 * (right - left)
+    y0 = bottom + 0.05 * (top - bottom)
+    h = 0.012 * (top - bottom)
+    bar = Rectangle((x0, y0), length_u, h, facecolor="black", edgecolor="white", linewidth=0.8, zorder=7, gid="scale-bar")
+    ax.add_patch(bar)
+    label = f"{length_m / 1000:g} km" if length_m >= 1000 else f"{length_m:g} m"
+    ax.text(x0 + length_u / 2, y0 + 2.2 * h, label, ha="center", va="bottom", fontsize=8, zorder=7,
+            path_effects=_HALO, gid="scale-bar-label")
+
+
+def write_metric_map(out, metric: str) -> Path:
+    """Write ``figures/map_<metric>.png``."""
+    out = _outputs(out)
+    fig = plot_metric_map(out, metric)
+    return save_png(fig, out.out_dir / "figures" / f"map_{metric}.png")

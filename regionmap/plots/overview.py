@@ -1,0 +1,197 @@
+"""Elevation-aspect overview: one zone, one metric, one time, as a polar chart.
+
+Aspect sectors run around the chart clockwise with north at the top; elevation bands are
+rings with the **highest band in the centre** and the lowest outside. Each sector-ring is
+coloured by the metric on regionmap's sequential ramp (:data:`regionmap.plots.style.METRIC_CMAP`)
+with its value written in it; the flat sector is a column of boxes beside the chart, highest
+band at the top. A sector-ring with no terrain is left white and hatched. The same numbers
+are written as a CSV table (band × aspect).
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+from matplotlib.colors import Normalize
+from matplotlib.patches import Patch, Rectangle
+
+from regionmap.plots.outputs import SECTOR_ORDER, Metric, RunOutputs, metric
+from regionmap.plots.style import METRIC_CMAP, new_figure, save_png, slug, text_colour_on
+
+__all__ = ["overview_table", "plot_overview", "write_overview", "sector_layout", "HOLE_RINGS"]
+
+#: radius of the empty centre, in rings (keeps the innermost values readable).
+HOLE_RINGS = 0.6
+
+
+def _outputs(out) -> RunOutputs:
+    return out if isinstance(out, RunOutputs) else RunOutputs(out)
+
+
+def sector_layout(sectors) -> tuple[list[str], float]:
+    """Compass sectors of a run in clockwise order and their width [deg]: 16, 8 or 4 sectors
+    depending on the names present (``NNE`` … → 16; ``NE`` … → 8; else 4)."""
+    names = set(sectors) - {"flat"}
+    if names & {"NNE", "ENE", "ESE", "SSE", "SSW", "WSW", "WNW", "NNW"}:
+        order = list(SECTOR_ORDER[:16])
+    elif names & {"NE", "SE", "SW", "NW"}:
+        order = list(SECTOR_ORDER[0:16:2])
+    else:
+        order = list(SECTOR_ORDER[0:16:4])
+    return order, 360.0 / len(order)
+
+
+def overview_table(out, zone: str, metric_name: str, *, time=None) -> pd.DataFrame:
+    """Band × aspect table of a metric for one zone (printed units, e.g. % for fractions).
+
+    Returns
+    -------
+    DataFrame indexed by band label, highest band first, with ``band_lower_m``,
+    ``band_upper_m`` and one column per aspect sector (clockwise from N, then ``flat`` when
+    the zone has flat cells); NaN where the zone has no terrain.
+    """
+    out = _outputs(out)
+    m = metric(metric_name)
+    out.check_zone(zone)
+    ba = out.band_aspect(time)
+    z = ba[ba["zone"] == zone]
+    table = out.table[out.table["zone"] == zone]
+    order, _ = sector_layout(out.table["aspect_sector"].unique())
+    if (table["aspect_sector"] == "flat").any():
+        order = [*order, "flat"]
+    bands = table[["band_lower_m", "band_upper_m", "band"]].drop_duplicates().sort_values("band_lower_m", ascending=False)
+    wide = z.pivot_table(index="band", columns="aspect_sector", values=m.summary_column, aggfunc="first", dropna=False)
+    wide = wide.reindex(index=bands["band"], columns=order) * m.scale
+    wide.insert(0, "band_upper_m", bands["band_upper_m"].to_numpy())
+    wide.insert(0, "band_lower_m", bands["band_lower_m"].to_numpy())
+    wide.columns.name = None
+    return wide
+
+
+def _vmax(out: RunOutputs, m: Metric, time) -> float:
+    if m.vmax is not None:
+        return m.vmax
+    vals = out.band_aspect(time)[m.summary_column].to_numpy(np.float64) * m.scale
+    top = np.nanmax(vals) if np.isfinite(vals).any() else 0.0
+    if top <= 0:
+        return 1.0
+    step = 10 ** np.floor(np.log10(top))
+    return float(np.ceil(top / step) * step)
+
+
+def _fmt(v: float, decimals: int) -> str:
+    return f"{v:.{decimals}f}"
+
+
+def plot_overview(out, zone: str, metric_name: str, *, time=None):
+    """Draw the elevation-aspect overview of ``metric_name`` in ``zone``.
+
+    Parameters
+    ----------
+    out : output folder (path) or :class:`RunOutputs`.
+    zone : zone name.
+    metric_name : a key of :data:`regionmap.plots.outputs.METRICS`.
+    time : valid time (UTC, ISO text or datetime); default the run's map time.
+
+    Returns
+    -------
+    matplotlib Figure. Its polar axes carry the sector-ring patches with ``gid``
+    ``"<band>|<sector>"``; the flat boxes sit in a second axes labelled ``flat``.
+
+    Raises
+    ------
+    InputError
+        Unknown zone or metric, or a time outside the run.
+    """
+    out = _outputs(out)
+    m = metric(metric_name)
+    t = out.map_time if time is None else out.time_in_run(time)
+    wide = overview_table(out, zone, metric_name, time=t)
+    compass, width_deg = sector_layout(out.table["aspect_sector"].unique())
+    has_flat = "flat" in wide.columns
+    norm = Normalize(0.0, _vmax(out, m, t))
+    n_band = len(wide)
+    fig = new_figure(7.2, 6.4)
+    grid = fig.add_gridspec(1, 2, width_ratios=[5.2, 1.0] if has_flat else [5.2, 0.01])
+    ax = fig.add_subplot(grid[0, 0], projection="polar")
+    ax.set_theta_zero_location("N")
+    ax.set_theta_direction(-1)
+    width = np.deg2rad(width_deg)
+    size = max(5.0, 10.0 - 0.35 * n_band - 0.15 * len(compass))
+    for ring, (band, row) in enumerate(wide.iterrows()):  # ring 0 = highest band, innermost
+        r0 = HOLE_RINGS + ring
+        for k, sector in enumerate(compass):
+            v = float(row[sector])
+            theta = np.deg2rad(k * width_deg)
+            colour = METRIC_CMAP(norm(v)) if np.isfinite(v) else "white"
+            bars = ax.bar(theta, 1.0, width=width, bottom=r0, color=colour, edgecolor="#444444", linewidth=0.6,
+                          hatch=None if np.isfinite(v) else "///", align="center")
+            bars.patches[0].set_gid(f"{band}|{sector}")
+            if np.isfinite(v):
+                ax.text(theta, r0 + 0.5, _fmt(v, m.decimals), ha="center", va="center", fontsize=size,
+                        color=text_colour_on(colour))
+    ax.set_ylim(0, HOLE_RINGS + n_band)
+    ax.set_xticks(np.deg2rad(np.arange(len(compass)) * width_deg), compass)
+    ax.set_yticks(HOLE_RINGS + np.arange(n_band) + 0.5, [f"{b} m" for b in wide.index], fontsize=max(5.0, size - 1))
+    ax.set_rlabel_position(width_deg / 2.0)
+    ax.grid(False)
+    ax.spines["polar"].set_visible(False)
+    ax.set_xlabel("aspect (slope facing); rings: elevation band, highest in the centre", fontsize=8)
+    status = "forecast" if out.forecast_at(t) else "analysis"
+    when = pd.Timestamp(t).strftime("%Y-%m-%d %H:%M UTC")
+    fig.suptitle(f"{zone}: {m.label}\nvalid {when} ({status}), weighted over {out.weights[1]}", fontsize=10)
+    sm = __import__("matplotlib.cm", fromlist=["ScalarMappable"]).ScalarMappable(norm=norm, cmap=METRIC_CMAP)
+    cbar = fig.colorbar(sm, ax=ax, orientation="horizontal", shrink=0.6, pad=0.08)
+    cbar.set_label(f"{m.label} [{m.units}]", fontsize=8)
+    side = fig.add_subplot(grid[0, 1])
+    side.set_xlim(0, 1)
+    side.set_ylim(0, n_band)
+    side.set_xticks([])
+    if has_flat:
+        for ring, (band, row) in enumerate(wide.iterrows()):
+            v = float(row["flat"])
+            y = n_band - 1 - ring  # highest band at the top
+            colour = METRIC_CMAP(norm(v)) if np.isfinite(v) else "white"
+            side.add_patch(Rectangle((0, y), 1, 1, facecolor=colour, edgecolor="#444444", linewidth=0.6,
+                                     hatch=None if np.isfinite(v) else "///", gid=f"{band}|flat"))
+            if np.isfinite(v):
+                side.text(0.5, y + 0.5, _fmt(v, m.decimals), ha="center", va="center", fontsize=size,
+                          color=text_colour_on(colour))
+        side.set_yticks(np.arange(n_band) + 0.5, [f"{b} m" for b in wide.index[::-1]], fontsize=max(5.0, size - 1))
+        side.set_title("flat", fontsize=9)
+    else:
+        side.set_axis_off()
+    fig.legend(handles=[Patch(facecolor="white", edgecolor="#444444", hatch="///", label="no terrain in this band and aspect")],
+               loc="lower left", fontsize=7, frameon=False)
+    return fig
+
+
+def write_overview(out, zone: str, metric_name: str, *, time=None) -> tuple[Path, Path]:
+    """Write ``figures/overview_<zone>_<metric>.png`` and the matching ``.csv``."""
+    out = _outputs(out)
+    stem = out.out_dir / "figures" / f"overview_{slug(zone)}_{metric_name}"
+    fig = plot_overview(out, zone, metric_name, time=time)
+    png = save_png(fig, stem.with_suffix(".png"))
+    csv = write_overview_csv(out, zone, metric_name, stem.with_suffix(".csv"), time=time)
+    return png, csv
+
+
+def write_overview_csv(out, zone: str, metric_name: str, path: Path, *, time=None) -> Path:
+    """The overview's numbers as CSV: one row per band (highest first), one column per aspect,
+    plus ``zone``, ``metric``, ``units``, ``valid_time`` and ``status`` columns."""
+    from regionmap.io.atomic import atomic_path
+
+    out = _outputs(out)
+    m = metric(metric_name)
+    t = out.map_time if time is None else out.time_in_run(time)
+    wide = overview_table(out, zone, metric_name, time=t).reset_index()
+    wide.insert(0, "status", "forecast" if out.forecast_at(t) else "analysis")
+    wide.insert(0, "valid_time", pd.Timestamp(t).strftime("%Y-%m-%dT%H:%M:%SZ"))
+    wide.insert(0, "units", m.units)
+    wide.insert(0, "metric", m.name)
+    wide.insert(0, "zone", zone)
+    with atomic_path(path) as tmp:
+        wide.to_csv(tmp, index=False, float_format="%.4g")
+    return Path(path)
