@@ -12,7 +12,7 @@ import traceback
 from pathlib import Path
 
 from regionmap import CAUTION, __version__
-from regionmap.errors import RegionmapError
+from regionmap.errors import InputError, RegionmapError
 
 __all__ = ["main", "build_parser"]
 
@@ -27,6 +27,61 @@ def _cmd_terrain(args: argparse.Namespace) -> int:
     written = write_terrain_layers(args.dem, args.out, settings, progress=not args.quiet)
     print(f"terrain layers written to {args.out}: {', '.join(Path(p).name for p in written)}")
     return 0
+
+
+_TABLE_COLUMNS = {
+    "zone": "zone",
+    "snow_depth_cm": "HS cm",
+    "new_snow_72h_cm": "HN72 cm",
+    "new_snow_72h_kg_m2": "HN72 kg/m2",
+    "depth_hoar_fraction": "DH frac",
+    "pwl_fraction": "PWL frac",
+    "crust_count_mean": "crusts",
+    "rain_crust_line_m": "rain crust m",
+}
+
+
+def print_outcome(outcome) -> None:
+    """The per-zone table, the rain-crust sentences, where the outputs are, the caution."""
+    zones = outcome.zones
+    cols = [c for c in _TABLE_COLUMNS if c in zones.columns]
+    view = zones[cols].rename(columns=_TABLE_COLUMNS)
+    kind = "forecast" if outcome.is_forecast else "analysis"
+    print(f"Snowpack structure at {outcome.map_time} UTC ({kind}), avalanche terrain, {outcome.n_cells} cells:")
+    print(view.to_string(index=False, float_format=lambda v: f"{v:.2f}", na_rep="-"))
+    if outcome.sentences:
+        print()
+        for line in outcome.sentences:
+            print(f"  {line}")
+    print(f"\nOutputs in {outcome.out_dir} ({outcome.seconds:.1f} s).")
+    print(f"Caution: {CAUTION}")
+
+
+def _cmd_run(args: argparse.Namespace) -> int:
+    from regionmap.config import load_config
+    from regionmap.runner import execute
+
+    cfg = load_config(args.config)
+    restarts = _restarts_from_args(args, cfg)
+    outcome = execute(cfg, out_dir=args.out, continue_from=args.continue_from, workers=args.workers,
+                      scheduler=args.scheduler, force=args.force, progress=not args.quiet, restarts=restarts)
+    print_outcome(outcome)
+    return 0
+
+
+def _restarts_from_args(args: argparse.Namespace, cfg) -> list:
+    """``[[restart]]`` entries of the config plus the one given on the command line."""
+    given = [args.restart, args.zone, args.band, args.aspect]
+    if any(v is not None for v in given) and not all(v is not None for v in given):
+        raise InputError("--restart needs --zone, --band and --aspect (and they need --restart)")
+    entries = list(cfg.restart)
+    if args.restart is not None:
+        from regionmap.config import RestartEntry, parse_band
+
+        parse_band(args.band)
+        entries.append(RestartEntry(profile=args.restart.resolve(), zone=args.zone, bands=[args.band],
+                                    aspects=[args.aspect]))
+    return entries
 
 
 def _cmd_demo(args: argparse.Namespace) -> int:
@@ -58,6 +113,26 @@ def build_parser() -> argparse.ArgumentParser:
     )
     p.add_argument("--out", type=Path, default=Path("regionmap-demo"), help="output folder (default: %(default)s)")
     p.set_defaults(func=_cmd_demo)
+
+    p = sub.add_parser(
+        "run",
+        help="run the whole chain for a config",
+        description="Downscale the forcing to every cell, run the snow column per cell in parallel, and "
+        "write cells.nc, profiles.nc, state.nc, zones.gpkg, maps/ and the report.",
+        epilog=f"Caution: {CAUTION}",
+    )
+    p.add_argument("config", type=Path, help="the run's TOML config")
+    p.add_argument("--out", type=Path, help="output folder (overrides [output] dir)")
+    p.add_argument("--continue-from", type=Path, metavar="STATE.nc", help="continue from an earlier run's state.nc")
+    p.add_argument("--restart", type=Path, metavar="PROFILE", help="observed profile (CAAML v6 XML or CSV) to restart cells from")
+    p.add_argument("--zone", help="zone of the restarted cells")
+    p.add_argument("--band", metavar="LOW-HIGH", help="elevation band of the restarted cells, in m (e.g. 2100-2400)")
+    p.add_argument("--aspect", help="aspect sector of the restarted cells (N, NE, ... or flat)")
+    group = p.add_mutually_exclusive_group()
+    group.add_argument("--workers", type=int, metavar="N", help="a local dask cluster of N processes")
+    group.add_argument("--scheduler", metavar="ADDRESS", help="an existing dask.distributed scheduler")
+    p.add_argument("--force", action="store_true", help="replace a non-empty folder that is not a regionmap output (it is kept aside, never deleted)")
+    p.set_defaults(func=_cmd_run)
 
     p = sub.add_parser(
         "terrain",

@@ -1,0 +1,197 @@
+"""From a run's ``cells.nc`` and ``profiles.nc`` to its products: summaries, layers of
+concern, the rain-crust line (with its perturbation ensemble), GIS layers and tables.
+
+Everything here couples cells (zones, bands, region-wide layers), so it runs once after all
+chunks have finished, in ``cell_id`` order.
+"""
+
+from __future__ import annotations
+
+import time as _time
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import xarray as xr
+
+from regionmap.config import Config
+from regionmap.io.atomic import atomic_path
+
+__all__ = ["Products", "write_products", "ENSEMBLE_MEMBERS"]
+
+#: Rain-crust ensemble: (air temperature offset at all heights [K], phase threshold offset [K]).
+ENSEMBLE_MEMBERS = ((1.0, 0.0), (-1.0, 0.0), (0.0, 0.5), (0.0, -0.5))
+#: Days simulated before and after an event by the ensemble members.
+_SPIN_BEFORE_H = 24
+_AFTER_H = 48
+#: Cells within this height of the control crust's elevation range join the ensemble [m].
+_ENSEMBLE_MARGIN_M = 400.0
+
+
+@dataclass
+class Products:
+    zones: pd.DataFrame
+    sentences: list[str]
+    ensemble_cost: dict = field(default_factory=dict)
+
+
+def _write_csv(path: Path, frame: pd.DataFrame) -> None:
+    with atomic_path(path) as tmp:
+        frame.to_csv(tmp, index=False)
+
+
+def _weights(region, cfg: Config) -> pd.DataFrame:
+    from regionmap.summaries import terrain_weights_km2
+
+    return terrain_weights_km2(region.cells.index, region.terrain.slope_deg, region.dem.pixel_area_m2(),
+                               len(region.cells.table), avalanche_terrain_deg=tuple(cfg.cells.avalanche_terrain_deg))
+
+
+def _member_presence(ctx, state0, event: pd.Series, control: np.ndarray, table: pd.DataFrame) -> tuple[np.ndarray, dict]:
+    """Crust presence of each ensemble member for one event: only cells near the control
+    crust's elevation range are re-simulated, only from a day before the event to two days
+    after it; elsewhere members keep the control's presence."""
+    from regionmap.rain_crust import rain_crust_presence
+    from regionmap.run import Period, _forcing_for, _perturbed, state_slice
+    from regionmap.downscale.pipeline import downscale_cells
+    from regionmap.snow.column import run_columns, snapshots_to_dataset
+
+    t0 = _time.perf_counter()
+    z = table["elevation_m"].to_numpy(float)
+    if not control.any():
+        return np.repeat(control[None, :], len(ENSEMBLE_MEMBERS), axis=0), {"cells": 0, "steps": 0, "seconds": 0.0}
+    lo_z, hi_z = z[control].min() - _ENSEMBLE_MARGIN_M, z[control].max() + _ENSEMBLE_MARGIN_M
+    cells = np.nonzero((z >= lo_z) & (z <= hi_z))[0]
+    p = ctx.period
+    times = p.times
+    first_ev = np.datetime64(event["first_time"], "s")
+    last_ev = np.datetime64(event["last_time"], "s")
+    start = max(p.first, int(np.searchsorted(times, first_ev - np.timedelta64(_SPIN_BEFORE_H * 3600, "s"))))
+    stop = min(p.stop, int(np.searchsorted(times, last_ev + np.timedelta64(_AFTER_H * 3600, "s"), side="right")))
+    gf = _forcing_for(ctx)
+    batch = ctx.batch.subset(cells)
+    # the control state at the start of the window, for these cells only
+    state = state_slice(state0, 0, state0.n_cells)
+    state = _subset_state(state, cells)
+    if start > p.first:
+        spin = downscale_cells(gf, batch, ctx.downscale, slice(p.first, start))
+        state, _, _ = run_columns(state, spin, ctx.snow, 1, with_snapshots=False, threads=2)
+    window = downscale_cells(gf, batch, ctx.downscale, slice(start, stop))
+    members = np.repeat(control[None, :], len(ENSEMBLE_MEMBERS), axis=0)
+    formed = (first_ev - np.timedelta64(3600, "s"), last_ev + np.timedelta64(_AFTER_H * 3600, "s"))
+    for m, (dt_k, dphase_k) in enumerate(ENSEMBLE_MEMBERS):
+        f = _perturbed(window, dt_k, dphase_k, ctx.downscale)
+        _, _, snaps = run_columns(state, f, ctx.snow, 1, None, threads=2)
+        ds = snapshots_to_dataset(snaps, batch.cell_id)
+        members[m, cells] = rain_crust_presence(ds, formed_between=formed)
+    cost = {"cells": int(cells.size), "steps": int(stop - p.first), "member_steps": int(stop - start),
+            "seconds": round(_time.perf_counter() - t0, 3)}
+    return members, cost
+
+
+def _subset_state(state, cells: np.ndarray):
+    from dataclasses import fields
+
+    from regionmap.snow.state import SnowState
+
+    n = state.n_cells
+    kw = {}
+    for f in fields(state):
+        v = getattr(state, f.name)
+        kw[f.name] = v[cells].copy() if isinstance(v, np.ndarray) and v.ndim >= 1 and v.shape[0] == n else v
+    return SnowState(**kw)
+
+
+def _rain_crust(out: Path, cfg: Config, region, ctx, state0, prof: xr.Dataset, table: pd.DataFrame,
+                weights: pd.DataFrame, map_time) -> tuple[pd.DataFrame, object, list[str], dict]:
+    """Limits, lines and sentences of every rain-on-snow event up to the map time."""
+    import geopandas as gpd
+
+    from regionmap.rain_crust import (
+        RainEvent,
+        rain_crust_lines,
+        rain_crust_limits,
+        rain_crust_presence,
+        rain_crust_sentence,
+        rain_events,
+        zone_rain_crust_columns,
+    )
+
+    events = rain_events(prof, day=map_time)
+    log = _event_windows(out)
+    w_all = weights["all_km2"].to_numpy()
+    by_aspect, by_zone, costs = [], [], []
+    for ev in events.itertuples():
+        control = rain_crust_presence(prof, day=map_time, event_id=int(ev.event_id))
+        window = log.get(int(ev.event_id))
+        members = None
+        if window is not None:
+            members, cost = _member_presence(ctx, state0, window, control, table)
+            costs.append({"event_id": int(ev.event_id), **cost})
+        event = RainEvent(int(ev.event_id), np.datetime64(ev.event_time, "s"), control, members)
+        by_aspect.append(rain_crust_limits(table, w_all, event, by=("zone", "aspect_sector")))
+        by_zone.append(rain_crust_limits(table, w_all, event, by=("zone",)))
+    if by_aspect:
+        limits = pd.concat(by_aspect, ignore_index=True)
+        zone_limits = pd.concat(by_zone, ignore_index=True)
+        sentences = rain_crust_sentence(limits)
+        regions = region.cells.polygons()[["zone", "aspect_sector", "geometry"]]
+        lines = rain_crust_lines(limits, region.dem.elevation_m, region.dem.transform, region.dem.crs, regions)
+    else:
+        limits = pd.DataFrame()
+        zone_limits = pd.DataFrame()
+        sentences = pd.Series(dtype=object)
+        lines = gpd.GeoDataFrame({"event_id": [], "zone": [], "elevation_m": []}, geometry=[], crs=region.dem.crs)
+    cols = zone_rain_crust_columns(zone_limits, sentences)
+    if not limits.empty:
+        _write_csv(out / "rain_crust_limits.csv", limits)
+    words = [f"{zone}: {text}" for (zone, _), text in sentences.items() if text]
+    cost = {"members": [list(m) for m in ENSEMBLE_MEMBERS], "events": costs,
+            "seconds": round(sum(c["seconds"] for c in costs), 3)}
+    return cols, lines, words, cost
+
+
+def _event_windows(out: Path) -> dict:
+    """Rain-on-snow windows per event id from the run's event log (``events.csv``)."""
+    path = out / "events.csv"
+    if not path.exists():
+        return {}
+    frame = pd.read_csv(path, parse_dates=["first_time", "last_time"])
+    frame = frame[frame["kind"] == "rain-on-snow"]
+    g = frame.groupby("event_id").agg(first_time=("first_time", "min"), last_time=("last_time", "max"))
+    return {int(k): row for k, row in g.iterrows()}
+
+
+def write_products(out: Path, cfg: Config, region, ctx, *, map_time, state0, is_forecast: bool,
+                   progress: bool = False) -> Products:
+    """Summaries, layers of concern, rain-crust line and GIS layers of a finished run."""
+    from regionmap.export import write_gis
+    from regionmap.summaries import layers_of_concern, summary_tables
+
+    table = region.cells.table.copy()
+    if "slope_class" not in table.columns:
+        table["slope_class"] = 0
+    weights = _weights(region, cfg)
+    with xr.open_dataset(out / "cells.nc") as diag, xr.open_dataset(out / "profiles.nc") as prof:
+        diag.load()
+        prof.load()
+    tz, hour = cfg.output.local_timezone, cfg.output.observation_hour
+    tables = summary_tables(diag, prof, table, weights, map_time=map_time, local_timezone=tz,
+                            observation_hour=hour, avalanche_terrain_deg=tuple(cfg.cells.avalanche_terrain_deg))
+    loc = layers_of_concern(diag, prof, table, weights["avalanche_km2"].to_numpy(), time=map_time,
+                            local_timezone=tz, observation_hour=hour)
+    rc_cols, lines, words, cost = _rain_crust(out, cfg, region, ctx, state0, prof, table, weights, map_time)
+    zones = tables.zones.merge(rc_cols, left_on="zone", right_index=True, how="left")
+    zones["valid_time"] = str(map_time)
+    zones["is_forecast"] = bool(is_forecast)
+    cells = tables.cells
+    maps = {name: cells[name].reindex(table.index).to_numpy() for name in
+            ("depth_hoar_fraction", "crust_count", "new_snow_72h_cm", "snow_depth_cm", "pwl_depth_cm")
+            if name in cells.columns}
+    write_gis(out, region.cells, region.zones, zones, cells, lines, loc, maps,
+              transform=region.dem.transform, crs=region.dem.crs, valid_time=map_time)
+    _write_csv(out / "band_aspect.csv", tables.band_aspect)
+    _write_csv(out / "daily.csv", tables.daily)
+    _write_csv(out / "snow_line.csv", tables.snow_line)
+    return Products(zones, words, cost)

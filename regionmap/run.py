@@ -1,0 +1,464 @@
+"""Orchestration of a regional run: chunks of cells through downscaling and the snow column.
+
+The static part (terrain, cells, interpolation weights) is prepared once in the client. Cells
+are then split into contiguous chunks in ``cell_id`` order; each chunk is one dask task that
+reads only the forcing grid points it needs, downscales, steps the column kernel through the
+analysis part and the forecast part of the period, and returns its diagnostics, daily layer
+snapshots, event log and the two states. The client writes each chunk into ``cells.nc`` and
+``profiles.nc`` as it arrives, so memory holds a few chunks at a time, not the region.
+
+Every cell is simulated independently of the others, so the results do not depend on the
+chunk size, on where a cell falls in a chunk, or on the scheduler.
+"""
+
+from __future__ import annotations
+
+import os
+import time as _time
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from regionmap.config import Config
+from regionmap.downscale.pipeline import CellBatch, downscale_cells, prepare_cells
+from regionmap.downscale.settings import DownscaleSettings
+from regionmap.downscale.types import CellForcing
+from regionmap.errors import GridMismatchError, InputError
+from regionmap.snow.column import run_columns
+from regionmap.snow.params import SnowParams
+from regionmap.snow.state import SnowState
+
+__all__ = [
+    "Region",
+    "RunContext",
+    "prepare_region",
+    "terrain_settings",
+    "cell_settings",
+    "downscale_settings",
+    "snow_params",
+    "open_grid_forcing",
+    "simulate_chunk",
+    "chunk_ranges",
+    "plan_period",
+]
+
+
+# --------------------------------------------------------------------------- settings
+def terrain_settings(cfg: Config):
+    from regionmap.terrain import TerrainSettings
+
+    t = cfg.terrain
+    return TerrainSettings(
+        n_azimuths=t.horizon_azimuths,
+        horizon_distance_m=t.horizon_distance_m,
+        exposure_directions=t.exposure_directions,
+        exposure_distance_m=t.exposure_distance_m,
+    )
+
+
+def cell_settings(cfg: Config):
+    from regionmap.cells import CellSettings
+
+    c = cfg.cells
+    return CellSettings(
+        band_edges_m=tuple(c.band_edges_m) if c.band_edges_m is not None else None,
+        band_step_m=c.effective_band_step_m,
+        aspect_sectors=c.aspect_sectors,
+        flat_below_deg=c.flat_below_deg,
+        slope_classes_deg=tuple(c.slope_classes_deg or ()),
+    )
+
+
+def _bias_dict(cfg: Config) -> dict:
+    """``[bias]`` entries that apply to every cell, in the downscaling's form."""
+    out = {}
+    for name in ("air_temperature", "relative_humidity", "wind_speed", "precipitation",
+                 "shortwave_down", "longwave_down"):
+        entries = getattr(cfg.bias, name)
+        for entry in entries:
+            if entry.exposure != "all":
+                continue
+            corr = {}
+            if entry.factor is not None:
+                corr["factor"] = entry.factor
+            if entry.offset is not None:
+                corr["offset"] = entry.offset
+            out[name] = corr
+    return out
+
+
+def downscale_settings(cfg: Config) -> DownscaleSettings:
+    from regionmap.downscale.quantile_mapping import read_qm_table
+
+    d = cfg.downscale
+    tables = read_qm_table(cfg.bias.quantile_mapping) if cfg.bias.quantile_mapping else []
+    return DownscaleSettings(
+        interpolation=d.interpolation,
+        lapse=d.lapse,
+        lapse_fixed_k_per_km=d.lapse_rate_k_per_km,
+        precip_chi_scale=d.precip_coefficient_scale,
+        precip_factor_bounds=tuple(d.precip_factor_bounds),
+        drift=d.drift,
+        phase=d.phase,
+        phase_threshold_c=d.phase_threshold_c,
+        longwave_clear_sky=d.longwave,
+        wind=d.wind,
+        bias=_bias_dict(cfg),
+        quantile_tables=tables,
+    )
+
+
+def snow_params(cfg: Config) -> SnowParams:
+    s = cfg.snow
+    return SnowParams(
+        max_layers=s.max_layers,
+        threshold_relative=s.threshold_mode == "relative",
+        depth_hoar_min_cm=s.depth_hoar_min_cm,
+    )
+
+
+# --------------------------------------------------------------------------- region
+@dataclass
+class Region:
+    """Static inputs of a run: DEM, zones, terrain and cells."""
+
+    dem: object
+    zones: object
+    terrain: object
+    cells: object
+    timings_s: dict = field(default_factory=dict)
+
+
+def prepare_region(cfg: Config, *, progress: bool = False) -> Region:
+    """Read the DEM and zones, compute terrain and cells."""
+    from regionmap.cells import build_cells
+    from regionmap.io.dem import read_dem
+    from regionmap.io.zones import read_zones
+    from regionmap.terrain import compute_terrain
+
+    timings = {}
+    t0 = _time.perf_counter()
+    dem = read_dem(cfg.region.dem)
+    zones = read_zones(cfg.region.zones, cfg.region.zone_field, dem, layer=cfg.region.zone_layer)
+    timings["read_region"] = _time.perf_counter() - t0
+    t0 = _time.perf_counter()
+    terrain = compute_terrain(dem, terrain_settings(cfg), progress=progress or None)
+    timings["terrain"] = _time.perf_counter() - t0
+    t0 = _time.perf_counter()
+    cells = build_cells(dem, terrain, zones, cell_settings(cfg))
+    timings["cells"] = _time.perf_counter() - t0
+    return Region(dem, zones, terrain, cells, timings)
+
+
+def open_grid_forcing(cfg: Config):
+    """Open the ``[forcing]`` files lazily."""
+    from regionmap.io.forcing import open_forcing
+
+    if cfg.forcing is None:
+        raise InputError(f"{cfg.source or 'config'}: a [forcing] section with path = ... is required for a run")
+    return open_forcing(cfg.forcing, base_dir=cfg.source.parent if cfg.source else None)
+
+
+# --------------------------------------------------------------------------- period
+@dataclass(frozen=True)
+class Period:
+    """The hours a run simulates, as indices into the forcing's hourly axis.
+
+    ``first`` is the first simulated step; ``split`` the first forecast step (== ``stop`` when
+    there is no forecast part); ``stop`` one past the last step.
+    """
+
+    first: int
+    split: int
+    stop: int
+    times: np.ndarray
+
+    @property
+    def analysis_end(self) -> np.datetime64:
+        return self.times[self.split - 1]
+
+    @property
+    def has_forecast(self) -> bool:
+        return self.split < self.stop
+
+
+def plan_period(forcing_time: np.ndarray, *, state_time=None, analysis_time=None,
+                diag_every_h: int = 1, where: str = "forcing") -> Period:
+    """Which forcing hours to simulate, from the state's time and the analysis time.
+
+    Parameters
+    ----------
+    forcing_time : (time,) datetime64 hourly interval ends.
+    state_time : datetime64 or None — the valid time of a state to continue from; its next
+        hour must be in the forcing (earlier steps are skipped), otherwise a gap is an error.
+    analysis_time : datetime64 or None — later forcing is forecast.
+    diag_every_h : diagnostics interval; both parts must hold whole intervals.
+
+    Raises
+    ------
+    InputError
+        A gap between the state and the forcing, a state past the forcing's end, or parts
+        that are not whole diagnostics intervals.
+    """
+    t = np.asarray(forcing_time, dtype="datetime64[s]")
+    first = 0
+    if state_time is not None:
+        next_hour = np.datetime64(state_time, "s") + np.timedelta64(3600, "s")
+        if next_hour < t[0]:
+            raise InputError(
+                f"{where}: the state is valid at {np.datetime64(state_time, 's')} but the forcing "
+                f"starts at {t[0]}: a gap of {(t[0] - next_hour).astype(int) // 3600} h. "
+                "Hint: give forcing that starts at or before the state's next hour."
+            )
+        found = np.nonzero(t == next_hour)[0]
+        if found.size == 0:
+            raise InputError(
+                f"{where}: the state is valid at {np.datetime64(state_time, 's')}, but the forcing "
+                f"({t[0]} to {t[-1]}) has no step ending at {next_hour}"
+            )
+        first = int(found[0])
+    stop = t.size
+    split = stop
+    if analysis_time is not None:
+        a = np.datetime64(analysis_time, "s")
+        split = int(np.searchsorted(t, a, side="right"))
+        split = min(max(split, first), stop)
+    for name, n in (("analysis", split - first), ("forecast", stop - split)):
+        if n % diag_every_h:
+            raise InputError(
+                f"{where}: the {name} part has {n} hourly steps, not a whole number of "
+                f"[output] diagnostics_every = {diag_every_h} h intervals. Hint: align the "
+                "start, end and analysis_time with the diagnostics interval."
+            )
+    if split - first <= 0 and stop - split <= 0:
+        raise InputError(f"{where}: no forcing steps to simulate after the state's time")
+    return Period(first, split, stop, t)
+
+
+def chunk_ranges(n_cells: int, chunk_size: int) -> list[tuple[int, int]]:
+    """Contiguous [lo, hi) cell-position ranges of at most ``chunk_size`` cells."""
+    edges = list(range(0, n_cells, max(int(chunk_size), 1))) + [n_cells]
+    return list(zip(edges[:-1], edges[1:]))
+
+
+# --------------------------------------------------------------------------- chunk task
+@dataclass
+class RunContext:
+    """Everything a chunk task needs (picklable; the forcing is reopened in remote workers).
+
+    Attributes
+    ----------
+    cfg : the validated config (to reopen the forcing in worker processes).
+    batch : CellBatch of all cells with their interpolation weights.
+    downscale : DownscaleSettings.
+    snow : SnowParams.
+    period : Period.
+    diag_every_h : diagnostics interval [h].
+    snapshot_hour_utc : hour (UTC) of the daily layer snapshots.
+    kernel_threads : threads the column kernel uses inside one task.
+    perturbation : (temperature offset [K], phase-threshold offset [K]) for ensemble members.
+    """
+
+    cfg: Config
+    batch: CellBatch
+    downscale: DownscaleSettings
+    snow: SnowParams
+    period: Period
+    diag_every_h: int
+    snapshot_hour_utc: int
+    kernel_threads: int = 1
+    perturbation: tuple[float, float] = (0.0, 0.0)
+
+
+_FORCING_CACHE: dict = {}
+
+
+def _forcing_for(ctx: RunContext):
+    """The grid forcing, opened once per process."""
+    key = (str(ctx.cfg.source), repr(ctx.cfg.forcing))
+    gf = _FORCING_CACHE.get(key)
+    if gf is None:
+        gf = open_grid_forcing(ctx.cfg)
+        _FORCING_CACHE.clear()
+        _FORCING_CACHE[key] = gf
+    return gf
+
+
+def register_forcing(ctx: RunContext, gf) -> None:
+    """Let tasks in this process use an already opened forcing."""
+    _FORCING_CACHE.clear()
+    _FORCING_CACHE[(str(ctx.cfg.source), repr(ctx.cfg.forcing))] = gf
+
+
+def _snow_fraction(t_air_k, rh_frac, pressure_pa, settings: DownscaleSettings) -> np.ndarray:
+    """The configured phase method (as in the downscaling pipeline)."""
+    from regionmap.downscale import phase, thermo
+
+    if settings.phase == "jennings2018":
+        return phase.snow_fraction_jennings2018(t_air_k, rh_frac)
+    threshold_k = 273.15 + settings.phase_threshold_c
+    if settings.phase == "wet_bulb":
+        tw = thermo.wet_bulb_temperature_normand(t_air_k, rh_frac, pressure_pa)
+        return phase.snow_fraction_wet_bulb_threshold(tw, threshold_k=threshold_k,
+                                                      half_width_k=settings.phase_half_width_k)
+    return phase.snow_fraction_air_temperature_threshold(t_air_k, threshold_k=threshold_k,
+                                                         half_width_k=settings.phase_half_width_k)
+
+
+def _perturbed(forcing: CellForcing, dt_k: float, dphase_k: float, settings: DownscaleSettings) -> CellForcing:
+    """Forcing of an ensemble member: air temperature shifted by ``dt_k`` at all heights and
+    the snow fraction recomputed with the phase threshold raised by ``dphase_k`` (the phase
+    curve evaluated at ``T - dphase_k``). Freezing-rain hours keep their phase."""
+    if dt_k == 0.0 and dphase_k == 0.0:
+        return forcing
+    t = forcing.t_air_k + dt_k
+    sf = _snow_fraction(t - dphase_k, forcing.rh_frac, forcing.pressure_pa, settings)
+    fz = forcing.freezing_rain_frac
+    out = forcing.subset()
+    out.t_air_k = t
+    out.snow_frac = np.ascontiguousarray(np.where(fz > 0, forcing.snow_frac, sf))
+    return out
+
+
+def _concat_parts(parts: list[dict]) -> dict:
+    if len(parts) == 1:
+        return parts[0]
+    out = {}
+    for key in parts[0]:
+        a = parts[0][key]
+        if isinstance(a, np.ndarray) and a.ndim >= 2:
+            out[key] = np.concatenate([p[key] for p in parts], axis=1)
+        elif isinstance(a, np.ndarray) and key in ("time",):
+            out[key] = np.concatenate([p[key] for p in parts])
+        elif isinstance(a, np.ndarray) and key.startswith("event_"):
+            out[key] = np.concatenate([p[key] for p in parts])
+        elif key == "status":
+            out[key] = np.bitwise_or.reduce([p[key] for p in parts])
+        else:
+            out[key] = a
+    return out
+
+
+def simulate_chunk(ctx: RunContext, lo: int, hi: int, state: SnowState, *, with_snapshots: bool = True) -> dict:
+    """Downscale and simulate cells ``lo:hi`` (positions) over the run's period.
+
+    Returns
+    -------
+    dict with ``lo``, ``hi``, ``diagnostics`` and ``snapshots`` (both parts joined along
+    time), ``state_analysis`` and ``state_end`` (SnowState), ``forcing_summary`` (sums for
+    run.json) and ``seconds`` (downscale, column).
+    """
+    gf = _forcing_for(ctx)
+    batch = ctx.batch.subset(np.arange(lo, hi))
+    p = ctx.period
+    t0 = _time.perf_counter()
+    forcing = downscale_cells(gf, batch, ctx.downscale, slice(p.first, p.stop))
+    forcing = _perturbed(forcing, *ctx.perturbation, ctx.downscale)
+    t_down = _time.perf_counter() - t0
+    n_an = p.split - p.first
+    t0 = _time.perf_counter()
+    diags, snaps = [], []
+    state_an = state
+    if n_an > 0:
+        state_an, d, s = run_columns(state, forcing.subset(steps=slice(0, n_an)), ctx.snow, ctx.diag_every_h,
+                                     ctx.snapshot_hour_utc, with_snapshots=with_snapshots,
+                                     threads=ctx.kernel_threads)
+        diags.append(d)
+        snaps.append(s)
+    state_end = state_an
+    if p.has_forecast:
+        state_end, d, s = run_columns(state_an, forcing.subset(steps=slice(n_an, None)), ctx.snow,
+                                      ctx.diag_every_h, ctx.snapshot_hour_utc, with_snapshots=with_snapshots,
+                                      threads=ctx.kernel_threads)
+        diags.append(d)
+        snaps.append(s)
+    t_col = _time.perf_counter() - t0
+    summary = {
+        "precip_kg_m2": float(forcing.precip_kg_m2.sum()),
+        "snowfall_kg_m2": float((forcing.precip_kg_m2 * forcing.snow_frac).sum()),
+        "freezing_rain_kg_m2": float((forcing.precip_kg_m2 * forcing.freezing_rain_frac).sum()),
+    }
+    return {
+        "lo": lo,
+        "hi": hi,
+        "diagnostics": _concat_parts(diags),
+        "snapshots": _concat_parts(snaps) if with_snapshots else None,
+        "state_analysis": state_an,
+        "state_end": state_end,
+        "forcing_summary": summary,
+        "seconds": {"downscale": t_down, "column": t_col},
+    }
+
+
+def check_state_matches(state: SnowState, batch: CellBatch, params: SnowParams, where: str) -> None:
+    """A continuation state must hold the same cells and settings as this run.
+
+    Raises
+    ------
+    GridMismatchError
+        Different cell ids (another region, zones or [cells] settings).
+    InputError
+        Different snow settings fingerprint.
+    """
+    ids = np.asarray(state.cell_id)
+    if ids.shape != batch.cell_id.shape or not np.array_equal(ids, batch.cell_id):
+        raise GridMismatchError(
+            f"{where}: the state holds {ids.size} cells but this run has {batch.cell_id.size}"
+            " (or different cell ids): it comes from another region, zones or [cells] settings"
+        )
+    if state.fingerprint and state.fingerprint != params.fingerprint():
+        raise InputError(
+            f"{where}: the state was made with other [snow] settings (fingerprint "
+            f"{state.fingerprint}, this run {params.fingerprint()}); continue with the same settings"
+        )
+
+
+def state_slice(state: SnowState, lo: int, hi: int) -> SnowState:
+    """Cells ``lo:hi`` of a state."""
+    from dataclasses import fields
+
+    n = state.n_cells
+    kw = {}
+    for f in fields(state):
+        v = getattr(state, f.name)
+        kw[f.name] = v[lo:hi].copy() if isinstance(v, np.ndarray) and v.ndim >= 1 and v.shape[0] == n else v
+    return SnowState(**kw)
+
+
+def state_put(dst: SnowState, src: SnowState, lo: int, hi: int) -> None:
+    """Write a chunk's state into the region's state at positions ``lo:hi``."""
+    from dataclasses import fields
+
+    n = dst.n_cells
+    for f in fields(dst):
+        v = getattr(dst, f.name)
+        if isinstance(v, np.ndarray) and v.ndim >= 1 and v.shape[0] == n:
+            v[lo:hi] = getattr(src, f.name)
+    dst.time = src.time
+    dst.fingerprint = src.fingerprint
+
+
+def initial_state(batch: CellBatch, params: SnowParams, period: Period) -> SnowState:
+    """Snow-free cells valid one hour before the first simulated step."""
+    t0 = period.times[period.first] - np.timedelta64(3600, "s")
+    state = SnowState.empty(batch.n_cells, params.max_layers, time=t0, cell_id=batch.cell_id)
+    state.fingerprint = params.fingerprint()
+    return state
+
+
+def prepare_batch(region: Region, gf, cfg: Config) -> tuple[CellBatch, DownscaleSettings]:
+    """Interpolation weights of every cell (built once, in the client)."""
+    settings = downscale_settings(cfg)
+    table = region.cells.table
+    gf.check_covers(table["lon"].to_numpy(float), table["lat"].to_numpy(float))
+    return prepare_cells(region.cells, gf, settings), settings
+
+
+def cells_frame(region: Region) -> pd.DataFrame:
+    """The cell table with the ``slope_class`` column the outputs need."""
+    t = region.cells.table.copy()
+    if "slope_class" not in t.columns:
+        t["slope_class"] = 0
+    return t

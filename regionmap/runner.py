@@ -1,0 +1,390 @@
+"""The whole chain for one config: region, forcing, chunks through dask, outputs, run record.
+
+``execute`` is what ``regionmap run`` and ``regionmap demo`` call. Outputs go into a
+temporary folder beside the target that replaces the old output folder only when complete
+(:class:`regionmap.io.outdir.OutputFolder`).
+"""
+
+from __future__ import annotations
+
+import contextlib
+import datetime as dt
+import hashlib
+import json
+import os
+import platform
+import time as _time
+from dataclasses import dataclass
+from importlib import metadata
+from pathlib import Path
+
+import numpy as np
+
+from regionmap import CAUTION, __version__
+from regionmap.config import Config
+from regionmap.errors import InputError
+from regionmap.io.atomic import atomic_write_text
+from regionmap.io.results import CellsNcWriter, ProfilesNcWriter
+from regionmap.run import (
+    RunContext,
+    cells_frame,
+    check_state_matches,
+    chunk_ranges,
+    initial_state,
+    open_grid_forcing,
+    plan_period,
+    prepare_batch,
+    prepare_region,
+    register_forcing,
+    simulate_chunk,
+    snow_params,
+    state_put,
+    state_slice,
+)
+from regionmap.snow.state import SnowState
+
+__all__ = ["RunOutcome", "execute", "dask_client", "LAYER_VARS"]
+
+#: profiles.nc layer variables (DESIGN §3 state.nc layer names plus formation_time).
+LAYER_VARS = {
+    "thickness_m": ("f4", {"units": "m", "long_name": "layer thickness (vertical)"}),
+    "ice_kg_m2": ("f4", {"units": "kg m-2", "long_name": "ice mass of the layer"}),
+    "liquid_kg_m2": ("f4", {"units": "kg m-2", "long_name": "liquid water in the layer"}),
+    "temperature_k": ("f4", {"units": "K", "long_name": "layer temperature"}),
+    "grain_size_mm": ("f4", {"units": "mm", "long_name": "grain size"}),
+    "hardness_index": ("f4", {"units": "1", "long_name": "hand hardness index (F=1, 4F=2, 1F=3, P=4, K=5, I=6)"}),
+    "grain_class": ("str", {"long_name": "grain class (International Classification for Seasonal Snow on the Ground codes)"}),
+    "crust_kind": ("str", {"long_name": "crust kind: none, melt-freeze, sun, rain, glaze"}),
+    "deposition_time": ("i8", {"units": "seconds since 1970-01-01", "long_name": "deposition time of the layer's snow"}),
+    "formation_time": ("i8", {"units": "seconds since 1970-01-01", "long_name": "when the layer became what it is (burial of SH, refreeze of a crust, else deposition)"}),
+    "event_id": ("i8", {"units": "hours since 1970-01-01", "long_name": "start hour of the precipitation event that made the layer or its crust"}),
+}
+
+_VERSIONS = ("numpy", "numba", "xarray", "dask", "distributed", "netCDF4", "rasterio", "geopandas",
+             "pyproj", "shapely", "pandas", "scipy", "matplotlib")
+
+
+@dataclass
+class RunOutcome:
+    """What a finished run reports back to the CLI."""
+
+    out_dir: Path
+    zones: object  # DataFrame: the zones table at the map time
+    sentences: list[str]
+    map_time: np.datetime64
+    is_forecast: bool
+    n_cells: int
+    seconds: float
+
+
+@contextlib.contextmanager
+def dask_client(workers: int | None = None, scheduler: str | None = None):
+    """A dask.distributed client: in-process threads by default, ``workers`` local processes
+    on loopback, or an existing cluster at ``scheduler``."""
+    from distributed import Client, LocalCluster
+
+    if scheduler:
+        try:
+            client = Client(scheduler, timeout="20s")
+        except OSError as exc:
+            raise InputError(f"--scheduler {scheduler}: cannot connect to a dask scheduler there ({exc})") from None
+        with client:
+            yield client
+        return
+    if workers:
+        cluster = LocalCluster(n_workers=int(workers), threads_per_worker=1, processes=True,
+                               host="127.0.0.1", dashboard_address=None, silence_logs=40)
+    else:
+        cluster = LocalCluster(n_workers=1, threads_per_worker=max(1, os.cpu_count() or 1), processes=False,
+                               dashboard_address=None, silence_logs=40)
+    with cluster, Client(cluster) as client:
+        yield client
+
+
+def _sha256(path: Path) -> str:
+    h = hashlib.sha256()
+    with open(path, "rb") as fh:
+        for block in iter(lambda: fh.read(1 << 20), b""):
+            h.update(block)
+    return h.hexdigest()
+
+
+def _versions() -> dict:
+    out = {"regionmap": __version__, "python": platform.python_version()}
+    for name in _VERSIONS:
+        with contextlib.suppress(metadata.PackageNotFoundError):
+            out[name] = metadata.version(name)
+    return out
+
+
+def _map_time(cfg: Config, out_times: np.ndarray, period) -> np.datetime64:
+    """The map time: ``[output] map_time``, else the analysis time, else the run's end."""
+    if cfg.output.map_time is not None:
+        want = np.datetime64(cfg.output.map_time.replace(tzinfo=None), "s")
+    elif cfg.forcing.analysis_time is not None and period.has_forecast:
+        want = period.analysis_end
+    else:
+        want = out_times[-1]
+    if want not in out_times:
+        raise InputError(
+            f"{cfg.source or 'config'}: [output] map_time {want} is not an output time of this run "
+            f"({out_times[0]} to {out_times[-1]}, every {cfg.output.diagnostics_every})"
+        )
+    return want
+
+
+def _warm_kernels(params) -> None:
+    """Compile (or load from the numba cache) the column kernel once in the client."""
+    from regionmap.downscale.types import CellForcing
+    from regionmap.snow.column import run_columns
+
+    n = 2
+    t = np.datetime64("2000-01-01T01:00", "s") + np.arange(n) * np.timedelta64(3600, "s")
+    z = np.zeros((1, n))
+    f = CellForcing(time=t, t_air_k=z + 268.0, rh_frac=z + 0.8, pressure_pa=z + 8e4, wind_m_s=z + 2,
+                    sw_in_w_m2=z, lw_in_w_m2=z + 250, precip_kg_m2=z + 1, snow_frac=z + 1,
+                    freezing_rain_frac=z)
+    run_columns(SnowState.empty(1, params.max_layers, time=t[0] - np.timedelta64(3600, "s")), f, params, 1,
+                threads=1)
+
+
+def execute(cfg: Config, *, out_dir: Path | None = None, continue_from: Path | None = None,
+            workers: int | None = None, scheduler: str | None = None, force: bool = False,
+            progress: bool = True, restarts=()) -> RunOutcome:
+    """Run the chain for ``cfg`` and write every output of DESIGN §3.
+
+    Parameters
+    ----------
+    cfg : validated config.
+    out_dir : overrides ``[output] dir``.
+    continue_from : a ``state.nc`` of an earlier run of the same region and settings.
+    workers, scheduler : dask set-up (see :func:`dask_client`).
+    force : allow replacing a non-empty folder that is not a regionmap output.
+    progress : show a progress bar.
+    restarts : observed-profile restarts (see :mod:`regionmap.restart`).
+    """
+    from tqdm.auto import tqdm
+
+    from regionmap.io.outdir import OutputFolder
+    from regionmap.products import write_products
+
+    t_all = _time.perf_counter()
+    timings: dict = {}
+    target = Path(out_dir or cfg.output.dir)
+    region = prepare_region(cfg, progress=False)
+    timings.update(region.timings_s)
+    t0 = _time.perf_counter()
+    gf = open_grid_forcing(cfg)
+    batch, dsettings = prepare_batch(region, gf, cfg)
+    timings["forcing_open_and_weights"] = _time.perf_counter() - t0
+    params = snow_params(cfg)
+    diag_every = cfg.output.diagnostics_every_h
+
+    state0 = None
+    if continue_from is not None:
+        state0 = SnowState.load(continue_from)
+        check_state_matches(state0, batch, params, str(continue_from))
+    period = plan_period(gf.time, state_time=None if state0 is None else state0.time,
+                         analysis_time=cfg.forcing.analysis_time.replace(tzinfo=None) if cfg.forcing.analysis_time else None,
+                         diag_every_h=diag_every, where=str(cfg.forcing.path))
+    if state0 is None:
+        state0 = initial_state(batch, params, period)
+    restart_record = []
+    if restarts:
+        from regionmap.restart import apply_restarts
+
+        state0, restart_record = apply_restarts(state0, restarts, cells_frame(region), period)
+
+    sim_times = period.times[period.first:period.stop]
+    out_times = sim_times[diag_every - 1::diag_every]
+    map_time = _map_time(cfg, out_times, period)
+    snapshot_hour = int((map_time.astype("datetime64[h]").astype(np.int64)) % 24)
+    chunks = chunk_ranges(batch.n_cells, cfg.run.chunk_size)
+    n_par = max(1, workers or (os.cpu_count() or 1))
+    ctx = RunContext(cfg=cfg, batch=batch, downscale=dsettings, snow=params, period=period,
+                     diag_every_h=diag_every, snapshot_hour_utc=snapshot_hour,
+                     kernel_threads=max(1, n_par // max(1, min(len(chunks), n_par))) if not (workers or scheduler) else 1)
+    register_forcing(ctx, gf)
+    t0 = _time.perf_counter()
+    _warm_kernels(params)
+    timings["kernel_warm"] = _time.perf_counter() - t0
+
+    table = cells_frame(region)
+    is_fc = out_times > period.analysis_end if period.has_forecast else np.zeros(out_times.size, bool)
+    interval_start = out_times - np.timedelta64(3600 * diag_every, "s")
+    state_an = state0.copy()
+    state_end = state0.copy()
+    events: list[dict] = []
+    forcing_sums = {"precip_kg_m2": 0.0, "snowfall_kg_m2": 0.0, "freezing_rain_kg_m2": 0.0}
+    task_seconds = {"downscale": 0.0, "column": 0.0}
+    status_bits = 0
+
+    with OutputFolder(target, force=force) as folder:
+        out = folder.path
+        cells_w = CellsNcWriter(out / "cells.nc", table, out_times, interval_start, is_fc,
+                                global_attrs={"map_time": str(map_time)})
+        prof_w = None
+        try:
+            t0 = _time.perf_counter()
+            with dask_client(workers, scheduler) as client:
+                ctx_f = client.scatter(ctx, broadcast=True) if (workers or scheduler) else ctx
+                futures = [client.submit(simulate_chunk, ctx_f, lo, hi, state_slice(state0, lo, hi),
+                                         pure=False, key=f"chunk-{lo}-{hi}") for lo, hi in chunks]
+                from distributed import as_completed
+
+                bar = tqdm(total=len(futures), desc="cell chunks", unit="chunk", disable=not progress)
+                for fut in as_completed(futures):
+                    res = fut.result()
+                    lo, hi = res["lo"], res["hi"]
+                    cells_w.write_chunk(np.arange(lo, hi), res["diagnostics"])
+                    snaps = res["snapshots"]
+                    if prof_w is None:
+                        prof_w = ProfilesNcWriter(out / "profiles.nc", table.index.to_numpy(), snaps["time"],
+                                                  params.max_layers, LAYER_VARS)
+                    prof_w.write_chunk(np.arange(lo, hi), snaps["layer_count"], _profile_fields(snaps))
+                    state_put(state_an, res["state_analysis"], lo, hi)
+                    state_put(state_end, res["state_end"], lo, hi)
+                    events.append(_events_of(res["diagnostics"], lo))
+                    for k in forcing_sums:
+                        forcing_sums[k] += res["forcing_summary"][k]
+                    for k in task_seconds:
+                        task_seconds[k] += res["seconds"][k]
+                    status_bits |= int(np.bitwise_or.reduce(res["diagnostics"]["status"]))
+                    bar.update(1)
+                    fut.release()
+                bar.close()
+            timings["simulate"] = _time.perf_counter() - t0
+            cells_w.close()
+            prof_w.close()
+        except BaseException:
+            cells_w.abort()
+            if prof_w is not None:
+                prof_w.abort()
+            raise
+        _write_event_log(out / "events.csv", events, table)
+        state_an.save(out / "state.nc")
+        state_end.save(out / "state_end.nc")
+        t0 = _time.perf_counter()
+        products = write_products(out, cfg, region, ctx, map_time=map_time, state0=state0,
+                                  is_forecast=bool(map_time > period.analysis_end) if period.has_forecast else False,
+                                  progress=progress)
+        timings["products"] = _time.perf_counter() - t0
+        timings["task_downscale_cpu"] = task_seconds["downscale"]
+        timings["task_column_cpu"] = task_seconds["column"]
+        timings["total"] = _time.perf_counter() - t_all
+        record = _run_record(cfg, region, gf, dsettings, params, period, map_time, timings, forcing_sums,
+                             events, status_bits, continue_from, restart_record, products.ensemble_cost,
+                             workers=workers, scheduler=scheduler, chunks=len(chunks))
+        atomic_write_text(out / "run.json", json.dumps(record, indent=2, default=str))
+        with contextlib.suppress(ImportError):
+            from regionmap.report import write_report
+
+            write_report(out)
+    return RunOutcome(target, products.zones, products.sentences, map_time,
+                      bool(period.has_forecast and map_time > period.analysis_end), batch.n_cells,
+                      _time.perf_counter() - t_all)
+
+
+def _profile_fields(snaps: dict) -> dict:
+    """Snapshot arrays in profiles.nc form (codes as strings, unused slots empty)."""
+    from regionmap.snow.codes import crust_codes_to_strings, grain_codes_to_strings
+
+    used = np.arange(snaps["thickness_m"].shape[2])[None, None, :] < snaps["layer_count"][:, :, None]
+    out = {k: snaps[k] for k in ("thickness_m", "ice_kg_m2", "liquid_kg_m2", "temperature_k", "grain_size_mm",
+                                 "hardness_index", "deposition_time", "formation_time", "event_id")}
+    out["grain_class"] = np.where(used, grain_codes_to_strings(snaps["grain_code"]), "")
+    out["crust_kind"] = np.where(used, crust_codes_to_strings(snaps["crust_code"]), "")
+    return out
+
+
+def _events_of(diag: dict, lo: int) -> dict:
+    return {
+        "kind": diag["event_kind"],
+        "event_id": diag["event_id"],
+        "cell": diag["event_cell"] + lo,
+        "first_time": diag["event_first_time"],
+        "last_time": diag["event_last_time"],
+        "amount_kg_m2": diag["event_amount_kg_m2"],
+    }
+
+
+def _event_frame(events: list[dict], table=None):
+    import pandas as pd
+
+    cols = ["kind", "event_id", "cell", "first_time", "last_time", "amount_kg_m2"]
+    if not events:
+        return pd.DataFrame(columns=cols)
+    frame = pd.DataFrame({k: np.concatenate([e[k] for e in events]) for k in cols})
+    if table is not None and not frame.empty:
+        frame["cell_id"] = table.index.to_numpy()[frame["cell"].to_numpy(int)]
+        for col in ("zone", "band_lower_m", "band_upper_m", "aspect_sector"):
+            frame[col] = table[col].to_numpy()[frame["cell"].to_numpy(int)]
+    return frame
+
+
+def _write_event_log(path: Path, events: list[dict], table) -> None:
+    """``events.csv``: one row per rain-on-snow or freezing-rain event and cell."""
+    from regionmap.io.atomic import atomic_path
+
+    frame = _event_frame(events, table).sort_values(["first_time", "cell"], kind="stable")
+    with atomic_path(path) as tmp:
+        frame.drop(columns="cell").to_csv(tmp, index=False)
+
+
+def _event_log(events: list[dict]) -> list[dict]:
+    """Region-wide event list: one row per (kind, event id) with cells and amounts."""
+    frame = _event_frame(events)
+    if frame.empty:
+        return []
+    g = frame.groupby(["kind", "event_id"])
+    out = g.agg(first_time=("first_time", "min"), last_time=("last_time", "max"), cells=("cell", "nunique"),
+                mean_amount_kg_m2=("amount_kg_m2", "mean"), max_amount_kg_m2=("amount_kg_m2", "max")).reset_index()
+    return json.loads(out.to_json(orient="records", date_format="iso"))
+
+
+def _run_record(cfg, region, gf, dsettings, params, period, map_time, timings, forcing_sums, events, status_bits,
+                continue_from, restart_record, ensemble_cost, *, workers, scheduler, chunks) -> dict:
+    from regionmap.downscale.pipeline import downscale_record
+
+    inputs = {"dem": cfg.region.dem, "zones": cfg.region.zones, **{f"forcing[{i}]": p for i, p in enumerate(gf.paths)}}
+    if continue_from is not None:
+        inputs["continue_from"] = continue_from
+    checksums = {k: {"path": str(p), "sha256": _sha256(Path(p))} for k, p in inputs.items() if Path(p).is_file()}
+    settings_text = json.dumps(cfg.model_dump(mode="json", exclude={"output"}), sort_keys=True)
+    return {
+        "regionmap": __version__,
+        "caution": CAUTION,
+        "created_utc": dt.datetime.now(dt.timezone.utc).isoformat(timespec="seconds"),
+        "config_file": str(cfg.source) if cfg.source else None,
+        "config": cfg.model_dump(mode="json"),
+        "versions": _versions(),
+        "inputs": checksums,
+        "cell_count": int(len(region.cells.table)),
+        "small_cells": int(region.cells.table["small"].sum()) if "small" in region.cells.table else 0,
+        "period": {
+            "first_step": str(period.times[period.first]),
+            "last_step": str(period.times[period.stop - 1]),
+            "analysis_end": str(period.analysis_end),
+            "has_forecast": bool(period.has_forecast),
+            "map_time": str(map_time),
+            "continued_from": str(continue_from) if continue_from else None,
+        },
+        "forcing": {
+            "counts": {k: (int(v) if isinstance(v, (int, np.integer)) else v) for k, v in gf.counts.items()},
+            "heights_m": gf.heights_m,
+            "heights_source": gf.heights_source,
+            "downscaling": downscale_record(gf, dsettings),
+            "cell_totals_kg_m2": forcing_sums,
+        },
+        "snow": {"params": {k: (v if not isinstance(v, float) else float(v)) for k, v in params.__dict__.items()},
+                 "kernel_status_bits": status_bits},
+        "events": _event_log(events),
+        "restarts": restart_record,
+        "rain_crust_ensemble": ensemble_cost,
+        "settings_fingerprint": hashlib.sha256(settings_text.encode()).hexdigest()[:16],
+        "snow_fingerprint": params.fingerprint(),
+        "scheduler": {"kind": "cluster" if scheduler else ("processes" if workers else "threads"),
+                      "workers": workers, "address": scheduler, "chunks": chunks,
+                      "chunk_size": cfg.run.chunk_size},
+        "timings_s": {k: round(float(v), 3) for k, v in timings.items()},
+    }
