@@ -112,13 +112,15 @@ def run(n_cells: int, chunk: int, with_lw: bool) -> dict:
         cf = downscale_cells(grid, b, settings)
         return float(cf.sw_in_w_m2.mean())
 
+    cpu0 = time.process_time()
     t0 = time.perf_counter()
     with ThreadPoolExecutor(max_workers=2) as pool:
         list(pool.map(one, batches))
     wall = time.perf_counter() - t0
+    cpu = time.process_time() - cpu0
     rss1 = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
     return {"n_cells": n_cells, "chunk": chunk, "hours": N_T, "longwave_in_forcing": with_lw,
-            "wall_s": round(wall, 2), "peak_rss_mb": round(rss1 / 1024, 1),
+            "wall_s": round(wall, 2), "cpu_s": round(cpu, 2), "peak_rss_mb": round(rss1 / 1024, 1),
             "rss_before_run_mb": round(rss0 / 1024, 1)}
 
 
