@@ -21,7 +21,11 @@ import numpy as np
 from numba import njit
 
 from regionmap.snow.compaction import compaction_strain_rate
-from regionmap.snow.conduction import snow_conductivity, solve_tridiagonal
+from regionmap.snow.conduction import (
+    conduction_step_backward_euler,
+    snow_conductivity,
+    soil_heat_capacity,
+)
 from regionmap.snow.constants import (
     C_ICE_J_KG_K,
     C_WATER_J_KG_K,
@@ -113,7 +117,9 @@ from regionmap.snow.params import (
     P_SH_WIND_MAX_M_S,
     P_SNOW_EVENT_GAP_H,
     P_SOIL_CONDUCTIVITY_W_M_K,
+    P_SOIL_FREEZING_RANGE_K,
     P_SOIL_HEAT_CAPACITY_J_M3_K,
+    P_SOIL_WATER_KG_M3,
     P_STABLE_FLOOR_FRAC,
     P_SW_SURFACE_FRAC,
     P_WIND_MIN_M_S,
@@ -307,8 +313,9 @@ def _energy_and_conduction(fw, n, sv, ta, q_air, pres, wind, sw_in, lw_in, dt, z
     for i in range(ns):
         dzn[i] = _SOIL_DZ[i]
         kn[i] = ks
-        cn[i] = p[P_SOIL_HEAT_CAPACITY_J_M3_K] * _SOIL_DZ[i]
         tn[i] = sv[V_SOIL + i]
+        cn[i] = soil_heat_capacity(tn[i], _SOIL_DZ[i], p[P_SOIL_HEAT_CAPACITY_J_M3_K],
+                                   p[P_SOIL_WATER_KG_M3], p[P_SOIL_FREEZING_RANGE_K])
         sn[i] = 0.0
     model_k = int(p[P_CONDUCTIVITY_MODEL])
     for l in range(n):
@@ -345,8 +352,6 @@ def _energy_and_conduction(fw, n, sv, ta, q_air, pres, wind, sw_in, lw_in, dt, z
     q_star = 0.0
     t_top_est = tn[top]
     k_deep = ks / (0.5 * dzn[0])
-    for i in range(m - 1):
-        work[m + i] = 1.0 / (0.5 * dzn[i] / kn[i] + 0.5 * dzn[i + 1] / kn[i + 1])
     n_outer = int(p[P_COUPLING_ITERATIONS]) if n > 0 else 1
     for _ in range(n_outer):
         if n > 0:
@@ -367,22 +372,9 @@ def _energy_and_conduction(fw, n, sv, ta, q_air, pres, wind, sw_in, lw_in, dt, z
             # bare ground: the soil surface follows the air temperature
             a_top = k_s * ta
             b_top = -k_s
-        for i in range(m):
-            di[i] = cn[i] / dt
-            rhs[i] = cn[i] / dt * tn[i] + sn[i]
-            lo[i] = 0.0
-            up[i] = 0.0
-        di[0] += k_deep
-        rhs[0] += k_deep * p[P_DEEP_GROUND_TEMPERATURE_K]
-        for i in range(m - 1):
-            kint = work[m + i]
-            di[i] += kint
-            di[i + 1] += kint
-            up[i] = -kint
-            lo[i + 1] = -kint
-        di[top] -= b_top
-        rhs[top] += a_top
-        solve_tridiagonal(lo, di, up, rhs, m, work, sol)
+        conduction_step_backward_euler(m, tn, kn, cn, dzn, sn, dt, k_deep,
+                                       p[P_DEEP_GROUND_TEMPERATURE_K], a_top, b_top, work[m:],
+                                       lo, di, up, rhs, work, sol)
         t_top_est = sol[top]
     for i in range(m):
         tn[i] = sol[i]

@@ -34,7 +34,7 @@ class SnowParams:
     new_snow_density_model: Literal["hedstrom1998", "vionnet2012"] = "vionnet2012"
     new_snow_grain_mm: float = 0.3  #: fresh-snow grain size (Vionnet et al. 2012 use ~0.1-0.4 [mem])
     # compaction: Anderson 1976 / Jordan 1991 [mem]
-    compaction_eta0_pa_s: float = 3.6e6
+    compaction_eta0_pa_s: float = 3.7e7  #: upper end of the published range (METHODS: 3.6e6-3.7e7 [mem]), chosen so new snow settles ~20 % in 24 h (settlement rule of thumb, McClung & Schaerer)
     compaction_c_t_per_k: float = 0.08
     compaction_c_rho_m3_kg: float = 0.021
     settling_rate0_per_s: float = 2.778e-6
@@ -44,10 +44,12 @@ class SnowParams:
     soil_conductivity_w_m_k: float = 1.5  #: moist frozen soil ~1-2 (Oke 1987, Boundary Layer Climates, Table 2.1 [mem])
     soil_heat_capacity_j_m3_k: float = 2.0e6  #: moist soil ~2-3 MJ m-3 K-1 (Oke 1987 [mem])
     deep_ground_temperature_k: float = 274.15  #: fixed temperature below 1.5 m of soil (ours)
+    soil_water_kg_m3: float = 150.0  #: soil water that freezes (15 % by volume, ours)
+    soil_freezing_range_k: float = 1.0  #: it freezes between 0 and -1 degC (ours)
     # surface energy balance
     emissivity: float = 0.98  #: snow emissivity [mem]
     roughness_m: float = 0.001  #: z0 = z0h over snow (~1 mm, METHODS)
-    stable_floor_frac: float = 0.1  #: share of neutral exchange kept in very stable air (ours)
+    stable_floor_frac: float = 0.3  #: share of neutral exchange kept in very stable air (ours)
     wind_min_m_s: float = 0.5  #: wind floor in the bulk formulas (ours)
     newton_iterations: int = 4
     coupling_iterations: int = 3  #: outer skin/conduction iterations per step (ours)
@@ -74,7 +76,7 @@ class SnowParams:
     round_rate_per_day: float = 0.1  #: ours
     kinetic_growth_m_s: float = 1.04e-9  #: Marbouty (1980) maximum rate [mem]
     depth_hoar_min_grain_mm: float = 1.5  #: ours (Fierz et al. 2009: DH typically 1-5 mm)
-    near_surface_depth_m: float = 0.15  #: near-surface zone (Birkeland 1998 [mem])
+    near_surface_depth_m: float = 0.10  #: near-surface zone (Birkeland 1998 [mem])
     # surface hoar (Hachikubo 2001; destruction [mem])
     sh_wind_max_m_s: float = 3.5
     sh_destroy_wind_m_s: float = 4.5
