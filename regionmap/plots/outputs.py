@@ -125,12 +125,12 @@ class RunOutputs:
     @cached_property
     def cells(self) -> xr.Dataset:
         """``cells.nc`` opened lazily."""
-        return xr.open_dataset(self.path("cells.nc"))
+        return xr.open_dataset(self.path("cells.nc"), engine="netcdf4")
 
     @cached_property
     def profiles(self) -> xr.Dataset:
         """``profiles.nc`` opened lazily."""
-        return xr.open_dataset(self.path("profiles.nc"))
+        return xr.open_dataset(self.path("profiles.nc"), engine="netcdf4")
 
     @cached_property
     def table(self) -> pd.DataFrame:
