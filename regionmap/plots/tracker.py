@@ -1,0 +1,246 @@
+"""Season views organised around named layers, and the elevation chart.
+
+* **Layer tracker** — for one layer of concern of a zone (identified as in
+  :func:`regionmap.summaries.layers_of_concern`: buried surface hoar by its burial date, faceted
+  crystals and depth hoar by their formation date, crusts by kind and formation date, dates
+  in the local time zone), its vertical depth below the surface on every daily snapshot, one
+  line per elevation band (or per band and aspect), with the share of the band's area where
+  the layer is present below it, and the days with new snow marked.
+* **Elevation chart** — one metric of a zone against elevation (band centres), one line per
+  aspect sector.
+
+Depths are area-weighted means over the cells holding the layer; presence is the weighted
+share of the band's cells that hold it.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+from matplotlib.lines import Line2D
+
+from regionmap.errors import InputError
+from regionmap.plots.outputs import SECTOR_ORDER, RunOutputs, metric
+from regionmap.plots.style import METRIC_CMAP, OKABE_ITO, new_figure, save_png, slug
+from regionmap.snow.codes import CRUST_KINDS, GRAIN_INDEX
+from regionmap.summaries import PWL_FAMILIES, decode_snapshot
+
+__all__ = ["layer_tracks", "new_snow_days", "plot_layer_tracker", "write_layer_tracker", "plot_elevation_chart",
+           "write_elevation_chart", "NEW_SNOW_DAY_KG_M2"]
+
+#: snowfall per snapshot interval (zone mean) from which a day is marked as a new-snow day
+#: [kg m-2] (~10 cm of new snow at 100 kg m-3; common practice, our choice of threshold).
+NEW_SNOW_DAY_KG_M2 = 10.0
+_DAY_BLOCK = 32
+_NO_TIME = np.int64(-(2**62))
+
+
+def _outputs(out) -> RunOutputs:
+    return out if isinstance(out, RunOutputs) else RunOutputs(out)
+
+
+def _local_dates(seconds: np.ndarray, tz: str) -> np.ndarray:
+    uniq, inv = np.unique(seconds, return_inverse=True)
+    idx = pd.DatetimeIndex(uniq.astype("datetime64[s]")).tz_localize("UTC").tz_convert(tz)
+    return idx.strftime("%Y-%m-%d").to_numpy(object)[inv]
+
+
+def _block_rows(snap, cell_ids: np.ndarray, tz: str) -> pd.DataFrame:
+    """(layer_id, cell_id, day, depth_cm) rows of the weak layers and crusts of one block."""
+    buried = snap.valid & (snap.burial_s > _NO_TIME)
+    parts = []
+    for fam, codes in PWL_FAMILIES.items():
+        mask = np.isin(snap.grain, [GRAIN_INDEX[c] for c in codes]) & buried
+        ci, di, li = np.nonzero(mask)
+        ref = snap.burial_s[ci, di, li] if fam == "SH" else snap.formation_s[ci, di, li]
+        parts.append((np.full(ci.size, fam, dtype=object), ci, di, li, ref))
+    crust = snap.valid & (snap.crust > 0)
+    ci, di, li = np.nonzero(crust)
+    parts.append((np.asarray(CRUST_KINDS, dtype=object)[snap.crust[ci, di, li]], ci, di, li, snap.formation_s[ci, di, li]))
+    kind = np.concatenate([p[0] for p in parts])
+    ci, di, li = (np.concatenate([p[k] for p in parts]) for k in (1, 2, 3))
+    ref = np.concatenate([p[4] for p in parts])
+    ok = ref > _NO_TIME
+    kind, ci, di, li, ref = kind[ok], ci[ok], di[ok], li[ok], ref[ok]
+    date = _local_dates(ref, tz) if ref.size else np.empty(0, object)
+    return pd.DataFrame({"layer_id": kind + "-" + date, "cell_id": cell_ids[ci], "day": snap.day[di],
+                         "depth_cm": snap.depth_cm[ci, di, li]})
+
+
+def layer_tracks(out, zone: str, *, by_aspect: bool = False, layer_ids=None) -> pd.DataFrame:
+    """Depth and presence over the season of a zone's weak layers and crusts.
+
+    Parameters
+    ----------
+    out : output folder (path) or :class:`RunOutputs`.
+    zone : zone name.
+    by_aspect : one series per band × aspect instead of per band.
+    layer_ids : restrict to these layer ids (e.g. ``"SH-2026-01-12"``).
+
+    Returns
+    -------
+    DataFrame: ``layer_id``, ``band``, ``band_lower_m`` (and ``aspect_sector``), ``day``,
+    ``depth_cm`` (weighted mean over the cells with the layer, vertical), ``presence_frac``.
+    """
+    out = _outputs(out)
+    out.check_zone(zone)
+    table = out.table
+    w_all, _ = out.weights
+    cells = table[table["zone"] == zone]
+    pos = np.nonzero(np.isin(out.profiles["cell_id"].values, cells.index.to_numpy()))[0]
+    prof = out.profiles.isel(cell=pos)
+    cell_ids = prof["cell_id"].values.astype(np.int64)
+    n_day = prof.sizes["day"]
+    rows = [_block_rows(decode_snapshot(prof, np.arange(d, min(d + _DAY_BLOCK, n_day))), cell_ids, out.local_timezone)
+            for d in range(0, n_day, _DAY_BLOCK)]
+    frame = pd.concat(rows, ignore_index=True)
+    if layer_ids is not None:
+        frame = frame[frame["layer_id"].isin(list(layer_ids))]
+    frame = frame.sort_values("depth_cm").drop_duplicates(["layer_id", "cell_id", "day"])
+    keys = ["band_lower_m", "band"] + (["aspect_sector"] if by_aspect else [])
+    frame = frame.merge(table[keys], left_on="cell_id", right_index=True)
+    frame["_w"] = w_all.reindex(frame["cell_id"]).to_numpy()
+    frame["_wd"] = frame["_w"] * frame["depth_cm"]
+    g = frame.groupby(["layer_id", *keys, "day"], sort=True)[["_w", "_wd"]].sum()
+    total = w_all.loc[cells.index].groupby([cells[k] for k in keys]).sum().rename("_total")
+    res = g.join(total, on=keys).reset_index()
+    with np.errstate(invalid="ignore", divide="ignore"):
+        res["depth_cm"] = res["_wd"] / res["_w"].where(res["_w"] > 0)
+        res["presence_frac"] = res["_w"] / res["_total"].where(res["_total"] > 0)
+    return res.drop(columns=["_w", "_wd", "_total"])
+
+
+def new_snow_days(out, zone: str) -> pd.DataFrame:
+    """Zone-mean snowfall [kg m-2] between consecutive daily snapshots (``day`` = the interval
+    end) and ``event`` = at least :data:`NEW_SNOW_DAY_KG_M2`."""
+    out = _outputs(out)
+    table = out.table
+    w, _ = out.weights
+    cells = table.index[table["zone"] == zone]
+    pos = np.nonzero(np.isin(out.cells["cell_id"].values, cells.to_numpy()))[0]
+    snow = np.nan_to_num(out.cells["snowfall_kg_m2"].isel(cell=pos).transpose("cell", "time").values.astype(np.float64))
+    ww = w.reindex(out.cells["cell_id"].values[pos]).to_numpy()
+    mean = (snow * ww[:, None]).sum(axis=0) / max(ww.sum(), 1e-12)
+    cum = np.concatenate([[0.0], np.cumsum(mean)])
+    days = out.profiles["day"].values.astype("datetime64[s]")
+    k = np.searchsorted(out.times, days, side="right")
+    per_day = np.diff(np.concatenate([[0.0], cum[k]]))
+    return pd.DataFrame({"day": days, "snowfall_kg_m2": per_day, "event": per_day >= NEW_SNOW_DAY_KG_M2})
+
+
+def _band_colours(bands_lower: np.ndarray) -> dict:
+    order = np.sort(np.unique(bands_lower))
+    levels = np.linspace(0.35, 1.0, max(order.size, 1))
+    return {b: METRIC_CMAP(levels[i]) for i, b in enumerate(order)}
+
+
+def plot_layer_tracker(out, zone: str, layer_id: str, *, by_aspect: bool = False, tracks: pd.DataFrame | None = None):
+    """Draw one layer's depth and presence over the season in a zone.
+
+    Returns
+    -------
+    matplotlib Figure with two axes sharing the time axis: depth below the surface [cm]
+    (inverted: the surface at the top), one line per band (label ``<band> m``, or
+    ``<band> m <aspect>``), and presence [% of the band's area]; new-snow days as markers
+    (legend entry "new-snow day …").
+
+    Raises
+    ------
+    InputError
+        Unknown zone, or a layer id the zone never holds.
+    """
+    out = _outputs(out)
+    tr = layer_tracks(out, zone, by_aspect=by_aspect, layer_ids=[layer_id]) if tracks is None else tracks
+    tr = tr[tr["layer_id"] == layer_id]
+    if tr.empty:
+        raise InputError(f"layer tracker: zone {zone!r} never holds layer {layer_id!r}; "
+                         "hint: the layer ids are in layers_of_concern.csv (column layer_id)")
+    fig = new_figure(9.0, 6.0)
+    ax_d, ax_p = fig.subplots(2, 1, sharex=True, gridspec_kw={"height_ratios": [2.2, 1]})
+    colours = _band_colours(tr["band_lower_m"].to_numpy())
+    styles = ["-", "--", ":", "-."]
+    groups = ["band_lower_m", "band"] + (["aspect_sector"] if by_aspect else [])
+    for key, sub in tr.groupby(groups, sort=True):
+        lower, band = key[0], key[1]
+        label = f"{band} m" + (f" {key[2]}" if by_aspect else "")
+        ls = styles[SECTOR_ORDER.index(key[2]) % 4] if by_aspect else "-"
+        sub = sub.set_index("day").sort_index()
+        ax_d.plot(sub.index, sub["depth_cm"], color=colours[lower], linestyle=ls, linewidth=1.5, label=label)
+        ax_p.plot(sub.index, 100.0 * sub["presence_frac"], color=colours[lower], linestyle=ls, linewidth=1.2)
+    ax_d.invert_yaxis()
+    ax_d.set_ylim(bottom=max(float(np.nanmax(tr["depth_cm"])) * 1.1, 10.0), top=0.0)
+    ax_d.set_ylabel("depth below the surface [cm] (vertical)")
+    ax_p.set_ylabel("present on [% of band area]")
+    ax_p.set_ylim(0, 105)
+    ax_p.set_xlabel("date (UTC, daily snapshots)")
+    ns = new_snow_days(out, zone)
+    ev = ns[ns["event"]]
+    handles, labels = ax_d.get_legend_handles_labels()
+    if len(ev):
+        for d in ev["day"]:
+            ax_d.axvline(d, color="#999999", linewidth=0.6, zorder=0)
+        ax_d.plot(ev["day"], np.zeros(len(ev)), linestyle="none", marker="v", color=OKABE_ITO["sky blue"],
+                  markersize=7, clip_on=False, zorder=5)
+        handles.append(Line2D([], [], linestyle="none", marker="v", color=OKABE_ITO["sky blue"]))
+        labels.append(f"new-snow day (≥ {NEW_SNOW_DAY_KG_M2:g} kg m-2 zone mean)")
+    ax_d.legend(handles, labels, loc="lower left", fontsize=7, ncols=2, framealpha=0.85)
+    ax_d.grid(color="#E5E5E5", linewidth=0.5)
+    ax_p.grid(color="#E5E5E5", linewidth=0.5)
+    fig.suptitle(f"{zone}: layer {layer_id}, depth over the season"
+                 + (" by band and aspect" if by_aspect else " by elevation band"), fontsize=10)
+    return fig
+
+
+def write_layer_tracker(out, zone: str, layer_id: str, *, by_aspect: bool = False, tracks=None) -> Path:
+    """Write ``figures/layer_<zone>_<layer_id>[_aspects].png``."""
+    out = _outputs(out)
+    fig = plot_layer_tracker(out, zone, layer_id, by_aspect=by_aspect, tracks=tracks)
+    name = f"layer_{slug(zone)}_{slug(layer_id)}{'_aspects' if by_aspect else ''}.png"
+    return save_png(fig, out.out_dir / "figures" / name)
+
+
+def plot_elevation_chart(out, zone: str, metric_name: str, *, time=None):
+    """Draw a metric of a zone against elevation, one line per aspect sector.
+
+    Returns
+    -------
+    matplotlib Figure, one axes: x the metric with its units, y elevation [m] (band
+    centres), one line per sector (legend labels the sector codes; ``flat`` dashed grey).
+    """
+    out = _outputs(out)
+    m = metric(metric_name)
+    out.check_zone(zone)
+    t = out.map_time if time is None else out.time_in_run(time)
+    ba = out.band_aspect(t)
+    z = ba[ba["zone"] == zone]
+    fig = new_figure(6.4, 5.6)
+    ax = fig.add_subplot(1, 1, 1)
+    palette = [OKABE_ITO[k] for k in ("blue", "orange", "bluish green", "vermillion", "sky blue", "reddish purple",
+                                      "yellow", "black")]
+    present = [s for s in SECTOR_ORDER if s in set(z["aspect_sector"])]
+    for i, sector in enumerate(present):
+        sub = z[z["aspect_sector"] == sector].sort_values("band_centre_m")
+        x = sub[m.summary_column].to_numpy(np.float64) * m.scale
+        if sector == "flat":
+            ax.plot(x, sub["band_centre_m"], color="#777777", linestyle="--", marker="s", markersize=3, label="flat")
+        else:
+            compass = [s for s in present if s != "flat"]
+            k = compass.index(sector)
+            ax.plot(x, sub["band_centre_m"], color=palette[k % 8], linestyle="-" if k < 8 else ":", marker="o",
+                    markersize=3, label=sector)
+    ax.set_xlabel(f"{m.label} [{m.units}]")
+    ax.set_ylabel("elevation [m] (band centre)")
+    ax.grid(color="#E5E5E5", linewidth=0.5)
+    ax.legend(title="aspect", fontsize=7, title_fontsize=8, loc="best")
+    status = "forecast" if out.forecast_at(t) else "analysis"
+    ax.set_title(f"{zone}: {m.label}\nvalid {pd.Timestamp(t):%Y-%m-%d %H:%M} UTC ({status}), {out.weights[1]}", fontsize=9)
+    return fig
+
+
+def write_elevation_chart(out, zone: str, metric_name: str, *, time=None) -> Path:
+    """Write ``figures/elevation_<zone>_<metric>.png``."""
+    out = _outputs(out)
+    fig = plot_elevation_chart(out, zone, metric_name, time=time)
+    return save_png(fig, out.out_dir / "figures" / f"elevation_{slug(zone)}_{metric_name}.png")
