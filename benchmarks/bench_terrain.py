@@ -1,0 +1,58 @@
+"""Speed of the horizon scan (and fused sky view). Prints figures and asserts the targets.
+
+Targets (issue 2): 2000 x 2000, 16 azimuths, 3 km: <= 1 s; 4000 x 4000, 36 azimuths plus
+sky view: <= 6 s and <= 4 GB peak memory, on a 2-core machine.
+Run: python benchmarks/bench_terrain.py [--no-assert]
+"""
+
+from __future__ import annotations
+
+import resource
+import sys
+import time
+
+import numpy as np
+
+from regionmap.terrain.horizon import horizon_sky_view_dozier_frew1990
+from regionmap.terrain.slope import slope_aspect_horn1981
+
+
+def fractal_dem(n: int, pixel_m: float, seed: int = 1) -> np.ndarray:
+    """Spectral-synthesis terrain (power-law spectrum, beta = 2.2), ~2000 m of relief."""
+    rng = np.random.default_rng(seed)
+    k = np.fft.fftfreq(n)
+    kk = np.hypot(*np.meshgrid(k, k))
+    kk[0, 0] = 1.0
+    spec = (rng.normal(size=(n, n)) + 1j * rng.normal(size=(n, n))) * kk ** (-2.2 / 2 - 1)
+    spec[0, 0] = 0
+    z = np.fft.ifft2(spec).real
+    return 1200.0 + 2000.0 * (z - z.min()) / (z.max() - z.min())
+
+
+def bench(n: int, n_az: int, distance_m: float, pixel_m: float = 10.0) -> float:
+    z = fractal_dem(n, pixel_m)
+    s, a = slope_aspect_horn1981(z, pixel_m, pixel_m)
+    az = np.arange(n_az) * (360.0 / n_az)
+    t0 = time.perf_counter()
+    h, v = horizon_sky_view_dozier_frew1990(z, pixel_m, pixel_m, s, a, az, distance_m)
+    return time.perf_counter() - t0
+
+
+def main(check: bool = True) -> None:
+    z = fractal_dem(64, 10.0)
+    s, a = slope_aspect_horn1981(z, 10.0, 10.0)
+    horizon_sky_view_dozier_frew1990(z, 10.0, 10.0, s, a, np.arange(4) * 90.0, 300.0)  # compile / load cache
+    t1 = min(bench(2000, 16, 3000.0) for _ in range(2))
+    print(f"horizon + sky view, 2000x2000, 16 azimuths, 3 km at 10 m: {t1:.2f} s (target <= 1 s)")
+    t2 = bench(4000, 36, 3000.0)
+    peak_gb = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024**2
+    print(f"horizon + sky view, 4000x4000, 36 azimuths, 3 km at 10 m: {t2:.2f} s (target <= 6 s); "
+          f"peak RSS {peak_gb:.2f} GB (target <= 4 GB)")
+    if check:
+        assert t1 <= 1.0, f"2000x2000 horizon took {t1:.2f} s > 1 s"
+        assert t2 <= 6.0, f"4000x4000 horizon took {t2:.2f} s > 6 s"
+        assert peak_gb <= 4.0, f"peak memory {peak_gb:.2f} GB > 4 GB"
+
+
+if __name__ == "__main__":
+    main(check="--no-assert" not in sys.argv)
