@@ -28,7 +28,6 @@ local avalanche service's products or professional judgement.
 
 from __future__ import annotations
 
-import datetime as dt
 import zoneinfo
 from dataclasses import dataclass
 
@@ -41,6 +40,7 @@ from regionmap.snow.codes import CRUST_INDEX, CRUST_KINDS, GRAIN_INDEX
 
 __all__ = [
     "terrain_weights_km2",
+    "running_snowfall_kg_m2",
     "observation_times",
     "observation_window_start",
     "band_transitions",
@@ -58,7 +58,6 @@ __all__ = [
 #: weak-layer families and the grain codes each covers (Fierz et al. 2009 classes).
 PWL_FAMILIES: dict[str, tuple[str, ...]] = {"FC": ("FC", "FCxr", "FCsf"), "DH": ("DH",), "SH": ("SH",)}
 CRUST_TYPES: tuple[str, ...] = tuple(k for k in CRUST_KINDS if k != "none")
-_S_PER_H = 3600
 
 
 # --------------------------------------------------------------------------- weights
@@ -181,17 +180,24 @@ def _cumulative_at(cum: np.ndarray, times: np.ndarray, instants: np.ndarray) -> 
     return np.where(inside[None, :], cum[:, np.maximum(pos, 0)], 0.0)
 
 
-def _snowfall_windows(diag: xr.Dataset, times: np.ndarray, want: np.ndarray, *,
-                      local_timezone: str, observation_hour: int) -> dict[str, np.ndarray]:
-    """Running snowfall sum and the local observation-day windows for each wanted time.
-
-    Returns ``cum`` (cell, time) [kg m-2], ``win_end`` (n,) the end of the last observation
-    day at or before each wanted time, ``win_pos`` its position in ``times``, and the running
-    sums ``c_end``, ``c_24h``, ``c_72h`` (cell, n) at the window end and the starts of the 1-
-    and 3-day windows.
-    """
+def running_snowfall_kg_m2(diag: xr.Dataset) -> np.ndarray:
+    """(cell, time) running sum of ``snowfall_kg_m2`` over the record [kg m-2] (float64)."""
     if "snowfall_kg_m2" not in diag.variables:
         raise InputError("cells.nc: missing variable 'snowfall_kg_m2' (DESIGN §3 names)")
+    snow = diag["snowfall_kg_m2"].transpose("cell", "time").values.astype(np.float64)
+    np.nan_to_num(snow, copy=False)
+    return np.cumsum(snow, axis=1, out=snow)
+
+
+def _snowfall_windows(cum: np.ndarray, times: np.ndarray, want: np.ndarray, *,
+                      local_timezone: str, observation_hour: int) -> dict[str, np.ndarray]:
+    """The local observation-day windows for each wanted time.
+
+    Returns ``win_end`` (n,) the end of the last observation day at or before each wanted
+    time, ``win_pos`` its position in ``times``, and the running sums ``c_end``, ``c_24h``,
+    ``c_72h`` (cell, n) at the window end and the starts of the 1- and 3-day windows
+    (``cum`` from :func:`running_snowfall_kg_m2`).
+    """
     obs = observation_times(times[0] - np.timedelta64(2, "D"), times[-1],
                             local_timezone=local_timezone, observation_hour=observation_hour)
     k = np.searchsorted(obs, want, side="right") - 1
@@ -199,10 +205,7 @@ def _snowfall_windows(diag: xr.Dataset, times: np.ndarray, want: np.ndarray, *,
         raise InputError(f"summaries: no observation day ends at or before {want[k < 0][0]}")
     win_end = obs[k]
     win_pos = _positions(times, win_end, "the end of the observation day")
-    snow = diag["snowfall_kg_m2"].transpose("cell", "time").values.astype(np.float64)
-    cum = np.cumsum(np.nan_to_num(snow), axis=1)
     return {
-        "cum": cum,
         "win_end": win_end,
         "win_pos": win_pos,
         "c_end": cum[:, win_pos],
@@ -253,16 +256,41 @@ _NO_TIME = np.int64(-(2**62))
 
 
 def _codes(values: np.ndarray, table: dict[str, int], name: str, default: str | None) -> np.ndarray:
+    """Code strings → int8 indices (``""`` → ``default``'s index when given).
+
+    Short ASCII fixed-width strings are packed into integers and factorised, object arrays
+    (netCDF variable-length strings) factorised directly, other strings compared once per
+    known code.
+    """
     arr = np.asarray(values)
     if arr.dtype.kind == "S":
         arr = np.char.decode(arr, "utf-8")
-    arr = arr.astype(str)
-    uniq, inv = np.unique(arr, return_inverse=True)
-    lookup = np.array([table.get(u if u or default is None else default, -1) for u in uniq], dtype=np.int16)
-    if (lookup < 0).any():
-        bad = [str(u) for u, k in zip(uniq, lookup) if k < 0]
+    lookup = dict(table)
+    if default is not None:
+        lookup[""] = table[default]
+    width = arr.dtype.itemsize // 4 if arr.dtype.kind == "U" else 0
+    cp = np.ascontiguousarray(arr).reshape(-1).view(np.uint32).reshape(-1, width) if 0 < width <= 8 else None
+    if cp is not None and cp.max(initial=0) < 128:
+        # short ASCII codes pack exactly into one uint64 each: hash-factorise integers
+        packed = np.zeros(cp.shape[0], dtype=np.uint64)
+        for i in range(width):  # one pass per character (≤ 8)
+            packed |= cp[:, i].astype(np.uint64) << np.uint64(8 * i)
+        inv, uniq_packed = pd.factorize(packed)
+        uniq = [int(u).to_bytes(8, "little").rstrip(b"\0").decode("ascii") for u in uniq_packed]
+        out = np.array([lookup.get(u, -1) for u in uniq], dtype=np.int16)[inv].reshape(arr.shape)
+    elif arr.dtype.kind == "O":
+        inv, uniq = pd.factorize(arr.reshape(-1), use_na_sentinel=False)
+        uniq = ["" if (u is None or u != u) else str(u) for u in uniq]
+        known = np.array([lookup.get(u, -1) for u in uniq], dtype=np.int16)
+        out = known[inv].reshape(arr.shape)
+    else:
+        out = np.full(arr.shape, -1, dtype=np.int16)
+        for code, idx in lookup.items():  # one pass per known code (≤ 13), not per layer
+            out[arr == code] = idx
+    if (out < 0).any():
+        bad = sorted({str(v) for v in arr[out < 0].reshape(-1)[:1000]})
         raise InputError(f"profiles.nc: variable {name!r} holds unknown codes {bad[:5]}; expected one of {sorted(table)}")
-    return lookup[inv].reshape(arr.shape).astype(np.int8)
+    return out.astype(np.int8)
 
 
 def _seconds_of(values: np.ndarray) -> np.ndarray:
@@ -334,7 +362,7 @@ def _check_alignment(diag: xr.Dataset, table: pd.DataFrame, profiles: xr.Dataset
 
 
 def cell_values(diag: xr.Dataset, profiles: xr.Dataset, table: pd.DataFrame, times, *,
-                local_timezone: str = "UTC", observation_hour: int = 7) -> pd.DataFrame:
+                local_timezone: str = "UTC", observation_hour: int = 7, layers: bool = True) -> pd.DataFrame:
     """Per-cell metrics at each of ``times`` → long DataFrame (one row per cell × time).
 
     Parameters
@@ -344,6 +372,9 @@ def cell_values(diag: xr.Dataset, profiles: xr.Dataset, table: pd.DataFrame, tim
         last one at or before it (``profile_time``).
     table : cell table (``CellSet.table``), indexed by ``cell_id``.
     times : datetime-likes [UTC] at which to evaluate; each must be an output time of ``diag``.
+    layers : also decode the profile snapshots for the layer metrics (``crust_count_<kind>``,
+        ``FC_``/``DH_``/``SH_…``, ``pwl_slab_cm``, ``pwl_load_kg_m2``); without, only the
+        ``cells.nc`` metrics (decoding costs ~1 s per 10 000 cells × 16 days × 30 layers).
 
     Returns
     -------
@@ -361,8 +392,9 @@ def cell_values(diag: xr.Dataset, profiles: xr.Dataset, table: pd.DataFrame, tim
     want = _as_utc_array(times)
     # decode the layer snapshots a block of times at a time: memory ~ cells × block × layers
     blocks = [want[i:i + _TIME_BLOCK] for i in range(0, want.size, _TIME_BLOCK)]
-    frames = [_cell_values_block(diag, profiles, table, t_all, b, local_timezone=local_timezone,
-                                 observation_hour=observation_hour) for b in blocks]
+    cum = running_snowfall_kg_m2(diag)
+    frames = [_cell_values_block(diag, profiles, table, t_all, cum, b, local_timezone=local_timezone,
+                                 observation_hour=observation_hour, layers=layers) for b in blocks]
     return pd.concat(frames, ignore_index=True).sort_values(["cell_id", "valid_time"], ignore_index=True)
 
 
@@ -374,16 +406,17 @@ def _as_utc_array(times) -> np.ndarray:
                                     dtype="datetime64[s]"))
 
 
-def _cell_values_block(diag, profiles, table, t_all, want, *, local_timezone, observation_hour) -> pd.DataFrame:
+def _cell_values_block(diag, profiles, table, t_all, cum, want, *, local_timezone, observation_hour,
+                       layers) -> pd.DataFrame:
     pos = _positions(t_all, want, "the summary times")
-    win = _snowfall_windows(diag, t_all, want, local_timezone=local_timezone, observation_hour=observation_hour)
+    win = _snowfall_windows(cum, t_all, want, local_timezone=local_timezone, observation_hour=observation_hour)
     win_end, win_pos = win["win_end"], win["win_pos"]
     n_cell, n_t = diag.sizes["cell"], want.size
 
     def at(name: str, p=pos) -> np.ndarray:
         if name not in diag.variables:
             raise InputError(f"cells.nc: missing variable {name!r} (DESIGN §3 names)")
-        return diag[name].transpose("cell", "time").values[:, p].astype(np.float64)
+        return diag[name].isel(time=p).transpose("cell", ...).values.astype(np.float64)
 
     values: dict[str, np.ndarray] = {
         "snow_depth_cm": at("snow_depth_cm"),
@@ -405,6 +438,22 @@ def _cell_values_block(diag, profiles, table, t_all, want, *, local_timezone, ob
     day = profiles["day"].values.astype("datetime64[s]")
     d = np.searchsorted(day, want, side="right") - 1
     has_snap = d >= 0
+    if layers:
+        values.update(_layer_values(profiles, table, d, has_snap))
+    fc = diag["is_forecast"].values.astype(bool)[pos] if "is_forecast" in diag.variables else np.zeros(n_t, bool)
+    frame = pd.DataFrame({name: v.reshape(-1) for name, v in values.items()})
+    frame.insert(0, "cell_id", np.repeat(table.index.to_numpy(), n_t))
+    frame.insert(1, "valid_time", np.tile(want, n_cell))
+    frame.insert(2, "is_forecast", np.tile(fc, n_cell))
+    snap_time = np.where(has_snap & layers, day[np.maximum(d, 0)], np.datetime64("NaT"))
+    frame.insert(3, "profile_time", np.tile(snap_time, n_cell))
+    frame.insert(4, "new_snow_window_end", np.tile(win_end, n_cell))
+    return frame
+
+
+def _layer_values(profiles, table, d, has_snap) -> dict[str, np.ndarray]:
+    """Layer metrics (cell, n) from the snapshots at positions ``d`` (NaN where none)."""
+    values: dict[str, np.ndarray] = {}
     snap = decode_snapshot(profiles, np.maximum(d, 0))
     cos_slope = np.cos(np.deg2rad(table["slope_deg"].to_numpy(np.float64)))[:, None]
     for kind in CRUST_TYPES:
@@ -428,15 +477,7 @@ def _cell_values_block(diag, profiles, table, t_all, want, *, local_timezone, ob
     snap_keys = [k for k in values if k.startswith(("crust_count_", "FC_", "DH_", "SH_", "pwl_slab", "pwl_load"))]
     for key in snap_keys:
         values[key] = np.where(has_snap[None, :], values[key], np.nan)
-
-    fc = diag["is_forecast"].values.astype(bool)[pos] if "is_forecast" in diag.variables else np.zeros(n_t, bool)
-    frame = pd.DataFrame({name: v.reshape(-1) for name, v in values.items()})
-    frame.insert(0, "cell_id", np.repeat(table.index.to_numpy(), n_t))
-    frame.insert(1, "valid_time", np.tile(want, n_cell))
-    frame.insert(2, "is_forecast", np.tile(fc, n_cell))
-    frame.insert(3, "profile_time", np.tile(np.where(has_snap, day[np.maximum(d, 0)], np.datetime64("NaT")), n_cell))
-    frame.insert(4, "new_snow_window_end", np.tile(win_end, n_cell))
-    return frame
+    return values
 
 
 # --------------------------------------------------------------------------- aggregation
@@ -475,42 +516,38 @@ def summarise(values: pd.DataFrame, table: pd.DataFrame, weight_km2, *, by=("zon
     (over cells with weight > 0), and ``band_centre_m`` when grouping by band (the middle of
     a closed band, the weighted mean cell elevation of an open one).
     """
-    w = pd.Series(np.asarray(weight_km2, dtype=np.float64), index=table.index)
     keys = list(by)
-    frame = values.merge(table[[*{*keys, "elevation_m"}]], left_on="cell_id", right_index=True, how="left")
-    frame["_w"] = frame["cell_id"].map(w).to_numpy()
+    pos = table.index.get_indexer(values["cell_id"].to_numpy())
+    if (pos < 0).any():
+        raise GridMismatchError("summaries: cell values name cell_ids that the cell table lacks")
+    w = np.asarray(weight_km2, dtype=np.float64)[pos]
+    # group code = (cell-table group of the row's cell, valid time): integer arithmetic, no sort of rows
+    cell_group, groups = pd.factorize(pd.MultiIndex.from_frame(table[keys]), sort=True)
+    t_code, t_uniq = pd.factorize(values["valid_time"].to_numpy(), sort=True)
+    gid, first = np.unique(cell_group[pos].astype(np.int64) * len(t_uniq) + t_code, return_index=True)
+    inv = np.searchsorted(gid, cell_group[pos].astype(np.int64) * len(t_uniq) + t_code)
+    n_g = gid.size
     metrics = [c for c in values.columns if c not in
                ("cell_id", "valid_time", "is_forecast", "profile_time", "new_snow_window_end")]
-    metrics.append("elevation_m")
-    x = frame[metrics].to_numpy(np.float64)
-    ok = np.isfinite(x) & (frame["_w"].to_numpy()[:, None] > 0)
-    wx = np.where(ok, x * frame["_w"].to_numpy()[:, None], 0.0)
-    ww = np.where(ok, frame["_w"].to_numpy()[:, None], 0.0)
-    parts = {f"s_{m}": wx[:, i] for i, m in enumerate(metrics)}
-    parts.update({f"w_{m}": ww[:, i] for i, m in enumerate(metrics)})
-    for m in _MAX_OF:
-        parts[f"max_{m}"] = np.where(ok[:, metrics.index(m)], x[:, metrics.index(m)], -np.inf)
-    work = pd.DataFrame(parts)
-    for col in (*keys, "valid_time", "is_forecast", "new_snow_window_end", "profile_time"):
-        work[col] = frame[col].to_numpy()
-    work["_w"] = frame["_w"].fillna(0.0).to_numpy()
-    gkeys = [*keys, "valid_time"]
-    agg = {c: "sum" for c in work.columns if c.startswith(("s_", "w_"))}
-    agg.update({c: "max" for c in work.columns if c.startswith("max_")})
-    agg.update({"_w": "sum", "is_forecast": "first", "new_snow_window_end": "first", "profile_time": "first"})
-    g = work.groupby(gkeys, sort=True, dropna=False).agg(agg)
-    out = pd.DataFrame(index=g.index)
-    out["is_forecast"] = g["is_forecast"].astype(bool)
-    out["area_km2"] = g["_w"]
-    for m in metrics:
+    out = pd.DataFrame(groups[gid // len(t_uniq)].tolist(), columns=keys)
+    out["valid_time"] = t_uniq[gid % len(t_uniq)]
+    for col in ("is_forecast", "new_snow_window_end", "profile_time"):
+        out[col] = values[col].to_numpy()[first]
+    out["is_forecast"] = out["is_forecast"].astype(bool)
+    out["area_km2"] = np.bincount(inv, weights=np.nan_to_num(w), minlength=n_g)
+    for m in [*metrics, "elevation_m"]:
+        x = table["elevation_m"].to_numpy(np.float64)[pos] if m == "elevation_m" else values[m].to_numpy(np.float64)
+        ok = np.isfinite(x) & (w > 0)
+        sw = np.bincount(inv, weights=np.where(ok, w, 0.0), minlength=n_g)
+        sx = np.bincount(inv, weights=np.where(ok, x * w, 0.0), minlength=n_g)
         with np.errstate(invalid="ignore", divide="ignore"):
-            mean = g[f"s_{m}"] / g[f"w_{m}"].where(g[f"w_{m}"] > 0)
-        out[_FRACTION_OF.get(m, m if m != "crust_count" else "crust_count_mean")] = mean
-    for m in _MAX_OF:
-        out[f"{m}_max"] = g[f"max_{m}"].where(np.isfinite(g[f"max_{m}"]))
-    out["new_snow_window_end"] = g["new_snow_window_end"]
-    out["profile_time"] = g["profile_time"]
-    out = out.rename(columns={"elevation_m": "mean_elevation_m"}).reset_index()
+            mean = np.where(sw > 0, sx / sw, np.nan)
+        name = "mean_elevation_m" if m == "elevation_m" else _FRACTION_OF.get(m, m if m != "crust_count" else "crust_count_mean")
+        out[name] = mean
+        if m in _MAX_OF:
+            mx = np.full(n_g, -np.inf)
+            np.maximum.at(mx, inv[ok], x[ok])
+            out[f"{m}_max"] = np.where(np.isfinite(mx), mx, np.nan)
     if "band_lower_m" in keys and "band_upper_m" in keys:
         lo, hi = out["band_lower_m"].to_numpy(np.float64), out["band_upper_m"].to_numpy(np.float64)
         closed = np.isfinite(lo) & np.isfinite(hi)
@@ -601,7 +638,8 @@ _BAND_ASPECT = ["zone", "band_lower_m", "band_upper_m", "aspect_sector"]
 
 def summary_tables(diag: xr.Dataset, profiles: xr.Dataset, table: pd.DataFrame, weights: pd.DataFrame, *,
                    map_time, local_timezone: str = "UTC", observation_hour: int = 7,
-                   avalanche_terrain_deg: tuple[float, float] = (30.0, 50.0)) -> SummaryTables:
+                   avalanche_terrain_deg: tuple[float, float] = (30.0, 50.0),
+                   daily_layers: bool = False) -> SummaryTables:
     """All summaries of a run: per zone and per zone × band × aspect at the map time, and
     daily series at the local observation-day ends.
 
@@ -613,13 +651,15 @@ def summary_tables(diag: xr.Dataset, profiles: xr.Dataset, table: pd.DataFrame, 
     map_time : datetime-like [UTC]; must be an output time of ``diag``.
     local_timezone, observation_hour : ``[output]`` keys: the local observation day.
     avalanche_terrain_deg : the ``[cells]`` slope range, recorded in the tables.
+    daily_layers : give the daily series the layer metrics too (see :func:`cell_values`);
+        by default they carry the ``cells.nc`` metrics and the map time carries all.
     """
     t_all = _times_of(diag)
     obs = observation_times(t_all[0], t_all[-1], local_timezone=local_timezone, observation_hour=observation_hour)
     map_t = _as_utc_array(map_time)
-    times = np.unique(np.concatenate([map_t, obs]))
-    vals = cell_values(diag, profiles, table, times, local_timezone=local_timezone, observation_hour=observation_hour)
-    at_map = vals[vals["valid_time"] == map_t[0]]
+    kw = dict(local_timezone=local_timezone, observation_hour=observation_hour)
+    at_map = cell_values(diag, profiles, table, map_t, **kw)
+    daily_vals = cell_values(diag, profiles, table, obs, layers=daily_layers, **kw)
     lo, hi = avalanche_terrain_deg
     terrain_label = {"avalanche": f"avalanche terrain ({lo:g}-{hi:g} deg)", "all": "all terrain"}
 
@@ -629,7 +669,7 @@ def summary_tables(diag: xr.Dataset, profiles: xr.Dataset, table: pd.DataFrame, 
 
     z = both(at_map, ["zone"])
     ba = both(at_map, _BAND_ASPECT)
-    daily = pd.concat(both(vals[vals["valid_time"].isin(obs)], ["zone"]).values(), ignore_index=True)
+    daily = pd.concat(both(daily_vals, ["zone"]).values(), ignore_index=True)
     snow_line = band_transitions(ba["all"], ["zone", "aspect_sector"], "snow_fraction")
     snow_line = snow_line.rename(columns={"lower_m": "snow_line_m", "lower_bound": "snow_line_bound"})
     snow_line = snow_line[["zone", "aspect_sector", "snow_line_m", "snow_line_bound"]]
@@ -735,13 +775,14 @@ def layers_of_concern(diag: xr.Dataset, profiles: xr.Dataset, table: pd.DataFram
     cos_slope = np.cos(np.deg2rad(table["slope_deg"].to_numpy(np.float64)))
     rows["slab_cm"] = rows["depth_cm"].to_numpy() * cos_slope[rows["_c"].to_numpy()]
     # snowfall on the layer: since burial up to `time`, and in the last 1 / 3 observation days
-    win = _snowfall_windows(diag, t_all, want, local_timezone=local_timezone, observation_hour=observation_hour)
+    cum = running_snowfall_kg_m2(diag)
+    win = _snowfall_windows(cum, t_all, want, local_timezone=local_timezone, observation_hour=observation_hour)
     c = rows["_c"].to_numpy()
     burial = rows["_burial_s"].to_numpy()
     is_buried = burial > _NO_TIME
     bpos = np.searchsorted(t_all.astype(np.int64), burial, side="right") - 1
-    c_burial = np.where(bpos >= 0, win["cum"][c, np.maximum(bpos, 0)], 0.0)
-    since = np.where(is_buried, win["cum"][c, pos] - c_burial, np.nan)
+    c_burial = np.where(bpos >= 0, cum[c, np.maximum(bpos, 0)], 0.0)
+    since = np.where(is_buried, cum[c, pos] - c_burial, np.nan)
     rows["load_since_burial_kg_m2"] = since
     # snowfall in (window start, window end] that also fell after the burial
     for hours, key in ((24, "c_24h"), (72, "c_72h")):

@@ -4,7 +4,6 @@ rain crust designed on cells with mean elevation in [1400, 2000) m."""
 from __future__ import annotations
 
 import numpy as np
-import pandas as pd
 import pytest
 import rasterio.features
 import geopandas as gpd

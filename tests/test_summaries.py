@@ -20,7 +20,7 @@ from regionmap.summaries import (
     summary_tables,
     terrain_weights_km2,
 )
-from test_summaries_synth import SH_BURIAL, synthetic_run
+from test_summaries_synth import synthetic_run
 
 MAP_TIME = "2026-01-22T12:00"
 

@@ -1,8 +1,8 @@
 """Builders of a small synthetic run (DEM, cells, cells.nc, profiles.nc) for the tests of
 summaries, the rain-crust line and the GIS export. No tests here; everything is invented.
 
-The terrain is a cone: elevation falls 10 m per 100 m pixel... away from a summit at
-2500 m, so every aspect has every elevation band, and elevation bands are 100 m.
+The terrain is a cone: elevation falls 50 m per 100 m pixel away from a summit at 2500 m
+(slope 26.6°), so every aspect has every elevation band; elevation bands are 100 m.
 Two zones split the cone west / east.
 """
 
@@ -79,7 +79,6 @@ def build_cells(dem: np.ndarray):
 
 TIMES = pd.date_range("2026-01-10T01:00", "2026-01-25T00:00", freq="h").to_numpy().astype("datetime64[s]")
 DAYS = pd.date_range("2026-01-10T12:00", "2026-01-24T12:00", freq="D").to_numpy().astype("datetime64[s]")
-S = np.int64(1)
 
 
 def _sec(t: str) -> np.int64:
