@@ -1,0 +1,362 @@
+"""The morning briefing: every figure of a run and a one-page ``report.html``.
+
+:func:`write_all_figures` draws the figures of an output folder into ``figures/`` (PNG at
+print resolution, plus the overview CSV tables). :func:`write_report` draws them too and
+writes ``report.html``: self-contained (images embedded as data URIs at a reduced
+resolution, no scripts, no external fonts or style sheets, no web addresses), built from the
+jinja2 template ``regionmap/templates/report.html.j2``. It holds the per-zone table, the
+layers of concern, the rain-crust line in words, the maps, overviews, profiles, layer
+trackers and elevation charts, the station verification when ``verification.csv`` is in the
+folder, where the forcing became forecast, the run's metadata and the cautions.
+
+Model output is guidance for trained people: field observations, the local avalanche
+service and professional standards come first.
+"""
+
+from __future__ import annotations
+
+import base64
+import datetime as dt
+import io
+import json
+import re
+import struct
+import zlib
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from regionmap import CAUTION, __version__
+from regionmap.errors import OutputError
+from regionmap.io.atomic import atomic_path, atomic_write_text
+from regionmap.plots.maps import available_maps, plot_metric_map
+from regionmap.plots.outputs import RunOutputs
+from regionmap.plots.overview import plot_overview, write_overview_csv
+from regionmap.plots.profile import plot_profile
+from regionmap.plots.style import PRINT_DPI, REPORT_DPI, slug
+from regionmap.plots.tracker import layer_tracks, plot_elevation_chart, plot_layer_tracker
+
+__all__ = ["write_all_figures", "write_report", "OVERVIEW_METRICS", "REPORT_MAX_BYTES", "CAUTIONS"]
+
+#: metrics drawn as elevation-aspect overviews for every zone.
+OVERVIEW_METRICS: tuple[str, ...] = ("depth_hoar_fraction", "pwl_depth_cm", "new_snow_72h_cm")
+#: metric of the per-zone elevation chart.
+ELEVATION_METRIC = "snow_depth_cm"
+#: layers shown in the report: present on at least this share of a zone's weighted area.
+MIN_PRESENCE_FRAC = 0.1
+#: at most this many tracked layers per zone (the most widespread first).
+MAX_TRACKED_LAYERS = 3
+#: size limit of report.html [bytes] (DESIGN §3).
+REPORT_MAX_BYTES = 10 * 2**20
+#: widest embedded image [px].
+_THUMB_MAX_PX = int(round(1000 * REPORT_DPI / 72))
+
+CAUTIONS: tuple[str, ...] = (
+    "This is model guidance. Field observations, the local avalanche service's bulletins and "
+    "professional standards of practice come first.",
+    "Simulated layers, depths and threshold counts are estimates of a light snow column driven by "
+    "downscaled weather-model forcing; they carry the forcing's errors (precipitation, freezing level, wind).",
+    "Wind drift, cornices, local avalanche activity and slope-scale variability are not resolved.",
+    "Forecast parts of the run use forecast forcing and are less certain than the analysis.",
+)
+
+
+@dataclass
+class _Figure:
+    section: str
+    caption: str
+    path: Path
+    thumb_png: bytes
+    size: tuple[int, int]
+
+
+def _make_specs(out: RunOutputs) -> list[tuple[str, str, str, callable]]:
+    """(section, file name, caption, draw function) of every figure of the run."""
+    specs = []
+    for name in available_maps(out):
+        specs.append(("maps", f"map_{name}.png", f"Map: {name.replace('_', ' ')}",
+                      lambda name=name: plot_metric_map(out, name)))
+    for zone in out.zone_names:
+        for m in OVERVIEW_METRICS:
+            specs.append(("overviews", f"overview_{slug(zone)}_{m}.png", f"{zone}: elevation-aspect overview of {m.replace('_', ' ')}",
+                          lambda zone=zone, m=m: plot_overview(out, zone, m)))
+        specs.append(("elevation", f"elevation_{slug(zone)}_{ELEVATION_METRIC}.png",
+                      f"{zone}: {ELEVATION_METRIC.replace('_', ' ')} against elevation",
+                      lambda zone=zone: plot_elevation_chart(out, zone, ELEVATION_METRIC)))
+        cid = _profile_cell(out, zone)
+        if cid is not None:
+            row = out.table.loc[cid]
+            specs.append(("profiles", f"profile_{slug(zone)}_cell{cid}.png",
+                          f"{zone}: simulated profile of cell {cid} ({row['band']} m, {row['aspect_sector']}), "
+                          "the cell with the highest threshold count at the map time",
+                          lambda cid=cid: plot_profile(out, cid)))
+        layers = _tracked_layers(out, zone)
+        if layers:
+            tracks = layer_tracks(out, zone, layer_ids=layers)
+            for lid in layers:
+                if (tracks["layer_id"] == lid).any():
+                    specs.append(("layers", f"layer_{slug(zone)}_{slug(lid)}.png", f"{zone}: layer {lid} over the season",
+                                  lambda zone=zone, lid=lid, tracks=tracks: plot_layer_tracker(out, zone, lid, tracks=tracks)))
+    return specs
+
+
+def _profile_cell(out: RunOutputs, zone: str) -> int | None:
+    """The zone's cell with the highest worst threshold count at the map time (ties: the
+    larger weighted area), or None when the zone has no snow anywhere."""
+    vals = out.cell_values_at(out.map_time).set_index("cell_id")
+    cells = out.table.index[out.table["zone"] == zone]
+    v = vals.loc[cells]
+    v = v[v["snow_depth_cm"] > 0]
+    if v.empty:
+        return None
+    w, _ = out.weights
+    frame = pd.DataFrame({"tc": v["threshold_count_max"].fillna(-1.0), "w": w.reindex(v.index).to_numpy()}, index=v.index)
+    return int(frame.sort_values(["tc", "w"], ascending=False).index[0])
+
+
+def _tracked_layers(out: RunOutputs, zone: str) -> list[str]:
+    loc = out.layers_of_concern
+    rows = loc[(loc["zone"] == zone) & (loc["aspect_sector"] == "all") & (loc["presence_frac"] >= MIN_PRESENCE_FRAC)]
+    rows = rows.sort_values(["category", "presence_frac"], ascending=[False, False])  # weak layers before crusts
+    return list(rows["layer_id"].drop_duplicates()[:MAX_TRACKED_LAYERS])
+
+
+def _thumbnail(png: bytes) -> tuple[bytes, tuple[int, int]]:
+    from PIL import Image
+
+    with Image.open(io.BytesIO(png)) as im:
+        scale = REPORT_DPI / PRINT_DPI
+        size = (max(1, round(im.width * scale)), max(1, round(im.height * scale)))
+        if size[0] > _THUMB_MAX_PX:
+            size = (_THUMB_MAX_PX, max(1, round(size[1] * _THUMB_MAX_PX / size[0])))
+        small = im.convert("RGB").resize(size, Image.Resampling.LANCZOS)
+        small = small.quantize(colors=256, method=Image.Quantize.MEDIANCUT)
+        buf = io.BytesIO()
+        small.save(buf, format="PNG", optimize=False, compress_level=9)
+    return buf.getvalue(), size
+
+
+def _render(out: RunOutputs, *, thumbnails: bool) -> tuple[list[_Figure], list[Path]]:
+    figdir = out.out_dir / "figures"
+    figures, written = [], []
+    for section, name, caption, draw in _make_specs(out):
+        fig = draw()
+        buf = io.BytesIO()
+        fig.savefig(buf, dpi=PRINT_DPI, format="png")
+        png = buf.getvalue()
+        path = figdir / name
+        with atomic_path(path) as tmp:
+            tmp.write_bytes(png)
+        written.append(path)
+        thumb, size = _thumbnail(png) if thumbnails else (b"", (0, 0))
+        figures.append(_Figure(section, caption, path, thumb, size))
+    for zone in out.zone_names:
+        for m in OVERVIEW_METRICS:
+            written.append(write_overview_csv(out, zone, m, figdir / f"overview_{slug(zone)}_{m}.csv"))
+    return figures, written
+
+
+def write_all_figures(out_dir) -> list[Path]:
+    """Draw every figure of a run into ``OUT/figures/`` and return the files written.
+
+    Figures: a map per raster under ``maps/``; per zone the elevation-aspect overviews of
+    :data:`OVERVIEW_METRICS` (PNG and CSV), the elevation chart of ``snow_depth_cm``, the
+    profile of the cell with the highest threshold count, and a layer tracker for each of
+    the zone's most widespread layers of concern (up to :data:`MAX_TRACKED_LAYERS`).
+
+    Raises
+    ------
+    InputError
+        When the output folder lacks a file the figures need.
+    """
+    out = RunOutputs(out_dir)
+    try:
+        return _render(out, thumbnails=False)[1]
+    finally:
+        out.close()
+
+
+# --------------------------------------------------------------------------- HTML
+_NO_WEB = re.compile("http", re.IGNORECASE)
+
+
+def _png_with_text(png: bytes, text: str) -> bytes:
+    """Insert a tEXt chunk (keyword ``Comment``) after the PNG's IHDR (ISO/IEC 15948 §11.3.4.3)."""
+    data = b"Comment\x00" + text.encode("latin-1")
+    chunk = struct.pack(">I", len(data)) + b"tEXt" + data + struct.pack(">I", zlib.crc32(b"tEXt" + data) & 0xFFFFFFFF)
+    end_ihdr = 8 + 8 + 13 + 4
+    return png[:end_ihdr] + chunk + png[end_ihdr:]
+
+
+def _data_uri(png: bytes) -> str:
+    """``data:image/png;base64,…`` whose payload never spells "http" (by chance it can; then
+    a short comment chunk shifts the encoding)."""
+    for k in range(64):
+        body = png if k == 0 else _png_with_text(png, "n" * k)
+        b64 = base64.b64encode(body).decode("ascii")
+        if not _NO_WEB.search(b64):
+            return "data:image/png;base64," + b64
+    raise OutputError("report.html: could not embed an image without the letters 'http' in its encoding")
+
+
+def _no_web_text(html: str) -> str:
+    """Write every "http" of the text as a character reference (h&#116;tp), so the page holds
+    no web address and renders the same words."""
+    return _NO_WEB.sub(lambda m: m.group(0)[0] + f"&#{ord(m.group(0)[1])};" + m.group(0)[2:], html)
+
+
+def _fmt(v, decimals: int = 0) -> str:
+    if v is None or (isinstance(v, float) and not np.isfinite(v)):
+        return "–"
+    if isinstance(v, (bool, np.bool_)):
+        return "yes" if v else "no"
+    if isinstance(v, (int, np.integer)):
+        return str(int(v))
+    if isinstance(v, (float, np.floating)):
+        return f"{float(v):.{decimals}f}"
+    return str(v)
+
+
+_ZONE_COLUMNS = [  # column, header, scale, decimals
+    ("zone", "zone", 1, 0),
+    ("depth_hoar_fraction", "depth hoar [% area]", 100, 0),
+    ("pwl_fraction", "weak layer present [% area]", 100, 0),
+    ("pwl_depth_cm", "weak-layer depth [cm]", 1, 0),
+    ("crust_count_mean", "crusts (mean)", 1, 1),
+    ("crust_count_max", "crusts (max)", 1, 0),
+    ("new_snow_24h_cm", "new snow 24 h [cm]", 1, 0),
+    ("new_snow_72h_cm", "new snow 72 h [cm]", 1, 0),
+    ("new_snow_72h_kg_m2", "new snow 72 h [kg m-2]", 1, 0),
+    ("snow_depth_cm", "snow depth [cm]", 1, 0),
+    ("threshold_count_max_max", "worst threshold count", 1, 1),
+    ("rain_crust_line_m", "rain-crust line [m]", 1, 0),
+]
+_LAYER_COLUMNS = [
+    ("zone", "zone", 1, 0), ("layer_name", "layer", 1, 0), ("presence_frac", "present [% area]", 100, 0),
+    ("depth_cm", "depth [cm]", 1, 0), ("slab_cm", "slab [cm, slope-normal]", 1, 0),
+    ("load_above_kg_m2", "load above [kg m-2]", 1, 0), ("load_since_burial_kg_m2", "added since burial [kg m-2]", 1, 0),
+    ("load_72h_kg_m2", "added 72 h [kg m-2]", 1, 0),
+]
+_VERIFICATION_COLUMNS = [
+    ("station_id", "station", 1, 0), ("variable", "variable", 1, 0), ("units", "units", 1, 0), ("n", "pairs", 1, 0),
+    ("bias", "bias", 1, 2), ("mae", "MAE", 1, 2), ("rmse", "RMSE", 1, 2), ("r2", "R²", 1, 2),
+    ("total_percent_difference", "total difference [%]", 1, 0),
+]
+_SECTIONS = [("maps", "Maps", ""), ("overviews", "Elevation-aspect overviews",
+             "Aspect sectors around (north at the top), elevation bands as rings with the highest band in the centre."),
+             ("profiles", "Simulated profiles", "A simulated profile is no substitute for a profile dug on the slope."),
+             ("layers", "Layers of concern over the season", ""), ("elevation", "Elevation charts", "")]
+
+
+def _table(frame: pd.DataFrame, spec) -> tuple[list[str], list[list[str]]]:
+    cols = [(c, h, s, d) for c, h, s, d in spec if c in frame.columns]
+    rows = []
+    for _, r in frame.iterrows():
+        rows.append([_fmt(r[c] * s if s != 1 and pd.notna(r[c]) else r[c], d) for c, _, s, d in cols])
+    return [h for _, h, _, _ in cols], rows
+
+
+def _forecast_text(out: RunOutputs) -> str:
+    fc = out.is_forecast
+    times = out.times
+    start, end = (pd.Timestamp(t).strftime("%Y-%m-%d %H:%M UTC") for t in (times[0], times[-1]))
+    if not fc.any():
+        return f"The whole run ({start} to {end}) is driven by analysis forcing; there is no forecast part."
+    first = pd.Timestamp(times[np.argmax(fc)]).strftime("%Y-%m-%d %H:%M UTC")
+    if fc.all():
+        return f"The whole run ({start} to {end}) is driven by forecast forcing."
+    ana = pd.Timestamp(out.analysis_time).strftime("%Y-%m-%d %H:%M UTC")
+    return (f"Forcing is analysis from {start} to {ana}; from {first} to {end} it is forecast. "
+            "The saved state for continuation (state.nc) is the one at the analysis time.")
+
+
+def _verification(out: RunOutputs) -> tuple[str, list[str], list[list[str]]]:
+    path = out.out_dir / "verification.csv"
+    if not path.is_file():
+        return ("No station verification results in this output folder (verification.csv); this section "
+                "appears when station data are configured.", [], [])
+    frame = pd.read_csv(path)
+    if "period_start" in frame.columns and "period_end" in frame.columns and len(frame):
+        text = f"Downscaled model against station observations, {frame['period_start'].iloc[0]} to {frame['period_end'].iloc[0]}."
+    else:
+        text = "Downscaled model against station observations over the period in verification.csv."
+    cols, rows = _table(frame, _VERIFICATION_COLUMNS)
+    return text + " Bias = model minus observation.", cols, rows
+
+
+def _run_items(run: dict) -> list[tuple[str, str]]:
+    items = []
+    for key, value in run.items():
+        if key == "config":
+            continue
+        if isinstance(value, dict):
+            flat = ", ".join(f"{k}: {_fmt(v, 2) if isinstance(v, float) else v}" for k, v in value.items()
+                             if not isinstance(v, (dict, list)))
+            if flat:
+                items.append((key, flat))
+        elif isinstance(value, list):
+            items.append((key, f"{len(value)} entries"))
+        else:
+            items.append((key, _fmt(value, 2)))
+    return items
+
+
+def write_report(out_dir) -> Path:
+    """Draw all figures and write the self-contained ``OUT/report.html``; return its path.
+
+    Raises
+    ------
+    InputError
+        When the output folder lacks a file the report needs.
+    OutputError
+        When the report would exceed 10 MB or cannot be written.
+    """
+    from jinja2 import Environment, FileSystemLoader, StrictUndefined, select_autoescape
+
+    out = RunOutputs(out_dir)
+    try:
+        figures, _ = _render(out, thumbnails=True)
+        zones = pd.DataFrame(out.zones.drop(columns=out.zones.geometry.name))
+        zone_cols, zone_rows = _table(zones.sort_values("zone"), _ZONE_COLUMNS)
+        loc = out.layers_of_concern
+        loc = loc[(loc["aspect_sector"] == "all") & (loc["presence_frac"] >= MIN_PRESENCE_FRAC)].sort_values(
+            ["zone", "presence_frac"], ascending=[True, False])
+        layer_cols, layer_rows = _table(loc, _LAYER_COLUMNS)
+        rain = []
+        if "rain_crust_text" in zones.columns:
+            rain = [(z, t) for z, t in zip(zones["zone"], zones["rain_crust_text"]) if isinstance(t, str) and t.strip()]
+        sections = []
+        for sid, title, note in _SECTIONS:
+            figs = [{"uri": _data_uri(f.thumb_png), "caption": f.caption, "name": f.path.name,
+                     "width": f.size[0], "height": f.size[1]} for f in figures if f.section == sid]
+            if figs:
+                sections.append({"id": sid, "title": title, "note": note, "figures": figs})
+        v_text, v_cols, v_rows = _verification(out)
+        map_t = out.map_time
+        env = Environment(loader=FileSystemLoader(Path(__file__).parent / "templates"),
+                          autoescape=select_autoescape(["html", "j2"]), undefined=StrictUndefined,
+                          trim_blocks=False, lstrip_blocks=False)
+        html = env.get_template("report.html.j2").render(
+            title="regionmap snowpack briefing",
+            map_time=pd.Timestamp(map_t).strftime("%Y-%m-%d %H:%M UTC"),
+            map_status="forecast" if out.forecast_at(map_t) else "analysis",
+            weights_label=out.weights[1],
+            generated=dt.datetime.now(dt.UTC).strftime("%Y-%m-%d %H:%M UTC"),
+            version=__version__, caution=CAUTION, cautions=CAUTIONS,
+            forecast_text=_forecast_text(out),
+            zone_columns=zone_cols, zone_rows=zone_rows, rain_crust=rain,
+            layer_columns=layer_cols, layer_rows=layer_rows, min_presence_pct=round(100 * MIN_PRESENCE_FRAC),
+            sections=sections,
+            verification_text=v_text, verification_columns=v_cols, verification_rows=v_rows,
+            run_items=_run_items(out.run), run_json=json.dumps(out.run, indent=2, default=str),
+        )
+        html = _no_web_text(html)
+        size = len(html.encode("utf-8"))
+        if size >= REPORT_MAX_BYTES:
+            raise OutputError(f"report.html would be {size / 2**20:.1f} MB, over the 10 MB limit; "
+                              "hint: fewer maps or a lower REPORT_DPI")
+        return atomic_write_text(out.out_dir / "report.html", html)
+    finally:
+        out.close()
