@@ -72,20 +72,21 @@ def cell_settings(cfg: Config):
 
 
 def _bias_dict(cfg: Config) -> dict:
-    """``[bias]`` entries that apply to every cell, in the downscaling's form."""
+    """``[bias]`` entries in the downscaling's form: per variable a list of corrections, each
+    for all cells or for one exposure class."""
     out = {}
     for name in ("air_temperature", "relative_humidity", "wind_speed", "precipitation",
                  "shortwave_down", "longwave_down"):
-        entries = getattr(cfg.bias, name)
-        for entry in entries:
-            if entry.exposure != "all":
-                continue
-            corr = {}
+        entries = []
+        for entry in getattr(cfg.bias, name):
+            corr = {"exposure": entry.exposure}
             if entry.factor is not None:
                 corr["factor"] = entry.factor
             if entry.offset is not None:
                 corr["offset"] = entry.offset
-            out[name] = corr
+            entries.append(corr)
+        if entries:
+            out[name] = entries
     return out
 
 

@@ -14,7 +14,7 @@ def test_help_carries_the_caution(capsys):
         main(["--help"])
     assert info.value.code == 0
     out = " ".join(capsys.readouterr().out.split())
-    assert "not a substitute for field observations" in out
+    assert "substitute for field observations" in out and "professional" in out
 
 
 def test_every_subcommand_has_help():

@@ -56,6 +56,8 @@ class CellBatch:
     elevation_m, slope_deg, aspect_deg, sky_view_frac, lon_deg, lat_deg, area_m2 :
         ndarray (cell,) float64 [m, deg, deg, 1, deg, deg, m2]; aspect NaN for flat cells.
     zone_code : ndarray (cell,) int64 — zone index, for zone-conserving drift.
+    exposure_class : ndarray (cell,) str — ``sheltered``/``neutral``/``exposed`` (from Sx),
+        selects exposure-specific ``[bias]`` entries and quantile-mapping tables.
     sx_deg : ndarray (cell, direction) float64, with ``sx_directions_deg`` (direction,).
     sun_azimuth_deg, sun_elevation_deg : ndarray (n_az,), (n_el,) — sunlit table axes.
     sunlit_fraction, sunlit_cos_incidence : ndarray (cell, n_az, n_el) float32.
@@ -78,10 +80,11 @@ class CellBatch:
     sunlit_fraction: np.ndarray
     sunlit_cos_incidence: np.ndarray
     weights: CellWeights
+    exposure_class: np.ndarray | None = None
     _per_cell: tuple = field(
         default=("cell_id", "elevation_m", "slope_deg", "aspect_deg", "sky_view_frac",
                  "lon_deg", "lat_deg", "area_m2", "zone_code", "sx_deg", "sunlit_fraction",
-                 "sunlit_cos_incidence"),
+                 "sunlit_cos_incidence", "exposure_class"),
         repr=False,
     )
 
@@ -94,7 +97,8 @@ class CellBatch:
         kw = {name: getattr(self, name) for name in (
             "sx_directions_deg", "sun_azimuth_deg", "sun_elevation_deg")}
         for name in self._per_cell:
-            kw[name] = getattr(self, name)[cells]
+            value = getattr(self, name)
+            kw[name] = None if value is None else value[cells]
         return CellBatch(weights=self.weights.rows(cells), **kw)
 
 
@@ -189,6 +193,10 @@ def _chunk_block(gf, batch: CellBatch, settings, data, z_pts, time, month_idx, c
     td_pts = _lapse.dew_point_from_relative_humidity(t_pts, rh_pts)
     td_c = _lapse.adjust_temperature_lapse(w @ td_pts, dz, lapse_td)
     rh_c = _lapse.humidity_at_new_temperature(t_c, td_c)
+    # the user's temperature and humidity corrections come before phase and longwave
+    corrected = {"t_air_k": t_c, "rh_frac": rh_c}
+    _apply_bias(corrected, month_idx, settings, batch.exposure_class, only=_BEFORE_PHASE)
+    t_c, rh_c = corrected["t_air_k"], np.clip(corrected["rh_frac"], 1e-4, 1.0)
     e_c = rh_c * _thermo.saturation_vapour_pressure_water_buck1981(t_c)
 
     if settings.pressure == "standard_atmosphere":
@@ -281,29 +289,59 @@ def _chunk_block(gf, batch: CellBatch, settings, data, z_pts, time, month_idx, c
     }
 
 
-def _apply_bias(out: dict, month_idx: np.ndarray, settings: DownscaleSettings) -> None:
-    for key, corr in settings.bias.items():
+_BEFORE_PHASE = ("air_temperature", "relative_humidity")
+
+
+def _entry_for(entries: list[dict], exposure: str) -> dict | None:
+    """The correction for one exposure class: its own entry, else the one for all cells."""
+    own = [e for e in entries if e.get("exposure", "all") == exposure]
+    general = [e for e in entries if e.get("exposure", "all") == "all"]
+    return (own or general or [None])[0]
+
+
+def _apply_bias(out: dict, month_idx: np.ndarray, settings: DownscaleSettings, exposure_class=None,
+                *, only=None) -> None:
+    """Offsets/factors, then quantile mapping, per exposure class of the cells, for the
+    variables in ``only`` (default: every variable except those corrected before phase)."""
+    from .quantile_mapping import select_qm_table
+
+    keys = only if only is not None else tuple(k for k in _BIAS_TARGET if k not in _BEFORE_PHASE)
+    n_cell = next(iter(out.values())).shape[0]
+    classes = np.full(n_cell, "neutral", dtype=object) if exposure_class is None else np.asarray(exposure_class, dtype=object)
+    for key in settings.bias:
         if key not in _BIAS_TARGET:
             raise InputError(
                 f"[bias] {key}: unknown variable; expected one of {sorted(_BIAS_TARGET)}"
             )
-        name, scale = _BIAS_TARGET[key]
-        offset = corr.get("offset")
-        if offset is not None:
-            offset = np.asarray(offset, dtype=np.float64) * scale
-        out[name] = _bias.apply_offset_factor(out[name], month_idx, offset=offset,
-                                              factor=corr.get("factor"))
     for table in settings.quantile_tables:
         if table.variable not in _BIAS_TARGET:
             raise InputError(
                 f"[bias] quantile_mapping: table for {table.variable!r} has no downscaled "
                 f"series; expected one of {sorted(_BIAS_TARGET)}"
             )
-        name = _BIAS_TARGET[table.variable][0]
-        out[name] = _bias.apply_quantile_table(out[name], month_idx, table)
-    out["rh_frac"] = np.clip(out["rh_frac"], 0.0, 1.0)
+    for key in keys:
+        name, scale = _BIAS_TARGET[key]
+        if name not in out:
+            continue
+        entries = settings.bias.get(key)
+        entries = [] if entries is None else ([entries] if isinstance(entries, dict) else list(entries))
+        for cls in np.unique(classes):
+            rows = classes == cls
+            corr = _entry_for(entries, cls)
+            if corr is not None:
+                offset = corr.get("offset")
+                if offset is not None:
+                    offset = np.asarray(offset, dtype=np.float64) * scale
+                out[name][rows] = _bias.apply_offset_factor(out[name][rows], month_idx, offset=offset,
+                                                            factor=corr.get("factor"))
+            table = select_qm_table(settings.quantile_tables, key, cls)
+            if table is not None:
+                out[name][rows] = _bias.apply_quantile_table(out[name][rows], month_idx, table)
+    if "rh_frac" in out:
+        out["rh_frac"] = np.clip(out["rh_frac"], 0.0, 1.0)
     for name in ("wind_m_s", "sw_in_w_m2", "lw_in_w_m2", "precip_kg_m2"):
-        out[name] = np.maximum(out[name], 0.0)
+        if name in out:
+            out[name] = np.maximum(out[name], 0.0)
 
 
 def downscale_cells(
@@ -384,7 +422,7 @@ def downscale_cells(
         out["precip_kg_m2"] = out["precip_kg_m2"] * _precip.drift_factor_exposure(
             sx_all, out["precip_kg_m2"], zone, cells_subset.area_m2,
             coef_per_deg=settings.drift_coef_per_deg, bounds=settings.drift_bounds)
-    _apply_bias(out, month_idx, settings)
+    _apply_bias(out, month_idx, settings, cells_subset.exposure_class)
     heights = grid_forcing.heights_m
     if not {"wind", "temperature"} <= set(heights):
         raise InputError(
@@ -492,4 +530,5 @@ def prepare_cells(
         sunlit_fraction=np.asarray(sun.fraction),
         sunlit_cos_incidence=np.asarray(sun.cos_incidence),
         weights=weights,
+        exposure_class=_wind.exposure_class_from_sx(cellset.sx_deg),
     )

@@ -58,8 +58,11 @@ class DownscaleSettings:
     wind_sx_coef_per_deg : speed reduction per degree of Sx shelter [deg-1].
     wind_factor_bounds : bounds of the wind-speed factor [1].
     liston_sturm_slope_ref_deg : slope mapped to the largest slope term [deg].
-    bias : {variable: {"offset": x | [12], "factor": x | [12]}} in canonical units
-        (K, %, m s-1, W m-2, kg m-2, Pa); variables as in ``[bias]``.
+    bias : {variable: {"offset": x | [12], "factor": x | [12]} or a list of such with
+        ``"exposure"`` (``all``, ``sheltered``, ``neutral``, ``exposed``)} in canonical units
+        (K, %, m s-1, W m-2, kg m-2, Pa); variables as in ``[bias]``. A cell takes the entry of
+        its exposure class, else the one for all cells. Temperature and humidity corrections
+        are applied before phase and longwave.
     quantile_tables : QuantileMappingTable objects to apply (after offsets/factors).
     chunk_cells : cells per chunk (bounds memory).
     time_block_h : hours read per block.
@@ -117,16 +120,23 @@ class DownscaleSettings:
                 "[downscale] solar_substeps, chunk_cells and time_block_h must be >= 1, got "
                 f"{self.solar_substeps}, {self.chunk_cells}, {self.time_block_h}"
             )
-        for key, corr in self.bias.items():
-            if not isinstance(corr, dict) or not set(corr) <= {"offset", "factor"}:
+        for key, entries in self.bias.items():
+            for corr in ([entries] if isinstance(entries, dict) else entries):
+                self._check_bias_entry(key, corr)
+
+    @staticmethod
+    def _check_bias_entry(key: str, corr) -> None:
+        if not isinstance(corr, dict) or not set(corr) <= {"offset", "factor", "exposure"}:
+            raise ConfigError(
+                f"[bias] {key}: expected {{offset = x}} and/or {{factor = x}} (a number or "
+                f"12 monthly values), optionally with exposure = <class>, got {corr!r}"
+            )
+        for kind, value in corr.items():
+            if kind == "exposure":
+                continue
+            n = len(value) if isinstance(value, (list, tuple)) else 1
+            if n not in (1, 12):
                 raise ConfigError(
-                    f"[bias] {key}: expected {{offset = x}} and/or {{factor = x}} (a number or "
-                    f"12 monthly values), got {corr!r}"
+                    f"[bias] {key}.{kind}: expected a number or a list of 12 (January.."
+                    f"December), got {n} values"
                 )
-            for kind, value in corr.items():
-                n = len(value) if isinstance(value, (list, tuple)) else 1
-                if n not in (1, 12):
-                    raise ConfigError(
-                        f"[bias] {key}.{kind}: expected a number or a list of 12 (January.."
-                        f"December), got {n} values"
-                    )

@@ -5,6 +5,8 @@ from __future__ import annotations
 import numpy as np
 
 __all__ = [
+    "EXPOSURE_CLASSES",
+    "exposure_class_from_sx",
     "sx_at_direction",
     "wind_factor_winstral_sx",
     "wind_factor_liston_sturm1998",
@@ -115,3 +117,33 @@ def wind_factor_liston_sturm1998(
     rel = np.radians(np.asarray(wind_from_deg) - np.nan_to_num(np.asarray(aspect_deg, dtype=np.float64)))
     omega_s = 0.5 * beta * np.cos(rel)
     return np.clip(1.0 + gamma_s * omega_s, bounds[0], bounds[1])
+
+
+#: Exposure classes shared by cells, stations and the ``[bias]`` entries.
+EXPOSURE_CLASSES = ("sheltered", "neutral", "exposed")
+
+
+def exposure_class_from_sx(sx_deg: np.ndarray, *, threshold_deg: float = 2.0) -> np.ndarray:
+    """Exposure class of cells or points from their Winstral Sx over all wind directions.
+
+    The mean maximum-upwind slope over the directions (Winstral, Elder & Davis 2002,
+    J. Hydrometeor. 3(5), 524-538, doi:10.1175/1525-7541(2002)003<0524:SDSWRU>2.0.CO;2)
+    above ``+threshold_deg`` is sheltered, below ``-threshold_deg`` exposed, else neutral.
+    The threshold is ours (a few degrees separates hollows from ridges at 100 m grids).
+
+    Parameters
+    ----------
+    sx_deg : ndarray (point, direction) float
+        Sx per wind direction [deg], positive = sheltered.
+    threshold_deg : float
+        Half width of the neutral class [deg].
+
+    Returns
+    -------
+    ndarray (point,) of str: ``sheltered``, ``neutral`` or ``exposed``.
+    """
+    mean = np.nanmean(np.asarray(sx_deg, dtype=np.float64), axis=-1)
+    out = np.full(mean.shape, "neutral", dtype=object)
+    out[mean > threshold_deg] = "sheltered"
+    out[mean < -threshold_deg] = "exposed"
+    return out

@@ -16,6 +16,9 @@ from regionmap.errors import OutputError
 
 __all__ = ["atomic_path", "atomic_write_text"]
 
+_UMASK = os.umask(0)
+os.umask(_UMASK)
+
 
 def _clean_leftovers(target: Path) -> None:
     for old in target.parent.glob(f".{target.name}.*.tmp{target.suffix}"):
@@ -42,6 +45,7 @@ def atomic_path(path: str | os.PathLike) -> Iterator[Path]:
             prefix=f".{target.name}.", suffix=f".tmp{target.suffix}", dir=target.parent
         )
         os.close(fd)
+        os.chmod(tmp_name, 0o666 & ~_UMASK)  # mkstemp makes 0600; outputs are shared files
     except OSError as exc:
         raise OutputError(f"cannot write {target}: {exc.strerror or exc}") from exc
     tmp = Path(tmp_name)
