@@ -310,7 +310,7 @@ def rain_crust_lines(limits: pd.DataFrame, dem_elevation_m: np.ndarray, transfor
         limits.assign(limit="lower", elevation_m=limits["lower_m"], lower_m=limits["lower_low_m"],
                       upper_m=limits["lower_high_m"], bound=limits["lower_bound"]),
     ], ignore_index=True)
-    todo = todo[(todo["bound"] == "") & np.isfinite(todo["elevation_m"])]
+    todo = todo[(todo["bound"] == "") & np.isfinite(todo["elevation_m"].to_numpy(np.float64))]
     for r in todo.itertuples():  # one contour per limit line (zones × aspects × events)
         key = (r.zone, r.aspect_sector)
         if key not in region.index:

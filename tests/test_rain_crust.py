@@ -4,6 +4,7 @@ rain crust designed on cells with mean elevation in [1400, 2000) m."""
 from __future__ import annotations
 
 import numpy as np
+import pandas as pd
 import pytest
 import rasterio.features
 import geopandas as gpd
@@ -123,3 +124,19 @@ def test_contour_lines_lie_on_the_dem_at_their_elevation_inside_their_zone(run):
     # through the summit column, so each zone's share is only near one half)
     up = lines[lines["limit"] == "upper"]
     assert up.length.sum() == pytest.approx(2 * np.pi * 1000.0, rel=0.01)
+
+
+def test_no_event_gives_an_empty_layer_that_still_writes(tmp_path):
+    import affine
+    import pyogrio
+    from regionmap.io.writers import write_geopackage
+
+    cols = ["event_id", "event_time", "zone", "aspect_sector", "upper_m", "upper_bound", "upper_low_m",
+            "upper_high_m", "lower_m", "lower_bound", "lower_low_m", "lower_high_m", "n_members"]
+    lim = pd.DataFrame(columns=cols)
+    regions = gpd.GeoDataFrame({"zone": ["A"], "aspect_sector": ["N"]}, geometry=[shapely.box(0, 0, 1, 1)], crs=CRS)
+    lines = rain_crust_lines(lim, np.zeros((3, 3)), affine.Affine.identity(), CRS, regions)
+    assert len(lines) == 0 and lines.crs == CRS
+    write_geopackage(tmp_path / "z.gpkg", {"rain_crust_line": lines})
+    assert [n for n, _ in pyogrio.list_layers(tmp_path / "z.gpkg")] == ["rain_crust_line"]
+    assert zone_rain_crust_columns(lim, pd.Series(dtype=object)).empty
