@@ -15,7 +15,8 @@ Names next to the target folder ``OUT`` (all in its parent folder):
 
 Rule for replacing ``OUT`` (exactly):
 
-1. ``OUT`` missing, or an empty folder → written.
+1. ``OUT`` missing, or an empty folder → written (an empty folder is removed with
+   ``rmdir``, which cannot lose anything, and the new one renamed into its place).
 2. ``OUT`` holds the marker → replaced (the previous output is deleted after the swap).
 3. ``OUT`` non-empty without the marker, ``force=False`` → :class:`OutputError`, nothing
    touched.
@@ -28,7 +29,9 @@ Rule for replacing ``OUT`` (exactly):
 Recovery at start (under the lock): a ``-new-`` leftover is an interrupted write and is
 deleted; an ``-old-`` leftover with ``OUT`` missing is an interrupted swap and is renamed back
 to ``OUT``; an ``-old-`` leftover with ``OUT`` present is a finished swap whose clean-up was
-interrupted and is deleted. Leftovers without the marker are left alone and reported.
+interrupted and is deleted. Leftovers without the marker are left alone and reported. A
+``force`` swap interrupted between its two renames leaves ``OUT`` missing and the foreign
+folder kept as ``OUT.replaced-<time>``; it is not moved back automatically.
 """
 
 from __future__ import annotations
