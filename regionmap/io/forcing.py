@@ -70,6 +70,8 @@ _TARGET = {
     "surface_air_pressure": "Pa",
     "freezing_rain_frac": "1",
     "upper_air_temperature": "K",
+    "surface_altitude": "m",
+    "surface_geopotential": "m2 s-2",
 }
 _AMOUNTS = {
     "precipitation_amount",
@@ -315,7 +317,7 @@ def open_forcing(path_or_glob, *, variables=None, heights_m=None, start=None, en
     for role, members in chosen.items():
         sources[role] = [_make_source(sn, das, paths, times, tdims, (ydim, xdim), shape, mapping)
                          for sn, das in members]
-    alt = _surface_altitude(static_path, base_dir, datasets, paths, (ydim, xdim), shape)
+    alt = _surface_altitude(static_path, base_dir, datasets, paths, shape, mapping)
 
     wide = _wide_axis(times)
     for members in sources.values():
@@ -357,11 +359,19 @@ def _expand(path_or_glob, base_dir) -> list[str]:
 
 
 def _open_one(path: str) -> xr.Dataset:
-    try:
+    """Open lazily with one dask chunk along time (the time operators need the whole axis)."""
+    def open_(chunks):
         if path.rstrip("/").endswith(".zarr") or os.path.isdir(path):
             consolidated = os.path.exists(os.path.join(path, ".zmetadata"))
-            return xr.open_zarr(path, chunks={}, consolidated=consolidated)
-        return xr.open_dataset(path, chunks={}, decode_timedelta=False)
+            return xr.open_zarr(path, chunks=chunks, consolidated=consolidated)
+        return xr.open_dataset(path, chunks=chunks, decode_timedelta=False)
+
+    try:
+        probe = open_(None)
+        tdims = [c.dims[0] for c in probe.coords.values()
+                 if c.ndim == 1 and np.issubdtype(c.dtype, np.datetime64)]
+        probe.close()
+        return open_({tdims[0]: -1} if tdims else {})
     except Exception as exc:
         raise ForcingReadError(
             f"forcing file {path!r} cannot be opened as NetCDF or Zarr ({type(exc).__name__}: {exc})"
@@ -560,18 +570,19 @@ def _level_pressure(var, path):
     return lev.values.astype(np.float64) * scale + offset
 
 
-def _surface_altitude(static_path, base_dir, datasets, paths, spatial, shape):
+def _surface_altitude(static_path, base_dir, datasets, paths, shape, mapping):
     if static_path is not None:
         sp = _expand(static_path, base_dir)[0]
         datasets, paths = [_open_one(sp)], [sp]
     ds, p = datasets[0], paths[0]
-    for sn, target, factor in (("surface_altitude", "m", 1.0), ("surface_geopotential", "m2 s-2", 1 / U.G0_M_S2)):
-        cands = _candidates(ds, sn)
+    for sn, factor in (("surface_altitude", 1.0), ("surface_geopotential", 1 / U.G0_M_S2)):
+        entry = mapping.get(sn, {})
+        cands = [ds[entry["name"]]] if entry.get("name") in ds else _candidates(ds, sn)
         if not cands:
             continue
         var = cands[0]
         try:
-            scale, offset = U.affine_conversion(var.attrs.get("units", ""), target)
+            scale, offset = U.affine_conversion(entry.get("units") or var.attrs.get("units", ""), _TARGET[sn])
         except U.UnitsProblem as exc:
             raise ForcingReadError(f"forcing file {p!r}, variable {var.name!r} ({sn}): {exc}") from None
         while var.ndim > 2:
