@@ -79,8 +79,7 @@ _UNKNOWN_GRAIN = "#BBBBBB"
 METRIC_RAMP: tuple[str, ...] = (
     "#F7F7FB", "#DCDFF0", "#B9BFE1", "#959ECF", "#737CBB", "#5559A3", "#3B3C86", "#232262",
 )
-METRIC_CMAP = LinearSegmentedColormap.from_list("regionmap_indigo", METRIC_RAMP, N=256)
-METRIC_CMAP.set_bad("#FFFFFF", 0.0)
+METRIC_CMAP = LinearSegmentedColormap.from_list("regionmap_indigo", METRIC_RAMP, N=256).with_extremes(bad=(1.0, 1.0, 1.0, 0.0))
 
 #: Print resolution of the PNGs under figures/ [dots per inch].
 PRINT_DPI = 200
