@@ -146,10 +146,15 @@ def test_storm_veers_and_cools_behind_the_front(season):
     assert sub["wind_speed"].values.max() > 8.0
 
 
+@pytest.mark.filterwarnings("ignore:DatetimeIndex.dayofyear")
 def test_shortwave_respects_the_sun_pvlib(season):
     pvlib = pytest.importorskip("pvlib")
     ds = season["ds"]
-    lat, lon = 46.6, 10.4  # the synthetic DEM's corner region (EPSG:32632 x=600 km, y=5180 km)
+    from pyproj import Transformer
+
+    # the file's first grid point, in lon/lat by pyproj
+    lon, lat = Transformer.from_crs(DEM_CRS, "EPSG:4326", always_xy=True).transform(
+        float(ds["x"][0]), float(ds["y"][0]))
     sub = ds.sel(time=slice("2025-12-01", "2025-12-10"))
     times = sub["time"].values
     import pandas as pd

@@ -161,3 +161,33 @@ def test_zarr_store_reads_like_netcdf(tmp_path):
     gn = open_forcing(write(ds, tmp_path))
     np.testing.assert_array_equal(gz.air_temperature.values, gn.air_temperature.values)
     assert gz.crs is None and gz.grid.kind == "latlon2d"
+
+
+def test_half_hourly_amounts_sum_to_hourly_and_start_end_cut(tmp_path):
+    # 30-min data with bounds: two half-hour sums make each hourly amount (CF-1.8 §7.3)
+    ds = make_forcing(n_h=24)
+    t = T0 - np.timedelta64(30, "m") + np.arange(48) * np.timedelta64(30, "m")
+    half = ds.interp(time=t, kwargs={"fill_value": "extrapolate"})
+    amounts = np.arange(48 * 6 * 7, dtype=float).reshape(48, 6, 7) % 5 / 8.0
+    half["pr"] = (("time", "y", "x"), amounts, ds["pr"].attrs)
+    half["time_bnds"] = (("time", "nv"), np.stack([t - np.timedelta64(30, "m"), t], axis=1))
+    half["time"].attrs["bounds"] = "time_bnds"
+    gf = open_forcing(write(half, tmp_path), start="2026-01-01T03:00", end="2026-01-01T20:00")
+    assert str(gf.time[0]) == "2026-01-01T03:00:00" and gf.time.size == 18
+    expect = amounts.reshape(24, 2, 6, 7).sum(axis=1)[2:20]  # hour ending 03:00 = halves 2 and 3
+    np.testing.assert_allclose(gf.precipitation.values, expect, rtol=1e-6)
+
+
+def test_settings_object_and_freezing_rain_variable(tmp_path):
+    from regionmap.config import ForcingSection
+
+    ds = make_forcing()
+    ds["fzra"] = (("time", "y", "x"), np.full((48, 6, 7), 0.25), {"units": "1"})
+    write(ds, tmp_path)
+    section = ForcingSection(path="f.nc", variables={"freezing_rain_frac": {"name": "fzra"}},
+                             end="2026-01-02T00:00")
+    gf = open_forcing(section, base_dir=tmp_path)
+    assert str(gf.time[-1]) == "2026-01-02T00:00:00"
+    np.testing.assert_allclose(gf.freezing_rain_frac.values, 0.25)
+    assert gf.upper_air_temperature is None
+    assert "freezing_rain_frac" in gf.available
