@@ -258,49 +258,33 @@ def _add_snowfall(fw, iw, n, mass, t_air, wind, now_s, event, p, cap):
 
 @njit(cache=True, nogil=True, error_model="numpy")
 def _glaze(fw, iw, n, water, now_s, event, p, cap):
-    """Freezing rain on a sub-freezing surface: a glaze (IF) of ``water`` kg m-2 at 0 degC;
-    its latent heat warms the layers below, top down, as far as their cold content allows;
-    what cannot freeze stays liquid in the glaze layer. Returns (n, status)."""
-    status = 0
+    """Freezing rain on a sub-freezing surface freezes on contact: a glaze (IF) layer of
+    ``water`` kg m-2 of ice at 0 degC, thickness water / 917. Its latent heat is released at
+    the surface (returned, J m-2) and enters the step's surface energy balance, so it leaves
+    to the air and into the snow; what the surface cannot shed melts back and drains.
+    Returns (n, status, latent heat)."""
     top = n - 1
     if iw[I_CODE, top] == _IF and iw[I_CRUST, top] == GLAZE and iw[I_EVENT, top] == event:
         g = top
     else:
         n, ok = _make_room(fw, iw, n, now_s, p, cap)
         if not ok:
-            return n, ST_LAYER_FULL
+            return n, ST_LAYER_FULL, 0.0
+        t_top = fw[F_TEMP, n - 1]
         n = insert_top(fw, iw, n)
         g = n - 1
-        _set_layer(fw, iw, g, 0.0, 0.0, T_MELT_K, 1.0, 0.0, 0.0, _IF, GLAZE, now_s, event)
-    # the water arrives liquid at 0 degC (zero enthalpy); heat to extract to freeze it
-    h_g = layer_enthalpy(fw[F_ICE, g], fw[F_LIQ, g], fw[F_TEMP, g])
-    m_g = fw[F_ICE, g] + fw[F_LIQ, g] + water
-    need = L_FUSION_J_KG * m_g + h_g  # heat to remove to reach all ice at 0 degC
-    for i in range(g - 1, -1, -1):
-        if need <= 0.0:
-            break
-        h_i = layer_enthalpy(fw[F_ICE, i], fw[F_LIQ, i], fw[F_TEMP, i])
-        m_i = fw[F_ICE, i] + fw[F_LIQ, i]
-        cold = -L_FUSION_J_KG * m_i - h_i  # heat that brings layer i to 0 degC, dry
-        if cold > 0.0:
-            q = min(cold, need)
-            ice_i, liq_i, t_i, _ = resolve_phase(m_i, h_i + q)
-            fw[F_ICE, i] = ice_i
-            fw[F_LIQ, i] = liq_i
-            fw[F_TEMP, i] = t_i
-            need -= q
-            h_g -= q
-    ice_g, liq_g, t_g, _ = resolve_phase(m_g, h_g)
-    fw[F_ICE, g] = ice_g
-    fw[F_LIQ, g] = liq_g
-    fw[F_TEMP, g] = t_g
-    fw[F_THICK, g] = glaze_thickness_m(ice_g) + liq_g / RHO_WATER_KG_M3
+        _set_layer(fw, iw, g, 0.0, 0.0, t_top, 1.0, 0.0, 0.0, _IF, GLAZE, now_s, event)
+    c_old = C_ICE_J_KG_K * fw[F_ICE, g] + C_WATER_J_KG_K * fw[F_LIQ, g]
+    c_add = C_ICE_J_KG_K * water
+    fw[F_TEMP, g] = (c_old * fw[F_TEMP, g] + c_add * T_MELT_K) / (c_old + c_add)
+    fw[F_ICE, g] += water
+    fw[F_THICK, g] += glaze_thickness_m(water)
     iw[I_FORM, g] = now_s
-    return n, status
+    return n, 0, L_FUSION_J_KG * water
 
 
 @njit(cache=True, nogil=True, error_model="numpy")
-def _energy_and_conduction(fw, n, sv, ta, q_air, pres, wind, sw_in, lw_in, dt, zu, zt, p,
+def _energy_and_conduction(fw, n, sv, ta, q_air, pres, wind, sw_in, lw_in, q_extra, dt, zu, zt, p,
                            tn, kn, cn, dzn, sn, lo, di, up, rhs, work, sol):
     """Surface energy balance coupled to one backward-Euler conduction step of snow + soil.
 
@@ -328,14 +312,14 @@ def _energy_and_conduction(fw, n, sv, ta, q_air, pres, wind, sw_in, lw_in, dt, z
         sn[j] = 0.0
     albedo = sv[V_ALBEDO]
     sw_abs = (1.0 - albedo) * sw_in if n > 0 else 0.0
-    sw_surf = p[P_SW_SURFACE_FRAC] * sw_abs
-    remaining = sw_abs - sw_surf
+    remaining = sw_abs - p[P_SW_SURFACE_FRAC] * sw_abs
+    sw_surf = p[P_SW_SURFACE_FRAC] * sw_abs + q_extra  # heat absorbed at the skin
     for l in range(n - 1, -1, -1):
         dens = fw[F_ICE, l] / max(fw[F_THICK, l], 1e-9)
         a = remaining * penetration_fraction(dens, fw[F_GRAIN, l], fw[F_THICK, l])
         sn[ns + l] = a
         remaining -= a
-    sw_snow = sw_abs - sw_surf - remaining
+    sw_snow = sw_abs - p[P_SW_SURFACE_FRAC] * sw_abs - remaining
     if n > 0:
         sn[ns - 1] += remaining  # what passes the snow warms the soil
     # top boundary G = a_top + b_top * T_top: the skin balance linearised about Ts*, Ts*
@@ -394,7 +378,7 @@ def _energy_and_conduction(fw, n, sv, ta, q_air, pres, wind, sw_in, lw_in, dt, z
         ts = T_MELT_K
     q_net, sens, lat, vap = surface_fluxes(ts, ta, q_air, pres, wind, lw_in, sw_surf, eps, zu,
                                            zt, z0, floor)
-    lw_net = q_net - sw_surf - sens - lat
+    lw_net = q_net - sw_surf - sens - lat  # (q_extra stays out of lw_net)
     return q_net, sw_snow, ground, sw_abs, lw_net, sens, lat, vap, ts
 
 
@@ -657,11 +641,13 @@ def _step(fw, iw, sv, si, ring_m, ring_d, ta, rh, pres, wind_raw, sw_in, lw_in, 
             sv[V_SNOW_AGE_H] = 0.0
     sv[V_SNOW_AGE_H] += hours
     # freezing rain on a sub-freezing snow surface: glaze
+    q_extra = 0.0
     if fz > 0.0 and n > 0 and sv[V_TSURF] < T_MELT_K:
         e0 = column_enthalpy(fw, n, sv[V_SH_MASS])
-        n, st = _glaze(fw, iw, n, fz, now_s, si[J_FZ_EV], p, cap)
+        n, st, q_latent = _glaze(fw, iw, n, fz, now_s, si[J_FZ_EV], p, cap)
         status |= st
-        e_mass += column_enthalpy(fw, n, sv[V_SH_MASS]) - e0
+        e_mass += column_enthalpy(fw, n, sv[V_SH_MASS]) - e0 + q_latent
+        q_extra = q_latent / dt
         if st == 0:
             acc[A_FZ] = fz
             fz = 0.0
@@ -689,7 +675,7 @@ def _step(fw, iw, sv, si, ring_m, ring_d, ta, rh, pres, wind_raw, sw_in, lw_in, 
     for i in range(n):
         wk[0, i] = fw[F_ICE, i]
     q_net, sw_snow, ground, sw_abs, lw_net, sens, lat, vap, ts = _energy_and_conduction(
-        fw, n, sv, ta, q_air, pres, wind, sw_in, lw_in, dt, zu, zt, p,
+        fw, n, sv, ta, q_air, pres, wind, sw_in, lw_in, q_extra, dt, zu, zt, p,
         wk[1], wk[2], wk[3], wk[4], wk[5], wk[6], wk[7], wk[8], wk[9], wk[10], wk[11])
     e_flux = dt * (q_net + sw_snow + ground)
     if n > 0:
