@@ -133,37 +133,97 @@ def make_demo_zones(path: str | os.PathLike) -> Path:
     return write_geojson(path, demo_zones())
 
 
-def run_demo(out: str | os.PathLike, progress: bool = True) -> int:
-    """Build the demo region, compute terrain and cells, and print the per-zone cell table.
+#: The demo run: the season up to a mid-February analysis with a 72 h forecast after it.
+DEMO_RUN = {
+    "start": "2025-11-01T01:00",
+    "analysis_time": "2026-02-14T23:00",
+    "end": "2026-02-17T23:00",
+    "local_timezone": "Etc/GMT-1",
+    "band_step_m": 100,
+}
 
-    Returns the exit status (0).
+
+def demo_config_text(*, forcing: str = "forcing.nc", dem: str = "demo_range.tif",
+                     zones: str = "demo_zones.geojson", out: str = "rerun") -> str:
+    """The demo's TOML config (paths relative to the config file)."""
+    r = DEMO_RUN
+    return f"""# regionmap demo: an invented range, invented zones and an invented season.
+# Model output is guidance for trained people; field observations, the local avalanche
+# service and professional standards come first.
+[region]
+dem = "{dem}"
+zones = "{zones}"
+zone_field = "name"
+
+[cells]
+band_step_m = {r["band_step_m"]}
+aspect_sectors = 8
+flat_below_deg = 10
+avalanche_terrain_deg = [30, 50]
+
+[forcing]
+path = "{forcing}"
+start = "{r["start"]}"
+end = "{r["end"]}"
+analysis_time = "{r["analysis_time"]}"
+
+[output]
+dir = "{out}"
+diagnostics_every = "1h"
+local_timezone = "{r["local_timezone"]}"
+observation_hour = 7
+"""
+
+
+def build_demo_scenario(folder: str | os.PathLike, *, raw: bool = False) -> Path:
+    """Write the demo's inputs (DEM, zones, forcing, events, config) into ``folder``.
+
+    Returns the config path. ``raw=True`` writes the forcing in the raw, non-CF variant with
+    the matching ``[forcing] variables`` mapping in the config.
     """
-    from regionmap import CAUTION
-    from regionmap.cells import CellSettings, build_cells
+    from regionmap.demo_weather import demo_variables_mapping, write_demo_events, write_demo_forcing
+    from regionmap.io.atomic import atomic_write_text
     from regionmap.io.dem import read_dem
-    from regionmap.io.writers import write_geopackage, write_geotiff
-    from regionmap.io.zones import read_zones
-    from regionmap.terrain import TerrainSettings, compute_terrain
 
-    out = Path(out)
-    out.mkdir(parents=True, exist_ok=True)
-    dem_path = make_demo_dem(out / "demo_range.tif")
-    zones_path = make_demo_zones(out / "demo_zones.geojson")
+    folder = Path(folder)
+    folder.mkdir(parents=True, exist_ok=True)
+    dem_path = make_demo_dem(folder / "demo_range.tif")
+    make_demo_zones(folder / "demo_zones.geojson")
     dem = read_dem(dem_path)
-    zones = read_zones(zones_path, "name", dem)
-    terrain = compute_terrain(dem, TerrainSettings())
-    cells = build_cells(dem, terrain, zones, CellSettings(band_edges_m=(1500, 1800, 2100, 2400, 2700, 3000)))
-    (out / "maps").mkdir(exist_ok=True)
-    write_geotiff(out / "maps" / "cell_id.tif", cells.index, transform=dem.transform, crs=dem.crs,
-                  nodata=-1, description="cell_id (pixel -> cell index)")
-    write_geopackage(out / "zones.gpkg", {"cells": cells.polygons()})
-    t = cells.table
-    summary = t.groupby("zone", sort=False).agg(
-        cells=("pixel_count", "size"), area_km2=("area_km2", "sum"), small_cells=("small", "sum"),
-        min_elevation_m=("elevation_m", "min"), max_elevation_m=("elevation_m", "max"),
-        mean_sky_view=("sky_view_frac", "mean"),
-    )
-    print(summary.round(2).to_string())
-    print(f"\n{len(t)} cells; outputs in {out}")
-    print(CAUTION)
+    forcing = "forcing_raw.nc" if raw else "forcing.nc"
+    write_demo_forcing(folder / forcing, dem.elevation_m, dem.transform, dem.crs, raw=raw,
+                       end=DEMO_RUN["end"])
+    write_demo_events(folder / "events_expected.json")
+    text = demo_config_text(forcing=forcing)
+    if raw:
+        mapping = demo_variables_mapping()
+        lines = ["", "[forcing.variables]"]
+        for name, spec in mapping.items():
+            items = ", ".join(f"{k} = {str(v).lower() if isinstance(v, bool) else repr(v)}".replace("'", '"')
+                              for k, v in spec.items())
+            lines.append(f"{name} = {{ {items} }}")
+        text = text.replace("\n[output]", "\n".join(lines) + "\n\n[output]", 1)
+        text = text.replace('analysis_time = "', 'heights_m = { wind = 10, temperature = 2 }\nanalysis_time = "', 1)
+    return atomic_write_text(folder / "demo.toml", text)
+
+
+def run_demo(out: str | os.PathLike, progress: bool = True) -> int:
+    """Build the invented demo scenario and run the whole chain on it.
+
+    The scenario's inputs are kept in ``<out>/scenario/`` so the run can be repeated with
+    ``regionmap run <out>/scenario/demo.toml``. Prints the per-zone table with the rain-crust
+    sentences and the caution; returns the exit status (0).
+    """
+    import tempfile
+
+    from regionmap.cli import print_outcome
+    from regionmap.config import load_config
+    from regionmap.runner import execute
+
+    with tempfile.TemporaryDirectory(prefix="regionmap-demo-") as tmp:
+        config_path = build_demo_scenario(Path(tmp) / "scenario")
+        cfg = load_config(config_path)
+        outcome = execute(cfg, out_dir=Path(out), progress=progress,
+                          extra_files={f"scenario/{p.name}": p for p in config_path.parent.iterdir()})
+    print_outcome(outcome)
     return 0

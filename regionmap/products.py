@@ -186,9 +186,13 @@ def write_products(out: Path, cfg: Config, region, ctx, *, map_time, state0, is_
     zones["valid_time"] = str(map_time)
     zones["is_forecast"] = bool(is_forecast)
     cells = tables.cells
-    maps = {name: cells[name].reindex(table.index).to_numpy() for name in
-            ("depth_hoar_fraction", "crust_count", "new_snow_72h_cm", "snow_depth_cm", "pwl_depth_cm")
-            if name in cells.columns}
+    # a cell is one simulated column, so its depth-hoar fraction is its presence flag (0 or 1)
+    sources = {"depth_hoar_fraction": "depth_hoar_present", "crust_count": "crust_count",
+               "new_snow_72h_cm": "new_snow_72h_cm", "new_snow_24h_cm": "new_snow_24h_cm",
+               "snow_depth_cm": "snow_depth_cm", "pwl_depth_cm": "pwl_depth_cm", "pwl_slab_cm": "pwl_slab_cm",
+               "new_snow_72h_kg_m2": "new_snow_72h_kg_m2", "threshold_count_max": "threshold_count_max"}
+    maps = {name: cells[src].reindex(table.index).to_numpy(np.float64)
+            for name, src in sources.items() if src in cells.columns}
     write_gis(out, region.cells, region.zones, zones, cells, lines, loc, maps,
               transform=region.dem.transform, crs=region.dem.crs, valid_time=map_time)
     _write_csv(out / "band_aspect.csv", tables.band_aspect)

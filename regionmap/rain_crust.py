@@ -319,7 +319,7 @@ def rain_crust_lines(limits: pd.DataFrame, dem_elevation_m: np.ndarray, transfor
         lines = _contour_lines(dem, transform, r.elevation_m, poly.bounds)
         if not lines:
             continue
-        clipped = shapely.intersection(shapely.multilinestrings(lines), poly)
+        clipped = shapely.intersection(shapely.MultiLineString([shapely.LineString(ln) for ln in lines]), poly)
         parts = [p for p in shapely.get_parts(clipped) if p.geom_type == "LineString" and not p.is_empty]
         if not parts:
             continue

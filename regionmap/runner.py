@@ -13,6 +13,7 @@ import hashlib
 import json
 import os
 import platform
+import shutil
 import time as _time
 from dataclasses import dataclass
 from importlib import metadata
@@ -57,7 +58,7 @@ LAYER_VARS = {
     "crust_kind": ("str", {"long_name": "crust kind: none, melt-freeze, sun, rain, glaze"}),
     "deposition_time": ("i8", {"units": "seconds since 1970-01-01", "long_name": "deposition time of the layer's snow"}),
     "formation_time": ("i8", {"units": "seconds since 1970-01-01", "long_name": "when the layer became what it is (burial of SH, refreeze of a crust, else deposition)"}),
-    "event_id": ("i8", {"units": "hours since 1970-01-01", "long_name": "start hour of the precipitation event that made the layer or its crust"}),
+    "event_id": ("i8", {"long_name": "id of the precipitation event that made the layer or its crust: its start as whole hours since 1970-01-01 UTC"}),
 }
 
 _VERSIONS = ("numpy", "numba", "xarray", "dask", "distributed", "netCDF4", "rasterio", "geopandas",
@@ -150,7 +151,7 @@ def _warm_kernels(params) -> None:
 
 def execute(cfg: Config, *, out_dir: Path | None = None, continue_from: Path | None = None,
             workers: int | None = None, scheduler: str | None = None, force: bool = False,
-            progress: bool = True, restarts=()) -> RunOutcome:
+            progress: bool = True, restarts=(), extra_files: dict | None = None) -> RunOutcome:
     """Run the chain for ``cfg`` and write every output of DESIGN §3.
 
     Parameters
@@ -162,6 +163,7 @@ def execute(cfg: Config, *, out_dir: Path | None = None, continue_from: Path | N
     force : allow replacing a non-empty folder that is not a regionmap output.
     progress : show a progress bar.
     restarts : observed-profile restarts (see :mod:`regionmap.restart`).
+    extra_files : relative name → file copied into the output folder (the demo's inputs).
     """
     from tqdm.auto import tqdm
 
@@ -275,6 +277,10 @@ def execute(cfg: Config, *, out_dir: Path | None = None, continue_from: Path | N
         record = _run_record(cfg, region, gf, dsettings, params, period, map_time, timings, forcing_sums,
                              events, status_bits, continue_from, restart_record, products.ensemble_cost,
                              workers=workers, scheduler=scheduler, chunks=len(chunks))
+        for name, src in (extra_files or {}).items():
+            dst = out / name
+            dst.parent.mkdir(parents=True, exist_ok=True)
+            shutil.copy2(src, dst)
         atomic_write_text(out / "run.json", json.dumps(record, indent=2, default=str))
         with contextlib.suppress(ImportError):
             from regionmap.report import write_report
