@@ -75,6 +75,7 @@ class _Figure:
 def _make_specs(out: RunOutputs) -> list[tuple[str, str, str, callable]]:
     """(section, file name, caption, draw function) of every figure of the run."""
     specs = []
+    out.band_aspect()  # computed once here, inherited by forked workers
     for name in available_maps(out):
         specs.append(("maps", f"map_{name}.png", f"Map: {name.replace('_', ' ')}",
                       lambda name=name: plot_metric_map(out, name)))
@@ -138,19 +139,49 @@ def _thumbnail(png: bytes) -> tuple[bytes, tuple[int, int]]:
     return buf.getvalue(), size
 
 
-def _render(out: RunOutputs, *, thumbnails: bool) -> tuple[list[_Figure], list[Path]]:
+_JOB: tuple | None = None  # (specs, thumbnails) handed to forked workers
+
+
+def _draw_one(i: int) -> tuple[bytes, bytes, tuple[int, int]]:
+    specs, thumbnails = _JOB
+    fig = specs[i][3]()
+    buf = io.BytesIO()
+    fig.savefig(buf, dpi=PRINT_DPI, format="png")
+    png = buf.getvalue()
+    thumb, size = _thumbnail(png) if thumbnails else (b"", (0, 0))
+    return png, thumb, size
+
+
+def _draw_all(out: RunOutputs, specs, thumbnails: bool, workers: int) -> list:
+    """Draw the figures, in ``workers`` forked processes when there are enough of them (the
+    figures are independent; matplotlib's Agg rendering is CPU-bound and holds the GIL)."""
+    global _JOB
+    import multiprocessing as mp
+
+    _JOB = (specs, thumbnails)
+    try:
+        if workers > 1 and len(specs) >= 4 and "fork" in mp.get_all_start_methods():
+            out.close()  # children reopen the NetCDF files themselves
+            with mp.get_context("fork").Pool(workers) as pool:
+                return pool.map(_draw_one, range(len(specs)), chunksize=1)
+        return [_draw_one(i) for i in range(len(specs))]
+    finally:
+        _JOB = None
+
+
+def _render(out: RunOutputs, *, thumbnails: bool, workers: int | None = None) -> tuple[list[_Figure], list[Path]]:
+    import os
+
     figdir = out.out_dir / "figures"
     figures, written = [], []
-    for section, name, caption, draw in _make_specs(out):
-        fig = draw()
-        buf = io.BytesIO()
-        fig.savefig(buf, dpi=PRINT_DPI, format="png")
-        png = buf.getvalue()
+    specs = _make_specs(out)
+    workers = min(2, os.cpu_count() or 1) if workers is None else workers
+    drawn = _draw_all(out, specs, thumbnails, workers)
+    for (section, name, caption, _), (png, thumb, size) in zip(specs, drawn):
         path = figdir / name
         with atomic_path(path) as tmp:
             tmp.write_bytes(png)
         written.append(path)
-        thumb, size = _thumbnail(png) if thumbnails else (b"", (0, 0))
         figures.append(_Figure(section, caption, path, thumb, size))
     for zone in out.zone_names:
         for m in OVERVIEW_METRICS:

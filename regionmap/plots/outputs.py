@@ -288,6 +288,7 @@ class RunOutputs:
         return zone
 
     def close(self) -> None:
+        """Close the NetCDF files (they reopen lazily when needed again)."""
         for name in ("cells", "profiles"):
             if name in self.__dict__:
-                self.__dict__[name].close()
+                self.__dict__.pop(name).close()

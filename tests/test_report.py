@@ -1,0 +1,132 @@
+"""report.html on the synthetic output folder: parsed with html5lib (the WHATWG parsing
+algorithm), images as data URIs, no "http", under 10 MB, and rendered in headless Chromium
+(Debian package) without console or page errors."""
+
+from __future__ import annotations
+
+import base64
+import os
+import shutil
+from pathlib import Path
+
+import html5lib
+import pytest
+
+from regionmap.report import REPORT_MAX_BYTES, _data_uri, _no_web_text, write_all_figures, write_report
+from test_plots_synthrun import build_output_folder
+
+CHROMIUM = Path("/usr/bin/chromium")
+_NS = "{http://www.w3.org/1999/xhtml}"  # html5lib's element namespace (WHATWG HTML)
+
+
+@pytest.fixture(scope="module")
+def report(tmp_path_factory):
+    folder = build_output_folder(tmp_path_factory.mktemp("report") / "out")
+    return write_report(folder)
+
+
+def test_report_parses_and_embeds_every_image_as_data_uri(report):
+    text = report.read_text(encoding="utf-8")
+    doc = html5lib.parse(text, treebuilder="etree", namespaceHTMLElements=True)
+    images = doc.findall(f".//{_NS}img")
+    assert len(images) >= 10
+    for img in images:
+        src = img.get("src")
+        assert src.startswith("data:image/png;base64,")
+        png = base64.b64decode(src.split(",", 1)[1])
+        assert png[:8] == b"\x89PNG\r\n\x1a\n"  # PNG signature, ISO/IEC 15948
+    assert not doc.findall(f".//{_NS}script")
+    assert not doc.findall(f".//{_NS}link[@rel='stylesheet']")
+    sections = {s.get("id") for s in doc.findall(f".//{_NS}section")}
+    assert {"zones", "layers", "maps", "overviews", "profiles", "layers", "elevation", "verification", "run", "forecast"} <= sections
+
+
+def test_report_has_no_web_address_and_stays_small(report):
+    text = report.read_text(encoding="utf-8")
+    assert "http" not in text.lower()
+    assert report.stat().st_size < REPORT_MAX_BYTES
+
+
+def test_report_images_are_reduced_and_print_pngs_stay_in_figures(report):
+    from PIL import Image
+    import io
+
+    text = report.read_text(encoding="utf-8")
+    doc = html5lib.parse(text, treebuilder="etree", namespaceHTMLElements=True)
+    img = doc.findall(f".//{_NS}img")[0]
+    embedded = Image.open(io.BytesIO(base64.b64decode(img.get("src").split(",", 1)[1])))
+    figures = sorted((report.parent / "figures").glob("map_*.png"))
+    assert figures
+    full = Image.open(figures[0])
+    assert embedded.width < full.width / 2
+
+
+def test_report_content_sections(report):
+    text = report.read_text(encoding="utf-8")
+    # the zones' rain-crust sentence from rain_crust.rain_crust_sentence, designed 1400-2000 m
+    assert "rain crust likely between" in text
+    assert "SH buried 2026-01-12" in text  # layers of concern
+    assert "ST1" in text and "ST2" in text  # verification.csv written by the fixture
+    assert "no forecast part" in text
+    assert "field observations" in text.lower() and "local avalanche service" in text.lower()
+
+
+def test_report_without_verification_skips_the_section_with_a_note_and_lists_figures(tmp_path):
+    folder = build_output_folder(tmp_path / "out", with_verification=False)
+    paths = write_all_figures(folder)
+    assert all(p.is_file() for p in paths)
+    assert {p.suffix for p in paths} == {".png", ".csv"}
+    names = {p.name for p in paths}
+    assert "map_snow_depth_cm.png" in names and "overview_zone-a_depth_hoar_fraction.csv" in names
+    assert not (folder / "report.html").exists()
+    text = write_report(folder).read_text(encoding="utf-8")
+    assert "No station verification results in this output folder" in text
+
+
+def test_data_uri_never_spells_http():
+    # bytes whose base64 encoding (RFC 4648) starts with "http": _data_uri must shift it away
+    raw = base64.b64decode("httpAAAA")
+    png = b"\x89PNG\r\n\x1a\n" + b"\x00\x00\x00\x0dIHDR" + b"\x00" * 13 + b"\x00" * 4 + raw
+    uri = _data_uri(png)
+    assert "http" not in uri.lower()
+    assert _no_web_text("see http and HTTP") == "see h&#116;tp and H&#84;TP"
+
+
+def _chromium_or_skip():
+    if not CHROMIUM.exists() or shutil.which(str(CHROMIUM)) is None:
+        if os.environ.get("CI") == "true":
+            pytest.fail("Chromium (/usr/bin/chromium) is required when CI=true")
+        pytest.skip("Chromium not installed")
+    try:
+        from playwright.sync_api import sync_playwright
+    except ImportError:
+        if os.environ.get("CI") == "true":
+            pytest.fail("playwright is required when CI=true")
+        pytest.skip("playwright not installed")
+    return sync_playwright
+
+
+def test_report_renders_in_headless_chromium_without_errors(report, tmp_path):
+    # oracle: the Debian Chromium package, driven through Playwright's sync API
+    sync_playwright = _chromium_or_skip()
+    console, page_errors, requests = [], [], []
+    with sync_playwright() as p:
+        browser = p.chromium.launch(executable_path=str(CHROMIUM), args=[
+            "--headless", "--no-sandbox", "--disable-gpu", "--disable-background-networking",
+            "--disable-component-update", "--disable-sync", "--no-first-run"])
+        try:
+            page = browser.new_page(viewport={"width": 1200, "height": 900})
+            page.on("console", lambda m: console.append(m) if m.type == "error" else None)
+            page.on("pageerror", lambda e: page_errors.append(e))
+            page.on("request", lambda r: requests.append(r.url))
+            page.goto(report.resolve().as_uri(), wait_until="load")
+            loaded = page.evaluate("Array.from(document.images).every(i => i.complete && i.naturalWidth > 0)")
+            shot = tmp_path / "report.png"
+            page.screenshot(path=str(shot), full_page=True)
+        finally:
+            browser.close()
+    assert not console, [m.text for m in console]
+    assert not page_errors, [str(e) for e in page_errors]
+    assert loaded
+    assert shot.stat().st_size > 10_000
+    assert all(u.startswith(("file:", "data:")) for u in requests), requests
