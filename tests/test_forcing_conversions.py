@@ -149,6 +149,7 @@ def test_upper_air_temperature_and_static_geopotential(tmp_path):
     np.testing.assert_allclose(gf.surface_altitude, 1800.0)
     np.testing.assert_allclose(gf.upper_air_pressure_pa, levels * 100.0)
     assert gf.upper_air_temperature.dims == ("time", "level", "y", "x")
+    np.testing.assert_allclose(gf.upper_air_temperature["level"].values, levels * 100.0)  # hPa -> Pa (pint)
     np.testing.assert_allclose(gf.upper_air_temperature.values, ta, rtol=1e-6)
     blk = gf.read_block(["upper_air_temperature"], [1], [2], slice(0, 5))["upper_air_temperature"]
     assert blk.shape == (5, 3, 1)
@@ -191,3 +192,13 @@ def test_settings_object_and_freezing_rain_variable(tmp_path):
     np.testing.assert_allclose(gf.freezing_rain_frac.values, 0.25)
     assert gf.upper_air_temperature is None
     assert "freezing_rain_frac" in gf.available
+
+
+def test_height_stored_as_a_length_one_dimension(tmp_path):
+    ds = make_forcing()
+    t2 = ds["t2m"].drop_vars("height2", errors="ignore").expand_dims(height=[2.0], axis=1)
+    ds = ds.drop_vars("t2m").assign(t2m=t2)
+    ds["height"].attrs.update(units="m", standard_name="height")
+    gf = open_forcing(write(ds, tmp_path))
+    assert gf.heights_m["temperature"] == 2.0 and gf.upper_air_temperature is None
+    np.testing.assert_allclose(gf.air_temperature.values, t2.values[:, 0], rtol=1e-6)

@@ -423,8 +423,13 @@ def _file_times(ds, tdim, path):
     return {"t": t, "bounds": bounds, "path": path}
 
 
+def _squeezed(var):
+    """Drop length-1 dimensions between time and the grid (a 2 m level stored as a dim)."""
+    return var.squeeze([d for d in var.dims[1:-2] if var.sizes[d] == 1])
+
+
 def _candidates(ds, sn):
-    return [ds[v] for v in ds.cf.standard_names.get(sn, []) if v in ds.data_vars]
+    return [_squeezed(ds[v]) for v in ds.cf.standard_names.get(sn, []) if v in ds.data_vars]
 
 
 def _vertical_dims(var):
@@ -469,7 +474,7 @@ def _resolve_role(role, alternatives, datasets, paths, mapping, heights_m):
                         raise ForcingReadError(
                             f"forcing file {p!r}: variable {name!r} named in [forcing] "
                             f"variables.{sn} is missing; found {sorted(ds.data_vars)}")
-                    das.append(ds[name])
+                    das.append(_squeezed(ds[name]))
                     continue
                 if sn in ("freezing_rain_frac", "upper_air_temperature"):
                     das.append(_pick("air_temperature", _candidates(ds, "air_temperature"), p, None, True)
@@ -1081,6 +1086,8 @@ def _lazy(sources, name, alt, hours):
     chunks = ((hours.size,),) + tuple((e,) for e in extra) + alt_d.chunks
     data = da.map_blocks(block, alt_d[lead], *arrays, chunks=chunks, dtype=np.float32)
     dims = ("time",) + (("level",) if extra else ()) + ("y", "x")
+    if extra:
+        coords["level"] = ("level", sources["upper_air"][0].level_pa, {"units": "Pa", "standard_name": "air_pressure"})
     return xr.DataArray(data, dims=dims, coords=coords, name=name, attrs=attrs)
 
 
