@@ -84,6 +84,16 @@ def _restarts_from_args(args: argparse.Namespace, cfg) -> list:
     return entries
 
 
+def _cmd_forcing(args: argparse.Namespace) -> int:
+    from regionmap.config import load_config
+    from regionmap.runner import write_cell_forcing
+
+    cfg = load_config(args.config)
+    path = write_cell_forcing(cfg, args.out, force=args.force, progress=not args.quiet)
+    print(f"per-cell forcing written to {path}")
+    return 0
+
+
 def _cmd_demo(args: argparse.Namespace) -> int:
     from regionmap.demo import run_demo
 
@@ -133,6 +143,16 @@ def build_parser() -> argparse.ArgumentParser:
     group.add_argument("--scheduler", metavar="ADDRESS", help="an existing dask.distributed scheduler")
     p.add_argument("--force", action="store_true", help="replace a non-empty folder that is not a regionmap output (it is kept aside, never deleted)")
     p.set_defaults(func=_cmd_run)
+
+    p = sub.add_parser(
+        "forcing",
+        help="write the downscaled per-cell forcing, for inspection",
+        description="Downscale the NWP forcing to every cell and write it as CF NetCDF (cell x time).",
+    )
+    p.add_argument("config", type=Path, help="the run's TOML config")
+    p.add_argument("--out", type=Path, required=True, help="output folder")
+    p.add_argument("--force", action="store_true", help="replace a non-empty folder that is not a regionmap output")
+    p.set_defaults(func=_cmd_forcing)
 
     p = sub.add_parser(
         "terrain",

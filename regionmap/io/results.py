@@ -76,21 +76,27 @@ class CellsNcWriter:
     is_forecast : (time,) bool, True where the forcing was forecast.
     extra : name → (dtype, attrs) of further (cell, time) diagnostics to store.
     global_attrs : added to the file's global attributes.
+    variables : name → (dtype, attrs) replacing the diagnostics altogether (e.g. the
+        per-cell forcing of ``regionmap forcing``); names in :data:`AMOUNTS` get
+        ``cell_methods = "time: sum"``.
+    title : the file's title.
     """
 
     def __init__(self, path, cells: pd.DataFrame, times, interval_start, is_forecast, *,
-                 extra: dict | None = None, global_attrs: dict | None = None):
+                 extra: dict | None = None, global_attrs: dict | None = None,
+                 variables: dict | None = None, title: str = "regionmap per-cell snowpack diagnostics"):
         self.path = Path(path)
         self._stack = ExitStack()
         self._tmp = self._stack.enter_context(atomic_path(self.path))
-        self.variables = {**DIAGNOSTICS, **AMOUNTS, **(extra or {})}
+        base = {**DIAGNOSTICS, **AMOUNTS} if variables is None else dict(variables)
+        self.variables = {**base, **(extra or {})}
         n_cell, n_time = len(cells), len(times)
         nc = netCDF4.Dataset(self._tmp, "w", format="NETCDF4")
         self._nc = nc
         nc.setncatts({
             "Conventions": "CF-1.8",
             "featureType": "timeSeries",
-            "title": "regionmap per-cell snowpack diagnostics",
+            "title": title,
             "source": f"regionmap {__version__}",
             "caution": CAUTION,
             **(global_attrs or {}),
@@ -118,7 +124,7 @@ class CellsNcWriter:
                 chunksizes=(chunk_cells, chunk_time), fill_value=_fill_for(dtype),
             )
             attrs = dict(attrs)
-            if name in AMOUNTS:
+            if name in AMOUNTS or attrs.get("cell_methods") == "time: sum":
                 attrs["cell_methods"] = "time: sum"
             attrs["coordinates"] = "cell_id lat lon elevation_m"
             var.setncatts(attrs)
