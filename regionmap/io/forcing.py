@@ -17,6 +17,11 @@ bounds are gaps; with contiguous bounds, coarser steps up to 6 h are data by des
 Data checks (NaN runs, negative precipitation, RH above 100 %) are made by one pass over the
 data at open time, so bad input fails before a long run and ``counts`` is known; the values
 themselves stay lazy (dask) and are recomputed block by block when used.
+
+CF has no standard name for a freezing-rain or precipitation-type field: map it with the key
+``freezing_rain_frac`` (fraction of precipitation falling as freezing rain [1]). Upper-air
+temperature is any ``air_temperature`` with a pressure dimension between time and the grid
+(or the mapping key ``upper_air_temperature``).
 """
 
 from __future__ import annotations
