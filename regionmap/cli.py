@@ -94,6 +94,26 @@ def _cmd_forcing(args: argparse.Namespace) -> int:
     return 0
 
 
+def _cmd_report(args: argparse.Namespace) -> int:
+    from regionmap.report import write_report
+
+    path = write_report(args.outdir)
+    print(f"briefing report written to {path}")
+    print(f"Caution: {CAUTION}")
+    return 0
+
+
+def _cmd_profile(args: argparse.Namespace) -> int:
+    from regionmap.plots.profile import profile_command
+
+    if args.cell is None and (args.zone is None or args.band is None or args.aspect is None):
+        raise InputError("profile: give --cell ID, or --zone, --band LOW-HIGH and --aspect")
+    path = profile_command(args.outdir, cell=args.cell, zone=args.zone, band=args.band, aspect=args.aspect,
+                           slope_class=args.slope_class, time=args.time)
+    print(f"profile written to {path}")
+    return 0
+
+
 def _cmd_demo(args: argparse.Namespace) -> int:
     from regionmap.demo import run_demo
 
@@ -112,7 +132,17 @@ def build_parser() -> argparse.ArgumentParser:
     parser.add_argument("--version", action="version", version=f"regionmap {__version__}")
     parser.add_argument("--debug", action="store_true", help="show tracebacks on errors")
     parser.add_argument("--quiet", action="store_true", help="no progress bars")
+    # the same two options after the sub-command, too
+    common = argparse.ArgumentParser(add_help=False)
+    common.add_argument("--debug", action="store_true", default=argparse.SUPPRESS, help="show tracebacks on errors")
+    common.add_argument("--quiet", action="store_true", default=argparse.SUPPRESS, help="no progress bars")
     sub = parser.add_subparsers(dest="command", metavar="COMMAND", required=True)
+    _add = sub.add_parser
+
+    def add_parser(name, **kw):
+        return _add(name, parents=[common], **kw)
+
+    sub.add_parser = add_parser
 
     p = sub.add_parser(
         "demo",
@@ -153,6 +183,31 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--out", type=Path, required=True, help="output folder")
     p.add_argument("--force", action="store_true", help="replace a non-empty folder that is not a regionmap output")
     p.set_defaults(func=_cmd_forcing)
+
+    p = sub.add_parser(
+        "profile",
+        help="draw one cell's simulated profile",
+        description="Draw one cell's layers (grain class, size, hand hardness, temperature, density, "
+        "liquid water) with crusts, weak layers and the worst interface marked.",
+        epilog=f"Caution: {CAUTION}",
+    )
+    p.add_argument("outdir", type=Path, help="a run's output folder")
+    p.add_argument("--cell", type=int, metavar="ID", help="cell_id")
+    p.add_argument("--zone", help="zone name")
+    p.add_argument("--band", metavar="LOW-HIGH", help="elevation band in m, e.g. 2100-2400")
+    p.add_argument("--aspect", help="aspect sector (N, NE, ... or flat)")
+    p.add_argument("--slope-class", type=int, metavar="K", help="slope class index, when slopes are split")
+    p.add_argument("--time", metavar="T", help="snapshot time (UTC, ISO 8601); default: the map time")
+    p.set_defaults(func=_cmd_profile)
+
+    p = sub.add_parser(
+        "report",
+        help="write the HTML briefing report of a run",
+        description="Write report.html (self-contained) and figures/ for a run's output folder.",
+        epilog=f"Caution: {CAUTION}",
+    )
+    p.add_argument("outdir", type=Path, help="a run's output folder")
+    p.set_defaults(func=_cmd_report)
 
     p = sub.add_parser(
         "terrain",

@@ -83,7 +83,7 @@ def _member_presence(ctx, state0, event: pd.Series, control: np.ndarray, table: 
     for m, (dt_k, dphase_k) in enumerate(ENSEMBLE_MEMBERS):
         f = _perturbed(window, dt_k, dphase_k, ctx.downscale)
         _, _, snaps = run_columns(state, f, ctx.snow, 1, None, threads=2)
-        ds = snapshots_to_dataset(snaps, batch.cell_id)
+        ds = snapshots_to_dataset(snaps, batch.cell_id).rename({"time": "day"})
         members[m, cells] = rain_crust_presence(ds, formed_between=formed)
     cost = {"cells": int(cells.size), "steps": int(stop - p.first), "member_steps": int(stop - start),
             "seconds": round(_time.perf_counter() - t0, 3)}
@@ -185,7 +185,7 @@ def write_products(out: Path, cfg: Config, region, ctx, *, map_time, state0, is_
     zones = tables.zones.merge(rc_cols, left_on="zone", right_index=True, how="left")
     zones["valid_time"] = str(map_time)
     zones["is_forecast"] = bool(is_forecast)
-    cells = tables.cells
+    cells = tables.cells.join(weights[["avalanche_km2", "all_km2"]], how="left")
     # a cell is one simulated column, so its depth-hoar fraction is its presence flag (0 or 1)
     sources = {"depth_hoar_fraction": "depth_hoar_present", "crust_count": "crust_count",
                "new_snow_72h_cm": "new_snow_72h_cm", "new_snow_24h_cm": "new_snow_24h_cm",

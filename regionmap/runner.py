@@ -282,10 +282,12 @@ def execute(cfg: Config, *, out_dir: Path | None = None, continue_from: Path | N
             dst.parent.mkdir(parents=True, exist_ok=True)
             shutil.copy2(src, dst)
         atomic_write_text(out / "run.json", json.dumps(record, indent=2, default=str))
-        with contextlib.suppress(ImportError):
-            from regionmap.report import write_report
+        t0 = _time.perf_counter()
+        from regionmap.report import write_report
 
-            write_report(out)
+        write_report(out)
+        record["timings_s"]["report"] = round(_time.perf_counter() - t0, 3)
+        atomic_write_text(out / "run.json", json.dumps(record, indent=2, default=str))
     return RunOutcome(target, products.zones, products.sentences, map_time,
                       bool(period.has_forecast and map_time > period.analysis_end), batch.n_cells,
                       _time.perf_counter() - t_all)
