@@ -3,7 +3,8 @@
 Effective conductivity from density (Calonne et al. 2011 or Sturm et al. 1997) and one
 backward-Euler step of the 1-D heat equation on layer-centred nodes, solved with the Thomas
 algorithm (tridiagonal Gaussian elimination without pivoting, stable for these diagonally
-dominant systems; Press et al., Numerical Recipes, 3rd ed., Sec. 2.4).
+dominant systems; Press et al., Numerical Recipes, 3rd ed., Sec. 2.4), split into the
+forward sweep and the back substitution so the surface balance can be solved in between.
 """
 
 from __future__ import annotations
@@ -16,8 +17,9 @@ __all__ = [
     "conductivity_calonne2011",
     "conductivity_sturm1997",
     "snow_conductivity",
-    "solve_tridiagonal",
     "conduction_step_backward_euler",
+    "conduction_forward_sweep",
+    "conduction_back_substitution",
     "soil_heat_capacity",
 ]
 
@@ -82,75 +84,75 @@ def snow_conductivity(model, density_kg_m3):
 
 
 @njit(cache=True, nogil=True, error_model="numpy")
-def solve_tridiagonal(lower, diag, upper, rhs, n, work, out):
-    """Solve a tridiagonal system in place (Thomas algorithm).
+def conduction_forward_sweep(m, t_k, k_w_m_k, c_j_m2_k, dz_m, source_w_m2, dt_s,
+                             k_bottom_w_m2_k, t_bottom_k, cprime, y):
+    """Assemble one backward-Euler conduction step and eliminate it from the bottom up.
 
-    Parameters
-    ----------
-    lower, diag, upper, rhs : ndarray (>= n,) float64
-        Sub-diagonal (``lower[0]`` unused), diagonal, super-diagonal (``upper[n-1]``
-        unused) and right-hand side.
-    n : int
-        Number of unknowns.
-    work : ndarray (>= n,) float64
-        Scratch space.
-    out : ndarray (>= n,) float64
-        Solution.
+    Node 0 is the deepest. For node i with heat capacity C_i [J m-2 K-1]:
+    C_i (T_i' - T_i)/dt = K_{i-1/2}(T_{i-1}' - T_i') + K_{i+1/2}(T_{i+1}' - T_i') + S_i (+ G at
+    the top node), with interface conductances K = 1/(dz_i/2k_i + dz_{i+1}/2k_{i+1})
+    [W m-2 K-1] (harmonic mean, e.g. Patankar 1980, Numerical Heat Transfer and Fluid Flow,
+    Sec. 4.2); at the base a conductance ``k_bottom_w_m2_k`` to a fixed ``t_bottom_k``.
+    The Thomas forward sweep (Press et al., Numerical Recipes, Sec. 2.4) leaves the top
+    equation as T_top' = y_top + G / beta_top: the whole column's response to the heat flux
+    G entering its top, which the surface balance then solves for exactly.
+
+    Returns
+    -------
+    beta_top : float
+        [W m-2 K-1].
+    y_top : float
+        Top temperature at the end of the step if G = 0 [K].
     """
-    beta = diag[0]
-    out[0] = rhs[0] / beta
-    for i in range(1, n):
-        work[i] = upper[i - 1] / beta
-        beta = diag[i] - lower[i] * work[i]
-        out[i] = (rhs[i] - lower[i] * out[i - 1]) / beta
-    for i in range(n - 2, -1, -1):
-        out[i] -= work[i + 1] * out[i + 1]
+    beta = 0.0
+    for i in range(m):
+        diag = c_j_m2_k[i] / dt_s
+        rhs = diag * t_k[i] + source_w_m2[i]
+        lower = 0.0
+        if i > 0:
+            k_lo = 1.0 / (0.5 * dz_m[i - 1] / k_w_m_k[i - 1] + 0.5 * dz_m[i] / k_w_m_k[i])
+            diag += k_lo
+            lower = -k_lo
+        else:
+            diag += k_bottom_w_m2_k
+            rhs += k_bottom_w_m2_k * t_bottom_k
+        upper = 0.0
+        if i < m - 1:
+            k_up = 1.0 / (0.5 * dz_m[i] / k_w_m_k[i] + 0.5 * dz_m[i + 1] / k_w_m_k[i + 1])
+            diag += k_up
+            upper = -k_up
+        if i == 0:
+            beta = diag
+            y[0] = rhs / beta
+        else:
+            beta = diag - lower * cprime[i - 1]
+            y[i] = (rhs - lower * y[i - 1]) / beta
+        cprime[i] = upper / beta
+    return beta, y[m - 1]
+
+
+@njit(cache=True, nogil=True, error_model="numpy")
+def conduction_back_substitution(m, g_top_w_m2, beta_top, cprime, y, out):
+    """Finish the step of :func:`conduction_forward_sweep` for a top heat flux G [W m-2]."""
+    out[m - 1] = y[m - 1] + g_top_w_m2 / beta_top
+    for i in range(m - 2, -1, -1):
+        out[i] = y[i] - cprime[i] * out[i + 1]
 
 
 @njit(cache=True, nogil=True, error_model="numpy")
 def conduction_step_backward_euler(m, t_k, k_w_m_k, c_j_m2_k, dz_m, source_w_m2, dt_s,
                                    k_bottom_w_m2_k, t_bottom_k, a_top_w_m2, b_top_w_m2_k,
-                                   k_interface, lower, diag, upper, rhs, work, out):
-    """One backward-Euler step of 1-D heat conduction on ``m`` layer-centred nodes.
+                                   cprime, y, out):
+    """One backward-Euler conduction step with a top flux G = a + b T_top' (b <= 0).
 
-    Node 0 is the deepest. For node i with heat capacity C_i [J m-2 K-1]:
-    C_i (T_i' - T_i)/dt = K_{i-1/2}(T_{i-1}' - T_i') + K_{i+1/2}(T_{i+1}' - T_i') + S_i, with
-    interface conductances K = 1/(dz_i/2k_i + dz_{i+1}/2k_{i+1}) [W m-2 K-1] (harmonic mean,
-    e.g. Patankar 1980, Numerical Heat Transfer and Fluid Flow, Sec. 4.2). Bottom: a
-    conductance ``k_bottom_w_m2_k`` to a fixed ``t_bottom_k`` (0 for an insulated base). Top:
-    a flux a + b T_top' into the top node (b <= 0): b = -K and a = K T_s gives a fixed
-    surface temperature T_s through conductance K; b = 0 a fixed flux.
-
-    Parameters
-    ----------
-    m : int
-        Active nodes.
-    t_k, k_w_m_k, c_j_m2_k, dz_m, source_w_m2 : ndarray (>= m,) float64
-        Temperatures at the start [K], conductivities [W m-1 K-1], heat capacities per area
-        [J m-2 K-1], thicknesses [m] and absorbed sources [W m-2] of the nodes.
-    k_interface, lower, diag, upper, rhs, work : ndarray (>= m,) float64
-        Scratch arrays.
-    out : ndarray (>= m,) float64
-        Temperatures at the end of the step [K].
+    b = -K and a = K T_s hold the surface at T_s through conductance K; b = 0 is a fixed
+    flux. See :func:`conduction_forward_sweep` for the discretisation; ``out`` receives the
+    end-of-step temperatures [K].
     """
-    for i in range(m - 1):
-        k_interface[i] = 1.0 / (0.5 * dz_m[i] / k_w_m_k[i] + 0.5 * dz_m[i + 1] / k_w_m_k[i + 1])
-    for i in range(m):
-        diag[i] = c_j_m2_k[i] / dt_s
-        rhs[i] = c_j_m2_k[i] / dt_s * t_k[i] + source_w_m2[i]
-        lower[i] = 0.0
-        upper[i] = 0.0
-    diag[0] += k_bottom_w_m2_k
-    rhs[0] += k_bottom_w_m2_k * t_bottom_k
-    for i in range(m - 1):
-        kint = k_interface[i]
-        diag[i] += kint
-        diag[i + 1] += kint
-        upper[i] = -kint
-        lower[i + 1] = -kint
-    diag[m - 1] -= b_top_w_m2_k
-    rhs[m - 1] += a_top_w_m2
-    solve_tridiagonal(lower, diag, upper, rhs, m, work, out)
+    beta, y_top = conduction_forward_sweep(m, t_k, k_w_m_k, c_j_m2_k, dz_m, source_w_m2, dt_s,
+                                           k_bottom_w_m2_k, t_bottom_k, cprime, y)
+    g = (a_top_w_m2 + b_top_w_m2_k * y_top) / (1.0 - b_top_w_m2_k / beta)
+    conduction_back_substitution(m, g, beta, cprime, y, out)
 
 
 @njit(cache=True, nogil=True, error_model="numpy")

@@ -22,7 +22,8 @@ from numba import njit
 
 from regionmap.snow.compaction import compaction_strain_rate
 from regionmap.snow.conduction import (
-    conduction_step_backward_euler,
+    conduction_back_substitution,
+    conduction_forward_sweep,
     snow_conductivity,
     soil_heat_capacity,
 )
@@ -103,7 +104,6 @@ from regionmap.snow.params import (
     P_NEW_SNOW_DENSITY_MODEL,
     P_NEW_SNOW_GRAIN_MM,
     P_NEWTON_ITERATIONS,
-    P_COUPLING_ITERATIONS,
     P_POND_PORE_FRAC,
     P_ROUGHNESS_M,
     P_ROUND_RATE_PER_DAY,
@@ -322,62 +322,40 @@ def _energy_and_conduction(fw, n, sv, ta, q_air, pres, wind, sw_in, lw_in, q_ext
     sw_snow = sw_abs - p[P_SW_SURFACE_FRAC] * sw_abs - remaining
     if n > 0:
         sn[ns - 1] += remaining  # what passes the snow warms the soil
-    # top boundary G = a_top + b_top * T_top: the skin balance linearised about Ts*, Ts*
-    # re-found from the latest top-layer temperature (outer iterations), so that at the end
-    # the skin balance holds at the end-of-step temperatures
+    # the column's response to the heat flux G entering its top: T_top' = y_top + G / beta
+    top = m - 1
+    beta, y_top = conduction_forward_sweep(m, tn, kn, cn, dzn, sn, dt, ks / (0.5 * dzn[0]),
+                                           p[P_DEEP_GROUND_TEMPERATURE_K], lo, di)
+    # the skin sits half a top layer above the top node: G = K_s (Ts - T_top'), so
+    # G = K_eff (Ts - y_top); the skin balance q_net(Ts) = G is solved exactly (Newton)
+    k_s = 2.0 * kn[top] / dzn[top]
+    k_eff = k_s * beta / (k_s + beta)
     eps = p[P_EMISSIVITY]
     z0 = p[P_ROUGHNESS_M]
     floor = p[P_STABLE_FLOOR_FRAC]
-    top = m - 1
-    k_s = 2.0 * kn[top] / dzn[top]
-    robin = True
-    ts_star = T_MELT_K
-    dq = 0.0
-    q_star = 0.0
-    t_top_est = tn[top]
-    k_deep = ks / (0.5 * dzn[0])
-    n_outer = int(p[P_COUPLING_ITERATIONS]) if n > 0 else 1
-    for _ in range(n_outer):
-        if n > 0:
-            ts_star, dq, _r = solve_surface_temperature(
-                sv[V_TSURF] if robin else T_MELT_K, t_top_est, k_s, ta, q_air, pres, wind,
-                lw_in, sw_surf, eps, zu, zt, z0, floor, int(p[P_NEWTON_ITERATIONS]))
-            q_star = surface_fluxes(ts_star, ta, q_air, pres, wind, lw_in, sw_surf, eps, zu,
-                                    zt, z0, floor)[0]
-            if ts_star >= T_MELT_K:
-                robin = False
-                a_top = q_star
-                b_top = 0.0
-            else:
-                robin = True
-                a_top = k_s * (q_star - dq * ts_star) / (k_s - dq)
-                b_top = k_s * dq / (k_s - dq)
-        else:
-            # bare ground: the soil surface follows the air temperature
-            a_top = k_s * ta
-            b_top = -k_s
-        conduction_step_backward_euler(m, tn, kn, cn, dzn, sn, dt, k_deep,
-                                       p[P_DEEP_GROUND_TEMPERATURE_K], a_top, b_top, work[m:],
-                                       lo, di, up, rhs, work, sol)
-        t_top_est = sol[top]
+    if n > 0:
+        ts, _dq, _r = solve_surface_temperature(
+            sv[V_TSURF], y_top, k_eff, ta, q_air, pres, wind, lw_in, sw_surf, eps, zu, zt, z0,
+            floor, int(p[P_NEWTON_ITERATIONS]))
+        q_net, sens, lat, vap, _d = surface_fluxes(ts, ta, q_air, pres, wind, lw_in, sw_surf,
+                                                   eps, zu, zt, z0, floor)
+        g_top = q_net if ts >= T_MELT_K else k_eff * (ts - y_top)
+    else:
+        # bare ground: the soil surface follows the air temperature
+        ts = ta
+        g_top = k_eff * (ta - y_top)
+    conduction_back_substitution(m, g_top, beta, lo, di, sol)
     for i in range(m):
         tn[i] = sol[i]
     for i in range(ns):
         sv[V_SOIL + i] = tn[i]
     if n == 0:
-        sv[V_TSURF] = tn[top]
-        return 0.0, 0.0, 0.0, 0.0, 0.0, 0.0, 0.0, 0.0, tn[top]
+        sv[V_TSURF] = ts
+        return 0.0, 0.0, 0.0, 0.0, 0.0, 0.0, 0.0, 0.0, ts
     for l in range(n):
         fw[F_TEMP, l] = tn[ns + l]
     kint = 1.0 / (0.5 * dzn[ns - 1] / kn[ns - 1] + 0.5 * dzn[ns] / kn[ns])
     ground = kint * (tn[ns - 1] - tn[ns])
-    if robin:
-        ts = (q_star - dq * ts_star + k_s * tn[top]) / (k_s - dq)
-        ts = min(ts, T_MELT_K)
-    else:
-        ts = T_MELT_K
-    q_net, sens, lat, vap = surface_fluxes(ts, ta, q_air, pres, wind, lw_in, sw_surf, eps, zu,
-                                           zt, z0, floor)
     lw_net = q_net - sw_surf - sens - lat  # (q_extra stays out of lw_net)
     return q_net, sw_snow, ground, sw_abs, lw_net, sens, lat, vap, ts
 
@@ -405,7 +383,7 @@ def _vapour_exchange(fw, iw, n, sv, mass, to_hoar):
             sv[V_SH_MASS] += mass
         else:
             top = n - 1
-            dens = fw[F_ICE, top] / max(fw[F_THICK, top], 1e-9)
+            dens = max(fw[F_ICE, top] / max(fw[F_THICK, top], 1e-9), 50.0)
             fw[F_ICE, top] += mass
             fw[F_THICK, top] += mass / dens
         return n, mass
@@ -449,7 +427,7 @@ def _bury_or_drop_hoar(fw, iw, n, sv, si, wind, now_s, p, cap):
             iw[I_FORM, n - 1] = now_s
             return n
         top = n - 1
-    dens = fw[F_ICE, top] / max(fw[F_THICK, top], 1e-9)
+    dens = max(fw[F_ICE, top] / max(fw[F_THICK, top], 1e-9), 50.0)
     fw[F_ICE, top] += m_sh
     fw[F_THICK, top] += m_sh / dens
     return n
@@ -562,7 +540,7 @@ def _metamorphose(fw, iw, n, sv, ts, dt, p):
 @njit(cache=True, nogil=True, error_model="numpy")
 def _cleanup(fw, iw, n):
     """Remove ice-free layers (their water moves down, or leaves) and fold layers thinner
-    than 0.1 mm into a neighbour. Returns (n, water leaving the base [kg m-2])."""
+    than 0.1 mm or with less than 0.01 kg m-2 of ice into a neighbour. Returns (n, water leaving the base [kg m-2])."""
     out = 0.0
     i = n - 1
     while i >= 0:
@@ -572,7 +550,7 @@ def _cleanup(fw, iw, n):
             else:
                 out += fw[F_LIQ, i]
             n = remove_layer(fw, iw, n, i)
-        elif fw[F_THICK, i] < 1e-4 and n > 1 and iw[I_CODE, i] != _IF:
+        elif (fw[F_THICK, i] < 1e-4 or fw[F_ICE, i] < 0.01) and n > 1 and iw[I_CODE, i] != _IF:
             k = i - 1 if i > 0 else 0
             n = merge_pair(fw, iw, n, k)
             h = layer_enthalpy(fw[F_ICE, k], fw[F_LIQ, k], fw[F_TEMP, k])
@@ -721,12 +699,16 @@ def _step(fw, iw, sv, si, ring_m, ring_d, ta, rh, pres, wind_raw, sw_in, lw_in, 
     # surface hoar destruction: into the top layer
     if sv[V_SH_MASS] > 0.0:
         if n == 0:
-            sv[V_SH_MASS] = 0.0  # cannot happen with mass kept; guard
+            # the snow under it has melted away: the hoar leaves as melt water
+            runoff += sv[V_SH_MASS]
+            acc[A_RUNOFF] = runoff
+            e_mass += L_FUSION_J_KG * sv[V_SH_MASS]
+            sv[V_SH_MASS] = 0.0
         elif surface_hoar_destroyed(wind_raw, melting, sw_abs, p[P_SH_DESTROY_WIND_M_S],
                                     p[P_SH_DESTROY_SW_W_M2]):
             e0 = column_enthalpy(fw, n, sv[V_SH_MASS])
             top = n - 1
-            dens = fw[F_ICE, top] / max(fw[F_THICK, top], 1e-9)
+            dens = max(fw[F_ICE, top] / max(fw[F_THICK, top], 1e-9), 50.0)
             fw[F_ICE, top] += sv[V_SH_MASS]
             fw[F_THICK, top] += sv[V_SH_MASS] / dens
             sv[V_SH_MASS] = 0.0

@@ -51,8 +51,7 @@ class SnowParams:
     roughness_m: float = 0.001  #: z0 = z0h over snow (~1 mm, METHODS)
     stable_floor_frac: float = 0.3  #: share of neutral exchange kept in very stable air (ours)
     wind_min_m_s: float = 0.5  #: wind floor in the bulk formulas (ours)
-    newton_iterations: int = 4
-    coupling_iterations: int = 3  #: outer skin/conduction iterations per step (ours)
+    newton_iterations: int = 6  #: safeguarded Newton steps on the skin temperature
     sw_surface_frac: float = 0.5  #: absorbed shortwave taken at the skin (near-infrared share, ours); the rest penetrates
     # albedo: Douville et al. 1995 [mem]
     albedo_min: float = 0.5

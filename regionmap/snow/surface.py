@@ -131,6 +131,9 @@ def surface_fluxes(
         LE = L_s rho_a C_H U (q_a - q_sat,ice(T_s)) [W m-2].
     vapour_flux : float
         Deposition (+) or sublimation (-) rate [kg m-2 s-1].
+    dq_dts : float
+        d q_net / d T_s with the exchange coefficient held fixed [W m-2 K-1] (always < 0;
+        the slope used by the Newton iteration).
 
     Notes
     -----
@@ -141,12 +144,19 @@ def surface_fluxes(
     c_h = turbulent_exchange_coefficient(
         t_air_k, t_surf_k, wind_m_s, z_wind_m, z_temp_m, z0_m, stable_floor_frac
     )
-    q_surf = specific_humidity(vapour_pressure_ice_buck1981(t_surf_k), pressure_pa)
-    sensible = rho_air * C_AIR_J_KG_K * c_h * wind_m_s * (t_air_k - t_surf_k)
-    vapour_flux = rho_air * c_h * wind_m_s * (q_air - q_surf)
+    e_s = vapour_pressure_ice_buck1981(t_surf_k)
+    q_surf = specific_humidity(e_s, pressure_pa)
+    t_c = t_surf_k - T_MELT_K
+    dq_surf = q_surf * 22.452 * 272.55 / ((272.55 + t_c) * (272.55 + t_c))
+    conductance = rho_air * c_h * wind_m_s
+    sensible = C_AIR_J_KG_K * conductance * (t_air_k - t_surf_k)
+    vapour_flux = conductance * (q_air - q_surf)
     latent = L_SUBLIMATION_J_KG * vapour_flux
-    lw_net = emissivity * lw_in_w_m2 - emissivity * SIGMA_W_M2_K4 * t_surf_k**4
-    return sw_abs_surface_w_m2 + lw_net + sensible + latent, sensible, latent, vapour_flux
+    lw_out = emissivity * SIGMA_W_M2_K4 * t_surf_k**4
+    lw_net = emissivity * lw_in_w_m2 - lw_out
+    dq_dts = -4.0 * lw_out / t_surf_k - C_AIR_J_KG_K * conductance - (
+        L_SUBLIMATION_J_KG * conductance * dq_surf)
+    return sw_abs_surface_w_m2 + lw_net + sensible + latent, sensible, latent, vapour_flux, dq_dts
 
 
 @njit(cache=True, nogil=True, error_model="numpy")
@@ -154,41 +164,50 @@ def solve_surface_temperature(
     t_guess_k, t_top_k, k_surf_w_m2_k, t_air_k, q_air, pressure_pa, wind_m_s, lw_in_w_m2,
     sw_abs_surface_w_m2, emissivity, z_wind_m, z_temp_m, z0_m, stable_floor_frac, n_iter,
 ):
-    """Skin temperature from q_net(Ts) = K (Ts - T_top), Newton iteration, capped at 0 degC.
+    """Skin temperature from q_net(Ts) = K (Ts - T_top): safeguarded Newton, capped at 0 degC.
 
-    A fixed number of Newton steps with a numerical derivative (central difference, 0.01 K)
-    and steps limited to 10 K keeps the kernel branch-free of convergence exceptions.
+    The root is bracketed in [180 K, 273.15 K]: when the balance is still positive at
+    0 degC the surface melts (returned as 273.15). Otherwise a fixed number of Newton steps
+    with the slope of :func:`surface_fluxes` (stability frozen), falling back to bisection
+    whenever a step leaves the bracket, so the solve never diverges and never raises.
 
     Returns
     -------
     t_surf_k : float
         Skin temperature [K], at most 273.15.
     dq_dt : float
-        d q_net / d Ts at the solution [W m-2 K-1] (for the implicit coupling).
+        Slope d q_net / d Ts at the solution [W m-2 K-1] (for the implicit coupling).
     residual : float
         q_net(Ts) - K (Ts - T_top) at the solution [W m-2] (0 when capped at melting).
     """
-    ts = min(t_guess_k, T_MELT_K)
-    dq = -4.0
+    hi = T_MELT_K
+    q_hi, _s, _l, _v, d_hi = surface_fluxes(hi, t_air_k, q_air, pressure_pa, wind_m_s,
+                                            lw_in_w_m2, sw_abs_surface_w_m2, emissivity,
+                                            z_wind_m, z_temp_m, z0_m, stable_floor_frac)
+    f_hi = q_hi - k_surf_w_m2_k * (hi - t_top_k)
+    if f_hi >= 0.0:
+        return T_MELT_K, d_hi, 0.0
+    lo = 150.0
+    ts = min(max(t_guess_k, lo + 1.0), hi - 1e-6)
+    f = 0.0
+    dq = d_hi
     for _ in range(n_iter):
-        q0 = surface_fluxes(ts, t_air_k, q_air, pressure_pa, wind_m_s, lw_in_w_m2,
-                            sw_abs_surface_w_m2, emissivity, z_wind_m, z_temp_m, z0_m,
-                            stable_floor_frac)[0]
-        qp = surface_fluxes(ts + 0.01, t_air_k, q_air, pressure_pa, wind_m_s, lw_in_w_m2,
-                            sw_abs_surface_w_m2, emissivity, z_wind_m, z_temp_m, z0_m,
-                            stable_floor_frac)[0]
-        qm = surface_fluxes(ts - 0.01, t_air_k, q_air, pressure_pa, wind_m_s, lw_in_w_m2,
-                            sw_abs_surface_w_m2, emissivity, z_wind_m, z_temp_m, z0_m,
-                            stable_floor_frac)[0]
-        dq = (qp - qm) / 0.02
+        q0, _s, _l, _v, dq = surface_fluxes(ts, t_air_k, q_air, pressure_pa, wind_m_s,
+                                            lw_in_w_m2, sw_abs_surface_w_m2, emissivity,
+                                            z_wind_m, z_temp_m, z0_m, stable_floor_frac)
         f = q0 - k_surf_w_m2_k * (ts - t_top_k)
-        fp = dq - k_surf_w_m2_k
-        step = -f / fp
-        step = min(max(step, -10.0), 10.0)
-        ts = ts + step
-    if ts >= T_MELT_K:
-        return T_MELT_K, dq, 0.0
-    q0 = surface_fluxes(ts, t_air_k, q_air, pressure_pa, wind_m_s, lw_in_w_m2,
-                        sw_abs_surface_w_m2, emissivity, z_wind_m, z_temp_m, z0_m,
-                        stable_floor_frac)[0]
+        if f > 0.0:
+            lo = ts
+        else:
+            hi = ts
+        step = -f / (dq - k_surf_w_m2_k)
+        if abs(step) < 1e-9:
+            break
+        nxt = ts + step
+        if nxt < lo or nxt > hi:
+            nxt = 0.5 * (lo + hi)
+        ts = nxt
+    q0, _s, _l, _v, dq = surface_fluxes(ts, t_air_k, q_air, pressure_pa, wind_m_s, lw_in_w_m2,
+                                        sw_abs_surface_w_m2, emissivity, z_wind_m, z_temp_m,
+                                        z0_m, stable_floor_frac)
     return ts, dq, q0 - k_surf_w_m2_k * (ts - t_top_k)

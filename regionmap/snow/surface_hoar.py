@@ -19,9 +19,11 @@ __all__ = ["surface_hoar_forms", "surface_hoar_destroyed", "surface_hoar_size_mm
 @njit(cache=True, nogil=True, error_model="numpy")
 def surface_hoar_forms(vapour_flux_kg_m2_s, wind_m_s, t_surf_k, t_air_k, snowfall_kg_m2,
                        wind_max_m_s):
-    """Formation conditions: deposition, light wind, radiatively cooled surface, no snowfall."""
+    """Formation conditions: deposition, light wind, radiatively cooled dry surface (below the
+    air temperature and below 0 degC), no snowfall."""
     return (
         vapour_flux_kg_m2_s > 0.0
+        and t_surf_k < 273.15
         and wind_m_s <= wind_max_m_s
         and t_surf_k < t_air_k
         and snowfall_kg_m2 <= 0.0

@@ -85,3 +85,40 @@ def make_forcing(time: np.ndarray, n_cells: int = 1, *, t_air_k, rh_frac=0.8,
                        precip_kg_m2=b(precip_kg_m2), snow_frac=sf,
                        freezing_rain_frac=b(freezing_rain_frac), wind_height_m=wind_height_m,
                        temp_height_m=temp_height_m)
+
+
+def season_forcing(n_cells: int, start: str = "2025-11-01T00:00", days: int = 150,
+                   seed: int = 0) -> CellForcing:
+    """An invented season of hourly weather for ``n_cells`` cells (tests and benchmarks).
+
+    A seasonal temperature cycle (coldest in mid-season, warming to a spring thaw), day-to-day
+    weather regimes drawn at random (storms with snow or rain, clear cold spells, cloudy
+    mild spells, occasional freezing rain), a per-cell elevation-like offset and a per-cell
+    sun factor (shaded to sunny aspects). Deterministic for a given ``seed``.
+    """
+    rng = np.random.default_rng(seed)
+    nt = days * 24
+    t = hours(start, nt)
+    day = np.arange(nt) / 24.0
+    season = -4.0 - 8.0 * np.sin(np.pi * np.clip(day / (0.8 * days), 0, 1)) + 14.0 * np.clip(
+        (day - 0.8 * days) / (0.2 * days), 0, 1)
+    n_days = days
+    regime = rng.choice(4, size=n_days, p=[0.3, 0.3, 0.3, 0.1])  # 0 storm, 1 clear, 2 cloudy, 3 mixed
+    reg_h = np.repeat(regime, 24)
+    offset = rng.uniform(-4.0, 3.0, size=(n_cells, 1))
+    sun = rng.uniform(0.2, 1.0, size=(n_cells, 1))
+    ta = T_MELT_K + season[None, :] + offset + np.where(reg_h == 1, 5.0, 2.0)[None, :] * np.cos(
+        2 * np.pi * (((t.astype("datetime64[s]").astype(np.int64) // 3600) % 24) - 14) / 24.0)[None, :]
+    ta = ta + np.where(reg_h == 2, 2.0, 0.0)[None, :]
+    storm_rate = rng.gamma(2.0, 0.25, size=n_days)  # kg m-2 h-1
+    pr = np.where(reg_h == 0, np.repeat(storm_rate, 24), 0.0)[None, :] * np.ones((n_cells, 1))
+    pr = pr * rng.uniform(0.7, 1.3, size=(n_cells, 1))
+    cloud = np.where(reg_h == 1, 0.0, np.where(reg_h == 3, 0.5, 1.0))
+    fz = np.where((reg_h == 0) & (np.repeat(rng.random(n_days), 24) < 0.05), 0.8, 0.0)
+    sw_peak = 200.0 + 500.0 * np.clip(day / days, 0, 1)
+    sw = clear_sky_shortwave(t, 1.0)[None, :] * sw_peak[None, :] * (1.0 - 0.7 * cloud)[None, :] * sun
+    wind = np.where(reg_h == 0, 6.0, np.where(reg_h == 1, 1.5, 3.0))[None, :] * rng.uniform(
+        0.5, 1.5, size=(n_cells, 1))
+    return make_forcing(t, n_cells, t_air_k=ta, rh_frac=np.where(reg_h == 1, 0.7, 0.9),
+                        wind_m_s=wind, sw_in_w_m2=sw, cloud_frac=cloud, precip_kg_m2=pr,
+                        freezing_rain_frac=fz * np.ones((n_cells, 1)))

@@ -70,7 +70,7 @@ def test_conduction_carslaw_jaeger1959_erfc(hours_, expected_c):
     dzs = np.full(n, dz)
     src = np.zeros(n)
     k_top = k / (0.5 * dz)  # fixed surface temperature through the half-layer conductance
-    scratch = [np.zeros(2 * n) for _ in range(6)]
+    scratch = [np.zeros(n) for _ in range(2)]
     out = np.zeros(n)
     steps = int(hours_ * 60)  # one-minute steps
     for _ in range(steps):
