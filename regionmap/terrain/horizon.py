@@ -90,11 +90,13 @@ def _scan_one_line(w, n, L, ds, inv_r, floor0, sw, si, best, out):
         top = -1
         nxt = start - 1
         guess = 0
+        w_max = -np.inf
         for i in range(end - 1, start - 1, -1):
             lo_idx = i - L
             while nxt >= lo_idx:
                 wp = w[nxt]
                 if wp == wp:
+                    w_max = max(w_max, wp)
                     while top >= 1:
                         # drop the top when it is on or below the segment p-(top-1)
                         if (sw[top] - wp) * (si[top - 1] - nxt) <= (sw[top - 1] - wp) * (si[top] - nxt):
@@ -107,6 +109,15 @@ def _scan_one_line(w, n, L, ds, inv_r, floor0, sw, si, best, out):
                 nxt -= 1
             wi = w[i]
             if top < 0 or wi != wi:
+                continue
+            # skip the search when no suffix point can beat what the observer has: the
+            # suffix lies at distances i-start+1 .. L and no higher than w_max
+            rise = w_max - wi
+            bound = rise / (i - start + 1) if rise > 0.0 else rise / L
+            have = best[i]
+            if floor0:
+                have = max(have, i * ds * ds * inv_r)  # the tangent that ends up as 0
+            if bound <= have:
                 continue
             # tangent index k*: first k with slope(k+1) <= slope(k); gallop from the
             # previous tangent (it moves little between neighbouring observers)
@@ -158,166 +169,205 @@ def _scan_one_line(w, n, L, ds, inv_r, floor0, sw, si, best, out):
 
 
 @numba.njit(cache=True, nogil=True, error_model="numpy")
-def _scan_lines(z, flip, s, o_min, n_lines, ds, L, inv_r, floor0, buf):
-    """Scan every line of one azimuth in the view frame of ``z``.
+def _column_offsets(nx_v, s):
+    """Where the line o crosses view column c: row o + fl[c] + fr[c] (0 <= fr < 1).
 
-    The line o = o_min + k crosses column c at row o + c*s. Its result there is stored at
-    buf[o + ceil(c*s), c], the pixel row just below the crossing, so that the value at pixel
-    (r, c) is (1 - g_c) buf[r, c] + g_c buf[r + 1, c] with g_c = ceil(c*s) - c*s.
-    ``buf`` (ny + 1, nx) float32 must be NaN on entry.
+    Also ``up[c]``, the pixel row (relative to o) just below the crossing, and ``g[c]``, the
+    interpolation weight of the line below a pixel: pixel (r, c) lies between the lines
+    r - up[c] (weight 1 - g[c]) and r - up[c] + 1 (weight g[c]).
     """
-    ny, nx = z.shape
-    fl = np.empty(nx, dtype=np.int64)
-    fr = np.empty(nx)
-    up = np.empty(nx, dtype=np.int64)
-    for c in range(nx):
+    fl = np.empty(nx_v, dtype=np.int64)
+    fr = np.empty(nx_v)
+    up = np.empty(nx_v, dtype=np.int64)
+    g = np.empty(nx_v)
+    for c in range(nx_v):
         q = c * s
         f0 = math.floor(q)
-        fl[c] = int(f0)
-        fr[c] = q - f0
-        if fr[c] < 1e-9:
-            fr[c] = 0.0
-        elif fr[c] > 1.0 - 1e-9:
-            fr[c] = 0.0
-            fl[c] += 1
-        up[c] = fl[c] + 1 if fr[c] > 0.0 else fl[c]
-    w = np.empty(nx)
-    sw = np.empty(nx)
-    si = np.empty(nx, dtype=np.int64)
-    best = np.empty(nx)
-    res = np.empty(nx)
-    half_inv_r = 0.5 * inv_r
-    for k in range(n_lines):
-        o = int(o_min) + k
-        # columns where the line lies inside the grid: 0 <= o + c*s <= ny-1
-        c_lo = -1
-        c_hi = -2
-        for c in range(nx):
-            r0 = o + fl[c]
-            if r0 >= 0 and (r0 < ny - 1 or (r0 == ny - 1 and fr[c] == 0.0)):
-                if c_lo < 0:
-                    c_lo = c
-                c_hi = c
-            elif c_lo >= 0:
-                break
-        n = c_hi - c_lo + 1
-        if n <= 0:
-            continue
-        for i in range(n):
-            c = c_lo + i
-            r0 = o + fl[c]
-            f = fr[c]
-            cc = nx - 1 - c if flip else c
-            if f == 0.0:
-                v = z[r0, cc]
-            else:
-                v = (1.0 - f) * z[r0, cc] + f * z[r0 + 1, cc]
-            t = i * ds
-            w[i] = v - t * t * half_inv_r
-        _scan_one_line(w, n, L, ds, inv_r, floor0, sw, si, best, res)
-        for i in range(n):
-            c = c_lo + i
-            buf[o + up[c], c] = res[i]
+        f = q - f0
+        k = int(f0)
+        if f < 1e-9:
+            f = 0.0
+        elif f > 1.0 - 1e-9:
+            f = 0.0
+            k += 1
+        fl[c] = k
+        fr[c] = f
+        up[c] = k + 1 if f > 0.0 else k
+        g[c] = 1.0 - f if f > 0.0 else 0.0
+    return fl, fr, up, g
 
 
 @numba.njit(cache=True, nogil=True, error_model="numpy")
-def _column_weights(nx, s):
-    g = np.empty(nx)
-    for c in range(nx):
-        q = c * s
-        gc = math.ceil(q) - q
-        if gc < 1e-9 or gc > 1.0 - 1e-9:
-            gc = 0.0
-        g[c] = gc
-    return g
+def _scan_block(zc, flip, fl, fr, ny_v, o0, nb, ds, L, inv_r, floor0, wbuf, res, span, sw, si, best):
+    """Scan the lines o0 .. o0+nb-1 of one azimuth into ``res[1:nb+1]`` (NaN off the line).
 
-
-_TILE = 64
-
-
-@numba.njit(cache=True, nogil=True, error_model="numpy")
-def _gather_horizon(buf, transpose, flip, s, cos_phi, sin_phi, terms, horizon_out, sky_acc):
-    """Pixel horizon angles [deg] for one azimuth, plus its sky-view term (Dozier & Frew).
-
-    ``terms`` (3, y, x) float32 holds cos S, sin S cos A, sin S sin A (NaN = no data).
-    Loops over the view frame in tiles; (r, c) of the view is (r, c') of the original grid,
-    c' = nx-1-c when flipped, transposed when ``transpose``.
+    ``zc[c', r]`` is the elevation at view row r of view column c (c' = nx_v-1-c when
+    ``flip``), contiguous along r, so the nb lines are gathered column by column from short
+    contiguous runs; each line is then scanned as a contiguous 1-D array.
     """
-    ny_v = buf.shape[0] - 1
-    nx_v = buf.shape[1]
-    g = _column_weights(nx_v, s)
+    nx_v = fl.size
+    half_inv_r = 0.5 * inv_r
+    for b in range(nb):
+        span[b, 0] = nx_v
+        span[b, 1] = -1
+    for c in range(nx_v):
+        cc = nx_v - 1 - c if flip else c
+        f = fr[c]
+        base = o0 + fl[c]
+        # the line o0+b is on the grid at column c when 0 <= base+b <= ny_v-1 (-1 if f > 0)
+        b_lo = max(0, -base)
+        b_hi = min(nb - 1, ny_v - 1 - base - (1 if f > 0.0 else 0))
+        for b in range(b_lo, b_hi + 1):
+            r0 = base + b
+            if f == 0.0:
+                v = zc[cc, r0]
+            else:
+                v = (1.0 - f) * zc[cc, r0] + f * zc[cc, r0 + 1]
+            if span[b, 0] == nx_v:
+                span[b, 0] = c
+            span[b, 1] = c
+            t = (c - span[b, 0]) * ds
+            wbuf[b, c] = v - t * t * half_inv_r
+    for b in range(nb):
+        c_lo = span[b, 0]
+        c_hi = span[b, 1]
+        row = res[b + 1]
+        for c in range(nx_v):
+            row[c] = np.nan
+        if c_hi >= c_lo:
+            _scan_one_line(wbuf[b, c_lo:c_hi + 1], c_hi - c_lo + 1, L, ds, inv_r, floor0, sw, si, best,
+                           row[c_lo:c_hi + 1])
+
+
+@numba.njit(cache=True, nogil=True, error_model="numpy", inline="always")
+def _between_lines(a, b, g):
+    """(1 - g) a + g b, falling back to the defined one of a, b (NaN when neither is)."""
+    a2 = b if a != a else a
+    b2 = a if b != b else b
+    return (1.0 - g) * a2 + g * b2
+
+
+_BLOCK = 32
+
+
+@numba.njit(cache=True, nogil=True, error_model="numpy")
+def _horizon_azimuth(zc, flip, s, o_min, n_lines, ds, L, inv_r, cos_phi, sin_phi,
+                     cos_s, sin_cos, sin_sin, horizon_out, sky_acc):
+    """Horizon angle [deg] of one azimuth and its sky-view term, both on the view frame.
+
+    The view arrays are indexed [c', r] like ``zc``: ``cos_s``, ``sin_cos``, ``sin_sin`` hold
+    cos S, sin S cos A, sin S sin A (NaN = no data); ``horizon_out`` gets the angle [deg];
+    ``sky_acc`` is incremented by the azimuth's term of Eq. 7b of Dozier & Frew (1990).
+    Lines are processed in blocks of ``_BLOCK``; the pixels between the last line of the
+    previous block (kept in ``res[0]``) and the lines of this block are finished before the
+    next block, so only (block + 1) lines are ever held.
+    """
+    nx_v = zc.shape[0]
+    ny_v = zc.shape[1]
+    fl, fr, up, g = _column_offsets(nx_v, s)
+    nb_max = _BLOCK
+    wbuf = np.empty((nb_max, nx_v))
+    res = np.empty((nb_max + 1, nx_v))
+    span = np.empty((nb_max, 2), dtype=np.int64)
+    sw = np.empty(nx_v)
+    si = np.empty(nx_v, dtype=np.int64)
+    best = np.empty(nx_v)
+    e_buf = np.empty((nb_max, nx_v))
+    p_buf = np.empty((nb_max, nx_v))
+    q_buf = np.empty((nb_max, nx_v))
     rad2deg = 180.0 / math.pi
     half_pi = 0.5 * math.pi
-    tr = 1 if transpose else 0
-    fl = 1 if flip else 0
-    for r0 in range(0, ny_v, _TILE):
-        for c0 in range(0, nx_v, _TILE):
-            for r in range(r0, min(r0 + _TILE, ny_v)):
-                for c in range(c0, min(c0 + _TILE, nx_v)):
-                    cc = c + fl * (nx_v - 1 - 2 * c)
-                    ro = r + tr * (cc - r)
-                    co = cc + tr * (r - cc)
-                    cos_s = terms[0, ro, co]
-                    if cos_s != cos_s:
-                        horizon_out[ro, co] = np.nan
-                        continue
-                    gc = g[c]
-                    a = buf[r, c]
-                    b = buf[r + 1, c]
-                    if a != a:
-                        a = b
-                    if b != b:
-                        b = a
-                    m = (1.0 - gc) * a + gc * b
-                    if m != m:
-                        m = 0.0
-                    e = _atan(m)
-                    horizon_out[ro, co] = e * rad2deg
-                    # with H = pi/2 - e: sin^2 H = 1/(1+m^2), sin H cos H = m/(1+m^2)
-                    inv = 1.0 / (1.0 + m * m)
-                    cos_rel = terms[1, ro, co] * cos_phi + terms[2, ro, co] * sin_phi
-                    sky_acc[ro, co] += cos_s * inv + cos_rel * (half_pi - e - m * inv)
+    for c in range(nx_v):
+        res[0, c] = np.nan
+    o_first = int(o_min)
+    for o0 in range(o_first, o_first + n_lines, nb_max):
+        nb = min(nb_max, o_first + n_lines - o0)
+        _scan_block(zc, flip, fl, fr, ny_v, o0, nb, ds, L, inv_r, True, wbuf, res, span, sw, si, best)
+        # pixels whose upper line is o0-1 .. o0+nb-2 (res rows 0 .. nb-1): first the angle
+        # and the two sky-view weights along each line (a loop that vectorises), then the
+        # pixel updates
+        for k in range(nb):
+            for c in range(nx_v):
+                m = _between_lines(res[k, c], res[k + 1, c], g[c])
+                m = 0.0 if m != m else m
+                e = _atan(m)
+                # with H = pi/2 - e: sin^2 H = 1/(1+m^2), sin H cos H = m/(1+m^2)
+                inv = 1.0 / (1.0 + m * m)
+                e_buf[k, c] = e
+                p_buf[k, c] = inv
+                q_buf[k, c] = half_pi - e - m * inv
+        for c in range(nx_v):
+            cc = nx_v - 1 - c if flip else c
+            u = up[c]
+            r_lo = max(0, o0 - 1 + u)
+            r_hi = min(ny_v - 1, o0 + nb - 2 + u)
+            for r in range(r_lo, r_hi + 1):
+                k = r - u - o0 + 1
+                cs = cos_s[cc, r]
+                if cs != cs:
+                    horizon_out[cc, r] = np.nan
+                else:
+                    horizon_out[cc, r] = e_buf[k, c] * rad2deg
+                    cos_rel = sin_cos[cc, r] * cos_phi + sin_sin[cc, r] * sin_phi
+                    sky_acc[cc, r] += cs * p_buf[k, c] + cos_rel * q_buf[k, c]
+        for c in range(nx_v):
+            res[0, c] = res[nb, c]
 
 
 @numba.njit(cache=True, nogil=True, error_model="numpy")
-def _gather_degrees(buf, transpose, flip, s, z, total, count):
-    """Accumulate atan(line value) [deg] at each pixel (for direction averages)."""
-    ny_v = buf.shape[0] - 1
-    nx_v = buf.shape[1]
-    g = _column_weights(nx_v, s)
+def _sx_azimuth(zc, flip, s, o_min, n_lines, ds, L, total, count):
+    """Accumulate atan(max upwind tangent) [deg] of one direction at each pixel.
+
+    ``total`` and ``count`` are view arrays indexed [c', r] like ``zc``; pixels where no
+    line value is defined are left alone.
+    """
+    nx_v = zc.shape[0]
+    ny_v = zc.shape[1]
+    fl, fr, up, g = _column_offsets(nx_v, s)
+    nb_max = _BLOCK
+    wbuf = np.empty((nb_max, nx_v))
+    res = np.empty((nb_max + 1, nx_v))
+    span = np.empty((nb_max, 2), dtype=np.int64)
+    sw = np.empty(nx_v)
+    si = np.empty(nx_v, dtype=np.int64)
+    best = np.empty(nx_v)
+    e_buf = np.empty((nb_max, nx_v))
     rad2deg = 180.0 / math.pi
-    for r0 in range(0, ny_v, _TILE):
-        for c0 in range(0, nx_v, _TILE):
-            for r in range(r0, min(r0 + _TILE, ny_v)):
-                for c in range(c0, min(c0 + _TILE, nx_v)):
-                    cc = nx_v - 1 - c if flip else c
-                    if transpose:
-                        ro = cc
-                        co = r
-                    else:
-                        ro = r
-                        co = cc
-                    if math.isnan(z[ro, co]):
-                        continue
-                    gc = g[c]
-                    a = buf[r, c]
-                    if gc == 0.0:
-                        m = a
-                    else:
-                        b = buf[r + 1, c]
-                        if math.isnan(a):
-                            m = b
-                        elif math.isnan(b):
-                            m = a
-                        else:
-                            m = (1.0 - gc) * a + gc * b
-                    if not math.isnan(m):
-                        total[ro, co] += _atan(m) * rad2deg
-                        count[ro, co] += 1.0
+    for c in range(nx_v):
+        res[0, c] = np.nan
+    o_first = int(o_min)
+    for o0 in range(o_first, o_first + n_lines, nb_max):
+        nb = min(nb_max, o_first + n_lines - o0)
+        _scan_block(zc, flip, fl, fr, ny_v, o0, nb, ds, L, 0.0, False, wbuf, res, span, sw, si, best)
+        for k in range(nb):
+            for c in range(nx_v):
+                if g[c] == 0.0:
+                    m = res[k, c]
+                else:
+                    m = _between_lines(res[k, c], res[k + 1, c], g[c])
+                e_buf[k, c] = _atan(m) * rad2deg  # NaN stays NaN
+        for c in range(nx_v):
+            cc = nx_v - 1 - c if flip else c
+            u = up[c]
+            r_lo = max(0, o0 - 1 + u)
+            r_hi = min(ny_v - 1, o0 + nb - 2 + u)
+            for r in range(r_lo, r_hi + 1):
+                e = e_buf[r - u - o0 + 1, c]
+                if e == e and zc[cc, r] == zc[cc, r]:
+                    total[cc, r] += e
+                    count[cc, r] += 1.0
+        for c in range(nx_v):
+            res[0, c] = res[nb, c]
 
 
 class _Geometry:
-    """Line geometry of one azimuth on a grid (see the module docstring)."""
+    """Line geometry of one azimuth on a grid (see the module docstring).
+
+    The view frame has its lines running along view columns; ``transpose`` says whether the
+    view rows are the grid's columns, ``flip`` whether view columns run against the grid's.
+    Kernels index view arrays as [c', r] (c' the grid-side column index): ``view`` gives that
+    form of a (y, x) grid array.
+    """
 
     def __init__(self, azimuth_deg: float, ny: int, nx: int, dx_m: float, dy_m: float, distance_m: float):
         phi = math.radians(azimuth_deg)
@@ -341,15 +391,14 @@ class _Geometry:
         hi = max(ny_v - 1.0, ny_v - 1.0 - (nx_v - 1) * self.s)
         self.o_min = float(math.floor(lo)) - 1.0
         self.n_lines = int(math.ceil(hi)) - int(self.o_min) + 2
-        self.ny_v = ny_v
-        self.nx_v = nx_v
 
-    def scan(self, z, zt, inv_r, floor0):
-        """Line results in the view frame: (ny_v + 1, nx_v) float32, NaN where undefined."""
-        buf = np.full((self.ny_v + 1, self.nx_v), np.nan, dtype=np.float32)
-        _scan_lines(zt if self.transpose else z, self.flip, self.s, self.o_min, self.n_lines,
-                    self.ds, self.L, inv_r, floor0, buf)
-        return buf
+    def view(self, grid: np.ndarray) -> np.ndarray:
+        """The [c', r] view of a (y, x) array (no copy)."""
+        return grid if self.transpose else grid.T
+
+    def elevation(self, z: np.ndarray, zt: np.ndarray) -> np.ndarray:
+        """The [c', r] view of the elevations, contiguous along r (``zt`` is ``z.T`` copied)."""
+        return z if self.transpose else zt
 
 
 def _prepare(elevation_m):
@@ -415,10 +464,9 @@ def horizon_sky_view_dozier_frew1990(
     s_rad = np.radians(np.asarray(slope_deg, dtype=np.float64))
     a_rad = np.radians(np.nan_to_num(np.asarray(aspect_deg, dtype=np.float64), nan=0.0))
     s_rad[np.isnan(z)] = np.nan
-    terms = np.empty((3, ny, nx), dtype=np.float32)
-    terms[0] = np.cos(s_rad)
-    terms[1] = np.sin(s_rad) * np.cos(a_rad)
-    terms[2] = np.sin(s_rad) * np.sin(a_rad)
+    cos_s = np.cos(s_rad).astype(np.float32)
+    sin_cos = (np.sin(s_rad) * np.cos(a_rad)).astype(np.float32)
+    sin_sin = (np.sin(s_rad) * np.sin(a_rad)).astype(np.float32)
     del s_rad, a_rad
     horizon = np.empty((az.size, ny, nx), dtype=np.float32)
     inv_r = 1.0 / EARTH_RADIUS_M if earth_curvature else 0.0
@@ -427,11 +475,10 @@ def horizon_sky_view_dozier_frew1990(
         acc = np.zeros((ny, nx))
         for i in indices:
             g = _Geometry(az[i], ny, nx, dx_m, dy_m, distance_m)
-            buf = g.scan(z, zt, inv_r, True)
             phi = math.radians(az[i])
-            _gather_horizon(buf, g.transpose, g.flip, g.s, math.cos(phi), math.sin(phi), terms,
-                            horizon[i], acc)
-            del buf
+            _horizon_azimuth(g.elevation(z, zt), g.flip, g.s, g.o_min, g.n_lines, g.ds, g.L, inv_r,
+                             math.cos(phi), math.sin(phi), g.view(cos_s), g.view(sin_cos), g.view(sin_sin),
+                             g.view(horizon[i]), g.view(acc))
             if progress is not None:
                 progress(1)
         return acc
@@ -532,8 +579,8 @@ def max_upwind_slope_winstral2002(
             count = np.zeros((ny, nx))
             for off in offsets:
                 g = _Geometry((dirs[i] + off) % 360.0, ny, nx, dx_m, dy_m, distance_m)
-                buf = g.scan(z, zt, 0.0, False)
-                _gather_degrees(buf, g.transpose, g.flip, g.s, z, total, count)
+                _sx_azimuth(g.elevation(z, zt), g.flip, g.s, g.o_min, g.n_lines, g.ds, g.L,
+                            g.view(total), g.view(count))
             with np.errstate(invalid="ignore", divide="ignore"):
                 out[i] = np.where(count > 0, total / np.maximum(count, 1.0), np.nan)
             if progress is not None:
