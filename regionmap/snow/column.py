@@ -254,6 +254,7 @@ def snapshots_to_dataset(snapshots: dict, cell_id: np.ndarray) -> xr.Dataset:
     ds["crust_kind"] = (dims, np.where(used, crust_codes_to_strings(snapshots["crust_code"]), "").astype(str))
     for name in ("deposition_time", "formation_time"):
         ds[name] = (dims, snapshots[name], {"units": "seconds since 1970-01-01"})
-    ds["event_id"] = (dims, snapshots["event_id"], {"units": "hours since 1970-01-01"})
+    ds["event_id"] = (dims, snapshots["event_id"], {
+        "long_name": "start of the forming event, whole hours since 1970-01-01T00Z"})
     ds.attrs["layer_order"] = "bottom first"
     return ds

@@ -210,8 +210,8 @@ class SnowState:
                     "units": "seconds since 1970-01-01", "_FillValue_note": "-1 where unused"}),
                 "formation_time": (dims, t64(self.formation_time_s2000), {
                     "units": "seconds since 1970-01-01"}),
-                "event_id": (dims, self.event_id, {"units": "hours since 1970-01-01",
-                                                   "long_name": "start hour of the forming event"}),
+                "event_id": (dims, self.event_id, {
+                    "long_name": "start of the forming event, whole hours since 1970-01-01T00Z"}),
                 "soil_temperature_k": (("cell", "soil_layer"), self.surface[:, V_SOIL:V_SOIL + N_SOIL], {"units": "K"}),
                 "new_snow_history_kg_m2": (("cell", "ring_hour"), self.new_snow_kg_m2, {"units": "kg m-2"}),
                 "new_snow_history_m": (("cell", "ring_hour"), self.new_snow_m, {"units": "m"}),
@@ -259,7 +259,10 @@ class SnowState:
                              "codes of regionmap.snow.codes") from None
 
         def s2000(name):
-            v = ds[name].values.astype(np.int64) - EPOCH_2000_S
+            raw = ds[name].values
+            if np.issubdtype(raw.dtype, np.datetime64):  # decoded by xarray from CF units
+                raw = raw.astype("datetime64[s]").astype(np.int64)
+            v = raw.astype(np.int64) - EPOCH_2000_S
             return np.where(active, v, 0).astype(np.int32)
 
         layers = {
