@@ -545,8 +545,13 @@ def _cleanup(fw, iw, n):
     i = n - 1
     while i >= 0:
         if fw[F_ICE, i] <= 0.0:
-            if i > 0:
-                fw[F_LIQ, i - 1] += fw[F_LIQ, i]
+            if i > 0:  # its water (at 0 degC, zero enthalpy) joins the layer below
+                j = i - 1
+                h = layer_enthalpy(fw[F_ICE, j], fw[F_LIQ, j], fw[F_TEMP, j])
+                ice, liq, t, _ = resolve_phase(fw[F_ICE, j] + fw[F_LIQ, j] + fw[F_LIQ, i], h)
+                fw[F_ICE, j] = ice
+                fw[F_LIQ, j] = liq
+                fw[F_TEMP, j] = t
             else:
                 out += fw[F_LIQ, i]
             n = remove_layer(fw, iw, n, i)
@@ -638,11 +643,21 @@ def _step(fw, iw, sv, si, ring_m, ring_d, ta, rh, pres, wind_raw, sw_in, lw_in, 
             top = n - 1
             heat = C_WATER_J_KG_K * (max(ta, T_MELT_K) - T_MELT_K) * rain
             h = layer_enthalpy(fw[F_ICE, top], fw[F_LIQ, top], fw[F_TEMP, top]) + heat
-            ice, liq, t, _ = resolve_phase(fw[F_ICE, top] + fw[F_LIQ, top] + rain, h)
+            ice, liq, t, extra = resolve_phase(fw[F_ICE, top] + fw[F_LIQ, top] + rain, h)
             fw[F_ICE, top] = ice
             fw[F_LIQ, top] = liq
             fw[F_TEMP, top] = t
-            e_mass += heat
+            i = top - 1
+            while extra > 0.0 and i >= 0:  # warm rain melting the whole top layer: heat moves on
+                h = layer_enthalpy(fw[F_ICE, i], fw[F_LIQ, i], fw[F_TEMP, i]) + extra
+                ice, liq, t, extra = resolve_phase(fw[F_ICE, i] + fw[F_LIQ, i], h)
+                fw[F_ICE, i] = ice
+                fw[F_LIQ, i] = liq
+                fw[F_TEMP, i] = t
+                i -= 1
+            e_mass += heat - extra
+            if extra > 0.0:
+                sv[V_SOIL + N_SOIL - 1] += extra / (p[P_SOIL_HEAT_CAPACITY_J_M3_K] * _SOIL_DZ[N_SOIL - 1])
             acc[A_RAIN_ON_SNOW] = rain
             rain_wetting = rain >= p[P_EVENT_MIN_KG_M2]
         else:
