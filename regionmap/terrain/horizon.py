@@ -56,116 +56,194 @@ def _atan(x):
     return -r if x < 0 else r
 
 
-@numba.njit(cache=True, nogil=True, error_model="numpy")
-def _scan_one_line(w, n, L, ds, inv_r, floor0, sw, si, best, out):
-    """Max elevation tangent over the window [i-L, i-1] for each point i of one line.
+@numba.njit(cache=True, nogil=True, error_model="numpy", inline="always")
+def _slope_rises(sw, si, k, wi, xi):
+    """Whether the hull vertex k+1 is seen steeper than vertex k from the point (xi, wi)
+    lying outside the hull's range (distances |xi - si|, no division)."""
+    return (sw[k + 1] - wi) * abs(xi - si[k]) > (sw[k] - wi) * abs(xi - si[k + 1])
 
-    ``w`` holds the curvature-transformed heights (NaN = no data); the hull is kept as
-    parallel stacks of heights ``sw`` and indices ``si``. ``out[i]`` gets the tangent
-    (minus the curvature term t_i/R, floored at 0 when ``floor0``), NaN for a missing
-    observer, and 0 (``floor0``) or NaN when the window holds no data.
+
+@numba.njit(cache=True, nogil=True, error_model="numpy", inline="always")
+def _tangent_vertex(sw, si, top, wi, xi, guess):
+    """Hull vertex (stack index) of the steepest sight line from (xi, wi).
+
+    The stack holds an upper hull with its bottom nearest to the observer, so the slope to
+    the vertices rises and then falls; the search gallops from ``guess`` (the previous
+    observer's answer, which moves little) and ends with a bisection.
+    """
+    p = guess if guess < top else top
+    if p < top and _slope_rises(sw, si, p, wi, xi):
+        lo = p + 1
+        step = 1
+        hi = lo
+        while hi < top:
+            if _slope_rises(sw, si, hi, wi, xi):
+                lo = hi + 1
+                hi = min(hi + 2 * step, top)
+                step *= 2
+            else:
+                break
+    else:
+        hi = p
+        step = 1
+        lo = hi
+        while lo > 0:
+            if _slope_rises(sw, si, lo - 1, wi, xi):
+                break
+            hi = lo - 1
+            lo = max(lo - 2 * step, 0)
+            step *= 2
+    while lo < hi:
+        mid = (lo + hi) >> 1
+        if _slope_rises(sw, si, mid, wi, xi):
+            lo = mid + 1
+        else:
+            hi = mid
+    return lo
+
+
+@numba.njit(cache=True, nogil=True, error_model="numpy")
+def _scan_line_pair(w, n, L, ds, inv_r, floor0, back, sw, si, best, best_b, out, out_b):
+    """Max elevation tangents over the windows [i-L, i-1] and, when ``back``, [i+1, i+L].
+
+    ``w`` holds the curvature-transformed heights (NaN = no data); hulls are kept as
+    parallel stacks of heights ``sw`` and indices ``si``. ``out[i]`` gets the tangent toward
+    lower indices (minus the curvature term t_i/R), ``out_b[i]`` the one toward higher
+    indices (plus t_i/R, see the module docstring), floored at 0 when ``floor0``; NaN for a
+    missing observer, and 0 (``floor0``) or NaN when the window holds no data.
+
+    The line is cut into blocks of L. A hull grown rightwards over a block gives, for free,
+    each point's tangent toward lower indices inside its own block, and is searched by the
+    points of the block before for the part of their upward window inside this block; a hull
+    grown leftwards over a block gives the upward in-block tangents for free and is searched
+    by the points of the block after. Searches that cannot beat what the observer already
+    has (bounded by the highest point and the nearest distance of the searched part) are
+    skipped.
     """
     for i in range(n):
         best[i] = -np.inf
-    # prefix of the observer's own block: forward hull with popping
-    for start in range(0, n, L):
+    if back:
+        for i in range(n):
+            best_b[i] = -np.inf
+    thr = ds * ds * inv_r  # per index: the tangent that ends up as 0 is +-i*thr
+    for start in range(0, n + L, L):
+        if start < n:
+            # hull grown rightwards over [start, end)
+            end = min(start + L, n)
+            top = -1
+            guess = 0
+            w_max = -np.inf
+            for q in range(start, end):
+                wq = w[q]
+                if wq == wq:
+                    while top >= 1:
+                        if (sw[top - 1] - wq) * (q - si[top]) >= (sw[top] - wq) * (q - si[top - 1]):
+                            top -= 1
+                        else:
+                            break
+                    if top >= 0:
+                        best[q] = (sw[top] - wq) / (q - si[top])
+                    top += 1
+                    sw[top] = wq
+                    si[top] = q
+                    w_max = max(w_max, wq)
+                if not back or start == 0:
+                    continue
+                # observers of the block before whose upward window ends at q (all the
+                # remaining ones once the block is complete or the line ends)
+                i_hi = q - L if q < end - 1 else start - 1
+                for i in range(q - L, i_hi + 1):
+                    wi = w[i]
+                    if top < 0 or wi != wi:
+                        continue
+                    rise = w_max - wi
+                    bound = rise / (start - i) if rise > 0.0 else rise / L
+                    have = best_b[i]
+                    if i + 1 < start and w[i + 1] == w[i + 1]:
+                        have = max(have, w[i + 1] - wi)  # the neighbour, counted later
+                    if floor0:
+                        have = max(have, -i * thr)
+                    if bound <= have:
+                        continue
+                    guess = _tangent_vertex(sw, si, top, wi, i, guess)
+                    m = (sw[guess] - wi) / (si[guess] - i)
+                    if m > best_b[i]:
+                        best_b[i] = m
+        # hull grown leftwards over the block before, [start - L, start); searched by the
+        # observers of [start, end) toward lower indices
+        if start == 0:
+            continue
+        if start >= n and not back:
+            break
         top = -1
-        for i in range(start, min(start + L, n)):
-            wi = w[i]
-            if wi != wi:
-                continue
-            while top >= 1:
-                if (sw[top - 1] - wi) * (i - si[top]) >= (sw[top] - wi) * (i - si[top - 1]):
-                    top -= 1
-                else:
-                    break
-            if top >= 0:
-                best[i] = (sw[top] - wi) / (i - si[top])
-            top += 1
-            sw[top] = wi
-            si[top] = i
-    # suffix of the previous block: hull grown leftwards, tangent by galloping search
-    for start in range(L, n, L):
-        end = min(start + L, n)
-        top = -1
-        nxt = start - 1
+        nxt = min(start, n) - 1
         guess = 0
         w_max = -np.inf
-        for i in range(end - 1, start - 1, -1):
-            lo_idx = i - L
+        # observers from min(start + L, n) - 1 down to start; the last pass (o = start - 1,
+        # the only one when start >= n) just completes the hull for the upward tangents
+        for o in range(max(min(start + L, n) - 1, start - 1), start - 2, -1):
+            lo_idx = o - L if o >= start else start - L
             while nxt >= lo_idx:
                 wp = w[nxt]
                 if wp == wp:
-                    w_max = max(w_max, wp)
                     while top >= 1:
                         # drop the top when it is on or below the segment p-(top-1)
                         if (sw[top] - wp) * (si[top - 1] - nxt) <= (sw[top - 1] - wp) * (si[top] - nxt):
                             top -= 1
                         else:
                             break
+                    if back and top >= 0:
+                        m = (sw[top] - wp) / (si[top] - nxt)
+                        if m > best_b[nxt]:
+                            best_b[nxt] = m
                     top += 1
                     sw[top] = wp
                     si[top] = nxt
+                    w_max = max(w_max, wp)
                 nxt -= 1
-            wi = w[i]
+            if o < start:
+                break
+            wi = w[o]
             if top < 0 or wi != wi:
                 continue
-            # skip the search when no suffix point can beat what the observer has: the
-            # suffix lies at distances i-start+1 .. L and no higher than w_max
+            # skip the search when no point of the block before can beat what the observer
+            # has: they lie at distances o-start+1 .. L and no higher than w_max
             rise = w_max - wi
-            bound = rise / (i - start + 1) if rise > 0.0 else rise / L
-            have = best[i]
+            bound = rise / (o - start + 1) if rise > 0.0 else rise / L
+            have = best[o]
             if floor0:
-                have = max(have, i * ds * ds * inv_r)  # the tangent that ends up as 0
+                have = max(have, o * thr)
             if bound <= have:
                 continue
-            # tangent index k*: first k with slope(k+1) <= slope(k); gallop from the
-            # previous tangent (it moves little between neighbouring observers)
-            p = guess if guess < top else top
-            if p < top and (sw[p + 1] - wi) * (i - si[p]) > (sw[p] - wi) * (i - si[p + 1]):
-                lo = p + 1
-                step = 1
-                hi = lo
-                while hi < top:
-                    if (sw[hi + 1] - wi) * (i - si[hi]) > (sw[hi] - wi) * (i - si[hi + 1]):
-                        lo = hi + 1
-                        hi = min(hi + 2 * step, top)
-                        step *= 2
-                    else:
-                        break
-            else:
-                hi = p
-                step = 1
-                lo = hi
-                while lo > 0:
-                    if (sw[lo] - wi) * (i - si[lo - 1]) > (sw[lo - 1] - wi) * (i - si[lo]):
-                        break
-                    hi = lo - 1
-                    lo = max(lo - 2 * step, 0)
-                    step *= 2
-            while lo < hi:
-                mid = (lo + hi) >> 1
-                if (sw[mid + 1] - wi) * (i - si[mid]) > (sw[mid] - wi) * (i - si[mid + 1]):
-                    lo = mid + 1
-                else:
-                    hi = mid
-            guess = lo
-            m = (sw[lo] - wi) / (i - si[lo])
-            if m > best[i]:
-                best[i] = m
+            guess = _tangent_vertex(sw, si, top, wi, o, guess)
+            m = (sw[guess] - wi) / (o - si[guess])
+            if m > best[o]:
+                best[o] = m
     inv_ds = 1.0 / ds
     for i in range(n):
-        wi = w[i]
-        m = best[i]
-        if wi != wi:
-            out[i] = np.nan
-        elif m == -np.inf:
-            out[i] = 0.0 if floor0 else np.nan
-        else:
-            m = m * inv_ds - i * ds * inv_r
-            if floor0 and m < 0.0:
-                m = 0.0
-            out[i] = m
+        out[i] = _final_tangent(w[i], best[i], -i * ds * inv_r, inv_ds, floor0)
+    if back:
+        for i in range(n):
+            out_b[i] = _final_tangent(w[i], best_b[i], i * ds * inv_r, inv_ds, floor0)
+
+
+@numba.njit(cache=True, nogil=True, error_model="numpy", inline="always")
+def _final_tangent(wi, m, curvature_term, inv_ds, floor0):
+    if wi != wi:
+        return np.nan
+    if m == -np.inf:
+        return 0.0 if floor0 else np.nan
+    m = m * inv_ds + curvature_term
+    if floor0 and m < 0.0:
+        m = 0.0
+    return m
+
+
+@numba.njit(cache=True, nogil=True, error_model="numpy")
+def _scan_one_line(w, n, L, ds, inv_r, floor0, sw, si, best, out):
+    """Max elevation tangent over the window [i-L, i-1] for each point i of one line (the
+    one-directional form of :func:`_scan_line_pair`)."""
+    _scan_line_pair(w, n, L, ds, inv_r, floor0, False, sw, si, best, best, out, out)
 
 
 @numba.njit(cache=True, nogil=True, error_model="numpy")
@@ -198,8 +276,10 @@ def _column_offsets(nx_v, s):
 
 
 @numba.njit(cache=True, nogil=True, error_model="numpy")
-def _scan_block(zc, flip, fl, fr, ny_v, o0, nb, ds, L, inv_r, floor0, wbuf, res, span, sw, si, best):
-    """Scan the lines o0 .. o0+nb-1 of one azimuth into ``res[1:nb+1]`` (NaN off the line).
+def _scan_block(zc, flip, fl, fr, ny_v, o0, nb, ds, L, inv_r, floor0, back, wbuf, res, res_b, span, sw, si,
+                best, best_b):
+    """Scan the lines o0 .. o0+nb-1 of one azimuth into ``res[1:nb+1]`` (NaN off the line),
+    and when ``back`` those of the opposite azimuth (the same lines) into ``res_b[1:nb+1]``.
 
     ``zc[c', r]`` is the elevation at view row r of view column c (c' = nx_v-1-c when
     ``flip``), contiguous along r, so the nb lines are gathered column by column from short
@@ -232,11 +312,15 @@ def _scan_block(zc, flip, fl, fr, ny_v, o0, nb, ds, L, inv_r, floor0, wbuf, res,
         c_lo = span[b, 0]
         c_hi = span[b, 1]
         row = res[b + 1]
+        row_b = res_b[b + 1]
         for c in range(nx_v):
             row[c] = np.nan
+        if back:
+            for c in range(nx_v):
+                row_b[c] = np.nan
         if c_hi >= c_lo:
-            _scan_one_line(wbuf[b, c_lo:c_hi + 1], c_hi - c_lo + 1, L, ds, inv_r, floor0, sw, si, best,
-                           row[c_lo:c_hi + 1])
+            _scan_line_pair(wbuf[b, c_lo:c_hi + 1], c_hi - c_lo + 1, L, ds, inv_r, floor0, back, sw, si, best,
+                            best_b, row[c_lo:c_hi + 1], row_b[c_lo:c_hi + 1])
 
 
 @numba.njit(cache=True, nogil=True, error_model="numpy", inline="always")
@@ -251,9 +335,10 @@ _BLOCK = 32
 
 
 @numba.njit(cache=True, nogil=True, error_model="numpy")
-def _horizon_azimuth(zc, flip, s, o_min, n_lines, ds, L, inv_r, cos_phi, sin_phi,
-                     cos_s, sin_cos, sin_sin, horizon_out, sky_acc):
-    """Horizon angle [deg] of one azimuth and its sky-view term, both on the view frame.
+def _horizon_azimuth(zc, flip, s, o_min, n_lines, ds, L, inv_r, cos_phi, sin_phi, back,
+                     cos_s, sin_cos, sin_sin, horizon_out, horizon_b, sky_acc):
+    """Horizon angle [deg] of one azimuth and its sky-view term, both on the view frame;
+    with ``back``, also those of the opposite azimuth (into ``horizon_b``) from the same lines.
 
     The view arrays are indexed [c', r] like ``zc``: ``cos_s``, ``sin_cos``, ``sin_sin`` hold
     cos S, sin S cos A, sin S sin A (NaN = no data); ``horizon_out`` gets the angle [deg];
@@ -272,30 +357,44 @@ def _horizon_azimuth(zc, flip, s, o_min, n_lines, ds, L, inv_r, cos_phi, sin_phi
     sw = np.empty(nx_v)
     si = np.empty(nx_v, dtype=np.int64)
     best = np.empty(nx_v)
+    res_b = np.empty((nb_max + 1, nx_v)) if back else res
+    best_b = np.empty(nx_v) if back else best
     e_buf = np.empty((nb_max, nx_v))
+    e_buf_b = np.empty((nb_max, nx_v)) if back else e_buf
     p_buf = np.empty((nb_max, nx_v))
     q_buf = np.empty((nb_max, nx_v))
     rad2deg = 180.0 / math.pi
     half_pi = 0.5 * math.pi
     for c in range(nx_v):
         res[0, c] = np.nan
+        res_b[0, c] = np.nan
     o_first = int(o_min)
     for o0 in range(o_first, o_first + n_lines, nb_max):
         nb = min(nb_max, o_first + n_lines - o0)
-        _scan_block(zc, flip, fl, fr, ny_v, o0, nb, ds, L, inv_r, True, wbuf, res, span, sw, si, best)
-        # pixels whose upper line is o0-1 .. o0+nb-2 (res rows 0 .. nb-1): first the angle
-        # and the two sky-view weights along each line (a loop that vectorises), then the
-        # pixel updates
+        _scan_block(zc, flip, fl, fr, ny_v, o0, nb, ds, L, inv_r, True, back, wbuf, res, res_b, span, sw, si,
+                    best, best_b)
+        # pixels whose upper line is o0-1 .. o0+nb-2 (res rows 0 .. nb-1): first the angles
+        # and the sky-view weights along each line (loops that vectorise), then the pixel
+        # updates. With H = pi/2 - e: sin^2 H = 1/(1+m^2), sin H cos H = m/(1+m^2); the
+        # opposite azimuth has cos(phi - A) of the other sign.
         for k in range(nb):
             for c in range(nx_v):
                 m = _between_lines(res[k, c], res[k + 1, c], g[c])
                 m = 0.0 if m != m else m
                 e = _atan(m)
-                # with H = pi/2 - e: sin^2 H = 1/(1+m^2), sin H cos H = m/(1+m^2)
                 inv = 1.0 / (1.0 + m * m)
                 e_buf[k, c] = e
                 p_buf[k, c] = inv
                 q_buf[k, c] = half_pi - e - m * inv
+            if back:
+                for c in range(nx_v):
+                    m = _between_lines(res_b[k, c], res_b[k + 1, c], g[c])
+                    m = 0.0 if m != m else m
+                    e = _atan(m)
+                    inv = 1.0 / (1.0 + m * m)
+                    e_buf_b[k, c] = e
+                    p_buf[k, c] += inv
+                    q_buf[k, c] -= half_pi - e - m * inv
         for c in range(nx_v):
             cc = nx_v - 1 - c if flip else c
             u = up[c]
@@ -306,12 +405,17 @@ def _horizon_azimuth(zc, flip, s, o_min, n_lines, ds, L, inv_r, cos_phi, sin_phi
                 cs = cos_s[cc, r]
                 if cs != cs:
                     horizon_out[cc, r] = np.nan
+                    if back:
+                        horizon_b[cc, r] = np.nan
                 else:
                     horizon_out[cc, r] = e_buf[k, c] * rad2deg
+                    if back:
+                        horizon_b[cc, r] = e_buf_b[k, c] * rad2deg
                     cos_rel = sin_cos[cc, r] * cos_phi + sin_sin[cc, r] * sin_phi
                     sky_acc[cc, r] += cs * p_buf[k, c] + cos_rel * q_buf[k, c]
         for c in range(nx_v):
             res[0, c] = res[nb, c]
+            res_b[0, c] = res_b[nb, c]
 
 
 @numba.njit(cache=True, nogil=True, error_model="numpy")
@@ -338,7 +442,8 @@ def _sx_azimuth(zc, flip, s, o_min, n_lines, ds, L, total, count):
     o_first = int(o_min)
     for o0 in range(o_first, o_first + n_lines, nb_max):
         nb = min(nb_max, o_first + n_lines - o0)
-        _scan_block(zc, flip, fl, fr, ny_v, o0, nb, ds, L, 0.0, False, wbuf, res, span, sw, si, best)
+        _scan_block(zc, flip, fl, fr, ny_v, o0, nb, ds, L, 0.0, False, False, wbuf, res, res, span, sw, si,
+                    best, best)
         for k in range(nb):
             for c in range(nx_v):
                 if g[c] == 0.0:
@@ -406,6 +511,20 @@ def _prepare(elevation_m):
     return z, np.ascontiguousarray(z.T)
 
 
+def _opposite_pairs(azimuths_deg: np.ndarray) -> list[tuple[int, int]]:
+    """Azimuth indices as (i, j) tasks, j the opposite azimuth scanned along the same lines
+    (or -1), each index exactly once."""
+    todo = list(range(azimuths_deg.size))
+    tasks = []
+    while todo:
+        i = todo.pop(0)
+        gap = (azimuths_deg[todo] - azimuths_deg[i] - 180.0) % 360.0
+        near = np.flatnonzero(np.minimum(gap, 360.0 - gap) < 1e-9)
+        j = todo.pop(int(near[0])) if near.size else -1
+        tasks.append((i, j))
+    return tasks
+
+
 def horizon_sky_view_dozier_frew1990(
     elevation_m: np.ndarray,
     dx_m: float,
@@ -471,19 +590,21 @@ def horizon_sky_view_dozier_frew1990(
     horizon = np.empty((az.size, ny, nx), dtype=np.float32)
     inv_r = 1.0 / EARTH_RADIUS_M if earth_curvature else 0.0
 
-    def work(indices):
+    def work(tasks):
         acc = np.zeros((ny, nx))
-        for i in indices:
+        for i, j in tasks:
             g = _Geometry(az[i], ny, nx, dx_m, dy_m, distance_m)
             phi = math.radians(az[i])
             _horizon_azimuth(g.elevation(z, zt), g.flip, g.s, g.o_min, g.n_lines, g.ds, g.L, inv_r,
-                             math.cos(phi), math.sin(phi), g.view(cos_s), g.view(sin_cos), g.view(sin_sin),
-                             g.view(horizon[i]), g.view(acc))
+                             math.cos(phi), math.sin(phi), j >= 0, g.view(cos_s), g.view(sin_cos),
+                             g.view(sin_sin), g.view(horizon[i]), g.view(horizon[j if j >= 0 else i]),
+                             g.view(acc))
             if progress is not None:
-                progress(1)
+                progress(1 if j < 0 else 2)
         return acc
 
-    chunks = [list(range(k, az.size, _N_THREADS)) for k in range(_N_THREADS)]
+    tasks = _opposite_pairs(az)
+    chunks = [tasks[k::_N_THREADS] for k in range(_N_THREADS)]
     with ThreadPoolExecutor(_N_THREADS) as pool:
         parts = list(pool.map(work, chunks))
     sky = parts[0]
