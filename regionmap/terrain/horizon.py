@@ -2,17 +2,25 @@
 
 For one azimuth the grid is cut into parallel lines in that direction, spaced one pixel
 apart across it; elevations along a line are linearly interpolated between the two
-nearest pixels of each column (or row), so a plane stays exactly a plane. Each line is a
-contiguous 1-D array scanned once. The maximum elevation angle within the search distance
-is found with upper convex hulls: the search window [i − L, i − 1] is split at block
-boundaries of length L into a prefix of the observer's own block (hull built forward,
-O(1) amortised per point) and a suffix of the previous block (hull built backward, queried
-by binary search), so a line of n points costs O(n log L) instead of O(n L). Earth
-curvature enters exactly (in the parabolic form d²/2R) through the transformed height
-w = z − t²/2R, because (z_j − z_i − d²/2R)/d = (w_j − w_i)/d − t_i/R with d = t_i − t_j.
-A pixel's value is interpolated between the two lines that pass beside its centre.
+nearest pixels of each column (or row), so a plane stays exactly a plane. The maximum
+elevation angle within the search distance is found with upper convex hulls: the search
+window [i − L, i − 1] is split at block boundaries of length L into a prefix of the
+observer's own block (hull built forward, O(1) amortised per point) and a suffix of the
+previous block (hull built backward, queried by a galloping search), so a line of n points
+costs O(n log L) instead of O(n L). The same two hulls answer the opposite azimuth, whose
+window [i + 1, i + L] splits the other way, so opposite azimuths are scanned together along
+shared lines. Earth curvature enters exactly (in the parabolic form d²/2R) through the
+transformed height w = z − t²/2R, because (z_j − z_i − d²/2R)/d = (w_j − w_i)/d ∓ t_i/R
+with d = |t_i − t_j| (minus when looking toward lower t). A pixel's value is interpolated
+between the two lines that pass beside its centre.
 
-Azimuths are split between two threads running the nogil kernels.
+Memory access: lines are taken in blocks of ``_BLOCK``; their points are gathered column by
+column from short contiguous runs of a copy of the grid laid out along the cross-line
+direction, each line is scanned as a contiguous 1-D array, and the pixels lying between the
+block's lines are finished (angle, sky-view term) before the next block, so no full-grid
+temporary is made per azimuth and every grid access walks a narrow band of rows.
+
+Azimuth pairs are split between two threads running the nogil kernels.
 """
 
 from __future__ import annotations
@@ -287,27 +295,43 @@ def _scan_block(zc, flip, fl, fr, ny_v, o0, nb, ds, L, inv_r, floor0, back, wbuf
     """
     nx_v = fl.size
     half_inv_r = 0.5 * inv_r
+    # the line o0+b is on the grid at column c when 0 <= base+b <= ny_v-1 (-1 if fr > 0),
+    # base = o0 + fl[c]: a run of lines that shifts by at most one per column, so each
+    # line's span of columns is set where it enters and leaves the run
     for b in range(nb):
         span[b, 0] = nx_v
         span[b, 1] = -1
+    p_lo = 0
+    p_hi = -1
+    for c in range(nx_v):
+        base = o0 + fl[c]
+        lo = max(0, -base)
+        hi = min(nb - 1, ny_v - 1 - base - (1 if fr[c] > 0.0 else 0))
+        for b in range(lo, min(hi, p_lo - 1) + 1):
+            span[b, 0] = c
+        for b in range(max(lo, p_hi + 1), hi + 1):
+            span[b, 0] = c
+        for b in range(p_lo, min(p_hi, lo - 1) + 1):
+            span[b, 1] = c - 1
+        for b in range(max(p_lo, hi + 1), p_hi + 1):
+            span[b, 1] = c - 1
+        p_lo, p_hi = (lo, hi) if lo <= hi else (0, -1)
+    for b in range(p_lo, p_hi + 1):
+        span[b, 1] = nx_v - 1
     for c in range(nx_v):
         cc = nx_v - 1 - c if flip else c
         f = fr[c]
         base = o0 + fl[c]
-        # the line o0+b is on the grid at column c when 0 <= base+b <= ny_v-1 (-1 if f > 0)
-        b_lo = max(0, -base)
-        b_hi = min(nb - 1, ny_v - 1 - base - (1 if f > 0.0 else 0))
-        for b in range(b_lo, b_hi + 1):
-            r0 = base + b
-            if f == 0.0:
-                v = zc[cc, r0]
-            else:
-                v = (1.0 - f) * zc[cc, r0] + f * zc[cc, r0 + 1]
-            if span[b, 0] == nx_v:
-                span[b, 0] = c
-            span[b, 1] = c
-            t = (c - span[b, 0]) * ds
-            wbuf[b, c] = v - t * t * half_inv_r
+        lo = max(0, -base)
+        hi = min(nb - 1, ny_v - 1 - base - (1 if f > 0.0 else 0))
+        if f == 0.0:
+            for b in range(lo, hi + 1):
+                t = (c - span[b, 0]) * ds
+                wbuf[b, c] = zc[cc, base + b] - t * t * half_inv_r
+        else:
+            for b in range(lo, hi + 1):
+                t = (c - span[b, 0]) * ds
+                wbuf[b, c] = (1.0 - f) * zc[cc, base + b] + f * zc[cc, base + b + 1] - t * t * half_inv_r
     for b in range(nb):
         c_lo = span[b, 0]
         c_hi = span[b, 1]
@@ -355,7 +379,7 @@ def _horizon_azimuth(zc, flip, s, o_min, n_lines, ds, L, inv_r, cos_phi, sin_phi
     res = np.empty((nb_max + 1, nx_v))
     span = np.empty((nb_max, 2), dtype=np.int64)
     sw = np.empty(nx_v)
-    si = np.empty(nx_v, dtype=np.int64)
+    si = np.empty(nx_v)  # float indices: no int-to-float conversions in the hull tests
     best = np.empty(nx_v)
     res_b = np.empty((nb_max + 1, nx_v)) if back else res
     best_b = np.empty(nx_v) if back else best
@@ -433,7 +457,7 @@ def _sx_azimuth(zc, flip, s, o_min, n_lines, ds, L, total, count):
     res = np.empty((nb_max + 1, nx_v))
     span = np.empty((nb_max, 2), dtype=np.int64)
     sw = np.empty(nx_v)
-    si = np.empty(nx_v, dtype=np.int64)
+    si = np.empty(nx_v)  # float indices: no int-to-float conversions in the hull tests
     best = np.empty(nx_v)
     e_buf = np.empty((nb_max, nx_v))
     rad2deg = 180.0 / math.pi
