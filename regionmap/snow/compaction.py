@@ -39,7 +39,7 @@ def viscosity_anderson1976(density_kg_m3, t_k, eta0_pa_s, c_t_per_k, c_rho_m3_kg
     float
         eta = eta0 exp(c_t (273.15 - T)) exp(c_rho rho) [N s m-2].
     """
-    return eta0_pa_s * math.exp(c_t_per_k * (T_MELT_K - t_k)) * math.exp(c_rho_m3_kg * density_kg_m3)
+    return eta0_pa_s * math.exp(c_t_per_k * (T_MELT_K - t_k) + c_rho_m3_kg * density_kg_m3)
 
 
 @njit(cache=True, nogil=True, error_model="numpy")
@@ -65,11 +65,11 @@ def destructive_settling_rate_anderson1976(density_kg_m3, t_k, wet, rate0_per_s,
         Magnitude of the strain rate [s-1]: c1 c3 c4 exp(-0.04 (273.15 - T)) with
         c3 = exp(-0.046 (rho - rho_d)) above rho_d.
     """
-    c3 = 1.0
+    x = -0.04 * (T_MELT_K - t_k)
     if density_kg_m3 > rho_d_kg_m3:
-        c3 = math.exp(-0.046 * (density_kg_m3 - rho_d_kg_m3))
+        x -= 0.046 * (density_kg_m3 - rho_d_kg_m3)  # c3
     c4 = 2.0 if wet else 1.0
-    return rate0_per_s * c3 * c4 * math.exp(-0.04 * (T_MELT_K - t_k))
+    return rate0_per_s * c4 * math.exp(x)
 
 
 @njit(cache=True, nogil=True, error_model="numpy")
@@ -78,11 +78,14 @@ def compaction_strain_rate(
 ):
     """Total compaction rate -(1/dz) d(dz)/dt [s-1]: overburden load / viscosity + destructive.
 
-    Ice layers (density above 800 kg m-3) do not compact.
+    Ice layers (density above 800 kg m-3) do not compact; destructive settling is left out
+    above 350 kg m-3, where its density factor c3 is below 1e-5.
     """
     if density_kg_m3 >= 800.0:
         return 0.0
     eta = viscosity_anderson1976(density_kg_m3, t_k, eta0_pa_s, c_t_per_k, c_rho_m3_kg)
-    return load_pa / eta + destructive_settling_rate_anderson1976(
-        density_kg_m3, t_k, wet, rate0_per_s, rho_d_kg_m3
-    )
+    rate = load_pa / eta
+    if density_kg_m3 < 350.0:  # above, c3 < 1e-5: destructive settling has ended
+        rate += destructive_settling_rate_anderson1976(
+            density_kg_m3, t_k, wet, rate0_per_s, rho_d_kg_m3)
+    return rate

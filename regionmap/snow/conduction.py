@@ -105,12 +105,13 @@ def conduction_forward_sweep(m, t_k, k_w_m_k, c_j_m2_k, dz_m, source_w_m2, dt_s,
         Top temperature at the end of the step if G = 0 [K].
     """
     beta = 0.0
+    k_lo = 0.0
+    r_lo = 0.5 * dz_m[0] / k_w_m_k[0]  # half-layer thermal resistance of node i
     for i in range(m):
         diag = c_j_m2_k[i] / dt_s
         rhs = diag * t_k[i] + source_w_m2[i]
         lower = 0.0
         if i > 0:
-            k_lo = 1.0 / (0.5 * dz_m[i - 1] / k_w_m_k[i - 1] + 0.5 * dz_m[i] / k_w_m_k[i])
             diag += k_lo
             lower = -k_lo
         else:
@@ -118,9 +119,12 @@ def conduction_forward_sweep(m, t_k, k_w_m_k, c_j_m2_k, dz_m, source_w_m2, dt_s,
             rhs += k_bottom_w_m2_k * t_bottom_k
         upper = 0.0
         if i < m - 1:
-            k_up = 1.0 / (0.5 * dz_m[i] / k_w_m_k[i] + 0.5 * dz_m[i + 1] / k_w_m_k[i + 1])
+            r_up = 0.5 * dz_m[i + 1] / k_w_m_k[i + 1]
+            k_up = 1.0 / (r_lo + r_up)
             diag += k_up
             upper = -k_up
+            k_lo = k_up
+            r_lo = r_up
         if i == 0:
             beta = diag
             y[0] = rhs / beta

@@ -15,8 +15,6 @@ albedo -> closure bookkeeping and diagnostics.
 
 from __future__ import annotations
 
-import math
-
 import numpy as np
 from numba import njit
 
@@ -51,7 +49,6 @@ from regionmap.snow.layering import (
     F_GRAIN,
     F_ICE,
     F_LIQ,
-    F_ROWS,
     F_TEMP,
     F_THICK,
     I_CODE,
@@ -60,7 +57,6 @@ from regionmap.snow.layering import (
     I_EVENT,
     I_FLAGS,
     I_FORM,
-    I_ROWS,
     insert_top,
     merge_pair,
     merge_pass,
@@ -126,6 +122,7 @@ from regionmap.snow.params import (
 )
 from regionmap.snow.radiation import albedo_douville1995, penetration_fraction
 from regionmap.snow.surface import (
+    neutral_exchange_coefficient,
     solve_surface_temperature,
     specific_humidity,
     surface_fluxes,
@@ -184,6 +181,17 @@ def column_mass(fw, n, sh_mass):
     for i in range(n):
         m += fw[F_ICE, i] + fw[F_LIQ, i]
     return m
+
+
+@njit(cache=True, nogil=True, error_model="numpy")
+def _column_mass_enthalpy(fw, n, sh_mass):
+    """(:func:`column_mass`, :func:`column_enthalpy`) in one pass."""
+    m = sh_mass
+    e = -L_FUSION_J_KG * sh_mass
+    for i in range(n):
+        m += fw[F_ICE, i] + fw[F_LIQ, i]
+        e += layer_enthalpy(fw[F_ICE, i], fw[F_LIQ, i], fw[F_TEMP, i])
+    return m, e
 
 
 @njit(cache=True, nogil=True, error_model="numpy")
@@ -315,6 +323,8 @@ def _energy_and_conduction(fw, n, sv, ta, q_air, pres, wind, sw_in, lw_in, q_ext
     remaining = sw_abs - p[P_SW_SURFACE_FRAC] * sw_abs
     sw_surf = p[P_SW_SURFACE_FRAC] * sw_abs + q_extra  # heat absorbed at the skin
     for l in range(n - 1, -1, -1):
+        if remaining <= 1e-6:  # below a microwatt: nothing left to absorb
+            break
         dens = fw[F_ICE, l] / max(fw[F_THICK, l], 1e-9)
         a = remaining * penetration_fraction(dens, fw[F_GRAIN, l], fw[F_THICK, l])
         sn[ns + l] = a
@@ -333,12 +343,13 @@ def _energy_and_conduction(fw, n, sv, ta, q_air, pres, wind, sw_in, lw_in, q_ext
     eps = p[P_EMISSIVITY]
     z0 = p[P_ROUGHNESS_M]
     floor = p[P_STABLE_FLOOR_FRAC]
+    c_n = neutral_exchange_coefficient(zu, zt, z0, z0)
     if n > 0:
         ts, _dq, _r = solve_surface_temperature(
-            sv[V_TSURF], y_top, k_eff, ta, q_air, pres, wind, lw_in, sw_surf, eps, zu, zt, z0,
+            sv[V_TSURF], y_top, k_eff, ta, q_air, pres, wind, lw_in, sw_surf, eps, c_n, zt, z0,
             floor, int(p[P_NEWTON_ITERATIONS]))
         q_net, sens, lat, vap, _d = surface_fluxes(ts, ta, q_air, pres, wind, lw_in, sw_surf,
-                                                   eps, zu, zt, z0, floor)
+                                                   eps, c_n, zt, z0, floor)
         g_top = q_net if ts >= T_MELT_K else k_eff * (ts - y_top)
     else:
         # bare ground: the soil surface follows the air temperature
@@ -366,6 +377,8 @@ def _resolve_all(fw, n):
     to the layer below. Returns heat leaving through the base [J m-2]."""
     excess = 0.0
     for i in range(n - 1, -1, -1):
+        if excess == 0.0 and fw[F_LIQ, i] <= 0.0 and fw[F_TEMP, i] <= T_MELT_K:
+            continue  # dry and not above melting: nothing to melt or refreeze
         h = layer_enthalpy(fw[F_ICE, i], fw[F_LIQ, i], fw[F_TEMP, i]) + excess
         ice, liq, t, excess = resolve_phase(fw[F_ICE, i] + fw[F_LIQ, i], h)
         fw[F_ICE, i] = ice
@@ -377,22 +390,25 @@ def _resolve_all(fw, n):
 @njit(cache=True, nogil=True, error_model="numpy")
 def _vapour_exchange(fw, iw, n, sv, mass, to_hoar):
     """Deposition (mass > 0) onto surface hoar or the top layer; sublimation (mass < 0) from
-    surface hoar, then the top layers. Returns (n, applied mass)."""
+    surface hoar, then the top layers. Returns (n, applied mass, enthalpy change [J m-2])."""
     if mass > 0.0:
         if to_hoar:
             sv[V_SH_MASS] += mass
-        else:
-            top = n - 1
-            dens = max(fw[F_ICE, top] / max(fw[F_THICK, top], 1e-9), 50.0)
-            fw[F_ICE, top] += mass
-            fw[F_THICK, top] += mass / dens
-        return n, mass
+            return n, mass, -L_FUSION_J_KG * mass
+        top = n - 1
+        h0 = layer_enthalpy(fw[F_ICE, top], fw[F_LIQ, top], fw[F_TEMP, top])
+        dens = max(fw[F_ICE, top] / max(fw[F_THICK, top], 1e-9), 50.0)
+        fw[F_ICE, top] += mass
+        fw[F_THICK, top] += mass / dens
+        return n, mass, layer_enthalpy(fw[F_ICE, top], fw[F_LIQ, top], fw[F_TEMP, top]) - h0
     need = -mass
     take = min(need, sv[V_SH_MASS])
     sv[V_SH_MASS] -= take
+    dh = L_FUSION_J_KG * take
     need -= take
     while need > 0.0 and n > 0:
         top = n - 1
+        h0 = layer_enthalpy(fw[F_ICE, top], fw[F_LIQ, top], fw[F_TEMP, top])
         m_top = fw[F_ICE, top] + fw[F_LIQ, top]
         if m_top > need:
             frac = need / m_top
@@ -401,12 +417,14 @@ def _vapour_exchange(fw, iw, n, sv, mass, to_hoar):
             fw[F_LIQ, top] -= need - from_ice
             fw[F_THICK, top] *= 1.0 - frac
             need = 0.0
+            dh += layer_enthalpy(fw[F_ICE, top], fw[F_LIQ, top], fw[F_TEMP, top]) - h0
         else:
             need -= m_top
+            dh -= h0
             fw[F_ICE, top] = 0.0
             fw[F_LIQ, top] = 0.0
             n = remove_layer(fw, iw, n, top)
-    return n, mass + need
+    return n, mass + need, dh
 
 
 @njit(cache=True, nogil=True, error_model="numpy")
@@ -522,7 +540,8 @@ def _metamorphose(fw, iw, n, sv, ts, dt, p):
             f = f - 1.0 * days
             gs = grain_growth_wet_brun1989(gs, pct, dt)
         elif code != _SH:
-            d = d - dendricity_rate_brun1992(t, grad, 0.0) * days
+            if d > 0.0:
+                d = d - dendricity_rate_brun1992(t, grad, 0.0) * days
             f = f + facetedness_rate(t, dens, grad, p[P_GRADIENT_ROUND_K_M],
                                      p[P_GRADIENT_STRONG_K_M], p[P_FACET_RATE_PER_DAY],
                                      p[P_ROUND_RATE_PER_DAY]) * days
@@ -579,8 +598,7 @@ def _step(fw, iw, sv, si, ring_m, ring_d, ta, rh, pres, wind_raw, sw_in, lw_in, 
     n = si[J_N]
     wind = max(wind_raw, p[P_WIND_MIN_M_S])
     hours = dt / 3600.0
-    e_before = column_enthalpy(fw, n, sv[V_SH_MASS])
-    m_before = column_mass(fw, n, sv[V_SH_MASS])
+    m_before, e_before = _column_mass_enthalpy(fw, n, sv[V_SH_MASS])
     e_mass = 0.0
     liquid = precip * (1.0 - sf)
     snow = precip * sf
@@ -687,9 +705,8 @@ def _step(fw, iw, sv, si, ring_m, ring_d, ta, rh, pres, wind_raw, sw_in, lw_in, 
         to_hoar = surface_hoar_forms(vap, wind_raw, ts, ta, snow, p[P_SH_WIND_MAX_M_S])
         if to_hoar and sv[V_SH_MASS] <= 0.0:
             si[J_SH_START] = now_s
-        e0 = column_enthalpy(fw, n, sv[V_SH_MASS])
-        n, applied = _vapour_exchange(fw, iw, n, sv, vap * dt, to_hoar)
-        e_mass += column_enthalpy(fw, n, sv[V_SH_MASS]) - e0
+        n, applied, dh = _vapour_exchange(fw, iw, n, sv, vap * dt, to_hoar)
+        e_mass += dh
         if applied > 0.0:
             acc[A_DEPO] = applied
         else:
@@ -697,14 +714,19 @@ def _step(fw, iw, sv, si, ring_m, ring_d, ta, rh, pres, wind_raw, sw_in, lw_in, 
     n, out = _cleanup(fw, iw, n)
     runoff += out
     # percolation with ponding above barriers
+    any_liquid = False
     for i in range(n):
+        if fw[F_LIQ, i] > 0.0:
+            any_liquid = True
+            break
+    for i in range(n if any_liquid else 0):
         wb[i] = False
         if i > 0:
             dens_dn = fw[F_ICE, i - 1] / max(fw[F_THICK, i - 1], 1e-9)
             wb[i] = is_flow_barrier(dens_dn, iw[I_CODE, i - 1] == _IF, fw[F_GRAIN, i],
                                     fw[F_GRAIN, i - 1], p[P_BARRIER_DENSITY_KG_M3],
                                     p[P_CAPILLARY_RATIO])
-    if n > 0:
+    if any_liquid:
         runoff += percolate_column(n, fw[F_ICE], fw[F_LIQ], fw[F_TEMP], fw[F_THICK], wb,
                                    p[P_IRREDUCIBLE_PORE_FRAC], p[P_POND_PORE_FRAC], 0.0)
     acc[A_RUNOFF] = runoff
@@ -728,7 +750,8 @@ def _step(fw, iw, sv, si, ring_m, ring_d, ta, rh, pres, wind_raw, sw_in, lw_in, 
             fw[F_THICK, top] += sv[V_SH_MASS] / dens
             sv[V_SH_MASS] = 0.0
             e_mass += column_enthalpy(fw, n, 0.0) - e0
-    n = merge_pass(fw, iw, n, now_s, p[P_NEW_LAYER_MAX_M], p[P_MERGE_DEPTH_FRAC], cap - 2)
+    if snow > 0.0 or hour_abs % 6 == 0 or n >= cap - 2:
+        n = merge_pass(fw, iw, n, now_s, p[P_NEW_LAYER_MAX_M], p[P_MERGE_DEPTH_FRAC], cap - 2)
     if n > 0:
         sv[V_ALBEDO] = albedo_douville1995(
             sv[V_ALBEDO], melting, snow, dt, p[P_ALBEDO_MIN], p[P_ALBEDO_MAX],
@@ -750,8 +773,7 @@ def _step(fw, iw, sv, si, ring_m, ring_d, ta, rh, pres, wind_raw, sw_in, lw_in, 
     ring_m[slot] = _f32(ring_m[slot])
     ring_d[slot] = _f32(ring_d[slot])
     # closure
-    m_after = column_mass(fw, n, sv[V_SH_MASS])
-    e_after = column_enthalpy(fw, n, sv[V_SH_MASS])
+    m_after, e_after = _column_mass_enthalpy(fw, n, sv[V_SH_MASS])
     acc[A_MASS_RES] = (m_after - m_before) - (snow + liquid + acc[A_DEPO] - acc[A_SUBL] - runoff)
     if n > 0 or m_before > 0.0:
         acc[A_ENERGY_RES] = (e_after - e_before - e_mass - e_flux) / dt

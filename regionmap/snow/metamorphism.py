@@ -129,7 +129,7 @@ def facetedness_rate(t_k, density_kg_m3, gradient_k_m, g_round_k_m, g_strong_k_m
         ramp = min((g - g_round_k_m) / (g_strong_k_m - g_round_k_m), 1.0)
         dens = min(max(1.0 - (density_kg_m3 - 300.0) / 200.0, 0.0), 1.0)
         return facet_per_day * marbouty_temperature_factor(t_k) * ramp * dens
-    arr = math.exp(-6000.0 * (1.0 / t_k - 1.0 / T_MELT_K))
+    arr = math.exp(-6000.0 / t_k + 6000.0 / T_MELT_K)
     return -round_per_day * (1.0 - g / g_round_k_m) * arr
 
 

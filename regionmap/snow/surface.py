@@ -98,7 +98,7 @@ def stability_factor_louis1979(ri_bulk, c_neutral, z_m, z0_m):
 
 @njit(cache=True, nogil=True, error_model="numpy")
 def turbulent_exchange_coefficient(
-    t_air_k, t_surf_k, wind_m_s, z_wind_m, z_temp_m, z0_m, stable_floor_frac
+    t_air_k, t_surf_k, wind_m_s, c_neutral, z_temp_m, z0_m, stable_floor_frac
 ):
     """Stability-corrected exchange coefficient C_H [1] with a floor in very stable air.
 
@@ -106,8 +106,9 @@ def turbulent_exchange_coefficient(
     floor keeps ``stable_floor_frac`` of the neutral value: without it a clear calm night
     decouples the surface completely, which observations over snow do not show (common
     practice in snow models; e.g. Jordan 1991 adds a windless exchange term).
+    ``c_neutral`` is :func:`neutral_exchange_coefficient` at the measurement heights.
     """
-    c_n = neutral_exchange_coefficient(z_wind_m, z_temp_m, z0_m, z0_m)
+    c_n = c_neutral
     t_mean = 0.5 * (t_air_k + t_surf_k)
     ri = GRAVITY_M_S2 * z_temp_m * (t_air_k - t_surf_k) / (t_mean * wind_m_s * wind_m_s)
     f = stability_factor_louis1979(ri, c_n, z_temp_m, z0_m)
@@ -117,7 +118,7 @@ def turbulent_exchange_coefficient(
 @njit(cache=True, nogil=True, error_model="numpy")
 def surface_fluxes(
     t_surf_k, t_air_k, q_air, pressure_pa, wind_m_s, lw_in_w_m2, sw_abs_surface_w_m2,
-    emissivity, z_wind_m, z_temp_m, z0_m, stable_floor_frac,
+    emissivity, c_neutral, z_temp_m, z0_m, stable_floor_frac,
 ):
     """Energy fluxes at a snow surface of temperature ``t_surf_k`` (positive downwards).
 
@@ -142,7 +143,7 @@ def surface_fluxes(
     """
     rho_air = pressure_pa / (R_DRY_J_KG_K * t_air_k)
     c_h = turbulent_exchange_coefficient(
-        t_air_k, t_surf_k, wind_m_s, z_wind_m, z_temp_m, z0_m, stable_floor_frac
+        t_air_k, t_surf_k, wind_m_s, c_neutral, z_temp_m, z0_m, stable_floor_frac
     )
     e_s = vapour_pressure_ice_buck1981(t_surf_k)
     q_surf = specific_humidity(e_s, pressure_pa)
@@ -152,7 +153,8 @@ def surface_fluxes(
     sensible = C_AIR_J_KG_K * conductance * (t_air_k - t_surf_k)
     vapour_flux = conductance * (q_air - q_surf)
     latent = L_SUBLIMATION_J_KG * vapour_flux
-    lw_out = emissivity * SIGMA_W_M2_K4 * t_surf_k**4
+    t2 = t_surf_k * t_surf_k
+    lw_out = emissivity * SIGMA_W_M2_K4 * t2 * t2
     lw_net = emissivity * lw_in_w_m2 - lw_out
     dq_dts = -4.0 * lw_out / t_surf_k - C_AIR_J_KG_K * conductance - (
         L_SUBLIMATION_J_KG * conductance * dq_surf)
@@ -162,7 +164,7 @@ def surface_fluxes(
 @njit(cache=True, nogil=True, error_model="numpy")
 def solve_surface_temperature(
     t_guess_k, t_top_k, k_surf_w_m2_k, t_air_k, q_air, pressure_pa, wind_m_s, lw_in_w_m2,
-    sw_abs_surface_w_m2, emissivity, z_wind_m, z_temp_m, z0_m, stable_floor_frac, n_iter,
+    sw_abs_surface_w_m2, emissivity, c_neutral, z_temp_m, z0_m, stable_floor_frac, n_iter,
 ):
     """Skin temperature from q_net(Ts) = K (Ts - T_top): safeguarded Newton, capped at 0 degC.
 
@@ -183,7 +185,7 @@ def solve_surface_temperature(
     hi = T_MELT_K
     q_hi, _s, _l, _v, d_hi = surface_fluxes(hi, t_air_k, q_air, pressure_pa, wind_m_s,
                                             lw_in_w_m2, sw_abs_surface_w_m2, emissivity,
-                                            z_wind_m, z_temp_m, z0_m, stable_floor_frac)
+                                            c_neutral, z_temp_m, z0_m, stable_floor_frac)
     f_hi = q_hi - k_surf_w_m2_k * (hi - t_top_k)
     if f_hi >= 0.0:
         return T_MELT_K, d_hi, 0.0
@@ -194,7 +196,7 @@ def solve_surface_temperature(
     for _ in range(n_iter):
         q0, _s, _l, _v, dq = surface_fluxes(ts, t_air_k, q_air, pressure_pa, wind_m_s,
                                             lw_in_w_m2, sw_abs_surface_w_m2, emissivity,
-                                            z_wind_m, z_temp_m, z0_m, stable_floor_frac)
+                                            c_neutral, z_temp_m, z0_m, stable_floor_frac)
         f = q0 - k_surf_w_m2_k * (ts - t_top_k)
         if f > 0.0:
             lo = ts
@@ -208,6 +210,6 @@ def solve_surface_temperature(
             nxt = 0.5 * (lo + hi)
         ts = nxt
     q0, _s, _l, _v, dq = surface_fluxes(ts, t_air_k, q_air, pressure_pa, wind_m_s, lw_in_w_m2,
-                                        sw_abs_surface_w_m2, emissivity, z_wind_m, z_temp_m,
+                                        sw_abs_surface_w_m2, emissivity, c_neutral, z_temp_m,
                                         z0_m, stable_floor_frac)
     return ts, dq, q0 - k_surf_w_m2_k * (ts - t_top_k)

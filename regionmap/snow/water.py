@@ -128,6 +128,8 @@ def percolate_column(n, ice, liquid, t_k, thickness_m, is_barrier_below, irreduc
     """
     flow = inflow_kg_m2
     for i in range(n - 1, -1, -1):
+        if flow <= 0.0 and liquid[i] <= 0.0:
+            continue  # dry and nothing arriving: nothing to route
         if flow > 0.0 or liquid[i] > 0.0:
             h = layer_enthalpy(ice[i], liquid[i], t_k[i])
             m = ice[i] + liquid[i] + flow
