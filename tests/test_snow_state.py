@@ -98,6 +98,13 @@ def test_mismatched_state_and_forcing_raise_one_clear_error(forcing):
         run_columns(s0, forcing.subset(steps=slice(0, 25)), diag_every_h=24)
 
 
+def test_non_finite_forcing_is_refused(forcing):
+    f = forcing.subset(steps=slice(0, 24))
+    f.wind_m_s[2, 5] = np.nan
+    with pytest.raises(InputError, match="wind_m_s has 1 non-finite"):
+        run_columns(SnowState.empty(f.n_cells, time=START), f)
+
+
 def test_continuation_from_wrong_time_is_refused(forcing):
     s0 = SnowState.empty(forcing.n_cells, time=START)
     s, _, _ = run_columns(s0, forcing.subset(steps=slice(0, 48)))

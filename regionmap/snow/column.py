@@ -85,6 +85,16 @@ def _check(state: SnowState, forcing: CellForcing, params: SnowParams, diag_ever
         raise InputError(f"run_columns: forcing dt_s must be 3600 (hourly), got {forcing.dt_s}")
     if forcing.n_steps == 0:
         raise InputError("run_columns: the forcing has no time steps")
+    for name in ("t_air_k", "rh_frac", "pressure_pa", "wind_m_s", "sw_in_w_m2", "lw_in_w_m2",
+                 "precip_kg_m2", "snow_frac", "freezing_rain_frac"):
+        values = getattr(forcing, name)
+        bad = ~np.isfinite(values)
+        if bad.any():
+            c, t = np.argwhere(bad)[0]
+            raise InputError(
+                f"run_columns: forcing variable {name} has {int(bad.sum())} non-finite values "
+                f"(first at cell {c}, time {forcing.time[t]}); expected finite numbers; hint: "
+                "fill gaps in the forcing before the snow column")
     steps = np.diff(forcing.time.astype("datetime64[s]").astype(np.int64))
     if steps.size and np.any(steps != 3600):
         raise InputError("run_columns: forcing times must be hourly without gaps; hint: the "
