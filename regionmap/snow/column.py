@@ -154,7 +154,13 @@ def run_columns(state: SnowState, forcing: CellForcing, params: SnowParams | Non
         ``time`` (out_time,) datetime64[s] interval ends; per-cell (cell, out_time) arrays
         named as in cells.nc (DESIGN 3) plus extras (see :data:`DIAGNOSTICS_64`,
         :data:`DIAGNOSTICS_32`; interval sums: snowfall, rain, runoff, sublimation,
-        deposition, mass residual; energy residual is an interval mean); ``status`` (cell,)
+        deposition, mass residual; energy residual is an interval mean). New snow 24/72 h
+        is the fresh depth (mass / new-snow density) and mass fallen in the last 24/72 hours;
+        ``pwl_*`` describe the uppermost persistent layer (FC, FCxr, FCsf, DH, SH) buried at
+        least ``pwl_min_depth_m`` (NaN depth/size where none); crust counts count
+        contiguous runs of dry crust layers at least ``crust_min_thickness_m`` thick and
+        ``crust_min_hardness`` hard; ``threshold_*`` the worst interface (NaN depth where
+        no interface scores). ``status`` (cell,)
         int32 bitmask (kernel status bits); and the event log as 1-D arrays of one row per
         (event, cell): ``event_kind`` (strings), ``event_id`` (start hour since 1970),
         ``event_cell`` (cell index), ``event_first_time`` / ``event_last_time`` (interval
