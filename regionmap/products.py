@@ -83,7 +83,7 @@ def _member_presence(ctx, state0, event: pd.Series, control: np.ndarray, table: 
     for m, (dt_k, dphase_k) in enumerate(ENSEMBLE_MEMBERS):
         f = _perturbed(window, dt_k, dphase_k, ctx.downscale)
         _, _, snaps = run_columns(state, f, ctx.snow, 1, None, threads=2)
-        ds = snapshots_to_dataset(snaps, batch.cell_id).rename({"time": "day"})
+        ds = snapshots_to_dataset(snaps, batch.cell_id).swap_dims({"day": "time"}).rename({"time": "day"})
         members[m, cells] = rain_crust_presence(ds, formed_between=formed)
     cost = {"cells": int(cells.size), "steps": int(stop - p.first), "member_steps": int(stop - start),
             "seconds": round(_time.perf_counter() - t0, 3)}

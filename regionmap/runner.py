@@ -151,7 +151,8 @@ def _warm_kernels(params) -> None:
 
 def execute(cfg: Config, *, out_dir: Path | None = None, continue_from: Path | None = None,
             workers: int | None = None, scheduler: str | None = None, force: bool = False,
-            progress: bool = True, restarts=(), extra_files: dict | None = None) -> RunOutcome:
+            progress: bool = True, restarts=(), extra_files: dict | None = None,
+            report: bool = True) -> RunOutcome:
     """Run the chain for ``cfg`` and write every output of DESIGN §3.
 
     Parameters
@@ -164,6 +165,7 @@ def execute(cfg: Config, *, out_dir: Path | None = None, continue_from: Path | N
     progress : show a progress bar.
     restarts : observed-profile restarts (see :mod:`regionmap.restart`).
     extra_files : relative name → file copied into the output folder (the demo's inputs).
+    report : write the figures and ``report.html`` (tests of the numbers skip them).
     """
     from tqdm.auto import tqdm
 
@@ -282,12 +284,13 @@ def execute(cfg: Config, *, out_dir: Path | None = None, continue_from: Path | N
             dst.parent.mkdir(parents=True, exist_ok=True)
             shutil.copy2(src, dst)
         atomic_write_text(out / "run.json", json.dumps(record, indent=2, default=str))
-        t0 = _time.perf_counter()
-        from regionmap.report import write_report
+        if report:
+            from regionmap.report import write_report
 
-        write_report(out)
-        record["timings_s"]["report"] = round(_time.perf_counter() - t0, 3)
-        atomic_write_text(out / "run.json", json.dumps(record, indent=2, default=str))
+            t0 = _time.perf_counter()
+            write_report(out)
+            record["timings_s"]["report"] = round(_time.perf_counter() - t0, 3)
+            atomic_write_text(out / "run.json", json.dumps(record, indent=2, default=str))
     return RunOutcome(target, products.zones, products.sentences, map_time,
                       bool(period.has_forecast and map_time > period.analysis_end), batch.n_cells,
                       _time.perf_counter() - t_all)

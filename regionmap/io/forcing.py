@@ -34,6 +34,7 @@ from pathlib import Path
 
 import dask
 import dask.array as da
+
 import numpy as np
 import cf_xarray  # noqa: F401  (registers the .cf accessor)
 import xarray as xr
@@ -1037,7 +1038,9 @@ def _compute(sources, names, rows, alt, reader):
 
 def _read_points(s: _Source, cols, iy, ix):
     arr = s.data[cols]
-    got = arr.vindex[(slice(None),) * (arr.ndim - 2) + (iy, ix)].compute()
+    # synchronous: a chunk task of the run already runs on a dask worker thread; it must not
+    # submit nested tasks to the cluster (xarray's HDF5 lock guards the file reads)
+    got = arr.vindex[(slice(None),) * (arr.ndim - 2) + (iy, ix)].compute(scheduler="synchronous")
     return np.moveaxis(got, 0, -1)  # (cols, [level,] point)
 
 

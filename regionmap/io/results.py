@@ -20,12 +20,27 @@ import netCDF4
 import numpy as np
 import pandas as pd
 
+from xarray.backends.locks import HDF5_LOCK, NETCDFC_LOCK
+
 from regionmap import CAUTION, __version__
 from regionmap.io.atomic import atomic_path
 
 __all__ = ["DIAGNOSTICS", "AMOUNTS", "CellsNcWriter", "ProfilesNcWriter"]
 
 _EPOCH = "seconds since 1970-01-01 00:00:00"
+
+
+def _hdf5_locked(method):
+    """Hold the process-wide HDF5/netCDF-C locks (shared with xarray's readers): the library
+    is not thread-safe, and chunk tasks read forcing files while the client writes."""
+    import functools
+
+    @functools.wraps(method)
+    def wrapper(*args, **kwargs):
+        with NETCDFC_LOCK, HDF5_LOCK:
+            return method(*args, **kwargs)
+
+    return wrapper
 _FILL_I8 = np.int8(-127)
 _FILL_I16 = np.int16(-32767)
 
@@ -82,6 +97,7 @@ class CellsNcWriter:
     title : the file's title.
     """
 
+    @_hdf5_locked
     def __init__(self, path, cells: pd.DataFrame, times, interval_start, is_forecast, *,
                  extra: dict | None = None, global_attrs: dict | None = None,
                  variables: dict | None = None, title: str = "regionmap per-cell snowpack diagnostics"):
@@ -158,6 +174,7 @@ class CellsNcWriter:
                 var[:] = np.asarray(values, dtype=dtype)
             var.setncatts(attrs)
 
+    @_hdf5_locked
     def write_chunk(self, cell_positions: np.ndarray, diagnostics: dict[str, np.ndarray]) -> None:
         """Write one chunk's (cell, time) arrays at the given positions along ``cell``.
 
@@ -176,12 +193,14 @@ class CellsNcWriter:
                     values = np.where(np.isfinite(values), values, fill).astype(dtype)
                 self._nc.variables[name][lo:hi, :] = values
 
+    @_hdf5_locked
     def close(self) -> Path:
         """Finish the file and rename it into place."""
         self._nc.close()
         self._stack.close()
         return self.path
 
+    @_hdf5_locked
     def abort(self) -> None:
         """Drop the partly written file, keeping any older one."""
         try:
@@ -202,6 +221,7 @@ class ProfilesNcWriter:
     layer_vars : name → (dtype, attrs); dtype ``"str"`` for the classification codes.
     """
 
+    @_hdf5_locked
     def __init__(self, path, cell_ids, days, n_layers: int, layer_vars: dict[str, tuple[str, dict]]):
         self.path = Path(path)
         self._stack = ExitStack()
@@ -231,6 +251,7 @@ class ProfilesNcWriter:
                 )
             var.setncatts(attrs)
 
+    @_hdf5_locked
     def write_chunk(self, cell_positions: np.ndarray, layer_count: np.ndarray, fields: dict[str, np.ndarray]) -> None:
         """Write one chunk's snapshots: ``layer_count`` (cell, day), fields (cell, day, layer)."""
         pos = np.asarray(cell_positions)
@@ -244,11 +265,13 @@ class ProfilesNcWriter:
                 else:
                     self._nc.variables[name][lo:hi, :, :] = values
 
+    @_hdf5_locked
     def close(self) -> Path:
         self._nc.close()
         self._stack.close()
         return self.path
 
+    @_hdf5_locked
     def abort(self) -> None:
         try:
             self._nc.close()

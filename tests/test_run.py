@@ -1,0 +1,202 @@
+"""The regional run: chunking and schedulers, continuation, rasters, interrupted runs.
+
+A small scenario keeps these fast: the demo DEM, one demo zone, 400 m bands (45 cells) and a
+week of the demo season around its rain-on-snow event.
+"""
+
+from __future__ import annotations
+
+import os
+import signal
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+import numpy as np
+import pytest
+import rasterio
+import xarray as xr
+
+from regionmap.cli import main
+from regionmap.config import load_config
+from regionmap.runner import execute
+
+CONFIG = """
+[region]
+dem = "dem.tif"
+zones = "zones.geojson"
+[cells]
+band_step_m = {step}
+[forcing]
+path = "{forcing}"
+start = "{start}"
+end = "{end}"
+[output]
+dir = "out"
+"""
+
+COMPARED = ("snow_depth_cm", "swe_kg_m2", "crust_count", "pwl_depth_cm", "threshold_count_max",
+            "liquid_water_kg_m2", "snowfall_kg_m2", "rain_kg_m2", "runoff_kg_m2")
+
+
+@pytest.fixture(scope="session")
+def scenario(tmp_path_factory):
+    from regionmap.demo import demo_zones, make_demo_dem
+    from regionmap.demo_weather import write_demo_forcing
+    from regionmap.io.dem import read_dem
+    from regionmap.io.writers import write_geojson
+
+    d = tmp_path_factory.mktemp("scenario")
+    make_demo_dem(d / "dem.tif")
+    write_geojson(d / "zones.geojson", demo_zones().iloc[[1]])
+    dem = read_dem(d / "dem.tif")
+    write_demo_forcing(d / "forcing.nc", dem.elevation_m, dem.transform, dem.crs,
+                       start="2026-01-15T01:00", end="2026-01-22T00:00")
+    write_demo_forcing(d / "late.nc", dem.elevation_m, dem.transform, dem.crs,
+                       start="2026-01-19T01:00", end="2026-01-22T00:00")
+    return d
+
+
+def config(scenario: Path, name: str, *, step=400, forcing="forcing.nc", start="2026-01-15T01:00",
+           end="2026-01-22T00:00"):
+    path = scenario / f"{name}.toml"
+    path.write_text(CONFIG.format(step=step, forcing=forcing, start=start, end=end))
+    return load_config(path)
+
+
+def run(cfg, out: Path, **kw):
+    return execute(cfg, out_dir=out, progress=False, report=False, **kw)
+
+
+def read(out: Path):
+    with xr.open_dataset(out / "cells.nc") as ds:
+        cells = {v: ds[v].values.copy() for v in COMPARED}
+        cells["time"] = ds["time"].values.copy()
+    with xr.open_dataset(out / "state_end.nc") as ds:
+        state = {v: ds[v].values.copy() for v in ("thickness_m", "ice_kg_m2", "liquid_kg_m2", "temperature_k")}
+    return cells, state
+
+
+def assert_same(a, b):
+    for part_a, part_b in zip(a, b):
+        for name in part_a:
+            np.testing.assert_array_equal(part_a[name], part_b[name], err_msg=name)
+
+
+@pytest.fixture(scope="session")
+def reference(scenario, tmp_path_factory):
+    out = tmp_path_factory.mktemp("ref") / "out"
+    outcome = run(config(scenario, "ref"), out)
+    return out, outcome
+
+
+def test_reference_run_writes_the_contract(reference):
+    out, outcome = reference
+    # the shared output-contract checker (names, shapes, conventions); figures are skipped here
+    proc = subprocess.run([sys.executable, str(Path(__file__).parents[2] / "shared/tools/check_outputs.py"), str(out)],
+                          capture_output=True, text=True)
+    failed = [ln for ln in proc.stdout.splitlines() if ln.startswith("FAIL")
+              and "report.html" not in ln and "figures" not in ln]
+    assert not failed, proc.stdout
+    assert outcome.n_cells > 10
+
+
+@pytest.mark.parametrize("chunk_size", [1, 37])
+def test_results_do_not_depend_on_chunking(scenario, reference, tmp_path, chunk_size):
+    cfg = config(scenario, "ref")
+    cfg = cfg.model_copy(update={"run": cfg.run.model_copy(update={"chunk_size": chunk_size})})
+    run(cfg, tmp_path / "out")
+    assert_same(read(reference[0]), read(tmp_path / "out"))
+
+
+def test_results_do_not_depend_on_the_scheduler(scenario, reference, tmp_path):
+    # a 2-process dask.distributed LocalCluster on loopback
+    cfg = config(scenario, "ref")
+    cfg = cfg.model_copy(update={"run": cfg.run.model_copy(update={"chunk_size": 20})})
+    run(cfg, tmp_path / "out", workers=2)
+    assert_same(read(reference[0]), read(tmp_path / "out"))
+
+
+def test_continuation_equals_one_run(scenario, reference, tmp_path):
+    first = tmp_path / "b"
+    run(config(scenario, "first", end="2026-01-18T12:00"), first)
+    second = tmp_path / "c"
+    run(config(scenario, "ref"), second, continue_from=first / "state.nc")
+    ref_cells, ref_state = read(reference[0])
+    cells, state = read(second)
+    n = cells["time"].size
+    assert cells["time"][0] == np.datetime64("2026-01-18T13:00")
+    for name in COMPARED:
+        np.testing.assert_array_equal(cells[name], ref_cells[name][:, -n:], err_msg=name)
+    for name in state:
+        np.testing.assert_array_equal(state[name], ref_state[name], err_msg=name)
+
+
+def test_continuation_mismatches_exit_2(scenario, reference, tmp_path, capsys):
+    state = reference[0] / "state.nc"
+    other = config(scenario, "other", step=300)
+    assert main(["run", str(other.source), "--out", str(tmp_path / "x"), "--continue-from", str(state), "--quiet"]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and "state" in err[0] and "cells" in err[0]
+    # a state valid at 2026-01-18 12:00 and forcing that starts at 2026-01-19 01:00: a gap
+    early = tmp_path / "early"
+    run(config(scenario, "early", end="2026-01-18T12:00"), early)
+    late = config(scenario, "late", forcing="late.nc", start="2026-01-19T01:00")
+    assert main(["run", str(late.source), "--out", str(tmp_path / "y"), "--continue-from",
+                 str(early / "state.nc"), "--quiet"]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and "gap" in err[0]
+    assert not (tmp_path / "x").exists() and not (tmp_path / "y").exists()
+
+
+def test_rasters_hold_their_cells_values(reference):
+    out, _ = reference
+    with rasterio.open(out / "maps" / "cell_id.tif") as src:
+        index = src.read(1)
+        nodata = src.nodata
+    with rasterio.open(out / "maps" / "snow_depth_cm.tif") as src:
+        depth = src.read(1, masked=True)
+    with xr.open_dataset(out / "cells.nc") as ds:
+        last = ds["snow_depth_cm"].values[:, -1]
+        ids = ds["cell_id"].values
+    rng = np.random.default_rng(1)
+    rows, cols = np.nonzero(index != nodata)
+    for k in rng.choice(rows.size, 50, replace=False):
+        cell = int(index[rows[k], cols[k]])
+        pos = int(np.nonzero(ids == cell)[0][0])
+        assert depth[rows[k], cols[k]] == pytest.approx(last[pos], abs=1e-4)
+
+
+def _phase_reached(out: Path, phase: str) -> bool:
+    new = list(out.parent.glob(f".{out.name}.regionmap-new-*"))
+    if phase == "reading":
+        return not new
+    if not new:
+        return False
+    names = {p.name for p in new[0].iterdir()}
+    if phase == "running":
+        return any(n.startswith(".cells.nc") for n in names) and "state.nc" not in names
+    return "state.nc" in names  # writing the products
+
+
+@pytest.mark.parametrize("phase", ["reading", "running", "writing"])
+def test_killed_run_keeps_the_previous_output(scenario, reference, tmp_path, phase):
+    out = tmp_path / "out"
+    run(config(scenario, "ref"), out)
+    before = sorted(p.relative_to(out) for p in out.rglob("*"))
+    proc = subprocess.Popen([sys.executable, "-m", "regionmap", "run", str(scenario / "ref.toml"), "--out", str(out),
+                             "--quiet"], stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+    deadline = time.monotonic() + 120
+    time.sleep(0.5 if phase == "reading" else 0.0)
+    while time.monotonic() < deadline and proc.poll() is None and not _phase_reached(out, phase):
+        time.sleep(0.005)
+    assert proc.poll() is None, f"the run finished before reaching the {phase} phase"
+    os.kill(proc.pid, signal.SIGKILL)
+    proc.wait()
+    assert sorted(p.relative_to(out) for p in out.rglob("*")) == before
+    xr.open_dataset(out / "cells.nc").close()
+    # the next run recovers the leftovers and completes
+    run(config(scenario, "ref"), out)
+    assert not list(out.parent.glob(f".{out.name}.regionmap-*"))
+    assert_same(read(reference[0]), read(out))
