@@ -1,0 +1,173 @@
+"""Speed of the regional run (issue 5): the demo end to end, and synthetic regions of
+1 000 / 10 000 / 30 000 cells over a full season, with the dask overhead against one direct
+call of the chunk function.
+
+    python benchmarks/bench_run.py demo            # regionmap demo, warm numba cache (<= 30 s)
+    python benchmarks/bench_run.py region --cells 10000 [--days 181]   # (<= 60 s, <= 3 GB)
+    python benchmarks/bench_run.py scaling         # 1 000 / 10 000 / 30 000 cells
+    python benchmarks/bench_run.py overhead        # dask vs one direct simulate_chunk call
+
+The synthetic regions reuse the invented demo range and its season; the zones are a grid of
+squares over the range and slope classes multiply the cells. Prints the figures, exits 1
+when a target is missed (unless --no-assert).
+"""
+
+from __future__ import annotations
+
+import argparse
+import os
+import resource
+import subprocess
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+import numpy as np
+
+TARGETS = {"demo_s": 30.0, "region_10k_s": 60.0, "region_10k_peak_gb": 3.0, "dask_overhead_frac": 0.10}
+
+
+def _scenario(folder: Path, n_zones_side: int, slope_classes: list[float], days: int) -> Path:
+    import geopandas as gpd
+    import shapely
+
+    from regionmap.demo import DEMO_CRS, make_demo_dem
+    from regionmap.demo_weather import write_demo_forcing
+    from regionmap.io.dem import read_dem
+    from regionmap.io.writers import write_geojson
+
+    folder.mkdir(parents=True, exist_ok=True)
+    make_demo_dem(folder / "dem.tif")
+    dem = read_dem(folder / "dem.tif")
+    x0, y0, x1, y1 = dem.bounds
+    xs = np.linspace(x0, x1, n_zones_side + 1)
+    ys = np.linspace(y0, y1, n_zones_side + 1)
+    boxes = [shapely.box(xs[i], ys[j], xs[i + 1], ys[j + 1]) for i in range(n_zones_side) for j in range(n_zones_side)]
+    zones = gpd.GeoDataFrame({"name": [f"Sector {k + 1:03d}" for k in range(len(boxes))]}, geometry=boxes, crs=DEMO_CRS)
+    write_geojson(folder / "zones.geojson", zones)
+    end = (np.datetime64("2025-11-01T00:00") + np.timedelta64(days * 24, "h")).astype(str)
+    if not (folder / "forcing.nc").exists():
+        write_demo_forcing(folder / "forcing.nc", dem.elevation_m, dem.transform, dem.crs, end=end)
+    classes = ", ".join(f"{s:g}" for s in slope_classes)
+    (folder / "run.toml").write_text(f"""
+[region]
+dem = "dem.tif"
+zones = "zones.geojson"
+[cells]
+band_step_m = 100
+slope_classes_deg = [{classes}]
+[forcing]
+path = "forcing.nc"
+end = "{end}"
+[output]
+dir = "out"
+""")
+    return folder / "run.toml"
+
+
+def _peak_gb_of_children() -> float:
+    return resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss / 1024**2
+
+
+def bench_demo(args) -> dict:
+    with tempfile.TemporaryDirectory() as tmp:
+        cmd = [sys.executable, "-m", "regionmap", "demo", "--quiet", "--out", f"{tmp}/demo"]
+        subprocess.run(cmd, check=True, capture_output=True)  # warm the numba cache
+        t0 = time.perf_counter()
+        subprocess.run(cmd, check=True, capture_output=True)
+        seconds = time.perf_counter() - t0
+    print(f"regionmap demo (warm cache): {seconds:.1f} s (target <= {TARGETS['demo_s']:.0f} s)")
+    return {"demo_s": seconds}
+
+
+SIZES = {1000: (3, [20, 35]), 10000: (9, [25, 35, 45]), 30000: (16, [20, 30, 40, 50])}
+
+
+def bench_region(n_cells: int, days: int, folder: Path) -> dict:
+    side, classes = SIZES[n_cells]
+    cfg_path = _scenario(folder / f"r{n_cells}", side, classes, days)
+    cmd = [sys.executable, "-m", "regionmap", "run", str(cfg_path), "--quiet", "--force"]
+    t0 = time.perf_counter()
+    proc = subprocess.run(cmd, capture_output=True, text=True)
+    seconds = time.perf_counter() - t0
+    if proc.returncode:
+        print(proc.stderr)
+        raise SystemExit(1)
+    import json
+
+    record = json.loads((cfg_path.parent / "out" / "run.json").read_text())
+    peak = _peak_gb_of_children()
+    print(f"{record['cell_count']:6d} cells, {days} days: {seconds:6.1f} s end to end, peak RSS {peak:.2f} GB; "
+          f"timings {record['timings_s']}")
+    return {"cells": record["cell_count"], "seconds": seconds, "peak_gb": peak}
+
+
+def bench_overhead(args, folder: Path) -> dict:
+    """The same chunks through dask (threads) and through direct calls in a loop."""
+    from regionmap.config import load_config
+    from regionmap.run import (RunContext, chunk_ranges, initial_state, open_grid_forcing, plan_period,
+                               prepare_batch, prepare_region, register_forcing, simulate_chunk, snow_params,
+                               state_slice)
+    from regionmap.runner import dask_client
+
+    cfg = load_config(_scenario(folder / "r1000", *SIZES[1000], args.days))
+    region = prepare_region(cfg)
+    gf = open_grid_forcing(cfg)
+    batch, ds = prepare_batch(region, gf, cfg)
+    params = snow_params(cfg)
+    period = plan_period(gf.time)
+    state = initial_state(batch, params, period)
+    chunks = chunk_ranges(batch.n_cells, 250)
+    ctx = RunContext(cfg, batch, ds, params, period, 1, 12, kernel_threads=1)
+    register_forcing(ctx, gf)
+    simulate_chunk(ctx, 0, 1, state_slice(state, 0, 1))  # warm
+    t0 = time.perf_counter()
+    from concurrent.futures import ThreadPoolExecutor
+
+    with ThreadPoolExecutor(2) as pool:
+        list(pool.map(lambda c: simulate_chunk(ctx, c[0], c[1], state_slice(state, *c)), chunks))
+    direct = time.perf_counter() - t0
+    with dask_client() as client:
+        t0 = time.perf_counter()
+        futures = [client.submit(simulate_chunk, ctx, lo, hi, state_slice(state, lo, hi), pure=False) for lo, hi in chunks]
+        client.gather(futures)
+        via_dask = time.perf_counter() - t0
+    frac = via_dask / direct - 1.0
+    print(f"{batch.n_cells} cells: direct {direct:.2f} s, dask {via_dask:.2f} s, overhead {100 * frac:+.1f} % "
+          f"(target <= {100 * TARGETS['dask_overhead_frac']:.0f} %)")
+    return {"dask_overhead_frac": frac}
+
+
+def main() -> int:
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("what", choices=["demo", "region", "scaling", "overhead"])
+    ap.add_argument("--cells", type=int, default=10000, choices=sorted(SIZES))
+    ap.add_argument("--days", type=int, default=181)
+    ap.add_argument("--keep", type=Path, help="folder for the synthetic scenarios (kept)")
+    ap.add_argument("--no-assert", action="store_true")
+    args = ap.parse_args()
+    print(f"load average {os.getloadavg()[0]:.1f} on {os.cpu_count()} cores")
+    folder = args.keep or Path(tempfile.mkdtemp(prefix="regionmap-bench-"))
+    ok = True
+    if args.what == "demo":
+        r = bench_demo(args)
+        ok = r["demo_s"] <= TARGETS["demo_s"]
+    elif args.what == "region":
+        r = bench_region(args.cells, args.days, folder)
+        if args.cells == 10000:
+            ok = r["seconds"] <= TARGETS["region_10k_s"] and r["peak_gb"] <= TARGETS["region_10k_peak_gb"]
+    elif args.what == "scaling":
+        for n in sorted(SIZES):
+            bench_region(n, args.days, folder)
+    else:
+        r = bench_overhead(args, folder)
+        ok = r["dask_overhead_frac"] <= TARGETS["dask_overhead_frac"]
+    if not ok and not args.no_assert:
+        print("FAILED: target missed")
+        return 1
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
