@@ -40,3 +40,75 @@ def test_bad_input_is_one_line_and_exit_2(tmp_path):
 
 def test_caution_text_defers_to_professionals():
     assert "avalanche service" in CAUTION and "field observations" in CAUTION
+
+
+def _dem(path, *, crs="EPSG:32632", nodata_all=False):
+    import numpy as np
+    import rasterio
+    from affine import Affine
+
+    z = np.full((20, 20), -9999.0 if nodata_all else 0.0, dtype="float32")
+    if not nodata_all:
+        z += np.add.outer(np.arange(20.0), np.arange(20.0)) * 10 + 1500
+    profile = dict(driver="GTiff", width=20, height=20, count=1, dtype="float32", nodata=-9999.0,
+                   transform=Affine(100, 0, 600_000, 0, -100, 5_200_000))
+    if crs:
+        profile["crs"] = crs
+    with rasterio.open(path, "w", **profile) as dst:
+        dst.write(z, 1)
+    return path
+
+
+def _zones(path, box=(600_100, 5_198_100, 601_900, 5_199_900), geometry="polygon"):
+    import geopandas as gpd
+    import shapely
+
+    geom = shapely.box(*box) if geometry == "polygon" else shapely.Point(box[0], box[1])
+    gpd.GeoDataFrame({"name": ["Test Zone"]}, geometry=[geom], crs="EPSG:32632").to_file(path, driver="GeoJSON")
+    return path
+
+
+@pytest.mark.parametrize(
+    "case, expect",
+    [
+        ("dem_without_crs", "coordinate reference system"),
+        ("all_nodata_dem", "nodata"),
+        ("unreadable_dem", "dem.tif"),
+        ("zones_miss_dem", "Test Zone"),
+        ("zones_without_polygons", "polygon"),
+        ("unknown_config_key", "did you mean 'zone_field'"),
+        ("wrong_type", "aspect_sectors"),
+    ],
+)
+def test_bad_inputs_exit_2_with_one_line_and_write_nothing(tmp_path, case, expect):
+    dem = tmp_path / "dem.tif"
+    zones = tmp_path / "zones.geojson"
+    extra = ""
+    if case == "dem_without_crs":
+        _dem(dem, crs=None)
+    elif case == "all_nodata_dem":
+        _dem(dem, nodata_all=True)
+    elif case == "unreadable_dem":
+        dem.write_bytes(b"\x00not a raster")
+    else:
+        _dem(dem)
+    if case == "zones_miss_dem":
+        _zones(zones, box=(700_000, 5_000_000, 701_000, 5_001_000))
+    elif case == "zones_without_polygons":
+        _zones(zones, geometry="point")
+    else:
+        _zones(zones)
+    if case == "unknown_config_key":
+        extra = 'zone_feild = "name"\n'
+    if case == "wrong_type":
+        extra = '[cells]\naspect_sectors = "eight"\n'
+    cfg = tmp_path / "run.toml"
+    cfg.write_text(f'[region]\ndem = "dem.tif"\nzones = "zones.geojson"\n{extra}[forcing]\npath = "f.nc"\n')
+    out = tmp_path / "out"
+    proc = subprocess.run([sys.executable, "-m", "regionmap", "run", str(cfg), "--out", str(out)],
+                          capture_output=True, text=True)
+    assert proc.returncode == 2, proc.stderr
+    lines = proc.stderr.strip().splitlines()
+    assert len(lines) == 1 and lines[0].startswith("regionmap: error:"), proc.stderr
+    assert expect in lines[0]
+    assert not out.exists()
