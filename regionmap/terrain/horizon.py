@@ -124,23 +124,19 @@ def _scan_line_pair(w, n, L, ds, inv_r, floor0, back, sw, si, best, best_b, out,
     each point's tangent toward lower indices inside its own block, and is searched by the
     points of the block before for the part of their upward window inside this block; a hull
     grown leftwards over a block gives the upward in-block tangents for free and is searched
-    by the points of the block after. Searches that cannot beat what the observer already
-    has (bounded by the highest point and the nearest distance of the searched part) are
-    skipped.
+    by the points of the block after.
     """
     for i in range(n):
         best[i] = -np.inf
     if back:
         for i in range(n):
             best_b[i] = -np.inf
-    thr = ds * ds * inv_r  # per index: the tangent that ends up as 0 is +-i*thr
     for start in range(0, n + L, L):
         if start < n:
             # hull grown rightwards over [start, end)
             end = min(start + L, n)
             top = -1
             guess = 0
-            w_max = -np.inf
             for q in range(start, end):
                 wq = w[q]
                 if wq == wq:
@@ -154,7 +150,6 @@ def _scan_line_pair(w, n, L, ds, inv_r, floor0, back, sw, si, best, best_b, out,
                     top += 1
                     sw[top] = wq
                     si[top] = q
-                    w_max = max(w_max, wq)
                 if not back or start == 0:
                     continue
                 # observers of the block before whose upward window ends at q (all the
@@ -163,15 +158,6 @@ def _scan_line_pair(w, n, L, ds, inv_r, floor0, back, sw, si, best, best_b, out,
                 for i in range(q - L, i_hi + 1):
                     wi = w[i]
                     if top < 0 or wi != wi:
-                        continue
-                    rise = w_max - wi
-                    bound = rise / (start - i) if rise > 0.0 else rise / L
-                    have = best_b[i]
-                    if i + 1 < start and w[i + 1] == w[i + 1]:
-                        have = max(have, w[i + 1] - wi)  # the neighbour, counted later
-                    if floor0:
-                        have = max(have, -i * thr)
-                    if bound <= have:
                         continue
                     guess = _tangent_vertex(sw, si, top, wi, i, guess)
                     m = (sw[guess] - wi) / (si[guess] - i)
@@ -186,7 +172,6 @@ def _scan_line_pair(w, n, L, ds, inv_r, floor0, back, sw, si, best, best_b, out,
         top = -1
         nxt = min(start, n) - 1
         guess = 0
-        w_max = -np.inf
         # observers from min(start + L, n) - 1 down to start; the last pass (o = start - 1,
         # the only one when start >= n) just completes the hull for the upward tangents
         for o in range(max(min(start + L, n) - 1, start - 1), start - 2, -1):
@@ -207,21 +192,11 @@ def _scan_line_pair(w, n, L, ds, inv_r, floor0, back, sw, si, best, best_b, out,
                     top += 1
                     sw[top] = wp
                     si[top] = nxt
-                    w_max = max(w_max, wp)
                 nxt -= 1
             if o < start:
                 break
             wi = w[o]
             if top < 0 or wi != wi:
-                continue
-            # skip the search when no point of the block before can beat what the observer
-            # has: they lie at distances o-start+1 .. L and no higher than w_max
-            rise = w_max - wi
-            bound = rise / (o - start + 1) if rise > 0.0 else rise / L
-            have = best[o]
-            if floor0:
-                have = max(have, o * thr)
-            if bound <= have:
                 continue
             guess = _tangent_vertex(sw, si, top, wi, o, guess)
             m = (sw[guess] - wi) / (o - si[guess])
@@ -237,6 +212,7 @@ def _scan_line_pair(w, n, L, ds, inv_r, floor0, back, sw, si, best, best_b, out,
 
 @numba.njit(cache=True, nogil=True, error_model="numpy", inline="always")
 def _final_tangent(wi, m, curvature_term, inv_ds, floor0):
+    """Tangent [1] from the best per-index tangent ``m`` of observer height ``wi``."""
     if wi != wi:
         return np.nan
     if m == -np.inf:
@@ -342,9 +318,14 @@ def _scan_block(zc, flip, fl, fr, ny_v, o0, nb, ds, L, inv_r, floor0, back, wbuf
         if back:
             for c in range(nx_v):
                 row_b[c] = np.nan
-        if c_hi >= c_lo:
-            _scan_line_pair(wbuf[b, c_lo:c_hi + 1], c_hi - c_lo + 1, L, ds, inv_r, floor0, back, sw, si, best,
+        if c_hi < c_lo:
+            continue
+        if back:
+            _scan_line_pair(wbuf[b, c_lo:c_hi + 1], c_hi - c_lo + 1, L, ds, inv_r, floor0, True, sw, si, best,
                             best_b, row[c_lo:c_hi + 1], row_b[c_lo:c_hi + 1])
+        else:
+            _scan_one_line(wbuf[b, c_lo:c_hi + 1], c_hi - c_lo + 1, L, ds, inv_r, floor0, sw, si, best,
+                           row[c_lo:c_hi + 1])
 
 
 @numba.njit(cache=True, nogil=True, error_model="numpy", inline="always")
