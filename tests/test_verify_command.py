@@ -199,3 +199,18 @@ def test_last_day_verification_for_the_run(scenario):
     assert row.loc[("MIDSLOPE", "precipitation"), "n"] == 1  # one daily row ends in it
     assert row.loc[("LOWPLOT", "air_temperature"), "bias"] == pytest.approx(T_BIAS_K, abs=0.3)
     assert run_verification_last_day(scenario.cfg, scenario.region, out, np.datetime64("2026-01-20T06:00")) is None
+
+
+def test_undercatch_correction_before_comparing(scenario, tmp_path):
+    # Kochendorfer et al. (2017, HESS 21) catch efficiency CE <= 1: corrected gauge totals are
+    # larger, so the model's over-prediction shrinks; amounts without wind (the daily
+    # station) cannot be corrected and drop out
+    obs = synthetic_observations(scenario.model, tmp_path, seed=9)
+    plain = verify_command(scenario.cfg, scenario.stations_path, obs, tmp_path / "a", region=scenario.region, echo=False)
+    corrected = verify_command(scenario.cfg, scenario.stations_path, obs, tmp_path / "b", undercatch="single_alter",
+                               region=scenario.region, echo=False)
+    key = ["station_id", "variable"]
+    p, c = plain.set_index(key), corrected.set_index(key)
+    assert c.loc[("CREST", "precipitation"), "total_percent_difference"] < p.loc[("CREST", "precipitation"), "total_percent_difference"] - 1.0
+    assert c.loc[("MIDSLOPE", "precipitation"), "n"] == 0
+    assert c.loc[("CREST", "air_temperature"), "bias"] == p.loc[("CREST", "air_temperature"), "bias"]
