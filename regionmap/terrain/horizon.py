@@ -516,6 +516,19 @@ def _prepare(elevation_m):
     return z, np.ascontiguousarray(z.T)
 
 
+def _slope_terms(z, slope_deg, aspect_deg, cos_s, sin_cos, sin_sin):
+    """cos S, sin S cos A and sin S sin A [1] into the float32 arrays given (NaN where ``z``
+    is NaN; a flat pixel's NaN aspect counts as 0, its sin S being 0). Float32 ufuncs, which
+    release the GIL, so row blocks can run in threads."""
+    s_rad = np.radians(slope_deg, dtype=np.float32)
+    a_rad = np.nan_to_num(np.radians(aspect_deg, dtype=np.float32), nan=0.0)
+    s_rad[np.isnan(z)] = np.nan
+    np.cos(s_rad, out=cos_s)
+    sin_s = np.sin(s_rad)
+    np.multiply(sin_s, np.cos(a_rad), out=sin_cos)
+    np.multiply(sin_s, np.sin(a_rad), out=sin_sin)
+
+
 def _opposite_pairs(azimuths_deg: np.ndarray) -> list[tuple[int, int]]:
     """Azimuth indices as (i, j) tasks, j the opposite azimuth scanned along the same lines
     (or -1), each index exactly once."""
@@ -585,15 +598,16 @@ def horizon_sky_view_dozier_frew1990(
     z, zt = _prepare(elevation_m)
     ny, nx = z.shape
     az = np.asarray(azimuths_deg, dtype=np.float64)
-    s_rad = np.radians(np.asarray(slope_deg, dtype=np.float64))
-    a_rad = np.radians(np.nan_to_num(np.asarray(aspect_deg, dtype=np.float64), nan=0.0))
-    s_rad[np.isnan(z)] = np.nan
-    cos_s = np.cos(s_rad).astype(np.float32)
-    sin_cos = (np.sin(s_rad) * np.cos(a_rad)).astype(np.float32)
-    sin_sin = (np.sin(s_rad) * np.sin(a_rad)).astype(np.float32)
-    del s_rad, a_rad
+    slope = np.asarray(slope_deg)
+    aspect = np.asarray(aspect_deg)
+    cos_s = np.empty((ny, nx), dtype=np.float32)
+    sin_cos = np.empty((ny, nx), dtype=np.float32)
+    sin_sin = np.empty((ny, nx), dtype=np.float32)
     horizon = np.empty((az.size, ny, nx), dtype=np.float32)
     inv_r = 1.0 / EARTH_RADIUS_M if earth_curvature else 0.0
+
+    def terms(rows):
+        _slope_terms(z[rows], slope[rows], aspect[rows], cos_s[rows], sin_cos[rows], sin_sin[rows])
 
     def work(tasks):
         acc = np.zeros((ny, nx))
@@ -610,7 +624,9 @@ def horizon_sky_view_dozier_frew1990(
 
     tasks = _opposite_pairs(az)
     chunks = [tasks[k::_N_THREADS] for k in range(_N_THREADS)]
+    bounds = np.linspace(0, ny, _N_THREADS + 1).astype(int)
     with ThreadPoolExecutor(_N_THREADS) as pool:
+        list(pool.map(terms, [slice(a, b) for a, b in zip(bounds[:-1], bounds[1:])]))
         parts = list(pool.map(work, chunks))
     sky = parts[0]
     for p in parts[1:]:
