@@ -51,20 +51,24 @@ FZRA_PROFILE = ((0.0, -4.0), (2000.0, -0.8), (2200.0, 0.0), (2600.0, 3.0), (3000
                 (3500.0, -3.25), (9000.0, -39.0))
 
 DEMO_EVENTS = [
-    {"id": "early_snow", "kind": "storm", "start": "2025-11-07T18:00", "end": "2025-11-10T06:00",
-     "t_ref_c": -4.0, "precip_kg_m2_h": 1.8, "note": "first snow of the season down to the valleys"},
-    {"id": "cold_clear_spell", "kind": "clear", "start": "2025-11-10T06:00", "end": "2025-11-28T00:00",
-     "t_ref_c": -10.0, "rh": 0.45, "wind_m_s": 2.5,
-     "note": "thin early snowpack under a cold clear sky: strong gradients, basal faceting"},
+    {"id": "early_snow", "kind": "storm", "start": "2025-11-08T06:00", "end": "2025-11-09T18:00",
+     "t_ref_c": -7.0, "precip_kg_m2_h": 1.1, "wind_m_s": 8.0,
+     "note": "first snow of the season down to the valleys: a shallow early pack of 20-40 cm"},
+    {"id": "cold_clear_spell", "kind": "clear", "start": "2025-11-09T18:00", "end": "2025-11-30T00:00",
+     "t_ref_c": -10.0, "rh": 0.45, "wind_m_s": 4.0,
+     "note": "three weeks of cold clear sky over the thin early pack: strong gradients, basal faceting"},
     {"id": "surface_hoar_nights", "kind": "clear_humid_calm", "start": "2025-12-16T12:00",
      "end": "2025-12-21T12:00", "t_ref_c": -6.0, "rh": 0.85, "wind_m_s": 1.0,
      "note": "calm clear humid nights: surface hoar growth"},
     {"id": "burial_storm", "kind": "storm", "start": "2025-12-21T12:00", "end": "2025-12-23T18:00",
-     "t_ref_c": -7.0, "precip_kg_m2_h": 2.4, "note": "buries the surface hoar"},
-    {"id": "rain_on_snow", "kind": "warm_storm", "start": "2026-01-18T00:00", "end": "2026-01-19T18:00",
-     "t_ref_c": 0.0065 * (FREEZING_LEVEL_ROS_M - Z_REF_M), "precip_kg_m2_h": 2.0,
-     "note": "rain below the freezing level onto the snowpack"},
-    {"id": "cold_snap", "kind": "clear", "start": "2026-01-19T18:00", "end": "2026-01-25T00:00",
+     "t_ref_c": -7.0, "precip_kg_m2_h": 1.5, "wind_m_s": 2.0,
+     "note": "a calm snowfall (light wind) buries the surface hoar intact"},
+    {"id": "rain_on_snow", "kind": "warm_storm", "start": "2026-01-17T12:00", "end": "2026-01-20T00:00",
+     "t_ref_c": 0.0065 * (FREEZING_LEVEL_ROS_M - Z_REF_M), "precip_kg_m2_h": 0.25, "wind_m_s": 3.0,
+     "dir_deg": 200.0, "shape": "plateau",
+     "note": "a long light rain below the freezing level onto the snowpack (warm sector, steady "
+             "freezing level)"},
+    {"id": "cold_snap", "kind": "clear", "start": "2026-01-20T00:00", "end": "2026-01-25T00:00",
      "t_ref_c": -16.0, "rh": 0.5, "wind_m_s": 6.0, "note": "refreezes the wetted snow: rain crust"},
     {"id": "freezing_rain", "kind": "warm_layer_aloft", "start": "2026-02-11T06:00",
      "end": "2026-02-11T20:00", "precip_kg_m2_h": 0.9,
@@ -72,37 +76,91 @@ DEMO_EVENTS = [
     {"id": "spring_warmup", "kind": "warming", "start": "2026-04-01T00:00", "end": "2026-04-30T23:00",
      "t_ref_c": 6.0, "rh": 0.5, "note": "clear, warming spring: melt-freeze cycles"},
 ]
+#: Background storms before spring are at most this warm at Z_REF_M [degC], so that they snow
+#: down to the valleys: before April the only rain comes from the designed events.
+BACKGROUND_STORM_MAX_T_REF_C = -6.5
 _RAMP_S = 6 * 3600
 
 
+def _hours(e) -> float:
+    return float((np.datetime64(e["end"]) - np.datetime64(e["start"])) / np.timedelta64(1, "h"))
+
+
+def jennings2018_t50_c(rh_frac: float) -> float:
+    """Air temperature [degC] of 50 % snow in the Jennings et al. (2018) bivariate logistic
+    model (Nature Communications 9, 1148, doi:10.1038/s41467-018-03629-7, Table 2:
+    a = -10.04, b = 1.41 K-1, g = 0.09 %-1), used here only to state the design's expected
+    rain-snow transition in the events file."""
+    return (10.04 - 0.09 * 100.0 * rh_frac) / 1.41
+
+
 def demo_events() -> dict:
-    """The designed events and their expected answers (what :func:`write_demo_events` writes)."""
+    """The designed events and their expected answers (what :func:`write_demo_events` writes).
+
+    The expectations follow from the design (the event definitions above and common
+    practice), not from a model run: a shallow early pack under three weeks of cold clear
+    sky facets (depth hoar on shaded aspects); calm clear humid nights grow surface hoar that
+    a calm snowfall buries intact; a long light rain below the freezing level onto a pack of
+    well over 50 cm, followed by a cold snap, leaves a rain crust below the rain-snow
+    transition, which sits below the freezing level; a warm layer aloft over sub-freezing
+    surface air gives a glaze below the warm layer's base.
+    """
     ev = {e["id"]: e for e in DEMO_EVENTS}
+    ros = ev["rain_on_snow"]
+    ros_peak = (np.datetime64(ros["start"]) + (np.datetime64(ros["end"]) - np.datetime64(ros["start"])) / 2)
+    ros_rain_h = _hours(ros) - _RAMP_S / 3600.0  # plateau with half-weight ramps at both ends
+    storm_rh = 0.97
+    transition_m = FREEZING_LEVEL_ROS_M - jennings2018_t50_c(storm_rh) / 0.0065
     return {
         "description": "Invented demo season (regionmap). Model output is guidance for trained "
                        "people, never a substitute for field observations, the local avalanche "
                        "service and professional standards.",
         "events": DEMO_EVENTS,
         "expected": {
+            "early_snow": {
+                "event_time": [ev["early_snow"]["start"], ev["early_snow"]["end"]],
+                "new_snow_cm": [20, 40], "phase": "snow at every height of the range",
+                "note": "common practice: a shallow pack (a few tens of cm) facets fastest"},
+            "no_background_rain": {
+                "before": "2026-04-01T00:00",
+                "rain_only_in": ["rain_on_snow", "freezing_rain"],
+                "note": f"background storms before April are at most {BACKGROUND_STORM_MAX_T_REF_C} "
+                        f"degC at {Z_REF_M:.0f} m and snow down to the valleys"},
             "basal_faceting": {
-                "formed_between": [ev["cold_clear_spell"]["start"], ev["cold_clear_spell"]["end"]],
+                "formed_between": [ev["early_snow"]["start"], ev["cold_clear_spell"]["end"]],
                 "layer": "faceted crystals / depth hoar at the base of the early snowpack (FC, DH)",
+                "depth_hoar_by": ev["cold_clear_spell"]["end"],
                 "elevation_m": [1500, 3200], "aspects": ["NW", "N", "NE"],
-                "also": "weaker on other aspects above 2400 m"},
+                "also": "faceted on other aspects; depth hoar there only high up",
+                "persists": "to the analysis time above the rain-snow transition of the "
+                            "rain-on-snow event (below it the rain may soak the pack to the ground)"},
             "surface_hoar": {
                 "formed_between": [ev["surface_hoar_nights"]["start"], ev["surface_hoar_nights"]["end"]],
-                "buried_at": ev["burial_storm"]["start"], "layer": "SH",
-                "elevation_m": [1200, 3200], "aspects": "all; best preserved in sheltered terrain"},
+                "buried_at": ev["burial_storm"]["start"], "buried_by": ev["burial_storm"]["end"],
+                "burial_wind_m_s": ev["burial_storm"]["wind_m_s"], "layer": "SH",
+                "elevation_m": [1200, 3200], "aspects": "all; best preserved in sheltered terrain",
+                "persists": "to the analysis time above the rain-snow transition of the "
+                            "rain-on-snow event"},
             "rain_crust": {
-                "event_time": [ev["rain_on_snow"]["start"], ev["rain_on_snow"]["end"]],
+                "event_time": [ros["start"], ros["end"]],
+                "peak_time": str(ros_peak.astype("datetime64[m]")),
                 "freezing_level_m": FREEZING_LEVEL_ROS_M,
-                "crust_below_m": FREEZING_LEVEL_ROS_M, "transition_m": 200,
+                "rain_kg_m2_below_freezing_level": [10, 20],
+                "rain_kg_m2_design": round(ros["precip_kg_m2_h"] * ros_rain_h, 1),
+                "storm_rh": storm_rh,
+                "transition_m_design": round(transition_m, 0),
+                "crust_below": "the rain-snow transition (snow fraction 0.5), below the freezing level",
+                "snowpack_before_cm": ">= 50 at every height",
                 "refrozen_by": [ev["cold_snap"]["start"], ev["cold_snap"]["end"]]},
             "freezing_rain": {
                 "event_time": [ev["freezing_rain"]["start"], ev["freezing_rain"]["end"]],
                 "warm_layer_m": [2200, 3000], "warm_layer_max_c": 3.0,
                 "glaze_below_m": 2200, "rain_m": [2200, 3000], "snow_above_m": 3000,
                 "detectable_from": "upper_air_temperature on pressure levels"},
+            "crust_count": {
+                "at": "analysis time",
+                "below_m": "min(rain-snow transition of the rain-on-snow event, glaze_below_m)",
+                "at_least": 2, "kinds": ["rain", "glaze"]},
             "spring_warmup": {"from": ev["spring_warmup"]["start"],
                               "expect": "wet snow and melt-freeze crusts spreading upward"},
         },
@@ -195,20 +253,24 @@ def _synoptic(t_s, seed):
          "rh": np.full(n, 0.70), "wind_m_s": np.full(n, 4.0), "dir_deg": np.full(n, 260.0),
          "precip": np.zeros(n), "fzra": np.zeros(n), "dp_hpa": np.zeros(n)}
 
-    # background storms, outside the designed events (+- 1 day)
+    # background storms, after the first designed snowfall and outside the designed events
+    # (+- 1 day); before spring they are cold enough to snow at every height of the range
     busy = np.zeros(n, bool)
     for e in DEMO_EVENTS:
         w, a, b = _window_weight(t_s, e["start"], e["end"])
         busy |= (t_s > a - 86400) & (t_s < b + 86400) & (e["kind"] != "warming")
+    first_snow = np.datetime64(DEMO_EVENTS[0]["start"], "s").astype(np.int64)
+    busy |= t_s < first_snow
+    spring = np.datetime64("2026-04-01", "s").astype(np.int64)
     start = t_s[0] + int(rng.uniform(1, 3) * 86400)
     storms = []
     while start < t_s[-1]:
         length = int(rng.uniform(18, 42)) * 3600
         if not busy[(t_s >= start) & (t_s <= start + length)].any():
-            storms.append({"start": start, "end": start + length, "kind": "storm",
-                           "t_ref_c": None, "precip_kg_m2_h": rng.uniform(0.5, 1.6)})
+            storms.append({"start": start, "end": start + length, "kind": "storm", "t_ref_c": None,
+                           "precip_kg_m2_h": rng.uniform(0.5, 1.6),
+                           "t_max_c": None if start >= spring else BACKGROUND_STORM_MAX_T_REF_C})
         start += int(rng.uniform(4.5, 8.5) * 86400)
-    spring = np.datetime64("2026-04-01", "s").astype(np.int64)
     storms = [st for st in storms if st["start"] < spring or rng.uniform() < 0.4]
     for st in storms + [e for e in DEMO_EVENTS if e["kind"] in ("storm", "warm_storm")]:
         _apply_storm(s, t_s, st)
@@ -232,16 +294,30 @@ def _blend(s, w, **values):
 
 
 def _apply_storm(s, t_s, st):
-    """A frontal storm: SW wind veering to NW, warm before and cold after the front."""
+    """A frontal storm: SW wind veering to NW, warm before and cold after the front.
+
+    Optional keys of ``st``: ``t_ref_c`` (a fixed temperature at Z_REF_M instead of the
+    background's warm-then-cold passage), ``t_max_c`` (a cap on that passage), ``wind_m_s``
+    (peak wind, default 14 m s-1), ``dir_deg`` (a fixed direction instead of the veer) and
+    ``shape = "plateau"`` (steady precipitation between 6 h ramps instead of a peaked one).
+    """
     a = np.datetime64(st["start"], "s").astype(np.int64) if isinstance(st["start"], str) else st["start"]
     b = np.datetime64(st["end"], "s").astype(np.int64) if isinstance(st["end"], str) else st["end"]
     phase = np.clip((t_s - a) / (b - a), 0.0, 1.0)
     w = np.clip(np.minimum(t_s - a, b - t_s) / _RAMP_S + 0.5, 0.0, 1.0)
-    envelope = np.sin(np.pi * phase) ** 0.7
-    t_storm = s["t_ref_c"] + 2.0 - 5.0 * phase if st["t_ref_c"] is None else np.full(t_s.size, st["t_ref_c"])
-    _blend(s, w, t_ref_c=t_storm, cloud=1.0, rh=0.97, wind_m_s=4.0 + 10.0 * envelope,
-           dir_deg=210.0 + 100.0 * phase, precip=st["precip_kg_m2_h"] * envelope, dp_hpa=-12.0 * envelope,
-           lapse_k_m=0.0065)
+    envelope = w if st.get("shape") == "plateau" else np.sin(np.pi * phase) ** 0.7
+    if st["t_ref_c"] is None:
+        t_storm = s["t_ref_c"] + 2.0 - 5.0 * phase
+        if st.get("t_max_c") is not None:
+            t_storm = np.minimum(t_storm, st["t_max_c"])
+    else:
+        t_storm = np.full(t_s.size, st["t_ref_c"])
+    peak_wind = st.get("wind_m_s", 14.0)
+    calm = min(4.0, 0.5 * peak_wind)
+    direction = st.get("dir_deg", None)
+    _blend(s, w, t_ref_c=t_storm, cloud=1.0, rh=0.97, wind_m_s=calm + (peak_wind - calm) * envelope,
+           dir_deg=210.0 + 100.0 * phase if direction is None else np.full(t_s.size, direction),
+           precip=st["precip_kg_m2_h"] * envelope, dp_hpa=-12.0 * envelope, lapse_k_m=0.0065)
 
 
 # ------------------------------------------------------------------------- fields
