@@ -114,6 +114,41 @@ def _cmd_profile(args: argparse.Namespace) -> int:
     return 0
 
 
+def _station_args(args: argparse.Namespace, cfg) -> tuple[Path, list[Path]]:
+    """Station and observation files from the command line, else from ``[stations]``."""
+    stations = args.stations or (cfg.stations.stations if cfg.stations else None)
+    if args.observations:
+        observations = [Path(p) for p in args.observations.split(",") if p]
+    else:
+        observations = list(cfg.stations.observations) if cfg.stations else []
+    if stations is None or not observations:
+        raise InputError("give --stations FILE and --observations FILE[,FILE...] (or a [stations] section in the config)")
+    return stations, observations
+
+
+def _cmd_verify(args: argparse.Namespace) -> int:
+    from regionmap.config import load_config
+    from regionmap.stations_chain import verify_command
+
+    cfg = load_config(args.config)
+    stations, observations = _station_args(args, cfg)
+    verify_command(cfg, stations, observations, args.out, undercatch=args.undercatch)
+    print(f"Caution: {CAUTION}")
+    return 0
+
+
+def _cmd_calibrate(args: argparse.Namespace) -> int:
+    from regionmap.config import load_config
+    from regionmap.stations_chain import calibrate_command
+
+    cfg = load_config(args.config)
+    stations, observations = _station_args(args, cfg)
+    calibrate_command(cfg, stations, observations, args.out, method=args.method, per_month=args.per_month,
+                      undercatch=args.undercatch)
+    print(f"Caution: {CAUTION}")
+    return 0
+
+
 def _cmd_demo(args: argparse.Namespace) -> int:
     from regionmap.demo import run_demo
 
@@ -183,6 +218,26 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--out", type=Path, required=True, help="output folder")
     p.add_argument("--force", action="store_true", help="replace a non-empty folder that is not a regionmap output")
     p.set_defaults(func=_cmd_forcing)
+
+    for name, helptext in (("verify", "compare the downscaled forcing with station observations"),
+                           ("calibrate", "fit [bias] settings from station observations")):
+        p = sub.add_parser(name, help=helptext, description=helptext[0].upper() + helptext[1:] + ": the forcing "
+                           "is downscaled to each station point by the same chain as the cells.",
+                           epilog=f"Caution: {CAUTION}")
+        p.add_argument("config", type=Path, help="the run's TOML config")
+        p.add_argument("--stations", type=Path, metavar="STATIONS.csv", help="station metadata (docs/station_csv.md)")
+        p.add_argument("--observations", metavar="OBS.csv[,...]", help="observation files, comma-separated")
+        p.add_argument("--out", type=Path, default=Path(name if name == "calibrate" else "verification"),
+                       help="folder for the tables and figures (default: %(default)s)")
+        p.add_argument("--undercatch", choices=["single_alter", "unshielded"],
+                       help="correct gauge snowfall under-catch (Kochendorfer et al. 2017) before comparing")
+        if name == "calibrate":
+            p.add_argument("--method", choices=["scaling", "quantile_mapping"], default="scaling",
+                           help="offsets/factors or quantile mapping (default: %(default)s)")
+            p.add_argument("--per-month", action="store_true", help="fit one value per calendar month")
+            p.set_defaults(func=_cmd_calibrate)
+        else:
+            p.set_defaults(func=_cmd_verify)
 
     p = sub.add_parser(
         "profile",

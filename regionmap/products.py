@@ -53,7 +53,7 @@ def _member_presence(ctx, state0, event: pd.Series, control: np.ndarray, table: 
     crust's elevation range are re-simulated, only from a day before the event to two days
     after it; elsewhere members keep the control's presence."""
     from regionmap.rain_crust import rain_crust_presence
-    from regionmap.run import Period, _forcing_for, _perturbed, state_slice
+    from regionmap.run import _forcing_for, _perturbed, state_take
     from regionmap.downscale.pipeline import downscale_cells
     from regionmap.snow.column import run_columns, snapshots_to_dataset
 
@@ -72,8 +72,7 @@ def _member_presence(ctx, state0, event: pd.Series, control: np.ndarray, table: 
     gf = _forcing_for(ctx)
     batch = ctx.batch.subset(cells)
     # the control state at the start of the window, for these cells only
-    state = state_slice(state0, 0, state0.n_cells)
-    state = _subset_state(state, cells)
+    state = state_take(state0, cells)
     if start > p.first:
         spin = downscale_cells(gf, batch, ctx.downscale, slice(p.first, start))
         state, _, _ = run_columns(state, spin, ctx.snow, 1, with_snapshots=False, threads=2)
@@ -88,19 +87,6 @@ def _member_presence(ctx, state0, event: pd.Series, control: np.ndarray, table: 
     cost = {"cells": int(cells.size), "steps": int(stop - p.first), "member_steps": int(stop - start),
             "seconds": round(_time.perf_counter() - t0, 3)}
     return members, cost
-
-
-def _subset_state(state, cells: np.ndarray):
-    from dataclasses import fields
-
-    from regionmap.snow.state import SnowState
-
-    n = state.n_cells
-    kw = {}
-    for f in fields(state):
-        v = getattr(state, f.name)
-        kw[f.name] = v[cells].copy() if isinstance(v, np.ndarray) and v.ndim >= 1 and v.shape[0] == n else v
-    return SnowState(**kw)
 
 
 def _rain_crust(out: Path, cfg: Config, region, ctx, state0, prof: xr.Dataset, table: pd.DataFrame,

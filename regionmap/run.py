@@ -26,7 +26,7 @@ from regionmap.downscale.pipeline import CellBatch, downscale_cells, prepare_cel
 from regionmap.downscale.settings import DownscaleSettings
 from regionmap.downscale.types import CellForcing
 from regionmap.errors import GridMismatchError, InputError
-from regionmap.snow.column import run_columns
+from regionmap.restart import restarts_in_chunk, run_columns_with_restarts
 from regionmap.snow.params import SnowParams
 from regionmap.snow.state import SnowState
 
@@ -260,6 +260,7 @@ class RunContext:
     snapshot_hour_utc : hour (UTC) of the daily layer snapshots.
     kernel_threads : threads the column kernel uses inside one task.
     perturbation : (temperature offset [K], phase-threshold offset [K]) for ensemble members.
+    restarts : observed-profile restarts (:func:`regionmap.restart.resolve_restarts`).
     """
 
     cfg: Config
@@ -271,6 +272,7 @@ class RunContext:
     snapshot_hour_utc: int
     kernel_threads: int = 1
     perturbation: tuple[float, float] = (0.0, 0.0)
+    restarts: list = field(default_factory=list)
 
 
 _FORCING_CACHE: dict = {}
@@ -360,21 +362,23 @@ def simulate_chunk(ctx: RunContext, lo: int, hi: int, state: SnowState, *, with_
     t_down = _time.perf_counter() - t0
     n_an = p.split - p.first
     t0 = _time.perf_counter()
-    diags, snaps = [], []
+    mine = restarts_in_chunk(ctx.restarts, lo, hi)
+    diags, snaps, records = [], [], []
     state_an = state
-    if n_an > 0:
-        state_an, d, s = run_columns(state, forcing.subset(steps=slice(0, n_an)), ctx.snow, ctx.diag_every_h,
-                                     ctx.snapshot_hour_utc, with_snapshots=with_snapshots,
-                                     threads=ctx.kernel_threads)
-        diags.append(d)
-        snaps.append(s)
-    state_end = state_an
+    parts = [("analysis", slice(0, n_an))] if n_an > 0 else []
     if p.has_forecast:
-        state_end, d, s = run_columns(state_an, forcing.subset(steps=slice(n_an, None)), ctx.snow,
-                                      ctx.diag_every_h, ctx.snapshot_hour_utc, with_snapshots=with_snapshots,
-                                      threads=ctx.kernel_threads)
+        parts.append(("forecast", slice(n_an, None)))
+    state_now = state
+    for name, steps in parts:
+        state_now, d, s, recs = run_columns_with_restarts(
+            state_now, forcing.subset(steps=steps), mine, ctx.snow, ctx.diag_every_h, ctx.snapshot_hour_utc,
+            with_snapshots=with_snapshots, threads=ctx.kernel_threads)
         diags.append(d)
         snaps.append(s)
+        records += recs
+        if name == "analysis":
+            state_an = state_now
+    state_end = state_now
     t_col = _time.perf_counter() - t0
     summary = {
         "precip_kg_m2": float(forcing.precip_kg_m2.sum()),
@@ -389,6 +393,7 @@ def simulate_chunk(ctx: RunContext, lo: int, hi: int, state: SnowState, *, with_
         "state_analysis": state_an,
         "state_end": state_end,
         "forcing_summary": summary,
+        "restart_records": records,
         "seconds": {"downscale": t_down, "column": t_col},
     }
 
@@ -416,16 +421,21 @@ def check_state_matches(state: SnowState, batch: CellBatch, params: SnowParams, 
         )
 
 
-def state_slice(state: SnowState, lo: int, hi: int) -> SnowState:
-    """Cells ``lo:hi`` of a state."""
+def state_take(state: SnowState, positions) -> SnowState:
+    """Some cells of a state (a slice or an index array along ``cell``), copied."""
     from dataclasses import fields
 
     n = state.n_cells
     kw = {}
     for f in fields(state):
         v = getattr(state, f.name)
-        kw[f.name] = v[lo:hi].copy() if isinstance(v, np.ndarray) and v.ndim >= 1 and v.shape[0] == n else v
+        kw[f.name] = v[positions].copy() if isinstance(v, np.ndarray) and v.ndim >= 1 and v.shape[0] == n else v
     return SnowState(**kw)
+
+
+def state_slice(state: SnowState, lo: int, hi: int) -> SnowState:
+    """Cells ``lo:hi`` of a state."""
+    return state_take(state, slice(lo, hi))
 
 
 def state_put(dst: SnowState, src: SnowState, lo: int, hi: int) -> None:

@@ -193,11 +193,12 @@ def execute(cfg: Config, *, out_dir: Path | None = None, continue_from: Path | N
                          diag_every_h=diag_every, where=str(cfg.forcing.path))
     if state0 is None:
         state0 = initial_state(batch, params, period)
-    restart_record = []
+    resolved = []
     if restarts:
-        from regionmap.restart import apply_restarts
+        from regionmap.restart import resolve_restarts
 
-        state0, restart_record = apply_restarts(state0, restarts, cells_frame(region), period)
+        resolved = resolve_restarts(restarts, cells_frame(region), period.times[period.first:period.stop],
+                                    diag_every_h=diag_every, max_layers=params.max_layers)
 
     sim_times = period.times[period.first:period.stop]
     out_times = sim_times[diag_every - 1::diag_every]
@@ -207,7 +208,8 @@ def execute(cfg: Config, *, out_dir: Path | None = None, continue_from: Path | N
     n_par = max(1, workers or (os.cpu_count() or 1))
     ctx = RunContext(cfg=cfg, batch=batch, downscale=dsettings, snow=params, period=period,
                      diag_every_h=diag_every, snapshot_hour_utc=snapshot_hour,
-                     kernel_threads=max(1, n_par // max(1, min(len(chunks), n_par))) if not (workers or scheduler) else 1)
+                     kernel_threads=max(1, n_par // max(1, min(len(chunks), n_par))) if not (workers or scheduler) else 1,
+                     restarts=resolved)
     register_forcing(ctx, gf)
     t0 = _time.perf_counter()
     _warm_kernels(params)
@@ -222,6 +224,7 @@ def execute(cfg: Config, *, out_dir: Path | None = None, continue_from: Path | N
     forcing_sums = {"precip_kg_m2": 0.0, "snowfall_kg_m2": 0.0, "freezing_rain_kg_m2": 0.0}
     task_seconds = {"downscale": 0.0, "column": 0.0}
     status_bits = 0
+    restart_records: list = []
 
     with OutputFolder(target, force=force) as folder:
         out = folder.path
@@ -254,6 +257,7 @@ def execute(cfg: Config, *, out_dir: Path | None = None, continue_from: Path | N
                     for k in task_seconds:
                         task_seconds[k] += res["seconds"][k]
                     status_bits |= int(np.bitwise_or.reduce(res["diagnostics"]["status"]))
+                    restart_records += res["restart_records"]
                     bar.update(1)
                     fut.release()
                 bar.close()
@@ -276,14 +280,21 @@ def execute(cfg: Config, *, out_dir: Path | None = None, continue_from: Path | N
         timings["task_downscale_cpu"] = task_seconds["downscale"]
         timings["task_column_cpu"] = task_seconds["column"]
         timings["total"] = _time.perf_counter() - t_all
+        from regionmap.restart import merge_restart_records
+
         record = _run_record(cfg, region, gf, dsettings, params, period, map_time, timings, forcing_sums,
-                             events, status_bits, continue_from, restart_record, products.ensemble_cost,
+                             events, status_bits, continue_from, merge_restart_records(restart_records),
+                             products.ensemble_cost,
                              workers=workers, scheduler=scheduler, chunks=len(chunks))
         for name, src in (extra_files or {}).items():
             dst = out / name
             dst.parent.mkdir(parents=True, exist_ok=True)
             shutil.copy2(src, dst)
         atomic_write_text(out / "run.json", json.dumps(record, indent=2, default=str))
+        if cfg.stations is not None:
+            from regionmap.stations_chain import run_verification_last_day
+
+            run_verification_last_day(cfg, region, out, map_time, grid_forcing=gf)
         if report:
             from regionmap.report import write_report
 

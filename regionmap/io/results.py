@@ -70,6 +70,40 @@ AMOUNTS: dict[str, tuple[str, dict]] = {
 _FILLS = {"f4": np.float32(np.nan), "i1": _FILL_I8, "i2": _FILL_I16}
 
 
+class _StreamingNc:
+    """A NetCDF-4 file written under a temporary name, renamed into place on :meth:`close`."""
+
+    def _open(self, path) -> netCDF4.Dataset:
+        self.path = Path(path)
+        self._stack = ExitStack()
+        self._tmp = self._stack.enter_context(atomic_path(self.path))
+        self._nc = netCDF4.Dataset(self._tmp, "w", format="NETCDF4")
+        return self._nc
+
+    @staticmethod
+    def _range(cell_positions) -> tuple[int, int]:
+        pos = np.asarray(cell_positions)
+        lo, hi = int(pos[0]), int(pos[-1]) + 1
+        if hi - lo != pos.size:
+            raise ValueError("cell_positions must be a contiguous range")
+        return lo, hi
+
+    @_hdf5_locked
+    def close(self) -> Path:
+        """Finish the file and rename it into place."""
+        self._nc.close()
+        self._stack.close()
+        return self.path
+
+    @_hdf5_locked
+    def abort(self) -> None:
+        """Drop the partly written file, keeping any older one."""
+        try:
+            self._nc.close()
+        finally:
+            self._stack.__exit__(RuntimeError, RuntimeError("aborted"), None)
+
+
 def _seconds(times) -> np.ndarray:
     return np.asarray(times, dtype="datetime64[s]").astype(np.int64)
 
@@ -78,7 +112,7 @@ def _fill_for(dtype: str):
     return _FILLS.get(dtype)
 
 
-class CellsNcWriter:
+class CellsNcWriter(_StreamingNc):
     """Create ``cells.nc`` for a cell table and output times; fill it chunk by chunk.
 
     Parameters
@@ -101,14 +135,10 @@ class CellsNcWriter:
     def __init__(self, path, cells: pd.DataFrame, times, interval_start, is_forecast, *,
                  extra: dict | None = None, global_attrs: dict | None = None,
                  variables: dict | None = None, title: str = "regionmap per-cell snowpack diagnostics"):
-        self.path = Path(path)
-        self._stack = ExitStack()
-        self._tmp = self._stack.enter_context(atomic_path(self.path))
+        nc = self._open(path)
         base = {**DIAGNOSTICS, **AMOUNTS} if variables is None else dict(variables)
         self.variables = {**base, **(extra or {})}
         n_cell, n_time = len(cells), len(times)
-        nc = netCDF4.Dataset(self._tmp, "w", format="NETCDF4")
-        self._nc = nc
         nc.setncatts({
             "Conventions": "CF-1.8",
             "featureType": "timeSeries",
@@ -181,10 +211,7 @@ class CellsNcWriter:
         ``cell_positions`` must be a contiguous increasing range (chunks are contiguous in
         ``cell_id`` order).
         """
-        pos = np.asarray(cell_positions)
-        lo, hi = int(pos[0]), int(pos[-1]) + 1
-        if hi - lo != pos.size:
-            raise ValueError("cell_positions must be a contiguous range")
+        lo, hi = self._range(cell_positions)
         for name, (dtype, _) in self.variables.items():
             if name in diagnostics:
                 values = np.asarray(diagnostics[name])
@@ -193,23 +220,7 @@ class CellsNcWriter:
                     values = np.where(np.isfinite(values), values, fill).astype(dtype)
                 self._nc.variables[name][lo:hi, :] = values
 
-    @_hdf5_locked
-    def close(self) -> Path:
-        """Finish the file and rename it into place."""
-        self._nc.close()
-        self._stack.close()
-        return self.path
-
-    @_hdf5_locked
-    def abort(self) -> None:
-        """Drop the partly written file, keeping any older one."""
-        try:
-            self._nc.close()
-        finally:
-            self._stack.__exit__(RuntimeError, RuntimeError("aborted"), None)
-
-
-class ProfilesNcWriter:
+class ProfilesNcWriter(_StreamingNc):
     """Create ``profiles.nc`` (dims ``cell``, ``day``, ``layer``) and fill it chunk by chunk.
 
     Parameters
@@ -223,11 +234,7 @@ class ProfilesNcWriter:
 
     @_hdf5_locked
     def __init__(self, path, cell_ids, days, n_layers: int, layer_vars: dict[str, tuple[str, dict]]):
-        self.path = Path(path)
-        self._stack = ExitStack()
-        self._tmp = self._stack.enter_context(atomic_path(self.path))
-        nc = netCDF4.Dataset(self._tmp, "w", format="NETCDF4")
-        self._nc = nc
+        nc = self._open(path)
         self.layer_vars = layer_vars
         nc.setncatts({"Conventions": "CF-1.8", "title": "regionmap daily layer snapshots", "source": f"regionmap {__version__}", "caution": CAUTION})
         nc.createDimension("cell", len(cell_ids))
@@ -254,8 +261,7 @@ class ProfilesNcWriter:
     @_hdf5_locked
     def write_chunk(self, cell_positions: np.ndarray, layer_count: np.ndarray, fields: dict[str, np.ndarray]) -> None:
         """Write one chunk's snapshots: ``layer_count`` (cell, day), fields (cell, day, layer)."""
-        pos = np.asarray(cell_positions)
-        lo, hi = int(pos[0]), int(pos[-1]) + 1
+        lo, hi = self._range(cell_positions)
         self._nc.variables["layer_count"][lo:hi, :] = np.asarray(layer_count, dtype=np.int16)
         for name, (dtype, _) in self.layer_vars.items():
             if name in fields:
@@ -265,16 +271,4 @@ class ProfilesNcWriter:
                 else:
                     self._nc.variables[name][lo:hi, :, :] = values
 
-    @_hdf5_locked
-    def close(self) -> Path:
-        self._nc.close()
-        self._stack.close()
-        return self.path
-
-    @_hdf5_locked
-    def abort(self) -> None:
-        try:
-            self._nc.close()
-        finally:
-            self._stack.__exit__(RuntimeError, RuntimeError("aborted"), None)
 
