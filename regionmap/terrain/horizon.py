@@ -588,6 +588,11 @@ def horizon_sky_view_dozier_frew1990(
     Sky view (Eq. 7b of [1], the integral as a mean over the N azimuths), with the horizon
     zenith H_φ = 90° − e_φ, slope S and aspect A:
     V = (1/2π) ∫ [cos S sin²H_φ + sin S cos(φ − A)(H_φ − sin H_φ cos H_φ)] dφ.
+    The sky-view sum is accumulated in the scan, pixel by pixel, as each azimuth's angles are
+    finished. Azimuths 180° apart (every one when N is even) are scanned together along the
+    lines of the first of the two; off the grid directions their lines sit a fraction of a
+    pixel from where a scan of the second alone would put them, which moves single angles by
+    about as much as the line interpolation itself does.
 
     References
     ----------
