@@ -63,10 +63,10 @@ DEMO_EVENTS = [
     {"id": "burial_storm", "kind": "storm", "start": "2025-12-21T12:00", "end": "2025-12-23T18:00",
      "t_ref_c": -7.0, "precip_kg_m2_h": 1.5, "wind_m_s": 2.0,
      "note": "a calm snowfall (light wind) buries the surface hoar intact"},
-    {"id": "rain_on_snow", "kind": "warm_storm", "start": "2026-01-17T12:00", "end": "2026-01-20T00:00",
-     "t_ref_c": 0.0065 * (FREEZING_LEVEL_ROS_M - Z_REF_M), "precip_kg_m2_h": 0.25, "wind_m_s": 3.0,
+    {"id": "rain_on_snow", "kind": "warm_storm", "start": "2026-01-17T00:00", "end": "2026-01-20T00:00",
+     "t_ref_c": 0.0065 * (FREEZING_LEVEL_ROS_M - Z_REF_M), "precip_kg_m2_h": 0.2, "wind_m_s": 3.0,
      "dir_deg": 200.0, "shape": "plateau",
-     "note": "a long light rain below the freezing level onto the snowpack (warm sector, steady "
+     "note": "three days of light rain below the freezing level onto the snowpack (warm sector, steady "
              "freezing level)"},
     {"id": "cold_snap", "kind": "clear", "start": "2026-01-20T00:00", "end": "2026-01-25T00:00",
      "t_ref_c": -16.0, "rh": 0.5, "wind_m_s": 6.0, "note": "refreezes the wetted snow: rain crust"},
