@@ -94,10 +94,11 @@ def dask_client(workers: int | None = None, scheduler: str | None = None):
         return
     if workers:
         cluster = LocalCluster(n_workers=int(workers), threads_per_worker=1, processes=True,
-                               host="127.0.0.1", dashboard_address=None, silence_logs=40)
+                               host="127.0.0.1", dashboard_address=None, worker_dashboard_address=None,
+                               silence_logs=40)
     else:
         cluster = LocalCluster(n_workers=1, threads_per_worker=max(1, os.cpu_count() or 1), processes=False,
-                               dashboard_address=None, silence_logs=40)
+                               dashboard_address=None, worker_dashboard_address=None, silence_logs=40)
     with cluster, Client(cluster) as client:
         yield client
 

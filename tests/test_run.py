@@ -200,3 +200,35 @@ def test_killed_run_keeps_the_previous_output(scenario, reference, tmp_path, pha
     run(config(scenario, "ref"), out)
     assert not list(out.parent.glob(f".{out.name}.regionmap-*"))
     assert_same(read(reference[0]), read(out))
+
+
+def test_restart_from_an_observed_profile_through_the_cli(scenario, reference, tmp_path):
+    import json
+    import shutil
+
+    # the invented CSV profile of tests/data/profiles, re-dated into this scenario's week
+    src = Path(__file__).parent / "data" / "profiles" / "winter_top_down.csv"
+    profile = tmp_path / "pit.csv"
+    profile.write_text(src.read_text().replace("# time: 2026-02-10T09:30Z", "# time: 2026-01-19T12:00Z"))
+    with xr.open_dataset(reference[0] / "cells.nc") as ds:
+        sel = (ds["aspect_sector"].values == "N") & np.isfinite(ds["band_lower_m"].values) & np.isfinite(ds["band_upper_m"].values)
+        pos = int(np.nonzero(sel)[0][0])
+        band = f"{ds['band_lower_m'].values[pos]:.0f}-{ds['band_upper_m'].values[pos]:.0f}"
+        zone = str(ds["zone"].values[pos])
+    out = tmp_path / "out"
+    shutil.copy(scenario / "ref.toml", tmp_path / "ref.toml")
+    for name in ("dem.tif", "zones.geojson", "forcing.nc"):
+        (tmp_path / name).symlink_to(scenario / name)
+    code = main(["run", str(tmp_path / "ref.toml"), "--out", str(out), "--quiet", "--restart", str(profile),
+                 "--zone", zone, "--band", band, "--aspect", "N"])
+    assert code == 0
+    record = json.loads((out / "run.json").read_text())
+    assert record["restarts"], "run.json lists the restarted cells"
+    assert "pit.csv" in json.dumps(record["restarts"])
+    with xr.open_dataset(out / "cells.nc") as ds:
+        t = ds["time"].values
+        k = int(np.searchsorted(t, np.datetime64("2026-01-19T13:00")))
+        depth = ds["snow_depth_cm"].values[pos]
+    # the profile is 100 cm deep (the file's top row); one hour later the pack has barely settled
+    assert 95.0 <= depth[k] <= 100.0
+    assert depth[-1] < depth[k]  # and then it evolves (settles)

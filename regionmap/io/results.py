@@ -20,7 +20,7 @@ import netCDF4
 import numpy as np
 import pandas as pd
 
-from xarray.backends.locks import HDF5_LOCK, NETCDFC_LOCK
+from xarray.backends.locks import HDF5_LOCK, NETCDFC_LOCK, CombinedLock
 
 from regionmap import CAUTION, __version__
 from regionmap.io.atomic import atomic_path
@@ -30,14 +30,19 @@ __all__ = ["DIAGNOSTICS", "AMOUNTS", "CellsNcWriter", "ProfilesNcWriter"]
 _EPOCH = "seconds since 1970-01-01 00:00:00"
 
 
+_NETCDF_LOCKS = CombinedLock([NETCDFC_LOCK, HDF5_LOCK])
+
+
 def _hdf5_locked(method):
     """Hold the process-wide HDF5/netCDF-C locks (shared with xarray's readers): the library
-    is not thread-safe, and chunk tasks read forcing files while the client writes."""
+    is not thread-safe, and chunk tasks read forcing files while the client writes. The locks
+    go through xarray's CombinedLock, which takes them in xarray's own global order (taking
+    them in another order deadlocks against a concurrent read)."""
     import functools
 
     @functools.wraps(method)
     def wrapper(*args, **kwargs):
-        with NETCDFC_LOCK, HDF5_LOCK:
+        with _NETCDF_LOCKS:
             return method(*args, **kwargs)
 
     return wrapper
