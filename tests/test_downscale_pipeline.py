@@ -41,7 +41,7 @@ class FakeGrid:
 
     def read_block(self, names, iy, ix, time_slice):
         self.reads += 1
-        return {n: self.fields[n][time_slice][:, iy, ix].astype(np.float32) for n in names}
+        return {n: self.fields[n][time_slice][..., iy, ix].astype(np.float32) for n in names}
 
 
 def make_grid(n_t=72, start="2026-01-10T01:00", seed=0, t_fn=None):
@@ -193,3 +193,25 @@ def test_bad_settings_are_config_errors():
     grid = make_grid()
     with pytest.raises(InputError, match="time_slice"):
         downscale_cells(grid, make_batch(grid), DownscaleSettings(), slice(10, 5))
+
+
+def test_freezing_rain_needs_the_warm_layer_above_the_cell():
+    """A warm layer (+3 degC) between 800 and 700 hPa over sub-freezing air: cells below it get
+    freezing rain, cells above it do not (Bourgouin 2000: the melting layer must lie between the
+    precipitation's origin and the cell's cold surface layer)."""
+    from regionmap.downscale.thermo import pressure_standard_atmosphere_icao
+
+    grid = make_grid(t_fn=lambda z, h: 271.0 + 0 * z + 0 * h)
+    levels = np.array([900e2, 850e2, 800e2, 750e2, 700e2, 650e2, 600e2, 500e2])
+    temps = np.array([270.0, 271.0, 272.5, 276.0, 273.0, 270.0, 266.0, 255.0])  # warm nose at 750 hPa
+    grid.upper_air_temperature = True
+    grid.upper_air_pressure_pa = levels
+    grid.fields["upper_air_temperature"] = np.broadcast_to(temps[None, :, None, None], (72, 8, NY, NX)).copy()
+    low, high = 1500.0, 3300.0  # ~845 hPa (below the warm layer) and ~670 hPa (above it)
+    assert pressure_standard_atmosphere_icao(np.array(high)) < 700e2 < 800e2 < pressure_standard_atmosphere_icao(np.array(low))
+    elevation = np.where(np.arange(40) % 2 == 0, low, high)
+    batch = make_batch(grid, elevation=elevation)
+    cf = downscale_cells(grid, batch, DownscaleSettings(lapse="fixed", lapse_fixed_k_per_km=0.0,
+                                                        pressure="standard_atmosphere"))
+    assert np.all(cf.freezing_rain_frac[elevation == low] > 0.5)
+    assert np.all(cf.freezing_rain_frac[elevation == high] == 0)

@@ -245,10 +245,12 @@ def _chunk_block(gf, batch: CellBatch, settings, data, z_pts, time, month_idx, c
     if "freezing_rain_frac" in data:
         aloft = w @ np.clip(data["freezing_rain_frac"], 0.0, 1.0)
     elif "upper_air_temperature" in data:
+        # the sounding over each cell starts at the cell's own surface: a cell above the warm
+        # layer has no melting layer aloft, whatever the grid column below it shows
         ua = data["upper_air_temperature"]  # (level, point, time)
-        melt, cold = _phase.bourgouin2000_areas(
-            t_pts, data["surface_air_pressure"], ua, np.asarray(gf.upper_air_pressure_pa))
-        aloft = w @ _phase.freezing_rain_fraction_bourgouin2000(melt, cold)
+        ua_c = np.stack([w @ ua[k] for k in range(ua.shape[0])])  # (level, cell, time)
+        melt, cold = _phase.bourgouin2000_areas(t_c, p_c, ua_c, np.asarray(gf.upper_air_pressure_pa))
+        aloft = _phase.freezing_rain_fraction_bourgouin2000(melt, cold)
     else:
         aloft = np.zeros_like(t_c)
     snow, fzra = _phase.freezing_rain_at_cell(snow, aloft, t_c)
