@@ -167,6 +167,11 @@ start = "{r["start"]}"
 end = "{r["end"]}"
 analysis_time = "{r["analysis_time"]}"
 
+[downscale]
+# temperature lapse fitted to the model's own grid points each hour, so that the inversion
+# under the freezing-rain episode's warm layer survives downscaling
+lapse = "grid"
+
 [output]
 dir = "{out}"
 diagnostics_every = "1h"

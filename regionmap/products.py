@@ -25,6 +25,10 @@ ENSEMBLE_MEMBERS = ((1.0, 0.0), (-1.0, 0.0), (0.0, 0.5), (0.0, -0.5))
 #: Days simulated before and after an event by the ensemble members.
 _SPIN_BEFORE_H = 24
 _AFTER_H = 48
+#: An event draws a rain-crust line when its crust is in at least this many cells and this
+#: share of all cells (ours).
+_MIN_EVENT_CELLS = 3
+_MIN_EVENT_CELL_FRAC = 0.02
 #: Cells within this height of the control crust's elevation range join the ensemble [m].
 _ENSEMBLE_MARGIN_M = 400.0
 
@@ -105,6 +109,11 @@ def _rain_crust(out: Path, cfg: Config, region, ctx, state0, prof: xr.Dataset, t
     )
 
     events = rain_events(prof, day=map_time)
+    # a rain-crust line needs an event that left crusts over some terrain; single cells with a
+    # crust of their own (e.g. a shallow pack soaked by a shower) do not make a line
+    min_cells = max(_MIN_EVENT_CELLS, int(np.ceil(_MIN_EVENT_CELL_FRAC * len(table))))
+    minor = events[events["n_cells"] < min_cells]
+    events = events[events["n_cells"] >= min_cells]
     log = _event_windows(out)
     w_all = weights["all_km2"].to_numpy()
     by_aspect, by_zone, costs = [], [], []
@@ -134,6 +143,7 @@ def _rain_crust(out: Path, cfg: Config, region, ctx, state0, prof: xr.Dataset, t
         _write_csv(out / "rain_crust_limits.csv", limits)
     words = [f"{zone}: {text}" for (zone, _), text in sentences.items() if text]
     cost = {"members": [list(m) for m in ENSEMBLE_MEMBERS], "events": costs,
+            "minor_events_without_line": [int(e) for e in minor["event_id"]],
             "seconds": round(sum(c["seconds"] for c in costs), 3)}
     return cols, lines, words, cost
 

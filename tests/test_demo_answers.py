@@ -258,8 +258,6 @@ def test_glaze_below_the_warm_layer(demo):
     assert _frac(has[below], table["area_km2"].to_numpy()[below]) > MOST
 
 
-@pytest.mark.xfail(strict=True, reason="downscaling flags freezing rain from the grid point's "
-                   "column even for cells above the warm layer (reported to the integrator)")
 def test_no_glaze_above_the_warm_layer(demo):
     """Events file: above the warm layer the precipitation stays snow, so no glaze."""
     fz = demo["design"]["expected"]["freezing_rain"]
