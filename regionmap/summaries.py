@@ -700,7 +700,8 @@ def layers_of_concern(diag: xr.Dataset, profiles: xr.Dataset, table: pd.DataFram
     A layer is identified by its kind and a date in the local time zone: buried surface hoar
     (``SH``) by its burial date (the deposition of the layer above it), faceted crystals
     (``FC``, incl. FCxr and FCsf) and depth hoar (``DH``) by their formation date, crusts by
-    kind (``melt-freeze``, ``sun``, ``rain``, ``glaze``) and formation date. Weak layers count
+    kind (``melt-freeze``, ``sun``, ``rain``, ``glaze``) and formation date — rain crusts and
+    glaze by the start of their precipitation event (``event_id``). Weak layers count
     once buried; crusts also at the surface. When a cell holds two layers with the same
     identity, the shallower one is used.
 
@@ -753,6 +754,11 @@ def layers_of_concern(diag: xr.Dataset, profiles: xr.Dataset, table: pd.DataFram
     as_crust = np.concatenate([np.zeros(wi.size, bool), np.ones(ki.size, bool)])
     kind = np.concatenate([kinds[wi, wl], crust_names[ki, kl]]).astype(object)
     ref_s = np.where(kind == "SH", sq["burial_s"][ci, li], sq["formation_s"][ci, li])
+    # rain crusts and glaze are named for their precipitation event (start hour), not for the
+    # day each cell happened to refreeze: one event, one layer of concern
+    event_s = snap.event_id[:, 0, :][ci, li].astype(np.int64) * 3600
+    by_event = np.isin(kind, ["rain", "glaze"]) & as_crust & (event_s > 0)
+    ref_s = np.where(by_event, event_s, ref_s)
     if (ref_s <= _NO_TIME).any():
         raise InputError("profiles.nc: 'formation_time' is missing for a weak layer or crust; "
                          "the layers of concern need it (int64 seconds since 1970, or datetimes)")
