@@ -21,7 +21,7 @@ from regionmap.rain_crust import (
     rain_events,
     zone_rain_crust_columns,
 )
-from test_summaries_synth import CRS, RAIN_FORMED, TRANSFORM, synthetic_run
+from test_summaries_synth import CRS, RAIN_EVENT_ID, RAIN_FORMED, TRANSFORM, synthetic_run
 
 
 @pytest.fixture(scope="module")
@@ -46,23 +46,23 @@ def _presence_between(table, lo, hi):
 def test_events_and_presence_from_the_profiles(run):
     _, _, table, _, _, _, prof = run
     ev = rain_events(prof)
-    assert list(ev["event_id"]) == [7]
+    assert list(ev["event_id"]) == [RAIN_EVENT_ID]
     assert ev["event_time"].iloc[0] == np.datetime64(RAIN_FORMED)
-    p = rain_crust_presence(prof, event_id=7)
+    p = rain_crust_presence(prof, event_id=RAIN_EVENT_ID)
     np.testing.assert_array_equal(p, _presence_between(table, 1400, 2000))
     q = rain_crust_presence(prof, formed_between=("2026-01-20T00:00", "2026-01-21T00:00"))
     np.testing.assert_array_equal(p, q)
     # the snapshot before the event has no crust
-    assert not rain_crust_presence(prof, event_id=7, day="2026-01-19T12:00").any()
+    assert not rain_crust_presence(prof, event_id=RAIN_EVENT_ID, day="2026-01-19T12:00").any()
 
 
 def test_limits_interpolate_between_100m_band_centres_with_member_range(run):
     _, _, table, _, _, _, prof = run
     w = table["area_km2"].to_numpy()
-    control = rain_crust_presence(prof, event_id=7)
+    control = rain_crust_presence(prof, event_id=RAIN_EVENT_ID)
     # members as the run would give them: crust top 100 m lower / higher, bottom likewise
     members = np.stack([_presence_between(table, 1300, 1900), _presence_between(table, 1500, 2100)])
-    lim = rain_crust_limits(table, w, RainEvent(7, np.datetime64(RAIN_FORMED), control, members))
+    lim = rain_crust_limits(table, w, RainEvent(RAIN_EVENT_ID, np.datetime64(RAIN_FORMED), control, members))
     # hand calculation: the 1900-2000 m band (centre 1950) is wholly crusted (its cells' mean
     # elevations lie below 2000 m), the 2000-2100 m band (2050) not at all: the 0.5 crossing is
     # halfway, 2000 m; likewise the lower limit between 1350 and 1450 m is 1400 m
@@ -76,7 +76,7 @@ def test_limits_interpolate_between_100m_band_centres_with_member_range(run):
     assert (lim["upper_low_m"] <= lim["upper_m"]).all() and (lim["upper_m"] <= lim["upper_high_m"]).all()
     assert set(lim["upper_bound"]) == {""} and (lim["n_members"] == 2).all()
     with pytest.raises(GridMismatchError, match="member presence"):
-        rain_crust_limits(table, w, RainEvent(7, np.datetime64(RAIN_FORMED), control, members[:, :5]))
+        rain_crust_limits(table, w, RainEvent(RAIN_EVENT_ID, np.datetime64(RAIN_FORMED), control, members[:, :5]))
 
 
 def test_sentence_aggregates_agreeing_aspects(run):
@@ -86,15 +86,15 @@ def test_sentence_aggregates_agreeing_aspects(run):
     north = (table["aspect_sector"] == "N").to_numpy()
     # crust from the lowest band up to 2000 m on north aspects, up to 2200 m elsewhere
     control = e < np.where(north, 2000.0, 2200.0)
-    lim = rain_crust_limits(table, w, RainEvent(7, np.datetime64(RAIN_FORMED), control, None))
+    lim = rain_crust_limits(table, w, RainEvent(RAIN_EVENT_ID, np.datetime64(RAIN_FORMED), control, None))
     text = rain_crust_sentence(lim)
     # without members there is no range to state
-    assert text.loc[("Zone B", 7)] == ("rain crust likely below 2000 m on north aspects; "
+    assert text.loc[("Zone B", RAIN_EVENT_ID)] == ("rain crust likely below 2000 m on north aspects; "
                                        "rain crust likely below 2200 m on east and south aspects")
-    assert text.loc[("Zone A", 7)].endswith("on south and west aspects")
-    same = rain_crust_limits(table, w, RainEvent(7, np.datetime64(RAIN_FORMED), e < 2000.0, None))
-    assert rain_crust_sentence(same).loc[("Zone A", 7)] == "rain crust likely below 2000 m on all aspects"
-    zl = rain_crust_limits(table, w, RainEvent(7, np.datetime64(RAIN_FORMED), e < 2000.0, None), by=("zone",))
+    assert text.loc[("Zone A", RAIN_EVENT_ID)].endswith("on south and west aspects")
+    same = rain_crust_limits(table, w, RainEvent(RAIN_EVENT_ID, np.datetime64(RAIN_FORMED), e < 2000.0, None))
+    assert rain_crust_sentence(same).loc[("Zone A", RAIN_EVENT_ID)] == "rain crust likely below 2000 m on all aspects"
+    zl = rain_crust_limits(table, w, RainEvent(RAIN_EVENT_ID, np.datetime64(RAIN_FORMED), e < 2000.0, None), by=("zone",))
     cols = zone_rain_crust_columns(zl, rain_crust_sentence(same))
     assert cols.loc["Zone A", "rain_crust_line_m"] == pytest.approx(2000.0)
     assert cols.loc["Zone A", "rain_crust_text"].startswith("rain crust likely below 2000 m")
@@ -103,7 +103,7 @@ def test_sentence_aggregates_agreeing_aspects(run):
 def test_contour_lines_lie_on_the_dem_at_their_elevation_inside_their_zone(run):
     dem, index, table, _, _, _, prof = run
     w = table["area_km2"].to_numpy()
-    lim = rain_crust_limits(table, w, RainEvent(7, np.datetime64(RAIN_FORMED), rain_crust_presence(prof, event_id=7)))
+    lim = rain_crust_limits(table, w, RainEvent(RAIN_EVENT_ID, np.datetime64(RAIN_FORMED), rain_crust_presence(prof, event_id=RAIN_EVENT_ID)))
     regions = _regions(index, table)
     lines = rain_crust_lines(lim, dem, TRANSFORM, CRS, regions)
     assert set(lines.geom_type) == {"MultiLineString"} and lines.crs == CRS

@@ -126,11 +126,13 @@ LAYER_VARS = {
     "event_id": ("i4", {}),
 }
 
-#: designed layers: bottom DH (cells >= 1800 m), a rain crust of event 7 formed
+#: designed layers: bottom DH (cells >= 1800 m), a rain crust of the rain event that began
+#: 2026-01-20T10Z (event id = its start hour since 1970, as the column model tags it), formed
 #: 2026-01-20T12Z on cells with crust_elev_lo <= elevation < crust_elev_hi, buried SH under a
 #: storm deposited 2026-01-13T03Z (= 2026-01-12 20:00 at UTC-7), and new snow on top.
 SH_BURIAL = "2026-01-13T03:00"
 RAIN_FORMED = "2026-01-20T12:00"
+RAIN_EVENT_ID = int(np.datetime64("2026-01-20T10:00", "h").astype(np.int64))
 
 
 def layer_fields(table: pd.DataFrame, *, crust_lo_m=1400.0, crust_hi_m=2000.0, days=DAYS):
@@ -159,7 +161,7 @@ def layer_fields(table: pd.DataFrame, *, crust_lo_m=1400.0, crust_hi_m=2000.0, d
     rc = (elev >= crust_lo_m) & (elev < crust_hi_m)
     grain[:, :, 3] = np.where(rc, "MFcr", "RG")[:, None]
     crust[:, :, 3] = np.where(rc, "rain", "none")[:, None]
-    event[:, :, 3] = np.where(rc, 7, -1)[:, None]
+    event[:, :, 3] = np.where(rc, RAIN_EVENT_ID, -1)[:, None]
     thick[:, :, 3] = 0.02
     dep[:, :, 3] = _sec("2026-01-19T00:00")
     form[:, :, 3] = np.where(rc, _sec(RAIN_FORMED), _sec("2026-01-19T00:00"))[:, None]
