@@ -9,6 +9,7 @@ import numpy as np
 from numba import njit
 
 from regionmap.snow.diagnostics import (
+    N_SCRATCH_ROWS,
     N_STRUCT,
     S_CRUST,
     S_DH_THICK_M,
@@ -47,6 +48,7 @@ from regionmap.snow.kernel import (
     V_ALBEDO,
     V_SH_MASS,
     V_TSURF,
+    _column_mass_enthalpy,
     _step,
     column_mass,
 )
@@ -143,13 +145,9 @@ def run_cells(c0, c1, time_s, t_air, rh, pres, wind, sw, lw, precip, sf, fzf, dt
     ring_d = np.zeros(RING_H)
     acc = np.zeros(N_ACC)
     sums = np.zeros(N_ACC)
-    hard = np.zeros((1, cap))
-    b_thick = np.zeros((1, cap))
-    b_grain = np.zeros((1, cap))
-    b_code = np.zeros((1, cap), dtype=np.int8)
-    b_n = np.zeros(1, dtype=np.int64)
-    o_tc = np.zeros(1)
-    o_tcd = np.zeros(1)
+    tot = np.zeros(2)
+    hard = np.zeros(cap)
+    scratch = np.zeros((N_SCRATCH_ROWS, cap))
     struct = np.zeros(N_STRUCT)
     relative = p[P_THRESHOLD_RELATIVE] != 0.0
     epoch = 946684800
@@ -178,6 +176,8 @@ def run_cells(c0, c1, time_s, t_air, rh, pres, wind, sw, lw, precip, sf, fzf, dt
         st = 0
         for k in range(N_ACC):
             sums[k] = 0.0
+        # column mass and enthalpy of the current state, carried from step to step
+        tot[0], tot[1] = _column_mass_enthalpy(fw, si[J_N], sv[V_SH_MASS])
         for s in range(n_steps):
             ta = t_air[c, s]
             ok = (math.isfinite(ta) and math.isfinite(rh[c, s]) and math.isfinite(pres[c, s])
@@ -190,7 +190,7 @@ def run_cells(c0, c1, time_s, t_air, rh, pres, wind, sw, lw, precip, sf, fzf, dt
                 st |= _step(fw, iw, sv, si, ring_m, ring_d, ta, rh[c, s], pres[c, s],
                             wind[c, s], max(sw[c, s], 0.0), lw[c, s], max(precip[c, s], 0.0),
                             min(max(sf[c, s], 0.0), 1.0), min(max(fzf[c, s], 0.0), 1.0),
-                            now_s, hour_abs, dt, zu, zt, p, cap, wk, wb, acc)
+                            now_s, hour_abs, dt, zu, zt, p, cap, wk, wb, acc, tot)
             else:
                 st |= ST_NONFINITE
                 for k in range(N_ACC):
@@ -207,12 +207,12 @@ def run_cells(c0, c1, time_s, t_air, rh, pres, wind, sw, lw, precip, sf, fzf, dt
             last_of_interval = (s + 1) % diag_every == 0
             day = snap_day[s]
             if last_of_interval or day >= 0:
-                layer_hardness(fw, iw, n, hard[0])
+                layer_hardness(fw, iw, n, hard)
             if last_of_interval:
                 o = s // diag_every
                 column_structure(fw, iw, n, hard, p[P_CRUST_MIN_THICKNESS_M],
                                  p[P_CRUST_MIN_HARDNESS], p[P_PWL_MIN_DEPTH_M], relative,
-                                 b_thick, b_grain, b_code, b_n, o_tc, o_tcd, struct)
+                                 scratch, struct)
                 depth = 0.0
                 liq_sum = 0.0
                 for i in range(n):
@@ -229,8 +229,11 @@ def run_cells(c0, c1, time_s, t_air, rh, pres, wind, sw, lw, precip, sf, fzf, dt
                 h24d = 0.0
                 h72m = 0.0
                 h72d = 0.0
+                slot = hour_abs % RING_H
                 for k in range(RING_H):
-                    age = (hour_abs - k) % RING_H  # hours before the current step
+                    age = slot - k  # hours before the current step
+                    if age < 0:
+                        age += RING_H
                     h72m += ring_m[k]
                     h72d += ring_d[k]
                     if age < 24:
@@ -272,7 +275,7 @@ def run_cells(c0, c1, time_s, t_air, rh, pres, wind, sw, lw, precip, sf, fzf, dt
                     sf_out[SF_LIQ, c, day, i] = fw[F_LIQ, i] if act else np.nan
                     sf_out[SF_TEMP, c, day, i] = fw[F_TEMP, i] if act else np.nan
                     sf_out[SF_GRAIN, c, day, i] = fw[F_GRAIN, i] if act else np.nan
-                    sf_out[SF_HARD, c, day, i] = hard[0, i] if act else np.nan
+                    sf_out[SF_HARD, c, day, i] = hard[i] if act else np.nan
                     si_out[SI_CODE, c, day, i] = iw[I_CODE, i] if act else 0
                     si_out[SI_CRUST, c, day, i] = iw[I_CRUST, i] if act else 0
                     si_out[SI_DEP, c, day, i] = iw[I_DEP, i] if act else 0

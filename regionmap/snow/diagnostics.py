@@ -16,9 +16,10 @@ from regionmap.snow.constants import RHO_WATER_KG_M3
 from regionmap.snow.crusts import counts_as_crust
 from regionmap.snow.hardness import hardness_index_from_density, hardness_index_from_density_array
 from regionmap.snow.layering import F_GRAIN, F_ICE, F_LIQ, F_THICK, I_CODE, I_CRUST
-from regionmap.snow.stability import threshold_count_columns
+from regionmap.snow.stability import N_CRITERIA, worst_interface_column
 
-__all__ = ["wetness_class_fierz2009", "layer_hardness", "column_structure", "layer_hardness_array"]
+__all__ = ["wetness_class_fierz2009", "layer_hardness", "column_structure", "layer_hardness_array",
+           "N_SCRATCH_ROWS"]
 
 _FC, _FCXR, _FCSF, _DH, _SH = 5, 6, 7, 8, 9
 
@@ -27,6 +28,8 @@ S_CRUST, S_CRUST_MF, S_CRUST_SUN, S_CRUST_RAIN, S_CRUST_GLAZE = 0, 1, 2, 3, 4
 S_DH_THICK_M, S_PWL, S_PWL_DEPTH_M, S_PWL_THICK_M, S_PWL_GRAIN_MM, S_PWL_CODE = 5, 6, 7, 8, 9, 10
 S_TC_MAX, S_TC_DEPTH_M, S_WETNESS = 11, 12, 13
 N_STRUCT = 14
+#: rows of the scratch array :func:`column_structure` needs (shape (N_SCRATCH_ROWS, layer))
+N_SCRATCH_ROWS = N_CRITERIA + 1
 
 
 @njit(cache=True, nogil=True, error_model="numpy")
@@ -61,12 +64,13 @@ def layer_hardness(fw, iw, n, out):
 
 @njit(cache=True, nogil=True, error_model="numpy")
 def column_structure(fw, iw, n, hardness, crust_min_thickness_m, crust_min_hardness,
-                     pwl_min_depth_m, relative, buf_thick, buf_grain, buf_code, buf_n,
-                     out_tc, out_tc_depth, out):
+                     pwl_min_depth_m, relative, scratch, out):
     """Fill ``out`` (N_STRUCT,) with crust counts, DH, PWL and threshold-count diagnostics.
 
-    ``buf_*`` are (1, layer) scratch arrays for the threshold-count kernel; ``hardness`` the
-    (1, layer) hardness of each layer from :func:`layer_hardness`.
+    ``hardness`` (layer,) is the hardness of each layer from :func:`layer_hardness`;
+    ``scratch`` (N_SCRATCH_ROWS, layer) float64 work space for the threshold count
+    (:func:`regionmap.snow.stability.worst_interface_column`), reused between calls so the
+    hourly diagnostics allocate nothing.
     """
     for k in range(N_STRUCT):
         out[k] = 0.0
@@ -81,7 +85,7 @@ def column_structure(fw, iw, n, hardness, crust_min_thickness_m, crust_min_hardn
             kind_thick = 0.0
             while i >= 0 and iw[I_CRUST, i] != 0 and not fw[F_LIQ, i] > 0.0:
                 run_thick += fw[F_THICK, i]
-                run_hard = max(run_hard, hardness[0, i])
+                run_hard = max(run_hard, hardness[i])
                 if fw[F_THICK, i] > kind_thick:
                     kind_thick = fw[F_THICK, i]
                     kind = iw[I_CRUST, i]
@@ -118,21 +122,11 @@ def column_structure(fw, iw, n, hardness, crust_min_thickness_m, crust_min_hardn
     if n > 0:
         lwc = fw[F_LIQ, n - 1] / (RHO_WATER_KG_M3 * max(fw[F_THICK, n - 1], 1e-9))
         out[S_WETNESS] = wetness_class_fierz2009(lwc)
-    # structural threshold count of the worst interface
-    for i in range(buf_thick.shape[1]):
-        if i < n:
-            buf_thick[0, i] = fw[F_THICK, i]
-            buf_grain[0, i] = fw[F_GRAIN, i]
-            buf_code[0, i] = iw[I_CODE, i]
-        else:
-            buf_thick[0, i] = 0.0
-            buf_grain[0, i] = 0.0
-            buf_code[0, i] = 0
-    buf_n[0] = n
-    threshold_count_columns(buf_n, buf_thick, buf_grain, hardness, buf_code, relative,
-                            out_tc, out_tc_depth)
-    out[S_TC_MAX] = out_tc[0]
-    out[S_TC_DEPTH_M] = out_tc_depth[0]
+    # structural threshold count of the worst interface (active layers only)
+    tc, tc_depth = worst_interface_column(n, fw[F_THICK], fw[F_GRAIN], hardness, iw[I_CODE],
+                                          relative, scratch)
+    out[S_TC_MAX] = tc
+    out[S_TC_DEPTH_M] = tc_depth
 
 
 def layer_hardness_array(state) -> np.ndarray:

@@ -63,8 +63,10 @@ from regionmap.snow.layering import (
     remove_layer,
 )
 from regionmap.snow.metamorphism import (
+    arrhenius_ratio_6000,
     classify_grain,
     dendricity_rate_brun1992,
+    dry_dendricity_rate_brun1992,
     facetedness_rate,
     grain_growth_marbouty1980,
     grain_growth_wet_brun1989,
@@ -189,6 +191,23 @@ def _column_mass_enthalpy(fw, n, sh_mass):
     m = sh_mass
     e = -L_FUSION_J_KG * sh_mass
     for i in range(n):
+        m += fw[F_ICE, i] + fw[F_LIQ, i]
+        e += layer_enthalpy(fw[F_ICE, i], fw[F_LIQ, i], fw[F_TEMP, i])
+    return m, e
+
+
+@njit(cache=True, nogil=True, error_model="numpy")
+def _round_and_totals(fw, n, sh_mass):
+    """Round the fields the state keeps as float32 and return (:func:`column_mass`,
+    :func:`column_enthalpy`) of the rounded column, in one pass."""
+    m = sh_mass
+    e = -L_FUSION_J_KG * sh_mass
+    for i in range(n):
+        fw[F_THICK, i] = _f32(fw[F_THICK, i])
+        fw[F_TEMP, i] = _f32(fw[F_TEMP, i])
+        fw[F_GRAIN, i] = _f32(fw[F_GRAIN, i])
+        fw[F_DEND, i] = _f32(fw[F_DEND, i])
+        fw[F_FACET, i] = _f32(fw[F_FACET, i])
         m += fw[F_ICE, i] + fw[F_LIQ, i]
         e += layer_enthalpy(fw[F_ICE, i], fw[F_LIQ, i], fw[F_TEMP, i])
     return m, e
@@ -374,16 +393,20 @@ def _energy_and_conduction(fw, n, sv, ta, q_air, pres, wind, sw_in, lw_in, q_ext
 @njit(cache=True, nogil=True, error_model="numpy")
 def _resolve_all(fw, n):
     """Melt/refreeze every layer from its enthalpy; heat beyond melting a whole layer passes
-    to the layer below. Returns heat leaving through the base [J m-2]."""
+    to the layer below. A layer losing ice to melt shrinks in proportion (its density stays).
+    Returns heat leaving through the base [J m-2]."""
     excess = 0.0
     for i in range(n - 1, -1, -1):
         if excess == 0.0 and fw[F_LIQ, i] <= 0.0 and fw[F_TEMP, i] <= T_MELT_K:
             continue  # dry and not above melting: nothing to melt or refreeze
-        h = layer_enthalpy(fw[F_ICE, i], fw[F_LIQ, i], fw[F_TEMP, i]) + excess
-        ice, liq, t, excess = resolve_phase(fw[F_ICE, i] + fw[F_LIQ, i], h)
+        ice_old = fw[F_ICE, i]
+        h = layer_enthalpy(ice_old, fw[F_LIQ, i], fw[F_TEMP, i]) + excess
+        ice, liq, t, excess = resolve_phase(ice_old + fw[F_LIQ, i], h)
         fw[F_ICE, i] = ice
         fw[F_LIQ, i] = liq
         fw[F_TEMP, i] = t
+        if ice < ice_old and ice_old > 0.0:
+            fw[F_THICK, i] *= ice / ice_old
     return excess
 
 
@@ -486,17 +509,23 @@ def _wet_flags_and_crusts(fw, iw, n, rain_event, rain_wetting, solar_melt, now_s
 @njit(cache=True, nogil=True, error_model="numpy")
 def _compact(fw, n, dt, p):
     """Settle every layer under its overburden plus destructive settling (backward Euler)."""
+    eta0 = p[P_COMPACTION_ETA0_PA_S]
+    c_t = p[P_COMPACTION_C_T_PER_K]
+    c_rho = p[P_COMPACTION_C_RHO_M3_KG]
+    rate0 = p[P_SETTLING_RATE0_PER_S]
+    rho_d = p[P_SETTLING_RHO_D_KG_M3]
     load = 0.0
     for i in range(n - 1, -1, -1):
-        m = fw[F_ICE, i] + fw[F_LIQ, i]
-        dens = fw[F_ICE, i] / max(fw[F_THICK, i], 1e-9)
-        rate = compaction_strain_rate(
-            dens, fw[F_TEMP, i], fw[F_LIQ, i] > 0.0, GRAVITY_M_S2 * (load + 0.5 * m),
-            p[P_COMPACTION_ETA0_PA_S], p[P_COMPACTION_C_T_PER_K],
-            p[P_COMPACTION_C_RHO_M3_KG], p[P_SETTLING_RATE0_PER_S],
-            p[P_SETTLING_RHO_D_KG_M3])
-        dz = fw[F_THICK, i] / (1.0 + rate * dt)
-        dz_min = fw[F_ICE, i] / RHO_ICE_KG_M3 + fw[F_LIQ, i] / RHO_WATER_KG_M3
+        ice = fw[F_ICE, i]
+        liq = fw[F_LIQ, i]
+        thick = fw[F_THICK, i]
+        m = ice + liq
+        dens = ice / max(thick, 1e-9)
+        rate = compaction_strain_rate(dens, fw[F_TEMP, i], liq > 0.0,
+                                      GRAVITY_M_S2 * (load + 0.5 * m), eta0, c_t, c_rho, rate0,
+                                      rho_d)
+        dz = thick / (1.0 + rate * dt)
+        dz_min = ice / RHO_ICE_KG_M3 + liq / RHO_WATER_KG_M3
         fw[F_THICK, i] = max(dz, dz_min)
         load += m
 
@@ -506,14 +535,20 @@ def _metamorphose(fw, iw, n, sv, ts, dt, p):
     """Grain evolution of every layer from its hourly temperature gradient, temperature,
     density and wetness; then its grain class."""
     days = dt / 86400.0
+    g_round = p[P_GRADIENT_ROUND_K_M]
+    g_strong = p[P_GRADIENT_STRONG_K_M]
+    facet_rate = p[P_FACET_RATE_PER_DAY]
+    round_rate = p[P_ROUND_RATE_PER_DAY]
+    kinetic = p[P_KINETIC_GROWTH_M_S]
+    near_m = p[P_NEAR_SURFACE_DEPTH_M]
+    dh_min = p[P_DEPTH_HOAR_MIN_GRAIN_MM]
     depth = 0.0
+    t_up = ts
     for i in range(n - 1, -1, -1):
         dz = fw[F_THICK, i]
         if i == n - 1:
-            t_up = ts
             d_up = 0.5 * dz
         else:
-            t_up = fw[F_TEMP, i + 1]
             d_up = 0.5 * (dz + fw[F_THICK, i + 1])
         if i == 0:
             t_dn = sv[V_SOIL + N_SOIL - 1]
@@ -521,13 +556,14 @@ def _metamorphose(fw, iw, n, sv, ts, dt, p):
         else:
             t_dn = fw[F_TEMP, i - 1]
             d_dn = 0.5 * (dz + fw[F_THICK, i - 1])
+        t = fw[F_TEMP, i]
         grad = (t_up - t_dn) / (d_up + d_dn)
+        t_up = t  # temperatures are not changed by this pass
         centre = depth + 0.5 * dz
         depth += dz
         code = iw[I_CODE, i]
         if code == _IF:
             continue
-        t = fw[F_TEMP, i]
         dens = fw[F_ICE, i] / max(dz, 1e-9)
         m = fw[F_ICE, i] + fw[F_LIQ, i]
         wet = fw[F_LIQ, i] / (RHO_WATER_KG_M3 * max(dz, 1e-9)) > 1e-4
@@ -540,20 +576,20 @@ def _metamorphose(fw, iw, n, sv, ts, dt, p):
             f = f - 1.0 * days
             gs = grain_growth_wet_brun1989(gs, pct, dt)
         elif code != _SH:
+            # one exponential per layer serves decomposition and rounding
+            arr = arrhenius_ratio_6000(t) if d > 0.0 or abs(grad) < g_round else 0.0
             if d > 0.0:
-                d = d - dendricity_rate_brun1992(t, grad, 0.0) * days
-            f = f + facetedness_rate(t, dens, grad, p[P_GRADIENT_ROUND_K_M],
-                                     p[P_GRADIENT_STRONG_K_M], p[P_FACET_RATE_PER_DAY],
-                                     p[P_ROUND_RATE_PER_DAY]) * days
-            gs = grain_growth_marbouty1980(gs, t, dens, grad, dt, p[P_KINETIC_GROWTH_M_S])
+                d = d - dry_dendricity_rate_brun1992(arr, grad) * days
+            f = f + facetedness_rate(t, dens, grad, g_round, g_strong, facet_rate, round_rate,
+                                     arr) * days
+            gs = grain_growth_marbouty1980(gs, t, dens, grad, dt, kinetic)
         fw[F_DEND, i] = min(max(d, 0.0), 1.0)
         fw[F_FACET, i] = min(max(f, 0.0), 1.0)
         fw[F_GRAIN, i] = gs
         if iw[I_CRUST, i] != 0 and code == _MFCR and not wet:
             continue
         iw[I_CODE, i] = classify_grain(code, fw[F_DEND, i], fw[F_FACET, i], gs, wet,
-                                       centre < p[P_NEAR_SURFACE_DEPTH_M],
-                                       p[P_DEPTH_HOAR_MIN_GRAIN_MM])
+                                       centre < near_m, dh_min)
 
 
 @njit(cache=True, nogil=True, error_model="numpy")
@@ -590,15 +626,21 @@ def _cleanup(fw, iw, n):
 
 @njit(cache=True, nogil=True, error_model="numpy")
 def _step(fw, iw, sv, si, ring_m, ring_d, ta, rh, pres, wind_raw, sw_in, lw_in, precip, sf,
-          fzf, now_s, hour_abs, dt, zu, zt, p, cap, wk, wb, acc):
-    """Advance one cell by one step; fills ``acc`` (N_ACC,) and returns a status bitmask."""
+          fzf, now_s, hour_abs, dt, zu, zt, p, cap, wk, wb, acc, tot):
+    """Advance one cell by one step; fills ``acc`` (N_ACC,) and returns a status bitmask.
+
+    ``tot`` (2,) holds the column mass [kg m-2] and enthalpy [J m-2] of the state on entry
+    (:func:`_column_mass_enthalpy`, kept from the previous step) and receives those of the
+    state on exit.
+    """
     for k in range(N_ACC):
         acc[k] = 0.0
     status = 0
     n = si[J_N]
     wind = max(wind_raw, p[P_WIND_MIN_M_S])
     hours = dt / 3600.0
-    m_before, e_before = _column_mass_enthalpy(fw, n, sv[V_SH_MASS])
+    m_before = tot[0]
+    e_before = tot[1]
     e_mass = 0.0
     liquid = precip * (1.0 - sf)
     snow = precip * sf
@@ -683,8 +725,6 @@ def _step(fw, iw, sv, si, ring_m, ring_d, ta, rh, pres, wind_raw, sw_in, lw_in, 
     # surface energy balance + conduction
     q_air = specific_humidity(rh * vapour_pressure_water_buck1981(ta), pres)
     top_dry = n > 0 and fw[F_LIQ, n - 1] <= 0.0
-    for i in range(n):
-        wk[0, i] = fw[F_ICE, i]
     q_net, sw_snow, ground, sw_abs, lw_net, sens, lat, vap, ts = _energy_and_conduction(
         fw, n, sv, ta, q_air, pres, wind, sw_in, lw_in, q_extra, dt, zu, zt, p,
         wk[1], wk[2], wk[3], wk[4], wk[5], wk[6], wk[7], wk[8], wk[9], wk[10], wk[11])
@@ -695,9 +735,6 @@ def _step(fw, iw, sv, si, ring_m, ring_d, ta, rh, pres, wind_raw, sw_in, lw_in, 
     if excess > 0.0:
         e_flux -= excess
         sv[V_SOIL + N_SOIL - 1] += excess / (p[P_SOIL_HEAT_CAPACITY_J_M3_K] * _SOIL_DZ[N_SOIL - 1])
-    for i in range(n):
-        if fw[F_ICE, i] < wk[0, i] and wk[0, i] > 0.0:
-            fw[F_THICK, i] *= fw[F_ICE, i] / wk[0, i]
     melting = n > 0 and fw[F_LIQ, n - 1] > 0.0 and ts >= T_MELT_K
     solar_melt = top_dry and sw_abs > max(lw_net + sens + lat, 0.0) and rain <= 0.0
     # deposition / sublimation; surface hoar grows from deposition under its conditions
@@ -761,21 +798,17 @@ def _step(fw, iw, sv, si, ring_m, ring_d, ta, rh, pres, wind_raw, sw_in, lw_in, 
         sv[V_ALBEDO] = p[P_ALBEDO_MAX]
         sv[V_TSURF] = min(ta, T_MELT_K)
     # storage precision: these fields are kept as float32 in the state
-    for i in range(n):
-        fw[F_THICK, i] = _f32(fw[F_THICK, i])
-        fw[F_TEMP, i] = _f32(fw[F_TEMP, i])
-        fw[F_GRAIN, i] = _f32(fw[F_GRAIN, i])
-        fw[F_DEND, i] = _f32(fw[F_DEND, i])
-        fw[F_FACET, i] = _f32(fw[F_FACET, i])
     for k in range(N_SV):
         if k != V_SH_MASS:
             sv[k] = _f32(sv[k])
     ring_m[slot] = _f32(ring_m[slot])
     ring_d[slot] = _f32(ring_d[slot])
-    # closure
-    m_after, e_after = _column_mass_enthalpy(fw, n, sv[V_SH_MASS])
+    # closure (in the same pass as the rounding)
+    m_after, e_after = _round_and_totals(fw, n, sv[V_SH_MASS])
     acc[A_MASS_RES] = (m_after - m_before) - (snow + liquid + acc[A_DEPO] - acc[A_SUBL] - runoff)
     if n > 0 or m_before > 0.0:
         acc[A_ENERGY_RES] = (e_after - e_before - e_mass - e_flux) / dt
+    tot[0] = m_after
+    tot[1] = e_after
     si[J_N] = n
     return status

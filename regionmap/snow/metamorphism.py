@@ -25,7 +25,9 @@ __all__ = [
     "marbouty_gradient_factor",
     "grain_growth_marbouty1980",
     "grain_growth_wet_brun1989",
+    "arrhenius_ratio_6000",
     "dendricity_rate_brun1992",
+    "dry_dendricity_rate_brun1992",
     "facetedness_rate",
     "classify_grain",
 ]
@@ -103,6 +105,18 @@ def grain_growth_wet_brun1989(grain_mm, liquid_mass_pct, dt_s):
 
 
 @njit(cache=True, nogil=True, error_model="numpy")
+def arrhenius_ratio_6000(t_k):
+    """exp(-6000 K (1/T - 1/T0)): the temperature dependence shared by dry decomposition
+    (Brun et al. 1992) and rounding (below), relative to 0 degC [1]. Computed once per layer
+    and step by the kernel and handed to both rates."""
+    return math.exp(-6000.0 / t_k + 6000.0 / T_MELT_K)
+
+
+#: 2e8 exp(-6000 / T0) [day-1]: the dry decomposition rate of Brun et al. (1992) at 0 degC
+_DRY_DECOMPOSITION_T0_PER_DAY = 2e8 * math.exp(-6000.0 / T_MELT_K)
+
+
+@njit(cache=True, nogil=True, error_model="numpy")
 def dendricity_rate_brun1992(t_k, gradient_k_m, liquid_mass_pct):
     """Loss of dendricity [day-1] (Brun et al. 1992, J. Glaciol. 38(128), 13-22).
 
@@ -110,27 +124,35 @@ def dendricity_rate_brun1992(t_k, gradient_k_m, liquid_mass_pct):
     theta^3 / 16 (theta liquid mass %). Recalled [mem]. doi:10.3189/S0022143000009552
     """
     if liquid_mass_pct > 0.0:
-        return max(liquid_mass_pct**3 / 16.0, 2e8 * math.exp(-6000.0 / T_MELT_K))
+        return max(liquid_mass_pct**3 / 16.0, _DRY_DECOMPOSITION_T0_PER_DAY)
+    return dry_dendricity_rate_brun1992(arrhenius_ratio_6000(t_k), gradient_k_m)
+
+
+@njit(cache=True, nogil=True, error_model="numpy")
+def dry_dendricity_rate_brun1992(arrhenius_ratio, gradient_k_m):
+    """Dry branch of :func:`dendricity_rate_brun1992` from :func:`arrhenius_ratio_6000`:
+    2e8 exp(-6000/T0) x ratio x max(|G|, 5)^0.4 [day-1] (= 2e8 exp(-6000/T) max(|G|, 5)^0.4)."""
     g = max(abs(gradient_k_m), 5.0)
-    return 2e8 * math.exp(-6000.0 / t_k) * g**0.4
+    return _DRY_DECOMPOSITION_T0_PER_DAY * arrhenius_ratio * g**0.4
 
 
 @njit(cache=True, nogil=True, error_model="numpy")
 def facetedness_rate(t_k, density_kg_m3, gradient_k_m, g_round_k_m, g_strong_k_m,
-                     facet_per_day, round_per_day):
+                     facet_per_day, round_per_day, arrhenius_ratio):
     """Change of facetedness [day-1] under the hourly gradient magnitude (our law).
 
     Faceting ``facet_per_day`` x Marbouty temperature factor x ramp((|G| - G_r)/(G_s - G_r))
     x density factor (1 to 300 kg m-3, 0 at 500); rounding ``round_per_day`` x
     (1 - |G|/G_r) x exp(-6000 (1/T - 1/T0)) below G_r. Regimes after Colbeck (1983).
+    ``arrhenius_ratio`` is that exponential, :func:`arrhenius_ratio_6000` (shared with the
+    decomposition rate, so the kernel evaluates it once per layer).
     """
     g = abs(gradient_k_m)
     if g >= g_round_k_m:
         ramp = min((g - g_round_k_m) / (g_strong_k_m - g_round_k_m), 1.0)
         dens = min(max(1.0 - (density_kg_m3 - 300.0) / 200.0, 0.0), 1.0)
         return facet_per_day * marbouty_temperature_factor(t_k) * ramp * dens
-    arr = math.exp(-6000.0 / t_k + 6000.0 / T_MELT_K)
-    return -round_per_day * (1.0 - g / g_round_k_m) * arr
+    return -round_per_day * (1.0 - g / g_round_k_m) * arrhenius_ratio
 
 
 @njit(cache=True, nogil=True, error_model="numpy")
