@@ -68,7 +68,9 @@ def test_per_month_quantile_mapping_and_undercatch(scenario, tmp_path):
     mid = (t.probabilities >= 0.2) & (t.probabilities <= 0.8)
     shift = t.obs_quantiles[0, mid] - t.model_quantiles[0, mid]
     assert shift.mean() == pytest.approx(-T_BIAS_K, abs=0.05)
-    np.testing.assert_allclose(shift, -T_BIAS_K, atol=0.3)  # one noise standard deviation
+    # each quantile within three noise standard deviations (0.3 K each): single quantiles of a
+    # noisy sample scatter, the mean above carries the real check
+    np.testing.assert_allclose(shift, -T_BIAS_K, atol=0.9)
     assert t.n_samples[0] > 0 and np.all(np.diff(t.obs_quantiles[0]) >= 0)  # monotone
     # Kochendorfer et al. (2017) undercatch correction raises the observed totals (CE <= 1),
     # so the fitted precipitation factor is larger than without it
