@@ -70,8 +70,11 @@ def main() -> int:
     print(f"cells {args.cells}, steps {args.days * 24}, chunk {args.chunk}, threads {args.threads}")
     print(f"column time {total:.2f} s -> {per_10k:.1f} s per 10 000 cells x 3600 steps "
           f"(target <= {TARGET_S_PER_10K_CELLS:.0f} s)")
-    print(f"CPU time {cpu:.1f} s over {args.threads} threads; machine load average "
-          f"{os.getloadavg()[0]:.2f} (other work on the machine slows the wall-clock figure)")
+    cpu_10k = cpu * 10_000 / args.cells * 3600 / (args.days * 24)
+    print(f"CPU time {cpu:.1f} s over {args.threads} threads ({cpu_10k:.0f} CPU-s per 10 000 "
+          f"cells x 3600 steps, {layer_steps / max(cpu, 1e-9) / 1e6:.1f} M layer-steps per "
+          f"CPU-second); machine load average {os.getloadavg()[0]:.2f} (other work on the "
+          "machine slows the wall-clock figure)")
     print(f"{cell_steps / total / 1e6:.2f} M cell-steps/s, {layer_steps / total / 1e6:.1f} M "
           f"layer-steps/s (target >= 50)")
     print(f"mean active layers of snow-covered cell-steps {mean_layers:.1f} (target >= "

@@ -137,7 +137,7 @@ def run_cells(c0, c1, time_s, t_air, rh, pres, wind, sw, lw, precip, sf, fzf, dt
     n_steps = time_s.shape[0]
     fw = np.zeros((F_ROWS, cap))
     iw = np.zeros((I_ROWS, cap), dtype=np.int64)
-    wk = np.zeros((12, 2 * (cap + N_SOIL)))
+    wk = np.zeros((10, 2 * (cap + N_SOIL)))
     wb = np.zeros(cap, dtype=np.bool_)
     sv = np.zeros(N_SV)
     si = np.zeros(N_SI, dtype=np.int64)

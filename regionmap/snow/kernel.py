@@ -312,8 +312,11 @@ def _glaze(fw, iw, n, water, now_s, event, p, cap):
 
 @njit(cache=True, nogil=True, error_model="numpy")
 def _energy_and_conduction(fw, n, sv, ta, q_air, pres, wind, sw_in, lw_in, q_extra, dt, zu, zt, p,
-                           tn, kn, cn, dzn, sn, lo, di, up, rhs, work, sol):
+                           tn, kn, cn, dzn, sn, lo, di, dens_w, sol):
     """Surface energy balance coupled to one backward-Euler conduction step of snow + soil.
+
+    ``tn`` ... ``sol`` are work arrays of at least N_SOIL + n elements (``dens_w``: snow
+    density of each layer [kg m-3]).
 
     Returns (q_surface_net, sw_into_snow, ground_flux, sw_absorbed, lw_net, sensible,
     latent, vapour_flux, t_surf).
@@ -333,6 +336,7 @@ def _energy_and_conduction(fw, n, sv, ta, q_air, pres, wind, sw_in, lw_in, q_ext
         j = ns + l
         dzn[j] = fw[F_THICK, l]
         dens = fw[F_ICE, l] / max(fw[F_THICK, l], 1e-9)
+        dens_w[l] = dens  # kept for the shortwave penetration below
         kn[j] = snow_conductivity(model_k, dens)
         cn[j] = C_ICE_J_KG_K * fw[F_ICE, l] + C_WATER_J_KG_K * fw[F_LIQ, l]
         tn[j] = fw[F_TEMP, l]
@@ -344,8 +348,7 @@ def _energy_and_conduction(fw, n, sv, ta, q_air, pres, wind, sw_in, lw_in, q_ext
     for l in range(n - 1, -1, -1):
         if remaining <= 1e-6:  # below a microwatt: nothing left to absorb
             break
-        dens = fw[F_ICE, l] / max(fw[F_THICK, l], 1e-9)
-        a = remaining * penetration_fraction(dens, fw[F_GRAIN, l], fw[F_THICK, l])
+        a = remaining * penetration_fraction(dens_w[l], fw[F_GRAIN, l], fw[F_THICK, l])
         sn[ns + l] = a
         remaining -= a
     sw_snow = sw_abs - p[P_SW_SURFACE_FRAC] * sw_abs - remaining
@@ -727,7 +730,7 @@ def _step(fw, iw, sv, si, ring_m, ring_d, ta, rh, pres, wind_raw, sw_in, lw_in, 
     top_dry = n > 0 and fw[F_LIQ, n - 1] <= 0.0
     q_net, sw_snow, ground, sw_abs, lw_net, sens, lat, vap, ts = _energy_and_conduction(
         fw, n, sv, ta, q_air, pres, wind, sw_in, lw_in, q_extra, dt, zu, zt, p,
-        wk[1], wk[2], wk[3], wk[4], wk[5], wk[6], wk[7], wk[8], wk[9], wk[10], wk[11])
+        wk[1], wk[2], wk[3], wk[4], wk[5], wk[6], wk[7], wk[8], wk[9])
     e_flux = dt * (q_net + sw_snow + ground)
     if n > 0:
         sv[V_TSURF] = ts
