@@ -31,23 +31,31 @@ import pandas as pd
 from regionmap import CAUTION, __version__
 from regionmap.errors import OutputError
 from regionmap.io.atomic import atomic_path, atomic_write_text
-from regionmap.plots.maps import available_maps, plot_metric_map
+from regionmap.plots.maps import available_maps, plot_metric_map, plot_rain_crust_map, rain_crust_events
 from regionmap.plots.outputs import RunOutputs
 from regionmap.plots.overview import plot_overview, write_overview_csv
-from regionmap.plots.profile import plot_profile
-from regionmap.plots.style import PRINT_DPI, REPORT_DPI, slug
-from regionmap.plots.tracker import layer_tracks, plot_elevation_chart, plot_layer_tracker
+from regionmap.plots.profile import plot_profile, read_profile
+from regionmap.plots.style import PRINT_DPI, REPORT_DPI, render_png, slug
+from regionmap.plots.tracker import layer_tracks, new_snow_days, plot_elevation_chart, plot_layer_tracker
 
 __all__ = ["write_all_figures", "write_report", "OVERVIEW_METRICS", "REPORT_MAX_BYTES", "CAUTIONS"]
 
 #: metrics drawn as elevation-aspect overviews for every zone.
 OVERVIEW_METRICS: tuple[str, ...] = ("depth_hoar_fraction", "pwl_depth_cm", "new_snow_72h_cm")
+#: metrics drawn as maps, in this order, when the run has their raster (the other rasters stay
+#: under maps/ for GIS use).
+MAP_METRICS: tuple[str, ...] = ("snow_depth_cm", "new_snow_72h_cm", "depth_hoar_fraction", "pwl_depth_cm",
+                                "pwl_slab_cm", "crust_count", "threshold_count_max")
+#: at most this many rain-crust maps (the events with the longest lines).
+MAX_RAIN_CRUST_MAPS = 2
 #: metric of the per-zone elevation chart.
 ELEVATION_METRIC = "snow_depth_cm"
 #: layers shown in the report: present on at least this share of a zone's weighted area.
 MIN_PRESENCE_FRAC = 0.1
-#: at most this many tracked layers per zone (the most widespread first).
-MAX_TRACKED_LAYERS = 3
+#: at most this many tracked layers per zone (the most widespread weak layer and crust first).
+MAX_TRACKED_LAYERS = 2
+#: rows of the layers-of-concern table per zone: weak layers, crusts (the most widespread).
+TABLE_WEAK_LAYERS, TABLE_CRUSTS = 5, 3
 #: size limit of report.html [bytes] (DESIGN §3).
 REPORT_MAX_BYTES = 10 * 2**20
 #: widest embedded image [px].
@@ -73,12 +81,31 @@ class _Figure:
 
 
 def _make_specs(out: RunOutputs) -> list[tuple[str, str, str, callable]]:
-    """(section, file name, caption, draw function) of every figure of the run."""
+    """(section, file name, caption, draw function) of every figure of the run.
+
+    Everything the figures read from the output folder is read here, once (summaries at the
+    map time, the zones' layer tracks and new-snow days, the profiles, the hillshade), so the
+    draw functions only draw and the forked workers never touch the NetCDF files."""
     specs = []
-    out.band_aspect()  # computed once here, inherited by forked workers
-    for name in available_maps(out):
+    out.band_aspect()
+    maps = set(available_maps(out))
+    for name in [m for m in MAP_METRICS if m in maps]:
         specs.append(("maps", f"map_{name}.png", f"Map: {name.replace('_', ' ')}",
                       lambda name=name: plot_metric_map(out, name)))
+    for event_id, when in rain_crust_events(out, limit=MAX_RAIN_CRUST_MAPS):
+        stamp = pd.Timestamp(when).strftime("%Y%m%dT%H%M")
+        specs.append(("maps", f"map_rain_crust_{stamp}.png",
+                      f"Map: rain-crust line of the rain-on-snow event ending {pd.Timestamp(when):%Y-%m-%d %H:%M} UTC",
+                      lambda event_id=event_id: plot_rain_crust_map(out, event_id)))
+    if specs:
+        from regionmap.plots.maps import _metres_per_unit, _shaded_relief
+
+        lat = float(np.nanmean(out.table["lat"])) if "lat" in out.table else 45.0
+        import rasterio
+
+        with rasterio.open(out.path("maps/cell_id.tif")) as src:
+            _shaded_relief(out, *_metres_per_unit(src.crs, lat))
+        out.zones, out.rain_crust_lines  # noqa: B018  (read once, inherited by the workers)
     for zone in out.zone_names:
         for m in OVERVIEW_METRICS:
             specs.append(("overviews", f"overview_{slug(zone)}_{m}.png", f"{zone}: elevation-aspect overview of {m.replace('_', ' ')}",
@@ -89,17 +116,20 @@ def _make_specs(out: RunOutputs) -> list[tuple[str, str, str, callable]]:
         cid = _profile_cell(out, zone)
         if cid is not None:
             row = out.table.loc[cid]
+            prof = read_profile(out, cid)
             specs.append(("profiles", f"profile_{slug(zone)}_cell{cid}.png",
                           f"{zone}: simulated profile of cell {cid} ({row['band']} m, {row['aspect_sector']}), "
                           "the cell with the highest threshold count at the map time",
-                          lambda cid=cid: plot_profile(out, cid)))
+                          lambda cid=cid, prof=prof: plot_profile(out, cid, profile=prof)))
         layers = _tracked_layers(out, zone)
         if layers:
             tracks = layer_tracks(out, zone, layer_ids=layers)
+            snow_days = new_snow_days(out, zone)
             for lid in layers:
                 if (tracks["layer_id"] == lid).any():
                     specs.append(("layers", f"layer_{slug(zone)}_{slug(lid)}.png", f"{zone}: layer {lid} over the season",
-                                  lambda zone=zone, lid=lid, tracks=tracks: plot_layer_tracker(out, zone, lid, tracks=tracks)))
+                                  lambda zone=zone, lid=lid, tracks=tracks, snow_days=snow_days:
+                                  plot_layer_tracker(out, zone, lid, tracks=tracks, new_snow=snow_days)))
     return specs
 
 
@@ -118,24 +148,30 @@ def _profile_cell(out: RunOutputs, zone: str) -> int | None:
 
 
 def _tracked_layers(out: RunOutputs, zone: str) -> list[str]:
+    """The zone's most widespread weak layer and crust, then the next most widespread layers,
+    up to :data:`MAX_TRACKED_LAYERS` (present on at least :data:`MIN_PRESENCE_FRAC`)."""
     loc = out.layers_of_concern
     rows = loc[(loc["zone"] == zone) & (loc["aspect_sector"] == "all") & (loc["presence_frac"] >= MIN_PRESENCE_FRAC)]
-    rows = rows.sort_values(["category", "presence_frac"], ascending=[False, False])  # weak layers before crusts
-    return list(rows["layer_id"].drop_duplicates()[:MAX_TRACKED_LAYERS])
+    rows = rows.sort_values("presence_frac", ascending=False).drop_duplicates("layer_id")
+    firsts = rows.drop_duplicates("category")
+    ordered = pd.concat([firsts.sort_values("category", ascending=False), rows.drop(firsts.index)])  # weak layer first
+    return list(ordered["layer_id"][:MAX_TRACKED_LAYERS])
 
 
-def _thumbnail(png: bytes) -> tuple[bytes, tuple[int, int]]:
+def _thumbnail(rgb: np.ndarray) -> tuple[bytes, tuple[int, int]]:
+    """Reduced copy for the report: scaled by REPORT_DPI / PRINT_DPI (at most
+    ``_THUMB_MAX_PX`` wide), 256 colours, PNG."""
     from PIL import Image
 
-    with Image.open(io.BytesIO(png)) as im:
-        scale = REPORT_DPI / PRINT_DPI
-        size = (max(1, round(im.width * scale)), max(1, round(im.height * scale)))
-        if size[0] > _THUMB_MAX_PX:
-            size = (_THUMB_MAX_PX, max(1, round(size[1] * _THUMB_MAX_PX / size[0])))
-        small = im.convert("RGB").resize(size, Image.Resampling.LANCZOS)
-        small = small.quantize(colors=256, method=Image.Quantize.MEDIANCUT)
-        buf = io.BytesIO()
-        small.save(buf, format="PNG", optimize=False, compress_level=9)
+    im = Image.fromarray(rgb, mode="RGB")
+    scale = REPORT_DPI / PRINT_DPI
+    size = (max(1, round(im.width * scale)), max(1, round(im.height * scale)))
+    if size[0] > _THUMB_MAX_PX:
+        size = (_THUMB_MAX_PX, max(1, round(size[1] * _THUMB_MAX_PX / size[0])))
+    small = im.resize(size, Image.Resampling.LANCZOS, reducing_gap=2.0)
+    small = small.quantize(colors=256, method=Image.Quantize.FASTOCTREE)
+    buf = io.BytesIO()
+    small.save(buf, format="PNG", compress_level=6)
     return buf.getvalue(), size
 
 
@@ -145,25 +181,30 @@ _JOB: tuple | None = None  # (specs, thumbnails) handed to forked workers
 def _draw_one(i: int) -> tuple[bytes, bytes, tuple[int, int]]:
     specs, thumbnails = _JOB
     fig = specs[i][3]()
-    buf = io.BytesIO()
-    fig.savefig(buf, dpi=PRINT_DPI, format="png")
-    png = buf.getvalue()
-    thumb, size = _thumbnail(png) if thumbnails else (b"", (0, 0))
+    png, rgb = render_png(fig, dpi=PRINT_DPI)
+    thumb, size = _thumbnail(rgb) if thumbnails else (b"", (0, 0))
     return png, thumb, size
 
 
 def _draw_all(out: RunOutputs, specs, thumbnails: bool, workers: int) -> list:
     """Draw the figures, in ``workers`` forked processes when there are enough of them (the
-    figures are independent; matplotlib's Agg rendering is CPU-bound and holds the GIL)."""
+    figures are independent; matplotlib's Agg rendering is CPU-bound and holds the GIL). The
+    specs hold all data, so the NetCDF files are closed before forking."""
     global _JOB
     import multiprocessing as mp
 
     _JOB = (specs, thumbnails)
     try:
         if workers > 1 and len(specs) >= 4 and "fork" in mp.get_all_start_methods():
-            out.close()  # children reopen the NetCDF files themselves
+            out.close()
             with mp.get_context("fork").Pool(workers) as pool:
-                return pool.map(_draw_one, range(len(specs)), chunksize=1)
+                # the most expensive figures (overviews, maps) first, so the pool ends evenly
+                order = sorted(range(len(specs)), key=lambda i: specs[i][0] not in ("overviews", "maps"))
+                drawn = pool.map(_draw_one, order, chunksize=1)
+            result = [None] * len(specs)
+            for i, d in zip(order, drawn):
+                result[i] = d
+            return result
         return [_draw_one(i) for i in range(len(specs))]
     finally:
         _JOB = None
@@ -289,6 +330,20 @@ def _table(frame: pd.DataFrame, spec) -> tuple[list[str], list[list[str]]]:
     return [h for _, h, _, _ in cols], rows
 
 
+def _layer_table(out: RunOutputs) -> tuple[pd.DataFrame, int]:
+    """Rows of the layers-of-concern table: per zone the :data:`TABLE_WEAK_LAYERS` most
+    widespread weak layers, then the :data:`TABLE_CRUSTS` most widespread crusts (present on
+    at least :data:`MIN_PRESENCE_FRAC` of the zone); and how many such layers are left out."""
+    loc = out.layers_of_concern
+    loc = loc[(loc["aspect_sector"] == "all") & (loc["presence_frac"] >= MIN_PRESENCE_FRAC)]
+    loc = loc.sort_values(["zone", "presence_frac"], ascending=[True, False])
+    weak = loc[loc["category"] != "crust"].groupby("zone", sort=False).head(TABLE_WEAK_LAYERS)
+    crust = loc[loc["category"] == "crust"].groupby("zone", sort=False).head(TABLE_CRUSTS)
+    kept = pd.concat([weak.assign(_k=0), crust.assign(_k=1)])
+    kept = kept.sort_values(["zone", "_k", "presence_frac"], ascending=[True, True, False]).drop(columns="_k")
+    return kept, len(loc) - len(kept)
+
+
 def _forecast_text(out: RunOutputs) -> str:
     fc = out.is_forecast
     times = out.times
@@ -351,9 +406,7 @@ def write_report(out_dir) -> Path:
         figures, _ = _render(out, thumbnails=True)
         zones = pd.DataFrame(out.zones.drop(columns=out.zones.geometry.name))
         zone_cols, zone_rows = _table(zones.sort_values("zone"), _ZONE_COLUMNS)
-        loc = out.layers_of_concern
-        loc = loc[(loc["aspect_sector"] == "all") & (loc["presence_frac"] >= MIN_PRESENCE_FRAC)].sort_values(
-            ["zone", "presence_frac"], ascending=[True, False])
+        loc, more = _layer_table(out)
         layer_cols, layer_rows = _table(loc, _LAYER_COLUMNS)
         rain = []
         if "rain_crust_text" in zones.columns:
@@ -379,6 +432,7 @@ def write_report(out_dir) -> Path:
             forecast_text=_forecast_text(out),
             zone_columns=zone_cols, zone_rows=zone_rows, rain_crust=rain,
             layer_columns=layer_cols, layer_rows=layer_rows, min_presence_pct=round(100 * MIN_PRESENCE_FRAC),
+            layers_more=more,
             sections=sections,
             verification_text=v_text, verification_columns=v_cols, verification_rows=v_rows,
             run_items=_run_items(out.run), run_json=json.dumps(out.run, indent=2, default=str),

@@ -13,7 +13,7 @@ from regionmap.plots.maps import plot_metric_map
 from regionmap.plots.overview import HOLE_RINGS, overview_table, plot_overview
 from regionmap.plots.profile import plot_profile, profile_command, select_cell
 from regionmap.plots.style import GRAIN_MAIN_COLOURS, METRIC_RAMP, OKABE_ITO, grain_colour, relative_luminance
-from regionmap.plots.tracker import layer_tracks, plot_elevation_chart, plot_layer_tracker
+from regionmap.plots.tracker import MAX_TRACKER_LINES, layer_tracks, plot_elevation_chart, plot_layer_tracker
 from test_plots_synthrun import outputs  # noqa: F401  (module fixture)
 
 
@@ -97,9 +97,9 @@ def test_map_has_legend_colourbar_units_north_arrow_and_scale_bar(outputs):
     gids = {im.get_gid() for im in ax.images}
     assert {"hillshade", "metric"} <= gids
     labels = [t.get_text() for t in ax.get_legend().get_texts()]
-    assert "zone boundary" in labels
-    assert any(lbl.startswith("rain-crust line, upper limit") for lbl in labels)
+    assert labels == ["zone boundary"]  # rain-crust lines only on request (their own map)
     assert fig.axes[1].get_ylabel() == "snow depth (vertical) [cm]"
+    assert ax.get_xlabel().startswith("x [km]") and ax.get_ylabel() == "y [km]"
     assert any(t.get_gid() == "north-arrow" and t.get_text() == "N" for t in ax.texts)
     bar = [p for p in ax.patches if p.get_gid() == "scale-bar"][0]
     label = [t for t in ax.texts if t.get_gid() == "scale-bar-label"][0].get_text()
@@ -107,12 +107,44 @@ def test_map_has_legend_colourbar_units_north_arrow_and_scale_bar(outputs):
     assert label == "1 km" and bar.get_width() == pytest.approx(1000.0)
     zone_names = {t.get_text() for t in ax.texts}
     assert {"Zone A", "Zone B"} <= zone_names
-    # rain crust designed between 1400 and 2000 m (test_summaries_synth.layer_fields): both
-    # limits labelled near their elevations
-    rc = {t.get_text() for t in ax.texts if t.get_gid() == "rain-crust-label"}
-    assert rc and all(lbl.endswith(" m") for lbl in rc)
-    elevations = sorted({float(lbl[:-2]) for lbl in rc})
+    assert not [t for t in ax.texts if t.get_gid() == "rain-crust-label"]
+
+
+def _label_elevations(ax) -> list[float]:
+    import re
+
+    texts = [t.get_text() for t in ax.texts if t.get_gid() == "rain-crust-label"]
+    assert texts and all(t.endswith(" m") for t in texts)
+    return sorted(float(v) for t in texts for v in re.findall(r"\d+", t))
+
+
+@pytest.mark.parametrize("which", ["metric map", "rain-crust map"])
+def test_rain_crust_lines_labelled_once_per_zone_and_limit(outputs, which):
+    from regionmap.plots.maps import plot_rain_crust_map, rain_crust_events
+
+    if which == "metric map":
+        fig = plot_metric_map(outputs, "crust_count", show_rain_crust=True)
+    else:
+        events = rain_crust_events(outputs)
+        assert len(events) == 1  # one designed rain event (test_summaries_synth.layer_fields)
+        fig = plot_rain_crust_map(outputs, events[0][0])
+        assert "rain-on-snow event ending" in fig.axes[0].get_title()
+    ax = fig.axes[0]
+    labels = [t.get_text() for t in ax.get_legend().get_texts()]
+    assert "zone boundary" in labels
+    assert any(lbl.startswith("rain-crust line, upper limit") for lbl in labels)
+    # rain crust designed between 1400 and 2000 m: both limits labelled near their elevations
+    elevations = _label_elevations(ax)
     assert min(elevations) == pytest.approx(1400, abs=100) and max(elevations) == pytest.approx(2000, abs=100)
+    # at most one label per zone and limit (2 zones x 2 limits)
+    assert len([t for t in ax.texts if t.get_gid() == "rain-crust-label"]) <= 4
+
+
+def test_rain_crust_map_of_an_unknown_event_names_the_known_ones(outputs):
+    from regionmap.plots.maps import plot_rain_crust_map
+
+    with pytest.raises(InputError, match="no rain-crust line for event 12345; events with lines"):
+        plot_rain_crust_map(outputs, 12345)
 
 
 def test_map_of_a_missing_raster_names_the_available_ones(outputs):
@@ -182,9 +214,20 @@ def test_layer_tracker_depth_lines_per_band_and_new_snow_days(outputs):
     assert ax_d.yaxis_inverted()
     assert ax_p.get_ylabel() == "present on [% of band area]"
     labels = [t.get_text() for t in ax_d.get_legend().get_texts()]
-    assert "2400-2500 m" in labels and "1300-1400 m" in labels
+    # 100 m bands merged into at most MAX_TRACKER_LINES groups of whole bands, highest first
+    band_lines = [lbl for lbl in labels if lbl.endswith(" m")]
+    assert 1 < len(band_lines) <= MAX_TRACKER_LINES
+    assert band_lines[0].endswith("-2500 m") and band_lines == sorted(band_lines, reverse=True)
+    # a merged group's depth is still the designed 30 cm of storm snow over the SH
+    early = [ln for ln in ax_d.lines if ln.get_label() in band_lines]
+    for ln in early:
+        x, y = np.asarray(ln.get_xdata()), np.asarray(ln.get_ydata(), float)
+        assert np.allclose(y[x < np.datetime64("2026-01-20T12:00")], 30.0)
     # constant 1 kg m-2 h-1 snowfall in the synthetic cells.nc: 24 kg m-2 a day, every day marked
     assert any(lbl.startswith("new-snow day") for lbl in labels)
+    per_band = plot_layer_tracker(outputs, "Zone A", "SH-2026-01-12", tracks=tracks, max_lines=None)
+    labels = [t.get_text() for t in per_band.axes[0].get_legend().get_texts()]
+    assert "2400-2500 m" in labels and "1300-1400 m" in labels
 
 
 def test_layer_tracker_by_aspect_and_unknown_layer(outputs):

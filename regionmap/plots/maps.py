@@ -7,8 +7,14 @@ their elevations written on them, a colour bar with units, a north arrow and a s
 The hillshade is matplotlib's :class:`matplotlib.colors.LightSource` (illumination from
 azimuth 315°, 45° above the horizon — the usual cartographic convention, light from the
 upper left; common practice). The DEM is the one recorded in ``run.json``
-(``config.region.dem``); when it cannot be found the map is drawn on a plain background,
-with a warning and a note on the figure.
+(``config.region.dem``); when that path is gone (the demo builds its inputs in a temporary
+folder), a copy inside the output folder whose SHA-256 equals the checksum ``run.json``
+recorded for the DEM (``inputs.dem.sha256``) is used. When neither exists the map is drawn on
+a plain background, with a warning and a note on the figure. The hillshade is computed once
+per output folder and shared by all its maps.
+
+Metric maps leave the rain-crust lines out by default (:func:`plot_rain_crust_map` draws them
+per event, one label per zone and limit), so that the metric stays readable.
 """
 
 from __future__ import annotations
@@ -23,9 +29,10 @@ from matplotlib.lines import Line2D
 
 from regionmap.errors import InputError, warn
 from regionmap.plots.outputs import METRICS, Metric, RunOutputs
-from regionmap.plots.style import METRIC_CMAP, new_figure, save_png
+from regionmap.plots.style import METRIC_CMAP, OKABE_ITO, new_figure, save_png
 
-__all__ = ["available_maps", "find_dem", "hillshade", "plot_metric_map", "write_metric_map"]
+__all__ = ["available_maps", "find_dem", "hillshade", "plot_metric_map", "plot_rain_crust_map",
+           "rain_crust_events", "write_metric_map"]
 
 _HALO = [patheffects.withStroke(linewidth=2.5, foreground="white")]
 
@@ -41,16 +48,46 @@ def available_maps(out) -> list[str]:
 
 
 def find_dem(out) -> Path | None:
-    """The run's DEM file from ``run.json`` ``config.region.dem`` (relative paths against the
-    output folder), or None when it is not recorded or not on disk."""
+    """The run's DEM file: ``run.json`` ``config.region.dem`` (relative paths against the
+    output folder) when it is on disk, else a ``.tif`` inside the output folder with the same
+    name whose SHA-256 matches ``run.json`` ``inputs.dem.sha256``; None when neither exists."""
+    import hashlib
+
     out = _outputs(out)
-    value = out.run.get("config", {}).get("region", {}).get("dem") if isinstance(out.run.get("config"), dict) else None
+    region = out.run.get("config", {}).get("region", {}) if isinstance(out.run.get("config"), dict) else {}
+    value = region.get("dem") if isinstance(region, dict) else None
     if not value:
         return None
     p = Path(value)
     if not p.is_absolute():
         p = out.out_dir / p
-    return p if p.is_file() else None
+    if p.is_file():
+        return p
+    inputs = out.run.get("inputs", {})
+    want = inputs.get("dem", {}).get("sha256") if isinstance(inputs, dict) and isinstance(inputs.get("dem"), dict) else None
+    if not want:
+        return None
+    for cand in sorted(out.out_dir.rglob(p.name)):
+        with open(cand, "rb") as fh:
+            if hashlib.file_digest(fh, "sha256").hexdigest() == want:
+                return cand
+    return None
+
+
+def _shaded_relief(out: RunOutputs, kx: float, ky: float):
+    """(hillshade, extent) of the run's DEM, computed once per output folder; None without DEM."""
+    cache = out.__dict__.setdefault("_hillshade", {})
+    if "value" not in cache:
+        dem_path = find_dem(out)
+        if dem_path is None:
+            cache["value"] = None
+        else:
+            from regionmap.io.dem import read_dem
+
+            dem = read_dem(dem_path)
+            shade = hillshade(dem.elevation_m, abs(dem.transform.a) * kx, abs(dem.transform.e) * ky)
+            cache["value"] = (np.ma.masked_invalid(shade).astype(np.float32), _extent(dem.transform, shade.shape))
+    return cache["value"]
 
 
 def hillshade(elevation_m: np.ndarray, dx_m: float, dy_m: float) -> np.ndarray:
@@ -107,7 +144,7 @@ def _read_map(out: RunOutputs, name: str):
     return data, tags, info
 
 
-def plot_metric_map(out, metric: str, *, show_rain_crust: bool = True):
+def plot_metric_map(out, metric: str, *, show_rain_crust: bool = False):
     """Draw the zone map of one metric.
 
     Parameters
@@ -134,20 +171,7 @@ def plot_metric_map(out, metric: str, *, show_rain_crust: bool = True):
     extent = _extent(transform, data.shape)
     lat = float(np.nanmean(out.table["lat"])) if "lat" in out.table else 45.0
     kx, ky = _metres_per_unit(crs, lat)
-    fig = new_figure(7.5, 6.6)
-    ax = fig.add_subplot(1, 1, 1)
-    dem_path = find_dem(out)
-    note = ""
-    if dem_path is not None:
-        from regionmap.io.dem import read_dem
-
-        dem = read_dem(dem_path)
-        shade = hillshade(dem.elevation_m, abs(dem.transform.a) * kx, abs(dem.transform.e) * ky)
-        ax.imshow(np.ma.masked_invalid(shade), cmap="gray", vmin=0.0, vmax=1.0, extent=_extent(dem.transform, shade.shape),
-                  interpolation="nearest", zorder=0, gid="hillshade")
-    else:
-        warn(f"{out.out_dir / 'run.json'}: config.region.dem is not recorded or not on disk; map drawn without hillshade")
-        note = "DEM not found: no hillshade"
+    fig, ax, note = _base_map(out, 7.5, 6.6, kx, ky, quiet=False)
     if np.issubdtype(np.dtype(dtype), np.integer):
         top = int(max(1, values.max() if values.count() else 1))
         norm = BoundaryNorm(np.arange(-0.5, top + 1.5), METRIC_CMAP.N)
@@ -160,7 +184,33 @@ def plot_metric_map(out, metric: str, *, show_rain_crust: bool = True):
     if isinstance(norm, BoundaryNorm):
         cbar.set_ticks(np.arange(0, top + 1))
     cbar.set_label(f"{m.label} [{m.units}]")
-    handles = []
+    handles = _zone_outlines(out, ax, crs)
+    if show_rain_crust:
+        handles += _rain_crust_lines(out, ax, crs, out.rain_crust_lines, extent)
+    _finish_map(ax, handles, extent, crs, kx, ky)
+    when = tags.get("valid_time", pd.Timestamp(out.map_time).strftime("%Y-%m-%dT%H:%M:%SZ"))
+    status = "forecast" if out.forecast_at(out.time_in_run(when, what=f"maps/{metric}.tif valid_time")) else "analysis"
+    when = pd.Timestamp(when).strftime("%Y-%m-%d %H:%M UTC")
+    ax.set_title(f"{m.label}\nvalid {when} ({status})" + (f"; {note}" if note else ""), fontsize=10)
+    return fig
+
+
+def _base_map(out: RunOutputs, width_in: float, height_in: float, kx: float, ky: float, *, quiet: bool):
+    """Figure, map axes with the hillshade, and the note for the title."""
+    fig = new_figure(width_in, height_in)
+    ax = fig.add_subplot(1, 1, 1)
+    relief = _shaded_relief(out, kx, ky)
+    if relief is not None:
+        shade, extent = relief
+        # vmin below 0 keeps the relief light, so the metric and the lines stay readable over it
+        ax.imshow(shade, cmap="gray", vmin=-0.6, vmax=1.0, extent=extent, interpolation="nearest", zorder=0, gid="hillshade")
+        return fig, ax, ""
+    if not quiet:
+        warn(f"{out.out_dir / 'run.json'}: config.region.dem is not recorded or not on disk; map drawn without hillshade")
+    return fig, ax, "DEM not found: no hillshade"
+
+
+def _zone_outlines(out: RunOutputs, ax, crs) -> list:
     zones = out.zones
     if crs is not None and zones.crs is not None and zones.crs != crs:
         zones = zones.to_crs(crs)
@@ -168,40 +218,117 @@ def plot_metric_map(out, metric: str, *, show_rain_crust: bool = True):
     for name, geom in zip(zones["zone"], zones.geometry):
         p = geom.representative_point()
         ax.text(p.x, p.y, str(name), ha="center", va="center", fontsize=9, weight="bold", zorder=5,
-                path_effects=_HALO)
-    handles.append(Line2D([], [], color="#111111", linewidth=1.2, label="zone boundary"))
-    if show_rain_crust:
-        lines = out.rain_crust_lines
-        if len(lines):
-            if crs is not None and lines.crs is not None and lines.crs != crs:
-                lines = lines.to_crs(crs)
-            styles = {"upper": ("-", "rain-crust line, upper limit (rain-snow transition)"),
-                      "lower": ("--", "rain-crust line, lower limit (snow line at the time)")}
-            for limit, (ls, label) in styles.items():
-                part = lines[lines["limit"] == limit] if "limit" in lines.columns else lines
-                if not len(part):
-                    continue
-                part.plot(ax=ax, color="black", linewidth=1.6, linestyle=ls, zorder=4)
-                for geom, elev in zip(part.geometry, part["elevation_m"]):
-                    longest = max(getattr(geom, "geoms", [geom]), key=lambda g: g.length)
-                    p = longest.interpolate(0.5, normalized=True)
-                    ax.text(p.x, p.y, f"{10 * round(float(elev) / 10):.0f} m", fontsize=7, zorder=6,
-                            path_effects=_HALO, gid="rain-crust-label")
-                handles.append(Line2D([], [], color="black", linewidth=1.6, linestyle=ls, label=label))
+                path_effects=_HALO, gid="zone-name")
+    return [Line2D([], [], color="#111111", linewidth=1.2, label="zone boundary")]
+
+
+#: colour of the rain-crust lines (Okabe & Ito 2008 "blue"; apart from the grey zone outlines).
+_RAIN_CRUST_COLOUR = OKABE_ITO["blue"]
+#: label spacing of the rain-crust elevations, as a share of the map width.
+_LABEL_SPACING_FRAC = 0.08
+
+
+def _rain_crust_lines(out: RunOutputs, ax, crs, lines, extent) -> list:
+    """Draw rain-crust lines (solid: upper limit, dashed: lower limit) and label each zone's
+    limit once, with the range of its aspects' elevations, on its longest piece; labels closer
+    than :data:`_LABEL_SPACING_FRAC` of the map width to an earlier one are left out."""
+    if not len(lines):
+        return []
+    if crs is not None and lines.crs is not None and lines.crs != crs:
+        lines = lines.to_crs(crs)
+    min_gap = _LABEL_SPACING_FRAC * abs(extent[1] - extent[0])
+    styles = {"upper": ("-", "rain-crust line, upper limit (rain-snow transition)"),
+              "lower": ("--", "rain-crust line, lower limit (snow line at the time)")}
+    handles, placed = [], []
+    for limit, (ls, label) in styles.items():
+        part = lines[lines["limit"] == limit] if "limit" in lines.columns else lines
+        if not len(part):
+            continue
+        part.plot(ax=ax, color=_RAIN_CRUST_COLOUR, linewidth=1.6, linestyle=ls, zorder=4)
+        groups = part.groupby("zone", sort=True) if "zone" in part.columns else [("", part)]
+        for _, g in groups:
+            pieces = [(piece.length, piece) for geom in g.geometry for piece in getattr(geom, "geoms", [geom])]
+            if not pieces:
+                continue
+            longest = max(pieces, key=lambda t: t[0])[1]
+            p = longest.interpolate(0.5, normalized=True)
+            if any(np.hypot(p.x - q[0], p.y - q[1]) < min_gap for q in placed):
+                continue
+            lo, hi = (10 * round(float(v) / 10) for v in (g["elevation_m"].min(), g["elevation_m"].max()))
+            text = f"{lo:.0f} m" if lo == hi else f"{lo:.0f}–{hi:.0f} m"
+            ax.text(p.x, p.y, text, fontsize=7, zorder=6, ha="center", va="bottom", path_effects=_HALO, color=_RAIN_CRUST_COLOUR,
+                    gid="rain-crust-label")
+            placed.append((p.x, p.y))
+        handles.append(Line2D([], [], color=_RAIN_CRUST_COLOUR, linewidth=1.6, linestyle=ls, label=label))
+    return handles
+
+
+def _finish_map(ax, handles, extent, crs, kx: float, ky: float) -> None:
+    from matplotlib.ticker import FuncFormatter
+
     ax.legend(handles=handles, loc="upper left", fontsize=7, framealpha=0.85)
     ax.set_xlim(extent[0], extent[1])
     ax.set_ylim(extent[2], extent[3])
     ax.set_aspect(ky / kx if kx != 1.0 else "equal")
-    unit = "deg" if crs is not None and crs.is_geographic else "m"
-    ax.set_xlabel(f"x [{unit}]" + (f" ({crs.to_string()})" if crs is not None else ""))
-    ax.set_ylabel(f"y [{unit}]")
-    ax.ticklabel_format(useOffset=False, style="plain")
+    if crs is not None and crs.is_geographic:
+        ax.set_xlabel("longitude [deg]")
+        ax.set_ylabel("latitude [deg]")
+    else:
+        km = FuncFormatter(lambda v, _: f"{v / 1000:g}")
+        ax.xaxis.set_major_formatter(km)
+        ax.yaxis.set_major_formatter(km)
+        ax.set_xlabel("x [km]" + (f" ({crs.to_string()})" if crs is not None else ""))
+        ax.set_ylabel("y [km]")
     _north_arrow(ax)
     _scale_bar(ax, extent, kx)
-    when = tags.get("valid_time", pd.Timestamp(out.map_time).strftime("%Y-%m-%dT%H:%M:%SZ"))
-    status = "forecast" if out.forecast_at(out.time_in_run(when, what=f"maps/{metric}.tif valid_time")) else "analysis"
-    ax.set_title(f"{m.label}\nvalid {when.replace('T', ' ').replace('Z', ' UTC')} ({status})" + (f"; {note}" if note else ""),
-                 fontsize=10)
+
+
+def rain_crust_events(out, *, limit: int | None = None) -> list[tuple[int, str]]:
+    """(event_id, event_time) of the rain-crust lines in ``zones.gpkg``, in time order; with
+    ``limit``, only the events with the longest upper-limit lines (the most widespread)."""
+    out = _outputs(out)
+    lines = out.rain_crust_lines
+    if not len(lines):
+        return []
+    length = lines.geometry.length.groupby([lines["event_id"], lines["event_time"]]).sum()
+    if limit is not None:
+        length = length.sort_values(ascending=False).iloc[:limit]
+    return [(int(e), str(t)) for e, t in sorted(length.index, key=lambda k: str(k[1]))]
+
+
+def plot_rain_crust_map(out, event_id: int):
+    """Draw the rain-crust line of one event over the hillshade, with the zone outlines.
+
+    Returns
+    -------
+    matplotlib Figure with one map axes: the lines (solid upper limit, dashed lower limit),
+    one elevation label per zone and limit (gid ``rain-crust-label``), legend entries, north
+    arrow and scale bar.
+
+    Raises
+    ------
+    InputError
+        When the event has no rain-crust line in ``zones.gpkg``.
+    """
+    import rasterio
+
+    out = _outputs(out)
+    lines = out.rain_crust_lines
+    lines = lines[lines["event_id"] == int(event_id)] if len(lines) else lines
+    if not len(lines):
+        raise InputError(f"{out.out_dir / 'zones.gpkg'}: no rain-crust line for event {event_id}; "
+                         f"events with lines: {[e for e, _ in rain_crust_events(out)]}")
+    with rasterio.open(out.path("maps/cell_id.tif")) as src:
+        transform, crs, shape = src.transform, src.crs, src.shape
+    extent = _extent(transform, shape)
+    lat = float(np.nanmean(out.table["lat"])) if "lat" in out.table else 45.0
+    kx, ky = _metres_per_unit(crs, lat)
+    fig, ax, note = _base_map(out, 7.5, 6.6, kx, ky, quiet=True)
+    handles = _zone_outlines(out, ax, crs) + _rain_crust_lines(out, ax, crs, lines, extent)
+    _finish_map(ax, handles, extent, crs, kx, ky)
+    when = pd.Timestamp(lines["event_time"].iloc[0]).strftime("%Y-%m-%d %H:%M UTC")
+    ax.set_title(f"rain-crust line of the rain-on-snow event ending {when}\n"
+                 "labels: range over the zone's aspects" + (f"; {note}" if note else ""), fontsize=10)
     return fig
 
 

@@ -4,8 +4,9 @@ Aspect sectors run around the chart clockwise with north at the top; elevation b
 rings with the **highest band in the centre** and the lowest outside. Each sector-ring is
 coloured by the metric on regionmap's sequential ramp (:data:`regionmap.plots.style.METRIC_CMAP`)
 with its value written in it; the flat sector is a column of boxes beside the chart, highest
-band at the top. A sector-ring with no terrain is left white and hatched. The same numbers
-are written as a CSV table (band × aspect).
+band at the top. A sector-ring with no terrain is left white and hatched; bands above and
+below the zone's terrain are left out, and so is the flat column when the zone has no
+weighted flat terrain. The same numbers are written as a CSV table (band × aspect, all bands).
 """
 
 from __future__ import annotations
@@ -14,8 +15,10 @@ from pathlib import Path
 
 import numpy as np
 import pandas as pd
+from matplotlib import patheffects
+from matplotlib.cm import ScalarMappable
 from matplotlib.colors import Normalize
-from matplotlib.patches import Patch, Rectangle
+from matplotlib.patches import Rectangle
 
 from regionmap.plots.outputs import SECTOR_ORDER, Metric, RunOutputs, metric
 from regionmap.plots.style import METRIC_CMAP, new_figure, save_png, slug, text_colour_on
@@ -24,6 +27,8 @@ __all__ = ["overview_table", "plot_overview", "write_overview", "sector_layout",
 
 #: radius of the empty centre, in rings (keeps the innermost values readable).
 HOLE_RINGS = 0.6
+#: at most this many elevation-band labels along the rings (every k-th band is labelled).
+_MAX_RING_LABELS = 8
 
 
 def _outputs(out) -> RunOutputs:
@@ -108,7 +113,7 @@ def plot_overview(out, zone: str, metric_name: str, *, time=None):
     out = _outputs(out)
     m = metric(metric_name)
     t = out.map_time if time is None else out.time_in_run(time)
-    wide = overview_table(out, zone, metric_name, time=t)
+    wide = _trim(overview_table(out, zone, metric_name, time=t))
     compass, width_deg = sector_layout(out.table["aspect_sector"].unique())
     has_flat = "flat" in wide.columns
     norm = Normalize(0.0, _vmax(out, m, t))
@@ -118,31 +123,42 @@ def plot_overview(out, zone: str, metric_name: str, *, time=None):
     ax = fig.add_subplot(grid[0, 0], projection="polar")
     ax.set_theta_zero_location("N")
     ax.set_theta_direction(-1)
-    width = np.deg2rad(width_deg)
     size = max(5.0, 10.0 - 0.35 * n_band - 0.15 * len(compass))
-    for ring, (band, row) in enumerate(wide.iterrows()):  # ring 0 = highest band, innermost
-        r0 = HOLE_RINGS + ring
-        for k, sector in enumerate(compass):
-            v = float(row[sector])
-            theta = np.deg2rad(k * width_deg)
-            colour = METRIC_CMAP(norm(v)) if np.isfinite(v) else "white"
-            bars = ax.bar(theta, 1.0, width=width, bottom=r0, color=colour, edgecolor="#444444", linewidth=0.6,
-                          hatch=None if np.isfinite(v) else "///", align="center")
-            bars.patches[0].set_gid(f"{band}|{sector}")
-            if np.isfinite(v):
-                ax.text(theta, r0 + 0.5, _fmt(v, m.decimals), ha="center", va="center", fontsize=size,
-                        color=text_colour_on(colour))
+    # all sector-rings in one call: ring 0 = highest band, innermost
+    values = wide[compass].to_numpy(np.float64)  # (band, sector)
+    ring = np.repeat(np.arange(n_band), len(compass))
+    sector = np.tile(np.arange(len(compass)), n_band)
+    v = values.ravel()
+    ok = np.isfinite(v)
+    colours = METRIC_CMAP(norm(np.where(ok, v, 0.0)))
+    colours[~ok] = (1.0, 1.0, 1.0, 1.0)
+    theta = np.deg2rad(sector * width_deg)
+    bars = ax.bar(theta, 1.0, width=np.deg2rad(width_deg), bottom=HOLE_RINGS + ring, color=colours, edgecolor="#444444",
+                  linewidth=0.6, align="center")
+    for patch, r, k, good in zip(bars.patches, ring, sector, ok):
+        patch.set_gid(f"{wide.index[r]}|{compass[k]}")
+        if not good:
+            patch.set_hatch("///")
+    for th, r, val, c in zip(theta[ok], ring[ok], v[ok], colours[ok]):
+        ax.text(th, HOLE_RINGS + r + 0.5, _fmt(val, m.decimals), ha="center", va="center", fontsize=size,
+                color=text_colour_on(c))
     ax.set_ylim(0, HOLE_RINGS + n_band)
     ax.set_xticks(np.deg2rad(np.arange(len(compass)) * width_deg), compass)
-    ax.set_yticks(HOLE_RINGS + np.arange(n_band) + 0.5, [f"{b} m" for b in wide.index], fontsize=max(5.0, size - 1))
+    step = max(1, int(np.ceil(n_band / _MAX_RING_LABELS)))
+    shown = np.arange(0, n_band, step)
+    ax.set_yticks(HOLE_RINGS + shown + 0.5, [f"{wide.index[i]} m" for i in shown], fontsize=max(5.0, size - 1))
+    for label in ax.get_yticklabels():
+        label.set_path_effects([patheffects.withStroke(linewidth=2.0, foreground="white")])
     ax.set_rlabel_position(width_deg / 2.0)
     ax.grid(False)
     ax.spines["polar"].set_visible(False)
-    ax.set_xlabel("aspect (slope facing); rings: elevation band, highest in the centre", fontsize=8)
+    terrain = "avalanche terrain" if out.weights[1].startswith("avalanche") else "terrain"
+    ax.set_xlabel(f"aspect (slope facing); rings: elevation band, highest in the centre\n"
+                  f"hatched: no {terrain} in that band and aspect", fontsize=8)
     status = "forecast" if out.forecast_at(t) else "analysis"
     when = pd.Timestamp(t).strftime("%Y-%m-%d %H:%M UTC")
     fig.suptitle(f"{zone}: {m.label}\nvalid {when} ({status}), weighted over {out.weights[1]}", fontsize=10)
-    sm = __import__("matplotlib.cm", fromlist=["ScalarMappable"]).ScalarMappable(norm=norm, cmap=METRIC_CMAP)
+    sm = ScalarMappable(norm=norm, cmap=METRIC_CMAP)
     cbar = fig.colorbar(sm, ax=ax, orientation="horizontal", shrink=0.6, pad=0.08)
     cbar.set_label(f"{m.label} [{m.units}]", fontsize=8)
     side = fig.add_subplot(grid[0, 1])
@@ -150,22 +166,35 @@ def plot_overview(out, zone: str, metric_name: str, *, time=None):
     side.set_ylim(0, n_band)
     side.set_xticks([])
     if has_flat:
-        for ring, (band, row) in enumerate(wide.iterrows()):
-            v = float(row["flat"])
-            y = n_band - 1 - ring  # highest band at the top
-            colour = METRIC_CMAP(norm(v)) if np.isfinite(v) else "white"
+        for ring_k, (band, row) in enumerate(wide.iterrows()):
+            val = float(row["flat"])
+            y = n_band - 1 - ring_k  # highest band at the top
+            colour = METRIC_CMAP(norm(val)) if np.isfinite(val) else "white"
             side.add_patch(Rectangle((0, y), 1, 1, facecolor=colour, edgecolor="#444444", linewidth=0.6,
-                                     hatch=None if np.isfinite(v) else "///", gid=f"{band}|flat"))
-            if np.isfinite(v):
-                side.text(0.5, y + 0.5, _fmt(v, m.decimals), ha="center", va="center", fontsize=size,
+                                     hatch=None if np.isfinite(val) else "///", gid=f"{band}|flat"))
+            if np.isfinite(val):
+                side.text(0.5, y + 0.5, _fmt(val, m.decimals), ha="center", va="center", fontsize=size,
                           color=text_colour_on(colour))
-        side.set_yticks(np.arange(n_band) + 0.5, [f"{b} m" for b in wide.index[::-1]], fontsize=max(5.0, size - 1))
+        rows = np.arange(n_band)[::-1]  # position y holds wide row n_band-1-y
+        side.set_yticks(rows[shown] + 0.5, [f"{wide.index[i]} m" for i in shown], fontsize=max(5.0, size - 1))
         side.set_title("flat", fontsize=9)
     else:
         side.set_axis_off()
-    fig.legend(handles=[Patch(facecolor="white", edgecolor="#444444", hatch="///", label="no terrain in this band and aspect")],
-               loc="lower left", fontsize=7, frameon=False)
     return fig
+
+
+def _trim(wide: pd.DataFrame) -> pd.DataFrame:
+    """Drop the bands above the highest and below the lowest with a value, and the flat
+    column when it holds none (the zone has no weighted flat terrain)."""
+    sectors = [c for c in wide.columns if c not in ("band_lower_m", "band_upper_m")]
+    if "flat" in sectors and not np.isfinite(wide["flat"].to_numpy(np.float64)).any():
+        wide = wide.drop(columns="flat")
+        sectors.remove("flat")
+    has = np.isfinite(wide[sectors].to_numpy(np.float64)).any(axis=1)
+    if has.any():
+        idx = np.nonzero(has)[0]
+        wide = wide.iloc[idx[0]: idx[-1] + 1]
+    return wide
 
 
 def write_overview(out, zone: str, metric_name: str, *, time=None) -> tuple[Path, Path]:

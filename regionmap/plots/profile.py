@@ -152,7 +152,8 @@ def read_profile(out, cell_id: int, time=None) -> dict:
     }
 
 
-def plot_profile(out_dir, cell_id=None, zone=None, band=None, aspect=None, time=None, *, slope_class=None):
+def plot_profile(out_dir, cell_id=None, zone=None, band=None, aspect=None, time=None, *, slope_class=None,
+                 profile: dict | None = None):
     """Draw one cell's profile (see the module text for the panels).
 
     Parameters
@@ -162,6 +163,7 @@ def plot_profile(out_dir, cell_id=None, zone=None, band=None, aspect=None, time=
         (and ``slope_class`` when slopes are split).
     time : valid time (UTC); the last daily snapshot at or before it is shown. Default the
         map time.
+    profile : the cell's :func:`read_profile` result, when already read.
 
     Returns
     -------
@@ -175,7 +177,7 @@ def plot_profile(out_dir, cell_id=None, zone=None, band=None, aspect=None, time=
     """
     out = _outputs(out_dir)
     cid = select_cell(out, cell=cell_id, zone=zone, band=band, aspect=aspect, slope_class=slope_class)
-    p = read_profile(out, cid, time)
+    p = read_profile(out, cid, time) if profile is None else profile
     row = out.table.loc[cid]
     fig = new_figure(11.0, 6.2)
     axes = fig.subplots(1, 5, sharey=True, gridspec_kw={"width_ratios": [2.4, 1, 1, 1, 1]})

@@ -20,15 +20,16 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 from matplotlib.lines import Line2D
+from matplotlib.patches import Patch
 
 from regionmap.errors import InputError
 from regionmap.plots.outputs import SECTOR_ORDER, RunOutputs, metric
 from regionmap.plots.style import METRIC_CMAP, OKABE_ITO, new_figure, save_png, slug
 from regionmap.snow.codes import CRUST_KINDS, GRAIN_INDEX
-from regionmap.summaries import PWL_FAMILIES, decode_snapshot
+from regionmap.summaries import PWL_FAMILIES, band_label, decode_snapshot
 
 __all__ = ["layer_tracks", "new_snow_days", "plot_layer_tracker", "write_layer_tracker", "plot_elevation_chart",
-           "write_elevation_chart", "NEW_SNOW_DAY_KG_M2"]
+           "write_elevation_chart", "NEW_SNOW_DAY_KG_M2", "MAX_TRACKER_LINES"]
 
 #: snowfall per snapshot interval (zone mean) from which a day is marked as a new-snow day
 #: [kg m-2] (~10 cm of new snow at 100 kg m-3; common practice, our choice of threshold).
@@ -136,15 +137,63 @@ def _band_colours(bands_lower: np.ndarray) -> dict:
     return {b: METRIC_CMAP(levels[i]) for i, b in enumerate(order)}
 
 
-def plot_layer_tracker(out, zone: str, layer_id: str, *, by_aspect: bool = False, tracks: pd.DataFrame | None = None):
+def _group_bands(out: RunOutputs, zone: str, tr: pd.DataFrame, max_lines: int) -> pd.DataFrame:
+    """Merge adjacent elevation bands into at most ``max_lines`` groups of whole bands.
+
+    Depth is re-weighted by the weighted area holding the layer (presence × band area),
+    presence by the band areas, so a group's values are those :func:`layer_tracks` would give
+    for the merged band."""
+    table = out.table[out.table["zone"] == zone]
+    w_all, _ = out.weights
+    bands = table[["band_lower_m", "band_upper_m"]].drop_duplicates().sort_values("band_lower_m")
+    if len(bands) <= max_lines:
+        return tr
+    per = int(np.ceil(len(bands) / max_lines))
+    group = np.arange(len(bands)) // per
+    lower = bands["band_lower_m"].to_numpy()
+    upper = bands["band_upper_m"].to_numpy()
+    g_lo = pd.Series(lower, index=lower).groupby(group).transform("min")
+    g_hi = pd.Series(upper, index=lower).groupby(group).transform("max")
+    total = w_all.loc[table.index].groupby(table["band_lower_m"]).sum()
+    frame = tr.copy()
+    frame["_area"] = total.reindex(frame["band_lower_m"]).to_numpy()
+    frame["_w"] = frame["presence_frac"] * frame["_area"]
+    frame["_wd"] = frame["_w"] * frame["depth_cm"]
+    frame["band_lower_m"] = g_lo.reindex(tr["band_lower_m"]).to_numpy()
+    frame["band_upper_m_g"] = g_hi.reindex(tr["band_lower_m"]).to_numpy()
+    frame["band"] = band_label(frame["band_lower_m"], frame["band_upper_m_g"])
+    g_area = pd.Series(total.to_numpy(), index=g_lo.reindex(total.index).to_numpy()).groupby(level=0).sum()
+    keys = ["layer_id", "band_lower_m", "band"] + (["aspect_sector"] if "aspect_sector" in frame.columns else []) + ["day"]
+    res = frame.groupby(keys, sort=True)[["_w", "_wd"]].sum().reset_index()
+    with np.errstate(invalid="ignore", divide="ignore"):
+        res["depth_cm"] = res["_wd"] / res["_w"].where(res["_w"] > 0)
+        res["presence_frac"] = res["_w"] / g_area.reindex(res["band_lower_m"]).to_numpy()
+    return res.drop(columns=["_w", "_wd"])
+
+
+#: at most this many lines (elevation-band groups) in a layer tracker.
+MAX_TRACKER_LINES = 6
+
+
+def plot_layer_tracker(out, zone: str, layer_id: str, *, by_aspect: bool = False, tracks: pd.DataFrame | None = None,
+                       new_snow: pd.DataFrame | None = None, max_lines: int | None = MAX_TRACKER_LINES):
     """Draw one layer's depth and presence over the season in a zone.
+
+    Parameters
+    ----------
+    tracks : the zone's :func:`layer_tracks` (computed when None).
+    new_snow : the zone's :func:`new_snow_days` (computed when None).
+    max_lines : merge adjacent elevation bands into at most this many lines (per-band view
+        with None); ignored with ``by_aspect``.
 
     Returns
     -------
     matplotlib Figure with two axes sharing the time axis: depth below the surface [cm]
-    (inverted: the surface at the top), one line per band (label ``<band> m``, or
-    ``<band> m <aspect>``), and presence [% of the band's area]; new-snow days as markers
-    (legend entry "new-snow day …").
+    (inverted: the surface at the top), one line per band or band group (label
+    ``<band> m``, or ``<band> m <aspect>``), and presence [% of the band's area]; new-snow
+    days as markers (legend entry "new-snow day …"), the forecast part shaded (legend entry
+    "forecast forcing"); the time axis spans the days the layer exists; the legend sits right
+    of the axes.
 
     Raises
     ------
@@ -157,17 +206,19 @@ def plot_layer_tracker(out, zone: str, layer_id: str, *, by_aspect: bool = False
     if tr.empty:
         raise InputError(f"layer tracker: zone {zone!r} never holds layer {layer_id!r}; "
                          "hint: the layer ids are in layers_of_concern.csv (column layer_id)")
-    fig = new_figure(9.0, 6.0)
+    if max_lines is not None and not by_aspect:
+        tr = _group_bands(out, zone, tr, max_lines)
+    fig = new_figure(10.0, 6.0)
     ax_d, ax_p = fig.subplots(2, 1, sharex=True, gridspec_kw={"height_ratios": [2.2, 1]})
     colours = _band_colours(tr["band_lower_m"].to_numpy())
     styles = ["-", "--", ":", "-."]
     groups = ["band_lower_m", "band"] + (["aspect_sector"] if by_aspect else [])
-    for key, sub in tr.groupby(groups, sort=True):
+    for key, sub in sorted(tr.groupby(groups, sort=True), key=lambda kv: -kv[0][0]):  # highest first in the legend
         lower, band = key[0], key[1]
         label = f"{band} m" + (f" {key[2]}" if by_aspect else "")
         ls = styles[SECTOR_ORDER.index(key[2]) % 4] if by_aspect else "-"
         sub = sub.set_index("day").sort_index()
-        ax_d.plot(sub.index, sub["depth_cm"], color=colours[lower], linestyle=ls, linewidth=1.5, label=label)
+        ax_d.plot(sub.index, sub["depth_cm"], color=colours[lower], linestyle=ls, linewidth=1.6, label=label)
         ax_p.plot(sub.index, 100.0 * sub["presence_frac"], color=colours[lower], linestyle=ls, linewidth=1.2)
     ax_d.invert_yaxis()
     ax_d.set_ylim(bottom=max(float(np.nanmax(tr["depth_cm"])) * 1.1, 10.0), top=0.0)
@@ -175,20 +226,31 @@ def plot_layer_tracker(out, zone: str, layer_id: str, *, by_aspect: bool = False
     ax_p.set_ylabel("present on [% of band area]")
     ax_p.set_ylim(0, 105)
     ax_p.set_xlabel("date (UTC, daily snapshots)")
-    ns = new_snow_days(out, zone)
-    ev = ns[ns["event"]]
+    ns = new_snow_days(out, zone) if new_snow is None else new_snow
+    t0, t1 = tr["day"].min() - np.timedelta64(3, "D"), tr["day"].max() + np.timedelta64(1, "D")
+    ev = ns[ns["event"] & (ns["day"] >= t0) & (ns["day"] <= t1)]  # markers are unclipped: keep them inside
     handles, labels = ax_d.get_legend_handles_labels()
     if len(ev):
-        for d in ev["day"]:
-            ax_d.axvline(d, color="#999999", linewidth=0.6, zorder=0)
+        ax_d.vlines(ev["day"], 0.0, 1.0, transform=ax_d.get_xaxis_transform(), color="#999999", linewidth=0.6, zorder=0)
         ax_d.plot(ev["day"], np.zeros(len(ev)), linestyle="none", marker="v", color=OKABE_ITO["sky blue"],
                   markersize=7, clip_on=False, zorder=5)
         handles.append(Line2D([], [], linestyle="none", marker="v", color=OKABE_ITO["sky blue"]))
-        labels.append(f"new-snow day (≥ {NEW_SNOW_DAY_KG_M2:g} kg m-2 zone mean)")
-    ax_d.legend(handles, labels, loc="lower left", fontsize=7, ncols=2, framealpha=0.85)
+        labels.append(f"new-snow day\n(≥ {NEW_SNOW_DAY_KG_M2:g} kg m-2\nzone mean)")
+    ax_d.set_xlim(t0, t1)
+    if out.is_forecast.any():
+        t_fc = out.times[np.argmax(out.is_forecast)]
+        for ax in (ax_d, ax_p):
+            ax.axvspan(t_fc, out.times[-1], color="#EEEEEE", zorder=-1, gid="forecast-part")
+        handles.append(Patch(facecolor="#EEEEEE", edgecolor="none"))
+        labels.append("forecast forcing")
+    ax_d.legend(handles, labels, loc="upper left", bbox_to_anchor=(1.01, 1.0), fontsize=7, frameon=False,
+                title="elevation band", title_fontsize=8)
     ax_d.grid(color="#E5E5E5", linewidth=0.5)
     ax_p.grid(color="#E5E5E5", linewidth=0.5)
-    fig.suptitle(f"{zone}: layer {layer_id}, depth over the season"
+    loc = out.layers_of_concern if (out.out_dir / "layers_of_concern.csv").is_file() else pd.DataFrame()
+    names = loc.loc[loc["layer_id"] == layer_id, "layer_name"] if "layer_name" in loc.columns else []
+    title = f"{names.iloc[0]} ({layer_id})" if len(names) else layer_id
+    fig.suptitle(f"{zone}: layer {title}, depth over the season"
                  + (" by band and aspect" if by_aspect else " by elevation band"), fontsize=10)
     return fig
 
