@@ -232,3 +232,13 @@ def test_restart_from_an_observed_profile_through_the_cli(scenario, reference, t
     # the profile is 100 cm deep (the file's top row); one hour later the pack has barely settled
     assert 95.0 <= depth[k] <= 100.0
     assert depth[-1] < depth[k]  # and then it evolves (settles)
+
+
+def test_an_existing_cluster_via_scheduler_address(scenario, reference, tmp_path):
+    # --scheduler ADDRESS joins an existing dask.distributed cluster (here one in this process)
+    from distributed import LocalCluster
+
+    with LocalCluster(n_workers=1, threads_per_worker=2, processes=False, dashboard_address=None,
+                      worker_dashboard_address=None, silence_logs=40) as cluster:
+        run(config(scenario, "ref"), tmp_path / "out", scheduler=cluster.scheduler_address)
+    assert_same(read(reference[0]), read(tmp_path / "out"))

@@ -60,6 +60,7 @@ from regionmap.snow.layering import (
     insert_top,
     merge_pair,
     merge_pass,
+    merge_to_make_room,
     remove_layer,
 )
 from regionmap.snow.metamorphism import (
@@ -232,11 +233,15 @@ def _set_layer(fw, iw, i, thick, ice, t_k, grain_mm, dend, facet, code, crust, d
 
 @njit(cache=True, nogil=True, error_model="numpy")
 def _make_room(fw, iw, n, now_s, p, cap):
-    """Merge until a slot is free; returns (n, ok)."""
+    """Merge until a slot is free; returns (n, ok). ``ok`` is False when only the last resort
+    of :func:`regionmap.snow.layering.merge_to_make_room` (merging unlike protected layers)
+    could free a slot; the caller then adds to the top layer and flags ST_LAYER_FULL."""
     if n < cap:
         return n, True
     n = merge_pass(fw, iw, n, now_s, p[P_NEW_LAYER_MAX_M], p[P_MERGE_DEPTH_FRAC], cap - 1)
-    return n, n < cap
+    if n < cap:
+        return n, True
+    return merge_to_make_room(fw, iw, n)
 
 
 @njit(cache=True, nogil=True, error_model="numpy")

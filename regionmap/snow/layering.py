@@ -156,3 +156,50 @@ def merge_pass(fw, iw, n, now_s, new_layer_max_m, depth_frac, target_n):
             break
         n = merge_pair(fw, iw, n, best)
     return n
+
+
+@njit(cache=True, nogil=True, error_model="numpy")
+def merge_to_make_room(fw, iw, n):
+    """Last resort when a full column has no similar neighbours left; returns (n, gentle).
+
+    Below the top four layers: the lightest layer that is not a crust, SH, DH, MFcr or IF
+    merges into its lighter neighbour (a thin snow layer between two crusts joins one of
+    them, so the crust keeps its identity: :func:`merge_pair` keeps the integer attributes of
+    the more massive layer). With no such layer, two adjacent layers of the same class and
+    crust kind merge (e.g. glaze of two freezing-rain events with nothing between). Only
+    when neither exists does the lightest adjacent pair merge whatever it is; ``gentle`` is
+    then False so the caller can flag it. Mass and heat capacity are kept exactly.
+    """
+    last = n - 5
+    best = -1
+    best_m = 1e30
+    for k in range(0, last + 1):
+        if not _protected(fw, iw, k):
+            m = fw[F_ICE, k] + fw[F_LIQ, k]
+            if m < best_m:
+                best_m = m
+                best = k
+    if best >= 0:
+        if best == 0:
+            return merge_pair(fw, iw, n, 0), True
+        m_below = fw[F_ICE, best - 1] + fw[F_LIQ, best - 1]
+        m_above = fw[F_ICE, best + 1] + fw[F_LIQ, best + 1]
+        return merge_pair(fw, iw, n, best - 1 if m_below <= m_above else best), True
+    pair = -1
+    pair_m = 1e30
+    alike = -1
+    alike_m = 1e30
+    for k in range(0, last + 1):
+        m = fw[F_ICE, k] + fw[F_LIQ, k] + fw[F_ICE, k + 1] + fw[F_LIQ, k + 1]
+        if iw[I_CODE, k] == iw[I_CODE, k + 1] and iw[I_CRUST, k] == iw[I_CRUST, k + 1] and m < alike_m:
+            alike_m = m
+            alike = k
+        if m < pair_m:
+            pair_m = m
+            pair = k
+    if alike >= 0:
+        return merge_pair(fw, iw, n, alike), True
+    if pair >= 0:
+        return merge_pair(fw, iw, n, pair), False
+    return n, False
+
