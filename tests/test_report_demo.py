@@ -1,0 +1,143 @@
+"""report.html on a real run folder: the demo DEM, one demo zone and a week of the demo
+season around its rain-on-snow event (the small scenario of ``test_run``), run through
+``regionmap.runner.execute`` without the report, then ``write_report``.
+
+Checks against outside oracles: html5lib (the WHATWG HTML parsing algorithm), the PNG
+signature and pHYs chunk (ISO/IEC 15948), and the Debian Chromium package driven by
+Playwright (no console or page errors, no request that is not file: or data:).
+"""
+
+from __future__ import annotations
+
+import base64
+import io
+import struct
+
+import html5lib
+import numpy as np
+import pytest
+
+from regionmap.plots.outputs import RunOutputs
+from regionmap.plots.style import PRINT_DPI
+from regionmap.plots.maps import rain_crust_events
+from regionmap.report import MAP_METRICS, MAX_RAIN_CRUST_MAPS, OVERVIEW_METRICS, REPORT_MAX_BYTES, write_report
+from test_report import CHROMIUM, _chromium_or_skip
+from test_run import config, run, scenario  # noqa: F401  (session fixture of the small scenario)
+
+_NS = "{http://www.w3.org/1999/xhtml}"  # html5lib's element namespace (WHATWG HTML)
+
+
+@pytest.fixture(scope="module")
+def demo_report(scenario, tmp_path_factory):  # noqa: F811
+    out = tmp_path_factory.mktemp("report-demo") / "out"
+    run(config(scenario, "report"), out)
+    return write_report(out)
+
+
+def _pngs(doc):
+    """(img element, caption text, embedded PNG bytes) of every figure."""
+    assert len(doc.findall(f".//{_NS}img")) == len(doc.findall(f".//{_NS}figure/{_NS}img"))
+    for fig in doc.iter(f"{_NS}figure"):
+        img, caption = fig.find(f"{_NS}img"), fig.find(f"{_NS}figcaption").text
+        src = img.get("src")
+        assert src.startswith("data:image/png;base64,")
+        yield img, caption, base64.b64decode(src.split(",", 1)[1])
+
+
+def _phys_dpi(png: bytes) -> float:
+    """Horizontal resolution from the pHYs chunk (ISO/IEC 15948 §11.3.5.3: pixels per metre, unit 1)."""
+    pos = 8
+    while pos < len(png):
+        length, kind = struct.unpack(">I4s", png[pos:pos + 8])
+        if kind == b"pHYs":
+            ppm_x, _, unit = struct.unpack(">IIB", png[pos + 8:pos + 17])
+            assert unit == 1
+            return ppm_x * 0.0254
+        pos += 12 + length
+    raise AssertionError("no pHYs chunk")
+
+
+def test_demo_report_parses_embeds_reduced_images_and_stays_small(demo_report):
+    text = demo_report.read_text(encoding="utf-8")
+    assert "http" not in text.lower()
+    assert demo_report.stat().st_size < REPORT_MAX_BYTES
+    doc = html5lib.parse(text, treebuilder="etree", namespaceHTMLElements=True)
+    assert not doc.findall(f".//{_NS}script")
+    figdir = demo_report.parent / "figures"
+    from PIL import Image
+
+    images = list(_pngs(doc))
+    # one zone: the maps of MAP_METRICS the run has, a rain-crust map per event with lines
+    # (at most MAX_RAIN_CRUST_MAPS), the overviews, the elevation chart
+    captions = [img.get("alt") for img, _, _ in images]
+    out = RunOutputs(demo_report.parent)
+    try:
+        events = rain_crust_events(out)
+    finally:
+        out.close()
+    assert sum(c.startswith("Map: rain-crust line") for c in captions) == min(len(events), MAX_RAIN_CRUST_MAPS)
+    assert sum("elevation-aspect overview" in c for c in captions) == len(OVERVIEW_METRICS)
+    assert sum("against elevation" in c for c in captions) == 1
+    for img, caption, png in images:
+        assert png[:8] == b"\x89PNG\r\n\x1a\n"  # PNG signature (ISO/IEC 15948 §5.2)
+        name = caption.rsplit("figures/", 1)[1].rstrip(")")
+        full = figdir / name
+        assert full.is_file()
+        print_png = full.read_bytes()
+        assert _phys_dpi(print_png) == pytest.approx(PRINT_DPI, abs=0.5)
+        assert PRINT_DPI >= 150  # print resolution (common practice)
+        with Image.open(io.BytesIO(png)) as small, Image.open(full) as big:
+            assert small.width < big.width / 1.5
+            assert (small.width, small.height) == (int(img.get("width")), int(img.get("height")))
+
+
+def test_demo_report_figures_match_the_run(demo_report):
+    out = RunOutputs(demo_report.parent)
+    try:
+        figdir = demo_report.parent / "figures"
+        zone = out.zone_names[0]
+        maps = {p.stem for p in (demo_report.parent / "maps").glob("*.tif")}
+        for m in MAP_METRICS:
+            assert (figdir / f"map_{m}.png").is_file() == (m in maps)
+        text = demo_report.read_text(encoding="utf-8")
+        assert zone in text
+        # the week is analysis forcing only (no analysis_time in the config)
+        assert "no forecast part" in text
+        assert not out.is_forecast.any()
+        # the summary table's snow depth equals the zones layer (written by the run, not the report)
+        doc = html5lib.parse(text, treebuilder="etree", namespaceHTMLElements=True)
+        zones_table = doc.find(f".//{_NS}section[@id='zones']/{_NS}table")
+        header = [th.text for th in zones_table.iter(f"{_NS}th")]
+        row = [td.text for td in zones_table.find(f"{_NS}tbody").iter(f"{_NS}td")]
+        depth = float(row[header.index("snow depth [cm]")])
+        assert depth == pytest.approx(float(out.zones.loc[out.zones["zone"] == zone, "snow_depth_cm"].iloc[0]), abs=0.5)
+        assert np.isfinite(depth) and depth > 0
+    finally:
+        out.close()
+
+
+def test_demo_report_renders_in_headless_chromium_without_errors(demo_report, tmp_path):
+    # oracle: the Debian Chromium package, driven through Playwright's sync API
+    sync_playwright = _chromium_or_skip()
+    console, page_errors, requests = [], [], []
+    with sync_playwright() as p:
+        browser = p.chromium.launch(executable_path=str(CHROMIUM), args=[
+            "--headless", "--no-sandbox", "--disable-gpu", "--disable-background-networking",
+            "--disable-component-update", "--disable-sync", "--no-first-run"])
+        try:
+            page = browser.new_page(viewport={"width": 1200, "height": 900})
+            page.on("console", lambda m: console.append(m) if m.type == "error" else None)
+            page.on("pageerror", lambda e: page_errors.append(e))
+            page.on("request", lambda r: requests.append(r.url))
+            page.goto(demo_report.resolve().as_uri(), wait_until="load")
+            loaded = page.evaluate("Array.from(document.images).every(i => i.complete && i.naturalWidth > 0)")
+            n_images = page.evaluate("document.images.length")
+            shot = tmp_path / "report-demo.png"
+            page.screenshot(path=str(shot), full_page=True)
+        finally:
+            browser.close()
+    assert not console, [m.text for m in console]
+    assert not page_errors, [str(e) for e in page_errors]
+    assert loaded and n_images >= 8
+    assert shot.stat().st_size > 10_000
+    assert all(u.startswith(("file:", "data:")) for u in requests), requests
