@@ -80,14 +80,10 @@ class _Figure:
     size: tuple[int, int]
 
 
-def _make_specs(out: RunOutputs) -> list[tuple[str, str, str, callable]]:
-    """(section, file name, caption, draw function) of every figure of the run.
-
-    Everything the figures read from the output folder is read here, once (summaries at the
-    map time, the zones' layer tracks and new-snow days, the profiles, the hillshade), so the
-    draw functions only draw and the forked workers never touch the NetCDF files."""
+def _map_specs(out: RunOutputs) -> list[tuple[str, str, str, callable]]:
+    """(section, file name, caption, draw function) of the maps. What they read from the NetCDF files (cell table, times) and the zones, the
+    rain-crust lines and the hillshade are read here, so forked workers only read GeoTIFFs."""
     specs = []
-    out.band_aspect()
     maps = set(available_maps(out))
     for name in [m for m in MAP_METRICS if m in maps]:
         specs.append(("maps", f"map_{name}.png", f"Map: {name.replace('_', ' ')}",
@@ -98,14 +94,24 @@ def _make_specs(out: RunOutputs) -> list[tuple[str, str, str, callable]]:
                       f"Map: rain-crust line of the rain-on-snow event ending {pd.Timestamp(when):%Y-%m-%d %H:%M} UTC",
                       lambda event_id=event_id: plot_rain_crust_map(out, event_id)))
     if specs:
+        import rasterio
+
         from regionmap.plots.maps import _metres_per_unit, _shaded_relief
 
         lat = float(np.nanmean(out.table["lat"])) if "lat" in out.table else 45.0
-        import rasterio
-
         with rasterio.open(out.path("maps/cell_id.tif")) as src:
             _shaded_relief(out, *_metres_per_unit(src.crs, lat))
-        out.zones, out.rain_crust_lines  # noqa: B018  (read once, inherited by the workers)
+        out.zones, out.times, out.is_forecast, out.map_time  # noqa: B018  (read once, inherited by the workers)
+    return specs
+
+
+def _zone_specs(out: RunOutputs) -> list[tuple[str, str, str, callable]]:
+    """Overviews, elevation charts, profiles and layer trackers of every zone. Everything they
+    read from the output folder is read here, once (summaries at the map time, the zones'
+    layer tracks and new-snow days, the profiles), so the draw functions only draw and the
+    forked workers never touch the NetCDF files."""
+    specs = []
+    out.band_aspect()
     for zone in out.zone_names:
         for m in OVERVIEW_METRICS:
             specs.append(("overviews", f"overview_{slug(zone)}_{m}.png", f"{zone}: elevation-aspect overview of {m.replace('_', ' ')}",
@@ -186,38 +192,52 @@ def _draw_one(i: int) -> tuple[bytes, bytes, tuple[int, int]]:
     return png, thumb, size
 
 
-def _draw_all(out: RunOutputs, specs, thumbnails: bool, workers: int) -> list:
-    """Draw the figures, in ``workers`` forked processes when there are enough of them (the
-    figures are independent; matplotlib's Agg rendering is CPU-bound and holds the GIL). The
-    specs hold all data, so the NetCDF files are closed before forking."""
-    global _JOB
-    import multiprocessing as mp
+class _Drawing:
+    """Figures being drawn: in ``workers`` processes forked now (they inherit the specs and
+    the data they hold), or here, in order, when forking is not possible or not worth it.
+    Matplotlib's Agg rendering is CPU-bound and holds the GIL, hence processes."""
 
-    _JOB = (specs, thumbnails)
-    try:
-        if workers > 1 and len(specs) >= 4 and "fork" in mp.get_all_start_methods():
-            out.close()
-            with mp.get_context("fork").Pool(workers) as pool:
-                # the most expensive figures (overviews, maps) first, so the pool ends evenly
-                order = sorted(range(len(specs)), key=lambda i: specs[i][0] not in ("overviews", "maps"))
-                drawn = pool.map(_draw_one, order, chunksize=1)
-            result = [None] * len(specs)
-            for i, d in zip(order, drawn):
-                result[i] = d
-            return result
-        return [_draw_one(i) for i in range(len(specs))]
-    finally:
+    def __init__(self, specs, thumbnails: bool, workers: int):
+        global _JOB
+        import multiprocessing as mp
+
+        self.specs, self.pool = specs, None
+        _JOB = (specs, thumbnails)
+        if workers >= 1 and len(specs) >= 2 and "fork" in mp.get_all_start_methods():
+            self.pool = mp.get_context("fork").Pool(workers)
+            self.async_result = self.pool.map_async(_draw_one, range(len(specs)), chunksize=1)
+        else:
+            self.result = [_draw_one(i) for i in range(len(specs))]
         _JOB = None
+
+    def get(self) -> list:
+        if self.pool is not None:
+            try:
+                self.result = self.async_result.get()
+            finally:
+                self.pool.close()
+                self.pool.join()
+                self.pool = None
+        return self.result
 
 
 def _render(out: RunOutputs, *, thumbnails: bool, workers: int | None = None) -> tuple[list[_Figure], list[Path]]:
+    """Draw every figure and write them under figures/.
+
+    The maps start drawing in one forked worker while the zones' data (profiles.nc, the
+    slowest read) are read here; then the zone figures are drawn in ``workers`` more (default
+    up to 2). The NetCDF files are closed before that second fork."""
     import os
 
     figdir = out.out_dir / "figures"
-    figures, written = [], []
-    specs = _make_specs(out)
     workers = min(2, os.cpu_count() or 1) if workers is None else workers
-    drawn = _draw_all(out, specs, thumbnails, workers)
+    map_specs = _map_specs(out)
+    maps = _Drawing(map_specs, thumbnails, 1 if workers > 1 else 0)
+    zone_specs = _zone_specs(out)
+    out.close()
+    zones = _Drawing(zone_specs, thumbnails, workers if workers > 1 else 0)
+    specs, drawn = map_specs + zone_specs, maps.get() + zones.get()
+    figures, written = [], []
     for (section, name, caption, _), (png, thumb, size) in zip(specs, drawn):
         path = figdir / name
         with atomic_path(path) as tmp:
