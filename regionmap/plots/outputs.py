@@ -129,8 +129,19 @@ class RunOutputs:
 
     @cached_property
     def profiles(self) -> xr.Dataset:
-        """``profiles.nc`` opened lazily."""
-        return xr.open_dataset(self.path("profiles.nc"), engine="netcdf4")
+        """``profiles.nc``: numeric variables opened lazily; variable-length string variables
+        (``grain_class``, ``crust_kind``) read at once as object arrays, straight from
+        netCDF4 (xarray would read them too, then convert them to fixed-width strings, which
+        takes several times as long for a season of layers)."""
+        import netCDF4
+
+        path = self.path("profiles.nc")
+        with netCDF4.Dataset(path) as nc:
+            vlen = {name: (v.dimensions, v[...]) for name, v in nc.variables.items() if v.dtype is str}
+        ds = xr.open_dataset(path, engine="netcdf4", drop_variables=list(vlen))
+        for name, (dims, values) in vlen.items():
+            ds[name] = (dims, np.asarray(values, dtype=object))
+        return ds
 
     @cached_property
     def table(self) -> pd.DataFrame:
