@@ -32,7 +32,7 @@ from regionmap import CAUTION, __version__
 from regionmap.errors import OutputError
 from regionmap.io.atomic import atomic_path, atomic_write_text
 from regionmap.plots.maps import available_maps, plot_metric_map, plot_rain_crust_map, rain_crust_events
-from regionmap.plots.outputs import RunOutputs
+from regionmap.plots.outputs import METRICS, RunOutputs
 from regionmap.plots.overview import plot_overview, write_overview_csv
 from regionmap.plots.profile import plot_profile, read_profile
 from regionmap.plots.style import PRINT_DPI, REPORT_DPI, render_png, slug
@@ -86,7 +86,8 @@ def _map_specs(out: RunOutputs) -> list[tuple[str, str, str, callable]]:
     specs = []
     maps = set(available_maps(out))
     for name in [m for m in MAP_METRICS if m in maps]:
-        specs.append(("maps", f"map_{name}.png", f"Map: {name.replace('_', ' ')}",
+        m = METRICS[name]
+        specs.append(("maps", f"map_{name}.png", f"Map: {m.label} [{m.units}]",
                       lambda name=name: plot_metric_map(out, name)))
     for event_id, when in rain_crust_events(out, limit=MAX_RAIN_CRUST_MAPS):
         stamp = pd.Timestamp(when).strftime("%Y%m%dT%H%M")
@@ -114,10 +115,10 @@ def _zone_specs(out: RunOutputs) -> list[tuple[str, str, str, callable]]:
     out.band_aspect()
     for zone in out.zone_names:
         for m in OVERVIEW_METRICS:
-            specs.append(("overviews", f"overview_{slug(zone)}_{m}.png", f"{zone}: elevation-aspect overview of {m.replace('_', ' ')}",
+            specs.append(("overviews", f"overview_{slug(zone)}_{m}.png", f"{zone}: elevation-aspect overview of {METRICS[m].label}",
                           lambda zone=zone, m=m: plot_overview(out, zone, m)))
         specs.append(("elevation", f"elevation_{slug(zone)}_{ELEVATION_METRIC}.png",
-                      f"{zone}: {ELEVATION_METRIC.replace('_', ' ')} against elevation",
+                      f"{zone}: {METRICS[ELEVATION_METRIC].label} against elevation",
                       lambda zone=zone: plot_elevation_chart(out, zone, ELEVATION_METRIC)))
         cid = _profile_cell(out, zone)
         if cid is not None:
