@@ -135,6 +135,16 @@ def _map_time(cfg: Config, out_times: np.ndarray, period) -> np.datetime64:
     return want
 
 
+def _effective_chunk_size(n_cells: int, chunk_size: int, n_parallel: int) -> int:
+    """``[run] chunk_size``, smaller for small regions so that every worker gets at least two
+    chunks and writing the results overlaps the simulation (results do not depend on it)."""
+    balanced = -(-n_cells // (2 * n_parallel))
+    return max(1, min(chunk_size, max(_MIN_CHUNK, balanced)))
+
+
+_MIN_CHUNK = 64
+
+
 def _warm_kernels(params) -> None:
     """Compile (or load from the numba cache) the column kernel once in the client."""
     from regionmap.downscale.types import CellForcing
@@ -205,8 +215,8 @@ def execute(cfg: Config, *, out_dir: Path | None = None, continue_from: Path | N
     out_times = sim_times[diag_every - 1::diag_every]
     map_time = _map_time(cfg, out_times, period)
     snapshot_hour = int((map_time.astype("datetime64[h]").astype(np.int64)) % 24)
-    chunks = chunk_ranges(batch.n_cells, cfg.run.chunk_size)
     n_par = max(1, workers or (os.cpu_count() or 1))
+    chunks = chunk_ranges(batch.n_cells, _effective_chunk_size(batch.n_cells, cfg.run.chunk_size, n_par))
     ctx = RunContext(cfg=cfg, batch=batch, downscale=dsettings, snow=params, period=period,
                      diag_every_h=diag_every, snapshot_hour_utc=snapshot_hour,
                      kernel_threads=max(1, n_par // max(1, min(len(chunks), n_par))) if not (workers or scheduler) else 1,
