@@ -51,17 +51,21 @@ def test_overview_puts_highest_band_in_the_centre_and_north_on_top(outputs):
     # matplotlib polar: theta offset pi/2 puts theta=0 at the top; direction -1 = clockwise
     assert ax.get_theta_offset() == pytest.approx(np.pi / 2)
     assert ax.get_theta_direction() == -1
-    patches = {p.get_gid(): p for p in ax.patches if p.get_gid()}
+    # sector-rings are polygons in (theta, r) data coordinates, labelled "<band>|<sector>"
+    polys = {}
+    for coll in ax.collections:
+        if coll.get_gid() in ("sector-rings", "no-terrain"):
+            polys.update({url: path.vertices for url, path in zip(coll.get_urls(), coll.get_paths())})
     bands = outputs.table[outputs.table["zone"] == "Zone A"].sort_values("band_lower_m")["band"].unique()
-    # bar patches are Rectangles in (theta, r) data coordinates: y = inner radius
-    inner = {b: patches[f"{b}|N"].get_y() for b in bands}
+    inner = {b: polys[f"{b}|N"][:, 1].min() for b in bands}
     assert inner[bands[-1]] == pytest.approx(HOLE_RINGS)  # highest band innermost
+    assert polys[f"{bands[-1]}|N"][:, 1].max() == pytest.approx(HOLE_RINGS + 1.0)
     assert all(inner[a] > inner[b] for a, b in zip(bands, bands[1:]))  # radius falls as elevation rises
-    north = patches[f"{bands[0]}|N"]
-    centre = north.get_x() + north.get_width() / 2
-    assert centre == pytest.approx(0.0)  # N sector centred on theta = 0 (the top)
-    east = patches[f"{bands[0]}|E"]
-    assert east.get_x() + east.get_width() / 2 == pytest.approx(np.pi / 2)  # E a quarter turn clockwise
+    north = polys[f"{bands[0]}|N"][:, 0]
+    assert (north.min() + north.max()) / 2 == pytest.approx(0.0)  # N sector centred on theta = 0 (the top)
+    assert north.max() - north.min() == pytest.approx(np.pi / 2)  # 4 sectors of 90 deg
+    east = polys[f"{bands[0]}|E"][:, 0]
+    assert (east.min() + east.max()) / 2 == pytest.approx(np.pi / 2)  # E a quarter turn clockwise
     assert [t.get_text() for t in ax.get_xticklabels()] == ["N", "E", "S", "W"]
     title = fig._suptitle.get_text()
     assert "Zone A" in title and "analysis" in title and "2026-01-22 12:00" in title

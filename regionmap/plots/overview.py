@@ -18,12 +18,13 @@ import pandas as pd
 from matplotlib import patheffects
 from matplotlib.cm import ScalarMappable
 from matplotlib.colors import Normalize
+from matplotlib.collections import PolyCollection
 from matplotlib.patches import Rectangle
 
 from regionmap.plots.outputs import SECTOR_ORDER, Metric, RunOutputs, metric
 from regionmap.plots.style import METRIC_CMAP, new_figure, save_png, slug, text_colour_on
 
-__all__ = ["overview_table", "plot_overview", "write_overview", "sector_layout", "HOLE_RINGS"]
+__all__ = ["overview_table", "plot_overview", "write_overview", "sector_layout", "sector_ring_polygons", "HOLE_RINGS"]
 
 #: radius of the empty centre, in rings (keeps the innermost values readable).
 HOLE_RINGS = 0.6
@@ -102,8 +103,11 @@ def plot_overview(out, zone: str, metric_name: str, *, time=None):
 
     Returns
     -------
-    matplotlib Figure. Its polar axes carry the sector-ring patches with ``gid``
-    ``"<band>|<sector>"``; the flat boxes sit in a second axes labelled ``flat``.
+    matplotlib Figure. Its polar axes carry the sector-rings as two polygon collections
+    (gid ``sector-rings`` with a value, ``no-terrain`` hatched), in (theta, r) data
+    coordinates (:func:`sector_ring_polygons`), each polygon labelled ``"<band>|<sector>"``
+    through the collection's ``get_urls()``; the flat boxes are patches (gid
+    ``"<band>|flat"``) in a second axes titled ``flat``.
 
     Raises
     ------
@@ -124,21 +128,23 @@ def plot_overview(out, zone: str, metric_name: str, *, time=None):
     ax.set_theta_zero_location("N")
     ax.set_theta_direction(-1)
     size = max(5.0, 10.0 - 0.35 * n_band - 0.15 * len(compass))
-    # all sector-rings in one call: ring 0 = highest band, innermost
+    # all sector-rings as two polygon collections (with a value / hatched without terrain):
+    # ring 0 = highest band, innermost
     values = wide[compass].to_numpy(np.float64)  # (band, sector)
-    ring = np.repeat(np.arange(n_band), len(compass))
-    sector = np.tile(np.arange(len(compass)), n_band)
+    verts, ring, sector = sector_ring_polygons(n_band, len(compass), width_deg)
     v = values.ravel()
     ok = np.isfinite(v)
     colours = METRIC_CMAP(norm(np.where(ok, v, 0.0)))
-    colours[~ok] = (1.0, 1.0, 1.0, 1.0)
+    labels = np.array([f"{wide.index[r]}|{compass[k]}" for r, k in zip(ring, sector)], dtype=object)
+    filled = PolyCollection(list(verts[ok]), facecolors=colours[ok], edgecolors="#444444", linewidths=0.6,
+                            gid="sector-rings")
+    filled.set_urls(list(labels[ok]))
+    empty = PolyCollection(list(verts[~ok]), facecolors="white", edgecolors="#444444", linewidths=0.6, hatch="///",
+                           gid="no-terrain")
+    empty.set_urls(list(labels[~ok]))
+    ax.add_collection(filled)
+    ax.add_collection(empty)
     theta = np.deg2rad(sector * width_deg)
-    bars = ax.bar(theta, 1.0, width=np.deg2rad(width_deg), bottom=HOLE_RINGS + ring, color=colours, edgecolor="#444444",
-                  linewidth=0.6, align="center")
-    for patch, r, k, good in zip(bars.patches, ring, sector, ok):
-        patch.set_gid(f"{wide.index[r]}|{compass[k]}")
-        if not good:
-            patch.set_hatch("///")
     for th, r, val, c in zip(theta[ok], ring[ok], v[ok], colours[ok]):
         ax.text(th, HOLE_RINGS + r + 0.5, _fmt(val, m.decimals), ha="center", va="center", fontsize=size,
                 color=text_colour_on(c))
@@ -181,6 +187,31 @@ def plot_overview(out, zone: str, metric_name: str, *, time=None):
     else:
         side.set_axis_off()
     return fig
+
+
+def sector_ring_polygons(n_band: int, n_sector: int, width_deg: float) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Polygons of the overview's sector-rings in polar data coordinates (theta [rad], r).
+
+    Ring ``b`` (0 = highest band) spans r from ``HOLE_RINGS + b`` to ``HOLE_RINGS + b + 1``;
+    sector ``k`` is centred on theta = k × width (0 = north; the axes turn clockwise from the
+    top). Arcs are sampled every ~2°, so they stay round after the polar transform.
+
+    Returns
+    -------
+    verts : ndarray (band × sector, vertex, 2) float64, band-major (highest band first), then
+        clockwise from north.
+    ring, sector : ndarray (band × sector,) int, the band and sector of each polygon.
+    """
+    n_arc = max(4, int(np.ceil(width_deg / 2.0)) + 1)
+    half = np.deg2rad(width_deg) / 2.0
+    ring = np.repeat(np.arange(n_band), n_sector)
+    sector = np.tile(np.arange(n_sector), n_band)
+    centre = np.deg2rad(sector * width_deg)[:, None]
+    arc = np.linspace(-half, half, n_arc)[None, :]
+    inner = (HOLE_RINGS + ring)[:, None] * np.ones_like(arc)
+    theta = np.concatenate([centre + arc, centre + arc[:, ::-1]], axis=1)
+    radius = np.concatenate([inner + 1.0, inner], axis=1)
+    return np.stack([theta, radius], axis=-1), ring, sector
 
 
 def _trim(wide: pd.DataFrame) -> pd.DataFrame:
