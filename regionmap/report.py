@@ -106,11 +106,10 @@ def _map_specs(out: RunOutputs) -> list[tuple[str, str, str, callable]]:
     return specs
 
 
-def _zone_specs(out: RunOutputs) -> list[tuple[str, str, str, callable]]:
-    """Overviews, elevation charts, profiles and layer trackers of every zone. Everything they
-    read from the output folder is read here, once (summaries at the map time, the zones'
-    layer tracks and new-snow days, the profiles), so the draw functions only draw and the
-    forked workers never touch the NetCDF files."""
+def _summary_specs(out: RunOutputs) -> list[tuple[str, str, str, callable]]:
+    """Overviews, elevation charts and profiles of every zone. What they read (the summaries
+    at the map time, the profiles of the chosen cells: one snapshot day of profiles.nc) is
+    read here, so the draw functions only draw and forked workers never touch NetCDF files."""
     specs = []
     out.band_aspect()
     for zone in out.zone_names:
@@ -128,6 +127,14 @@ def _zone_specs(out: RunOutputs) -> list[tuple[str, str, str, callable]]:
                           f"{zone}: simulated profile of cell {cid} ({row['band']} m, {row['aspect_sector']}), "
                           "the cell with the highest threshold count at the map time",
                           lambda cid=cid, prof=prof: plot_profile(out, cid, profile=prof)))
+    return specs
+
+
+def _layer_specs(out: RunOutputs) -> list[tuple[str, str, str, callable]]:
+    """Layer trackers of every zone; their tracks (all snapshot days of profiles.nc, the
+    slowest read) and new-snow days are computed here."""
+    specs = []
+    for zone in out.zone_names:
         layers = _tracked_layers(out, zone)
         if layers:
             tracks = layer_tracks(out, zone, layer_ids=layers)
@@ -225,19 +232,25 @@ class _Drawing:
 def _render(out: RunOutputs, *, thumbnails: bool, workers: int | None = None) -> tuple[list[_Figure], list[Path]]:
     """Draw every figure and write them under figures/.
 
-    The maps start drawing in one forked worker while the zones' data (profiles.nc, the
-    slowest read) are read here; then the zone figures are drawn in ``workers`` more (default
-    up to 2). The NetCDF files are closed before that second fork."""
+    Reading and drawing overlap: the maps start drawing in one forked worker while the
+    summaries at the map time are computed here; the overviews, elevation charts and profiles
+    then draw in ``workers`` more (default up to 2) while the layer tracks are read from all
+    snapshot days of profiles.nc (the slowest read); the trackers last. Each fork inherits
+    the data it draws; the NetCDF files are closed before the last one."""
     import os
 
-    figdir = out.out_dir / "figures"
     workers = min(2, os.cpu_count() or 1) if workers is None else workers
+    parallel = workers > 1
     map_specs = _map_specs(out)
-    maps = _Drawing(map_specs, thumbnails, 1 if workers > 1 else 0)
-    zone_specs = _zone_specs(out)
+    maps = _Drawing(map_specs, thumbnails, 1 if parallel else 0)
+    summary_specs = _summary_specs(out)
+    summaries = _Drawing(summary_specs, thumbnails, workers if parallel else 0)
+    layer_specs = _layer_specs(out)
     out.close()
-    zones = _Drawing(zone_specs, thumbnails, workers if workers > 1 else 0)
-    specs, drawn = map_specs + zone_specs, maps.get() + zones.get()
+    layers = _Drawing(layer_specs, thumbnails, workers if parallel else 0)
+    specs = map_specs + summary_specs + layer_specs
+    drawn = maps.get() + summaries.get() + layers.get()
+    figdir = out.out_dir / "figures"
     figures, written = [], []
     for (section, name, caption, _), (png, thumb, size) in zip(specs, drawn):
         path = figdir / name

@@ -128,19 +128,59 @@ class RunOutputs:
         return xr.open_dataset(self.path("cells.nc"), engine="netcdf4")
 
     @cached_property
-    def profiles(self) -> xr.Dataset:
-        """``profiles.nc``: numeric variables opened lazily; variable-length string variables
-        (``grain_class``, ``crust_kind``) read at once as object arrays, straight from
-        netCDF4 (xarray would read them too, then convert them to fixed-width strings, which
-        takes several times as long for a season of layers)."""
+    def _profiles_numeric(self) -> tuple[xr.Dataset, list[str]]:
+        """``profiles.nc`` opened lazily without its variable-length string variables (xarray
+        reads those whole at opening, then converts them to fixed-width strings: seconds for
+        a season of layers), and the names of those variables."""
         import netCDF4
 
         path = self.path("profiles.nc")
         with netCDF4.Dataset(path) as nc:
-            vlen = {name: (v.dimensions, v[...]) for name, v in nc.variables.items() if v.dtype is str}
-        ds = xr.open_dataset(path, engine="netcdf4", drop_variables=list(vlen))
-        for name, (dims, values) in vlen.items():
-            ds[name] = (dims, np.asarray(values, dtype=object))
+            vlen = [name for name, v in nc.variables.items() if v.dtype is str]
+        return xr.open_dataset(path, engine="netcdf4", drop_variables=vlen), vlen
+
+    def _read_strings(self, days: slice) -> dict:
+        """The variable-length string variables on ``days`` (positions along ``day``), read
+        straight from netCDF4 as object arrays: name → (dims, values)."""
+        import netCDF4
+
+        _, vlen = self._profiles_numeric
+        found = {}
+        with netCDF4.Dataset(self.path("profiles.nc")) as nc:
+            for name in vlen:
+                v = nc[name]
+                index = tuple(days if dim == "day" else slice(None) for dim in v.dimensions)
+                found[name] = (v.dimensions, np.asarray(v[index], dtype=object))
+        return found
+
+    @cached_property
+    def profiles(self) -> xr.Dataset:
+        """``profiles.nc``: numeric variables opened lazily, the string variables
+        (``grain_class``, ``crust_kind``) read at once as object arrays."""
+        ds, _ = self._profiles_numeric
+        ds = ds.copy()
+        for name, value in self._read_strings(slice(None)).items():
+            ds[name] = value
+        return ds
+
+    @property
+    def profile_days(self) -> np.ndarray:
+        """Valid times of the daily snapshots in ``profiles.nc`` (datetime64[s])."""
+        return self._profiles_numeric[0]["day"].values.astype("datetime64[s]")
+
+    def snapshot_position(self, t: np.datetime64) -> int:
+        """Position along ``day`` of the last daily snapshot at or before ``t`` (-1: none)."""
+        return int(np.searchsorted(self.profile_days, np.datetime64(t, "s"), side="right") - 1)
+
+    def profiles_on_day(self, d: int) -> xr.Dataset:
+        """``profiles.nc`` restricted to the snapshot at position ``d`` (``day`` of length 1);
+        reads only that day's strings unless the whole file is already in memory."""
+        if "profiles" in self.__dict__:
+            return self.profiles.isel(day=[d])
+        ds, _ = self._profiles_numeric
+        ds = ds.isel(day=[d])
+        for name, value in self._read_strings(slice(d, d + 1)).items():
+            ds[name] = value
         return ds
 
     @cached_property
@@ -289,7 +329,9 @@ class RunOutputs:
         cache = self.__dict__.setdefault("_cv_cache", {})
         if t not in cache:
             table = self.table.drop(columns=["band"])
-            cache[t] = cell_values(self.cells, self.profiles, table, [t], local_timezone=self.local_timezone,
+            d = self.snapshot_position(t)  # cell_values uses the last snapshot at or before t
+            prof = self.profiles_on_day(d) if d >= 0 else self.profiles
+            cache[t] = cell_values(self.cells, prof, table, [t], local_timezone=self.local_timezone,
                                    observation_hour=self.observation_hour)
         return cache[t]
 
@@ -303,3 +345,5 @@ class RunOutputs:
         for name in ("cells", "profiles"):
             if name in self.__dict__:
                 self.__dict__.pop(name).close()
+        if "_profiles_numeric" in self.__dict__:
+            self.__dict__.pop("_profiles_numeric")[0].close()

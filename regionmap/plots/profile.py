@@ -118,13 +118,13 @@ def read_profile(out, cell_id: int, time=None) -> dict:
     """
     out = _outputs(out)
     t = out.map_time if time is None else out.time_in_run(time)
-    prof = out.profiles
-    days = prof["day"].values.astype("datetime64[s]")
-    d = int(np.searchsorted(days, t, side="right") - 1)
+    days = out.profile_days
+    d = out.snapshot_position(t)
     if d < 0:
         raise InputError(f"profile: no daily snapshot at or before {t} (the first is {days[0]} UTC)")
+    prof = out.profiles_on_day(d)
     pos = int(np.nonzero(prof["cell_id"].values == cell_id)[0][0])
-    snap = prof.isel(cell=pos, day=d)
+    snap = prof.isel(cell=pos, day=0)
     n = int(np.nan_to_num(float(snap["layer_count"].values), nan=0.0))
 
     def arr(name, dtype=np.float64):

@@ -125,7 +125,7 @@ def new_snow_days(out, zone: str) -> pd.DataFrame:
     ww = w.reindex(out.cells["cell_id"].values[pos]).to_numpy()
     mean = (snow * ww[:, None]).sum(axis=0) / max(ww.sum(), 1e-12)
     cum = np.concatenate([[0.0], np.cumsum(mean)])
-    days = out.profiles["day"].values.astype("datetime64[s]")
+    days = out.profile_days
     k = np.searchsorted(out.times, days, side="right")
     per_day = np.diff(np.concatenate([[0.0], cum[k]]))
     return pd.DataFrame({"day": days, "snowfall_kg_m2": per_day, "event": per_day >= NEW_SNOW_DAY_KG_M2})
