@@ -252,3 +252,14 @@ def test_elevation_chart_one_line_per_aspect(outputs):
     for line in ax.lines:
         x, y = np.asarray(line.get_xdata(), float), np.asarray(line.get_ydata(), float)
         assert np.all(np.diff(y) > 0) and np.all(np.diff(x) >= -1e-6)
+
+
+def test_layer_tracks_of_chosen_layers_equal_the_full_tracks(outputs):
+    # reading only the snapshot days from a day before the earliest layer date must not lose
+    # any day of those layers (equivalence with the tracks of all days)
+    ids = ["SH-2026-01-12", "rain-2026-01-20"]
+    full = layer_tracks(outputs, "Zone A")
+    full = full[full["layer_id"].isin(ids)].sort_values(["layer_id", "band", "day"]).reset_index(drop=True)
+    chosen = layer_tracks(outputs, "Zone A", layer_ids=ids).sort_values(["layer_id", "band", "day"]).reset_index(drop=True)
+    pd.testing.assert_frame_equal(chosen[full.columns], full)
+    assert chosen["day"].min() < np.datetime64("2026-01-13")  # the SH is tracked from its burial on

@@ -175,11 +175,23 @@ class RunOutputs:
     def profiles_on_day(self, d: int) -> xr.Dataset:
         """``profiles.nc`` restricted to the snapshot at position ``d`` (``day`` of length 1);
         reads only that day's strings unless the whole file is already in memory."""
+        return self._profiles_on(slice(d, d + 1))
+
+    def profiles_from_day(self, d: int) -> xr.Dataset:
+        """``profiles.nc`` from the snapshot at position ``d`` to the last one (kept for the
+        next call with the same ``d``); reads only those days' strings unless the whole file
+        is already in memory."""
+        cache = self.__dict__.setdefault("_from_day", {})
+        if d not in cache:
+            cache[d] = self._profiles_on(slice(max(d, 0), None))
+        return cache[d]
+
+    def _profiles_on(self, days: slice) -> xr.Dataset:
         if "profiles" in self.__dict__:
-            return self.profiles.isel(day=[d])
+            return self.profiles.isel(day=days)
         ds, _ = self._profiles_numeric
-        ds = ds.isel(day=[d])
-        for name, value in self._read_strings(slice(d, d + 1)).items():
+        ds = ds.isel(day=days)
+        for name, value in self._read_strings(days).items():
             ds[name] = value
         return ds
 
@@ -345,5 +357,6 @@ class RunOutputs:
         for name in ("cells", "profiles"):
             if name in self.__dict__:
                 self.__dict__.pop(name).close()
+        self.__dict__.pop("_from_day", None)
         if "_profiles_numeric" in self.__dict__:
             self.__dict__.pop("_profiles_numeric")[0].close()

@@ -90,8 +90,9 @@ def layer_tracks(out, zone: str, *, by_aspect: bool = False, layer_ids=None) -> 
     table = out.table
     w_all, _ = out.weights
     cells = table[table["zone"] == zone]
-    pos = np.nonzero(np.isin(out.profiles["cell_id"].values, cells.index.to_numpy()))[0]
-    prof = out.profiles.isel(cell=pos)
+    profiles = out.profiles if layer_ids is None else out.profiles_from_day(_first_day(out, layer_ids))
+    pos = np.nonzero(np.isin(profiles["cell_id"].values, cells.index.to_numpy()))[0]
+    prof = profiles.isel(cell=pos)
     cell_ids = prof["cell_id"].values.astype(np.int64)
     n_day = prof.sizes["day"]
     rows = [_block_rows(decode_snapshot(prof, np.arange(d, min(d + _DAY_BLOCK, n_day))), cell_ids, out.local_timezone)
@@ -111,6 +112,23 @@ def layer_tracks(out, zone: str, *, by_aspect: bool = False, layer_ids=None) -> 
         res["depth_cm"] = res["_wd"] / res["_w"].where(res["_w"] > 0)
         res["presence_frac"] = res["_w"] / res["_total"].where(res["_total"] > 0)
     return res.drop(columns=["_w", "_wd", "_total"])
+
+
+def _first_day(out: RunOutputs, layer_ids) -> int:
+    """First snapshot position that can hold any of ``layer_ids``: a layer id ends with its
+    local reference date (formation, or burial for surface hoar), so no snapshot more than a
+    day before the earliest of them holds one (the day covers the local/UTC offset). 0 when
+    an id carries no date."""
+    dates = []
+    for lid in layer_ids:
+        try:
+            dates.append(np.datetime64(str(lid)[-10:], "D"))
+        except ValueError:
+            return 0
+    if not dates:
+        return 0
+    start = (min(dates) - np.timedelta64(1, "D")).astype("datetime64[s]")
+    return max(0, int(np.searchsorted(out.profile_days, start, side="left")))
 
 
 def new_snow_days(out, zone: str) -> pd.DataFrame:
