@@ -1,7 +1,8 @@
 """The morning briefing: every figure of a run and a one-page ``report.html``.
 
 :func:`write_all_figures` draws the figures of an output folder into ``figures/`` (PNG at
-print resolution, plus the overview CSV tables). :func:`write_report` draws them too and
+print resolution, plus the overview CSV tables; figures are drawn in forked worker processes
+while the data of the next ones are read). :func:`write_report` draws them too and
 writes ``report.html``: self-contained (images embedded as data URIs at a reduced
 resolution, no scripts, no external fonts or style sheets, no web addresses), built from the
 jinja2 template ``regionmap/templates/report.html.j2``. It holds the per-zone table, the
@@ -267,10 +268,13 @@ def _render(out: RunOutputs, *, thumbnails: bool, workers: int | None = None) ->
 def write_all_figures(out_dir) -> list[Path]:
     """Draw every figure of a run into ``OUT/figures/`` and return the files written.
 
-    Figures: a map per raster under ``maps/``; per zone the elevation-aspect overviews of
-    :data:`OVERVIEW_METRICS` (PNG and CSV), the elevation chart of ``snow_depth_cm``, the
-    profile of the cell with the highest threshold count, and a layer tracker for each of
-    the zone's most widespread layers of concern (up to :data:`MAX_TRACKED_LAYERS`).
+    Figures (a chosen set, not every combination): a map of each of :data:`MAP_METRICS` the
+    run has a raster for, a rain-crust map of each of the (up to
+    :data:`MAX_RAIN_CRUST_MAPS`) most widespread rain-on-snow events; per zone the
+    elevation-aspect overviews of :data:`OVERVIEW_METRICS` (PNG and CSV), the elevation chart
+    of ``snow_depth_cm``, the profile of the cell with the highest threshold count, and a
+    layer tracker for the zone's most widespread weak layer and crust (up to
+    :data:`MAX_TRACKED_LAYERS` layers). PNGs at :data:`~regionmap.plots.style.PRINT_DPI`.
 
     Raises
     ------

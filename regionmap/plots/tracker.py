@@ -299,15 +299,16 @@ def plot_elevation_chart(out, zone: str, metric_name: str, *, time=None):
     ax = fig.add_subplot(1, 1, 1)
     palette = [OKABE_ITO[k] for k in ("blue", "orange", "bluish green", "vermillion", "sky blue", "reddish purple",
                                       "yellow", "black")]
-    present = [s for s in SECTOR_ORDER if s in set(z["aspect_sector"])]
+    has_value = z.groupby("aspect_sector")[m.summary_column].apply(lambda v: bool(np.isfinite(v.to_numpy(np.float64)).any()))
+    present = [s for s in SECTOR_ORDER if has_value.get(s, False)]  # sectors without a value get no line
+    compass = [s for s in SECTOR_ORDER if s in set(out.table["aspect_sector"]) and s != "flat"]
     for i, sector in enumerate(present):
         sub = z[z["aspect_sector"] == sector].sort_values("band_centre_m")
         x = sub[m.summary_column].to_numpy(np.float64) * m.scale
         if sector == "flat":
             ax.plot(x, sub["band_centre_m"], color="#777777", linestyle="--", marker="s", markersize=3, label="flat")
         else:
-            compass = [s for s in present if s != "flat"]
-            k = compass.index(sector)
+            k = compass.index(sector)  # colour by the run's sector order: the same in every zone
             ax.plot(x, sub["band_centre_m"], color=palette[k % 8], linestyle="-" if k < 8 else ":", marker="o",
                     markersize=3, label=sector)
     ax.set_xlabel(f"{m.label} [{m.units}]")
