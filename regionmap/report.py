@@ -213,7 +213,13 @@ class _Drawing:
         self.specs, self.pool = specs, None
         _JOB = (specs, thumbnails)
         if workers >= 1 and len(specs) >= 2 and "fork" in mp.get_all_start_methods():
-            self.pool = mp.get_context("fork").Pool(workers)
+            import gc
+
+            gc.freeze()  # the workers' garbage collector leaves the inherited objects (and their pages) alone
+            try:
+                self.pool = mp.get_context("fork").Pool(workers)
+            finally:
+                gc.unfreeze()
             self.async_result = self.pool.map_async(_draw_one, range(len(specs)), chunksize=1)
         else:
             self.result = [_draw_one(i) for i in range(len(specs))]
