@@ -42,6 +42,7 @@ from regionmap.run import (
     state_put,
     state_slice,
 )
+from regionmap.snow.codes import CRUST_KINDS, GRAIN_CODES
 from regionmap.snow.state import SnowState
 
 __all__ = ["RunOutcome", "execute", "dask_client", "LAYER_VARS"]
@@ -54,8 +55,8 @@ LAYER_VARS = {
     "temperature_k": ("f4", {"units": "K", "long_name": "layer temperature"}),
     "grain_size_mm": ("f4", {"units": "mm", "long_name": "grain size"}),
     "hardness_index": ("f4", {"units": "1", "long_name": "hand hardness index (F=1, 4F=2, 1F=3, P=4, K=5, I=6)"}),
-    "grain_class": ("str", {"long_name": "grain class (International Classification for Seasonal Snow on the Ground codes)"}),
-    "crust_kind": ("str", {"long_name": "crust kind: none, melt-freeze, sun, rain, glaze"}),
+    "grain_class": (f"S{max(map(len, GRAIN_CODES))}", {"long_name": "grain class (International Classification for Seasonal Snow on the Ground codes)"}),
+    "crust_kind": (f"S{max(map(len, CRUST_KINDS))}", {"long_name": "crust kind: none, melt-freeze, sun, rain, glaze"}),
     "deposition_time": ("i8", {"units": "seconds since 1970-01-01", "long_name": "deposition time of the layer's snow"}),
     "formation_time": ("i8", {"units": "seconds since 1970-01-01", "long_name": "when the layer became what it is (burial of SH, refreeze of a crust, else deposition)"}),
     "event_id": ("i8", {"long_name": "id of the precipitation event that made the layer or its crust: its start as whole hours since 1970-01-01 UTC"}),

@@ -234,7 +234,8 @@ class ProfilesNcWriter(_StreamingNc):
     cell_ids : (cell,) int cell identifiers.
     days : (day,) datetime64 snapshot times [UTC].
     n_layers : layer slots per snapshot (bottom layer first).
-    layer_vars : name → (dtype, attrs); dtype ``"str"`` for the classification codes.
+    layer_vars : name → (dtype, attrs); dtype ``"S<width>"`` for the classification codes
+        (stored as compressed fixed-width character arrays).
     """
 
     @_hdf5_locked
@@ -252,15 +253,20 @@ class ProfilesNcWriter(_StreamingNc):
         day[:] = _seconds(days)
         lc = nc.createVariable("layer_count", "i2", ("cell", "day"), zlib=True, fill_value=_FILL_I16)
         lc.setncatts({"long_name": "number of layers in use (bottom first)"})
+        chunks = (max(1, min(64, len(cell_ids))), max(1, min(31, len(days))), n_layers)
         for name, (dtype, attrs) in layer_vars.items():
-            if dtype == "str":
-                var = nc.createVariable(name, str, ("cell", "day", "layer"))
+            if dtype.startswith("S"):
+                # fixed-width character arrays (CF §2.2) compress, unlike variable-length
+                # strings; ``_Encoding`` makes netCDF4 and xarray read them back as strings
+                strlen = f"{name}_strlen"
+                nc.createDimension(strlen, int(dtype[1:]))
+                var = nc.createVariable(name, "S1", ("cell", "day", "layer", strlen), zlib=True, complevel=4,
+                                        chunksizes=(*chunks, int(dtype[1:])))
+                var.setncatts({"_Encoding": "utf-8"})
+                var.set_auto_chartostring(False)
             else:
-                var = nc.createVariable(
-                    name, dtype, ("cell", "day", "layer"), zlib=True, complevel=4, shuffle=True,
-                    chunksizes=(max(1, min(64, len(cell_ids))), max(1, min(31, len(days))), n_layers),
-                    fill_value=_fill_for(dtype),
-                )
+                var = nc.createVariable(name, dtype, ("cell", "day", "layer"), zlib=True, complevel=4,
+                                        shuffle=True, chunksizes=chunks, fill_value=_fill_for(dtype))
             var.setncatts(attrs)
 
     @_hdf5_locked
@@ -271,8 +277,9 @@ class ProfilesNcWriter(_StreamingNc):
         for name, (dtype, _) in self.layer_vars.items():
             if name in fields:
                 values = np.asarray(fields[name])
-                if dtype == "str":
-                    self._nc.variables[name][lo:hi, :, :] = np.asarray(values, dtype=object).astype(str)
+                if dtype.startswith("S"):
+                    text = np.asarray(values, dtype=object).astype(str).astype(dtype)
+                    self._nc.variables[name][lo:hi] = netCDF4.stringtochar(text)
                 else:
                     self._nc.variables[name][lo:hi, :, :] = values
 
