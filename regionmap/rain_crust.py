@@ -198,7 +198,9 @@ def _aspect_phrase(sectors: list[str], all_sectors: set[str]) -> str:
 
 
 def _clause(row) -> str:
-    upper_rng = f"({_r(row.upper_low_m)}–{_r(row.upper_high_m)} m)" if row.n_members else ""
+    spread = row.n_members and _r(row.upper_low_m) != _r(row.upper_high_m)
+    # a range is stated only when the members disagree after rounding
+    upper_rng = f"({_r(row.upper_low_m)}–{_r(row.upper_high_m)} m)" if spread else ""
     if row.upper_bound == "absent":
         return "no rain crust"
     if row.upper_bound == "at_or_above":
