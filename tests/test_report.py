@@ -106,8 +106,10 @@ def _chromium_or_skip():
     return sync_playwright
 
 
-def test_report_renders_in_headless_chromium_without_errors(report, tmp_path):
-    # oracle: the Debian Chromium package, driven through Playwright's sync API
+def render_in_chromium(html_path, screenshot):
+    """Open a report in headless Chromium; returns (console errors, page errors, requested
+    URLs, all images loaded, image count). Oracle: the Debian Chromium package, driven
+    through Playwright's sync API (no browser download)."""
     sync_playwright = _chromium_or_skip()
     console, page_errors, requests = [], [], []
     with sync_playwright() as p:
@@ -116,17 +118,23 @@ def test_report_renders_in_headless_chromium_without_errors(report, tmp_path):
             "--disable-component-update", "--disable-sync", "--no-first-run"])
         try:
             page = browser.new_page(viewport={"width": 1200, "height": 900})
-            page.on("console", lambda m: console.append(m) if m.type == "error" else None)
-            page.on("pageerror", lambda e: page_errors.append(e))
+            page.on("console", lambda m: console.append(m.text) if m.type == "error" else None)
+            page.on("pageerror", lambda e: page_errors.append(str(e)))
             page.on("request", lambda r: requests.append(r.url))
-            page.goto(report.resolve().as_uri(), wait_until="load")
+            page.goto(html_path.resolve().as_uri(), wait_until="load")
             loaded = page.evaluate("Array.from(document.images).every(i => i.complete && i.naturalWidth > 0)")
-            shot = tmp_path / "report.png"
-            page.screenshot(path=str(shot), full_page=True)
+            n_images = page.evaluate("document.images.length")
+            page.screenshot(path=str(screenshot), full_page=True)
         finally:
             browser.close()
-    assert not console, [m.text for m in console]
-    assert not page_errors, [str(e) for e in page_errors]
+    return console, page_errors, requests, loaded, n_images
+
+
+def test_report_renders_in_headless_chromium_without_errors(report, tmp_path):
+    shot = tmp_path / "report.png"
+    console, page_errors, requests, loaded, _ = render_in_chromium(report, shot)
+    assert not console, console
+    assert not page_errors, page_errors
     assert loaded
     assert shot.stat().st_size > 10_000
     assert all(u.startswith(("file:", "data:")) for u in requests), requests

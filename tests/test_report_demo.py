@@ -21,7 +21,7 @@ from regionmap.plots.outputs import RunOutputs
 from regionmap.plots.style import PRINT_DPI
 from regionmap.plots.maps import rain_crust_events
 from regionmap.report import MAP_METRICS, MAX_RAIN_CRUST_MAPS, OVERVIEW_METRICS, REPORT_MAX_BYTES, write_report
-from test_report import CHROMIUM, _chromium_or_skip
+from test_report import render_in_chromium
 from test_run import config, run, scenario  # noqa: F401  (session fixture of the small scenario)
 
 _NS = "{http://www.w3.org/1999/xhtml}"  # html5lib's element namespace (WHATWG HTML)
@@ -117,27 +117,10 @@ def test_demo_report_figures_match_the_run(demo_report):
 
 
 def test_demo_report_renders_in_headless_chromium_without_errors(demo_report, tmp_path):
-    # oracle: the Debian Chromium package, driven through Playwright's sync API
-    sync_playwright = _chromium_or_skip()
-    console, page_errors, requests = [], [], []
-    with sync_playwright() as p:
-        browser = p.chromium.launch(executable_path=str(CHROMIUM), args=[
-            "--headless", "--no-sandbox", "--disable-gpu", "--disable-background-networking",
-            "--disable-component-update", "--disable-sync", "--no-first-run"])
-        try:
-            page = browser.new_page(viewport={"width": 1200, "height": 900})
-            page.on("console", lambda m: console.append(m) if m.type == "error" else None)
-            page.on("pageerror", lambda e: page_errors.append(e))
-            page.on("request", lambda r: requests.append(r.url))
-            page.goto(demo_report.resolve().as_uri(), wait_until="load")
-            loaded = page.evaluate("Array.from(document.images).every(i => i.complete && i.naturalWidth > 0)")
-            n_images = page.evaluate("document.images.length")
-            shot = tmp_path / "report-demo.png"
-            page.screenshot(path=str(shot), full_page=True)
-        finally:
-            browser.close()
-    assert not console, [m.text for m in console]
-    assert not page_errors, [str(e) for e in page_errors]
+    shot = tmp_path / "report-demo.png"
+    console, page_errors, requests, loaded, n_images = render_in_chromium(demo_report, shot)
+    assert not console, console
+    assert not page_errors, page_errors
     assert loaded and n_images >= 8
     assert shot.stat().st_size > 10_000
     assert all(u.startswith(("file:", "data:")) for u in requests), requests
