@@ -246,7 +246,7 @@ def execute(cfg: Config, *, out_dir: Path | None = None, continue_from: Path | N
         try:
             t0 = _time.perf_counter()
             with dask_client(workers, scheduler) as client:
-                ctx_f = client.scatter(ctx, broadcast=True) if (workers or scheduler) else ctx
+                ctx_f = client.scatter(ctx, broadcast=True)  # once, not in every task's graph
                 futures = [client.submit(simulate_chunk, ctx_f, lo, hi, state_slice(state0, lo, hi),
                                          pure=False, key=f"chunk-{lo}-{hi}") for lo, hi in chunks]
                 from distributed import as_completed

@@ -239,7 +239,9 @@ def plot_layer_tracker(out, zone: str, layer_id: str, *, by_aspect: bool = False
         ax_d.plot(sub.index, sub["depth_cm"], color=colours[lower], linestyle=ls, linewidth=1.6, label=label)
         ax_p.plot(sub.index, 100.0 * sub["presence_frac"], color=colours[lower], linestyle=ls, linewidth=1.2)
     ax_d.invert_yaxis()
-    ax_d.set_ylim(bottom=max(float(np.nanmax(tr["depth_cm"])) * 1.1, 10.0), top=0.0)
+    deepest = np.asarray(tr["depth_cm"], dtype=np.float64)
+    deepest = float(np.nanmax(deepest)) if np.isfinite(deepest).any() else 0.0  # present but never depth-measured
+    ax_d.set_ylim(bottom=max(deepest * 1.1, 10.0), top=0.0)
     ax_d.set_ylabel("depth below the surface [cm] (vertical)")
     ax_p.set_ylabel("present on [% of band area]")
     ax_p.set_ylim(0, 105)
@@ -314,7 +316,10 @@ def plot_elevation_chart(out, zone: str, metric_name: str, *, time=None):
     ax.set_xlabel(f"{m.label} [{m.units}]")
     ax.set_ylabel("elevation [m] (band centre)")
     ax.grid(color="#E5E5E5", linewidth=0.5)
-    ax.legend(title="aspect", fontsize=7, title_fontsize=8, loc="best")
+    if present:
+        ax.legend(title="aspect", fontsize=7, title_fontsize=8, loc="best")
+    else:
+        ax.text(0.5, 0.5, "no values at this time", transform=ax.transAxes, ha="center", va="center", color="#555555")
     status = "forecast" if out.forecast_at(t) else "analysis"
     ax.set_title(f"{zone}: {m.label}\nvalid {pd.Timestamp(t):%Y-%m-%d %H:%M} UTC ({status}), {out.weights[1]}", fontsize=9)
     return fig
