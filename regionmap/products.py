@@ -169,15 +169,15 @@ def write_products(out: Path, cfg: Config, region, ctx, *, map_time, state0, is_
     if "slope_class" not in table.columns:
         table["slope_class"] = 0
     weights = _weights(region, cfg)
+    # opened lazily: the summaries read the output times and snapshot days they need, so
+    # memory follows those, not the whole season of every cell
     with xr.open_dataset(out / "cells.nc") as diag, xr.open_dataset(out / "profiles.nc") as prof:
-        diag.load()
-        prof.load()
-    tz, hour = cfg.output.local_timezone, cfg.output.observation_hour
-    tables = summary_tables(diag, prof, table, weights, map_time=map_time, local_timezone=tz,
-                            observation_hour=hour, avalanche_terrain_deg=tuple(cfg.cells.avalanche_terrain_deg))
-    loc = layers_of_concern(diag, prof, table, weights["avalanche_km2"].to_numpy(), time=map_time,
-                            local_timezone=tz, observation_hour=hour)
-    rc_cols, lines, words, cost = _rain_crust(out, cfg, region, ctx, state0, prof, table, weights, map_time)
+        tz, hour = cfg.output.local_timezone, cfg.output.observation_hour
+        tables = summary_tables(diag, prof, table, weights, map_time=map_time, local_timezone=tz,
+                                observation_hour=hour, avalanche_terrain_deg=tuple(cfg.cells.avalanche_terrain_deg))
+        loc = layers_of_concern(diag, prof, table, weights["avalanche_km2"].to_numpy(), time=map_time,
+                                local_timezone=tz, observation_hour=hour)
+        rc_cols, lines, words, cost = _rain_crust(out, cfg, region, ctx, state0, prof, table, weights, map_time)
     zones = tables.zones.merge(rc_cols, left_on="zone", right_index=True, how="left")
     zones["valid_time"] = str(map_time)
     zones["is_forecast"] = bool(is_forecast)
