@@ -520,7 +520,10 @@ def calibrate(
                     f"fitted per exposure class ({list(EXPOSURE_CLASSES)}). Add the class to the "
                     "station metadata file."
                 )
-            groups = [(c, exposure == c) for c in EXPOSURE_CLASSES if np.any(exposure == c)]
+            # classes whose stations observe the variable (a precipitation-only gauge of
+            # another class takes no part in the wind fit)
+            observed = np.isfinite(obs_values[v])
+            groups = [(c, exposure == c) for c in EXPOSURE_CLASSES if np.any((exposure == c) & observed)]
         else:
             groups = [("all", np.ones(station_ids.size, dtype=bool))]
         m_all = joined[f"{v}__model"].to_numpy(dtype=np.float64)

@@ -189,3 +189,14 @@ def test_undercatch_correction_restores_true_amount_and_is_used_in_calibration()
     with pytest.raises(InputError, match="needs observed wind_speed"):
         calibrate(model, obs.drop(columns="wind_speed"), _stations(), variables=["precipitation"],
                   undercatch="unshielded")
+
+
+def test_station_without_the_variable_takes_no_part_in_its_class_fit():
+    # the exposed station is a precipitation-only gauge: the wind factor is fitted for the
+    # sheltered class alone, and nothing is claimed for the exposed class
+    model, obs = _synthetic()
+    obs = obs.copy()
+    obs.loc["RIDGE", "wind_speed"] = np.nan
+    result = calibrate(model, obs, _stations(), variables=["wind_speed"])
+    assert result.settings["sheltered"]["wind_speed"].values[0] == pytest.approx(0.2, rel=0.05)
+    assert "wind_speed" not in result.settings.get("exposed", {})
