@@ -407,38 +407,18 @@ def verify_command(cfg: Config, stations_path, observation_paths, out_dir, *, un
     return table
 
 
-def _calibrate_by_availability(matched, obs, stations, *, method, per_month, undercatch,
-                               exposure_dependent=("wind_speed",)):
-    """:func:`regionmap.calibrate.calibrate`, each exposure-dependent variable fitted from the
-    stations that observe it only (a precipitation-only station of another exposure class
-    must not ask for a wind fit of its class), the other variables from all stations."""
-    from regionmap.calibrate import DEFAULT_KIND, QM_KIND, CalibrationResult, calibrate
+def _calibrate_observed(matched, obs, stations, *, method, per_month, undercatch):
+    """:func:`regionmap.calibrate.calibrate` on the variables the observations hold (each
+    exposure class is fitted from its stations that observe the variable)."""
+    from regionmap.calibrate import DEFAULT_KIND, QM_KIND, calibrate
 
     kinds = DEFAULT_KIND if method == "scaling" else QM_KIND
     present = [v for v in kinds if v in matched.columns and v in obs.columns and obs[v].notna().any()]
     if not present:
         raise InputError(f"calibrate: the observations hold none of the variables that can be fitted "
                          f"({sorted(kinds)}); got {[c for c in obs.columns if c != 'interval_start']}.")
-    groups = [[v for v in present if v not in exposure_dependent]] + [[v] for v in present if v in exposure_dependent]
-    parts = []
-    for variables in filter(None, groups):
-        sub = obs
-        if variables[0] in exposure_dependent:
-            observed = obs[variables[0]].groupby(level="station_id").apply(lambda x: bool(x.notna().any()))
-            sub = obs.loc[obs.index.get_level_values("station_id").isin(observed[observed].index)]
-            sub.attrs.update(obs.attrs)
-        parts.append(calibrate(matched, sub, stations, variables=variables, method=method, per_month=per_month,
-                               undercatch=undercatch))
-    settings: dict = {}
-    for part in parts:
-        for cls, entries in part.settings.items():
-            settings.setdefault(cls, {}).update(entries)
-    periods = [p.period for p in parts if p.period is not None]
-    return CalibrationResult(
-        settings=settings, qm_tables=[t for p in parts for t in p.qm_tables],
-        skill=pd.concat([p.skill for p in parts], ignore_index=True),
-        notes=[n for p in parts for n in p.notes], stations=sorted({s for p in parts for s in p.stations}),
-        period=(min(a for a, _ in periods), max(b for _, b in periods)) if periods else None)
+    return calibrate(matched, obs, stations, variables=present, method=method, per_month=per_month,
+                     undercatch=undercatch)
 
 
 def calibrate_command(cfg: Config, stations_path, observation_paths, out_dir, *, method="scaling",
@@ -491,8 +471,8 @@ def calibrate_command(cfg: Config, stations_path, observation_paths, out_dir, *,
                and model.attrs["exposure_source"][s] != "metadata"]
     for s in derived:
         stations.loc[s, "exposure_class"] = model.attrs["exposure_class"][s]
-    result = _calibrate_by_availability(matched, obs, stations, method=method, per_month=per_month,
-                                        undercatch=undercatch)
+    result = _calibrate_observed(matched, obs, stations, method=method, per_month=per_month,
+                                 undercatch=undercatch)
     out = Path(out_dir)
     qm_path = None
     if result.qm_tables:
