@@ -28,7 +28,6 @@ professional standards.
 
 from __future__ import annotations
 
-import datetime as dt
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -36,6 +35,7 @@ import numpy as np
 import pandas as pd
 
 from regionmap.errors import InputError
+from regionmap.io.times import utc_datetime64
 from regionmap.io.profiles import ObservedProfile, read_profile
 from regionmap.snow.codes import CRUST_INDEX, GRAIN_INDEX
 from regionmap.snow.constants import C_ICE_J_KG_K, C_WATER_J_KG_K, EPOCH_2000_S, L_FUSION_J_KG, RHO_WATER_KG_M3, T_MELT_K
@@ -145,20 +145,6 @@ def _entry_value(entry, name):
     return entry[name] if isinstance(entry, dict) else getattr(entry, name)
 
 
-def _utc_datetime64(value, where: str) -> np.datetime64:
-    if isinstance(value, dt.datetime):
-        if value.tzinfo is not None:
-            value = value.astimezone(dt.timezone.utc).replace(tzinfo=None)
-        return np.datetime64(value, "s")
-    try:
-        stamp = pd.Timestamp(value)
-    except (ValueError, TypeError):
-        raise InputError(f"{where}: expected a time such as 2026-02-10T09:30Z, got {value!r}") from None
-    if stamp.tzinfo is not None:
-        stamp = stamp.tz_convert("UTC").tz_localize(None)
-    return np.datetime64(stamp.to_datetime64(), "s")
-
-
 def _band_text(lo: float, hi: float) -> str:
     a = OPEN_BAND_LOW_M if not np.isfinite(lo) else lo
     b = OPEN_BAND_HIGH_M if not np.isfinite(hi) else hi
@@ -259,7 +245,7 @@ def resolve_restarts(entries, cell_table: pd.DataFrame, period_times: np.ndarray
         where = f"[[restart]] entry {k + 1} (profile {path})"
         profile = read_profile(path)
         given = _entry_value(entry, "time")
-        observed = profile.time if given is None else _utc_datetime64(given, where)
+        observed = profile.time if given is None else utc_datetime64(given, where)
         if not start <= observed <= t[-1]:
             raise InputError(
                 f"{where}: restart time {observed} UTC "

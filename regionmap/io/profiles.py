@@ -63,6 +63,7 @@ import numpy as np
 import pandas as pd
 
 from regionmap.errors import InputError
+from regionmap.io.times import utc_datetime64
 from regionmap.io.stations import _read_csv_lines
 from regionmap.snow.codes import GRAIN_CODES, GRAIN_INDEX
 from regionmap.snow.hardness import density_from_hardness_array, parse_hand_hardness
@@ -200,13 +201,6 @@ def _liquid_frac(text: str, where: str) -> float:
         f"{where}: unknown wetness {text!r}; expected D, M, W, V or S (Fierz et al. 2009) or "
         "two neighbours such as 'M-W'."
     )
-
-
-def _parse_time(text: str, where: str) -> np.datetime64:
-    stamp = pd.to_datetime(text.strip(), format="ISO8601", utc=True, errors="coerce")
-    if pd.isna(stamp):
-        raise InputError(f"{where}: expected an ISO-8601 time such as '2026-02-10T09:30Z', got {text!r}.")
-    return np.datetime64(stamp.tz_convert(None).to_datetime64(), "s")
 
 
 def _build_profile(
@@ -412,7 +406,7 @@ def read_caaml_profile(path: str | Path) -> ObservedProfile:
             f"Profile file {path}: required element timeRef/recordTime/TimeInstant/timePosition "
             "(the observation time) is missing."
         )
-    time = _parse_time(time_text, f"Profile file {path}, timePosition")
+    time = utc_datetime64(time_text, f"Profile file {path}, timePosition")
     meas = doc.find(root, "snowProfileResultsOf/SnowProfileMeasurements")
     if meas is None:
         raise InputError(f"Profile file {path}: required element snowProfileResultsOf/SnowProfileMeasurements is missing.")
@@ -546,7 +540,7 @@ def read_csv_profile(path: str | Path) -> ObservedProfile:
             f"Profile file {path}: the observation time is missing; add a line "
             "'# time: 2026-02-10T09:30Z' above the header."
         )
-    time = _parse_time(meta["time"], f"Profile file {path}, '# time:' line")
+    time = utc_datetime64(meta["time"], f"Profile file {path}, '# time:' line")
     air_k = np.nan
     if "air_temperature_degC" in meta:
         try:

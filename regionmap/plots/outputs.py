@@ -22,6 +22,7 @@ import pandas as pd
 import xarray as xr
 
 from regionmap.errors import InputError
+from regionmap.io.times import utc_datetime64
 from regionmap.summaries import band_label, cell_values, summarise
 
 __all__ = ["Metric", "METRICS", "RunOutputs", "SECTOR_ORDER", "metric"]
@@ -75,16 +76,6 @@ def metric(name: str) -> Metric:
         return METRICS[name]
     except KeyError:
         raise InputError(f"unknown metric {name!r}; expected one of {sorted(METRICS)}") from None
-
-
-def _parse_time(text, what: str) -> np.datetime64:
-    try:
-        ts = pd.Timestamp(text)
-    except (ValueError, TypeError):
-        raise InputError(f"{what}: cannot read {text!r} as a time; expected ISO 8601 like 2026-02-15T12:00 (UTC)") from None
-    if ts.tzinfo is not None:
-        ts = ts.tz_convert("UTC").tz_localize(None)
-    return np.datetime64(ts.to_datetime64(), "s")
 
 
 class RunOutputs:
@@ -299,7 +290,7 @@ class RunOutputs:
     def time_in_run(self, value, *, what: str = "--time") -> np.datetime64:
         """Parse a time and check it lies inside the run's output times; the nearest output
         time at or before it is returned."""
-        t = _parse_time(value, what)
+        t = utc_datetime64(value, what)
         times = self.times
         if t < times[0] or t > times[-1]:
             raise InputError(f"{what}: {t} is outside the run ({times[0]} … {times[-1]} UTC); "
