@@ -39,19 +39,25 @@ def _direct(z, ds, window, inv_r, floor0, step):
     return out
 
 
-@settings(deadline=None, max_examples=80)
-@given(n=st.integers(1, 90), window=st.integers(1, 30), seed=st.integers(0, 10_000), floor0=st.booleans(),
-       curvature=st.booleans())
-def test_two_way_hull_scan_equals_direct_maximum_dozier_frew1990(n, window, seed, floor0, curvature):
-    # Both directions of one line from a single pair of hull passes, against the definition
-    # of Dozier & Frew (1990) evaluated point by point.
+def random_line(n, seed, curvature):
+    """A random elevation profile with gaps and a trend, its curvature-lowered copy, the
+    spacing and 1/R (exaggerated when ``curvature``)."""
     rng = np.random.default_rng(seed)
     ds = 25.0
     inv_r = (1.0 / 6.371e6) * 1e3 if curvature else 0.0  # exaggerated curvature
     z = rng.normal(size=n) * rng.uniform(0.1, 80) + rng.uniform(-10, 10) * np.arange(n)
     z[rng.random(n) < 0.15] = np.nan
     t = np.arange(n) * ds
-    w = z - 0.5 * inv_r * t * t
+    return z, z - 0.5 * inv_r * t * t, ds, inv_r
+
+
+@settings(deadline=None, max_examples=80)
+@given(n=st.integers(1, 90), window=st.integers(1, 30), seed=st.integers(0, 10_000), floor0=st.booleans(),
+       curvature=st.booleans())
+def test_two_way_hull_scan_equals_direct_maximum_dozier_frew1990(n, window, seed, floor0, curvature):
+    # Both directions of one line from a single pair of hull passes, against the definition
+    # of Dozier & Frew (1990) evaluated point by point.
+    z, w, ds, inv_r = random_line(n, seed, curvature)
     out_lo, out_hi = np.empty(n), np.empty(n)
     _scan_line_pair(w, n, window, ds, inv_r, floor0, True, np.empty(n), np.empty(n, np.int64), np.empty(n),
                     np.empty(n), out_lo, out_hi)
