@@ -2,15 +2,17 @@
 
 Anderson (1976), NOAA Tech. Rep. NWS 19, as written by Jordan (1991), CRREL Special Report
 91-16 ("SNTHERM.89"), Eqs. 34-36 (recalled [mem]).
+
+The functions are written without branches and with :func:`regionmap.snow.vecmath.exp_vec`,
+so the kernel's loop over layers vectorises.
 """
 
 from __future__ import annotations
 
-import math
-
 from numba import njit
 
 from regionmap.snow.constants import T_MELT_K
+from regionmap.snow.vecmath import exp_vec
 
 __all__ = [
     "viscosity_anderson1976",
@@ -19,7 +21,7 @@ __all__ = [
 ]
 
 
-@njit(cache=True, nogil=True, error_model="numpy")
+@njit(cache=True, nogil=True, error_model="numpy", inline="always")
 def viscosity_anderson1976(density_kg_m3, t_k, eta0_pa_s, c_t_per_k, c_rho_m3_kg):
     """Compactive viscosity of snow (Anderson 1976; Jordan 1991).
 
@@ -39,10 +41,10 @@ def viscosity_anderson1976(density_kg_m3, t_k, eta0_pa_s, c_t_per_k, c_rho_m3_kg
     float
         eta = eta0 exp(c_t (273.15 - T)) exp(c_rho rho) [N s m-2].
     """
-    return eta0_pa_s * math.exp(c_t_per_k * (T_MELT_K - t_k) + c_rho_m3_kg * density_kg_m3)
+    return eta0_pa_s * exp_vec(c_t_per_k * (T_MELT_K - t_k) + c_rho_m3_kg * density_kg_m3)
 
 
-@njit(cache=True, nogil=True, error_model="numpy")
+@njit(cache=True, nogil=True, error_model="numpy", inline="always")
 def destructive_settling_rate_anderson1976(density_kg_m3, t_k, wet, rate0_per_s, rho_d_kg_m3):
     """Destructive (metamorphic) settling of new snow (Anderson 1976; Jordan 1991, Eq. 35).
 
@@ -65,14 +67,12 @@ def destructive_settling_rate_anderson1976(density_kg_m3, t_k, wet, rate0_per_s,
         Magnitude of the strain rate [s-1]: c1 c3 c4 exp(-0.04 (273.15 - T)) with
         c3 = exp(-0.046 (rho - rho_d)) above rho_d.
     """
-    x = -0.04 * (T_MELT_K - t_k)
-    if density_kg_m3 > rho_d_kg_m3:
-        x -= 0.046 * (density_kg_m3 - rho_d_kg_m3)  # c3
+    x = -0.04 * (T_MELT_K - t_k) - 0.046 * max(density_kg_m3 - rho_d_kg_m3, 0.0)  # c3
     c4 = 2.0 if wet else 1.0
-    return rate0_per_s * c4 * math.exp(x)
+    return rate0_per_s * c4 * exp_vec(x)
 
 
-@njit(cache=True, nogil=True, error_model="numpy")
+@njit(cache=True, nogil=True, error_model="numpy", inline="always")
 def compaction_strain_rate(
     density_kg_m3, t_k, wet, load_pa, eta0_pa_s, c_t_per_k, c_rho_m3_kg, rate0_per_s, rho_d_kg_m3
 ):
@@ -81,11 +81,10 @@ def compaction_strain_rate(
     Ice layers (density above 800 kg m-3) do not compact; destructive settling is left out
     above 350 kg m-3, where its density factor c3 is below 1e-5.
     """
-    if density_kg_m3 >= 800.0:
-        return 0.0
-    eta = viscosity_anderson1976(density_kg_m3, t_k, eta0_pa_s, c_t_per_k, c_rho_m3_kg)
-    rate = load_pa / eta
-    if density_kg_m3 < 350.0:  # above, c3 < 1e-5: destructive settling has ended
-        rate += destructive_settling_rate_anderson1976(
-            density_kg_m3, t_k, wet, rate0_per_s, rho_d_kg_m3)
-    return rate
+    eta = viscosity_anderson1976(min(density_kg_m3, 800.0), t_k, eta0_pa_s, c_t_per_k,
+                                 c_rho_m3_kg)
+    destructive = destructive_settling_rate_anderson1976(density_kg_m3, t_k, wet, rate0_per_s,
+                                                         rho_d_kg_m3)
+    # above 350 kg m-3, c3 < 1e-5: destructive settling has ended
+    rate = load_pa / eta + (destructive if density_kg_m3 < 350.0 else 0.0)
+    return rate if density_kg_m3 < 800.0 else 0.0

@@ -337,25 +337,34 @@ def _energy_and_conduction(fw, n, sv, ta, q_air, pres, wind, sw_in, lw_in, q_ext
                                    p[P_SOIL_WATER_KG_M3], p[P_SOIL_FREEZING_RANGE_K])
         sn[i] = 0.0
     model_k = int(p[P_CONDUCTIVITY_MODEL])
-    for l in range(n):
+    thick_w = fw[F_THICK]
+    ice_w = fw[F_ICE]
+    liq_w = fw[F_LIQ]
+    temp_w = fw[F_TEMP]
+    for l in range(n):  # vectorises
         j = ns + l
-        dzn[j] = fw[F_THICK, l]
-        dens = fw[F_ICE, l] / max(fw[F_THICK, l], 1e-9)
+        dzn[j] = thick_w[l]
+        dens = ice_w[l] / max(thick_w[l], 1e-9)
         dens_w[l] = dens  # kept for the shortwave penetration below
         kn[j] = snow_conductivity(model_k, dens)
-        cn[j] = C_ICE_J_KG_K * fw[F_ICE, l] + C_WATER_J_KG_K * fw[F_LIQ, l]
-        tn[j] = fw[F_TEMP, l]
+        cn[j] = C_ICE_J_KG_K * ice_w[l] + C_WATER_J_KG_K * liq_w[l]
+        tn[j] = temp_w[l]
         sn[j] = 0.0
     albedo = sv[V_ALBEDO]
     sw_abs = (1.0 - albedo) * sw_in if n > 0 else 0.0
     remaining = sw_abs - p[P_SW_SURFACE_FRAC] * sw_abs
     sw_surf = p[P_SW_SURFACE_FRAC] * sw_abs + q_extra  # heat absorbed at the skin
-    for l in range(n - 1, -1, -1):
-        if remaining <= 1e-6:  # below a microwatt: nothing left to absorb
-            break
-        a = remaining * penetration_fraction(dens_w[l], fw[F_GRAIN, l], fw[F_THICK, l])
-        sn[ns + l] = a
-        remaining -= a
+    if remaining > 1e-6:
+        absorbed_frac = sol  # free until the back substitution below
+        grain_w = fw[F_GRAIN]
+        for l in range(n):  # vectorises
+            absorbed_frac[l] = penetration_fraction(dens_w[l], grain_w[l], thick_w[l])
+        for l in range(n - 1, -1, -1):
+            if remaining <= 1e-6:  # below a microwatt: nothing left to absorb
+                break
+            a = remaining * absorbed_frac[l]
+            sn[ns + l] = a
+            remaining -= a
     sw_snow = sw_abs - p[P_SW_SURFACE_FRAC] * sw_abs - remaining
     if n > 0:
         sn[ns - 1] += remaining  # what passes the snow warms the soil
@@ -515,8 +524,11 @@ def _wet_flags_and_crusts(fw, iw, n, rain_event, rain_wetting, solar_melt, now_s
 
 
 @njit(cache=True, nogil=True, error_model="numpy")
-def _compact(fw, n, dt, p):
-    """Settle every layer under its overburden plus destructive settling (backward Euler)."""
+def _compact(fw, n, dt, p, load_w):
+    """Settle every layer under its overburden plus destructive settling (backward Euler).
+
+    ``load_w`` (>= n,) work array: the mass above each layer's centre [kg m-2]. The loop
+    over layers has no branches and vectorises."""
     eta0 = p[P_COMPACTION_ETA0_PA_S]
     c_t = p[P_COMPACTION_C_T_PER_K]
     c_rho = p[P_COMPACTION_C_RHO_M3_KG]
@@ -524,24 +536,64 @@ def _compact(fw, n, dt, p):
     rho_d = p[P_SETTLING_RHO_D_KG_M3]
     load = 0.0
     for i in range(n - 1, -1, -1):
-        ice = fw[F_ICE, i]
-        liq = fw[F_LIQ, i]
-        thick = fw[F_THICK, i]
-        m = ice + liq
+        m = fw[F_ICE, i] + fw[F_LIQ, i]
+        load_w[i] = load + 0.5 * m
+        load += m
+    thick_w = fw[F_THICK]
+    ice_w = fw[F_ICE]
+    liq_w = fw[F_LIQ]
+    temp_w = fw[F_TEMP]
+    for i in range(n):
+        ice = ice_w[i]
+        liq = liq_w[i]
+        thick = thick_w[i]
         dens = ice / max(thick, 1e-9)
-        rate = compaction_strain_rate(dens, fw[F_TEMP, i], liq > 0.0,
-                                      GRAVITY_M_S2 * (load + 0.5 * m), eta0, c_t, c_rho, rate0,
-                                      rho_d)
+        rate = compaction_strain_rate(dens, temp_w[i], liq > 0.0, GRAVITY_M_S2 * load_w[i],
+                                      eta0, c_t, c_rho, rate0, rho_d)
         dz = thick / (1.0 + rate * dt)
         dz_min = ice / RHO_ICE_KG_M3 + liq / RHO_WATER_KG_M3
-        fw[F_THICK, i] = max(dz, dz_min)
-        load += m
+        thick_w[i] = max(dz, dz_min)
 
 
 @njit(cache=True, nogil=True, error_model="numpy")
-def _metamorphose(fw, iw, n, sv, ts, dt, p):
+def _layer_gradients(fw, n, sv, ts, grad_w, centre_w):
+    """Hourly temperature gradient across each layer [K m-1] (from the temperatures of the
+    neighbours above and below, the surface on top and the top soil node at the base) and
+    the depth of each layer's centre [m]."""
+    depth = 0.0
+    t_up = ts
+    for i in range(n - 1, -1, -1):
+        dz = fw[F_THICK, i]
+        d_up = 0.5 * dz if i == n - 1 else 0.5 * (dz + fw[F_THICK, i + 1])
+        if i == 0:
+            t_dn = sv[V_SOIL + N_SOIL - 1]
+            d_dn = 0.5 * (dz + _SOIL_DZ[N_SOIL - 1])
+        else:
+            t_dn = fw[F_TEMP, i - 1]
+            d_dn = 0.5 * (dz + fw[F_THICK, i - 1])
+        grad_w[i] = (t_up - t_dn) / (d_up + d_dn)
+        t_up = fw[F_TEMP, i]
+        centre_w[i] = depth + 0.5 * dz
+        depth += dz
+
+
+@njit(cache=True, nogil=True, error_model="numpy")
+def _is_wet(liq, dz):
+    return liq / (RHO_WATER_KG_M3 * max(dz, 1e-9)) > 1e-4
+
+
+@njit(cache=True, nogil=True, error_model="numpy")
+def _metamorphose(fw, iw, n, sv, ts, dt, p, grad_w, centre_w, arr_w):
     """Grain evolution of every layer from its hourly temperature gradient, temperature,
-    density and wetness; then its grain class."""
+    density and wetness; then its grain class.
+
+    Three passes: the dry-snow laws for every layer, without branches so the loop
+    vectorises (faceting or rounding and kinetic growth; ice layers, surface hoar and wet
+    layers keep their values); then, layer by layer, the decomposition of new snow and the
+    wet-snow laws for the few layers they concern; then, again vectorised, the clamping and
+    the grain class (ice layers unchanged, dry crusts keep their class).
+    ``grad_w``, ``centre_w``, ``arr_w`` (>= n,) are work arrays.
+    """
     days = dt / 86400.0
     g_round = p[P_GRADIENT_ROUND_K_M]
     g_strong = p[P_GRADIENT_STRONG_K_M]
@@ -550,54 +602,55 @@ def _metamorphose(fw, iw, n, sv, ts, dt, p):
     kinetic = p[P_KINETIC_GROWTH_M_S]
     near_m = p[P_NEAR_SURFACE_DEPTH_M]
     dh_min = p[P_DEPTH_HOAR_MIN_GRAIN_MM]
-    depth = 0.0
-    t_up = ts
-    for i in range(n - 1, -1, -1):
-        dz = fw[F_THICK, i]
-        if i == n - 1:
-            d_up = 0.5 * dz
-        else:
-            d_up = 0.5 * (dz + fw[F_THICK, i + 1])
-        if i == 0:
-            t_dn = sv[V_SOIL + N_SOIL - 1]
-            d_dn = 0.5 * (dz + _SOIL_DZ[N_SOIL - 1])
-        else:
-            t_dn = fw[F_TEMP, i - 1]
-            d_dn = 0.5 * (dz + fw[F_THICK, i - 1])
-        t = fw[F_TEMP, i]
-        grad = (t_up - t_dn) / (d_up + d_dn)
-        t_up = t  # temperatures are not changed by this pass
-        centre = depth + 0.5 * dz
-        depth += dz
+    _layer_gradients(fw, n, sv, ts, grad_w, centre_w)
+    thick_w = fw[F_THICK]
+    ice_w = fw[F_ICE]
+    liq_w = fw[F_LIQ]
+    temp_w = fw[F_TEMP]
+    grain_w = fw[F_GRAIN]
+    facet_w = fw[F_FACET]
+    code_w = iw[I_CODE]
+    for i in range(n):
+        dz = thick_w[i]
+        t = temp_w[i]
+        grad = grad_w[i]
+        dens = ice_w[i] / max(dz, 1e-9)
+        # one exponential per layer serves decomposition and rounding
+        arr = arrhenius_ratio_6000(t)
+        arr_w[i] = arr
+        f = facet_w[i] + facetedness_rate(t, dens, grad, g_round, g_strong, facet_rate,
+                                          round_rate, arr) * days
+        gs = grain_growth_marbouty1980(grain_w[i], t, dens, grad, dt, kinetic)
+        code = code_w[i]
+        dry_snow = code != _IF and code != _SH and not _is_wet(liq_w[i], dz)
+        facet_w[i] = f if dry_snow else facet_w[i]
+        grain_w[i] = gs if dry_snow else grain_w[i]
+    for i in range(n):
         code = iw[I_CODE, i]
-        if code == _IF:
-            continue
-        dens = fw[F_ICE, i] / max(dz, 1e-9)
-        m = fw[F_ICE, i] + fw[F_LIQ, i]
-        wet = fw[F_LIQ, i] / (RHO_WATER_KG_M3 * max(dz, 1e-9)) > 1e-4
+        wet = _is_wet(fw[F_LIQ, i], fw[F_THICK, i])
         d = fw[F_DEND, i]
-        f = fw[F_FACET, i]
-        gs = fw[F_GRAIN, i]
-        if wet:
-            pct = 100.0 * fw[F_LIQ, i] / max(m, 1e-12)
-            d = d - dendricity_rate_brun1992(t, grad, pct) * days
-            f = f - 1.0 * days
-            gs = grain_growth_wet_brun1989(gs, pct, dt)
-        elif code != _SH:
-            # one exponential per layer serves decomposition and rounding
-            arr = arrhenius_ratio_6000(t) if d > 0.0 or abs(grad) < g_round else 0.0
-            if d > 0.0:
-                d = d - dry_dendricity_rate_brun1992(arr, grad) * days
-            f = f + facetedness_rate(t, dens, grad, g_round, g_strong, facet_rate, round_rate,
-                                     arr) * days
-            gs = grain_growth_marbouty1980(gs, t, dens, grad, dt, kinetic)
-        fw[F_DEND, i] = min(max(d, 0.0), 1.0)
-        fw[F_FACET, i] = min(max(f, 0.0), 1.0)
-        fw[F_GRAIN, i] = gs
-        if iw[I_CRUST, i] != 0 and code == _MFCR and not wet:
+        if code == _IF or not (wet or (code != _SH and d > 0.0)):
             continue
-        iw[I_CODE, i] = classify_grain(code, fw[F_DEND, i], fw[F_FACET, i], gs, wet,
-                                       centre < near_m, dh_min)
+        if wet:
+            pct = 100.0 * fw[F_LIQ, i] / max(fw[F_ICE, i] + fw[F_LIQ, i], 1e-12)
+            fw[F_DEND, i] = d - dendricity_rate_brun1992(fw[F_TEMP, i], grad_w[i], pct) * days
+            fw[F_FACET, i] = fw[F_FACET, i] - 1.0 * days
+            fw[F_GRAIN, i] = grain_growth_wet_brun1989(fw[F_GRAIN, i], pct, dt)
+        else:
+            fw[F_DEND, i] = d - dry_dendricity_rate_brun1992(arr_w[i], grad_w[i]) * days
+    dend_w = fw[F_DEND]
+    crust_w = iw[I_CRUST]
+    for i in range(n):
+        code = code_w[i]
+        wet = _is_wet(liq_w[i], thick_w[i])
+        d = min(max(dend_w[i], 0.0), 1.0)
+        f = min(max(facet_w[i], 0.0), 1.0)
+        new_code = classify_grain(code, d, f, grain_w[i], wet, centre_w[i] < near_m, dh_min)
+        is_ice = code == _IF
+        dry_crust = (crust_w[i] != 0) & (code == _MFCR) & (not wet)
+        dend_w[i] = dend_w[i] if is_ice else d
+        facet_w[i] = facet_w[i] if is_ice else f
+        code_w[i] = code if is_ice | dry_crust else new_code
 
 
 @njit(cache=True, nogil=True, error_model="numpy")
@@ -776,8 +829,8 @@ def _step(fw, iw, sv, si, ring_m, ring_d, ta, rh, pres, wind_raw, sw_in, lw_in, 
                                    p[P_IRREDUCIBLE_PORE_FRAC], p[P_POND_PORE_FRAC], 0.0)
     acc[A_RUNOFF] = runoff
     _wet_flags_and_crusts(fw, iw, n, si[J_RAIN_EV], rain_wetting, solar_melt, now_s, p)
-    _compact(fw, n, dt, p)
-    _metamorphose(fw, iw, n, sv, ts, dt, p)
+    _compact(fw, n, dt, p, wk[0])
+    _metamorphose(fw, iw, n, sv, ts, dt, p, wk[1], wk[2], wk[3])
     # surface hoar destruction: into the top layer
     if sv[V_SH_MASS] > 0.0:
         if n == 0:

@@ -9,6 +9,10 @@ near-surface facets, radiation recrystallisation and facets beside crusts come o
 physics. Regimes after Colbeck (1983), J. Geophys. Res. 88(C9), 5475-5482,
 doi:10.1029/JC088iC09p05475: below ~10 K m-1 rounding, above ~10-20 K m-1 faceting, strong
 growth from ~25 K m-1.
+
+The dry-snow laws (Marbouty factors, faceting, the Arrhenius term) are inlined into the
+kernel's loop over layers and use :func:`regionmap.snow.vecmath.exp_vec`, so that loop
+vectorises.
 """
 
 from __future__ import annotations
@@ -18,6 +22,7 @@ import math
 from numba import njit
 
 from regionmap.snow.constants import T_MELT_K
+from regionmap.snow.vecmath import exp_vec
 
 __all__ = [
     "marbouty_temperature_factor",
@@ -36,7 +41,7 @@ __all__ = [
 PP, DF, RG, RGXF, FC, FCXR, FCSF, DH, SH, MF, MFCR, IF = 1, 2, 3, 4, 5, 6, 7, 8, 9, 10, 11, 12
 
 
-@njit(cache=True, nogil=True, error_model="numpy")
+@njit(cache=True, nogil=True, error_model="numpy", inline="always")
 def marbouty_temperature_factor(t_k):
     """Temperature factor of kinetic grain growth, peak at -6 degC (Marbouty 1980, Fig. 8).
 
@@ -44,42 +49,33 @@ def marbouty_temperature_factor(t_k):
     Marbouty, D. (1980), J. Glaciol. 26(94), 303-312, doi:10.3189/S0022143000010844
     """
     t_c = t_k - T_MELT_K
-    if t_c <= -40.0:
-        return 0.0
-    if t_c <= -22.0:
-        return 0.2 * (t_c + 40.0) / 18.0
-    if t_c <= -6.0:
-        return 0.2 + 0.05 * (t_c + 22.0)
-    return max(1.0 - 0.05 * (t_c + 6.0), 0.7)
+    # every piece is evaluated and one selected: no branches, so kernel loops vectorise
+    cold = 0.2 * (t_c + 40.0) / 18.0
+    mid = 0.2 + 0.05 * (t_c + 22.0)
+    warm = max(1.0 - 0.05 * (t_c + 6.0), 0.7)
+    return warm if t_c > -6.0 else (mid if t_c > -22.0 else (cold if t_c > -40.0 else 0.0))
 
 
-@njit(cache=True, nogil=True, error_model="numpy")
+@njit(cache=True, nogil=True, error_model="numpy", inline="always")
 def marbouty_density_factor(density_kg_m3):
     """Density factor of kinetic growth: 1 up to 150 kg m-3, 0 from 350 (Marbouty 1980 [mem])."""
-    if density_kg_m3 <= 150.0:
-        return 1.0
-    return max(1.0 - (density_kg_m3 - 150.0) / 200.0, 0.0)
+    return 1.0 if density_kg_m3 <= 150.0 else max(1.0 - (density_kg_m3 - 150.0) / 200.0, 0.0)
 
 
-@njit(cache=True, nogil=True, error_model="numpy")
+@njit(cache=True, nogil=True, error_model="numpy", inline="always")
 def marbouty_gradient_factor(gradient_k_m):
     """Gradient factor of kinetic growth (Marbouty 1980, recalled breakpoints [mem]).
 
     0 below 15 K m-1, 0.1 at 25, 0.655 at 40, 1 from 50 K m-1, linear between.
     """
     g = abs(gradient_k_m)
-    if g < 15.0:
-        return 0.0
-    if g < 25.0:
-        return 0.01 * (g - 15.0)
-    if g < 40.0:
-        return 0.1 + 0.037 * (g - 25.0)
-    if g < 50.0:
-        return 0.655 + 0.0345 * (g - 40.0)
-    return 1.0
+    low = 0.01 * (g - 15.0)
+    mid = 0.1 + 0.037 * (g - 25.0)
+    high = 0.655 + 0.0345 * (g - 40.0)
+    return (0.0 if g < 15.0 else low) if g < 25.0 else (mid if g < 40.0 else (high if g < 50.0 else 1.0))
 
 
-@njit(cache=True, nogil=True, error_model="numpy")
+@njit(cache=True, nogil=True, error_model="numpy", inline="always")
 def grain_growth_marbouty1980(grain_mm, t_k, density_kg_m3, gradient_k_m, dt_s, rate_m_s):
     """Kinetic (faceted) grain growth over one step [mm]: d_new = d + rate f(T) h(rho) g(G) dt.
 
@@ -104,12 +100,12 @@ def grain_growth_wet_brun1989(grain_mm, liquid_mass_pct, dt_s):
     return (6.0 * v / math.pi) ** (1.0 / 3.0)
 
 
-@njit(cache=True, nogil=True, error_model="numpy")
+@njit(cache=True, nogil=True, error_model="numpy", inline="always")
 def arrhenius_ratio_6000(t_k):
     """exp(-6000 K (1/T - 1/T0)): the temperature dependence shared by dry decomposition
     (Brun et al. 1992) and rounding (below), relative to 0 degC [1]. Computed once per layer
     and step by the kernel and handed to both rates."""
-    return math.exp(-6000.0 / t_k + 6000.0 / T_MELT_K)
+    return exp_vec(-6000.0 / t_k + 6000.0 / T_MELT_K)
 
 
 #: 2e8 exp(-6000 / T0) [day-1]: the dry decomposition rate of Brun et al. (1992) at 0 degC
@@ -136,7 +132,7 @@ def dry_dendricity_rate_brun1992(arrhenius_ratio, gradient_k_m):
     return _DRY_DECOMPOSITION_T0_PER_DAY * arrhenius_ratio * g**0.4
 
 
-@njit(cache=True, nogil=True, error_model="numpy")
+@njit(cache=True, nogil=True, error_model="numpy", inline="always")
 def facetedness_rate(t_k, density_kg_m3, gradient_k_m, g_round_k_m, g_strong_k_m,
                      facet_per_day, round_per_day, arrhenius_ratio):
     """Change of facetedness [day-1] under the hourly gradient magnitude (our law).
@@ -148,14 +144,14 @@ def facetedness_rate(t_k, density_kg_m3, gradient_k_m, g_round_k_m, g_strong_k_m
     decomposition rate, so the kernel evaluates it once per layer).
     """
     g = abs(gradient_k_m)
-    if g >= g_round_k_m:
-        ramp = min((g - g_round_k_m) / (g_strong_k_m - g_round_k_m), 1.0)
-        dens = min(max(1.0 - (density_kg_m3 - 300.0) / 200.0, 0.0), 1.0)
-        return facet_per_day * marbouty_temperature_factor(t_k) * ramp * dens
-    return -round_per_day * (1.0 - g / g_round_k_m) * arrhenius_ratio
+    ramp = min((g - g_round_k_m) / (g_strong_k_m - g_round_k_m), 1.0)
+    dens = min(max(1.0 - (density_kg_m3 - 300.0) / 200.0, 0.0), 1.0)
+    faceting = facet_per_day * marbouty_temperature_factor(t_k) * ramp * dens
+    rounding = -round_per_day * (1.0 - g / g_round_k_m) * arrhenius_ratio
+    return faceting if g >= g_round_k_m else rounding
 
 
-@njit(cache=True, nogil=True, error_model="numpy")
+@njit(cache=True, nogil=True, error_model="numpy", inline="always")
 def classify_grain(old_code, dendricity, facetedness, grain_mm, wet, near_surface,
                    dh_min_grain_mm):
     """Grain class (index into GRAIN_CODES) from the layer's microstructure state.
@@ -166,27 +162,16 @@ def classify_grain(old_code, dendricity, facetedness, grain_mm, wet, near_surfac
     in the top layers, ``near_surface``); 0.25 <= f < 0.5 -> FCxr when coming from facets,
     RGxf otherwise; else RG (MF and MFcr stay melt forms once dry, MFcr is set by crusts).
     """
-    if old_code == IF or old_code == SH and not wet:
-        return old_code
-    if wet:
-        return MF
-    if old_code == MF or old_code == MFCR or old_code == DH:
-        return old_code
-    faceted = old_code == FC or old_code == FCSF or old_code == FCXR
-    if dendricity >= 0.5:
-        return PP
-    if dendricity > 0.1 and facetedness < 0.5:
-        return DF
-    if facetedness >= 0.9 and grain_mm >= dh_min_grain_mm:
-        return DH
-    if facetedness >= 0.5:
-        if old_code == FCSF or (not faceted and near_surface):
-            return FCSF
-        if faceted and old_code != FCXR:
-            return old_code
-        return FC
-    if facetedness >= 0.25:
-        if faceted:
-            return FCXR
-        return RGXF
-    return RG
+    faceted = (old_code == FC) | (old_code == FCSF) | (old_code == FCXR)
+    keeps = (old_code == IF) | ((old_code == SH) & (not wet))
+    stays_dry = (old_code == MF) | (old_code == MFCR) | (old_code == DH)
+    fc_kind = FCSF if (old_code == FCSF) | ((not faceted) & near_surface) else (
+        old_code if faceted & (old_code != FCXR) else FC)
+    # the dry-snow rules in order, as one chain of selects (no branches: kernel loops over
+    # layers vectorise)
+    dry = PP if dendricity >= 0.5 else (
+        DF if (dendricity > 0.1) & (facetedness < 0.5) else (
+            DH if (facetedness >= 0.9) & (grain_mm >= dh_min_grain_mm) else (
+                fc_kind if facetedness >= 0.5 else (
+                    (FCXR if faceted else RGXF) if facetedness >= 0.25 else RG))))
+    return old_code if keeps else (MF if wet else (old_code if stays_dry else dry))

@@ -6,6 +6,8 @@ import math
 
 from numba import njit
 
+from regionmap.snow.vecmath import exp_vec
+
 __all__ = ["albedo_douville1995", "extinction_coefficient_jordan1991", "penetration_fraction"]
 
 
@@ -54,7 +56,7 @@ def albedo_douville1995(albedo, melting, snowfall_kg_m2, dt_s, albedo_min, albed
     return min(max(a, albedo_min), albedo_max)
 
 
-@njit(cache=True, nogil=True, error_model="numpy")
+@njit(cache=True, nogil=True, error_model="numpy", inline="always")
 def extinction_coefficient_jordan1991(density_kg_m3, grain_size_mm):
     """Bulk shortwave extinction coefficient of snow [m-1].
 
@@ -65,7 +67,7 @@ def extinction_coefficient_jordan1991(density_kg_m3, grain_size_mm):
     return 3.795e-3 * density_kg_m3 / math.sqrt(d_m)
 
 
-@njit(cache=True, nogil=True, error_model="numpy")
+@njit(cache=True, nogil=True, error_model="numpy", inline="always")
 def penetration_fraction(density_kg_m3, grain_size_mm, thickness_m):
     """Fraction of the shortwave entering a layer that is absorbed in it (Beer-Lambert)."""
-    return 1.0 - math.exp(-extinction_coefficient_jordan1991(density_kg_m3, grain_size_mm) * thickness_m)
+    return 1.0 - exp_vec(-extinction_coefficient_jordan1991(density_kg_m3, grain_size_mm) * thickness_m)
