@@ -74,6 +74,46 @@ def test_geographic_dem_is_analysed_on_its_utm_view(tmp_path):
     assert np.nanmedian(t.aspect_deg[inner]) == pytest.approx(180.0, abs=3.0)  # grid convergence < 3 deg
 
 
+def test_geographic_dem_aspect_and_horizon_are_relative_to_true_north(tmp_path):
+    # A lon/lat DEM 2.5 deg east of its UTM zone's central meridian (zone 32, 9 E) at 60 N:
+    # there UTM grid north is turned from true north by the meridian convergence, about
+    # dlon sin(lat) = 2.2 deg (Snyder 1987, USGS PP 1395, Transverse Mercator [mem]). The
+    # plane is built in true local east/north metres, so its aspect and its horizon toward
+    # each true azimuth are known [calc]; without the correction both are off by ~2 deg.
+    from regionmap.io.writers import write_geotiff
+
+    lat0, lon0, d = 60.06, 11.47, 0.0004
+    ny, nx = 150, 150
+    lat = lat0 - d * (np.arange(ny) + 0.5)
+    lon = lon0 + d * (np.arange(nx) + 0.5)
+    lat_c = np.radians(lat.mean())
+    m_lat = 111_132.95 - 559.82 * np.cos(2 * lat_c)  # metres per degree of latitude [mem]
+    m_lon = 111_412.84 * np.cos(lat_c)  # metres per degree of longitude [mem]
+    north_m = (lat[:, None] - lat.mean()) * m_lat
+    east_m = (lon[None, :] - lon.mean()) * m_lon
+    slope, aspect = 20.0, 130.0  # true north, clockwise
+    grad = np.tan(np.radians(slope))
+    z = 1500.0 - grad * (east_m * np.sin(np.radians(aspect)) + north_m * np.cos(np.radians(aspect)))
+    p = tmp_path / "geo_east.tif"
+    write_geotiff(p, z.astype(np.float64), transform=Affine(d, 0, lon0, 0, -d, lat0), crs="EPSG:4326",
+                  nodata=-9999.0, description="elevation", cog=False)
+    s = TerrainSettings(n_azimuths=36, horizon_distance_m=300.0, exposure_directions=8, earth_curvature=False)
+    t = compute_terrain(read_dem(p), s)
+    inner = (slice(40, -40), slice(40, -40))
+    assert np.nanmedian(t.slope_deg[inner]) == pytest.approx(slope, abs=0.05)
+    assert np.nanmedian(t.aspect_deg[inner]) == pytest.approx(aspect, abs=0.3)
+    # On the plane tan(horizon) toward azimuth phi is max(0, tan S cos(phi - up)) and the
+    # upwind slope tan(Sx) for wind from phi is tan S cos(phi - up), up = aspect - 180 the
+    # upslope azimuth [calc]; both are symmetric about up, so the phase of their first
+    # azimuthal harmonic is up (a phase is insensitive to the resampling noise of the
+    # UTM view, which moves single angles by a few tenths of a degree).
+    for bands, phi in ((t.horizon_deg, t.horizon_azimuths_deg), (t.sx_deg, t.sx_directions_deg)):
+        tan_b = np.tan(np.radians(bands[:, inner[0], inner[1]].reshape(phi.size, -1)))
+        harmonic = (tan_b * np.exp(1j * np.radians(phi))[:, None]).sum(axis=0)
+        phase = np.degrees(np.angle(np.exp(-1j * np.radians(aspect + 180.0)) * harmonic))
+        assert np.nanmedian(phase) == pytest.approx(0.0, abs=0.5)
+
+
 def test_write_terrain_layers_writes_each_layer_on_the_dem_grid(tmp_path):
     import rasterio
 

@@ -1,8 +1,10 @@
 """Terrain analysis on the DEM grid: slope, aspect, curvature, horizon, sky view, exposure.
 
 All kernels run on a metric grid; a geographic DEM is analysed on its UTM view
-(:meth:`regionmap.io.dem.Dem.metric`) and the results are brought back to the DEM grid.
-Azimuths and aspects are relative to grid north of the grid they were computed on.
+(:meth:`regionmap.io.dem.Dem.metric`) and the results are brought back to the DEM grid,
+where aspects and the azimuths of horizon and Sx bands are turned from UTM grid north to
+true north by the meridian convergence. On a projected DEM they stay relative to the
+DEM's own grid north.
 """
 
 from __future__ import annotations
@@ -145,16 +147,71 @@ def compute_terrain(dem: Dem, settings: TerrainSettings | None = None, *, progre
 
 
 def _back_to_grid(m: Dem, dem: Dem, slope, aspect, curv, horizon, sky, sx):
-    """Bilinear reprojection from the metric view to the DEM grid (aspect via its unit vector)."""
+    """Bilinear reprojection from the metric view to the DEM grid (aspect via its unit
+    vector), then aspects and azimuth bands from the view's grid north to true north."""
     a = np.radians(aspect)
     vec = reproject_to_grid(np.stack([np.sin(a), np.cos(a), slope, curv, sky]), m, dem)
     aspect_out = np.degrees(np.arctan2(vec[0], vec[1])) % 360.0
     aspect_out[(vec[0] == 0) & (vec[1] == 0) | np.isnan(vec[0])] = np.nan
     slope_out, curv_out, sky_out = vec[2], vec[3], vec[4]
     aspect_out[np.isnan(slope_out)] = np.nan
-    horizon_out = reproject_to_grid(horizon, m, dem).astype(np.float32)
-    sx_out = reproject_to_grid(sx, m, dem).astype(np.float32)
+    gamma = _meridian_convergence_deg(m.crs, dem)
+    aspect_out = (aspect_out + gamma) % 360.0
+    horizon_out = _bands_at_true_azimuths(reproject_to_grid(horizon, m, dem), gamma).astype(np.float32)
+    sx_out = _bands_at_true_azimuths(reproject_to_grid(sx, m, dem), gamma).astype(np.float32)
     return slope_out, aspect_out, curv_out, horizon_out, sky_out, sx_out
+
+
+def _meridian_convergence_deg(projected_crs, dem: Dem, lattice: int = 33) -> np.ndarray:
+    """Meridian convergence γ [deg] of ``projected_crs`` at the pixel centres of a lon/lat
+    ``dem``: a direction of grid azimuth α_g has true azimuth α_g + γ.
+
+    γ (pyproj ``Factors.meridian_convergence``) is evaluated on a lattice of at most
+    ``lattice`` x ``lattice`` pixels and interpolated bilinearly (it varies smoothly,
+    ≈ Δλ sin φ on a Transverse Mercator grid, Snyder 1987, USGS PP 1395).
+    """
+    from pyproj import Proj
+
+    ny, nx = dem.shape
+    t = dem.transform
+    r_s = np.unique(np.linspace(0, ny - 1, min(ny, lattice)).round())
+    c_s = np.unique(np.linspace(0, nx - 1, min(nx, lattice)).round())
+    rr, cc = np.meshgrid(r_s + 0.5, c_s + 0.5, indexing="ij")
+    lon = t.c + t.a * cc + t.b * rr
+    lat = t.f + t.d * cc + t.e * rr
+    g_s = np.asarray(Proj(projected_crs.to_wkt()).get_factors(lon, lat).meridian_convergence)
+    g_rows = _lerp_axis(g_s, r_s, np.arange(ny), 0)
+    return _lerp_axis(g_rows, c_s, np.arange(nx), 1)
+
+
+def _lerp_axis(values: np.ndarray, at: np.ndarray, to: np.ndarray, axis: int) -> np.ndarray:
+    """Linear interpolation of ``values`` given at increasing positions ``at`` along
+    ``axis`` to the positions ``to`` (inside the range of ``at``)."""
+    if at.size == 1:
+        return np.repeat(values, to.size, axis=axis)
+    i = np.clip(np.searchsorted(at, to, side="right") - 1, 0, at.size - 2)
+    w = (to - at[i]) / (at[i + 1] - at[i])
+    shape = [1, 1]
+    shape[axis] = -1
+    w = w.reshape(shape)
+    return np.take(values, i, axis=axis) * (1.0 - w) + np.take(values, i + 1, axis=axis) * w
+
+
+def _bands_at_true_azimuths(bands: np.ndarray, gamma_deg: np.ndarray) -> np.ndarray:
+    """Bands (n, y, x) at equally spaced grid azimuths k·360/n turned to the same true
+    azimuths: true azimuth α is grid azimuth α − γ, interpolated linearly (circularly)
+    between the two neighbouring bands."""
+    n = bands.shape[0]
+    f = -gamma_deg / (360.0 / n)
+    j = np.floor(f)
+    w = f - j
+    j = j.astype(np.int64)
+    out = np.empty_like(bands)
+    for k in range(n):  # over the few azimuth bands; pixels are vectorised
+        lo = np.take_along_axis(bands, ((k + j) % n)[None], axis=0)[0]
+        hi = np.take_along_axis(bands, ((k + j + 1) % n)[None], axis=0)[0]
+        out[k] = (1.0 - w) * lo + w * hi
+    return out
 
 
 def write_terrain_layers(
