@@ -102,28 +102,34 @@ def conduction_forward_sweep(m, t_k, k_w_m_k, c_j_m2_k, dz_m, source_w_m2, dt_s,
     y_top : float
         Top temperature at the end of the step if G = 0 [K].
     """
-    # interface conductances first (independent of each other: this loop vectorises),
-    # parked in ``cprime``, which the sweep overwrites node by node after reading them
-    for i in range(m - 1):
-        cprime[i] = 1.0 / (0.5 * dz_m[i] / k_w_m_k[i] + 0.5 * dz_m[i + 1] / k_w_m_k[i + 1])
     beta = 0.0
     k_lo = 0.0
+    r_lo = 0.5 * dz_m[0] / k_w_m_k[0]  # half-layer thermal resistance of node i
     for i in range(m):
         diag = c_j_m2_k[i] / dt_s
         rhs = diag * t_k[i] + source_w_m2[i]
-        lower = -k_lo
-        if i == 0:
+        lower = 0.0
+        if i > 0:
+            diag += k_lo
+            lower = -k_lo
+        else:
             diag += k_bottom_w_m2_k
             rhs += k_bottom_w_m2_k * t_bottom_k
+        upper = 0.0
+        if i < m - 1:
+            r_up = 0.5 * dz_m[i + 1] / k_w_m_k[i + 1]
+            k_up = 1.0 / (r_lo + r_up)
+            diag += k_up
+            upper = -k_up
+            k_lo = k_up
+            r_lo = r_up
+        if i == 0:
+            beta = diag
+            y[0] = rhs / beta
         else:
-            diag += k_lo
-        k_up = cprime[i] if i < m - 1 else 0.0
-        diag += k_up
-        beta = diag if i == 0 else diag - lower * cprime[i - 1]
-        inv_beta = 1.0 / beta
-        y[i] = (rhs if i == 0 else rhs - lower * y[i - 1]) * inv_beta
-        cprime[i] = -k_up * inv_beta
-        k_lo = k_up
+            beta = diag - lower * cprime[i - 1]
+            y[i] = (rhs - lower * y[i - 1]) / beta
+        cprime[i] = upper / beta
     return beta, y[m - 1]
 
 
