@@ -579,7 +579,8 @@ def _layer_gradients(fw, n, sv, ts, grad_w, centre_w):
 
 @njit(cache=True, nogil=True, error_model="numpy")
 def _is_wet(liq, dz):
-    return liq / (RHO_WATER_KG_M3 * max(dz, 1e-9)) > 1e-4
+    """Liquid volume fraction above 1e-4 (written without a division)."""
+    return liq > 1e-4 * RHO_WATER_KG_M3 * max(dz, 1e-9)
 
 
 @njit(cache=True, nogil=True, error_model="numpy")
