@@ -130,7 +130,8 @@ def bench_overhead(args, folder: Path) -> dict:
     direct = time.perf_counter() - t0
     with dask_client() as client:
         t0 = time.perf_counter()
-        futures = [client.submit(simulate_chunk, ctx, lo, hi, state_slice(state, lo, hi), pure=False) for lo, hi in chunks]
+        ctx_f = client.scatter(ctx, broadcast=True)  # as the runner does: once, not per task
+        futures = [client.submit(simulate_chunk, ctx_f, lo, hi, state_slice(state, lo, hi), pure=False) for lo, hi in chunks]
         client.gather(futures)
         via_dask = time.perf_counter() - t0
     frac = via_dask / direct - 1.0

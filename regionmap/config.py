@@ -204,6 +204,8 @@ class DownscaleSection(_Section):
     lapse_rate_k_per_km: Annotated[float, Field(ge=0, le=12)] = 6.5
     precip_coefficient_scale: Annotated[float, Field(ge=0, le=1)] = 0.5
     precip_factor_bounds: tuple[float, float] = (0.5, 1.5)
+    #: zone-conserving exposure drift of precipitation; chunks then hold whole zones, so a
+    #: run's memory grows with its largest zone
     drift: bool = False
     phase: Literal["jennings2018", "wet_bulb", "air_temperature"] = "jennings2018"
     phase_threshold_c: Annotated[float, Field(ge=-3, le=4)] = 1.0

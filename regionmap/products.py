@@ -67,6 +67,9 @@ def _member_presence(ctx, state0, event: pd.Series, control: np.ndarray, table: 
         return np.repeat(control[None, :], len(ENSEMBLE_MEMBERS), axis=0), {"cells": 0, "steps": 0, "seconds": 0.0}
     lo_z, hi_z = z[control].min() - _ENSEMBLE_MARGIN_M, z[control].max() + _ENSEMBLE_MARGIN_M
     cells = np.nonzero((z >= lo_z) & (z <= hi_z))[0]
+    if ctx.downscale.drift:  # drift is normalised per zone: re-simulate whole zones
+        zone = ctx.batch.zone_code
+        cells = np.nonzero(np.isin(zone, zone[cells]))[0]
     p = ctx.period
     times = p.times
     first_ev = np.datetime64(event["first_time"], "s")

@@ -238,9 +238,30 @@ def plan_period(forcing_time: np.ndarray, *, state_time=None, analysis_time=None
     return Period(first, split, stop, t)
 
 
-def chunk_ranges(n_cells: int, chunk_size: int) -> list[tuple[int, int]]:
-    """Contiguous [lo, hi) cell-position ranges of at most ``chunk_size`` cells."""
-    edges = list(range(0, n_cells, max(int(chunk_size), 1))) + [n_cells]
+def chunk_ranges(n_cells: int, chunk_size: int, groups: np.ndarray | None = None) -> list[tuple[int, int]]:
+    """Contiguous [lo, hi) cell-position ranges of at most ``chunk_size`` cells.
+
+    With ``groups`` (cell,) — e.g. the zone of each cell, each group one contiguous run — a
+    range never splits a group: whole groups are packed up to ``chunk_size`` cells (a larger
+    group is a range of its own). Zone-conserving drift needs this, so that its per-zone
+    normalisation, and with it every result, does not depend on the chunk size.
+    """
+    size = max(int(chunk_size), 1)
+    if groups is None:
+        edges = list(range(0, n_cells, size)) + [n_cells]
+        return list(zip(edges[:-1], edges[1:]))
+    groups = np.asarray(groups)
+    if n_cells == 0:
+        return []
+    starts = np.concatenate([[0], np.nonzero(groups[1:] != groups[:-1])[0] + 1])
+    if np.unique(groups[starts]).size != starts.size:
+        raise RuntimeError("chunk_ranges: the cells of a group must be contiguous")  # a bug, not bad input
+    edges, prev = [0], 0
+    for end in [*starts[1:].tolist(), n_cells]:  # the end of each group
+        if end - edges[-1] > size and prev > edges[-1]:
+            edges.append(prev)
+        prev = end
+    edges.append(n_cells)
     return list(zip(edges[:-1], edges[1:]))
 
 

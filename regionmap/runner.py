@@ -217,7 +217,8 @@ def execute(cfg: Config, *, out_dir: Path | None = None, continue_from: Path | N
     map_time = _map_time(cfg, out_times, period)
     snapshot_hour = int((map_time.astype("datetime64[h]").astype(np.int64)) % 24)
     n_par = max(1, workers or (os.cpu_count() or 1))
-    chunks = chunk_ranges(batch.n_cells, _effective_chunk_size(batch.n_cells, cfg.run.chunk_size, n_par))
+    chunks = chunk_ranges(batch.n_cells, _effective_chunk_size(batch.n_cells, cfg.run.chunk_size, n_par),
+                          batch.zone_code if dsettings.drift else None)  # drift: whole zones per chunk
     ctx = RunContext(cfg=cfg, batch=batch, downscale=dsettings, snow=params, period=period,
                      diag_every_h=diag_every, snapshot_hour_utc=snapshot_hour,
                      kernel_threads=max(1, n_par // max(1, min(len(chunks), n_par))) if not (workers or scheduler) else 1,
@@ -462,7 +463,8 @@ def write_cell_forcing(cfg: Config, out_dir: Path, *, force: bool = False, progr
                                              "wind_height_m": float(gf.heights_m["wind"]),
                                              "temperature_height_m": float(gf.heights_m["temperature"])})
         try:
-            for lo, hi in tqdm(chunk_ranges(batch.n_cells, cfg.run.chunk_size), desc="cell chunks",
+            groups = batch.zone_code if dsettings.drift else None  # drift: whole zones per chunk
+            for lo, hi in tqdm(chunk_ranges(batch.n_cells, cfg.run.chunk_size, groups), desc="cell chunks",
                                unit="chunk", disable=not progress):
                 f = downscale_cells(gf, batch.subset(np.arange(lo, hi)), dsettings)
                 writer.write_chunk(np.arange(lo, hi), {name: getattr(f, name) for name in FORCING_VARS})

@@ -242,3 +242,33 @@ def test_an_existing_cluster_via_scheduler_address(scenario, reference, tmp_path
                       worker_dashboard_address=None, silence_logs=40) as cluster:
         run(config(scenario, "ref"), tmp_path / "out", scheduler=cluster.scheduler_address)
     assert_same(read(reference[0]), read(tmp_path / "out"))
+
+
+def test_chunks_keep_groups_whole():
+    from regionmap.run import chunk_ranges
+
+    zones = np.repeat([0, 1, 2, 3], [5, 300, 20, 40])
+    assert chunk_ranges(zones.size, 50, zones) == [(0, 5), (5, 305), (305, 325), (325, 365)]
+    assert chunk_ranges(zones.size, 30, zones) == [(0, 5), (5, 305), (305, 325), (325, 365)]
+    assert chunk_ranges(zones.size, 330, zones) == [(0, 325), (325, 365)]
+    assert chunk_ranges(zones.size, 10_000, zones) == [(0, 365)]
+    with pytest.raises(RuntimeError):
+        chunk_ranges(4, 2, np.array([0, 1, 0, 1]))
+
+
+def test_drift_results_do_not_depend_on_chunking(scenario, tmp_path):
+    # zone-conserving drift normalises per zone and step: chunks must keep zones whole
+    from regionmap.demo import demo_zones
+    from regionmap.io.writers import write_geojson
+
+    write_geojson(scenario / "two_zones.geojson", demo_zones().iloc[[1, 2]])
+    base = config(scenario, "drift", step=500, start="2026-01-18T01:00")
+    outs = []
+    for size in (1000, 7):
+        cfg = base.model_copy(update={
+            "region": base.region.model_copy(update={"zones": scenario / "two_zones.geojson"}),
+            "downscale": base.downscale.model_copy(update={"drift": True}),
+            "run": base.run.model_copy(update={"chunk_size": size})})
+        run(cfg, tmp_path / f"out{size}")
+        outs.append(read(tmp_path / f"out{size}"))
+    assert_same(outs[0], outs[1])
