@@ -28,7 +28,9 @@ def sx_at_direction(sx_deg: np.ndarray, directions_deg: np.ndarray, wind_from_de
     Returns
     -------
     ndarray (cell, time) float64
-        Sx interpolated circularly in direction [deg].
+        Sx interpolated circularly in direction [deg]. A direction whose Sx is NaN (a cell on
+        the DEM's edge with no upwind pixel inside the DEM) counts as 0: no shelter and no
+        exposure, the wind and precipitation of the grid left unadjusted.
     """
     d = np.asarray(directions_deg, dtype=np.float64)
     ext = np.concatenate([d, [d[0] + 360.0]])
@@ -37,7 +39,7 @@ def sx_at_direction(sx_deg: np.ndarray, directions_deg: np.ndarray, wind_from_de
     lo = hi - 1
     frac = (w - ext[lo]) / (ext[hi] - ext[lo])
     hi = np.where(hi == d.size, 0, hi)
-    sx = np.asarray(sx_deg, dtype=np.float64)
+    sx = np.nan_to_num(np.asarray(sx_deg, dtype=np.float64), nan=0.0)
     a = np.take_along_axis(sx, lo, axis=1)
     b = np.take_along_axis(sx, hi, axis=1)
     return a + frac * (b - a)

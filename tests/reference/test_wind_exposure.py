@@ -16,6 +16,15 @@ def test_sx_interpolated_circularly_between_directions():
     assert got[0, 3] == pytest.approx(0.0, abs=1e-4)
 
 
+def test_sx_unknown_upwind_counts_as_neutral():
+    # an edge cell with no upwind pixel inside the DEM has NaN Sx in that direction; its wind
+    # stays as the grid gives it (Sx 0, factor 1) instead of turning the forcing into NaN
+    sx = np.array([[np.nan, 10, 20, 30, 40, 50, 60, 70]])
+    got = wind.sx_at_direction(sx, np.arange(0, 360, 45.0), np.array([[0.0, 22.5, 90.0]]))
+    np.testing.assert_allclose(got[0], [0.0, 5.0, 20.0], atol=1e-12)
+    assert wind.wind_factor_winstral_sx(got[:, :1])[0, 0] == 1.0
+
+
 def test_liston_sturm1998_slope_term():
     # Liston & Sturm (1998), J. Glaciol. 44(148), Eqs. 15-16 [mem]: Omega_s = beta cos(omega - xi)
     # scaled to +-0.5, factor 1 + gamma_s Omega_s with gamma_s = 0.5 -> 1.25 facing into
