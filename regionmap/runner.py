@@ -321,14 +321,15 @@ def execute(cfg: Config, *, out_dir: Path | None = None, continue_from: Path | N
 
 
 def _profile_fields(snaps: dict) -> dict:
-    """Snapshot arrays in profiles.nc form (codes as strings, unused slots empty)."""
-    from regionmap.snow.codes import crust_codes_to_strings, grain_codes_to_strings
-
+    """Snapshot arrays in profiles.nc form (codes as fixed-width byte strings, unused slots
+    empty; looked up from the code tables, so no per-element string conversion)."""
     used = np.arange(snaps["thickness_m"].shape[2])[None, None, :] < snaps["layer_count"][:, :, None]
     out = {k: snaps[k] for k in ("thickness_m", "ice_kg_m2", "liquid_kg_m2", "temperature_k", "grain_size_mm",
                                  "hardness_index", "deposition_time", "formation_time", "event_id")}
-    out["grain_class"] = np.where(used, grain_codes_to_strings(snaps["grain_code"]), "")
-    out["crust_kind"] = np.where(used, crust_codes_to_strings(snaps["crust_code"]), "")
+    for name, table, codes in (("grain_class", GRAIN_CODES, snaps["grain_code"]),
+                               ("crust_kind", CRUST_KINDS, snaps["crust_code"])):
+        text = np.array(table, dtype=LAYER_VARS[name][0])[np.asarray(codes, dtype=np.intp)]
+        out[name] = np.where(used, text, b"")
     return out
 
 

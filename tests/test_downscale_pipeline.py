@@ -123,13 +123,20 @@ def test_inversion_in_the_grid_survives_grid_lapse():
     assert np.all(monthly.t_air_k[high] < cf.t_air_k[high] - 1.0)
 
 
-def test_grid_points_read_once_per_time_block_and_chunk_invariance():
+def test_grid_points_read_once_per_span_and_chunk_invariance(monkeypatch):
+    import regionmap.downscale.pipeline as pipeline
+
     grid = make_grid(n_t=72)
     batch = make_batch(grid)
     a = downscale_cells(grid, batch, DownscaleSettings(time_block_h=24, chunk_cells=7))
-    assert grid.reads == 3  # 72 h in blocks of 24 h, all chunks served by one read each
+    assert grid.reads == 1  # all 72 h fit the read budget: one read serves every block and chunk
     b = downscale_cells(grid, batch, DownscaleSettings(time_block_h=72, chunk_cells=1000))
-    assert grid.reads == 4
+    assert grid.reads == 2
+    monkeypatch.setattr(pipeline, "READ_BUDGET_BYTES", 1)  # spans shrink to one block each
+    c = downscale_cells(grid, batch, DownscaleSettings(time_block_h=24, chunk_cells=7))
+    assert grid.reads == 5
+    for name in ("t_air_k", "rh_frac", "sw_in_w_m2", "lw_in_w_m2", "precip_kg_m2", "wind_m_s"):
+        np.testing.assert_array_equal(getattr(a, name), getattr(c, name))
     for name in ("t_air_k", "rh_frac", "sw_in_w_m2", "lw_in_w_m2", "precip_kg_m2", "wind_m_s"):
         np.testing.assert_allclose(getattr(a, name), getattr(b, name), rtol=1e-12, atol=1e-9)
     assert a.wind_height_m == 10.0 and a.temp_height_m == 2.0

@@ -168,10 +168,33 @@ def _precip_matrices(wmat: sp.csr_matrix, dz_pair: np.ndarray, months: np.ndarra
     return out
 
 
+#: memory for one span of grid-point values read at once [bytes]
+READ_BUDGET_BYTES = 256 * 2**20
+
+
 def _read(gf, names, iy, ix, tslice) -> dict:
     raw = gf.read_block(names, iy, ix, tslice)
     return {k: np.ascontiguousarray(np.moveaxis(np.asarray(v, dtype=np.float64), 0, -1))
             for k, v in raw.items()}
+
+
+def _downscale_block(grid_forcing, chunks, settings, data, z_pts, time, month_idx, cols, out, sx_all):
+    """Downscale every cell chunk over the hours ``cols`` (positions in ``time``) from the grid
+    values ``data`` of those hours, into ``out`` (and the drift's Sx into ``sx_all``)."""
+    for sel, chunk, carry in chunks:
+        res = _chunk_block(grid_forcing, chunk, settings, data, z_pts, time[cols], month_idx[cols],
+                           carry)
+        for name in out:
+            out[name][sel, cols] = res[name]
+        if sx_all is not None:
+            sx_all[sel, cols] = res["_sx_now"]
+
+
+def _n_levels(grid_forcing) -> int:
+    """Vertical levels of the upper-air temperature, 0 without it."""
+    if getattr(grid_forcing, "upper_air_temperature", None) is None:
+        return 0
+    return int(np.size(getattr(grid_forcing, "upper_air_pressure_pa", 0)))
 
 
 def _chunk_block(gf, batch: CellBatch, settings, data, z_pts, time, month_idx, carry):
@@ -407,17 +430,19 @@ def downscale_cells(
         chunk.weights = local
         chunks.append((sel, chunk, {}))
 
-    for t0 in range(start, stop, settings.time_block_h):
-        t1 = min(t0 + settings.time_block_h, stop)
-        data = _read(grid_forcing, names, iy, ix, slice(t0, t1))
-        cols = slice(t0 - start, t1 - start)
-        for sel, chunk, carry in chunks:
-            res = _chunk_block(grid_forcing, chunk, settings, data, z_pts, time[cols],
-                               month_idx[cols], carry)
-            for name in out:
-                out[name][sel, cols] = res[name]
-            if sx_all is not None:
-                sx_all[sel, cols] = res["_sx_now"]
+    # the grid points are read in long spans (one file access per variable and span, bounded
+    # by READ_BUDGET_BYTES) and the cells computed in blocks of time_block_h hours of a span
+    per_hour = max(points.size * (len(names) + _n_levels(grid_forcing)) * 8, 1)
+    span_h = max(settings.time_block_h, READ_BUDGET_BYTES // per_hour // settings.time_block_h
+                 * settings.time_block_h)
+    for r0 in range(start, stop, span_h):
+        r1 = min(r0 + span_h, stop)
+        span = _read(grid_forcing, names, iy, ix, slice(r0, r1))
+        for t0 in range(r0, r1, settings.time_block_h):
+            t1 = min(t0 + settings.time_block_h, r1)
+            data = {k: np.ascontiguousarray(v[..., t0 - r0:t1 - r0]) for k, v in span.items()}
+            _downscale_block(grid_forcing, chunks, settings, data, z_pts, time, month_idx,
+                             slice(t0 - start, t1 - start), out, sx_all)
 
     if settings.drift:
         zone = np.unique(cells_subset.zone_code, return_inverse=True)[1]

@@ -278,7 +278,8 @@ class ProfilesNcWriter(_StreamingNc):
             if name in fields:
                 values = np.asarray(fields[name])
                 if dtype.startswith("S"):
-                    text = np.asarray(values, dtype=object).astype(str).astype(dtype)
+                    text = (values.astype(dtype) if values.dtype.kind == "S"
+                            else np.asarray(values, dtype=object).astype(str).astype(dtype))
                     self._nc.variables[name][lo:hi] = netCDF4.stringtochar(text)
                 else:
                     self._nc.variables[name][lo:hi, :, :] = values
