@@ -588,11 +588,12 @@ def _metamorphose(fw, iw, n, sv, ts, dt, p, grad_w, centre_w, arr_w):
     """Grain evolution of every layer from its hourly temperature gradient, temperature,
     density and wetness; then its grain class.
 
-    Three passes: the dry-snow laws for every layer, without branches so the loop
-    vectorises (faceting or rounding and kinetic growth; ice layers, surface hoar and wet
-    layers keep their values); then, layer by layer, the decomposition of new snow and the
-    wet-snow laws for the few layers they concern; then, again vectorised, the clamping and
-    the grain class (ice layers unchanged, dry crusts keep their class).
+    After the gradients (:func:`_layer_gradients`), three passes: the dry-snow laws for
+    every layer, without branches so the loop vectorises (faceting or rounding and kinetic
+    growth; ice layers, surface hoar and wet layers keep their values); then, layer by layer,
+    the decomposition of new snow and the wet-snow laws for the few layers they concern;
+    then, again vectorised, the clamping and the grain class (ice layers unchanged, dry
+    crusts keep their class).
     ``grad_w``, ``centre_w``, ``arr_w`` (>= n,) are work arrays.
     """
     days = dt / 86400.0
