@@ -22,6 +22,7 @@ import pandas as pd
 import xarray as xr
 
 from regionmap.errors import InputError
+from regionmap.io.results import NETCDF_LOCKS
 from regionmap.io.times import utc_datetime64
 from regionmap.summaries import band_label, cell_values, summarise
 
@@ -126,7 +127,7 @@ class RunOutputs:
         import netCDF4
 
         path = self.path("profiles.nc")
-        with netCDF4.Dataset(path) as nc:
+        with NETCDF_LOCKS, netCDF4.Dataset(path) as nc:  # HDF5 is not thread-safe
             vlen = [name for name, v in nc.variables.items() if v.dtype is str]
         return xr.open_dataset(path, engine="netcdf4", drop_variables=vlen), vlen
 
@@ -137,7 +138,9 @@ class RunOutputs:
 
         _, vlen = self._profiles_numeric
         found = {}
-        with netCDF4.Dataset(self.path("profiles.nc")) as nc:
+        if not vlen:  # fixed-width character variables (this version's files) came with xarray
+            return found
+        with NETCDF_LOCKS, netCDF4.Dataset(self.path("profiles.nc")) as nc:
             for name in vlen:
                 v = nc[name]
                 index = tuple(days if dim == "day" else slice(None) for dim in v.dimensions)
