@@ -59,6 +59,9 @@ MAX_TRACKED_LAYERS = 2
 TABLE_WEAK_LAYERS, TABLE_CRUSTS = 5, 3
 #: size limit of report.html [bytes] (DESIGN §3).
 REPORT_MAX_BYTES = 10 * 2**20
+#: embedded images stop at this many bytes; later figures (regions of many zones) are listed
+#: by file name only, so the report stays under REPORT_MAX_BYTES with its tables.
+FIGURE_BUDGET_BYTES = 8 * 2**20
 #: widest embedded image [px].
 _THUMB_MAX_PX = int(round(1000 * REPORT_DPI / 72))
 
@@ -455,10 +458,15 @@ def write_report(out_dir) -> Path:
         rain = []
         if "rain_crust_text" in zones.columns:
             rain = [(z, t) for z, t in zip(zones["zone"], zones["rain_crust_text"]) if isinstance(t, str) and t.strip()]
-        sections = []
+        sections, embedded = [], 0
         for sid, title, note in _SECTIONS:
-            figs = [{"uri": _data_uri(f.thumb_png), "caption": f.caption, "name": f.path.name,
-                     "width": f.size[0], "height": f.size[1]} for f in figures if f.section == sid]
+            figs = []
+            for f in (f for f in figures if f.section == sid):
+                uri = _data_uri(f.thumb_png)
+                fits = embedded + len(uri) <= FIGURE_BUDGET_BYTES
+                embedded += len(uri) if fits else 0
+                figs.append({"uri": uri if fits else None, "caption": f.caption, "name": f.path.name,
+                             "width": f.size[0], "height": f.size[1]})
             if figs:
                 sections.append({"id": sid, "title": title, "note": note, "figures": figs})
         v_text, v_cols, v_rows = _verification(out)

@@ -6,6 +6,7 @@ from __future__ import annotations
 
 import base64
 import os
+import re
 import shutil
 from pathlib import Path
 
@@ -81,6 +82,19 @@ def test_report_without_verification_skips_the_section_with_a_note_and_lists_fig
     assert not (folder / "report.html").exists()
     text = write_report(folder).read_text(encoding="utf-8")
     assert "No station verification results in this output folder" in text
+
+
+def test_report_of_many_figures_lists_those_over_the_image_budget(tmp_path, monkeypatch):
+    # a region of many zones must still get its report: images beyond the budget are listed
+    import regionmap.report as report_module
+
+    folder = build_output_folder(tmp_path / "out", with_verification=False)
+    monkeypatch.setattr(report_module, "FIGURE_BUDGET_BYTES", 200_000)
+    text = write_report(folder).read_text(encoding="utf-8")
+    listed = re.findall(r"not embedded, to keep this report under 10 MB; see figures/(\S+\.png)", text)
+    assert listed and all((folder / "figures" / name).is_file() for name in listed)
+    images = re.findall(r'<img src="(data:image/png;base64,[^"]+)"', text)
+    assert images and sum(map(len, images)) <= 200_000
 
 
 def test_data_uri_never_spells_http():
