@@ -22,7 +22,6 @@ import pandas as pd
 import xarray as xr
 
 from regionmap.errors import InputError
-from regionmap.io.results import NETCDF_LOCKS
 from regionmap.io.times import utc_datetime64
 from regionmap.summaries import band_label, cell_values, summarise
 
@@ -120,74 +119,32 @@ class RunOutputs:
         return xr.open_dataset(self.path("cells.nc"), engine="netcdf4")
 
     @cached_property
-    def _profiles_numeric(self) -> tuple[xr.Dataset, list[str]]:
-        """``profiles.nc`` opened lazily without its variable-length string variables (xarray
-        reads those whole at opening, then converts them to fixed-width strings: seconds for
-        a season of layers), and the names of those variables."""
-        import netCDF4
-
-        path = self.path("profiles.nc")
-        with NETCDF_LOCKS, netCDF4.Dataset(path) as nc:  # HDF5 is not thread-safe
-            vlen = [name for name, v in nc.variables.items() if v.dtype is str]
-        return xr.open_dataset(path, engine="netcdf4", drop_variables=vlen), vlen
-
-    def _read_strings(self, days: slice) -> dict:
-        """The variable-length string variables on ``days`` (positions along ``day``), read
-        straight from netCDF4 as object arrays: name → (dims, values)."""
-        import netCDF4
-
-        _, vlen = self._profiles_numeric
-        found = {}
-        if not vlen:  # fixed-width character variables (this version's files) came with xarray
-            return found
-        with NETCDF_LOCKS, netCDF4.Dataset(self.path("profiles.nc")) as nc:
-            for name in vlen:
-                v = nc[name]
-                index = tuple(days if dim == "day" else slice(None) for dim in v.dimensions)
-                found[name] = (v.dimensions, np.asarray(v[index], dtype=object))
-        return found
-
-    @cached_property
     def profiles(self) -> xr.Dataset:
-        """``profiles.nc``: numeric variables opened lazily, the string variables
-        (``grain_class``, ``crust_kind``) read at once as object arrays."""
-        ds, _ = self._profiles_numeric
-        ds = ds.copy()
-        for name, value in self._read_strings(slice(None)).items():
-            ds[name] = value
-        return ds
+        """``profiles.nc``, opened lazily (its grain-class and crust-kind codes are
+        fixed-width character variables that xarray decodes to strings)."""
+        return xr.open_dataset(self.path("profiles.nc"), engine="netcdf4")
 
     @property
     def profile_days(self) -> np.ndarray:
         """Valid times of the daily snapshots in ``profiles.nc`` (datetime64[s])."""
-        return self._profiles_numeric[0]["day"].values.astype("datetime64[s]")
+        return self.profiles["day"].values.astype("datetime64[s]")
 
     def snapshot_position(self, t: np.datetime64) -> int:
         """Position along ``day`` of the last daily snapshot at or before ``t`` (-1: none)."""
         return int(np.searchsorted(self.profile_days, np.datetime64(t, "s"), side="right") - 1)
 
     def profiles_on_day(self, d: int) -> xr.Dataset:
-        """``profiles.nc`` restricted to the snapshot at position ``d`` (``day`` of length 1);
-        reads only that day's strings unless the whole file is already in memory."""
-        return self._profiles_on(slice(d, d + 1))
+        """``profiles.nc`` restricted to the snapshot at position ``d`` (``day`` of length 1),
+        lazily: only that day is read when its values are used."""
+        return self.profiles.isel(day=slice(d, d + 1))
 
     def profiles_from_day(self, d: int) -> xr.Dataset:
         """``profiles.nc`` from the snapshot at position ``d`` to the last one (kept for the
-        next call with the same ``d``); reads only those days' strings unless the whole file
-        is already in memory."""
+        next call with the same ``d``), lazily."""
         cache = self.__dict__.setdefault("_from_day", {})
         if d not in cache:
-            cache[d] = self._profiles_on(slice(max(d, 0), None))
+            cache[d] = self.profiles.isel(day=slice(max(d, 0), None))
         return cache[d]
-
-    def _profiles_on(self, days: slice) -> xr.Dataset:
-        if "profiles" in self.__dict__:
-            return self.profiles.isel(day=days)
-        ds, _ = self._profiles_numeric
-        ds = ds.isel(day=days)
-        for name, value in self._read_strings(days).items():
-            ds[name] = value
-        return ds
 
     @cached_property
     def table(self) -> pd.DataFrame:
@@ -352,5 +309,3 @@ class RunOutputs:
             if name in self.__dict__:
                 self.__dict__.pop(name).close()
         self.__dict__.pop("_from_day", None)
-        if "_profiles_numeric" in self.__dict__:
-            self.__dict__.pop("_profiles_numeric")[0].close()
