@@ -30,7 +30,7 @@ __all__ = ["DIAGNOSTICS", "AMOUNTS", "CellsNcWriter", "ProfilesNcWriter"]
 _EPOCH = "seconds since 1970-01-01 00:00:00"
 
 
-NETCDF_LOCKS = CombinedLock([NETCDFC_LOCK, HDF5_LOCK])
+_NETCDF_LOCKS = CombinedLock([NETCDFC_LOCK, HDF5_LOCK])
 
 
 def _hdf5_locked(method):
@@ -42,7 +42,7 @@ def _hdf5_locked(method):
 
     @functools.wraps(method)
     def wrapper(*args, **kwargs):
-        with NETCDF_LOCKS:
+        with _NETCDF_LOCKS:
             return method(*args, **kwargs)
 
     return wrapper
