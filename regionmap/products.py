@@ -55,7 +55,8 @@ def _weights(region, cfg: Config) -> pd.DataFrame:
 def _member_presence(ctx, state0, event: pd.Series, control: np.ndarray, table: pd.DataFrame) -> tuple[np.ndarray, dict]:
     """Crust presence of each ensemble member for one event: only cells near the control
     crust's elevation range are re-simulated, only from a day before the event to two days
-    after it; elsewhere members keep the control's presence."""
+    after it (the control state there comes from the run's checkpoints, see
+    :mod:`regionmap.checkpoints`); elsewhere members keep the control's presence."""
     from regionmap.rain_crust import rain_crust_presence
     from regionmap.run import _forcing_for, _perturbed, state_take
     from regionmap.downscale.pipeline import downscale_cells
@@ -78,10 +79,15 @@ def _member_presence(ctx, state0, event: pd.Series, control: np.ndarray, table: 
     stop = min(p.stop, int(np.searchsorted(times, last_ev + np.timedelta64(_AFTER_H * 3600, "s"), side="right")))
     gf = _forcing_for(ctx)
     batch = ctx.batch.subset(cells)
-    # the control state at the start of the window, for these cells only
-    state = state_take(state0, cells)
-    if start > p.first:
-        spin = downscale_cells(gf, batch, ctx.downscale, slice(p.first, start))
+    # the control state at the start of the window, for these cells only: stepped on from
+    # the latest state the run saved before it (or from the run's start state)
+    if ctx.checkpoints is None:
+        state = state_take(state0, cells)
+    else:
+        state = ctx.checkpoints.latest(times[start] - np.timedelta64(3600, "s"), cells, state0)
+    resume = max(p.first, int(np.searchsorted(times, np.datetime64(state.time, "s"), side="right")))
+    if start > resume:
+        spin = downscale_cells(gf, batch, ctx.downscale, slice(resume, start))
         state, _, _ = run_columns(state, spin, ctx.snow, 1, with_snapshots=False, threads=2)
     window = downscale_cells(gf, batch, ctx.downscale, slice(start, stop))
     members = np.repeat(control[None, :], len(ENSEMBLE_MEMBERS), axis=0)
@@ -91,7 +97,7 @@ def _member_presence(ctx, state0, event: pd.Series, control: np.ndarray, table: 
         _, _, snaps = run_columns(state, f, ctx.snow, 1, None, threads=2)
         ds = snapshots_to_dataset(snaps, batch.cell_id).swap_dims({"day": "time"}).rename({"time": "day"})
         members[m, cells] = rain_crust_presence(ds, formed_between=formed)
-    cost = {"cells": int(cells.size), "steps": int(stop - p.first), "member_steps": int(stop - start),
+    cost = {"cells": int(cells.size), "steps": int(stop - resume), "member_steps": int(stop - start),
             "seconds": round(_time.perf_counter() - t0, 3)}
     return members, cost
 

@@ -468,8 +468,9 @@ def _join_parts(parts: list[dict], time_key: str = "time") -> dict:
 
 def run_columns_with_restarts(state: SnowState, forcing, chunk_restarts, params: SnowParams,
                               diag_every_h: int = 1, snapshot_hour_utc: int | None = None, *,
-                              with_snapshots: bool = True, threads: int = 2):
-    """:func:`regionmap.snow.column.run_columns` over one part of the period, split at restarts.
+                              with_snapshots: bool = True, threads: int = 2, kept: dict | None = None):
+    """:func:`regionmap.snow.column.run_columns` over one part of the period, split at restarts
+    (and at the times of ``kept``).
 
     Parameters
     ----------
@@ -483,6 +484,11 @@ def run_columns_with_restarts(state: SnowState, forcing, chunk_restarts, params:
         next step (so a restart at the boundary of two parts belongs to the later part).
     params, diag_every_h, snapshot_hour_utc, with_snapshots, threads
         As for ``run_columns``.
+    kept : dict or None
+        {valid time (datetime64[s]): anything}; each time inside this part (from the
+        state's time to before the last step's) becomes a split point and its value is
+        replaced by the state valid then, after the restarts due then (continuing a column
+        is exact, so the split changes nothing else).
 
     Returns
     -------
@@ -508,9 +514,14 @@ def run_columns_with_restarts(state: SnowState, forcing, chunk_restarts, params:
             raise InputError(f"restart at {t_state + np.timedelta64(3600 * c, 's')} is not on a "
                              f"diagnostics boundary ({diag_every_h} h); resolve restarts with the run's "
                              "diag_every_h")
+    keep = {int((k - t_state) // np.timedelta64(3600, "s")): k for k in (kept or {})
+            if t_state <= k < t[-1]}
+    for c in keep:
+        if c % int(diag_every_h):
+            raise ValueError(f"kept time {keep[c]} is not on a diagnostics boundary")  # a bug, not bad input
     records: list[dict] = []
     diags, snaps = [], []
-    bounds = sorted({0, *cuts}) + [t.size]
+    bounds = sorted({0, *cuts, *keep}) + [t.size]
     current = state
     for step, end in zip(bounds[:-1], bounds[1:]):
         when = t_state + np.timedelta64(3600 * step, "s")
@@ -518,6 +529,8 @@ def run_columns_with_restarts(state: SnowState, forcing, chunk_restarts, params:
             if r.time == when:
                 current, rec = apply_restart(current, p, r, params)
                 records.append(rec)
+        if step in keep:
+            kept[keep[step]] = current
         current, d, s = run_columns(current, forcing.subset(steps=slice(step, end)), params,
                                     diag_every_h, snapshot_hour_utc, with_snapshots=with_snapshots,
                                     threads=threads)

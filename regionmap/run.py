@@ -21,6 +21,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
+from regionmap.checkpoints import Checkpoints
 from regionmap.config import Config
 from regionmap.downscale.pipeline import CellBatch, downscale_cells, prepare_cells
 from regionmap.downscale.settings import DownscaleSettings
@@ -282,6 +283,7 @@ class RunContext:
     kernel_threads : threads the column kernel uses inside one task.
     perturbation : (temperature offset [K], phase-threshold offset [K]) for ensemble members.
     restarts : observed-profile restarts (:func:`regionmap.restart.resolve_restarts`).
+    checkpoints : where each chunk saves its control states for the ensemble (None: nowhere).
     """
 
     cfg: Config
@@ -294,6 +296,7 @@ class RunContext:
     kernel_threads: int = 1
     perturbation: tuple[float, float] = (0.0, 0.0)
     restarts: list = field(default_factory=list)
+    checkpoints: Checkpoints | None = None
 
 
 _FORCING_CACHE: dict = {}
@@ -390,16 +393,19 @@ def simulate_chunk(ctx: RunContext, lo: int, hi: int, state: SnowState, *, with_
     if p.has_forecast:
         parts.append(("forecast", slice(n_an, None)))
     state_now = state
+    kept = None if ctx.checkpoints is None else dict.fromkeys(ctx.checkpoints.times)
     for name, steps in parts:
         state_now, d, s, recs = run_columns_with_restarts(
             state_now, forcing.subset(steps=steps), mine, ctx.snow, ctx.diag_every_h, ctx.snapshot_hour_utc,
-            with_snapshots=with_snapshots, threads=ctx.kernel_threads)
+            with_snapshots=with_snapshots, threads=ctx.kernel_threads, kept=kept)
         diags.append(d)
         snaps.append(s)
         records += recs
         if name == "analysis":
             state_an = state_now
     state_end = state_now
+    if kept is not None:
+        ctx.checkpoints.save(lo, hi, kept)
     t_col = _time.perf_counter() - t0
     summary = {
         "precip_kg_m2": float(forcing.precip_kg_m2.sum()),

@@ -14,6 +14,7 @@ import json
 import os
 import platform
 import shutil
+import tempfile
 import time as _time
 from dataclasses import dataclass
 from importlib import metadata
@@ -22,6 +23,7 @@ from pathlib import Path
 import numpy as np
 
 from regionmap import CAUTION, __version__
+from regionmap.checkpoints import Checkpoints, checkpoint_times
 from regionmap.config import Config
 from regionmap.errors import InputError
 from regionmap.io.atomic import atomic_write_text
@@ -219,10 +221,13 @@ def execute(cfg: Config, *, out_dir: Path | None = None, continue_from: Path | N
     n_par = max(1, workers or (os.cpu_count() or 1))
     chunks = chunk_ranges(batch.n_cells, _effective_chunk_size(batch.n_cells, cfg.run.chunk_size, n_par),
                           batch.zone_code if dsettings.drift else None)  # drift: whole zones per chunk
+    checkpoint_dir = tempfile.TemporaryDirectory(prefix="regionmap-checkpoints-")
+    checkpoints = Checkpoints(checkpoint_dir.name, checkpoint_times(
+        state0.time, period.stop - period.first, diag_every, [r.time for r in resolved]))
     ctx = RunContext(cfg=cfg, batch=batch, downscale=dsettings, snow=params, period=period,
                      diag_every_h=diag_every, snapshot_hour_utc=snapshot_hour,
                      kernel_threads=max(1, n_par // max(1, min(len(chunks), n_par))) if not (workers or scheduler) else 1,
-                     restarts=resolved)
+                     restarts=resolved, checkpoints=checkpoints)
     register_forcing(ctx, gf)
     t0 = _time.perf_counter()
     _warm_kernels(params)
@@ -239,7 +244,7 @@ def execute(cfg: Config, *, out_dir: Path | None = None, continue_from: Path | N
     status_bits = 0
     restart_records: list = []
 
-    with OutputFolder(target, force=force) as folder:
+    with checkpoint_dir, OutputFolder(target, force=force) as folder:
         out = folder.path
         cells_w = CellsNcWriter(out / "cells.nc", table, out_times, interval_start, is_fc,
                                 global_attrs={"map_time": str(map_time)})
