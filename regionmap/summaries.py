@@ -255,40 +255,48 @@ class LayerSnapshot:
 _NO_TIME = np.int64(-(2**62))
 
 
+def _factorize_bytes(arr: np.ndarray) -> tuple[np.ndarray, list[str]]:
+    """Exact factorisation of a fixed-width bytes array: each 8-byte slice of the strings is
+    read as an integer and the slices' codes are combined slice by slice, so the work is a
+    few integer hashings instead of one Python object per element. Returns (inverse
+    indices, unique strings decoded as UTF-8)."""
+    flat = np.ascontiguousarray(arr).reshape(-1)
+    width = flat.dtype.itemsize
+    buf = np.zeros((flat.size, -(-width // 8) * 8), np.uint8)
+    buf[:, :width] = flat.view(np.uint8).reshape(-1, width)
+    inv = np.zeros(flat.size, np.int64)
+    for word in buf.view(np.uint64).T:
+        codes, uniq = pd.factorize(word)
+        inv, _ = pd.factorize(inv * uniq.size + codes)
+    first = np.zeros(int(inv.max(initial=-1)) + 1, np.int64)
+    first[inv[::-1]] = np.arange(flat.size)[::-1]
+    return inv, [v.decode("utf-8") for v in flat[first]]
+
+
 def _codes(values: np.ndarray, table: dict[str, int], name: str, default: str | None) -> np.ndarray:
     """Code strings → int8 indices (``""`` → ``default``'s index when given).
 
-    Short ASCII fixed-width strings are packed into integers and factorised, object arrays
-    (netCDF variable-length strings) factorised directly, other strings compared once per
-    known code.
+    Fixed-width bytes (netCDF character variables read without decoding) and object arrays
+    (variable-length strings) are factorised, other strings compared once per known code.
     """
     arr = np.asarray(values)
-    if arr.dtype.kind == "S":
-        arr = np.char.decode(arr, "utf-8")
     lookup = dict(table)
     if default is not None:
         lookup[""] = table[default]
-    width = arr.dtype.itemsize // 4 if arr.dtype.kind == "U" else 0
-    cp = np.ascontiguousarray(arr).reshape(-1).view(np.uint32).reshape(-1, width) if 0 < width <= 8 else None
-    if cp is not None and cp.max(initial=0) < 128:
-        # short ASCII codes pack exactly into one uint64 each: hash-factorise integers
-        packed = np.zeros(cp.shape[0], dtype=np.uint64)
-        for i in range(width):  # one pass per character (≤ 8)
-            packed |= cp[:, i].astype(np.uint64) << np.uint64(8 * i)
-        inv, uniq_packed = pd.factorize(packed)
-        uniq = [int(u).to_bytes(8, "little").rstrip(b"\0").decode("ascii") for u in uniq_packed]
+    if arr.dtype.kind in "SO":
+        if arr.dtype.kind == "S":
+            inv, uniq = _factorize_bytes(arr)
+        else:
+            inv, uniq = pd.factorize(arr.reshape(-1), use_na_sentinel=False)
+            uniq = ["" if (u is None or u != u) else str(u) for u in uniq]
         out = np.array([lookup.get(u, -1) for u in uniq], dtype=np.int16)[inv].reshape(arr.shape)
-    elif arr.dtype.kind == "O":
-        inv, uniq = pd.factorize(arr.reshape(-1), use_na_sentinel=False)
-        uniq = ["" if (u is None or u != u) else str(u) for u in uniq]
-        known = np.array([lookup.get(u, -1) for u in uniq], dtype=np.int16)
-        out = known[inv].reshape(arr.shape)
     else:
         out = np.full(arr.shape, -1, dtype=np.int16)
         for code, idx in lookup.items():  # one pass per known code (≤ 13), not per layer
             out[arr == code] = idx
     if (out < 0).any():
-        bad = sorted({str(v) for v in arr[out < 0].reshape(-1)[:1000]})
+        bad = sorted({v.decode("utf-8", "replace") if isinstance(v, bytes) else str(v)
+                      for v in arr[out < 0].reshape(-1)[:1000]})
         raise InputError(f"profiles.nc: variable {name!r} holds unknown codes {bad[:5]}; expected one of {sorted(table)}")
     return out.astype(np.int8)
 

@@ -120,9 +120,14 @@ class RunOutputs:
 
     @cached_property
     def profiles(self) -> xr.Dataset:
-        """``profiles.nc``, opened lazily (its grain-class and crust-kind codes are
-        fixed-width character variables that xarray decodes to strings)."""
-        return xr.open_dataset(self.path("profiles.nc"), engine="netcdf4")
+        """``profiles.nc``, opened lazily. Its grain-class and crust-kind codes are
+        fixed-width character variables; they are read as fixed-width bytes (``S4``), since
+        xarray turns ``_Encoding`` text into Python strings one element at a time."""
+        raw = xr.open_dataset(self.path("profiles.nc"), engine="netcdf4", decode_cf=False)
+        for var in raw.variables.values():
+            if var.dtype == "S1":
+                var.attrs.pop("_Encoding", None)
+        return xr.decode_cf(raw)
 
     @property
     def profile_days(self) -> np.ndarray:
