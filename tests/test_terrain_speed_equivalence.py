@@ -122,3 +122,29 @@ def test_opposite_azimuth_on_shared_lines_equals_its_own_scan_on_grid_directions
     for k in range(8):
         alone, _ = horizon_sky_view_dozier_frew1990(z, 10.0, 10.0, flat, flat, az[k:k + 1], 150.0)
         np.testing.assert_array_equal(paired[k], alone[0])
+
+
+def test_compiled_arctangent_against_libm():
+    # numpy's arctan (the C library's atan) as the reference for the vectorising arctangent
+    # of the scan, over the whole tangent range and on both sides of each reduction boundary.
+    import numba
+
+    from regionmap.terrain.horizon import _atan, _atan_cos2
+
+    @numba.njit
+    def evaluate(x):
+        e, e2, c2 = np.empty_like(x), np.empty_like(x), np.empty_like(x)
+        for i in range(x.size):
+            e[i] = _atan(x[i])
+            e2[i], c2[i] = _atan_cos2(abs(x[i]))
+        return e, e2, c2
+
+    edges = np.tan(np.arange(1, 8, 2) * np.pi / 16)
+    x = np.concatenate([np.tan(np.linspace(-1.5707, 1.5707, 200_001)), edges, np.nextafter(edges, np.inf),
+                        np.nextafter(edges, 0.0), [0.0, 1e300, -1e300]])
+    e, e2, c2 = evaluate(x)
+    np.testing.assert_allclose(e, np.arctan(x), rtol=0, atol=1e-11)
+    np.testing.assert_allclose(e2, np.arctan(np.abs(x)), rtol=0, atol=1e-11)
+    with np.errstate(over="ignore"):
+        np.testing.assert_allclose(c2, 1.0 / (1.0 + x * x), rtol=1e-15, atol=0)
+    assert np.isnan(evaluate(np.array([np.nan]))[0][0])

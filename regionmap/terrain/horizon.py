@@ -43,25 +43,45 @@ _N_THREADS = 2
 
 
 @numba.njit(cache=True, nogil=True, error_model="numpy", inline="always")
-def _atan(x):
-    """Arctangent [rad] by argument reduction (|u| <= tan(pi/8)) and the Taylor series to
-    u**23 (truncation error < 1e-11 rad). A libm call does not vectorise; this does."""
-    ax = abs(x)
-    inv = ax > 1.0
-    if inv:
-        ax = 1.0 / ax
-    hi = ax > 0.41421356237309503
-    u = (ax - 1.0) / (ax + 1.0) if hi else ax
+def _atan_reduction(ax):
+    """(num, den, offset) with atan(ax) = offset + atan(num/den) and |num/den| <= tan(pi/16),
+    for ax >= 0: offset [rad] is the multiple of pi/8 nearest to atan(ax), and num/den =
+    tan(atan(ax) - offset) = (ax - tan(offset))/(1 + ax tan(offset)), or -1/ax near pi/2."""
+    t = 0.0 if ax <= 0.198912367379658 else (0.41421356237309503 if ax <= 0.6681786379192989 else (
+        1.0 if ax <= 1.496605762665489 else 2.414213562373095))
+    offset = 0.0 if ax <= 0.198912367379658 else (0.39269908169872414 if ax <= 0.6681786379192989 else (
+        0.7853981633974483 if ax <= 1.496605762665489 else 1.1780972450961724))
+    big = ax > 5.027339492125848
+    num = -1.0 if big else ax - t
+    den = ax if big else 1.0 + ax * t
+    return num, den, 1.5707963267948966 if big else offset
+
+
+@numba.njit(cache=True, nogil=True, error_model="numpy", inline="always")
+def _atan_series(u):
+    """atan(u) [rad] for |u| <= tan(pi/16) by the Taylor series to u**13 (truncation error
+    < 3e-12 rad)."""
     u2 = u * u
-    p = -1.0 / 23.0
-    for k in range(10, -1, -1):
+    p = -1.0 / 15.0
+    for k in range(6, -1, -1):
         p = (1.0 if k % 2 == 0 else -1.0) / (2 * k + 1) + u2 * p
-    r = u * p
-    if hi:
-        r += 0.7853981633974483
-    if inv:
-        r = 1.5707963267948966 - r
+    return u * p
+
+
+@numba.njit(cache=True, nogil=True, error_model="numpy", inline="always")
+def _atan(x):
+    """Arctangent [rad] from one division; the range reduction is a chain of selects, so loops
+    calling it vectorise (a libm call does not)."""
+    num, den, offset = _atan_reduction(abs(x))
+    r = offset + _atan_series(num / den)
     return -r if x < 0 else r
+
+
+@numba.njit(cache=True, nogil=True, error_model="numpy", inline="always")
+def _atan_cos2(m):
+    """atan(m) [rad] and cos^2(atan m) = 1/(1 + m^2) [1], for m >= 0."""
+    num, den, offset = _atan_reduction(m)
+    return offset + _atan_series(num / den), 1.0 / (1.0 + m * m)
 
 
 @numba.njit(cache=True, nogil=True, error_model="numpy", inline="always")
@@ -386,8 +406,7 @@ def _horizon_azimuth(zc, flip, s, o_min, n_lines, ds, L, inv_r, cos_phi, sin_phi
             for c in range(nx_v):
                 m = _between_lines(res[k, c], res[k + 1, c], g[c])
                 m = 0.0 if m != m else m
-                e = _atan(m)
-                inv = 1.0 / (1.0 + m * m)
+                e, inv = _atan_cos2(m)
                 e_buf[k, c] = e
                 p_buf[k, c] = inv
                 q_buf[k, c] = half_pi - e - m * inv
@@ -395,8 +414,7 @@ def _horizon_azimuth(zc, flip, s, o_min, n_lines, ds, L, inv_r, cos_phi, sin_phi
                 for c in range(nx_v):
                     m = _between_lines(res_b[k, c], res_b[k + 1, c], g[c])
                     m = 0.0 if m != m else m
-                    e = _atan(m)
-                    inv = 1.0 / (1.0 + m * m)
+                    e, inv = _atan_cos2(m)
                     e_buf_b[k, c] = e
                     p_buf[k, c] += inv
                     q_buf[k, c] -= half_pi - e - m * inv
