@@ -21,6 +21,12 @@ block's lines are finished (angle, sky-view term) before the next block, so no f
 temporary is made per azimuth and every grid access walks a narrow band of rows.
 
 Azimuth pairs are split between two threads running the nogil kernels.
+
+Cost (fractal terrain, 3 km at 10 m, CPU per pixel and azimuth on a 2-core EPYC VM): about
+11 ns for the hull scans, 1 ns for gathering the lines and 4 ns for the write-back. The hull
+scans are bound by mispredicted branches (each point joins two hulls and pops a
+data-dependent number of vertices); branch-free insertions, two lines scanned in one loop,
+and both hulls of a block boundary grown in one loop were each measured slower.
 """
 
 from __future__ import annotations
