@@ -278,9 +278,11 @@ class ProfilesNcWriter(_StreamingNc):
             if name in fields:
                 values = np.asarray(fields[name])
                 if dtype.startswith("S"):
-                    text = (values.astype(dtype) if values.dtype.kind == "S"
-                            else np.asarray(values, dtype=object).astype(str).astype(dtype))
-                    self._nc.variables[name][lo:hi] = netCDF4.stringtochar(text)
+                    text = np.ascontiguousarray(values.astype(dtype) if values.dtype.kind == "S"
+                                                else np.asarray(values, dtype=object).astype(str).astype(dtype))
+                    # fixed-width bytes viewed as characters: what netCDF4.stringtochar
+                    # returns, without its per-element copy
+                    self._nc.variables[name][lo:hi] = text.view("S1").reshape(*text.shape, text.dtype.itemsize)
                 else:
                     self._nc.variables[name][lo:hi, :, :] = values
 
