@@ -26,7 +26,8 @@ Cost (fractal terrain, 3 km at 10 m, CPU per pixel and azimuth on a 2-core EPYC 
 11 ns for the hull scans, 1 ns for gathering the lines and 4 ns for the write-back. The hull
 scans are bound by mispredicted branches (each point joins two hulls and pops a
 data-dependent number of vertices); branch-free insertions, two lines scanned in one loop,
-and both hulls of a block boundary grown in one loop were each measured slower.
+both hulls of a block boundary grown in one loop, and float32 heights and hulls (which also
+lose tangents by up to 2 %) were each measured slower.
 """
 
 from __future__ import annotations
