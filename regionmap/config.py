@@ -227,7 +227,9 @@ class SnowSection(_Section):
 
 
 class RunSection(_Section):
-    chunk_size: Annotated[int, Field(ge=1, le=100_000)] = 1000
+    #: cells per task; a task holds ~1.3 MB per cell of a season's hourly diagnostics and
+    #: daily profiles, and 256 fills whole chunks of cells.nc
+    chunk_size: Annotated[int, Field(ge=1, le=100_000)] = 256
 
 
 class StationsSection(_Section):

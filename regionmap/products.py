@@ -31,6 +31,8 @@ _MIN_EVENT_CELLS = 3
 _MIN_EVENT_CELL_FRAC = 0.02
 #: Cells within this height of the control crust's elevation range join the ensemble [m].
 _ENSEMBLE_MARGIN_M = 400.0
+#: Cells re-simulated together by the ensemble (bounds its memory).
+_ENSEMBLE_BLOCK_CELLS = 2048
 
 
 @dataclass
@@ -57,10 +59,7 @@ def _member_presence(ctx, state0, event: pd.Series, control: np.ndarray, table: 
     crust's elevation range are re-simulated, only from a day before the event to two days
     after it (the control state there comes from the run's checkpoints, see
     :mod:`regionmap.checkpoints`); elsewhere members keep the control's presence."""
-    from regionmap.rain_crust import rain_crust_presence
-    from regionmap.run import _forcing_for, _perturbed, state_take
-    from regionmap.downscale.pipeline import downscale_cells
-    from regionmap.snow.column import run_columns, snapshots_to_dataset
+    from regionmap.run import chunk_ranges
 
     t0 = _time.perf_counter()
     z = table["elevation_m"].to_numpy(float)
@@ -77,6 +76,26 @@ def _member_presence(ctx, state0, event: pd.Series, control: np.ndarray, table: 
     last_ev = np.datetime64(event["last_time"], "s")
     start = max(p.first, int(np.searchsorted(times, first_ev - np.timedelta64(_SPIN_BEFORE_H * 3600, "s"))))
     stop = min(p.stop, int(np.searchsorted(times, last_ev + np.timedelta64(_AFTER_H * 3600, "s"), side="right")))
+    members = np.repeat(control[None, :], len(ENSEMBLE_MEMBERS), axis=0)
+    formed = (first_ev - np.timedelta64(3600, "s"), last_ev + np.timedelta64(_AFTER_H * 3600, "s"))
+    resume = start
+    groups = ctx.batch.zone_code[cells] if ctx.downscale.drift else None  # drift: whole zones per block
+    for lo, hi in chunk_ranges(cells.size, _ENSEMBLE_BLOCK_CELLS, groups):
+        members[:, cells[lo:hi]], resume = _block_presence(ctx, state0, cells[lo:hi], start, stop, formed)
+    cost = {"cells": int(cells.size), "steps": int(stop - resume), "member_steps": int(stop - start),
+            "seconds": round(_time.perf_counter() - t0, 3)}
+    return members, cost
+
+
+def _block_presence(ctx, state0, cells: np.ndarray, start: int, stop: int, formed: tuple) -> tuple[np.ndarray, int]:
+    """(member, cell) crust presence of the ensemble for some cells (positions) over the
+    forcing steps ``start:stop``, and the step their control state was resumed from."""
+    from regionmap.downscale.pipeline import downscale_cells
+    from regionmap.rain_crust import rain_crust_presence
+    from regionmap.run import _forcing_for, _perturbed, state_take
+    from regionmap.snow.column import run_columns, snapshots_to_dataset
+
+    p = ctx.period
     gf = _forcing_for(ctx)
     batch = ctx.batch.subset(cells)
     # the control state at the start of the window, for these cells only: stepped on from
@@ -84,22 +103,19 @@ def _member_presence(ctx, state0, event: pd.Series, control: np.ndarray, table: 
     if ctx.checkpoints is None:
         state = state_take(state0, cells)
     else:
-        state = ctx.checkpoints.latest(times[start] - np.timedelta64(3600, "s"), cells, state0)
-    resume = max(p.first, int(np.searchsorted(times, np.datetime64(state.time, "s"), side="right")))
-    if start > resume:
+        state = ctx.checkpoints.latest(p.times[start] - np.timedelta64(3600, "s"), cells, state0)
+    resume = max(p.first, int(np.searchsorted(p.times, np.datetime64(state.time, "s"), side="right")))
+    if start > resume:  # one diagnostics interval: only the state is wanted
         spin = downscale_cells(gf, batch, ctx.downscale, slice(resume, start))
-        state, _, _ = run_columns(state, spin, ctx.snow, 1, with_snapshots=False, threads=2)
+        state, _, _ = run_columns(state, spin, ctx.snow, start - resume, with_snapshots=False, threads=2)
     window = downscale_cells(gf, batch, ctx.downscale, slice(start, stop))
-    members = np.repeat(control[None, :], len(ENSEMBLE_MEMBERS), axis=0)
-    formed = (first_ev - np.timedelta64(3600, "s"), last_ev + np.timedelta64(_AFTER_H * 3600, "s"))
+    presence = np.zeros((len(ENSEMBLE_MEMBERS), cells.size), bool)
     for m, (dt_k, dphase_k) in enumerate(ENSEMBLE_MEMBERS):
         f = _perturbed(window, dt_k, dphase_k, ctx.downscale)
-        _, _, snaps = run_columns(state, f, ctx.snow, 1, None, threads=2)
+        _, _, snaps = run_columns(state, f, ctx.snow, stop - start, None, threads=2)
         ds = snapshots_to_dataset(snaps, batch.cell_id).swap_dims({"day": "time"}).rename({"time": "day"})
-        members[m, cells] = rain_crust_presence(ds, formed_between=formed)
-    cost = {"cells": int(cells.size), "steps": int(stop - resume), "member_steps": int(stop - start),
-            "seconds": round(_time.perf_counter() - t0, 3)}
-    return members, cost
+        presence[m] = rain_crust_presence(ds, formed_between=formed)
+    return presence, resume
 
 
 def _rain_crust(out: Path, cfg: Config, region, ctx, state0, prof: xr.Dataset, table: pd.DataFrame,

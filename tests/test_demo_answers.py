@@ -28,9 +28,13 @@ MOST = 0.5  # "most of the area": more than half (common practice for a regional
 
 @pytest.fixture(scope="session")
 def demo(tmp_path_factory):
+    import regionmap.products
+
     root = tmp_path_factory.mktemp("demo_answers")
     cfg = load_config(build_demo_scenario(root / "scenario"))
-    execute(cfg, out_dir=root / "out", report=False, progress=False)
+    with pytest.MonkeyPatch.context() as mp:  # the rain-crust ensemble in several cell blocks
+        mp.setattr(regionmap.products, "_ENSEMBLE_BLOCK_CELLS", 200)
+        execute(cfg, out_dir=root / "out", report=False, progress=False)
     out = root / "out"
     cells = xr.open_dataset(out / "cells.nc")
     profiles = xr.open_dataset(out / "profiles.nc")
