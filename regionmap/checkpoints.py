@@ -62,7 +62,7 @@ class Checkpoints:
         arrays = {f"{k}/{name}": getattr(states[t], name)
                   for k, t in enumerate(self.times) for name in _ARRAYS}
         path = Path(self.folder) / f"chunk-{lo:09d}-{hi:09d}.npz"
-        tmp = path.with_suffix(".tmp.npz")
+        tmp = path.with_name("tmp-" + path.name)  # not matched by latest()'s "chunk-*" until complete
         np.savez(tmp, **arrays)
         tmp.replace(path)
 

@@ -221,8 +221,10 @@ def execute(cfg: Config, *, out_dir: Path | None = None, continue_from: Path | N
     n_par = max(1, workers or (os.cpu_count() or 1))
     chunks = chunk_ranges(batch.n_cells, _effective_chunk_size(batch.n_cells, cfg.run.chunk_size, n_par),
                           batch.zone_code if dsettings.drift else None)  # drift: whole zones per chunk
+    # workers of a remote cluster cannot write into this machine's temporary folder: there
+    # the ensemble steps its cells from the run's start state instead
     checkpoint_dir = tempfile.TemporaryDirectory(prefix="regionmap-checkpoints-")
-    checkpoints = Checkpoints(checkpoint_dir.name, checkpoint_times(
+    checkpoints = None if scheduler else Checkpoints(checkpoint_dir.name, checkpoint_times(
         state0.time, period.stop - period.first, diag_every, [r.time for r in resolved]))
     ctx = RunContext(cfg=cfg, batch=batch, downscale=dsettings, snow=params, period=period,
                      diag_every_h=diag_every, snapshot_hour_utc=snapshot_hour,
