@@ -40,7 +40,8 @@ from regionmap.snow.codes import CRUST_INDEX, CRUST_KINDS, GRAIN_INDEX
 
 __all__ = [
     "terrain_weights_km2",
-    "running_snowfall_kg_m2",
+    "running_snowfall_at",
+    "running_snowfall_of",
     "observation_times",
     "observation_window_start",
     "band_transitions",
@@ -166,37 +167,65 @@ def _positions(times: np.ndarray, wanted: np.ndarray, what: str) -> np.ndarray:
     return pos
 
 
-def _cumulative_at(cum: np.ndarray, times: np.ndarray, instants: np.ndarray) -> np.ndarray:
-    """Cumulative amount (cell, n) of the intervals ending at or before each instant.
+#: cells whose snowfall record is read and summed at a time (bounds the summaries' memory)
+_CELL_BLOCK = 1024
 
-    ``cum`` (cell, time) is the running sum over the record. An instant before the first
-    interval end gives 0 (a window reaching back before the record is summed over what
-    there is); an instant inside the record must be an interval end.
-    """
+
+def _running_snowfall_blocks(diag: xr.Dataset):
+    """Yield ``(lo, hi, cum)``: the running sum (hi - lo, time) of ``snowfall_kg_m2`` over
+    the record [kg m-2] (float64) for cells ``lo:hi``, a block of cells at a time."""
+    if "snowfall_kg_m2" not in diag.variables:
+        raise InputError("cells.nc: missing variable 'snowfall_kg_m2' (DESIGN §3 names)")
+    var = diag["snowfall_kg_m2"].transpose("cell", "time")
+    n_cell = diag.sizes["cell"]
+    for lo in range(0, n_cell, _CELL_BLOCK):
+        hi = min(lo + _CELL_BLOCK, n_cell)
+        snow = var.isel(cell=slice(lo, hi)).values.astype(np.float64)
+        np.nan_to_num(snow, copy=False)
+        yield lo, hi, np.cumsum(snow, axis=1, out=snow)
+
+
+def running_snowfall_at(diag: xr.Dataset, positions: np.ndarray) -> np.ndarray:
+    """(cell, n) running sum of ``snowfall_kg_m2`` over the record up to and including
+    output position ``positions[k]`` [kg m-2] (float64); 0 where the position is -1 (before
+    the record). The record is read a block of cells at a time, never whole."""
+    positions = np.asarray(positions, dtype=np.int64)
+    out = np.zeros((diag.sizes["cell"], positions.size))
+    for lo, hi, cum in _running_snowfall_blocks(diag):
+        out[lo:hi] = np.where(positions[None, :] >= 0, cum[:, np.maximum(positions, 0)], 0.0)
+    return out
+
+
+def running_snowfall_of(diag: xr.Dataset, cells: np.ndarray, positions: np.ndarray) -> np.ndarray:
+    """Running sum of ``snowfall_kg_m2`` (as :func:`running_snowfall_at`) for pairs: cell
+    position ``cells[k]`` up to output position ``positions[k]`` → (k,) [kg m-2]."""
+    cells = np.asarray(cells, dtype=np.int64)
+    positions = np.asarray(positions, dtype=np.int64)
+    out = np.zeros(cells.size)
+    for lo, hi, cum in _running_snowfall_blocks(diag):
+        mine = np.nonzero((cells >= lo) & (cells < hi) & (positions >= 0))[0]
+        out[mine] = cum[cells[mine] - lo, positions[mine]]
+    return out
+
+
+def _interval_positions(times: np.ndarray, instants: np.ndarray) -> np.ndarray:
+    """Position of the last interval ending at or before each instant (-1 before the
+    record); an instant inside the record must be an interval end."""
     inside = instants >= times[0]
     if inside.any():
         _positions(times, instants[inside], "an observation-day boundary")
-    pos = np.searchsorted(times, instants, side="right") - 1
-    return np.where(inside[None, :], cum[:, np.maximum(pos, 0)], 0.0)
+    return np.where(inside, np.searchsorted(times, instants, side="right") - 1, -1)
 
 
-def running_snowfall_kg_m2(diag: xr.Dataset) -> np.ndarray:
-    """(cell, time) running sum of ``snowfall_kg_m2`` over the record [kg m-2] (float64)."""
-    if "snowfall_kg_m2" not in diag.variables:
-        raise InputError("cells.nc: missing variable 'snowfall_kg_m2' (DESIGN §3 names)")
-    snow = diag["snowfall_kg_m2"].transpose("cell", "time").values.astype(np.float64)
-    np.nan_to_num(snow, copy=False)
-    return np.cumsum(snow, axis=1, out=snow)
-
-
-def _snowfall_windows(cum: np.ndarray, times: np.ndarray, want: np.ndarray, *,
+def _snowfall_windows(diag: xr.Dataset, times: np.ndarray, want: np.ndarray, *,
                       local_timezone: str, observation_hour: int) -> dict[str, np.ndarray]:
     """The local observation-day windows for each wanted time.
 
     Returns ``win_end`` (n,) the end of the last observation day at or before each wanted
-    time, ``win_pos`` its position in ``times``, and the running sums ``c_end``, ``c_24h``,
-    ``c_72h`` (cell, n) at the window end and the starts of the 1- and 3-day windows
-    (``cum`` from :func:`running_snowfall_kg_m2`).
+    time, ``win_pos`` its position in ``times``, and the running snowfall sums ``c_end``,
+    ``c_24h``, ``c_72h`` (cell, n) at the window end and the starts of the 1- and 3-day
+    windows (:func:`running_snowfall_at`; a window reaching back before the record is
+    summed over what there is).
     """
     obs = observation_times(times[0] - np.timedelta64(2, "D"), times[-1],
                             local_timezone=local_timezone, observation_hour=observation_hour)
@@ -205,13 +234,10 @@ def _snowfall_windows(cum: np.ndarray, times: np.ndarray, want: np.ndarray, *,
         raise InputError(f"summaries: no observation day ends at or before {want[k < 0][0]}")
     win_end = obs[k]
     win_pos = _positions(times, win_end, "the end of the observation day")
-    return {
-        "win_end": win_end,
-        "win_pos": win_pos,
-        "c_end": cum[:, win_pos],
-        "c_24h": _cumulative_at(cum, times, observation_window_start(win_end, 1, local_timezone=local_timezone)),
-        "c_72h": _cumulative_at(cum, times, observation_window_start(win_end, 3, local_timezone=local_timezone)),
-    }
+    starts = [_interval_positions(times, observation_window_start(win_end, d, local_timezone=local_timezone))
+              for d in (1, 3)]
+    c_end, c_24h, c_72h = np.split(running_snowfall_at(diag, np.concatenate([win_pos, *starts])), 3, axis=1)
+    return {"win_end": win_end, "win_pos": win_pos, "c_end": c_end, "c_24h": c_24h, "c_72h": c_72h}
 
 
 # --------------------------------------------------------------------------- snapshots
@@ -395,18 +421,26 @@ def cell_values(diag: xr.Dataset, profiles: xr.Dataset, table: pd.DataFrame, tim
     ``<FC|DH|SH>_present``/``_depth_cm``/``_slab_cm`` from the snapshot, and
     ``threshold_count_max``.
     """
+    frames = _cell_value_blocks(diag, profiles, table, times, local_timezone=local_timezone,
+                                observation_hour=observation_hour, layers=layers)
+    return pd.concat(list(frames), ignore_index=True).sort_values(["cell_id", "valid_time"], ignore_index=True)
+
+
+#: times whose cell values are built (and their layer snapshots decoded) together
+_TIME_BLOCK = 16
+
+
+def _cell_value_blocks(diag, profiles, table, times, *, local_timezone, observation_hour, layers):
+    """Yield the rows of :func:`cell_values` a block of ``_TIME_BLOCK`` times at a time
+    (memory ~ cells × block × layers), unsorted."""
     _check_alignment(diag, table, profiles)
     t_all = _times_of(diag)
     want = _as_utc_array(times)
-    # decode the layer snapshots a block of times at a time: memory ~ cells × block × layers
-    blocks = [want[i:i + _TIME_BLOCK] for i in range(0, want.size, _TIME_BLOCK)]
-    cum = running_snowfall_kg_m2(diag)
-    frames = [_cell_values_block(diag, profiles, table, t_all, cum, b, local_timezone=local_timezone,
-                                 observation_hour=observation_hour, layers=layers) for b in blocks]
-    return pd.concat(frames, ignore_index=True).sort_values(["cell_id", "valid_time"], ignore_index=True)
-
-
-_TIME_BLOCK = 16
+    win = _snowfall_windows(diag, t_all, want, local_timezone=local_timezone, observation_hour=observation_hour)
+    for i in range(0, want.size, _TIME_BLOCK):
+        part = slice(i, i + _TIME_BLOCK)
+        yield _cell_values_block(diag, profiles, table, t_all, want[part], {k: v[..., part] for k, v in win.items()},
+                                 layers=layers)
 
 
 def _as_utc_array(times) -> np.ndarray:
@@ -414,10 +448,8 @@ def _as_utc_array(times) -> np.ndarray:
                                     dtype="datetime64[s]"))
 
 
-def _cell_values_block(diag, profiles, table, t_all, cum, want, *, local_timezone, observation_hour,
-                       layers) -> pd.DataFrame:
+def _cell_values_block(diag, profiles, table, t_all, want, win, *, layers) -> pd.DataFrame:
     pos = _positions(t_all, want, "the summary times")
-    win = _snowfall_windows(cum, t_all, want, local_timezone=local_timezone, observation_hour=observation_hour)
     win_end, win_pos = win["win_end"], win["win_pos"]
     n_cell, n_t = diag.sizes["cell"], want.size
 
@@ -667,7 +699,6 @@ def summary_tables(diag: xr.Dataset, profiles: xr.Dataset, table: pd.DataFrame, 
     map_t = _as_utc_array(map_time)
     kw = dict(local_timezone=local_timezone, observation_hour=observation_hour)
     at_map = cell_values(diag, profiles, table, map_t, **kw)
-    daily_vals = cell_values(diag, profiles, table, obs, layers=daily_layers, **kw)
     lo, hi = avalanche_terrain_deg
     terrain_label = {"avalanche": f"avalanche terrain ({lo:g}-{hi:g} deg)", "all": "all terrain"}
 
@@ -677,7 +708,14 @@ def summary_tables(diag: xr.Dataset, profiles: xr.Dataset, table: pd.DataFrame, 
 
     z = both(at_map, ["zone"])
     ba = both(at_map, _BAND_ASPECT)
-    daily = pd.concat(both(daily_vals, ["zone"]).values(), ignore_index=True)
+    # the daily series are summarised a block of days at a time (the rows of every cell and
+    # day together would take ~1 GB for 10 000 cells over a season)
+    daily_parts: dict[str, list[pd.DataFrame]] = {"avalanche": [], "all": []}
+    for block in _cell_value_blocks(diag, profiles, table, obs, layers=daily_layers, **kw):
+        for t, frame in both(block, ["zone"]).items():
+            daily_parts[t].append(frame)
+    daily = pd.concat([pd.concat(parts, ignore_index=True).sort_values(["zone", "valid_time"], kind="stable")
+                       for parts in daily_parts.values()], ignore_index=True)
     snow_line = band_transitions(ba["all"], ["zone", "aspect_sector"], "snow_fraction")
     snow_line = snow_line.rename(columns={"lower_m": "snow_line_m", "lower_bound": "snow_line_bound"})
     snow_line = snow_line[["zone", "aspect_sector", "snow_line_m", "snow_line_bound"]]
@@ -789,14 +827,14 @@ def layers_of_concern(diag: xr.Dataset, profiles: xr.Dataset, table: pd.DataFram
     cos_slope = np.cos(np.deg2rad(table["slope_deg"].to_numpy(np.float64)))
     rows["slab_cm"] = rows["depth_cm"].to_numpy() * cos_slope[rows["_c"].to_numpy()]
     # snowfall on the layer: since burial up to `time`, and in the last 1 / 3 observation days
-    cum = running_snowfall_kg_m2(diag)
-    win = _snowfall_windows(cum, t_all, want, local_timezone=local_timezone, observation_hour=observation_hour)
+    win = _snowfall_windows(diag, t_all, want, local_timezone=local_timezone, observation_hour=observation_hour)
     c = rows["_c"].to_numpy()
     burial = rows["_burial_s"].to_numpy()
     is_buried = burial > _NO_TIME
     bpos = np.searchsorted(t_all.astype(np.int64), burial, side="right") - 1
-    c_burial = np.where(bpos >= 0, cum[c, np.maximum(bpos, 0)], 0.0)
-    since = np.where(is_buried, cum[c, pos] - c_burial, np.nan)
+    c_burial, c_now = np.split(running_snowfall_of(diag, np.concatenate([c, c]),
+                                                   np.concatenate([bpos, np.full(c.size, pos)])), 2)
+    since = np.where(is_buried, c_now - c_burial, np.nan)
     rows["load_since_burial_kg_m2"] = since
     # snowfall in (window start, window end] that also fell after the burial
     for hours, key in ((24, "c_24h"), (72, "c_72h")):

@@ -56,6 +56,8 @@ def test_vector_and_netcdf_writers(tmp_path):
     write_geojson(tmp_path / "z.geojson", gdf)
     back = gpd.read_file(tmp_path / "z.geojson")
     assert back.crs.to_epsg() == 4326
+    # the collection is named after the file written, not the temporary file of the atomic write
+    assert pyogrio.list_layers(tmp_path / "z.geojson")[0][0] == "z"
     # UTM 33N easting 500 km lies on the central meridian 15 E (EPSG:32633 definition)
     assert abs(back.geometry.bounds.minx[0] - 15.0) < 1e-6
     ds = xr.Dataset({"v": ("cell", np.arange(4.0))})

@@ -123,7 +123,8 @@ def write_geojson(path: str | os.PathLike, gdf) -> Path:
     out = gdf.to_crs(4326) if gdf.crs is not None else gdf
     with atomic_path(path) as tmp:
         tmp.unlink()
-        out.to_file(tmp, driver="GeoJSON", engine="pyogrio")
+        # the collection's name is the final file's stem, not the temporary file's
+        out.to_file(tmp, driver="GeoJSON", engine="pyogrio", layer=Path(path).stem)
     return Path(path)
 
 
