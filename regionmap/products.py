@@ -166,11 +166,19 @@ def _rain_crust(out: Path, cfg: Config, region, ctx, state0, prof: xr.Dataset, t
     cols = zone_rain_crust_columns(zone_limits, sentences)
     if not limits.empty:
         _write_csv(out / "rain_crust_limits.csv", limits)
-    words = [f"{zone}: {text}" for (zone, _), text in sentences.items() if text]
+    # the printed summary names the event and leaves out the zones it left no crust in
+    words = [f"{zone}, rain of {_event_label(event_id)}: {text}" for (zone, event_id), text in sentences.items()
+             if text and not text.startswith("no rain crust")]
     cost = {"members": [list(m) for m in ENSEMBLE_MEMBERS], "events": costs,
             "minor_events_without_line": [int(e) for e in minor["event_id"]],
             "seconds": round(sum(c["seconds"] for c in costs), 3)}
     return cols, lines, words, cost
+
+
+def _event_label(event_id: int) -> str:
+    """An event id (its start hour since 1970) as readable text: "2026-01-14 06:00 UTC"."""
+    start = np.datetime64(int(event_id), "h").astype("datetime64[m]").astype(object)
+    return f"{start:%Y-%m-%d %H:%M} UTC"
 
 
 def _event_windows(out: Path) -> dict:

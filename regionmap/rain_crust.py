@@ -209,7 +209,10 @@ def _clause(row) -> str:
         return f"rain crust likely at all elevations above {_r(row.lower_m)} m"
     if row.lower_bound == "at_or_below":
         return f"rain crust likely below {_r(row.upper_m)} m" + (f" {upper_rng}" if upper_rng else "")
-    between = f"rain crust likely between {_r(row.lower_m)} and {_r(row.upper_m)} m"
+    if _r(row.lower_m) == _r(row.upper_m):  # limits within one rounding step
+        between = f"rain crust likely in a narrow band near {_r(row.upper_m)} m"
+    else:
+        between = f"rain crust likely between {_r(row.lower_m)} and {_r(row.upper_m)} m"
     return between + (f" (upper limit {upper_rng[1:-1]})" if upper_rng else "")
 
 

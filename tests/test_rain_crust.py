@@ -140,3 +140,15 @@ def test_no_event_gives_an_empty_layer_that_still_writes(tmp_path):
     write_geopackage(tmp_path / "z.gpkg", {"rain_crust_line": lines})
     assert [n for n, _ in pyogrio.list_layers(tmp_path / "z.gpkg")] == ["rain_crust_line"]
     assert zone_rain_crust_columns(lim, pd.Series(dtype=object)).empty
+
+
+def test_sentence_of_a_band_narrower_than_the_rounding(run):
+    _, _, table, _, _, _, prof = run
+    w = table["area_km2"].to_numpy()
+    e = table["elevation_m"].to_numpy()
+    lim = rain_crust_limits(table, w, RainEvent(RAIN_EVENT_ID, np.datetime64(RAIN_FORMED),
+                                                (e > 1600.0) & (e < 2000.0), None))
+    row = lim.iloc[[0]].copy()
+    row["lower_m"], row["upper_m"], row["lower_bound"], row["upper_bound"] = 1990.0, 2010.0, "", ""
+    # both limits round to 2000 m (50 m steps): one elevation, not "between 2000 and 2000 m"
+    assert rain_crust_sentence(row).iloc[0].startswith("rain crust likely in a narrow band near 2000 m")
