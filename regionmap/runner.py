@@ -243,6 +243,7 @@ def execute(cfg: Config, *, out_dir: Path | None = None, continue_from: Path | N
     events: list[dict] = []
     forcing_sums = {"precip_kg_m2": 0.0, "snowfall_kg_m2": 0.0, "freezing_rain_kg_m2": 0.0}
     task_seconds = {"downscale": 0.0, "column": 0.0}
+    write_seconds = 0.0  # cells.nc and profiles.nc, in this thread while chunks run
     status_bits = 0
     restart_records: list = []
 
@@ -263,12 +264,14 @@ def execute(cfg: Config, *, out_dir: Path | None = None, continue_from: Path | N
                 for fut in as_completed(futures):
                     res = fut.result()
                     lo, hi = res["lo"], res["hi"]
+                    t_w = _time.perf_counter()
                     cells_w.write_chunk(np.arange(lo, hi), res["diagnostics"])
                     snaps = res["snapshots"]
                     if prof_w is None:
                         prof_w = ProfilesNcWriter(out / "profiles.nc", table.index.to_numpy(), snaps["time"],
                                                   params.max_layers, LAYER_VARS)
                     prof_w.write_chunk(np.arange(lo, hi), snaps["layer_count"], _profile_fields(snaps))
+                    write_seconds += _time.perf_counter() - t_w
                     state_put(state_an, res["state_analysis"], lo, hi)
                     state_put(state_end, res["state_end"], lo, hi)
                     events.append(_events_of(res["diagnostics"], lo))
@@ -300,6 +303,7 @@ def execute(cfg: Config, *, out_dir: Path | None = None, continue_from: Path | N
         # summed over chunk tasks (wall time inside each task; tasks run side by side)
         timings["task_downscale_s"] = task_seconds["downscale"]
         timings["task_column_s"] = task_seconds["column"]
+        timings["write_s"] = write_seconds
         timings["total"] = _time.perf_counter() - t_all
         from regionmap.restart import merge_restart_records
 
