@@ -28,6 +28,9 @@ from regionmap.io.atomic import atomic_path
 __all__ = ["DIAGNOSTICS", "AMOUNTS", "CellsNcWriter", "ProfilesNcWriter"]
 
 _EPOCH = "seconds since 1970-01-01 00:00:00"
+#: deflate level of the streamed files (shuffle filter before it): level 1 writes 1 024 cells of
+#: cells.nc in 1.9 s against 2.2 s at level 4, for a file 3 % larger (profiles.nc: ~10 % larger)
+_DEFLATE_LEVEL = 1
 
 
 _NETCDF_LOCKS = CombinedLock([NETCDFC_LOCK, HDF5_LOCK])
@@ -179,7 +182,7 @@ class CellsNcWriter(_StreamingNc):
         chunk_time = max(1, min(744, n_time))
         for name, (dtype, attrs) in self.variables.items():
             var = nc.createVariable(
-                name, dtype, ("cell", "time"), zlib=True, complevel=4, shuffle=True,
+                name, dtype, ("cell", "time"), zlib=True, complevel=_DEFLATE_LEVEL, shuffle=True,
                 chunksizes=(chunk_cells, chunk_time), fill_value=_fill_for(dtype),
             )
             attrs = dict(attrs)
@@ -260,7 +263,8 @@ class ProfilesNcWriter(_StreamingNc):
         day.attrs.update({"standard_name": "time", "units": _EPOCH, "calendar": "standard"})
         day[:] = _seconds(days)
         chunks = (max(1, min(64, len(cell_ids))), max(1, min(31, len(days))), n_layers)
-        lc = nc.createVariable("layer_count", "i2", ("cell", "day"), zlib=True, chunksizes=chunks[:2],
+        lc = nc.createVariable("layer_count", "i2", ("cell", "day"), zlib=True, complevel=_DEFLATE_LEVEL,
+                               chunksizes=chunks[:2],
                                fill_value=_FILL_I16)
         lc.attrs.update({"long_name": "number of layers in use (bottom first)"})
         for name, (dtype, attrs) in layer_vars.items():
@@ -269,11 +273,11 @@ class ProfilesNcWriter(_StreamingNc):
                 # strings; ``_Encoding`` makes netCDF4 and xarray read them back as strings
                 strlen = f"{name}_strlen"
                 nc.createDimension(strlen, int(dtype[1:]))
-                var = nc.createVariable(name, "S1", ("cell", "day", "layer", strlen), zlib=True, complevel=4,
+                var = nc.createVariable(name, "S1", ("cell", "day", "layer", strlen), zlib=True, complevel=_DEFLATE_LEVEL,
                                         chunksizes=(*chunks, int(dtype[1:])))
                 var.attrs.update({"_Encoding": "utf-8"})
             else:
-                var = nc.createVariable(name, dtype, ("cell", "day", "layer"), zlib=True, complevel=4,
+                var = nc.createVariable(name, dtype, ("cell", "day", "layer"), zlib=True, complevel=_DEFLATE_LEVEL,
                                         shuffle=True, chunksizes=chunks, fill_value=_fill_for(dtype))
             var.attrs.update(attrs)
 
