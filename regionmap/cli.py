@@ -281,8 +281,28 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
+def _return_freed_memory_to_the_os() -> None:
+    """glibc only: serve allocations of 1 MB and more by their own memory maps and trim the
+    heap above 1 MB (``mallopt``), so arrays of finished chunks go back to the system.
+
+    By default glibc raises its map threshold after each large free, and the chunk tasks'
+    many-megabyte arrays then fragment the heaps of the threads, which never shrink: the
+    10 598-cell benchmark peaked at 3.52 GB, and at 2.96 GB with these settings.
+    """
+    import ctypes
+    import platform
+
+    if platform.libc_ver()[0] != "glibc":
+        return
+    m_trim_threshold, m_mmap_threshold = -1, -3  # <malloc.h>
+    libc = ctypes.CDLL("libc.so.6")
+    libc.mallopt(m_mmap_threshold, 1 << 20)
+    libc.mallopt(m_trim_threshold, 1 << 20)
+
+
 def main(argv: list[str] | None = None) -> int:
     """Run the CLI; returns the exit status."""
+    _return_freed_memory_to_the_os()
     parser = build_parser()
     args = parser.parse_args(argv)
     try:
