@@ -295,7 +295,10 @@ def _return_freed_memory_to_the_os() -> None:
     if platform.libc_ver()[0] != "glibc":
         return
     m_trim_threshold, m_mmap_threshold = -1, -3  # <malloc.h>
-    libc = ctypes.CDLL("libc.so.6")
+    try:
+        libc = ctypes.CDLL("libc.so.6")
+    except OSError:  # an unusual glibc install: keep its defaults
+        return
     libc.mallopt(m_mmap_threshold, 1 << 20)
     libc.mallopt(m_trim_threshold, 1 << 20)
 
