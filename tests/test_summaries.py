@@ -185,3 +185,28 @@ def test_missing_time_and_mismatched_cells_are_clear_errors(run):
         cell_values(diag, prof, table, ["2030-01-01T00:00"])
     with pytest.raises(GridMismatchError, match="cell_id"):
         cell_values(diag, prof, table.iloc[:-1], [MAP_TIME])
+
+
+def test_block_sizes_do_not_change_the_summaries(run, monkeypatch):
+    """The summaries read cells.nc a block of cells and of days at a time; blocks of 3 cells
+    and 4 days (several blocks on this run) give the same tables as one block."""
+    import regionmap.summaries as summaries
+
+    _, index, table, slope, area, diag, prof = run
+    w = terrain_weights_km2(index, slope, area, len(table))
+    kw = dict(local_timezone="Etc/GMT+7")
+    one = summary_tables(diag, prof, table, w, map_time=MAP_TIME, **kw)
+    loc_one = layers_of_concern(diag, prof, table, np.asarray(table["area_km2"]), time=MAP_TIME, **kw)
+    monkeypatch.setattr(summaries, "_CELL_BLOCK", 3)
+    monkeypatch.setattr(summaries, "_TIME_BLOCK", 4)
+    assert len(table) > 3 * summaries._CELL_BLOCK
+    many = summary_tables(diag, prof, table, w, map_time=MAP_TIME, **kw)
+    loc_many = layers_of_concern(diag, prof, table, np.asarray(table["area_km2"]), time=MAP_TIME, **kw)
+    pd.testing.assert_frame_equal(one.daily, many.daily)
+    pd.testing.assert_frame_equal(one.zones, many.zones)
+    pd.testing.assert_frame_equal(one.band_aspect, many.band_aspect)
+    pd.testing.assert_frame_equal(loc_one, loc_many)
+    # the hand value of the design holds with blocks too: 1 kg m-2 per hour over the 225 h
+    # from the burial (2026-01-13T03Z) to the map time
+    sh = loc_many[(loc_many["layer_id"] == "SH-2026-01-12") & (loc_many["aspect_sector"] == "all")]
+    np.testing.assert_allclose(sh["load_since_burial_kg_m2"], 225.0)
