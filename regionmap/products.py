@@ -124,6 +124,7 @@ def _rain_crust(out: Path, cfg: Config, region, ctx, state0, prof: xr.Dataset, t
     import geopandas as gpd
 
     from regionmap.rain_crust import (
+        NO_CRUST_CLAUSE,
         RainEvent,
         rain_crust_lines,
         rain_crust_limits,
@@ -168,7 +169,7 @@ def _rain_crust(out: Path, cfg: Config, region, ctx, state0, prof: xr.Dataset, t
         _write_csv(out / "rain_crust_limits.csv", limits)
     # the printed summary names the event and leaves out the zones it left no crust in
     words = [f"{zone}, rain of {_event_label(event_id)}: {text}" for (zone, event_id), text in sentences.items()
-             if text and not text.startswith("no rain crust")]
+             if text and not text.startswith(NO_CRUST_CLAUSE)]
     cost = {"members": [list(m) for m in ENSEMBLE_MEMBERS], "events": costs,
             "minor_events_without_line": [int(e) for e in minor["event_id"]],
             "seconds": round(sum(c["seconds"] for c in costs), 3)}

@@ -36,6 +36,7 @@ from regionmap.snow.codes import CRUST_INDEX
 from regionmap.summaries import band_transitions, decode_snapshot
 
 __all__ = [
+    "NO_CRUST_CLAUSE",
     "RainEvent",
     "rain_events",
     "rain_crust_presence",
@@ -197,12 +198,16 @@ def _aspect_phrase(sectors: list[str], all_sectors: set[str]) -> str:
     return text
 
 
+#: the clause of a zone x aspect group where the event left no crust
+NO_CRUST_CLAUSE = "no rain crust"
+
+
 def _clause(row) -> str:
     spread = row.n_members and _r(row.upper_low_m) != _r(row.upper_high_m)
     # a range is stated only when the members disagree after rounding
     upper_rng = f"({_r(row.upper_low_m)}–{_r(row.upper_high_m)} m)" if spread else ""
     if row.upper_bound == "absent":
-        return "no rain crust"
+        return NO_CRUST_CLAUSE
     if row.upper_bound == "at_or_above":
         if row.lower_bound == "at_or_below":
             return "rain crust likely at all elevations"
@@ -236,7 +241,7 @@ def rain_crust_sentence(limits: pd.DataFrame) -> pd.Series:
         all_sectors = set(grp["aspect_sector"])
         parts = []
         for clause, sub in grp.groupby("clause", sort=False):
-            if clause == "no rain crust" and len(grp["clause"].unique()) > 1:
+            if clause == NO_CRUST_CLAUSE and len(grp["clause"].unique()) > 1:
                 continue
             parts.append((min(_SECTOR_ORDER[s] for s in sub["aspect_sector"]),
                           f"{clause} {_aspect_phrase(list(sub['aspect_sector']), all_sectors)}"))

@@ -223,7 +223,8 @@ def execute(cfg: Config, *, out_dir: Path | None = None, continue_from: Path | N
                           batch.zone_code if dsettings.drift else None)  # drift: whole zones per chunk
     # workers of a remote cluster cannot write into this machine's temporary folder: there
     # the ensemble steps its cells from the run's start state instead
-    checkpoint_dir = tempfile.TemporaryDirectory(prefix="regionmap-checkpoints-")
+    checkpoint_dir = (contextlib.nullcontext() if scheduler
+                      else tempfile.TemporaryDirectory(prefix="regionmap-checkpoints-"))
     checkpoints = None if scheduler else Checkpoints(checkpoint_dir.name, checkpoint_times(
         state0.time, period.stop - period.first, diag_every, [r.time for r in resolved]))
     ctx = RunContext(cfg=cfg, batch=batch, downscale=dsettings, snow=params, period=period,
