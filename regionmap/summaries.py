@@ -426,19 +426,34 @@ def cell_values(diag: xr.Dataset, profiles: xr.Dataset, table: pd.DataFrame, tim
     return pd.concat(list(frames), ignore_index=True).sort_values(["cell_id", "valid_time"], ignore_index=True)
 
 
-#: times whose cell values are built (and their layer snapshots decoded) together
-_TIME_BLOCK = 16
+#: at most this many times have their cell values built (and their layer snapshots decoded)
+#: together; a block also ends where the time chunk of cells.nc does (31 days of 744 h)
+_TIME_BLOCK = 31
+
+
+def _time_blocks(diag: xr.Dataset, pos: np.ndarray) -> list[slice]:
+    """Consecutive runs of the output positions ``pos`` that fall in one time chunk of
+    ``cells.nc``, at most ``_TIME_BLOCK`` long: each compressed chunk is then read once, not
+    once for every block that reaches into it."""
+    chunks = diag["snow_depth_cm"].encoding.get("chunksizes") if "snow_depth_cm" in diag.variables else None
+    dims = diag["snow_depth_cm"].dims if chunks else ()
+    step = int(chunks[dims.index("time")]) if chunks and "time" in dims else pos.size + 1
+    chunk_of = pos // step
+    edges = [0]
+    for i in range(1, pos.size):
+        if chunk_of[i] != chunk_of[i - 1] or i - edges[-1] >= _TIME_BLOCK:
+            edges.append(i)
+    return [slice(a, b) for a, b in zip(edges, edges[1:] + [pos.size])]
 
 
 def _cell_value_blocks(diag, profiles, table, times, *, local_timezone, observation_hour, layers):
-    """Yield the rows of :func:`cell_values` a block of ``_TIME_BLOCK`` times at a time
-    (memory ~ cells × block × layers), unsorted."""
+    """Yield the rows of :func:`cell_values` a block of times at a time (:func:`_time_blocks`;
+    memory ~ cells × block × layers), unsorted."""
     _check_alignment(diag, table, profiles)
     t_all = _times_of(diag)
     want = _as_utc_array(times)
     win = _snowfall_windows(diag, t_all, want, local_timezone=local_timezone, observation_hour=observation_hour)
-    for i in range(0, want.size, _TIME_BLOCK):
-        part = slice(i, i + _TIME_BLOCK)
+    for part in _time_blocks(diag, _positions(t_all, want, "the summary times")):
         yield _cell_values_block(diag, profiles, table, t_all, want[part], {k: v[..., part] for k, v in win.items()},
                                  layers=layers)
 
