@@ -205,7 +205,8 @@ def write_products(out: Path, cfg: Config, region, ctx, *, map_time, state0, is_
     weights = _weights(region, cfg)
     # opened lazily: the summaries read the output times and snapshot days they need, so
     # memory follows those, not the whole season of every cell
-    with xr.open_dataset(out / "cells.nc") as diag, xr.open_dataset(out / "profiles.nc") as prof:
+    with (xr.open_dataset(out / "cells.nc", engine="netcdf4") as diag,
+          xr.open_dataset(out / "profiles.nc", engine="netcdf4") as prof):
         tz, hour = cfg.output.local_timezone, cfg.output.observation_hour
         tables = summary_tables(diag, prof, table, weights, map_time=map_time, local_timezone=tz,
                                 observation_hour=hour, avalanche_terrain_deg=tuple(cfg.cells.avalanche_terrain_deg))

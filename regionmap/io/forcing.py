@@ -368,7 +368,8 @@ def _open_one(path: str) -> xr.Dataset:
         if path.rstrip("/").endswith(".zarr") or os.path.isdir(path):
             consolidated = os.path.exists(os.path.join(path, ".zmetadata"))
             return xr.open_zarr(path, chunks=chunks, consolidated=consolidated)
-        return xr.open_dataset(path, chunks=chunks, decode_timedelta=False)
+        # the engine named: guessing it imports every installed xarray backend plugin
+        return xr.open_dataset(path, engine="netcdf4", chunks=chunks, decode_timedelta=False)
 
     try:
         probe = open_(None)
