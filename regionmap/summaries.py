@@ -52,6 +52,9 @@ __all__ = [
     "layers_of_concern",
     "LayerSnapshot",
     "decode_snapshot",
+    "LAYER_KINDS",
+    "layer_identities",
+    "local_dates",
     "band_label",
     "layer_summary_text",
 ]
@@ -290,10 +293,10 @@ def _factorize_bytes(arr: np.ndarray) -> tuple[np.ndarray, list[str]]:
     width = flat.dtype.itemsize
     buf = np.zeros((flat.size, -(-width // 8) * 8), np.uint8)
     buf[:, :width] = flat.view(np.uint8).reshape(-1, width)
-    inv = np.zeros(flat.size, np.int64)
+    inv = None
     for word in buf.view(np.uint64).T:
         codes, uniq = pd.factorize(word)
-        inv, _ = pd.factorize(inv * uniq.size + codes)
+        inv = codes if inv is None else pd.factorize(inv * uniq.size + codes)[0]
     first = np.zeros(int(inv.max(initial=-1)) + 1, np.int64)
     first[inv[::-1]] = np.arange(flat.size)[::-1]
     return inv, [v.decode("utf-8") for v in flat[first]]
@@ -748,9 +751,45 @@ def summary_tables(diag: xr.Dataset, profiles: xr.Dataset, table: pd.DataFrame, 
 
 
 # --------------------------------------------------------------------------- layers of concern
-def _local_dates(seconds: np.ndarray, local_timezone: str) -> np.ndarray:
-    idx = pd.DatetimeIndex(np.asarray(seconds, dtype="datetime64[s]")).tz_localize("UTC").tz_convert(local_timezone)
-    return idx.strftime("%Y-%m-%d").to_numpy(object)
+#: kinds of tracked layers: the weak-layer families, then the crust kinds (index = kind code)
+LAYER_KINDS: tuple[str, ...] = (*PWL_FAMILIES, *CRUST_KINDS)
+_N_FAMILIES = len(PWL_FAMILIES)
+_FAMILY_OF_GRAIN = np.zeros(len(GRAIN_INDEX), dtype=np.int8)  # 0: none, k + 1: family k
+for _number, _family in enumerate(PWL_FAMILIES):
+    _FAMILY_OF_GRAIN[[GRAIN_INDEX[c] for c in PWL_FAMILIES[_family]]] = _number + 1
+
+
+def local_dates(seconds: np.ndarray, local_timezone: str) -> np.ndarray:
+    """Local calendar dates ("YYYY-MM-DD", object array) of int64 seconds since 1970 (UTC);
+    each distinct time is converted once."""
+    uniq, inv = np.unique(np.asarray(seconds, dtype=np.int64), return_inverse=True)
+    idx = pd.DatetimeIndex(uniq.astype("datetime64[s]")).tz_localize("UTC").tz_convert(local_timezone)
+    return idx.strftime("%Y-%m-%d").to_numpy(object)[inv.reshape(-1)]
+
+
+def layer_identities(snap: LayerSnapshot) -> tuple[tuple[np.ndarray, ...], np.ndarray, np.ndarray]:
+    """Every buried weak layer and every crust of a snapshot, with what names it region-wide.
+
+    Returns
+    -------
+    pos : (cell, day, layer) index arrays of the entries: the weak layers first, then the
+        crusts (a faceting crust appears once as each).
+    kind : int, index into :data:`LAYER_KINDS` (the family FC/DH/SH, or the crust kind).
+    ref_s : int64 seconds since 1970 the layer is named for: the burial of surface hoar (the
+        deposition of the layer above), the start of the precipitation event of a rain crust
+        or glaze (one event, one layer, whatever day each cell refroze), else the formation;
+        ``_NO_TIME`` where the snapshot lacks it. The layer id is ``kind-<local date>``.
+    """
+    buried = snap.valid & (snap.burial_s > _NO_TIME)
+    family = np.where(buried, _FAMILY_OF_GRAIN[np.maximum(snap.grain, 0)], 0)
+    weak = np.nonzero(family)
+    crust = np.nonzero(snap.valid & (snap.crust > 0))
+    pos = tuple(np.concatenate([w, c]) for w, c in zip(weak, crust))
+    kind = np.concatenate([family[weak].astype(np.int64) - 1, _N_FAMILIES + snap.crust[crust].astype(np.int64)])
+    ref_s = np.where(kind == LAYER_KINDS.index("SH"), snap.burial_s[pos], snap.formation_s[pos])
+    event_s = snap.event_id[pos].astype(np.int64) * 3600
+    by_event = np.isin(kind, [LAYER_KINDS.index("rain", _N_FAMILIES), LAYER_KINDS.index("glaze", _N_FAMILIES)])
+    return pos, kind, np.where(by_event & (event_s > 0), event_s, ref_s)
 
 
 def layers_of_concern(diag: xr.Dataset, profiles: xr.Dataset, table: pd.DataFrame, weight_km2, *,
@@ -801,29 +840,14 @@ def layers_of_concern(diag: xr.Dataset, profiles: xr.Dataset, table: pd.DataFram
     if d < 0:
         return pd.DataFrame(columns=columns)
     snap = decode_snapshot(profiles, [d])
-    sq = {k: getattr(snap, k)[:, 0, :] for k in ("grain", "crust", "formation_s", "burial_s", "depth_cm",
-                                                  "load_above_kg_m2", "thickness_m", "valid")}
-    buried = sq["valid"] & (sq["burial_s"] > _NO_TIME)
-    kinds = np.full(sq["grain"].shape, "", dtype=object)
-    for fam, codes in PWL_FAMILIES.items():
-        kinds[np.isin(sq["grain"], [GRAIN_INDEX[c] for c in codes]) & buried] = fam
-    crust_names = np.asarray(CRUST_KINDS, dtype=object)[sq["crust"]]
-    is_crust = sq["valid"] & (sq["crust"] > 0)
-    wi, wl = np.nonzero(kinds != "")
-    ki, kl = np.nonzero(is_crust)  # a faceting crust gives a crust row and a weak-layer row
-    ci, li = np.concatenate([wi, ki]), np.concatenate([wl, kl])
-    as_crust = np.concatenate([np.zeros(wi.size, bool), np.ones(ki.size, bool)])
-    kind = np.concatenate([kinds[wi, wl], crust_names[ki, kl]]).astype(object)
-    ref_s = np.where(kind == "SH", sq["burial_s"][ci, li], sq["formation_s"][ci, li])
-    # rain crusts and glaze are named for their precipitation event (start hour), not for the
-    # day each cell happened to refreeze: one event, one layer of concern
-    event_s = snap.event_id[:, 0, :][ci, li].astype(np.int64) * 3600
-    by_event = np.isin(kind, ["rain", "glaze"]) & as_crust & (event_s > 0)
-    ref_s = np.where(by_event, event_s, ref_s)
+    sq = {k: getattr(snap, k)[:, 0, :] for k in ("depth_cm", "load_above_kg_m2", "thickness_m", "burial_s")}
+    (ci, _, li), code, ref_s = layer_identities(snap)
+    as_crust = code >= _N_FAMILIES
+    kind = np.asarray(LAYER_KINDS, dtype=object)[code]
     if (ref_s <= _NO_TIME).any():
         raise InputError("profiles.nc: 'formation_time' is missing for a weak layer or crust; "
                          "the layers of concern need it (int64 seconds since 1970, or datetimes)")
-    date = _local_dates(ref_s, local_timezone)
+    date = local_dates(ref_s, local_timezone)
     verb = np.where(kind == "SH", " buried ", np.where(as_crust, " crust ", " formed "))
     rows = pd.DataFrame({
         "cell_id": table.index.to_numpy()[ci],

@@ -244,6 +244,27 @@ def test_surface_hoar_persists_above_the_transition(demo, transition):
 # ---------------------------------------------------------------------- crusts
 
 
+def test_layer_tracker_follows_each_rain_crust_under_its_event_name(demo):
+    """DESIGN §3 (layers of concern): a rain crust is one layer named for its rain event,
+    whatever day each cell refroze, and the layer tracker follows the same layer: at the map
+    time it finds it in exactly the bands where the layers-of-concern table does."""
+    from regionmap.plots.tracker import layer_tracks
+
+    loc = pd.read_csv(demo["out"] / "layers_of_concern.csv", parse_dates=["valid_time"])
+    rain = loc[(loc["kind"] == "rain") & (loc["presence_frac"] > 0)]  # per zone, and per band x aspect
+    zones = rain[rain["band"] == "all"]
+    assert not zones.empty
+    for row in zones.itertuples():
+        tracks = layer_tracks(demo["out"], row.zone, layer_ids=[row.layer_id])
+        assert not tracks.empty, (row.zone, row.layer_id)
+        day = tracks["day"][tracks["day"] <= row.valid_time].max()
+        found = set(tracks.loc[(tracks["day"] == day) & (tracks["presence_frac"] > 0), "band"])
+        expected = set(rain.loc[(rain["zone"] == row.zone) & (rain["layer_id"] == row.layer_id)
+                                & (rain["band"] != "all"), "band"])
+        assert found == expected, (row.zone, row.layer_id)
+
+
+
 def _glaze(demo):
     fz = demo["design"]["expected"]["freezing_rain"]
     snap, valid = _layers(demo)

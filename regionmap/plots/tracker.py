@@ -25,8 +25,7 @@ from matplotlib.patches import Patch
 from regionmap.errors import InputError
 from regionmap.plots.outputs import SECTOR_ORDER, RunOutputs, metric
 from regionmap.plots.style import METRIC_CMAP, OKABE_ITO, new_figure, save_png, slug
-from regionmap.snow.codes import CRUST_KINDS, GRAIN_INDEX
-from regionmap.summaries import PWL_FAMILIES, band_label, decode_snapshot
+from regionmap.summaries import LAYER_KINDS, band_label, decode_snapshot, layer_identities, local_dates
 
 __all__ = ["layer_tracks", "new_snow_days", "plot_layer_tracker", "write_layer_tracker", "plot_elevation_chart",
            "write_elevation_chart", "NEW_SNOW_DAY_KG_M2", "MAX_TRACKER_LINES"]
@@ -42,31 +41,20 @@ def _outputs(out) -> RunOutputs:
     return out if isinstance(out, RunOutputs) else RunOutputs(out)
 
 
-def _local_dates(seconds: np.ndarray, tz: str) -> np.ndarray:
-    uniq, inv = np.unique(seconds, return_inverse=True)
-    idx = pd.DatetimeIndex(uniq.astype("datetime64[s]")).tz_localize("UTC").tz_convert(tz)
-    return idx.strftime("%Y-%m-%d").to_numpy(object)[inv]
-
-
-def _block_rows(snap, cell_ids: np.ndarray, tz: str) -> pd.DataFrame:
-    """(layer_id, cell_id, day, depth_cm) rows of the weak layers and crusts of one block."""
-    buried = snap.valid & (snap.burial_s > _NO_TIME)
-    parts = []
-    for fam, codes in PWL_FAMILIES.items():
-        mask = np.isin(snap.grain, [GRAIN_INDEX[c] for c in codes]) & buried
-        ci, di, li = np.nonzero(mask)
-        ref = snap.burial_s[ci, di, li] if fam == "SH" else snap.formation_s[ci, di, li]
-        parts.append((np.full(ci.size, fam, dtype=object), ci, di, li, ref))
-    crust = snap.valid & (snap.crust > 0)
-    ci, di, li = np.nonzero(crust)
-    parts.append((np.asarray(CRUST_KINDS, dtype=object)[snap.crust[ci, di, li]], ci, di, li, snap.formation_s[ci, di, li]))
-    kind = np.concatenate([p[0] for p in parts])
-    ci, di, li = (np.concatenate([p[k] for p in parts]) for k in (1, 2, 3))
-    ref = np.concatenate([p[4] for p in parts])
+def _block_rows(snap, cell_ids: np.ndarray, tz: str, layer_ids=None) -> pd.DataFrame:
+    """(layer_id, cell_id, day, depth_cm) rows of the weak layers and crusts of one block
+    (named as in the layers of concern, :func:`regionmap.summaries.layer_identities`), only
+    those of ``layer_ids`` when given. Ids are built once per distinct (kind, time)."""
+    pos, kind, ref = layer_identities(snap)
     ok = ref > _NO_TIME
-    kind, ci, di, li, ref = kind[ok], ci[ok], di[ok], li[ok], ref[ok]
-    date = _local_dates(ref, tz) if ref.size else np.empty(0, object)
-    return pd.DataFrame({"layer_id": kind + "-" + date, "cell_id": cell_ids[ci], "day": snap.day[di],
+    pos, kind, ref = tuple(p[ok] for p in pos), kind[ok], ref[ok]
+    ref_i, ref_u = pd.factorize(ref)  # hashing, not sorting: millions of entries, few values
+    n_ref = max(ref_u.size, 1)
+    key_i, key_u = pd.factorize(kind * n_ref + ref_i)
+    ids_u = (np.asarray(LAYER_KINDS, dtype=object)[key_u // n_ref] + "-" + local_dates(ref_u[key_u % n_ref], tz))
+    keep = np.ones(kind.size, bool) if layer_ids is None else np.isin(ids_u, list(layer_ids))[key_i]
+    ci, di, li = (p[keep] for p in pos)
+    return pd.DataFrame({"layer_id": ids_u[key_i[keep]], "cell_id": cell_ids[ci], "day": snap.day[di],
                          "depth_cm": snap.depth_cm[ci, di, li]})
 
 
@@ -95,11 +83,10 @@ def layer_tracks(out, zone: str, *, by_aspect: bool = False, layer_ids=None) -> 
     prof = profiles.isel(cell=pos)
     cell_ids = prof["cell_id"].values.astype(np.int64)
     n_day = prof.sizes["day"]
-    rows = [_block_rows(decode_snapshot(prof, np.arange(d, min(d + _DAY_BLOCK, n_day))), cell_ids, out.local_timezone)
+    rows = [_block_rows(decode_snapshot(prof, np.arange(d, min(d + _DAY_BLOCK, n_day))), cell_ids,
+                        out.local_timezone, layer_ids)
             for d in range(0, n_day, _DAY_BLOCK)]
     frame = pd.concat(rows, ignore_index=True)
-    if layer_ids is not None:
-        frame = frame[frame["layer_id"].isin(list(layer_ids))]
     frame = frame.sort_values("depth_cm").drop_duplicates(["layer_id", "cell_id", "day"])
     keys = ["band_lower_m", "band"] + (["aspect_sector"] if by_aspect else [])
     frame = frame.merge(table[keys], left_on="cell_id", right_index=True)
