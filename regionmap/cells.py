@@ -118,10 +118,17 @@ class CellSet:
     transform: object = None
     crs: object = None
     band_edges_m: np.ndarray = field(default_factory=lambda: np.array([]))
+    _polygons: object = field(default=None, init=False, repr=False, compare=False)
 
     def polygons(self):
         """Cell polygons (MultiPolygon per cell, from the index raster) with the cell table,
-        as a GeoDataFrame in the DEM CRS."""
+        as a GeoDataFrame in the DEM CRS (traced once, then copied: the rain-crust lines and
+        the GeoPackage both need them)."""
+        if self._polygons is None:
+            self._polygons = self._trace_polygons()
+        return self._polygons.copy()
+
+    def _trace_polygons(self):
         import geopandas as gpd
         import shapely
         from rasterio.features import shapes
