@@ -7,7 +7,9 @@ chunks have finished, in ``cell_id`` order.
 
 from __future__ import annotations
 
+import os
 import time as _time
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -80,8 +82,13 @@ def _member_presence(ctx, state0, event: pd.Series, control: np.ndarray, table: 
     formed = (first_ev - np.timedelta64(3600, "s"), last_ev + np.timedelta64(_AFTER_H * 3600, "s"))
     resume = start
     groups = ctx.batch.zone_code[cells] if ctx.downscale.drift else None  # drift: whole zones per block
-    for lo, hi in chunk_ranges(cells.size, _ENSEMBLE_BLOCK_CELLS, groups):
-        members[:, cells[lo:hi]], resume = _block_presence(ctx, state0, cells[lo:hi], start, stop, formed)
+    # blocks side by side, one per core (the kernel and most of the downscaling release the GIL)
+    n_threads = os.cpu_count() or 1
+    blocks = chunk_ranges(cells.size, min(_ENSEMBLE_BLOCK_CELLS, -(-cells.size // n_threads)), groups)
+    with ThreadPoolExecutor(min(n_threads, len(blocks))) as pool:
+        done = list(pool.map(lambda b: _block_presence(ctx, state0, cells[b[0]:b[1]], start, stop, formed), blocks))
+    for (lo, hi), (presence, resume) in zip(blocks, done):
+        members[:, cells[lo:hi]] = presence
     cost = {"cells": int(cells.size), "steps": int(stop - resume), "member_steps": int(stop - start),
             "seconds": round(_time.perf_counter() - t0, 3)}
     return members, cost
@@ -107,12 +114,12 @@ def _block_presence(ctx, state0, cells: np.ndarray, start: int, stop: int, forme
     resume = max(p.first, int(np.searchsorted(p.times, np.datetime64(state.time, "s"), side="right")))
     if start > resume:  # one diagnostics interval: only the state is wanted
         spin = downscale_cells(gf, batch, ctx.downscale, slice(resume, start))
-        state, _, _ = run_columns(state, spin, ctx.snow, start - resume, with_snapshots=False, threads=2)
+        state, _, _ = run_columns(state, spin, ctx.snow, start - resume, with_snapshots=False, threads=1)
     window = downscale_cells(gf, batch, ctx.downscale, slice(start, stop))
     presence = np.zeros((len(ENSEMBLE_MEMBERS), cells.size), bool)
     for m, (dt_k, dphase_k) in enumerate(ENSEMBLE_MEMBERS):
         f = _perturbed(window, dt_k, dphase_k, ctx.downscale)
-        _, _, snaps = run_columns(state, f, ctx.snow, stop - start, None, threads=2)
+        _, _, snaps = run_columns(state, f, ctx.snow, stop - start, None, threads=1)
         ds = snapshots_to_dataset(snaps, batch.cell_id).swap_dims({"day": "time"}).rename({"time": "day"})
         presence[m] = rain_crust_presence(ds, formed_between=formed)
     return presence, resume
