@@ -245,8 +245,9 @@ def _render(out: RunOutputs, *, thumbnails: bool, workers: int | None = None) ->
     Reading and drawing overlap: the maps start drawing in one forked worker while the
     summaries at the map time are computed here; the overviews, elevation charts and profiles
     then draw in ``workers`` more (default up to 2) while the layer tracks are read from all
-    snapshot days of profiles.nc (the slowest read); the trackers last. Each fork inherits
-    the data it draws; the NetCDF files are closed before the last one."""
+    snapshot days of profiles.nc (the slowest read); the trackers last, while the overviews'
+    CSV tables are written here. Each fork inherits the data it draws; the NetCDF files are
+    closed before the last one."""
     import os
 
     workers = min(2, os.cpu_count() or 1) if workers is None else workers
@@ -258,9 +259,12 @@ def _render(out: RunOutputs, *, thumbnails: bool, workers: int | None = None) ->
     layer_specs = _layer_specs(out)
     out.close()
     layers = _Drawing(layer_specs, thumbnails, workers if parallel else 0)
+    figdir = out.out_dir / "figures"
+    # the overviews' numbers while the last figures draw (forked workers already hold their data)
+    tables = [write_overview_csv(out, zone, m, figdir / f"overview_{slug(zone)}_{m}.csv")
+              for zone in out.zone_names for m in OVERVIEW_METRICS]
     specs = map_specs + summary_specs + layer_specs
     drawn = maps.get() + summaries.get() + layers.get()
-    figdir = out.out_dir / "figures"
     figures, written = [], []
     for (section, name, caption, _), (png, thumb, size) in zip(specs, drawn):
         path = figdir / name
@@ -268,10 +272,7 @@ def _render(out: RunOutputs, *, thumbnails: bool, workers: int | None = None) ->
             tmp.write_bytes(png)
         written.append(path)
         figures.append(_Figure(section, caption, path, thumb, size))
-    for zone in out.zone_names:
-        for m in OVERVIEW_METRICS:
-            written.append(write_overview_csv(out, zone, m, figdir / f"overview_{slug(zone)}_{m}.csv"))
-    return figures, written
+    return figures, written + tables
 
 
 def write_all_figures(out_dir) -> list[Path]:
