@@ -33,7 +33,7 @@ _MIN_EVENT_CELLS = 3
 _MIN_EVENT_CELL_FRAC = 0.02
 #: Cells within this height of the control crust's elevation range join the ensemble [m].
 _ENSEMBLE_MARGIN_M = 400.0
-#: Cells re-simulated together by the ensemble (bounds its memory).
+#: Cells re-simulated together by the ensemble, at most (bounds the memory of each of its threads).
 _ENSEMBLE_BLOCK_CELLS = 2048
 
 
