@@ -440,8 +440,7 @@ def _time_blocks(diag: xr.Dataset, pos: np.ndarray) -> list[slice]:
     once for every block that reaches into it."""
     chunks = diag["snow_depth_cm"].encoding.get("chunksizes") if "snow_depth_cm" in diag.variables else None
     dims = diag["snow_depth_cm"].dims if chunks else ()
-    step = int(chunks[dims.index("time")]) if chunks and "time" in dims else pos.size + 1
-    chunk_of = pos // step
+    chunk_of = pos // int(chunks[dims.index("time")]) if chunks and "time" in dims else np.zeros(pos.size, int)
     edges = [0]
     for i in range(1, pos.size):
         if chunk_of[i] != chunk_of[i - 1] or i - edges[-1] >= _TIME_BLOCK:

@@ -210,3 +210,26 @@ def test_block_sizes_do_not_change_the_summaries(run, monkeypatch):
     # from the burial (2026-01-13T03Z) to the map time
     sh = loc_many[(loc_many["layer_id"] == "SH-2026-01-12") & (loc_many["aspect_sector"] == "all")]
     np.testing.assert_allclose(sh["load_since_burial_kg_m2"], 225.0)
+
+
+def test_time_blocks_end_where_the_file_time_chunks_do(monkeypatch):
+    """Property of the reading strategy (no outside oracle needed): every block of summary
+    times lies inside one time chunk of cells.nc, so each compressed chunk is read once; it
+    holds at most _TIME_BLOCK times; the blocks cover all times in order, and are the fewest
+    that satisfy both."""
+    import xarray as xr
+
+    import regionmap.summaries as summaries
+
+    diag = xr.Dataset({"snow_depth_cm": (("cell", "time"), np.zeros((2, 100), np.float32))})
+    diag["snow_depth_cm"].encoding["chunksizes"] = (2, 24)
+    pos = np.arange(5, 100, 7)
+    monkeypatch.setattr(summaries, "_TIME_BLOCK", 3)
+    blocks = summaries._time_blocks(diag, pos)
+    np.testing.assert_array_equal(np.concatenate([pos[b] for b in blocks]), pos)
+    assert all(len(pos[b]) <= 3 and len(set(pos[b] // 24)) == 1 for b in blocks)
+    per_chunk = np.unique(pos // 24, return_counts=True)[1]
+    assert len(blocks) == sum(-(-int(k) // 3) for k in per_chunk)
+    # a dataset without chunk information (in memory) is cut by _TIME_BLOCK alone
+    plain = xr.Dataset({"snow_depth_cm": (("cell", "time"), np.zeros((2, 100), np.float32))})
+    assert [len(pos[b]) for b in summaries._time_blocks(plain, pos)] == [3, 3, 3, 3, 2]
