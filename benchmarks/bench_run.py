@@ -9,8 +9,8 @@ call of the chunk function.
 
 The synthetic regions reuse the invented demo range and its season; the zones are a grid of
 boxes over the range and slope classes multiply the cells (see SIZES for the counts; the
-30 000-cell case runs on two copies of the demo DEM side by side, the second mirrored). Prints the figures, exits 1
-when a target is missed (unless --no-assert).
+30 000-cell case runs on two copies of the demo DEM side by side, the second mirrored).
+Prints the figures, exits 1 when a target is missed (unless --no-assert).
 """
 
 from __future__ import annotations
