@@ -54,6 +54,7 @@ __all__ = [
     "decode_snapshot",
     "LAYER_KINDS",
     "layer_identities",
+    "layer_ids",
     "local_dates",
     "band_label",
     "layer_summary_text",
@@ -766,6 +767,12 @@ def local_dates(seconds: np.ndarray, local_timezone: str) -> np.ndarray:
     return idx.strftime("%Y-%m-%d").to_numpy(object)[inv.reshape(-1)]
 
 
+def layer_ids(kind: np.ndarray, ref_s: np.ndarray, local_timezone: str) -> np.ndarray:
+    """Region-wide names of layers, ``kind-<local date>`` (e.g. ``SH-2026-01-12``), from the
+    kind codes and reference times of :func:`layer_identities` (object array)."""
+    return np.asarray(LAYER_KINDS, dtype=object)[kind] + "-" + local_dates(ref_s, local_timezone)
+
+
 def layer_identities(snap: LayerSnapshot) -> tuple[tuple[np.ndarray, ...], np.ndarray, np.ndarray]:
     """Every buried weak layer and every crust of a snapshot, with what names it region-wide.
 
@@ -777,7 +784,7 @@ def layer_identities(snap: LayerSnapshot) -> tuple[tuple[np.ndarray, ...], np.nd
     ref_s : int64 seconds since 1970 the layer is named for: the burial of surface hoar (the
         deposition of the layer above), the start of the precipitation event of a rain crust
         or glaze (one event, one layer, whatever day each cell refroze), else the formation;
-        ``_NO_TIME`` where the snapshot lacks it. The layer id is ``kind-<local date>``.
+        ``_NO_TIME`` where the snapshot lacks it. :func:`layer_ids` names them.
     """
     buried = snap.valid & (snap.burial_s > _NO_TIME)
     family = np.where(buried, _FAMILY_OF_GRAIN[np.maximum(snap.grain, 0)], 0)
@@ -854,7 +861,7 @@ def layers_of_concern(diag: xr.Dataset, profiles: xr.Dataset, table: pd.DataFram
         "kind": kind,
         "category": np.where(as_crust, "crust", "weak layer"),
         "date": date,
-        "layer_id": kind + "-" + date,
+        "layer_id": layer_ids(code, ref_s, local_timezone),
         "layer_name": kind + verb + date,
         "depth_cm": sq["depth_cm"][ci, li],
         "thickness_cm": sq["thickness_m"][ci, li] * 100.0,

@@ -25,7 +25,7 @@ from matplotlib.patches import Patch
 from regionmap.errors import InputError
 from regionmap.plots.outputs import SECTOR_ORDER, RunOutputs, metric
 from regionmap.plots.style import METRIC_CMAP, OKABE_ITO, new_figure, save_png, slug
-from regionmap.summaries import LAYER_KINDS, band_label, decode_snapshot, layer_identities, local_dates
+from regionmap.summaries import band_label, decode_snapshot, layer_identities, layer_ids
 
 __all__ = ["layer_tracks", "new_snow_days", "plot_layer_tracker", "write_layer_tracker", "plot_elevation_chart",
            "write_elevation_chart", "NEW_SNOW_DAY_KG_M2", "MAX_TRACKER_LINES"]
@@ -41,18 +41,18 @@ def _outputs(out) -> RunOutputs:
     return out if isinstance(out, RunOutputs) else RunOutputs(out)
 
 
-def _block_rows(snap, cell_ids: np.ndarray, tz: str, layer_ids=None) -> pd.DataFrame:
+def _block_rows(snap, cell_ids: np.ndarray, tz: str, wanted=None) -> pd.DataFrame:
     """(layer_id, cell_id, day, depth_cm) rows of the weak layers and crusts of one block
     (named as in the layers of concern, :func:`regionmap.summaries.layer_identities`), only
-    those of ``layer_ids`` when given. Ids are built once per distinct (kind, time)."""
+    those of the ids ``wanted`` when given. Ids are built once per distinct (kind, time)."""
     pos, kind, ref = layer_identities(snap)
     ok = ref > _NO_TIME
     pos, kind, ref = tuple(p[ok] for p in pos), kind[ok], ref[ok]
     ref_i, ref_u = pd.factorize(ref)  # hashing, not sorting: millions of entries, few values
     n_ref = max(ref_u.size, 1)
     key_i, key_u = pd.factorize(kind * n_ref + ref_i)
-    ids_u = (np.asarray(LAYER_KINDS, dtype=object)[key_u // n_ref] + "-" + local_dates(ref_u[key_u % n_ref], tz))
-    keep = np.ones(kind.size, bool) if layer_ids is None else np.isin(ids_u, list(layer_ids))[key_i]
+    ids_u = layer_ids(key_u // n_ref, ref_u[key_u % n_ref], tz)
+    keep = np.ones(kind.size, bool) if wanted is None else np.isin(ids_u, list(wanted))[key_i]
     ci, di, li = (p[keep] for p in pos)
     return pd.DataFrame({"layer_id": ids_u[key_i[keep]], "cell_id": cell_ids[ci], "day": snap.day[di],
                          "depth_cm": snap.depth_cm[ci, di, li]})
