@@ -50,7 +50,6 @@ from regionmap.snow.kernel import (
     V_TSURF,
     _column_mass_enthalpy,
     _step,
-    column_mass,
 )
 from regionmap.snow.layering import (
     F_DEND,
@@ -80,6 +79,7 @@ from regionmap.snow.params import (
     P_THRESHOLD_RELATIVE,
 )
 from regionmap.snow.surface_hoar import surface_hoar_size_mm
+from regionmap.snow.vecmath import padded_count
 
 # diagnostics rows: float64 (mass budget) and float32 (the rest)
 D64_SWE, D64_SNOW, D64_RAIN, D64_RUNOFF, D64_SUBL, D64_DEPO, D64_MASS_RES = range(7)
@@ -135,8 +135,9 @@ def run_cells(c0, c1, time_s, t_air, rh, pres, wind, sw, lw, precip, sf, fzf, dt
     """
     cap = thick.shape[1]
     n_steps = time_s.shape[0]
-    fw = np.zeros((F_ROWS, cap))
-    iw = np.zeros((I_ROWS, cap), dtype=np.int64)
+    width = padded_count(cap)  # room for the padded loops over layers (vecmath.padded_count)
+    fw = np.zeros((F_ROWS, width))
+    iw = np.zeros((I_ROWS, width), dtype=np.int64)
     wk = np.zeros((10, 2 * (cap + N_SOIL)))
     wb = np.zeros(cap, dtype=np.bool_)
     sv = np.zeros(N_SV)
@@ -146,7 +147,7 @@ def run_cells(c0, c1, time_s, t_air, rh, pres, wind, sw, lw, precip, sf, fzf, dt
     acc = np.zeros(N_ACC)
     sums = np.zeros(N_ACC)
     tot = np.zeros(2)
-    hard = np.zeros(cap)
+    hard = np.zeros(width)
     scratch = np.zeros((N_SCRATCH_ROWS, cap))
     struct = np.zeros(N_STRUCT)
     relative = p[P_THRESHOLD_RELATIVE] != 0.0
@@ -215,10 +216,12 @@ def run_cells(c0, c1, time_s, t_air, rh, pres, wind, sw, lw, precip, sf, fzf, dt
                                  scratch, struct)
                 depth = 0.0
                 liq_sum = 0.0
+                swe = sv[V_SH_MASS]  # kernel.column_mass, summed in the same pass
                 for i in range(n):
                     depth += fw[F_THICK, i]
                     liq_sum += fw[F_LIQ, i]
-                d64[D64_SWE, c, o] = column_mass(fw, n, sv[V_SH_MASS])
+                    swe += fw[F_ICE, i] + fw[F_LIQ, i]
+                d64[D64_SWE, c, o] = swe
                 d64[D64_SNOW, c, o] = sums[A_SNOW]
                 d64[D64_RAIN, c, o] = sums[A_RAIN]
                 d64[D64_RUNOFF, c, o] = sums[A_RUNOFF]

@@ -17,6 +17,7 @@ from regionmap.snow.crusts import counts_as_crust
 from regionmap.snow.hardness import hardness_index_from_density, hardness_index_from_density_array
 from regionmap.snow.layering import F_GRAIN, F_ICE, F_LIQ, F_THICK, I_CODE, I_CRUST
 from regionmap.snow.stability import N_CRITERIA, worst_interface_column
+from regionmap.snow.vecmath import padded_count
 
 __all__ = ["wetness_class_fierz2009", "layer_hardness", "column_structure", "layer_hardness_array",
            "N_SCRATCH_ROWS"]
@@ -57,7 +58,7 @@ def _is_persistent(code):
 @njit(cache=True, nogil=True, error_model="numpy")
 def layer_hardness(fw, iw, n, out):
     """Hand-hardness index of each active layer (Geldsetzer & Jamieson 2000 via hardness.py)."""
-    for i in range(n):
+    for i in range(padded_count(n)):  # vectorises; ``out`` has room (vecmath.padded_count)
         dens = (fw[F_ICE, i] + fw[F_LIQ, i]) / max(fw[F_THICK, i], 1e-9)
         out[i] = hardness_index_from_density(dens, iw[I_CODE, i], iw[I_CRUST, i])
 

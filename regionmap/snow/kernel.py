@@ -128,7 +128,6 @@ from regionmap.snow.surface import (
     neutral_exchange_coefficient,
     solve_surface_temperature,
     specific_humidity,
-    surface_fluxes,
     vapour_pressure_water_buck1981,
 )
 from regionmap.snow.surface_hoar import (
@@ -136,6 +135,7 @@ from regionmap.snow.surface_hoar import (
     surface_hoar_forms,
     surface_hoar_size_mm,
 )
+from regionmap.snow.vecmath import padded_count
 from regionmap.snow.water import is_flow_barrier, layer_enthalpy, percolate_column, resolve_phase
 
 # per-cell surface state vector (float64)
@@ -201,17 +201,13 @@ def _column_mass_enthalpy(fw, n, sh_mass):
 def _round_and_totals(fw, n, sh_mass):
     """Round the fields the state keeps as float32 and return (:func:`column_mass`,
     :func:`column_enthalpy`) of the rounded column, in one pass."""
-    m = sh_mass
-    e = -L_FUSION_J_KG * sh_mass
-    for i in range(n):
+    for i in range(padded_count(n)):  # vectorises
         fw[F_THICK, i] = _f32(fw[F_THICK, i])
         fw[F_TEMP, i] = _f32(fw[F_TEMP, i])
         fw[F_GRAIN, i] = _f32(fw[F_GRAIN, i])
         fw[F_DEND, i] = _f32(fw[F_DEND, i])
         fw[F_FACET, i] = _f32(fw[F_FACET, i])
-        m += fw[F_ICE, i] + fw[F_LIQ, i]
-        e += layer_enthalpy(fw[F_ICE, i], fw[F_LIQ, i], fw[F_TEMP, i])
-    return m, e
+    return _column_mass_enthalpy(fw, n, sh_mass)
 
 
 @njit(cache=True, nogil=True, error_model="numpy")
@@ -341,7 +337,7 @@ def _energy_and_conduction(fw, n, sv, ta, q_air, pres, wind, sw_in, lw_in, q_ext
     ice_w = fw[F_ICE]
     liq_w = fw[F_LIQ]
     temp_w = fw[F_TEMP]
-    for l in range(n):  # vectorises
+    for l in range(padded_count(n)):  # vectorises
         j = ns + l
         dzn[j] = thick_w[l]
         dens = ice_w[l] / max(thick_w[l], 1e-9)
@@ -357,7 +353,7 @@ def _energy_and_conduction(fw, n, sv, ta, q_air, pres, wind, sw_in, lw_in, q_ext
     if remaining > 1e-6:
         absorbed_frac = sol  # free until the back substitution below
         grain_w = fw[F_GRAIN]
-        for l in range(n):  # vectorises
+        for l in range(padded_count(n)):  # vectorises
             absorbed_frac[l] = penetration_fraction(dens_w[l], grain_w[l], thick_w[l])
         for l in range(n - 1, -1, -1):
             if remaining <= 1e-6:  # below a microwatt: nothing left to absorb
@@ -381,11 +377,9 @@ def _energy_and_conduction(fw, n, sv, ta, q_air, pres, wind, sw_in, lw_in, q_ext
     floor = p[P_STABLE_FLOOR_FRAC]
     c_n = neutral_exchange_coefficient(zu, zt, z0, z0)
     if n > 0:
-        ts, _dq, _r = solve_surface_temperature(
+        ts, q_net, sens, lat, vap, _dq, _r = solve_surface_temperature(
             sv[V_TSURF], y_top, k_eff, ta, q_air, pres, wind, lw_in, sw_surf, eps, c_n, zt, z0,
             floor, int(p[P_NEWTON_ITERATIONS]))
-        q_net, sens, lat, vap, _d = surface_fluxes(ts, ta, q_air, pres, wind, lw_in, sw_surf,
-                                                   eps, c_n, zt, z0, floor)
         g_top = q_net if ts >= T_MELT_K else k_eff * (ts - y_top)
     else:
         # bare ground: the soil surface follows the air temperature
@@ -399,7 +393,7 @@ def _energy_and_conduction(fw, n, sv, ta, q_air, pres, wind, sw_in, lw_in, q_ext
     if n == 0:
         sv[V_TSURF] = ts
         return 0.0, 0.0, 0.0, 0.0, 0.0, 0.0, 0.0, 0.0, ts
-    for l in range(n):
+    for l in range(padded_count(n)):
         fw[F_TEMP, l] = tn[ns + l]
     kint = 1.0 / (0.5 * dzn[ns - 1] / kn[ns - 1] + 0.5 * dzn[ns] / kn[ns])
     ground = kint * (tn[ns - 1] - tn[ns])
@@ -543,7 +537,7 @@ def _compact(fw, n, dt, p, load_w):
     ice_w = fw[F_ICE]
     liq_w = fw[F_LIQ]
     temp_w = fw[F_TEMP]
-    for i in range(n):
+    for i in range(padded_count(n)):
         ice = ice_w[i]
         liq = liq_w[i]
         thick = thick_w[i]
@@ -589,12 +583,13 @@ def _metamorphose(fw, iw, n, sv, ts, dt, p, grad_w, centre_w, arr_w):
     density and wetness; then its grain class.
 
     After the gradients (:func:`_layer_gradients`), three passes: the dry-snow laws for
-    every layer, without branches so the loop vectorises (faceting or rounding and kinetic
-    growth; ice layers, surface hoar and wet layers keep their values); then, layer by layer,
-    the decomposition of new snow and the wet-snow laws for the few layers they concern;
-    then, again vectorised, the clamping and the grain class (ice layers unchanged, dry
-    crusts keep their class).
-    ``grad_w``, ``centre_w``, ``arr_w`` (>= n,) are work arrays.
+    every layer, without branches so the loop vectorises (faceting or rounding, kinetic
+    growth and the decomposition of new snow; ice layers, surface hoar and wet layers keep
+    their values); then, layer by layer, the wet-snow laws for the few wet layers (skipped
+    when there are none); then, again vectorised, the clamping and the grain class (ice
+    layers unchanged, dry crusts keep their class). The vectorised passes run to
+    ``padded_count(n)`` (:func:`regionmap.snow.vecmath.padded_count`).
+    ``grad_w``, ``centre_w``, ``arr_w`` (>= padded_count(n),) are work arrays.
     """
     days = dt / 86400.0
     g_round = p[P_GRADIENT_ROUND_K_M]
@@ -612,37 +607,39 @@ def _metamorphose(fw, iw, n, sv, ts, dt, p, grad_w, centre_w, arr_w):
     grain_w = fw[F_GRAIN]
     facet_w = fw[F_FACET]
     code_w = iw[I_CODE]
-    for i in range(n):
+    dend_w = fw[F_DEND]
+    wet_layers = 0
+    for i in range(padded_count(n)):
         dz = thick_w[i]
         t = temp_w[i]
         grad = grad_w[i]
         dens = ice_w[i] / max(dz, 1e-9)
         # one exponential per layer serves decomposition and rounding
         arr = arrhenius_ratio_6000(t)
-        arr_w[i] = arr
         f = facet_w[i] + facetedness_rate(t, dens, grad, g_round, g_strong, facet_rate,
                                           round_rate, arr) * days
         gs = grain_growth_marbouty1980(grain_w[i], t, dens, grad, dt, kinetic)
         code = code_w[i]
-        dry_snow = code != _IF and code != _SH and not _is_wet(liq_w[i], dz)
+        wet = _is_wet(liq_w[i], dz)
+        wet_layers += 1 if wet & (i < n) else 0
+        dry_snow = (code != _IF) & (code != _SH) & (not wet)
         facet_w[i] = f if dry_snow else facet_w[i]
         grain_w[i] = gs if dry_snow else grain_w[i]
-    for i in range(n):
-        code = iw[I_CODE, i]
-        wet = _is_wet(fw[F_LIQ, i], fw[F_THICK, i])
-        d = fw[F_DEND, i]
-        if code == _IF or not (wet or (code != _SH and d > 0.0)):
+        arr_w[i] = arr if dry_snow & (dend_w[i] > 0.0) else 0.0  # 0: no decomposition
+    # (a pass of its own: fused into the pass above, the loop runs slower)
+    for i in range(padded_count(n)):
+        d = dend_w[i]
+        decomposed = d - dry_dendricity_rate_brun1992(arr_w[i], grad_w[i]) * days
+        dend_w[i] = decomposed if arr_w[i] > 0.0 else d
+    for i in range(n if wet_layers > 0 else 0):
+        if iw[I_CODE, i] == _IF or not _is_wet(fw[F_LIQ, i], fw[F_THICK, i]):
             continue
-        if wet:
-            pct = 100.0 * fw[F_LIQ, i] / max(fw[F_ICE, i] + fw[F_LIQ, i], 1e-12)
-            fw[F_DEND, i] = d - dendricity_rate_brun1992(fw[F_TEMP, i], grad_w[i], pct) * days
-            fw[F_FACET, i] = fw[F_FACET, i] - 1.0 * days
-            fw[F_GRAIN, i] = grain_growth_wet_brun1989(fw[F_GRAIN, i], pct, dt)
-        else:
-            fw[F_DEND, i] = d - dry_dendricity_rate_brun1992(arr_w[i], grad_w[i]) * days
-    dend_w = fw[F_DEND]
+        pct = 100.0 * fw[F_LIQ, i] / max(fw[F_ICE, i] + fw[F_LIQ, i], 1e-12)
+        fw[F_DEND, i] -= dendricity_rate_brun1992(fw[F_TEMP, i], grad_w[i], pct) * days
+        fw[F_FACET, i] = fw[F_FACET, i] - 1.0 * days
+        fw[F_GRAIN, i] = grain_growth_wet_brun1989(fw[F_GRAIN, i], pct, dt)
     crust_w = iw[I_CRUST]
-    for i in range(n):
+    for i in range(padded_count(n)):
         code = code_w[i]
         wet = _is_wet(liq_w[i], thick_w[i])
         d = min(max(dend_w[i], 0.0), 1.0)

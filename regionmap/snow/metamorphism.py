@@ -22,7 +22,7 @@ import math
 from numba import njit
 
 from regionmap.snow.constants import T_MELT_K
-from regionmap.snow.vecmath import exp_vec
+from regionmap.snow.vecmath import exp_vec, log_vec
 
 __all__ = [
     "marbouty_temperature_factor",
@@ -124,12 +124,14 @@ def dendricity_rate_brun1992(t_k, gradient_k_m, liquid_mass_pct):
     return dry_dendricity_rate_brun1992(arrhenius_ratio_6000(t_k), gradient_k_m)
 
 
-@njit(cache=True, nogil=True, error_model="numpy")
+@njit(cache=True, nogil=True, error_model="numpy", inline="always")
 def dry_dendricity_rate_brun1992(arrhenius_ratio, gradient_k_m):
     """Dry branch of :func:`dendricity_rate_brun1992` from :func:`arrhenius_ratio_6000`:
-    2e8 exp(-6000/T0) x ratio x max(|G|, 5)^0.4 [day-1] (= 2e8 exp(-6000/T) max(|G|, 5)^0.4)."""
+    2e8 exp(-6000/T0) x ratio x max(|G|, 5)^0.4 [day-1] (= 2e8 exp(-6000/T) max(|G|, 5)^0.4).
+    The power is exp(0.4 log g) from :mod:`regionmap.snow.vecmath`, so a loop over layers
+    vectorises (within 2e-15 of ``g**0.4``)."""
     g = max(abs(gradient_k_m), 5.0)
-    return _DRY_DECOMPOSITION_T0_PER_DAY * arrhenius_ratio * g**0.4
+    return _DRY_DECOMPOSITION_T0_PER_DAY * arrhenius_ratio * exp_vec(0.4 * log_vec(g))
 
 
 @njit(cache=True, nogil=True, error_model="numpy", inline="always")

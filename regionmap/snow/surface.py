@@ -177,18 +177,18 @@ def solve_surface_temperature(
     -------
     t_surf_k : float
         Skin temperature [K], at most 273.15.
-    dq_dt : float
-        Slope d q_net / d Ts at the solution [W m-2 K-1] (for the implicit coupling).
+    q_net, sensible, latent, vapour_flux, dq_dts : float
+        :func:`surface_fluxes` at ``t_surf_k`` (computed once, by the solve's last step).
     residual : float
         q_net(Ts) - K (Ts - T_top) at the solution [W m-2] (0 when capped at melting).
     """
     hi = T_MELT_K
-    q_hi, _s, _l, _v, d_hi = surface_fluxes(hi, t_air_k, q_air, pressure_pa, wind_m_s,
-                                            lw_in_w_m2, sw_abs_surface_w_m2, emissivity,
-                                            c_neutral, z_temp_m, z0_m, stable_floor_frac)
+    q_hi, s_hi, l_hi, v_hi, d_hi = surface_fluxes(hi, t_air_k, q_air, pressure_pa, wind_m_s,
+                                                  lw_in_w_m2, sw_abs_surface_w_m2, emissivity,
+                                                  c_neutral, z_temp_m, z0_m, stable_floor_frac)
     f_hi = q_hi - k_surf_w_m2_k * (hi - t_top_k)
     if f_hi >= 0.0:
-        return T_MELT_K, d_hi, 0.0
+        return T_MELT_K, q_hi, s_hi, l_hi, v_hi, d_hi, 0.0
     lo = 150.0
     ts = min(max(t_guess_k, lo + 1.0), hi - 1e-6)
     f = 0.0
@@ -209,7 +209,7 @@ def solve_surface_temperature(
         if nxt < lo or nxt > hi:
             nxt = 0.5 * (lo + hi)
         ts = nxt
-    q0, _s, _l, _v, dq = surface_fluxes(ts, t_air_k, q_air, pressure_pa, wind_m_s, lw_in_w_m2,
-                                        sw_abs_surface_w_m2, emissivity, c_neutral, z_temp_m,
-                                        z0_m, stable_floor_frac)
-    return ts, dq, q0 - k_surf_w_m2_k * (ts - t_top_k)
+    q0, sens, lat, vap, dq = surface_fluxes(ts, t_air_k, q_air, pressure_pa, wind_m_s,
+                                            lw_in_w_m2, sw_abs_surface_w_m2, emissivity,
+                                            c_neutral, z_temp_m, z0_m, stable_floor_frac)
+    return ts, q0, sens, lat, vap, dq, q0 - k_surf_w_m2_k * (ts - t_top_k)

@@ -1,16 +1,22 @@
 """Elementary functions that the compiler can vectorise.
 
-A call to the C library's ``exp`` inside a loop stops LLVM from vectorising the loop, so the
-per-layer passes of the column kernel would run one layer at a time. :func:`exp_vec` uses only
-multiplies, adds and bit operations, so a loop over layers that calls it runs 4 layers per
-instruction on AVX2. Each lane computes exactly what a scalar call computes (no reassociation,
-no fused operations), so results do not depend on where a layer falls in a vector.
+A call to the C library's ``exp``, ``log`` or ``pow`` inside a loop stops LLVM from
+vectorising the loop, so the per-layer passes of the column kernel would run one layer at a
+time. :func:`exp_vec` and :func:`log_vec` use only multiplies, adds, divisions and bit
+operations, so a loop over layers that calls them runs 4 layers per instruction on AVX2 (8 on
+AVX-512). Each lane computes exactly what a scalar call computes (no reassociation, no fused
+operations), so results do not depend on where a layer falls in a vector.
 
-Method: Cody & Waite (1980) argument reduction x = k ln 2 + r with |r| <= ln(2)/2 (ln 2 split
+exp: Cody & Waite (1980) argument reduction x = k ln 2 + r with |r| <= ln(2)/2 (ln 2 split
 in a high part exact in 32 bits and a low correction), exp(r) by its Taylor series to r**12
 (truncation below 4e-16 relative) in Horner form, and 2**k assembled from its exponent bits;
 k is rounded to nearest by the 1.5 * 2**52 "magic number" addition (e.g. Muller et al. 2018,
 Handbook of Floating-Point Arithmetic, 2nd ed., Sec. 11.2.2).
+
+log: x = 2**k m with m in [sqrt(2)/2, sqrt(2)) from the exponent and significand bits, then
+log m = 2 atanh(s) = 2 (s + s**3/3 + s**5/5 + ...) with s = (m - 1)/(m + 1), |s| <= 0.172,
+to s**23 (truncation below 1e-17 relative), and log x = k ln 2 + log m with ln 2 split as
+above (the same reduction, e.g. Muller et al. 2018, Sec. 11.3).
 """
 
 from __future__ import annotations
@@ -18,7 +24,7 @@ from __future__ import annotations
 from numba import njit, types
 from numba.extending import intrinsic
 
-__all__ = ["exp_vec"]
+__all__ = ["exp_vec", "log_vec", "padded_count", "LANES"]
 
 _LOG2_E = 1.4426950408889634
 _LN2_HI = 0.6931471803691238  # ln 2 rounded to 32 significant bits: k * _LN2_HI is exact
@@ -76,3 +82,57 @@ def exp_vec(x):
     p = 1.0 + r * p
     k_int = _float64_to_bits(shifted) - _ROUND_MAGIC_BITS
     return p * _bits_to_float64((k_int + 1023) << 52)
+
+
+_SQRT_HALF = 0.7071067811865476
+_EXPONENT_MASK = 0x7FF0000000000000
+_ONE_BITS = 0x3FF0000000000000  # the bit pattern of 1.0
+
+
+@njit(cache=True, nogil=True, error_model="numpy", inline="always")
+def log_vec(x):
+    """Natural logarithm of a positive normal float64 ``x``, within 4e-16 of the C library's.
+
+    Zero, negative, subnormal and non-finite arguments give meaningless results (the
+    kernel's arguments are positive and far from those limits). See the module notes.
+    """
+    bits = _float64_to_bits(x)
+    k = ((bits & _EXPONENT_MASK) >> 52) - 1023
+    m = _bits_to_float64((bits & ~_EXPONENT_MASK) | _ONE_BITS)  # in [1, 2)
+    low = m < 2.0 * _SQRT_HALF
+    m = m if low else 0.5 * m
+    kf = float(k) if low else float(k + 1)
+    s = (m - 1.0) / (m + 1.0)
+    z = s * s
+    p = 1.0 / 23.0
+    p = 1.0 / 21.0 + z * p
+    p = 1.0 / 19.0 + z * p
+    p = 1.0 / 17.0 + z * p
+    p = 1.0 / 15.0 + z * p
+    p = 1.0 / 13.0 + z * p
+    p = 1.0 / 11.0 + z * p
+    p = 1.0 / 9.0 + z * p
+    p = 1.0 / 7.0 + z * p
+    p = 1.0 / 5.0 + z * p
+    p = 1.0 / 3.0 + z * p
+    log_m = 2.0 * s + 2.0 * s * (z * p)
+    return kf * _LN2_HI + (kf * _LN2_LO + log_m)
+
+
+#: float64 lanes of the widest vectors the loops over layers compile to here (AVX-512); a
+#: multiple of the AVX2 width, so the padding below also fits 4-lane machines
+LANES = 8
+
+
+@njit(cache=True, nogil=True, error_model="numpy", inline="always")
+def padded_count(n):
+    """``n`` rounded up to a whole number of vectors (:data:`LANES`).
+
+    LLVM vectorises a loop over layers in whole vectors and finishes the last few layers one
+    at a time, and for short loops (about 36 layers) those few scalar iterations cost about
+    as much as the vectors. A loop that maps each layer to itself, reading and writing only
+    that layer's slots, can instead run to ``padded_count(n)``: the slots above the top
+    layer are scratch (arrays are allocated to ``padded_count(capacity)``), never read as
+    layers and never saved.
+    """
+    return (n + (LANES - 1)) // LANES * LANES
