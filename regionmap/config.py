@@ -228,7 +228,8 @@ class SnowSection(_Section):
 
 class RunSection(_Section):
     #: cells per task; a task holds ~1.3 MB per cell of a season's hourly diagnostics and
-    #: daily profiles, and 256 fills whole chunks of cells.nc
+    #: daily profiles, and a multiple of 256 fills whole chunks of cells.nc (whose
+    #: compression then runs outside the HDF5 lock: io.results)
     chunk_size: Annotated[int, Field(ge=1, le=100_000)] = 256
 
 
