@@ -191,7 +191,9 @@ def grid_lapse_fit(
     cov = sp.csr_matrix((za.ravel(), (rows, nb.ravel())), shape=shape)
     mean = sp.csr_matrix((np.full(n_cell * k, 1.0 / k), (rows, nb.ravel())), shape=shape)
     t = np.asarray(t_points_k, dtype=np.float64)
-    t = t - t.mean(axis=0, keepdims=True)  # remove a common offset: E[T^2] - E[T]^2 stays exact
+    # a common offset keeps E[T^2] - E[T]^2 from cancelling; a constant one, so that a cell's
+    # fit does not depend on which other points its chunk of cells reads
+    t = t - 273.15
     szt = np.asarray(cov @ t)
     t_mean = np.asarray(mean @ t)
     stt = np.maximum(k * (np.asarray(mean @ (t * t)) - t_mean * t_mean), 0.0)

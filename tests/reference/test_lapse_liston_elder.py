@@ -41,3 +41,17 @@ def test_grid_lapse_fit_equals_numpy_polyfit_and_falls_back():
     noisy = 270 + 3 * rng.standard_normal((25, 10))  # no height dependence -> poor fit
     lapse_k_m, fitted = lapse.grid_lapse_fit(noisy, z, nb, 0.0044)
     assert np.all(lapse_k_m[~fitted] == 0.0044) and (~fitted).sum() >= 15
+
+
+def test_grid_lapse_fit_of_a_cell_does_not_depend_on_the_other_points_read():
+    # A chunk of cells reads only the grid points it needs: a cell's fit from those points
+    # must equal, bit for bit, its fit from every point (chunking must not change results).
+    rng = np.random.default_rng(5)
+    z = 600 + 2400 * rng.random(400)
+    t = 275 - 0.0065 * z[:, None] + 0.5 * rng.standard_normal((400, 48))
+    nb = rng.integers(0, 400, (60, 9))
+    full, _ = lapse.grid_lapse_fit(t, z, nb, 0.0044, min_r2=0.0)
+    cells = np.arange(10, 20)
+    points, local = np.unique(nb[cells], return_inverse=True)
+    part, _ = lapse.grid_lapse_fit(t[points], z[points], local.reshape(nb[cells].shape), 0.0044, min_r2=0.0)
+    np.testing.assert_array_equal(part, full[cells])
