@@ -27,7 +27,7 @@ from regionmap.checkpoints import Checkpoints, checkpoint_times
 from regionmap.config import Config
 from regionmap.errors import InputError
 from regionmap.io.atomic import atomic_write_text
-from regionmap.io.results import CellsNcWriter, ProfilesNcWriter
+from regionmap.io.results import PROFILES_CHUNK_CELLS, CellsNcWriter, ProfilesNcWriter
 from regionmap.run import (
     RunContext,
     cells_frame,
@@ -140,12 +140,12 @@ def _map_time(cfg: Config, out_times: np.ndarray, period) -> np.datetime64:
 
 def _effective_chunk_size(n_cells: int, chunk_size: int, n_parallel: int) -> int:
     """``[run] chunk_size``, smaller for small regions so that every worker gets at least two
-    chunks and writing the results overlaps the simulation (results do not depend on it)."""
+    chunks and writing the results overlaps the simulation (results do not depend on it).
+    The smaller size is a multiple of the cell chunk of profiles.nc, so that its blocks are
+    compressed outside the HDF5 lock (:mod:`regionmap.io.results`)."""
     balanced = -(-n_cells // (2 * n_parallel))
-    return max(1, min(chunk_size, max(_MIN_CHUNK, balanced)))
-
-
-_MIN_CHUNK = 64
+    balanced = -(-balanced // PROFILES_CHUNK_CELLS) * PROFILES_CHUNK_CELLS
+    return max(1, min(chunk_size, balanced))
 
 
 def _warm_kernels(params) -> None:

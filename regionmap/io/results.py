@@ -36,7 +36,7 @@ from xarray.backends.locks import HDF5_LOCK, NETCDFC_LOCK, CombinedLock
 from regionmap import CAUTION, __version__
 from regionmap.io.atomic import atomic_path
 
-__all__ = ["DIAGNOSTICS", "AMOUNTS", "CellsNcWriter", "ProfilesNcWriter"]
+__all__ = ["DIAGNOSTICS", "AMOUNTS", "CELLS_CHUNK_CELLS", "PROFILES_CHUNK_CELLS", "CellsNcWriter", "ProfilesNcWriter"]
 
 _EPOCH = "seconds since 1970-01-01 00:00:00"
 #: deflate level of the streamed files (shuffle filter before it): level 1 writes 1 024 cells of
@@ -89,6 +89,9 @@ AMOUNTS: dict[str, tuple[str, dict]] = {
 }
 
 _FILLS = {"f4": np.float32(np.nan), "i1": _FILL_I8, "i2": _FILL_I16}
+#: cells per HDF5 chunk of cells.nc (DESIGN: ~256 cells x 744 h) and of profiles.nc
+CELLS_CHUNK_CELLS = 256
+PROFILES_CHUNK_CELLS = 64
 #: Chunk cache of each variable of a streamed file [bytes].
 _CHUNK_CACHE_BYTES = 4 * 2**20
 
@@ -243,7 +246,7 @@ class CellsNcWriter(_StreamingNc):
         cid.attrs.update({"cf_role": "timeseries_id", "long_name": "cell identifier"})
         cid[:] = cells.index.to_numpy(np.int32)
         self._write_cell_table(cells)
-        chunk_cells = max(1, min(256, n_cell))
+        chunk_cells = max(1, min(CELLS_CHUNK_CELLS, n_cell))
         chunk_time = max(1, min(744, n_time))
         for name, (dtype, attrs) in self.variables.items():
             var = nc.createVariable(
@@ -330,7 +333,7 @@ class ProfilesNcWriter(_StreamingNc):
         day = nc.createVariable("day", "i8", ("day",))
         day.attrs.update({"standard_name": "time", "units": _EPOCH, "calendar": "standard"})
         day[:] = _seconds(days)
-        chunks = (max(1, min(64, len(cell_ids))), max(1, min(31, len(days))), n_layers)
+        chunks = (max(1, min(PROFILES_CHUNK_CELLS, len(cell_ids))), max(1, min(31, len(days))), n_layers)
         lc = nc.createVariable("layer_count", "i2", ("cell", "day"), zlib=True, complevel=_DEFLATE_LEVEL,
                                chunksizes=chunks[:2],
                                fill_value=_FILL_I16)
