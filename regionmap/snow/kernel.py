@@ -199,8 +199,8 @@ def _column_mass_enthalpy(fw, n, sh_mass):
 
 @njit(cache=True, nogil=True, error_model="numpy")
 def _round_and_totals(fw, n, sh_mass):
-    """Round the fields the state keeps as float32 and return (:func:`column_mass`,
-    :func:`column_enthalpy`) of the rounded column, in one pass."""
+    """Round the fields the state keeps as float32 (a vectorised pass) and return
+    (:func:`column_mass`, :func:`column_enthalpy`) of the rounded column."""
     for i in range(padded_count(n)):  # vectorises
         fw[F_THICK, i] = _f32(fw[F_THICK, i])
         fw[F_TEMP, i] = _f32(fw[F_TEMP, i])
@@ -582,12 +582,12 @@ def _metamorphose(fw, iw, n, sv, ts, dt, p, grad_w, centre_w, arr_w):
     """Grain evolution of every layer from its hourly temperature gradient, temperature,
     density and wetness; then its grain class.
 
-    After the gradients (:func:`_layer_gradients`), three passes: the dry-snow laws for
-    every layer, without branches so the loop vectorises (faceting or rounding, kinetic
-    growth and the decomposition of new snow; ice layers, surface hoar and wet layers keep
-    their values); then, layer by layer, the wet-snow laws for the few wet layers (skipped
-    when there are none); then, again vectorised, the clamping and the grain class (ice
-    layers unchanged, dry crusts keep their class). The vectorised passes run to
+    After the gradients (:func:`_layer_gradients`), four passes: the dry-snow laws for
+    every layer, without branches so the loop vectorises (faceting or rounding and kinetic
+    growth; ice layers, surface hoar and wet layers keep their values); the decomposition of
+    dry new snow, vectorised likewise; then, layer by layer, the wet-snow laws for the few
+    wet layers (skipped when there are none); then, again vectorised, the clamping and the
+    grain class (ice layers unchanged, dry crusts keep their class). The vectorised passes run to
     ``padded_count(n)`` (:func:`regionmap.snow.vecmath.padded_count`).
     ``grad_w``, ``centre_w``, ``arr_w`` (>= padded_count(n),) are work arrays.
     """
