@@ -193,7 +193,7 @@ def grid_lapse_fit(
     t = np.asarray(t_points_k, dtype=np.float64)
     # a common offset keeps E[T^2] - E[T]^2 from cancelling; a constant one, so that a cell's
     # fit does not depend on which other points its chunk of cells reads
-    t = t - 273.15
+    t = t - 273.15  # (0 degC)
     szt = np.asarray(cov @ t)
     t_mean = np.asarray(mean @ t)
     stt = np.maximum(k * (np.asarray(mean @ (t * t)) - t_mean * t_mean), 0.0)

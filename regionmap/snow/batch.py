@@ -50,6 +50,7 @@ from regionmap.snow.kernel import (
     V_TSURF,
     _column_mass_enthalpy,
     _step,
+    column_mass,
 )
 from regionmap.snow.layering import (
     F_DEND,
@@ -216,12 +217,10 @@ def run_cells(c0, c1, time_s, t_air, rh, pres, wind, sw, lw, precip, sf, fzf, dt
                                  scratch, struct)
                 depth = 0.0
                 liq_sum = 0.0
-                swe = sv[V_SH_MASS]  # kernel.column_mass, summed in the same pass
                 for i in range(n):
                     depth += fw[F_THICK, i]
                     liq_sum += fw[F_LIQ, i]
-                    swe += fw[F_ICE, i] + fw[F_LIQ, i]
-                d64[D64_SWE, c, o] = swe
+                d64[D64_SWE, c, o] = column_mass(fw, n, sv[V_SH_MASS])
                 d64[D64_SNOW, c, o] = sums[A_SNOW]
                 d64[D64_RAIN, c, o] = sums[A_RAIN]
                 d64[D64_RUNOFF, c, o] = sums[A_RUNOFF]

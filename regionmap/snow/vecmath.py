@@ -91,7 +91,7 @@ _ONE_BITS = 0x3FF0000000000000  # the bit pattern of 1.0
 
 @njit(cache=True, nogil=True, error_model="numpy", inline="always")
 def log_vec(x):
-    """Natural logarithm of a positive normal float64 ``x``, within 4e-16 of the C library's.
+    """Natural logarithm of a positive normal float64 ``x``, within 2 ulp of the C library's.
 
     Zero, negative, subnormal and non-finite arguments give meaningless results (the
     kernel's arguments are positive and far from those limits). See the module notes.
