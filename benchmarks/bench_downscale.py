@@ -62,12 +62,18 @@ def make_grid(with_lw: bool) -> SyntheticGrid:
     zen, _ = solar.solar_position_noaa(time, LAT0 + 0.6, LON0 + 0.6)
     f = lambda a: np.ascontiguousarray(a, dtype=np.float32)  # noqa: E731
     fields = {
-        "air_temperature": f(275 - 0.0065 * z + 4 * np.sin(2 * np.pi * h / 24) + rng.standard_normal(shape)),
+        "air_temperature": f(
+            275 - 0.0065 * z + 4 * np.sin(2 * np.pi * h / 24) + rng.standard_normal(shape)
+        ),
         "relative_humidity": f(0.6 + 0.35 * rng.random(shape)),
-        "surface_air_pressure": f(np.broadcast_to(101325 * (1 - 0.0065 * z / 288.15) ** 5.25588, shape)),
+        "surface_air_pressure": f(
+            np.broadcast_to(101325 * (1 - 0.0065 * z / 288.15) ** 5.25588, shape)
+        ),
         "wind_speed": f(8 * rng.random(shape)),
         "wind_from_direction": f(360 * rng.random(shape)),
-        "shortwave_down": f(np.broadcast_to(np.maximum(np.cos(np.radians(zen)), 0)[:, None, None] * 500, shape)),
+        "shortwave_down": f(
+            np.broadcast_to(np.maximum(np.cos(np.radians(zen)), 0)[:, None, None] * 500, shape)
+        ),
         "precipitation": f(rng.gamma(0.3, 1.0, shape)),
     }
     if with_lw:
@@ -83,19 +89,36 @@ def make_batch(grid, n_cell, settings, seed):
     lat = LAT0 + D * (1 + (NY - 3) * rng.random(n_cell))
     px = 4
     pc = np.repeat(np.arange(n_cell), px)
-    w = build_cell_weights(grid.grid_index_of, grid.extent_lonlat, (NY, NX), pc,
-                           lon[pc] + 0.005 * rng.standard_normal(pc.size),
-                           lat[pc] + 0.005 * rng.standard_normal(pc.size), n_cell, lon, lat)
+    w = build_cell_weights(
+        grid.grid_index_of,
+        grid.extent_lonlat,
+        (NY, NX),
+        pc,
+        lon[pc] + 0.005 * rng.standard_normal(pc.size),
+        lat[pc] + 0.005 * rng.standard_normal(pc.size),
+        n_cell,
+        lon,
+        lat,
+    )
     az, el = np.arange(0, 360, 5.0), np.arange(0, 91, 3.0)
     frac = rng.random((n_cell, az.size, el.size)).astype(np.float32)
     cosi = rng.random((n_cell, az.size, el.size)).astype(np.float32)
     return CellBatch(
-        cell_id=np.arange(n_cell), elevation_m=1000 + 2000 * rng.random(n_cell),
-        slope_deg=40 * rng.random(n_cell), aspect_deg=360 * rng.random(n_cell),
-        sky_view_frac=0.7 + 0.3 * rng.random(n_cell), lon_deg=lon, lat_deg=lat,
-        area_m2=np.full(n_cell, 1e5), zone_code=np.zeros(n_cell, dtype=np.int64),
-        sx_deg=10 * rng.standard_normal((n_cell, 8)), sx_directions_deg=np.arange(0, 360, 45.0),
-        sun_azimuth_deg=az, sun_elevation_deg=el, sunlit_fraction=frac, sunlit_cos_incidence=cosi,
+        cell_id=np.arange(n_cell),
+        elevation_m=1000 + 2000 * rng.random(n_cell),
+        slope_deg=40 * rng.random(n_cell),
+        aspect_deg=360 * rng.random(n_cell),
+        sky_view_frac=0.7 + 0.3 * rng.random(n_cell),
+        lon_deg=lon,
+        lat_deg=lat,
+        area_m2=np.full(n_cell, 1e5),
+        zone_code=np.zeros(n_cell, dtype=np.int64),
+        sx_deg=10 * rng.standard_normal((n_cell, 8)),
+        sx_directions_deg=np.arange(0, 360, 45.0),
+        sun_azimuth_deg=az,
+        sun_elevation_deg=el,
+        sunlit_fraction=frac,
+        sunlit_cos_incidence=cosi,
         weights=w,
     )
 
@@ -119,9 +142,16 @@ def run(n_cells: int, chunk: int, with_lw: bool) -> dict:
     wall = time.perf_counter() - t0
     cpu = time.process_time() - cpu0
     rss1 = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
-    return {"n_cells": n_cells, "chunk": chunk, "hours": N_T, "longwave_in_forcing": with_lw,
-            "wall_s": round(wall, 2), "cpu_s": round(cpu, 2), "peak_rss_mb": round(rss1 / 1024, 1),
-            "rss_before_run_mb": round(rss0 / 1024, 1)}
+    return {
+        "n_cells": n_cells,
+        "chunk": chunk,
+        "hours": N_T,
+        "longwave_in_forcing": with_lw,
+        "wall_s": round(wall, 2),
+        "cpu_s": round(cpu, 2),
+        "peak_rss_mb": round(rss1 / 1024, 1),
+        "rss_before_run_mb": round(rss0 / 1024, 1),
+    }
 
 
 def main() -> int:
@@ -131,17 +161,24 @@ def main() -> int:
         return 0
     results = []
     for n, lw in ((10000, False), (10000, True), (2000, False)):
-        out = subprocess.run([sys.executable, __file__, str(n), "1000", "1" if lw else "0"],
-                             capture_output=True, text=True, check=True)
+        out = subprocess.run(
+            [sys.executable, __file__, str(n), "1000", "1" if lw else "0"],
+            capture_output=True,
+            text=True,
+            check=True,
+        )
         results.append(json.loads(out.stdout.strip().splitlines()[-1]))
         print(results[-1])
     big, small = results[0], results[2]
     ok_time = all(r["wall_s"] <= TARGET_S for r in results)
     # peak memory must not grow with the number of cells at a fixed chunk size
     ok_mem = (big["peak_rss_mb"] - big["rss_before_run_mb"]) <= 1.25 * (
-        small["peak_rss_mb"] - small["rss_before_run_mb"]) + 50
-    print(f"time target {TARGET_S} s: {'ok' if ok_time else 'FAILED'}; "
-          f"memory independent of cell count: {'ok' if ok_mem else 'FAILED'}")
+        small["peak_rss_mb"] - small["rss_before_run_mb"]
+    ) + 50
+    print(
+        f"time target {TARGET_S} s: {'ok' if ok_time else 'FAILED'}; "
+        f"memory independent of cell count: {'ok' if ok_mem else 'FAILED'}"
+    )
     return 0 if ok_time and ok_mem else 1
 
 

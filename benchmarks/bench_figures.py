@@ -22,7 +22,10 @@ TARGET_S = 15.0
 
 
 def _cpu_s() -> float:
-    own, children = resource.getrusage(resource.RUSAGE_SELF), resource.getrusage(resource.RUSAGE_CHILDREN)
+    own, children = (
+        resource.getrusage(resource.RUSAGE_SELF),
+        resource.getrusage(resource.RUSAGE_CHILDREN),
+    )
     return own.ru_utime + own.ru_stime + children.ru_utime + children.ru_stime
 
 
@@ -33,7 +36,9 @@ def main(argv: list[str]) -> int:
         out = Path(args[0])
     else:
         out = Path(tempfile.mkdtemp(prefix="bench-figures-")) / "demo"
-        subprocess.run([sys.executable, "-m", "regionmap", "--quiet", "demo", "--out", str(out)], check=True)
+        subprocess.run(
+            [sys.executable, "-m", "regionmap", "--quiet", "demo", "--out", str(out)], check=True
+        )
     import warnings
 
     from regionmap.report import write_report
@@ -42,17 +47,23 @@ def main(argv: list[str]) -> int:
     cpu0 = _cpu_s()
     t0 = time.perf_counter()
     with warnings.catch_warnings():
-        warnings.simplefilter("ignore")  # e.g. a missing DEM for the hillshade: measured all the same
+        warnings.simplefilter(
+            "ignore"
+        )  # e.g. a missing DEM for the hillshade: measured all the same
         report = write_report(out)
     elapsed = time.perf_counter() - t0
     cpu = _cpu_s() - cpu0
     load_after = os.getloadavg()
     n_png = len(list((out / "figures").glob("*.png")))
     size_mb = report.stat().st_size / 2**20
-    print(f"figures + report: {elapsed:.1f} s wall, {cpu:.1f} s CPU (process + drawing workers) for {n_png} PNGs, "
-          f"report.html {size_mb:.2f} MB (target <= {TARGET_S:g} s)")
-    print(f"load average (1/5/15 min) before {load_before[0]:.2f}/{load_before[1]:.2f}/{load_before[2]:.2f}, "
-          f"after {load_after[0]:.2f}/{load_after[1]:.2f}/{load_after[2]:.2f} on {os.cpu_count()} CPUs")
+    print(
+        f"figures + report: {elapsed:.1f} s wall, {cpu:.1f} s CPU (process + drawing workers) for {n_png} PNGs, "
+        f"report.html {size_mb:.2f} MB (target <= {TARGET_S:g} s)"
+    )
+    print(
+        f"load average (1/5/15 min) before {load_before[0]:.2f}/{load_before[1]:.2f}/{load_before[2]:.2f}, "
+        f"after {load_after[0]:.2f}/{load_after[1]:.2f}/{load_after[2]:.2f} on {os.cpu_count()} CPUs"
+    )
     if check and elapsed > TARGET_S:
         print("FAIL: slower than the target", file=sys.stderr)
         return 1

@@ -26,7 +26,12 @@ from pathlib import Path
 
 import numpy as np
 
-TARGETS = {"demo_s": 30.0, "region_10k_s": 60.0, "region_10k_peak_gb": 3.0, "dask_overhead_frac": 0.10}
+TARGETS = {
+    "demo_s": 30.0,
+    "region_10k_s": 60.0,
+    "region_10k_peak_gb": 3.0,
+    "dask_overhead_frac": 0.10,
+}
 
 
 def _write_dem(path: Path, copies: int) -> None:
@@ -40,11 +45,19 @@ def _write_dem(path: Path, copies: int) -> None:
         return
     z = demo_elevation_m().astype(np.float32)
     tiles = [z if k % 2 == 0 else z[:, ::-1] for k in range(copies)]
-    write_geotiff(path, np.concatenate(tiles, axis=1), transform=demo_transform(), crs=DEMO_CRS,
-                  nodata=-9999.0, description="elevation [m] of an invented mountain range (benchmark data)")
+    write_geotiff(
+        path,
+        np.concatenate(tiles, axis=1),
+        transform=demo_transform(),
+        crs=DEMO_CRS,
+        nodata=-9999.0,
+        description="elevation [m] of an invented mountain range (benchmark data)",
+    )
 
 
-def _scenario(folder: Path, n_zones: tuple[int, int], slope_classes: list[float], days: int, copies: int) -> Path:
+def _scenario(
+    folder: Path, n_zones: tuple[int, int], slope_classes: list[float], days: int, copies: int
+) -> Path:
     import geopandas as gpd
     import shapely
 
@@ -59,8 +72,14 @@ def _scenario(folder: Path, n_zones: tuple[int, int], slope_classes: list[float]
     x0, y0, x1, y1 = dem.bounds
     xs = np.linspace(x0, x1, n_zones[0] + 1)
     ys = np.linspace(y0, y1, n_zones[1] + 1)
-    boxes = [shapely.box(xs[i], ys[j], xs[i + 1], ys[j + 1]) for i in range(n_zones[0]) for j in range(n_zones[1])]
-    zones = gpd.GeoDataFrame({"name": [f"Sector {k + 1:03d}" for k in range(len(boxes))]}, geometry=boxes, crs=DEMO_CRS)
+    boxes = [
+        shapely.box(xs[i], ys[j], xs[i + 1], ys[j + 1])
+        for i in range(n_zones[0])
+        for j in range(n_zones[1])
+    ]
+    zones = gpd.GeoDataFrame(
+        {"name": [f"Sector {k + 1:03d}" for k in range(len(boxes))]}, geometry=boxes, crs=DEMO_CRS
+    )
     write_geojson(folder / "zones.geojson", zones)
     end = (np.datetime64("2025-11-01T00:00") + np.timedelta64(days * 24, "h")).astype(str)
     if not (folder / "forcing.nc").exists():
@@ -100,8 +119,11 @@ def bench_demo(args) -> dict:
 #: nominal size -> (zones west-east and south-north, slope classes, copies of the demo DEM);
 #: the cells they give: 1 072, 10 598 and 30 478 (the demo DEM's 300 x 300 pixels hold no more
 #: than ~24 000 band cells, so the largest case runs on two copies side by side)
-SIZES = {1000: ((2, 2), [30], 1), 10000: ((13, 13), [20, 30, 40, 50], 1),
-         30000: ((24, 13), [15, 20, 25, 30, 35, 40, 45, 50], 2)}
+SIZES = {
+    1000: ((2, 2), [30], 1),
+    10000: ((13, 13), [20, 30, 40, 50], 1),
+    30000: ((24, 13), [15, 20, 25, 30, 35, 40, 45, 50], 2),
+}
 
 
 def bench_region(n_cells: int, days: int, folder: Path) -> dict:
@@ -117,17 +139,29 @@ def bench_region(n_cells: int, days: int, folder: Path) -> dict:
 
     record = json.loads((cfg_path.parent / "out" / "run.json").read_text())
     peak = _peak_gb_of_children()
-    print(f"{record['cell_count']:6d} cells, {days} days: {seconds:6.1f} s end to end, peak RSS {peak:.2f} GB; "
-          f"timings {record['timings_s']}")
+    print(
+        f"{record['cell_count']:6d} cells, {days} days: {seconds:6.1f} s end to end, peak RSS {peak:.2f} GB; "
+        f"timings {record['timings_s']}"
+    )
     return {"cells": record["cell_count"], "seconds": seconds, "peak_gb": peak}
 
 
 def bench_overhead(args, folder: Path) -> dict:
     """The same chunks through dask (threads) and through direct calls in a loop."""
     from regionmap.config import load_config
-    from regionmap.run import (RunContext, chunk_ranges, initial_state, open_grid_forcing, plan_period,
-                               prepare_batch, prepare_region, register_forcing, simulate_chunk, snow_params,
-                               state_slice)
+    from regionmap.run import (
+        RunContext,
+        chunk_ranges,
+        initial_state,
+        open_grid_forcing,
+        plan_period,
+        prepare_batch,
+        prepare_region,
+        register_forcing,
+        simulate_chunk,
+        snow_params,
+        state_slice,
+    )
     from regionmap.runner import dask_client
 
     cfg = load_config(_scenario(folder / "r1000", *SIZES[1000][:2], args.days, SIZES[1000][2]))
@@ -150,12 +184,17 @@ def bench_overhead(args, folder: Path) -> dict:
     with dask_client() as client:
         t0 = time.perf_counter()
         ctx_f = client.scatter(ctx, broadcast=True)  # as the runner does: once, not per task
-        futures = [client.submit(simulate_chunk, ctx_f, lo, hi, state_slice(state, lo, hi), pure=False) for lo, hi in chunks]
+        futures = [
+            client.submit(simulate_chunk, ctx_f, lo, hi, state_slice(state, lo, hi), pure=False)
+            for lo, hi in chunks
+        ]
         client.gather(futures)
         via_dask = time.perf_counter() - t0
     frac = via_dask / direct - 1.0
-    print(f"{batch.n_cells} cells: direct {direct:.2f} s, dask {via_dask:.2f} s, overhead {100 * frac:+.1f} % "
-          f"(target <= {100 * TARGETS['dask_overhead_frac']:.0f} %)")
+    print(
+        f"{batch.n_cells} cells: direct {direct:.2f} s, dask {via_dask:.2f} s, overhead {100 * frac:+.1f} % "
+        f"(target <= {100 * TARGETS['dask_overhead_frac']:.0f} %)"
+    )
     return {"dask_overhead_frac": frac}
 
 
@@ -176,7 +215,10 @@ def main() -> int:
     elif args.what == "region":
         r = bench_region(args.cells, args.days, folder)
         if args.cells == 10000:
-            ok = r["seconds"] <= TARGETS["region_10k_s"] and r["peak_gb"] <= TARGETS["region_10k_peak_gb"]
+            ok = (
+                r["seconds"] <= TARGETS["region_10k_s"]
+                and r["peak_gb"] <= TARGETS["region_10k_peak_gb"]
+            )
     elif args.what == "scaling":
         for n in sorted(SIZES):
             bench_region(n, args.days, folder)

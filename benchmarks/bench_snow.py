@@ -54,8 +54,9 @@ def main() -> int:
         state = SnowState.empty(n, params.max_layers, time="2025-11-01T00:00")
         t1 = time.perf_counter()
         c1 = time.process_time()
-        state, diag, snap = run_columns(state, forcing, params, diag_every_h=1,
-                                        threads=args.threads)
+        state, diag, snap = run_columns(
+            state, forcing, params, diag_every_h=1, threads=args.threads
+        )
         total += time.perf_counter() - t1
         cpu += time.process_time() - c1
         layers = diag["layer_count"].astype(np.float64)
@@ -68,17 +69,25 @@ def main() -> int:
     per_10k = total * 10_000 / args.cells * 3600 / (args.days * 24)
     print(f"warm-up (compile or cache load): {t_warm:.2f} s")
     print(f"cells {args.cells}, steps {args.days * 24}, chunk {args.chunk}, threads {args.threads}")
-    print(f"column time {total:.2f} s -> {per_10k:.1f} s per 10 000 cells x 3600 steps "
-          f"(target <= {TARGET_S_PER_10K_CELLS:.0f} s)")
+    print(
+        f"column time {total:.2f} s -> {per_10k:.1f} s per 10 000 cells x 3600 steps "
+        f"(target <= {TARGET_S_PER_10K_CELLS:.0f} s)"
+    )
     cpu_10k = cpu * 10_000 / args.cells * 3600 / (args.days * 24)
-    print(f"CPU time {cpu:.1f} s over {args.threads} threads ({cpu_10k:.0f} CPU-s per 10 000 "
-          f"cells x 3600 steps, {layer_steps / max(cpu, 1e-9) / 1e6:.1f} M layer-steps per "
-          f"CPU-second); machine load average {os.getloadavg()[0]:.2f} (other work on the "
-          "machine slows the wall-clock figure)")
-    print(f"{cell_steps / total / 1e6:.2f} M cell-steps/s, {layer_steps / total / 1e6:.1f} M "
-          f"layer-steps/s (target >= 50)")
-    print(f"mean active layers of snow-covered cell-steps {mean_layers:.1f} (target >= "
-          f"{TARGET_MEAN_LAYERS:.0f}), max {occ.max():.0f}")
+    print(
+        f"CPU time {cpu:.1f} s over {args.threads} threads ({cpu_10k:.0f} CPU-s per 10 000 "
+        f"cells x 3600 steps, {layer_steps / max(cpu, 1e-9) / 1e6:.1f} M layer-steps per "
+        f"CPU-second); machine load average {os.getloadavg()[0]:.2f} (other work on the "
+        "machine slows the wall-clock figure)"
+    )
+    print(
+        f"{cell_steps / total / 1e6:.2f} M cell-steps/s, {layer_steps / total / 1e6:.1f} M "
+        f"layer-steps/s (target >= 50)"
+    )
+    print(
+        f"mean active layers of snow-covered cell-steps {mean_layers:.1f} (target >= "
+        f"{TARGET_MEAN_LAYERS:.0f}), max {occ.max():.0f}"
+    )
     print(f"state {state_bytes:.0f} bytes per cell (target <= 2048)")
     if not args.no_assert:
         assert mean_layers >= TARGET_MEAN_LAYERS, "too few active layers for a fair figure"

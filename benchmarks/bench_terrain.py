@@ -56,14 +56,20 @@ def load() -> str:
 def main(check: bool = True) -> None:
     z = fractal_dem(64, 10.0)
     s, a = slope_aspect_horn1981(z, 10.0, 10.0)
-    horizon_sky_view_dozier_frew1990(z, 10.0, 10.0, s, a, np.arange(4) * 90.0, 300.0)  # compile / load cache
+    horizon_sky_view_dozier_frew1990(
+        z, 10.0, 10.0, s, a, np.arange(4) * 90.0, 300.0
+    )  # compile / load cache
     t1, c1 = min(bench(2000, 16, 3000.0) for _ in range(2))
-    print(f"horizon + sky view, 2000x2000, 16 azimuths, 3 km at 10 m: {t1:.2f} s (target <= 1 s); "
-          f"CPU {c1:.2f} s ({per_pixel_ns(c1, 2000, 16)}); {load()}")
+    print(
+        f"horizon + sky view, 2000x2000, 16 azimuths, 3 km at 10 m: {t1:.2f} s (target <= 1 s); "
+        f"CPU {c1:.2f} s ({per_pixel_ns(c1, 2000, 16)}); {load()}"
+    )
     t2, c2 = bench(4000, 36, 3000.0)
     peak_gb = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024**2
-    print(f"horizon + sky view, 4000x4000, 36 azimuths, 3 km at 10 m: {t2:.2f} s (target <= 6 s); "
-          f"CPU {c2:.2f} s ({per_pixel_ns(c2, 4000, 36)}); peak RSS {peak_gb:.2f} GB (target <= 4 GB); {load()}")
+    print(
+        f"horizon + sky view, 4000x4000, 36 azimuths, 3 km at 10 m: {t2:.2f} s (target <= 6 s); "
+        f"CPU {c2:.2f} s ({per_pixel_ns(c2, 4000, 36)}); peak RSS {peak_gb:.2f} GB (target <= 4 GB); {load()}"
+    )
     if check:
         assert t1 <= 1.0, f"2000x2000 horizon took {t1:.2f} s > 1 s"
         assert t2 <= 6.0, f"4000x4000 horizon took {t2:.2f} s > 6 s"

@@ -1,6 +1,6 @@
 """Run every benchmark script and report which targets were met.
 
-    python benchmarks/run_all.py [--no-assert]
+python benchmarks/run_all.py [--no-assert]
 """
 
 from __future__ import annotations

@@ -171,7 +171,11 @@ class CalibrationResult:
 def _pairs(model, obs, month_index):
     m = np.asarray(model, dtype=np.float64).ravel()
     o = np.asarray(obs, dtype=np.float64).ravel()
-    month = np.zeros(m.size, dtype=np.int64) if month_index is None else np.asarray(month_index, dtype=np.int64).ravel()
+    month = (
+        np.zeros(m.size, dtype=np.int64)
+        if month_index is None
+        else np.asarray(month_index, dtype=np.int64).ravel()
+    )
     if not (m.size == o.size == month.size):
         raise InputError(
             f"Calibration: model, obs and month_index must be matched, got {m.size}, {o.size} "
@@ -223,7 +227,9 @@ def fit_offset(
     counts = np.bincount(month, minlength=12)
     own = counts >= MIN_PAIRS_PER_MONTH
     values = np.where(own, sums / np.maximum(counts, 1), pooled)
-    return Correction(variable, "offset", tuple(map(float, values)), tuple(map(bool, own)), int(m.size))
+    return Correction(
+        variable, "offset", tuple(map(float, values)), tuple(map(bool, own)), int(m.size)
+    )
 
 
 def fit_factor(
@@ -286,7 +292,9 @@ def fit_factor(
         wet_m = np.bincount(month, weights=(o > _WET_KG_M2).astype(float), minlength=12)
         own &= (wet_m >= MIN_WET_PAIRS) & (so >= MIN_PRECIPITATION_TOTAL_KG_M2)
     values = np.where(own, so / np.where(sm > 0, sm, 1.0), pooled)
-    return Correction(variable, "factor", tuple(map(float, values)), tuple(map(bool, own)), int(m.size))
+    return Correction(
+        variable, "factor", tuple(map(float, values)), tuple(map(bool, own)), int(m.size)
+    )
 
 
 def catch_efficiency_kochendorfer2017(
@@ -357,7 +365,9 @@ def correct_undercatch_kochendorfer2017(
     See :func:`catch_efficiency_kochendorfer2017` (Kochendorfer et al. 2017b, HESS 21,
     Eq. 4; coefficients [mem]). NaN where wind or temperature is missing.
     """
-    ce = catch_efficiency_kochendorfer2017(wind_m_s, t_air_k, shield=shield, coefficients=coefficients)
+    ce = catch_efficiency_kochendorfer2017(
+        wind_m_s, t_air_k, shield=shield, coefficients=coefficients
+    )
     return np.asarray(precip_kg_m2, dtype=np.float64) / ce
 
 
@@ -380,8 +390,13 @@ def _fit(variable, m, o, month, *, method, per_month, exposure_class):
     """One fitted object (Correction or QuantileMappingTable) from matched arrays."""
     if method == "quantile_mapping":
         return fit_quantile_mapping(
-            m, o, month, QM_KIND[variable], variable=variable,
-            wet_threshold=_QM_WET_THRESHOLD.get(variable, 0.1), exposure_class=exposure_class,
+            m,
+            o,
+            month,
+            QM_KIND[variable],
+            variable=variable,
+            wet_threshold=_QM_WET_THRESHOLD.get(variable, 0.1),
+            exposure_class=exposure_class,
         )
     fitter = fit_offset if DEFAULT_KIND[variable] == "offset" else fit_factor
     return fitter(m, o, month if per_month else None, variable=variable)
@@ -403,11 +418,20 @@ def _cross_validate(variable, m, o, month, blocks, *, method, per_month, exposur
     for block in unique:  # one fit per month of data
         held = blocks == block
         try:
-            fitted = _fit(variable, m[~held], o[~held], month[~held], method=method,
-                          per_month=per_month, exposure_class=exposure_class)
+            fitted = _fit(
+                variable,
+                m[~held],
+                o[~held],
+                month[~held],
+                method=method,
+                per_month=per_month,
+                exposure_class=exposure_class,
+            )
         except InputError:
-            notes.append(f"{variable}/{exposure_class}: too little data without {block}; "
-                         "that month has no cross-validated prediction.")
+            notes.append(
+                f"{variable}/{exposure_class}: too little data without {block}; "
+                "that month has no cross-validated prediction."
+            )
             continue
         predicted[held] = _apply(fitted, m[held], month[held])
     return predicted
@@ -467,7 +491,9 @@ def calibrate(
         :data:`regionmap.downscale.quantile_mapping.MIN_SAMPLES_PER_MONTH`).
     """
     if method not in ("scaling", "quantile_mapping"):
-        raise InputError(f"Calibration: method must be 'scaling' or 'quantile_mapping', got {method!r}.")
+        raise InputError(
+            f"Calibration: method must be 'scaling' or 'quantile_mapping', got {method!r}."
+        )
     kinds = DEFAULT_KIND if method == "scaling" else QM_KIND
     if variables is None:
         variables = [v for v in kinds if v in model.columns and v in obs.columns]
@@ -498,10 +524,14 @@ def calibrate(
         temp = joined["air_temperature"].to_numpy(dtype=np.float64)
         p = obs_values["precipitation"]
         lost = int(np.sum(np.isfinite(p) & ~(np.isfinite(wind) & np.isfinite(temp))))
-        obs_values["precipitation"] = correct_undercatch_kochendorfer2017(p, wind, temp, shield=undercatch)
+        obs_values["precipitation"] = correct_undercatch_kochendorfer2017(
+            p, wind, temp, shield=undercatch
+        )
         if lost:
-            notes.append(f"precipitation: {lost} observed amounts without wind or temperature "
-                         "left out (undercatch correction needs both).")
+            notes.append(
+                f"precipitation: {lost} observed amounts without wind or temperature "
+                "left out (undercatch correction needs both)."
+            )
     station_ids = joined.index.get_level_values("station_id").to_numpy()
     times = joined.index.get_level_values("time").to_numpy().astype("datetime64[s]")
     month = month_index_of(times)
@@ -523,28 +553,48 @@ def calibrate(
             # classes whose stations observe the variable (a precipitation-only gauge of
             # another class takes no part in the wind fit)
             observed = np.isfinite(obs_values[v])
-            groups = [(c, exposure == c) for c in EXPOSURE_CLASSES if np.any((exposure == c) & observed)]
+            groups = [
+                (c, exposure == c) for c in EXPOSURE_CLASSES if np.any((exposure == c) & observed)
+            ]
         else:
             groups = [("all", np.ones(station_ids.size, dtype=bool))]
         m_all = joined[f"{v}__model"].to_numpy(dtype=np.float64)
         for cls, sel in groups:
             m, o = m_all[sel], obs_values[v][sel]
-            fitted = _fit(v, m, o, month[sel], method=method, per_month=per_month, exposure_class=cls)
+            fitted = _fit(
+                v, m, o, month[sel], method=method, per_month=per_month, exposure_class=cls
+            )
             if isinstance(fitted, QuantileMappingTable):
                 tables.append(fitted)
                 pooled = np.flatnonzero(fitted.pooled & (fitted.n_samples > 0)) + 1
             else:
                 settings.setdefault(cls, {})[v] = fitted
-                pooled = np.flatnonzero(~np.asarray(fitted.own_fit, dtype=bool)) + 1 if fitted.own_fit else []
+                pooled = (
+                    np.flatnonzero(~np.asarray(fitted.own_fit, dtype=bool)) + 1
+                    if fitted.own_fit
+                    else []
+                )
             if len(pooled):
-                notes.append(f"{v}/{cls}: month(s) {list(map(int, pooled))} had too little data of "
-                             "their own and use the value fitted on all months.")
+                notes.append(
+                    f"{v}/{cls}: month(s) {list(map(int, pooled))} had too little data of "
+                    "their own and use the value fitted on all months."
+                )
             after = _apply(fitted, m, month[sel])
-            cv = _cross_validate(v, m, o, month[sel], blocks[sel], method=method,
-                                 per_month=per_month, exposure_class=cls, notes=notes)
+            cv = _cross_validate(
+                v,
+                m,
+                o,
+                month[sel],
+                blocks[sel],
+                method=method,
+                per_month=per_month,
+                exposure_class=cls,
+                notes=notes,
+            )
             for stage, pred in (("raw", m), ("fitted", after), ("cross_validated", cv)):
-                skill_rows.append({"exposure_class": cls, "variable": v, "stage": stage,
-                                   **_scores(pred, o, v)})
+                skill_rows.append(
+                    {"exposure_class": cls, "variable": v, "stage": stage, **_scores(pred, o, v)}
+                )
     used = sorted(set(station_ids))
     return CalibrationResult(
         settings=settings,  # type: ignore[arg-type]
@@ -619,8 +669,13 @@ def bias_toml(result: CalibrationResult, *, quantile_mapping_file: str = "qm.nc"
             entry, comment = rendered[0]
             lines.append(f"{variable} = {entry}" + (f"  # {comment}" if comment else ""))
         else:
-            lines.append(f"{variable} = [  # each entry applies to cells of its exposure class only")
-            lines.extend(f"    {entry}," + (f"  # {comment}" if comment else "") for entry, comment in rendered)
+            lines.append(
+                f"{variable} = [  # each entry applies to cells of its exposure class only"
+            )
+            lines.extend(
+                f"    {entry}," + (f"  # {comment}" if comment else "")
+                for entry, comment in rendered
+            )
             lines.append("]")
     if result.qm_tables:
         lines.append(f'quantile_mapping = "{quantile_mapping_file}"')

@@ -18,7 +18,24 @@ __all__ = ["CellSettings", "SunlitTable", "CellSet", "build_cells", "sector_name
 _SECTORS = {
     4: ["N", "E", "S", "W"],
     8: ["N", "NE", "E", "SE", "S", "SW", "W", "NW"],
-    16: ["N", "NNE", "NE", "ENE", "E", "ESE", "SE", "SSE", "S", "SSW", "SW", "WSW", "W", "WNW", "NW", "NNW"],
+    16: [
+        "N",
+        "NNE",
+        "NE",
+        "ENE",
+        "E",
+        "ESE",
+        "SE",
+        "SSE",
+        "S",
+        "SSW",
+        "SW",
+        "WSW",
+        "W",
+        "WNW",
+        "NW",
+        "NNW",
+    ],
 }
 
 
@@ -63,18 +80,30 @@ class CellSettings:
         if self.band_edges_m is not None:
             e = np.asarray(self.band_edges_m, dtype=float)
             if e.size == 0 or np.any(np.diff(e) <= 0):
-                raise ConfigError(f"[cells] band_edges_m = {list(self.band_edges_m)}: expected strictly increasing edges in metres")
+                raise ConfigError(
+                    f"[cells] band_edges_m = {list(self.band_edges_m)}: expected strictly increasing edges in metres"
+                )
         elif self.band_step_m is None or not self.band_step_m > 0:
-            raise ConfigError(f"[cells] band_step_m = {self.band_step_m!r}: expected a positive step in metres (or give band_edges_m)")
+            raise ConfigError(
+                f"[cells] band_step_m = {self.band_step_m!r}: expected a positive step in metres (or give band_edges_m)"
+            )
         if self.aspect_sectors not in _SECTORS:
-            raise ConfigError(f"[cells] aspect_sectors = {self.aspect_sectors!r}: expected 4, 8 or 16")
+            raise ConfigError(
+                f"[cells] aspect_sectors = {self.aspect_sectors!r}: expected 4, 8 or 16"
+            )
         if not 0 <= self.flat_below_deg < 90:
-            raise ConfigError(f"[cells] flat_below_deg = {self.flat_below_deg!r}: expected 0 <= value < 90 degrees")
+            raise ConfigError(
+                f"[cells] flat_below_deg = {self.flat_below_deg!r}: expected 0 <= value < 90 degrees"
+            )
         s = np.asarray(self.slope_classes_deg, dtype=float)
         if s.size and (np.any(np.diff(s) <= 0) or s[0] <= 0 or s[-1] >= 90):
-            raise ConfigError(f"[cells] slope_classes_deg = {list(self.slope_classes_deg)}: expected increasing edges between 0 and 90")
+            raise ConfigError(
+                f"[cells] slope_classes_deg = {list(self.slope_classes_deg)}: expected increasing edges between 0 and 90"
+            )
         if not (0 < self.sun_azimuth_step_deg <= 90 and 0 < self.sun_elevation_step_deg <= 45):
-            raise ConfigError("[cells] sun grid steps: expected 0 < azimuth step <= 90 and 0 < elevation step <= 45 degrees")
+            raise ConfigError(
+                "[cells] sun grid steps: expected 0 < azimuth step <= 90 and 0 < elevation step <= 45 degrees"
+            )
 
     def edges_for(self, elevation_m: np.ndarray) -> np.ndarray:
         """Band edges [m] for the given elevations."""
@@ -135,19 +164,25 @@ class CellSet:
         from shapely.geometry import shape
 
         geoms, ids = [], []
-        for geom, value in shapes(self.index, mask=self.index >= 0, transform=self.transform, connectivity=4):
+        for geom, value in shapes(
+            self.index, mask=self.index >= 0, transform=self.transform, connectivity=4
+        ):
             geoms.append(shape(geom))
             ids.append(int(value))
         ids = np.asarray(ids, dtype=np.int64)
         order = np.argsort(ids, kind="stable")
-        multi = shapely.multipolygons(np.asarray(geoms, dtype=object)[order], indices=np.searchsorted(
-            np.unique(ids), ids[order]))
+        multi = shapely.multipolygons(
+            np.asarray(geoms, dtype=object)[order],
+            indices=np.searchsorted(np.unique(ids), ids[order]),
+        )
         frame = self.table.loc[np.unique(ids)].reset_index()
         return gpd.GeoDataFrame(frame, geometry=list(multi), crs=self.crs)
 
 
 @numba.njit(cache=True, nogil=True, error_model="numpy")
-def _sunlit_kernel(cell, hor, slope_rad, aspect_rad, hor_az_rad, sun_az_rad, sun_el_rad, count, cos_sum):
+def _sunlit_kernel(
+    cell, hor, slope_rad, aspect_rad, hor_az_rad, sun_az_rad, sun_el_rad, count, cos_sum
+):
     """Accumulate sunlit pixel counts and cos(incidence) sums per cell (pixels given as lists)."""
     n_pix = cell.size
     n_h = hor_az_rad.size
@@ -180,8 +215,16 @@ def _sunlit_kernel(cell, hor, slope_rad, aspect_rad, hor_az_rad, sun_az_rad, sun
                     cos_sum[c, j, k] += ci
 
 
-def sunlit_tables(cell_of_pixel, horizon_deg_pixels, slope_deg, aspect_deg, horizon_azimuths_deg,
-                  n_cells, sun_azimuth_deg, sun_elevation_deg) -> SunlitTable:
+def sunlit_tables(
+    cell_of_pixel,
+    horizon_deg_pixels,
+    slope_deg,
+    aspect_deg,
+    horizon_azimuths_deg,
+    n_cells,
+    sun_azimuth_deg,
+    sun_elevation_deg,
+) -> SunlitTable:
     """Sunlit fraction and mean cos(incidence) per cell from its own pixels.
 
     Parameters
@@ -211,7 +254,17 @@ def sunlit_tables(cell_of_pixel, horizon_deg_pixels, slope_deg, aspect_deg, hori
     def work(idx):
         count = np.zeros((n_cells, az.size, el.size))
         cos_sum = np.zeros_like(count)
-        _sunlit_kernel(cells[idx], np.ascontiguousarray(hor[:, idx]), sl[idx], asp[idx], haz, az, el, count, cos_sum)
+        _sunlit_kernel(
+            cells[idx],
+            np.ascontiguousarray(hor[:, idx]),
+            sl[idx],
+            asp[idx],
+            haz,
+            az,
+            el,
+            count,
+            cos_sum,
+        )
         return count, cos_sum
 
     with ThreadPoolExecutor(2) as pool:
@@ -222,8 +275,12 @@ def sunlit_tables(cell_of_pixel, horizon_deg_pixels, slope_deg, aspect_deg, hori
     with np.errstate(invalid="ignore", divide="ignore"):
         fraction = np.where(n_pix > 0, count / np.maximum(n_pix, 1), 0.0)
         cos_mean = np.where(count > 0, cos_sum / np.maximum(count, 1), 0.0)
-    return SunlitTable(np.asarray(sun_azimuth_deg, float), np.asarray(sun_elevation_deg, float),
-                       fraction.astype(np.float32), cos_mean.astype(np.float32))
+    return SunlitTable(
+        np.asarray(sun_azimuth_deg, float),
+        np.asarray(sun_elevation_deg, float),
+        fraction.astype(np.float32),
+        cos_mean.astype(np.float32),
+    )
 
 
 def build_cells(dem, terrain, zones, settings: CellSettings | None = None) -> CellSet:
@@ -254,15 +311,21 @@ def build_cells(dem, terrain, zones, settings: CellSettings | None = None) -> Ce
     z = dem.elevation_m
     ny, nx = z.shape
     zone_idx = rasterize(
-        [(g, i) for i, g in enumerate(zones.geometry)], out_shape=(ny, nx), transform=dem.transform,
-        fill=-1, dtype="int32", all_touched=False,
+        [(g, i) for i, g in enumerate(zones.geometry)],
+        out_shape=(ny, nx),
+        transform=dem.transform,
+        fill=-1,
+        dtype="int32",
+        all_touched=False,
     )
     valid = (zone_idx >= 0) & np.isfinite(z) & np.isfinite(terrain.slope_deg)
     counts = np.bincount(zone_idx[valid], minlength=len(zones))
     empty = [zones.zone.iloc[i] for i in np.flatnonzero(counts == 0)]
     if empty:
-        raise InputError(f"zones {empty}: no valid DEM pixel (pixel centre with data) inside; "
-                         f"the zone is smaller than a pixel or lies on nodata of DEM {dem.path}")
+        raise InputError(
+            f"zones {empty}: no valid DEM pixel (pixel centre with data) inside; "
+            f"the zone is smaller than a pixel or lies on nodata of DEM {dem.path}"
+        )
     rows, cols = np.nonzero(valid)
     zp = z[rows, cols]
     slope = terrain.slope_deg[rows, cols]
@@ -272,12 +335,20 @@ def build_cells(dem, terrain, zones, settings: CellSettings | None = None) -> Ce
     n_sec = settings.aspect_sectors
     width = 360.0 / n_sec
     flat = (slope < settings.flat_below_deg) | np.isnan(aspect)
-    sector = np.where(flat, n_sec, np.floor(((np.nan_to_num(aspect) + 0.5 * width) % 360.0) / width)).astype(np.int64)
+    sector = np.where(
+        flat, n_sec, np.floor(((np.nan_to_num(aspect) + 0.5 * width) % 360.0) / width)
+    ).astype(np.int64)
     sclass_edges = np.asarray(settings.slope_classes_deg, dtype=float)
-    sclass = np.searchsorted(sclass_edges, slope, side="right") if sclass_edges.size else np.zeros(slope.size, np.int64)
+    sclass = (
+        np.searchsorted(sclass_edges, slope, side="right")
+        if sclass_edges.size
+        else np.zeros(slope.size, np.int64)
+    )
     n_band = edges.size + 1
     n_cls = sclass_edges.size + 1
-    key = ((zone_idx[rows, cols].astype(np.int64) * n_band + band) * (n_sec + 1) + sector) * n_cls + sclass
+    key = (
+        (zone_idx[rows, cols].astype(np.int64) * n_band + band) * (n_sec + 1) + sector
+    ) * n_cls + sclass
     keys, cell = np.unique(key, return_inverse=True)
     n = keys.size
     area = dem.pixel_area_m2()[rows, cols]
@@ -291,7 +362,9 @@ def build_cells(dem, terrain, zones, settings: CellSettings | None = None) -> Ce
             return np.where(den > 0, num / den, np.nan)
 
     a_rad = np.radians(aspect)
-    asp_mean = np.degrees(np.arctan2(mean(np.sin(a_rad)), mean(np.cos(a_rad)))) % 360.0  # circular mean
+    asp_mean = (
+        np.degrees(np.arctan2(mean(np.sin(a_rad)), mean(np.cos(a_rad)))) % 360.0
+    )  # circular mean
     xs, ys = dem.pixel_centres()
     x_mean = mean(xs[cols])
     y_mean = mean(ys[rows])
@@ -304,35 +377,62 @@ def build_cells(dem, terrain, zones, settings: CellSettings | None = None) -> Ce
     upper = np.concatenate([edges, [np.inf]])[k_band]
     pix = np.bincount(cell, minlength=n)
     names = np.asarray(sector_names(n_sec))
-    table = pd.DataFrame({
-        "zone": zones.zone.to_numpy()[k_zone],
-        "band_lower_m": lower,
-        "band_upper_m": upper,
-        "aspect_sector": names[k_sec],
-        "slope_class": k_cls.astype(np.int64),
-        "slope_lower_deg": np.concatenate([[0.0], sclass_edges])[k_cls],
-        "slope_upper_deg": np.concatenate([sclass_edges, [90.0]])[k_cls],
-        "pixel_count": pix.astype(np.int64),
-        "area_km2": w_sum / 1e6,
-        "elevation_m": mean(zp),
-        "slope_deg": mean(slope),
-        "aspect_deg": asp_mean,
-        "sky_view_frac": mean(terrain.sky_view_frac[rows, cols]),
-        "curvature": mean(terrain.curvature[rows, cols]),
-        "lon": np.asarray(lon),
-        "lat": np.asarray(lat),
-        "x": x_mean,
-        "y": y_mean,
-        "small": pix < settings.small_below_pixels,
-    })
+    table = pd.DataFrame(
+        {
+            "zone": zones.zone.to_numpy()[k_zone],
+            "band_lower_m": lower,
+            "band_upper_m": upper,
+            "aspect_sector": names[k_sec],
+            "slope_class": k_cls.astype(np.int64),
+            "slope_lower_deg": np.concatenate([[0.0], sclass_edges])[k_cls],
+            "slope_upper_deg": np.concatenate([sclass_edges, [90.0]])[k_cls],
+            "pixel_count": pix.astype(np.int64),
+            "area_km2": w_sum / 1e6,
+            "elevation_m": mean(zp),
+            "slope_deg": mean(slope),
+            "aspect_deg": asp_mean,
+            "sky_view_frac": mean(terrain.sky_view_frac[rows, cols]),
+            "curvature": mean(terrain.curvature[rows, cols]),
+            "lon": np.asarray(lon),
+            "lat": np.asarray(lat),
+            "x": x_mean,
+            "y": y_mean,
+            "small": pix < settings.small_below_pixels,
+        }
+    )
     table.index = pd.RangeIndex(n, name="cell_id")
-    sx = np.stack([mean(terrain.sx_deg[d][rows, cols].astype(np.float64)) for d in range(terrain.sx_deg.shape[0])], axis=1) \
-        if terrain.sx_deg.shape[0] else np.zeros((n, 0))
+    sx = (
+        np.stack(
+            [
+                mean(terrain.sx_deg[d][rows, cols].astype(np.float64))
+                for d in range(terrain.sx_deg.shape[0])
+            ],
+            axis=1,
+        )
+        if terrain.sx_deg.shape[0]
+        else np.zeros((n, 0))
+    )
     index = np.full((ny, nx), -1, dtype=np.int32)
     index[rows, cols] = cell
     sun_az = np.arange(0.0, 360.0 - 1e-9, settings.sun_azimuth_step_deg)
     sun_el = np.arange(0.0, 90.0 + 1e-9, settings.sun_elevation_step_deg)
-    sunlit = sunlit_tables(cell, terrain.horizon_deg[:, rows, cols], slope, aspect,
-                           terrain.horizon_azimuths_deg, n, sun_az, sun_el)
-    return CellSet(table, sx.astype(np.float32), np.asarray(terrain.sx_directions_deg), index, sunlit,
-                   transform=dem.transform, crs=dem.crs, band_edges_m=edges)
+    sunlit = sunlit_tables(
+        cell,
+        terrain.horizon_deg[:, rows, cols],
+        slope,
+        aspect,
+        terrain.horizon_azimuths_deg,
+        n,
+        sun_az,
+        sun_el,
+    )
+    return CellSet(
+        table,
+        sx.astype(np.float32),
+        np.asarray(terrain.sx_directions_deg),
+        index,
+        sunlit,
+        transform=dem.transform,
+        crs=dem.crs,
+        band_edges_m=edges,
+    )

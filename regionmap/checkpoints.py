@@ -59,10 +59,15 @@ class Checkpoints:
 
     def save(self, lo: int, hi: int, states: dict) -> None:
         """Write the states of chunk ``lo:hi`` ({valid time: SnowState}, all of ``times``)."""
-        arrays = {f"{k}/{name}": getattr(states[t], name)
-                  for k, t in enumerate(self.times) for name in _ARRAYS}
+        arrays = {
+            f"{k}/{name}": getattr(states[t], name)
+            for k, t in enumerate(self.times)
+            for name in _ARRAYS
+        }
         path = Path(self.folder) / f"chunk-{lo:09d}-{hi:09d}.npz"
-        tmp = path.with_name("tmp-" + path.name)  # not matched by latest()'s "chunk-*" until complete
+        tmp = path.with_name(
+            "tmp-" + path.name
+        )  # not matched by latest()'s "chunk-*" until complete
         np.savez(tmp, **arrays)
         tmp.replace(path)
 
@@ -87,5 +92,7 @@ class Checkpoints:
                     parts[name].append(saved[f"{k}/{name}"][mine])
         kw = {name: np.concatenate(v) for name, v in parts.items()}
         if kw["cell_id"].size != positions.size:
-            raise RuntimeError("checkpoints: a chunk's saved states are missing")  # a bug, not bad input
+            raise RuntimeError(
+                "checkpoints: a chunk's saved states are missing"
+            )  # a bug, not bad input
         return SnowState(time=self.times[k], fingerprint=initial.fingerprint, **kw)

@@ -47,7 +47,9 @@ def print_outcome(outcome) -> None:
     cols = [c for c in _TABLE_COLUMNS if c in zones.columns]
     view = zones[cols].rename(columns=_TABLE_COLUMNS)
     kind = "forecast" if outcome.is_forecast else "analysis"
-    print(f"Snowpack structure at {outcome.map_time} UTC ({kind}), avalanche terrain, {outcome.n_cells} cells:")
+    print(
+        f"Snowpack structure at {outcome.map_time} UTC ({kind}), avalanche terrain, {outcome.n_cells} cells:"
+    )
     print(view.to_string(index=False, float_format=lambda v: f"{v:.2f}", na_rep="-"))
     if outcome.sentences:
         print()
@@ -63,8 +65,16 @@ def _cmd_run(args: argparse.Namespace) -> int:
 
     cfg = load_config(args.config)
     restarts = _restarts_from_args(args, cfg)
-    outcome = execute(cfg, out_dir=args.out, continue_from=args.continue_from, workers=args.workers,
-                      scheduler=args.scheduler, force=args.force, progress=not args.quiet, restarts=restarts)
+    outcome = execute(
+        cfg,
+        out_dir=args.out,
+        continue_from=args.continue_from,
+        workers=args.workers,
+        scheduler=args.scheduler,
+        force=args.force,
+        progress=not args.quiet,
+        restarts=restarts,
+    )
     print_outcome(outcome)
     return 0
 
@@ -79,8 +89,14 @@ def _restarts_from_args(args: argparse.Namespace, cfg) -> list:
         from regionmap.config import RestartEntry, parse_band
 
         parse_band(args.band)
-        entries.append(RestartEntry(profile=args.restart.resolve(), zone=args.zone, bands=[args.band],
-                                    aspects=[args.aspect]))
+        entries.append(
+            RestartEntry(
+                profile=args.restart.resolve(),
+                zone=args.zone,
+                bands=[args.band],
+                aspects=[args.aspect],
+            )
+        )
     return entries
 
 
@@ -108,8 +124,15 @@ def _cmd_profile(args: argparse.Namespace) -> int:
 
     if args.cell is None and (args.zone is None or args.band is None or args.aspect is None):
         raise InputError("profile: give --cell ID, or --zone, --band LOW-HIGH and --aspect")
-    path = profile_command(args.outdir, cell=args.cell, zone=args.zone, band=args.band, aspect=args.aspect,
-                           slope_class=args.slope_class, time=args.time)
+    path = profile_command(
+        args.outdir,
+        cell=args.cell,
+        zone=args.zone,
+        band=args.band,
+        aspect=args.aspect,
+        slope_class=args.slope_class,
+        time=args.time,
+    )
     print(f"profile written to {path}")
     return 0
 
@@ -122,7 +145,9 @@ def _station_args(args: argparse.Namespace, cfg) -> tuple[Path, list[Path]]:
     else:
         observations = list(cfg.stations.observations) if cfg.stations else []
     if stations is None or not observations:
-        raise InputError("give --stations FILE and --observations FILE[,FILE...] (or a [stations] section in the config)")
+        raise InputError(
+            "give --stations FILE and --observations FILE[,FILE...] (or a [stations] section in the config)"
+        )
     return stations, observations
 
 
@@ -143,8 +168,15 @@ def _cmd_calibrate(args: argparse.Namespace) -> int:
 
     cfg = load_config(args.config)
     stations, observations = _station_args(args, cfg)
-    calibrate_command(cfg, stations, observations, args.out, method=args.method, per_month=args.per_month,
-                      undercatch=args.undercatch)
+    calibrate_command(
+        cfg,
+        stations,
+        observations,
+        args.out,
+        method=args.method,
+        per_month=args.per_month,
+        undercatch=args.undercatch,
+    )
     print(f"Caution: {CAUTION}")
     return 0
 
@@ -169,8 +201,12 @@ def build_parser() -> argparse.ArgumentParser:
     parser.add_argument("--quiet", action="store_true", help="no progress bars")
     # the same two options after the sub-command, too
     common = argparse.ArgumentParser(add_help=False)
-    common.add_argument("--debug", action="store_true", default=argparse.SUPPRESS, help="show tracebacks on errors")
-    common.add_argument("--quiet", action="store_true", default=argparse.SUPPRESS, help="no progress bars")
+    common.add_argument(
+        "--debug", action="store_true", default=argparse.SUPPRESS, help="show tracebacks on errors"
+    )
+    common.add_argument(
+        "--quiet", action="store_true", default=argparse.SUPPRESS, help="no progress bars"
+    )
     sub = parser.add_subparsers(dest="command", metavar="COMMAND", required=True)
     _add = sub.add_parser
 
@@ -186,7 +222,12 @@ def build_parser() -> argparse.ArgumentParser:
         "run the whole chain on it.",
         epilog=f"Caution: {CAUTION}",
     )
-    p.add_argument("--out", type=Path, default=Path("regionmap-demo"), help="output folder (default: %(default)s)")
+    p.add_argument(
+        "--out",
+        type=Path,
+        default=Path("regionmap-demo"),
+        help="output folder (default: %(default)s)",
+    )
     p.set_defaults(func=_cmd_demo)
 
     p = sub.add_parser(
@@ -198,15 +239,37 @@ def build_parser() -> argparse.ArgumentParser:
     )
     p.add_argument("config", type=Path, help="the run's TOML config")
     p.add_argument("--out", type=Path, help="output folder (overrides [output] dir)")
-    p.add_argument("--continue-from", type=Path, metavar="STATE.nc", help="continue from an earlier run's state.nc")
-    p.add_argument("--restart", type=Path, metavar="PROFILE", help="observed profile (CAAML v6 XML or CSV) to restart cells from")
+    p.add_argument(
+        "--continue-from",
+        type=Path,
+        metavar="STATE.nc",
+        help="continue from an earlier run's state.nc",
+    )
+    p.add_argument(
+        "--restart",
+        type=Path,
+        metavar="PROFILE",
+        help="observed profile (CAAML v6 XML or CSV) to restart cells from",
+    )
     p.add_argument("--zone", help="zone of the restarted cells")
-    p.add_argument("--band", metavar="LOW-HIGH", help="elevation band of the restarted cells, in m (e.g. 2100-2400)")
+    p.add_argument(
+        "--band",
+        metavar="LOW-HIGH",
+        help="elevation band of the restarted cells, in m (e.g. 2100-2400)",
+    )
     p.add_argument("--aspect", help="aspect sector of the restarted cells (N, NE, ... or flat)")
     group = p.add_mutually_exclusive_group()
-    group.add_argument("--workers", type=int, metavar="N", help="a local dask cluster of N processes")
-    group.add_argument("--scheduler", metavar="ADDRESS", help="an existing dask.distributed scheduler")
-    p.add_argument("--force", action="store_true", help="replace a non-empty folder that is not a regionmap output (it is kept aside, never deleted)")
+    group.add_argument(
+        "--workers", type=int, metavar="N", help="a local dask cluster of N processes"
+    )
+    group.add_argument(
+        "--scheduler", metavar="ADDRESS", help="an existing dask.distributed scheduler"
+    )
+    p.add_argument(
+        "--force",
+        action="store_true",
+        help="replace a non-empty folder that is not a regionmap output (it is kept aside, never deleted)",
+    )
     p.set_defaults(func=_cmd_run)
 
     p = sub.add_parser(
@@ -216,25 +279,55 @@ def build_parser() -> argparse.ArgumentParser:
     )
     p.add_argument("config", type=Path, help="the run's TOML config")
     p.add_argument("--out", type=Path, required=True, help="output folder")
-    p.add_argument("--force", action="store_true", help="replace a non-empty folder that is not a regionmap output")
+    p.add_argument(
+        "--force",
+        action="store_true",
+        help="replace a non-empty folder that is not a regionmap output",
+    )
     p.set_defaults(func=_cmd_forcing)
 
-    for name, helptext in (("verify", "compare the downscaled forcing with station observations"),
-                           ("calibrate", "fit [bias] settings from station observations")):
-        p = sub.add_parser(name, help=helptext, description=helptext[0].upper() + helptext[1:] + ": the forcing "
-                           "is downscaled to each station point by the same chain as the cells.",
-                           epilog=f"Caution: {CAUTION}")
+    for name, helptext in (
+        ("verify", "compare the downscaled forcing with station observations"),
+        ("calibrate", "fit [bias] settings from station observations"),
+    ):
+        p = sub.add_parser(
+            name,
+            help=helptext,
+            description=helptext[0].upper() + helptext[1:] + ": the forcing "
+            "is downscaled to each station point by the same chain as the cells.",
+            epilog=f"Caution: {CAUTION}",
+        )
         p.add_argument("config", type=Path, help="the run's TOML config")
-        p.add_argument("--stations", type=Path, metavar="STATIONS.csv", help="station metadata (docs/station_csv.md)")
-        p.add_argument("--observations", metavar="OBS.csv[,...]", help="observation files, comma-separated")
-        p.add_argument("--out", type=Path, default=Path(name if name == "calibrate" else "verification"),
-                       help="folder for the tables and figures (default: %(default)s)")
-        p.add_argument("--undercatch", choices=["single_alter", "unshielded"],
-                       help="correct gauge snowfall under-catch (Kochendorfer et al. 2017) before comparing")
+        p.add_argument(
+            "--stations",
+            type=Path,
+            metavar="STATIONS.csv",
+            help="station metadata (docs/station_csv.md)",
+        )
+        p.add_argument(
+            "--observations", metavar="OBS.csv[,...]", help="observation files, comma-separated"
+        )
+        p.add_argument(
+            "--out",
+            type=Path,
+            default=Path(name if name == "calibrate" else "verification"),
+            help="folder for the tables and figures (default: %(default)s)",
+        )
+        p.add_argument(
+            "--undercatch",
+            choices=["single_alter", "unshielded"],
+            help="correct gauge snowfall under-catch (Kochendorfer et al. 2017) before comparing",
+        )
         if name == "calibrate":
-            p.add_argument("--method", choices=["scaling", "quantile_mapping"], default="scaling",
-                           help="offsets/factors or quantile mapping (default: %(default)s)")
-            p.add_argument("--per-month", action="store_true", help="fit one value per calendar month")
+            p.add_argument(
+                "--method",
+                choices=["scaling", "quantile_mapping"],
+                default="scaling",
+                help="offsets/factors or quantile mapping (default: %(default)s)",
+            )
+            p.add_argument(
+                "--per-month", action="store_true", help="fit one value per calendar month"
+            )
             p.set_defaults(func=_cmd_calibrate)
         else:
             p.set_defaults(func=_cmd_verify)
@@ -251,8 +344,12 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--zone", help="zone name")
     p.add_argument("--band", metavar="LOW-HIGH", help="elevation band in m, e.g. 2100-2400")
     p.add_argument("--aspect", help="aspect sector (N, NE, ... or flat)")
-    p.add_argument("--slope-class", type=int, metavar="K", help="slope class index, when slopes are split")
-    p.add_argument("--time", metavar="T", help="snapshot time (UTC, ISO 8601); default: the map time")
+    p.add_argument(
+        "--slope-class", type=int, metavar="K", help="slope class index, when slopes are split"
+    )
+    p.add_argument(
+        "--time", metavar="T", help="snapshot time (UTC, ISO 8601); default: the map time"
+    )
     p.set_defaults(func=_cmd_profile)
 
     p = sub.add_parser(
@@ -272,10 +369,17 @@ def build_parser() -> argparse.ArgumentParser:
         "the DEM's grid.",
     )
     p.add_argument("dem", type=Path, help="any GDAL raster with a CRS")
-    p.add_argument("--out", type=Path, default=Path("terrain"), help="output folder (default: %(default)s)")
-    p.add_argument("--azimuths", type=int, default=16, help="horizon azimuths (4-72, default %(default)s)")
     p.add_argument(
-        "--horizon-distance", type=float, default=5000.0, help="horizon search distance in m (default %(default)s)"
+        "--out", type=Path, default=Path("terrain"), help="output folder (default: %(default)s)"
+    )
+    p.add_argument(
+        "--azimuths", type=int, default=16, help="horizon azimuths (4-72, default %(default)s)"
+    )
+    p.add_argument(
+        "--horizon-distance",
+        type=float,
+        default=5000.0,
+        help="horizon search distance in m (default %(default)s)",
     )
     p.set_defaults(func=_cmd_terrain)
     return parser

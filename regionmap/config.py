@@ -67,7 +67,9 @@ class CellsSection(_Section):
                 raise ValueError(f"slope_classes_deg must be strictly increasing, got {s}")
         lo, hi = self.avalanche_terrain_deg
         if hi <= lo:
-            raise ValueError(f"avalanche_terrain_deg must be [low, high] with low < high, got {[lo, hi]}")
+            raise ValueError(
+                f"avalanche_terrain_deg must be [low, high] with low < high, got {[lo, hi]}"
+            )
         return self
 
     @property
@@ -111,8 +113,12 @@ def _scalar_or_monthly(value):
     if isinstance(value, bool) or not isinstance(value, (int, float, list)):
         raise ValueError(f"expected a number or a list of 12 monthly numbers, got {value!r}")
     if isinstance(value, list):
-        if len(value) != 12 or not all(isinstance(x, (int, float)) and not isinstance(x, bool) for x in value):
-            raise ValueError(f"expected a number or a list of 12 monthly numbers (Jan…Dec), got {value!r}")
+        if len(value) != 12 or not all(
+            isinstance(x, (int, float)) and not isinstance(x, bool) for x in value
+        ):
+            raise ValueError(
+                f"expected a number or a list of 12 monthly numbers (Jan…Dec), got {value!r}"
+            )
         return [float(x) for x in value]
     return float(value)
 
@@ -183,7 +189,9 @@ class OutputSection(_Section):
         try:
             zoneinfo.ZoneInfo(v)
         except (zoneinfo.ZoneInfoNotFoundError, ValueError):
-            raise ValueError(f"expected an IANA time-zone name such as 'Etc/GMT+7' or 'UTC', got {v!r}")
+            raise ValueError(
+                f"expected an IANA time-zone name such as 'Etc/GMT+7' or 'UTC', got {v!r}"
+            ) from None
         return v
 
     @property
@@ -216,7 +224,9 @@ class DownscaleSection(_Section):
     def _bounds(self):
         lo, hi = self.precip_factor_bounds
         if not (0 < lo <= 1 <= hi):
-            raise ValueError(f"precip_factor_bounds must satisfy 0 < low <= 1 <= high, got {[lo, hi]}")
+            raise ValueError(
+                f"precip_factor_bounds must satisfy 0 < low <= 1 <= high, got {[lo, hi]}"
+            )
         return self
 
 
@@ -282,7 +292,9 @@ def parse_band(text: str) -> tuple[float, float]:
     """
     m = _BAND.match(str(text))
     if not m or float(m.group(2)) <= float(m.group(1)):
-        raise ConfigError(f"band {text!r}: expected LOW-HIGH in metres with LOW < HIGH, e.g. '2100-2400'")
+        raise ConfigError(
+            f"band {text!r}: expected LOW-HIGH in metres with LOW < HIGH, e.g. '2100-2400'"
+        )
     return float(m.group(1)), float(m.group(2))
 
 
@@ -300,7 +312,11 @@ def _model_at(loc: tuple) -> type[BaseModel] | None:
     for part in loc[:-1]:
         if isinstance(part, int):
             continue
-        field = model.model_fields.get(part) if isinstance(model, type) and issubclass(model, BaseModel) else None
+        field = (
+            model.model_fields.get(part)
+            if isinstance(model, type) and issubclass(model, BaseModel)
+            else None
+        )
         if field is None:
             return None
         model = _first_model(field.annotation)
@@ -342,7 +358,11 @@ def _format_errors(exc: ValidationError, source: str) -> str:
             valid = list(model.model_fields) if model else []
             valid = [v for v in valid if v != "source"]
             close = difflib.get_close_matches(str(loc[-1]), valid, n=1, cutoff=0.5)
-            hint = f"; did you mean {close[0]!r}?" if close else (f"; valid keys: {', '.join(valid)}" if valid else "")
+            hint = (
+                f"; did you mean {close[0]!r}?"
+                if close
+                else (f"; valid keys: {', '.join(valid)}" if valid else "")
+            )
             messages.append(f"unknown key {key}{hint}")
         elif err["type"] == "missing":
             messages.append(f"missing required key {key}")
@@ -363,13 +383,17 @@ def _resolve_paths(model: BaseModel, base: Path) -> BaseModel:
             updates[name] = _resolve_paths(value, base)
         elif isinstance(value, list) and value and isinstance(value[0], (BaseModel, Path)):
             updates[name] = [
-                _resolve_paths(v, base) if isinstance(v, BaseModel) else (v if v.is_absolute() else base / v)
+                _resolve_paths(v, base)
+                if isinstance(v, BaseModel)
+                else (v if v.is_absolute() else base / v)
                 for v in value
             ]
     return model.model_copy(update=updates) if updates else model
 
 
-def config_from_dict(data: dict, *, source: str = "<config>", base_dir: Path | None = None) -> Config:
+def config_from_dict(
+    data: dict, *, source: str = "<config>", base_dir: Path | None = None
+) -> Config:
     """Validate a config mapping; relative paths are taken relative to ``base_dir``."""
     try:
         cfg = Config.model_validate(data)
@@ -380,7 +404,11 @@ def config_from_dict(data: dict, *, source: str = "<config>", base_dir: Path | N
     base = (base_dir or Path.cwd()).resolve()
     cfg = _resolve_paths(cfg, base)
     if cfg.forcing is not None and not Path(cfg.forcing.path).is_absolute():
-        cfg = cfg.model_copy(update={"forcing": cfg.forcing.model_copy(update={"path": str(base / cfg.forcing.path)})})
+        cfg = cfg.model_copy(
+            update={
+                "forcing": cfg.forcing.model_copy(update={"path": str(base / cfg.forcing.path)})
+            }
+        )
     return cfg.model_copy(update={"source": Path(source) if source != "<config>" else None})
 
 

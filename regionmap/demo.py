@@ -72,8 +72,12 @@ def demo_elevation_m() -> np.ndarray:
     h = h + _ridge(x, y, [(21.0, 15.8), (25.0, 10.0), (28.5, 4.0)], 1.05, 1.3)  # NW-SE spur
     h = h + _ridge(x, y, [(12.0, 14.5), (8.5, 9.0), (4.0, 3.0)], 0.9, 1.3)  # NE-SW spur
     h = h + _ridge(x, y, [(24.0, 15.0), (26.0, 22.0), (23.0, 27.5)], 0.8, 1.2)  # northern spur
-    for (px, py, ph, pw) in [(18.0, 16.3, 0.55, 1.3), (6.0, 15.7, 0.35, 1.0), (26.0, 21.5, 0.3, 1.1),
-                             (9.5, 6.0, 0.25, 1.2)]:
+    for px, py, ph, pw in [
+        (18.0, 16.3, 0.55, 1.3),
+        (6.0, 15.7, 0.35, 1.0),
+        (26.0, 21.5, 0.3, 1.1),
+        (9.5, 6.0, 0.25, 1.2),
+    ]:
         h = h + ph * np.exp(-(((x - px) ** 2 + (y - py) ** 2) / pw**2))
     # north-facing cirque: a bowl on the north flank of the main ridge below the summit
     cx, cy = 18.0, 18.3
@@ -96,7 +100,11 @@ def make_demo_dem(path: str | os.PathLike) -> Path:
 
     z = demo_elevation_m().astype(np.float32)
     return write_geotiff(
-        path, z, transform=demo_transform(), crs=DEMO_CRS, nodata=-9999.0,
+        path,
+        z,
+        transform=demo_transform(),
+        crs=DEMO_CRS,
+        nodata=-9999.0,
         description="elevation [m] of an invented mountain range (demo data)",
         tags={"source": "regionmap.demo.make_demo_dem (invented terrain)", "units": "m"},
     )
@@ -118,10 +126,10 @@ def demo_zones():
     centre = (15.0, 15.2)
     east_ridge = [(18.0, 16.2), (24.0, 14.8), (e, 16.0)]
     zones = [
-        p([(w, n), mid_n, centre, *reversed(west_ridge)]),          # north-west
-        p([mid_n, (e, n), *reversed(east_ridge), centre]),          # north-east (the cirque)
-        p([*west_ridge, centre, mid_s, (w, s)]),                    # south-west
-        p([centre, *east_ridge, (e, s), mid_s]),                    # south-east
+        p([(w, n), mid_n, centre, *reversed(west_ridge)]),  # north-west
+        p([mid_n, (e, n), *reversed(east_ridge), centre]),  # north-east (the cirque)
+        p([*west_ridge, centre, mid_s, (w, s)]),  # south-west
+        p([centre, *east_ridge, (e, s), mid_s]),  # south-east
     ]
     return gpd.GeoDataFrame({"name": list(DEMO_ZONE_NAMES)}, geometry=zones, crs=DEMO_CRS)
 
@@ -143,8 +151,13 @@ DEMO_RUN = {
 }
 
 
-def demo_config_text(*, forcing: str = "forcing.nc", dem: str = "demo_range.tif",
-                     zones: str = "demo_zones.geojson", out: str = "rerun") -> str:
+def demo_config_text(
+    *,
+    forcing: str = "forcing.nc",
+    dem: str = "demo_range.tif",
+    zones: str = "demo_zones.geojson",
+    out: str = "rerun",
+) -> str:
     """The demo's TOML config (paths relative to the config file)."""
     r = DEMO_RUN
     return f"""# regionmap demo: an invented range, invented zones and an invented season.
@@ -196,19 +209,24 @@ def build_demo_scenario(folder: str | os.PathLike, *, raw: bool = False) -> Path
     make_demo_zones(folder / "demo_zones.geojson")
     dem = read_dem(dem_path)
     forcing = "forcing_raw.nc" if raw else "forcing.nc"
-    write_demo_forcing(folder / forcing, dem.elevation_m, dem.transform, dem.crs, raw=raw,
-                       end=DEMO_RUN["end"])
+    write_demo_forcing(
+        folder / forcing, dem.elevation_m, dem.transform, dem.crs, raw=raw, end=DEMO_RUN["end"]
+    )
     write_demo_events(folder / "events_expected.json")
     text = demo_config_text(forcing=forcing)
     if raw:
         mapping = demo_variables_mapping()
         lines = ["", "[forcing.variables]"]
         for name, spec in mapping.items():
-            items = ", ".join(f"{k} = {str(v).lower() if isinstance(v, bool) else repr(v)}".replace("'", '"')
-                              for k, v in spec.items())
+            items = ", ".join(
+                f"{k} = {str(v).lower() if isinstance(v, bool) else repr(v)}".replace("'", '"')
+                for k, v in spec.items()
+            )
             lines.append(f"{name} = {{ {items} }}")
         text = text.replace("\n[output]", "\n".join(lines) + "\n\n[output]", 1)
-        text = text.replace('analysis_time = "', 'heights_m = { wind = 10, temperature = 2 }\nanalysis_time = "', 1)
+        text = text.replace(
+            'analysis_time = "', 'heights_m = { wind = 10, temperature = 2 }\nanalysis_time = "', 1
+        )
     return atomic_write_text(folder / "demo.toml", text)
 
 
@@ -228,7 +246,11 @@ def run_demo(out: str | os.PathLike, progress: bool = True) -> int:
     with tempfile.TemporaryDirectory(prefix="regionmap-demo-") as tmp:
         config_path = build_demo_scenario(Path(tmp) / "scenario")
         cfg = load_config(config_path)
-        outcome = execute(cfg, out_dir=Path(out), progress=progress,
-                          extra_files={f"scenario/{p.name}": p for p in config_path.parent.iterdir()})
+        outcome = execute(
+            cfg,
+            out_dir=Path(out),
+            progress=progress,
+            extra_files={f"scenario/{p.name}": p for p in config_path.parent.iterdir()},
+        )
     print_outcome(outcome)
     return 0

@@ -26,19 +26,64 @@ __all__ = ["MAP_SPECS", "REQUIRED_ZONE_COLUMNS", "cells_to_raster", "write_gis"]
 
 #: metric → (dtype, nodata, units, description). Other metrics are written as float32.
 MAP_SPECS: dict[str, tuple[str, float | int, str, str]] = {
-    "depth_hoar_fraction": ("float32", -9999.0, "1", "depth hoar present in the cell's column (1) or not (0), as a fraction"),
+    "depth_hoar_fraction": (
+        "float32",
+        -9999.0,
+        "1",
+        "depth hoar present in the cell's column (1) or not (0), as a fraction",
+    ),
     "crust_count": ("uint8", 255, "1", "number of crusts and ice layers in the column"),
     "new_snow_24h_cm": ("float32", -9999.0, "cm", "new snow of the last local observation day"),
-    "new_snow_72h_cm": ("float32", -9999.0, "cm", "new snow of the last three local observation days"),
-    "new_snow_72h_kg_m2": ("float32", -9999.0, "kg m-2", "snowfall water equivalent of the last three observation days"),
+    "new_snow_72h_cm": (
+        "float32",
+        -9999.0,
+        "cm",
+        "new snow of the last three local observation days",
+    ),
+    "new_snow_72h_kg_m2": (
+        "float32",
+        -9999.0,
+        "kg m-2",
+        "snowfall water equivalent of the last three observation days",
+    ),
     "snow_depth_cm": ("float32", -9999.0, "cm", "snow depth (vertical)"),
-    "pwl_depth_cm": ("float32", -9999.0, "cm", "vertical depth of the uppermost persistent weak layer (nodata: none)"),
-    "pwl_slab_cm": ("float32", -9999.0, "cm", "slab thickness above the uppermost persistent weak layer, perpendicular to the slope"),
-    "threshold_count_max": ("float32", -9999.0, "1", "largest structural threshold count in the column"),
+    "pwl_depth_cm": (
+        "float32",
+        -9999.0,
+        "cm",
+        "vertical depth of the uppermost persistent weak layer (nodata: none)",
+    ),
+    "pwl_slab_cm": (
+        "float32",
+        -9999.0,
+        "cm",
+        "slab thickness above the uppermost persistent weak layer, perpendicular to the slope",
+    ),
+    "threshold_count_max": (
+        "float32",
+        -9999.0,
+        "1",
+        "largest structural threshold count in the column",
+    ),
 }
-REQUIRED_MAPS = ("depth_hoar_fraction", "crust_count", "new_snow_72h_cm", "snow_depth_cm", "pwl_depth_cm")
-REQUIRED_ZONE_COLUMNS = ("zone", "depth_hoar_fraction", "crust_count_mean", "new_snow_72h_cm",
-                         "new_snow_72h_kg_m2", "snow_depth_cm", "rain_crust_line_m", "is_forecast", "valid_time")
+REQUIRED_MAPS = (
+    "depth_hoar_fraction",
+    "crust_count",
+    "new_snow_72h_cm",
+    "snow_depth_cm",
+    "pwl_depth_cm",
+)
+REQUIRED_ZONE_COLUMNS = (
+    "zone",
+    "depth_hoar_fraction",
+    "crust_count_mean",
+    "new_snow_72h_cm",
+    "new_snow_72h_kg_m2",
+    "snow_depth_cm",
+    "rain_crust_line_m",
+    "is_forecast",
+    "valid_time",
+)
 
 
 def cells_to_raster(values: np.ndarray, index: np.ndarray, *, dtype: str, nodata) -> np.ndarray:
@@ -58,14 +103,23 @@ def cells_to_raster(values: np.ndarray, index: np.ndarray, *, dtype: str, nodata
     if np.issubdtype(out_dtype, np.integer):
         info = np.iinfo(out_dtype)
         finite = v[np.isfinite(v)]
-        bad = (finite < info.min) | (finite > info.max) | (finite == nodata) | (finite != np.round(finite))
+        bad = (
+            (finite < info.min)
+            | (finite > info.max)
+            | (finite == nodata)
+            | (finite != np.round(finite))
+        )
         if bad.any():
-            raise InputError(f"map values {finite[bad][:3]} do not fit {dtype} with nodata {nodata}; "
-                             "expected whole numbers inside the type's range")
+            raise InputError(
+                f"map values {finite[bad][:3]} do not fit {dtype} with nodata {nodata}; "
+                "expected whole numbers inside the type's range"
+            )
         table = np.where(np.isfinite(v), v, nodata).astype(out_dtype)
     else:
         if (v == nodata).any():
-            raise InputError(f"map values equal the nodata value {nodata}; expected values outside it")
+            raise InputError(
+                f"map values equal the nodata value {nodata}; expected values outside it"
+            )
         table = np.where(np.isfinite(v), v, nodata).astype(out_dtype)
     lookup = np.append(table, np.asarray(nodata, dtype=out_dtype))  # position −1 → nodata
     return lookup[np.where(idx >= 0, idx, -1)]
@@ -85,9 +139,20 @@ def _time_text(t) -> str:
     return pd.Timestamp(t).strftime("%Y-%m-%dT%H:%M:%SZ")
 
 
-def write_gis(out_dir: str | os.PathLike, cellset, zones_gdf, zone_table: pd.DataFrame,
-              cell_summary: pd.DataFrame, rain_crust_gdf, layers_of_concern: pd.DataFrame,
-              maps: Mapping[str, np.ndarray], *, transform, crs, valid_time) -> dict[str, Path]:
+def write_gis(
+    out_dir: str | os.PathLike,
+    cellset,
+    zones_gdf,
+    zone_table: pd.DataFrame,
+    cell_summary: pd.DataFrame,
+    rain_crust_gdf,
+    layers_of_concern: pd.DataFrame,
+    maps: Mapping[str, np.ndarray],
+    *,
+    transform,
+    crs,
+    valid_time,
+) -> dict[str, Path]:
     """Write the GIS outputs of a run into ``out_dir``.
 
     Parameters
@@ -123,13 +188,19 @@ def write_gis(out_dir: str | os.PathLike, cellset, zones_gdf, zone_table: pd.Dat
     n_cell = len(table)
     missing = [c for c in REQUIRED_ZONE_COLUMNS if c not in zone_table.columns]
     if missing:
-        raise InputError(f"zones table: missing columns {missing}; expected at least {list(REQUIRED_ZONE_COLUMNS)}")
+        raise InputError(
+            f"zones table: missing columns {missing}; expected at least {list(REQUIRED_ZONE_COLUMNS)}"
+        )
     missing = [m for m in REQUIRED_MAPS if m not in maps]
     if missing:
-        raise InputError(f"maps: missing metrics {missing}; expected at least {list(REQUIRED_MAPS)}")
+        raise InputError(
+            f"maps: missing metrics {missing}; expected at least {list(REQUIRED_MAPS)}"
+        )
     for name, values in maps.items():
         if np.shape(values) != (n_cell,):
-            raise GridMismatchError(f"maps[{name!r}]: shape {np.shape(values)}, expected ({n_cell},) values in cell_id order")
+            raise GridMismatchError(
+                f"maps[{name!r}]: shape {np.shape(values)}, expected ({n_cell},) values in cell_id order"
+            )
     written: dict[str, Path] = {}
 
     # --- vector layers
@@ -142,8 +213,15 @@ def write_gis(out_dir: str | os.PathLike, cellset, zones_gdf, zone_table: pd.Dat
     cells = cells.join(cell_summary[[c for c in cell_summary.columns if c not in cells.columns]])
     cells = cells.rename_axis("cell_id").reset_index()
     loc = layers_of_concern.copy()
-    written["zones.gpkg"] = write_geopackage(out / "zones.gpkg", {
-        "zones": zones, "cells": cells, "rain_crust_line": rain_crust_gdf, "layers_of_concern": loc})
+    written["zones.gpkg"] = write_geopackage(
+        out / "zones.gpkg",
+        {
+            "zones": zones,
+            "cells": cells,
+            "rain_crust_line": rain_crust_gdf,
+            "layers_of_concern": loc,
+        },
+    )
     written["zones.geojson"] = write_geojson(out / "zones.geojson", zones)
     with atomic_path(out / "layers_of_concern.csv") as tmp:
         loc.to_csv(tmp, index=False, float_format="%.6g")
@@ -156,12 +234,26 @@ def write_gis(out_dir: str | os.PathLike, cellset, zones_gdf, zone_table: pd.Dat
         if name == "cell_id":
             dtype, nodata, units, text = "int32", -1, "1", "cell identifier (pixel -> cell index)"
         else:
-            dtype, nodata, units, text = MAP_SPECS.get(name, ("float32", -9999.0, "", name.replace("_", " ")))
+            dtype, nodata, units, text = MAP_SPECS.get(
+                name, ("float32", -9999.0, "", name.replace("_", " "))
+            )
         raster = cells_to_raster(values, index, dtype=dtype, nodata=nodata)
-        tags = {"valid_time": when, "units": units, "metric": name, "source": f"regionmap {__version__}",
-                "caution": CAUTION}
+        tags = {
+            "valid_time": when,
+            "units": units,
+            "metric": name,
+            "source": f"regionmap {__version__}",
+            "caution": CAUTION,
+        }
         path = out / "maps" / f"{name}.tif"
-        written[f"maps/{name}.tif"] = write_geotiff(path, raster, transform=transform, crs=crs, nodata=nodata,
-                                                    description=f"{name} [{units}]: {text}; valid {when}",
-                                                    tags=tags, cog=True)
+        written[f"maps/{name}.tif"] = write_geotiff(
+            path,
+            raster,
+            transform=transform,
+            crs=crs,
+            nodata=nodata,
+            description=f"{name} [{units}]: {text}; valid {when}",
+            tags=tags,
+            cog=True,
+        )
     return written

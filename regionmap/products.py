@@ -52,11 +52,18 @@ def _write_csv(path: Path, frame: pd.DataFrame) -> None:
 def _weights(region, cfg: Config) -> pd.DataFrame:
     from regionmap.summaries import terrain_weights_km2
 
-    return terrain_weights_km2(region.cells.index, region.terrain.slope_deg, region.dem.pixel_area_m2(),
-                               len(region.cells.table), avalanche_terrain_deg=tuple(cfg.cells.avalanche_terrain_deg))
+    return terrain_weights_km2(
+        region.cells.index,
+        region.terrain.slope_deg,
+        region.dem.pixel_area_m2(),
+        len(region.cells.table),
+        avalanche_terrain_deg=tuple(cfg.cells.avalanche_terrain_deg),
+    )
 
 
-def _member_presence(ctx, state0, event: pd.Series, control: np.ndarray, table: pd.DataFrame) -> tuple[np.ndarray, dict]:
+def _member_presence(
+    ctx, state0, event: pd.Series, control: np.ndarray, table: pd.DataFrame
+) -> tuple[np.ndarray, dict]:
     """Crust presence of each ensemble member for one event: only cells near the control
     crust's elevation range are re-simulated, only from a day before the event to two days
     after it (the control state there comes from the run's checkpoints, see
@@ -66,7 +73,11 @@ def _member_presence(ctx, state0, event: pd.Series, control: np.ndarray, table: 
     t0 = _time.perf_counter()
     z = table["elevation_m"].to_numpy(float)
     if not control.any():
-        return np.repeat(control[None, :], len(ENSEMBLE_MEMBERS), axis=0), {"cells": 0, "steps": 0, "seconds": 0.0}
+        return np.repeat(control[None, :], len(ENSEMBLE_MEMBERS), axis=0), {
+            "cells": 0,
+            "steps": 0,
+            "seconds": 0.0,
+        }
     lo_z, hi_z = z[control].min() - _ENSEMBLE_MARGIN_M, z[control].max() + _ENSEMBLE_MARGIN_M
     cells = np.nonzero((z >= lo_z) & (z <= hi_z))[0]
     if ctx.downscale.drift:  # drift is normalised per zone: re-simulate whole zones
@@ -76,25 +87,45 @@ def _member_presence(ctx, state0, event: pd.Series, control: np.ndarray, table: 
     times = p.times
     first_ev = np.datetime64(event["first_time"], "s")
     last_ev = np.datetime64(event["last_time"], "s")
-    start = max(p.first, int(np.searchsorted(times, first_ev - np.timedelta64(_SPIN_BEFORE_H * 3600, "s"))))
-    stop = min(p.stop, int(np.searchsorted(times, last_ev + np.timedelta64(_AFTER_H * 3600, "s"), side="right")))
+    start = max(
+        p.first, int(np.searchsorted(times, first_ev - np.timedelta64(_SPIN_BEFORE_H * 3600, "s")))
+    )
+    stop = min(
+        p.stop,
+        int(np.searchsorted(times, last_ev + np.timedelta64(_AFTER_H * 3600, "s"), side="right")),
+    )
     members = np.repeat(control[None, :], len(ENSEMBLE_MEMBERS), axis=0)
     formed = (first_ev - np.timedelta64(3600, "s"), last_ev + np.timedelta64(_AFTER_H * 3600, "s"))
     resume = start
-    groups = ctx.batch.zone_code[cells] if ctx.downscale.drift else None  # drift: whole zones per block
+    groups = (
+        ctx.batch.zone_code[cells] if ctx.downscale.drift else None
+    )  # drift: whole zones per block
     # blocks side by side, one per core (the kernel and most of the downscaling release the GIL)
     n_threads = os.cpu_count() or 1
-    blocks = chunk_ranges(cells.size, min(_ENSEMBLE_BLOCK_CELLS, -(-cells.size // n_threads)), groups)
+    blocks = chunk_ranges(
+        cells.size, min(_ENSEMBLE_BLOCK_CELLS, -(-cells.size // n_threads)), groups
+    )
     with ThreadPoolExecutor(min(n_threads, len(blocks))) as pool:
-        done = list(pool.map(lambda b: _block_presence(ctx, state0, cells[b[0]:b[1]], start, stop, formed), blocks))
-    for (lo, hi), (presence, resume) in zip(blocks, done):
+        done = list(
+            pool.map(
+                lambda b: _block_presence(ctx, state0, cells[b[0] : b[1]], start, stop, formed),
+                blocks,
+            )
+        )
+    for (lo, hi), (presence, _resume) in zip(blocks, done):
         members[:, cells[lo:hi]] = presence
-    cost = {"cells": int(cells.size), "steps": int(stop - resume), "member_steps": int(stop - start),
-            "seconds": round(_time.perf_counter() - t0, 3)}
+    cost = {
+        "cells": int(cells.size),
+        "steps": int(stop - resume),
+        "member_steps": int(stop - start),
+        "seconds": round(_time.perf_counter() - t0, 3),
+    }
     return members, cost
 
 
-def _block_presence(ctx, state0, cells: np.ndarray, start: int, stop: int, formed: tuple) -> tuple[np.ndarray, int]:
+def _block_presence(
+    ctx, state0, cells: np.ndarray, start: int, stop: int, formed: tuple
+) -> tuple[np.ndarray, int]:
     """(member, cell) crust presence of the ensemble for some cells (positions) over the
     forcing steps ``start:stop``, and the step their control state was resumed from."""
     from regionmap.downscale.pipeline import downscale_cells
@@ -111,30 +142,47 @@ def _block_presence(ctx, state0, cells: np.ndarray, start: int, stop: int, forme
         state = state_take(state0, cells)
     else:
         state = ctx.checkpoints.latest(p.times[start] - np.timedelta64(3600, "s"), cells, state0)
-    resume = max(p.first, int(np.searchsorted(p.times, np.datetime64(state.time, "s"), side="right")))
+    resume = max(
+        p.first, int(np.searchsorted(p.times, np.datetime64(state.time, "s"), side="right"))
+    )
     if start > resume:  # one diagnostics interval: only the state is wanted
         spin = downscale_cells(gf, batch, ctx.downscale, slice(resume, start))
-        state, _, _ = run_columns(state, spin, ctx.snow, start - resume, with_snapshots=False, threads=1)
+        state, _, _ = run_columns(
+            state, spin, ctx.snow, start - resume, with_snapshots=False, threads=1
+        )
     window = downscale_cells(gf, batch, ctx.downscale, slice(start, stop))
     presence = np.zeros((len(ENSEMBLE_MEMBERS), cells.size), bool)
     for m, (dt_k, dphase_k) in enumerate(ENSEMBLE_MEMBERS):
         f = _perturbed(window, dt_k, dphase_k, ctx.downscale)
         _, _, snaps = run_columns(state, f, ctx.snow, stop - start, None, threads=1)
-        ds = snapshots_to_dataset(snaps, batch.cell_id).swap_dims({"day": "time"}).rename({"time": "day"})
+        ds = (
+            snapshots_to_dataset(snaps, batch.cell_id)
+            .swap_dims({"day": "time"})
+            .rename({"time": "day"})
+        )
         presence[m] = rain_crust_presence(ds, formed_between=formed)
     return presence, resume
 
 
-def _rain_crust(out: Path, cfg: Config, region, ctx, state0, prof: xr.Dataset, table: pd.DataFrame,
-                weights: pd.DataFrame, map_time) -> tuple[pd.DataFrame, object, list[str], dict]:
+def _rain_crust(
+    out: Path,
+    cfg: Config,
+    region,
+    ctx,
+    state0,
+    prof: xr.Dataset,
+    table: pd.DataFrame,
+    weights: pd.DataFrame,
+    map_time,
+) -> tuple[pd.DataFrame, object, list[str], dict]:
     """Limits, lines and sentences of every rain-on-snow event up to the map time."""
     import geopandas as gpd
 
     from regionmap.rain_crust import (
         NO_CRUST_CLAUSE,
         RainEvent,
-        rain_crust_lines,
         rain_crust_limits,
+        rain_crust_lines,
         rain_crust_presence,
         rain_crust_sentence,
         rain_events,
@@ -165,21 +213,31 @@ def _rain_crust(out: Path, cfg: Config, region, ctx, state0, prof: xr.Dataset, t
         zone_limits = pd.concat(by_zone, ignore_index=True)
         sentences = rain_crust_sentence(limits)
         regions = region.cells.polygons()[["zone", "aspect_sector", "geometry"]]
-        lines = rain_crust_lines(limits, region.dem.elevation_m, region.dem.transform, region.dem.crs, regions)
+        lines = rain_crust_lines(
+            limits, region.dem.elevation_m, region.dem.transform, region.dem.crs, regions
+        )
     else:
         limits = pd.DataFrame()
         zone_limits = pd.DataFrame()
         sentences = pd.Series(dtype=object)
-        lines = gpd.GeoDataFrame({"event_id": [], "zone": [], "elevation_m": []}, geometry=[], crs=region.dem.crs)
+        lines = gpd.GeoDataFrame(
+            {"event_id": [], "zone": [], "elevation_m": []}, geometry=[], crs=region.dem.crs
+        )
     cols = zone_rain_crust_columns(zone_limits, sentences)
     if not limits.empty:
         _write_csv(out / "rain_crust_limits.csv", limits)
     # the printed summary names the event and leaves out the zones it left no crust in
-    words = [f"{zone}, rain of {_event_label(event_id)}: {text}" for (zone, event_id), text in sentences.items()
-             if text and not text.startswith(NO_CRUST_CLAUSE)]
-    cost = {"members": [list(m) for m in ENSEMBLE_MEMBERS], "events": costs,
-            "minor_events_without_line": [int(e) for e in minor["event_id"]],
-            "seconds": round(sum(c["seconds"] for c in costs), 3)}
+    words = [
+        f"{zone}, rain of {_event_label(event_id)}: {text}"
+        for (zone, event_id), text in sentences.items()
+        if text and not text.startswith(NO_CRUST_CLAUSE)
+    ]
+    cost = {
+        "members": [list(m) for m in ENSEMBLE_MEMBERS],
+        "events": costs,
+        "minor_events_without_line": [int(e) for e in minor["event_id"]],
+        "seconds": round(sum(c["seconds"] for c in costs), 3),
+    }
     return cols, lines, words, cost
 
 
@@ -196,12 +254,23 @@ def _event_windows(out: Path) -> dict:
         return {}
     frame = pd.read_csv(path, parse_dates=["first_time", "last_time"])
     frame = frame[frame["kind"] == "rain-on-snow"]
-    g = frame.groupby("event_id").agg(first_time=("first_time", "min"), last_time=("last_time", "max"))
+    g = frame.groupby("event_id").agg(
+        first_time=("first_time", "min"), last_time=("last_time", "max")
+    )
     return {int(k): row for k, row in g.iterrows()}
 
 
-def write_products(out: Path, cfg: Config, region, ctx, *, map_time, state0, is_forecast: bool,
-                   progress: bool = False) -> Products:
+def write_products(
+    out: Path,
+    cfg: Config,
+    region,
+    ctx,
+    *,
+    map_time,
+    state0,
+    is_forecast: bool,
+    progress: bool = False,
+) -> Products:
     """Summaries, layers of concern, rain-crust line and GIS layers of a finished run."""
     from regionmap.export import write_gis
     from regionmap.summaries import layers_of_concern, summary_tables
@@ -212,27 +281,67 @@ def write_products(out: Path, cfg: Config, region, ctx, *, map_time, state0, is_
     weights = _weights(region, cfg)
     # opened lazily: the summaries read the output times and snapshot days they need, so
     # memory follows those, not the whole season of every cell
-    with (xr.open_dataset(out / "cells.nc", engine="netcdf4") as diag,
-          xr.open_dataset(out / "profiles.nc", engine="netcdf4") as prof):
+    with (
+        xr.open_dataset(out / "cells.nc", engine="netcdf4") as diag,
+        xr.open_dataset(out / "profiles.nc", engine="netcdf4") as prof,
+    ):
         tz, hour = cfg.output.local_timezone, cfg.output.observation_hour
-        tables = summary_tables(diag, prof, table, weights, map_time=map_time, local_timezone=tz,
-                                observation_hour=hour, avalanche_terrain_deg=tuple(cfg.cells.avalanche_terrain_deg))
-        loc = layers_of_concern(diag, prof, table, weights["avalanche_km2"].to_numpy(), time=map_time,
-                                local_timezone=tz, observation_hour=hour)
-        rc_cols, lines, words, cost = _rain_crust(out, cfg, region, ctx, state0, prof, table, weights, map_time)
+        tables = summary_tables(
+            diag,
+            prof,
+            table,
+            weights,
+            map_time=map_time,
+            local_timezone=tz,
+            observation_hour=hour,
+            avalanche_terrain_deg=tuple(cfg.cells.avalanche_terrain_deg),
+        )
+        loc = layers_of_concern(
+            diag,
+            prof,
+            table,
+            weights["avalanche_km2"].to_numpy(),
+            time=map_time,
+            local_timezone=tz,
+            observation_hour=hour,
+        )
+        rc_cols, lines, words, cost = _rain_crust(
+            out, cfg, region, ctx, state0, prof, table, weights, map_time
+        )
     zones = tables.zones.merge(rc_cols, left_on="zone", right_index=True, how="left")
     zones["valid_time"] = str(map_time)
     zones["is_forecast"] = bool(is_forecast)
     cells = tables.cells.join(weights[["avalanche_km2", "all_km2"]], how="left")
     # a cell is one simulated column, so its depth-hoar fraction is its presence flag (0 or 1)
-    sources = {"depth_hoar_fraction": "depth_hoar_present", "crust_count": "crust_count",
-               "new_snow_72h_cm": "new_snow_72h_cm", "new_snow_24h_cm": "new_snow_24h_cm",
-               "snow_depth_cm": "snow_depth_cm", "pwl_depth_cm": "pwl_depth_cm", "pwl_slab_cm": "pwl_slab_cm",
-               "new_snow_72h_kg_m2": "new_snow_72h_kg_m2", "threshold_count_max": "threshold_count_max"}
-    maps = {name: cells[src].reindex(table.index).to_numpy(np.float64)
-            for name, src in sources.items() if src in cells.columns}
-    write_gis(out, region.cells, region.zones, zones, cells, lines, loc, maps,
-              transform=region.dem.transform, crs=region.dem.crs, valid_time=map_time)
+    sources = {
+        "depth_hoar_fraction": "depth_hoar_present",
+        "crust_count": "crust_count",
+        "new_snow_72h_cm": "new_snow_72h_cm",
+        "new_snow_24h_cm": "new_snow_24h_cm",
+        "snow_depth_cm": "snow_depth_cm",
+        "pwl_depth_cm": "pwl_depth_cm",
+        "pwl_slab_cm": "pwl_slab_cm",
+        "new_snow_72h_kg_m2": "new_snow_72h_kg_m2",
+        "threshold_count_max": "threshold_count_max",
+    }
+    maps = {
+        name: cells[src].reindex(table.index).to_numpy(np.float64)
+        for name, src in sources.items()
+        if src in cells.columns
+    }
+    write_gis(
+        out,
+        region.cells,
+        region.zones,
+        zones,
+        cells,
+        lines,
+        loc,
+        maps,
+        transform=region.dem.transform,
+        crs=region.dem.crs,
+        valid_time=map_time,
+    )
     _write_csv(out / "band_aspect.csv", tables.band_aspect)
     _write_csv(out / "daily.csv", tables.daily)
     _write_csv(out / "snow_line.csv", tables.snow_line)

@@ -26,6 +26,7 @@ local avalanche service's products or professional judgement.
 from __future__ import annotations
 
 from dataclasses import dataclass
+from typing import TYPE_CHECKING
 
 import numpy as np
 import pandas as pd
@@ -34,6 +35,9 @@ import xarray as xr
 from regionmap.errors import GridMismatchError, InputError
 from regionmap.snow.codes import CRUST_INDEX
 from regionmap.summaries import band_transitions, decode_snapshot
+
+if TYPE_CHECKING:
+    import geopandas as gpd
 
 __all__ = [
     "NO_CRUST_CLAUSE",
@@ -49,10 +53,22 @@ __all__ = [
 _KEYS = ["zone", "aspect_sector"]
 _ROUND_M = 50.0
 SECTOR_WORDS = {
-    "N": "north", "NNE": "north-north-east", "NE": "north-east", "ENE": "east-north-east",
-    "E": "east", "ESE": "east-south-east", "SE": "south-east", "SSE": "south-south-east",
-    "S": "south", "SSW": "south-south-west", "SW": "south-west", "WSW": "west-south-west",
-    "W": "west", "WNW": "west-north-west", "NW": "north-west", "NNW": "north-north-west",
+    "N": "north",
+    "NNE": "north-north-east",
+    "NE": "north-east",
+    "ENE": "east-north-east",
+    "E": "east",
+    "ESE": "east-south-east",
+    "SE": "south-east",
+    "SSE": "south-south-east",
+    "S": "south",
+    "SSW": "south-south-west",
+    "SW": "south-west",
+    "WSW": "west-south-west",
+    "W": "west",
+    "WNW": "west-north-west",
+    "NW": "north-west",
+    "NNW": "north-north-west",
 }
 _SECTOR_ORDER = {s: i for i, s in enumerate(SECTOR_WORDS)} | {"flat": len(SECTOR_WORDS)}
 
@@ -79,14 +95,22 @@ def _snapshot_day(profiles: xr.Dataset, day) -> int:
     days = profiles["day"].values.astype("datetime64[s]")
     if day is None:
         return days.size - 1
-    d = int(np.searchsorted(days, np.datetime64(pd.Timestamp(day).to_datetime64(), "s"), side="right") - 1)
+    d = int(
+        np.searchsorted(days, np.datetime64(pd.Timestamp(day).to_datetime64(), "s"), side="right")
+        - 1
+    )
     if d < 0:
         raise InputError(f"profiles.nc: no snapshot at or before {day} (first is {days[0]})")
     return d
 
 
-def rain_crust_presence(profiles: xr.Dataset, *, day=None, event_id: int | None = None,
-                        formed_between: tuple | None = None) -> np.ndarray:
+def rain_crust_presence(
+    profiles: xr.Dataset,
+    *,
+    day=None,
+    event_id: int | None = None,
+    formed_between: tuple | None = None,
+) -> np.ndarray:
     """(cell,) bool: the snapshot holds a rain crust of ``event_id``, or one formed in
     ``formed_between`` = (start, end) [UTC] (for perturbation members whose event ids may
     differ). ``day`` picks the last snapshot at or before it (default the last)."""
@@ -97,7 +121,10 @@ def rain_crust_presence(profiles: xr.Dataset, *, day=None, event_id: int | None 
     if event_id is not None:
         hit = rain & (snap.event_id[:, 0] == event_id)
     else:
-        lo, hi = (np.datetime64(pd.Timestamp(t).to_datetime64(), "s").astype(np.int64) for t in formed_between)
+        lo, hi = (
+            np.datetime64(pd.Timestamp(t).to_datetime64(), "s").astype(np.int64)
+            for t in formed_between
+        )
         f = snap.formation_s[:, 0]
         hit = rain & (f >= lo) & (f <= hi)
     return hit.any(axis=1)
@@ -109,16 +136,27 @@ def rain_events(profiles: xr.Dataset, *, day=None) -> pd.DataFrame:
     snap = decode_snapshot(profiles, [_snapshot_day(profiles, day)])
     rain = snap.valid[:, 0] & (snap.crust[:, 0] == CRUST_INDEX["rain"]) & (snap.event_id[:, 0] >= 0)
     ci, li = np.nonzero(rain)
-    rows = pd.DataFrame({"cell": ci, "event_id": snap.event_id[:, 0][ci, li],
-                         "formation_s": snap.formation_s[:, 0][ci, li]})
+    rows = pd.DataFrame(
+        {
+            "cell": ci,
+            "event_id": snap.event_id[:, 0][ci, li],
+            "formation_s": snap.formation_s[:, 0][ci, li],
+        }
+    )
     g = rows.groupby("event_id")
-    out = pd.DataFrame({"event_time": g["formation_s"].median().round().astype(np.int64),
-                        "n_cells": g["cell"].nunique()}).reset_index()
+    out = pd.DataFrame(
+        {
+            "event_time": g["formation_s"].median().round().astype(np.int64),
+            "n_cells": g["cell"].nunique(),
+        }
+    ).reset_index()
     out["event_time"] = out["event_time"].to_numpy().astype("datetime64[s]")
     return out.sort_values("event_time", ignore_index=True)
 
 
-def _band_fractions(table: pd.DataFrame, weight_km2: np.ndarray, presence: np.ndarray, keys) -> pd.DataFrame:
+def _band_fractions(
+    table: pd.DataFrame, weight_km2: np.ndarray, presence: np.ndarray, keys
+) -> pd.DataFrame:
     """Area fraction with the crust per member × keys × band; presence (member, cell)."""
     n_mem, n_cell = presence.shape
     w = np.asarray(weight_km2, dtype=np.float64)
@@ -138,8 +176,13 @@ def _band_fractions(table: pd.DataFrame, weight_km2: np.ndarray, presence: np.nd
     return g
 
 
-def rain_crust_limits(table: pd.DataFrame, weight_km2, event: RainEvent, *,
-                      by: tuple[str, ...] = ("zone", "aspect_sector")) -> pd.DataFrame:
+def rain_crust_limits(
+    table: pd.DataFrame,
+    weight_km2,
+    event: RainEvent,
+    *,
+    by: tuple[str, ...] = ("zone", "aspect_sector"),
+) -> pd.DataFrame:
     """Upper and lower limit of an event's rain crust per group, with the likely range.
 
     Parameters
@@ -161,22 +204,48 @@ def rain_crust_limits(table: pd.DataFrame, weight_km2, event: RainEvent, *,
     keys = list(by)
     control = np.asarray(event.presence, dtype=bool)
     if control.shape != (len(table),):
-        raise GridMismatchError(f"rain event {event.event_id}: presence has shape {control.shape}, expected ({len(table)},) cells")
-    members = np.zeros((0, control.size), bool) if event.members is None else np.asarray(event.members, dtype=bool)
+        raise GridMismatchError(
+            f"rain event {event.event_id}: presence has shape {control.shape}, expected ({len(table)},) cells"
+        )
+    members = (
+        np.zeros((0, control.size), bool)
+        if event.members is None
+        else np.asarray(event.members, dtype=bool)
+    )
     if members.ndim != 2 or members.shape[1] != control.size:
-        raise GridMismatchError(f"rain event {event.event_id}: member presence has shape {members.shape}, expected (member, {control.size})")
+        raise GridMismatchError(
+            f"rain event {event.event_id}: member presence has shape {members.shape}, expected (member, {control.size})"
+        )
     allp = np.vstack([control[None, :], members])
     fr = _band_fractions(table, weight_km2, allp, keys)
     lim = band_transitions(fr, ["member", *keys], "frac")
     ctl = lim[lim["member"] == 0].drop(columns="member").set_index(keys)
-    spread = lim.groupby(keys, dropna=False).agg(upper_low_m=("upper_m", "min"), upper_high_m=("upper_m", "max"),
-                                                 lower_low_m=("lower_m", "min"), lower_high_m=("lower_m", "max"))
+    spread = lim.groupby(keys, dropna=False).agg(
+        upper_low_m=("upper_m", "min"),
+        upper_high_m=("upper_m", "max"),
+        lower_low_m=("lower_m", "min"),
+        lower_high_m=("lower_m", "max"),
+    )
     out = ctl.join(spread).reset_index()
     out.insert(0, "event_time", np.datetime64(event.event_time, "s"))
     out.insert(0, "event_id", int(event.event_id))
     out["n_members"] = members.shape[0]
-    return out[["event_id", "event_time", *keys, "upper_m", "upper_bound", "upper_low_m", "upper_high_m",
-                "lower_m", "lower_bound", "lower_low_m", "lower_high_m", "n_members"]]
+    return out[
+        [
+            "event_id",
+            "event_time",
+            *keys,
+            "upper_m",
+            "upper_bound",
+            "upper_low_m",
+            "upper_high_m",
+            "lower_m",
+            "lower_bound",
+            "lower_low_m",
+            "lower_high_m",
+            "n_members",
+        ]
+    ]
 
 
 # --------------------------------------------------------------------------- words
@@ -192,7 +261,11 @@ def _aspect_phrase(sectors: list[str], all_sectors: set[str]) -> str:
     words = [SECTOR_WORDS[s] for s in compass]
     text = ""
     if words:
-        text = "on " + (words[0] if len(words) == 1 else ", ".join(words[:-1]) + " and " + words[-1]) + " aspects"
+        text = (
+            "on "
+            + (words[0] if len(words) == 1 else ", ".join(words[:-1]) + " and " + words[-1])
+            + " aspects"
+        )
     if flat:
         text = (text + " and " if text else "on ") + "flat terrain"
     return text
@@ -213,7 +286,9 @@ def _clause(row) -> str:
             return "rain crust likely at all elevations"
         return f"rain crust likely at all elevations above {_r(row.lower_m)} m"
     if row.lower_bound == "at_or_below":
-        return f"rain crust likely below {_r(row.upper_m)} m" + (f" {upper_rng}" if upper_rng else "")
+        return f"rain crust likely below {_r(row.upper_m)} m" + (
+            f" {upper_rng}" if upper_rng else ""
+        )
     if _r(row.lower_m) == _r(row.upper_m):  # limits within one rounding step
         between = f"rain crust likely in a narrow band near {_r(row.upper_m)} m"
     else:
@@ -243,8 +318,12 @@ def rain_crust_sentence(limits: pd.DataFrame) -> pd.Series:
         for clause, sub in grp.groupby("clause", sort=False):
             if clause == NO_CRUST_CLAUSE and len(grp["clause"].unique()) > 1:
                 continue
-            parts.append((min(_SECTOR_ORDER[s] for s in sub["aspect_sector"]),
-                          f"{clause} {_aspect_phrase(list(sub['aspect_sector']), all_sectors)}"))
+            parts.append(
+                (
+                    min(_SECTOR_ORDER[s] for s in sub["aspect_sector"]),
+                    f"{clause} {_aspect_phrase(list(sub['aspect_sector']), all_sectors)}",
+                )
+            )
         out[(zone, eid)] = "; ".join(p for _, p in sorted(parts))
     return pd.Series(out, name="rain_crust_text", dtype=object).rename_axis(["zone", "event_id"])
 
@@ -259,14 +338,25 @@ def zone_rain_crust_columns(zone_limits: pd.DataFrame, sentences: pd.Series) -> 
     zone_limits : :func:`rain_crust_limits` with ``by=("zone",)``, all events concatenated.
     sentences : :func:`rain_crust_sentence` of the zone × aspect limits, all events.
     """
-    cols = ["rain_crust_line_m", "rain_crust_low_m", "rain_crust_high_m", "rain_crust_event_time", "rain_crust_text"]
+    cols = [
+        "rain_crust_line_m",
+        "rain_crust_low_m",
+        "rain_crust_high_m",
+        "rain_crust_event_time",
+        "rain_crust_text",
+    ]
     if zone_limits.empty:
         return pd.DataFrame(columns=cols).rename_axis("zone")
     last = zone_limits.sort_values("event_time").groupby("zone").tail(1).set_index("zone")
     line = last["upper_m"].where(last["upper_bound"] == "")
-    out = pd.DataFrame({"rain_crust_line_m": line, "rain_crust_low_m": last["upper_low_m"].where(line.notna()),
-                        "rain_crust_high_m": last["upper_high_m"].where(line.notna()),
-                        "rain_crust_event_time": last["event_time"]})
+    out = pd.DataFrame(
+        {
+            "rain_crust_line_m": line,
+            "rain_crust_low_m": last["upper_low_m"].where(line.notna()),
+            "rain_crust_high_m": last["upper_high_m"].where(line.notna()),
+            "rain_crust_event_time": last["event_time"],
+        }
+    )
     keys = list(zip(out.index, last["event_id"]))
     out["rain_crust_text"] = [sentences.get(k, "") for k in keys]
     return out
@@ -290,7 +380,9 @@ def _contour_lines(dem_m: np.ndarray, transform, level: float, bounds) -> list[n
     return [ln for ln in gen.lines(level) if len(ln) >= 2]
 
 
-def rain_crust_lines(limits: pd.DataFrame, dem_elevation_m: np.ndarray, transform, crs, regions) -> "gpd.GeoDataFrame":
+def rain_crust_lines(
+    limits: pd.DataFrame, dem_elevation_m: np.ndarray, transform, crs, regions
+) -> gpd.GeoDataFrame:
     """Contour lines of the DEM at each limit, clipped to its zone-aspect region.
 
     Parameters
@@ -314,12 +406,25 @@ def rain_crust_lines(limits: pd.DataFrame, dem_elevation_m: np.ndarray, transfor
     dem = np.asarray(dem_elevation_m, dtype=np.float64)
     region = regions.dissolve(by=_KEYS)["geometry"]
     rows, geoms = [], []
-    todo = pd.concat([
-        limits.assign(limit="upper", elevation_m=limits["upper_m"], lower_m=limits["upper_low_m"],
-                      upper_m=limits["upper_high_m"], bound=limits["upper_bound"]),
-        limits.assign(limit="lower", elevation_m=limits["lower_m"], lower_m=limits["lower_low_m"],
-                      upper_m=limits["lower_high_m"], bound=limits["lower_bound"]),
-    ], ignore_index=True)
+    todo = pd.concat(
+        [
+            limits.assign(
+                limit="upper",
+                elevation_m=limits["upper_m"],
+                lower_m=limits["upper_low_m"],
+                upper_m=limits["upper_high_m"],
+                bound=limits["upper_bound"],
+            ),
+            limits.assign(
+                limit="lower",
+                elevation_m=limits["lower_m"],
+                lower_m=limits["lower_low_m"],
+                upper_m=limits["lower_high_m"],
+                bound=limits["lower_bound"],
+            ),
+        ],
+        ignore_index=True,
+    )
     todo = todo[(todo["bound"] == "") & np.isfinite(todo["elevation_m"].to_numpy(np.float64))]
     for r in todo.itertuples():  # one contour per limit line (zones × aspects × events)
         key = (r.zone, r.aspect_sector)
@@ -329,16 +434,39 @@ def rain_crust_lines(limits: pd.DataFrame, dem_elevation_m: np.ndarray, transfor
         lines = _contour_lines(dem, transform, r.elevation_m, poly.bounds)
         if not lines:
             continue
-        clipped = shapely.intersection(shapely.MultiLineString([shapely.LineString(ln) for ln in lines]), poly)
-        parts = [p for p in shapely.get_parts(clipped) if p.geom_type == "LineString" and not p.is_empty]
+        clipped = shapely.intersection(
+            shapely.MultiLineString([shapely.LineString(ln) for ln in lines]), poly
+        )
+        parts = [
+            p for p in shapely.get_parts(clipped) if p.geom_type == "LineString" and not p.is_empty
+        ]
         if not parts:
             continue
         geoms.append(shapely.MultiLineString(parts))
-        rows.append({"event_id": r.event_id, "event_time": pd.Timestamp(r.event_time), "zone": r.zone,
-                     "aspect": r.aspect_sector, "limit": r.limit, "elevation_m": float(r.elevation_m),
-                     "lower_m": float(r.lower_m), "upper_m": float(r.upper_m)})
-    cols = ["event_id", "event_time", "zone", "aspect", "limit", "elevation_m", "lower_m", "upper_m"]
-    frame = pd.DataFrame(rows, columns=cols).astype({"event_id": "int64", "elevation_m": "float64",
-                                                     "lower_m": "float64", "upper_m": "float64"})
+        rows.append(
+            {
+                "event_id": r.event_id,
+                "event_time": pd.Timestamp(r.event_time),
+                "zone": r.zone,
+                "aspect": r.aspect_sector,
+                "limit": r.limit,
+                "elevation_m": float(r.elevation_m),
+                "lower_m": float(r.lower_m),
+                "upper_m": float(r.upper_m),
+            }
+        )
+    cols = [
+        "event_id",
+        "event_time",
+        "zone",
+        "aspect",
+        "limit",
+        "elevation_m",
+        "lower_m",
+        "upper_m",
+    ]
+    frame = pd.DataFrame(rows, columns=cols).astype(
+        {"event_id": "int64", "elevation_m": "float64", "lower_m": "float64", "upper_m": "float64"}
+    )
     frame["event_time"] = pd.to_datetime(frame["event_time"])
     return gpd.GeoDataFrame(frame, geometry=gpd.GeoSeries(geoms, crs=crs), crs=crs)

@@ -32,12 +32,22 @@ import pandas as pd
 from regionmap import CAUTION, __version__
 from regionmap.errors import OutputError
 from regionmap.io.atomic import atomic_path, atomic_write_text
-from regionmap.plots.maps import available_maps, plot_metric_map, plot_rain_crust_map, rain_crust_events
+from regionmap.plots.maps import (
+    available_maps,
+    plot_metric_map,
+    plot_rain_crust_map,
+    rain_crust_events,
+)
 from regionmap.plots.outputs import METRICS, RunOutputs
 from regionmap.plots.overview import plot_overview, write_overview_csv
 from regionmap.plots.profile import plot_profile, read_profile
 from regionmap.plots.style import PRINT_DPI, REPORT_DPI, render_png, slug
-from regionmap.plots.tracker import layer_tracks, new_snow_days, plot_elevation_chart, plot_layer_tracker
+from regionmap.plots.tracker import (
+    layer_tracks,
+    new_snow_days,
+    plot_elevation_chart,
+    plot_layer_tracker,
+)
 
 __all__ = ["write_all_figures", "write_report", "OVERVIEW_METRICS", "REPORT_MAX_BYTES", "CAUTIONS"]
 
@@ -45,8 +55,15 @@ __all__ = ["write_all_figures", "write_report", "OVERVIEW_METRICS", "REPORT_MAX_
 OVERVIEW_METRICS: tuple[str, ...] = ("depth_hoar_fraction", "pwl_depth_cm", "new_snow_72h_cm")
 #: metrics drawn as maps, in this order, when the run has their raster (the other rasters stay
 #: under maps/ for GIS use).
-MAP_METRICS: tuple[str, ...] = ("snow_depth_cm", "new_snow_72h_cm", "depth_hoar_fraction", "pwl_depth_cm",
-                                "pwl_slab_cm", "crust_count", "threshold_count_max")
+MAP_METRICS: tuple[str, ...] = (
+    "snow_depth_cm",
+    "new_snow_72h_cm",
+    "depth_hoar_fraction",
+    "pwl_depth_cm",
+    "pwl_slab_cm",
+    "crust_count",
+    "threshold_count_max",
+)
 #: at most this many rain-crust maps (the events with the longest lines).
 MAX_RAIN_CRUST_MAPS = 2
 #: metric of the per-zone elevation chart.
@@ -91,13 +108,24 @@ def _map_specs(out: RunOutputs) -> list[tuple[str, str, str, callable]]:
     maps = set(available_maps(out))
     for name in [m for m in MAP_METRICS if m in maps]:
         m = METRICS[name]
-        specs.append(("maps", f"map_{name}.png", f"Map: {m.label} [{m.units}]",
-                      lambda name=name: plot_metric_map(out, name)))
+        specs.append(
+            (
+                "maps",
+                f"map_{name}.png",
+                f"Map: {m.label} [{m.units}]",
+                lambda name=name: plot_metric_map(out, name),
+            )
+        )
     for event_id, when in rain_crust_events(out, limit=MAX_RAIN_CRUST_MAPS):
         stamp = pd.Timestamp(when).strftime("%Y%m%dT%H%M")
-        specs.append(("maps", f"map_rain_crust_{stamp}.png",
-                      f"Map: rain-crust line of the rain-on-snow event ending {pd.Timestamp(when):%Y-%m-%d %H:%M} UTC",
-                      lambda event_id=event_id: plot_rain_crust_map(out, event_id)))
+        specs.append(
+            (
+                "maps",
+                f"map_rain_crust_{stamp}.png",
+                f"Map: rain-crust line of the rain-on-snow event ending {pd.Timestamp(when):%Y-%m-%d %H:%M} UTC",
+                lambda event_id=event_id: plot_rain_crust_map(out, event_id),
+            )
+        )
     if specs:
         import rasterio
 
@@ -118,19 +146,35 @@ def _summary_specs(out: RunOutputs) -> list[tuple[str, str, str, callable]]:
     out.band_aspect()
     for zone in out.zone_names:
         for m in OVERVIEW_METRICS:
-            specs.append(("overviews", f"overview_{slug(zone)}_{m}.png", f"{zone}: elevation-aspect overview of {METRICS[m].label}",
-                          lambda zone=zone, m=m: plot_overview(out, zone, m)))
-        specs.append(("elevation", f"elevation_{slug(zone)}_{ELEVATION_METRIC}.png",
-                      f"{zone}: {METRICS[ELEVATION_METRIC].label} against elevation",
-                      lambda zone=zone: plot_elevation_chart(out, zone, ELEVATION_METRIC)))
+            specs.append(
+                (
+                    "overviews",
+                    f"overview_{slug(zone)}_{m}.png",
+                    f"{zone}: elevation-aspect overview of {METRICS[m].label}",
+                    lambda zone=zone, m=m: plot_overview(out, zone, m),
+                )
+            )
+        specs.append(
+            (
+                "elevation",
+                f"elevation_{slug(zone)}_{ELEVATION_METRIC}.png",
+                f"{zone}: {METRICS[ELEVATION_METRIC].label} against elevation",
+                lambda zone=zone: plot_elevation_chart(out, zone, ELEVATION_METRIC),
+            )
+        )
         cid = _profile_cell(out, zone)
         if cid is not None:
             row = out.table.loc[cid]
             prof = read_profile(out, cid)
-            specs.append(("profiles", f"profile_{slug(zone)}_cell{cid}.png",
-                          f"{zone}: simulated profile of cell {cid} ({row['band']} m, {row['aspect_sector']}), "
-                          "the cell with the highest threshold count at the map time",
-                          lambda cid=cid, prof=prof: plot_profile(out, cid, profile=prof)))
+            specs.append(
+                (
+                    "profiles",
+                    f"profile_{slug(zone)}_cell{cid}.png",
+                    f"{zone}: simulated profile of cell {cid} ({row['band']} m, {row['aspect_sector']}), "
+                    "the cell with the highest threshold count at the map time",
+                    lambda cid=cid, prof=prof: plot_profile(out, cid, profile=prof),
+                )
+            )
     return specs
 
 
@@ -145,9 +189,18 @@ def _layer_specs(out: RunOutputs) -> list[tuple[str, str, str, callable]]:
             snow_days = new_snow_days(out, zone)
             for lid in layers:
                 if (tracks["layer_id"] == lid).any():
-                    specs.append(("layers", f"layer_{slug(zone)}_{slug(lid)}.png", f"{zone}: layer {lid} over the season",
-                                  lambda zone=zone, lid=lid, tracks=tracks, snow_days=snow_days:
-                                  plot_layer_tracker(out, zone, lid, tracks=tracks, new_snow=snow_days)))
+                    specs.append(
+                        (
+                            "layers",
+                            f"layer_{slug(zone)}_{slug(lid)}.png",
+                            f"{zone}: layer {lid} over the season",
+                            lambda zone=zone, lid=lid, tracks=tracks, snow_days=snow_days: (
+                                plot_layer_tracker(
+                                    out, zone, lid, tracks=tracks, new_snow=snow_days
+                                )
+                            ),
+                        )
+                    )
     return specs
 
 
@@ -161,7 +214,10 @@ def _profile_cell(out: RunOutputs, zone: str) -> int | None:
     if v.empty:
         return None
     w, _ = out.weights
-    frame = pd.DataFrame({"tc": v["threshold_count_max"].fillna(-1.0), "w": w.reindex(v.index).to_numpy()}, index=v.index)
+    frame = pd.DataFrame(
+        {"tc": v["threshold_count_max"].fillna(-1.0), "w": w.reindex(v.index).to_numpy()},
+        index=v.index,
+    )
     return int(frame.sort_values(["tc", "w"], ascending=False).index[0])
 
 
@@ -169,10 +225,16 @@ def _tracked_layers(out: RunOutputs, zone: str) -> list[str]:
     """The zone's most widespread weak layer and crust, then the next most widespread layers,
     up to :data:`MAX_TRACKED_LAYERS` (present on at least :data:`MIN_PRESENCE_FRAC`)."""
     loc = out.layers_of_concern
-    rows = loc[(loc["zone"] == zone) & (loc["aspect_sector"] == "all") & (loc["presence_frac"] >= MIN_PRESENCE_FRAC)]
+    rows = loc[
+        (loc["zone"] == zone)
+        & (loc["aspect_sector"] == "all")
+        & (loc["presence_frac"] >= MIN_PRESENCE_FRAC)
+    ]
     rows = rows.sort_values("presence_frac", ascending=False).drop_duplicates("layer_id")
     firsts = rows.drop_duplicates("category")
-    ordered = pd.concat([firsts.sort_values("category", ascending=False), rows.drop(firsts.index)])  # weak layer first
+    ordered = pd.concat(
+        [firsts.sort_values("category", ascending=False), rows.drop(firsts.index)]
+    )  # weak layer first
     return list(ordered["layer_id"][:MAX_TRACKED_LAYERS])
 
 
@@ -239,7 +301,9 @@ class _Drawing:
         return self.result
 
 
-def _render(out: RunOutputs, *, thumbnails: bool, workers: int | None = None) -> tuple[list[_Figure], list[Path]]:
+def _render(
+    out: RunOutputs, *, thumbnails: bool, workers: int | None = None
+) -> tuple[list[_Figure], list[Path]]:
     """Draw every figure and write them under figures/.
 
     Reading and drawing overlap: the maps start drawing in one forked worker while the
@@ -261,8 +325,11 @@ def _render(out: RunOutputs, *, thumbnails: bool, workers: int | None = None) ->
     layers = _Drawing(layer_specs, thumbnails, workers if parallel else 0)
     figdir = out.out_dir / "figures"
     # the overviews' numbers while the last figures draw (forked workers already hold their data)
-    tables = [write_overview_csv(out, zone, m, figdir / f"overview_{slug(zone)}_{m}.csv")
-              for zone in out.zone_names for m in OVERVIEW_METRICS]
+    tables = [
+        write_overview_csv(out, zone, m, figdir / f"overview_{slug(zone)}_{m}.csv")
+        for zone in out.zone_names
+        for m in OVERVIEW_METRICS
+    ]
     specs = map_specs + summary_specs + layer_specs
     drawn = maps.get() + summaries.get() + layers.get()
     figures, written = [], []
@@ -305,7 +372,12 @@ _NO_WEB = re.compile("http", re.IGNORECASE)
 def _png_with_text(png: bytes, text: str) -> bytes:
     """Insert a tEXt chunk (keyword ``Comment``) after the PNG's IHDR (ISO/IEC 15948 §11.3.4.3)."""
     data = b"Comment\x00" + text.encode("latin-1")
-    chunk = struct.pack(">I", len(data)) + b"tEXt" + data + struct.pack(">I", zlib.crc32(b"tEXt" + data) & 0xFFFFFFFF)
+    chunk = (
+        struct.pack(">I", len(data))
+        + b"tEXt"
+        + data
+        + struct.pack(">I", zlib.crc32(b"tEXt" + data) & 0xFFFFFFFF)
+    )
     end_ihdr = 8 + 8 + 13 + 4
     return png[:end_ihdr] + chunk + png[end_ihdr:]
 
@@ -318,7 +390,9 @@ def _data_uri(png: bytes) -> str:
         b64 = base64.b64encode(body).decode("ascii")
         if not _NO_WEB.search(b64):
             return "data:image/png;base64," + b64
-    raise OutputError("report.html: could not embed an image without the letters 'http' in its encoding")
+    raise OutputError(
+        "report.html: could not embed an image without the letters 'http' in its encoding"
+    )
 
 
 def _no_web_text(html: str) -> str:
@@ -354,27 +428,50 @@ _ZONE_COLUMNS = [  # column, header, scale, decimals
     ("rain_crust_line_m", "rain-crust line [m]", 1, 0),
 ]
 _LAYER_COLUMNS = [
-    ("zone", "zone", 1, 0), ("layer_name", "layer", 1, 0), ("presence_frac", "present [% area]", 100, 0),
-    ("depth_cm", "depth [cm]", 1, 0), ("slab_cm", "slab [cm, slope-normal]", 1, 0),
-    ("load_above_kg_m2", "load above [kg m-2]", 1, 0), ("load_since_burial_kg_m2", "added since burial [kg m-2]", 1, 0),
+    ("zone", "zone", 1, 0),
+    ("layer_name", "layer", 1, 0),
+    ("presence_frac", "present [% area]", 100, 0),
+    ("depth_cm", "depth [cm]", 1, 0),
+    ("slab_cm", "slab [cm, slope-normal]", 1, 0),
+    ("load_above_kg_m2", "load above [kg m-2]", 1, 0),
+    ("load_since_burial_kg_m2", "added since burial [kg m-2]", 1, 0),
     ("load_72h_kg_m2", "added 72 h [kg m-2]", 1, 0),
 ]
 _VERIFICATION_COLUMNS = [
-    ("station_id", "station", 1, 0), ("variable", "variable", 1, 0), ("units", "units", 1, 0), ("n", "pairs", 1, 0),
-    ("bias", "bias", 1, 2), ("mae", "MAE", 1, 2), ("rmse", "RMSE", 1, 2), ("r2", "R²", 1, 2),
+    ("station_id", "station", 1, 0),
+    ("variable", "variable", 1, 0),
+    ("units", "units", 1, 0),
+    ("n", "pairs", 1, 0),
+    ("bias", "bias", 1, 2),
+    ("mae", "MAE", 1, 2),
+    ("rmse", "RMSE", 1, 2),
+    ("r2", "R²", 1, 2),
     ("total_percent_difference", "total difference [%]", 1, 0),
 ]
-_SECTIONS = [("maps", "Maps", ""), ("overviews", "Elevation-aspect overviews",
-             "Aspect sectors around (north at the top), elevation bands as rings with the highest band in the centre."),
-             ("profiles", "Simulated profiles", "A simulated profile is no substitute for a profile dug on the slope."),
-             ("layers", "Layers of concern over the season", ""), ("elevation", "Elevation charts", "")]
+_SECTIONS = [
+    ("maps", "Maps", ""),
+    (
+        "overviews",
+        "Elevation-aspect overviews",
+        "Aspect sectors around (north at the top), elevation bands as rings with the highest band in the centre.",
+    ),
+    (
+        "profiles",
+        "Simulated profiles",
+        "A simulated profile is no substitute for a profile dug on the slope.",
+    ),
+    ("layers", "Layers of concern over the season", ""),
+    ("elevation", "Elevation charts", ""),
+]
 
 
 def _table(frame: pd.DataFrame, spec) -> tuple[list[str], list[list[str]]]:
     cols = [(c, h, s, d) for c, h, s, d in spec if c in frame.columns]
     rows = []
     for _, r in frame.iterrows():
-        rows.append([_fmt(r[c] * s if s != 1 and pd.notna(r[c]) else r[c], d) for c, _, s, d in cols])
+        rows.append(
+            [_fmt(r[c] * s if s != 1 and pd.notna(r[c]) else r[c], d) for c, _, s, d in cols]
+        )
     return [h for _, h, _, _ in cols], rows
 
 
@@ -388,7 +485,9 @@ def _layer_table(out: RunOutputs) -> tuple[pd.DataFrame, int]:
     weak = loc[loc["category"] != "crust"].groupby("zone", sort=False).head(TABLE_WEAK_LAYERS)
     crust = loc[loc["category"] == "crust"].groupby("zone", sort=False).head(TABLE_CRUSTS)
     kept = pd.concat([weak.assign(_k=0), crust.assign(_k=1)])
-    kept = kept.sort_values(["zone", "_k", "presence_frac"], ascending=[True, True, False]).drop(columns="_k")
+    kept = kept.sort_values(["zone", "_k", "presence_frac"], ascending=[True, True, False]).drop(
+        columns="_k"
+    )
     return kept, len(loc) - len(kept)
 
 
@@ -402,15 +501,21 @@ def _forecast_text(out: RunOutputs) -> str:
     if fc.all():
         return f"The whole run ({start} to {end}) is driven by forecast forcing."
     ana = pd.Timestamp(out.analysis_time).strftime("%Y-%m-%d %H:%M UTC")
-    return (f"Forcing is analysis from {start} to {ana}; from {first} to {end} it is forecast. "
-            "The saved state for continuation (state.nc) is the one at the analysis time.")
+    return (
+        f"Forcing is analysis from {start} to {ana}; from {first} to {end} it is forecast. "
+        "The saved state for continuation (state.nc) is the one at the analysis time."
+    )
 
 
 def _verification(out: RunOutputs) -> tuple[str, list[str], list[list[str]]]:
     path = out.out_dir / "verification.csv"
     if not path.is_file():
-        return ("No station verification results in this output folder (verification.csv); this section "
-                "appears when station data are configured.", [], [])
+        return (
+            "No station verification results in this output folder (verification.csv); this section "
+            "appears when station data are configured.",
+            [],
+            [],
+        )
     frame = pd.read_csv(path)
     if "period_start" in frame.columns and "period_end" in frame.columns and len(frame):
         text = f"Downscaled model against station observations, {frame['period_start'].iloc[0]} to {frame['period_end'].iloc[0]}."
@@ -426,8 +531,11 @@ def _run_items(run: dict) -> list[tuple[str, str]]:
         if key == "config":
             continue
         if isinstance(value, dict):
-            flat = ", ".join(f"{k}: {_fmt(v, 2) if isinstance(v, float) else v}" for k, v in value.items()
-                             if not isinstance(v, (dict, list)))
+            flat = ", ".join(
+                f"{k}: {_fmt(v, 2) if isinstance(v, float) else v}"
+                for k, v in value.items()
+                if not isinstance(v, (dict, list))
+            )
             if flat:
                 items.append((key, flat))
         elif isinstance(value, list):
@@ -458,7 +566,11 @@ def write_report(out_dir) -> Path:
         layer_cols, layer_rows = _table(loc, _LAYER_COLUMNS)
         rain = []
         if "rain_crust_text" in zones.columns:
-            rain = [(z, t) for z, t in zip(zones["zone"], zones["rain_crust_text"]) if isinstance(t, str) and t.strip()]
+            rain = [
+                (z, t)
+                for z, t in zip(zones["zone"], zones["rain_crust_text"])
+                if isinstance(t, str) and t.strip()
+            ]
         sections, embedded = [], 0
         for sid, title, note in _SECTIONS:
             figs = []
@@ -466,35 +578,57 @@ def write_report(out_dir) -> Path:
                 uri = _data_uri(f.thumb_png)
                 fits = embedded + len(uri) <= FIGURE_BUDGET_BYTES
                 embedded += len(uri) if fits else 0
-                figs.append({"uri": uri if fits else None, "caption": f.caption, "name": f.path.name,
-                             "width": f.size[0], "height": f.size[1]})
+                figs.append(
+                    {
+                        "uri": uri if fits else None,
+                        "caption": f.caption,
+                        "name": f.path.name,
+                        "width": f.size[0],
+                        "height": f.size[1],
+                    }
+                )
             if figs:
                 sections.append({"id": sid, "title": title, "note": note, "figures": figs})
         v_text, v_cols, v_rows = _verification(out)
         map_t = out.map_time
-        env = Environment(loader=FileSystemLoader(Path(__file__).parent / "templates"),
-                          autoescape=select_autoescape(["html", "j2"]), undefined=StrictUndefined,
-                          trim_blocks=False, lstrip_blocks=False)
+        env = Environment(
+            loader=FileSystemLoader(Path(__file__).parent / "templates"),
+            autoescape=select_autoescape(["html", "j2"]),
+            undefined=StrictUndefined,
+            trim_blocks=False,
+            lstrip_blocks=False,
+        )
         html = env.get_template("report.html.j2").render(
             title="regionmap snowpack briefing",
             map_time=pd.Timestamp(map_t).strftime("%Y-%m-%d %H:%M UTC"),
             map_status="forecast" if out.forecast_at(map_t) else "analysis",
             weights_label=out.weights[1],
             generated=dt.datetime.now(dt.UTC).strftime("%Y-%m-%d %H:%M UTC"),
-            version=__version__, caution=CAUTION, cautions=CAUTIONS,
+            version=__version__,
+            caution=CAUTION,
+            cautions=CAUTIONS,
             forecast_text=_forecast_text(out),
-            zone_columns=zone_cols, zone_rows=zone_rows, rain_crust=rain,
-            layer_columns=layer_cols, layer_rows=layer_rows, min_presence_pct=round(100 * MIN_PRESENCE_FRAC),
+            zone_columns=zone_cols,
+            zone_rows=zone_rows,
+            rain_crust=rain,
+            layer_columns=layer_cols,
+            layer_rows=layer_rows,
+            min_presence_pct=round(100 * MIN_PRESENCE_FRAC),
             layers_more=more,
             sections=sections,
-            verification_text=v_text, verification_columns=v_cols, verification_rows=v_rows,
-            run_items=_run_items(out.run), run_json=json.dumps(out.run, indent=2, default=str),
+            verification_text=v_text,
+            verification_columns=v_cols,
+            verification_rows=v_rows,
+            run_items=_run_items(out.run),
+            run_json=json.dumps(out.run, indent=2, default=str),
         )
         html = _no_web_text(html)
         size = len(html.encode("utf-8"))
         if size >= REPORT_MAX_BYTES:
-            raise OutputError(f"report.html would be {size / 2**20:.1f} MB, over the 10 MB limit; "
-                              "hint: fewer maps or a lower REPORT_DPI")
+            raise OutputError(
+                f"report.html would be {size / 2**20:.1f} MB, over the 10 MB limit; "
+                "hint: fewer maps or a lower REPORT_DPI"
+            )
         return atomic_write_text(out.out_dir / "report.html", html)
     finally:
         out.close()

@@ -35,12 +35,21 @@ import numpy as np
 import pandas as pd
 
 from regionmap.errors import InputError
-from regionmap.io.times import utc_datetime64
 from regionmap.io.profiles import ObservedProfile, read_profile
+from regionmap.io.times import utc_datetime64
 from regionmap.snow.codes import CRUST_INDEX, GRAIN_INDEX
-from regionmap.snow.constants import C_ICE_J_KG_K, C_WATER_J_KG_K, EPOCH_2000_S, L_FUSION_J_KG, RHO_WATER_KG_M3, T_MELT_K
+from regionmap.snow.constants import (
+    C_ICE_J_KG_K,
+    C_WATER_J_KG_K,
+    EPOCH_2000_S,
+    L_FUSION_J_KG,
+    RHO_WATER_KG_M3,
+    T_MELT_K,
+)
 from regionmap.snow.crusts import FLAG_WAS_WET, FLAG_WET_MELT
 from regionmap.snow.kernel import (
+    J_N,
+    J_SH_START,
     V_ALBEDO,
     V_FZ_GAP_H,
     V_RAIN_GAP_H,
@@ -48,8 +57,6 @@ from regionmap.snow.kernel import (
     V_SNOW_AGE_H,
     V_SNOW_GAP_H,
     V_TSURF,
-    J_N,
-    J_SH_START,
 )
 from regionmap.snow.params import SnowParams
 from regionmap.snow.state import SnowState
@@ -78,9 +85,18 @@ OPEN_BAND_HIGH_M = 9000.0
 #: that the model's own classification (:func:`regionmap.snow.metamorphism.classify_grain`)
 #: returns the observed class for a dry layer; our choice, not a published value.
 MICROSTRUCTURE_OF_CLASS: dict[str, tuple[float, float]] = {
-    "PP": (0.8, 0.0), "DF": (0.3, 0.0), "RG": (0.0, 0.0), "RGxf": (0.0, 0.35),
-    "FC": (0.0, 0.7), "FCxr": (0.0, 0.35), "FCsf": (0.0, 0.7), "DH": (0.0, 1.0),
-    "SH": (0.0, 1.0), "MF": (0.0, 0.0), "MFcr": (0.0, 0.0), "IF": (0.0, 0.0),
+    "PP": (0.8, 0.0),
+    "DF": (0.3, 0.0),
+    "RG": (0.0, 0.0),
+    "RGxf": (0.0, 0.35),
+    "FC": (0.0, 0.7),
+    "FCxr": (0.0, 0.35),
+    "FCsf": (0.0, 0.7),
+    "DH": (0.0, 1.0),
+    "SH": (0.0, 1.0),
+    "MF": (0.0, 0.0),
+    "MFcr": (0.0, 0.0),
+    "IF": (0.0, 0.0),
 }
 
 #: Surface albedo after a restart, by the grain class of the top layer [1], clipped to the
@@ -89,8 +105,18 @@ MICROSTRUCTURE_OF_CLASS: dict[str, tuple[float, float]] = {
 #: Glaciers, 4th ed., Table 5.2 [mem: ranges recalled, not re-read]. A wet top layer takes
 #: the wet-snow value whatever its class.
 ALBEDO_OF_CLASS: dict[str, float] = {
-    "PP": 0.85, "DF": 0.80, "RG": 0.75, "RGxf": 0.75, "FC": 0.75, "FCxr": 0.75, "FCsf": 0.75,
-    "DH": 0.75, "SH": 0.80, "MF": 0.60, "MFcr": 0.60, "IF": 0.60,
+    "PP": 0.85,
+    "DF": 0.80,
+    "RG": 0.75,
+    "RGxf": 0.75,
+    "FC": 0.75,
+    "FCxr": 0.75,
+    "FCsf": 0.75,
+    "DH": 0.75,
+    "SH": 0.80,
+    "MF": 0.60,
+    "MFcr": 0.60,
+    "IF": 0.60,
 }
 _WET_SURFACE_ALBEDO = 0.60
 
@@ -160,7 +186,9 @@ def _parse_band(text: str, where: str) -> tuple[float, float]:
         raise InputError(f"{where}: {exc}") from None
 
 
-def _select_cells(table: pd.DataFrame, zone: str, bands: list[str], aspects: list[str], where: str) -> np.ndarray:
+def _select_cells(
+    table: pd.DataFrame, zone: str, bands: list[str], aspects: list[str], where: str
+) -> np.ndarray:
     """Positions of the cells of ``zone`` in the written bands and aspect sectors."""
     zones = list(pd.unique(table["zone"]))
     if zone not in zones:
@@ -174,8 +202,10 @@ def _select_cells(table: pd.DataFrame, zone: str, bands: list[str], aspects: lis
     edges = sorted({e for band in zone_bands for e in band})
     listing = [f"{a:g}-{b:g}" for a, b in zone_bands]
     if not bands:
-        raise InputError(f"{where}: no band given; zone {zone!r} has bands {listing} (m; open "
-                         f"bands written from {OPEN_BAND_LOW_M:g} or up to {OPEN_BAND_HIGH_M:g})")
+        raise InputError(
+            f"{where}: no band given; zone {zone!r} has bands {listing} (m; open "
+            f"bands written from {OPEN_BAND_LOW_M:g} or up to {OPEN_BAND_HIGH_M:g})"
+        )
     in_band = np.zeros(len(table), dtype=bool)
     for text in bands:
         lo, hi = _parse_band(text, where)
@@ -183,12 +213,15 @@ def _select_cells(table: pd.DataFrame, zone: str, bands: list[str], aspects: lis
             raise InputError(
                 f"{where}: band {text!r} does not match the band edges of zone {zone!r}; its bands "
                 f"are {listing} (m; one band or several adjacent ones such as "
-                f"'{listing[0].split('-')[0]}-{listing[-1].split('-')[1]}')")
+                f"'{listing[0].split('-')[0]}-{listing[-1].split('-')[1]}')"
+            )
         in_band |= (lo_w >= lo - 1e-6) & (hi_w <= hi + 1e-6)
     sectors = table["aspect_sector"].astype(str).to_numpy()
     zone_sectors = list(pd.unique(sectors[in_zone & in_band]))
     if not aspects:
-        raise InputError(f"{where}: no aspect given; zone {zone!r} has aspects {zone_sectors} in these bands")
+        raise InputError(
+            f"{where}: no aspect given; zone {zone!r} has aspects {zone_sectors} in these bands"
+        )
     in_aspect = np.zeros(len(table), dtype=bool)
     for text in aspects:
         name = "flat" if str(text).strip().lower() == "flat" else str(text).strip().upper()
@@ -196,13 +229,20 @@ def _select_cells(table: pd.DataFrame, zone: str, bands: list[str], aspects: lis
         if not hit.any():
             raise InputError(
                 f"{where}: aspect {text!r} has no cell in zone {zone!r}, bands {list(bands)}; "
-                f"the aspects there are {zone_sectors}")
+                f"the aspects there are {zone_sectors}"
+            )
         in_aspect |= sectors == name
     return np.flatnonzero(in_zone & in_band & in_aspect).astype(np.int64)
 
 
-def resolve_restarts(entries, cell_table: pd.DataFrame, period_times: np.ndarray, *,
-                     diag_every_h: int = 1, max_layers: int | None = None) -> list[Restart]:
+def resolve_restarts(
+    entries,
+    cell_table: pd.DataFrame,
+    period_times: np.ndarray,
+    *,
+    diag_every_h: int = 1,
+    max_layers: int | None = None,
+) -> list[Restart]:
     """Check restart entries against the run's cells and period.
 
     Parameters
@@ -238,7 +278,7 @@ def resolve_restarts(entries, cell_table: pd.DataFrame, period_times: np.ndarray
     if t.size == 0:
         raise InputError("restart: the run has no steps to restart in")
     start = t[0] - np.timedelta64(3600, "s")
-    state_times = np.concatenate([[start], t])[::max(int(diag_every_h), 1)]
+    state_times = np.concatenate([[start], t])[:: max(int(diag_every_h), 1)]
     out: list[Restart] = []
     for k, entry in enumerate(entries):
         path = Path(_entry_value(entry, "profile"))
@@ -251,13 +291,16 @@ def resolve_restarts(entries, cell_table: pd.DataFrame, period_times: np.ndarray
                 f"{where}: restart time {observed} UTC "
                 f"({'from the profile' if given is None else 'from the entry'}) is outside the run's "
                 f"period {start} .. {t[-1]} UTC; hint: set the entry's time, or run a period that "
-                "contains the observation")
+                "contains the observation"
+            )
         offset_s = np.abs((state_times - observed).astype(np.int64))
         i = int(np.flatnonzero(offset_s == offset_s.min())[-1])  # nearest; half-way goes later
         when = state_times[i]
         if when >= t[-1]:
-            raise InputError(f"{where}: restart time {observed} UTC is at the end of the run "
-                             f"({t[-1]} UTC) and leaves no step to simulate after it")
+            raise InputError(
+                f"{where}: restart time {observed} UTC is at the end of the run "
+                f"({t[-1]} UTC) and leaves no step to simulate after it"
+            )
         zone = str(_entry_value(entry, "zone"))
         bands = [str(b) for b in _entry_value(entry, "bands")]
         aspects = [str(a) for a in _entry_value(entry, "aspects")]
@@ -265,11 +308,22 @@ def resolve_restarts(entries, cell_table: pd.DataFrame, period_times: np.ndarray
         if max_layers is not None and profile.n_layers > max_layers:
             raise InputError(
                 f"{where}: the profile has {profile.n_layers} layers but cells hold at most "
-                f"[snow] max_layers = {max_layers}; hint: raise max_layers or join similar layers")
+                f"[snow] max_layers = {max_layers}; hint: raise max_layers or join similar layers"
+            )
         sectors = list(pd.unique(cell_table["aspect_sector"].astype(str).to_numpy()[positions]))
-        out.append(Restart(entry=k, profile=profile, observed_time=observed, time=when,
-                           positions=positions, cell_ids=cell_table.index.to_numpy(np.int64)[positions],
-                           zone=zone, bands=bands, aspects=sectors))
+        out.append(
+            Restart(
+                entry=k,
+                profile=profile,
+                observed_time=observed,
+                time=when,
+                positions=positions,
+                cell_ids=cell_table.index.to_numpy(np.int64)[positions],
+                zone=zone,
+                bands=bands,
+                aspects=sectors,
+            )
+        )
     for a in range(len(out)):
         for b in range(a + 1, len(out)):
             if out[a].time == out[b].time:
@@ -278,7 +332,8 @@ def resolve_restarts(entries, cell_table: pd.DataFrame, period_times: np.ndarray
                     raise InputError(
                         f"[[restart]] entries {a + 1} and {b + 1} both restart cell(s) "
                         f"{cell_table.index.to_numpy()[both][:5].tolist()} at {out[a].time} UTC; give "
-                        "each cell one profile per time")
+                        "each cell one profile per time"
+                    )
     return out
 
 
@@ -305,7 +360,9 @@ def _profile_layers(profile: ObservedProfile, params: SnowParams, restart_s2000:
     liquid = profile.liquid_kg_m2()
     lwc = liquid / (RHO_WATER_KG_M3 * profile.thickness_m)
     wet = liquid > 0.0
-    flags = np.where(wet, FLAG_WET_MELT, 0) | np.where(wet & (lwc >= params.crust_wet_frac), FLAG_WAS_WET, 0)
+    flags = np.where(wet, FLAG_WET_MELT, 0) | np.where(
+        wet & (lwc >= params.crust_wet_frac), FLAG_WAS_WET, 0
+    )
     return {
         "thickness_m": profile.thickness_m.astype(np.float32),
         "ice_kg_m2": profile.ice_kg_m2().astype(np.float64),
@@ -315,7 +372,9 @@ def _profile_layers(profile: ObservedProfile, params: SnowParams, restart_s2000:
         "dendricity": micro[:, 0].astype(np.float32),
         "facetedness": micro[:, 1].astype(np.float32),
         "grain_code": np.array([GRAIN_INDEX[c] for c in codes], dtype=np.int8),
-        "crust_code": np.array([_CRUST_OF_CLASS.get(c, CRUST_INDEX["none"]) for c in codes], dtype=np.int8),
+        "crust_code": np.array(
+            [_CRUST_OF_CLASS.get(c, CRUST_INDEX["none"]) for c in codes], dtype=np.int8
+        ),
         "flags": flags.astype(np.int8),
         "deposition_time_s2000": np.full(profile.n_layers, restart_s2000, dtype=np.int32),
         "formation_time_s2000": np.full(profile.n_layers, restart_s2000, dtype=np.int32),
@@ -372,20 +431,29 @@ def apply_restart(state: SnowState, positions, restart: Restart, params: SnowPar
     prof = restart.profile
     where = f"restart from {prof.source}"
     if np.datetime64(state.time, "s") != restart.time:
-        raise InputError(f"{where}: the state is valid at {state.time} but the restart is at "
-                         f"{restart.time}; apply it to the state valid at the restart time")
+        raise InputError(
+            f"{where}: the state is valid at {state.time} but the restart is at "
+            f"{restart.time}; apply it to the state valid at the restart time"
+        )
     if pos.size and (pos.min() < 0 or pos.max() >= state.n_cells):
-        raise InputError(f"{where}: cell positions {pos.min()}..{pos.max()} outside the state's "
-                         f"0..{state.n_cells - 1}")
+        raise InputError(
+            f"{where}: cell positions {pos.min()}..{pos.max()} outside the state's "
+            f"0..{state.n_cells - 1}"
+        )
     n_layer = prof.n_layers
     if n_layer > state.max_layers:
-        raise InputError(f"{where}: the profile has {n_layer} layers but the state has "
-                         f"{state.max_layers} layer slots ([snow] max_layers)")
+        raise InputError(
+            f"{where}: the profile has {n_layer} layers but the state has "
+            f"{state.max_layers} layer slots ([snow] max_layers)"
+        )
     new = state.copy()
     swe_before = state.swe_kg_m2()[pos]
     h_before = column_enthalpy_j_m2(state)[pos]
-    depth_before = np.where(np.arange(state.max_layers)[None, :] < state.layer_count[:, None],
-                            state.thickness_m.astype(np.float64), 0.0).sum(axis=1)[pos]
+    depth_before = np.where(
+        np.arange(state.max_layers)[None, :] < state.layer_count[:, None],
+        state.thickness_m.astype(np.float64),
+        0.0,
+    ).sum(axis=1)[pos]
     restart_s2000 = int(np.datetime64(restart.time, "s").astype(np.int64)) - EPOCH_2000_S
     values = _profile_layers(prof, params, restart_s2000)
     for name, column in values.items():
@@ -408,8 +476,16 @@ def apply_restart(state: SnowState, positions, restart: Restart, params: SnowPar
     new.new_snow_m[pos] = 0.0
     swe_after = new.swe_kg_m2()[pos]
     h_after = column_enthalpy_j_m2(new)[pos]
-    hardness = layer_hardness_array(new)[pos[:1], :n_layer].astype(np.float64) if pos.size else np.empty((0, n_layer))
-    hard_diff = float(np.nanmax(np.abs(hardness - prof.hardness_index[None, :]))) if pos.size else float("nan")
+    hardness = (
+        layer_hardness_array(new)[pos[:1], :n_layer].astype(np.float64)
+        if pos.size
+        else np.empty((0, n_layer))
+    )
+    hard_diff = (
+        float(np.nanmax(np.abs(hardness - prof.hardness_index[None, :])))
+        if pos.size
+        else float("nan")
+    )
     record = {
         "entry": restart.entry,
         "profile": str(prof.source),
@@ -422,7 +498,9 @@ def apply_restart(state: SnowState, positions, restart: Restart, params: SnowPar
         "cell_id": state.cell_id[pos].astype(np.int64).tolist(),
         "layers": n_layer,
         "snow_depth_before_m": depth_before.tolist(),
-        "snow_depth_after_m": float(new.thickness_m[pos[:1], :n_layer].astype(np.float64).sum()) if pos.size else 0.0,
+        "snow_depth_after_m": float(new.thickness_m[pos[:1], :n_layer].astype(np.float64).sum())
+        if pos.size
+        else 0.0,
         "swe_increment_kg_m2": (swe_after - swe_before).tolist(),
         "enthalpy_increment_j_m2": (h_after - h_before).tolist(),
         "density_estimated_layers": int(prof.density_estimated.sum()),
@@ -432,7 +510,9 @@ def apply_restart(state: SnowState, positions, restart: Restart, params: SnowPar
     return new, record
 
 
-def restarts_in_chunk(restarts: list[Restart], lo: int, hi: int) -> list[tuple[Restart, np.ndarray]]:
+def restarts_in_chunk(
+    restarts: list[Restart], lo: int, hi: int
+) -> list[tuple[Restart, np.ndarray]]:
     """The restarts that touch cells ``lo:hi`` (run positions), with chunk-local positions.
 
     Returns
@@ -466,9 +546,18 @@ def _join_parts(parts: list[dict], time_key: str = "time") -> dict:
     return out
 
 
-def run_columns_with_restarts(state: SnowState, forcing, chunk_restarts, params: SnowParams,
-                              diag_every_h: int = 1, snapshot_hour_utc: int | None = None, *,
-                              with_snapshots: bool = True, threads: int = 2, kept: dict | None = None):
+def run_columns_with_restarts(
+    state: SnowState,
+    forcing,
+    chunk_restarts,
+    params: SnowParams,
+    diag_every_h: int = 1,
+    snapshot_hour_utc: int | None = None,
+    *,
+    with_snapshots: bool = True,
+    threads: int = 2,
+    kept: dict | None = None,
+):
     """:func:`regionmap.snow.column.run_columns` over one part of the period, split at restarts
     (and at the times of ``kept``).
 
@@ -511,14 +600,21 @@ def run_columns_with_restarts(state: SnowState, forcing, chunk_restarts, params:
     cuts = sorted({int((r.time - t_state) // np.timedelta64(3600, "s")) for r, _ in due})
     for c in cuts:
         if c % int(diag_every_h):
-            raise InputError(f"restart at {t_state + np.timedelta64(3600 * c, 's')} is not on a "
-                             f"diagnostics boundary ({diag_every_h} h); resolve restarts with the run's "
-                             "diag_every_h")
-    keep = {int((k - t_state) // np.timedelta64(3600, "s")): k for k in (kept or {})
-            if t_state <= k < t[-1]}
+            raise InputError(
+                f"restart at {t_state + np.timedelta64(3600 * c, 's')} is not on a "
+                f"diagnostics boundary ({diag_every_h} h); resolve restarts with the run's "
+                "diag_every_h"
+            )
+    keep = {
+        int((k - t_state) // np.timedelta64(3600, "s")): k
+        for k in (kept or {})
+        if t_state <= k < t[-1]
+    }
     for c in keep:
         if c % int(diag_every_h):
-            raise ValueError(f"kept time {keep[c]} is not on a diagnostics boundary")  # a bug, not bad input
+            raise ValueError(
+                f"kept time {keep[c]} is not on a diagnostics boundary"
+            )  # a bug, not bad input
     records: list[dict] = []
     diags, snaps = [], []
     bounds = sorted({0, *cuts, *keep}) + [t.size]
@@ -531,9 +627,15 @@ def run_columns_with_restarts(state: SnowState, forcing, chunk_restarts, params:
                 records.append(rec)
         if step in keep:
             kept[keep[step]] = current
-        current, d, s = run_columns(current, forcing.subset(steps=slice(step, end)), params,
-                                    diag_every_h, snapshot_hour_utc, with_snapshots=with_snapshots,
-                                    threads=threads)
+        current, d, s = run_columns(
+            current,
+            forcing.subset(steps=slice(step, end)),
+            params,
+            diag_every_h,
+            snapshot_hour_utc,
+            with_snapshots=with_snapshots,
+            threads=threads,
+        )
         diags.append(d)
         snaps.append(s)
     return current, _join_parts(diags), (_join_parts(snaps) if with_snapshots else None), records
@@ -551,7 +653,9 @@ def merge_restart_records(records: list[dict]) -> list[dict]:
         for k in per_cell:
             merged[key][k].extend(rec[k])
         merged[key]["hardness_model_minus_observed_max_abs"] = max(
-            merged[key]["hardness_model_minus_observed_max_abs"], rec["hardness_model_minus_observed_max_abs"])
+            merged[key]["hardness_model_minus_observed_max_abs"],
+            rec["hardness_model_minus_observed_max_abs"],
+        )
     out = []
     for key in sorted(merged, key=lambda k: (k[1], k[0])):
         rec = merged[key]

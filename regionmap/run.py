@@ -13,10 +13,8 @@ chunk size, on where a cell falls in a chunk, or on the scheduler.
 
 from __future__ import annotations
 
-import os
 import time as _time
 from dataclasses import dataclass, field
-from pathlib import Path
 
 import numpy as np
 import pandas as pd
@@ -76,8 +74,14 @@ def _bias_dict(cfg: Config) -> dict:
     """``[bias]`` entries in the downscaling's form: per variable a list of corrections, each
     for all cells or for one exposure class."""
     out = {}
-    for name in ("air_temperature", "relative_humidity", "wind_speed", "precipitation",
-                 "shortwave_down", "longwave_down"):
+    for name in (
+        "air_temperature",
+        "relative_humidity",
+        "wind_speed",
+        "precipitation",
+        "shortwave_down",
+        "longwave_down",
+    ):
         entries = []
         for entry in getattr(cfg.bias, name):
             corr = {"exposure": entry.exposure}
@@ -159,7 +163,9 @@ def open_grid_forcing(cfg: Config):
     from regionmap.io.forcing import open_forcing
 
     if cfg.forcing is None:
-        raise InputError(f"{cfg.source or 'config'}: a [forcing] section with path = ... is required for a run")
+        raise InputError(
+            f"{cfg.source or 'config'}: a [forcing] section with path = ... is required for a run"
+        )
     return open_forcing(cfg.forcing, base_dir=cfg.source.parent if cfg.source else None)
 
 
@@ -186,8 +192,14 @@ class Period:
         return self.split < self.stop
 
 
-def plan_period(forcing_time: np.ndarray, *, state_time=None, analysis_time=None,
-                diag_every_h: int = 1, where: str = "forcing") -> Period:
+def plan_period(
+    forcing_time: np.ndarray,
+    *,
+    state_time=None,
+    analysis_time=None,
+    diag_every_h: int = 1,
+    where: str = "forcing",
+) -> Period:
     """Which forcing hours to simulate, from the state's time and the analysis time.
 
     Parameters
@@ -239,7 +251,9 @@ def plan_period(forcing_time: np.ndarray, *, state_time=None, analysis_time=None
     return Period(first, split, stop, t)
 
 
-def chunk_ranges(n_cells: int, chunk_size: int, groups: np.ndarray | None = None) -> list[tuple[int, int]]:
+def chunk_ranges(
+    n_cells: int, chunk_size: int, groups: np.ndarray | None = None
+) -> list[tuple[int, int]]:
     """Contiguous [lo, hi) cell-position ranges of at most ``chunk_size`` cells.
 
     With ``groups`` (cell,) — e.g. the zone of each cell, each group one contiguous run — a
@@ -256,7 +270,9 @@ def chunk_ranges(n_cells: int, chunk_size: int, groups: np.ndarray | None = None
         return []
     starts = np.concatenate([[0], np.nonzero(groups[1:] != groups[:-1])[0] + 1])
     if np.unique(groups[starts]).size != starts.size:
-        raise RuntimeError("chunk_ranges: the cells of a group must be contiguous")  # a bug, not bad input
+        raise RuntimeError(
+            "chunk_ranges: the cells of a group must be contiguous"
+        )  # a bug, not bad input
     edges, prev = [0], 0
     for end in [*starts[1:].tolist(), n_cells]:  # the end of each group
         if end - edges[-1] > size and prev > edges[-1]:
@@ -328,13 +344,17 @@ def _snow_fraction(t_air_k, rh_frac, pressure_pa, settings: DownscaleSettings) -
     threshold_k = 273.15 + settings.phase_threshold_c
     if settings.phase == "wet_bulb":
         tw = thermo.wet_bulb_temperature_normand(t_air_k, rh_frac, pressure_pa)
-        return phase.snow_fraction_wet_bulb_threshold(tw, threshold_k=threshold_k,
-                                                      half_width_k=settings.phase_half_width_k)
-    return phase.snow_fraction_air_temperature_threshold(t_air_k, threshold_k=threshold_k,
-                                                         half_width_k=settings.phase_half_width_k)
+        return phase.snow_fraction_wet_bulb_threshold(
+            tw, threshold_k=threshold_k, half_width_k=settings.phase_half_width_k
+        )
+    return phase.snow_fraction_air_temperature_threshold(
+        t_air_k, threshold_k=threshold_k, half_width_k=settings.phase_half_width_k
+    )
 
 
-def _perturbed(forcing: CellForcing, dt_k: float, dphase_k: float, settings: DownscaleSettings) -> CellForcing:
+def _perturbed(
+    forcing: CellForcing, dt_k: float, dphase_k: float, settings: DownscaleSettings
+) -> CellForcing:
     """Forcing of an ensemble member: air temperature shifted by ``dt_k`` at all heights and
     the snow fraction recomputed with the phase threshold raised by ``dphase_k`` (the phase
     curve evaluated at ``T - dphase_k``). Freezing-rain hours keep their phase."""
@@ -368,7 +388,9 @@ def _concat_parts(parts: list[dict]) -> dict:
     return out
 
 
-def simulate_chunk(ctx: RunContext, lo: int, hi: int, state: SnowState, *, with_snapshots: bool = True) -> dict:
+def simulate_chunk(
+    ctx: RunContext, lo: int, hi: int, state: SnowState, *, with_snapshots: bool = True
+) -> dict:
     """Downscale and simulate cells ``lo:hi`` (positions) over the run's period.
 
     Returns
@@ -396,8 +418,16 @@ def simulate_chunk(ctx: RunContext, lo: int, hi: int, state: SnowState, *, with_
     kept = None if ctx.checkpoints is None else dict.fromkeys(ctx.checkpoints.times)
     for name, steps in parts:
         state_now, d, s, recs = run_columns_with_restarts(
-            state_now, forcing.subset(steps=steps), mine, ctx.snow, ctx.diag_every_h, ctx.snapshot_hour_utc,
-            with_snapshots=with_snapshots, threads=ctx.kernel_threads, kept=kept)
+            state_now,
+            forcing.subset(steps=steps),
+            mine,
+            ctx.snow,
+            ctx.diag_every_h,
+            ctx.snapshot_hour_utc,
+            with_snapshots=with_snapshots,
+            threads=ctx.kernel_threads,
+            kept=kept,
+        )
         diags.append(d)
         snaps.append(s)
         records += recs
@@ -456,7 +486,11 @@ def state_take(state: SnowState, positions) -> SnowState:
     kw = {}
     for f in fields(state):
         v = getattr(state, f.name)
-        kw[f.name] = v[positions].copy() if isinstance(v, np.ndarray) and v.ndim >= 1 and v.shape[0] == n else v
+        kw[f.name] = (
+            v[positions].copy()
+            if isinstance(v, np.ndarray) and v.ndim >= 1 and v.shape[0] == n
+            else v
+        )
     return SnowState(**kw)
 
 

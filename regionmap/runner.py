@@ -56,16 +56,54 @@ LAYER_VARS = {
     "liquid_kg_m2": ("f4", {"units": "kg m-2", "long_name": "liquid water in the layer"}),
     "temperature_k": ("f4", {"units": "K", "long_name": "layer temperature"}),
     "grain_size_mm": ("f4", {"units": "mm", "long_name": "grain size"}),
-    "hardness_index": ("f4", {"units": "1", "long_name": "hand hardness index (F=1, 4F=2, 1F=3, P=4, K=5, I=6)"}),
-    "grain_class": (f"S{max(map(len, GRAIN_CODES))}", {"long_name": "grain class (International Classification for Seasonal Snow on the Ground codes)"}),
-    "crust_kind": (f"S{max(map(len, CRUST_KINDS))}", {"long_name": "crust kind: none, melt-freeze, sun, rain, glaze"}),
-    "deposition_time": ("i8", {"units": "seconds since 1970-01-01", "long_name": "deposition time of the layer's snow"}),
-    "formation_time": ("i8", {"units": "seconds since 1970-01-01", "long_name": "when the layer became what it is (burial of SH, refreeze of a crust, else deposition)"}),
-    "event_id": ("i8", {"long_name": "id of the precipitation event that made the layer or its crust: its start as whole hours since 1970-01-01 UTC"}),
+    "hardness_index": (
+        "f4",
+        {"units": "1", "long_name": "hand hardness index (F=1, 4F=2, 1F=3, P=4, K=5, I=6)"},
+    ),
+    "grain_class": (
+        f"S{max(map(len, GRAIN_CODES))}",
+        {
+            "long_name": "grain class (International Classification for Seasonal Snow on the Ground codes)"
+        },
+    ),
+    "crust_kind": (
+        f"S{max(map(len, CRUST_KINDS))}",
+        {"long_name": "crust kind: none, melt-freeze, sun, rain, glaze"},
+    ),
+    "deposition_time": (
+        "i8",
+        {"units": "seconds since 1970-01-01", "long_name": "deposition time of the layer's snow"},
+    ),
+    "formation_time": (
+        "i8",
+        {
+            "units": "seconds since 1970-01-01",
+            "long_name": "when the layer became what it is (burial of SH, refreeze of a crust, else deposition)",
+        },
+    ),
+    "event_id": (
+        "i8",
+        {
+            "long_name": "id of the precipitation event that made the layer or its crust: its start as whole hours since 1970-01-01 UTC"
+        },
+    ),
 }
 
-_VERSIONS = ("numpy", "numba", "xarray", "dask", "distributed", "netCDF4", "rasterio", "geopandas",
-             "pyproj", "shapely", "pandas", "scipy", "matplotlib")
+_VERSIONS = (
+    "numpy",
+    "numba",
+    "xarray",
+    "dask",
+    "distributed",
+    "netCDF4",
+    "rasterio",
+    "geopandas",
+    "pyproj",
+    "shapely",
+    "pandas",
+    "scipy",
+    "matplotlib",
+)
 
 
 @dataclass
@@ -91,17 +129,31 @@ def dask_client(workers: int | None = None, scheduler: str | None = None):
         try:
             client = Client(scheduler, timeout="20s")
         except OSError as exc:
-            raise InputError(f"--scheduler {scheduler}: cannot connect to a dask scheduler there ({exc})") from None
+            raise InputError(
+                f"--scheduler {scheduler}: cannot connect to a dask scheduler there ({exc})"
+            ) from None
         with client:
             yield client
         return
     if workers:
-        cluster = LocalCluster(n_workers=int(workers), threads_per_worker=1, processes=True,
-                               host="127.0.0.1", dashboard_address=None, worker_dashboard_address=None,
-                               silence_logs=40)
+        cluster = LocalCluster(
+            n_workers=int(workers),
+            threads_per_worker=1,
+            processes=True,
+            host="127.0.0.1",
+            dashboard_address=None,
+            worker_dashboard_address=None,
+            silence_logs=40,
+        )
     else:
-        cluster = LocalCluster(n_workers=1, threads_per_worker=max(1, os.cpu_count() or 1), processes=False,
-                               dashboard_address=None, worker_dashboard_address=None, silence_logs=40)
+        cluster = LocalCluster(
+            n_workers=1,
+            threads_per_worker=max(1, os.cpu_count() or 1),
+            processes=False,
+            dashboard_address=None,
+            worker_dashboard_address=None,
+            silence_logs=40,
+        )
     with cluster, Client(cluster) as client:
         yield client
 
@@ -156,17 +208,40 @@ def _warm_kernels(params) -> None:
     n = 2
     t = np.datetime64("2000-01-01T01:00", "s") + np.arange(n) * np.timedelta64(3600, "s")
     z = np.zeros((1, n))
-    f = CellForcing(time=t, t_air_k=z + 268.0, rh_frac=z + 0.8, pressure_pa=z + 8e4, wind_m_s=z + 2,
-                    sw_in_w_m2=z, lw_in_w_m2=z + 250, precip_kg_m2=z + 1, snow_frac=z + 1,
-                    freezing_rain_frac=z)
-    run_columns(SnowState.empty(1, params.max_layers, time=t[0] - np.timedelta64(3600, "s")), f, params, 1,
-                threads=1)
+    f = CellForcing(
+        time=t,
+        t_air_k=z + 268.0,
+        rh_frac=z + 0.8,
+        pressure_pa=z + 8e4,
+        wind_m_s=z + 2,
+        sw_in_w_m2=z,
+        lw_in_w_m2=z + 250,
+        precip_kg_m2=z + 1,
+        snow_frac=z + 1,
+        freezing_rain_frac=z,
+    )
+    run_columns(
+        SnowState.empty(1, params.max_layers, time=t[0] - np.timedelta64(3600, "s")),
+        f,
+        params,
+        1,
+        threads=1,
+    )
 
 
-def execute(cfg: Config, *, out_dir: Path | None = None, continue_from: Path | None = None,
-            workers: int | None = None, scheduler: str | None = None, force: bool = False,
-            progress: bool = True, restarts=(), extra_files: dict | None = None,
-            report: bool = True) -> RunOutcome:
+def execute(
+    cfg: Config,
+    *,
+    out_dir: Path | None = None,
+    continue_from: Path | None = None,
+    workers: int | None = None,
+    scheduler: str | None = None,
+    force: bool = False,
+    progress: bool = True,
+    restarts=(),
+    extra_files: dict | None = None,
+    report: bool = True,
+) -> RunOutcome:
     """Run the chain for ``cfg`` and write every output of DESIGN §3.
 
     Parameters
@@ -202,42 +277,79 @@ def execute(cfg: Config, *, out_dir: Path | None = None, continue_from: Path | N
     if continue_from is not None:
         state0 = SnowState.load(continue_from)
         check_state_matches(state0, batch, params, str(continue_from))
-    period = plan_period(gf.time, state_time=None if state0 is None else state0.time,
-                         analysis_time=cfg.forcing.analysis_time.replace(tzinfo=None) if cfg.forcing.analysis_time else None,
-                         diag_every_h=diag_every, where=str(cfg.forcing.path))
+    period = plan_period(
+        gf.time,
+        state_time=None if state0 is None else state0.time,
+        analysis_time=cfg.forcing.analysis_time.replace(tzinfo=None)
+        if cfg.forcing.analysis_time
+        else None,
+        diag_every_h=diag_every,
+        where=str(cfg.forcing.path),
+    )
     if state0 is None:
         state0 = initial_state(batch, params, period)
     resolved = []
     if restarts:
         from regionmap.restart import resolve_restarts
 
-        resolved = resolve_restarts(restarts, cells_frame(region), period.times[period.first:period.stop],
-                                    diag_every_h=diag_every, max_layers=params.max_layers)
+        resolved = resolve_restarts(
+            restarts,
+            cells_frame(region),
+            period.times[period.first : period.stop],
+            diag_every_h=diag_every,
+            max_layers=params.max_layers,
+        )
 
-    sim_times = period.times[period.first:period.stop]
-    out_times = sim_times[diag_every - 1::diag_every]
+    sim_times = period.times[period.first : period.stop]
+    out_times = sim_times[diag_every - 1 :: diag_every]
     map_time = _map_time(cfg, out_times, period)
     snapshot_hour = int((map_time.astype("datetime64[h]").astype(np.int64)) % 24)
     n_par = max(1, workers or (os.cpu_count() or 1))
-    chunks = chunk_ranges(batch.n_cells, _effective_chunk_size(batch.n_cells, cfg.run.chunk_size, n_par),
-                          batch.zone_code if dsettings.drift else None)  # drift: whole zones per chunk
+    chunks = chunk_ranges(
+        batch.n_cells,
+        _effective_chunk_size(batch.n_cells, cfg.run.chunk_size, n_par),
+        batch.zone_code if dsettings.drift else None,
+    )  # drift: whole zones per chunk
     # workers of a remote cluster cannot write into this machine's temporary folder: there
     # the ensemble steps its cells from the run's start state instead
-    checkpoint_dir = (contextlib.nullcontext() if scheduler
-                      else tempfile.TemporaryDirectory(prefix="regionmap-checkpoints-"))
-    checkpoints = None if scheduler else Checkpoints(checkpoint_dir.name, checkpoint_times(
-        state0.time, period.stop - period.first, diag_every, [r.time for r in resolved]))
-    ctx = RunContext(cfg=cfg, batch=batch, downscale=dsettings, snow=params, period=period,
-                     diag_every_h=diag_every, snapshot_hour_utc=snapshot_hour,
-                     kernel_threads=max(1, n_par // max(1, min(len(chunks), n_par))) if not (workers or scheduler) else 1,
-                     restarts=resolved, checkpoints=checkpoints)
+    checkpoint_dir = (
+        contextlib.nullcontext()
+        if scheduler
+        else tempfile.TemporaryDirectory(prefix="regionmap-checkpoints-")
+    )
+    checkpoints = (
+        None
+        if scheduler
+        else Checkpoints(
+            checkpoint_dir.name,
+            checkpoint_times(
+                state0.time, period.stop - period.first, diag_every, [r.time for r in resolved]
+            ),
+        )
+    )
+    ctx = RunContext(
+        cfg=cfg,
+        batch=batch,
+        downscale=dsettings,
+        snow=params,
+        period=period,
+        diag_every_h=diag_every,
+        snapshot_hour_utc=snapshot_hour,
+        kernel_threads=max(1, n_par // max(1, min(len(chunks), n_par)))
+        if not (workers or scheduler)
+        else 1,
+        restarts=resolved,
+        checkpoints=checkpoints,
+    )
     register_forcing(ctx, gf)
     t0 = _time.perf_counter()
     _warm_kernels(params)
     timings["kernel_warm"] = _time.perf_counter() - t0
 
     table = cells_frame(region)
-    is_fc = out_times > period.analysis_end if period.has_forecast else np.zeros(out_times.size, bool)
+    is_fc = (
+        out_times > period.analysis_end if period.has_forecast else np.zeros(out_times.size, bool)
+    )
     interval_start = out_times - np.timedelta64(3600 * diag_every, "s")
     state_an = state0.copy()
     state_end = state0.copy()
@@ -250,18 +362,36 @@ def execute(cfg: Config, *, out_dir: Path | None = None, continue_from: Path | N
 
     with checkpoint_dir, OutputFolder(target, force=force) as folder:
         out = folder.path
-        cells_w = CellsNcWriter(out / "cells.nc", table, out_times, interval_start, is_fc,
-                                global_attrs={"map_time": str(map_time)})
+        cells_w = CellsNcWriter(
+            out / "cells.nc",
+            table,
+            out_times,
+            interval_start,
+            is_fc,
+            global_attrs={"map_time": str(map_time)},
+        )
         prof_w = None
         try:
             t0 = _time.perf_counter()
             with dask_client(workers, scheduler) as client:
                 ctx_f = client.scatter(ctx, broadcast=True)  # once, not in every task's graph
-                futures = [client.submit(simulate_chunk, ctx_f, lo, hi, state_slice(state0, lo, hi),
-                                         pure=False, key=f"chunk-{lo}-{hi}") for lo, hi in chunks]
+                futures = [
+                    client.submit(
+                        simulate_chunk,
+                        ctx_f,
+                        lo,
+                        hi,
+                        state_slice(state0, lo, hi),
+                        pure=False,
+                        key=f"chunk-{lo}-{hi}",
+                    )
+                    for lo, hi in chunks
+                ]
                 from distributed import as_completed
 
-                bar = tqdm(total=len(futures), desc="cell chunks", unit="chunk", disable=not progress)
+                bar = tqdm(
+                    total=len(futures), desc="cell chunks", unit="chunk", disable=not progress
+                )
                 for fut in as_completed(futures):
                     res = fut.result()
                     lo, hi = res["lo"], res["hi"]
@@ -269,9 +399,16 @@ def execute(cfg: Config, *, out_dir: Path | None = None, continue_from: Path | N
                     cells_w.write_chunk(np.arange(lo, hi), res["diagnostics"])
                     snaps = res["snapshots"]
                     if prof_w is None:
-                        prof_w = ProfilesNcWriter(out / "profiles.nc", table.index.to_numpy(), snaps["time"],
-                                                  params.max_layers, LAYER_VARS)
-                    prof_w.write_chunk(np.arange(lo, hi), snaps["layer_count"], _profile_fields(snaps))
+                        prof_w = ProfilesNcWriter(
+                            out / "profiles.nc",
+                            table.index.to_numpy(),
+                            snaps["time"],
+                            params.max_layers,
+                            LAYER_VARS,
+                        )
+                    prof_w.write_chunk(
+                        np.arange(lo, hi), snaps["layer_count"], _profile_fields(snaps)
+                    )
                     write_seconds += _time.perf_counter() - t_w
                     state_put(state_an, res["state_analysis"], lo, hi)
                     state_put(state_end, res["state_end"], lo, hi)
@@ -297,9 +434,16 @@ def execute(cfg: Config, *, out_dir: Path | None = None, continue_from: Path | N
         state_an.save(out / "state.nc")
         state_end.save(out / "state_end.nc")
         t0 = _time.perf_counter()
-        products = write_products(out, cfg, region, ctx, map_time=map_time, state0=state0,
-                                  is_forecast=bool(map_time > period.analysis_end) if period.has_forecast else False,
-                                  progress=progress)
+        products = write_products(
+            out,
+            cfg,
+            region,
+            ctx,
+            map_time=map_time,
+            state0=state0,
+            is_forecast=bool(map_time > period.analysis_end) if period.has_forecast else False,
+            progress=progress,
+        )
         timings["products"] = _time.perf_counter() - t0
         # summed over chunk tasks (wall time inside each task; tasks run side by side)
         timings["task_downscale_s"] = task_seconds["downscale"]
@@ -308,10 +452,25 @@ def execute(cfg: Config, *, out_dir: Path | None = None, continue_from: Path | N
         timings["total"] = _time.perf_counter() - t_all
         from regionmap.restart import merge_restart_records
 
-        record = _run_record(cfg, region, gf, dsettings, params, period, map_time, timings, forcing_sums,
-                             events, status_bits, continue_from, merge_restart_records(restart_records),
-                             products.ensemble_cost,
-                             workers=workers, scheduler=scheduler, chunks=len(chunks))
+        record = _run_record(
+            cfg,
+            region,
+            gf,
+            dsettings,
+            params,
+            period,
+            map_time,
+            timings,
+            forcing_sums,
+            events,
+            status_bits,
+            continue_from,
+            merge_restart_records(restart_records),
+            products.ensemble_cost,
+            workers=workers,
+            scheduler=scheduler,
+            chunks=len(chunks),
+        )
         for name, src in (extra_files or {}).items():
             dst = out / name
             dst.parent.mkdir(parents=True, exist_ok=True)
@@ -328,19 +487,41 @@ def execute(cfg: Config, *, out_dir: Path | None = None, continue_from: Path | N
             write_report(out)
             record["timings_s"]["report"] = round(_time.perf_counter() - t0, 3)
             atomic_write_text(out / "run.json", json.dumps(record, indent=2, default=str))
-    return RunOutcome(target, products.zones, products.sentences, map_time,
-                      bool(period.has_forecast and map_time > period.analysis_end), batch.n_cells,
-                      _time.perf_counter() - t_all)
+    return RunOutcome(
+        target,
+        products.zones,
+        products.sentences,
+        map_time,
+        bool(period.has_forecast and map_time > period.analysis_end),
+        batch.n_cells,
+        _time.perf_counter() - t_all,
+    )
 
 
 def _profile_fields(snaps: dict) -> dict:
     """Snapshot arrays in profiles.nc form (codes as fixed-width byte strings, unused slots
     empty; looked up from the code tables, so no per-element string conversion)."""
-    used = np.arange(snaps["thickness_m"].shape[2])[None, None, :] < snaps["layer_count"][:, :, None]
-    out = {k: snaps[k] for k in ("thickness_m", "ice_kg_m2", "liquid_kg_m2", "temperature_k", "grain_size_mm",
-                                 "hardness_index", "deposition_time", "formation_time", "event_id")}
-    for name, table, codes in (("grain_class", GRAIN_CODES, snaps["grain_code"]),
-                               ("crust_kind", CRUST_KINDS, snaps["crust_code"])):
+    used = (
+        np.arange(snaps["thickness_m"].shape[2])[None, None, :] < snaps["layer_count"][:, :, None]
+    )
+    out = {
+        k: snaps[k]
+        for k in (
+            "thickness_m",
+            "ice_kg_m2",
+            "liquid_kg_m2",
+            "temperature_k",
+            "grain_size_mm",
+            "hardness_index",
+            "deposition_time",
+            "formation_time",
+            "event_id",
+        )
+    }
+    for name, table, codes in (
+        ("grain_class", GRAIN_CODES, snaps["grain_code"]),
+        ("crust_kind", CRUST_KINDS, snaps["crust_code"]),
+    ):
         text = np.array(table, dtype=LAYER_VARS[name][0])[np.asarray(codes, dtype=np.intp)]
         out[name] = np.where(used, text, b"")
     return out
@@ -386,30 +567,63 @@ def _event_log(events: list[dict]) -> list[dict]:
     if frame.empty:
         return []
     g = frame.groupby(["kind", "event_id"])
-    out = g.agg(first_time=("first_time", "min"), last_time=("last_time", "max"), cells=("cell", "nunique"),
-                mean_amount_kg_m2=("amount_kg_m2", "mean"), max_amount_kg_m2=("amount_kg_m2", "max")).reset_index()
+    out = g.agg(
+        first_time=("first_time", "min"),
+        last_time=("last_time", "max"),
+        cells=("cell", "nunique"),
+        mean_amount_kg_m2=("amount_kg_m2", "mean"),
+        max_amount_kg_m2=("amount_kg_m2", "max"),
+    ).reset_index()
     return json.loads(out.to_json(orient="records", date_format="iso"))
 
 
-def _run_record(cfg, region, gf, dsettings, params, period, map_time, timings, forcing_sums, events, status_bits,
-                continue_from, restart_record, ensemble_cost, *, workers, scheduler, chunks) -> dict:
+def _run_record(
+    cfg,
+    region,
+    gf,
+    dsettings,
+    params,
+    period,
+    map_time,
+    timings,
+    forcing_sums,
+    events,
+    status_bits,
+    continue_from,
+    restart_record,
+    ensemble_cost,
+    *,
+    workers,
+    scheduler,
+    chunks,
+) -> dict:
     from regionmap.downscale.pipeline import downscale_record
 
-    inputs = {"dem": cfg.region.dem, "zones": cfg.region.zones, **{f"forcing[{i}]": p for i, p in enumerate(gf.paths)}}
+    inputs = {
+        "dem": cfg.region.dem,
+        "zones": cfg.region.zones,
+        **{f"forcing[{i}]": p for i, p in enumerate(gf.paths)},
+    }
     if continue_from is not None:
         inputs["continue_from"] = continue_from
-    checksums = {k: {"path": str(p), "sha256": _sha256(Path(p))} for k, p in inputs.items() if Path(p).is_file()}
+    checksums = {
+        k: {"path": str(p), "sha256": _sha256(Path(p))}
+        for k, p in inputs.items()
+        if Path(p).is_file()
+    }
     settings_text = json.dumps(cfg.model_dump(mode="json", exclude={"output"}), sort_keys=True)
     return {
         "regionmap": __version__,
         "caution": CAUTION,
-        "created_utc": dt.datetime.now(dt.timezone.utc).isoformat(timespec="seconds"),
+        "created_utc": dt.datetime.now(dt.UTC).isoformat(timespec="seconds"),
         "config_file": str(cfg.source) if cfg.source else None,
         "config": cfg.model_dump(mode="json"),
         "versions": _versions(),
         "inputs": checksums,
         "cell_count": int(len(region.cells.table)),
-        "small_cells": int(region.cells.table["small"].sum()) if "small" in region.cells.table else 0,
+        "small_cells": int(region.cells.table["small"].sum())
+        if "small" in region.cells.table
+        else 0,
         "period": {
             "first_step": str(period.times[period.first]),
             "last_step": str(period.times[period.stop - 1]),
@@ -419,22 +633,32 @@ def _run_record(cfg, region, gf, dsettings, params, period, map_time, timings, f
             "continued_from": str(continue_from) if continue_from else None,
         },
         "forcing": {
-            "counts": {k: (int(v) if isinstance(v, (int, np.integer)) else v) for k, v in gf.counts.items()},
+            "counts": {
+                k: (int(v) if isinstance(v, (int, np.integer)) else v) for k, v in gf.counts.items()
+            },
             "heights_m": gf.heights_m,
             "heights_source": gf.heights_source,
             "downscaling": downscale_record(gf, dsettings),
             "cell_totals_kg_m2": forcing_sums,
         },
-        "snow": {"params": {k: (v if not isinstance(v, float) else float(v)) for k, v in params.__dict__.items()},
-                 "kernel_status_bits": status_bits},
+        "snow": {
+            "params": {
+                k: (v if not isinstance(v, float) else float(v)) for k, v in params.__dict__.items()
+            },
+            "kernel_status_bits": status_bits,
+        },
         "events": _event_log(events),
         "restarts": restart_record,
         "rain_crust_ensemble": ensemble_cost,
         "settings_fingerprint": hashlib.sha256(settings_text.encode()).hexdigest()[:16],
         "snow_fingerprint": params.fingerprint(),
-        "scheduler": {"kind": "cluster" if scheduler else ("processes" if workers else "threads"),
-                      "workers": workers, "address": scheduler, "chunks": chunks,
-                      "chunk_size": cfg.run.chunk_size},
+        "scheduler": {
+            "kind": "cluster" if scheduler else ("processes" if workers else "threads"),
+            "workers": workers,
+            "address": scheduler,
+            "chunks": chunks,
+            "chunk_size": cfg.run.chunk_size,
+        },
         "timings_s": {k: round(float(v), 3) for k, v in timings.items()},
     }
 
@@ -445,17 +669,38 @@ FORCING_VARS = {
     "rh_frac": ("f4", {"standard_name": "relative_humidity", "units": "1"}),
     "pressure_pa": ("f4", {"standard_name": "surface_air_pressure", "units": "Pa"}),
     "wind_m_s": ("f4", {"standard_name": "wind_speed", "units": "m s-1"}),
-    "sw_in_w_m2": ("f4", {"standard_name": "surface_downwelling_shortwave_flux_in_air", "units": "W m-2",
-                          "long_name": "incoming shortwave on the sloping cell, shaded, interval mean", "cell_methods": "time: mean"}),
-    "lw_in_w_m2": ("f4", {"standard_name": "surface_downwelling_longwave_flux_in_air", "units": "W m-2",
-                          "cell_methods": "time: mean"}),
-    "precip_kg_m2": ("f4", {"standard_name": "precipitation_amount", "units": "kg m-2", "cell_methods": "time: sum"}),
+    "sw_in_w_m2": (
+        "f4",
+        {
+            "standard_name": "surface_downwelling_shortwave_flux_in_air",
+            "units": "W m-2",
+            "long_name": "incoming shortwave on the sloping cell, shaded, interval mean",
+            "cell_methods": "time: mean",
+        },
+    ),
+    "lw_in_w_m2": (
+        "f4",
+        {
+            "standard_name": "surface_downwelling_longwave_flux_in_air",
+            "units": "W m-2",
+            "cell_methods": "time: mean",
+        },
+    ),
+    "precip_kg_m2": (
+        "f4",
+        {"standard_name": "precipitation_amount", "units": "kg m-2", "cell_methods": "time: sum"},
+    ),
     "snow_frac": ("f4", {"units": "1", "long_name": "solid fraction of the precipitation"}),
-    "freezing_rain_frac": ("f4", {"units": "1", "long_name": "fraction of the precipitation falling as freezing rain"}),
+    "freezing_rain_frac": (
+        "f4",
+        {"units": "1", "long_name": "fraction of the precipitation falling as freezing rain"},
+    ),
 }
 
 
-def write_cell_forcing(cfg: Config, out_dir: Path, *, force: bool = False, progress: bool = True) -> Path:
+def write_cell_forcing(
+    cfg: Config, out_dir: Path, *, force: bool = False, progress: bool = True
+) -> Path:
     """``regionmap forcing``: the downscaled hourly forcing of every cell as CF NetCDF
     (``forcing.nc``, dims cell × time), written chunk by chunk into an atomic output folder."""
     from tqdm.auto import tqdm
@@ -467,21 +712,40 @@ def write_cell_forcing(cfg: Config, out_dir: Path, *, force: bool = False, progr
     gf = open_grid_forcing(cfg)
     batch, dsettings = prepare_batch(region, gf, cfg)
     times = np.asarray(gf.time, dtype="datetime64[s]")
-    analysis = np.datetime64(cfg.forcing.analysis_time.replace(tzinfo=None), "s") if cfg.forcing.analysis_time else None
+    analysis = (
+        np.datetime64(cfg.forcing.analysis_time.replace(tzinfo=None), "s")
+        if cfg.forcing.analysis_time
+        else None
+    )
     is_fc = times > analysis if analysis is not None else np.zeros(times.size, bool)
     table = cells_frame(region)
     with OutputFolder(out_dir, force=force) as folder:
-        writer = CellsNcWriter(folder.path / "forcing.nc", table, times, times - np.timedelta64(3600, "s"), is_fc,
-                               variables=FORCING_VARS, title="regionmap downscaled per-cell forcing",
-                               global_attrs={"downscaling": json.dumps(downscale_record(gf, dsettings), default=str),
-                                             "wind_height_m": float(gf.heights_m["wind"]),
-                                             "temperature_height_m": float(gf.heights_m["temperature"])})
+        writer = CellsNcWriter(
+            folder.path / "forcing.nc",
+            table,
+            times,
+            times - np.timedelta64(3600, "s"),
+            is_fc,
+            variables=FORCING_VARS,
+            title="regionmap downscaled per-cell forcing",
+            global_attrs={
+                "downscaling": json.dumps(downscale_record(gf, dsettings), default=str),
+                "wind_height_m": float(gf.heights_m["wind"]),
+                "temperature_height_m": float(gf.heights_m["temperature"]),
+            },
+        )
         try:
             groups = batch.zone_code if dsettings.drift else None  # drift: whole zones per chunk
-            for lo, hi in tqdm(chunk_ranges(batch.n_cells, cfg.run.chunk_size, groups), desc="cell chunks",
-                               unit="chunk", disable=not progress):
+            for lo, hi in tqdm(
+                chunk_ranges(batch.n_cells, cfg.run.chunk_size, groups),
+                desc="cell chunks",
+                unit="chunk",
+                disable=not progress,
+            ):
                 f = downscale_cells(gf, batch.subset(np.arange(lo, hi)), dsettings)
-                writer.write_chunk(np.arange(lo, hi), {name: getattr(f, name) for name in FORCING_VARS})
+                writer.write_chunk(
+                    np.arange(lo, hi), {name: getattr(f, name) for name in FORCING_VARS}
+                )
             writer.close()
         except BaseException:
             writer.abort()

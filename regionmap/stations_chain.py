@@ -102,16 +102,26 @@ def _station_pixels(dem, stations: pd.DataFrame) -> tuple[np.ndarray, np.ndarray
         sid = stations.index[np.flatnonzero(outside)].tolist()
         raise InputError(
             f"{src}: station(s) {sid} lie outside the DEM {dem.path}; expected lon/lat (WGS 84) "
-            "inside the region's DEM. Hint: check the station coordinates or leave the station out.")
+            "inside the region's DEM. Hint: check the station coordinates or leave the station out."
+        )
     nodata = ~np.isfinite(dem.elevation_m[row, col])
     if nodata.any():
         sid = stations.index[np.flatnonzero(nodata)].tolist()
-        raise InputError(f"{src}: station(s) {sid} lie on DEM nodata in {dem.path}; no terrain there.")
+        raise InputError(
+            f"{src}: station(s) {sid} lie on DEM nodata in {dem.path}; no terrain there."
+        )
     return row, col
 
 
-def station_cells(stations: pd.DataFrame, dem, terrain, *, sun_azimuth_step_deg: float = 10.0,
-                  sun_elevation_step_deg: float = 5.0, horizontal: bool = False) -> StationCells:
+def station_cells(
+    stations: pd.DataFrame,
+    dem,
+    terrain,
+    *,
+    sun_azimuth_step_deg: float = 10.0,
+    sun_elevation_step_deg: float = 5.0,
+    horizontal: bool = False,
+) -> StationCells:
     """Describe station points as one-pixel cells from the DEM terrain.
 
     Parameters
@@ -149,27 +159,46 @@ def station_cells(stations: pd.DataFrame, dem, terrain, *, sun_azimuth_step_deg:
     sx = np.asarray(terrain.sx_deg[:, row, col], dtype=np.float64).T.reshape(n, -1)
     sun_az = np.arange(0.0, 360.0 - 1e-9, sun_azimuth_step_deg)
     sun_el = np.arange(0.0, 90.0 + 1e-9, sun_elevation_step_deg)
-    sunlit = sunlit_tables(np.arange(n), terrain.horizon_deg[:, row, col], slope, aspect,
-                           terrain.horizon_azimuths_deg, n, sun_az, sun_el)
-    meta = stations["exposure_class"].fillna("").astype(str).to_numpy() if "exposure_class" in stations \
+    sunlit = sunlit_tables(
+        np.arange(n),
+        terrain.horizon_deg[:, row, col],
+        slope,
+        aspect,
+        terrain.horizon_azimuths_deg,
+        n,
+        sun_az,
+        sun_el,
+    )
+    meta = (
+        stations["exposure_class"].fillna("").astype(str).to_numpy()
+        if "exposure_class" in stations
         else np.full(n, "", dtype=object)
+    )
     from_sx = exposure_class_from_sx(sx)
     exposure = np.where(meta != "", meta, from_sx).astype(object)
-    table = pd.DataFrame({
-        "zone": [f"station {s}" for s in stations.index],
-        "elevation_m": stations["elevation_m"].to_numpy(float),
-        "slope_deg": slope,
-        "aspect_deg": aspect,
-        "sky_view_frac": terrain.sky_view_frac[row, col].astype(np.float64),
-        "lon": stations["lon"].to_numpy(float),
-        "lat": stations["lat"].to_numpy(float),
-        "area_km2": dem.pixel_area_m2()[row, col] / 1e6,
-        "station_id": stations.index.to_numpy(dtype=object),
-        "row": row,
-        "col": col,
-    })
-    return StationCells(table, sx, np.asarray(terrain.sx_directions_deg, dtype=np.float64), sunlit,
-                        exposure, np.where(meta != "", "metadata", "terrain (Sx)").astype(object))
+    table = pd.DataFrame(
+        {
+            "zone": [f"station {s}" for s in stations.index],
+            "elevation_m": stations["elevation_m"].to_numpy(float),
+            "slope_deg": slope,
+            "aspect_deg": aspect,
+            "sky_view_frac": terrain.sky_view_frac[row, col].astype(np.float64),
+            "lon": stations["lon"].to_numpy(float),
+            "lat": stations["lat"].to_numpy(float),
+            "area_km2": dem.pixel_area_m2()[row, col] / 1e6,
+            "station_id": stations.index.to_numpy(dtype=object),
+            "row": row,
+            "col": col,
+        }
+    )
+    return StationCells(
+        table,
+        sx,
+        np.asarray(terrain.sx_directions_deg, dtype=np.float64),
+        sunlit,
+        exposure,
+        np.where(meta != "", "metadata", "terrain (Sx)").astype(object),
+    )
 
 
 def _batch(cells: StationCells, gf, settings):
@@ -177,8 +206,14 @@ def _batch(cells: StationCells, gf, settings):
 
     t = cells.table
     gf.check_covers(t["lon"].to_numpy(float), t["lat"].to_numpy(float))
-    batch = prepare_cells(cells, gf, settings, pixel_cell=np.arange(len(t), dtype=np.int64),
-                          pixel_lon_deg=t["lon"].to_numpy(float), pixel_lat_deg=t["lat"].to_numpy(float))
+    batch = prepare_cells(
+        cells,
+        gf,
+        settings,
+        pixel_cell=np.arange(len(t), dtype=np.int64),
+        pixel_lon_deg=t["lon"].to_numpy(float),
+        pixel_lat_deg=t["lat"].to_numpy(float),
+    )
     batch.exposure_class = np.asarray(cells.exposure_class, dtype=object)
     return batch
 
@@ -193,7 +228,8 @@ def _time_slice(gf_time: np.ndarray, period) -> slice:
     if i1 <= i0:
         raise InputError(
             f"Stations: the period {start} .. {end} UTC has no forcing hour (the forcing covers "
-            f"{t[0]} .. {t[-1]} UTC); hint: observations must overlap the [forcing] period.")
+            f"{t[0]} .. {t[-1]} UTC); hint: observations must overlap the [forcing] period."
+        )
     return slice(i0, i1)
 
 
@@ -209,8 +245,16 @@ def _region_parts(cfg: Config, region):
     return dem, compute_terrain(dem, terrain_settings(cfg))
 
 
-def station_model_series(cfg: Config, stations: pd.DataFrame, period=None, *, region=None,
-                         grid_forcing=None, snow: bool = False, raw: bool = False) -> pd.DataFrame:
+def station_model_series(
+    cfg: Config,
+    stations: pd.DataFrame,
+    period=None,
+    *,
+    region=None,
+    grid_forcing=None,
+    snow: bool = False,
+    raw: bool = False,
+) -> pd.DataFrame:
     """Hourly model series at each station, downscaled by the cells' chain.
 
     Parameters
@@ -253,7 +297,10 @@ def station_model_series(cfg: Config, stations: pd.DataFrame, period=None, *, re
     if raw:
         settings = replace(settings, bias={}, quantile_tables=[])
     cs = cell_settings(cfg)
-    steps = dict(sun_azimuth_step_deg=cs.sun_azimuth_step_deg, sun_elevation_step_deg=cs.sun_elevation_step_deg)
+    steps = dict(
+        sun_azimuth_step_deg=cs.sun_azimuth_step_deg,
+        sun_elevation_step_deg=cs.sun_elevation_step_deg,
+    )
     on_terrain = station_cells(stations, dem, terrain, **steps)
     flat = station_cells(stations, dem, terrain, horizontal=True, **steps)
     wanted = _time_slice(gf.time, period)
@@ -270,13 +317,20 @@ def station_model_series(cfg: Config, stations: pd.DataFrame, period=None, *, re
         from regionmap.snow.state import SnowState
 
         params = snow_params(cfg)
-        state0 = SnowState.empty(n, params.max_layers, time=forcing.time[0] - np.timedelta64(3600, "s"))
+        state0 = SnowState.empty(
+            n, params.max_layers, time=forcing.time[0] - np.timedelta64(3600, "s")
+        )
         _, diags, _ = run_columns(state0, forcing, params, 1, with_snapshots=False)
         columns["snow_depth"] = diags["snow_depth_cm"].astype(np.float64)[:, keep] / 100.0
         columns["snow_water_equivalent"] = diags["swe_kg_m2"][:, keep]
     index = pd.MultiIndex.from_arrays(
-        [np.repeat(stations.index.to_numpy(dtype=object), nt), np.tile(time, n)], names=["station_id", "time"])
-    out = pd.DataFrame({k: np.asarray(v, dtype=np.float64).reshape(n * nt) for k, v in columns.items()}, index=index)
+        [np.repeat(stations.index.to_numpy(dtype=object), nt), np.tile(time, n)],
+        names=["station_id", "time"],
+    )
+    out = pd.DataFrame(
+        {k: np.asarray(v, dtype=np.float64).reshape(n * nt) for k, v in columns.items()},
+        index=index,
+    )
     out.attrs["exposure_class"] = dict(zip(stations.index, on_terrain.exposure_class))
     out.attrs["exposure_source"] = dict(zip(stations.index, on_terrain.exposure_source))
     return out
@@ -284,7 +338,9 @@ def station_model_series(cfg: Config, stations: pd.DataFrame, period=None, *, re
 
 # ------------------------------------------------------------------------------ commands
 def _observation_period(obs: pd.DataFrame) -> tuple[np.datetime64, np.datetime64]:
-    start = obs["interval_start"].to_numpy().astype("datetime64[s]").min() + np.timedelta64(3600, "s")
+    start = obs["interval_start"].to_numpy().astype("datetime64[s]").min() + np.timedelta64(
+        3600, "s"
+    )
     end = obs.index.get_level_values("time").to_numpy().astype("datetime64[s]").max()
     return start, end
 
@@ -297,7 +353,8 @@ def _clip_to_forcing(gf, obs: pd.DataFrame, where: str) -> tuple[np.datetime64, 
         raise InputError(
             f"{where}: the observations ({start - np.timedelta64(3600, 's')} .. {end} UTC) do not "
             f"overlap the forcing ({t[0]} .. {t[-1]} UTC); hint: give observations inside the "
-            "[forcing] period.")
+            "[forcing] period."
+        )
     return a, b
 
 
@@ -305,7 +362,11 @@ def _read_inputs(stations_path, observation_paths):
     from regionmap.io.stations import read_observations, read_stations
 
     stations = read_stations(stations_path)
-    paths = [observation_paths] if isinstance(observation_paths, (str, Path)) else list(observation_paths)
+    paths = (
+        [observation_paths]
+        if isinstance(observation_paths, (str, Path))
+        else list(observation_paths)
+    )
     return stations, read_observations(paths, stations)
 
 
@@ -318,7 +379,9 @@ def _matched(cfg, stations, obs, *, raw, where, region=None, grid_forcing=None):
     used = stations.loc[sorted(set(obs.index.get_level_values("station_id")))]
     used.attrs.update(stations.attrs)
     snow = any(v in obs.columns and obs[v].notna().any() for v in _SNOW_VARIABLES)
-    model = station_model_series(cfg, used, period, region=region, grid_forcing=gf, snow=snow, raw=raw)
+    model = station_model_series(
+        cfg, used, period, region=region, grid_forcing=gf, snow=snow, raw=raw
+    )
     matched = aggregate_model_to_observations(model, obs)
     return model, matched
 
@@ -331,17 +394,31 @@ def _undercatch_corrected(obs: pd.DataFrame, undercatch) -> pd.DataFrame:
         return obs
     missing = [v for v in ("wind_speed", "air_temperature") if v not in obs.columns]
     if missing:
-        raise InputError(f"verify: the undercatch correction needs observed {missing} beside the "
-                         "precipitation; they are not in the observation files.")
+        raise InputError(
+            f"verify: the undercatch correction needs observed {missing} beside the "
+            "precipitation; they are not in the observation files."
+        )
     out = obs.copy()
     out["precipitation"] = correct_undercatch_kochendorfer2017(
-        obs["precipitation"].to_numpy(float), obs["wind_speed"].to_numpy(float),
-        obs["air_temperature"].to_numpy(float), shield=undercatch)
+        obs["precipitation"].to_numpy(float),
+        obs["wind_speed"].to_numpy(float),
+        obs["air_temperature"].to_numpy(float),
+        shield=undercatch,
+    )
     return out
 
 
-_CONSOLE = {"station_id": "station", "variable": "variable", "units": "unit", "n": "n", "bias": "bias",
-            "mae": "MAE", "rmse": "RMSE", "r2": "R2", "total_percent_difference": "total %"}
+_CONSOLE = {
+    "station_id": "station",
+    "variable": "variable",
+    "units": "unit",
+    "n": "n",
+    "bias": "bias",
+    "mae": "MAE",
+    "rmse": "RMSE",
+    "r2": "R2",
+    "total_percent_difference": "total %",
+}
 
 
 def _print_table(table: pd.DataFrame, columns: dict = _CONSOLE) -> None:
@@ -349,8 +426,16 @@ def _print_table(table: pd.DataFrame, columns: dict = _CONSOLE) -> None:
     print(view.to_string(index=False, float_format=lambda v: f"{v:.3g}", na_rep="-"))
 
 
-def verify_command(cfg: Config, stations_path, observation_paths, out_dir, *, undercatch=None,
-                   echo: bool = True, region=None) -> pd.DataFrame:
+def verify_command(
+    cfg: Config,
+    stations_path,
+    observation_paths,
+    out_dir,
+    *,
+    undercatch=None,
+    echo: bool = True,
+    region=None,
+) -> pd.DataFrame:
     """``regionmap verify``: model at the stations against their observations.
 
     Parameters
@@ -398,11 +483,19 @@ def verify_command(cfg: Config, stations_path, observation_paths, out_dir, *, un
     csv_path = write_verification_csv(table, out / "verification.csv")
     figures = write_verification_figures(matched, obs, out / "figures")
     if echo:
-        note = f", observed precipitation corrected for undercatch ({undercatch})" if undercatch else ""
-        print(f"Downscaled model against station observations{note}, {start - np.timedelta64(3600, 's')} "
-              f"to {end} UTC (bias = model minus observation):")
+        note = (
+            f", observed precipitation corrected for undercatch ({undercatch})"
+            if undercatch
+            else ""
+        )
+        print(
+            f"Downscaled model against station observations{note}, {start - np.timedelta64(3600, 's')} "
+            f"to {end} UTC (bias = model minus observation):"
+        )
         _print_table(table)
-        print(f"\nTable: {csv_path}; figures: {', '.join(p.name for p in figures)} in {out / 'figures'}.")
+        print(
+            f"\nTable: {csv_path}; figures: {', '.join(p.name for p in figures)} in {out / 'figures'}."
+        )
         print(f"Caution: station scores describe the model at a few points. {CAUTION}")
     return table
 
@@ -413,16 +506,37 @@ def _calibrate_observed(matched, obs, stations, *, method, per_month, undercatch
     from regionmap.calibrate import DEFAULT_KIND, QM_KIND, calibrate
 
     kinds = DEFAULT_KIND if method == "scaling" else QM_KIND
-    present = [v for v in kinds if v in matched.columns and v in obs.columns and obs[v].notna().any()]
+    present = [
+        v for v in kinds if v in matched.columns and v in obs.columns and obs[v].notna().any()
+    ]
     if not present:
-        raise InputError(f"calibrate: the observations hold none of the variables that can be fitted "
-                         f"({sorted(kinds)}); got {[c for c in obs.columns if c != 'interval_start']}.")
-    return calibrate(matched, obs, stations, variables=present, method=method, per_month=per_month,
-                     undercatch=undercatch)
+        raise InputError(
+            f"calibrate: the observations hold none of the variables that can be fitted "
+            f"({sorted(kinds)}); got {[c for c in obs.columns if c != 'interval_start']}."
+        )
+    return calibrate(
+        matched,
+        obs,
+        stations,
+        variables=present,
+        method=method,
+        per_month=per_month,
+        undercatch=undercatch,
+    )
 
 
-def calibrate_command(cfg: Config, stations_path, observation_paths, out_dir, *, method="scaling",
-                      per_month: bool = False, undercatch=None, echo: bool = True, region=None):
+def calibrate_command(
+    cfg: Config,
+    stations_path,
+    observation_paths,
+    out_dir,
+    *,
+    method="scaling",
+    per_month: bool = False,
+    undercatch=None,
+    echo: bool = True,
+    region=None,
+):
     """``regionmap calibrate``: fit ``[bias]`` settings from the station overlap.
 
     The model is downscaled **without** the config's current ``[bias]`` (the fitted settings
@@ -467,12 +581,16 @@ def calibrate_command(cfg: Config, stations_path, observation_paths, out_dir, *,
     stations, obs = _read_inputs(stations_path, observation_paths)
     model, matched = _matched(cfg, stations, obs, raw=True, where="calibrate", region=region)
     stations = stations.copy()
-    derived = [s for s in stations.index if s in model.attrs["exposure_source"]
-               and model.attrs["exposure_source"][s] != "metadata"]
+    derived = [
+        s
+        for s in stations.index
+        if s in model.attrs["exposure_source"] and model.attrs["exposure_source"][s] != "metadata"
+    ]
     for s in derived:
         stations.loc[s, "exposure_class"] = model.attrs["exposure_class"][s]
-    result = _calibrate_observed(matched, obs, stations, method=method, per_month=per_month,
-                                 undercatch=undercatch)
+    result = _calibrate_observed(
+        matched, obs, stations, method=method, per_month=per_month, undercatch=undercatch
+    )
     out = Path(out_dir)
     qm_path = None
     if result.qm_tables:
@@ -480,22 +598,38 @@ def calibrate_command(cfg: Config, stations_path, observation_paths, out_dir, *,
         qm_path = write_qm_table(out / "qm.nc", result.qm_tables)
     text = bias_toml(result, quantile_mapping_file=str(qm_path) if qm_path else "qm.nc")
     if derived:
-        result.notes.append("exposure class from the terrain (Sx) for station(s) " + ", ".join(
-            f"{s}: {model.attrs['exposure_class'][s]}" for s in derived) + "; give exposure_class in "
-            "the station metadata to set it yourself.")
+        result.notes.append(
+            "exposure class from the terrain (Sx) for station(s) "
+            + ", ".join(f"{s}: {model.attrs['exposure_class'][s]}" for s in derived)
+            + "; give exposure_class in "
+            "the station metadata to set it yourself."
+        )
     if echo:
         print(text)
-        print("Skill before (raw), after (fitted, in sample) and cross-validated (leave one month out); "
-              "bias = model minus observation:")
-        cols = {"exposure_class": "exposure", "variable": "variable", "stage": "stage", "n": "n", "bias": "bias",
-                "mae": "MAE", "rmse": "RMSE", "r2": "R2", "total_percent_difference": "total %"}
+        print(
+            "Skill before (raw), after (fitted, in sample) and cross-validated (leave one month out); "
+            "bias = model minus observation:"
+        )
+        cols = {
+            "exposure_class": "exposure",
+            "variable": "variable",
+            "stage": "stage",
+            "n": "n",
+            "bias": "bias",
+            "mae": "MAE",
+            "rmse": "RMSE",
+            "r2": "R2",
+            "total_percent_difference": "total %",
+        }
         _print_table(result.skill, cols)
         for note in result.notes:
             print(f"  note: {note}")
         if qm_path:
             print(f"Quantile-mapping tables: {qm_path}")
-        print("Caution: settings fitted at a few stations describe the model's past behaviour there; "
-              "check them against field observations before relying on them. " + CAUTION)
+        print(
+            "Caution: settings fitted at a few stations describe the model's past behaviour there; "
+            "check them against field observations before relying on them. " + CAUTION
+        )
     return text, result.skill
 
 
@@ -539,11 +673,14 @@ def run_verification_last_day(cfg: Config, region, out_dir, map_time, *, grid_fo
     day = obs.loc[(t > start) & (t <= end) & (t0 >= start)]
     day.attrs.update(obs.attrs)
     if day.empty:
-        warn(f"[stations]: no observation in the day before the map time ({start} .. {end} UTC); "
-             "no verification.csv written")
+        warn(
+            f"[stations]: no observation in the day before the map time ({start} .. {end} UTC); "
+            "no verification.csv written"
+        )
         return None
-    model, matched = _matched(cfg, stations, day, raw=False, where="[stations]", region=region,
-                              grid_forcing=grid_forcing)
+    model, matched = _matched(
+        cfg, stations, day, raw=False, where="[stations]", region=region, grid_forcing=grid_forcing
+    )
     table = verification_table(matched, day)
     table["period_start"] = str(start)
     table["period_end"] = str(end)

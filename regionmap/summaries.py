@@ -61,14 +61,23 @@ __all__ = [
 ]
 
 #: weak-layer families and the grain codes each covers (Fierz et al. 2009 classes).
-PWL_FAMILIES: dict[str, tuple[str, ...]] = {"FC": ("FC", "FCxr", "FCsf"), "DH": ("DH",), "SH": ("SH",)}
+PWL_FAMILIES: dict[str, tuple[str, ...]] = {
+    "FC": ("FC", "FCxr", "FCsf"),
+    "DH": ("DH",),
+    "SH": ("SH",),
+}
 CRUST_TYPES: tuple[str, ...] = tuple(k for k in CRUST_KINDS if k != "none")
 
 
 # --------------------------------------------------------------------------- weights
-def terrain_weights_km2(index: np.ndarray, slope_deg: np.ndarray, pixel_area_m2: np.ndarray,
-                        n_cells: int, *, avalanche_terrain_deg: tuple[float, float] = (30.0, 50.0)
-                        ) -> pd.DataFrame:
+def terrain_weights_km2(
+    index: np.ndarray,
+    slope_deg: np.ndarray,
+    pixel_area_m2: np.ndarray,
+    n_cells: int,
+    *,
+    avalanche_terrain_deg: tuple[float, float] = (30.0, 50.0),
+) -> pd.DataFrame:
     """Per-cell area in avalanche terrain and in all terrain, from the pixels.
 
     Parameters
@@ -102,7 +111,9 @@ def terrain_weights_km2(index: np.ndarray, slope_deg: np.ndarray, pixel_area_m2:
     steep = (slope >= lo) & (slope <= hi)
     return pd.DataFrame(
         {
-            "avalanche_km2": np.bincount(cell, weights=area_km2 * steep, minlength=n_cells)[:n_cells],
+            "avalanche_km2": np.bincount(cell, weights=area_km2 * steep, minlength=n_cells)[
+                :n_cells
+            ],
             "all_km2": np.bincount(cell, weights=area_km2, minlength=n_cells)[:n_cells],
         },
         index=pd.RangeIndex(n_cells, name="cell_id"),
@@ -115,7 +126,9 @@ def _to_utc_naive(t) -> pd.Timestamp:
     return ts.tz_convert("UTC").tz_localize(None) if ts.tzinfo is not None else ts
 
 
-def observation_times(start, end, *, local_timezone: str = "UTC", observation_hour: int = 7) -> np.ndarray:
+def observation_times(
+    start, end, *, local_timezone: str = "UTC", observation_hour: int = 7
+) -> np.ndarray:
     """UTC instants in [start, end] at which a local observation day ends.
 
     Parameters
@@ -134,17 +147,24 @@ def observation_times(start, end, *, local_timezone: str = "UTC", observation_ho
     last = (t1.tz_localize("UTC").tz_convert(tz) + pd.Timedelta(days=1)).date()
     days = pd.date_range(first, last, freq="D")
     local = pd.DatetimeIndex(days + pd.Timedelta(hours=observation_hour)).tz_localize(
-        tz, ambiguous=True, nonexistent="shift_forward")
+        tz, ambiguous=True, nonexistent="shift_forward"
+    )
     utc = local.tz_convert("UTC").tz_localize(None)
     utc = utc[(utc >= t0) & (utc <= t1)]
     return utc.to_numpy().astype("datetime64[s]")
 
 
-def observation_window_start(end_utc: np.ndarray, n_days: int, *, local_timezone: str = "UTC") -> np.ndarray:
+def observation_window_start(
+    end_utc: np.ndarray, n_days: int, *, local_timezone: str = "UTC"
+) -> np.ndarray:
     """Start (UTC) of the window of ``n_days`` local days that ends at ``end_utc``: the same
     local clock time ``n_days`` calendar days earlier (23 h or 25 h days at clock changes)."""
     tz = zoneinfo.ZoneInfo(local_timezone)
-    local = pd.DatetimeIndex(np.asarray(end_utc, dtype="datetime64[s]")).tz_localize("UTC").tz_convert(tz)
+    local = (
+        pd.DatetimeIndex(np.asarray(end_utc, dtype="datetime64[s]"))
+        .tz_localize("UTC")
+        .tz_convert(tz)
+    )
     wall = local.tz_localize(None) - pd.Timedelta(days=n_days)
     back = wall.tz_localize(tz, ambiguous=True, nonexistent="shift_forward")
     return back.tz_convert("UTC").tz_localize(None).to_numpy().astype("datetime64[s]")
@@ -153,7 +173,9 @@ def observation_window_start(end_utc: np.ndarray, n_days: int, *, local_timezone
 def _times_of(diag: xr.Dataset) -> np.ndarray:
     t = diag["time"].values
     if not np.issubdtype(t.dtype, np.datetime64):
-        raise InputError(f"cells.nc: variable 'time' should decode to datetimes (CF units), got {t.dtype}")
+        raise InputError(
+            f"cells.nc: variable 'time' should decode to datetimes (CF units), got {t.dtype}"
+        )
     return t.astype("datetime64[s]")
 
 
@@ -221,8 +243,14 @@ def _interval_positions(times: np.ndarray, instants: np.ndarray) -> np.ndarray:
     return np.where(inside, np.searchsorted(times, instants, side="right") - 1, -1)
 
 
-def _snowfall_windows(diag: xr.Dataset, times: np.ndarray, want: np.ndarray, *,
-                      local_timezone: str, observation_hour: int) -> dict[str, np.ndarray]:
+def _snowfall_windows(
+    diag: xr.Dataset,
+    times: np.ndarray,
+    want: np.ndarray,
+    *,
+    local_timezone: str,
+    observation_hour: int,
+) -> dict[str, np.ndarray]:
     """The local observation-day windows for each wanted time.
 
     Returns ``win_end`` (n,) the end of the last observation day at or before each wanted
@@ -231,16 +259,26 @@ def _snowfall_windows(diag: xr.Dataset, times: np.ndarray, want: np.ndarray, *,
     windows (:func:`running_snowfall_at`; a window reaching back before the record is
     summed over what there is).
     """
-    obs = observation_times(times[0] - np.timedelta64(2, "D"), times[-1],
-                            local_timezone=local_timezone, observation_hour=observation_hour)
+    obs = observation_times(
+        times[0] - np.timedelta64(2, "D"),
+        times[-1],
+        local_timezone=local_timezone,
+        observation_hour=observation_hour,
+    )
     k = np.searchsorted(obs, want, side="right") - 1
     if (k < 0).any():
         raise InputError(f"summaries: no observation day ends at or before {want[k < 0][0]}")
     win_end = obs[k]
     win_pos = _positions(times, win_end, "the end of the observation day")
-    starts = [_interval_positions(times, observation_window_start(win_end, d, local_timezone=local_timezone))
-              for d in (1, 3)]
-    c_end, c_24h, c_72h = np.split(running_snowfall_at(diag, np.concatenate([win_pos, *starts])), 3, axis=1)
+    starts = [
+        _interval_positions(
+            times, observation_window_start(win_end, d, local_timezone=local_timezone)
+        )
+        for d in (1, 3)
+    ]
+    c_end, c_24h, c_72h = np.split(
+        running_snowfall_at(diag, np.concatenate([win_pos, *starts])), 3, axis=1
+    )
     return {"win_end": win_end, "win_pos": win_pos, "c_end": c_end, "c_24h": c_24h, "c_72h": c_72h}
 
 
@@ -325,9 +363,15 @@ def _codes(values: np.ndarray, table: dict[str, int], name: str, default: str | 
         for code, idx in lookup.items():  # one pass per known code (≤ 13), not per layer
             out[arr == code] = idx
     if (out < 0).any():
-        bad = sorted({v.decode("utf-8", "replace") if isinstance(v, bytes) else str(v)
-                      for v in arr[out < 0].reshape(-1)[:1000]})
-        raise InputError(f"profiles.nc: variable {name!r} holds unknown codes {bad[:5]}; expected one of {sorted(table)}")
+        bad = sorted(
+            {
+                v.decode("utf-8", "replace") if isinstance(v, bytes) else str(v)
+                for v in arr[out < 0].reshape(-1)[:1000]
+            }
+        )
+        raise InputError(
+            f"profiles.nc: variable {name!r} holds unknown codes {bad[:5]}; expected one of {sorted(table)}"
+        )
     return out.astype(np.int8)
 
 
@@ -351,24 +395,45 @@ def decode_snapshot(profiles: xr.Dataset, days=None) -> LayerSnapshot:
         ``deposition_time``, ``event_id``; layers bottom first.
     days : positions along ``day`` to decode (default all).
     """
-    need = ["layer_count", "thickness_m", "ice_kg_m2", "liquid_kg_m2", "grain_class",
-            "crust_kind", "formation_time", "deposition_time", "event_id"]
+    need = [
+        "layer_count",
+        "thickness_m",
+        "ice_kg_m2",
+        "liquid_kg_m2",
+        "grain_class",
+        "crust_kind",
+        "formation_time",
+        "deposition_time",
+        "event_id",
+    ]
     missing = [v for v in need if v not in profiles.variables]
     if missing:
-        raise InputError(f"profiles.nc: missing variables {missing}; expected the layer snapshot fields of DESIGN §3")
+        raise InputError(
+            f"profiles.nc: missing variables {missing}; expected the layer snapshot fields of DESIGN §3"
+        )
     ds = profiles if days is None else profiles.isel(day=np.atleast_1d(days))
     ds = ds.transpose("cell", "day", "layer", ...)
     day = ds["day"].values
     if not np.issubdtype(day.dtype, np.datetime64):
-        raise InputError(f"profiles.nc: coordinate 'day' should decode to datetimes, got {day.dtype}")
+        raise InputError(
+            f"profiles.nc: coordinate 'day' should decode to datetimes, got {day.dtype}"
+        )
     n_layer = ds.sizes["layer"]
     count = np.nan_to_num(ds["layer_count"].values.astype(np.float64), nan=0).astype(np.int64)
     valid = np.arange(n_layer)[None, None, :] < count[:, :, None]
     thick = np.where(valid, np.nan_to_num(ds["thickness_m"].values.astype(np.float64)), 0.0)
-    mass = np.where(valid, np.nan_to_num(ds["ice_kg_m2"].values.astype(np.float64))
-                    + np.nan_to_num(ds["liquid_kg_m2"].values.astype(np.float64)), 0.0)
-    grain = np.where(valid, _codes(ds["grain_class"].values, GRAIN_INDEX, "grain_class", None), 0).astype(np.int8)
-    crust = np.where(valid, _codes(ds["crust_kind"].values, CRUST_INDEX, "crust_kind", "none"), 0).astype(np.int8)
+    mass = np.where(
+        valid,
+        np.nan_to_num(ds["ice_kg_m2"].values.astype(np.float64))
+        + np.nan_to_num(ds["liquid_kg_m2"].values.astype(np.float64)),
+        0.0,
+    )
+    grain = np.where(
+        valid, _codes(ds["grain_class"].values, GRAIN_INDEX, "grain_class", None), 0
+    ).astype(np.int8)
+    crust = np.where(
+        valid, _codes(ds["crust_kind"].values, CRUST_INDEX, "crust_kind", "none"), 0
+    ).astype(np.int8)
     formation = _seconds_of(ds["formation_time"].values)
     deposition = _seconds_of(ds["deposition_time"].values)
     event = np.nan_to_num(ds["event_id"].values.astype(np.float64), nan=-1).astype(np.int64)
@@ -377,9 +442,20 @@ def decode_snapshot(profiles: xr.Dataset, days=None) -> LayerSnapshot:
     above_valid = np.concatenate([valid[:, :, 1:], np.zeros_like(valid[:, :, :1])], axis=2)
     above_dep = np.concatenate([deposition[:, :, 1:], deposition[:, :, :1]], axis=2)
     burial = np.where(valid & above_valid, above_dep, _NO_TIME)
-    return LayerSnapshot(day.astype("datetime64[s]"), valid, thick, mass, grain, crust,
-                         np.where(valid, formation, _NO_TIME), np.where(valid, deposition, _NO_TIME),
-                         np.where(valid, event, -1), depth_m * 100.0, load, burial)
+    return LayerSnapshot(
+        day.astype("datetime64[s]"),
+        valid,
+        thick,
+        mass,
+        grain,
+        crust,
+        np.where(valid, formation, _NO_TIME),
+        np.where(valid, deposition, _NO_TIME),
+        np.where(valid, event, -1),
+        depth_m * 100.0,
+        load,
+        burial,
+    )
 
 
 def _family_mask(snap: LayerSnapshot, family: str) -> np.ndarray:
@@ -390,17 +466,31 @@ def _family_mask(snap: LayerSnapshot, family: str) -> np.ndarray:
 # --------------------------------------------------------------------------- cell values
 def _check_alignment(diag: xr.Dataset, table: pd.DataFrame, profiles: xr.Dataset | None) -> None:
     ids = diag["cell_id"].values if "cell_id" in diag.variables else None
-    if ids is None or diag.sizes.get("cell") != len(table) or not np.array_equal(ids, table.index.to_numpy()):
+    if (
+        ids is None
+        or diag.sizes.get("cell") != len(table)
+        or not np.array_equal(ids, table.index.to_numpy())
+    ):
         raise GridMismatchError(
             f"cells.nc: its {diag.sizes.get('cell')} cells (cell_id) do not match the cell table's "
             f"{len(table)} cells in cell_id order; hint: summarise the cells.nc of this run's cells"
         )
     if profiles is not None and not np.array_equal(profiles["cell_id"].values, ids):
-        raise GridMismatchError("profiles.nc: its cell_id differs from cells.nc's; both must come from the same run")
+        raise GridMismatchError(
+            "profiles.nc: its cell_id differs from cells.nc's; both must come from the same run"
+        )
 
 
-def cell_values(diag: xr.Dataset, profiles: xr.Dataset, table: pd.DataFrame, times, *,
-                local_timezone: str = "UTC", observation_hour: int = 7, layers: bool = True) -> pd.DataFrame:
+def cell_values(
+    diag: xr.Dataset,
+    profiles: xr.Dataset,
+    table: pd.DataFrame,
+    times,
+    *,
+    local_timezone: str = "UTC",
+    observation_hour: int = 7,
+    layers: bool = True,
+) -> pd.DataFrame:
     """Per-cell metrics at each of ``times`` → long DataFrame (one row per cell × time).
 
     Parameters
@@ -425,9 +515,18 @@ def cell_values(diag: xr.Dataset, profiles: xr.Dataset, table: pd.DataFrame, tim
     ``<FC|DH|SH>_present``/``_depth_cm``/``_slab_cm`` from the snapshot, and
     ``threshold_count_max``.
     """
-    frames = _cell_value_blocks(diag, profiles, table, times, local_timezone=local_timezone,
-                                observation_hour=observation_hour, layers=layers)
-    return pd.concat(list(frames), ignore_index=True).sort_values(["cell_id", "valid_time"], ignore_index=True)
+    frames = _cell_value_blocks(
+        diag,
+        profiles,
+        table,
+        times,
+        local_timezone=local_timezone,
+        observation_hour=observation_hour,
+        layers=layers,
+    )
+    return pd.concat(list(frames), ignore_index=True).sort_values(
+        ["cell_id", "valid_time"], ignore_index=True
+    )
 
 
 #: at most this many times have their cell values built (and their layer snapshots decoded)
@@ -439,9 +538,17 @@ def _time_blocks(diag: xr.Dataset, pos: np.ndarray) -> list[slice]:
     """Consecutive runs of the output positions ``pos`` that fall in one time chunk of
     ``cells.nc``, at most ``_TIME_BLOCK`` long: each compressed chunk is then read once, not
     once for every block that reaches into it."""
-    chunks = diag["snow_depth_cm"].encoding.get("chunksizes") if "snow_depth_cm" in diag.variables else None
+    chunks = (
+        diag["snow_depth_cm"].encoding.get("chunksizes")
+        if "snow_depth_cm" in diag.variables
+        else None
+    )
     dims = diag["snow_depth_cm"].dims if chunks else ()
-    chunk_of = pos // int(chunks[dims.index("time")]) if chunks and "time" in dims else np.zeros(pos.size, int)
+    chunk_of = (
+        pos // int(chunks[dims.index("time")])
+        if chunks and "time" in dims
+        else np.zeros(pos.size, int)
+    )
     edges = [0]
     for i in range(1, pos.size):
         if chunk_of[i] != chunk_of[i - 1] or i - edges[-1] >= _TIME_BLOCK:
@@ -455,15 +562,27 @@ def _cell_value_blocks(diag, profiles, table, times, *, local_timezone, observat
     _check_alignment(diag, table, profiles)
     t_all = _times_of(diag)
     want = _as_utc_array(times)
-    win = _snowfall_windows(diag, t_all, want, local_timezone=local_timezone, observation_hour=observation_hour)
+    win = _snowfall_windows(
+        diag, t_all, want, local_timezone=local_timezone, observation_hour=observation_hour
+    )
     for part in _time_blocks(diag, _positions(t_all, want, "the summary times")):
-        yield _cell_values_block(diag, profiles, table, t_all, want[part], {k: v[..., part] for k, v in win.items()},
-                                 layers=layers)
+        yield _cell_values_block(
+            diag,
+            profiles,
+            table,
+            t_all,
+            want[part],
+            {k: v[..., part] for k, v in win.items()},
+            layers=layers,
+        )
 
 
 def _as_utc_array(times) -> np.ndarray:
-    return np.atleast_1d(np.asarray([_to_utc_naive(t).to_datetime64() for t in np.atleast_1d(times)],
-                                    dtype="datetime64[s]"))
+    return np.atleast_1d(
+        np.asarray(
+            [_to_utc_naive(t).to_datetime64() for t in np.atleast_1d(times)], dtype="datetime64[s]"
+        )
+    )
 
 
 def _cell_values_block(diag, profiles, table, t_all, want, win, *, layers) -> pd.DataFrame:
@@ -489,8 +608,11 @@ def _cell_values_block(diag, profiles, table, t_all, want, win, *, layers) -> pd
         "pwl_depth_cm": at("pwl_depth_cm"),
         "threshold_count_max": at("threshold_count_max"),
     }
-    values["snow_present"] = np.where(np.isfinite(values["snow_depth_cm"]),
-                                      (values["snow_depth_cm"] >= 1.0).astype(np.float64), np.nan)
+    values["snow_present"] = np.where(
+        np.isfinite(values["snow_depth_cm"]),
+        (values["snow_depth_cm"] >= 1.0).astype(np.float64),
+        np.nan,
+    )
     values["pwl_depth_cm"] = np.where(values["pwl_present"] > 0, values["pwl_depth_cm"], np.nan)
 
     day = profiles["day"].values.astype("datetime64[s]")
@@ -498,7 +620,11 @@ def _cell_values_block(diag, profiles, table, t_all, want, win, *, layers) -> pd
     has_snap = d >= 0
     if layers:
         values.update(_layer_values(profiles, table, d, has_snap))
-    fc = diag["is_forecast"].values.astype(bool)[pos] if "is_forecast" in diag.variables else np.zeros(n_t, bool)
+    fc = (
+        diag["is_forecast"].values.astype(bool)[pos]
+        if "is_forecast" in diag.variables
+        else np.zeros(n_t, bool)
+    )
     frame = pd.DataFrame({name: v.reshape(-1) for name, v in values.items()})
     frame.insert(0, "cell_id", np.repeat(table.index.to_numpy(), n_t))
     frame.insert(1, "valid_time", np.tile(want, n_cell))
@@ -515,7 +641,9 @@ def _layer_values(profiles, table, d, has_snap) -> dict[str, np.ndarray]:
     snap = decode_snapshot(profiles, np.maximum(d, 0))
     cos_slope = np.cos(np.deg2rad(table["slope_deg"].to_numpy(np.float64)))[:, None]
     for kind in CRUST_TYPES:
-        values[f"crust_count_{kind.replace('-', '_')}"] = (snap.crust == CRUST_INDEX[kind]).sum(axis=2).astype(np.float64)
+        values[f"crust_count_{kind.replace('-', '_')}"] = (
+            (snap.crust == CRUST_INDEX[kind]).sum(axis=2).astype(np.float64)
+        )
     any_pwl = np.zeros_like(snap.valid)
     for fam in PWL_FAMILIES:
         mask = _family_mask(snap, fam)
@@ -532,7 +660,11 @@ def _layer_values(profiles, table, d, has_snap) -> dict[str, np.ndarray]:
     load = np.take_along_axis(snap.load_above_kg_m2, top[:, :, None], axis=2)[:, :, 0]
     values["pwl_slab_cm"] = np.where(present, depth * cos_slope, np.nan)
     values["pwl_load_kg_m2"] = np.where(present, load, np.nan)
-    snap_keys = [k for k in values if k.startswith(("crust_count_", "FC_", "DH_", "SH_", "pwl_slab", "pwl_load"))]
+    snap_keys = [
+        k
+        for k in values
+        if k.startswith(("crust_count_", "FC_", "DH_", "SH_", "pwl_slab", "pwl_load"))
+    ]
     for key in snap_keys:
         values[key] = np.where(has_snap[None, :], values[key], np.nan)
     return values
@@ -540,9 +672,14 @@ def _layer_values(profiles, table, d, has_snap) -> dict[str, np.ndarray]:
 
 # --------------------------------------------------------------------------- aggregation
 _MAX_OF = ("crust_count", "threshold_count_max", "new_snow_72h_cm", "snow_depth_cm")
-_FRACTION_OF = {"depth_hoar_present": "depth_hoar_fraction", "pwl_present": "pwl_fraction",
-                "snow_present": "snow_fraction", "FC_present": "FC_fraction",
-                "DH_present": "DH_fraction", "SH_present": "SH_fraction"}
+_FRACTION_OF = {
+    "depth_hoar_present": "depth_hoar_fraction",
+    "pwl_present": "pwl_fraction",
+    "snow_present": "snow_fraction",
+    "FC_present": "FC_fraction",
+    "DH_present": "DH_fraction",
+    "SH_present": "SH_fraction",
+}
 
 
 def band_label(lower_m, upper_m) -> np.ndarray:
@@ -555,7 +692,9 @@ def band_label(lower_m, upper_m) -> np.ndarray:
     return np.where(~np.isfinite(hi), ">" + lo_s, out)
 
 
-def summarise(values: pd.DataFrame, table: pd.DataFrame, weight_km2, *, by=("zone",)) -> pd.DataFrame:
+def summarise(
+    values: pd.DataFrame, table: pd.DataFrame, weight_km2, *, by=("zone",)
+) -> pd.DataFrame:
     """Area-weighted summary of :func:`cell_values` rows per ``by`` × valid time.
 
     Parameters
@@ -582,11 +721,16 @@ def summarise(values: pd.DataFrame, table: pd.DataFrame, weight_km2, *, by=("zon
     # group code = (cell-table group of the row's cell, valid time): integer arithmetic, no sort of rows
     cell_group, groups = pd.factorize(pd.MultiIndex.from_frame(table[keys]), sort=True)
     t_code, t_uniq = pd.factorize(values["valid_time"].to_numpy(), sort=True)
-    gid, first = np.unique(cell_group[pos].astype(np.int64) * len(t_uniq) + t_code, return_index=True)
+    gid, first = np.unique(
+        cell_group[pos].astype(np.int64) * len(t_uniq) + t_code, return_index=True
+    )
     inv = np.searchsorted(gid, cell_group[pos].astype(np.int64) * len(t_uniq) + t_code)
     n_g = gid.size
-    metrics = [c for c in values.columns if c not in
-               ("cell_id", "valid_time", "is_forecast", "profile_time", "new_snow_window_end")]
+    metrics = [
+        c
+        for c in values.columns
+        if c not in ("cell_id", "valid_time", "is_forecast", "profile_time", "new_snow_window_end")
+    ]
     out = pd.DataFrame(groups[gid // len(t_uniq)].tolist(), columns=keys)
     out["valid_time"] = t_uniq[gid % len(t_uniq)]
     for col in ("is_forecast", "new_snow_window_end", "profile_time"):
@@ -594,13 +738,21 @@ def summarise(values: pd.DataFrame, table: pd.DataFrame, weight_km2, *, by=("zon
     out["is_forecast"] = out["is_forecast"].astype(bool)
     out["area_km2"] = np.bincount(inv, weights=np.nan_to_num(w), minlength=n_g)
     for m in [*metrics, "elevation_m"]:
-        x = table["elevation_m"].to_numpy(np.float64)[pos] if m == "elevation_m" else values[m].to_numpy(np.float64)
+        x = (
+            table["elevation_m"].to_numpy(np.float64)[pos]
+            if m == "elevation_m"
+            else values[m].to_numpy(np.float64)
+        )
         ok = np.isfinite(x) & (w > 0)
         sw = np.bincount(inv, weights=np.where(ok, w, 0.0), minlength=n_g)
         sx = np.bincount(inv, weights=np.where(ok, x * w, 0.0), minlength=n_g)
         with np.errstate(invalid="ignore", divide="ignore"):
             mean = np.where(sw > 0, sx / sw, np.nan)
-        name = "mean_elevation_m" if m == "elevation_m" else _FRACTION_OF.get(m, m if m != "crust_count" else "crust_count_mean")
+        name = (
+            "mean_elevation_m"
+            if m == "elevation_m"
+            else _FRACTION_OF.get(m, m if m != "crust_count" else "crust_count_mean")
+        )
         out[name] = mean
         if m in _MAX_OF:
             mx = np.full(n_g, -np.inf)
@@ -614,8 +766,14 @@ def summarise(values: pd.DataFrame, table: pd.DataFrame, weight_km2, *, by=("zon
     return out
 
 
-def band_transitions(frame: pd.DataFrame, keys: list[str], frac_col: str, *,
-                     centre_col: str = "band_centre_m", level: float = 0.5) -> pd.DataFrame:
+def band_transitions(
+    frame: pd.DataFrame,
+    keys: list[str],
+    frac_col: str,
+    *,
+    centre_col: str = "band_centre_m",
+    level: float = 0.5,
+) -> pd.DataFrame:
     """Where presence changes with elevation, interpolated linearly between band centres.
 
     For each group of ``keys`` the bands are sorted by centre; a band counts as "with" the
@@ -689,15 +847,31 @@ class SummaryTables:
     snow_line: pd.DataFrame
 
 
-_ALL_TERRAIN_COLUMNS = ("area_km2", "depth_hoar_fraction", "pwl_fraction", "crust_count_mean",
-                        "new_snow_24h_cm", "new_snow_72h_cm", "new_snow_72h_kg_m2", "snow_depth_cm")
+_ALL_TERRAIN_COLUMNS = (
+    "area_km2",
+    "depth_hoar_fraction",
+    "pwl_fraction",
+    "crust_count_mean",
+    "new_snow_24h_cm",
+    "new_snow_72h_cm",
+    "new_snow_72h_kg_m2",
+    "snow_depth_cm",
+)
 _BAND_ASPECT = ["zone", "band_lower_m", "band_upper_m", "aspect_sector"]
 
 
-def summary_tables(diag: xr.Dataset, profiles: xr.Dataset, table: pd.DataFrame, weights: pd.DataFrame, *,
-                   map_time, local_timezone: str = "UTC", observation_hour: int = 7,
-                   avalanche_terrain_deg: tuple[float, float] = (30.0, 50.0),
-                   daily_layers: bool = False) -> SummaryTables:
+def summary_tables(
+    diag: xr.Dataset,
+    profiles: xr.Dataset,
+    table: pd.DataFrame,
+    weights: pd.DataFrame,
+    *,
+    map_time,
+    local_timezone: str = "UTC",
+    observation_hour: int = 7,
+    avalanche_terrain_deg: tuple[float, float] = (30.0, 50.0),
+    daily_layers: bool = False,
+) -> SummaryTables:
     """All summaries of a run: per zone and per zone × band × aspect at the map time, and
     daily series at the local observation-day ends.
 
@@ -713,7 +887,9 @@ def summary_tables(diag: xr.Dataset, profiles: xr.Dataset, table: pd.DataFrame, 
         by default they carry the ``cells.nc`` metrics and the map time carries all.
     """
     t_all = _times_of(diag)
-    obs = observation_times(t_all[0], t_all[-1], local_timezone=local_timezone, observation_hour=observation_hour)
+    obs = observation_times(
+        t_all[0], t_all[-1], local_timezone=local_timezone, observation_hour=observation_hour
+    )
     map_t = _as_utc_array(map_time)
     kw = dict(local_timezone=local_timezone, observation_hour=observation_hour)
     at_map = cell_values(diag, profiles, table, map_t, **kw)
@@ -721,8 +897,12 @@ def summary_tables(diag: xr.Dataset, profiles: xr.Dataset, table: pd.DataFrame, 
     terrain_label = {"avalanche": f"avalanche terrain ({lo:g}-{hi:g} deg)", "all": "all terrain"}
 
     def both(frame: pd.DataFrame, by) -> dict[str, pd.DataFrame]:
-        return {t: summarise(frame, table, weights[f"{t}_km2"].to_numpy(), by=by).assign(terrain=terrain_label[t])
-                for t in ("avalanche", "all")}
+        return {
+            t: summarise(frame, table, weights[f"{t}_km2"].to_numpy(), by=by).assign(
+                terrain=terrain_label[t]
+            )
+            for t in ("avalanche", "all")
+        }
 
     z = both(at_map, ["zone"])
     ba = both(at_map, _BAND_ASPECT)
@@ -732,10 +912,17 @@ def summary_tables(diag: xr.Dataset, profiles: xr.Dataset, table: pd.DataFrame, 
     for block in _cell_value_blocks(diag, profiles, table, obs, layers=daily_layers, **kw):
         for t, frame in both(block, ["zone"]).items():
             daily_parts[t].append(frame)
-    daily = pd.concat([pd.concat(parts, ignore_index=True).sort_values(["zone", "valid_time"], kind="stable")
-                       for parts in daily_parts.values()], ignore_index=True)
+    daily = pd.concat(
+        [
+            pd.concat(parts, ignore_index=True).sort_values(["zone", "valid_time"], kind="stable")
+            for parts in daily_parts.values()
+        ],
+        ignore_index=True,
+    )
     snow_line = band_transitions(ba["all"], ["zone", "aspect_sector"], "snow_fraction")
-    snow_line = snow_line.rename(columns={"lower_m": "snow_line_m", "lower_bound": "snow_line_bound"})
+    snow_line = snow_line.rename(
+        columns={"lower_m": "snow_line_m", "lower_bound": "snow_line_bound"}
+    )
     snow_line = snow_line[["zone", "aspect_sector", "snow_line_m", "snow_line_bound"]]
 
     zones = z["avalanche"].copy()
@@ -746,8 +933,13 @@ def summary_tables(diag: xr.Dataset, profiles: xr.Dataset, table: pd.DataFrame, 
     zones = zones.merge(wide, left_on="zone", right_index=True, how="left")
     cells = at_map.set_index("cell_id").drop(columns=["valid_time"])
     cells["valid_time"] = map_t[0]
-    return SummaryTables(zones.reset_index(drop=True), pd.concat(ba.values(), ignore_index=True),
-                         daily, cells, snow_line)
+    return SummaryTables(
+        zones.reset_index(drop=True),
+        pd.concat(ba.values(), ignore_index=True),
+        daily,
+        cells,
+        snow_line,
+    )
 
 
 # --------------------------------------------------------------------------- layers of concern
@@ -763,7 +955,9 @@ def local_dates(seconds: np.ndarray, local_timezone: str) -> np.ndarray:
     """Local calendar dates ("YYYY-MM-DD", object array) of int64 seconds since 1970 (UTC);
     each distinct time is converted once."""
     uniq, inv = np.unique(np.asarray(seconds, dtype=np.int64), return_inverse=True)
-    idx = pd.DatetimeIndex(uniq.astype("datetime64[s]")).tz_localize("UTC").tz_convert(local_timezone)
+    idx = (
+        pd.DatetimeIndex(uniq.astype("datetime64[s]")).tz_localize("UTC").tz_convert(local_timezone)
+    )
     return idx.strftime("%Y-%m-%d").to_numpy(object)[inv.reshape(-1)]
 
 
@@ -791,15 +985,27 @@ def layer_identities(snap: LayerSnapshot) -> tuple[tuple[np.ndarray, ...], np.nd
     weak = np.nonzero(family)
     crust = np.nonzero(snap.valid & (snap.crust > 0))
     pos = tuple(np.concatenate([w, c]) for w, c in zip(weak, crust))
-    kind = np.concatenate([family[weak].astype(np.int64) - 1, _N_FAMILIES + snap.crust[crust].astype(np.int64)])
+    kind = np.concatenate(
+        [family[weak].astype(np.int64) - 1, _N_FAMILIES + snap.crust[crust].astype(np.int64)]
+    )
     ref_s = np.where(kind == LAYER_KINDS.index("SH"), snap.burial_s[pos], snap.formation_s[pos])
     event_s = snap.event_id[pos].astype(np.int64) * 3600
-    by_event = np.isin(kind, [LAYER_KINDS.index("rain", _N_FAMILIES), LAYER_KINDS.index("glaze", _N_FAMILIES)])
+    by_event = np.isin(
+        kind, [LAYER_KINDS.index("rain", _N_FAMILIES), LAYER_KINDS.index("glaze", _N_FAMILIES)]
+    )
     return pos, kind, np.where(by_event & (event_s > 0), event_s, ref_s)
 
 
-def layers_of_concern(diag: xr.Dataset, profiles: xr.Dataset, table: pd.DataFrame, weight_km2, *,
-                      time, local_timezone: str = "UTC", observation_hour: int = 7) -> pd.DataFrame:
+def layers_of_concern(
+    diag: xr.Dataset,
+    profiles: xr.Dataset,
+    table: pd.DataFrame,
+    weight_km2,
+    *,
+    time,
+    local_timezone: str = "UTC",
+    observation_hour: int = 7,
+) -> pd.DataFrame:
     """Persistent weak layers and crusts identified region-wide, summarised per zone and per
     zone × band × aspect at ``time``.
 
@@ -839,46 +1045,80 @@ def layers_of_concern(diag: xr.Dataset, profiles: xr.Dataset, table: pd.DataFram
     pos = _positions(t_all, want, "the layers-of-concern time")[0]
     day = profiles["day"].values.astype("datetime64[s]")
     d = np.searchsorted(day, want[0], side="right") - 1
-    columns = ["layer_id", "layer_name", "kind", "category", "date", "zone", "band", "band_lower_m",
-               "band_upper_m", "aspect_sector", "presence_frac", "area_km2", "depth_cm", "slab_cm",
-               "thickness_cm", "load_above_kg_m2", "load_since_burial_kg_m2", "load_24h_kg_m2",
-               "load_72h_kg_m2", "valid_time", "is_forecast"]
+    columns = [
+        "layer_id",
+        "layer_name",
+        "kind",
+        "category",
+        "date",
+        "zone",
+        "band",
+        "band_lower_m",
+        "band_upper_m",
+        "aspect_sector",
+        "presence_frac",
+        "area_km2",
+        "depth_cm",
+        "slab_cm",
+        "thickness_cm",
+        "load_above_kg_m2",
+        "load_since_burial_kg_m2",
+        "load_24h_kg_m2",
+        "load_72h_kg_m2",
+        "valid_time",
+        "is_forecast",
+    ]
     if d < 0:
         return pd.DataFrame(columns=columns)
     snap = decode_snapshot(profiles, [d])
-    sq = {k: getattr(snap, k)[:, 0, :] for k in ("depth_cm", "load_above_kg_m2", "thickness_m", "burial_s")}
+    sq = {
+        k: getattr(snap, k)[:, 0, :]
+        for k in ("depth_cm", "load_above_kg_m2", "thickness_m", "burial_s")
+    }
     (ci, _, li), code, ref_s = layer_identities(snap)
     as_crust = code >= _N_FAMILIES
     kind = np.asarray(LAYER_KINDS, dtype=object)[code]
     if (ref_s <= _NO_TIME).any():
-        raise InputError("profiles.nc: 'formation_time' is missing for a weak layer or crust; "
-                         "the layers of concern need it (int64 seconds since 1970, or datetimes)")
+        raise InputError(
+            "profiles.nc: 'formation_time' is missing for a weak layer or crust; "
+            "the layers of concern need it (int64 seconds since 1970, or datetimes)"
+        )
     date = local_dates(ref_s, local_timezone)
     verb = np.where(kind == "SH", " buried ", np.where(as_crust, " crust ", " formed "))
-    rows = pd.DataFrame({
-        "cell_id": table.index.to_numpy()[ci],
-        "_c": ci,
-        "kind": kind,
-        "category": np.where(as_crust, "crust", "weak layer"),
-        "date": date,
-        "layer_id": layer_ids(code, ref_s, local_timezone),
-        "layer_name": kind + verb + date,
-        "depth_cm": sq["depth_cm"][ci, li],
-        "thickness_cm": sq["thickness_m"][ci, li] * 100.0,
-        "load_above_kg_m2": sq["load_above_kg_m2"][ci, li],
-        "_burial_s": sq["burial_s"][ci, li],
-    })
-    rows = rows.sort_values(["layer_id", "cell_id", "depth_cm"]).drop_duplicates(["layer_id", "cell_id"])
+    rows = pd.DataFrame(
+        {
+            "cell_id": table.index.to_numpy()[ci],
+            "_c": ci,
+            "kind": kind,
+            "category": np.where(as_crust, "crust", "weak layer"),
+            "date": date,
+            "layer_id": layer_ids(code, ref_s, local_timezone),
+            "layer_name": kind + verb + date,
+            "depth_cm": sq["depth_cm"][ci, li],
+            "thickness_cm": sq["thickness_m"][ci, li] * 100.0,
+            "load_above_kg_m2": sq["load_above_kg_m2"][ci, li],
+            "_burial_s": sq["burial_s"][ci, li],
+        }
+    )
+    rows = rows.sort_values(["layer_id", "cell_id", "depth_cm"]).drop_duplicates(
+        ["layer_id", "cell_id"]
+    )
     cos_slope = np.cos(np.deg2rad(table["slope_deg"].to_numpy(np.float64)))
     rows["slab_cm"] = rows["depth_cm"].to_numpy() * cos_slope[rows["_c"].to_numpy()]
     # snowfall on the layer: since burial up to `time`, and in the last 1 / 3 observation days
-    win = _snowfall_windows(diag, t_all, want, local_timezone=local_timezone, observation_hour=observation_hour)
+    win = _snowfall_windows(
+        diag, t_all, want, local_timezone=local_timezone, observation_hour=observation_hour
+    )
     c = rows["_c"].to_numpy()
     burial = rows["_burial_s"].to_numpy()
     is_buried = burial > _NO_TIME
     bpos = np.searchsorted(t_all.astype(np.int64), burial, side="right") - 1
-    c_burial, c_now = np.split(running_snowfall_of(diag, np.concatenate([c, c]),
-                                                   np.concatenate([bpos, np.full(c.size, pos)])), 2)
+    c_burial, c_now = np.split(
+        running_snowfall_of(
+            diag, np.concatenate([c, c]), np.concatenate([bpos, np.full(c.size, pos)])
+        ),
+        2,
+    )
     since = np.where(is_buried, c_now - c_burial, np.nan)
     rows["load_since_burial_kg_m2"] = since
     # snowfall in (window start, window end] that also fell after the burial
@@ -890,14 +1130,23 @@ def layers_of_concern(diag: xr.Dataset, profiles: xr.Dataset, table: pd.DataFram
     cells = table[_BAND_ASPECT].copy()
     cells["_w"] = w
     rows = rows.merge(table[_BAND_ASPECT], left_on="cell_id", right_index=True)
-    means = ["depth_cm", "slab_cm", "thickness_cm", "load_above_kg_m2", "load_since_burial_kg_m2",
-             "load_24h_kg_m2", "load_72h_kg_m2"]
+    means = [
+        "depth_cm",
+        "slab_cm",
+        "thickness_cm",
+        "load_above_kg_m2",
+        "load_since_burial_kg_m2",
+        "load_24h_kg_m2",
+        "load_72h_kg_m2",
+    ]
     out = []
     for keys in (_BAND_ASPECT, ["zone"]):
         total = cells.groupby(keys, dropna=False)["_w"].sum().rename("_total")
         x = rows[means].to_numpy(np.float64)
         ok = np.isfinite(x) & (rows["_w"].to_numpy()[:, None] > 0)
-        part = pd.DataFrame(np.where(ok, x * rows["_w"].to_numpy()[:, None], 0.0), columns=[f"s_{m}" for m in means])
+        part = pd.DataFrame(
+            np.where(ok, x * rows["_w"].to_numpy()[:, None], 0.0), columns=[f"s_{m}" for m in means]
+        )
         part[[f"w_{m}" for m in means]] = np.where(ok, rows["_w"].to_numpy()[:, None], 0.0)
         ident = ["layer_id", "layer_name", "kind", "category", "date"]
         for col in (*ident, *keys, "_w"):
@@ -911,15 +1160,25 @@ def layers_of_concern(diag: xr.Dataset, profiles: xr.Dataset, table: pd.DataFram
         res = res[res["_total"] > 0]
         res["presence_frac"] = res["area_km2"] / res["_total"]
         if keys == ["zone"]:
-            res["band_lower_m"], res["band_upper_m"], res["aspect_sector"], res["band"] = np.nan, np.nan, "all", "all"
+            res["band_lower_m"], res["band_upper_m"], res["aspect_sector"], res["band"] = (
+                np.nan,
+                np.nan,
+                "all",
+                "all",
+            )
         else:
             res["band"] = band_label(res["band_lower_m"], res["band_upper_m"])
         out.append(res)
     result = pd.concat(out, ignore_index=True)
     result["valid_time"] = want[0]
-    result["is_forecast"] = bool(diag["is_forecast"].values[pos]) if "is_forecast" in diag.variables else False
-    return result[columns].sort_values(["date", "layer_id", "zone", "band_lower_m", "aspect_sector"],
-                                       ignore_index=True, na_position="first")
+    result["is_forecast"] = (
+        bool(diag["is_forecast"].values[pos]) if "is_forecast" in diag.variables else False
+    )
+    return result[columns].sort_values(
+        ["date", "layer_id", "zone", "band_lower_m", "aspect_sector"],
+        ignore_index=True,
+        na_position="first",
+    )
 
 
 def layer_summary_text(loc: pd.DataFrame, *, min_presence_frac: float = 0.1) -> pd.Series:
@@ -928,6 +1187,12 @@ def layer_summary_text(loc: pd.DataFrame, *, min_presence_frac: float = 0.1) -> 
     than ``min_presence_frac`` of the weighted area are left out. Index: zone."""
     zone_rows = loc[(loc["aspect_sector"] == "all") & (loc["presence_frac"] >= min_presence_frac)]
     zone_rows = zone_rows.sort_values(["zone", "presence_frac"], ascending=[True, False])
-    text = (zone_rows["layer_name"] + " (" + (zone_rows["presence_frac"] * 100).round().astype(int).astype(str)
-            + " %, " + zone_rows["depth_cm"].round().astype(int).astype(str) + " cm)")
+    text = (
+        zone_rows["layer_name"]
+        + " ("
+        + (zone_rows["presence_frac"] * 100).round().astype(int).astype(str)
+        + " %, "
+        + zone_rows["depth_cm"].round().astype(int).astype(str)
+        + " cm)"
+    )
     return text.groupby(zone_rows["zone"]).agg("; ".join).rename("layers_of_concern")

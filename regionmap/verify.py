@@ -252,9 +252,22 @@ def aggregate_model_to_observations(model: pd.DataFrame, obs: pd.DataFrame) -> p
 
 
 _STAT_COLUMNS = [
-    "station_id", "variable", "units", "n", "obs_mean", "model_mean", "bias", "mae", "rmse",
-    "r2", "obs_total", "model_total", "total_ratio", "total_percent_difference",
-    "presence_agreement_frac", "within_tolerance_frac",
+    "station_id",
+    "variable",
+    "units",
+    "n",
+    "obs_mean",
+    "model_mean",
+    "bias",
+    "mae",
+    "rmse",
+    "r2",
+    "obs_total",
+    "model_total",
+    "total_ratio",
+    "total_percent_difference",
+    "presence_agreement_frac",
+    "within_tolerance_frac",
 ]
 
 

@@ -32,5 +32,9 @@ def demo_terrain(demo_dem):
 def demo_cells(demo_dem, demo_terrain, demo_zones):
     from regionmap.cells import CellSettings, build_cells
 
-    return build_cells(demo_dem, demo_terrain, demo_zones,
-                       CellSettings(band_edges_m=(1500, 1800, 2100, 2400, 2700, 3000)))
+    return build_cells(
+        demo_dem,
+        demo_terrain,
+        demo_zones,
+        CellSettings(band_edges_m=(1500, 1800, 2100, 2400, 2700, 3000)),
+    )

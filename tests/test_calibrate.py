@@ -34,8 +34,12 @@ START, HOURS = "2025-12-01T01:00", 24 * 120  # December to March
 
 def _stations(classes=("sheltered", "exposed")):
     return pd.DataFrame(
-        {"lon": [11.0, 11.1], "lat": [47.0, 47.1], "elevation_m": [1900.0, 2700.0],
-         "exposure_class": list(classes)},
+        {
+            "lon": [11.0, 11.1],
+            "lat": [47.0, 47.1],
+            "elevation_m": [1900.0, 2700.0],
+            "exposure_class": list(classes),
+        },
         index=pd.Index(["SHEL", "RIDGE"], name="id"),
     )
 
@@ -46,17 +50,28 @@ def _synthetic(seed=0, monthly_offsets=None):
     frames_m, frames_o = [], []
     for sid, wind_factor in (("SHEL", 0.2), ("RIDGE", 0.9)):
         t_model = 265.0 + 6.0 * np.sin(2 * np.pi * np.arange(HOURS) / 24) + rng.normal(0, 3, HOURS)
-        offset = 2.0 if monthly_offsets is None else np.asarray(monthly_offsets)[time.astype("datetime64[M]").astype(int) % 12]
+        offset = (
+            2.0
+            if monthly_offsets is None
+            else np.asarray(monthly_offsets)[time.astype("datetime64[M]").astype(int) % 12]
+        )
         t_obs = t_model + offset + rng.normal(0, 0.8, HOURS)
         w_model = rng.gamma(2.0, 3.0, HOURS)
         w_obs = wind_factor * w_model * rng.lognormal(-0.02, 0.2, HOURS)
         p_obs = np.where(rng.random(HOURS) < 0.15, rng.gamma(0.9, 1.2, HOURS), 0.0)
         p_model = 1.6 * p_obs * rng.lognormal(-0.045, 0.3, HOURS)
         index = pd.MultiIndex.from_arrays([[sid] * HOURS, time], names=["station_id", "time"])
-        frames_m.append(pd.DataFrame({"air_temperature": t_model, "wind_speed": w_model,
-                                      "precipitation": p_model}, index=index))
-        frames_o.append(pd.DataFrame({"air_temperature": t_obs, "wind_speed": w_obs,
-                                      "precipitation": p_obs}, index=index))
+        frames_m.append(
+            pd.DataFrame(
+                {"air_temperature": t_model, "wind_speed": w_model, "precipitation": p_model},
+                index=index,
+            )
+        )
+        frames_o.append(
+            pd.DataFrame(
+                {"air_temperature": t_obs, "wind_speed": w_obs, "precipitation": p_obs}, index=index
+            )
+        )
     return pd.concat(frames_m), pd.concat(frames_o)
 
 
@@ -99,7 +114,9 @@ def test_per_month_offsets_recovered_and_unfitted_months_pooled():
     assert c.own_fit[4] is False and c.values[4] == pytest.approx(pooled, abs=0.05)
     doc = tomllib.loads(bias_toml(result))
     assert len(doc["bias"]["air_temperature"]["offset"]) == 12
-    assert BiasSection(**doc["bias"]).air_temperature[0].offset[0] == pytest.approx(c.values[0], abs=1e-3)
+    assert BiasSection(**doc["bias"]).air_temperature[0].offset[0] == pytest.approx(
+        c.values[0], abs=1e-3
+    )
 
 
 def test_quantile_mapping_method_tables_and_toml():
@@ -125,7 +142,10 @@ def test_bias_toml_parses_with_config_units():
     # [bias] offsets for relative humidity are in percent (config contract)
     assert doc["bias"]["relative_humidity"]["offset"] == pytest.approx(5.0, rel=1e-3)
     wind = {e["exposure"]: e["factor"] for e in doc["bias"]["wind_speed"]}
-    assert wind["sheltered"] == pytest.approx(0.2, rel=0.05) and set(wind) == {"sheltered", "exposed"}
+    assert wind["sheltered"] == pytest.approx(0.2, rel=0.05) and set(wind) == {
+        "sheltered",
+        "exposed",
+    }
     assert "quantile_mapping" not in doc["bias"]
     assert "Guidance only" in text
     # the config schema (regionmap.config, extra keys forbidden) accepts what we print
@@ -180,15 +200,27 @@ def test_undercatch_correction_restores_true_amount_and_is_used_in_calibration()
     wind = rng.uniform(0, 8, 100)
     temp = rng.uniform(258, 275, 100)
     measured = true * catch_efficiency_kochendorfer2017(wind, temp)
-    np.testing.assert_allclose(correct_undercatch_kochendorfer2017(measured, wind, temp), true, rtol=1e-12)
+    np.testing.assert_allclose(
+        correct_undercatch_kochendorfer2017(measured, wind, temp), true, rtol=1e-12
+    )
     model, obs = _synthetic(10)
     plain = calibrate(model, obs, _stations(), variables=["precipitation"])
-    corrected = calibrate(model, obs, _stations(), variables=["precipitation"], undercatch="single_alter")
+    corrected = calibrate(
+        model, obs, _stations(), variables=["precipitation"], undercatch="single_alter"
+    )
     # the gauge caught too little: corrected observations need a larger factor
-    assert corrected.settings["all"]["precipitation"].values[0] > plain.settings["all"]["precipitation"].values[0]
+    assert (
+        corrected.settings["all"]["precipitation"].values[0]
+        > plain.settings["all"]["precipitation"].values[0]
+    )
     with pytest.raises(InputError, match="needs observed wind_speed"):
-        calibrate(model, obs.drop(columns="wind_speed"), _stations(), variables=["precipitation"],
-                  undercatch="unshielded")
+        calibrate(
+            model,
+            obs.drop(columns="wind_speed"),
+            _stations(),
+            variables=["precipitation"],
+            undercatch="unshielded",
+        )
 
 
 def test_station_without_the_variable_takes_no_part_in_its_class_fit():

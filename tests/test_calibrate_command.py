@@ -14,18 +14,19 @@ import tomllib
 
 import numpy as np
 import pytest
+from test_verify_command import PRECIP_OVER, T_BIAS_K, scenario, synthetic_observations  # noqa: F401
 
 from regionmap.config import config_from_dict
 from regionmap.downscale.quantile_mapping import read_qm_table
 from regionmap.errors import InputError
 from regionmap.stations_chain import calibrate_command, verify_command
-from test_verify_command import PRECIP_OVER, T_BIAS_K, scenario, synthetic_observations  # noqa: F401
 
 
 def test_calibrate_recovers_known_biases_and_the_fit_removes_them(scenario, capsys, tmp_path):
     obs = synthetic_observations(scenario.model, tmp_path, seed=11)
-    text, skill = calibrate_command(scenario.cfg, scenario.stations_path, obs, tmp_path / "cal",
-                                    region=scenario.region)
+    text, skill = calibrate_command(
+        scenario.cfg, scenario.stations_path, obs, tmp_path / "cal", region=scenario.region
+    )
     bias = tomllib.loads(text)["bias"]
     # +2 K model: offset -2 K (within 5 %)
     assert bias["air_temperature"]["offset"] == pytest.approx(-T_BIAS_K, rel=0.05)
@@ -40,25 +41,44 @@ def test_calibrate_recovers_known_biases_and_the_fit_removes_them(scenario, caps
     s = skill.set_index(["exposure_class", "variable", "stage"])
     assert s.loc[("all", "air_temperature", "raw"), "bias"] == pytest.approx(T_BIAS_K, abs=0.05)
     assert abs(s.loc[("all", "air_temperature", "fitted"), "bias"]) < 1e-6
-    assert s.loc[("all", "precipitation", "raw"), "total_percent_difference"] == pytest.approx(60.0, abs=1.0)
+    assert s.loc[("all", "precipitation", "raw"), "total_percent_difference"] == pytest.approx(
+        60.0, abs=1.0
+    )
     out = capsys.readouterr().out
-    assert "[bias]" in out and "cross-validated" in out and "Caution:" in out and "field observations" in out
+    assert (
+        "[bias]" in out
+        and "cross-validated" in out
+        and "Caution:" in out
+        and "field observations" in out
+    )
     # the printed section is valid config, and the corrected model verifies without bias
     data = scenario.cfg.model_dump(exclude={"source"}, mode="json")
     data["bias"] = bias
     cfg = config_from_dict(data, base_dir=scenario.folder)
-    table = verify_command(cfg, scenario.stations_path, obs, tmp_path / "ver", region=scenario.region, echo=False)
+    table = verify_command(
+        cfg, scenario.stations_path, obs, tmp_path / "ver", region=scenario.region, echo=False
+    )
     row = table.set_index(["station_id", "variable"])
     for sid in ("LOWPLOT", "CREST"):
         assert abs(row.loc[(sid, "air_temperature"), "bias"]) < 0.1
-        assert abs(row.loc[(sid, "wind_speed"), "bias"]) < 0.05 * row.loc[(sid, "wind_speed"), "obs_mean"]
+        assert (
+            abs(row.loc[(sid, "wind_speed"), "bias"])
+            < 0.05 * row.loc[(sid, "wind_speed"), "obs_mean"]
+        )
     assert abs(row.loc[("LOWPLOT", "precipitation"), "total_percent_difference"]) < 5.0
 
 
 def test_per_month_quantile_mapping_and_undercatch(scenario, tmp_path):
     obs = synthetic_observations(scenario.model, tmp_path, seed=5)
-    text, _ = calibrate_command(scenario.cfg, scenario.stations_path, obs, tmp_path / "qm",
-                                method="quantile_mapping", region=scenario.region, echo=False)
+    text, _ = calibrate_command(
+        scenario.cfg,
+        scenario.stations_path,
+        obs,
+        tmp_path / "qm",
+        method="quantile_mapping",
+        region=scenario.region,
+        echo=False,
+    )
     assert 'quantile_mapping = "' in text and (tmp_path / "qm" / "qm.nc").is_file()
     tables = read_qm_table(tmp_path / "qm" / "qm.nc")
     assert {t.variable for t in tables} >= {"air_temperature", "precipitation", "wind_speed"}
@@ -74,8 +94,15 @@ def test_per_month_quantile_mapping_and_undercatch(scenario, tmp_path):
     assert t.n_samples[0] > 0 and np.all(np.diff(t.obs_quantiles[0]) >= 0)  # monotone
     # Kochendorfer et al. (2017) undercatch correction raises the observed totals (CE <= 1),
     # so the fitted precipitation factor is larger than without it
-    text_u, _ = calibrate_command(scenario.cfg, scenario.stations_path, obs, tmp_path / "u",
-                                  undercatch="single_alter", region=scenario.region, echo=False)
+    text_u, _ = calibrate_command(
+        scenario.cfg,
+        scenario.stations_path,
+        obs,
+        tmp_path / "u",
+        undercatch="single_alter",
+        region=scenario.region,
+        echo=False,
+    )
     assert tomllib.loads(text_u)["bias"]["precipitation"]["factor"] > 1 / PRECIP_OVER * 1.01
 
 
@@ -84,6 +111,14 @@ def test_too_little_data_is_refused_with_a_clear_message(scenario, tmp_path):
     rows = ["station_id,time,air_temperature[degC]"]
     rows += [f"LOWPLOT,2026-01-09T{h:02d}:00Z,-5.0" for h in range(24)]
     obs.write_text("\n".join(rows) + "\n")
-    with pytest.raises(InputError, match=r"too little data to fit; need at least 240 matched pairs, got 24"):
-        calibrate_command(scenario.cfg, scenario.stations_path, [obs], tmp_path / "c", region=scenario.region,
-                          echo=False)
+    with pytest.raises(
+        InputError, match=r"too little data to fit; need at least 240 matched pairs, got 24"
+    ):
+        calibrate_command(
+            scenario.cfg,
+            scenario.stations_path,
+            [obs],
+            tmp_path / "c",
+            region=scenario.region,
+            echo=False,
+        )

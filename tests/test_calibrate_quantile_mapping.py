@@ -56,7 +56,9 @@ def test_identity_on_identical_samples_additive(seed):
 @given(seed=seeds)
 def test_identity_on_identical_samples_multiplicative_above_wet_threshold(seed):
     p, month = _precip_sample(seed)
-    table = fit_quantile_mapping(p, p, month, "multiplicative", variable="precipitation", wet_threshold=0.1)
+    table = fit_quantile_mapping(
+        p, p, month, "multiplicative", variable="precipitation", wet_threshold=0.1
+    )
     out = apply_quantile_mapping(p, month, table)
     wet = p > 0.1
     np.testing.assert_allclose(out[wet], p[wet], rtol=1e-12, atol=1e-12)
@@ -72,7 +74,9 @@ def test_exact_shift_recovered_additive(seed, shift):
     # inside and outside the training range (constant correction beyond the ends)
     probe = np.concatenate([t, [t.min() - 20.0, t.max() + 20.0]])
     probe_month = np.concatenate([month, [0, 11]])
-    np.testing.assert_allclose(apply_quantile_mapping(probe, probe_month, table), probe + shift, atol=1e-9)
+    np.testing.assert_allclose(
+        apply_quantile_mapping(probe, probe_month, table), probe + shift, atol=1e-9
+    )
 
 
 @settings(deadline=None, max_examples=25)
@@ -80,7 +84,9 @@ def test_exact_shift_recovered_additive(seed, shift):
 def test_exact_scale_recovered_multiplicative(seed, factor):
     p, month = _precip_sample(seed)
     obs = p * factor
-    table = fit_quantile_mapping(p, obs, month, "multiplicative", variable="precipitation", wet_threshold=0.1)
+    table = fit_quantile_mapping(
+        p, obs, month, "multiplicative", variable="precipitation", wet_threshold=0.1
+    )
     out = apply_quantile_mapping(p, month, table)
     wet_obs = obs > 0.1
     np.testing.assert_allclose(out[wet_obs], obs[wet_obs], rtol=1e-9)
@@ -101,7 +107,9 @@ def test_mapping_is_monotone(seed, kind):
         probe = np.linspace(model.min() - 30, model.max() + 30, 2000)
     else:
         model, month = _precip_sample(seed)
-        obs = rng.permutation(np.where(rng.random(model.size) < 0.3, rng.gamma(1.2, 1.5, model.size), 0.0))
+        obs = rng.permutation(
+            np.where(rng.random(model.size) < 0.3, rng.gamma(1.2, 1.5, model.size), 0.0)
+        )
         probe = np.linspace(0.0, model.max() * 2, 2000)
     table = fit_quantile_mapping(model, obs, month, kind, variable="v")
     for k in range(12):
@@ -120,21 +128,33 @@ def test_vectorised_broadcast_cell_time():
     t, month = _temperature_sample(1)
     table = fit_quantile_mapping(t, t + 1.5, month, "additive", variable="air_temperature")
     values = np.full((4, 6), 268.0)
-    times = np.array(["2026-01-31T23:00", "2026-02-01T00:00", "2026-03-01", "2026-06-01",
-                      "2026-11-15", "2026-12-31T23:00"], dtype="datetime64[s]")
+    times = np.array(
+        [
+            "2026-01-31T23:00",
+            "2026-02-01T00:00",
+            "2026-03-01",
+            "2026-06-01",
+            "2026-11-15",
+            "2026-12-31T23:00",
+        ],
+        dtype="datetime64[s]",
+    )
     months = month_index_of(times)
     assert list(months) == [0, 1, 2, 5, 10, 11]
     out = apply_quantile_mapping(values, months, table)
     assert out.shape == (4, 6)
     np.testing.assert_allclose(out, 269.5, atol=1e-9)
-    nan_in = values.copy(); nan_in[0, 0] = np.nan
+    nan_in = values.copy()
+    nan_in[0, 0] = np.nan
     assert np.isnan(apply_quantile_mapping(nan_in, months, table)[0, 0])
 
 
 def test_too_little_data_refused_with_minimum():
     t = np.linspace(260, 270, MIN_SAMPLES_PER_MONTH - 1)
     with pytest.raises(InputError, match=f"need at least {MIN_SAMPLES_PER_MONTH} valid pairs"):
-        fit_quantile_mapping(t, t, np.zeros(t.size, dtype=int), "additive", variable="air_temperature")
+        fit_quantile_mapping(
+            t, t, np.zeros(t.size, dtype=int), "additive", variable="air_temperature"
+        )
 
 
 def test_bad_month_index_and_kind():
@@ -154,16 +174,22 @@ def test_table_file_round_trip_and_selection(tmp_path):
     tables = [
         fit_quantile_mapping(t, t + 1, month, "additive", variable="air_temperature"),
         fit_quantile_mapping(p, 1.5 * p, pm, "multiplicative", variable="precipitation"),
-        fit_quantile_mapping(p, 0.5 * p, pm, "multiplicative", variable="precipitation", exposure_class="sheltered"),
+        fit_quantile_mapping(
+            p, 0.5 * p, pm, "multiplicative", variable="precipitation", exposure_class="sheltered"
+        ),
     ]
     path = write_qm_table(tmp_path / "qm.nc", tables)
     assert sorted(x.name for x in tmp_path.iterdir()) == ["qm.nc"]
     back = read_qm_table(path)
-    assert [(b.variable, b.exposure_class) for b in back] == [(a.variable, a.exposure_class) for a in tables]
+    assert [(b.variable, b.exposure_class) for b in back] == [
+        (a.variable, a.exposure_class) for a in tables
+    ]
     for a, b in zip(tables, back):
         np.testing.assert_array_equal(a.model_quantiles, b.model_quantiles)
         np.testing.assert_array_equal(a.pooled, b.pooled)
-        np.testing.assert_array_equal(apply_quantile_mapping(p, pm, a), apply_quantile_mapping(p, pm, b))
+        np.testing.assert_array_equal(
+            apply_quantile_mapping(p, pm, a), apply_quantile_mapping(p, pm, b)
+        )
     assert select_qm_table(back, "precipitation", "sheltered").exposure_class == "sheltered"
     assert select_qm_table(back, "precipitation", "exposed").exposure_class == "all"
     assert select_qm_table(back, "wind_speed") is None
@@ -173,7 +199,10 @@ def test_table_file_validation(tmp_path):
     import xarray as xr
 
     t, month = _temperature_sample(4)
-    path = write_qm_table(tmp_path / "qm.nc", fit_quantile_mapping(t, t, month, "additive", variable="air_temperature"))
+    path = write_qm_table(
+        tmp_path / "qm.nc",
+        fit_quantile_mapping(t, t, month, "additive", variable="air_temperature"),
+    )
     ds = xr.open_dataset(path).load()
     bad = ds.copy(deep=True)
     bad["obs_quantile"].values[0, 4, :] = bad["obs_quantile"].values[0, 4, ::-1]

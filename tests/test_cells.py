@@ -17,8 +17,12 @@ from regionmap.terrain import TerrainSettings, compute_terrain
 
 
 def test_every_valid_in_zone_pixel_is_in_exactly_one_cell(demo_dem, demo_zones, demo_cells):
-    inside = rasterize([(g, 1) for g in demo_zones.geometry], out_shape=demo_dem.shape,
-                       transform=demo_dem.transform, fill=0).astype(bool)
+    inside = rasterize(
+        [(g, 1) for g in demo_zones.geometry],
+        out_shape=demo_dem.shape,
+        transform=demo_dem.transform,
+        fill=0,
+    ).astype(bool)
     valid = inside & np.isfinite(demo_dem.elevation_m)
     assert np.array_equal(demo_cells.index >= 0, valid)
     assert demo_cells.table.pixel_count.sum() == valid.sum()
@@ -28,8 +32,10 @@ def test_every_valid_in_zone_pixel_is_in_exactly_one_cell(demo_dem, demo_zones, 
 
 def test_cell_areas_sum_to_rasterised_zone_area(demo_dem, demo_zones, demo_cells):
     area = demo_dem.pixel_area_m2()
-    for i, (name, geom) in enumerate(zip(demo_zones.zone, demo_zones.geometry)):
-        mask = rasterize([(geom, 1)], out_shape=demo_dem.shape, transform=demo_dem.transform, fill=0).astype(bool)
+    for name, geom in zip(demo_zones.zone, demo_zones.geometry):
+        mask = rasterize(
+            [(geom, 1)], out_shape=demo_dem.shape, transform=demo_dem.transform, fill=0
+        ).astype(bool)
         expect_km2 = area[mask].sum() / 1e6
         got = demo_cells.table.loc[demo_cells.table.zone == name, "area_km2"].sum()
         assert got == pytest.approx(expect_km2, rel=1e-12)
@@ -71,8 +77,12 @@ def test_polygons_cover_the_cells(demo_cells):
 
 
 def test_slope_classes_split_cells(demo_dem, demo_terrain, demo_zones):
-    c = build_cells(demo_dem, demo_terrain, demo_zones, CellSettings(band_step_m=500, aspect_sectors=4,
-                                                                      slope_classes_deg=(30.0,)))
+    c = build_cells(
+        demo_dem,
+        demo_terrain,
+        demo_zones,
+        CellSettings(band_step_m=500, aspect_sectors=4, slope_classes_deg=(30.0,)),
+    )
     t = c.table
     assert set(t.slope_class) == {0, 1}
     idx = c.index
@@ -111,8 +121,9 @@ def test_sunlit_table_on_open_plane_is_one_above_and_zero_behind_the_plane():
     s = c.sunlit
     az = np.radians(s.azimuth_deg)[:, None]
     el = np.radians(s.elevation_deg)[None, :]
-    cos_i = np.sin(el) * math.cos(math.radians(slope)) + np.cos(el) * math.sin(math.radians(slope)) * np.cos(
-        az - math.radians(aspect))
+    cos_i = np.sin(el) * math.cos(math.radians(slope)) + np.cos(el) * math.sin(
+        math.radians(slope)
+    ) * np.cos(az - math.radians(aspect))
     frac = s.fraction[0]
     # away from the grazing boundary, and the sun above the astronomical horizon (a sun at
     # elevation 0 sits on the horizon floor of 0 deg and counts as not lit)

@@ -37,7 +37,14 @@ def test_checkpoint_times_are_whole_intervals_inside_the_run():
     restart = t0 + np.timedelta64(30 * 24 * 3600, "s")
     t = checkpoint_times(t0, 40 * 24, 24, [restart, t0, t0 + np.timedelta64(99 * 24 * 3600, "s")])
     hours = (t - t0) // np.timedelta64(3600, "s")
-    assert hours.tolist() == [168, 336, 504, 672, 720, 840]  # weekly, plus the restart inside the run
+    assert hours.tolist() == [
+        168,
+        336,
+        504,
+        672,
+        720,
+        840,
+    ]  # weekly, plus the restart inside the run
     assert CHECKPOINT_EVERY_H == 168
     # a 5 h diagnostics interval rounds the spacing up to 170 h
     assert ((checkpoint_times(t0, 400, 5) - t0) // np.timedelta64(3600, "s")).tolist() == [170, 340]
@@ -52,8 +59,9 @@ def test_saved_states_equal_states_stepped_from_the_start(tmp_path):
     plain_end, plain_diag, _ = run_columns(s0, forcing, params, 24)
     for lo, hi in ((0, 2), (2, 5)):  # two chunks, as the runner's tasks save them
         kept = dict.fromkeys(times)
-        end, diag, _, _ = run_columns_with_restarts(state_slice(s0, lo, hi), forcing.subset(cells=slice(lo, hi)),
-                                                    [], params, 24, kept=kept)
+        end, diag, _, _ = run_columns_with_restarts(
+            state_slice(s0, lo, hi), forcing.subset(cells=slice(lo, hi)), [], params, 24, kept=kept
+        )
         ck.save(lo, hi, kept)
         # saving states on the way changes nothing of the run itself
         _assert_same_state(end, state_slice(plain_end, lo, hi))
@@ -65,4 +73,6 @@ def test_saved_states_equal_states_stepped_from_the_start(tmp_path):
     stepped, _, _ = run_columns(s0, forcing.subset(steps=slice(0, 14 * 24)), params, 24)
     _assert_same_state(got, state_take(stepped, [1, 3]))
     # before the first checkpoint, the run's start state
-    _assert_same_state(ck.latest(np.datetime64(START, "s"), np.array([0, 4]), s0), state_take(s0, [0, 4]))
+    _assert_same_state(
+        ck.latest(np.datetime64(START, "s"), np.array([0, 4]), s0), state_take(s0, [0, 4])
+    )

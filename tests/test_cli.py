@@ -29,11 +29,14 @@ def test_bad_input_is_one_line_and_exit_2(tmp_path):
     bad.write_text("this is not a raster")
     proc = subprocess.run(
         [sys.executable, "-m", "regionmap", "terrain", str(bad), "--out", str(tmp_path / "t")],
-        capture_output=True, text=True,
+        capture_output=True,
+        text=True,
     )
     assert proc.returncode == 2
     lines = proc.stderr.strip().splitlines()
-    assert len(lines) == 1 and lines[0].startswith("regionmap: error:") and "not_a_dem.tif" in lines[0]
+    assert (
+        len(lines) == 1 and lines[0].startswith("regionmap: error:") and "not_a_dem.tif" in lines[0]
+    )
     assert "Traceback" not in proc.stderr
     assert not (tmp_path / "t").exists()
 
@@ -50,8 +53,15 @@ def _dem(path, *, crs="EPSG:32632", nodata_all=False):
     z = np.full((20, 20), -9999.0 if nodata_all else 0.0, dtype="float32")
     if not nodata_all:
         z += np.add.outer(np.arange(20.0), np.arange(20.0)) * 10 + 1500
-    profile = dict(driver="GTiff", width=20, height=20, count=1, dtype="float32", nodata=-9999.0,
-                   transform=Affine(100, 0, 600_000, 0, -100, 5_200_000))
+    profile = dict(
+        driver="GTiff",
+        width=20,
+        height=20,
+        count=1,
+        dtype="float32",
+        nodata=-9999.0,
+        transform=Affine(100, 0, 600_000, 0, -100, 5_200_000),
+    )
     if crs:
         profile["crs"] = crs
     with rasterio.open(path, "w", **profile) as dst:
@@ -64,7 +74,9 @@ def _zones(path, box=(600_100, 5_198_100, 601_900, 5_199_900), geometry="polygon
     import shapely
 
     geom = shapely.box(*box) if geometry == "polygon" else shapely.Point(box[0], box[1])
-    gpd.GeoDataFrame({"name": ["Test Zone"]}, geometry=[geom], crs="EPSG:32632").to_file(path, driver="GeoJSON")
+    gpd.GeoDataFrame({"name": ["Test Zone"]}, geometry=[geom], crs="EPSG:32632").to_file(
+        path, driver="GeoJSON"
+    )
     return path
 
 
@@ -103,10 +115,15 @@ def test_bad_inputs_exit_2_with_one_line_and_write_nothing(tmp_path, case, expec
     if case == "wrong_type":
         extra = '[cells]\naspect_sectors = "eight"\n'
     cfg = tmp_path / "run.toml"
-    cfg.write_text(f'[region]\ndem = "dem.tif"\nzones = "zones.geojson"\n{extra}[forcing]\npath = "f.nc"\n')
+    cfg.write_text(
+        f'[region]\ndem = "dem.tif"\nzones = "zones.geojson"\n{extra}[forcing]\npath = "f.nc"\n'
+    )
     out = tmp_path / "out"
-    proc = subprocess.run([sys.executable, "-m", "regionmap", "run", str(cfg), "--out", str(out)],
-                          capture_output=True, text=True)
+    proc = subprocess.run(
+        [sys.executable, "-m", "regionmap", "run", str(cfg), "--out", str(out)],
+        capture_output=True,
+        text=True,
+    )
     assert proc.returncode == 2, proc.stderr
     lines = proc.stderr.strip().splitlines()
     assert len(lines) == 1 and lines[0].startswith("regionmap: error:"), proc.stderr

@@ -17,7 +17,9 @@ def write(tmp_path: Path, text: str) -> Path:
 
 
 def test_minimal_config_resolves_paths_relative_to_the_file(tmp_path):
-    p = write(tmp_path, '[region]\ndem = "d/dem.tif"\nzones = "z.geojson"\n[forcing]\npath = "f/*.nc"\n')
+    p = write(
+        tmp_path, '[region]\ndem = "d/dem.tif"\nzones = "z.geojson"\n[forcing]\npath = "f/*.nc"\n'
+    )
     cfg = load_config(p)
     assert cfg.region.dem == tmp_path.resolve() / "d/dem.tif"
     assert cfg.forcing.path == str(tmp_path.resolve() / "f/*.nc")
@@ -66,13 +68,25 @@ observation_hour = 7
 @pytest.mark.parametrize(
     "data, match",
     [
-        ({"region": {**REGION, "zone_feild": "x"}}, r"unknown key \[region\] zone_feild; did you mean 'zone_field'"),
+        (
+            {"region": {**REGION, "zone_feild": "x"}},
+            r"unknown key \[region\] zone_feild; did you mean 'zone_field'",
+        ),
         ({"region": REGION, "cels": {}}, r"unknown key \[cels\]; did you mean 'cells'"),
         ({"region": REGION, "bias": {"wind_speed": {"factr": 0.5}}}, r"did you mean 'factor'"),
-        ({"region": REGION, "cells": {"aspect_sectors": 7}}, r"\[cells\] aspect_sectors: .*4, 8 or 16"),
+        (
+            {"region": REGION, "cells": {"aspect_sectors": 7}},
+            r"\[cells\] aspect_sectors: .*4, 8 or 16",
+        ),
         ({"region": REGION, "cells": {"band_edges_m": [1500, 1200]}}, r"strictly increasing"),
-        ({"region": REGION, "bias": {"air_temperature": {"offset": [1, 2]}}}, r"list of 12 monthly"),
-        ({"region": REGION, "bias": {"precipitation": {"factor": -1}}}, r"factors must be positive"),
+        (
+            {"region": REGION, "bias": {"air_temperature": {"offset": [1, 2]}}},
+            r"list of 12 monthly",
+        ),
+        (
+            {"region": REGION, "bias": {"precipitation": {"factor": -1}}},
+            r"factors must be positive",
+        ),
         ({"region": REGION, "output": {"local_timezone": "Nowhere/Land"}}, r"IANA time-zone"),
         ({"region": REGION, "output": {"diagnostics_every": "90min"}}, r"whole number of hours"),
         ({"region": {"dem": "d.tif"}}, r"missing required key \[region\] zones"),

@@ -12,10 +12,21 @@ from regionmap.errors import InputError
 from regionmap.io.dem import read_dem
 
 
-def _write_raw(path, z, crs="EPSG:32632", transform=Affine(100, 0, 600000, 0, -100, 5200000), nodata=None):
-    with rasterio.open(path, "w", driver="GTiff", height=z.shape[0], width=z.shape[1], count=1,
-                       dtype="float32", crs=None if crs is None else CRS.from_user_input(crs),
-                       transform=transform, nodata=nodata) as dst:
+def _write_raw(
+    path, z, crs="EPSG:32632", transform=Affine(100, 0, 600000, 0, -100, 5200000), nodata=None
+):
+    with rasterio.open(
+        path,
+        "w",
+        driver="GTiff",
+        height=z.shape[0],
+        width=z.shape[1],
+        count=1,
+        dtype="float32",
+        crs=None if crs is None else CRS.from_user_input(crs),
+        transform=transform,
+        nodata=nodata,
+    ) as dst:
         dst.write(z.astype(np.float32), 1)
 
 
@@ -68,7 +79,9 @@ def test_geographic_dem_metric_view_is_utm_and_areas_match_pyproj_geod(tmp_path)
     geod = Geod(ellps="WGS84")
     for row in (0, 39):
         lat_top = 47.0 - 0.01 * row
-        a, _ = geod.polygon_area_perimeter([10.0, 10.01, 10.01, 10.0], [lat_top, lat_top, lat_top - 0.01, lat_top - 0.01])
+        a, _ = geod.polygon_area_perimeter(
+            [10.0, 10.01, 10.01, 10.0], [lat_top, lat_top, lat_top - 0.01, lat_top - 0.01]
+        )
         assert area[row, 0] == pytest.approx(abs(a), rel=1e-6)
 
 
@@ -77,7 +90,13 @@ def test_shipped_demo_files_are_reproduced_by_their_generator(tmp_path):
     # grid and the same zones (a reproducibility check, not a physical reference).
     import geopandas as gpd
 
-    from regionmap.demo import DEMO_ZONE_NAMES, SHIPPED_DEM, SHIPPED_ZONES, make_demo_dem, make_demo_zones
+    from regionmap.demo import (
+        DEMO_ZONE_NAMES,
+        SHIPPED_DEM,
+        SHIPPED_ZONES,
+        make_demo_dem,
+        make_demo_zones,
+    )
 
     new_dem = read_dem(make_demo_dem(tmp_path / "dem.tif"))
     old_dem = read_dem(SHIPPED_DEM)

@@ -46,8 +46,9 @@ def demo(tmp_path_factory):
         "profiles": profiles,
         "events": pd.read_csv(out / "events.csv", parse_dates=["first_time", "last_time"]),
         "limits": pd.read_csv(out / "rain_crust_limits.csv", parse_dates=["event_time"]),
-        "table": cells[["zone", "aspect_sector", "elevation_m", "area_km2"]].to_dataframe()
-                 .reset_index(drop=True),
+        "table": cells[["zone", "aspect_sector", "elevation_m", "area_km2"]]
+        .to_dataframe()
+        .reset_index(drop=True),
     }
     cells.close()
     profiles.close()
@@ -82,8 +83,13 @@ def transition(demo):
         up = np.flatnonzero((f[:-1] < 0.5) & (f[1:] >= 0.5))
         assert up.size >= 1, (zone, aspect)
         i = up[-1]
-        rows.append({"zone": zone, "aspect_sector": aspect,
-                     "transition_m": z[i] + (0.5 - f[i]) / (f[i + 1] - f[i]) * (z[i + 1] - z[i])})
+        rows.append(
+            {
+                "zone": zone,
+                "aspect_sector": aspect,
+                "transition_m": z[i] + (0.5 - f[i]) / (f[i + 1] - f[i]) * (z[i + 1] - z[i]),
+            }
+        )
     return pd.DataFrame(rows)
 
 
@@ -123,7 +129,9 @@ def test_rain_on_snow_forcing_is_as_designed(demo, transition):
     t = cells["time"].values
     a, b = (np.datetime64(x) for x in ros["event_time"])
     rain = cells["rain_kg_m2"].values[:, (t > a) & (t <= b)].sum(axis=1)
-    trans = table.merge(transition, on=["zone", "aspect_sector"], how="left")["transition_m"].to_numpy()
+    trans = table.merge(transition, on=["zone", "aspect_sector"], how="left")[
+        "transition_m"
+    ].to_numpy()
     below = table["elevation_m"].to_numpy() < trans - 100.0
     lo, hi = ros["rain_kg_m2_below_freezing_level"]  # design: 10-20 kg m-2 of rain
     assert below.sum() > 50
@@ -148,16 +156,22 @@ def test_rain_crust_upper_limit_is_the_rain_snow_transition(demo, transition):
     np.testing.assert_array_less(np.abs(lim["upper_m"] - lim["transition_m"]), 100.0 + 25.0)
     assert np.median(np.abs(lim["upper_m"] - lim["transition_m"])) < 100.0
     # and its likely range (perturbation ensemble) contains the transition
-    assert ((lim["upper_low_m"] <= lim["transition_m"]) & (lim["transition_m"] <= lim["upper_high_m"])).all()
+    assert (
+        (lim["upper_low_m"] <= lim["transition_m"]) & (lim["transition_m"] <= lim["upper_high_m"])
+    ).all()
 
 
 def test_no_crust_from_the_event_above_the_transition(demo, transition):
     """Issue 5: no rain crust of the rain-on-snow event above the transition (+100 m)."""
     event_id = _ros_event_id(demo)
     snap, valid = _layers(demo)
-    has = (valid & (snap["crust_kind"].values == "rain") & (snap["event_id"].values == event_id)).any(axis=1)
+    has = (
+        valid & (snap["crust_kind"].values == "rain") & (snap["event_id"].values == event_id)
+    ).any(axis=1)
     table = demo["table"]
-    trans = table.merge(transition, on=["zone", "aspect_sector"], how="left")["transition_m"].to_numpy()
+    trans = table.merge(transition, on=["zone", "aspect_sector"], how="left")[
+        "transition_m"
+    ].to_numpy()
     z = table["elevation_m"].to_numpy()
     above = z > trans + 100.0
     assert above.sum() > 100
@@ -176,8 +190,11 @@ def test_depth_hoar_after_the_cold_clear_spell(demo):
     cells, table = demo["cells"], demo["table"]
     z = table["elevation_m"].to_numpy()
     w = table["area_km2"].to_numpy()
-    shaded = table["aspect_sector"].isin(bf["aspects"]).to_numpy() & (z >= bf["elevation_m"][0]) & (
-        z <= bf["elevation_m"][1])
+    shaded = (
+        table["aspect_sector"].isin(bf["aspects"]).to_numpy()
+        & (z >= bf["elevation_m"][0])
+        & (z <= bf["elevation_m"][1])
+    )
     dh = _at(cells, "depth_hoar_present", bf["depth_hoar_by"]) == 1
     assert _frac(dh[shaded], w[shaded]) > MOST
     # before the early snow there was no snow at all (design: first snow of the season)
@@ -197,9 +214,15 @@ def test_depth_hoar_persists_above_the_transition(demo, transition):
     rain-snow transition of the rain-on-snow event, on the shaded aspects."""
     bf = demo["design"]["expected"]["basal_faceting"]
     table = demo["table"]
-    trans = table.merge(transition, on=["zone", "aspect_sector"], how="left")["transition_m"].to_numpy()
+    trans = table.merge(transition, on=["zone", "aspect_sector"], how="left")[
+        "transition_m"
+    ].to_numpy()
     z = table["elevation_m"].to_numpy()
-    sel = table["aspect_sector"].isin(bf["aspects"]).to_numpy() & (z > trans + 100.0) & (z <= bf["elevation_m"][1])
+    sel = (
+        table["aspect_sector"].isin(bf["aspects"]).to_numpy()
+        & (z > trans + 100.0)
+        & (z <= bf["elevation_m"][1])
+    )
     dh = _at(demo["cells"], "depth_hoar_present", demo["cfg"].forcing.analysis_time) == 1
     assert sel.sum() > 20 and _frac(dh[sel], table["area_km2"].to_numpy()[sel]) > MOST
 
@@ -230,7 +253,9 @@ def test_surface_hoar_buried_on_its_date(demo):
 
 def test_surface_hoar_persists_above_the_transition(demo, transition):
     table = demo["table"]
-    trans = table.merge(transition, on=["zone", "aspect_sector"], how="left")["transition_m"].to_numpy()
+    trans = table.merge(transition, on=["zone", "aspect_sector"], how="left")[
+        "transition_m"
+    ].to_numpy()
     sel = table["elevation_m"].to_numpy() > trans + 100.0
     has = _buried_surface_hoar(demo)
     assert _frac(has[sel], table["area_km2"].to_numpy()[sel]) > MOST
@@ -251,7 +276,9 @@ def test_layer_tracker_follows_each_rain_crust_under_its_event_name(demo):
     from regionmap.plots.tracker import layer_tracks
 
     loc = pd.read_csv(demo["out"] / "layers_of_concern.csv", parse_dates=["valid_time"])
-    rain = loc[(loc["kind"] == "rain") & (loc["presence_frac"] > 0)]  # per zone, and per band x aspect
+    rain = loc[
+        (loc["kind"] == "rain") & (loc["presence_frac"] > 0)
+    ]  # per zone, and per band x aspect
     zones = rain[rain["band"] == "all"]
     assert not zones.empty
     for row in zones.itertuples():
@@ -259,10 +286,15 @@ def test_layer_tracker_follows_each_rain_crust_under_its_event_name(demo):
         assert not tracks.empty, (row.zone, row.layer_id)
         day = tracks["day"][tracks["day"] <= row.valid_time].max()
         found = set(tracks.loc[(tracks["day"] == day) & (tracks["presence_frac"] > 0), "band"])
-        expected = set(rain.loc[(rain["zone"] == row.zone) & (rain["layer_id"] == row.layer_id)
-                                & (rain["band"] != "all"), "band"])
+        expected = set(
+            rain.loc[
+                (rain["zone"] == row.zone)
+                & (rain["layer_id"] == row.layer_id)
+                & (rain["band"] != "all"),
+                "band",
+            ]
+        )
         assert found == expected, (row.zone, row.layer_id)
-
 
 
 def _glaze(demo):
@@ -270,8 +302,12 @@ def _glaze(demo):
     snap, valid = _layers(demo)
     form = snap["formation_time"].values
     a, b = (np.datetime64(t) for t in fz["event_time"])
-    return (valid & (snap["crust_kind"].values == "glaze") & (form >= a)
-            & (form <= b + np.timedelta64(1, "D"))).any(axis=1)
+    return (
+        valid
+        & (snap["crust_kind"].values == "glaze")
+        & (form >= a)
+        & (form <= b + np.timedelta64(1, "D"))
+    ).any(axis=1)
 
 
 def test_glaze_below_the_warm_layer(demo):
@@ -297,7 +333,9 @@ def test_crust_count_below_both_events(demo, transition):
     cc = demo["design"]["expected"]["crust_count"]
     fz = demo["design"]["expected"]["freezing_rain"]
     table = demo["table"]
-    trans = table.merge(transition, on=["zone", "aspect_sector"], how="left")["transition_m"].to_numpy()
+    trans = table.merge(transition, on=["zone", "aspect_sector"], how="left")[
+        "transition_m"
+    ].to_numpy()
     z = table["elevation_m"].to_numpy()
     sel = z < np.minimum(trans - 100.0, fz["glaze_below_m"])
     count = _at(demo["cells"], "crust_count", demo["cfg"].forcing.analysis_time)
@@ -311,8 +349,11 @@ def test_no_rain_events_outside_the_designed_ones(demo):
     """Events file: before spring only the designed events bring rain."""
     d = demo["design"]
     ev = demo["events"]
-    windows = [(np.datetime64(e["start"]), np.datetime64(e["end"])) for e in d["events"]
-               if e["id"] in d["expected"]["no_background_rain"]["rain_only_in"]]
+    windows = [
+        (np.datetime64(e["start"]), np.datetime64(e["end"]))
+        for e in d["events"]
+        if e["id"] in d["expected"]["no_background_rain"]["rain_only_in"]
+    ]
     rain = ev[ev["kind"] == "rain-on-snow"]
     inside = np.zeros(len(rain), bool)
     for a, b in windows:

@@ -16,8 +16,13 @@ import pytest
 import xarray as xr
 from pyproj import CRS
 
-from regionmap.demo_weather import (demo_events, demo_variables_mapping, model_grid,
-                                    write_demo_events, write_demo_forcing)
+from regionmap.demo_weather import (
+    demo_events,
+    demo_variables_mapping,
+    model_grid,
+    write_demo_events,
+    write_demo_forcing,
+)
 from regionmap.io.forcing import open_forcing
 
 DEM_CRS = "EPSG:32632"
@@ -68,20 +73,33 @@ def test_demo_file_is_small(season):
 
 def test_raw_variant_reads_to_the_same_canonical_values(season):
     a = open_forcing(season["cf"])
-    b = open_forcing(season["raw"], variables=demo_variables_mapping(),
-                     heights_m={"wind": 10.0, "temperature": 2.0})
+    b = open_forcing(
+        season["raw"],
+        variables=demo_variables_mapping(),
+        heights_m={"wind": 10.0, "temperature": 2.0},
+    )
     assert a.grid.kind == "projected" and b.grid.kind == "latlon2d" and b.crs is None
     np.testing.assert_array_equal(a.time, b.time)
     assert str(a.time[0]) == "2025-11-01T00:00:00" and str(a.time[-1]) == "2026-04-30T23:00:00"
     np.testing.assert_allclose(b.surface_altitude, a.surface_altitude, rtol=1e-6)
     # 2-D lat/lon inversion vs the projected grid's own: same fractional indices
     lon, lat = a.lon[3:5, 3:5].ravel() + 0.001, a.lat[3:5, 3:5].ravel() + 0.001
-    np.testing.assert_allclose(np.c_[b.grid_index_of(lon, lat)], np.c_[a.grid_index_of(lon, lat)], atol=1e-6)
-    for name, tol in (("air_temperature", 0), ("relative_humidity", 1e-5), ("wind_speed", 1e-5),
-                      ("shortwave_down", 1e-4), ("longwave_down", 1e-4), ("precipitation", 1e-6),
-                      ("surface_air_pressure", 0), ("upper_air_temperature", 0)):
-        np.testing.assert_allclose(getattr(b, name).values, getattr(a, name).values, atol=tol, rtol=0,
-                                   err_msg=name)
+    np.testing.assert_allclose(
+        np.c_[b.grid_index_of(lon, lat)], np.c_[a.grid_index_of(lon, lat)], atol=1e-6
+    )
+    for name, tol in (
+        ("air_temperature", 0),
+        ("relative_humidity", 1e-5),
+        ("wind_speed", 1e-5),
+        ("shortwave_down", 1e-4),
+        ("longwave_down", 1e-4),
+        ("precipitation", 1e-6),
+        ("surface_air_pressure", 0),
+        ("upper_air_temperature", 0),
+    ):
+        np.testing.assert_allclose(
+            getattr(b, name).values, getattr(a, name).values, atol=tol, rtol=0, err_msg=name
+        )
     d = np.abs(b.wind_from_direction.values - a.wind_from_direction.values)
     assert np.minimum(d, 360 - d).max() < 1e-3
 
@@ -112,8 +130,11 @@ def test_no_rain_before_spring_outside_the_designed_events(season):
     ds = season["ds"].sel(time=slice(None, "2026-03-31T23:00"))
     ev = demo_events()
     assert ev["expected"]["no_background_rain"]["before"] == "2026-04-01T00:00"
-    windows = [(np.datetime64(e["start"]), np.datetime64(e["end"])) for e in ev["events"]
-               if e["id"] in ev["expected"]["no_background_rain"]["rain_only_in"]]
+    windows = [
+        (np.datetime64(e["start"]), np.datetime64(e["end"]))
+        for e in ev["events"]
+        if e["id"] in ev["expected"]["no_background_rain"]["rain_only_in"]
+    ]
     # Jennings et al. (2018), Nat. Commun. 9, 1148, Table 2: above about +0.9 degC at 97 % RH
     # more than half of the precipitation is rain; anything that warm and wet is rain
     wet_warm = ((ds["pr"].values > 0.05) & (ds["tas"].values > 273.15 + 0.9)).any(axis=(1, 2))
@@ -136,7 +157,9 @@ def test_freezing_rain_only_in_its_episode(season):
     flag = warm_aloft & (tas < 0) & (ds["pr"].values > 0.05)  # melting layer over sub-freezing air
     hours = ds["time"].values[flag.any(axis=(1, 2))]
     assert hours.size >= 6
-    assert hours.min() >= np.datetime64(ev["event_time"][0]) and hours.max() <= np.datetime64(ev["event_time"][1])
+    assert hours.min() >= np.datetime64(ev["event_time"][0]) and hours.max() <= np.datetime64(
+        ev["event_time"][1]
+    )
     core = ds.sel(time="2026-02-11T13:00")
     low = core["orog"].values < ev["glaze_below_m"] - 25.0  # values are rounded to 1/64 K
     assert low.any() and np.all(core["tas"].values[low] < 273.15)
@@ -187,19 +210,26 @@ def test_shortwave_respects_the_sun_pvlib(season):
 
     # the file's first grid point, in lon/lat by pyproj
     lon, lat = Transformer.from_crs(DEM_CRS, "EPSG:4326", always_xy=True).transform(
-        float(ds["x"][0]), float(ds["y"][0]))
+        float(ds["x"][0]), float(ds["y"][0])
+    )
     sub = ds.sel(time=slice("2025-12-01", "2025-12-10"))
     times = sub["time"].values
     import pandas as pd
 
-    start = pvlib.solarposition.get_solarposition(pd.DatetimeIndex(times - np.timedelta64(1, "h"), tz="UTC"), lat, lon)
+    start = pvlib.solarposition.get_solarposition(
+        pd.DatetimeIndex(times - np.timedelta64(1, "h"), tz="UTC"), lat, lon
+    )
     end = pvlib.solarposition.get_solarposition(pd.DatetimeIndex(times, tz="UTC"), lat, lon)
     sw = sub["rsds"].values[:, 0, 0]
     night = (start["elevation"].values < -2) & (end["elevation"].values < -2)
     assert np.all(sw[night] == 0.0)
     # never above the extraterrestrial horizontal irradiance of the brighter interval end (pvlib)
-    e0 = pvlib.irradiance.get_extra_radiation(pd.DatetimeIndex(times, tz="UTC"), solar_constant=1361.0).values
-    top = e0 * np.maximum(np.cos(np.radians(start["zenith"].values)), np.cos(np.radians(end["zenith"].values)))
+    e0 = pvlib.irradiance.get_extra_radiation(
+        pd.DatetimeIndex(times, tz="UTC"), solar_constant=1361.0
+    ).values
+    top = e0 * np.maximum(
+        np.cos(np.radians(start["zenith"].values)), np.cos(np.radians(end["zenith"].values))
+    )
     assert np.all(sw <= np.maximum(top, 0) + 1.0)
     assert sw.max() > 200.0
 

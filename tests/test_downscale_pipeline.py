@@ -82,17 +82,37 @@ def make_batch(grid, n_cell=40, seed=1, zones=3, px=5, elevation=None, settings=
     pix_cell = np.repeat(np.arange(n_cell), px)
     pix_lon = lon_c[pix_cell] + 0.01 * rng.standard_normal(pix_cell.size)
     pix_lat = lat_c[pix_cell] + 0.01 * rng.standard_normal(pix_cell.size)
-    w = build_cell_weights(grid.grid_index_of, grid.extent_lonlat, (NY, NX), pix_cell, pix_lon,
-                           pix_lat, n_cell, lon_c, lat_c, method=settings.interpolation,
-                           lapse_radius=settings.grid_lapse_radius)
+    w = build_cell_weights(
+        grid.grid_index_of,
+        grid.extent_lonlat,
+        (NY, NX),
+        pix_cell,
+        pix_lon,
+        pix_lat,
+        n_cell,
+        lon_c,
+        lat_c,
+        method=settings.interpolation,
+        lapse_radius=settings.grid_lapse_radius,
+    )
     az, el, frac, cosi = flat_sunlit(n_cell)
     return CellBatch(
-        cell_id=np.arange(n_cell), elevation_m=elevation if elevation is not None else 1000 + 2000 * rng.random(n_cell),
-        slope_deg=np.zeros(n_cell), aspect_deg=np.full(n_cell, np.nan), sky_view_frac=np.ones(n_cell),
-        lon_deg=lon_c, lat_deg=lat_c, area_m2=1e5 * (1 + rng.random(n_cell)),
-        zone_code=rng.integers(0, zones, n_cell), sx_deg=20 * rng.standard_normal((n_cell, 8)),
-        sx_directions_deg=np.arange(0, 360, 45.0), sun_azimuth_deg=az, sun_elevation_deg=el,
-        sunlit_fraction=frac, sunlit_cos_incidence=cosi, weights=w,
+        cell_id=np.arange(n_cell),
+        elevation_m=elevation if elevation is not None else 1000 + 2000 * rng.random(n_cell),
+        slope_deg=np.zeros(n_cell),
+        aspect_deg=np.full(n_cell, np.nan),
+        sky_view_frac=np.ones(n_cell),
+        lon_deg=lon_c,
+        lat_deg=lat_c,
+        area_m2=1e5 * (1 + rng.random(n_cell)),
+        zone_code=rng.integers(0, zones, n_cell),
+        sx_deg=20 * rng.standard_normal((n_cell, 8)),
+        sx_directions_deg=np.arange(0, 360, 45.0),
+        sun_azimuth_deg=az,
+        sun_elevation_deg=el,
+        sunlit_fraction=frac,
+        sunlit_cos_incidence=cosi,
+        weights=w,
     )
 
 
@@ -136,8 +156,16 @@ def test_grid_points_read_once_per_span_and_chunk_invariance(monkeypatch):
     c = downscale_cells(grid, batch, DownscaleSettings(time_block_h=24, chunk_cells=7))
     assert grid.reads == 5
     # bit for bit, whatever the chunks and blocks (DESIGN: results do not depend on chunking)
-    for name in ("t_air_k", "rh_frac", "sw_in_w_m2", "lw_in_w_m2", "precip_kg_m2", "wind_m_s",
-                 "pressure_pa", "snow_frac"):
+    for name in (
+        "t_air_k",
+        "rh_frac",
+        "sw_in_w_m2",
+        "lw_in_w_m2",
+        "precip_kg_m2",
+        "wind_m_s",
+        "pressure_pa",
+        "snow_frac",
+    ):
         np.testing.assert_array_equal(getattr(a, name), getattr(c, name))
         np.testing.assert_array_equal(getattr(a, name), getattr(b, name))
     assert a.wind_height_m == 10.0 and a.temp_height_m == 2.0
@@ -164,8 +192,13 @@ def test_bias_factors_and_monthly_offsets_apply_exactly():
     base = downscale_cells(grid, batch, DownscaleSettings())
     offs = [-0.5] * 12
     offs[0] = -1.25  # January
-    s = DownscaleSettings(bias={"precipitation": {"factor": 0.85}, "air_temperature": {"offset": offs},
-                                "wind_speed": {"factor": [0.5] * 12}})
+    s = DownscaleSettings(
+        bias={
+            "precipitation": {"factor": 0.85},
+            "air_temperature": {"offset": offs},
+            "wind_speed": {"factor": [0.5] * 12},
+        }
+    )
     cf = downscale_cells(grid, batch, s)
     np.testing.assert_array_equal(cf.precip_kg_m2, base.precip_kg_m2 * 0.85)
     np.testing.assert_array_equal(cf.t_air_k, base.t_air_k + -1.25)
@@ -187,10 +220,20 @@ def test_freezing_rain_only_with_upper_air_information():
 
 def test_grid_that_misses_cells_is_a_grid_mismatch_error_with_both_extents():
     grid = make_grid()
-    with pytest.raises(GridMismatchError, match=r"Cells span lon .* the grid spans lon 10\.0000\.\.10\.5000"):
-        build_cell_weights(grid.grid_index_of, grid.extent_lonlat, (NY, NX), np.array([0, 0]),
-                           np.array([10.2, 10.9]), np.array([46.1, 46.1]), 1,
-                           np.array([10.5]), np.array([46.1]))
+    with pytest.raises(
+        GridMismatchError, match=r"Cells span lon .* the grid spans lon 10\.0000\.\.10\.5000"
+    ):
+        build_cell_weights(
+            grid.grid_index_of,
+            grid.extent_lonlat,
+            (NY, NX),
+            np.array([0, 0]),
+            np.array([10.2, 10.9]),
+            np.array([46.1, 46.1]),
+            1,
+            np.array([10.5]),
+            np.array([46.1]),
+        )
 
 
 def test_bad_settings_are_config_errors():
@@ -211,15 +254,27 @@ def test_freezing_rain_needs_the_warm_layer_above_the_cell():
 
     grid = make_grid(t_fn=lambda z, h: 271.0 + 0 * z + 0 * h)
     levels = np.array([900e2, 850e2, 800e2, 750e2, 700e2, 650e2, 600e2, 500e2])
-    temps = np.array([270.0, 271.0, 272.5, 276.0, 273.0, 270.0, 266.0, 255.0])  # warm nose at 750 hPa
+    temps = np.array(
+        [270.0, 271.0, 272.5, 276.0, 273.0, 270.0, 266.0, 255.0]
+    )  # warm nose at 750 hPa
     grid.upper_air_temperature = True
     grid.upper_air_pressure_pa = levels
-    grid.fields["upper_air_temperature"] = np.broadcast_to(temps[None, :, None, None], (72, 8, NY, NX)).copy()
+    grid.fields["upper_air_temperature"] = np.broadcast_to(
+        temps[None, :, None, None], (72, 8, NY, NX)
+    ).copy()
     low, high = 1500.0, 3300.0  # ~845 hPa (below the warm layer) and ~670 hPa (above it)
-    assert pressure_standard_atmosphere_icao(np.array(high)) < 700e2 < 800e2 < pressure_standard_atmosphere_icao(np.array(low))
+    assert (
+        pressure_standard_atmosphere_icao(np.array(high))
+        < 700e2
+        < 800e2
+        < pressure_standard_atmosphere_icao(np.array(low))
+    )
     elevation = np.where(np.arange(40) % 2 == 0, low, high)
     batch = make_batch(grid, elevation=elevation)
-    cf = downscale_cells(grid, batch, DownscaleSettings(lapse="fixed", lapse_fixed_k_per_km=0.0,
-                                                        pressure="standard_atmosphere"))
+    cf = downscale_cells(
+        grid,
+        batch,
+        DownscaleSettings(lapse="fixed", lapse_fixed_k_per_km=0.0, pressure="standard_atmosphere"),
+    )
     assert np.all(cf.freezing_rain_frac[elevation == low] > 0.5)
     assert np.all(cf.freezing_rain_frac[elevation == high] == 0)

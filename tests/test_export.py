@@ -15,10 +15,12 @@ import pytest
 import rasterio
 import rasterio.features
 import shapely
+from test_summaries_synth import CRS, TRANSFORM, cone_dem, synthetic_run
 
 from regionmap.errors import InputError
 from regionmap.export import cells_to_raster, write_gis
 from regionmap.io.outdir import OutputFolder
+from regionmap.io.writers import write_geotiff
 from regionmap.rain_crust import (
     RainEvent,
     rain_crust_limits,
@@ -29,8 +31,6 @@ from regionmap.rain_crust import (
     zone_rain_crust_columns,
 )
 from regionmap.summaries import layers_of_concern, summary_tables, terrain_weights_km2
-from regionmap.io.writers import write_geotiff
-from test_summaries_synth import CRS, TRANSFORM, cone_dem, synthetic_run
 
 MAP_TIME = "2026-01-22T12:00"
 CHECKER = Path("/work/shared/tools/check_outputs.py")
@@ -45,7 +45,9 @@ class _Cells:
     def polygons(self):
         shapes = rasterio.features.shapes(self.index, mask=self.index >= 0, transform=TRANSFORM)
         rec = [(int(v), shapely.geometry.shape(g)) for g, v in shapes]
-        g = gpd.GeoDataFrame({"cell_id": [r[0] for r in rec]}, geometry=[r[1] for r in rec], crs=CRS)
+        g = gpd.GeoDataFrame(
+            {"cell_id": [r[0] for r in rec]}, geometry=[r[1] for r in rec], crs=CRS
+        )
         return g.dissolve(by="cell_id").reset_index()[["cell_id", "geometry"]]
 
 
@@ -55,12 +57,17 @@ def _assemble(folder: Path, run):
     w = terrain_weights_km2(index, slope, area, len(table))
     tabs = summary_tables(diag, prof, table, w, map_time=MAP_TIME, local_timezone="Etc/GMT+7")
     # the cone (26.6°) has no 30-50° terrain: weight the layers over all terrain here
-    loc = layers_of_concern(diag, prof, table, w["all_km2"].to_numpy(), time=MAP_TIME,
-                            local_timezone="Etc/GMT+7")
-    regions = cellset.polygons().merge(table[["zone", "aspect_sector"]], left_on="cell_id", right_index=True)
+    loc = layers_of_concern(
+        diag, prof, table, w["all_km2"].to_numpy(), time=MAP_TIME, local_timezone="Etc/GMT+7"
+    )
+    regions = cellset.polygons().merge(
+        table[["zone", "aspect_sector"]], left_on="cell_id", right_index=True
+    )
     lims, zlims = [], []
     for ev in rain_events(prof).itertuples():
-        event = RainEvent(ev.event_id, ev.event_time, rain_crust_presence(prof, event_id=ev.event_id))
+        event = RainEvent(
+            ev.event_id, ev.event_time, rain_crust_presence(prof, event_id=ev.event_id)
+        )
         lims.append(rain_crust_limits(table, w["all_km2"].to_numpy(), event))
         zlims.append(rain_crust_limits(table, w["all_km2"].to_numpy(), event, by=("zone",)))
     lim = pd.concat(lims, ignore_index=True)
@@ -69,11 +76,27 @@ def _assemble(folder: Path, run):
     zone_table = tabs.zones.merge(rc, left_on="zone", right_index=True, how="left")
     zones_gdf = regions.dissolve(by="zone").reset_index()[["zone", "geometry"]]
     c = tabs.cells
-    maps = {"depth_hoar_fraction": c["depth_hoar_present"].to_numpy(), "crust_count": c["crust_count"].to_numpy(),
-            "new_snow_72h_cm": c["new_snow_72h_cm"].to_numpy(), "snow_depth_cm": c["snow_depth_cm"].to_numpy(),
-            "pwl_depth_cm": c["pwl_depth_cm"].to_numpy(), "pwl_slab_cm": c["pwl_slab_cm"].to_numpy()}
-    write_gis(folder, cellset, zones_gdf, zone_table, c, lines, loc, maps,
-              transform=TRANSFORM, crs=CRS, valid_time=MAP_TIME)
+    maps = {
+        "depth_hoar_fraction": c["depth_hoar_present"].to_numpy(),
+        "crust_count": c["crust_count"].to_numpy(),
+        "new_snow_72h_cm": c["new_snow_72h_cm"].to_numpy(),
+        "snow_depth_cm": c["snow_depth_cm"].to_numpy(),
+        "pwl_depth_cm": c["pwl_depth_cm"].to_numpy(),
+        "pwl_slab_cm": c["pwl_slab_cm"].to_numpy(),
+    }
+    write_gis(
+        folder,
+        cellset,
+        zones_gdf,
+        zone_table,
+        c,
+        lines,
+        loc,
+        maps,
+        transform=TRANSFORM,
+        crs=CRS,
+        valid_time=MAP_TIME,
+    )
     return table, index, maps
 
 
@@ -121,8 +144,18 @@ def test_geopackage_layers_columns_and_geojson_crs(out):
     layers = {name for name, _ in pyogrio.list_layers(target / "zones.gpkg")}
     assert {"zones", "cells", "rain_crust_line", "layers_of_concern"} <= layers
     z = gpd.read_file(target / "zones.gpkg", layer="zones")
-    for col in ("zone", "depth_hoar_fraction", "crust_count_mean", "new_snow_72h_cm", "new_snow_72h_kg_m2",
-                "snow_depth_cm", "rain_crust_line_m", "is_forecast", "valid_time", "rain_crust_text"):
+    for col in (
+        "zone",
+        "depth_hoar_fraction",
+        "crust_count_mean",
+        "new_snow_72h_cm",
+        "new_snow_72h_kg_m2",
+        "snow_depth_cm",
+        "rain_crust_line_m",
+        "is_forecast",
+        "valid_time",
+        "rain_crust_text",
+    ):
         assert col in z.columns
     assert z.crs == CRS
     np.testing.assert_allclose(z["rain_crust_line_m"], 2000.0)  # designed crust top
@@ -132,10 +165,14 @@ def test_geopackage_layers_columns_and_geojson_crs(out):
     c = c.set_index("cell_id").loc[table.index]
     np.testing.assert_allclose(c.area, table["pixel_count"] * 1e4)
     rl = gpd.read_file(target / "zones.gpkg", layer="rain_crust_line")
-    assert {"elevation_m", "lower_m", "upper_m", "event_time", "zone"} <= set(rl.columns) and len(rl) > 0
+    assert {"elevation_m", "lower_m", "upper_m", "event_time", "zone"} <= set(rl.columns) and len(
+        rl
+    ) > 0
     loc_csv = pd.read_csv(target / "layers_of_concern.csv")
     loc_gpkg = pyogrio.read_dataframe(target / "zones.gpkg", layer="layers_of_concern")
-    assert len(loc_csv) == len(loc_gpkg) > 0 and "SH buried 2026-01-12" in set(loc_csv["layer_name"])
+    assert len(loc_csv) == len(loc_gpkg) > 0 and "SH buried 2026-01-12" in set(
+        loc_csv["layer_name"]
+    )
     g = gpd.read_file(target / "zones.geojson")
     assert g.crs.to_epsg() == 4326  # RFC 7946
     assert g.total_bounds[0] > 14.0 and g.total_bounds[2] < 16.0  # EPSG:32633 near 15° E
@@ -143,8 +180,10 @@ def test_geopackage_layers_columns_and_geojson_crs(out):
 
 def test_integer_maps_refuse_values_that_do_not_fit():
     idx = np.array([[0, 1], [-1, 1]])
-    np.testing.assert_array_equal(cells_to_raster(np.array([3.0, np.nan]), idx, dtype="uint8", nodata=255),
-                                  [[3, 255], [255, 255]])
+    np.testing.assert_array_equal(
+        cells_to_raster(np.array([3.0, np.nan]), idx, dtype="uint8", nodata=255),
+        [[3, 255], [255, 255]],
+    )
     with pytest.raises(InputError, match="do not fit uint8"):
         cells_to_raster(np.array([300.0, 1.0]), idx, dtype="uint8", nodata=255)
 
@@ -156,10 +195,19 @@ def test_output_contract_checker_on_assembled_folder(out, capsys):
         pytest.skip("shared checker not present")
     target = out[0]
     dem_path = target.parent / "dem.tif"
-    write_geotiff(dem_path, cone_dem().astype("float32"), transform=TRANSFORM, crs=CRS, nodata=-9999.0,
-                  description="elevation [m]")
-    res = subprocess.run([sys.executable, str(CHECKER), str(target), "--dem", str(dem_path)],
-                         capture_output=True, text=True)
+    write_geotiff(
+        dem_path,
+        cone_dem().astype("float32"),
+        transform=TRANSFORM,
+        crs=CRS,
+        nodata=-9999.0,
+        description="elevation [m]",
+    )
+    res = subprocess.run(
+        [sys.executable, str(CHECKER), str(target), "--dem", str(dem_path)],
+        capture_output=True,
+        text=True,
+    )
     assert "ok    rasters on the DEM's grid" in res.stdout
     lines = res.stdout.splitlines()
     failed = [ln for ln in lines if ln.startswith("FAIL")]

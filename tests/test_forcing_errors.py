@@ -9,15 +9,18 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
+from test_forcing_reader import hourly_amounts, make_forcing, own_coords, write
 
 from regionmap.errors import ConfigError, ForcingReadError, GridMismatchError
 from regionmap.io.forcing import open_forcing
-from test_forcing_reader import hourly_amounts, make_forcing, own_coords, write
 
 
 def test_missing_variable_names_standard_name_and_alternatives(tmp_path):
     path = write(make_forcing(drop=("rh",)), tmp_path)
-    with pytest.raises(ForcingReadError, match=r"f\.nc.*humidity.*relative_humidity or specific_humidity or dew_point_temperature"):
+    with pytest.raises(
+        ForcingReadError,
+        match=r"f\.nc.*humidity.*relative_humidity or specific_humidity or dew_point_temperature",
+    ):
         open_forcing(path)
 
 
@@ -104,7 +107,10 @@ def test_relative_humidity_above_100_percent_is_clipped_and_counted(tmp_path):
 def test_cells_outside_the_grid_print_both_extents(tmp_path):
     gf = open_forcing(write(make_forcing("latlon1d"), tmp_path))
     gf.check_covers([11.1, 11.2], [46.2, 46.2])  # inside: no error
-    with pytest.raises(GridMismatchError, match=r"f\.nc.*1 of 2 points.*grid extent lon 11\.0000\.\.11\.3000.*points span lon 11\.1000\.\.12\.0000"):
+    with pytest.raises(
+        GridMismatchError,
+        match=r"f\.nc.*1 of 2 points.*grid extent lon 11\.0000\.\.11\.3000.*points span lon 11\.1000\.\.12\.0000",
+    ):
         gf.check_covers([11.1, 12.0], [46.2, 46.2])
 
 
@@ -114,7 +120,10 @@ def test_several_temperatures_need_height_to_pick(tmp_path):
     own_coords(ds, "t2m", "height2")
     own_coords(ds, "t10", "height10")
     path = write(ds, tmp_path)
-    with pytest.raises(ForcingReadError, match=r"several variables have standard_name 'air_temperature': t10 \(height 10\.0\), t2m \(height 2\.0\)"):
+    with pytest.raises(
+        ForcingReadError,
+        match=r"several variables have standard_name 'air_temperature': t10 \(height 10\.0\), t2m \(height 2\.0\)",
+    ):
         open_forcing(path)
     gf = open_forcing(path, heights_m={"temperature": 10.0, "wind": 10.0})
     np.testing.assert_allclose(gf.air_temperature.values, ds["t10"].values, rtol=1e-6)
@@ -124,5 +133,7 @@ def test_bad_variables_mapping_is_a_config_error(tmp_path):
     path = write(make_forcing(), tmp_path)
     with pytest.raises(ConfigError, match=r"variables\.air_temp"):
         open_forcing(path, variables={"air_temp": {"name": "t2m"}})
-    with pytest.raises(ForcingReadError, match=r"'T2M' named in \[forcing\] variables\.air_temperature"):
+    with pytest.raises(
+        ForcingReadError, match=r"'T2M' named in \[forcing\] variables\.air_temperature"
+    ):
         open_forcing(path, variables={"air_temperature": {"name": "T2M"}})

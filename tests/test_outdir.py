@@ -106,9 +106,14 @@ def test_live_lock_refused_stale_lock_recovered(tmp_path):
         _write_generation(out.path, 1)
         with pytest.raises(OutputError, match="is in use.*held by process"):
             OutputFolder(target).__enter__()
-    dead = subprocess.run([sys.executable, "-c", "import os; print(os.getpid())"],
-                          capture_output=True, text=True, check=True)
+    dead = subprocess.run(
+        [sys.executable, "-c", "import os; print(os.getpid())"],
+        capture_output=True,
+        text=True,
+        check=True,
+    )
     import socket
+
     lock = tmp_path / ".out.regionmap-lock"
     lock.write_text(json.dumps({"pid": int(dead.stdout), "host": socket.gethostname()}))
     with OutputFolder(target) as out:
@@ -172,19 +177,20 @@ CHILD = textwrap.dedent(
 @pytest.mark.parametrize(
     "phase, expected_after_kill",
     [
-        ("writing", 1),          # still writing files: the old output must be untouched
-        ("before_swap", 1),      # all files written, marker complete, nothing renamed yet
+        ("writing", 1),  # still writing files: the old output must be untouched
+        ("before_swap", 1),  # all files written, marker complete, nothing renamed yet
         ("between_renames", 1),  # old moved aside, new not yet in place: recovery restores old
-        ("after_rename", 2),     # new in place, old not yet deleted: the new one is complete
-        ("deleting_old", 2),     # old half deleted: it keeps its marker, recovery finishes it
+        ("after_rename", 2),  # new in place, old not yet deleted: the new one is complete
+        ("deleting_old", 2),  # old half deleted: it keeps its marker, recovery finishes it
     ],
 )
 def test_sigkill_in_each_phase(tmp_path, phase, expected_after_kill):
     target = tmp_path / "out"
     with OutputFolder(target) as out:
         _write_generation(out.path, 1)
-    child = subprocess.Popen([sys.executable, "-c", CHILD, str(target), phase],
-                             stdout=subprocess.PIPE, text=True)
+    child = subprocess.Popen(
+        [sys.executable, "-c", CHILD, str(target), phase], stdout=subprocess.PIPE, text=True
+    )
     try:
         line = child.stdout.readline().strip()
         assert line == "PAUSED", f"child did not reach phase {phase}: {line!r}"
@@ -206,8 +212,9 @@ def test_sigkill_in_each_phase(tmp_path, phase, expected_after_kill):
     # The next run recovers the stale lock and the leftovers, then writes cleanly.
     with OutputFolder(target) as out:
         assert _generation(target) == expected_after_kill
-        assert [s for s in _siblings(target) if "regionmap-new" not in s
-                and "regionmap-lock" not in s] == []
+        assert [
+            s for s in _siblings(target) if "regionmap-new" not in s and "regionmap-lock" not in s
+        ] == []
         _write_generation(out.path, 3)
     assert any("stale lock" in r for r in out.recovered)
     assert _generation(target) == 3

@@ -6,21 +6,41 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 import pytest
-from matplotlib.colors import to_hex, rgb_to_hsv, to_rgb
+from matplotlib.colors import rgb_to_hsv, to_hex, to_rgb
+from test_plots_synthrun import outputs  # noqa: F401  (module fixture)
 
 from regionmap.errors import InputError
 from regionmap.plots.maps import plot_metric_map
 from regionmap.plots.overview import HOLE_RINGS, overview_table, plot_overview
 from regionmap.plots.profile import plot_profile, profile_command, select_cell
-from regionmap.plots.style import GRAIN_MAIN_COLOURS, METRIC_RAMP, OKABE_ITO, grain_colour, relative_luminance
-from regionmap.plots.tracker import MAX_TRACKER_LINES, layer_tracks, plot_elevation_chart, plot_layer_tracker
-from test_plots_synthrun import outputs  # noqa: F401  (module fixture)
+from regionmap.plots.style import (
+    GRAIN_MAIN_COLOURS,
+    METRIC_RAMP,
+    OKABE_ITO,
+    grain_colour,
+    relative_luminance,
+)
+from regionmap.plots.tracker import (
+    MAX_TRACKER_LINES,
+    layer_tracks,
+    plot_elevation_chart,
+    plot_layer_tracker,
+)
 
 
 # ----------------------------------------------------------------- palettes
 def test_grain_palette_is_the_okabe_ito_set_okabe_ito_2008():
     # Okabe & Ito (2008) / Wong (2011) Nature Methods 8:441 publish these eight sRGB values.
-    published = {"#000000", "#E69F00", "#56B4E9", "#009E73", "#F0E442", "#0072B2", "#D55E00", "#CC79A7"}
+    published = {
+        "#000000",
+        "#E69F00",
+        "#56B4E9",
+        "#009E73",
+        "#F0E442",
+        "#0072B2",
+        "#D55E00",
+        "#CC79A7",
+    }
     assert set(OKABE_ITO.values()) == published
     assert set(GRAIN_MAIN_COLOURS.values()) == published  # one distinct colour per main class
     # the classification's eight main classes (Fierz et al. 2009) all have a colour
@@ -55,14 +75,24 @@ def test_overview_puts_highest_band_in_the_centre_and_north_on_top(outputs):
     polys = {}
     for coll in ax.collections:
         if coll.get_gid() in ("sector-rings", "no-terrain"):
-            polys.update({url: path.vertices for url, path in zip(coll.get_urls(), coll.get_paths())})
-    bands = outputs.table[outputs.table["zone"] == "Zone A"].sort_values("band_lower_m")["band"].unique()
+            polys.update(
+                {url: path.vertices for url, path in zip(coll.get_urls(), coll.get_paths())}
+            )
+    bands = (
+        outputs.table[outputs.table["zone"] == "Zone A"]
+        .sort_values("band_lower_m")["band"]
+        .unique()
+    )
     inner = {b: polys[f"{b}|N"][:, 1].min() for b in bands}
     assert inner[bands[-1]] == pytest.approx(HOLE_RINGS)  # highest band innermost
     assert polys[f"{bands[-1]}|N"][:, 1].max() == pytest.approx(HOLE_RINGS + 1.0)
-    assert all(inner[a] > inner[b] for a, b in zip(bands, bands[1:]))  # radius falls as elevation rises
+    assert all(
+        inner[a] > inner[b] for a, b in zip(bands, bands[1:])
+    )  # radius falls as elevation rises
     north = polys[f"{bands[0]}|N"][:, 0]
-    assert (north.min() + north.max()) / 2 == pytest.approx(0.0)  # N sector centred on theta = 0 (the top)
+    assert (north.min() + north.max()) / 2 == pytest.approx(
+        0.0
+    )  # N sector centred on theta = 0 (the top)
     assert north.max() - north.min() == pytest.approx(np.pi / 2)  # 4 sectors of 90 deg
     east = polys[f"{bands[0]}|E"][:, 0]
     assert (east.min() + east.max()) / 2 == pytest.approx(np.pi / 2)  # E a quarter turn clockwise
@@ -139,7 +169,9 @@ def test_rain_crust_lines_labelled_once_per_zone_and_limit(outputs, which):
     assert any(lbl.startswith("rain-crust line, upper limit") for lbl in labels)
     # rain crust designed between 1400 and 2000 m: both limits labelled near their elevations
     elevations = _label_elevations(ax)
-    assert min(elevations) == pytest.approx(1400, abs=100) and max(elevations) == pytest.approx(2000, abs=100)
+    assert min(elevations) == pytest.approx(1400, abs=100) and max(elevations) == pytest.approx(
+        2000, abs=100
+    )
     # at most one label per zone and limit (2 zones x 2 limits)
     assert len([t for t in ax.texts if t.get_gid() == "rain-crust-label"]) <= 4
 
@@ -166,8 +198,15 @@ def test_profile_panels_labels_and_marks(outputs):
     assert [t.get_text() for t in ax_h.get_xticklabels()] == ["F", "4F", "1F", "P", "K", "I"]
     assert list(ax_h.get_xticks()) == [1, 2, 3, 4, 5, 6]
     assert [a.get_xlabel() for a in (ax_e, ax_t, ax_r, ax_w)] == [
-        "grain size [mm]", "temperature [°C]", "density [kg m-3]", "liquid water [% vol]"]
-    bars = sorted((p for p in ax_h.patches if (p.get_gid() or "").startswith("layer-")), key=lambda p: p.get_y())
+        "grain size [mm]",
+        "temperature [°C]",
+        "density [kg m-3]",
+        "liquid water [% vol]",
+    ]
+    bars = sorted(
+        (p for p in ax_h.patches if (p.get_gid() or "").startswith("layer-")),
+        key=lambda p: p.get_y(),
+    )
     # designed layers at >= 1800 m: DH 40 cm, SH 1 cm, DF 30 cm, RG 2 cm (heights in cm)
     assert [round(p.get_height(), 6) for p in bars] == [40.0, 1.0, 30.0, 2.0]
     assert to_hex(bars[0].get_facecolor()) == GRAIN_MAIN_COLOURS["DH"].lower()
@@ -184,23 +223,30 @@ def test_profile_marks_the_rain_crust(outputs):
     assert "crust (rain)" in legend  # designed rain crust 1400-2000 m
 
 
-@pytest.mark.parametrize("kw, message", [
-    (dict(zone="Nowhere", band="1500-1600", aspect="N"), "unknown zone 'Nowhere'"),
-    (dict(zone="Zone A", band="900-1000", aspect="N"), "has no band '900-1000'"),
-    (dict(zone="Zone A", band="1500-1600", aspect="E"), "has no aspect 'E'"),
-    (dict(zone="Zone A", band="1500-1600", aspect="N", slope_class=3), "no slope class 3"),
-    (dict(cell=99999), "cell 99999 is not in this run"),
-    (dict(cell=1, time="2025-06-01"), "outside the run"),
-    (dict(zone="Zone A"), "give --cell ID, or all of"),
-])
+@pytest.mark.parametrize(
+    "kw, message",
+    [
+        (dict(zone="Nowhere", band="1500-1600", aspect="N"), "unknown zone 'Nowhere'"),
+        (dict(zone="Zone A", band="900-1000", aspect="N"), "has no band '900-1000'"),
+        (dict(zone="Zone A", band="1500-1600", aspect="E"), "has no aspect 'E'"),
+        (dict(zone="Zone A", band="1500-1600", aspect="N", slope_class=3), "no slope class 3"),
+        (dict(cell=99999), "cell 99999 is not in this run"),
+        (dict(cell=1, time="2025-06-01"), "outside the run"),
+        (dict(zone="Zone A"), "give --cell ID, or all of"),
+    ],
+)
 def test_profile_command_errors_name_what_did_not_match(outputs, kw, message):
     with pytest.raises(InputError, match=message):
         profile_command(outputs, **kw)
 
 
 def test_profile_command_writes_a_png(outputs):
-    path = profile_command(outputs, zone="Zone A", band="2200-2300", aspect="n", time="2026-01-15T06:00")
-    assert path.is_file() and path.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"  # PNG signature (ISO/IEC 15948)
+    path = profile_command(
+        outputs, zone="Zone A", band="2200-2300", aspect="n", time="2026-01-15T06:00"
+    )
+    assert (
+        path.is_file() and path.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+    )  # PNG signature (ISO/IEC 15948)
     assert path.parent == outputs.out_dir / "figures"
 
 
@@ -211,7 +257,9 @@ def test_layer_tracker_depth_lines_per_band_and_new_snow_days(outputs):
     sh = tracks[tracks["layer_id"] == "SH-2026-01-12"]
     # designed: 30 cm of storm snow over the SH, 2 cm of crust/rounds on top after 2026-01-20
     assert sh.loc[sh["day"] < np.datetime64("2026-01-20T12:00"), "depth_cm"].round(6).eq(30.0).all()
-    assert sh.loc[sh["day"] >= np.datetime64("2026-01-20T12:00"), "depth_cm"].round(6).eq(32.0).all()
+    assert (
+        sh.loc[sh["day"] >= np.datetime64("2026-01-20T12:00"), "depth_cm"].round(6).eq(32.0).all()
+    )
     fig = plot_layer_tracker(outputs, "Zone A", "SH-2026-01-12", tracks=tracks)
     ax_d, ax_p = fig.axes[:2]
     assert ax_d.get_ylabel() == "depth below the surface [cm] (vertical)"
@@ -259,7 +307,15 @@ def test_layer_tracks_of_chosen_layers_equal_the_full_tracks(outputs):
     # any day of those layers (equivalence with the tracks of all days)
     ids = ["SH-2026-01-12", "rain-2026-01-20"]
     full = layer_tracks(outputs, "Zone A")
-    full = full[full["layer_id"].isin(ids)].sort_values(["layer_id", "band", "day"]).reset_index(drop=True)
-    chosen = layer_tracks(outputs, "Zone A", layer_ids=ids).sort_values(["layer_id", "band", "day"]).reset_index(drop=True)
+    full = (
+        full[full["layer_id"].isin(ids)]
+        .sort_values(["layer_id", "band", "day"])
+        .reset_index(drop=True)
+    )
+    chosen = (
+        layer_tracks(outputs, "Zone A", layer_ids=ids)
+        .sort_values(["layer_id", "band", "day"])
+        .reset_index(drop=True)
+    )
     pd.testing.assert_frame_equal(chosen[full.columns], full)
     assert set(chosen["layer_id"]) == set(ids)

@@ -14,12 +14,12 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 import pytest
+from test_summaries_synth import CRS, TRANSFORM, cone_dem, synthetic_run
 
 from regionmap.errors import InputError
 from regionmap.io.writers import write_geotiff
 from regionmap.plots.outputs import RunOutputs
 from regionmap.verify import verification_table, write_verification_csv
-from test_summaries_synth import CRS, TRANSFORM, cone_dem, synthetic_run
 
 MAP_TIME = "2026-01-22T12:00"
 
@@ -34,25 +34,39 @@ def build_output_folder(folder: Path, *, with_verification: bool = True) -> Path
     run[5].close()
     run[6].close()
     dem_path = folder.parent / f"{folder.name}-dem.tif"
-    write_geotiff(dem_path, cone_dem().astype(np.float32), transform=TRANSFORM, crs=CRS, nodata=-9999.0,
-                  description="elevation [m]")
+    write_geotiff(
+        dem_path,
+        cone_dem().astype(np.float32),
+        transform=TRANSFORM,
+        crs=CRS,
+        nodata=-9999.0,
+        description="elevation [m]",
+    )
     run_json = {
-        "program": "regionmap", "version": "0.1.0", "cell_count": int(run[2].shape[0]),
+        "program": "regionmap",
+        "version": "0.1.0",
+        "cell_count": int(run[2].shape[0]),
         "map_time": MAP_TIME,
-        "config": {"region": {"dem": str(dem_path), "zones": "zones.geojson"},
-                   "output": {"local_timezone": "Etc/GMT+7", "observation_hour": 7},
-                   "cells": {"avalanche_terrain_deg": [30, 50]}},
+        "config": {
+            "region": {"dem": str(dem_path), "zones": "zones.geojson"},
+            "output": {"local_timezone": "Etc/GMT+7", "observation_hour": 7},
+            "cells": {"avalanche_terrain_deg": [30, 50]},
+        },
         "timings_s": {"read": 0.1, "run": 1.0},
     }
     (folder / "run.json").write_text(json.dumps(run_json), encoding="utf-8")
     if with_verification:
-        idx = pd.MultiIndex.from_product([["ST1", "ST2"], pd.date_range("2026-01-24", periods=24, freq="h")],
-                                         names=["station_id", "time"])
+        idx = pd.MultiIndex.from_product(
+            [["ST1", "ST2"], pd.date_range("2026-01-24", periods=24, freq="h")],
+            names=["station_id", "time"],
+        )
         rng = np.random.default_rng(0)
         obs = pd.DataFrame({"air_temperature": 265 + rng.normal(0, 1, len(idx))}, index=idx)
         model = obs + 0.5
-        write_verification_csv(verification_table(model, obs, units={"air_temperature": "K"}),
-                               folder / "verification.csv")
+        write_verification_csv(
+            verification_table(model, obs, units={"air_temperature": "K"}),
+            folder / "verification.csv",
+        )
     return folder
 
 

@@ -33,8 +33,18 @@ def test_caaml_top_down_layers_bottom_first_in_si():
     p = read_caaml_profile(DATA / "caaml_top_down.xml")
     # the recordTime 10:30+01:00 is 09:30 UTC
     assert p.time == np.datetime64("2026-02-10T09:30:00")
-    assert list(p.grain_code) == ["DH", "FC", "MFcr", "RG", "SH", "DF", "PP"]  # FCso->FC, SHsu->SH, DFdc->DF
-    np.testing.assert_allclose(p.thickness_m, [0.20, 0.27, 0.03, 0.24, 0.01, 0.15, 0.10], atol=1e-12)
+    assert list(p.grain_code) == [
+        "DH",
+        "FC",
+        "MFcr",
+        "RG",
+        "SH",
+        "DF",
+        "PP",
+    ]  # FCso->FC, SHsu->SH, DFdc->DF
+    np.testing.assert_allclose(
+        p.thickness_m, [0.20, 0.27, 0.03, 0.24, 0.01, 0.15, 0.10], atol=1e-12
+    )
     assert p.snow_depth_m == pytest.approx(1.0)
     np.testing.assert_allclose(p.grain_size_mm, [3.0, 1.5, 1.5, 0.5, 4.0, 0.75, 1.0])
     # Fierz et al. (2009) hardness; "4F-1F" -> 2.5, "1F+" -> 3 1/3 (project convention)
@@ -70,9 +80,17 @@ def test_top_down_bottom_up_and_csv_describe_the_same_snowpack():
     for other in (b, c):
         assert other.time == a.time
         assert list(other.grain_code) == list(a.grain_code)
-        for name in ("thickness_m", "density_kg_m3", "grain_size_mm", "hardness_index",
-                     "temperature_k", "liquid_frac"):
-            np.testing.assert_allclose(getattr(other, name), getattr(a, name), atol=1e-9, err_msg=name)
+        for name in (
+            "thickness_m",
+            "density_kg_m3",
+            "grain_size_mm",
+            "hardness_index",
+            "temperature_k",
+            "liquid_frac",
+        ):
+            np.testing.assert_allclose(
+                getattr(other, name), getattr(a, name), atol=1e-9, err_msg=name
+            )
     assert not c.temperature_interpolated.any() and a.temperature_interpolated.all()
 
 
@@ -119,19 +137,67 @@ def test_entity_expansion_refused():
 @pytest.mark.parametrize(
     ("old", "new", "match"),
     [
-        ("<caaml:hardness uom=\"\">P</caaml:hardness>", "", r"layer 6: required element 'hardness' is missing"),
-        ("<caaml:grainFormPrimary>RG</caaml:grainFormPrimary>", "", r"layer 4: required element 'grainFormPrimary'"),
-        ("<caaml:thickness uom=\"cm\">3</caaml:thickness>", "", r"layer 5: required element 'thickness'"),
-        ("<caaml:timePosition>2026-02-10T10:30:00+01:00</caaml:timePosition>", "", r"timePosition \(the observation time\) is missing"),
-        ("<caaml:timePosition>2026-02-10T10:30:00+01:00</caaml:timePosition>", "<caaml:timePosition>yesterday</caaml:timePosition>", r"expected an ISO-8601 time"),
-        ("<caaml:hardness uom=\"\">P</caaml:hardness>", "<caaml:hardness uom=\"\">hard</caaml:hardness>", r"layer 6, hardness: expected a hand-hardness label"),
-        ("<caaml:grainFormPrimary>RG</caaml:grainFormPrimary>", "<caaml:grainFormPrimary>XX</caaml:grainFormPrimary>", r"unknown grain class 'XX'"),
-        ("<caaml:thickness uom=\"cm\">27</caaml:thickness>", "<caaml:thickness uom=\"cm\">20</caaml:thickness>", r"layers leave a gap of 7.0 cm"),
-        ("<caaml:snowTemp>-1.0</caaml:snowTemp>", "<caaml:snowTemp>2.0</caaml:snowTemp>", r"cannot be warmer than 0 °C"),
+        (
+            '<caaml:hardness uom="">P</caaml:hardness>',
+            "",
+            r"layer 6: required element 'hardness' is missing",
+        ),
+        (
+            "<caaml:grainFormPrimary>RG</caaml:grainFormPrimary>",
+            "",
+            r"layer 4: required element 'grainFormPrimary'",
+        ),
+        (
+            '<caaml:thickness uom="cm">3</caaml:thickness>',
+            "",
+            r"layer 5: required element 'thickness'",
+        ),
+        (
+            "<caaml:timePosition>2026-02-10T10:30:00+01:00</caaml:timePosition>",
+            "",
+            r"timePosition \(the observation time\) is missing",
+        ),
+        (
+            "<caaml:timePosition>2026-02-10T10:30:00+01:00</caaml:timePosition>",
+            "<caaml:timePosition>yesterday</caaml:timePosition>",
+            r"expected an ISO-8601 time",
+        ),
+        (
+            '<caaml:hardness uom="">P</caaml:hardness>',
+            '<caaml:hardness uom="">hard</caaml:hardness>',
+            r"layer 6, hardness: expected a hand-hardness label",
+        ),
+        (
+            "<caaml:grainFormPrimary>RG</caaml:grainFormPrimary>",
+            "<caaml:grainFormPrimary>XX</caaml:grainFormPrimary>",
+            r"unknown grain class 'XX'",
+        ),
+        (
+            '<caaml:thickness uom="cm">27</caaml:thickness>',
+            '<caaml:thickness uom="cm">20</caaml:thickness>',
+            r"layers leave a gap of 7.0 cm",
+        ),
+        (
+            "<caaml:snowTemp>-1.0</caaml:snowTemp>",
+            "<caaml:snowTemp>2.0</caaml:snowTemp>",
+            r"cannot be warmer than 0 °C",
+        ),
         ('dir="top down"', 'dir="sideways"', r"dir must be 'top down' or 'bottom up'"),
-        ("SnowProfileIOP/v6.0.3", "SnowProfileIOP/v5.0", r"expected SnowProfile in the CAAML v6 namespace"),
-        ("<caaml:wetness uom=\"\">D</caaml:wetness>", "<caaml:wetness uom=\"\">Q</caaml:wetness>", r"unknown wetness 'Q'"),
-        ('<caaml:height uom="cm">100</caaml:height>', '<caaml:height uom="cm">120</caaml:height>', r"profileDepth 100.0 cm is less than the snow depth 120.0 cm"),
+        (
+            "SnowProfileIOP/v6.0.3",
+            "SnowProfileIOP/v5.0",
+            r"expected SnowProfile in the CAAML v6 namespace",
+        ),
+        (
+            '<caaml:wetness uom="">D</caaml:wetness>',
+            '<caaml:wetness uom="">Q</caaml:wetness>',
+            r"unknown wetness 'Q'",
+        ),
+        (
+            '<caaml:height uom="cm">100</caaml:height>',
+            '<caaml:height uom="cm">120</caaml:height>',
+            r"profileDepth 100.0 cm is less than the snow depth 120.0 cm",
+        ),
     ],
 )
 def test_caaml_errors_name_the_problem(tmp_path, old, new, match):
@@ -146,14 +212,38 @@ def test_caaml_errors_name_the_problem(tmp_path, old, new, match):
 @pytest.mark.parametrize(
     ("text", "match"),
     [
-        ("top_cm,bottom_cm,grain_class,grain_size_mm,hardness\n10,0,RG,0.5,1F\n", r"observation time is missing"),
-        ("# time: 2026-01-01T00:00Z\ntop_cm,bottom_cm,grain_class,grain_size_mm\n10,0,RG,0.5\n", r"missing \['hardness'\]"),
-        ("# time: 2026-01-01T00:00Z\ntop_cm,bottom_cm,grain_class,grain_size_mm,hardness,colour\n10,0,RG,0.5,1F,x\n", r"unknown \['colour'\]"),
-        ("# time: 2026-01-01T00:00Z\ntop_cm,bottom_cm,grain_class,grain_size_mm,hardness\n20,10,RG,0.5,1F\n", r"does not reach the ground"),
-        ("# time: 2026-01-01T00:00Z\ntop_cm,bottom_cm,grain_class,grain_size_mm,hardness\n10,0,RG,big,1F\n", r"line 3, column 'grain_size_mm': expected a number, got 'big'"),
-        ("# time: 2026-01-01T00:00Z\ntop_cm,bottom_cm,grain_class,grain_size_mm,hardness\n10,0,RG,0.5,1F\n30,12,FC,1,4F\n", r"gap of 2.0 cm"),
-        ("# time: 2026-01-01T00:00Z\ntop_cm,bottom_cm,grain_class,grain_size_mm,hardness,wetness\n10,0,RG,0.5,1F,D-W\n", r"unknown wetness 'D-W'"),
-        ("# time: 2026-01-01T00:00Z\ntop_cm,bottom_cm,grain_class,grain_size_mm,hardness\n10,10,RG,0.5,1F\n", r"no positive thickness"),
+        (
+            "top_cm,bottom_cm,grain_class,grain_size_mm,hardness\n10,0,RG,0.5,1F\n",
+            r"observation time is missing",
+        ),
+        (
+            "# time: 2026-01-01T00:00Z\ntop_cm,bottom_cm,grain_class,grain_size_mm\n10,0,RG,0.5\n",
+            r"missing \['hardness'\]",
+        ),
+        (
+            "# time: 2026-01-01T00:00Z\ntop_cm,bottom_cm,grain_class,grain_size_mm,hardness,colour\n10,0,RG,0.5,1F,x\n",
+            r"unknown \['colour'\]",
+        ),
+        (
+            "# time: 2026-01-01T00:00Z\ntop_cm,bottom_cm,grain_class,grain_size_mm,hardness\n20,10,RG,0.5,1F\n",
+            r"does not reach the ground",
+        ),
+        (
+            "# time: 2026-01-01T00:00Z\ntop_cm,bottom_cm,grain_class,grain_size_mm,hardness\n10,0,RG,big,1F\n",
+            r"line 3, column 'grain_size_mm': expected a number, got 'big'",
+        ),
+        (
+            "# time: 2026-01-01T00:00Z\ntop_cm,bottom_cm,grain_class,grain_size_mm,hardness\n10,0,RG,0.5,1F\n30,12,FC,1,4F\n",
+            r"gap of 2.0 cm",
+        ),
+        (
+            "# time: 2026-01-01T00:00Z\ntop_cm,bottom_cm,grain_class,grain_size_mm,hardness,wetness\n10,0,RG,0.5,1F,D-W\n",
+            r"unknown wetness 'D-W'",
+        ),
+        (
+            "# time: 2026-01-01T00:00Z\ntop_cm,bottom_cm,grain_class,grain_size_mm,hardness\n10,10,RG,0.5,1F\n",
+            r"no positive thickness",
+        ),
     ],
 )
 def test_csv_errors(tmp_path, text, match):

@@ -12,9 +12,15 @@ from pathlib import Path
 
 import html5lib
 import pytest
-
-from regionmap.report import REPORT_MAX_BYTES, _data_uri, _no_web_text, write_all_figures, write_report
 from test_plots_synthrun import build_output_folder
+
+from regionmap.report import (
+    REPORT_MAX_BYTES,
+    _data_uri,
+    _no_web_text,
+    write_all_figures,
+    write_report,
+)
 
 CHROMIUM = Path("/usr/bin/chromium")
 _NS = "{http://www.w3.org/1999/xhtml}"  # html5lib's element namespace (WHATWG HTML)
@@ -39,7 +45,17 @@ def test_report_parses_and_embeds_every_image_as_data_uri(report):
     assert not doc.findall(f".//{_NS}script")
     assert not doc.findall(f".//{_NS}link[@rel='stylesheet']")
     sections = {s.get("id") for s in doc.findall(f".//{_NS}section")}
-    assert {"zones", "layers", "maps", "overviews", "profiles", "layers", "elevation", "verification", "run", "forecast"} <= sections
+    assert {
+        "zones",
+        "layers",
+        "maps",
+        "overviews",
+        "profiles",
+        "elevation",
+        "verification",
+        "run",
+        "forecast",
+    } <= sections
 
 
 def test_report_has_no_web_address_and_stays_small(report):
@@ -49,8 +65,9 @@ def test_report_has_no_web_address_and_stays_small(report):
 
 
 def test_report_images_are_reduced_and_print_pngs_stay_in_figures(report):
-    from PIL import Image
     import io
+
+    from PIL import Image
 
     text = report.read_text(encoding="utf-8")
     doc = html5lib.parse(text, treebuilder="etree", namespaceHTMLElements=True)
@@ -91,7 +108,9 @@ def test_report_of_many_figures_lists_those_over_the_image_budget(tmp_path, monk
     folder = build_output_folder(tmp_path / "out", with_verification=False)
     monkeypatch.setattr(report_module, "FIGURE_BUDGET_BYTES", 200_000)
     text = write_report(folder).read_text(encoding="utf-8")
-    listed = re.findall(r"not embedded, to keep this report under 10 MB; see figures/(\S+\.png)", text)
+    listed = re.findall(
+        r"not embedded, to keep this report under 10 MB; see figures/(\S+\.png)", text
+    )
     assert listed and all((folder / "figures" / name).is_file() for name in listed)
     images = re.findall(r'<img src="(data:image/png;base64,[^"]+)"', text)
     assert images and sum(map(len, images)) <= 200_000
@@ -127,16 +146,27 @@ def render_in_chromium(html_path, screenshot):
     sync_playwright = _chromium_or_skip()
     console, page_errors, requests = [], [], []
     with sync_playwright() as p:
-        browser = p.chromium.launch(executable_path=str(CHROMIUM), args=[
-            "--headless", "--no-sandbox", "--disable-gpu", "--disable-background-networking",
-            "--disable-component-update", "--disable-sync", "--no-first-run"])
+        browser = p.chromium.launch(
+            executable_path=str(CHROMIUM),
+            args=[
+                "--headless",
+                "--no-sandbox",
+                "--disable-gpu",
+                "--disable-background-networking",
+                "--disable-component-update",
+                "--disable-sync",
+                "--no-first-run",
+            ],
+        )
         try:
             page = browser.new_page(viewport={"width": 1200, "height": 900})
             page.on("console", lambda m: console.append(m.text) if m.type == "error" else None)
             page.on("pageerror", lambda e: page_errors.append(str(e)))
             page.on("request", lambda r: requests.append(r.url))
             page.goto(html_path.resolve().as_uri(), wait_until="load")
-            loaded = page.evaluate("Array.from(document.images).every(i => i.complete && i.naturalWidth > 0)")
+            loaded = page.evaluate(
+                "Array.from(document.images).every(i => i.complete && i.naturalWidth > 0)"
+            )
             n_images = page.evaluate("document.images.length")
             page.screenshot(path=str(screenshot), full_page=True)
         finally:

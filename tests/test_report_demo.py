@@ -16,13 +16,19 @@ import struct
 import html5lib
 import numpy as np
 import pytest
-
-from regionmap.plots.outputs import RunOutputs
-from regionmap.plots.style import PRINT_DPI
-from regionmap.plots.maps import rain_crust_events
-from regionmap.report import MAP_METRICS, MAX_RAIN_CRUST_MAPS, OVERVIEW_METRICS, REPORT_MAX_BYTES, write_report
 from test_report import render_in_chromium
 from test_run import config, run, scenario  # noqa: F401  (session fixture of the small scenario)
+
+from regionmap.plots.maps import rain_crust_events
+from regionmap.plots.outputs import RunOutputs
+from regionmap.plots.style import PRINT_DPI
+from regionmap.report import (
+    MAP_METRICS,
+    MAX_RAIN_CRUST_MAPS,
+    OVERVIEW_METRICS,
+    REPORT_MAX_BYTES,
+    write_report,
+)
 
 _NS = "{http://www.w3.org/1999/xhtml}"  # html5lib's element namespace (WHATWG HTML)
 
@@ -48,9 +54,9 @@ def _phys_dpi(png: bytes) -> float:
     """Horizontal resolution from the pHYs chunk (ISO/IEC 15948 §11.3.5.3: pixels per metre, unit 1)."""
     pos = 8
     while pos < len(png):
-        length, kind = struct.unpack(">I4s", png[pos:pos + 8])
+        length, kind = struct.unpack(">I4s", png[pos : pos + 8])
         if kind == b"pHYs":
-            ppm_x, _, unit = struct.unpack(">IIB", png[pos + 8:pos + 17])
+            ppm_x, _, unit = struct.unpack(">IIB", png[pos + 8 : pos + 17])
             assert unit == 1
             return ppm_x * 0.0254
         pos += 12 + length
@@ -75,7 +81,9 @@ def test_demo_report_parses_embeds_reduced_images_and_stays_small(demo_report):
         events = rain_crust_events(out)
     finally:
         out.close()
-    assert sum(c.startswith("Map: rain-crust line") for c in captions) == min(len(events), MAX_RAIN_CRUST_MAPS)
+    assert sum(c.startswith("Map: rain-crust line") for c in captions) == min(
+        len(events), MAX_RAIN_CRUST_MAPS
+    )
     assert sum("elevation-aspect overview" in c for c in captions) == len(OVERVIEW_METRICS)
     assert sum("against elevation" in c for c in captions) == 1
     for img, caption, png in images:
@@ -110,7 +118,9 @@ def test_demo_report_figures_match_the_run(demo_report):
         header = [th.text for th in zones_table.iter(f"{_NS}th")]
         row = [td.text for td in zones_table.find(f"{_NS}tbody").iter(f"{_NS}td")]
         depth = float(row[header.index("snow depth [cm]")])
-        assert depth == pytest.approx(float(out.zones.loc[out.zones["zone"] == zone, "snow_depth_cm"].iloc[0]), abs=0.5)
+        assert depth == pytest.approx(
+            float(out.zones.loc[out.zones["zone"] == zone, "snow_depth_cm"].iloc[0]), abs=0.5
+        )
         assert np.isfinite(depth) and depth > 0
     finally:
         out.close()

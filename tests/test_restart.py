@@ -54,7 +54,9 @@ def _cells() -> pd.DataFrame:
         for lo, hi in ((-np.inf, 1500.0), (1500.0, 1800.0), (1800.0, np.inf)):
             for sector in ("N", "E", "S", "W", "flat"):
                 rows.append((zone, lo, hi, sector, 0))
-    t = pd.DataFrame(rows, columns=["zone", "band_lower_m", "band_upper_m", "aspect_sector", "slope_class"])
+    t = pd.DataFrame(
+        rows, columns=["zone", "band_lower_m", "band_upper_m", "aspect_sector", "slope_class"]
+    )
     t.index = pd.RangeIndex(len(t), name="cell_id")
     return t
 
@@ -62,8 +64,16 @@ def _cells() -> pd.DataFrame:
 TIMES = hours("2026-02-10T01:00", 48)  # interval ends 02:00 .. 2026-02-12T01:00 UTC
 
 
-def _entry(profile=CSV, *, zone="Invented North", bands=("1500-1800",), aspects=("N", "e"), time=None):
-    return {"profile": profile, "time": time, "zone": zone, "bands": list(bands), "aspects": list(aspects)}
+def _entry(
+    profile=CSV, *, zone="Invented North", bands=("1500-1800",), aspects=("N", "e"), time=None
+):
+    return {
+        "profile": profile,
+        "time": time,
+        "zone": zone,
+        "bands": list(bands),
+        "aspects": list(aspects),
+    }
 
 
 def _raw_csv_layers(path: Path) -> list[dict]:
@@ -96,8 +106,11 @@ def test_resolve_matches_zone_band_aspect_and_rounds_to_the_hour():
     (r,) = resolve_restarts([_entry()], table, TIMES)
     assert r.observed_time == np.datetime64("2026-02-10T09:30")  # the file's '# time:' line
     assert r.time == np.datetime64("2026-02-10T10:00")  # nearest state time, half-way goes later
-    expected = table.index[(table.zone == "Invented North") & (table.band_lower_m == 1500)
-                           & table.aspect_sector.isin(["N", "E"])]
+    expected = table.index[
+        (table.zone == "Invented North")
+        & (table.band_lower_m == 1500)
+        & table.aspect_sector.isin(["N", "E"])
+    ]
     np.testing.assert_array_equal(r.cell_ids, expected.to_numpy())
     # two adjacent bands written as one range, the open top band written up to 9000 m
     (r2,) = resolve_restarts([_entry(bands=("1500-9000",), aspects=("flat",))], table, TIMES)
@@ -110,10 +123,22 @@ def test_resolve_matches_zone_band_aspect_and_rounds_to_the_hour():
 @pytest.mark.parametrize(
     "entry, match",
     [
-        (_entry(zone="Nowhere"), r"unknown zone 'Nowhere'; the run's zones are \['Invented North', 'Invented South'\]"),
-        (_entry(bands=("2100-2400",)), r"band '2100-2400' does not match .* its bands are \['0-1500', '1500-1800', '1800-9000'\]"),
-        (_entry(aspects=("NNE",)), r"aspect 'NNE' has no cell .* the aspects there are \['N', 'E', 'S', 'W', 'flat'\]"),
-        (_entry(time="2026-03-01T00:00"), r"restart time 2026-03-01T00:00:00 UTC .* outside the run's period"),
+        (
+            _entry(zone="Nowhere"),
+            r"unknown zone 'Nowhere'; the run's zones are \['Invented North', 'Invented South'\]",
+        ),
+        (
+            _entry(bands=("2100-2400",)),
+            r"band '2100-2400' does not match .* its bands are \['0-1500', '1500-1800', '1800-9000'\]",
+        ),
+        (
+            _entry(aspects=("NNE",)),
+            r"aspect 'NNE' has no cell .* the aspects there are \['N', 'E', 'S', 'W', 'flat'\]",
+        ),
+        (
+            _entry(time="2026-03-01T00:00"),
+            r"restart time 2026-03-01T00:00:00 UTC .* outside the run's period",
+        ),
         (_entry(profile=DATA / "missing.csv"), r"missing.csv"),
     ],
 )
@@ -138,7 +163,9 @@ def test_restarted_cell_holds_the_profile_layers_from_the_file():
     assert new.layer_count.tolist() == [0, n, 0]  # only the listed cell changes
     thick = new.thickness_m[1, :n].astype(np.float64)
     # thickness: (top_cm - bottom_cm) / 100 from the file, float32 storage
-    np.testing.assert_allclose(thick, [(float(x["top_cm"]) - float(x["bottom_cm"])) / 100 for x in raw], rtol=1e-6)
+    np.testing.assert_allclose(
+        thick, [(float(x["top_cm"]) - float(x["bottom_cm"])) / 100 for x in raw], rtol=1e-6
+    )
     # grain classes of the international classification, subclasses to main classes
     main = {"FCso": "FC", "SHsu": "SH", "DFdc": "DF"}
     codes = [GRAIN_CODES[c] for c in new.grain_code[1, :n]]
@@ -162,8 +189,10 @@ def test_restarted_cell_holds_the_profile_layers_from_the_file():
         if not x["density_kg_m3"]:
             assert h_model == pytest.approx(_hardness_fierz(x["hardness"]), abs=1e-5)
     # temperature from the file's temperature_degC column, deposition time = restart time
-    np.testing.assert_allclose(new.temperature_k[1, :n], [float(x["temperature_degC"]) + 273.15 for x in raw], atol=1e-4)
-    t_s = (r.time.astype("datetime64[s]").astype(np.int64) - 946684800)
+    np.testing.assert_allclose(
+        new.temperature_k[1, :n], [float(x["temperature_degC"]) + 273.15 for x in raw], atol=1e-4
+    )
+    t_s = r.time.astype("datetime64[s]").astype(np.int64) - 946684800
     assert np.all(new.deposition_time_s2000[1, :n] == t_s) and np.all(new.event_id[1, :n] == -1)
     # crust kind for the melt-freeze crust, surface state reset
     crust = new.crust_code[1, :n]
@@ -177,9 +206,15 @@ def test_increments_close_with_the_state_difference():
     # conservation: the increment is exactly the change of SWE and enthalpy the restart makes
     t = hours("2026-02-09T00:00", 33)  # 33 h of snow before the restart at 2026-02-10T09:00
     state0 = SnowState.empty(2, 50, time="2026-02-09T00:00")
-    before, _, _ = run_columns(state0, make_forcing(t, 2, t_air_k=268.0, precip_kg_m2=0.8),
-                               diag_every_h=1, with_snapshots=False)
-    (r,) = resolve_restarts([_entry(time="2026-02-10T09:00")], _cells(), hours("2026-02-09T00:00", 60))
+    before, _, _ = run_columns(
+        state0,
+        make_forcing(t, 2, t_air_k=268.0, precip_kg_m2=0.8),
+        diag_every_h=1,
+        with_snapshots=False,
+    )
+    (r,) = resolve_restarts(
+        [_entry(time="2026-02-10T09:00")], _cells(), hours("2026-02-09T00:00", 60)
+    )
     after, record = apply_restart(before, [0], r, SnowParams())
     dswe = after.swe_kg_m2() - before.swe_kg_m2()
     dh = _enthalpy(after) - _enthalpy(before)
@@ -188,9 +223,15 @@ def test_increments_close_with_the_state_difference():
     assert dswe[1] == 0.0 and dh[1] == 0.0  # the other cell is untouched
     # the new SWE is the profile's: sum of density x thickness
     raw = _raw_csv_layers(CSV)
-    assert after.swe_kg_m2()[0] == pytest.approx(sum(
-        (float(x["top_cm"]) - float(x["bottom_cm"])) / 100 * rho
-        for x, rho in zip(raw, (after.ice_kg_m2[0] + after.liquid_kg_m2[0])[:7] / after.thickness_m[0, :7])), rel=1e-6)
+    assert after.swe_kg_m2()[0] == pytest.approx(
+        sum(
+            (float(x["top_cm"]) - float(x["bottom_cm"])) / 100 * rho
+            for x, rho in zip(
+                raw, (after.ice_kg_m2[0] + after.liquid_kg_m2[0])[:7] / after.thickness_m[0, :7]
+            )
+        ),
+        rel=1e-6,
+    )
 
 
 def test_run_split_at_the_restart_evolves_and_closes_mass():
@@ -202,8 +243,9 @@ def test_run_split_at_the_restart_evolves_and_closes_mass():
     assert [p.tolist() for _, p in chunk] == [[1, 2]]
     snowing = np.where(TIMES <= r.time, 0.3, 0.0)  # snow until the restart, then dry and cold
     forcing = make_forcing(TIMES, hi - lo, t_air_k=266.0, precip_kg_m2=snowing, wind_m_s=2.0)
-    state0 = SnowState.empty(hi - lo, 50, time=TIMES[0] - np.timedelta64(3600, "s"),
-                             cell_id=np.arange(lo, hi))
+    state0 = SnowState.empty(
+        hi - lo, 50, time=TIMES[0] - np.timedelta64(3600, "s"), cell_id=np.arange(lo, hi)
+    )
     end, diags, snaps, records = run_columns_with_restarts(state0, forcing, chunk, params, 1, 6)
     assert diags["swe_kg_m2"].shape == (5, 48) and diags["time"].size == 48
     k = int(np.flatnonzero(diags["time"] == r.time)[0])
@@ -216,14 +258,21 @@ def test_run_split_at_the_restart_evolves_and_closes_mass():
     # practice: a pack topped by new snow loses a few cm in a day and a half)
     assert 85.0 < depth[1, -1] < depth[1, k + 1] - 0.5
     # mass closure with the increment: change = fluxes + restart increment (conservation)
-    fluxes = (diags["snowfall_kg_m2"] + diags["rain_kg_m2"] + diags["deposition_kg_m2"]
-              - diags["sublimation_kg_m2"] - diags["runoff_kg_m2"]).sum(axis=1)
+    fluxes = (
+        diags["snowfall_kg_m2"]
+        + diags["rain_kg_m2"]
+        + diags["deposition_kg_m2"]
+        - diags["sublimation_kg_m2"]
+        - diags["runoff_kg_m2"]
+    ).sum(axis=1)
     increment = np.zeros(hi - lo)
     (rec,) = records
     increment[np.asarray(rec["cell_id"]) - lo] = rec["swe_increment_kg_m2"]
-    np.testing.assert_allclose(end.swe_kg_m2() - state0.swe_kg_m2(), fluxes + increment, rtol=1e-9, atol=1e-9)
+    np.testing.assert_allclose(
+        end.swe_kg_m2() - state0.swe_kg_m2(), fluxes + increment, rtol=1e-9, atol=1e-9
+    )
     # energy bookkeeping of the kernel is not disturbed by the restart (issue 4 tolerance)
-    assert np.abs(diags["energy_residual_w_m2"][1:3, k + 1:]).mean() <= 0.1
+    assert np.abs(diags["energy_residual_w_m2"][1:3, k + 1 :]).mean() <= 0.1
     assert merge_restart_records(records)[0]["cell_id"] == [5, 6]
 
 
@@ -235,14 +284,25 @@ def test_caaml_and_csv_profiles_restart_the_same_column():
         new, _ = apply_restart(SnowState.empty(1, 50, time=r.time), [0], r)
         states.append(new)
     for other in states[1:]:
-        for name in ("thickness_m", "ice_kg_m2", "liquid_kg_m2", "temperature_k", "grain_code", "crust_code"):
-            np.testing.assert_allclose(getattr(other, name), getattr(states[0], name), atol=1e-5, err_msg=name)
+        for name in (
+            "thickness_m",
+            "ice_kg_m2",
+            "liquid_kg_m2",
+            "temperature_k",
+            "grain_code",
+            "crust_code",
+        ):
+            np.testing.assert_allclose(
+                getattr(other, name), getattr(states[0], name), atol=1e-5, err_msg=name
+            )
 
 
 def test_wet_profile_restart_holds_liquid_at_zero_degrees():
     # docs/profile_csv.md / Fierz et al. (2009) Table 3.4 midpoints: moist 1.5 %, wet 5.5 %
     raw = _raw_csv_layers(DATA / "spring_wet.csv")
-    (r,) = resolve_restarts([_entry(DATA / "spring_wet.csv", time="2026-02-11T12:00")], _cells(), TIMES)
+    (r,) = resolve_restarts(
+        [_entry(DATA / "spring_wet.csv", time="2026-02-11T12:00")], _cells(), TIMES
+    )
     new, record = apply_restart(SnowState.empty(1, 50, time=r.time), [0], r)
     n = len(raw)
     lwc = new.liquid_kg_m2[0, :n] / (1000.0 * new.thickness_m[0, :n])

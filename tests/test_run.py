@@ -36,8 +36,17 @@ end = "{end}"
 dir = "out"
 """
 
-COMPARED = ("snow_depth_cm", "swe_kg_m2", "crust_count", "pwl_depth_cm", "threshold_count_max",
-            "liquid_water_kg_m2", "snowfall_kg_m2", "rain_kg_m2", "runoff_kg_m2")
+COMPARED = (
+    "snow_depth_cm",
+    "swe_kg_m2",
+    "crust_count",
+    "pwl_depth_cm",
+    "threshold_count_max",
+    "liquid_water_kg_m2",
+    "snowfall_kg_m2",
+    "rain_kg_m2",
+    "runoff_kg_m2",
+)
 
 
 @pytest.fixture(scope="session")
@@ -51,15 +60,34 @@ def scenario(tmp_path_factory):
     make_demo_dem(d / "dem.tif")
     write_geojson(d / "zones.geojson", demo_zones().iloc[[1]])
     dem = read_dem(d / "dem.tif")
-    write_demo_forcing(d / "forcing.nc", dem.elevation_m, dem.transform, dem.crs,
-                       start="2026-01-15T01:00", end="2026-01-22T00:00")
-    write_demo_forcing(d / "late.nc", dem.elevation_m, dem.transform, dem.crs,
-                       start="2026-01-19T01:00", end="2026-01-22T00:00")
+    write_demo_forcing(
+        d / "forcing.nc",
+        dem.elevation_m,
+        dem.transform,
+        dem.crs,
+        start="2026-01-15T01:00",
+        end="2026-01-22T00:00",
+    )
+    write_demo_forcing(
+        d / "late.nc",
+        dem.elevation_m,
+        dem.transform,
+        dem.crs,
+        start="2026-01-19T01:00",
+        end="2026-01-22T00:00",
+    )
     return d
 
 
-def config(scenario: Path, name: str, *, step=400, forcing="forcing.nc", start="2026-01-15T01:00",
-           end="2026-01-22T00:00"):
+def config(
+    scenario: Path,
+    name: str,
+    *,
+    step=400,
+    forcing="forcing.nc",
+    start="2026-01-15T01:00",
+    end="2026-01-22T00:00",
+):
     path = scenario / f"{name}.toml"
     path.write_text(CONFIG.format(step=step, forcing=forcing, start=start, end=end))
     return load_config(path)
@@ -74,7 +102,10 @@ def read(out: Path):
         cells = {v: ds[v].values.copy() for v in COMPARED}
         cells["time"] = ds["time"].values.copy()
     with xr.open_dataset(out / "state_end.nc") as ds:
-        state = {v: ds[v].values.copy() for v in ("thickness_m", "ice_kg_m2", "liquid_kg_m2", "temperature_k")}
+        state = {
+            v: ds[v].values.copy()
+            for v in ("thickness_m", "ice_kg_m2", "liquid_kg_m2", "temperature_k")
+        }
     return cells, state
 
 
@@ -94,10 +125,20 @@ def reference(scenario, tmp_path_factory):
 def test_reference_run_writes_the_contract(reference):
     out, outcome = reference
     # the shared output-contract checker (names, shapes, conventions); figures are skipped here
-    proc = subprocess.run([sys.executable, str(Path(__file__).parents[2] / "shared/tools/check_outputs.py"), str(out)],
-                          capture_output=True, text=True)
-    failed = [ln for ln in proc.stdout.splitlines() if ln.startswith("FAIL")
-              and "report.html" not in ln and "figures" not in ln]
+    proc = subprocess.run(
+        [
+            sys.executable,
+            str(Path(__file__).parents[2] / "shared/tools/check_outputs.py"),
+            str(out),
+        ],
+        capture_output=True,
+        text=True,
+    )
+    failed = [
+        ln
+        for ln in proc.stdout.splitlines()
+        if ln.startswith("FAIL") and "report.html" not in ln and "figures" not in ln
+    ]
     assert not failed, proc.stdout
     assert outcome.n_cells > 10
 
@@ -136,15 +177,40 @@ def test_continuation_equals_one_run(scenario, reference, tmp_path):
 def test_continuation_mismatches_exit_2(scenario, reference, tmp_path, capsys):
     state = reference[0] / "state.nc"
     other = config(scenario, "other", step=300)
-    assert main(["run", str(other.source), "--out", str(tmp_path / "x"), "--continue-from", str(state), "--quiet"]) == 2
+    assert (
+        main(
+            [
+                "run",
+                str(other.source),
+                "--out",
+                str(tmp_path / "x"),
+                "--continue-from",
+                str(state),
+                "--quiet",
+            ]
+        )
+        == 2
+    )
     err = capsys.readouterr().err.strip().splitlines()
     assert len(err) == 1 and "state" in err[0] and "cells" in err[0]
     # a state valid at 2026-01-18 12:00 and forcing that starts at 2026-01-19 01:00: a gap
     early = tmp_path / "early"
     run(config(scenario, "early", end="2026-01-18T12:00"), early)
     late = config(scenario, "late", forcing="late.nc", start="2026-01-19T01:00")
-    assert main(["run", str(late.source), "--out", str(tmp_path / "y"), "--continue-from",
-                 str(early / "state.nc"), "--quiet"]) == 2
+    assert (
+        main(
+            [
+                "run",
+                str(late.source),
+                "--out",
+                str(tmp_path / "y"),
+                "--continue-from",
+                str(early / "state.nc"),
+                "--quiet",
+            ]
+        )
+        == 2
+    )
     err = capsys.readouterr().err.strip().splitlines()
     assert len(err) == 1 and "gap" in err[0]
     assert not (tmp_path / "x").exists() and not (tmp_path / "y").exists()
@@ -185,8 +251,20 @@ def test_killed_run_keeps_the_previous_output(scenario, reference, tmp_path, pha
     out = tmp_path / "out"
     run(config(scenario, "ref"), out)
     before = sorted(p.relative_to(out) for p in out.rglob("*"))
-    proc = subprocess.Popen([sys.executable, "-m", "regionmap", "run", str(scenario / "ref.toml"), "--out", str(out),
-                             "--quiet"], stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+    proc = subprocess.Popen(
+        [
+            sys.executable,
+            "-m",
+            "regionmap",
+            "run",
+            str(scenario / "ref.toml"),
+            "--out",
+            str(out),
+            "--quiet",
+        ],
+        stdout=subprocess.DEVNULL,
+        stderr=subprocess.DEVNULL,
+    )
     deadline = time.monotonic() + 120
     time.sleep(0.5 if phase == "reading" else 0.0)
     while time.monotonic() < deadline and proc.poll() is None and not _phase_reached(out, phase):
@@ -209,9 +287,15 @@ def test_restart_from_an_observed_profile_through_the_cli(scenario, reference, t
     # the invented CSV profile of tests/data/profiles, re-dated into this scenario's week
     src = Path(__file__).parent / "data" / "profiles" / "winter_top_down.csv"
     profile = tmp_path / "pit.csv"
-    profile.write_text(src.read_text().replace("# time: 2026-02-10T09:30Z", "# time: 2026-01-19T12:00Z"))
+    profile.write_text(
+        src.read_text().replace("# time: 2026-02-10T09:30Z", "# time: 2026-01-19T12:00Z")
+    )
     with xr.open_dataset(reference[0] / "cells.nc") as ds:
-        sel = (ds["aspect_sector"].values == "N") & np.isfinite(ds["band_lower_m"].values) & np.isfinite(ds["band_upper_m"].values)
+        sel = (
+            (ds["aspect_sector"].values == "N")
+            & np.isfinite(ds["band_lower_m"].values)
+            & np.isfinite(ds["band_upper_m"].values)
+        )
         pos = int(np.nonzero(sel)[0][0])
         band = f"{ds['band_lower_m'].values[pos]:.0f}-{ds['band_upper_m'].values[pos]:.0f}"
         zone = str(ds["zone"].values[pos])
@@ -219,8 +303,23 @@ def test_restart_from_an_observed_profile_through_the_cli(scenario, reference, t
     shutil.copy(scenario / "ref.toml", tmp_path / "ref.toml")
     for name in ("dem.tif", "zones.geojson", "forcing.nc"):
         (tmp_path / name).symlink_to(scenario / name)
-    code = main(["run", str(tmp_path / "ref.toml"), "--out", str(out), "--quiet", "--restart", str(profile),
-                 "--zone", zone, "--band", band, "--aspect", "N"])
+    code = main(
+        [
+            "run",
+            str(tmp_path / "ref.toml"),
+            "--out",
+            str(out),
+            "--quiet",
+            "--restart",
+            str(profile),
+            "--zone",
+            zone,
+            "--band",
+            band,
+            "--aspect",
+            "N",
+        ]
+    )
     assert code == 0
     record = json.loads((out / "run.json").read_text())
     assert record["restarts"], "run.json lists the restarted cells"
@@ -238,8 +337,14 @@ def test_an_existing_cluster_via_scheduler_address(scenario, reference, tmp_path
     # --scheduler ADDRESS joins an existing dask.distributed cluster (here one in this process)
     from distributed import LocalCluster
 
-    with LocalCluster(n_workers=1, threads_per_worker=2, processes=False, dashboard_address=None,
-                      worker_dashboard_address=None, silence_logs=40) as cluster:
+    with LocalCluster(
+        n_workers=1,
+        threads_per_worker=2,
+        processes=False,
+        dashboard_address=None,
+        worker_dashboard_address=None,
+        silence_logs=40,
+    ) as cluster:
         run(config(scenario, "ref"), tmp_path / "out", scheduler=cluster.scheduler_address)
     assert_same(read(reference[0]), read(tmp_path / "out"))
 
@@ -265,10 +370,13 @@ def test_drift_results_do_not_depend_on_chunking(scenario, tmp_path):
     base = config(scenario, "drift", step=500, start="2026-01-18T01:00")
     outs = []
     for size in (1000, 7):
-        cfg = base.model_copy(update={
-            "region": base.region.model_copy(update={"zones": scenario / "two_zones.geojson"}),
-            "downscale": base.downscale.model_copy(update={"drift": True}),
-            "run": base.run.model_copy(update={"chunk_size": size})})
+        cfg = base.model_copy(
+            update={
+                "region": base.region.model_copy(update={"zones": scenario / "two_zones.geojson"}),
+                "downscale": base.downscale.model_copy(update={"drift": True}),
+                "run": base.run.model_copy(update={"chunk_size": size}),
+            }
+        )
         run(cfg, tmp_path / f"out{size}")
         outs.append(read(tmp_path / f"out{size}"))
     assert_same(outs[0], outs[1])

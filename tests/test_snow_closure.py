@@ -35,8 +35,13 @@ def test_mass_closure_every_step(season):
 
 def test_mass_closure_over_the_season(season):
     s0, s, d = season
-    budget = (d["snowfall_kg_m2"] + d["rain_kg_m2"] + d["deposition_kg_m2"]
-              - d["sublimation_kg_m2"] - d["runoff_kg_m2"]).sum(axis=1)
+    budget = (
+        d["snowfall_kg_m2"]
+        + d["rain_kg_m2"]
+        + d["deposition_kg_m2"]
+        - d["sublimation_kg_m2"]
+        - d["runoff_kg_m2"]
+    ).sum(axis=1)
     change = s.swe_kg_m2() - s0.swe_kg_m2()
     assert np.all(np.abs(change - budget) <= 1e-9 * np.maximum(d["snowfall_kg_m2"].sum(1), 1.0))
     assert d["snowfall_kg_m2"].sum() > 0 and d["runoff_kg_m2"].sum() > 0  # a real season
@@ -57,7 +62,7 @@ def test_season_structure_is_plausible(season):
     # layers, crusts and persistent layers, and melts out on the warm cells
     _, s, d = season
     assert d["layer_count"].max() <= SnowParams().max_layers
-    assert d["layer_count"][:, 24 * 60:24 * 120].mean() >= 20
+    assert d["layer_count"][:, 24 * 60 : 24 * 120].mean() >= 20
     assert d["crust_count"].max() >= 1
     assert d["pwl_present"].max() == 1
     assert np.all(np.isfinite(d["snow_depth_cm"]))
@@ -93,8 +98,12 @@ def test_settlement_rule_of_thumb_new_snow_first_day():
 
 
 @settings(max_examples=12, deadline=None, suppress_health_check=[HealthCheck.too_slow])
-@given(seed=st.integers(0, 2**31 - 1), warm=st.floats(-10.0, 8.0), wind=st.floats(0.0, 15.0),
-       wet=st.floats(0.0, 1.0))
+@given(
+    seed=st.integers(0, 2**31 - 1),
+    warm=st.floats(-10.0, 8.0),
+    wind=st.floats(0.0, 15.0),
+    wet=st.floats(0.0, 1.0),
+)
 def test_random_forcing_keeps_state_physical(seed, warm, wind, wet):
     # properties (issue 4): no negative masses or thicknesses, snow never above 0 degC,
     # layer count within bounds, mass closed, under random forcing
@@ -103,11 +112,18 @@ def test_random_forcing_keeps_state_physical(seed, warm, wind, wet):
     t = hours(START, nt)
     ta = T_MELT_K + warm + rng.normal(0, 6, size=(3, nt))
     pr = rng.gamma(0.6, 2.0, size=(3, nt)) * (rng.random((3, nt)) < 0.4)
-    f = make_forcing(t, 3, t_air_k=ta, rh_frac=rng.uniform(0.3, 1.0, size=(3, nt)),
-                     wind_m_s=wind * rng.random((3, nt)), sw_in_w_m2=rng.uniform(0, 900, size=(3, nt)),
-                     cloud_frac=rng.random((3, nt)), precip_kg_m2=pr,
-                     snow_frac=rng.random((3, nt)) * (1 - wet) + (ta < T_MELT_K) * wet,
-                     freezing_rain_frac=(rng.random((3, nt)) < 0.05) * 1.0)
+    f = make_forcing(
+        t,
+        3,
+        t_air_k=ta,
+        rh_frac=rng.uniform(0.3, 1.0, size=(3, nt)),
+        wind_m_s=wind * rng.random((3, nt)),
+        sw_in_w_m2=rng.uniform(0, 900, size=(3, nt)),
+        cloud_frac=rng.random((3, nt)),
+        precip_kg_m2=pr,
+        snow_frac=rng.random((3, nt)) * (1 - wet) + (ta < T_MELT_K) * wet,
+        freezing_rain_frac=(rng.random((3, nt)) < 0.05) * 1.0,
+    )
     s0 = SnowState.empty(3, time=START)
     s, d, _ = run_columns(s0, f, diag_every_h=1, with_snapshots=False)
     n = s.layer_count

@@ -8,8 +8,18 @@ glaze (IF) and thin new-snow (PP) layers, the case that random freezing rain pro
 import numpy as np
 
 from regionmap.snow.codes import CRUST_INDEX, GRAIN_INDEX
-from regionmap.snow.layering import (F_ICE, F_LIQ, F_ROWS, F_TEMP, F_THICK, I_CODE, I_CRUST, I_EVENT,
-                                     I_ROWS, merge_to_make_room)
+from regionmap.snow.layering import (
+    F_ICE,
+    F_LIQ,
+    F_ROWS,
+    F_TEMP,
+    F_THICK,
+    I_CODE,
+    I_CRUST,
+    I_EVENT,
+    I_ROWS,
+    merge_to_make_room,
+)
 
 
 def column(n=50):

@@ -38,11 +38,25 @@ def depth_hoar_run():
     pr = np.zeros((3, t.size))
     pr[0:2, :n_storm] = 40.0 / n_storm
     pr[2, :n_storm] = 430.0 / n_storm
-    sw = np.vstack([clear_sky_shortwave(t, 120.0), clear_sky_shortwave(t, 650.0),
-                    clear_sky_shortwave(t, 120.0)])
+    sw = np.vstack(
+        [
+            clear_sky_shortwave(t, 120.0),
+            clear_sky_shortwave(t, 650.0),
+            clear_sky_shortwave(t, 120.0),
+        ]
+    )
     cloud = np.where(np.arange(t.size) < n_storm, 1.0, 0.0)
-    f = make_forcing(t, 3, t_air_k=ta, rh_frac=0.7, wind_m_s=1.5, sw_in_w_m2=sw,
-                     cloud_frac=cloud, precip_kg_m2=pr, snow_frac=1.0)
+    f = make_forcing(
+        t,
+        3,
+        t_air_k=ta,
+        rh_frac=0.7,
+        wind_m_s=1.5,
+        sw_in_w_m2=sw,
+        cloud_frac=cloud,
+        precip_kg_m2=pr,
+        snow_frac=1.0,
+    )
     return _run(f, 3, diag_every_h=24)
 
 
@@ -59,7 +73,9 @@ def test_basal_facets_turn_to_depth_hoar_shallow_shaded(depth_hoar_run):
     thick = snap["thickness_m"][0]
     temp = snap["temperature_k"][0]
     cnt = snap["layer_count"][0]
-    grad = np.array([(temp[d, 0] - temp[d, cnt[d] - 1]) / np.nansum(thick[d]) for d in range(len(cnt))])
+    grad = np.array(
+        [(temp[d, 0] - temp[d, cnt[d] - 1]) / np.nansum(thick[d]) for d in range(len(cnt))]
+    )
     assert np.mean(grad[3:] > 25.0) > 0.9
     # facets first, depth hoar later (designed: cold spell starts on day 2)
     first_dh = np.argmax(diag["depth_hoar_present"][0] == 1)
@@ -97,10 +113,20 @@ def surface_hoar_run():
     ta = np.where(clear, diurnal_temperature(t, -8.0, 4.0), T_MELT_K - 6.0)
     pr = np.where(idx < n_base, 1.0, 0.0) + np.where(storm, 30.0 / n_storm, 0.0)
     cloud = np.vstack([np.where(clear, 0.0, 1.0), np.where(clear, 0.0, 1.0), np.ones(nt)])
-    wind = np.vstack([np.where(clear, 1.0, 2.0), np.where(clear, 7.0, 2.0), np.where(clear, 1.0, 2.0)])
-    f = make_forcing(t, 3, t_air_k=ta, rh_frac=np.where(clear, 0.95, 0.9), wind_m_s=wind,
-                     sw_in_w_m2=np.where(clear, clear_sky_shortwave(t, 150.0), 0.0),
-                     cloud_frac=cloud, precip_kg_m2=pr, snow_frac=1.0)
+    wind = np.vstack(
+        [np.where(clear, 1.0, 2.0), np.where(clear, 7.0, 2.0), np.where(clear, 1.0, 2.0)]
+    )
+    f = make_forcing(
+        t,
+        3,
+        t_air_k=ta,
+        rh_frac=np.where(clear, 0.95, 0.9),
+        wind_m_s=wind,
+        sw_in_w_m2=np.where(clear, clear_sky_shortwave(t, 150.0), 0.0),
+        cloud_frac=cloud,
+        precip_kg_m2=pr,
+        snow_frac=1.0,
+    )
     storm_start = t[n_base + n_clear]
     return _run(f, 3, diag_every_h=1), storm_start, n_base + n_clear, n_base + n_clear + n_storm
 
@@ -122,7 +148,9 @@ def test_surface_hoar_buried_by_storm_persists(surface_hoar_run):
     n_end = state.layer_count[0]
     assert np.sum(state.grain_code[0, :n_end] == SH) == 1
     assert diag["pwl_present"][0, -1] == 1
-    assert diag["pwl_depth_cm"][0, -1] <= diag["pwl_depth_cm"][0, i_end] + 1e-3  # settled, not deeper
+    assert (
+        diag["pwl_depth_cm"][0, -1] <= diag["pwl_depth_cm"][0, i_end] + 1e-3
+    )  # settled, not deeper
 
 
 @pytest.mark.parametrize("cell, why", [(1, "windy nights"), (2, "cloudy nights")])
@@ -152,8 +180,16 @@ def rain_run():
     pr = np.where(idx < n_snow, 2.5, 0.0) + np.where(rain, 2.0, 0.0)
     sf = np.where(rain, 0.0, 1.0)
     cloud = np.vstack([np.where(after, 0.0, 1.0), np.ones(nt)])
-    f = make_forcing(t, 2, t_air_k=np.vstack([ta0, ta1]), rh_frac=0.9, wind_m_s=2.0,
-                     cloud_frac=cloud, precip_kg_m2=pr, snow_frac=sf)
+    f = make_forcing(
+        t,
+        2,
+        t_air_k=np.vstack([ta0, ta1]),
+        rh_frac=0.9,
+        wind_m_s=2.0,
+        cloud_frac=cloud,
+        precip_kg_m2=pr,
+        snow_frac=sf,
+    )
     return _run(f, 2, diag_every_h=1), t, n_snow + n_wait + n_rain
 
 
@@ -200,10 +236,17 @@ def glaze_run():
     ta0 = np.where(idx < n_snow, T_MELT_K - 5.0, T_MELT_K - 8.0)
     ta1 = np.where(ev, T_MELT_K + 0.5, ta0)
     pr = np.where(idx < n_snow, 2.0, 0.0) + np.where(ev, 1.0, 0.0)
-    f = make_forcing(t, 2, t_air_k=np.vstack([ta0, ta1]), rh_frac=0.9, wind_m_s=2.0,
-                     cloud_frac=1.0, precip_kg_m2=pr,
-                     snow_frac=np.vstack([np.where(ev, 0.0, 1.0), np.where(ev, 0.6, 1.0)]),
-                     freezing_rain_frac=np.vstack([np.where(ev, 1.0, 0.0), np.zeros(nt)]))
+    f = make_forcing(
+        t,
+        2,
+        t_air_k=np.vstack([ta0, ta1]),
+        rh_frac=0.9,
+        wind_m_s=2.0,
+        cloud_frac=1.0,
+        precip_kg_m2=pr,
+        snow_frac=np.vstack([np.where(ev, 0.0, 1.0), np.where(ev, 0.6, 1.0)]),
+        freezing_rain_frac=np.vstack([np.where(ev, 1.0, 0.0), np.zeros(nt)]),
+    )
     return _run(f, 2, diag_every_h=1), t, n_snow + n_cold
 
 
@@ -215,7 +258,9 @@ def test_freezing_rain_makes_glaze_of_expected_thickness(glaze_run):
     # METHODS.md [calc]: thickness = water / 917 -> 2 kg m-2 gives 2.18 mm; within 5 %: the
     # latent heat leaves through the surface balance, and what it cannot shed melts back
     assert state.thickness_m[0, glaze[0]] * 1e3 == pytest.approx(2.18, rel=0.05)
-    assert state.thickness_m[0, glaze[0]] == pytest.approx(state.ice_kg_m2[0, glaze[0]] / 917.0, rel=1e-6)
+    assert state.thickness_m[0, glaze[0]] == pytest.approx(
+        state.ice_kg_m2[0, glaze[0]] / 917.0, rel=1e-6
+    )
     assert diag["crust_count_glaze"][0, -1] == 0  # thinner than the 5 mm counting minimum
     assert diag["event_kind"][diag["event_cell"] == 0].tolist() == ["freezing-rain"]
     # formed during the designed event
@@ -239,9 +284,17 @@ def test_spring_warm_up_gives_isothermal_wet_pack_and_runoff():
     idx = np.arange(t.size)
     ta = np.where(idx < n_snow, T_MELT_K - 4.0, diurnal_temperature(t, 6.0, 5.0))
     pr = np.where(idx < n_snow, 250.0 / n_snow, 0.0)
-    f = make_forcing(t, 1, t_air_k=ta, rh_frac=0.7, wind_m_s=2.0,
-                     sw_in_w_m2=np.where(idx < n_snow, 0.0, clear_sky_shortwave(t, 750.0, day_length_h=13)),
-                     cloud_frac=np.where(idx < n_snow, 1.0, 0.3), precip_kg_m2=pr, snow_frac=1.0)
+    f = make_forcing(
+        t,
+        1,
+        t_air_k=ta,
+        rh_frac=0.7,
+        wind_m_s=2.0,
+        sw_in_w_m2=np.where(idx < n_snow, 0.0, clear_sky_shortwave(t, 750.0, day_length_h=13)),
+        cloud_frac=np.where(idx < n_snow, 1.0, 0.3),
+        precip_kg_m2=pr,
+        snow_frac=1.0,
+    )
     state, diag, snap = _run(f, 1, diag_every_h=1, snapshot_hour_utc=16)
     n = state.layer_count[0]
     # common practice (spring snowpack): warm-up -> isothermal at 0 degC in the afternoon,

@@ -22,8 +22,11 @@ def forcing():
 
 
 def _arrays(state):
-    return {f.name: getattr(state, f.name) for f in fields(state)
-            if isinstance(getattr(state, f.name), np.ndarray)}
+    return {
+        f.name: getattr(state, f.name)
+        for f in fields(state)
+        if isinstance(getattr(state, f.name), np.ndarray)
+    }
 
 
 def _assert_same_state(a, b):
@@ -68,16 +71,31 @@ def test_state_dataset_layout_and_size(forcing):
     s, _, snap = run_columns(s0, forcing.subset(steps=slice(0, 24 * 30)))
     ds = s.to_dataset()
     # DESIGN 3 state.nc names and types
-    for name in ("thickness_m", "ice_kg_m2", "liquid_kg_m2", "temperature_k", "grain_size_mm",
-                 "hardness_index", "grain_class", "crust_kind", "deposition_time", "event_id",
-                 "layer_count", "albedo", "snow_age_h", "cell_id"):
+    for name in (
+        "thickness_m",
+        "ice_kg_m2",
+        "liquid_kg_m2",
+        "temperature_k",
+        "grain_size_mm",
+        "hardness_index",
+        "grain_class",
+        "crust_kind",
+        "deposition_time",
+        "event_id",
+        "layer_count",
+        "albedo",
+        "snow_age_h",
+        "cell_id",
+    ):
         assert name in ds.variables, name
     assert ds["ice_kg_m2"].dtype == np.float64 and ds["liquid_kg_m2"].dtype == np.float64
     assert ds["deposition_time"].dtype == np.int64
     n = int(ds["layer_count"][0])
     assert n > 0
-    assert all(str(c) in ("PP", "DF", "RG", "RGxf", "FC", "FCxr", "FCsf", "DH", "SH", "MF",
-                          "MFcr", "IF") for c in ds["grain_class"].values[0, :n])
+    assert all(
+        str(c) in ("PP", "DF", "RG", "RGxf", "FC", "FCxr", "FCsf", "DH", "SH", "MF", "MFcr", "IF")
+        for c in ds["grain_class"].values[0, :n]
+    )
     assert all(str(c) == "" for c in ds["grain_class"].values[0, n:])
     assert ds["time"].values == np.datetime64(s.time, "ns")
     prof = snapshots_to_dataset(snap, s.cell_id)

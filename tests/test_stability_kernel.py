@@ -14,9 +14,9 @@ from hypothesis import strategies as st
 from regionmap.errors import InputError
 from regionmap.snow.codes import GRAIN_CODES, PERSISTENT_CODES
 from regionmap.snow.stability import (
+    N_CRITERIA,
     threshold_count_columns,
     threshold_count_interfaces,
-    N_CRITERIA,
     threshold_count_reference,
     threshold_counts_of_profile,
     worst_interface_column,
@@ -37,17 +37,23 @@ def columns(draw):
     lc = np.array([draw(st.integers(0, n_layer)) for _ in range(n_cell)], dtype=np.int64)
     th = rng.choice([0.005, 0.01, 0.02, 0.05, 0.1, 0.18, 0.3], size=shape)
     th = np.where(rng.random(shape) < 0.5, th, rng.uniform(0.001, 0.5, shape))
-    e = np.where(rng.random(shape) < 0.5, rng.choice([0.5, 1.0, 1.25, 2.0, 3.0], size=shape),
-                 rng.uniform(0.1, 5.0, shape))
-    h = np.where(rng.random(shape) < 0.7, rng.choice(HARDNESS_STEPS, size=shape),
-                 rng.uniform(1.0, 6.0, shape))
+    e = np.where(
+        rng.random(shape) < 0.5,
+        rng.choice([0.5, 1.0, 1.25, 2.0, 3.0], size=shape),
+        rng.uniform(0.1, 5.0, shape),
+    )
+    h = np.where(
+        rng.random(shape) < 0.7,
+        rng.choice(HARDNESS_STEPS, size=shape),
+        rng.uniform(1.0, 6.0, shape),
+    )
     g = rng.integers(1, N_CODES, size=shape).astype(np.int8)
     # Junk in the inactive slots must not matter.
     for c in range(n_cell):
-        th[c, lc[c]:] = 9.0
-        e[c, lc[c]:] = -1.0
-        h[c, lc[c]:] = np.nan
-        g[c, lc[c]:] = 0
+        th[c, lc[c] :] = 9.0
+        e[c, lc[c] :] = -1.0
+        h[c, lc[c] :] = np.nan
+        g[c, lc[c] :] = 0
     return lc, th, e, h, g
 
 
@@ -60,8 +66,7 @@ def test_columns_kernel_equals_reference(data, relative):
     threshold_count_columns(lc, th, e, h, g, relative, out_c, out_d)
     scratch = np.full((N_CRITERIA + 1, th.shape[1]), 1e300)  # reused dirty across columns
     for c, n in enumerate(lc):
-        ref_c, ref_d = worst_interface_reference(th[c, :n], e[c, :n], h[c, :n], g[c, :n],
-                                                 relative)
+        ref_c, ref_d = worst_interface_reference(th[c, :n], e[c, :n], h[c, :n], g[c, :n], relative)
         assert out_c[c] == ref_c
         np.testing.assert_array_equal(out_d[c], ref_d)
         one_c, one_d = worst_interface_column(n, th[c], e[c], h[c], g[c], relative, scratch)
@@ -78,8 +83,7 @@ def test_interfaces_kernel_equals_reference(data, relative):
         out_c = np.full(max(m, 0), -7.0)
         out_d = np.full(max(m, 0), -7.0)
         threshold_count_interfaces(n, th[c], e[c], h[c], g[c], relative, out_c, out_d)
-        ref_c, ref_d = threshold_count_reference(th[c, :n], e[c, :n], h[c, :n], g[c, :n],
-                                                 relative)
+        ref_c, ref_d = threshold_count_reference(th[c, :n], e[c, :n], h[c, :n], g[c, :n], relative)
         k = ref_c.size
         np.testing.assert_array_equal(out_c[:k], ref_c)
         np.testing.assert_array_equal(out_d[:k], ref_d)
@@ -99,8 +103,9 @@ def test_zero_or_one_layer_gives_zero_and_nan(n, relative):
     out_c, out_d = np.full(1, -1.0), np.full(1, -1.0)
     threshold_count_columns(np.array([n]), th, e, h, g, relative, out_c, out_d)
     assert out_c[0] == 0.0 and np.isnan(out_d[0])
-    count, depth = threshold_counts_of_profile(th[0, :n], e[0, :n], h[0, :n], g[0, :n],
-                                               mode="relative" if relative else "absolute")
+    count, depth = threshold_counts_of_profile(
+        th[0, :n], e[0, :n], h[0, :n], g[0, :n], mode="relative" if relative else "absolute"
+    )
     assert count.shape == (0,) and depth.shape == (0,)
 
 
@@ -133,7 +138,10 @@ def test_compiled_persistent_table_matches_codes(code):
     # (FC, DH, SH and their subclasses) after Schweizer & Jamieson (2007) / codes.PERSISTENT_CODES.
     # Weak layer: F 3 mm of `code` under a 1F 0.5 mm slab at 40 cm: all other five criteria met.
     count, _ = threshold_counts_of_profile(
-        [0.05, 0.40], [3.0, 0.5], [1.0, 3.0], [GRAIN_CODES.index(code), GRAIN_CODES.index("RG")],
+        [0.05, 0.40],
+        [3.0, 0.5],
+        [1.0, 3.0],
+        [GRAIN_CODES.index(code), GRAIN_CODES.index("RG")],
         mode="absolute",
     )
     assert count[0] == (6.0 if code in PERSISTENT_CODES else 5.0)

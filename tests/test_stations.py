@@ -79,8 +79,12 @@ def test_interval_start_previous_row_and_modal_step(tmp_path, stations):
 
 
 def test_several_files_merge_and_mixed_variables(tmp_path, stations):
-    a = _write(tmp_path, "a.csv", "station_id,time,air_temperature[K]\nPLOT1,2026-01-01T00:00Z,270\n")
-    b = _write(tmp_path, "b.csv", "station_id,time,shortwave_down[W m-2]\nPLOT1,2026-01-01T01:00Z,150\n")
+    a = _write(
+        tmp_path, "a.csv", "station_id,time,air_temperature[K]\nPLOT1,2026-01-01T00:00Z,270\n"
+    )
+    b = _write(
+        tmp_path, "b.csv", "station_id,time,shortwave_down[W m-2]\nPLOT1,2026-01-01T01:00Z,150\n"
+    )
     obs = read_observations([a, b], stations)
     assert obs.shape[0] == 2
     assert np.isnan(obs["shortwave_down"].iloc[0]) and obs["shortwave_down"].iloc[1] == 150.0
@@ -90,26 +94,46 @@ def test_several_files_merge_and_mixed_variables(tmp_path, stations):
 @pytest.mark.parametrize(
     ("text", "match"),
     [
-        ("station_id,time,air_temperature[degC]\nNOPE,2026-01-01T00:00Z,1\n",
-         r"obs\.csv, line 2, column 'station_id': unknown station 'NOPE'"),
-        ("station_id,time,air_temperature[degrees_frobnitz]\nPLOT1,2026-01-01T00:00Z,1\n",
-         r"unknown unit 'degrees_frobnitz'"),
-        ("station_id,time,air_temperature[m s-1]\nPLOT1,2026-01-01T00:00Z,1\n",
-         r"cannot be converted to 'K'"),
-        ("station_id,time,air_temp[degC]\nPLOT1,2026-01-01T00:00Z,1\n",
-         r"unknown variable 'air_temp'"),
-        ("station_id,time,air_temperature\nPLOT1,2026-01-01T00:00Z,1\n",
-         r"expected 'variable\[unit\]'"),
-        ("station_id,time,air_temperature[degC]\n# note\nPLOT1,15/01/2026 07:00,1\n",
-         r"line 3, column 'time': expected an ISO-8601 time"),
-        ("station_id,time,air_temperature[degC]\nPLOT1,2026-01-01T00:00Z,1\nPLOT1,2026-01-01T00:00Z,2\n",
-         r"two observations at 2026-01-01T00:00:00Z: .*obs\.csv line 2 and .*obs\.csv line 3"),
-        ("station_id,time,air_temperature[degC]\nPLOT1,2026-01-01T00:00Z,90\n",
-         r"line 2, column 'air_temperature\[degC\]': value 90.0 is out of range"),
-        ("station_id,time,relative_humidity[1]\nPLOT1,2026-01-01T00:00Z,80\n",
-         r"out of range; expected relative_humidity in \[0.0, 1.05\]"),
-        ("station_id,time,wind_speed[m s-1]\nPLOT1,2026-01-01T00:00Z,fast\n",
-         r"line 2, column 'wind_speed\[m s-1\]': expected a number, got 'fast'"),
+        (
+            "station_id,time,air_temperature[degC]\nNOPE,2026-01-01T00:00Z,1\n",
+            r"obs\.csv, line 2, column 'station_id': unknown station 'NOPE'",
+        ),
+        (
+            "station_id,time,air_temperature[degrees_frobnitz]\nPLOT1,2026-01-01T00:00Z,1\n",
+            r"unknown unit 'degrees_frobnitz'",
+        ),
+        (
+            "station_id,time,air_temperature[m s-1]\nPLOT1,2026-01-01T00:00Z,1\n",
+            r"cannot be converted to 'K'",
+        ),
+        (
+            "station_id,time,air_temp[degC]\nPLOT1,2026-01-01T00:00Z,1\n",
+            r"unknown variable 'air_temp'",
+        ),
+        (
+            "station_id,time,air_temperature\nPLOT1,2026-01-01T00:00Z,1\n",
+            r"expected 'variable\[unit\]'",
+        ),
+        (
+            "station_id,time,air_temperature[degC]\n# note\nPLOT1,15/01/2026 07:00,1\n",
+            r"line 3, column 'time': expected an ISO-8601 time",
+        ),
+        (
+            "station_id,time,air_temperature[degC]\nPLOT1,2026-01-01T00:00Z,1\nPLOT1,2026-01-01T00:00Z,2\n",
+            r"two observations at 2026-01-01T00:00:00Z: .*obs\.csv line 2 and .*obs\.csv line 3",
+        ),
+        (
+            "station_id,time,air_temperature[degC]\nPLOT1,2026-01-01T00:00Z,90\n",
+            r"line 2, column 'air_temperature\[degC\]': value 90.0 is out of range",
+        ),
+        (
+            "station_id,time,relative_humidity[1]\nPLOT1,2026-01-01T00:00Z,80\n",
+            r"out of range; expected relative_humidity in \[0.0, 1.05\]",
+        ),
+        (
+            "station_id,time,wind_speed[m s-1]\nPLOT1,2026-01-01T00:00Z,fast\n",
+            r"line 2, column 'wind_speed\[m s-1\]': expected a number, got 'fast'",
+        ),
         ("time,air_temperature[degC]\n2026-01-01T00:00Z,1\n", r"missing column 'station_id'"),
     ],
 )
@@ -119,7 +143,9 @@ def test_observation_errors_name_file_line_column(tmp_path, stations, text, matc
 
 
 def test_duplicate_across_files_names_both(tmp_path, stations):
-    a = _write(tmp_path, "a.csv", "station_id,time,air_temperature[degC]\nPLOT1,2026-01-01T00:00Z,1\n")
+    a = _write(
+        tmp_path, "a.csv", "station_id,time,air_temperature[degC]\nPLOT1,2026-01-01T00:00Z,1\n"
+    )
     b = _write(tmp_path, "b.csv", "station_id,time,wind_speed[m s-1]\nPLOT1,2026-01-01T00:00Z,1\n")
     with pytest.raises(InputError, match=r"a\.csv line 2 and .*b\.csv line 2"):
         read_observations([a, b], stations)
@@ -130,10 +156,19 @@ def test_duplicate_across_files_names_both(tmp_path, stations):
     [
         ("id,lon,lat\nA,1,2\n", r"missing column\(s\) \['elevation_m'\]"),
         ("id,lon,lat,elevation_m,colour\nA,1,2,3,red\n", r"unknown column\(s\) \['colour'\]"),
-        ("id,lon,lat,elevation_m\nA,1,2,3\nA,1,2,4\n", r"line 3, column 'id': station 'A' is listed twice \(first on line 2\)"),
-        ("id,lon,lat,elevation_m\nA,1,95,3\n", r"line 2, column 'lat': expected a value in \[-90.0, 90.0\]"),
+        (
+            "id,lon,lat,elevation_m\nA,1,2,3\nA,1,2,4\n",
+            r"line 3, column 'id': station 'A' is listed twice \(first on line 2\)",
+        ),
+        (
+            "id,lon,lat,elevation_m\nA,1,95,3\n",
+            r"line 2, column 'lat': expected a value in \[-90.0, 90.0\]",
+        ),
         ("id,lon,lat,elevation_m\nA,1,2,\n", r"line 2, column 'elevation_m': a value is required"),
-        ("id,lon,lat,elevation_m,exposure_class\nA,1,2,3,windy\n", r"expected one of \['sheltered', 'neutral', 'exposed'\]"),
+        (
+            "id,lon,lat,elevation_m,exposure_class\nA,1,2,3,windy\n",
+            r"expected one of \['sheltered', 'neutral', 'exposed'\]",
+        ),
         ("id,lon,lat,elevation_m\nA B,1,2,3\n", r"may not contain spaces"),
     ],
 )

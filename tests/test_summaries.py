@@ -7,6 +7,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 import pytest
+from test_summaries_synth import synthetic_run
 
 from regionmap.errors import GridMismatchError, InputError
 from regionmap.summaries import (
@@ -20,7 +21,6 @@ from regionmap.summaries import (
     summary_tables,
     terrain_weights_km2,
 )
-from test_summaries_synth import synthetic_run
 
 MAP_TIME = "2026-01-22T12:00"
 
@@ -44,7 +44,11 @@ def test_terrain_weights_count_only_steep_pixels():
 def test_observation_day_fixed_offset_etc_gmt_plus_7():
     # IANA tz database: "Etc/GMT+7" is UTC-7 (POSIX sign convention), so 07:00 local = 14:00 UTC
     t = observation_times("2026-01-10T00:00", "2026-01-12T23:00", local_timezone="Etc/GMT+7")
-    assert [str(x) for x in t] == ["2026-01-10T14:00:00", "2026-01-11T14:00:00", "2026-01-12T14:00:00"]
+    assert [str(x) for x in t] == [
+        "2026-01-10T14:00:00",
+        "2026-01-11T14:00:00",
+        "2026-01-12T14:00:00",
+    ]
 
 
 def test_observation_day_is_23_h_on_the_spring_clock_change():
@@ -82,7 +86,7 @@ def test_slab_thickness_is_perpendicular_to_the_slope(run):
     # the uppermost weak layer of any family is the SH; load = 0.3*150 + 0.02*600 kg m-2
     np.testing.assert_allclose(v["pwl_load_kg_m2"], 45.0 + 12.0)
     high = table["elevation_m"] >= 1800
-    np.testing.assert_allclose(v.loc[high, "DH_depth_cm"], 33.0)   # 1 + 30 + 2 cm above it
+    np.testing.assert_allclose(v.loc[high, "DH_depth_cm"], 33.0)  # 1 + 30 + 2 cm above it
     assert v.loc[~high, "DH_present"].eq(0).all()
 
 
@@ -102,17 +106,21 @@ def test_area_weighted_fractions_and_maxima(run):
     elev = table.loc[with_dh, "elevation_m"]
     assert s["threshold_count_max_max"].iloc[0] == (5.0 if elev >= 2000 else 3.0)
     assert s["crust_count_max"].iloc[0] == (2.0 if elev > 2000 else 1.0)
-    assert s["crust_count_mean"].iloc[0] == pytest.approx((2 * s["crust_count_max"].iloc[0] + 0) / 3)
+    assert s["crust_count_mean"].iloc[0] == pytest.approx(
+        (2 * s["crust_count_max"].iloc[0] + 0) / 3
+    )
 
 
 def test_band_transitions_interpolate_between_band_centres():
     # linear interpolation by hand: fractions 0, 0.2, 0.8, 1.0 at 1050..1350 m cross 0.5 at
     # 1150 + (0.5-0.2)/(0.8-0.2)*100 = 1200 m; a second group present everywhere is bounded
-    f = pd.DataFrame({
-        "g": ["a"] * 4 + ["b"] * 3,
-        "band_centre_m": [1350.0, 1050.0, 1250.0, 1150.0, 1050.0, 1150.0, 1250.0],
-        "frac": [1.0, 0.0, 0.8, 0.2, 1.0, 1.0, 0.6],
-    })
+    f = pd.DataFrame(
+        {
+            "g": ["a"] * 4 + ["b"] * 3,
+            "band_centre_m": [1350.0, 1050.0, 1250.0, 1150.0, 1050.0, 1150.0, 1250.0],
+            "frac": [1.0, 0.0, 0.8, 0.2, 1.0, 1.0, 0.6],
+        }
+    )
     t = band_transitions(f, ["g"], "frac").set_index("g")
     assert t.loc["a", "lower_m"] == pytest.approx(1200.0) and t.loc["a", "lower_bound"] == ""
     assert t.loc["a", "upper_bound"] == "at_or_above"
@@ -131,8 +139,16 @@ def test_summary_tables_zones_columns_and_snow_line(run):
     w["avalanche_km2"] = np.where(table["elevation_m"] > 1500, w["all_km2"], 0.0)
     tabs = summary_tables(diag, prof, table, w, map_time=MAP_TIME, local_timezone="Etc/GMT+7")
     z = tabs.zones.set_index("zone")
-    for col in ("depth_hoar_fraction", "crust_count_mean", "new_snow_72h_cm", "new_snow_72h_kg_m2",
-                "snow_depth_cm", "is_forecast", "valid_time", "depth_hoar_fraction_all_terrain"):
+    for col in (
+        "depth_hoar_fraction",
+        "crust_count_mean",
+        "new_snow_72h_cm",
+        "new_snow_72h_kg_m2",
+        "snow_depth_cm",
+        "is_forecast",
+        "valid_time",
+        "depth_hoar_fraction_all_terrain",
+    ):
         assert col in z.columns
     assert sorted(z.index) == ["Zone A", "Zone B"]
     # design: snow depth (elev-1300)/5 cm, so snow (>= 1 cm) from 1305 m; band 1300-1400 has
@@ -148,7 +164,9 @@ def test_summary_tables_zones_columns_and_snow_line(run):
     # all-terrain DH fraction: area share of cells >= 1800 m (design), computed independently
     cells_dh = table["elevation_m"] >= 1800
     for zname, grp in table.groupby("zone"):
-        share = (w.loc[grp.index, "all_km2"] * cells_dh[grp.index]).sum() / w.loc[grp.index, "all_km2"].sum()
+        share = (w.loc[grp.index, "all_km2"] * cells_dh[grp.index]).sum() / w.loc[
+            grp.index, "all_km2"
+        ].sum()
         assert z.loc[zname, "depth_hoar_fraction_all_terrain"] == pytest.approx(share)
 
 
@@ -167,7 +185,9 @@ def test_layers_of_concern_named_by_local_date_and_loaded(run):
     np.testing.assert_allclose(sh["load_since_burial_kg_m2"], 225.0)
     np.testing.assert_allclose(sh["load_24h_kg_m2"], 24.0)
     np.testing.assert_allclose(sh["load_72h_kg_m2"], 72.0)
-    rc = loc[(loc["layer_id"] == "rain-2026-01-20") & (loc["aspect_sector"] == "all")].set_index("zone")
+    rc = loc[(loc["layer_id"] == "rain-2026-01-20") & (loc["aspect_sector"] == "all")].set_index(
+        "zone"
+    )
     in_band = (table["elevation_m"] >= 1400) & (table["elevation_m"] < 2000)
     for zname, grp in table.groupby("zone"):
         share = (grp["area_km2"] * in_band[grp.index]).sum() / grp["area_km2"].sum()
@@ -175,7 +195,9 @@ def test_layers_of_concern_named_by_local_date_and_loaded(run):
     text = layer_summary_text(loc)
     assert text.loc["Zone A"].startswith("SH buried 2026-01-12 (100 %, 32 cm)")
     # before the burial there is no buried SH
-    early = layers_of_concern(diag, prof, table, w, time="2026-01-12T12:00", local_timezone="Etc/GMT+7")
+    early = layers_of_concern(
+        diag, prof, table, w, time="2026-01-12T12:00", local_timezone="Etc/GMT+7"
+    )
     assert not early["layer_name"].str.startswith("SH").any()
 
 
@@ -196,12 +218,16 @@ def test_block_sizes_do_not_change_the_summaries(run, monkeypatch):
     w = terrain_weights_km2(index, slope, area, len(table))
     kw = dict(local_timezone="Etc/GMT+7")
     one = summary_tables(diag, prof, table, w, map_time=MAP_TIME, **kw)
-    loc_one = layers_of_concern(diag, prof, table, np.asarray(table["area_km2"]), time=MAP_TIME, **kw)
+    loc_one = layers_of_concern(
+        diag, prof, table, np.asarray(table["area_km2"]), time=MAP_TIME, **kw
+    )
     monkeypatch.setattr(summaries, "_CELL_BLOCK", 3)
     monkeypatch.setattr(summaries, "_TIME_BLOCK", 4)
     assert len(table) > 3 * summaries._CELL_BLOCK
     many = summary_tables(diag, prof, table, w, map_time=MAP_TIME, **kw)
-    loc_many = layers_of_concern(diag, prof, table, np.asarray(table["area_km2"]), time=MAP_TIME, **kw)
+    loc_many = layers_of_concern(
+        diag, prof, table, np.asarray(table["area_km2"]), time=MAP_TIME, **kw
+    )
     pd.testing.assert_frame_equal(one.daily, many.daily)
     pd.testing.assert_frame_equal(one.zones, many.zones)
     pd.testing.assert_frame_equal(one.band_aspect, many.band_aspect)

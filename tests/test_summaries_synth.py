@@ -46,7 +46,9 @@ def build_cells(dem: np.ndarray):
     sector = SECTORS4[(((aspect + 45.0) % 360.0) // 90.0).astype(int)]
     zone = np.where(xx < c, "Zone A", "Zone B")
     band_lo = np.floor(dem / BAND_M) * BAND_M
-    key = pd.DataFrame({"zone": zone[inside], "band_lower_m": band_lo[inside], "aspect_sector": sector[inside]})
+    key = pd.DataFrame(
+        {"zone": zone[inside], "band_lower_m": band_lo[inside], "aspect_sector": sector[inside]}
+    )
     codes, uniq = pd.factorize(pd.MultiIndex.from_frame(key), sort=True)
     index = np.full(dem.shape, -1, dtype=np.int32)
     index[inside] = codes
@@ -55,11 +57,13 @@ def build_cells(dem: np.ndarray):
     elev = np.bincount(codes, weights=dem[inside], minlength=n) / count
     x = TRANSFORM.c + (xx + 0.5) * PIXEL_M
     y = TRANSFORM.f - (yy + 0.5) * PIXEL_M
-    table = pd.DataFrame({
-        "zone": uniq.get_level_values(0).to_numpy(object),
-        "band_lower_m": uniq.get_level_values(1).to_numpy(np.float64),
-        "aspect_sector": uniq.get_level_values(2).to_numpy(object),
-    })
+    table = pd.DataFrame(
+        {
+            "zone": uniq.get_level_values(0).to_numpy(object),
+            "band_lower_m": uniq.get_level_values(1).to_numpy(np.float64),
+            "aspect_sector": uniq.get_level_values(2).to_numpy(object),
+        }
+    )
     table["band_upper_m"] = table["band_lower_m"] + BAND_M
     table["slope_class"] = 0
     table["pixel_count"] = count
@@ -78,15 +82,25 @@ def build_cells(dem: np.ndarray):
     return index, table, slope, np.full(dem.shape, PIXEL_M**2)
 
 
-TIMES = pd.date_range("2026-01-10T01:00", "2026-01-25T00:00", freq="h").to_numpy().astype("datetime64[s]")
-DAYS = pd.date_range("2026-01-10T12:00", "2026-01-24T12:00", freq="D").to_numpy().astype("datetime64[s]")
+TIMES = (
+    pd.date_range("2026-01-10T01:00", "2026-01-25T00:00", freq="h")
+    .to_numpy()
+    .astype("datetime64[s]")
+)
+DAYS = (
+    pd.date_range("2026-01-10T12:00", "2026-01-24T12:00", freq="D")
+    .to_numpy()
+    .astype("datetime64[s]")
+)
 
 
 def _sec(t: str) -> np.int64:
     return np.datetime64(t, "s").astype(np.int64)
 
 
-def write_cells_nc(path, table: pd.DataFrame, *, snowfall_kg_m2_h: float = 1.0, analysis_index: int | None = None):
+def write_cells_nc(
+    path, table: pd.DataFrame, *, snowfall_kg_m2_h: float = 1.0, analysis_index: int | None = None
+):
     """cells.nc with hourly diagnostics: snow depth grows with elevation, constant snowfall."""
     n, t = len(table), TIMES.size
     elev = table["elevation_m"].to_numpy()[:, None] * np.ones((1, t))
@@ -173,10 +187,17 @@ def layer_fields(table: pd.DataFrame, *, crust_lo_m=1400.0, crust_hi_m=2000.0, d
     count[:, days < np.datetime64(SH_BURIAL)] = 2
     count[:, (days >= np.datetime64(SH_BURIAL)) & (days < np.datetime64(RAIN_FORMED))] = 3
     fields = {
-        "thickness_m": thick, "ice_kg_m2": thick * density, "liquid_kg_m2": np.zeros_like(thick),
-        "temperature_k": np.full(thick.shape, 268.0), "grain_size_mm": np.full(thick.shape, 1.0),
-        "hardness_index": np.full(thick.shape, 2.0), "grain_class": grain, "crust_kind": crust,
-        "deposition_time": dep, "formation_time": form, "event_id": event,
+        "thickness_m": thick,
+        "ice_kg_m2": thick * density,
+        "liquid_kg_m2": np.zeros_like(thick),
+        "temperature_k": np.full(thick.shape, 268.0),
+        "grain_size_mm": np.full(thick.shape, 1.0),
+        "hardness_index": np.full(thick.shape, 2.0),
+        "grain_class": grain,
+        "crust_kind": crust,
+        "deposition_time": dep,
+        "formation_time": form,
+        "event_id": event,
     }
     return count, fields
 

@@ -8,24 +8,30 @@ import pytest
 from affine import Affine
 from hypothesis import given, settings
 from hypothesis import strategies as st
-from rasterio.crs import CRS
+from test_terrain_speed_equivalence import _direct, random_line
 
 from regionmap.errors import ConfigError
-from regionmap.io.dem import Dem, read_dem
+from regionmap.io.dem import read_dem
 from regionmap.terrain import TerrainSettings, compute_terrain, write_terrain_layers
 from regionmap.terrain.horizon import _scan_one_line
-from test_terrain_speed_equivalence import _direct, random_line
 
 
 @settings(deadline=None, max_examples=60)
-@given(n=st.integers(1, 80), window=st.integers(1, 30), seed=st.integers(0, 10_000), floor0=st.booleans(),
-       curvature=st.booleans())
+@given(
+    n=st.integers(1, 80),
+    window=st.integers(1, 30),
+    seed=st.integers(0, 10_000),
+    floor0=st.booleans(),
+    curvature=st.booleans(),
+)
 def test_hull_scan_equals_direct_maximum_dozier_frew1990(n, window, seed, floor0, curvature):
     # The horizon definition of Dozier & Frew (1990), max over the window of
     # (z_j - z_i - d^2/2R)/d, evaluated point by point, against the hull scan.
     z, w, ds, inv_r = random_line(n, seed, curvature)
     out = np.empty(n)
-    _scan_one_line(w, n, window, ds, inv_r, floor0, np.empty(n), np.empty(n, np.int64), np.empty(n), out)
+    _scan_one_line(
+        w, n, window, ds, inv_r, floor0, np.empty(n), np.empty(n, np.int64), np.empty(n), out
+    )
     ref = _direct(z, ds, window, inv_r, floor0, -1)  # the window looks back along the line
     np.testing.assert_array_equal(np.isnan(out), np.isnan(ref))
     ok = ~np.isnan(ref)
@@ -64,14 +70,25 @@ def test_geographic_dem_is_analysed_on_its_utm_view(tmp_path):
     north_m = (lat - lat.mean()) * 111_150.0  # metres per degree of latitude near 46.5 N [mem]
     z = np.repeat((1500.0 + 0.25 * north_m)[:, None], nx, axis=1)  # rises to the north: faces south
     p = tmp_path / "geo.tif"
-    write_geotiff(p, z.astype(np.float32), transform=Affine(d, 0, lon0, 0, -d, lat0), crs="EPSG:4326",
-                  nodata=-9999.0, description="elevation", cog=False)
+    write_geotiff(
+        p,
+        z.astype(np.float32),
+        transform=Affine(d, 0, lon0, 0, -d, lat0),
+        crs="EPSG:4326",
+        nodata=-9999.0,
+        description="elevation",
+        cog=False,
+    )
     dem = read_dem(p)
-    t = compute_terrain(dem, TerrainSettings(n_azimuths=8, horizon_distance_m=500.0, exposure_directions=4))
+    t = compute_terrain(
+        dem, TerrainSettings(n_azimuths=8, horizon_distance_m=500.0, exposure_directions=4)
+    )
     assert t.slope_deg.shape == dem.shape and t.horizon_deg.shape == (8, ny, nx)
     inner = (slice(10, -10), slice(10, -10))
     assert np.nanmedian(t.slope_deg[inner]) == pytest.approx(np.degrees(np.arctan(0.25)), abs=0.3)
-    assert np.nanmedian(t.aspect_deg[inner]) == pytest.approx(180.0, abs=3.0)  # grid convergence < 3 deg
+    assert np.nanmedian(t.aspect_deg[inner]) == pytest.approx(
+        180.0, abs=3.0
+    )  # grid convergence < 3 deg
 
 
 def test_geographic_dem_aspect_and_horizon_are_relative_to_true_north(tmp_path):
@@ -95,9 +112,18 @@ def test_geographic_dem_aspect_and_horizon_are_relative_to_true_north(tmp_path):
     grad = np.tan(np.radians(slope))
     z = 1500.0 - grad * (east_m * np.sin(np.radians(aspect)) + north_m * np.cos(np.radians(aspect)))
     p = tmp_path / "geo_east.tif"
-    write_geotiff(p, z.astype(np.float64), transform=Affine(d, 0, lon0, 0, -d, lat0), crs="EPSG:4326",
-                  nodata=-9999.0, description="elevation", cog=False)
-    s = TerrainSettings(n_azimuths=36, horizon_distance_m=300.0, exposure_directions=8, earth_curvature=False)
+    write_geotiff(
+        p,
+        z.astype(np.float64),
+        transform=Affine(d, 0, lon0, 0, -d, lat0),
+        crs="EPSG:4326",
+        nodata=-9999.0,
+        description="elevation",
+        cog=False,
+    )
+    s = TerrainSettings(
+        n_azimuths=36, horizon_distance_m=300.0, exposure_directions=8, earth_curvature=False
+    )
     t = compute_terrain(read_dem(p), s)
     inner = (slice(40, -40), slice(40, -40))
     assert np.nanmedian(t.slope_deg[inner]) == pytest.approx(slope, abs=0.05)
@@ -123,8 +149,14 @@ def test_write_terrain_layers_writes_each_layer_on_the_dem_grid(tmp_path):
     s = TerrainSettings(n_azimuths=8, horizon_distance_m=2000.0, exposure_directions=4)
     written = write_terrain_layers(dem_path, tmp_path / "out", s, progress=False)
     names = sorted(p.name for p in written)
-    assert names == ["aspect_deg.tif", "curvature.tif", "horizon_deg.tif", "sky_view_frac.tif", "slope_deg.tif",
-                     "sx_deg.tif"]
+    assert names == [
+        "aspect_deg.tif",
+        "curvature.tif",
+        "horizon_deg.tif",
+        "sky_view_frac.tif",
+        "slope_deg.tif",
+        "sx_deg.tif",
+    ]
     dem = read_dem(dem_path)
     with rasterio.open(tmp_path / "out" / "horizon_deg.tif") as src:
         assert src.count == 8 and src.transform == dem.transform and src.crs == dem.crs

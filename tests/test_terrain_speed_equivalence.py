@@ -52,15 +52,35 @@ def random_line(n, seed, curvature):
 
 
 @settings(deadline=None, max_examples=80)
-@given(n=st.integers(1, 90), window=st.integers(1, 30), seed=st.integers(0, 10_000), floor0=st.booleans(),
-       curvature=st.booleans())
-def test_two_way_hull_scan_equals_direct_maximum_dozier_frew1990(n, window, seed, floor0, curvature):
+@given(
+    n=st.integers(1, 90),
+    window=st.integers(1, 30),
+    seed=st.integers(0, 10_000),
+    floor0=st.booleans(),
+    curvature=st.booleans(),
+)
+def test_two_way_hull_scan_equals_direct_maximum_dozier_frew1990(
+    n, window, seed, floor0, curvature
+):
     # Both directions of one line from a single pair of hull passes, against the definition
     # of Dozier & Frew (1990) evaluated point by point.
     z, w, ds, inv_r = random_line(n, seed, curvature)
     out_lo, out_hi = np.empty(n), np.empty(n)
-    _scan_line_pair(w, n, window, ds, inv_r, floor0, True, np.empty(n), np.empty(n, np.int64), np.empty(n),
-                    np.empty(n), out_lo, out_hi)
+    _scan_line_pair(
+        w,
+        n,
+        window,
+        ds,
+        inv_r,
+        floor0,
+        True,
+        np.empty(n),
+        np.empty(n, np.int64),
+        np.empty(n),
+        np.empty(n),
+        out_lo,
+        out_hi,
+    )
     for out, step in ((out_lo, -1), (out_hi, 1)):
         ref = _direct(z, ds, window, inv_r, floor0, step)
         np.testing.assert_array_equal(np.isnan(out), np.isnan(ref))
@@ -101,7 +121,9 @@ def test_bowl_horizon_both_directions_of_each_line_calc(n_az):
         expect = np.degrees(np.arctan(np.maximum(m, 0.0)))
         tol = np.degrees(a * d * d / 4 / t_star) + 1e-5
         up = m[inner] > 4 * a * d
-        np.testing.assert_allclose(h[k][inner][up], expect[inner][up], atol=tol, err_msg=f"azimuth {phi_deg}")
+        np.testing.assert_allclose(
+            h[k][inner][up], expect[inner][up], atol=tol, err_msg=f"azimuth {phi_deg}"
+        )
         assert np.all(h[k][inner][m[inner] < -4 * a * d] == 0.0)
         assert up.sum() > 1000
 
@@ -120,7 +142,7 @@ def test_opposite_azimuth_on_shared_lines_equals_its_own_scan_on_grid_directions
     az = np.arange(8) * 45.0
     paired, _ = horizon_sky_view_dozier_frew1990(z, 10.0, 10.0, flat, flat, az, 150.0)
     for k in range(8):
-        alone, _ = horizon_sky_view_dozier_frew1990(z, 10.0, 10.0, flat, flat, az[k:k + 1], 150.0)
+        alone, _ = horizon_sky_view_dozier_frew1990(z, 10.0, 10.0, flat, flat, az[k : k + 1], 150.0)
         np.testing.assert_array_equal(paired[k], alone[0])
 
 
@@ -140,8 +162,15 @@ def test_compiled_arctangent_against_libm():
         return e, e2, c2
 
     edges = np.tan(np.arange(1, 8, 2) * np.pi / 16)
-    x = np.concatenate([np.tan(np.linspace(-1.5707, 1.5707, 200_001)), edges, np.nextafter(edges, np.inf),
-                        np.nextafter(edges, 0.0), [0.0, 1e300, -1e300]])
+    x = np.concatenate(
+        [
+            np.tan(np.linspace(-1.5707, 1.5707, 200_001)),
+            edges,
+            np.nextafter(edges, np.inf),
+            np.nextafter(edges, 0.0),
+            [0.0, 1e300, -1e300],
+        ]
+    )
     e, e2, c2 = evaluate(x)
     np.testing.assert_allclose(e, np.arctan(x), rtol=0, atol=1e-11)
     np.testing.assert_allclose(e2, np.arctan(np.abs(x)), rtol=0, atol=1e-11)

@@ -26,8 +26,13 @@ def _log_all(x):
 def test_exp_vec_matches_numpy_over_the_normal_range():
     # reference: numpy.exp (the C library's correctly rounded-to-within-1-ulp exp)
     rng = np.random.default_rng(0)
-    x = np.concatenate([np.linspace(-708.0, 709.0, 200_001), rng.uniform(-60.0, 10.0, 200_000),
-                        [0.0, 1.0, -1.0, 0.5 * np.log(2.0), -0.5 * np.log(2.0)]])
+    x = np.concatenate(
+        [
+            np.linspace(-708.0, 709.0, 200_001),
+            rng.uniform(-60.0, 10.0, 200_000),
+            [0.0, 1.0, -1.0, 0.5 * np.log(2.0), -0.5 * np.log(2.0)],
+        ]
+    )
     rel = np.abs(_exp_all(x) / np.exp(x) - 1.0)
     assert rel.max() < 1e-15
     assert _exp_all(np.array([0.0]))[0] == 1.0
@@ -44,9 +49,14 @@ def test_exp_vec_clips_and_propagates_nan():
 def test_log_vec_matches_numpy_over_the_normal_range():
     # reference: numpy.log (the C library's log, within 1 ulp)
     rng = np.random.default_rng(1)
-    x = np.concatenate([np.exp(rng.uniform(-700.0, 700.0, 200_000)),
-                        rng.uniform(0.5, 2.0, 200_000), rng.uniform(5.0, 1000.0, 200_000),
-                        [np.sqrt(0.5), np.sqrt(2.0), 0.5, 2.0, 1e-300, 1e300]])
+    x = np.concatenate(
+        [
+            np.exp(rng.uniform(-700.0, 700.0, 200_000)),
+            rng.uniform(0.5, 2.0, 200_000),
+            rng.uniform(5.0, 1000.0, 200_000),
+            [np.sqrt(0.5), np.sqrt(2.0), 0.5, 2.0, 1e-300, 1e300],
+        ]
+    )
     ref = np.log(x)
     assert (np.abs(_log_all(x) - ref) <= 2.0 * np.spacing(np.abs(ref))).all()  # <= 2 ulp
     assert _log_all(np.array([1.0]))[0] == 0.0

@@ -37,7 +37,9 @@ def _obs(station, times, starts, **columns):
 def test_daily_observations_sum_hourly_model_amounts():
     hours = 72
     model = _hourly_model(
-        "A", "2026-01-01T01:00", hours,
+        "A",
+        "2026-01-01T01:00",
+        hours,
         precipitation=np.arange(hours, dtype=float),
         air_temperature=np.linspace(260.0, 270.0, hours),
         shortwave_down=np.full(hours, 100.0),
@@ -75,14 +77,26 @@ def test_verification_table_rows_per_station_and_variable():
     for station in ("A", "B"):
         t_obs = rng.normal(265.0, 4.0, 48)
         p_obs = rng.gamma(0.5, 1.0, 48)
-        frames_o.append(_obs(station, pd.date_range("2026-01-01T01:00", periods=48, freq="h"),
-                             pd.date_range("2026-01-01T00:00", periods=48, freq="h"),
-                             air_temperature=t_obs, precipitation=p_obs,
-                             snow_depth=np.full(48, 1.0)))
-        frames_m.append(_obs(station, pd.date_range("2026-01-01T01:00", periods=48, freq="h"),
-                             pd.date_range("2026-01-01T00:00", periods=48, freq="h"),
-                             air_temperature=t_obs + 2.0, precipitation=1.6 * p_obs,
-                             snow_depth=np.full(48, 1.05)).drop(columns="interval_start"))
+        frames_o.append(
+            _obs(
+                station,
+                pd.date_range("2026-01-01T01:00", periods=48, freq="h"),
+                pd.date_range("2026-01-01T00:00", periods=48, freq="h"),
+                air_temperature=t_obs,
+                precipitation=p_obs,
+                snow_depth=np.full(48, 1.0),
+            )
+        )
+        frames_m.append(
+            _obs(
+                station,
+                pd.date_range("2026-01-01T01:00", periods=48, freq="h"),
+                pd.date_range("2026-01-01T00:00", periods=48, freq="h"),
+                air_temperature=t_obs + 2.0,
+                precipitation=1.6 * p_obs,
+                snow_depth=np.full(48, 1.05),
+            ).drop(columns="interval_start")
+        )
     obs = pd.concat(frames_o)
     obs.attrs["units"] = {"air_temperature": "K", "precipitation": "kg m-2", "snow_depth": "m"}
     model = pd.concat(frames_m)

@@ -25,7 +25,11 @@ from regionmap.stations_chain import run_verification_last_day, station_model_se
 
 START, END = "2026-01-08", "2026-01-21T23:00"  # 14 days of the invented season, a storm included
 # station pixels (row, col) on the 300 x 300 demo DEM and their metadata exposure class
-STATIONS = {"LOWPLOT": ((250, 60), "sheltered"), "CREST": ((150, 180), "exposed"), "MIDSLOPE": ((80, 220), "")}
+STATIONS = {
+    "LOWPLOT": ((250, 60), "sheltered"),
+    "CREST": ((150, 180), "exposed"),
+    "MIDSLOPE": ((80, 220), ""),
+}
 
 
 def write_scenario(folder: Path, dem, *, start=START, end=END, lapse=None) -> Path:
@@ -34,8 +38,14 @@ def write_scenario(folder: Path, dem, *, start=START, end=END, lapse=None) -> Pa
     from regionmap.demo_weather import write_demo_forcing
 
     folder.mkdir(parents=True, exist_ok=True)
-    write_demo_forcing(folder / "forcing.nc", dem.elevation_m, dem.transform, dem.crs, start=start, end=end)
-    extra = f'\n[downscale]\nlapse = "fixed"\nlapse_rate_k_per_km = {lapse}\n' if lapse is not None else ""
+    write_demo_forcing(
+        folder / "forcing.nc", dem.elevation_m, dem.transform, dem.crs, start=start, end=end
+    )
+    extra = (
+        f'\n[downscale]\nlapse = "fixed"\nlapse_rate_k_per_km = {lapse}\n'
+        if lapse is not None
+        else ""
+    )
     text = f"""[region]
 dem = "{SHIPPED_DEM}"
 zones = "{SHIPPED_ZONES}"
@@ -55,7 +65,10 @@ def write_stations(path: Path, dem, stations=STATIONS, *, elevations=None) -> Pa
     from pyproj import Transformer
 
     to_ll = Transformer.from_crs(dem.crs, "EPSG:4326", always_xy=True)
-    lines = ["# invented stations on the invented demo range", "id,lon,lat,elevation_m,exposure_class"]
+    lines = [
+        "# invented stations on the invented demo range",
+        "id,lon,lat,elevation_m,exposure_class",
+    ]
     for sid, ((r, c), cls) in stations.items():
         x = dem.transform.c + (c + 0.5) * dem.transform.a
         y = dem.transform.f + (r + 0.5) * dem.transform.e
@@ -82,8 +95,14 @@ def scenario(tmp_path_factory, demo_dem, demo_terrain):
     stations = read_stations(stations_path)
     region = SimpleNamespace(dem=demo_dem, terrain=demo_terrain)
     model = station_model_series(cfg, stations, None, region=region, snow=True)
-    return SimpleNamespace(folder=folder, cfg=cfg, stations_path=stations_path, stations=stations,
-                           region=region, model=model)
+    return SimpleNamespace(
+        folder=folder,
+        cfg=cfg,
+        stations_path=stations_path,
+        stations=stations,
+        region=region,
+        model=model,
+    )
 
 
 # known biases of the model (model - obs, or model / obs), by construction
@@ -92,7 +111,9 @@ PRECIP_OVER = 1.6
 DEPTH_BIAS_M = -0.05
 
 
-def synthetic_observations(model: pd.DataFrame, folder: Path, *, seed=7, wind_factor=None) -> list[Path]:
+def synthetic_observations(
+    model: pd.DataFrame, folder: Path, *, seed=7, wind_factor=None
+) -> list[Path]:
     """Hourly obs for LOWPLOT and CREST, daily precipitation and snow depth at MIDSLOPE."""
     rng = np.random.default_rng(seed)
     wind_factor = wind_factor or {"LOWPLOT": 0.2, "CREST": 1.3, "MIDSLOPE": 1.0}
@@ -107,15 +128,28 @@ def synthetic_observations(model: pd.DataFrame, folder: Path, *, seed=7, wind_fa
         depth_cm = (block["snow_depth"].to_numpy() - DEPTH_BIAS_M) * 100
         if sid != "MIDSLOPE":
             for k in range(n):
-                hourly.append({"station_id": sid, "time": f"{t[k].isoformat()}Z",
-                               "air_temperature[degC]": f"{temp_c[k]:.3f}", "relative_humidity[%]": f"{rh_pct[k]:.2f}",
-                               "wind_speed[km h-1]": f"{wind[k] * 3.6:.4f}", "precipitation[mm]": f"{precip[k]:.5f}",
-                               "snow_depth[cm]": f"{depth_cm[k]:.3f}"})
+                hourly.append(
+                    {
+                        "station_id": sid,
+                        "time": f"{t[k].isoformat()}Z",
+                        "air_temperature[degC]": f"{temp_c[k]:.3f}",
+                        "relative_humidity[%]": f"{rh_pct[k]:.2f}",
+                        "wind_speed[km h-1]": f"{wind[k] * 3.6:.4f}",
+                        "precipitation[mm]": f"{precip[k]:.5f}",
+                        "snow_depth[cm]": f"{depth_cm[k]:.3f}",
+                    }
+                )
         else:  # daily rows at 06 UTC: precipitation summed over the day before, depth at 06 UTC
             ends = np.flatnonzero((t.hour == 6) & (np.arange(n) >= 24))
             for e in ends:
-                daily.append({"station_id": sid, "time": f"{t[e].isoformat()}Z",
-                              "precipitation[mm]": f"{precip[e - 23:e + 1].sum():.5f}", "snow_depth[cm]": f"{depth_cm[e]:.3f}"})
+                daily.append(
+                    {
+                        "station_id": sid,
+                        "time": f"{t[e].isoformat()}Z",
+                        "precipitation[mm]": f"{precip[e - 23 : e + 1].sum():.5f}",
+                        "snow_depth[cm]": f"{depth_cm[e]:.3f}",
+                    }
+                )
     a = write_observations(folder / "obs_hourly.csv", hourly, list(hourly[0]))
     b = write_observations(folder / "obs_daily.csv", daily, list(daily[0]))
     return [a, b]
@@ -130,25 +164,35 @@ def _csv_column(path: Path, station: str, column: str) -> tuple[np.ndarray, np.n
 def test_verify_recovers_the_known_biases(scenario, capsys):
     obs_paths = synthetic_observations(scenario.model, scenario.folder)
     out = scenario.folder / "verify_out"
-    table = verify_command(scenario.cfg, scenario.stations_path, obs_paths, out, region=scenario.region)
+    table = verify_command(
+        scenario.cfg, scenario.stations_path, obs_paths, out, region=scenario.region
+    )
     row = table.set_index(["station_id", "variable"])
     # temperature: model - obs = +2 K by construction (noise of 0.3 K averages out)
     for sid in ("LOWPLOT", "CREST"):
         assert row.loc[(sid, "air_temperature"), "bias"] == pytest.approx(T_BIAS_K, abs=0.05)
         # precipitation: a 1.6x over-forecast is +60 % (common practice: 24 against 21.8 is +10 %)
-        assert row.loc[(sid, "precipitation"), "total_percent_difference"] == pytest.approx(60.0, abs=0.5)
+        assert row.loc[(sid, "precipitation"), "total_percent_difference"] == pytest.approx(
+            60.0, abs=0.5
+        )
         assert row.loc[(sid, "snow_depth"), "bias"] == pytest.approx(DEPTH_BIAS_M, abs=1e-4)
     # daily station: hourly model summed over each observation day, same +60 %
-    assert row.loc[("MIDSLOPE", "precipitation"), "total_percent_difference"] == pytest.approx(60.0, abs=0.5)
+    assert row.loc[("MIDSLOPE", "precipitation"), "total_percent_difference"] == pytest.approx(
+        60.0, abs=0.5
+    )
     assert row.loc[("MIDSLOPE", "precipitation"), "n"] == 13
     # plain NumPy reference from the CSV text: bias of wind at the sheltered plot
     times, wind_kmh = _csv_column(obs_paths[0], "LOWPLOT", "wind_speed[km h-1]")
     model_wind = scenario.model.loc["LOWPLOT"]["wind_speed"].reindex(times).to_numpy()
-    assert row.loc[("LOWPLOT", "wind_speed"), "bias"] == pytest.approx(np.mean(model_wind - wind_kmh / 3.6), abs=1e-4)
+    assert row.loc[("LOWPLOT", "wind_speed"), "bias"] == pytest.approx(
+        np.mean(model_wind - wind_kmh / 3.6), abs=1e-4
+    )
     assert row.loc[("LOWPLOT", "wind_speed"), "n"] == times.size
     # the CSV, the figures, the console table and the caution
     written = pd.read_csv(out / "verification.csv")
-    assert len(written) == len(table) and {"period_start", "period_end", "exposure_class"} <= set(written.columns)
+    assert len(written) == len(table) and {"period_start", "period_end", "exposure_class"} <= set(
+        written.columns
+    )
     assert (out / "figures" / "verification_scatter_air-temperature.png").stat().st_size > 10_000
     assert (out / "figures" / "verification_precipitation_accumulated.png").is_file()
     text = capsys.readouterr().out
@@ -158,11 +202,19 @@ def test_verify_recovers_the_known_biases(scenario, capsys):
 def test_station_chain_applies_the_lapse_rate_icao(tmp_path, demo_dem, demo_terrain):
     # two stations on the same pixel, 1000 m apart in stated elevation, fixed lapse rate of
     # 6.5 K km-1 (ICAO standard atmosphere, ISO 2533:1975): 6.5 K colder at the upper one
-    cfg = load_config(write_scenario(tmp_path, demo_dem, start="2026-01-08", end="2026-01-08T23:00", lapse=6.5))
+    cfg = load_config(
+        write_scenario(tmp_path, demo_dem, start="2026-01-08", end="2026-01-08T23:00", lapse=6.5)
+    )
     pixel = (150, 180)
-    path = write_stations(tmp_path / "st.csv", demo_dem, {"LOWER": (pixel, ""), "UPPER": (pixel, "")},
-                          elevations={"LOWER": 1800.0, "UPPER": 2800.0})
-    m = station_model_series(cfg, read_stations(path), None, region=SimpleNamespace(dem=demo_dem, terrain=demo_terrain))
+    path = write_stations(
+        tmp_path / "st.csv",
+        demo_dem,
+        {"LOWER": (pixel, ""), "UPPER": (pixel, "")},
+        elevations={"LOWER": 1800.0, "UPPER": 2800.0},
+    )
+    m = station_model_series(
+        cfg, read_stations(path), None, region=SimpleNamespace(dem=demo_dem, terrain=demo_terrain)
+    )
     dt = m.loc["LOWER"]["air_temperature"].to_numpy() - m.loc["UPPER"]["air_temperature"].to_numpy()
     np.testing.assert_allclose(dt, 6.5, atol=1e-9)
     # horizontal shortwave never exceeds the top-of-atmosphere value on a horizontal plane
@@ -176,29 +228,49 @@ def test_station_outside_the_dem_is_one_clear_error(scenario, tmp_path):
     obs = tmp_path / "obs.csv"
     obs.write_text("station_id,time,air_temperature[degC]\nFAR,2026-01-09T00:00Z,1.0\n")
     with pytest.raises(InputError, match=r"station\(s\) \['FAR'\] lie outside the DEM"):
-        verify_command(scenario.cfg, path, [obs], tmp_path / "out", region=scenario.region, echo=False)
+        verify_command(
+            scenario.cfg, path, [obs], tmp_path / "out", region=scenario.region, echo=False
+        )
 
 
 def test_observations_outside_the_forcing_period(scenario, tmp_path):
     obs = tmp_path / "obs.csv"
     obs.write_text("station_id,time,air_temperature[degC]\nLOWPLOT,2025-03-01T00:00Z,1.0\n")
     with pytest.raises(InputError, match="do not overlap the forcing"):
-        verify_command(scenario.cfg, scenario.stations_path, [obs], tmp_path / "out", region=scenario.region, echo=False)
+        verify_command(
+            scenario.cfg,
+            scenario.stations_path,
+            [obs],
+            tmp_path / "out",
+            region=scenario.region,
+            echo=False,
+        )
 
 
 def test_last_day_verification_for_the_run(scenario):
     obs_paths = synthetic_observations(scenario.model, scenario.folder, seed=3)
-    cfg = scenario.cfg.model_copy(update={"stations": SimpleNamespace(stations=scenario.stations_path, observations=obs_paths)})
+    cfg = scenario.cfg.model_copy(
+        update={
+            "stations": SimpleNamespace(stations=scenario.stations_path, observations=obs_paths)
+        }
+    )
     out = scenario.folder / "run_out"
     out.mkdir()
     table = run_verification_last_day(cfg, scenario.region, out, np.datetime64("2026-01-20T06:00"))
     written = pd.read_csv(out / "verification.csv")
-    assert set(written["period_start"]) == {"2026-01-19T06:00:00"} and set(written["period_end"]) == {"2026-01-20T06:00:00"}
+    assert set(written["period_start"]) == {"2026-01-19T06:00:00"} and set(
+        written["period_end"]
+    ) == {"2026-01-20T06:00:00"}
     row = table.set_index(["station_id", "variable"])
     assert row.loc[("LOWPLOT", "air_temperature"), "n"] == 24  # the 24 hours of that day
     assert row.loc[("MIDSLOPE", "precipitation"), "n"] == 1  # one daily row ends in it
     assert row.loc[("LOWPLOT", "air_temperature"), "bias"] == pytest.approx(T_BIAS_K, abs=0.3)
-    assert run_verification_last_day(scenario.cfg, scenario.region, out, np.datetime64("2026-01-20T06:00")) is None
+    assert (
+        run_verification_last_day(
+            scenario.cfg, scenario.region, out, np.datetime64("2026-01-20T06:00")
+        )
+        is None
+    )
 
 
 def test_undercatch_correction_before_comparing(scenario, tmp_path):
@@ -206,11 +278,30 @@ def test_undercatch_correction_before_comparing(scenario, tmp_path):
     # larger, so the model's over-prediction shrinks; amounts without wind (the daily
     # station) cannot be corrected and drop out
     obs = synthetic_observations(scenario.model, tmp_path, seed=9)
-    plain = verify_command(scenario.cfg, scenario.stations_path, obs, tmp_path / "a", region=scenario.region, echo=False)
-    corrected = verify_command(scenario.cfg, scenario.stations_path, obs, tmp_path / "b", undercatch="single_alter",
-                               region=scenario.region, echo=False)
+    plain = verify_command(
+        scenario.cfg,
+        scenario.stations_path,
+        obs,
+        tmp_path / "a",
+        region=scenario.region,
+        echo=False,
+    )
+    corrected = verify_command(
+        scenario.cfg,
+        scenario.stations_path,
+        obs,
+        tmp_path / "b",
+        undercatch="single_alter",
+        region=scenario.region,
+        echo=False,
+    )
     key = ["station_id", "variable"]
     p, c = plain.set_index(key), corrected.set_index(key)
-    assert c.loc[("CREST", "precipitation"), "total_percent_difference"] < p.loc[("CREST", "precipitation"), "total_percent_difference"] - 1.0
+    assert (
+        c.loc[("CREST", "precipitation"), "total_percent_difference"]
+        < p.loc[("CREST", "precipitation"), "total_percent_difference"] - 1.0
+    )
     assert c.loc[("MIDSLOPE", "precipitation"), "n"] == 0
-    assert c.loc[("CREST", "air_temperature"), "bias"] == p.loc[("CREST", "air_temperature"), "bias"]
+    assert (
+        c.loc[("CREST", "air_temperature"), "bias"] == p.loc[("CREST", "air_temperature"), "bias"]
+    )

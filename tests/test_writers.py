@@ -15,8 +15,13 @@ def test_geotiff_keeps_grid_nodata_description_and_tags(tmp_path):
     data = np.arange(300 * 260, dtype=np.float32).reshape(300, 260)
     data[5, 7] = np.nan
     path = write_geotiff(
-        tmp_path / "m.tif", data, transform=TRANSFORM, crs="EPSG:32633", nodata=-9999.0,
-        description="snow depth [cm]", tags={"valid_time": "2026-02-15T12:00:00"},
+        tmp_path / "m.tif",
+        data,
+        transform=TRANSFORM,
+        crs="EPSG:32633",
+        nodata=-9999.0,
+        description="snow depth [cm]",
+        tags={"valid_time": "2026-02-15T12:00:00"},
     )
     with rasterio.open(path) as src:  # rasterio (GDAL) as the reader of record
         assert src.transform == TRANSFORM
@@ -49,7 +54,11 @@ def test_vector_and_netcdf_writers(tmp_path):
     import shapely
     import xarray as xr
 
-    gdf = gpd.GeoDataFrame({"zone": ["Alpha"]}, geometry=[shapely.box(500_000, 5_000_000, 501_000, 5_001_000)], crs=32633)
+    gdf = gpd.GeoDataFrame(
+        {"zone": ["Alpha"]},
+        geometry=[shapely.box(500_000, 5_000_000, 501_000, 5_001_000)],
+        crs=32633,
+    )
     write_geopackage(tmp_path / "z.gpkg", {"zones": gdf, "table": pd.DataFrame({"x": [1, 2]})})
     layers = dict(pyogrio.list_layers(tmp_path / "z.gpkg"))
     assert layers["zones"] == "Polygon" and layers["table"] is None
@@ -77,7 +86,9 @@ def test_streamed_blocks_read_back_the_same_through_either_compression_path(tmp_
     from regionmap.io.results import AMOUNTS, DIAGNOSTICS, CellsNcWriter, ProfilesNcWriter
 
     n_cell, n_time, n_day, n_layer = 300, 800, 33, 5  # 300 = 256 + 44, 800 = 744 + 56, 33 = 31 + 2
-    cells = pd.DataFrame({"zone": ["a"] * n_cell}, index=pd.Index(np.arange(n_cell), name="cell_id"))
+    cells = pd.DataFrame(
+        {"zone": ["a"] * n_cell}, index=pd.Index(np.arange(n_cell), name="cell_id")
+    )
     times = np.datetime64("2026-01-01T01:00") + np.arange(n_time) * np.timedelta64(1, "h")
     days = times[::24][:n_day]
     rng = np.random.default_rng(3)
@@ -87,32 +98,54 @@ def test_streamed_blocks_read_back_the_same_through_either_compression_path(tmp_
         v[rng.random(v.shape) < 0.01] = np.nan
         diag[name] = np.round(v) if dtype.startswith("i") else v
     count = rng.integers(0, n_layer + 1, (n_cell, n_day))
-    fields = {"thickness_m": rng.random((n_cell, n_day, n_layer)).astype(np.float32),
-              "grain_code": rng.choice(np.array(["DH", "FCxr", "PP"], dtype="S4"), (n_cell, n_day, n_layer))}
+    fields = {
+        "thickness_m": rng.random((n_cell, n_day, n_layer)).astype(np.float32),
+        "grain_code": rng.choice(
+            np.array(["DH", "FCxr", "PP"], dtype="S4"), (n_cell, n_day, n_layer)
+        ),
+    }
     layer_vars = {"thickness_m": ("f4", {"units": "m"}), "grain_code": ("S4", {})}
     for blocks in ("whole", "split"):
         edges = [0, 256, n_cell] if blocks == "whole" else [0, 37, 200, n_cell]
-        w = CellsNcWriter(tmp_path / f"cells_{blocks}.nc", cells, times, times - np.timedelta64(1, "h"),
-                          np.zeros(n_time, bool))
-        p = ProfilesNcWriter(tmp_path / f"profiles_{blocks}.nc", cells.index.to_numpy(), days, n_layer, layer_vars)
+        w = CellsNcWriter(
+            tmp_path / f"cells_{blocks}.nc",
+            cells,
+            times,
+            times - np.timedelta64(1, "h"),
+            np.zeros(n_time, bool),
+        )
+        p = ProfilesNcWriter(
+            tmp_path / f"profiles_{blocks}.nc", cells.index.to_numpy(), days, n_layer, layer_vars
+        )
         for lo, hi in zip(edges[:-1], edges[1:]):
             w.write_chunk(np.arange(lo, hi), {k: v[lo:hi] for k, v in diag.items()})
             p.write_chunk(np.arange(lo, hi), count[lo:hi], {k: v[lo:hi] for k, v in fields.items()})
         w.close()
         p.close()
     for stem in ("cells", "profiles"):
-        with netCDF4.Dataset(tmp_path / f"{stem}_whole.nc") as a, netCDF4.Dataset(tmp_path / f"{stem}_split.nc") as b:
+        with (
+            netCDF4.Dataset(tmp_path / f"{stem}_whole.nc") as a,
+            netCDF4.Dataset(tmp_path / f"{stem}_split.nc") as b,
+        ):
             for name, var in a.variables.items():
                 x, y = var[:], b.variables[name][:]
                 assert np.array_equal(np.ma.getmaskarray(x), np.ma.getmaskarray(y)), name
                 assert np.array_equal(np.ma.filled(x, 0), np.ma.filled(y, 0)), name
     # and the values are the ones written: floats as float32, NaN as missing in integers
-    with netCDF4.Dataset(tmp_path / "cells_whole.nc") as a, netCDF4.Dataset(tmp_path / "profiles_whole.nc") as p:
+    with (
+        netCDF4.Dataset(tmp_path / "cells_whole.nc") as a,
+        netCDF4.Dataset(tmp_path / "profiles_whole.nc") as p,
+    ):
         got = a.variables["snow_depth_cm"][:].filled(np.nan)
         assert np.array_equal(got, diag["snow_depth_cm"].astype(np.float32), equal_nan=True)
         crusts = a.variables["crust_count"][:]
         assert np.array_equal(np.ma.getmaskarray(crusts), np.isnan(diag["crust_count"]))
-        assert np.array_equal(crusts.compressed(), diag["crust_count"][np.isfinite(diag["crust_count"])])
+        assert np.array_equal(
+            crusts.compressed(), diag["crust_count"][np.isfinite(diag["crust_count"])]
+        )
         assert np.array_equal(p.variables["layer_count"][:], count)
         assert np.array_equal(p.variables["thickness_m"][:], fields["thickness_m"])
-        assert a.variables["snow_depth_cm"].filters()["shuffle"] and a.variables["snow_depth_cm"].filters()["zlib"]
+        assert (
+            a.variables["snow_depth_cm"].filters()["shuffle"]
+            and a.variables["snow_depth_cm"].filters()["zlib"]
+        )

@@ -4,7 +4,6 @@ from __future__ import annotations
 
 import json
 
-import numpy as np
 import pytest
 import shapely
 from shapely.geometry import Point, Polygon, box, mapping
@@ -14,8 +13,13 @@ from regionmap.io.zones import read_zones
 
 
 def _geojson(path, features, crs=None):
-    doc = {"type": "FeatureCollection", "features": [
-        {"type": "Feature", "properties": props, "geometry": mapping(g)} for props, g in features]}
+    doc = {
+        "type": "FeatureCollection",
+        "features": [
+            {"type": "Feature", "properties": props, "geometry": mapping(g)}
+            for props, g in features
+        ],
+    }
     if crs:
         doc["crs"] = {"type": "name", "properties": {"name": crs}}
     path.write_text(json.dumps(doc))
@@ -37,30 +41,42 @@ def test_shipped_zones_are_reprojected_to_the_dem_crs(demo_zones, demo_dem):
 
 def test_zones_that_miss_the_dem_are_named(tmp_path, demo_dem):
     far = _utm(demo_dem, 50_000, 0, 60_000, 10_000)
-    p = _geojson(tmp_path / "z.geojson", [({"name": "Inside"}, _utm(demo_dem, 0, 0, 5000, 5000)),
-                                          ({"name": "Faraway"}, far)], crs="EPSG:32632")
+    p = _geojson(
+        tmp_path / "z.geojson",
+        [({"name": "Inside"}, _utm(demo_dem, 0, 0, 5000, 5000)), ({"name": "Faraway"}, far)],
+        crs="EPSG:32632",
+    )
     with pytest.raises(InputError, match=r"\['Faraway'\] lie outside the DEM"):
         read_zones(p, "name", demo_dem)
 
 
 def test_zones_file_without_polygons(tmp_path, demo_dem):
     left, bottom, _, _ = demo_dem.bounds
-    p = _geojson(tmp_path / "pts.geojson", [({"name": "A"}, Point(left + 10, bottom + 10))], crs="EPSG:32632")
+    p = _geojson(
+        tmp_path / "pts.geojson", [({"name": "A"}, Point(left + 10, bottom + 10))], crs="EPSG:32632"
+    )
     with pytest.raises(InputError, match="no polygons"):
         read_zones(p, "name", demo_dem)
 
 
 def test_overlapping_zones_name_both(tmp_path, demo_dem):
-    p = _geojson(tmp_path / "o.geojson", [({"name": "Upper"}, _utm(demo_dem, 0, 0, 6000, 6000)),
-                                          ({"name": "Lower"}, _utm(demo_dem, 5000, 5000, 9000, 9000))],
-                 crs="EPSG:32632")
+    p = _geojson(
+        tmp_path / "o.geojson",
+        [
+            ({"name": "Upper"}, _utm(demo_dem, 0, 0, 6000, 6000)),
+            ({"name": "Lower"}, _utm(demo_dem, 5000, 5000, 9000, 9000)),
+        ],
+        crs="EPSG:32632",
+    )
     with pytest.raises(InputError, match=r"'Upper' and 'Lower' overlap"):
         read_zones(p, "name", demo_dem)
 
 
 def test_duplicate_names_and_missing_field(tmp_path, demo_dem):
     a, b = _utm(demo_dem, 0, 0, 5000, 5000), _utm(demo_dem, 5000, 0, 9000, 5000)
-    p = _geojson(tmp_path / "d.geojson", [({"name": "Same"}, a), ({"name": "Same"}, b)], crs="EPSG:32632")
+    p = _geojson(
+        tmp_path / "d.geojson", [({"name": "Same"}, a), ({"name": "Same"}, b)], crs="EPSG:32632"
+    )
     with pytest.raises(InputError, match="duplicate zone names"):
         read_zones(p, "name", demo_dem)
     with pytest.raises(InputError, match=r"no attribute 'label'"):

@@ -27,7 +27,9 @@ def monthly_values(value: float | Sequence[float], month_index: np.ndarray) -> n
     if arr.ndim == 0:
         return np.full(np.shape(month_index), float(arr))
     if arr.shape != (12,):
-        raise ValueError(f"a monthly correction needs 12 values (January..December), got {arr.shape}")
+        raise ValueError(
+            f"a monthly correction needs 12 values (January..December), got {arr.shape}"
+        )
     return arr[np.asarray(month_index)]
 
 

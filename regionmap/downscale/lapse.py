@@ -30,9 +30,7 @@ __all__ = [
 #: Northern-Hemisphere monthly temperature lapse rates, January..December [K km-1],
 #: Kunkel (1989), J. Climate 2, as tabulated by Liston & Elder (2006), J. Hydrometeor. 7(2),
 #: 217-234, Table 1 (doi:10.1175/JHM486.1).
-KUNKEL1989_T_LAPSE_K_PER_KM = np.array(
-    [4.4, 5.9, 7.1, 7.8, 8.1, 8.2, 8.1, 8.1, 7.7, 6.8, 5.5, 4.7]
-)
+KUNKEL1989_T_LAPSE_K_PER_KM = np.array([4.4, 5.9, 7.1, 7.8, 8.1, 8.2, 8.1, 8.1, 7.7, 6.8, 5.5, 4.7])
 #: Northern-Hemisphere monthly vapour-pressure coefficients lambda, January..December
 #: [km-1], same sources.
 KUNKEL1989_VP_COEF_PER_KM = np.array(

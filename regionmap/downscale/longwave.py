@@ -96,7 +96,9 @@ def cloud_factor(lw_down_w_m2, e_pa, t_k, method: str = "prata1996") -> np.ndarr
         F = LW / (eps_clr sigma T^4) [1].
     """
     t = np.asarray(t_k)
-    return np.asarray(lw_down_w_m2) / (clear_sky_emissivity(e_pa, t, method) * STEFAN_BOLTZMANN * t**4)
+    return np.asarray(lw_down_w_m2) / (
+        clear_sky_emissivity(e_pa, t, method) * STEFAN_BOLTZMANN * t**4
+    )
 
 
 def longwave_at_cell(

@@ -100,8 +100,11 @@ def _split_area(d_lo, d_hi, dlnp):
     pos = np.where(
         (d_lo >= 0) & (d_hi >= 0),
         0.5 * (d_lo + d_hi),
-        np.where((d_lo <= 0) & (d_hi <= 0), 0.0,
-                 0.5 * np.maximum(d_lo, d_hi) ** 2 / np.maximum(np.abs(d_lo - d_hi), 1e-12)),
+        np.where(
+            (d_lo <= 0) & (d_hi <= 0),
+            0.0,
+            0.5 * np.maximum(d_lo, d_hi) ** 2 / np.maximum(np.abs(d_lo - d_hi), 1e-12),
+        ),
     )
     neg = pos - 0.5 * (d_lo + d_hi)
     return pos * dlnp, neg * dlnp

@@ -33,8 +33,17 @@ __all__ = ["CellBatch", "prepare_cells", "downscale_cells", "downscale_record"]
 
 _G0 = 9.80665
 _RD = 287.04749097718457
-_SERIES = ("t_air_k", "rh_frac", "pressure_pa", "wind_m_s", "sw_in_w_m2", "lw_in_w_m2",
-           "precip_kg_m2", "snow_frac", "freezing_rain_frac")
+_SERIES = (
+    "t_air_k",
+    "rh_frac",
+    "pressure_pa",
+    "wind_m_s",
+    "sw_in_w_m2",
+    "lw_in_w_m2",
+    "precip_kg_m2",
+    "snow_frac",
+    "freezing_rain_frac",
+)
 _BIAS_TARGET = {  # [bias] key -> (CellForcing field, scale of the offset to canonical units)
     "air_temperature": ("t_air_k", 1.0),
     "relative_humidity": ("rh_frac", 0.01),  # offsets in %
@@ -82,9 +91,21 @@ class CellBatch:
     weights: CellWeights
     exposure_class: np.ndarray | None = None
     _per_cell: tuple = field(
-        default=("cell_id", "elevation_m", "slope_deg", "aspect_deg", "sky_view_frac",
-                 "lon_deg", "lat_deg", "area_m2", "zone_code", "sx_deg", "sunlit_fraction",
-                 "sunlit_cos_incidence", "exposure_class"),
+        default=(
+            "cell_id",
+            "elevation_m",
+            "slope_deg",
+            "aspect_deg",
+            "sky_view_frac",
+            "lon_deg",
+            "lat_deg",
+            "area_m2",
+            "zone_code",
+            "sx_deg",
+            "sunlit_fraction",
+            "sunlit_cos_incidence",
+            "exposure_class",
+        ),
         repr=False,
     )
 
@@ -92,10 +113,12 @@ class CellBatch:
     def n_cells(self) -> int:
         return int(np.size(self.cell_id))
 
-    def subset(self, cells) -> "CellBatch":
+    def subset(self, cells) -> CellBatch:
         """Some cells of the batch (positions), weights included."""
-        kw = {name: getattr(self, name) for name in (
-            "sx_directions_deg", "sun_azimuth_deg", "sun_elevation_deg")}
+        kw = {
+            name: getattr(self, name)
+            for name in ("sx_directions_deg", "sun_azimuth_deg", "sun_elevation_deg")
+        }
         for name in self._per_cell:
             value = getattr(self, name)
             kw[name] = None if value is None else value[cells]
@@ -161,8 +184,11 @@ def _precip_matrices(wmat: sp.csr_matrix, dz_pair: np.ndarray, months: np.ndarra
         if settings.precip_elevation == "none":
             out[m] = wmat
             continue
-        chi = (settings.precip_chi_per_km if settings.precip_chi_per_km is not None
-               else _precip.THORNTON1997_CHI_PER_KM[m]) * settings.precip_chi_scale
+        chi = (
+            settings.precip_chi_per_km
+            if settings.precip_chi_per_km is not None
+            else _precip.THORNTON1997_CHI_PER_KM[m]
+        ) * settings.precip_chi_scale
         fac = _precip.precip_factor_thornton1997(dz_pair, chi, bounds=settings.precip_factor_bounds)
         out[m] = sp.csr_matrix((wmat.data * fac, wmat.indices, wmat.indptr), shape=wmat.shape)
     return out
@@ -174,16 +200,21 @@ READ_BUDGET_BYTES = 256 * 2**20
 
 def _read(gf, names, iy, ix, tslice) -> dict:
     raw = gf.read_block(names, iy, ix, tslice)
-    return {k: np.ascontiguousarray(np.moveaxis(np.asarray(v, dtype=np.float64), 0, -1))
-            for k, v in raw.items()}
+    return {
+        k: np.ascontiguousarray(np.moveaxis(np.asarray(v, dtype=np.float64), 0, -1))
+        for k, v in raw.items()
+    }
 
 
-def _downscale_block(grid_forcing, chunks, settings, data, z_pts, time, month_idx, cols, out, sx_all):
+def _downscale_block(
+    grid_forcing, chunks, settings, data, z_pts, time, month_idx, cols, out, sx_all
+):
     """Downscale every cell chunk over the hours ``cols`` (positions in ``time``) from the grid
     values ``data`` of those hours, into ``out`` (and the drift's Sx into ``sx_all``)."""
     for sel, chunk, carry in chunks:
-        res = _chunk_block(grid_forcing, chunk, settings, data, z_pts, time[cols], month_idx[cols],
-                           carry)
+        res = _chunk_block(
+            grid_forcing, chunk, settings, data, z_pts, time[cols], month_idx[cols], carry
+        )
         for name in out:
             out[name][sel, cols] = res[name]
         if sx_all is not None:
@@ -207,10 +238,16 @@ def _chunk_block(gf, batch: CellBatch, settings, data, z_pts, time, month_idx, c
     lapse_t, lapse_td = _cell_lapse(settings, month_idx, batch.lat_deg)
     if settings.lapse == "grid":
         lapse_t, _ = _lapse.grid_lapse_fit(
-            t_pts, z_pts, batch.weights.neighbours, lapse_t,
-            bounds_k_m=(settings.grid_lapse_bounds_k_per_km[0] / 1000.0,
-                        settings.grid_lapse_bounds_k_per_km[1] / 1000.0),
-            min_r2=settings.grid_lapse_min_r2, min_z_range_m=settings.grid_lapse_min_range_m,
+            t_pts,
+            z_pts,
+            batch.weights.neighbours,
+            lapse_t,
+            bounds_k_m=(
+                settings.grid_lapse_bounds_k_per_km[0] / 1000.0,
+                settings.grid_lapse_bounds_k_per_km[1] / 1000.0,
+            ),
+            min_r2=settings.grid_lapse_min_r2,
+            min_z_range_m=settings.grid_lapse_min_range_m,
         )
     t_c = _lapse.adjust_temperature_lapse(t_w, dz, lapse_t)
     td_pts = _lapse.dew_point_from_relative_humidity(t_pts, rh_pts)
@@ -231,18 +268,25 @@ def _chunk_block(gf, batch: CellBatch, settings, data, z_pts, time, month_idx, c
     # wind: scalar mean speed, speed-weighted vector-mean direction
     spd, wdir = data["wind_speed"], np.radians(data["wind_from_direction"])
     speed = w @ spd
-    wdir_c = np.mod(np.degrees(np.arctan2(w @ (spd * np.sin(wdir)), w @ (spd * np.cos(wdir)))), 360.0)
+    wdir_c = np.mod(
+        np.degrees(np.arctan2(w @ (spd * np.sin(wdir)), w @ (spd * np.cos(wdir)))), 360.0
+    )
     factor = np.ones_like(speed)
     sx_now = None
     if settings.wind in ("winstral", "both") or settings.drift:
         sx_now = _wind.sx_at_direction(batch.sx_deg, batch.sx_directions_deg, wdir_c)
     if settings.wind in ("winstral", "both"):
         factor = factor * _wind.wind_factor_winstral_sx(
-            sx_now, coef_per_deg=settings.wind_sx_coef_per_deg, bounds=settings.wind_factor_bounds)
+            sx_now, coef_per_deg=settings.wind_sx_coef_per_deg, bounds=settings.wind_factor_bounds
+        )
     if settings.wind in ("liston_sturm", "both"):
         factor = factor * _wind.wind_factor_liston_sturm1998(
-            batch.slope_deg[:, None], batch.aspect_deg[:, None], wdir_c,
-            slope_ref_deg=settings.liston_sturm_slope_ref_deg, bounds=settings.wind_factor_bounds)
+            batch.slope_deg[:, None],
+            batch.aspect_deg[:, None],
+            wdir_c,
+            slope_ref_deg=settings.liston_sturm_slope_ref_deg,
+            bounds=settings.wind_factor_bounds,
+        )
     wind_c = speed * np.clip(factor, *settings.wind_factor_bounds)
 
     # precipitation: elevation factor per (cell, point) pair, per month
@@ -261,10 +305,16 @@ def _chunk_block(gf, batch: CellBatch, settings, data, z_pts, time, month_idx, c
     elif settings.phase == "wet_bulb":
         tw = _thermo.wet_bulb_temperature_normand(t_c, rh_c, p_c)
         snow = _phase.snow_fraction_wet_bulb_threshold(
-            tw, threshold_k=273.15 + settings.phase_threshold_c, half_width_k=settings.phase_half_width_k)
+            tw,
+            threshold_k=273.15 + settings.phase_threshold_c,
+            half_width_k=settings.phase_half_width_k,
+        )
     else:
         snow = _phase.snow_fraction_air_temperature_threshold(
-            t_c, threshold_k=273.15 + settings.phase_threshold_c, half_width_k=settings.phase_half_width_k)
+            t_c,
+            threshold_k=273.15 + settings.phase_threshold_c,
+            half_width_k=settings.phase_half_width_k,
+        )
     if "freezing_rain_frac" in data:
         aloft = w @ np.clip(data["freezing_rain_frac"], 0.0, 1.0)
     elif "upper_air_temperature" in data:
@@ -272,7 +322,9 @@ def _chunk_block(gf, batch: CellBatch, settings, data, z_pts, time, month_idx, c
         # layer has no melting layer aloft, whatever the grid column below it shows
         ua = data["upper_air_temperature"]  # (level, point, time)
         ua_c = np.stack([w @ ua[k] for k in range(ua.shape[0])])  # (level, cell, time)
-        melt, cold = _phase.bourgouin2000_areas(t_c, p_c, ua_c, np.asarray(gf.upper_air_pressure_pa))
+        melt, cold = _phase.bourgouin2000_areas(
+            t_c, p_c, ua_c, np.asarray(gf.upper_air_pressure_pa)
+        )
         aloft = _phase.freezing_rain_fraction_bourgouin2000(melt, cold)
     else:
         aloft = np.zeros_like(t_c)
@@ -281,12 +333,23 @@ def _chunk_block(gf, batch: CellBatch, settings, data, z_pts, time, month_idx, c
     # shortwave with interval-mean geometry and the sunlit-fraction table
     terms = _solar.substep_sun_terms(time, 3600.0, settings.solar_substeps)
     cosz, beam = _solar.interval_sun_geometry(
-        terms, batch.lat_deg, batch.lon_deg, batch.sun_azimuth_deg, batch.sun_elevation_deg,
-        batch.sunlit_fraction, batch.sunlit_cos_incidence)
+        terms,
+        batch.lat_deg,
+        batch.lon_deg,
+        batch.sun_azimuth_deg,
+        batch.sun_elevation_deg,
+        batch.sunlit_fraction,
+        batch.sunlit_cos_incidence,
+    )
     ghi_c = w @ np.maximum(data["shortwave_down"], 0.0)
     sw_c, kt = _solar.slope_shortwave_interval_mean(
-        ghi_c, terms["extra_w_m2"][None, :], cosz, beam, batch.sky_view_frac[:, None],
-        settings.terrain_albedo_frac)
+        ghi_c,
+        terms["extra_w_m2"][None, :],
+        cosz,
+        beam,
+        batch.sky_view_frac[:, None],
+        settings.terrain_albedo_frac,
+    )
 
     # longwave
     eps_clr_c = _lw.clear_sky_emissivity(e_c, t_c, settings.longwave_clear_sky)
@@ -300,17 +363,28 @@ def _chunk_block(gf, batch: CellBatch, settings, data, z_pts, time, month_idx, c
         initial = carry.get("cloud")
         if initial is None:
             first = np.argmax(day, axis=1)
-            initial = np.where(day.any(axis=1), cloud_now[np.arange(day.shape[0]), first],
-                               settings.cloud_frac_without_daylight)
+            initial = np.where(
+                day.any(axis=1),
+                cloud_now[np.arange(day.shape[0]), first],
+                settings.cloud_frac_without_daylight,
+            )
         cloud = _lw.fill_night_forward(cloud_now, day, initial)
         carry["cloud"] = cloud[:, -1].copy()
         eps_c = _lw.emissivity_all_sky_crawford_duchon1999(cloud, eps_clr_c)
-    lw_c = _lw.longwave_at_cell(eps_c, t_c, batch.sky_view_frac[:, None],
-                                terrain_emissivity=settings.terrain_emissivity)
+    lw_c = _lw.longwave_at_cell(
+        eps_c, t_c, batch.sky_view_frac[:, None], terrain_emissivity=settings.terrain_emissivity
+    )
     return {
-        "t_air_k": t_c, "rh_frac": rh_c, "pressure_pa": p_c, "wind_m_s": wind_c,
-        "sw_in_w_m2": sw_c, "lw_in_w_m2": lw_c, "precip_kg_m2": p_cell, "snow_frac": snow,
-        "freezing_rain_frac": fzra, "_sx_now": sx_now,
+        "t_air_k": t_c,
+        "rh_frac": rh_c,
+        "pressure_pa": p_c,
+        "wind_m_s": wind_c,
+        "sw_in_w_m2": sw_c,
+        "lw_in_w_m2": lw_c,
+        "precip_kg_m2": p_cell,
+        "snow_frac": snow,
+        "freezing_rain_frac": fzra,
+        "_sx_now": sx_now,
     }
 
 
@@ -324,15 +398,20 @@ def _entry_for(entries: list[dict], exposure: str) -> dict | None:
     return (own or general or [None])[0]
 
 
-def _apply_bias(out: dict, month_idx: np.ndarray, settings: DownscaleSettings, exposure_class=None,
-                *, only=None) -> None:
+def _apply_bias(
+    out: dict, month_idx: np.ndarray, settings: DownscaleSettings, exposure_class=None, *, only=None
+) -> None:
     """Offsets/factors, then quantile mapping, per exposure class of the cells, for the
     variables in ``only`` (default: every variable except those corrected before phase)."""
     from .quantile_mapping import select_qm_table
 
     keys = only if only is not None else tuple(k for k in _BIAS_TARGET if k not in _BEFORE_PHASE)
     n_cell = next(iter(out.values())).shape[0]
-    classes = np.full(n_cell, "neutral", dtype=object) if exposure_class is None else np.asarray(exposure_class, dtype=object)
+    classes = (
+        np.full(n_cell, "neutral", dtype=object)
+        if exposure_class is None
+        else np.asarray(exposure_class, dtype=object)
+    )
     for key in settings.bias:
         if key not in _BIAS_TARGET:
             raise InputError(
@@ -349,7 +428,9 @@ def _apply_bias(out: dict, month_idx: np.ndarray, settings: DownscaleSettings, e
         if name not in out:
             continue
         entries = settings.bias.get(key)
-        entries = [] if entries is None else ([entries] if isinstance(entries, dict) else list(entries))
+        entries = (
+            [] if entries is None else ([entries] if isinstance(entries, dict) else list(entries))
+        )
         for cls in np.unique(classes):
             rows = classes == cls
             corr = _entry_for(entries, cls)
@@ -357,8 +438,9 @@ def _apply_bias(out: dict, month_idx: np.ndarray, settings: DownscaleSettings, e
                 offset = corr.get("offset")
                 if offset is not None:
                     offset = np.asarray(offset, dtype=np.float64) * scale
-                out[name][rows] = _bias.apply_offset_factor(out[name][rows], month_idx, offset=offset,
-                                                            factor=corr.get("factor"))
+                out[name][rows] = _bias.apply_offset_factor(
+                    out[name][rows], month_idx, offset=offset, factor=corr.get("factor")
+                )
             table = select_qm_table(settings.quantile_tables, key, cls)
             if table is not None:
                 out[name][rows] = _bias.apply_quantile_table(out[name][rows], month_idx, table)
@@ -370,7 +452,10 @@ def _apply_bias(out: dict, month_idx: np.ndarray, settings: DownscaleSettings, e
 
 
 def downscale_cells(
-    grid_forcing, cells_subset: CellBatch, settings: DownscaleSettings, time_slice: slice = slice(None)
+    grid_forcing,
+    cells_subset: CellBatch,
+    settings: DownscaleSettings,
+    time_slice: slice = slice(None),
 ) -> CellForcing:
     """Hourly per-cell forcing for a batch of cells over a slice of the forcing's hours.
 
@@ -405,8 +490,15 @@ def downscale_cells(
     out = {name: np.empty((n_cell, n_t)) for name in _SERIES}
     sx_all = np.empty((n_cell, n_t)) if settings.drift else None
 
-    names = ["air_temperature", "relative_humidity", "surface_air_pressure", "wind_speed",
-             "wind_from_direction", "shortwave_down", "precipitation"]
+    names = [
+        "air_temperature",
+        "relative_humidity",
+        "surface_air_pressure",
+        "wind_speed",
+        "wind_from_direction",
+        "shortwave_down",
+        "precipitation",
+    ]
     for opt in ("longwave_down", "freezing_rain_frac", "upper_air_temperature"):
         if getattr(grid_forcing, opt, None) is not None:
             names.append(opt)
@@ -426,29 +518,49 @@ def downscale_cells(
         wm = chunk.weights.matrix
         local = CellWeights(
             sp.csr_matrix((wm.data, remap[wm.indices], wm.indptr), shape=(sel.size, points.size)),
-            (ny, nx), remap[chunk.weights.neighbours], chunk.weights.method)
+            (ny, nx),
+            remap[chunk.weights.neighbours],
+            chunk.weights.method,
+        )
         chunk.weights = local
         chunks.append((sel, chunk, {}))
 
     # the grid points are read in long spans (one file access per variable and span, bounded
     # by READ_BUDGET_BYTES) and the cells computed in blocks of time_block_h hours of a span
     per_hour = max(points.size * (len(names) + _n_levels(grid_forcing)) * 8, 1)
-    span_h = max(settings.time_block_h, READ_BUDGET_BYTES // per_hour // settings.time_block_h
-                 * settings.time_block_h)
+    span_h = max(
+        settings.time_block_h,
+        READ_BUDGET_BYTES // per_hour // settings.time_block_h * settings.time_block_h,
+    )
     for r0 in range(start, stop, span_h):
         r1 = min(r0 + span_h, stop)
         span = _read(grid_forcing, names, iy, ix, slice(r0, r1))
         for t0 in range(r0, r1, settings.time_block_h):
             t1 = min(t0 + settings.time_block_h, r1)
-            data = {k: np.ascontiguousarray(v[..., t0 - r0:t1 - r0]) for k, v in span.items()}
-            _downscale_block(grid_forcing, chunks, settings, data, z_pts, time, month_idx,
-                             slice(t0 - start, t1 - start), out, sx_all)
+            data = {k: np.ascontiguousarray(v[..., t0 - r0 : t1 - r0]) for k, v in span.items()}
+            _downscale_block(
+                grid_forcing,
+                chunks,
+                settings,
+                data,
+                z_pts,
+                time,
+                month_idx,
+                slice(t0 - start, t1 - start),
+                out,
+                sx_all,
+            )
 
     if settings.drift:
         zone = np.unique(cells_subset.zone_code, return_inverse=True)[1]
         out["precip_kg_m2"] = out["precip_kg_m2"] * _precip.drift_factor_exposure(
-            sx_all, out["precip_kg_m2"], zone, cells_subset.area_m2,
-            coef_per_deg=settings.drift_coef_per_deg, bounds=settings.drift_bounds)
+            sx_all,
+            out["precip_kg_m2"],
+            zone,
+            cells_subset.area_m2,
+            coef_per_deg=settings.drift_coef_per_deg,
+            bounds=settings.drift_bounds,
+        )
     _apply_bias(out, month_idx, settings, cells_subset.exposure_class)
     heights = grid_forcing.heights_m
     if not {"wind", "temperature"} <= set(heights):
@@ -533,10 +645,17 @@ def prepare_cells(
             "directions of its columns) [deg]."
         )
     weights = build_cell_weights(
-        grid_forcing.grid_index_of, grid_forcing.extent_lonlat,
-        np.shape(grid_forcing.surface_altitude), pixel_cell, pixel_lon_deg, pixel_lat_deg, n,
-        table["lon"].to_numpy(float), table["lat"].to_numpy(float),
-        method=settings.interpolation, lapse_radius=settings.grid_lapse_radius,
+        grid_forcing.grid_index_of,
+        grid_forcing.extent_lonlat,
+        np.shape(grid_forcing.surface_altitude),
+        pixel_cell,
+        pixel_lon_deg,
+        pixel_lat_deg,
+        n,
+        table["lon"].to_numpy(float),
+        table["lat"].to_numpy(float),
+        method=settings.interpolation,
+        lapse_radius=settings.grid_lapse_radius,
         where=str(getattr(grid_forcing, "paths", ["forcing grid"])[0]),
     )
     sun = cellset.sunlit

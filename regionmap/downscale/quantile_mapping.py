@@ -215,7 +215,9 @@ def fit_quantile_mapping(
             f"got {kind!r}."
         )
     if int(n_quantiles) < 2:
-        raise InputError(f"Quantile mapping for {variable}: n_quantiles must be ≥ 2, got {n_quantiles}.")
+        raise InputError(
+            f"Quantile mapping for {variable}: n_quantiles must be ≥ 2, got {n_quantiles}."
+        )
     m = np.asarray(model, dtype=np.float64).ravel()
     o = np.asarray(obs, dtype=np.float64).ravel()
     month = _check_month_index(np.asarray(month_index).ravel(), f"Quantile mapping for {variable}")
@@ -346,12 +348,27 @@ def _to_dataset(tables: Sequence[QuantileMappingTable]) -> xr.Dataset:
             "variable": ("table", np.array([t.variable for t in tables], dtype=object)),
             "kind": ("table", np.array([t.kind for t in tables], dtype=object)),
             "exposure_class": ("table", np.array([t.exposure_class for t in tables], dtype=object)),
-            "model_quantile": (("table", "month", "quantile"), np.stack([t.model_quantiles for t in tables])),
-            "obs_quantile": (("table", "month", "quantile"), np.stack([t.obs_quantiles for t in tables])),
-            "model_wet_threshold": (("table", "month"), np.stack([t.model_wet_threshold for t in tables])),
+            "model_quantile": (
+                ("table", "month", "quantile"),
+                np.stack([t.model_quantiles for t in tables]),
+            ),
+            "obs_quantile": (
+                ("table", "month", "quantile"),
+                np.stack([t.obs_quantiles for t in tables]),
+            ),
+            "model_wet_threshold": (
+                ("table", "month"),
+                np.stack([t.model_wet_threshold for t in tables]),
+            ),
             "obs_wet_threshold": ("table", np.array([t.obs_wet_threshold for t in tables])),
-            "wet_deficit_frac": (("table", "month"), np.stack([t.wet_deficit_frac for t in tables])),
-            "n_samples": (("table", "month"), np.stack([t.n_samples for t in tables]).astype(np.int64)),
+            "wet_deficit_frac": (
+                ("table", "month"),
+                np.stack([t.wet_deficit_frac for t in tables]),
+            ),
+            "n_samples": (
+                ("table", "month"),
+                np.stack([t.n_samples for t in tables]).astype(np.int64),
+            ),
             "pooled": (("table", "month"), np.stack([t.pooled for t in tables]).astype(np.int8)),
         },
         coords={"month": np.arange(1, 13, dtype=np.int32), "probability": ("quantile", p)},
@@ -363,11 +380,15 @@ def _to_dataset(tables: Sequence[QuantileMappingTable]) -> xr.Dataset:
             "comment": "month 1 = January; quantiles in the canonical unit of each variable",
         },
     )
-    ds["pooled"].attrs.update(flag_values=np.array([0, 1], dtype=np.int8), flag_meanings="own_fit pooled_fit")
+    ds["pooled"].attrs.update(
+        flag_values=np.array([0, 1], dtype=np.int8), flag_meanings="own_fit pooled_fit"
+    )
     return ds
 
 
-def write_qm_table(path: str | Path, tables: QuantileMappingTable | Sequence[QuantileMappingTable]) -> Path:
+def write_qm_table(
+    path: str | Path, tables: QuantileMappingTable | Sequence[QuantileMappingTable]
+) -> Path:
     """Write quantile-mapping tables to NetCDF atomically (temporary file, then ``os.replace``).
 
     Parameters
@@ -423,30 +444,48 @@ def read_qm_table(path: str | Path) -> list[QuantileMappingTable]:
     """
     path = Path(path)
     if not path.is_file():
-        raise InputError(f"Quantile-mapping file {path} does not exist; check [bias] quantile_mapping.")
+        raise InputError(
+            f"Quantile-mapping file {path} does not exist; check [bias] quantile_mapping."
+        )
     try:
         with xr.open_dataset(path, engine="netcdf4") as handle:
             ds = handle.load()
     except (OSError, ValueError) as exc:
-        raise InputError(f"Quantile-mapping file {path} cannot be read as NetCDF ({exc}).") from None
+        raise InputError(
+            f"Quantile-mapping file {path} cannot be read as NetCDF ({exc})."
+        ) from None
     if ds.attrs.get("regionmap_format") != FORMAT_NAME:
         raise InputError(
             f"Quantile-mapping file {path}: global attribute regionmap_format is "
             f"{ds.attrs.get('regionmap_format')!r}, expected {FORMAT_NAME!r}; write it with "
             "`regionmap calibrate`."
         )
-    needed = ["variable", "kind", "exposure_class", "model_quantile", "obs_quantile",
-              "model_wet_threshold", "obs_wet_threshold", "wet_deficit_frac", "n_samples", "pooled"]
+    needed = [
+        "variable",
+        "kind",
+        "exposure_class",
+        "model_quantile",
+        "obs_quantile",
+        "model_wet_threshold",
+        "obs_wet_threshold",
+        "wet_deficit_frac",
+        "n_samples",
+        "pooled",
+    ]
     missing = [v for v in needed if v not in ds.variables]
     if missing or "probability" not in ds.coords:
-        raise InputError(f"Quantile-mapping file {path}: missing variable(s) {missing or ['probability']}.")
+        raise InputError(
+            f"Quantile-mapping file {path}: missing variable(s) {missing or ['probability']}."
+        )
     p = ds["probability"].to_numpy().astype(np.float64)
     if p.size < 2 or p[0] != 0.0 or p[-1] != 1.0 or np.any(np.diff(p) <= 0):
         raise InputError(
             f"Quantile-mapping file {path}: probability must increase strictly from 0 to 1, got {p}."
         )
     if ds.sizes.get("month") != 12:
-        raise InputError(f"Quantile-mapping file {path}: expected 12 months, got {ds.sizes.get('month')}.")
+        raise InputError(
+            f"Quantile-mapping file {path}: expected 12 months, got {ds.sizes.get('month')}."
+        )
     tables = []
     for i in range(ds.sizes["table"]):
         name = str(ds["variable"].values[i])
@@ -461,10 +500,16 @@ def read_qm_table(path: str | Path) -> list[QuantileMappingTable]:
                 raise InputError(f"{where}: {label} has non-finite values.")
             if np.any(np.diff(q, axis=1) < 0):
                 month = int(np.flatnonzero(np.any(np.diff(q, axis=1) < 0, axis=1))[0]) + 1
-                raise InputError(f"{where}: {label} decreases within month {month}; quantiles must be non-decreasing.")
+                raise InputError(
+                    f"{where}: {label} decreases within month {month}; quantiles must be non-decreasing."
+                )
         thresholds = ds["model_wet_threshold"].values[i].astype(np.float64)
-        if kind == "multiplicative" and (not np.all(np.isfinite(thresholds)) or np.any(qm < 0) or np.any(qo < 0)):
-            raise InputError(f"{where}: a multiplicative table needs finite wet thresholds and non-negative quantiles.")
+        if kind == "multiplicative" and (
+            not np.all(np.isfinite(thresholds)) or np.any(qm < 0) or np.any(qo < 0)
+        ):
+            raise InputError(
+                f"{where}: a multiplicative table needs finite wet thresholds and non-negative quantiles."
+            )
         tables.append(
             QuantileMappingTable(
                 variable=name,

@@ -110,18 +110,24 @@ class DownscaleSettings:
                     f"[downscale] {key}: expected one of {', '.join(map(repr, allowed))}, "
                     f"got {value!r}"
                 )
-        for key in ("precip_factor_bounds", "drift_bounds", "wind_factor_bounds",
-                    "grid_lapse_bounds_k_per_km"):
+        for key in (
+            "precip_factor_bounds",
+            "drift_bounds",
+            "wind_factor_bounds",
+            "grid_lapse_bounds_k_per_km",
+        ):
             lo, hi = getattr(self, key)
             if not lo < hi:
-                raise ConfigError(f"[downscale] {key}: expected (low, high) with low < high, got {(lo, hi)}")
+                raise ConfigError(
+                    f"[downscale] {key}: expected (low, high) with low < high, got {(lo, hi)}"
+                )
         if self.solar_substeps < 1 or self.chunk_cells < 1 or self.time_block_h < 1:
             raise ConfigError(
                 "[downscale] solar_substeps, chunk_cells and time_block_h must be >= 1, got "
                 f"{self.solar_substeps}, {self.chunk_cells}, {self.time_block_h}"
             )
         for key, entries in self.bias.items():
-            for corr in ([entries] if isinstance(entries, dict) else entries):
+            for corr in [entries] if isinstance(entries, dict) else entries:
                 self._check_bias_entry(key, corr)
 
     @staticmethod

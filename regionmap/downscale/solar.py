@@ -408,8 +408,17 @@ def _clamped_index(grid, value):
 
 @njit(cache=True, nogil=True, error_model="numpy")
 def _interval_geometry_kernel(
-    sin_decl, cos_decl, sin_ha0, cos_ha0, lat_rad, lon_rad, az_grid_deg, el_grid_deg,
-    beam_table, out_cosz, out_beam,
+    sin_decl,
+    cos_decl,
+    sin_ha0,
+    cos_ha0,
+    lat_rad,
+    lon_rad,
+    az_grid_deg,
+    el_grid_deg,
+    beam_table,
+    out_cosz,
+    out_beam,
 ):
     n_cell = lat_rad.size
     n_t, n_sub = sin_decl.shape
@@ -492,13 +501,17 @@ def interval_sun_geometry(
     out_cosz = np.empty((n_cell, n_t))
     out_beam = np.empty((n_cell, n_t))
     _interval_geometry_kernel(
-        np.ascontiguousarray(terms["sin_decl"]), np.ascontiguousarray(terms["cos_decl"]),
-        np.ascontiguousarray(terms["sin_ha0"]), np.ascontiguousarray(terms["cos_ha0"]),
+        np.ascontiguousarray(terms["sin_decl"]),
+        np.ascontiguousarray(terms["cos_decl"]),
+        np.ascontiguousarray(terms["sin_ha0"]),
+        np.ascontiguousarray(terms["cos_ha0"]),
         np.radians(np.asarray(latitude_deg, dtype=np.float64)),
         np.radians(np.asarray(longitude_deg, dtype=np.float64)),
         np.asarray(azimuth_grid_deg, dtype=np.float64),
         np.asarray(elevation_grid_deg, dtype=np.float64),
-        beam, out_cosz, out_beam,
+        beam,
+        out_cosz,
+        out_beam,
     )
     return out_cosz, out_beam
 

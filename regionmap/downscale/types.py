@@ -77,7 +77,7 @@ class CellForcing:
     def n_steps(self) -> int:
         return self.t_air_k.shape[1]
 
-    def subset(self, cells=slice(None), steps=slice(None)) -> "CellForcing":
+    def subset(self, cells=slice(None), steps=slice(None)) -> CellForcing:
         """A view on some cells and/or steps (arrays copied to stay C-contiguous)."""
         kw = {f.name: getattr(self, f.name) for f in fields(self)}
         kw["time"] = self.time[steps]

@@ -33,7 +33,7 @@ class CellWeights:
     neighbours: np.ndarray
     method: str
 
-    def rows(self, cells) -> "CellWeights":
+    def rows(self, cells) -> CellWeights:
         """The weights of some cells (positions within this set)."""
         return CellWeights(self.matrix[cells], self.grid_shape, self.neighbours[cells], self.method)
 
@@ -50,12 +50,12 @@ def _corner_weights(fi: np.ndarray, fj: np.ndarray, ny: int, nx: int, method: st
     elif method == "idw":
         d2 = (ii - fi[:, None]) ** 2 + (jj - fj[:, None]) ** 2
         on_point = d2 < 1e-18
-        inv = np.where(on_point.any(axis=1, keepdims=True), on_point.astype(float), 1.0 / np.maximum(d2, 1e-18))
+        inv = np.where(
+            on_point.any(axis=1, keepdims=True), on_point.astype(float), 1.0 / np.maximum(d2, 1e-18)
+        )
         w = inv / inv.sum(axis=1, keepdims=True)
     else:
-        raise InputError(
-            f"[downscale] interpolation: expected 'bilinear' or 'idw', got {method!r}"
-        )
+        raise InputError(f"[downscale] interpolation: expected 'bilinear' or 'idw', got {method!r}")
     return np.minimum(ii, ny - 1), np.minimum(jj, nx - 1), w
 
 
@@ -81,7 +81,9 @@ def neighbour_block(fi: np.ndarray, fj: np.ndarray, ny: int, nx: int, radius: in
     cj = np.clip(np.rint(fj).astype(np.int64), r, nx - 1 - r)
     off = np.arange(-r, r + 1)
     oi, oj = np.meshgrid(off, off, indexing="ij")
-    return ((ci[:, None] + oi.ravel()[None, :]) * nx + (cj[:, None] + oj.ravel()[None, :])).astype(np.int64)
+    return ((ci[:, None] + oi.ravel()[None, :]) * nx + (cj[:, None] + oj.ravel()[None, :])).astype(
+        np.int64
+    )
 
 
 def build_cell_weights(
@@ -142,7 +144,9 @@ def build_cell_weights(
     pixel_cell = np.asarray(pixel_cell, dtype=np.int64)
     fi, fj = index_of(np.asarray(pixel_lon_deg), np.asarray(pixel_lat_deg))
     fi, fj = np.asarray(fi, dtype=np.float64), np.asarray(fj, dtype=np.float64)
-    outside = ~np.isfinite(fi) | ~np.isfinite(fj) | (fi < 0) | (fj < 0) | (fi > ny - 1) | (fj > nx - 1)
+    outside = (
+        ~np.isfinite(fi) | ~np.isfinite(fj) | (fi < 0) | (fj < 0) | (fi > ny - 1) | (fj > nx - 1)
+    )
     if outside.any():
         gx0, gx1, gy0, gy1 = extent_lonlat()
         lon = np.asarray(pixel_lon_deg)

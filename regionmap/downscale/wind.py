@@ -13,7 +13,9 @@ __all__ = [
 ]
 
 
-def sx_at_direction(sx_deg: np.ndarray, directions_deg: np.ndarray, wind_from_deg: np.ndarray) -> np.ndarray:
+def sx_at_direction(
+    sx_deg: np.ndarray, directions_deg: np.ndarray, wind_from_deg: np.ndarray
+) -> np.ndarray:
     """Sx of each cell at the current wind direction, linear between tabulated directions.
 
     Parameters
@@ -116,7 +118,9 @@ def wind_factor_liston_sturm1998(
         J. Glaciol. 44(148), 498-516, Eqs. 15-16. doi:10.3189/S0022143000002021
     """
     beta = np.minimum(np.asarray(slope_deg, dtype=np.float64) / slope_ref_deg, 1.0)
-    rel = np.radians(np.asarray(wind_from_deg) - np.nan_to_num(np.asarray(aspect_deg, dtype=np.float64)))
+    rel = np.radians(
+        np.asarray(wind_from_deg) - np.nan_to_num(np.asarray(aspect_deg, dtype=np.float64))
+    )
     omega_s = 0.5 * beta * np.cos(rel)
     return np.clip(1.0 + gamma_s * omega_s, bounds[0], bounds[1])
 

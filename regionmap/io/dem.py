@@ -151,7 +151,7 @@ def utm_crs_for(lon_deg: float, lat_deg: float):
     """The WGS 84 / UTM zone CRS (EPSG 326zz north, 327zz south) containing a point."""
     from rasterio.crs import CRS
 
-    zone = int(math.floor((((lon_deg + 180.0) % 360.0)) / 6.0)) + 1
+    zone = int(math.floor(((lon_deg + 180.0) % 360.0) / 6.0)) + 1
     zone = min(max(zone, 1), 60)
     return CRS.from_epsg((32600 if lat_deg >= 0 else 32700) + zone)
 
@@ -193,7 +193,9 @@ def _reproject_to_utm(dem: Dem) -> Dem:
     return Dem(out, transform, dst_crs, path=dem.path, nodata=dem.nodata)
 
 
-def reproject_to_grid(values: np.ndarray, src: Dem, dst: Dem, *, nearest: bool = False) -> np.ndarray:
+def reproject_to_grid(
+    values: np.ndarray, src: Dem, dst: Dem, *, nearest: bool = False
+) -> np.ndarray:
     """Bring a (y, x) or (band, y, x) float array from ``src``'s grid to ``dst``'s grid.
 
     Bilinear (NaN-aware) unless ``nearest``; NaN where ``dst`` has no data.
@@ -242,7 +244,9 @@ def read_dem(path: str | os.PathLike) -> Dem:
 
     p = Path(path)
     if not p.exists():
-        raise InputError(f"DEM {p}: file not found; check the [region] dem path (relative to the config file)")
+        raise InputError(
+            f"DEM {p}: file not found; check the [region] dem path (relative to the config file)"
+        )
     try:
         with rasterio.open(p) as src:
             crs = src.crs

@@ -30,13 +30,11 @@ import glob as _glob
 import os
 import re
 from dataclasses import dataclass, field
-from pathlib import Path
 
+import cf_xarray  # noqa: F401  (registers the .cf accessor)
 import dask
 import dask.array as da
-
 import numpy as np
-import cf_xarray  # noqa: F401  (registers the .cf accessor)
 import xarray as xr
 from scipy import sparse
 
@@ -127,9 +125,15 @@ _OUTPUTS = {  # canonical output -> roles it needs
     "upper_air_temperature": ("upper_air",),
 }
 _OUT_UNITS = {
-    "air_temperature": "K", "relative_humidity": "1", "surface_air_pressure": "Pa",
-    "wind_speed": "m s-1", "wind_from_direction": "degree", "shortwave_down": "W m-2",
-    "longwave_down": "W m-2", "precipitation": "kg m-2", "freezing_rain_frac": "1",
+    "air_temperature": "K",
+    "relative_humidity": "1",
+    "surface_air_pressure": "Pa",
+    "wind_speed": "m s-1",
+    "wind_from_direction": "degree",
+    "shortwave_down": "W m-2",
+    "longwave_down": "W m-2",
+    "precipitation": "kg m-2",
+    "freezing_rain_frac": "1",
     "upper_air_temperature": "K",
 }
 _MAPPING_KEYS = {"name", "units", "accumulated"}
@@ -260,7 +264,9 @@ class GridForcing:
         self.reads += 1
         self.points_read += iy.size * len(names)
         alt = self.surface_altitude[iy, ix]
-        out, _ = _compute(self._sources, list(names), rows, alt, lambda s, cols: _read_points(s, cols, iy, ix))
+        out, _ = _compute(
+            self._sources, list(names), rows, alt, lambda s, cols: _read_points(s, cols, iy, ix)
+        )
         cut = slice(start - lo, stop - lo)
         return {k: v[cut] for k, v in out.items()}
 
@@ -268,8 +274,16 @@ class GridForcing:
 # ----------------------------------------------------------------------------- opening
 
 
-def open_forcing(path_or_glob, *, variables=None, heights_m=None, start=None, end=None,
-                 static_path=None, base_dir=None) -> GridForcing:
+def open_forcing(
+    path_or_glob,
+    *,
+    variables=None,
+    heights_m=None,
+    start=None,
+    end=None,
+    static_path=None,
+    base_dir=None,
+) -> GridForcing:
     """Open CF NetCDF/Zarr forcing (one file or a glob) as canonical hourly arrays.
 
     Parameters
@@ -296,8 +310,15 @@ def open_forcing(path_or_glob, *, variables=None, heights_m=None, start=None, en
     """
     if hasattr(path_or_glob, "path") and not isinstance(path_or_glob, (str, os.PathLike)):
         s = path_or_glob
-        return open_forcing(s.path, variables=s.variables, heights_m=s.heights_m, start=s.start,
-                            end=s.end, static_path=getattr(s, "static", None), base_dir=base_dir)
+        return open_forcing(
+            s.path,
+            variables=s.variables,
+            heights_m=s.heights_m,
+            start=s.start,
+            end=s.end,
+            static_path=getattr(s, "static", None),
+            base_dir=base_dir,
+        )
     paths = _expand(path_or_glob, base_dir)
     mapping = _normalise_mapping(variables)
     datasets = [_open_one(p) for p in paths]
@@ -319,8 +340,10 @@ def open_forcing(path_or_glob, *, variables=None, heights_m=None, start=None, en
 
     sources = {}
     for role, members in chosen.items():
-        sources[role] = [_make_source(sn, das, paths, times, tdims, (ydim, xdim), shape, mapping)
-                         for sn, das in members]
+        sources[role] = [
+            _make_source(sn, das, paths, times, tdims, (ydim, xdim), shape, mapping)
+            for sn, das in members
+        ]
     alt = _surface_altitude(static_path, base_dir, datasets, paths, shape, mapping)
 
     wide = _wide_axis(times)
@@ -364,6 +387,7 @@ def _expand(path_or_glob, base_dir) -> list[str]:
 
 def _open_one(path: str) -> xr.Dataset:
     """Open lazily with one dask chunk along time (the time operators need the whole axis)."""
+
     def open_(chunks):
         if path.rstrip("/").endswith(".zarr") or os.path.isdir(path):
             consolidated = os.path.exists(os.path.join(path, ".zmetadata"))
@@ -373,8 +397,11 @@ def _open_one(path: str) -> xr.Dataset:
 
     try:
         probe = open_(None)
-        tdims = [c.dims[0] for c in probe.coords.values()
-                 if c.ndim == 1 and np.issubdtype(c.dtype, np.datetime64)]
+        tdims = [
+            c.dims[0]
+            for c in probe.coords.values()
+            if c.ndim == 1 and np.issubdtype(c.dtype, np.datetime64)
+        ]
         probe.close()
         return open_({tdims[0]: -1} if tdims else {})
     except Exception as exc:
@@ -399,11 +426,12 @@ def _normalise_mapping(variables) -> dict:
 
 
 def _time_dim(ds: xr.Dataset, path: str) -> str:
-    for name, coord in ds.coords.items():
+    for coord in ds.coords.values():
         if coord.ndim == 1 and np.issubdtype(coord.dtype, np.datetime64):
             return coord.dims[0]
-    raise ForcingReadError(f"forcing file {path!r}: no decodable time coordinate (CF units "
-                           f"'hours since ...' expected)")
+    raise ForcingReadError(
+        f"forcing file {path!r}: no decodable time coordinate (CF units 'hours since ...' expected)"
+    )
 
 
 def _file_times(ds, tdim, path):
@@ -416,7 +444,8 @@ def _file_times(ds, tdim, path):
         raise ForcingReadError(
             f"forcing file {path!r}, variable {tdim!r}: times are {what} at "
             f"{np.datetime64(int(t[k + 1]), 's')} (after {np.datetime64(int(t[k]), 's')}); "
-            f"expected strictly increasing labels; hint: sort the file or drop duplicates")
+            f"expected strictly increasing labels; hint: sort the file or drop duplicates"
+        )
     bname = ds[tdim].attrs.get("bounds") or ds[tdim].encoding.get("bounds")
     bounds = None
     if bname and bname in ds:
@@ -424,7 +453,8 @@ def _file_times(ds, tdim, path):
         if bounds.shape != (t.size, 2) or np.any(bounds[:, 1] != t) or np.any(bounds[:, 0] >= t):
             raise ForcingReadError(
                 f"forcing file {path!r}, variable {bname!r}: time bounds must be (time, 2) with "
-                f"the label as the interval end (DESIGN §3); hint: relabel to interval ends")
+                f"the label as the interval end (DESIGN §3); hint: relabel to interval ends"
+            )
     return {"t": t, "bounds": bounds, "path": path}
 
 
@@ -444,8 +474,12 @@ def _vertical_dims(var):
 def _height_of(var):
     """The variable's own scalar height coordinate [m] (CF: named in its ``coordinates``)."""
     own = str(var.encoding.get("coordinates") or var.attrs.get("coordinates") or "").split()
-    found = [c for c in var.coords.values() if c.ndim == 0 and (
-        c.attrs.get("standard_name") == "height" or str(c.name).startswith("height"))]
+    found = [
+        c
+        for c in var.coords.values()
+        if c.ndim == 0
+        and (c.attrs.get("standard_name") == "height" or str(c.name).startswith("height"))
+    ]
     mine = [c for c in found if c.name in own] or (found if len(found) == 1 else [])
     return float(mine[0].values) if mine else None
 
@@ -456,14 +490,19 @@ def _pick(sn, cands, path, want_height, upper):
     if len(cands) <= 1:
         return cands[0] if cands else None
     if want_height is not None:
-        hit = [c for c in cands if _height_of(c) is not None and abs(_height_of(c) - want_height) < 1e-6]
+        hit = [
+            c
+            for c in cands
+            if _height_of(c) is not None and abs(_height_of(c) - want_height) < 1e-6
+        ]
         if len(hit) == 1:
             return hit[0]
     listing = ", ".join(f"{c.name} (height {_height_of(c)})" for c in cands)
     raise ForcingReadError(
         f"forcing file {path!r}: several variables have standard_name {sn!r}: {listing}; "
         f"expected one, or a scalar 'height' coordinate matching [forcing] heights_m; hint: "
-        f"set heights_m or map the variable by name in [forcing] variables")
+        f"set heights_m or map the variable by name in [forcing] variables"
+    )
 
 
 def _resolve_role(role, alternatives, datasets, paths, mapping, heights_m):
@@ -478,19 +517,25 @@ def _resolve_role(role, alternatives, datasets, paths, mapping, heights_m):
                     if name not in ds:
                         raise ForcingReadError(
                             f"forcing file {p!r}: variable {name!r} named in [forcing] "
-                            f"variables.{sn} is missing; found {sorted(ds.data_vars)}")
+                            f"variables.{sn} is missing; found {sorted(ds.data_vars)}"
+                        )
                     das.append(_squeezed(ds[name]))
                     continue
                 if sn in ("freezing_rain_frac", "upper_air_temperature"):
-                    das.append(_pick("air_temperature", _candidates(ds, "air_temperature"), p, None, True)
-                               if sn == "upper_air_temperature" else None)
+                    das.append(
+                        _pick("air_temperature", _candidates(ds, "air_temperature"), p, None, True)
+                        if sn == "upper_air_temperature"
+                        else None
+                    )
                     continue
                 das.append(_pick(sn, _candidates(ds, sn), p, want, False))
             if any(d is None for d in das):
                 if not all(d is None for d in das):
                     k = [d is None for d in das].index(True)
-                    raise ForcingReadError(f"forcing file {paths[k]!r}: variable with standard_name "
-                                           f"{sn!r} is missing but present in {paths[0]!r}")
+                    raise ForcingReadError(
+                        f"forcing file {paths[k]!r}: variable with standard_name "
+                        f"{sn!r} is missing but present in {paths[0]!r}"
+                    )
                 break
             per_sn.append((sn, das))
         else:
@@ -503,7 +548,8 @@ def _missing(role, alternatives, ds, path):
     raise ForcingReadError(
         f"forcing file {path!r}: no variable for {role}: expected standard_name {alts}; found "
         f"standard names {sorted(ds.cf.standard_names)} and variables {sorted(ds.data_vars)}; "
-        f"hint: map the file's names in [forcing] variables")
+        f"hint: map the file's names in [forcing] variables"
+    )
 
 
 def _hget(obj, key):
@@ -518,14 +564,19 @@ def _heights(chosen, heights_m):
         h_file = _height_of(chosen[role][0][1][0])
         h_arg = _hget(heights_m, key)
         if h_file is not None and h_arg is not None and abs(h_file - float(h_arg)) > 1e-6:
-            raise ConfigError(f"[forcing] heights_m.{key} = {h_arg} m but the file's 'height' "
-                              f"coordinate says {h_file} m; hint: drop heights_m.{key}")
+            raise ConfigError(
+                f"[forcing] heights_m.{key} = {h_arg} m but the file's 'height' "
+                f"coordinate says {h_file} m; hint: drop heights_m.{key}"
+            )
         if h_file is None and h_arg is None:
             source = "standard exposure (WMO: 2 m temperature, 10 m wind)"
         elif h_file is None and source == "file":
             source = "[forcing] heights_m"
-        heights[key] = h_file if h_file is not None else float(h_arg if h_arg is not None
-                                                               else (2.0 if key == "temperature" else 10.0))
+        heights[key] = (
+            h_file
+            if h_file is not None
+            else float(h_arg if h_arg is not None else (2.0 if key == "temperature" else 10.0))
+        )
     return heights, source
 
 
@@ -540,33 +591,51 @@ def _make_source(sn, das, paths, times, tdims, spatial, shape, mapping):
     units = entry.get("units") or var.attrs.get("units")
     where = f"forcing file {paths[0]!r}, variable {var.name!r} ({sn})"
     if units is None:
-        raise ForcingReadError(f"{where}: no 'units' attribute; expected units convertible to "
-                               f"{_TARGET[sn]!r}; hint: give units in [forcing] variables.{sn}")
+        raise ForcingReadError(
+            f"{where}: no 'units' attribute; expected units convertible to "
+            f"{_TARGET[sn]!r}; hint: give units in [forcing] variables.{sn}"
+        )
     try:
         scale, offset = U.affine_conversion(units, _TARGET[sn])
     except U.UnitsProblem as exc:
-        raise ForcingReadError(f"{where}: {exc}; expected units convertible to {_TARGET[sn]!r}; "
-                               f"hint: fix the attribute or set units in [forcing] variables") from None
+        raise ForcingReadError(
+            f"{where}: {exc}; expected units convertible to {_TARGET[sn]!r}; "
+            f"hint: fix the attribute or set units in [forcing] variables"
+        ) from None
     method = _cell_method(var)
     kind = "interval" if sn in _AMOUNTS or sn in _FLUXES else "point"
     if method == "point" and sn in _FLUXES:
         kind = "point"
     if method not in (None, "point", "mean", "sum"):
-        raise ForcingReadError(f"{where}: cell_methods 'time: {method}' cannot be used; expected "
-                               f"time: mean, sum or point")
+        raise ForcingReadError(
+            f"{where}: cell_methods 'time: {method}' cannot be used; expected "
+            f"time: mean, sum or point"
+        )
     blocks, level_pa = [], None
     for d, p, td in zip(das, paths, tdims):
         if d.dims[-2:] != spatial or tuple(d.shape[-2:]) != shape or d.dims[0] != td:
-            raise GridMismatchError(f"forcing file {p!r}, variable {d.name!r}: dims {d.dims} "
-                                    f"{d.shape}; expected (time, [level,] {spatial[0]}, "
-                                    f"{spatial[1]}) with grid {shape}")
+            raise GridMismatchError(
+                f"forcing file {p!r}, variable {d.name!r}: dims {d.dims} "
+                f"{d.shape}; expected (time, [level,] {spatial[0]}, "
+                f"{spatial[1]}) with grid {shape}"
+            )
         blocks.append(d.data if isinstance(d.data, da.Array) else da.from_array(d.data))
     if sn == "upper_air_temperature":
         level_pa = _level_pressure(das[0], paths[0])
     file_of = np.concatenate([np.full(t["t"].size, k) for k, t in enumerate(times)])
     t_all = np.concatenate([t["t"] for t in times])
-    return _Source(sn, [d.name for d in das], paths, da.concatenate(blocks, axis=0), scale,
-                   offset, kind, file_of, t_all, level_pa)
+    return _Source(
+        sn,
+        [d.name for d in das],
+        paths,
+        da.concatenate(blocks, axis=0),
+        scale,
+        offset,
+        kind,
+        file_of,
+        t_all,
+        level_pa,
+    )
 
 
 def _level_pressure(var, path):
@@ -574,9 +643,11 @@ def _level_pressure(var, path):
     try:
         scale, offset = U.affine_conversion(lev.attrs.get("units", ""), "Pa")
     except U.UnitsProblem:
-        raise ForcingReadError(f"forcing file {path!r}, variable {var.name!r}: vertical coordinate "
-                               f"{lev.name!r} must be pressure (units Pa or hPa), got "
-                               f"{lev.attrs.get('units')!r}") from None
+        raise ForcingReadError(
+            f"forcing file {path!r}, variable {var.name!r}: vertical coordinate "
+            f"{lev.name!r} must be pressure (units Pa or hPa), got "
+            f"{lev.attrs.get('units')!r}"
+        ) from None
     return lev.values.astype(np.float64) * scale + offset
 
 
@@ -592,17 +663,25 @@ def _surface_altitude(static_path, base_dir, datasets, paths, shape, mapping):
             continue
         var = cands[0]
         try:
-            scale, offset = U.affine_conversion(entry.get("units") or var.attrs.get("units", ""), _TARGET[sn])
+            scale, offset = U.affine_conversion(
+                entry.get("units") or var.attrs.get("units", ""), _TARGET[sn]
+            )
         except U.UnitsProblem as exc:
-            raise ForcingReadError(f"forcing file {p!r}, variable {var.name!r} ({sn}): {exc}") from None
+            raise ForcingReadError(
+                f"forcing file {p!r}, variable {var.name!r} ({sn}): {exc}"
+            ) from None
         while var.ndim > 2:
             var = var.isel({var.dims[0]: 0})
         if tuple(var.shape) != shape:
-            raise GridMismatchError(f"static file {p!r}, variable {var.name!r}: grid {var.shape}, "
-                                    f"expected {shape} like the forcing")
+            raise GridMismatchError(
+                f"static file {p!r}, variable {var.name!r}: grid {var.shape}, "
+                f"expected {shape} like the forcing"
+            )
         return (np.asarray(var.values, dtype=np.float64) * scale + offset) * factor
-    raise ForcingReadError(f"forcing file {p!r}: no model terrain: expected standard_name "
-                           f"surface_altitude or surface_geopotential; hint: give [forcing] static")
+    raise ForcingReadError(
+        f"forcing file {p!r}: no model terrain: expected standard_name "
+        f"surface_altitude or surface_geopotential; hint: give [forcing] static"
+    )
 
 
 # ------------------------------------------------------------------------ time operators
@@ -623,8 +702,10 @@ def _native_intervals(tinfo, accumulated, where):
         starts = b[:, 0]
         same = np.r_[False, starts[1:] == starts[:-1]]
         if accumulated and not same.any() and t.size > 1:
-            raise ForcingReadError(f"{where}: accumulated = true in [forcing] variables but the "
-                                   f"time bounds do not share a start; hint: drop accumulated")
+            raise ForcingReadError(
+                f"{where}: accumulated = true in [forcing] variables but the "
+                f"time bounds do not share a start; hint: drop accumulated"
+            )
         return starts, same, np.where(same, np.r_[t[0], t[:-1]], starts), np.ones(t.size, bool)
     prev = np.r_[t[0] - (t[1] - t[0] if t.size > 1 else _H), t[:-1]]
     if accumulated:  # one run from the first label, which is the baseline only
@@ -655,7 +736,8 @@ def _build_operator(s: _Source, times, hours, mapping):
             raise ForcingReadError(
                 f"{where}: a step of {step[j] / _H:g} h ({step[j] / _H - 1:g} h missing) after "
                 f"{np.datetime64(int(t[j]), 's')}; expected steps of at most {limit // _H} h; hint: fill the gap, or give time_bnds when the "
-                f"file is coarser by design")
+                f"file is coarser by design"
+            )
         idx = np.arange(t.size)
         if s.kind == "point":
             h = np.flatnonzero((hours >= t[0]) & (hours <= t[-1]))
@@ -664,8 +746,13 @@ def _build_operator(s: _Source, times, hours, mapping):
         starts, same, begin, valid = _native_intervals(tinfo, acc, where)
         basis = np.ones(t.size) if s.standard_name in _AMOUNTS else (t - starts).astype(np.float64)
         prev = np.maximum(idx - 1, 0)
-        d_parts.append((np.r_[idx, idx[same]] + off, np.r_[idx, prev[same]] + off,
-                        np.r_[basis, -basis[prev][same]]))
+        d_parts.append(
+            (
+                np.r_[idx, idx[same]] + off,
+                np.r_[idx, prev[same]] + off,
+                np.r_[basis, -basis[prev][same]],
+            )
+        )
         a, b, gi = begin[valid], t[valid], (idx + off)[valid]
         h_first = -(-(a + 1) // _H) * _H
         nk = ((-(-b // _H) * _H - h_first) // _H + 1).astype(np.int64)
@@ -692,8 +779,9 @@ def _build_operator(s: _Source, times, hours, mapping):
         r, c, v = (np.concatenate(x) for x in zip(*d_parts))
         s.D = sparse.csr_matrix((v, (r, c)), shape=(n_native, n_native))
     r, c, v = (np.concatenate([p[i] for p in parts]) if parts else np.empty(0) for i in range(3))
-    S = sparse.csr_matrix((v.astype(np.float64), (r.astype(np.int64), c.astype(np.int64))),
-                          shape=(n_h, n_native))
+    S = sparse.csr_matrix(
+        (v.astype(np.float64), (r.astype(np.int64), c.astype(np.int64))), shape=(n_h, n_native)
+    )
     S.eliminate_zeros()
     s.S, s.covered = S, owner >= 0
 
@@ -716,14 +804,15 @@ def _final_axis(sources, wide, start, end, paths):
             raise ForcingReadError(
                 f"forcing {paths[0]!r}: [forcing] {name} = {np.datetime64(v, 's')} lies outside the "
                 f"hours every variable covers, {np.datetime64(int(wide[lo]), 's')} .. "
-                f"{np.datetime64(int(wide[hi]), 's')}; hint: change [forcing] {name}")
+                f"{np.datetime64(int(wide[hi]), 's')}; hint: change [forcing] {name}"
+            )
         lo, hi = (k, hi) if name == "start" else (lo, k)
     if hi < lo:
         raise ForcingReadError(f"forcing {paths[0]!r}: no whole hour is covered by all variables")
     for members in sources.values():
         for s in members:
-            s.S, s.covered, s.hours = s.S[lo:hi + 1], s.covered[lo:hi + 1], wide[lo:hi + 1]
-    return wide[lo:hi + 1]
+            s.S, s.covered, s.hours = s.S[lo : hi + 1], s.covered[lo : hi + 1], wide[lo : hi + 1]
+    return wide[lo : hi + 1]
 
 
 def _check_gaps(sources, hours) -> int:
@@ -736,7 +825,8 @@ def _check_gaps(sources, hours) -> int:
                 raise ForcingReadError(
                     f"{s.label()}: {run} h without data from {np.datetime64(int(hours[at]) - _H, 's')} "
                     f"(files {s.paths}); expected gaps of at most {MAX_GAP_H} h; hint: fill the "
-                    f"forcing or choose [forcing] start/end around the gap")
+                    f"forcing or choose [forcing] start/end around the gap"
+                )
             missing |= ~s.covered
     return int(missing.sum())
 
@@ -797,7 +887,8 @@ def _series(s: _Source, rows, reader, stats, fn=None):
                     f"precipitation of {worst:.3f} kg m-2 in the interval ending "
                     f"{np.datetime64(int(s.t_all[k]), 's')} at grid point {p}; expected >= "
                     f"-{NEGATIVE_PRECIP_TOL_KG_M2} kg m-2; hint: an accumulation reset not marked "
-                    f"by time_bnds, or accumulated = true on a per-interval variable")
+                    f"by time_bnds, or accumulated = true on a per-interval variable"
+                )
             neg = amount < 0
             stats["negative_precip_clipped"] += int(neg.sum())
             amount[neg] = 0.0
@@ -808,7 +899,8 @@ def _series(s: _Source, rows, reader, stats, fn=None):
         raise ForcingReadError(
             f"{s.label()}: {run} consecutive missing hours (NaN) from "
             f"{np.datetime64(int(s.hours[rows[t_at]]), 's')}; expected NaN runs of at most {MAX_GAP_H} h; hint: "
-            f"fill the forcing or choose [forcing] start/end around them")
+            f"fill the forcing or choose [forcing] start/end around them"
+        )
     stats["nan_filled"] += int((np.isnan(y) & s.covered[rows][:, None]).sum())
     y = _fill_nan(y)
     return y.reshape((y.shape[0],) + rest)
@@ -831,13 +923,17 @@ def _compute(sources, names, rows, alt, reader):
     def pressure():
         if "pressure" in sources:
             return get("pressure")
-        return np.broadcast_to(_thermo.pressure_standard_atmosphere_icao(alt), (rows.size, alt.size))
+        return np.broadcast_to(
+            _thermo.pressure_standard_atmosphere_icao(alt), (rows.size, alt.size)
+        )
 
     out = {}
     for name in names:
         if name not in _OUTPUTS or not _available(sources, name):
-            raise KeyError(f"forcing has no {name!r}; available: "
-                           f"{[n for n in _OUTPUTS if _available(sources, n)]}")
+            raise KeyError(
+                f"forcing has no {name!r}; available: "
+                f"{[n for n in _OUTPUTS if _available(sources, n)]}"
+            )
         if name in ("air_temperature", "shortwave_down", "longwave_down", "upper_air_temperature"):
             v = get(_OUTPUTS[name][0])
         elif name == "precipitation":
@@ -851,14 +947,17 @@ def _compute(sources, names, rows, alt, reader):
             if sn == "relative_humidity":
                 v = get("humidity")
             elif sn == "specific_humidity":
-                v = _thermo.relative_humidity_from_specific_humidity(get("humidity"), get("air_temperature"),
-                                                               pressure())
+                v = _thermo.relative_humidity_from_specific_humidity(
+                    get("humidity"), get("air_temperature"), pressure()
+                )
             else:
                 v = U.relative_humidity_from_dew_point(get("humidity"), get("air_temperature"))
             stats["rh_clipped"] += int(((v > 1.0) | (v < 0.0)).sum())
             v = np.clip(v, 0.0, 1.0)
         elif sources["wind"][0].standard_name == "eastward_wind":
-            v = U.wind_from_components(get("wind", 0), get("wind", 1))[name == "wind_from_direction"]
+            v = U.wind_from_components(get("wind", 0), get("wind", 1))[
+                name == "wind_from_direction"
+            ]
         elif name == "wind_speed":
             v = get("wind", 0)
         else:  # direction interpolated through its unit vector
@@ -883,16 +982,22 @@ def _members(sources, names):
 
 
 def _chunked(sources, members, alt):
-    n = max(sources[r][k].data.shape[0] * int(np.prod(sources[r][k].data.shape[1:-2])) for r, k in members)
+    n = max(
+        sources[r][k].data.shape[0] * int(np.prod(sources[r][k].data.shape[1:-2]))
+        for r, k in members
+    )
     side = int(max(8, min(256, np.sqrt(4e6 / max(n, 1)))))
     cy, cx = min(side, alt.shape[0]), min(side, alt.shape[1])
-    arrays = [sources[r][k].data.rechunk((-1,) * (sources[r][k].data.ndim - 2) + (cy, cx))
-              for r, k in members]
+    arrays = [
+        sources[r][k].data.rechunk((-1,) * (sources[r][k].data.ndim - 2) + (cy, cx))
+        for r, k in members
+    ]
     return arrays, da.from_array(alt, chunks=(cy, cx))
 
 
 def _block_fn(sources, names, members, rows):
     """A function of (alt block, *source blocks) -> (dict of (rows, ..., cy, cx), stats)."""
+
     def fn(alt_blk, *blocks):
         lookup = {id(sources[r][k]): b for (r, k), b in zip(members, blocks)}
 
@@ -902,6 +1007,7 @@ def _block_fn(sources, names, members, rows):
 
         out, stats = _compute(sources, names, rows, alt_blk.reshape(-1), reader)
         return {k: v.reshape(v.shape[:-1] + alt_blk.shape) for k, v in out.items()}, stats
+
     return fn
 
 
@@ -913,8 +1019,10 @@ def _lazy(sources, name, alt, hours):
     attrs = {"units": _OUT_UNITS[name]}
     members = _members(sources, [name])
     if not members:  # pressure from the standard atmosphere at model height
-        p = da.broadcast_to(da.from_array(_thermo.pressure_standard_atmosphere_icao(alt).astype(np.float32)),
-                            (hours.size,) + alt.shape)
+        p = da.broadcast_to(
+            da.from_array(_thermo.pressure_standard_atmosphere_icao(alt).astype(np.float32)),
+            (hours.size,) + alt.shape,
+        )
         return xr.DataArray(p, dims=("time", "y", "x"), coords=coords, name=name, attrs=attrs)
     arrays, alt_d = _chunked(sources, members, alt)
     fn = _block_fn(sources, [name], members, np.arange(hours.size))
@@ -928,7 +1036,11 @@ def _lazy(sources, name, alt, hours):
     data = da.map_blocks(block, alt_d[lead], *arrays, chunks=chunks, dtype=np.float32)
     dims = ("time",) + (("level",) if extra else ()) + ("y", "x")
     if extra:
-        coords["level"] = ("level", sources["upper_air"][0].level_pa, {"units": "Pa", "standard_name": "air_pressure"})
+        coords["level"] = (
+            "level",
+            sources["upper_air"][0].level_pa,
+            {"units": "Pa", "standard_name": "air_pressure"},
+        )
     return xr.DataArray(data, dims=dims, coords=coords, name=name, attrs=attrs)
 
 
@@ -940,8 +1052,11 @@ def _validate(sources, alt, n_h) -> dict:
     fn = _block_fn(sources, names, members, np.arange(n_h))
     blocks = [a.to_delayed().reshape((-1,) + a.numblocks[-2:])[0] for a in arrays]
     alt_blocks = alt_d.to_delayed()
-    tasks = [dask.delayed(lambda *a: fn(*a)[1])(alt_blocks[j, i], *[b[j, i] for b in blocks])
-             for j in range(alt_d.numblocks[0]) for i in range(alt_d.numblocks[1])]
+    tasks = [
+        dask.delayed(lambda *a: fn(*a)[1])(alt_blocks[j, i], *[b[j, i] for b in blocks])
+        for j in range(alt_d.numblocks[0])
+        for i in range(alt_d.numblocks[1])
+    ]
     counts = {"nan_filled": 0, "negative_precip_clipped": 0, "rh_clipped": 0}
     for r in dask.compute(*tasks):
         for k in counts:

@@ -40,8 +40,12 @@ class ForcingGrid:
         return self.lon.shape
 
     def extent_lonlat(self):
-        return (float(np.nanmin(self.lon)), float(np.nanmax(self.lon)),
-                float(np.nanmin(self.lat)), float(np.nanmax(self.lat)))
+        return (
+            float(np.nanmin(self.lon)),
+            float(np.nanmax(self.lon)),
+            float(np.nanmin(self.lat)),
+            float(np.nanmax(self.lat)),
+        )
 
     def index_of(self, lon, lat):
         """Fractional (row along y, column along x) of points [index units]; NaN outside."""
@@ -64,15 +68,20 @@ class ForcingGrid:
         """Newton inversion of cubic-spline maps (row, col) -> local azimuthal metres."""
         if self._inverse is None:
             lon0, lat0 = float(np.mean(self.lon)), float(np.mean(self.lat))
-            tr = Transformer.from_crs("EPSG:4326", f"+proj=aeqd +lat_0={lat0} +lon_0={lon0} +datum=WGS84",
-                                      always_xy=True)
+            tr = Transformer.from_crs(
+                "EPSG:4326", f"+proj=aeqd +lat_0={lat0} +lon_0={lon0} +datum=WGS84", always_xy=True
+            )
             gx, gy = tr.transform(self.lon, self.lat)
             ny, nx = self.shape
             ii, jj = np.arange(ny, dtype=float), np.arange(nx, dtype=float)
             kx, ky = min(3, ny - 1), min(3, nx - 1)
-            self._inverse = (tr, RectBivariateSpline(ii, jj, gx, kx=kx, ky=ky),
-                             RectBivariateSpline(ii, jj, gy, kx=kx, ky=ky),
-                             cKDTree(np.c_[gx.ravel(), gy.ravel()]), np.hypot(*np.gradient(gx)).mean())
+            self._inverse = (
+                tr,
+                RectBivariateSpline(ii, jj, gx, kx=kx, ky=ky),
+                RectBivariateSpline(ii, jj, gy, kx=kx, ky=ky),
+                cKDTree(np.c_[gx.ravel(), gy.ravel()]),
+                np.hypot(*np.gradient(gx)).mean(),
+            )
         tr, sx, sy, tree, spacing = self._inverse
         px, py = tr.transform(lon, lat)
         _, nearest = tree.query(np.c_[px, py])
@@ -104,7 +113,8 @@ class ForcingGrid:
                 f"forcing grid of {where!r} does not cover {int(out.sum())} of {lon.size} points: "
                 f"grid extent lon {g[0]:.4f}..{g[1]:.4f}, lat {g[2]:.4f}..{g[3]:.4f}; points span "
                 f"lon {lon.min():.4f}..{lon.max():.4f}, lat {lat.min():.4f}..{lat.max():.4f}; "
-                f"hint: use forcing over a larger domain than the DEM and zones")
+                f"hint: use forcing over a larger domain than the DEM and zones"
+            )
 
 
 def _axis_index(coord, value):
@@ -120,9 +130,18 @@ def _is_axis(coord, kind):
     if kind == "lon":
         return sn == "longitude" or units in ("degrees_east", "degree_east", "degrees_E", "degreeE")
     if kind == "lat":
-        return sn == "latitude" or units in ("degrees_north", "degree_north", "degrees_N", "degreeN")
-    return sn in ("projection_x_coordinate", "projection_y_coordinate", "grid_longitude",
-                  "grid_latitude") or units in ("m", "km", "metre", "meter", "kilometre")
+        return sn == "latitude" or units in (
+            "degrees_north",
+            "degree_north",
+            "degrees_N",
+            "degreeN",
+        )
+    return sn in (
+        "projection_x_coordinate",
+        "projection_y_coordinate",
+        "grid_longitude",
+        "grid_latitude",
+    ) or units in ("m", "km", "metre", "meter", "kilometre")
 
 
 def _coord_along(ds, dim):
@@ -144,21 +163,27 @@ def grid_from_dataset(ds: xr.Dataset, var: xr.DataArray, path: str) -> ForcingGr
     crs = None
     if gm:
         if gm not in ds.variables:
-            raise ForcingReadError(f"forcing file {path!r}, variable {var.name!r}: grid_mapping "
-                                   f"{gm!r} names no variable in the file")
+            raise ForcingReadError(
+                f"forcing file {path!r}, variable {var.name!r}: grid_mapping "
+                f"{gm!r} names no variable in the file"
+            )
         try:
             crs = CRS.from_cf(dict(ds[gm].attrs))
         except Exception as exc:
-            raise ForcingReadError(f"forcing file {path!r}, grid_mapping {gm!r}: not a CF grid "
-                                   f"mapping pyproj understands ({exc})") from None
+            raise ForcingReadError(
+                f"forcing file {path!r}, grid_mapping {gm!r}: not a CF grid "
+                f"mapping pyproj understands ({exc})"
+            ) from None
     if xc is not None and yc is not None and _is_axis(xc, "lon") and _is_axis(yc, "lat"):
         x, y = xc.values.astype(np.float64), yc.values.astype(np.float64)
         lon, lat = np.meshgrid(np.where(x > 180, x - 360, x), y)
         return ForcingGrid("latlon1d", lon, lat, crs or CRS.from_epsg(4326), x, y)
     if xc is not None and yc is not None and _is_axis(xc, "xy") and _is_axis(yc, "xy"):
         if crs is None:
-            raise ForcingReadError(f"forcing file {path!r}, variable {var.name!r}: projected x/y "
-                                   f"coordinates need a grid_mapping attribute (CF §5.6)")
+            raise ForcingReadError(
+                f"forcing file {path!r}, variable {var.name!r}: projected x/y "
+                f"coordinates need a grid_mapping attribute (CF §5.6)"
+            )
         try:
             sx, _ = U.affine_conversion(xc.attrs.get("units", "m"), "m")
             sy, _ = U.affine_conversion(yc.attrs.get("units", "m"), "m")
@@ -173,9 +198,14 @@ def grid_from_dataset(ds: xr.Dataset, var: xr.DataArray, path: str) -> ForcingGr
     lat2 = [c for c in two_d.values() if _is_axis(c, "lat")]
     if lon2 and lat2:
         lon = np.asarray(lon2[0].values, dtype=np.float64)
-        return ForcingGrid("latlon2d", np.where(lon > 180, lon - 360, lon),
-                           np.asarray(lat2[0].values, dtype=np.float64), None)
+        return ForcingGrid(
+            "latlon2d",
+            np.where(lon > 180, lon - 360, lon),
+            np.asarray(lat2[0].values, dtype=np.float64),
+            None,
+        )
     raise ForcingReadError(
         f"forcing file {path!r}, variable {var.name!r}: grid not recognised: expected 1-D "
         f"latitude/longitude, projected x/y with a grid_mapping, or 2-D latitude/longitude on "
-        f"({ydim}, {xdim}) (units degrees_north/degrees_east)")
+        f"({ydim}, {xdim}) (units degrees_north/degrees_east)"
+    )

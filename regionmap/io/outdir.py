@@ -284,7 +284,9 @@ class OutputFolder:
         except OSError as exc:
             if isinstance(exc, OutputError):
                 raise
-            raise OutputError(f"output folder {self.target}: cannot write in {parent}: {exc.strerror or exc}") from exc
+            raise OutputError(
+                f"output folder {self.target}: cannot write in {parent}: {exc.strerror or exc}"
+            ) from exc
         try:
             self.recovered += recover_leftovers(self.target)
             self._check_target()
@@ -339,10 +341,14 @@ class OutputFolder:
             if self.kept_as is None:
                 _remove_marked_tree(aside)
             else:
-                warn(f"output folder {target}: the previous non-regionmap folder was kept as {aside}")
+                warn(
+                    f"output folder {target}: the previous non-regionmap folder was kept as {aside}"
+                )
         except OSError as exc:
             if isinstance(exc, OutputError):
                 raise
-            raise OutputError(f"output folder {target}: could not put the new output in place: {exc.strerror or exc}") from exc
+            raise OutputError(
+                f"output folder {target}: could not put the new output in place: {exc.strerror or exc}"
+            ) from exc
         finally:
             self.path = None

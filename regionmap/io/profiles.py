@@ -63,8 +63,8 @@ import numpy as np
 import pandas as pd
 
 from regionmap.errors import InputError
-from regionmap.io.times import utc_datetime64
 from regionmap.io.stations import _read_csv_lines
+from regionmap.io.times import utc_datetime64
 from regionmap.snow.codes import GRAIN_CODES, GRAIN_INDEX
 from regionmap.snow.hardness import density_from_hardness_array, parse_hand_hardness
 
@@ -195,7 +195,11 @@ def _liquid_frac(text: str, where: str) -> float:
         return WETNESS_LIQUID_FRAC[s]
     parts = s.split("-")
     order = list(WETNESS_LIQUID_FRAC)
-    if len(parts) == 2 and all(p in WETNESS_LIQUID_FRAC for p in parts) and abs(order.index(parts[0]) - order.index(parts[1])) == 1:
+    if (
+        len(parts) == 2
+        and all(p in WETNESS_LIQUID_FRAC for p in parts)
+        and abs(order.index(parts[0]) - order.index(parts[1])) == 1
+    ):
         return 0.5 * (WETNESS_LIQUID_FRAC[parts[0]] + WETNESS_LIQUID_FRAC[parts[1]])
     raise InputError(
         f"{where}: unknown wetness {text!r}; expected D, M, W, V or S (Fierz et al. 2009) or "
@@ -233,7 +237,9 @@ def _build_profile(
     thickness = top_m - bottom_m
     if np.any(thickness <= 0):
         i = int(np.flatnonzero(thickness <= 0)[0])
-        raise InputError(f"{where[i]}: the layer has no positive thickness ({thickness[i] * 100:.1f} cm).")
+        raise InputError(
+            f"{where[i]}: the layer has no positive thickness ({thickness[i] * 100:.1f} cm)."
+        )
     if abs(bottom_m[0]) > _GAP_TOLERANCE_M:
         raise InputError(
             f"{source}: the profile does not reach the ground (lowest layer starts "
@@ -261,7 +267,9 @@ def _build_profile(
     if estimated.any():
         idx = np.flatnonzero(estimated)
         density = density.copy()
-        density[idx] = density_from_hardness_array(hardness[idx], codes[idx], where=f"{source} (density from hardness)")
+        density[idx] = density_from_hardness_array(
+            hardness[idx], codes[idx], where=f"{source} (density from hardness)"
+        )
     ice_volume = (density - liquid * _WATER_DENSITY_KG_M3) / 917.0
     bad = (density <= 0) | (density > 917.0) | (ice_volume < 0) | (ice_volume + liquid > 1.0 + 1e-9)
     if bad.any():
@@ -342,9 +350,13 @@ class _Caaml:
         try:
             return float(text)
         except ValueError:
-            raise InputError(f"{where}: element {path!r} should be a number, got {text!r}.") from None
+            raise InputError(
+                f"{where}: element {path!r} should be a number, got {text!r}."
+            ) from None
 
-    def length_m(self, node: ET.Element, path: str, where: str, *, required: bool, uom: str | None = None) -> float:
+    def length_m(
+        self, node: ET.Element, path: str, where: str, *, required: bool, uom: str | None = None
+    ) -> float:
         value = self.number(node, path, where, required=required)
         el = self.find(node, path)
         unit = uom if uom is not None else (el.get("uom", "cm") if el is not None else "cm")
@@ -356,7 +368,9 @@ class _Caaml:
 def _direction(element: ET.Element | None, default: str, where: str) -> str:
     value = default if element is None else element.get("dir", default)
     if value not in ("top down", "bottom up"):
-        raise InputError(f"{where}: attribute dir must be 'top down' or 'bottom up', got {value!r}.")
+        raise InputError(
+            f"{where}: attribute dir must be 'top down' or 'bottom up', got {value!r}."
+        )
     return value
 
 
@@ -393,7 +407,9 @@ def read_caaml_profile(path: str | Path) -> ObservedProfile:
             "<!DOCTYPE …> block."
         ) from None
     except ET.ParseError as exc:
-        raise InputError(f"Profile file {path}: malformed XML ({exc}); is the file complete?") from None
+        raise InputError(
+            f"Profile file {path}: malformed XML ({exc}); is the file complete?"
+        ) from None
     doc = _Caaml(root, path)
     if not doc.ns.startswith(_NS_PREFIX) or root.tag != f"{{{doc.ns}}}SnowProfile":
         raise InputError(
@@ -409,14 +425,20 @@ def read_caaml_profile(path: str | Path) -> ObservedProfile:
     time = utc_datetime64(time_text, f"Profile file {path}, timePosition")
     meas = doc.find(root, "snowProfileResultsOf/SnowProfileMeasurements")
     if meas is None:
-        raise InputError(f"Profile file {path}: required element snowProfileResultsOf/SnowProfileMeasurements is missing.")
+        raise InputError(
+            f"Profile file {path}: required element snowProfileResultsOf/SnowProfileMeasurements is missing."
+        )
     default_dir = _direction(meas, "top down", f"Profile file {path}, SnowProfileMeasurements")
     strat = doc.find(meas, "stratProfile")
     layers = [] if strat is None else strat.findall(doc.q("Layer"))
     if not layers:
-        raise InputError(f"Profile file {path}: required element stratProfile with at least one Layer is missing.")
+        raise InputError(
+            f"Profile file {path}: required element stratProfile with at least one Layer is missing."
+        )
     strat_dir = _direction(strat, default_dir, f"Profile file {path}, stratProfile")
-    hs = doc.length_m(meas, "snowPackCond/hS/Components/height", f"Profile file {path}", required=False)
+    hs = doc.length_m(
+        meas, "snowPackCond/hS/Components/height", f"Profile file {path}", required=False
+    )
     profile_depth = doc.length_m(meas, "profileDepth", f"Profile file {path}", required=False)
     air_c = doc.number(meas, "weathercond/airTempPres", f"Profile file {path}", required=False)
     n = len(layers)
@@ -434,7 +456,9 @@ def read_caaml_profile(path: str | Path) -> ObservedProfile:
         grain.append(_grain_code(g, w))
         size_el = doc.find(layer, "grainSize")
         size_unit = size_el.get("uom", "mm") if size_el is not None else "mm"
-        size[i] = doc.length_m(layer, "grainSize/Components/avg", w, required=True, uom=size_unit) * 1e3
+        size[i] = (
+            doc.length_m(layer, "grainSize/Components/avg", w, required=True, uom=size_unit) * 1e3
+        )
         h = doc.text(layer, "hardness")
         if h is None:
             raise InputError(f"{w}: required element 'hardness' is missing or empty.")
@@ -442,12 +466,20 @@ def read_caaml_profile(path: str | Path) -> ObservedProfile:
         rho[i] = doc.number(layer, "density", w, required=False)
         liquid[i] = _liquid_frac(doc.text(layer, "wetness") or "", f"{w}, wetness")
     if strat_dir == "top down":
-        total = hs if np.isfinite(hs) else (profile_depth if np.isfinite(profile_depth) else float(np.max(pos + thick)))
+        total = (
+            hs
+            if np.isfinite(hs)
+            else (profile_depth if np.isfinite(profile_depth) else float(np.max(pos + thick)))
+        )
         top = total - pos
     else:
         total = hs if np.isfinite(hs) else float(np.max(pos))
         top = pos
-    if strat_dir == "top down" and np.isfinite(profile_depth) and profile_depth < total - _GAP_TOLERANCE_M:
+    if (
+        strat_dir == "top down"
+        and np.isfinite(profile_depth)
+        and profile_depth < total - _GAP_TOLERANCE_M
+    ):
         raise InputError(
             f"Profile file {path}: profileDepth {profile_depth * 100:.1f} cm is less than the snow "
             f"depth {total * 100:.1f} cm; a restart needs a profile down to the ground."
@@ -455,12 +487,25 @@ def read_caaml_profile(path: str | Path) -> ObservedProfile:
     temp_height, temp_k = _caaml_temperatures(doc, meas, default_dir, total)
     density_profile = doc.find(meas, "densityProfile")
     if density_profile is not None:
-        rho = _fill_from_density_profile(doc, density_profile, default_dir, total, top - thick, top, rho)
+        rho = _fill_from_density_profile(
+            doc, density_profile, default_dir, total, top - thick, top, rho
+        )
     return _build_profile(
-        source=path, time=time, bottom_m=top - thick, top_m=top, grain=grain,
-        grain_size_mm=size, hardness=hard, density=rho, liquid=liquid,
-        layer_temp_k=np.full(n, np.nan), temp_height_m=temp_height, temp_k=temp_k,
-        air_temp_k=air_c + _T0_K, snow_depth_m=total, where=where,
+        source=path,
+        time=time,
+        bottom_m=top - thick,
+        top_m=top,
+        grain=grain,
+        grain_size_mm=size,
+        hardness=hard,
+        density=rho,
+        liquid=liquid,
+        layer_temp_k=np.full(n, np.nan),
+        temp_height_m=temp_height,
+        temp_k=temp_k,
+        air_temp_k=air_c + _T0_K,
+        snow_depth_m=total,
+        where=where,
         name=doc.text(root, "locRef/name") or "",
     )
 
@@ -478,12 +523,21 @@ def _caaml_temperatures(doc: _Caaml, meas: ET.Element, default_dir: str, total_m
     if prof.get("uomTemp", "degC") != "degC":
         raise InputError(f"{where}: uomTemp {prof.get('uomTemp')!r}; expected 'degC'.")
     obs = prof.findall(doc.q("Obs"))
-    depth = np.array([doc.number(o, "depth", f"{where}, Obs {k + 1}", required=True) for k, o in enumerate(obs)])
-    temp_c = np.array([doc.number(o, "snowTemp", f"{where}, Obs {k + 1}", required=True) for k, o in enumerate(obs)])
+    depth = np.array(
+        [doc.number(o, "depth", f"{where}, Obs {k + 1}", required=True) for k, o in enumerate(obs)]
+    )
+    temp_c = np.array(
+        [
+            doc.number(o, "snowTemp", f"{where}, Obs {k + 1}", required=True)
+            for k, o in enumerate(obs)
+        ]
+    )
     depth_m = depth * _LENGTH_M[unit]
     height = total_m - depth_m if direction == "top down" else depth_m
     if np.any(height < -_GAP_TOLERANCE_M) or np.any(height > total_m + _GAP_TOLERANCE_M):
-        raise InputError(f"{where}: a temperature observation lies outside the snowpack (0 … {total_m * 100:.1f} cm).")
+        raise InputError(
+            f"{where}: a temperature observation lies outside the snowpack (0 … {total_m * 100:.1f} cm)."
+        )
     temp_k = temp_c + _T0_K
     _check_temperature(temp_k, where)
     return height, temp_k
@@ -497,14 +551,35 @@ def _fill_from_density_profile(doc, prof, default_dir, total_m, bottom_m, top_m,
     rho = rho.copy()
     if not rows:
         return rho
-    pos = np.array([doc.length_m(r, "depthTop", f"{where}, Layer {k + 1}", required=True) for k, r in enumerate(rows)])
-    th = np.array([doc.length_m(r, "thickness", f"{where}, Layer {k + 1}", required=True) for k, r in enumerate(rows)])
-    val = np.array([doc.number(r, "density", f"{where}, Layer {k + 1}", required=True) for k, r in enumerate(rows)])
+    pos = np.array(
+        [
+            doc.length_m(r, "depthTop", f"{where}, Layer {k + 1}", required=True)
+            for k, r in enumerate(rows)
+        ]
+    )
+    th = np.array(
+        [
+            doc.length_m(r, "thickness", f"{where}, Layer {k + 1}", required=True)
+            for k, r in enumerate(rows)
+        ]
+    )
+    val = np.array(
+        [
+            doc.number(r, "density", f"{where}, Layer {k + 1}", required=True)
+            for k, r in enumerate(rows)
+        ]
+    )
     d_top = total_m - pos if direction == "top down" else pos
     d_bot = d_top - th
-    overlap = np.clip(np.minimum(top_m[:, None], d_top[None, :]) - np.maximum(bottom_m[:, None], d_bot[None, :]), 0.0, None)
+    overlap = np.clip(
+        np.minimum(top_m[:, None], d_top[None, :]) - np.maximum(bottom_m[:, None], d_bot[None, :]),
+        0.0,
+        None,
+    )
     weight = overlap.sum(axis=1)
-    mean = np.where(weight > 0, (overlap * val[None, :]).sum(axis=1) / np.where(weight > 0, weight, 1.0), np.nan)
+    mean = np.where(
+        weight > 0, (overlap * val[None, :]).sum(axis=1) / np.where(weight > 0, weight, 1.0), np.nan
+    )
     return np.where(np.isfinite(rho), rho, mean)
 
 
@@ -569,7 +644,9 @@ def read_csv_profile(path: str | Path) -> ObservedProfile:
         bad = np.isnan(values) & ((text != "").to_numpy() | required)
         if bad.any():
             i = int(np.flatnonzero(bad)[0])
-            raise InputError(f"{where[i]}, column '{column}': expected a number, got {text.iloc[i]!r}.")
+            raise InputError(
+                f"{where[i]}, column '{column}': expected a number, got {text.iloc[i]!r}."
+            )
         return values
 
     top = numbers("top_cm", True) / 100.0
@@ -581,13 +658,32 @@ def read_csv_profile(path: str | Path) -> ObservedProfile:
     if np.any(size < 0):
         i = int(np.flatnonzero(size < 0)[0])
         raise InputError(f"{where[i]}, column 'grain_size_mm': expected a size ≥ 0, got {size[i]}.")
-    grain = [_grain_code(g, f"{w}, column 'grain_class'") for g, w in zip(table["grain_class"], where)]
-    hard = np.array([parse_hand_hardness(h, where=f"{w}, column 'hardness'") for h, w in zip(table["hardness"], where)])
+    grain = [
+        _grain_code(g, f"{w}, column 'grain_class'") for g, w in zip(table["grain_class"], where)
+    ]
+    hard = np.array(
+        [
+            parse_hand_hardness(h, where=f"{w}, column 'hardness'")
+            for h, w in zip(table["hardness"], where)
+        ]
+    )
     wet_text = table["wetness"] if "wetness" in table.columns else [""] * len(table)
     liquid = np.array([_liquid_frac(t, f"{w}, column 'wetness'") for t, w in zip(wet_text, where)])
     return _build_profile(
-        source=path, time=time, bottom_m=bottom, top_m=top, grain=grain, grain_size_mm=size,
-        hardness=hard, density=rho, liquid=liquid, layer_temp_k=layer_t,
-        temp_height_m=np.empty(0), temp_k=np.empty(0), air_temp_k=air_k,
-        snow_depth_m=np.nan, where=where, name=meta.get("name", ""),
+        source=path,
+        time=time,
+        bottom_m=bottom,
+        top_m=top,
+        grain=grain,
+        grain_size_mm=size,
+        hardness=hard,
+        density=rho,
+        liquid=liquid,
+        layer_temp_k=layer_t,
+        temp_height_m=np.empty(0),
+        temp_k=np.empty(0),
+        air_temp_k=air_k,
+        snow_depth_m=np.nan,
+        where=where,
+        name=meta.get("name", ""),
     )

@@ -30,13 +30,19 @@ import h5netcdf.legacyapi
 import numpy as np
 import pandas as pd
 from isal import isal_zlib
-
 from xarray.backends.locks import HDF5_LOCK, NETCDFC_LOCK, CombinedLock
 
 from regionmap import CAUTION, __version__
 from regionmap.io.atomic import atomic_path
 
-__all__ = ["DIAGNOSTICS", "AMOUNTS", "CELLS_CHUNK_CELLS", "PROFILES_CHUNK_CELLS", "CellsNcWriter", "ProfilesNcWriter"]
+__all__ = [
+    "DIAGNOSTICS",
+    "AMOUNTS",
+    "CELLS_CHUNK_CELLS",
+    "PROFILES_CHUNK_CELLS",
+    "CellsNcWriter",
+    "ProfilesNcWriter",
+]
 
 _EPOCH = "seconds since 1970-01-01 00:00:00"
 #: deflate level of the streamed files (shuffle filter before it): level 1 writes 1 024 cells of
@@ -62,30 +68,103 @@ def _hdf5_locked(method):
             return method(*args, **kwargs)
 
     return wrapper
+
+
 _FILL_I8 = np.int8(-127)
 _FILL_I16 = np.int16(-32767)
 
 #: name → (dtype, attributes) of the per-time diagnostics (DESIGN §3 names).
 DIAGNOSTICS: dict[str, tuple[str, dict]] = {
-    "snow_depth_cm": ("f4", {"standard_name": "surface_snow_thickness", "units": "cm", "long_name": "snow depth (vertical)"}),
-    "swe_kg_m2": ("f4", {"standard_name": "surface_snow_amount", "units": "kg m-2", "long_name": "snow water equivalent incl. liquid water"}),
-    "new_snow_24h_cm": ("f4", {"units": "cm", "long_name": "depth of snow deposited in the last 24 h, as settled now"}),
-    "new_snow_72h_cm": ("f4", {"units": "cm", "long_name": "depth of snow deposited in the last 72 h, as settled now"}),
-    "new_snow_72h_kg_m2": ("f4", {"units": "kg m-2", "long_name": "snowfall water equivalent of the last 72 h"}),
-    "crust_count": ("i1", {"units": "1", "long_name": "number of crusts and ice layers in the column"}),
-    "depth_hoar_present": ("i1", {"units": "1", "long_name": "column holds depth hoar thicker than the threshold", "flag_values": np.array([0, 1], "i1"), "flag_meanings": "absent present"}),
-    "pwl_present": ("i1", {"units": "1", "long_name": "column holds a persistent weak layer (FC, DH or SH)", "flag_values": np.array([0, 1], "i1"), "flag_meanings": "absent present"}),
-    "pwl_depth_cm": ("f4", {"units": "cm", "long_name": "vertical depth below the surface of the top of the uppermost persistent weak layer"}),
-    "threshold_count_max": ("f4", {"units": "1", "long_name": "largest structural threshold count over the column's interfaces"}),
-    "liquid_water_kg_m2": ("f4", {"units": "kg m-2", "long_name": "liquid water held in the snowpack"}),
+    "snow_depth_cm": (
+        "f4",
+        {
+            "standard_name": "surface_snow_thickness",
+            "units": "cm",
+            "long_name": "snow depth (vertical)",
+        },
+    ),
+    "swe_kg_m2": (
+        "f4",
+        {
+            "standard_name": "surface_snow_amount",
+            "units": "kg m-2",
+            "long_name": "snow water equivalent incl. liquid water",
+        },
+    ),
+    "new_snow_24h_cm": (
+        "f4",
+        {"units": "cm", "long_name": "depth of snow deposited in the last 24 h, as settled now"},
+    ),
+    "new_snow_72h_cm": (
+        "f4",
+        {"units": "cm", "long_name": "depth of snow deposited in the last 72 h, as settled now"},
+    ),
+    "new_snow_72h_kg_m2": (
+        "f4",
+        {"units": "kg m-2", "long_name": "snowfall water equivalent of the last 72 h"},
+    ),
+    "crust_count": (
+        "i1",
+        {"units": "1", "long_name": "number of crusts and ice layers in the column"},
+    ),
+    "depth_hoar_present": (
+        "i1",
+        {
+            "units": "1",
+            "long_name": "column holds depth hoar thicker than the threshold",
+            "flag_values": np.array([0, 1], "i1"),
+            "flag_meanings": "absent present",
+        },
+    ),
+    "pwl_present": (
+        "i1",
+        {
+            "units": "1",
+            "long_name": "column holds a persistent weak layer (FC, DH or SH)",
+            "flag_values": np.array([0, 1], "i1"),
+            "flag_meanings": "absent present",
+        },
+    ),
+    "pwl_depth_cm": (
+        "f4",
+        {
+            "units": "cm",
+            "long_name": "vertical depth below the surface of the top of the uppermost persistent weak layer",
+        },
+    ),
+    "threshold_count_max": (
+        "f4",
+        {
+            "units": "1",
+            "long_name": "largest structural threshold count over the column's interfaces",
+        },
+    ),
+    "liquid_water_kg_m2": (
+        "f4",
+        {"units": "kg m-2", "long_name": "liquid water held in the snowpack"},
+    ),
 }
 
 #: name → (dtype, attributes) of the per-interval amounts (with ``time_bnds``).
 AMOUNTS: dict[str, tuple[str, dict]] = {
     "snowfall_kg_m2": ("f4", {"standard_name": "snowfall_amount", "units": "kg m-2"}),
     "rain_kg_m2": ("f4", {"standard_name": "rainfall_amount", "units": "kg m-2"}),
-    "runoff_kg_m2": ("f4", {"standard_name": "runoff_amount", "units": "kg m-2", "long_name": "liquid water leaving the base of the snowpack"}),
-    "sublimation_kg_m2": ("f4", {"standard_name": "surface_snow_sublimation_amount", "units": "kg m-2", "long_name": "net sublimation (negative: deposition)"}),
+    "runoff_kg_m2": (
+        "f4",
+        {
+            "standard_name": "runoff_amount",
+            "units": "kg m-2",
+            "long_name": "liquid water leaving the base of the snowpack",
+        },
+    ),
+    "sublimation_kg_m2": (
+        "f4",
+        {
+            "standard_name": "surface_snow_sublimation_amount",
+            "units": "kg m-2",
+            "long_name": "net sublimation (negative: deposition)",
+        },
+    ),
 }
 
 _FILLS = {"f4": np.float32(np.nan), "i1": _FILL_I8, "i2": _FILL_I16}
@@ -108,8 +187,9 @@ class _StreamingNc:
         # the run (measured, with its chunk cache already small), h5py by nothing.
         # Each variable gets a small chunk cache: chunks arrive once, in whole runs of
         # cells, so a cache only saves the re-read of a chunk split between two writes.
-        self._nc = h5netcdf.legacyapi.Dataset(self._tmp, "w", rdcc_nbytes=_CHUNK_CACHE_BYTES,
-                                              rdcc_nslots=521, rdcc_w0=1.0)
+        self._nc = h5netcdf.legacyapi.Dataset(
+            self._tmp, "w", rdcc_nbytes=_CHUNK_CACHE_BYTES, rdcc_nslots=521, rdcc_w0=1.0
+        )
         return self._nc
 
     def _layout(self, name: str) -> None:
@@ -117,8 +197,15 @@ class _StreamingNc:
         created, under the HDF5 lock, so :meth:`_prepare` needs no HDF5 call)."""
         ds = self._nc.variables[name]._h5ds  # the h5py dataset under h5netcdf's variable
         deflate_only = ds.compression == "gzip" and not ds.fletcher32 and ds.scaleoffset is None
-        self._layouts[name] = (ds, ds.shape, ds.chunks, ds.dtype, ds.shuffle, deflate_only,
-                               ds.fillvalue)
+        self._layouts[name] = (
+            ds,
+            ds.shape,
+            ds.chunks,
+            ds.dtype,
+            ds.shuffle,
+            deflate_only,
+            ds.fillvalue,
+        )
 
     def _prepare(self, name: str, lo: int, values: np.ndarray):
         """(name, lo, values, chunks): ``chunks`` the compressed HDF5 chunks of rows
@@ -127,16 +214,26 @@ class _StreamingNc:
         _, shape, chunks, dtype, shuffle, deflate_only, fill = self._layouts[name]
         values = np.asarray(values, dtype=dtype)
         hi = lo + values.shape[0]
-        whole = (deflate_only and chunks is not None and values.shape[1:] == shape[1:]
-                 and lo % chunks[0] == 0 and (hi % chunks[0] == 0 or hi == shape[0]))
-        return name, lo, values, _compressed_chunks(values, lo, chunks, fill, shuffle) if whole else None
+        whole = (
+            deflate_only
+            and chunks is not None
+            and values.shape[1:] == shape[1:]
+            and lo % chunks[0] == 0
+            and (hi % chunks[0] == 0 or hi == shape[0])
+        )
+        return (
+            name,
+            lo,
+            values,
+            _compressed_chunks(values, lo, chunks, fill, shuffle) if whole else None,
+        )
 
     @_hdf5_locked
     def _store(self, prepared) -> None:
         """Write prepared blocks (:meth:`_prepare`), under the HDF5 lock."""
         for name, lo, values, chunks in prepared:
             if chunks is None:
-                self._nc.variables[name][lo:lo + values.shape[0]] = values
+                self._nc.variables[name][lo : lo + values.shape[0]] = values
             else:
                 ds = self._layouts[name][0]
                 for offset, data in chunks:
@@ -215,32 +312,58 @@ class CellsNcWriter(_StreamingNc):
     """
 
     @_hdf5_locked
-    def __init__(self, path, cells: pd.DataFrame, times, interval_start, is_forecast, *,
-                 extra: dict | None = None, global_attrs: dict | None = None,
-                 variables: dict | None = None, title: str = "regionmap per-cell snowpack diagnostics"):
+    def __init__(
+        self,
+        path,
+        cells: pd.DataFrame,
+        times,
+        interval_start,
+        is_forecast,
+        *,
+        extra: dict | None = None,
+        global_attrs: dict | None = None,
+        variables: dict | None = None,
+        title: str = "regionmap per-cell snowpack diagnostics",
+    ):
         nc = self._open(path)
         self._layouts = {}
         base = {**DIAGNOSTICS, **AMOUNTS} if variables is None else dict(variables)
         self.variables = {**base, **(extra or {})}
         n_cell, n_time = len(cells), len(times)
-        nc.attrs.update({
-            "Conventions": "CF-1.8",
-            "featureType": "timeSeries",
-            "title": title,
-            "source": f"regionmap {__version__}",
-            "caution": CAUTION,
-            **(global_attrs or {}),
-        })
+        nc.attrs.update(
+            {
+                "Conventions": "CF-1.8",
+                "featureType": "timeSeries",
+                "title": title,
+                "source": f"regionmap {__version__}",
+                "caution": CAUTION,
+                **(global_attrs or {}),
+            }
+        )
         nc.createDimension("cell", n_cell)
         nc.createDimension("time", n_time)
         nc.createDimension("nv", 2)
         time = nc.createVariable("time", "i8", ("time",))
-        time.attrs.update({"standard_name": "time", "units": _EPOCH, "calendar": "standard", "bounds": "time_bnds", "axis": "T"})
+        time.attrs.update(
+            {
+                "standard_name": "time",
+                "units": _EPOCH,
+                "calendar": "standard",
+                "bounds": "time_bnds",
+                "axis": "T",
+            }
+        )
         time[:] = _seconds(times)
         bnds = nc.createVariable("time_bnds", "i8", ("time", "nv"))
         bnds[:] = np.stack([_seconds(interval_start), _seconds(times)], axis=1)
         fc = nc.createVariable("is_forecast", "i1", ("time",))
-        fc.attrs.update({"long_name": "forcing at this time was forecast (after the analysis time)", "flag_values": np.array([0, 1], "i1"), "flag_meanings": "analysis forecast"})
+        fc.attrs.update(
+            {
+                "long_name": "forcing at this time was forecast (after the analysis time)",
+                "flag_values": np.array([0, 1], "i1"),
+                "flag_meanings": "analysis forecast",
+            }
+        )
         fc[:] = np.asarray(is_forecast, dtype=np.int8)
         cid = nc.createVariable("cell_id", "i4", ("cell",))
         cid.attrs.update({"cf_role": "timeseries_id", "long_name": "cell identifier"})
@@ -250,8 +373,14 @@ class CellsNcWriter(_StreamingNc):
         chunk_time = max(1, min(744, n_time))
         for name, (dtype, attrs) in self.variables.items():
             var = nc.createVariable(
-                name, dtype, ("cell", "time"), zlib=True, complevel=_DEFLATE_LEVEL, shuffle=True,
-                chunksizes=(chunk_cells, chunk_time), fill_value=_fill_for(dtype),
+                name,
+                dtype,
+                ("cell", "time"),
+                zlib=True,
+                complevel=_DEFLATE_LEVEL,
+                shuffle=True,
+                chunksizes=(chunk_cells, chunk_time),
+                fill_value=_fill_for(dtype),
             )
             attrs = dict(attrs)
             if name in AMOUNTS or attrs.get("cell_methods") == "time: sum":
@@ -264,13 +393,29 @@ class CellsNcWriter(_StreamingNc):
         nc = self._nc
         spec = {
             "zone": ("str", {"long_name": "forecast zone"}),
-            "band_lower_m": ("f8", {"units": "m", "long_name": "lower edge of the elevation band (-inf: open)"}),
-            "band_upper_m": ("f8", {"units": "m", "long_name": "upper edge of the elevation band (inf: open)"}),
+            "band_lower_m": (
+                "f8",
+                {"units": "m", "long_name": "lower edge of the elevation band (-inf: open)"},
+            ),
+            "band_upper_m": (
+                "f8",
+                {"units": "m", "long_name": "upper edge of the elevation band (inf: open)"},
+            ),
             "aspect_sector": ("str", {"long_name": "aspect sector (N, NE, ... or flat)"}),
             "slope_class": ("i2", {"long_name": "slope class index (0 when slopes are not split)"}),
-            "elevation_m": ("f4", {"standard_name": "surface_altitude", "units": "m", "long_name": "mean elevation of the cell"}),
+            "elevation_m": (
+                "f4",
+                {
+                    "standard_name": "surface_altitude",
+                    "units": "m",
+                    "long_name": "mean elevation of the cell",
+                },
+            ),
             "slope_deg": ("f4", {"units": "degree", "long_name": "mean slope angle"}),
-            "aspect_deg": ("f4", {"units": "degree", "long_name": "circular-mean aspect (0 = N, clockwise)"}),
+            "aspect_deg": (
+                "f4",
+                {"units": "degree", "long_name": "circular-mean aspect (0 = N, clockwise)"},
+            ),
             "area_km2": ("f8", {"units": "km2", "long_name": "cell area"}),
             "pixel_count": ("i4", {"units": "1"}),
             "sky_view_frac": ("f4", {"units": "1", "long_name": "mean sky-view factor"}),
@@ -306,6 +451,7 @@ class CellsNcWriter(_StreamingNc):
                 prepared.append(self._prepare(name, lo, values))
         self._store(prepared)
 
+
 class ProfilesNcWriter(_StreamingNc):
     """Create ``profiles.nc`` (dims ``cell``, ``day``, ``layer``) and fill it chunk by chunk.
 
@@ -320,11 +466,20 @@ class ProfilesNcWriter(_StreamingNc):
     """
 
     @_hdf5_locked
-    def __init__(self, path, cell_ids, days, n_layers: int, layer_vars: dict[str, tuple[str, dict]]):
+    def __init__(
+        self, path, cell_ids, days, n_layers: int, layer_vars: dict[str, tuple[str, dict]]
+    ):
         nc = self._open(path)
         self._layouts = {}
         self.layer_vars = layer_vars
-        nc.attrs.update({"Conventions": "CF-1.8", "title": "regionmap daily layer snapshots", "source": f"regionmap {__version__}", "caution": CAUTION})
+        nc.attrs.update(
+            {
+                "Conventions": "CF-1.8",
+                "title": "regionmap daily layer snapshots",
+                "source": f"regionmap {__version__}",
+                "caution": CAUTION,
+            }
+        )
         nc.createDimension("cell", len(cell_ids))
         nc.createDimension("day", len(days))
         nc.createDimension("layer", n_layers)
@@ -333,10 +488,20 @@ class ProfilesNcWriter(_StreamingNc):
         day = nc.createVariable("day", "i8", ("day",))
         day.attrs.update({"standard_name": "time", "units": _EPOCH, "calendar": "standard"})
         day[:] = _seconds(days)
-        chunks = (max(1, min(PROFILES_CHUNK_CELLS, len(cell_ids))), max(1, min(31, len(days))), n_layers)
-        lc = nc.createVariable("layer_count", "i2", ("cell", "day"), zlib=True, complevel=_DEFLATE_LEVEL,
-                               chunksizes=chunks[:2],
-                               fill_value=_FILL_I16)
+        chunks = (
+            max(1, min(PROFILES_CHUNK_CELLS, len(cell_ids))),
+            max(1, min(31, len(days))),
+            n_layers,
+        )
+        lc = nc.createVariable(
+            "layer_count",
+            "i2",
+            ("cell", "day"),
+            zlib=True,
+            complevel=_DEFLATE_LEVEL,
+            chunksizes=chunks[:2],
+            fill_value=_FILL_I16,
+        )
         lc.attrs.update({"long_name": "number of layers in use (bottom first)"})
         self._layout("layer_count")
         for name, (dtype, attrs) in layer_vars.items():
@@ -345,16 +510,32 @@ class ProfilesNcWriter(_StreamingNc):
                 # strings; ``_Encoding`` makes netCDF4 and xarray read them back as strings
                 strlen = f"{name}_strlen"
                 nc.createDimension(strlen, int(dtype[1:]))
-                var = nc.createVariable(name, "S1", ("cell", "day", "layer", strlen), zlib=True, complevel=_DEFLATE_LEVEL,
-                                        chunksizes=(*chunks, int(dtype[1:])))
+                var = nc.createVariable(
+                    name,
+                    "S1",
+                    ("cell", "day", "layer", strlen),
+                    zlib=True,
+                    complevel=_DEFLATE_LEVEL,
+                    chunksizes=(*chunks, int(dtype[1:])),
+                )
                 var.attrs.update({"_Encoding": "utf-8"})
             else:
-                var = nc.createVariable(name, dtype, ("cell", "day", "layer"), zlib=True, complevel=_DEFLATE_LEVEL,
-                                        shuffle=True, chunksizes=chunks, fill_value=_fill_for(dtype))
+                var = nc.createVariable(
+                    name,
+                    dtype,
+                    ("cell", "day", "layer"),
+                    zlib=True,
+                    complevel=_DEFLATE_LEVEL,
+                    shuffle=True,
+                    chunksizes=chunks,
+                    fill_value=_fill_for(dtype),
+                )
             var.attrs.update(attrs)
             self._layout(name)
 
-    def write_chunk(self, cell_positions: np.ndarray, layer_count: np.ndarray, fields: dict[str, np.ndarray]) -> None:
+    def write_chunk(
+        self, cell_positions: np.ndarray, layer_count: np.ndarray, fields: dict[str, np.ndarray]
+    ) -> None:
         """Write one chunk's snapshots: ``layer_count`` (cell, day), fields (cell, day, layer)."""
         lo, _ = self._range(cell_positions)
         prepared = [self._prepare("layer_count", lo, np.asarray(layer_count, dtype=np.int16))]
@@ -362,12 +543,13 @@ class ProfilesNcWriter(_StreamingNc):
             if name in fields:
                 values = np.asarray(fields[name])
                 if dtype.startswith("S"):
-                    text = np.ascontiguousarray(values.astype(dtype) if values.dtype.kind == "S"
-                                                else np.asarray(values, dtype=object).astype(str).astype(dtype))
+                    text = np.ascontiguousarray(
+                        values.astype(dtype)
+                        if values.dtype.kind == "S"
+                        else np.asarray(values, dtype=object).astype(str).astype(dtype)
+                    )
                     # fixed-width bytes viewed as characters: what netCDF4.stringtochar
                     # returns, without its per-element copy
                     values = text.view("S1").reshape(*text.shape, text.dtype.itemsize)
                 prepared.append(self._prepare(name, lo, values))
         self._store(prepared)
-
-

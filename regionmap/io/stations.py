@@ -93,9 +93,7 @@ _METADATA_OPTIONAL = ("name", "exposure_class", "exposure_notes")
 @lru_cache(maxsize=1)
 def _ureg() -> pint.UnitRegistry:
     """A pint registry that also reads UDUNITS-style exponents (``m s-1``, ``W m-2``)."""
-    return pint.UnitRegistry(
-        preprocessors=[lambda s: re.sub(r"(?<=[A-Za-z])(-?\d+)", r"**\1", s)]
-    )
+    return pint.UnitRegistry(preprocessors=[lambda s: re.sub(r"(?<=[A-Za-z])(-?\d+)", r"**\1", s)])
 
 
 def _read_csv_lines(path: Path, what: str) -> tuple[pd.DataFrame, np.ndarray]:
@@ -107,8 +105,7 @@ def _read_csv_lines(path: Path, what: str) -> tuple[pd.DataFrame, np.ndarray]:
         raise InputError(f"{what} file {path} does not exist; check the path.") from None
     except (OSError, UnicodeDecodeError) as exc:
         raise InputError(
-            f"{what} file {path} cannot be read as UTF-8 text ({exc}); "
-            "save it as a UTF-8 CSV file."
+            f"{what} file {path} cannot be read as UTF-8 text ({exc}); save it as a UTF-8 CSV file."
         ) from None
     lines = text.splitlines()
     keep = [i for i, line in enumerate(lines) if line.strip() and not line.lstrip().startswith("#")]
@@ -147,8 +144,7 @@ def _parse_numbers(
     if required and missing.any():
         i = int(np.flatnonzero(missing)[0])
         raise InputError(
-            f"{path}, line {lines[i]}, column '{name}': a value is required but the field is "
-            "empty."
+            f"{path}, line {lines[i]}, column '{name}': a value is required but the field is empty."
         )
     return values
 
@@ -287,7 +283,10 @@ def _to_canonical(values: np.ndarray, name: str, unit: pint.Unit) -> np.ndarray:
     """Convert float64 values in ``unit`` to the canonical unit of ``name``."""
     ureg = _ureg()
     quantity = ureg.Quantity(values, unit)
-    if name in _WATER_DEPTH_VARIABLES and unit.dimensionality == ureg.parse_units("m").dimensionality:
+    if (
+        name in _WATER_DEPTH_VARIABLES
+        and unit.dimensionality == ureg.parse_units("m").dimensionality
+    ):
         quantity = quantity * ureg.Quantity(WATER_DENSITY_KG_M3, "kg m-3")
     return np.asarray(quantity.to(CANONICAL_UNITS[name]).magnitude, dtype=np.float64)
 
@@ -356,7 +355,9 @@ def _read_one_observation_file(path: Path, station_ids: pd.Index) -> pd.DataFram
     return out
 
 
-def read_observations(paths: str | Path | Iterable[str | Path], stations: pd.DataFrame) -> pd.DataFrame:
+def read_observations(
+    paths: str | Path | Iterable[str | Path], stations: pd.DataFrame
+) -> pd.DataFrame:
     """Read one or more observation files into one table in canonical SI units.
 
     Parameters

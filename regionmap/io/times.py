@@ -23,13 +23,15 @@ def utc_datetime64(value, where: str) -> np.datetime64:
         When ``value`` is not a time, naming ``where``.
     """
     if isinstance(value, dt.datetime) and value.tzinfo is not None:
-        value = value.astimezone(dt.timezone.utc).replace(tzinfo=None)
+        value = value.astimezone(dt.UTC).replace(tzinfo=None)
     try:
         stamp = pd.Timestamp(value.strip() if isinstance(value, str) else value)
     except (ValueError, TypeError):
         stamp = pd.NaT
     if pd.isna(stamp):
-        raise InputError(f"{where}: expected an ISO-8601 time such as '2026-02-10T09:30Z' (UTC), got {value!r}")
+        raise InputError(
+            f"{where}: expected an ISO-8601 time such as '2026-02-10T09:30Z' (UTC), got {value!r}"
+        )
     if stamp.tzinfo is not None:
         stamp = stamp.tz_convert("UTC").tz_localize(None)
     return np.datetime64(stamp.to_datetime64(), "s")

@@ -80,7 +80,9 @@ def _quantity(values, units: str):
     try:
         return ureg.Quantity(np.asarray(values, dtype=np.float64), normalise_units(units))
     except Exception as exc:  # pint raises several unrelated types for bad strings
-        raise UnitsProblem(f"units {units!r} are not understood ({type(exc).__name__}: {exc})") from None
+        raise UnitsProblem(
+            f"units {units!r} are not understood ({type(exc).__name__}: {exc})"
+        ) from None
 
 
 def affine_conversion(units: str, target: str) -> tuple[float, float]:

@@ -54,10 +54,14 @@ def write_geotiff(
     if data.ndim == 2:
         data = data[np.newaxis]
     if data.ndim != 3:
-        raise InputError(f"write_geotiff {path}: expected a (y, x) or (band, y, x) array, got shape {np.shape(array)}")
+        raise InputError(
+            f"write_geotiff {path}: expected a (y, x) or (band, y, x) array, got shape {np.shape(array)}"
+        )
     descriptions = [description] if isinstance(description, str) else list(description)
     if len(descriptions) != data.shape[0]:
-        raise InputError(f"write_geotiff {path}: {data.shape[0]} bands but {len(descriptions)} descriptions")
+        raise InputError(
+            f"write_geotiff {path}: {data.shape[0]} bands but {len(descriptions)} descriptions"
+        )
     if nodata is not None and np.issubdtype(data.dtype, np.floating):
         data = np.where(np.isnan(data), nodata, data).astype(data.dtype)
     count, height, width = data.shape
@@ -90,8 +94,12 @@ def write_geotiff(
                     factors = [f for f in (2, 4, 8, 16, 32) if min(height, width) // f >= 16]
                     if factors:
                         categorical = np.issubdtype(data.dtype, np.integer)
-                        dst.build_overviews(factors, Resampling.nearest if categorical else Resampling.average)
-                        dst.update_tags(ns="rio_overview", resampling="nearest" if categorical else "average")
+                        dst.build_overviews(
+                            factors, Resampling.nearest if categorical else Resampling.average
+                        )
+                        dst.update_tags(
+                            ns="rio_overview", resampling="nearest" if categorical else "average"
+                        )
         except rasterio.errors.RasterioError as exc:
             raise OutputError(f"cannot write GeoTIFF {path}: {exc}") from exc
     return Path(path)

@@ -21,7 +21,11 @@ def _polygonal_part(geom):
         return None
     if isinstance(geom, (Polygon, MultiPolygon)):
         return geom
-    parts = [g for g in shapely.get_parts(geom) if isinstance(g, (Polygon, MultiPolygon)) and not g.is_empty]
+    parts = [
+        g
+        for g in shapely.get_parts(geom)
+        if isinstance(g, (Polygon, MultiPolygon)) and not g.is_empty
+    ]
     if not parts:
         return None
     merged = shapely.union_all(parts)
@@ -59,7 +63,9 @@ def read_zones(path: str | os.PathLike, zone_field: str, dem, layer: str | None 
 
     p = Path(path)
     if not p.exists():
-        raise InputError(f"zones {p}: file not found; check the [region] zones path (relative to the config file)")
+        raise InputError(
+            f"zones {p}: file not found; check the [region] zones path (relative to the config file)"
+        )
     try:
         gdf = gpd.read_file(p, layer=layer, engine="pyogrio")
     except Exception as exc:  # pyogrio raises DataSourceError, DataLayerError, …
@@ -70,35 +76,53 @@ def read_zones(path: str | os.PathLike, zone_field: str, dem, layer: str | None 
         raise InputError(f"{where}: no features; expected polygons of forecast zones")
     if zone_field not in gdf.columns:
         fields = [c for c in gdf.columns if c != "geometry"]
-        raise InputError(f"{where}: no attribute {zone_field!r} for zone names; fields are {fields} ([region] zone_field)")
+        raise InputError(
+            f"{where}: no attribute {zone_field!r} for zone names; fields are {fields} ([region] zone_field)"
+        )
     if gdf.crs is None:
-        raise InputError(f"{where}: no coordinate reference system; expected a georeferenced file (e.g. EPSG:4326 GeoJSON)")
+        raise InputError(
+            f"{where}: no coordinate reference system; expected a georeferenced file (e.g. EPSG:4326 GeoJSON)"
+        )
     names = gdf[zone_field]
     if names.isna().any() or (names.astype(str).str.strip() == "").any():
-        raise InputError(f"{where}: {int(names.isna().sum() + (names.astype(str).str.strip() == '').sum())} zone(s) without a name in {zone_field!r}")
+        raise InputError(
+            f"{where}: {int(names.isna().sum() + (names.astype(str).str.strip() == '').sum())} zone(s) without a name in {zone_field!r}"
+        )
     names = names.astype(str).str.strip()
     dup = names[names.duplicated()].unique().tolist()
     if dup:
-        raise InputError(f"{where}: duplicate zone names {dup} in {zone_field!r}; each zone needs its own name")
+        raise InputError(
+            f"{where}: duplicate zone names {dup} in {zone_field!r}; each zone needs its own name"
+        )
     geoms = list(gdf.geometry)
     polygonal = [_polygonal_part(g) for g in geoms]
     if all(g is None for g in polygonal):
         kinds = sorted({(g.geom_type if g is not None else "empty") for g in geoms})
-        raise InputError(f"{where}: no polygons (geometry types {kinds}); expected Polygon or MultiPolygon zones")
+        raise InputError(
+            f"{where}: no polygons (geometry types {kinds}); expected Polygon or MultiPolygon zones"
+        )
     out_geoms = []
     for name, g in zip(names, polygonal):
         if g is None:
-            raise InputError(f"{where}: zone {name!r} has no polygon geometry; expected a Polygon or MultiPolygon")
+            raise InputError(
+                f"{where}: zone {name!r} has no polygon geometry; expected a Polygon or MultiPolygon"
+            )
         if not g.is_valid:
             fixed = _polygonal_part(shapely.make_valid(g))
             if fixed is None or fixed.area <= 0:
-                raise InputError(f"{where}: zone {name!r} has an invalid polygon that cannot be repaired ({shapely.is_valid_reason(g)})")
-            warn(f"{where}: zone {name!r} had an invalid polygon ({shapely.is_valid_reason(g)}); repaired with make_valid")
+                raise InputError(
+                    f"{where}: zone {name!r} has an invalid polygon that cannot be repaired ({shapely.is_valid_reason(g)})"
+                )
+            warn(
+                f"{where}: zone {name!r} had an invalid polygon ({shapely.is_valid_reason(g)}); repaired with make_valid"
+            )
             g = fixed
         out_geoms.append(g)
     zones = gpd.GeoDataFrame({"zone": names.to_numpy()}, geometry=out_geoms, crs=gdf.crs)
     zones = zones.to_crs(dem.crs).reset_index(drop=True)
-    zones["geometry"] = [g if g.is_valid else _polygonal_part(shapely.make_valid(g)) for g in zones.geometry]
+    zones["geometry"] = [
+        g if g.is_valid else _polygonal_part(shapely.make_valid(g)) for g in zones.geometry
+    ]
     # overlapping zones
     left, right = zones.sindex.query(zones.geometry, predicate="intersects")
     pairs = [(i, j) for i, j in zip(left, right) if i < j]
@@ -111,7 +135,11 @@ def read_zones(path: str | os.PathLike, zone_field: str, dem, layer: str | None 
                 f"({inter / min(areas[i], areas[j]):.1%} of the smaller); zones must not overlap (shared edges are fine)"
             )
     frame = box(*dem.bounds)
-    missing = [n for n, g in zip(zones.zone, zones.geometry) if not g.intersects(frame) or g.intersection(frame).area <= 0]
+    missing = [
+        n
+        for n, g in zip(zones.zone, zones.geometry)
+        if not g.intersects(frame) or g.intersection(frame).area <= 0
+    ]
     if missing:
         raise InputError(
             f"{where}: zone(s) {missing} lie outside the DEM {dem.path} (DEM bounds {tuple(np.round(dem.bounds, 3))} "

@@ -31,8 +31,15 @@ from regionmap.errors import InputError, warn
 from regionmap.plots.outputs import METRICS, Metric, RunOutputs
 from regionmap.plots.style import METRIC_CMAP, OKABE_ITO, new_figure, save_png
 
-__all__ = ["available_maps", "find_dem", "hillshade", "plot_metric_map", "plot_rain_crust_map",
-           "rain_crust_events", "write_metric_map"]
+__all__ = [
+    "available_maps",
+    "find_dem",
+    "hillshade",
+    "plot_metric_map",
+    "plot_rain_crust_map",
+    "rain_crust_events",
+    "write_metric_map",
+]
 
 _HALO = [patheffects.withStroke(linewidth=2.5, foreground="white")]
 
@@ -54,7 +61,11 @@ def find_dem(out) -> Path | None:
     import hashlib
 
     out = _outputs(out)
-    region = out.run.get("config", {}).get("region", {}) if isinstance(out.run.get("config"), dict) else {}
+    region = (
+        out.run.get("config", {}).get("region", {})
+        if isinstance(out.run.get("config"), dict)
+        else {}
+    )
     value = region.get("dem") if isinstance(region, dict) else None
     if not value:
         return None
@@ -64,7 +75,11 @@ def find_dem(out) -> Path | None:
     if p.is_file():
         return p
     inputs = out.run.get("inputs", {})
-    want = inputs.get("dem", {}).get("sha256") if isinstance(inputs, dict) and isinstance(inputs.get("dem"), dict) else None
+    want = (
+        inputs.get("dem", {}).get("sha256")
+        if isinstance(inputs, dict) and isinstance(inputs.get("dem"), dict)
+        else None
+    )
     if not want:
         return None
     for cand in sorted(out.out_dir.rglob(p.name)):
@@ -86,7 +101,10 @@ def _shaded_relief(out: RunOutputs, kx: float, ky: float):
 
             dem = read_dem(dem_path)
             shade = hillshade(dem.elevation_m, abs(dem.transform.a) * kx, abs(dem.transform.e) * ky)
-            cache["value"] = (np.ma.masked_invalid(shade).astype(np.float32), _extent(dem.transform, shade.shape))
+            cache["value"] = (
+                np.ma.masked_invalid(shade).astype(np.float32),
+                _extent(dem.transform, shade.shape),
+            )
     return cache["value"]
 
 
@@ -178,8 +196,16 @@ def plot_metric_map(out, metric: str, *, show_rain_crust: bool = False):
     else:
         top = m.vmax if m.vmax is not None else (float(values.max()) if values.count() else 1.0)
         norm = Normalize(0.0, top if top > 0 else 1.0)
-    im = ax.imshow(values, cmap=METRIC_CMAP, norm=norm, extent=extent, interpolation="nearest", alpha=0.72, zorder=1,
-                   gid="metric")
+    im = ax.imshow(
+        values,
+        cmap=METRIC_CMAP,
+        norm=norm,
+        extent=extent,
+        interpolation="nearest",
+        alpha=0.72,
+        zorder=1,
+        gid="metric",
+    )
     cbar = fig.colorbar(im, ax=ax, shrink=0.8, pad=0.02)
     if isinstance(norm, BoundaryNorm):
         cbar.set_ticks(np.arange(0, top + 1))
@@ -189,13 +215,19 @@ def plot_metric_map(out, metric: str, *, show_rain_crust: bool = False):
         handles += _rain_crust_lines(out, ax, crs, out.rain_crust_lines, extent)
     _finish_map(ax, handles, extent, crs, kx, ky)
     when = tags.get("valid_time", pd.Timestamp(out.map_time).strftime("%Y-%m-%dT%H:%M:%SZ"))
-    status = "forecast" if out.forecast_at(out.time_in_run(when, what=f"maps/{metric}.tif valid_time")) else "analysis"
+    status = (
+        "forecast"
+        if out.forecast_at(out.time_in_run(when, what=f"maps/{metric}.tif valid_time"))
+        else "analysis"
+    )
     when = pd.Timestamp(when).strftime("%Y-%m-%d %H:%M UTC")
     ax.set_title(f"{m.label}\nvalid {when} ({status})" + (f"; {note}" if note else ""), fontsize=10)
     return fig
 
 
-def _base_map(out: RunOutputs, width_in: float, height_in: float, kx: float, ky: float, *, quiet: bool):
+def _base_map(
+    out: RunOutputs, width_in: float, height_in: float, kx: float, ky: float, *, quiet: bool
+):
     """Figure, map axes with the hillshade, and the note for the title."""
     fig = new_figure(width_in, height_in)
     ax = fig.add_subplot(1, 1, 1)
@@ -203,10 +235,21 @@ def _base_map(out: RunOutputs, width_in: float, height_in: float, kx: float, ky:
     if relief is not None:
         shade, extent = relief
         # vmin below 0 keeps the relief light, so the metric and the lines stay readable over it
-        ax.imshow(shade, cmap="gray", vmin=-0.6, vmax=1.0, extent=extent, interpolation="nearest", zorder=0, gid="hillshade")
+        ax.imshow(
+            shade,
+            cmap="gray",
+            vmin=-0.6,
+            vmax=1.0,
+            extent=extent,
+            interpolation="nearest",
+            zorder=0,
+            gid="hillshade",
+        )
         return fig, ax, ""
     if not quiet:
-        warn(f"{out.out_dir / 'run.json'}: config.region.dem is not recorded or not on disk; map drawn without hillshade")
+        warn(
+            f"{out.out_dir / 'run.json'}: config.region.dem is not recorded or not on disk; map drawn without hillshade"
+        )
     return fig, ax, "DEM not found: no hillshade"
 
 
@@ -217,8 +260,18 @@ def _zone_outlines(out: RunOutputs, ax, crs) -> list:
     zones.boundary.plot(ax=ax, color="#111111", linewidth=1.2, zorder=3)
     for name, geom in zip(zones["zone"], zones.geometry):
         p = geom.representative_point()
-        ax.text(p.x, p.y, str(name), ha="center", va="center", fontsize=9, weight="bold", zorder=5,
-                path_effects=_HALO, gid="zone-name")
+        ax.text(
+            p.x,
+            p.y,
+            str(name),
+            ha="center",
+            va="center",
+            fontsize=9,
+            weight="bold",
+            zorder=5,
+            path_effects=_HALO,
+            gid="zone-name",
+        )
     return [Line2D([], [], color="#111111", linewidth=1.2, label="zone boundary")]
 
 
@@ -237,8 +290,10 @@ def _rain_crust_lines(out: RunOutputs, ax, crs, lines, extent) -> list:
     if crs is not None and lines.crs is not None and lines.crs != crs:
         lines = lines.to_crs(crs)
     min_gap = _LABEL_SPACING_FRAC * abs(extent[1] - extent[0])
-    styles = {"upper": ("-", "rain-crust line, upper limit (rain-snow transition)"),
-              "lower": ("--", "rain-crust line, lower limit (snow line at the time)")}
+    styles = {
+        "upper": ("-", "rain-crust line, upper limit (rain-snow transition)"),
+        "lower": ("--", "rain-crust line, lower limit (snow line at the time)"),
+    }
     handles, placed = [], []
     for limit, (ls, label) in styles.items():
         part = lines[lines["limit"] == limit] if "limit" in lines.columns else lines
@@ -247,19 +302,37 @@ def _rain_crust_lines(out: RunOutputs, ax, crs, lines, extent) -> list:
         part.plot(ax=ax, color=_RAIN_CRUST_COLOUR, linewidth=1.6, linestyle=ls, zorder=4)
         groups = part.groupby("zone", sort=True) if "zone" in part.columns else [("", part)]
         for _, g in groups:
-            pieces = [(piece.length, piece) for geom in g.geometry for piece in getattr(geom, "geoms", [geom])]
+            pieces = [
+                (piece.length, piece)
+                for geom in g.geometry
+                for piece in getattr(geom, "geoms", [geom])
+            ]
             if not pieces:
                 continue
             longest = max(pieces, key=lambda t: t[0])[1]
             p = longest.interpolate(0.5, normalized=True)
             if any(np.hypot(p.x - q[0], p.y - q[1]) < min_gap for q in placed):
                 continue
-            lo, hi = (10 * round(float(v) / 10) for v in (g["elevation_m"].min(), g["elevation_m"].max()))
+            lo, hi = (
+                10 * round(float(v) / 10) for v in (g["elevation_m"].min(), g["elevation_m"].max())
+            )
             text = f"{lo:.0f} m" if lo == hi else f"{lo:.0f}–{hi:.0f} m"
-            ax.text(p.x, p.y, text, fontsize=7, zorder=6, ha="center", va="bottom", path_effects=_HALO, color=_RAIN_CRUST_COLOUR,
-                    gid="rain-crust-label")
+            ax.text(
+                p.x,
+                p.y,
+                text,
+                fontsize=7,
+                zorder=6,
+                ha="center",
+                va="bottom",
+                path_effects=_HALO,
+                color=_RAIN_CRUST_COLOUR,
+                gid="rain-crust-label",
+            )
             placed.append((p.x, p.y))
-        handles.append(Line2D([], [], color=_RAIN_CRUST_COLOUR, linewidth=1.6, linestyle=ls, label=label))
+        handles.append(
+            Line2D([], [], color=_RAIN_CRUST_COLOUR, linewidth=1.6, linestyle=ls, label=label)
+        )
     return handles
 
 
@@ -316,8 +389,10 @@ def plot_rain_crust_map(out, event_id: int):
     lines = out.rain_crust_lines
     lines = lines[lines["event_id"] == int(event_id)] if len(lines) else lines
     if not len(lines):
-        raise InputError(f"{out.out_dir / 'zones.gpkg'}: no rain-crust line for event {event_id}; "
-                         f"events with lines: {[e for e, _ in rain_crust_events(out)]}")
+        raise InputError(
+            f"{out.out_dir / 'zones.gpkg'}: no rain-crust line for event {event_id}; "
+            f"events with lines: {[e for e, _ in rain_crust_events(out)]}"
+        )
     with rasterio.open(out.path("maps/cell_id.tif")) as src:
         transform, crs, shape = src.transform, src.crs, src.shape
     extent = _extent(transform, shape)
@@ -327,15 +402,29 @@ def plot_rain_crust_map(out, event_id: int):
     handles = _zone_outlines(out, ax, crs) + _rain_crust_lines(out, ax, crs, lines, extent)
     _finish_map(ax, handles, extent, crs, kx, ky)
     when = pd.Timestamp(lines["event_time"].iloc[0]).strftime("%Y-%m-%d %H:%M UTC")
-    ax.set_title(f"rain-crust line of the rain-on-snow event ending {when}\n"
-                 "labels: range over the zone's aspects" + (f"; {note}" if note else ""), fontsize=10)
+    ax.set_title(
+        f"rain-crust line of the rain-on-snow event ending {when}\n"
+        "labels: range over the zone's aspects" + (f"; {note}" if note else ""),
+        fontsize=10,
+    )
     return fig
 
 
 def _north_arrow(ax) -> None:
-    ax.annotate("N", xy=(0.93, 0.95), xytext=(0.93, 0.83), xycoords="axes fraction", ha="center", va="center",
-                fontsize=11, weight="bold", arrowprops={"arrowstyle": "-|>", "color": "black", "lw": 1.5},
-                gid="north-arrow", zorder=7, path_effects=_HALO)
+    ax.annotate(
+        "N",
+        xy=(0.93, 0.95),
+        xytext=(0.93, 0.83),
+        xycoords="axes fraction",
+        ha="center",
+        va="center",
+        fontsize=11,
+        weight="bold",
+        arrowprops={"arrowstyle": "-|>", "color": "black", "lw": 1.5},
+        gid="north-arrow",
+        zorder=7,
+        path_effects=_HALO,
+    )
 
 
 def _scale_bar(ax, extent, metres_per_unit_x: float) -> None:
@@ -348,11 +437,29 @@ def _scale_bar(ax, extent, metres_per_unit_x: float) -> None:
     x0 = left + 0.05 * (right - left)
     y0 = bottom + 0.05 * (top - bottom)
     h = 0.012 * (top - bottom)
-    bar = Rectangle((x0, y0), length_u, h, facecolor="black", edgecolor="white", linewidth=0.8, zorder=7, gid="scale-bar")
+    bar = Rectangle(
+        (x0, y0),
+        length_u,
+        h,
+        facecolor="black",
+        edgecolor="white",
+        linewidth=0.8,
+        zorder=7,
+        gid="scale-bar",
+    )
     ax.add_patch(bar)
     label = f"{length_m / 1000:g} km" if length_m >= 1000 else f"{length_m:g} m"
-    ax.text(x0 + length_u / 2, y0 + 2.2 * h, label, ha="center", va="bottom", fontsize=8, zorder=7,
-            path_effects=_HALO, gid="scale-bar-label")
+    ax.text(
+        x0 + length_u / 2,
+        y0 + 2.2 * h,
+        label,
+        ha="center",
+        va="bottom",
+        fontsize=8,
+        zorder=7,
+        path_effects=_HALO,
+        gid="scale-bar-label",
+    )
 
 
 def write_metric_map(out, metric: str) -> Path:

@@ -28,8 +28,25 @@ from regionmap.summaries import band_label, cell_values, summarise
 __all__ = ["Metric", "METRICS", "RunOutputs", "SECTOR_ORDER", "metric"]
 
 #: compass sectors in clockwise order from north, then flat.
-SECTOR_ORDER: tuple[str, ...] = ("N", "NNE", "NE", "ENE", "E", "ESE", "SE", "SSE", "S", "SSW", "SW",
-                                 "WSW", "W", "WNW", "NW", "NNW", "flat")
+SECTOR_ORDER: tuple[str, ...] = (
+    "N",
+    "NNE",
+    "NE",
+    "ENE",
+    "E",
+    "ESE",
+    "SE",
+    "SSE",
+    "S",
+    "SSW",
+    "SW",
+    "WSW",
+    "W",
+    "WNW",
+    "NW",
+    "NNW",
+    "flat",
+)
 
 
 @dataclass(frozen=True)
@@ -56,18 +73,60 @@ class Metric:
     decimals: int = 0
 
 
-METRICS: dict[str, Metric] = {m.name: m for m in (
-    Metric("depth_hoar_fraction", "depth-hoar presence (area share)", "%", "depth_hoar_fraction", 100.0, 100.0),
-    Metric("pwl_fraction", "persistent-weak-layer presence (area share)", "%", "pwl_fraction", 100.0, 100.0),
-    Metric("pwl_depth_cm", "depth of the uppermost persistent weak layer", "cm", "pwl_depth_cm"),
-    Metric("pwl_slab_cm", "slab above the uppermost persistent weak layer (slope-normal)", "cm", "pwl_slab_cm"),
-    Metric("crust_count", "crusts and ice layers in the column", "count", "crust_count_mean", decimals=1),
-    Metric("new_snow_24h_cm", "new snow, last observation day", "cm", "new_snow_24h_cm"),
-    Metric("new_snow_72h_cm", "new snow, last three observation days", "cm", "new_snow_72h_cm"),
-    Metric("new_snow_72h_kg_m2", "snowfall water equivalent, last three observation days", "kg m-2", "new_snow_72h_kg_m2"),
-    Metric("snow_depth_cm", "snow depth (vertical)", "cm", "snow_depth_cm"),
-    Metric("threshold_count_max", "worst structural threshold count", "of 6", "threshold_count_max", vmax=6.0, decimals=1),
-)}
+METRICS: dict[str, Metric] = {
+    m.name: m
+    for m in (
+        Metric(
+            "depth_hoar_fraction",
+            "depth-hoar presence (area share)",
+            "%",
+            "depth_hoar_fraction",
+            100.0,
+            100.0,
+        ),
+        Metric(
+            "pwl_fraction",
+            "persistent-weak-layer presence (area share)",
+            "%",
+            "pwl_fraction",
+            100.0,
+            100.0,
+        ),
+        Metric(
+            "pwl_depth_cm", "depth of the uppermost persistent weak layer", "cm", "pwl_depth_cm"
+        ),
+        Metric(
+            "pwl_slab_cm",
+            "slab above the uppermost persistent weak layer (slope-normal)",
+            "cm",
+            "pwl_slab_cm",
+        ),
+        Metric(
+            "crust_count",
+            "crusts and ice layers in the column",
+            "count",
+            "crust_count_mean",
+            decimals=1,
+        ),
+        Metric("new_snow_24h_cm", "new snow, last observation day", "cm", "new_snow_24h_cm"),
+        Metric("new_snow_72h_cm", "new snow, last three observation days", "cm", "new_snow_72h_cm"),
+        Metric(
+            "new_snow_72h_kg_m2",
+            "snowfall water equivalent, last three observation days",
+            "kg m-2",
+            "new_snow_72h_kg_m2",
+        ),
+        Metric("snow_depth_cm", "snow depth (vertical)", "cm", "snow_depth_cm"),
+        Metric(
+            "threshold_count_max",
+            "worst structural threshold count",
+            "of 6",
+            "threshold_count_max",
+            vmax=6.0,
+            decimals=1,
+        ),
+    )
+}
 
 
 def metric(name: str) -> Metric:
@@ -94,8 +153,10 @@ class RunOutputs:
     def __init__(self, out_dir):
         self.out_dir = Path(out_dir)
         if not self.out_dir.is_dir():
-            raise InputError(f"output folder {self.out_dir} does not exist; expected the folder a "
-                             "regionmap run wrote (hint: regionmap demo --out DIR)")
+            raise InputError(
+                f"output folder {self.out_dir} does not exist; expected the folder a "
+                "regionmap run wrote (hint: regionmap demo --out DIR)"
+            )
         rj = self.out_dir / "run.json"
         try:
             self.run = json.loads(rj.read_text(encoding="utf-8"))
@@ -110,7 +171,9 @@ class RunOutputs:
     def path(self, name: str) -> Path:
         p = self.out_dir / name
         if not p.exists():
-            raise InputError(f"{p} is missing; expected it in a complete regionmap output folder (DESIGN §3)")
+            raise InputError(
+                f"{p} is missing; expected it in a complete regionmap output folder (DESIGN §3)"
+            )
         return p
 
     @cached_property
@@ -155,8 +218,23 @@ class RunOutputs:
     def table(self) -> pd.DataFrame:
         """The cell table (``cells.nc`` variables along ``cell``), indexed by ``cell_id``."""
         ds = self.cells
-        cols = [v for v in ("zone", "band_lower_m", "band_upper_m", "aspect_sector", "slope_class", "elevation_m",
-                            "slope_deg", "aspect_deg", "area_km2", "lat", "lon") if v in ds.variables]
+        cols = [
+            v
+            for v in (
+                "zone",
+                "band_lower_m",
+                "band_upper_m",
+                "aspect_sector",
+                "slope_class",
+                "elevation_m",
+                "slope_deg",
+                "aspect_deg",
+                "area_km2",
+                "lat",
+                "lon",
+            )
+            if v in ds.variables
+        ]
         frame = pd.DataFrame({c: ds[c].values for c in cols})
         for c in ("zone", "aspect_sector"):
             if c in frame:
@@ -200,7 +278,9 @@ class RunOutputs:
 
         path = self.path("zones.gpkg")
         if "rain_crust_line" not in [n for n, _ in pyogrio.list_layers(path)]:
-            raise InputError(f"{path}: no layer 'rain_crust_line'; expected layers zones, cells, rain_crust_line")
+            raise InputError(
+                f"{path}: no layer 'rain_crust_line'; expected layers zones, cells, rain_crust_line"
+            )
         return gpd.read_file(path, layer="rain_crust_line", engine="pyogrio")
 
     @cached_property
@@ -258,8 +338,10 @@ class RunOutputs:
         t = utc_datetime64(value, what)
         times = self.times
         if t < times[0] or t > times[-1]:
-            raise InputError(f"{what}: {t} is outside the run ({times[0]} … {times[-1]} UTC); "
-                             "hint: pick a time inside the run's period")
+            raise InputError(
+                f"{what}: {t} is outside the run ({times[0]} … {times[-1]} UTC); "
+                "hint: pick a time inside the run's period"
+            )
         return times[np.searchsorted(times, t, side="right") - 1]
 
     def forecast_at(self, t: np.datetime64) -> bool:
@@ -290,7 +372,12 @@ class RunOutputs:
         if t not in cache:
             vals = self.cell_values_at(t)
             w, _ = self.weights
-            cache[t] = summarise(vals, self.table, w.to_numpy(), by=["zone", "band_lower_m", "band_upper_m", "aspect_sector"])
+            cache[t] = summarise(
+                vals,
+                self.table,
+                w.to_numpy(),
+                by=["zone", "band_lower_m", "band_upper_m", "aspect_sector"],
+            )
         return cache[t]
 
     def cell_values_at(self, t: np.datetime64) -> pd.DataFrame:
@@ -299,8 +386,14 @@ class RunOutputs:
             table = self.table.drop(columns=["band"])
             d = self.snapshot_position(t)  # cell_values uses the last snapshot at or before t
             prof = self.profiles_on_day(d) if d >= 0 else self.profiles
-            cache[t] = cell_values(self.cells, prof, table, [t], local_timezone=self.local_timezone,
-                                   observation_hour=self.observation_hour)
+            cache[t] = cell_values(
+                self.cells,
+                prof,
+                table,
+                [t],
+                local_timezone=self.local_timezone,
+                observation_hour=self.observation_hour,
+            )
         return cache[t]
 
     def check_zone(self, zone: str) -> str:

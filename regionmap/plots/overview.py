@@ -17,14 +17,21 @@ import numpy as np
 import pandas as pd
 from matplotlib import patheffects
 from matplotlib.cm import ScalarMappable
-from matplotlib.colors import Normalize
 from matplotlib.collections import PolyCollection
+from matplotlib.colors import Normalize
 from matplotlib.patches import Rectangle
 
 from regionmap.plots.outputs import SECTOR_ORDER, Metric, RunOutputs, metric
 from regionmap.plots.style import METRIC_CMAP, new_figure, save_png, slug, text_colour_on
 
-__all__ = ["overview_table", "plot_overview", "write_overview", "sector_layout", "sector_ring_polygons", "HOLE_RINGS"]
+__all__ = [
+    "overview_table",
+    "plot_overview",
+    "write_overview",
+    "sector_layout",
+    "sector_ring_polygons",
+    "HOLE_RINGS",
+]
 
 #: radius of the empty centre, in rings (keeps the innermost values readable).
 HOLE_RINGS = 0.6
@@ -67,8 +74,18 @@ def overview_table(out, zone: str, metric_name: str, *, time=None) -> pd.DataFra
     order, _ = sector_layout(out.table["aspect_sector"].unique())
     if (table["aspect_sector"] == "flat").any():
         order = [*order, "flat"]
-    bands = table[["band_lower_m", "band_upper_m", "band"]].drop_duplicates().sort_values("band_lower_m", ascending=False)
-    wide = z.pivot_table(index="band", columns="aspect_sector", values=m.summary_column, aggfunc="first", dropna=False)
+    bands = (
+        table[["band_lower_m", "band_upper_m", "band"]]
+        .drop_duplicates()
+        .sort_values("band_lower_m", ascending=False)
+    )
+    wide = z.pivot_table(
+        index="band",
+        columns="aspect_sector",
+        values=m.summary_column,
+        aggfunc="first",
+        dropna=False,
+    )
     wide = wide.reindex(index=bands["band"], columns=order) * m.scale
     wide.insert(0, "band_upper_m", bands["band_upper_m"].to_numpy())
     wide.insert(0, "band_lower_m", bands["band_lower_m"].to_numpy())
@@ -136,34 +153,59 @@ def plot_overview(out, zone: str, metric_name: str, *, time=None):
     ok = np.isfinite(v)
     colours = METRIC_CMAP(norm(np.where(ok, v, 0.0)))
     labels = np.array([f"{wide.index[r]}|{compass[k]}" for r, k in zip(ring, sector)], dtype=object)
-    filled = PolyCollection(list(verts[ok]), facecolors=colours[ok], edgecolors="#444444", linewidths=0.6,
-                            gid="sector-rings")
+    filled = PolyCollection(
+        list(verts[ok]),
+        facecolors=colours[ok],
+        edgecolors="#444444",
+        linewidths=0.6,
+        gid="sector-rings",
+    )
     filled.set_urls(list(labels[ok]))
-    empty = PolyCollection(list(verts[~ok]), facecolors="white", edgecolors="#444444", linewidths=0.6, hatch="///",
-                           gid="no-terrain")
+    empty = PolyCollection(
+        list(verts[~ok]),
+        facecolors="white",
+        edgecolors="#444444",
+        linewidths=0.6,
+        hatch="///",
+        gid="no-terrain",
+    )
     empty.set_urls(list(labels[~ok]))
     ax.add_collection(filled)
     ax.add_collection(empty)
     theta = np.deg2rad(sector * width_deg)
     for th, r, val, c in zip(theta[ok], ring[ok], v[ok], colours[ok]):
-        ax.text(th, HOLE_RINGS + r + 0.5, _fmt(val, m.decimals), ha="center", va="center", fontsize=size,
-                color=text_colour_on(c))
+        ax.text(
+            th,
+            HOLE_RINGS + r + 0.5,
+            _fmt(val, m.decimals),
+            ha="center",
+            va="center",
+            fontsize=size,
+            color=text_colour_on(c),
+        )
     ax.set_ylim(0, HOLE_RINGS + n_band)
     ax.set_xticks(np.deg2rad(np.arange(len(compass)) * width_deg), compass)
     step = max(1, int(np.ceil(n_band / _MAX_RING_LABELS)))
     shown = np.arange(0, n_band, step)
-    ax.set_yticks(HOLE_RINGS + shown + 0.5, [f"{wide.index[i]} m" for i in shown], fontsize=max(5.0, size - 1))
+    ax.set_yticks(
+        HOLE_RINGS + shown + 0.5, [f"{wide.index[i]} m" for i in shown], fontsize=max(5.0, size - 1)
+    )
     for label in ax.get_yticklabels():
         label.set_path_effects([patheffects.withStroke(linewidth=2.0, foreground="white")])
     ax.set_rlabel_position(width_deg / 2.0)
     ax.grid(False)
     ax.spines["polar"].set_visible(False)
     terrain = "avalanche terrain" if out.weights[1].startswith("avalanche") else "terrain"
-    ax.set_xlabel(f"aspect (slope facing); rings: elevation band, highest in the centre\n"
-                  f"hatched: no {terrain} in that band and aspect", fontsize=8)
+    ax.set_xlabel(
+        f"aspect (slope facing); rings: elevation band, highest in the centre\n"
+        f"hatched: no {terrain} in that band and aspect",
+        fontsize=8,
+    )
     status = "forecast" if out.forecast_at(t) else "analysis"
     when = pd.Timestamp(t).strftime("%Y-%m-%d %H:%M UTC")
-    fig.suptitle(f"{zone}: {m.label}\nvalid {when} ({status}), weighted over {out.weights[1]}", fontsize=10)
+    fig.suptitle(
+        f"{zone}: {m.label}\nvalid {when} ({status}), weighted over {out.weights[1]}", fontsize=10
+    )
     sm = ScalarMappable(norm=norm, cmap=METRIC_CMAP)
     cbar = fig.colorbar(sm, ax=ax, orientation="horizontal", shrink=0.6, pad=0.08)
     cbar.set_label(f"{m.label} [{m.units}]", fontsize=8)
@@ -176,20 +218,41 @@ def plot_overview(out, zone: str, metric_name: str, *, time=None):
             val = float(row["flat"])
             y = n_band - 1 - ring_k  # highest band at the top
             colour = METRIC_CMAP(norm(val)) if np.isfinite(val) else "white"
-            side.add_patch(Rectangle((0, y), 1, 1, facecolor=colour, edgecolor="#444444", linewidth=0.6,
-                                     hatch=None if np.isfinite(val) else "///", gid=f"{band}|flat"))
+            side.add_patch(
+                Rectangle(
+                    (0, y),
+                    1,
+                    1,
+                    facecolor=colour,
+                    edgecolor="#444444",
+                    linewidth=0.6,
+                    hatch=None if np.isfinite(val) else "///",
+                    gid=f"{band}|flat",
+                )
+            )
             if np.isfinite(val):
-                side.text(0.5, y + 0.5, _fmt(val, m.decimals), ha="center", va="center", fontsize=size,
-                          color=text_colour_on(colour))
+                side.text(
+                    0.5,
+                    y + 0.5,
+                    _fmt(val, m.decimals),
+                    ha="center",
+                    va="center",
+                    fontsize=size,
+                    color=text_colour_on(colour),
+                )
         rows = np.arange(n_band)[::-1]  # position y holds wide row n_band-1-y
-        side.set_yticks(rows[shown] + 0.5, [f"{wide.index[i]} m" for i in shown], fontsize=max(5.0, size - 1))
+        side.set_yticks(
+            rows[shown] + 0.5, [f"{wide.index[i]} m" for i in shown], fontsize=max(5.0, size - 1)
+        )
         side.set_title("flat", fontsize=9)
     else:
         side.set_axis_off()
     return fig
 
 
-def sector_ring_polygons(n_band: int, n_sector: int, width_deg: float) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+def sector_ring_polygons(
+    n_band: int, n_sector: int, width_deg: float
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Polygons of the overview's sector-rings in polar data coordinates (theta [rad], r).
 
     Ring ``b`` (0 = highest band) spans r from ``HOLE_RINGS + b`` to ``HOLE_RINGS + b + 1``;
@@ -224,7 +287,7 @@ def _trim(wide: pd.DataFrame) -> pd.DataFrame:
     has = np.isfinite(wide[sectors].to_numpy(np.float64)).any(axis=1)
     if has.any():
         idx = np.nonzero(has)[0]
-        wide = wide.iloc[idx[0]: idx[-1] + 1]
+        wide = wide.iloc[idx[0] : idx[-1] + 1]
     return wide
 
 

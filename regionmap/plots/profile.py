@@ -29,7 +29,14 @@ from matplotlib.patches import Patch
 
 from regionmap.errors import InputError
 from regionmap.plots.outputs import SECTOR_ORDER, RunOutputs
-from regionmap.plots.style import GRAIN_MAIN_COLOURS, grain_colour, grain_main_class, new_figure, save_png, text_colour_on
+from regionmap.plots.style import (
+    GRAIN_MAIN_COLOURS,
+    grain_colour,
+    grain_main_class,
+    new_figure,
+    save_png,
+    text_colour_on,
+)
 from regionmap.snow.codes import PERSISTENT_CODES, grain_strings_to_codes
 from regionmap.snow.hardness import HARDNESS_LABELS
 from regionmap.snow.stability import threshold_counts_of_profile
@@ -72,7 +79,9 @@ def select_cell(out, *, cell=None, zone=None, band=None, aspect=None, slope_clas
         except (TypeError, ValueError):
             raise InputError(f"profile: --cell expects an integer cell id, got {cell!r}") from None
         if cid not in t.index:
-            raise InputError(f"profile: cell {cid} is not in this run (cell ids {t.index.min()}–{t.index.max()})")
+            raise InputError(
+                f"profile: cell {cid} is not in this run (cell ids {t.index.min()}–{t.index.max()})"
+            )
         return cid
     if zone is None or band is None or aspect is None:
         raise InputError("profile: give --cell ID, or all of --zone, --band LOW-HIGH and --aspect")
@@ -83,25 +92,35 @@ def select_cell(out, *, cell=None, zone=None, band=None, aspect=None, slope_clas
     zb = z[z["band"] == key]
     if zb.empty:
         bands = list(z.sort_values("band_lower_m")["band"].unique())
-        raise InputError(f"profile: zone {zone!r} has no band {band!r}; its bands are {bands} (write LOW-HIGH in m)")
+        raise InputError(
+            f"profile: zone {zone!r} has no band {band!r}; its bands are {bands} (write LOW-HIGH in m)"
+        )
     wanted = {s.lower(): s for s in SECTOR_ORDER}.get(str(aspect).strip().lower())
     zba = zb[zb["aspect_sector"] == wanted]
     if zba.empty:
         have = [s for s in SECTOR_ORDER if s in set(zb["aspect_sector"])]
-        raise InputError(f"profile: zone {zone!r} band {key} has no aspect {aspect!r}; it has {have}")
+        raise InputError(
+            f"profile: zone {zone!r} band {key} has no aspect {aspect!r}; it has {have}"
+        )
     if slope_class is not None:
         try:
             k = int(slope_class)
         except (TypeError, ValueError):
-            raise InputError(f"profile: --slope-class expects an integer, got {slope_class!r}") from None
+            raise InputError(
+                f"profile: --slope-class expects an integer, got {slope_class!r}"
+            ) from None
         hit = zba[zba["slope_class"] == k]
         if hit.empty:
-            raise InputError(f"profile: no slope class {k} in zone {zone!r} band {key} aspect {wanted}; "
-                             f"classes there: {sorted(zba['slope_class'].unique().tolist())}")
+            raise InputError(
+                f"profile: no slope class {k} in zone {zone!r} band {key} aspect {wanted}; "
+                f"classes there: {sorted(zba['slope_class'].unique().tolist())}"
+            )
         zba = hit
     if len(zba) > 1:
-        raise InputError(f"profile: zone {zone!r} band {key} aspect {wanted} has slope classes "
-                         f"{sorted(zba['slope_class'].tolist())}; choose one with --slope-class K")
+        raise InputError(
+            f"profile: zone {zone!r} band {key} aspect {wanted} has slope classes "
+            f"{sorted(zba['slope_class'].tolist())}; choose one with --slope-class K"
+        )
     return int(zba.index[0])
 
 
@@ -121,7 +140,9 @@ def read_profile(out, cell_id: int, time=None) -> dict:
     days = out.profile_days
     d = out.snapshot_position(t)
     if d < 0:
-        raise InputError(f"profile: no daily snapshot at or before {t} (the first is {days[0]} UTC)")
+        raise InputError(
+            f"profile: no daily snapshot at or before {t} (the first is {days[0]} UTC)"
+        )
     prof = out.profiles_on_day(d)
     pos = int(np.nonzero(prof["cell_id"].values == cell_id)[0][0])
     snap = prof.isel(cell=pos, day=0)
@@ -142,18 +163,38 @@ def read_profile(out, cell_id: int, time=None) -> dict:
     grain = strings("grain_class")
     with np.errstate(invalid="ignore", divide="ignore"):
         density = np.where(thick > 0, mass / thick, np.nan)
-        lwc = np.where(thick > 0, arr("liquid_kg_m2") / _WATER_DENSITY_KG_M3 / thick * 100.0, np.nan)
+        lwc = np.where(
+            thick > 0, arr("liquid_kg_m2") / _WATER_DENSITY_KG_M3 / thick * 100.0, np.nan
+        )
     crust = strings("crust_kind")
     return {
-        "day": days[d], "valid_time": t, "thickness_m": thick, "bottom_cm": top - thick * 100.0, "top_cm": top,
-        "grain": grain, "crust": np.where(crust == "", "none", crust), "hardness": arr("hardness_index"),
-        "grain_size_mm": arr("grain_size_mm"), "temperature_c": arr("temperature_k") - 273.15,
-        "density_kg_m3": density, "lwc_pct": lwc, "persistent": np.isin(grain, PERSISTENT_CODES),
+        "day": days[d],
+        "valid_time": t,
+        "thickness_m": thick,
+        "bottom_cm": top - thick * 100.0,
+        "top_cm": top,
+        "grain": grain,
+        "crust": np.where(crust == "", "none", crust),
+        "hardness": arr("hardness_index"),
+        "grain_size_mm": arr("grain_size_mm"),
+        "temperature_c": arr("temperature_k") - 273.15,
+        "density_kg_m3": density,
+        "lwc_pct": lwc,
+        "persistent": np.isin(grain, PERSISTENT_CODES),
     }
 
 
-def plot_profile(out_dir, cell_id=None, zone=None, band=None, aspect=None, time=None, *, slope_class=None,
-                 profile: dict | None = None):
+def plot_profile(
+    out_dir,
+    cell_id=None,
+    zone=None,
+    band=None,
+    aspect=None,
+    time=None,
+    *,
+    slope_class=None,
+    profile: dict | None = None,
+):
     """Draw one cell's profile (see the module text for the panels).
 
     Parameters
@@ -176,7 +217,9 @@ def plot_profile(out_dir, cell_id=None, zone=None, band=None, aspect=None, time=
         Unknown cell, zone, band, aspect or slope class; a time outside the run.
     """
     out = _outputs(out_dir)
-    cid = select_cell(out, cell=cell_id, zone=zone, band=band, aspect=aspect, slope_class=slope_class)
+    cid = select_cell(
+        out, cell=cell_id, zone=zone, band=band, aspect=aspect, slope_class=slope_class
+    )
     p = read_profile(out, cid, time) if profile is None else profile
     row = out.table.loc[cid]
     fig = new_figure(11.0, 6.2)
@@ -185,9 +228,12 @@ def plot_profile(out_dir, cell_id=None, zone=None, band=None, aspect=None, time=
     depth_total = float(p["top_cm"][-1]) if p["top_cm"].size else 0.0
     status = "forecast" if out.forecast_at(p["valid_time"]) else "analysis"
     day = pd.Timestamp(p["day"]).strftime("%Y-%m-%d %H:%M UTC")
-    fig.suptitle(f"{row['zone']}, {row['band']} m, {row['aspect_sector']} (cell {cid}, slope class {int(row['slope_class'])}, "
-                 f"mean slope {float(row.get('slope_deg', np.nan)):.0f}°)\nsimulated profile of {day} ({status}); "
-                 f"snow depth {depth_total:.0f} cm (vertical)", fontsize=10)
+    fig.suptitle(
+        f"{row['zone']}, {row['band']} m, {row['aspect_sector']} (cell {cid}, slope class {int(row['slope_class'])}, "
+        f"mean slope {float(row.get('slope_deg', np.nan)):.0f}°)\nsimulated profile of {day} ({status}); "
+        f"snow depth {depth_total:.0f} cm (vertical)",
+        fontsize=10,
+    )
     ax_h.set_ylabel("height above ground [cm]")
     ax_h.set_xlim(0, 6.9)
     ax_h.set_xticks(list(HARDNESS_LABELS.values()), list(HARDNESS_LABELS))
@@ -199,25 +245,79 @@ def plot_profile(out_dir, cell_id=None, zone=None, band=None, aspect=None, time=
     handles = []
     if p["top_cm"].size == 0:
         for ax in axes:
-            ax.text(0.5, 0.5, "no snow on the ground", transform=ax.transAxes, ha="center", va="center")
+            ax.text(
+                0.5, 0.5, "no snow on the ground", transform=ax.transAxes, ha="center", va="center"
+            )
         ax_h.set_ylim(0, 10)
         return fig
     bottom, top, thick_cm = p["bottom_cm"], p["top_cm"], p["thickness_m"] * 100.0
     for k, (code, crust, h) in enumerate(zip(p["grain"], p["crust"], p["hardness"])):
         colour = grain_colour(code)
         hh = float(h) if np.isfinite(h) else 1.0
-        ax_h.barh(bottom[k], hh, height=thick_cm[k], align="edge", color=colour, edgecolor="#333333", linewidth=0.4,
-                  hatch="xxx" if crust != "none" else None, gid=f"layer-{k}")
+        ax_h.barh(
+            bottom[k],
+            hh,
+            height=thick_cm[k],
+            align="edge",
+            color=colour,
+            edgecolor="#333333",
+            linewidth=0.4,
+            hatch="xxx" if crust != "none" else None,
+            gid=f"layer-{k}",
+        )
         if thick_cm[k] >= 0.025 * depth_total:
-            ax_h.text(hh / 2, bottom[k] + thick_cm[k] / 2, code, ha="center", va="center", fontsize=7,
-                      color=text_colour_on(colour), clip_on=True)
+            ax_h.text(
+                hh / 2,
+                bottom[k] + thick_cm[k] / 2,
+                code,
+                ha="center",
+                va="center",
+                fontsize=7,
+                color=text_colour_on(colour),
+                clip_on=True,
+            )
         if p["persistent"][k]:
-            ax_h.plot([6.45], [bottom[k] + thick_cm[k] / 2], marker="<", color="black", markersize=6, gid=f"pwl-{k}")
+            ax_h.plot(
+                [6.45],
+                [bottom[k] + thick_cm[k] / 2],
+                marker="<",
+                color="black",
+                markersize=6,
+                gid=f"pwl-{k}",
+            )
     edges = np.concatenate([[0.0], top])
-    ax_e.stairs(p["grain_size_mm"], edges, orientation="horizontal", baseline=None, color="#0072B2", linewidth=1.4)
-    ax_r.stairs(p["density_kg_m3"], edges, orientation="horizontal", baseline=None, color="#0072B2", linewidth=1.4)
-    ax_w.stairs(np.nan_to_num(p["lwc_pct"]), edges, orientation="horizontal", baseline=None, color="#0072B2", linewidth=1.4)
-    ax_t.plot(p["temperature_c"], 0.5 * (bottom + top), marker="o", markersize=3, color="#0072B2", linewidth=1.2)
+    ax_e.stairs(
+        p["grain_size_mm"],
+        edges,
+        orientation="horizontal",
+        baseline=None,
+        color="#0072B2",
+        linewidth=1.4,
+    )
+    ax_r.stairs(
+        p["density_kg_m3"],
+        edges,
+        orientation="horizontal",
+        baseline=None,
+        color="#0072B2",
+        linewidth=1.4,
+    )
+    ax_w.stairs(
+        np.nan_to_num(p["lwc_pct"]),
+        edges,
+        orientation="horizontal",
+        baseline=None,
+        color="#0072B2",
+        linewidth=1.4,
+    )
+    ax_t.plot(
+        p["temperature_c"],
+        0.5 * (bottom + top),
+        marker="o",
+        markersize=3,
+        color="#0072B2",
+        linewidth=1.2,
+    )
     ax_t.axvline(0.0, color="#777777", linewidth=0.6, linestyle=":")
     for lim in WETNESS_LIMITS_PCT[1:]:
         ax_w.axvline(lim, color="#999999", linewidth=0.5, linestyle=":")
@@ -232,26 +332,50 @@ def plot_profile(out_dir, cell_id=None, zone=None, band=None, aspect=None, time=
     handles += [Patch(facecolor=GRAIN_MAIN_COLOURS[c], edgecolor="#333333", label=c) for c in mains]
     if (p["crust"] != "none").any():
         kinds = ", ".join(sorted(set(p["crust"][p["crust"] != "none"])))
-        handles.append(Patch(facecolor="white", edgecolor="#333333", hatch="xxx", label=f"crust ({kinds})"))
+        handles.append(
+            Patch(facecolor="white", edgecolor="#333333", hatch="xxx", label=f"crust ({kinds})")
+        )
     if p["persistent"].any():
-        handles.append(Line2D([], [], marker="<", color="black", linestyle="none", label="persistent weak layer"))
+        handles.append(
+            Line2D(
+                [], [], marker="<", color="black", linestyle="none", label="persistent weak layer"
+            )
+        )
     if top.size >= 2:
         codes = grain_strings_to_codes(p["grain"]).astype(np.int64)
-        count, depth_m = threshold_counts_of_profile(p["thickness_m"], p["grain_size_mm"],
-                                                     np.nan_to_num(p["hardness"], nan=1.0), codes)
+        count, depth_m = threshold_counts_of_profile(
+            p["thickness_m"], p["grain_size_mm"], np.nan_to_num(p["hardness"], nan=1.0), codes
+        )
         if count.size and np.isfinite(count).any():
             k = int(np.nanargmax(count))
             height = top[k]
             for ax in axes:
-                ax.axhline(height, color="black", linestyle="--", linewidth=1.1, gid="worst-interface")
-            handles.append(Line2D([], [], color="black", linestyle="--",
-                                  label=f"worst interface: threshold count {count[k]:.1f} of 6, "
-                                        f"{depth_m[k] * 100:.0f} cm below the surface"))
-    fig.legend(handles=handles, loc="outside lower center", ncols=min(len(handles), 5), fontsize=7, frameon=False)
+                ax.axhline(
+                    height, color="black", linestyle="--", linewidth=1.1, gid="worst-interface"
+                )
+            handles.append(
+                Line2D(
+                    [],
+                    [],
+                    color="black",
+                    linestyle="--",
+                    label=f"worst interface: threshold count {count[k]:.1f} of 6, "
+                    f"{depth_m[k] * 100:.0f} cm below the surface",
+                )
+            )
+    fig.legend(
+        handles=handles,
+        loc="outside lower center",
+        ncols=min(len(handles), 5),
+        fontsize=7,
+        frameon=False,
+    )
     return fig
 
 
-def profile_command(out_dir, cell=None, zone=None, band=None, aspect=None, slope_class=None, time=None) -> Path:
+def profile_command(
+    out_dir, cell=None, zone=None, band=None, aspect=None, slope_class=None, time=None
+) -> Path:
     """``regionmap profile OUTDIR (--cell ID | --zone Z --band LOW-HIGH --aspect A
     [--slope-class K]) [--time T]``: write ``figures/profile_cell<ID>_<YYYYmmddTHHMM>.png``
     and return its path.
@@ -264,7 +388,9 @@ def profile_command(out_dir, cell=None, zone=None, band=None, aspect=None, slope
     """
     out = _outputs(out_dir)
     try:
-        cid = select_cell(out, cell=cell, zone=zone, band=band, aspect=aspect, slope_class=slope_class)
+        cid = select_cell(
+            out, cell=cell, zone=zone, band=band, aspect=aspect, slope_class=slope_class
+        )
         t = out.map_time if time is None else out.time_in_run(time)
         fig = plot_profile(out, cid, time=t)
         stamp = pd.Timestamp(t).strftime("%Y%m%dT%H%M")

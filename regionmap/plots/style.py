@@ -79,9 +79,18 @@ _UNKNOWN_GRAIN = "#BBBBBB"
 
 #: The sequential ramp for metric values, light to dark (regionmap's own).
 METRIC_RAMP: tuple[str, ...] = (
-    "#F7F7FB", "#DCDFF0", "#B9BFE1", "#959ECF", "#737CBB", "#5559A3", "#3B3C86", "#232262",
+    "#F7F7FB",
+    "#DCDFF0",
+    "#B9BFE1",
+    "#959ECF",
+    "#737CBB",
+    "#5559A3",
+    "#3B3C86",
+    "#232262",
 )
-METRIC_CMAP = LinearSegmentedColormap.from_list("regionmap_indigo", METRIC_RAMP, N=256).with_extremes(bad=(1.0, 1.0, 1.0, 0.0))
+METRIC_CMAP = LinearSegmentedColormap.from_list(
+    "regionmap_indigo", METRIC_RAMP, N=256
+).with_extremes(bad=(1.0, 1.0, 1.0, 0.0))
 
 #: Print resolution of the PNGs under figures/ [dots per inch] (150 dpi or more is the usual
 #: floor for print; common practice).
@@ -149,14 +158,18 @@ def render_png(fig: Figure, *, dpi: int = PRINT_DPI) -> tuple[bytes, np.ndarray]
     return encode_png(rgb, dpi=dpi), rgb
 
 
-def encode_png(rgb: np.ndarray, *, dpi: int = PRINT_DPI, compress_level: int = PNG_COMPRESS_LEVEL) -> bytes:
+def encode_png(
+    rgb: np.ndarray, *, dpi: int = PRINT_DPI, compress_level: int = PNG_COMPRESS_LEVEL
+) -> bytes:
     """PNG bytes of an (y, x, 3) uint8 image (Pillow), its resolution recorded as ``dpi``."""
     import io
 
     from PIL import Image
 
     buf = io.BytesIO()
-    Image.fromarray(rgb, mode="RGB").save(buf, format="PNG", compress_level=compress_level, dpi=(dpi, dpi))
+    Image.fromarray(rgb, mode="RGB").save(
+        buf, format="PNG", compress_level=compress_level, dpi=(dpi, dpi)
+    )
     return buf.getvalue()
 
 

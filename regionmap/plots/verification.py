@@ -20,8 +20,12 @@ import pandas as pd
 
 from regionmap.plots.style import OKABE_ITO, new_figure, save_png, slug
 
-__all__ = ["VARIABLE_LABELS", "scatter_figure", "accumulated_precipitation_figure",
-           "write_verification_figures"]
+__all__ = [
+    "VARIABLE_LABELS",
+    "scatter_figure",
+    "accumulated_precipitation_figure",
+    "write_verification_figures",
+]
 
 #: Axis label and display scaling (offset, factor) per canonical variable.
 VARIABLE_LABELS: dict[str, tuple[str, float, float]] = {
@@ -72,8 +76,15 @@ def scatter_figure(model: pd.DataFrame, obs: pd.DataFrame, variable: str):
     stations = pairs.index.get_level_values("station_id")
     for k, station in enumerate(pd.unique(stations)):
         sel = stations == station
-        ax.scatter(_display(variable, pairs["obs"][sel]), _display(variable, pairs["model"][sel]), s=8,
-                   alpha=0.6, color=_COLOURS[k % len(_COLOURS)], label=str(station), edgecolors="none")
+        ax.scatter(
+            _display(variable, pairs["obs"][sel]),
+            _display(variable, pairs["model"][sel]),
+            s=8,
+            alpha=0.6,
+            color=_COLOURS[k % len(_COLOURS)],
+            label=str(station),
+            edgecolors="none",
+        )
     both = np.concatenate([_display(variable, pairs["obs"]), _display(variable, pairs["model"])])
     lo, hi = float(both.min()), float(both.max())
     pad = 0.05 * (hi - lo) if hi > lo else 1.0
@@ -108,9 +119,21 @@ def accumulated_precipitation_figure(model: pd.DataFrame, obs: pd.DataFrame):
         block = pairs[stations == station]
         t = block.index.get_level_values("time")
         colour = _COLOURS[k % len(_COLOURS)]
-        ax.plot(t, np.cumsum(block["obs"].to_numpy()), color=colour, linewidth=1.5, label=f"{station} observed")
-        ax.plot(t, np.cumsum(block["model"].to_numpy()), color=colour, linewidth=1.5, linestyle="--",
-                label=f"{station} model")
+        ax.plot(
+            t,
+            np.cumsum(block["obs"].to_numpy()),
+            color=colour,
+            linewidth=1.5,
+            label=f"{station} observed",
+        )
+        ax.plot(
+            t,
+            np.cumsum(block["model"].to_numpy()),
+            color=colour,
+            linewidth=1.5,
+            linestyle="--",
+            label=f"{station} model",
+        )
     ax.set_ylabel("accumulated precipitation [kg m-2]")
     ax.set_xlabel("time [UTC]")
     ax.set_title("Accumulated precipitation: model (dashed) against gauges (solid)")

@@ -25,15 +25,15 @@ from regionmap.snow.diagnostics import (
     layer_hardness,
 )
 from regionmap.snow.kernel import (
+    A_DEPO,
+    A_ENERGY_RES,
     A_FZ,
+    A_MASS_RES,
     A_RAIN,
     A_RAIN_ON_SNOW,
-    A_ENERGY_RES,
-    A_MASS_RES,
     A_RUNOFF,
     A_SNOW,
     A_SUBL,
-    A_DEPO,
     EV_FREEZING_RAIN,
     EV_RAIN_ON_SNOW,
     J_FZ_EV,
@@ -69,8 +69,8 @@ from regionmap.snow.layering import (
     I_FORM,
     I_ROWS,
 )
-from regionmap.snow.params import N_SOIL
 from regionmap.snow.params import (
+    N_SOIL,
     P_CRUST_MIN_HARDNESS,
     P_CRUST_MIN_THICKNESS_M,
     P_DEPTH_HOAR_MIN_CM,
@@ -85,10 +85,33 @@ from regionmap.snow.vecmath import padded_count
 # diagnostics rows: float64 (mass budget) and float32 (the rest)
 D64_SWE, D64_SNOW, D64_RAIN, D64_RUNOFF, D64_SUBL, D64_DEPO, D64_MASS_RES = range(7)
 N_D64 = 7
-(D32_DEPTH_CM, D32_HN24_CM, D32_HN72_CM, D32_HN72_KG, D32_CRUST, D32_DH_PRESENT, D32_PWL,
- D32_PWL_DEPTH_CM, D32_TC_MAX, D32_LIQ_KG, D32_TS_K, D32_WETNESS, D32_CRUST_MF, D32_CRUST_SUN,
- D32_CRUST_RAIN, D32_CRUST_GLAZE, D32_PWL_THICK_CM, D32_PWL_GRAIN_MM, D32_PWL_CODE,
- D32_TC_DEPTH_CM, D32_ENERGY_RES, D32_LAYERS, D32_ALBEDO, D32_SH_MM, D32_DH_THICK_CM) = range(25)
+(
+    D32_DEPTH_CM,
+    D32_HN24_CM,
+    D32_HN72_CM,
+    D32_HN72_KG,
+    D32_CRUST,
+    D32_DH_PRESENT,
+    D32_PWL,
+    D32_PWL_DEPTH_CM,
+    D32_TC_MAX,
+    D32_LIQ_KG,
+    D32_TS_K,
+    D32_WETNESS,
+    D32_CRUST_MF,
+    D32_CRUST_SUN,
+    D32_CRUST_RAIN,
+    D32_CRUST_GLAZE,
+    D32_PWL_THICK_CM,
+    D32_PWL_GRAIN_MM,
+    D32_PWL_CODE,
+    D32_TC_DEPTH_CM,
+    D32_ENERGY_RES,
+    D32_LAYERS,
+    D32_ALBEDO,
+    D32_SH_MM,
+    D32_DH_THICK_CM,
+) = range(25)
 N_D32 = 25
 # snapshot rows
 SF_THICK, SF_ICE, SF_LIQ, SF_TEMP, SF_GRAIN, SF_HARD = range(6)
@@ -98,8 +121,9 @@ N_SI_SNAP = 5
 
 
 @njit(cache=True, nogil=True, error_model="numpy")
-def _log_event(c, kind, event_id, t_label, amount, ev_kind, ev_id, ev_first, ev_last, ev_amount,
-               ev_n):
+def _log_event(
+    c, kind, event_id, t_label, amount, ev_kind, ev_id, ev_first, ev_last, ev_amount, ev_n
+):
     """Append to or extend the cell's event log; returns a status bit on overflow."""
     k = ev_n[c]
     for j in range(k - 1, -1, -1):
@@ -119,10 +143,55 @@ def _log_event(c, kind, event_id, t_label, amount, ev_kind, ev_id, ev_first, ev_
 
 
 @njit(cache=True, nogil=True, error_model="numpy")
-def run_cells(c0, c1, time_s, t_air, rh, pres, wind, sw, lw, precip, sf, fzf, dt, zu, zt, p,
-              thick, ice, liq, temp, grain, dend, facet, code, crust, flags, dep, form, event,
-              sv_all, si_all, ring_m_all, ring_d_all, diag_every, d64, d32, snap_day, sf_out,
-              si_out, sn_out, ev_kind, ev_id, ev_first, ev_last, ev_amount, ev_n, status):
+def run_cells(
+    c0,
+    c1,
+    time_s,
+    t_air,
+    rh,
+    pres,
+    wind,
+    sw,
+    lw,
+    precip,
+    sf,
+    fzf,
+    dt,
+    zu,
+    zt,
+    p,
+    thick,
+    ice,
+    liq,
+    temp,
+    grain,
+    dend,
+    facet,
+    code,
+    crust,
+    flags,
+    dep,
+    form,
+    event,
+    sv_all,
+    si_all,
+    ring_m_all,
+    ring_d_all,
+    diag_every,
+    d64,
+    d32,
+    snap_day,
+    sf_out,
+    si_out,
+    sn_out,
+    ev_kind,
+    ev_id,
+    ev_first,
+    ev_last,
+    ev_amount,
+    ev_n,
+    status,
+):
     """Step cells ``c0 .. c1 - 1`` through all time steps (the kernel entry point).
 
     Layer arrays are (cell, layer) bottom first; ``sv_all`` (cell, N_SV) float64 and
@@ -182,17 +251,48 @@ def run_cells(c0, c1, time_s, t_air, rh, pres, wind, sw, lw, precip, sf, fzf, dt
         tot[0], tot[1] = _column_mass_enthalpy(fw, si[J_N], sv[V_SH_MASS])
         for s in range(n_steps):
             ta = t_air[c, s]
-            ok = (math.isfinite(ta) and math.isfinite(rh[c, s]) and math.isfinite(pres[c, s])
-                  and math.isfinite(wind[c, s]) and math.isfinite(sw[c, s])
-                  and math.isfinite(lw[c, s]) and math.isfinite(precip[c, s])
-                  and math.isfinite(sf[c, s]) and math.isfinite(fzf[c, s]))
+            ok = (
+                math.isfinite(ta)
+                and math.isfinite(rh[c, s])
+                and math.isfinite(pres[c, s])
+                and math.isfinite(wind[c, s])
+                and math.isfinite(sw[c, s])
+                and math.isfinite(lw[c, s])
+                and math.isfinite(precip[c, s])
+                and math.isfinite(sf[c, s])
+                and math.isfinite(fzf[c, s])
+            )
             now_s = time_s[s] - epoch
             hour_abs = time_s[s] // 3600
             if ok:
-                st |= _step(fw, iw, sv, si, ring_m, ring_d, ta, rh[c, s], pres[c, s],
-                            wind[c, s], max(sw[c, s], 0.0), lw[c, s], max(precip[c, s], 0.0),
-                            min(max(sf[c, s], 0.0), 1.0), min(max(fzf[c, s], 0.0), 1.0),
-                            now_s, hour_abs, dt, zu, zt, p, cap, wk, wb, acc, tot)
+                st |= _step(
+                    fw,
+                    iw,
+                    sv,
+                    si,
+                    ring_m,
+                    ring_d,
+                    ta,
+                    rh[c, s],
+                    pres[c, s],
+                    wind[c, s],
+                    max(sw[c, s], 0.0),
+                    lw[c, s],
+                    max(precip[c, s], 0.0),
+                    min(max(sf[c, s], 0.0), 1.0),
+                    min(max(fzf[c, s], 0.0), 1.0),
+                    now_s,
+                    hour_abs,
+                    dt,
+                    zu,
+                    zt,
+                    p,
+                    cap,
+                    wk,
+                    wb,
+                    acc,
+                    tot,
+                )
             else:
                 st |= ST_NONFINITE
                 for k in range(N_ACC):
@@ -200,11 +300,33 @@ def run_cells(c0, c1, time_s, t_air, rh, pres, wind, sw, lw, precip, sf, fzf, dt
             for k in range(N_ACC):
                 sums[k] += acc[k]
             if acc[A_RAIN_ON_SNOW] >= p[P_EVENT_MIN_KG_M2]:
-                st |= _log_event(c, EV_RAIN_ON_SNOW, si[J_RAIN_EV], time_s[s], acc[A_RAIN_ON_SNOW],
-                                 ev_kind, ev_id, ev_first, ev_last, ev_amount, ev_n)
+                st |= _log_event(
+                    c,
+                    EV_RAIN_ON_SNOW,
+                    si[J_RAIN_EV],
+                    time_s[s],
+                    acc[A_RAIN_ON_SNOW],
+                    ev_kind,
+                    ev_id,
+                    ev_first,
+                    ev_last,
+                    ev_amount,
+                    ev_n,
+                )
             if acc[A_FZ] > 0.0:
-                st |= _log_event(c, EV_FREEZING_RAIN, si[J_FZ_EV], time_s[s], acc[A_FZ],
-                                 ev_kind, ev_id, ev_first, ev_last, ev_amount, ev_n)
+                st |= _log_event(
+                    c,
+                    EV_FREEZING_RAIN,
+                    si[J_FZ_EV],
+                    time_s[s],
+                    acc[A_FZ],
+                    ev_kind,
+                    ev_id,
+                    ev_first,
+                    ev_last,
+                    ev_amount,
+                    ev_n,
+                )
             n = si[J_N]
             last_of_interval = (s + 1) % diag_every == 0
             day = snap_day[s]
@@ -212,9 +334,18 @@ def run_cells(c0, c1, time_s, t_air, rh, pres, wind, sw, lw, precip, sf, fzf, dt
                 layer_hardness(fw, iw, n, hard)
             if last_of_interval:
                 o = s // diag_every
-                column_structure(fw, iw, n, hard, p[P_CRUST_MIN_THICKNESS_M],
-                                 p[P_CRUST_MIN_HARDNESS], p[P_PWL_MIN_DEPTH_M], relative,
-                                 scratch, struct)
+                column_structure(
+                    fw,
+                    iw,
+                    n,
+                    hard,
+                    p[P_CRUST_MIN_THICKNESS_M],
+                    p[P_CRUST_MIN_HARDNESS],
+                    p[P_PWL_MIN_DEPTH_M],
+                    relative,
+                    scratch,
+                    struct,
+                )
                 depth = 0.0
                 liq_sum = 0.0
                 for i in range(n):
@@ -251,11 +382,19 @@ def run_cells(c0, c1, time_s, t_air, rh, pres, wind, sw, lw, precip, sf, fzf, dt
                 d32[D32_CRUST_RAIN, c, o] = struct[S_CRUST + 3]
                 d32[D32_CRUST_GLAZE, c, o] = struct[S_CRUST + 4]
                 d32[D32_DH_THICK_CM, c, o] = 100.0 * struct[S_DH_THICK_M]
-                d32[D32_DH_PRESENT, c, o] = 1.0 if 100.0 * struct[S_DH_THICK_M] >= p[P_DEPTH_HOAR_MIN_CM] else 0.0
+                d32[D32_DH_PRESENT, c, o] = (
+                    1.0 if 100.0 * struct[S_DH_THICK_M] >= p[P_DEPTH_HOAR_MIN_CM] else 0.0
+                )
                 d32[D32_PWL, c, o] = struct[S_PWL]
-                d32[D32_PWL_DEPTH_CM, c, o] = 100.0 * struct[S_PWL_DEPTH_M] if struct[S_PWL] > 0 else np.nan
-                d32[D32_PWL_THICK_CM, c, o] = 100.0 * struct[S_PWL_THICK_M] if struct[S_PWL] > 0 else np.nan
-                d32[D32_PWL_GRAIN_MM, c, o] = struct[S_PWL_GRAIN_MM] if struct[S_PWL] > 0 else np.nan
+                d32[D32_PWL_DEPTH_CM, c, o] = (
+                    100.0 * struct[S_PWL_DEPTH_M] if struct[S_PWL] > 0 else np.nan
+                )
+                d32[D32_PWL_THICK_CM, c, o] = (
+                    100.0 * struct[S_PWL_THICK_M] if struct[S_PWL] > 0 else np.nan
+                )
+                d32[D32_PWL_GRAIN_MM, c, o] = (
+                    struct[S_PWL_GRAIN_MM] if struct[S_PWL] > 0 else np.nan
+                )
                 d32[D32_PWL_CODE, c, o] = struct[S_PWL_CODE]
                 d32[D32_TC_MAX, c, o] = struct[S_TC_MAX]
                 d32[D32_TC_DEPTH_CM, c, o] = 100.0 * struct[S_TC_DEPTH_M]

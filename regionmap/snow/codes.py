@@ -24,19 +24,19 @@ __all__ = [
 
 #: Index 0 marks an unused layer slot.
 GRAIN_CODES: tuple[str, ...] = (
-    "",       # 0 unused
-    "PP",     # 1 precipitation particles (new snow)
-    "DF",     # 2 decomposing and fragmented precipitation particles
-    "RG",     # 3 rounded grains
-    "RGxf",   # 4 faceted rounded particles
-    "FC",     # 5 faceted crystals
-    "FCxr",   # 6 rounding faceted particles
-    "FCsf",   # 7 near-surface faceted particles
-    "DH",     # 8 depth hoar
-    "SH",     # 9 surface hoar (buried)
-    "MF",     # 10 melt forms
-    "MFcr",   # 11 melt-freeze crust
-    "IF",     # 12 ice formations (glaze, ice lens)
+    "",  # 0 unused
+    "PP",  # 1 precipitation particles (new snow)
+    "DF",  # 2 decomposing and fragmented precipitation particles
+    "RG",  # 3 rounded grains
+    "RGxf",  # 4 faceted rounded particles
+    "FC",  # 5 faceted crystals
+    "FCxr",  # 6 rounding faceted particles
+    "FCsf",  # 7 near-surface faceted particles
+    "DH",  # 8 depth hoar
+    "SH",  # 9 surface hoar (buried)
+    "MF",  # 10 melt forms
+    "MFcr",  # 11 melt-freeze crust
+    "IF",  # 12 ice formations (glaze, ice lens)
 )
 GRAIN_INDEX: dict[str, int] = {c: i for i, c in enumerate(GRAIN_CODES)}
 
@@ -73,7 +73,5 @@ def crust_codes_to_strings(codes: np.ndarray) -> np.ndarray:
 def crust_strings_to_codes(strings: np.ndarray) -> np.ndarray:
     """Map crust-kind strings back to integer indices (``""`` counts as ``none``)."""
     flat = np.asarray(strings, dtype=object).ravel()
-    out = np.fromiter(
-        (CRUST_INDEX[str(s) or "none"] for s in flat), dtype=np.int8, count=flat.size
-    )
+    out = np.fromiter((CRUST_INDEX[str(s) or "none"] for s in flat), dtype=np.int8, count=flat.size)
     return out.reshape(np.shape(strings))

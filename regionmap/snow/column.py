@@ -25,8 +25,7 @@ from regionmap.snow.kernel import EV_FREEZING_RAIN, EV_RAIN_ON_SNOW, ST_EVENT_OV
 from regionmap.snow.params import SnowParams
 from regionmap.snow.state import SnowState
 
-__all__ = ["run_columns", "snapshots_to_dataset", "DIAGNOSTICS_64", "DIAGNOSTICS_32",
-           "EVENT_KINDS"]
+__all__ = ["run_columns", "snapshots_to_dataset", "DIAGNOSTICS_64", "DIAGNOSTICS_32", "EVENT_KINDS"]
 
 #: cells.nc names of the float64 diagnostics (mass budget), by row of ``batch.d64``
 DIAGNOSTICS_64 = {
@@ -69,24 +68,38 @@ DIAGNOSTICS_32 = {
 EVENT_KINDS = {EV_RAIN_ON_SNOW: "rain-on-snow", EV_FREEZING_RAIN: "freezing-rain"}
 
 
-def _check(state: SnowState, forcing: CellForcing, params: SnowParams, diag_every_h: int,
-           snapshot_hour_utc) -> None:
+def _check(
+    state: SnowState, forcing: CellForcing, params: SnowParams, diag_every_h: int, snapshot_hour_utc
+) -> None:
     if not isinstance(forcing, CellForcing):
-        raise InputError(f"run_columns: forcing must be a CellForcing, got {type(forcing).__name__}")
+        raise InputError(
+            f"run_columns: forcing must be a CellForcing, got {type(forcing).__name__}"
+        )
     if state.n_cells != forcing.n_cells:
         raise GridMismatchError(
             f"run_columns: the snow state has {state.n_cells} cells but the forcing has "
-            f"{forcing.n_cells}; hint: state and forcing must cover the same cells in the same order")
+            f"{forcing.n_cells}; hint: state and forcing must cover the same cells in the same order"
+        )
     if state.max_layers != params.max_layers:
         raise InputError(
             f"run_columns: state has {state.max_layers} layer slots but [snow] max_layers = "
-            f"{params.max_layers}; hint: keep max_layers when continuing from a state")
+            f"{params.max_layers}; hint: keep max_layers when continuing from a state"
+        )
     if forcing.dt_s != 3600.0:
         raise InputError(f"run_columns: forcing dt_s must be 3600 (hourly), got {forcing.dt_s}")
     if forcing.n_steps == 0:
         raise InputError("run_columns: the forcing has no time steps")
-    for name in ("t_air_k", "rh_frac", "pressure_pa", "wind_m_s", "sw_in_w_m2", "lw_in_w_m2",
-                 "precip_kg_m2", "snow_frac", "freezing_rain_frac"):
+    for name in (
+        "t_air_k",
+        "rh_frac",
+        "pressure_pa",
+        "wind_m_s",
+        "sw_in_w_m2",
+        "lw_in_w_m2",
+        "precip_kg_m2",
+        "snow_frac",
+        "freezing_rain_frac",
+    ):
         values = getattr(forcing, name)
         bad = ~np.isfinite(values)
         if bad.any():
@@ -94,38 +107,61 @@ def _check(state: SnowState, forcing: CellForcing, params: SnowParams, diag_ever
             raise InputError(
                 f"run_columns: forcing variable {name} has {int(bad.sum())} non-finite values "
                 f"(first at cell {c}, time {forcing.time[t]}); expected finite numbers; hint: "
-                "fill gaps in the forcing before the snow column")
+                "fill gaps in the forcing before the snow column"
+            )
     steps = np.diff(forcing.time.astype("datetime64[s]").astype(np.int64))
     if steps.size and np.any(steps != 3600):
-        raise InputError("run_columns: forcing times must be hourly without gaps; hint: the "
-                         "downscaling brings all forcing to hourly")
+        raise InputError(
+            "run_columns: forcing times must be hourly without gaps; hint: the "
+            "downscaling brings all forcing to hourly"
+        )
     start = forcing.time[0].astype("datetime64[s]")
-    expected = (state.time.astype("datetime64[s]") + np.timedelta64(3600, "s"))
+    expected = state.time.astype("datetime64[s]") + np.timedelta64(3600, "s")
     if state.counters[:, 0].any() and start != expected:
         raise InputError(
             f"run_columns: forcing starts at {start} but the state is valid at {state.time}; "
             f"expected the first step to end at {expected}; hint: continue from the state "
-            "written at the end of the previous period")
+            "written at the end of the previous period"
+        )
     t0 = int(forcing.time[0].astype("datetime64[s]").astype(np.int64))
     t1 = int(forcing.time[-1].astype("datetime64[s]").astype(np.int64))
     lim = EPOCH_2000_S + np.array([-(2**31) + 1, 2**31 - 1])
     if t0 < lim[0] or t1 > lim[1]:
-        raise InputError(f"run_columns: forcing times {forcing.time[0]}..{forcing.time[-1]} outside "
-                         "1932-2068 (layer times are int32 seconds since 2000)")
-    if not isinstance(diag_every_h, (int, np.integer)) or diag_every_h < 1 or forcing.n_steps % diag_every_h:
+        raise InputError(
+            f"run_columns: forcing times {forcing.time[0]}..{forcing.time[-1]} outside "
+            "1932-2068 (layer times are int32 seconds since 2000)"
+        )
+    if (
+        not isinstance(diag_every_h, (int, np.integer))
+        or diag_every_h < 1
+        or forcing.n_steps % diag_every_h
+    ):
         raise InputError(
             f"run_columns: diag_every_h must be a positive integer dividing the {forcing.n_steps} "
-            f"steps, got {diag_every_h!r}")
+            f"steps, got {diag_every_h!r}"
+        )
     if snapshot_hour_utc is not None and not (0 <= int(snapshot_hour_utc) <= 23):
-        raise InputError(f"run_columns: snapshot_hour_utc must be 0..23 or None, got {snapshot_hour_utc!r}")
+        raise InputError(
+            f"run_columns: snapshot_hour_utc must be 0..23 or None, got {snapshot_hour_utc!r}"
+        )
     if state.fingerprint and state.fingerprint != params.fingerprint():
-        warn("run_columns: the state was written with other snow settings (fingerprint "
-             f"{state.fingerprint} != {params.fingerprint()}); continuing with the new ones")
+        warn(
+            "run_columns: the state was written with other snow settings (fingerprint "
+            f"{state.fingerprint} != {params.fingerprint()}); continuing with the new ones"
+        )
 
 
-def run_columns(state: SnowState, forcing: CellForcing, params: SnowParams | None = None,
-                diag_every_h: int = 1, snapshot_hour_utc: int | None = None, *,
-                with_snapshots: bool = True, threads: int = 2, block_cells: int = 64):
+def run_columns(
+    state: SnowState,
+    forcing: CellForcing,
+    params: SnowParams | None = None,
+    diag_every_h: int = 1,
+    snapshot_hour_utc: int | None = None,
+    *,
+    with_snapshots: bool = True,
+    threads: int = 2,
+    block_cells: int = 64,
+):
     """Step every cell of ``state`` through the forcing period.
 
     Parameters
@@ -173,8 +209,13 @@ def run_columns(state: SnowState, forcing: CellForcing, params: SnowParams | Non
         ``layer_count`` (cell, day). :func:`snapshots_to_dataset` makes profiles.nc of it.
     """
     params = SnowParams() if params is None else params
-    _check(state, forcing, params, int(diag_every_h) if isinstance(diag_every_h, (int, np.integer)) else diag_every_h,
-           snapshot_hour_utc)
+    _check(
+        state,
+        forcing,
+        params,
+        int(diag_every_h) if isinstance(diag_every_h, (int, np.integer)) else diag_every_h,
+        snapshot_hour_utc,
+    )
     diag_every = int(diag_every_h)
     new = state.copy()
     n_cells, n_steps, cap = state.n_cells, forcing.n_steps, state.max_layers
@@ -204,15 +245,54 @@ def run_columns(state: SnowState, forcing: CellForcing, params: SnowParams | Non
 
     def work(c0: int, c1: int) -> None:
         B.run_cells(
-            c0, c1, time_s, f.t_air_k, f.rh_frac, f.pressure_pa, f.wind_m_s, f.sw_in_w_m2,
-            f.lw_in_w_m2, f.precip_kg_m2, f.snow_frac, f.freezing_rain_frac, float(f.dt_s),
-            float(f.wind_height_m), float(f.temp_height_m), p,
-            new.thickness_m, new.ice_kg_m2, new.liquid_kg_m2, new.temperature_k,
-            new.grain_size_mm, new.dendricity, new.facetedness, new.grain_code, new.crust_code,
-            new.flags, new.deposition_time_s2000, new.formation_time_s2000, new.event_id,
-            new.surface, new.counters, new.new_snow_kg_m2, new.new_snow_m, diag_every, d64,
-            d32, snap_day, sf_out, si_out, sn_out, ev_kind, ev_id, ev_first, ev_last,
-            ev_amount, ev_n, status)
+            c0,
+            c1,
+            time_s,
+            f.t_air_k,
+            f.rh_frac,
+            f.pressure_pa,
+            f.wind_m_s,
+            f.sw_in_w_m2,
+            f.lw_in_w_m2,
+            f.precip_kg_m2,
+            f.snow_frac,
+            f.freezing_rain_frac,
+            float(f.dt_s),
+            float(f.wind_height_m),
+            float(f.temp_height_m),
+            p,
+            new.thickness_m,
+            new.ice_kg_m2,
+            new.liquid_kg_m2,
+            new.temperature_k,
+            new.grain_size_mm,
+            new.dendricity,
+            new.facetedness,
+            new.grain_code,
+            new.crust_code,
+            new.flags,
+            new.deposition_time_s2000,
+            new.formation_time_s2000,
+            new.event_id,
+            new.surface,
+            new.counters,
+            new.new_snow_kg_m2,
+            new.new_snow_m,
+            diag_every,
+            d64,
+            d32,
+            snap_day,
+            sf_out,
+            si_out,
+            sn_out,
+            ev_kind,
+            ev_id,
+            ev_first,
+            ev_last,
+            ev_amount,
+            ev_n,
+            status,
+        )
 
     edges = list(range(0, n_cells, max(int(block_cells), 1))) + [n_cells]
     blocks = list(zip(edges[:-1], edges[1:]))
@@ -225,7 +305,7 @@ def run_columns(state: SnowState, forcing: CellForcing, params: SnowParams | Non
     new.time = forcing.time[-1].astype("datetime64[s]")
     new.fingerprint = params.fingerprint()
 
-    out_time = forcing.time[diag_every - 1::diag_every].astype("datetime64[s]")
+    out_time = forcing.time[diag_every - 1 :: diag_every].astype("datetime64[s]")
     diagnostics: dict = {"time": out_time, "status": status}
     for name, row in DIAGNOSTICS_64.items():
         diagnostics[name] = d64[row]
@@ -243,9 +323,14 @@ def run_columns(state: SnowState, forcing: CellForcing, params: SnowParams | Non
     diagnostics["event_amount_kg_m2"] = ev_amount[cells, slots]
 
     snapshots = {"time": forcing.time[snap_day >= 0].astype("datetime64[s]"), "layer_count": sn_out}
-    for name, row in (("thickness_m", B.SF_THICK), ("ice_kg_m2", B.SF_ICE),
-                      ("liquid_kg_m2", B.SF_LIQ), ("temperature_k", B.SF_TEMP),
-                      ("grain_size_mm", B.SF_GRAIN), ("hardness_index", B.SF_HARD)):
+    for name, row in (
+        ("thickness_m", B.SF_THICK),
+        ("ice_kg_m2", B.SF_ICE),
+        ("liquid_kg_m2", B.SF_LIQ),
+        ("temperature_k", B.SF_TEMP),
+        ("grain_size_mm", B.SF_GRAIN),
+        ("hardness_index", B.SF_HARD),
+    ):
         snapshots[name] = sf_out[row]
     snapshots["grain_code"] = si_out[B.SI_CODE].astype(np.int8)
     snapshots["crust_code"] = si_out[B.SI_CRUST].astype(np.int8)
@@ -259,18 +344,40 @@ def run_columns(state: SnowState, forcing: CellForcing, params: SnowParams | Non
 def snapshots_to_dataset(snapshots: dict, cell_id: np.ndarray) -> xr.Dataset:
     """profiles.nc content from :func:`run_columns` snapshots (codes as strings, DESIGN 3)."""
     dims = ("cell", "day", "layer")
-    used = np.arange(snapshots["thickness_m"].shape[2])[None, None, :] < snapshots["layer_count"][:, :, None]
-    ds = xr.Dataset(coords={"cell_id": (("cell",), np.asarray(cell_id)),
-                            "time": (("day",), snapshots["time"].astype("datetime64[ns]"))})
+    used = (
+        np.arange(snapshots["thickness_m"].shape[2])[None, None, :]
+        < snapshots["layer_count"][:, :, None]
+    )
+    ds = xr.Dataset(
+        coords={
+            "cell_id": (("cell",), np.asarray(cell_id)),
+            "time": (("day",), snapshots["time"].astype("datetime64[ns]")),
+        }
+    )
     ds["layer_count"] = (("cell", "day"), snapshots["layer_count"])
-    for name in ("thickness_m", "ice_kg_m2", "liquid_kg_m2", "temperature_k", "grain_size_mm",
-                 "hardness_index"):
+    for name in (
+        "thickness_m",
+        "ice_kg_m2",
+        "liquid_kg_m2",
+        "temperature_k",
+        "grain_size_mm",
+        "hardness_index",
+    ):
         ds[name] = (dims, snapshots[name])
-    ds["grain_class"] = (dims, np.where(used, grain_codes_to_strings(snapshots["grain_code"]), "").astype(str))
-    ds["crust_kind"] = (dims, np.where(used, crust_codes_to_strings(snapshots["crust_code"]), "").astype(str))
+    ds["grain_class"] = (
+        dims,
+        np.where(used, grain_codes_to_strings(snapshots["grain_code"]), "").astype(str),
+    )
+    ds["crust_kind"] = (
+        dims,
+        np.where(used, crust_codes_to_strings(snapshots["crust_code"]), "").astype(str),
+    )
     for name in ("deposition_time", "formation_time"):
         ds[name] = (dims, snapshots[name], {"units": "seconds since 1970-01-01"})
-    ds["event_id"] = (dims, snapshots["event_id"], {
-        "long_name": "start of the forming event, whole hours since 1970-01-01T00Z"})
+    ds["event_id"] = (
+        dims,
+        snapshots["event_id"],
+        {"long_name": "start of the forming event, whole hours since 1970-01-01T00Z"},
+    )
     ds.attrs["layer_order"] = "bottom first"
     return ds

@@ -81,10 +81,10 @@ def compaction_strain_rate(
     Ice layers (density above 800 kg m-3) do not compact; destructive settling is left out
     above 350 kg m-3, where its density factor c3 is below 1e-5.
     """
-    eta = viscosity_anderson1976(min(density_kg_m3, 800.0), t_k, eta0_pa_s, c_t_per_k,
-                                 c_rho_m3_kg)
-    destructive = destructive_settling_rate_anderson1976(density_kg_m3, t_k, wet, rate0_per_s,
-                                                         rho_d_kg_m3)
+    eta = viscosity_anderson1976(min(density_kg_m3, 800.0), t_k, eta0_pa_s, c_t_per_k, c_rho_m3_kg)
+    destructive = destructive_settling_rate_anderson1976(
+        density_kg_m3, t_k, wet, rate0_per_s, rho_d_kg_m3
+    )
     # above 350 kg m-3, c3 < 1e-5: destructive settling has ended
     rate = load_pa / eta + (destructive if density_kg_m3 < 350.0 else 0.0)
     return rate if density_kg_m3 < 800.0 else 0.0

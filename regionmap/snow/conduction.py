@@ -76,14 +76,18 @@ def conductivity_sturm1997(density_kg_m3):
 @njit(cache=True, nogil=True, error_model="numpy", inline="always")
 def snow_conductivity(model, density_kg_m3):
     """Dispatch: 0 = Calonne et al. (2011), else Sturm et al. (1997); floored at 0.02."""
-    k = conductivity_calonne2011(density_kg_m3) if model == 0 else conductivity_sturm1997(
-        density_kg_m3)
+    k = (
+        conductivity_calonne2011(density_kg_m3)
+        if model == 0
+        else conductivity_sturm1997(density_kg_m3)
+    )
     return max(k, 0.02)
 
 
 @njit(cache=True, nogil=True, error_model="numpy")
-def conduction_forward_sweep(m, t_k, k_w_m_k, c_j_m2_k, dz_m, source_w_m2, dt_s,
-                             k_bottom_w_m2_k, t_bottom_k, cprime, y):
+def conduction_forward_sweep(
+    m, t_k, k_w_m_k, c_j_m2_k, dz_m, source_w_m2, dt_s, k_bottom_w_m2_k, t_bottom_k, cprime, y
+):
     """Assemble one backward-Euler conduction step and eliminate it from the bottom up.
 
     Node 0 is the deepest. For node i with heat capacity C_i [J m-2 K-1]:
@@ -142,17 +146,31 @@ def conduction_back_substitution(m, g_top_w_m2, beta_top, cprime, y, out):
 
 
 @njit(cache=True, nogil=True, error_model="numpy")
-def conduction_step_backward_euler(m, t_k, k_w_m_k, c_j_m2_k, dz_m, source_w_m2, dt_s,
-                                   k_bottom_w_m2_k, t_bottom_k, a_top_w_m2, b_top_w_m2_k,
-                                   cprime, y, out):
+def conduction_step_backward_euler(
+    m,
+    t_k,
+    k_w_m_k,
+    c_j_m2_k,
+    dz_m,
+    source_w_m2,
+    dt_s,
+    k_bottom_w_m2_k,
+    t_bottom_k,
+    a_top_w_m2,
+    b_top_w_m2_k,
+    cprime,
+    y,
+    out,
+):
     """One backward-Euler conduction step with a top flux G = a + b T_top' (b <= 0).
 
     b = -K and a = K T_s hold the surface at T_s through conductance K; b = 0 is a fixed
     flux. See :func:`conduction_forward_sweep` for the discretisation; ``out`` receives the
     end-of-step temperatures [K].
     """
-    beta, y_top = conduction_forward_sweep(m, t_k, k_w_m_k, c_j_m2_k, dz_m, source_w_m2, dt_s,
-                                           k_bottom_w_m2_k, t_bottom_k, cprime, y)
+    beta, y_top = conduction_forward_sweep(
+        m, t_k, k_w_m_k, c_j_m2_k, dz_m, source_w_m2, dt_s, k_bottom_w_m2_k, t_bottom_k, cprime, y
+    )
     g = (a_top_w_m2 + b_top_w_m2_k * y_top) / (1.0 - b_top_w_m2_k / beta)
     conduction_back_substitution(m, g, beta, cprime, y, out)
 

@@ -19,8 +19,13 @@ from regionmap.snow.layering import F_GRAIN, F_ICE, F_LIQ, F_THICK, I_CODE, I_CR
 from regionmap.snow.stability import N_CRITERIA, worst_interface_column
 from regionmap.snow.vecmath import padded_count
 
-__all__ = ["wetness_class_fierz2009", "layer_hardness", "column_structure", "layer_hardness_array",
-           "N_SCRATCH_ROWS"]
+__all__ = [
+    "wetness_class_fierz2009",
+    "layer_hardness",
+    "column_structure",
+    "layer_hardness_array",
+    "N_SCRATCH_ROWS",
+]
 
 _FC, _FCXR, _FCSF, _DH, _SH = 5, 6, 7, 8, 9
 
@@ -64,8 +69,18 @@ def layer_hardness(fw, iw, n, out):
 
 
 @njit(cache=True, nogil=True, error_model="numpy")
-def column_structure(fw, iw, n, hardness, crust_min_thickness_m, crust_min_hardness,
-                     pwl_min_depth_m, relative, scratch, out):
+def column_structure(
+    fw,
+    iw,
+    n,
+    hardness,
+    crust_min_thickness_m,
+    crust_min_hardness,
+    pwl_min_depth_m,
+    relative,
+    scratch,
+    out,
+):
     """Fill ``out`` (N_STRUCT,) with crust counts, DH, PWL and threshold-count diagnostics.
 
     ``hardness`` (layer,) is the hardness of each layer from :func:`layer_hardness`;
@@ -91,8 +106,9 @@ def column_structure(fw, iw, n, hardness, crust_min_thickness_m, crust_min_hardn
                     kind_thick = fw[F_THICK, i]
                     kind = iw[I_CRUST, i]
                 i -= 1
-            if counts_as_crust(kind, run_thick, run_hard, False, crust_min_thickness_m,
-                               crust_min_hardness):
+            if counts_as_crust(
+                kind, run_thick, run_hard, False, crust_min_thickness_m, crust_min_hardness
+            ):
                 out[S_CRUST] += 1.0
                 out[S_CRUST + kind] += 1.0
         else:
@@ -124,8 +140,9 @@ def column_structure(fw, iw, n, hardness, crust_min_thickness_m, crust_min_hardn
         lwc = fw[F_LIQ, n - 1] / (RHO_WATER_KG_M3 * max(fw[F_THICK, n - 1], 1e-9))
         out[S_WETNESS] = wetness_class_fierz2009(lwc)
     # structural threshold count of the worst interface (active layers only)
-    tc, tc_depth = worst_interface_column(n, fw[F_THICK], fw[F_GRAIN], hardness, iw[I_CODE],
-                                          relative, scratch)
+    tc, tc_depth = worst_interface_column(
+        n, fw[F_THICK], fw[F_GRAIN], hardness, iw[I_CODE], relative, scratch
+    )
     out[S_TC_MAX] = tc
     out[S_TC_DEPTH_M] = tc_depth
 
@@ -136,4 +153,6 @@ def layer_hardness_array(state) -> np.ndarray:
     with np.errstate(divide="ignore", invalid="ignore"):
         dens = (state.ice_kg_m2 + state.liquid_kg_m2) / state.thickness_m.astype(np.float64)
     dens = np.where(state.thickness_m > 0, dens, np.nan)
-    return hardness_index_from_density_array(dens, state.grain_code, state.crust_code).astype(np.float32)
+    return hardness_index_from_density_array(dens, state.grain_code, state.crust_code).astype(
+        np.float32
+    )

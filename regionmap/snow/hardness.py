@@ -143,16 +143,28 @@ def hardness_index_from_density(density_kg_m3, grain_code, crust_kind):
     Fierz et al. (2009), IHP-VII Tech. Doc. Hydrol. 83, UNESCO-IHP; Geldsetzer & Jamieson
     (2000), Proc. ISSW 2000, 121-127.
     """
-    invalid = ((grain_code <= 0) | (grain_code >= _N_CODES) | (crust_kind < 0)
-               | (crust_kind >= _N_CRUSTS) | math.isnan(density_kg_m3))
+    invalid = (
+        (grain_code <= 0)
+        | (grain_code >= _N_CODES)
+        | (crust_kind < 0)
+        | (crust_kind >= _N_CRUSTS)
+        | math.isnan(density_kg_m3)
+    )
     # every rule is evaluated and one selected (no branches: the kernel's loop vectorises)
     code = min(max(grain_code, 0), _N_CODES - 1)
     crust_h = 5.0 + (density_kg_m3 - CRUST_K_DENSITY_KG_M3) * (
-        1.0 / (CRUST_I_DENSITY_KG_M3 - CRUST_K_DENSITY_KG_M3))
+        1.0 / (CRUST_I_DENSITY_KG_M3 - CRUST_K_DENSITY_KG_M3)
+    )
     fit_h = (density_kg_m3 - _FIT_A[code]) / _FIT_B[code]
-    h = 6.0 if grain_code == _IF else (
-        min(max(crust_h, 5.0), 6.0) if (grain_code == _MFCR) | (crust_kind > 0)
-        else min(max(fit_h, 1.0), 6.0))
+    h = (
+        6.0
+        if grain_code == _IF
+        else (
+            min(max(crust_h, 5.0), 6.0)
+            if (grain_code == _MFCR) | (crust_kind > 0)
+            else min(max(fit_h, 1.0), 6.0)
+        )
+    )
     return np.nan if invalid else h
 
 

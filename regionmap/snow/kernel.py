@@ -73,8 +73,8 @@ from regionmap.snow.metamorphism import (
     grain_growth_wet_brun1989,
 )
 from regionmap.snow.newsnow import new_snow_density
-from regionmap.snow.params import N_SOIL, SOIL_THICKNESS_M
 from regionmap.snow.params import (
+    N_SOIL,
     P_ALBEDO_DRY_DECAY_PER_DAY,
     P_ALBEDO_MAX,
     P_ALBEDO_MIN,
@@ -122,6 +122,7 @@ from regionmap.snow.params import (
     P_STABLE_FLOOR_FRAC,
     P_SW_SURFACE_FRAC,
     P_WIND_MIN_M_S,
+    SOIL_THICKNESS_M,
 )
 from regionmap.snow.radiation import albedo_douville1995, penetration_fraction
 from regionmap.snow.surface import (
@@ -251,14 +252,21 @@ def _add_snowfall(fw, iw, n, mass, t_air, wind, now_s, event, p, cap):
     remaining = mass
     while remaining > 0.0:
         top = n - 1
-        if (n > 0 and iw[I_CODE, top] == _PP and iw[I_EVENT, top] == event
-                and fw[F_THICK, top] < max_dz * 0.999 and fw[F_LIQ, top] == 0.0):
+        if (
+            n > 0
+            and iw[I_CODE, top] == _PP
+            and iw[I_EVENT, top] == event
+            and fw[F_THICK, top] < max_dz * 0.999
+            and fw[F_LIQ, top] == 0.0
+        ):
             room_kg = (max_dz - fw[F_THICK, top]) * rho
             add = min(remaining, room_kg)
             c_old = C_ICE_J_KG_K * fw[F_ICE, top]
             c_add = C_ICE_J_KG_K * add
             fw[F_TEMP, top] = (c_old * fw[F_TEMP, top] + c_add * t_snow) / (c_old + c_add)
-            fw[F_GRAIN, top] = (fw[F_ICE, top] * fw[F_GRAIN, top] + add * p[P_NEW_SNOW_GRAIN_MM]) / (fw[F_ICE, top] + add)
+            fw[F_GRAIN, top] = (
+                fw[F_ICE, top] * fw[F_GRAIN, top] + add * p[P_NEW_SNOW_GRAIN_MM]
+            ) / (fw[F_ICE, top] + add)
             fw[F_DEND, top] = (fw[F_ICE, top] * fw[F_DEND, top] + add) / (fw[F_ICE, top] + add)
             fw[F_FACET, top] = fw[F_ICE, top] * fw[F_FACET, top] / (fw[F_ICE, top] + add)
             fw[F_ICE, top] += add
@@ -278,8 +286,21 @@ def _add_snowfall(fw, iw, n, mass, t_air, wind, now_s, event, p, cap):
             continue
         add = min(remaining, max_dz * rho)
         n = insert_top(fw, iw, n)
-        _set_layer(fw, iw, n - 1, add / rho, add, t_snow, p[P_NEW_SNOW_GRAIN_MM], 1.0, 0.0,
-                   _PP, 0, now_s, event)
+        _set_layer(
+            fw,
+            iw,
+            n - 1,
+            add / rho,
+            add,
+            t_snow,
+            p[P_NEW_SNOW_GRAIN_MM],
+            1.0,
+            0.0,
+            _PP,
+            0,
+            now_s,
+            event,
+        )
         remaining -= add
     return n, status
 
@@ -312,8 +333,31 @@ def _glaze(fw, iw, n, water, now_s, event, p, cap):
 
 
 @njit(cache=True, nogil=True, error_model="numpy")
-def _energy_and_conduction(fw, n, sv, ta, q_air, pres, wind, sw_in, lw_in, q_extra, dt, zu, zt, p,
-                           tn, kn, cn, dzn, sn, lo, di, dens_w, sol):
+def _energy_and_conduction(
+    fw,
+    n,
+    sv,
+    ta,
+    q_air,
+    pres,
+    wind,
+    sw_in,
+    lw_in,
+    q_extra,
+    dt,
+    zu,
+    zt,
+    p,
+    tn,
+    kn,
+    cn,
+    dzn,
+    sn,
+    lo,
+    di,
+    dens_w,
+    sol,
+):
     """Surface energy balance coupled to one backward-Euler conduction step of snow + soil.
 
     ``tn`` ... ``sol`` are work arrays of at least N_SOIL + n elements (``dens_w``: snow
@@ -329,8 +373,13 @@ def _energy_and_conduction(fw, n, sv, ta, q_air, pres, wind, sw_in, lw_in, q_ext
         dzn[i] = _SOIL_DZ[i]
         kn[i] = ks
         tn[i] = sv[V_SOIL + i]
-        cn[i] = soil_heat_capacity(tn[i], _SOIL_DZ[i], p[P_SOIL_HEAT_CAPACITY_J_M3_K],
-                                   p[P_SOIL_WATER_KG_M3], p[P_SOIL_FREEZING_RANGE_K])
+        cn[i] = soil_heat_capacity(
+            tn[i],
+            _SOIL_DZ[i],
+            p[P_SOIL_HEAT_CAPACITY_J_M3_K],
+            p[P_SOIL_WATER_KG_M3],
+            p[P_SOIL_FREEZING_RANGE_K],
+        )
         sn[i] = 0.0
     model_k = int(p[P_CONDUCTIVITY_MODEL])
     thick_w = fw[F_THICK]
@@ -366,8 +415,9 @@ def _energy_and_conduction(fw, n, sv, ta, q_air, pres, wind, sw_in, lw_in, q_ext
         sn[ns - 1] += remaining  # what passes the snow warms the soil
     # the column's response to the heat flux G entering its top: T_top' = y_top + G / beta
     top = m - 1
-    beta, y_top = conduction_forward_sweep(m, tn, kn, cn, dzn, sn, dt, ks / (0.5 * dzn[0]),
-                                           p[P_DEEP_GROUND_TEMPERATURE_K], lo, di)
+    beta, y_top = conduction_forward_sweep(
+        m, tn, kn, cn, dzn, sn, dt, ks / (0.5 * dzn[0]), p[P_DEEP_GROUND_TEMPERATURE_K], lo, di
+    )
     # the skin sits half a top layer above the top node: G = K_s (Ts - T_top'), so
     # G = K_eff (Ts - y_top); the skin balance q_net(Ts) = G is solved exactly (Newton)
     k_s = 2.0 * kn[top] / dzn[top]
@@ -378,8 +428,22 @@ def _energy_and_conduction(fw, n, sv, ta, q_air, pres, wind, sw_in, lw_in, q_ext
     c_n = neutral_exchange_coefficient(zu, zt, z0, z0)
     if n > 0:
         ts, q_net, sens, lat, vap, _dq, _r = solve_surface_temperature(
-            sv[V_TSURF], y_top, k_eff, ta, q_air, pres, wind, lw_in, sw_surf, eps, c_n, zt, z0,
-            floor, int(p[P_NEWTON_ITERATIONS]))
+            sv[V_TSURF],
+            y_top,
+            k_eff,
+            ta,
+            q_air,
+            pres,
+            wind,
+            lw_in,
+            sw_surf,
+            eps,
+            c_n,
+            zt,
+            z0,
+            floor,
+            int(p[P_NEWTON_ITERATIONS]),
+        )
         g_top = q_net if ts >= T_MELT_K else k_eff * (ts - y_top)
     else:
         # bare ground: the soil surface follows the air temperature
@@ -474,8 +538,21 @@ def _bury_or_drop_hoar(fw, iw, n, sv, si, wind, now_s, p, cap):
             t_top = fw[F_TEMP, n - 1]
             n = insert_top(fw, iw, n)
             rho = p[P_SH_DENSITY_KG_M3]
-            _set_layer(fw, iw, n - 1, m_sh / rho, m_sh, t_top, surface_hoar_size_mm(m_sh, rho),
-                       0.0, 1.0, _SH, 0, si[J_SH_START], si[J_SH_START] // 3600)
+            _set_layer(
+                fw,
+                iw,
+                n - 1,
+                m_sh / rho,
+                m_sh,
+                t_top,
+                surface_hoar_size_mm(m_sh, rho),
+                0.0,
+                1.0,
+                _SH,
+                0,
+                si[J_SH_START],
+                si[J_SH_START] // 3600,
+            )
             iw[I_FORM, n - 1] = now_s
             return n
         top = n - 1
@@ -542,8 +619,9 @@ def _compact(fw, n, dt, p, load_w):
         liq = liq_w[i]
         thick = thick_w[i]
         dens = ice / max(thick, 1e-9)
-        rate = compaction_strain_rate(dens, temp_w[i], liq > 0.0, GRAVITY_M_S2 * load_w[i],
-                                      eta0, c_t, c_rho, rate0, rho_d)
+        rate = compaction_strain_rate(
+            dens, temp_w[i], liq > 0.0, GRAVITY_M_S2 * load_w[i], eta0, c_t, c_rho, rate0, rho_d
+        )
         dz = thick / (1.0 + rate * dt)
         dz_min = ice / RHO_ICE_KG_M3 + liq / RHO_WATER_KG_M3
         thick_w[i] = max(dz, dz_min)
@@ -616,8 +694,10 @@ def _metamorphose(fw, iw, n, sv, ts, dt, p, grad_w, centre_w, arr_w):
         dens = ice_w[i] / max(dz, 1e-9)
         # one exponential per layer serves decomposition and rounding
         arr = arrhenius_ratio_6000(t)
-        f = facet_w[i] + facetedness_rate(t, dens, grad, g_round, g_strong, facet_rate,
-                                          round_rate, arr) * days
+        f = (
+            facet_w[i]
+            + facetedness_rate(t, dens, grad, g_round, g_strong, facet_rate, round_rate, arr) * days
+        )
         gs = grain_growth_marbouty1980(grain_w[i], t, dens, grad, dt, kinetic)
         code = code_w[i]
         wet = _is_wet(liq_w[i], dz)
@@ -685,8 +765,34 @@ def _cleanup(fw, iw, n):
 
 
 @njit(cache=True, nogil=True, error_model="numpy")
-def _step(fw, iw, sv, si, ring_m, ring_d, ta, rh, pres, wind_raw, sw_in, lw_in, precip, sf,
-          fzf, now_s, hour_abs, dt, zu, zt, p, cap, wk, wb, acc, tot):
+def _step(
+    fw,
+    iw,
+    sv,
+    si,
+    ring_m,
+    ring_d,
+    ta,
+    rh,
+    pres,
+    wind_raw,
+    sw_in,
+    lw_in,
+    precip,
+    sf,
+    fzf,
+    now_s,
+    hour_abs,
+    dt,
+    zu,
+    zt,
+    p,
+    cap,
+    wk,
+    wb,
+    acc,
+    tot,
+):
     """Advance one cell by one step; fills ``acc`` (N_ACC,) and returns a status bitmask.
 
     ``tot`` (2,) holds the column mass [kg m-2] and enthalpy [J m-2] of the state on entry
@@ -777,7 +883,9 @@ def _step(fw, iw, sv, si, ring_m, ring_d, ta, rh, pres, wind_raw, sw_in, lw_in, 
                 i -= 1
             e_mass += heat - extra
             if extra > 0.0:
-                sv[V_SOIL + N_SOIL - 1] += extra / (p[P_SOIL_HEAT_CAPACITY_J_M3_K] * _SOIL_DZ[N_SOIL - 1])
+                sv[V_SOIL + N_SOIL - 1] += extra / (
+                    p[P_SOIL_HEAT_CAPACITY_J_M3_K] * _SOIL_DZ[N_SOIL - 1]
+                )
             acc[A_RAIN_ON_SNOW] = rain
             rain_wetting = rain >= p[P_EVENT_MIN_KG_M2]
         else:
@@ -786,8 +894,30 @@ def _step(fw, iw, sv, si, ring_m, ring_d, ta, rh, pres, wind_raw, sw_in, lw_in, 
     q_air = specific_humidity(rh * vapour_pressure_water_buck1981(ta), pres)
     top_dry = n > 0 and fw[F_LIQ, n - 1] <= 0.0
     q_net, sw_snow, ground, sw_abs, lw_net, sens, lat, vap, ts = _energy_and_conduction(
-        fw, n, sv, ta, q_air, pres, wind, sw_in, lw_in, q_extra, dt, zu, zt, p,
-        wk[1], wk[2], wk[3], wk[4], wk[5], wk[6], wk[7], wk[8], wk[9])
+        fw,
+        n,
+        sv,
+        ta,
+        q_air,
+        pres,
+        wind,
+        sw_in,
+        lw_in,
+        q_extra,
+        dt,
+        zu,
+        zt,
+        p,
+        wk[1],
+        wk[2],
+        wk[3],
+        wk[4],
+        wk[5],
+        wk[6],
+        wk[7],
+        wk[8],
+        wk[9],
+    )
     e_flux = dt * (q_net + sw_snow + ground)
     if n > 0:
         sv[V_TSURF] = ts
@@ -820,12 +950,26 @@ def _step(fw, iw, sv, si, ring_m, ring_d, ta, rh, pres, wind_raw, sw_in, lw_in, 
         wb[i] = False
         if i > 0:
             dens_dn = fw[F_ICE, i - 1] / max(fw[F_THICK, i - 1], 1e-9)
-            wb[i] = is_flow_barrier(dens_dn, iw[I_CODE, i - 1] == _IF, fw[F_GRAIN, i],
-                                    fw[F_GRAIN, i - 1], p[P_BARRIER_DENSITY_KG_M3],
-                                    p[P_CAPILLARY_RATIO])
+            wb[i] = is_flow_barrier(
+                dens_dn,
+                iw[I_CODE, i - 1] == _IF,
+                fw[F_GRAIN, i],
+                fw[F_GRAIN, i - 1],
+                p[P_BARRIER_DENSITY_KG_M3],
+                p[P_CAPILLARY_RATIO],
+            )
     if any_liquid:
-        runoff += percolate_column(n, fw[F_ICE], fw[F_LIQ], fw[F_TEMP], fw[F_THICK], wb,
-                                   p[P_IRREDUCIBLE_PORE_FRAC], p[P_POND_PORE_FRAC], 0.0)
+        runoff += percolate_column(
+            n,
+            fw[F_ICE],
+            fw[F_LIQ],
+            fw[F_TEMP],
+            fw[F_THICK],
+            wb,
+            p[P_IRREDUCIBLE_PORE_FRAC],
+            p[P_POND_PORE_FRAC],
+            0.0,
+        )
     acc[A_RUNOFF] = runoff
     _wet_flags_and_crusts(fw, iw, n, si[J_RAIN_EV], rain_wetting, solar_melt, now_s, p)
     _compact(fw, n, dt, p, wk[0])
@@ -838,8 +982,9 @@ def _step(fw, iw, sv, si, ring_m, ring_d, ta, rh, pres, wind_raw, sw_in, lw_in, 
             acc[A_RUNOFF] = runoff
             e_mass += L_FUSION_J_KG * sv[V_SH_MASS]
             sv[V_SH_MASS] = 0.0
-        elif surface_hoar_destroyed(wind_raw, melting, sw_abs, p[P_SH_DESTROY_WIND_M_S],
-                                    p[P_SH_DESTROY_SW_W_M2]):
+        elif surface_hoar_destroyed(
+            wind_raw, melting, sw_abs, p[P_SH_DESTROY_WIND_M_S], p[P_SH_DESTROY_SW_W_M2]
+        ):
             e0 = column_enthalpy(fw, n, sv[V_SH_MASS])
             top = n - 1
             dens = max(fw[F_ICE, top] / max(fw[F_THICK, top], 1e-9), 50.0)
@@ -851,9 +996,16 @@ def _step(fw, iw, sv, si, ring_m, ring_d, ta, rh, pres, wind_raw, sw_in, lw_in, 
         n = merge_pass(fw, iw, n, now_s, p[P_NEW_LAYER_MAX_M], p[P_MERGE_DEPTH_FRAC], cap - 2)
     if n > 0:
         sv[V_ALBEDO] = albedo_douville1995(
-            sv[V_ALBEDO], melting, snow, dt, p[P_ALBEDO_MIN], p[P_ALBEDO_MAX],
-            p[P_ALBEDO_DRY_DECAY_PER_DAY], p[P_ALBEDO_WET_EFOLD_PER_DAY],
-            p[P_ALBEDO_REFRESH_PER_KG_M2])
+            sv[V_ALBEDO],
+            melting,
+            snow,
+            dt,
+            p[P_ALBEDO_MIN],
+            p[P_ALBEDO_MAX],
+            p[P_ALBEDO_DRY_DECAY_PER_DAY],
+            p[P_ALBEDO_WET_EFOLD_PER_DAY],
+            p[P_ALBEDO_REFRESH_PER_KG_M2],
+        )
     else:
         sv[V_ALBEDO] = p[P_ALBEDO_MAX]
         sv[V_TSURF] = min(ta, T_MELT_K)

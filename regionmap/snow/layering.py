@@ -14,8 +14,15 @@ from numba import njit
 
 from regionmap.snow.constants import C_ICE_J_KG_K, C_WATER_J_KG_K
 
-__all__ = ["F_ROWS", "I_ROWS", "insert_top", "remove_layer", "merge_pair", "mergeable",
-           "merge_pass"]
+__all__ = [
+    "F_ROWS",
+    "I_ROWS",
+    "insert_top",
+    "remove_layer",
+    "merge_pair",
+    "mergeable",
+    "merge_pass",
+]
 
 F_THICK, F_ICE, F_LIQ, F_TEMP, F_GRAIN, F_DEND, F_FACET = 0, 1, 2, 3, 4, 5, 6
 F_ROWS = 7
@@ -191,7 +198,11 @@ def merge_to_make_room(fw, iw, n):
     alike_m = 1e30
     for k in range(0, last + 1):
         m = fw[F_ICE, k] + fw[F_LIQ, k] + fw[F_ICE, k + 1] + fw[F_LIQ, k + 1]
-        if iw[I_CODE, k] == iw[I_CODE, k + 1] and iw[I_CRUST, k] == iw[I_CRUST, k + 1] and m < alike_m:
+        if (
+            iw[I_CODE, k] == iw[I_CODE, k + 1]
+            and iw[I_CRUST, k] == iw[I_CRUST, k + 1]
+            and m < alike_m
+        ):
             alike_m = m
             alike = k
         if m < pair_m:
@@ -202,4 +213,3 @@ def merge_to_make_room(fw, iw, n):
     if pair >= 0:
         return merge_pair(fw, iw, n, pair), False
     return n, False
-

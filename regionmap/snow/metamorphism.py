@@ -72,7 +72,11 @@ def marbouty_gradient_factor(gradient_k_m):
     low = 0.01 * (g - 15.0)
     mid = 0.1 + 0.037 * (g - 25.0)
     high = 0.655 + 0.0345 * (g - 40.0)
-    return (0.0 if g < 15.0 else low) if g < 25.0 else (mid if g < 40.0 else (high if g < 50.0 else 1.0))
+    return (
+        (0.0 if g < 15.0 else low)
+        if g < 25.0
+        else (mid if g < 40.0 else (high if g < 50.0 else 1.0))
+    )
 
 
 @njit(cache=True, nogil=True, error_model="numpy", inline="always")
@@ -135,8 +139,16 @@ def dry_dendricity_rate_brun1992(arrhenius_ratio, gradient_k_m):
 
 
 @njit(cache=True, nogil=True, error_model="numpy", inline="always")
-def facetedness_rate(t_k, density_kg_m3, gradient_k_m, g_round_k_m, g_strong_k_m,
-                     facet_per_day, round_per_day, arrhenius_ratio):
+def facetedness_rate(
+    t_k,
+    density_kg_m3,
+    gradient_k_m,
+    g_round_k_m,
+    g_strong_k_m,
+    facet_per_day,
+    round_per_day,
+    arrhenius_ratio,
+):
     """Change of facetedness [day-1] under the hourly gradient magnitude (our law).
 
     Faceting ``facet_per_day`` x Marbouty temperature factor x ramp((|G| - G_r)/(G_s - G_r))
@@ -155,8 +167,7 @@ def facetedness_rate(t_k, density_kg_m3, gradient_k_m, g_round_k_m, g_strong_k_m
 
 
 @njit(cache=True, nogil=True, error_model="numpy", inline="always")
-def classify_grain(old_code, dendricity, facetedness, grain_mm, wet, near_surface,
-                   dh_min_grain_mm):
+def classify_grain(old_code, dendricity, facetedness, grain_mm, wet, near_surface, dh_min_grain_mm):
     """Grain class (index into GRAIN_CODES) from the layer's microstructure state.
 
     Rules (Fierz et al. 2009 class definitions; thresholds ours): wet -> MF; SH, IF stay;
@@ -168,13 +179,28 @@ def classify_grain(old_code, dendricity, facetedness, grain_mm, wet, near_surfac
     faceted = (old_code == FC) | (old_code == FCSF) | (old_code == FCXR)
     keeps = (old_code == IF) | ((old_code == SH) & (not wet))
     stays_dry = (old_code == MF) | (old_code == MFCR) | (old_code == DH)
-    fc_kind = FCSF if (old_code == FCSF) | ((not faceted) & near_surface) else (
-        old_code if faceted & (old_code != FCXR) else FC)
+    fc_kind = (
+        FCSF
+        if (old_code == FCSF) | ((not faceted) & near_surface)
+        else (old_code if faceted & (old_code != FCXR) else FC)
+    )
     # the dry-snow rules in order, as one chain of selects (no branches: kernel loops over
     # layers vectorise)
-    dry = PP if dendricity >= 0.5 else (
-        DF if (dendricity > 0.1) & (facetedness < 0.5) else (
-            DH if (facetedness >= 0.9) & (grain_mm >= dh_min_grain_mm) else (
-                fc_kind if facetedness >= 0.5 else (
-                    (FCXR if faceted else RGXF) if facetedness >= 0.25 else RG))))
+    dry = (
+        PP
+        if dendricity >= 0.5
+        else (
+            DF
+            if (dendricity > 0.1) & (facetedness < 0.5)
+            else (
+                DH
+                if (facetedness >= 0.9) & (grain_mm >= dh_min_grain_mm)
+                else (
+                    fc_kind
+                    if facetedness >= 0.5
+                    else ((FCXR if faceted else RGXF) if facetedness >= 0.25 else RG)
+                )
+            )
+        )
+    )
     return old_code if keeps else (MF if wet else (old_code if stays_dry else dry))

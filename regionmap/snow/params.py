@@ -9,8 +9,14 @@ import numpy as np
 
 from regionmap.errors import ConfigError
 
-__all__ = ["SnowParams", "PARAM_NAMES", "PARAM_INDEX", "MAX_LAYERS_LIMIT", "N_SOIL",
-           "SOIL_THICKNESS_M"]
+__all__ = [
+    "SnowParams",
+    "PARAM_NAMES",
+    "PARAM_INDEX",
+    "MAX_LAYERS_LIMIT",
+    "N_SOIL",
+    "SOIL_THICKNESS_M",
+]
 
 MAX_LAYERS_LIMIT = 80  #: hard upper bound on layers per cell (array size)
 N_SOIL = 4  #: soil layers below the snow
@@ -32,7 +38,9 @@ class SnowParams:
     snow_event_gap_h: float = 6.0  #: dry hours that end a deposition event (ours)
     # new snow
     new_snow_density_model: Literal["hedstrom1998", "vionnet2012"] = "vionnet2012"
-    new_snow_grain_mm: float = 0.3  #: fresh-snow grain size (Vionnet et al. 2012 use ~0.1-0.4 [mem])
+    new_snow_grain_mm: float = (
+        0.3  #: fresh-snow grain size (Vionnet et al. 2012 use ~0.1-0.4 [mem])
+    )
     # compaction: Anderson 1976 / Jordan 1991 [mem]
     compaction_eta0_pa_s: float = 3.7e7  #: upper end of the published range (METHODS: 3.6e6-3.7e7 [mem]), chosen so new snow settles ~20 % in 24 h (settlement rule of thumb, McClung & Schaerer)
     compaction_c_t_per_k: float = 0.08
@@ -41,7 +49,9 @@ class SnowParams:
     settling_rho_d_kg_m3: float = 100.0
     # conduction and ground
     conductivity_model: Literal["calonne2011", "sturm1997"] = "calonne2011"
-    soil_conductivity_w_m_k: float = 1.5  #: moist frozen soil ~1-2 (Oke 1987, Boundary Layer Climates, Table 2.1 [mem])
+    soil_conductivity_w_m_k: float = (
+        1.5  #: moist frozen soil ~1-2 (Oke 1987, Boundary Layer Climates, Table 2.1 [mem])
+    )
     soil_heat_capacity_j_m3_k: float = 2.0e6  #: moist soil ~2-3 MJ m-3 K-1 (Oke 1987 [mem])
     deep_ground_temperature_k: float = 274.15  #: fixed temperature below 1.5 m of soil (ours)
     soil_water_kg_m3: float = 150.0  #: soil water that freezes (15 % by volume, ours)

@@ -12,8 +12,17 @@ __all__ = ["albedo_douville1995", "extinction_coefficient_jordan1991", "penetrat
 
 
 @njit(cache=True, nogil=True, error_model="numpy")
-def albedo_douville1995(albedo, melting, snowfall_kg_m2, dt_s, albedo_min, albedo_max,
-                        dry_decay_per_day, wet_efold_per_day, refresh_per_kg_m2):
+def albedo_douville1995(
+    albedo,
+    melting,
+    snowfall_kg_m2,
+    dt_s,
+    albedo_min,
+    albedo_max,
+    dry_decay_per_day,
+    wet_efold_per_day,
+    refresh_per_kg_m2,
+):
     """One step of prognostic snow albedo (Douville, Royer & Mahfouf 1995).
 
     Parameters
@@ -70,4 +79,6 @@ def extinction_coefficient_jordan1991(density_kg_m3, grain_size_mm):
 @njit(cache=True, nogil=True, error_model="numpy", inline="always")
 def penetration_fraction(density_kg_m3, grain_size_mm, thickness_m):
     """Fraction of the shortwave entering a layer that is absorbed in it (Beer-Lambert)."""
-    return 1.0 - exp_vec(-extinction_coefficient_jordan1991(density_kg_m3, grain_size_mm) * thickness_m)
+    return 1.0 - exp_vec(
+        -extinction_coefficient_jordan1991(density_kg_m3, grain_size_mm) * thickness_m
+    )

@@ -204,8 +204,14 @@ def _relative_sum(v, lo, inv):
 
 @njit(cache=True, nogil=True, error_model="numpy")
 def threshold_count_interfaces(
-    layer_count, thickness_m, grain_size_mm, hardness_index, grain_code, relative,
-    out_count, out_depth_m,
+    layer_count,
+    thickness_m,
+    grain_size_mm,
+    hardness_index,
+    grain_code,
+    relative,
+    out_count,
+    out_depth_m,
 ):
     """Threshold count (absolute) or relative threshold sum of every interface of one column.
 
@@ -299,12 +305,19 @@ def worst_interface_column(
         return best, best_depth_m
     if relative:
         depth_m = scratch[N_CRITERIA]
-        _column_variables(n, thickness_m, grain_size_mm, hardness_index, grain_code, scratch,
-                          depth_m)
+        _column_variables(
+            n, thickness_m, grain_size_mm, hardness_index, grain_code, scratch, depth_m
+        )
         lo, inv = _relative_scaling(n, scratch)
         for k in range(n - 2, -1, -1):
-            v = (scratch[0, k], scratch[1, k], scratch[2, k], scratch[3, k], scratch[4, k],
-                 scratch[5, k])
+            v = (
+                scratch[0, k],
+                scratch[1, k],
+                scratch[2, k],
+                scratch[3, k],
+                scratch[4, k],
+                scratch[5, k],
+            )
             s = _relative_sum(v, lo, inv)
             if s > best:
                 best = s
@@ -323,8 +336,14 @@ def worst_interface_column(
 
 @njit(cache=True, nogil=True, error_model="numpy")
 def threshold_count_columns(
-    layer_count, thickness_m, grain_size_mm, hardness_index, grain_code, relative,
-    out_count, out_depth_m,
+    layer_count,
+    thickness_m,
+    grain_size_mm,
+    hardness_index,
+    grain_code,
+    relative,
+    out_count,
+    out_depth_m,
 ):
     """Worst interface of each column: its threshold count (or relative sum) and depth.
 
@@ -359,8 +378,13 @@ def threshold_count_columns(
     scratch = np.empty((N_CRITERIA + 1, max(thickness_m.shape[1], 1)))
     for c in range(layer_count.shape[0]):
         out_count[c], out_depth_m[c] = worst_interface_column(
-            layer_count[c], thickness_m[c], grain_size_mm[c], hardness_index[c], grain_code[c],
-            relative, scratch,
+            layer_count[c],
+            thickness_m[c],
+            grain_size_mm[c],
+            hardness_index[c],
+            grain_code[c],
+            relative,
+            scratch,
         )
 
 
@@ -369,8 +393,12 @@ def _profile_arrays(thickness_m, grain_size_mm, hardness_index, grain_code):
     e = np.asarray(grain_size_mm, dtype=np.float64)
     h = np.asarray(hardness_index, dtype=np.float64)
     g = np.asarray(grain_code)
-    for name, a in (("thickness_m", th), ("grain_size_mm", e), ("hardness_index", h),
-                    ("grain_code", g)):
+    for name, a in (
+        ("thickness_m", th),
+        ("grain_size_mm", e),
+        ("hardness_index", h),
+        ("grain_code", g),
+    ):
         if a.ndim != 1 or a.shape != th.shape:
             raise InputError(
                 f"threshold count: {name} must be a 1-D layer array (bottom first) of the "
@@ -449,14 +477,16 @@ def threshold_count_reference(
     pers = _IS_PERSISTENT[g]
     pl, pu = pers[:-1], pers[1:]
     upper = (hu < hl) | (~(hl < hu) & ((eu > el) | (~(el > eu) & pu & ~pl)))
-    v = np.stack([
-        np.where(upper, pu, pl).astype(np.float64),
-        np.where(upper, eu, el),
-        -np.where(upper, hu, hl),
-        np.abs(eu - el),
-        np.abs(hu - hl),
-        ((depth_m >= _DEPTH_MIN_M) & (depth_m <= _DEPTH_MAX_M)).astype(np.float64),
-    ])
+    v = np.stack(
+        [
+            np.where(upper, pu, pl).astype(np.float64),
+            np.where(upper, eu, el),
+            -np.where(upper, hu, hl),
+            np.abs(eu - el),
+            np.abs(hu - hl),
+            ((depth_m >= _DEPTH_MIN_M) & (depth_m <= _DEPTH_MAX_M)).astype(np.float64),
+        ]
+    )
     if relative:
         lo = v.min(axis=1, keepdims=True)
         span = v.max(axis=1, keepdims=True) - lo
@@ -465,14 +495,16 @@ def threshold_count_reference(
         structural = scores[0] + scores[1] + scores[2] + scores[3] + scores[4]
         scores[5] = np.where(structural > 0, scores[5], 0.0)
     else:
-        scores = np.stack([
-            v[0],
-            (v[1] >= WEAK_GRAIN_SIZE_MIN_MM).astype(np.float64),
-            (-v[2] <= WEAK_HARDNESS_MAX).astype(np.float64),
-            (v[3] >= GRAIN_SIZE_DIFF_MIN_MM).astype(np.float64),
-            (v[4] >= HARDNESS_DIFF_MIN).astype(np.float64),
-            v[5],
-        ])
+        scores = np.stack(
+            [
+                v[0],
+                (v[1] >= WEAK_GRAIN_SIZE_MIN_MM).astype(np.float64),
+                (-v[2] <= WEAK_HARDNESS_MAX).astype(np.float64),
+                (v[3] >= GRAIN_SIZE_DIFF_MIN_MM).astype(np.float64),
+                (v[4] >= HARDNESS_DIFF_MIN).astype(np.float64),
+                v[5],
+            ]
+        )
     count = scores[0] + scores[1] + scores[2] + scores[3] + scores[4] + scores[5]
     return count, depth_m
 

@@ -132,8 +132,15 @@ class SnowState:
 
     # ---------------------------------------------------------------- construction
     @classmethod
-    def empty(cls, n_cells: int, max_layers: int = 50, *, time="2000-01-01T00:00",
-              cell_id=None, soil_temperature_k: float = 273.15) -> "SnowState":
+    def empty(
+        cls,
+        n_cells: int,
+        max_layers: int = 50,
+        *,
+        time="2000-01-01T00:00",
+        cell_id=None,
+        soil_temperature_k: float = 273.15,
+    ) -> SnowState:
         """Snow-free cells at ``time`` with soil at ``soil_temperature_k``."""
         n = int(n_cells)
         layers = {name: np.zeros((n, max_layers), dtype=dt) for name, dt in LAYER_FIELDS}
@@ -143,12 +150,18 @@ class SnowState:
         surface[:, V_SNOW_GAP_H] = 1e3
         surface[:, V_RAIN_GAP_H] = 1e3
         surface[:, V_FZ_GAP_H] = 1e3
-        surface[:, V_SOIL:V_SOIL + N_SOIL] = np.float32(soil_temperature_k)
+        surface[:, V_SOIL : V_SOIL + N_SOIL] = np.float32(soil_temperature_k)
         counters = np.zeros((n, N_SI), dtype=np.int64)
         ids = np.arange(n, dtype=np.int64) if cell_id is None else np.asarray(cell_id, np.int64)
-        return cls(time=np.datetime64(time, "s"), cell_id=ids, surface=surface,
-                   counters=counters, new_snow_kg_m2=np.zeros((n, RING_H), np.float32),
-                   new_snow_m=np.zeros((n, RING_H), np.float32), **layers)
+        return cls(
+            time=np.datetime64(time, "s"),
+            cell_id=ids,
+            surface=surface,
+            counters=counters,
+            new_snow_kg_m2=np.zeros((n, RING_H), np.float32),
+            new_snow_m=np.zeros((n, RING_H), np.float32),
+            **layers,
+        )
 
     @property
     def n_cells(self) -> int:
@@ -162,7 +175,7 @@ class SnowState:
     def layer_count(self) -> np.ndarray:
         return self.counters[:, J_N].astype(np.int32)
 
-    def copy(self) -> "SnowState":
+    def copy(self) -> SnowState:
         kw = {f.name: getattr(self, f.name) for f in fields(self)}
         for k, v in kw.items():
             if isinstance(v, np.ndarray):
@@ -174,8 +187,11 @@ class SnowState:
         return (self.ice_kg_m2.sum(1) + self.liquid_kg_m2.sum(1)) + self.surface[:, V_SH_MASS]
 
     def nbytes_per_cell(self) -> float:
-        total = sum(getattr(self, f.name).nbytes for f in fields(self)
-                    if isinstance(getattr(self, f.name), np.ndarray))
+        total = sum(
+            getattr(self, f.name).nbytes
+            for f in fields(self)
+            if isinstance(getattr(self, f.name), np.ndarray)
+        )
         return total / max(self.n_cells, 1)
 
     # ---------------------------------------------------------------- state.nc
@@ -193,27 +209,64 @@ class SnowState:
 
         ds = xr.Dataset(
             {
-                "layer_count": (("cell",), self.layer_count, {"long_name": "active layers, bottom first"}),
+                "layer_count": (
+                    ("cell",),
+                    self.layer_count,
+                    {"long_name": "active layers, bottom first"},
+                ),
                 "thickness_m": (dims, self.thickness_m, {"units": "m"}),
                 "ice_kg_m2": (dims, self.ice_kg_m2, {"units": "kg m-2"}),
                 "liquid_kg_m2": (dims, self.liquid_kg_m2, {"units": "kg m-2"}),
                 "temperature_k": (dims, self.temperature_k, {"units": "K"}),
                 "grain_size_mm": (dims, self.grain_size_mm, {"units": "mm"}),
-                "hardness_index": (dims, layer_hardness_array(self), {
-                    "units": "1", "long_name": "hand hardness index F=1 ... I=6 (Fierz et al. 2009)"}),
+                "hardness_index": (
+                    dims,
+                    layer_hardness_array(self),
+                    {
+                        "units": "1",
+                        "long_name": "hand hardness index F=1 ... I=6 (Fierz et al. 2009)",
+                    },
+                ),
                 "dendricity": (dims, self.dendricity, {"units": "1"}),
                 "facetedness": (dims, self.facetedness, {"units": "1"}),
-                "grain_class": (dims, np.where(active, grain_codes_to_strings(self.grain_code), "").astype(str)),
-                "crust_kind": (dims, np.where(active, crust_codes_to_strings(self.crust_code), "").astype(str)),
-                "formation_flags": (dims, self.flags, {"long_name": "formation flag bits (regionmap.snow.crusts)"}),
-                "deposition_time": (dims, t64(self.deposition_time_s2000), {
-                    "units": "seconds since 1970-01-01", "_FillValue_note": "-1 where unused"}),
-                "formation_time": (dims, t64(self.formation_time_s2000), {
-                    "units": "seconds since 1970-01-01"}),
-                "event_id": (dims, self.event_id, {
-                    "long_name": "start of the forming event, whole hours since 1970-01-01T00Z"}),
-                "soil_temperature_k": (("cell", "soil_layer"), self.surface[:, V_SOIL:V_SOIL + N_SOIL], {"units": "K"}),
-                "new_snow_history_kg_m2": (("cell", "ring_hour"), self.new_snow_kg_m2, {"units": "kg m-2"}),
+                "grain_class": (
+                    dims,
+                    np.where(active, grain_codes_to_strings(self.grain_code), "").astype(str),
+                ),
+                "crust_kind": (
+                    dims,
+                    np.where(active, crust_codes_to_strings(self.crust_code), "").astype(str),
+                ),
+                "formation_flags": (
+                    dims,
+                    self.flags,
+                    {"long_name": "formation flag bits (regionmap.snow.crusts)"},
+                ),
+                "deposition_time": (
+                    dims,
+                    t64(self.deposition_time_s2000),
+                    {"units": "seconds since 1970-01-01", "_FillValue_note": "-1 where unused"},
+                ),
+                "formation_time": (
+                    dims,
+                    t64(self.formation_time_s2000),
+                    {"units": "seconds since 1970-01-01"},
+                ),
+                "event_id": (
+                    dims,
+                    self.event_id,
+                    {"long_name": "start of the forming event, whole hours since 1970-01-01T00Z"},
+                ),
+                "soil_temperature_k": (
+                    ("cell", "soil_layer"),
+                    self.surface[:, V_SOIL : V_SOIL + N_SOIL],
+                    {"units": "K"},
+                ),
+                "new_snow_history_kg_m2": (
+                    ("cell", "ring_hour"),
+                    self.new_snow_kg_m2,
+                    {"units": "kg m-2"},
+                ),
                 "new_snow_history_m": (("cell", "ring_hour"), self.new_snow_m, {"units": "m"}),
             },
             coords={
@@ -221,10 +274,13 @@ class SnowState:
                 "soil_thickness_m": (("soil_layer",), np.array(SOIL_THICKNESS_M)),
                 "time": self.time.astype("datetime64[ns]"),
             },
-            attrs={"title": "regionmap snow state", "settings_fingerprint": self.fingerprint,
-                   "layer_order": "bottom first",
-                   "caution": "model guidance for trained people; never a substitute for field "
-                              "observations, the local avalanche service or professional standards"},
+            attrs={
+                "title": "regionmap snow state",
+                "settings_fingerprint": self.fingerprint,
+                "layer_order": "bottom first",
+                "caution": "model guidance for trained people; never a substitute for field "
+                "observations, the local avalanche service or professional standards",
+            },
         )
         for name, k, units, long in _CELL_FLOAT:
             ds[name] = (("cell",), self.surface[:, k], {"units": units, "long_name": long})
@@ -233,30 +289,50 @@ class SnowState:
         return ds
 
     @classmethod
-    def from_dataset(cls, ds: xr.Dataset, *, source: str = "state dataset") -> "SnowState":
+    def from_dataset(cls, ds: xr.Dataset, *, source: str = "state dataset") -> SnowState:
         """Rebuild a state from :meth:`to_dataset` output; raises InputError if malformed."""
-        need = ["layer_count", "thickness_m", "ice_kg_m2", "liquid_kg_m2", "temperature_k",
-                "grain_size_mm", "dendricity", "facetedness", "grain_class", "crust_kind",
-                "formation_flags", "deposition_time", "formation_time", "event_id",
-                "soil_temperature_k", "new_snow_history_kg_m2", "new_snow_history_m"]
+        need = [
+            "layer_count",
+            "thickness_m",
+            "ice_kg_m2",
+            "liquid_kg_m2",
+            "temperature_k",
+            "grain_size_mm",
+            "dendricity",
+            "facetedness",
+            "grain_class",
+            "crust_kind",
+            "formation_flags",
+            "deposition_time",
+            "formation_time",
+            "event_id",
+            "soil_temperature_k",
+            "new_snow_history_kg_m2",
+            "new_snow_history_m",
+        ]
         need += [n for n, *_ in _CELL_FLOAT] + [n for n, *_ in _CELL_INT]
         missing = [v for v in need if v not in ds.variables]
         if missing or "time" not in ds.coords or "cell_id" not in ds.coords:
             raise InputError(
                 f"{source}: not a regionmap snow state; missing variables {missing or ['time/cell_id']}; "
-                "hint: pass a state.nc written by regionmap")
+                "hint: pass a state.nc written by regionmap"
+            )
         count = ds["layer_count"].values.astype(np.int64)
         n, n_layer = ds["thickness_m"].shape
         if count.min(initial=0) < 0 or count.max(initial=0) > n_layer:
-            raise InputError(f"{source}: layer_count must be within 0..{n_layer}, got "
-                             f"{count.min()}..{count.max()}")
+            raise InputError(
+                f"{source}: layer_count must be within 0..{n_layer}, got "
+                f"{count.min()}..{count.max()}"
+            )
         active = np.arange(n_layer)[None, :] < count[:, None]
         try:
             grain = grain_strings_to_codes(np.where(active, ds["grain_class"].values, ""))
             crust = crust_strings_to_codes(np.where(active, ds["crust_kind"].values, "none"))
         except KeyError as exc:
-            raise InputError(f"{source}: unknown grain class or crust kind {exc}; expected the "
-                             "codes of regionmap.snow.codes") from None
+            raise InputError(
+                f"{source}: unknown grain class or crust kind {exc}; expected the "
+                "codes of regionmap.snow.codes"
+            ) from None
 
         def s2000(name):
             raw = ds[name].values
@@ -283,17 +359,21 @@ class SnowState:
         surface = np.zeros((n, N_SV))
         for name, k, *_ in _CELL_FLOAT:
             surface[:, k] = ds[name].values
-        surface[:, V_SOIL:V_SOIL + N_SOIL] = ds["soil_temperature_k"].values
+        surface[:, V_SOIL : V_SOIL + N_SOIL] = ds["soil_temperature_k"].values
         counters = np.zeros((n, N_SI), dtype=np.int64)
         counters[:, J_N] = count
         for name, k, _ in _CELL_INT:
             counters[:, k] = ds[name].values
         return cls(
             time=np.datetime64(ds["time"].values, "s"),
-            cell_id=ds["cell_id"].values.astype(np.int64), surface=surface, counters=counters,
+            cell_id=ds["cell_id"].values.astype(np.int64),
+            surface=surface,
+            counters=counters,
             new_snow_kg_m2=ds["new_snow_history_kg_m2"].values.astype(np.float32),
             new_snow_m=ds["new_snow_history_m"].values.astype(np.float32),
-            fingerprint=str(ds.attrs.get("settings_fingerprint", "")), **layers)
+            fingerprint=str(ds.attrs.get("settings_fingerprint", "")),
+            **layers,
+        )
 
     def save(self, path) -> Path:
         """Write ``state.nc`` atomically (temporary file in the same folder, then os.replace)."""
@@ -305,20 +385,26 @@ class SnowState:
             self.to_dataset().to_netcdf(tmp, engine="netcdf4")
             os.replace(tmp, path)
         except OSError as exc:
-            raise OutputError(f"{path}: cannot write the snow state ({exc}); hint: check the "
-                              "folder exists and is writable") from None
+            raise OutputError(
+                f"{path}: cannot write the snow state ({exc}); hint: check the "
+                "folder exists and is writable"
+            ) from None
         return path
 
     @classmethod
-    def load(cls, path) -> "SnowState":
+    def load(cls, path) -> SnowState:
         """Read a ``state.nc`` written by :meth:`save`."""
         path = Path(path)
         if not path.is_file():
-            raise InputError(f"{path}: snow state file not found; hint: give the state.nc of an "
-                             "earlier run (--continue-from)")
+            raise InputError(
+                f"{path}: snow state file not found; hint: give the state.nc of an "
+                "earlier run (--continue-from)"
+            )
         try:
             with xr.open_dataset(path, engine="netcdf4") as ds:
                 ds.load()
         except (OSError, ValueError) as exc:
-            raise InputError(f"{path}: cannot read as NetCDF ({exc}); expected a state.nc") from None
+            raise InputError(
+                f"{path}: cannot read as NetCDF ({exc}); expected a state.nc"
+            ) from None
         return cls.from_dataset(ds, source=str(path))

@@ -117,8 +117,18 @@ def turbulent_exchange_coefficient(
 
 @njit(cache=True, nogil=True, error_model="numpy")
 def surface_fluxes(
-    t_surf_k, t_air_k, q_air, pressure_pa, wind_m_s, lw_in_w_m2, sw_abs_surface_w_m2,
-    emissivity, c_neutral, z_temp_m, z0_m, stable_floor_frac,
+    t_surf_k,
+    t_air_k,
+    q_air,
+    pressure_pa,
+    wind_m_s,
+    lw_in_w_m2,
+    sw_abs_surface_w_m2,
+    emissivity,
+    c_neutral,
+    z_temp_m,
+    z0_m,
+    stable_floor_frac,
 ):
     """Energy fluxes at a snow surface of temperature ``t_surf_k`` (positive downwards).
 
@@ -156,15 +166,31 @@ def surface_fluxes(
     t2 = t_surf_k * t_surf_k
     lw_out = emissivity * SIGMA_W_M2_K4 * t2 * t2
     lw_net = emissivity * lw_in_w_m2 - lw_out
-    dq_dts = -4.0 * lw_out / t_surf_k - C_AIR_J_KG_K * conductance - (
-        L_SUBLIMATION_J_KG * conductance * dq_surf)
+    dq_dts = (
+        -4.0 * lw_out / t_surf_k
+        - C_AIR_J_KG_K * conductance
+        - (L_SUBLIMATION_J_KG * conductance * dq_surf)
+    )
     return sw_abs_surface_w_m2 + lw_net + sensible + latent, sensible, latent, vapour_flux, dq_dts
 
 
 @njit(cache=True, nogil=True, error_model="numpy")
 def solve_surface_temperature(
-    t_guess_k, t_top_k, k_surf_w_m2_k, t_air_k, q_air, pressure_pa, wind_m_s, lw_in_w_m2,
-    sw_abs_surface_w_m2, emissivity, c_neutral, z_temp_m, z0_m, stable_floor_frac, n_iter,
+    t_guess_k,
+    t_top_k,
+    k_surf_w_m2_k,
+    t_air_k,
+    q_air,
+    pressure_pa,
+    wind_m_s,
+    lw_in_w_m2,
+    sw_abs_surface_w_m2,
+    emissivity,
+    c_neutral,
+    z_temp_m,
+    z0_m,
+    stable_floor_frac,
+    n_iter,
 ):
     """Skin temperature from q_net(Ts) = K (Ts - T_top): safeguarded Newton, capped at 0 degC.
 
@@ -183,9 +209,20 @@ def solve_surface_temperature(
         q_net(Ts) - K (Ts - T_top) at the solution [W m-2] (0 when capped at melting).
     """
     hi = T_MELT_K
-    q_hi, s_hi, l_hi, v_hi, d_hi = surface_fluxes(hi, t_air_k, q_air, pressure_pa, wind_m_s,
-                                                  lw_in_w_m2, sw_abs_surface_w_m2, emissivity,
-                                                  c_neutral, z_temp_m, z0_m, stable_floor_frac)
+    q_hi, s_hi, l_hi, v_hi, d_hi = surface_fluxes(
+        hi,
+        t_air_k,
+        q_air,
+        pressure_pa,
+        wind_m_s,
+        lw_in_w_m2,
+        sw_abs_surface_w_m2,
+        emissivity,
+        c_neutral,
+        z_temp_m,
+        z0_m,
+        stable_floor_frac,
+    )
     f_hi = q_hi - k_surf_w_m2_k * (hi - t_top_k)
     if f_hi >= 0.0:
         return T_MELT_K, q_hi, s_hi, l_hi, v_hi, d_hi, 0.0
@@ -194,9 +231,20 @@ def solve_surface_temperature(
     f = 0.0
     dq = d_hi
     for _ in range(n_iter):
-        q0, _s, _l, _v, dq = surface_fluxes(ts, t_air_k, q_air, pressure_pa, wind_m_s,
-                                            lw_in_w_m2, sw_abs_surface_w_m2, emissivity,
-                                            c_neutral, z_temp_m, z0_m, stable_floor_frac)
+        q0, _s, _l, _v, dq = surface_fluxes(
+            ts,
+            t_air_k,
+            q_air,
+            pressure_pa,
+            wind_m_s,
+            lw_in_w_m2,
+            sw_abs_surface_w_m2,
+            emissivity,
+            c_neutral,
+            z_temp_m,
+            z0_m,
+            stable_floor_frac,
+        )
         f = q0 - k_surf_w_m2_k * (ts - t_top_k)
         if f > 0.0:
             lo = ts
@@ -209,7 +257,18 @@ def solve_surface_temperature(
         if nxt < lo or nxt > hi:
             nxt = 0.5 * (lo + hi)
         ts = nxt
-    q0, sens, lat, vap, dq = surface_fluxes(ts, t_air_k, q_air, pressure_pa, wind_m_s,
-                                            lw_in_w_m2, sw_abs_surface_w_m2, emissivity,
-                                            c_neutral, z_temp_m, z0_m, stable_floor_frac)
+    q0, sens, lat, vap, dq = surface_fluxes(
+        ts,
+        t_air_k,
+        q_air,
+        pressure_pa,
+        wind_m_s,
+        lw_in_w_m2,
+        sw_abs_surface_w_m2,
+        emissivity,
+        c_neutral,
+        z_temp_m,
+        z0_m,
+        stable_floor_frac,
+    )
     return ts, q0, sens, lat, vap, dq, q0 - k_surf_w_m2_k * (ts - t_top_k)

@@ -17,8 +17,9 @@ __all__ = ["surface_hoar_forms", "surface_hoar_destroyed", "surface_hoar_size_mm
 
 
 @njit(cache=True, nogil=True, error_model="numpy")
-def surface_hoar_forms(vapour_flux_kg_m2_s, wind_m_s, t_surf_k, t_air_k, snowfall_kg_m2,
-                       wind_max_m_s):
+def surface_hoar_forms(
+    vapour_flux_kg_m2_s, wind_m_s, t_surf_k, t_air_k, snowfall_kg_m2, wind_max_m_s
+):
     """Formation conditions: deposition, light wind, radiatively cooled dry surface (below the
     air temperature and below 0 degC), no snowfall."""
     return (
@@ -31,8 +32,9 @@ def surface_hoar_forms(vapour_flux_kg_m2_s, wind_m_s, t_surf_k, t_air_k, snowfal
 
 
 @njit(cache=True, nogil=True, error_model="numpy")
-def surface_hoar_destroyed(wind_m_s, surface_melting, sw_absorbed_w_m2, destroy_wind_m_s,
-                           destroy_sw_w_m2):
+def surface_hoar_destroyed(
+    wind_m_s, surface_melting, sw_absorbed_w_m2, destroy_wind_m_s, destroy_sw_w_m2
+):
     """Destruction: wind above ``destroy_wind_m_s``, a melting surface, or strong sun."""
     return wind_m_s > destroy_wind_m_s or surface_melting or sw_absorbed_w_m2 > destroy_sw_w_m2
 

@@ -68,7 +68,12 @@ def resolve_phase(total_kg_m2, enthalpy_j_m2):
         return 0.0, 0.0, T_MELT_K, enthalpy_j_m2
     h_melt = -L_FUSION_J_KG * total_kg_m2
     if enthalpy_j_m2 < h_melt:
-        return total_kg_m2, 0.0, T_MELT_K + (enthalpy_j_m2 - h_melt) / (C_ICE_J_KG_K * total_kg_m2), 0.0
+        return (
+            total_kg_m2,
+            0.0,
+            T_MELT_K + (enthalpy_j_m2 - h_melt) / (C_ICE_J_KG_K * total_kg_m2),
+            0.0,
+        )
     if enthalpy_j_m2 <= 0.0:
         liquid = (enthalpy_j_m2 - h_melt) / L_FUSION_J_KG
         liquid = min(liquid, total_kg_m2)
@@ -88,8 +93,14 @@ def retention_capacity(ice_kg_m2, thickness_m, pore_frac):
 
 
 @njit(cache=True, nogil=True, error_model="numpy")
-def is_flow_barrier(density_below_kg_m3, grain_below_is_ice, grain_mm_above, grain_mm_below,
-                    barrier_density_kg_m3, capillary_ratio):
+def is_flow_barrier(
+    density_below_kg_m3,
+    grain_below_is_ice,
+    grain_mm_above,
+    grain_mm_below,
+    barrier_density_kg_m3,
+    capillary_ratio,
+):
     """Whether the layer below holds water back: ice layer / dense crust, or fine over coarse.
 
     The capillary rule: grains below at least ``capillary_ratio`` times coarser than above
@@ -101,8 +112,9 @@ def is_flow_barrier(density_below_kg_m3, grain_below_is_ice, grain_mm_above, gra
 
 
 @njit(cache=True, nogil=True, error_model="numpy")
-def percolate_column(n, ice, liquid, t_k, thickness_m, is_barrier_below, irreducible_frac,
-                     pond_frac, inflow_kg_m2):
+def percolate_column(
+    n, ice, liquid, t_k, thickness_m, is_barrier_below, irreducible_frac, pond_frac, inflow_kg_m2
+):
     """Route liquid water down a column of ``n`` layers (bottom first) for one step.
 
     Parameters

@@ -68,7 +68,11 @@ class TerrainSettings:
         checks = [
             ("n_azimuths", 4 <= int(self.n_azimuths) <= 72, "an integer from 4 to 72"),
             ("horizon_distance_m", self.horizon_distance_m > 0, "a positive distance in metres"),
-            ("exposure_directions", 1 <= int(self.exposure_directions) <= 72, "an integer from 1 to 72"),
+            (
+                "exposure_directions",
+                1 <= int(self.exposure_directions) <= 72,
+                "an integer from 1 to 72",
+            ),
             ("exposure_distance_m", self.exposure_distance_m > 0, "a positive distance in metres"),
             ("curvature_length_m", self.curvature_length_m > 0, "a positive distance in metres"),
         ]
@@ -134,13 +138,24 @@ def compute_terrain(dem: Dem, settings: TerrainSettings | None = None, *, progre
         progress(1)
     az = settings.horizon_azimuths_deg
     horizon, sky = horizon_sky_view_dozier_frew1990(
-        z, dx, dy, slope, aspect, az, settings.horizon_distance_m,
-        earth_curvature=settings.earth_curvature, progress=progress,
+        z,
+        dx,
+        dy,
+        slope,
+        aspect,
+        az,
+        settings.horizon_distance_m,
+        earth_curvature=settings.earth_curvature,
+        progress=progress,
     )
     dirs = settings.exposure_directions_deg
-    sx = max_upwind_slope_winstral2002(z, dx, dy, dirs, settings.exposure_distance_m, progress=progress)
+    sx = max_upwind_slope_winstral2002(
+        z, dx, dy, dirs, settings.exposure_distance_m, progress=progress
+    )
     if m is not dem:
-        slope, aspect, curv, horizon, sky, sx = _back_to_grid(m, dem, slope, aspect, curv, horizon, sky, sx)
+        slope, aspect, curv, horizon, sky, sx = _back_to_grid(
+            m, dem, slope, aspect, curv, horizon, sky, sx
+        )
     if progress is not None:
         progress(1)
     return Terrain(slope, aspect, curv, horizon, az, sky, sx, dirs)
@@ -157,7 +172,9 @@ def _back_to_grid(m: Dem, dem: Dem, slope, aspect, curv, horizon, sky, sx):
     aspect_out[np.isnan(slope_out)] = np.nan
     gamma = _meridian_convergence_deg(m.crs, dem)
     aspect_out = (aspect_out + gamma) % 360.0
-    horizon_out = _bands_at_true_azimuths(reproject_to_grid(horizon, m, dem), gamma).astype(np.float32)
+    horizon_out = _bands_at_true_azimuths(reproject_to_grid(horizon, m, dem), gamma).astype(
+        np.float32
+    )
     sx_out = _bands_at_true_azimuths(reproject_to_grid(sx, m, dem), gamma).astype(np.float32)
     return slope_out, aspect_out, curv_out, horizon_out, sky_out, sx_out
 
@@ -246,18 +263,42 @@ def write_terrain_layers(
         t = compute_terrain(dem, settings, progress=bar.update)
         layers = [
             ("slope_deg", t.slope_deg.astype(np.float32), "slope angle [deg] (Horn 1981)"),
-            ("aspect_deg", t.aspect_deg.astype(np.float32), "aspect [deg], 0 = north, clockwise; nodata where flat"),
+            (
+                "aspect_deg",
+                t.aspect_deg.astype(np.float32),
+                "aspect [deg], 0 = north, clockwise; nodata where flat",
+            ),
             ("curvature", t.curvature.astype(np.float32), "curvature [1] (Liston & Sturm 1998)"),
-            ("sky_view_frac", t.sky_view_frac.astype(np.float32), "sky-view factor [1] (Dozier & Frew 1990)"),
-            ("horizon_deg", t.horizon_deg,
-             [f"horizon angle [deg] at azimuth {a:g} deg" for a in t.horizon_azimuths_deg]),
-            ("sx_deg", t.sx_deg,
-             [f"max upwind slope Sx [deg], wind from {a:g} deg (Winstral et al. 2002)" for a in t.sx_directions_deg]),
+            (
+                "sky_view_frac",
+                t.sky_view_frac.astype(np.float32),
+                "sky-view factor [1] (Dozier & Frew 1990)",
+            ),
+            (
+                "horizon_deg",
+                t.horizon_deg,
+                [f"horizon angle [deg] at azimuth {a:g} deg" for a in t.horizon_azimuths_deg],
+            ),
+            (
+                "sx_deg",
+                t.sx_deg,
+                [
+                    f"max upwind slope Sx [deg], wind from {a:g} deg (Winstral et al. 2002)"
+                    for a in t.sx_directions_deg
+                ],
+            ),
         ]
         for name, arr, desc in layers:
             written.append(
-                write_geotiff(out / f"{name}.tif", arr, transform=dem.transform, crs=dem.crs,
-                              nodata=-9999.0, description=desc, tags={"source_dem": str(dem.path)})
+                write_geotiff(
+                    out / f"{name}.tif",
+                    arr,
+                    transform=dem.transform,
+                    crs=dem.crs,
+                    nodata=-9999.0,
+                    description=desc,
+                    tags={"source_dem": str(dem.path)},
+                )
             )
             bar.update(1)
     return written

@@ -54,10 +54,24 @@ def _atan_reduction(ax):
     """(num, den, offset) with atan(ax) = offset + atan(num/den) and |num/den| <= tan(pi/16),
     for ax >= 0: offset [rad] is the multiple of pi/8 nearest to atan(ax), and num/den =
     tan(atan(ax) - offset) = (ax - tan(offset))/(1 + ax tan(offset)), or -1/ax near pi/2."""
-    t = 0.0 if ax <= 0.198912367379658 else (0.41421356237309503 if ax <= 0.6681786379192989 else (
-        1.0 if ax <= 1.496605762665489 else 2.414213562373095))
-    offset = 0.0 if ax <= 0.198912367379658 else (0.39269908169872414 if ax <= 0.6681786379192989 else (
-        0.7853981633974483 if ax <= 1.496605762665489 else 1.1780972450961724))
+    t = (
+        0.0
+        if ax <= 0.198912367379658
+        else (
+            0.41421356237309503
+            if ax <= 0.6681786379192989
+            else (1.0 if ax <= 1.496605762665489 else 2.414213562373095)
+        )
+    )
+    offset = (
+        0.0
+        if ax <= 0.198912367379658
+        else (
+            0.39269908169872414
+            if ax <= 0.6681786379192989
+            else (0.7853981633974483 if ax <= 1.496605762665489 else 1.1780972450961724)
+        )
+    )
     big = ax > 5.027339492125848
     num = -1.0 if big else ax - t
     den = ax if big else 1.0 + ax * t
@@ -208,7 +222,9 @@ def _scan_line_pair(w, n, L, ds, inv_r, floor0, back, sw, si, best, best_b, out,
                 if wp == wp:
                     while top >= 1:
                         # drop the top when it is on or below the segment p-(top-1)
-                        if (sw[top] - wp) * (si[top - 1] - nxt) <= (sw[top - 1] - wp) * (si[top] - nxt):
+                        if (sw[top] - wp) * (si[top - 1] - nxt) <= (sw[top - 1] - wp) * (
+                            si[top] - nxt
+                        ):
                             top -= 1
                         else:
                             break
@@ -287,8 +303,28 @@ def _column_offsets(nx_v, s):
 
 
 @numba.njit(cache=True, nogil=True, error_model="numpy")
-def _scan_block(zc, flip, fl, fr, ny_v, o0, nb, ds, L, inv_r, floor0, back, wbuf, res, res_b, span, sw, si,
-                best, best_b):
+def _scan_block(
+    zc,
+    flip,
+    fl,
+    fr,
+    ny_v,
+    o0,
+    nb,
+    ds,
+    L,
+    inv_r,
+    floor0,
+    back,
+    wbuf,
+    res,
+    res_b,
+    span,
+    sw,
+    si,
+    best,
+    best_b,
+):
     """Scan the lines o0 .. o0+nb-1 of one azimuth into ``res[1:nb+1]`` (NaN off the line),
     and when ``back`` those of the opposite azimuth (the same lines) into ``res_b[1:nb+1]``.
 
@@ -334,7 +370,9 @@ def _scan_block(zc, flip, fl, fr, ny_v, o0, nb, ds, L, inv_r, floor0, back, wbuf
         else:
             for b in range(lo, hi + 1):
                 t = (c - span[b, 0]) * ds
-                wbuf[b, c] = (1.0 - f) * zc[cc, base + b] + f * zc[cc, base + b + 1] - t * t * half_inv_r
+                wbuf[b, c] = (
+                    (1.0 - f) * zc[cc, base + b] + f * zc[cc, base + b + 1] - t * t * half_inv_r
+                )
     for b in range(nb):
         c_lo = span[b, 0]
         c_hi = span[b, 1]
@@ -348,11 +386,34 @@ def _scan_block(zc, flip, fl, fr, ny_v, o0, nb, ds, L, inv_r, floor0, back, wbuf
         if c_hi < c_lo:
             continue
         if back:
-            _scan_line_pair(wbuf[b, c_lo:c_hi + 1], c_hi - c_lo + 1, L, ds, inv_r, floor0, True, sw, si, best,
-                            best_b, row[c_lo:c_hi + 1], row_b[c_lo:c_hi + 1])
+            _scan_line_pair(
+                wbuf[b, c_lo : c_hi + 1],
+                c_hi - c_lo + 1,
+                L,
+                ds,
+                inv_r,
+                floor0,
+                True,
+                sw,
+                si,
+                best,
+                best_b,
+                row[c_lo : c_hi + 1],
+                row_b[c_lo : c_hi + 1],
+            )
         else:
-            _scan_one_line(wbuf[b, c_lo:c_hi + 1], c_hi - c_lo + 1, L, ds, inv_r, floor0, sw, si, best,
-                           row[c_lo:c_hi + 1])
+            _scan_one_line(
+                wbuf[b, c_lo : c_hi + 1],
+                c_hi - c_lo + 1,
+                L,
+                ds,
+                inv_r,
+                floor0,
+                sw,
+                si,
+                best,
+                row[c_lo : c_hi + 1],
+            )
 
 
 @numba.njit(cache=True, nogil=True, error_model="numpy", inline="always")
@@ -367,8 +428,25 @@ _BLOCK = 32
 
 
 @numba.njit(cache=True, nogil=True, error_model="numpy")
-def _horizon_azimuth(zc, flip, s, o_min, n_lines, ds, L, inv_r, cos_phi, sin_phi, back,
-                     cos_s, sin_cos, sin_sin, horizon_out, horizon_b, sky_acc):
+def _horizon_azimuth(
+    zc,
+    flip,
+    s,
+    o_min,
+    n_lines,
+    ds,
+    L,
+    inv_r,
+    cos_phi,
+    sin_phi,
+    back,
+    cos_s,
+    sin_cos,
+    sin_sin,
+    horizon_out,
+    horizon_b,
+    sky_acc,
+):
     """Horizon angle [deg] of one azimuth and its sky-view term, both on the view frame;
     with ``back``, also those of the opposite azimuth (into ``horizon_b``) from the same lines.
 
@@ -403,8 +481,28 @@ def _horizon_azimuth(zc, flip, s, o_min, n_lines, ds, L, inv_r, cos_phi, sin_phi
     o_first = int(o_min)
     for o0 in range(o_first, o_first + n_lines, nb_max):
         nb = min(nb_max, o_first + n_lines - o0)
-        _scan_block(zc, flip, fl, fr, ny_v, o0, nb, ds, L, inv_r, True, back, wbuf, res, res_b, span, sw, si,
-                    best, best_b)
+        _scan_block(
+            zc,
+            flip,
+            fl,
+            fr,
+            ny_v,
+            o0,
+            nb,
+            ds,
+            L,
+            inv_r,
+            True,
+            back,
+            wbuf,
+            res,
+            res_b,
+            span,
+            sw,
+            si,
+            best,
+            best_b,
+        )
         # pixels whose upper line is o0-1 .. o0+nb-2 (res rows 0 .. nb-1): first the angles
         # and the sky-view weights along each line (loops that vectorise), then the pixel
         # updates. With H = pi/2 - e: sin^2 H = 1/(1+m^2), sin H cos H = m/(1+m^2); the
@@ -472,8 +570,28 @@ def _sx_azimuth(zc, flip, s, o_min, n_lines, ds, L, total, count):
     o_first = int(o_min)
     for o0 in range(o_first, o_first + n_lines, nb_max):
         nb = min(nb_max, o_first + n_lines - o0)
-        _scan_block(zc, flip, fl, fr, ny_v, o0, nb, ds, L, 0.0, False, False, wbuf, res, res, span, sw, si,
-                    best, best)
+        _scan_block(
+            zc,
+            flip,
+            fl,
+            fr,
+            ny_v,
+            o0,
+            nb,
+            ds,
+            L,
+            0.0,
+            False,
+            False,
+            wbuf,
+            res,
+            res,
+            span,
+            sw,
+            si,
+            best,
+            best,
+        )
         for k in range(nb):
             for c in range(nx_v):
                 if g[c] == 0.0:
@@ -504,7 +622,9 @@ class _Geometry:
     form of a (y, x) grid array.
     """
 
-    def __init__(self, azimuth_deg: float, ny: int, nx: int, dx_m: float, dy_m: float, distance_m: float):
+    def __init__(
+        self, azimuth_deg: float, ny: int, nx: int, dx_m: float, dy_m: float, distance_m: float
+    ):
         phi = math.radians(azimuth_deg)
         dr = -math.cos(phi) / dy_m  # toward the horizon, in pixels per metre
         dc = math.sin(phi) / dx_m
@@ -644,10 +764,25 @@ def horizon_sky_view_dozier_frew1990(
         for i, j in tasks:
             g = _Geometry(az[i], ny, nx, dx_m, dy_m, distance_m)
             phi = math.radians(az[i])
-            _horizon_azimuth(g.elevation(z, zt), g.flip, g.s, g.o_min, g.n_lines, g.ds, g.L, inv_r,
-                             math.cos(phi), math.sin(phi), j >= 0, g.view(cos_s), g.view(sin_cos),
-                             g.view(sin_sin), g.view(horizon[i]), g.view(horizon[j if j >= 0 else i]),
-                             g.view(acc))
+            _horizon_azimuth(
+                g.elevation(z, zt),
+                g.flip,
+                g.s,
+                g.o_min,
+                g.n_lines,
+                g.ds,
+                g.L,
+                inv_r,
+                math.cos(phi),
+                math.sin(phi),
+                j >= 0,
+                g.view(cos_s),
+                g.view(sin_cos),
+                g.view(sin_sin),
+                g.view(horizon[i]),
+                g.view(horizon[j if j >= 0 else i]),
+                g.view(acc),
+            )
             if progress is not None:
                 progress(1 if j < 0 else 2)
         return acc
@@ -687,7 +822,9 @@ def sky_view_dozier_frew1990(horizon_deg, azimuths_deg, slope_deg, aspect_deg) -
     """
     e = np.radians(np.asarray(horizon_deg, dtype=np.float64))
     h = 0.5 * np.pi - e
-    phi = np.radians(np.asarray(azimuths_deg, dtype=np.float64)).reshape((-1,) + (1,) * (e.ndim - 1))
+    phi = np.radians(np.asarray(azimuths_deg, dtype=np.float64)).reshape(
+        (-1,) + (1,) * (e.ndim - 1)
+    )
     s = np.radians(np.asarray(slope_deg, dtype=np.float64))
     a = np.radians(np.nan_to_num(np.asarray(aspect_deg, dtype=np.float64), nan=0.0))
     term = np.cos(s) * np.sin(h) ** 2 + np.sin(s) * np.cos(phi - a) * (h - np.sin(h) * np.cos(h))
@@ -751,8 +888,17 @@ def max_upwind_slope_winstral2002(
             count = np.zeros((ny, nx))
             for off in offsets:
                 g = _Geometry((dirs[i] + off) % 360.0, ny, nx, dx_m, dy_m, distance_m)
-                _sx_azimuth(g.elevation(z, zt), g.flip, g.s, g.o_min, g.n_lines, g.ds, g.L,
-                            g.view(total), g.view(count))
+                _sx_azimuth(
+                    g.elevation(z, zt),
+                    g.flip,
+                    g.s,
+                    g.o_min,
+                    g.n_lines,
+                    g.ds,
+                    g.L,
+                    g.view(total),
+                    g.view(count),
+                )
             with np.errstate(invalid="ignore", divide="ignore"):
                 out[i] = np.where(count > 0, total / np.maximum(count, 1.0), np.nan)
             if progress is not None:

@@ -40,7 +40,9 @@ def _horn_kernel(z, dx, dy, slope_deg, aspect_deg):
                 aspect_deg[r, c] = a + 360.0 if a < 0.0 else a
 
 
-def slope_aspect_horn1981(elevation_m: np.ndarray, dx_m: float, dy_m: float) -> tuple[np.ndarray, np.ndarray]:
+def slope_aspect_horn1981(
+    elevation_m: np.ndarray, dx_m: float, dy_m: float
+) -> tuple[np.ndarray, np.ndarray]:
     """Slope and aspect from the 3 x 3 weighted difference of Horn (1981).
 
     Parameters

@@ -58,8 +58,29 @@ def test_plus_minus_modifier_third_step(text, expected):
 def test_modifiers_keep_order_between_steps():
     # A '+' label lies between the label and the next intermediate step (Fierz et al. 2009
     # order of the scale F < 4F < 1F < P < K < I), whatever the numeric convention.
-    seq = ["F", "F+", "F-4F", "4F-", "4F", "4F+", "4F-1F", "1F-", "1F", "1F+", "1F-P",
-           "P-", "P", "P+", "P-K", "K-", "K", "K+", "K-I", "I-", "I"]
+    seq = [
+        "F",
+        "F+",
+        "F-4F",
+        "4F-",
+        "4F",
+        "4F+",
+        "4F-1F",
+        "1F-",
+        "1F",
+        "1F+",
+        "1F-P",
+        "P-",
+        "P",
+        "P+",
+        "P-K",
+        "K-",
+        "K",
+        "K+",
+        "K-I",
+        "I-",
+        "I",
+    ]
     values = [parse_hand_hardness(t) for t in seq]
     assert values == sorted(values)
     assert len(set(values)) == len(values)
@@ -83,8 +104,16 @@ def test_non_string_hardness_rejected():
 
 @pytest.mark.parametrize(
     "index,label",
-    [(0.2, "F"), (1.4, "F"), (1.5, "4F"), (2.9, "1F"), (3.34, "1F"), (4.6, "K"), (5.5, "I"),
-     (7.0, "I")],
+    [
+        (0.2, "F"),
+        (1.4, "F"),
+        (1.5, "4F"),
+        (2.9, "1F"),
+        (3.34, "1F"),
+        (4.6, "K"),
+        (5.5, "I"),
+        (7.0, "I"),
+    ],
 )
 def test_hardness_label_nearest_fierz2009(index, label):
     assert hardness_label(index) == label  # nearest term of the Fierz et al. 2009 scale

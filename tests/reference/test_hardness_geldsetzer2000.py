@@ -25,8 +25,13 @@ from regionmap.snow.hardness import (
 )
 
 # [mem, low confidence] Geldsetzer & Jamieson (2000) as recalled in METHODS.md.
-RECALLED_FITS = {"PP": (45.0, 36.0), "DF": (91.0, 35.0), "RG": (91.0, 71.0),
-                 "FC": (112.0, 46.0), "DH": (185.0, 25.0)}
+RECALLED_FITS = {
+    "PP": (45.0, 36.0),
+    "DF": (91.0, 35.0),
+    "RG": (91.0, 71.0),
+    "FC": (112.0, 46.0),
+    "DH": (185.0, 25.0),
+}
 NONE = CRUST_INDEX["none"]
 
 

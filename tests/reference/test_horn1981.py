@@ -87,17 +87,29 @@ def _crs(epsg):
 def _write(path, dem):
     from regionmap.io.writers import write_geotiff
 
-    write_geotiff(path, dem.elevation_m.astype(np.float32), transform=dem.transform, crs=dem.crs,
-                  nodata=-9999.0, description="elevation", cog=False)
+    write_geotiff(
+        path,
+        dem.elevation_m.astype(np.float32),
+        transform=dem.transform,
+        crs=dem.crs,
+        nodata=-9999.0,
+        description="elevation",
+        cog=False,
+    )
 
 
 def _gdaldem(mode, src, dst):
-    subprocess.run([GDALDEM, mode, "-alg", "Horn", "-compute_edges", str(src), str(dst)],
-                   check=True, capture_output=True)
+    subprocess.run(
+        [GDALDEM, mode, "-alg", "Horn", "-compute_edges", str(src), str(dst)],
+        check=True,
+        capture_output=True,
+    )
     return read_dem(dst).elevation_m
 
 
-@pytest.mark.parametrize("make", [_jacksboro_dem, _topobathy_dem], ids=["jacksboro_fault", "topobathy"])
+@pytest.mark.parametrize(
+    "make", [_jacksboro_dem, _topobathy_dem], ids=["jacksboro_fault", "topobathy"]
+)
 def test_slope_aspect_match_gdaldem_on_matplotlib_sample_dems(tmp_path, make):
     _need_gdaldem()
     geo_path = tmp_path / "geo.tif"

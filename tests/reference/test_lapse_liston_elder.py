@@ -53,5 +53,7 @@ def test_grid_lapse_fit_of_a_cell_does_not_depend_on_the_other_points_read():
     full, _ = lapse.grid_lapse_fit(t, z, nb, 0.0044, min_r2=0.0)
     cells = np.arange(10, 20)
     points, local = np.unique(nb[cells], return_inverse=True)
-    part, _ = lapse.grid_lapse_fit(t[points], z[points], local.reshape(nb[cells].shape), 0.0044, min_r2=0.0)
+    part, _ = lapse.grid_lapse_fit(
+        t[points], z[points], local.reshape(nb[cells].shape), 0.0044, min_r2=0.0
+    )
     np.testing.assert_array_equal(part, full[cells])

@@ -8,8 +8,12 @@ from regionmap.downscale import lapse, longwave, thermo
 
 def test_clear_sky_emissivities_formula_values():
     # METHODS.md [calc]: e = 10 hPa, T = 283.15 K -> Brutsaert (1975) 0.7691, Prata (1996) 0.7777
-    assert longwave.emissivity_clear_sky_brutsaert1975(1000.0, 283.15) == pytest.approx(0.7691, abs=1e-4)
-    assert longwave.emissivity_clear_sky_prata1996(1000.0, 283.15) == pytest.approx(0.7777, abs=1e-4)
+    assert longwave.emissivity_clear_sky_brutsaert1975(1000.0, 283.15) == pytest.approx(
+        0.7691, abs=1e-4
+    )
+    assert longwave.emissivity_clear_sky_prata1996(1000.0, 283.15) == pytest.approx(
+        0.7777, abs=1e-4
+    )
 
 
 def test_clear_sky_longwave_falls_about_30_w_m2_per_km_marty2002():
@@ -25,7 +29,8 @@ def test_clear_sky_longwave_falls_about_30_w_m2_per_km_marty2002():
     _, vp = lapse.monthly_lapse_rates_kunkel1989(4, 46.0)
     t1 = t0 - 6.5
     e1 = thermo.saturation_vapour_pressure_water_buck1981(
-        np.minimum(td0 - 1000.0 * lapse.dew_point_lapse_liston_elder2006(vp), t1))
+        np.minimum(td0 - 1000.0 * lapse.dew_point_lapse_liston_elder2006(vp), t1)
+    )
     lw0 = longwave.longwave_at_cell(longwave.clear_sky_emissivity(e0, t0, method), t0, 1.0)
     lw1 = longwave.longwave_at_cell(longwave.clear_sky_emissivity(e1, t1, method), t1, 1.0)
     assert 29.0 <= lw0 - lw1 <= 33.0
@@ -40,7 +45,8 @@ def test_cloud_factor_carried_and_terrain_emission():
     assert longwave.longwave_at_cell(eps, t, 1.0) == pytest.approx(280.0, rel=1e-12)
     sb = 5.670374419e-8 * t**4
     assert longwave.longwave_at_cell(eps, t, 0.6, terrain_emissivity=0.98) == pytest.approx(
-        0.6 * 280.0 + 0.4 * 0.98 * sb, rel=1e-12)
+        0.6 * 280.0 + 0.4 * 0.98 * sb, rel=1e-12
+    )
 
 
 def test_crawford_duchon1999_limits_and_night_fill():

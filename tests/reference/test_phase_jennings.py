@@ -11,7 +11,9 @@ def test_jennings2018_fifty_percent_thresholds():
     # Jennings et al. (2018), Nature Comm. 9:1148 (METHODS.md [calc]): 50 % snow at
     # 0.738 degC with 100 % RH and 3.929 degC with 50 % RH; p(0 degC, 100 %) = 0.7389.
     for rh, expected in [(1.0, 0.738), (0.5, 3.929)]:
-        t50 = brentq(lambda t: phase.snow_fraction_jennings2018(t + 273.15, rh) - 0.5, -5, 10)
+        t50 = brentq(
+            lambda t, rh=rh: phase.snow_fraction_jennings2018(t + 273.15, rh) - 0.5, -5, 10
+        )
         assert t50 == pytest.approx(expected, abs=1e-3)
     assert phase.snow_fraction_jennings2018(273.15, 1.0) == pytest.approx(0.7389, abs=1e-4)
 
@@ -39,14 +41,18 @@ def test_bourgouin2000_warm_nose_over_cold_surface_is_freezing_rain():
 def test_bourgouin_area_formula_on_a_linear_profile():
     # Area of a layer with T linear in ln p: R_d * mean(T - 273.15) * ln(p_bot / p_top) [calc].
     p_lev = np.array([900e2])
-    melt, cold = phase.bourgouin2000_areas(np.array([272.15]), np.array([1000e2]),
-                                           np.array([[274.15]]), p_lev)
+    melt, cold = phase.bourgouin2000_areas(
+        np.array([272.15]), np.array([1000e2]), np.array([[274.15]]), p_lev
+    )
     # crossing halfway in ln p: each triangle 0.5 * 1 K * ln(1000/900)/2
     expected = 287.04749097718457 * 0.5 * 1.0 * np.log(1000 / 900) / 2
-    assert melt[0] == pytest.approx(expected, rel=1e-12) and cold[0] == pytest.approx(expected, rel=1e-12)
+    assert melt[0] == pytest.approx(expected, rel=1e-12) and cold[0] == pytest.approx(
+        expected, rel=1e-12
+    )
 
 
 def test_freezing_rain_only_over_subfreezing_cells():
-    snow, fz = phase.freezing_rain_at_cell(np.array([0.9, 0.9]), np.array([1.0, 1.0]),
-                                           np.array([271.0, 275.0]))
+    snow, fz = phase.freezing_rain_at_cell(
+        np.array([0.9, 0.9]), np.array([1.0, 1.0]), np.array([271.0, 275.0])
+    )
     assert fz.tolist() == [1.0, 0.0] and snow[0] == 0.0 and snow[1] == 0.9

@@ -39,7 +39,9 @@ def test_open_slope_half_one_plus_cos_dozier_frew1990(slope):
     # plane itself, rising atan(tan S cos(phi - A_up)) toward the upslope direction.
     aspect = 200.0
     up = math.radians(aspect + 180.0)
-    e = np.degrees(np.arctan(np.maximum(0.0, math.tan(math.radians(slope)) * np.cos(np.radians(AZ72) - up))))
+    e = np.degrees(
+        np.arctan(np.maximum(0.0, math.tan(math.radians(slope)) * np.cos(np.radians(AZ72) - up)))
+    )
     v = sky_view_dozier_frew1990(e, AZ72, slope, aspect)
     assert v == pytest.approx((1 + math.cos(math.radians(slope))) / 2, abs=1e-3)
 
@@ -74,7 +76,9 @@ def test_gridded_open_plane_sky_view_dozier_frew1990():
     assert np.abs(v[inner] - (1 + math.cos(math.radians(slope))) / 2).max() < 1e-2
     # horizon of the plane: atan(tan S cos(phi - upslope azimuth)) where positive [calc]
     up = math.radians(aspect + 180.0)
-    expect = np.degrees(np.arctan(np.maximum(0, math.tan(math.radians(slope)) * np.cos(np.radians(AZ72) - up))))
+    expect = np.degrees(
+        np.arctan(np.maximum(0, math.tan(math.radians(slope)) * np.cos(np.radians(AZ72) - up)))
+    )
     np.testing.assert_allclose(h[:, 60, 60], expect, atol=1e-3)
 
 
@@ -107,8 +111,9 @@ def test_horizon_toward_synthetic_ridge_with_earth_curvature(azimuth):
     dist = dc / math.sin(math.radians(azimuth))
     s, a = slope_aspect_horn1981(z, d_px, d_px)
     for curvature, drop in ((True, dist**2 / (2 * EARTH_RADIUS_M)), (False, 0.0)):
-        h, _ = horizon_sky_view_dozier_frew1990(z, d_px, d_px, s, a, np.array([azimuth]), 40_000.0,
-                                                earth_curvature=curvature)
+        h, _ = horizon_sky_view_dozier_frew1990(
+            z, d_px, d_px, s, a, np.array([azimuth]), 40_000.0, earth_curvature=curvature
+        )
         expect = math.degrees(math.atan((height - drop) / dist))
         assert h[0, obs_r, obs_c] == pytest.approx(expect, abs=0.02)
     # beyond the search distance the ridge is not seen: flat ground, horizon 0
@@ -134,7 +139,9 @@ def test_horizon_matches_brute_force_on_grid_directions():
             for c in range(nx):
                 m = 1
                 while 0 <= r + m * dr < ny and 0 <= c + m * dc < nx and m * step <= dist + 1e-9:
-                    ang = math.degrees(math.atan((z[r + m * dr, c + m * dc] - z[r, c]) / (m * step)))
+                    ang = math.degrees(
+                        math.atan((z[r + m * dr, c + m * dc] - z[r, c]) / (m * step))
+                    )
                     ref[r, c] = max(ref[r, c], ang)
                     m += 1
         np.testing.assert_allclose(h[k], ref, atol=1e-4)

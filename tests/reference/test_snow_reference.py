@@ -15,9 +15,9 @@ from scipy.special import erf
 
 from regionmap.snow.compaction import destructive_settling_rate_anderson1976, viscosity_anderson1976
 from regionmap.snow.conduction import (
+    conduction_step_backward_euler,
     conductivity_calonne2011,
     conductivity_sturm1997,
-    conduction_step_backward_euler,
 )
 from regionmap.snow.constants import C_ICE_J_KG_K, L_FUSION_J_KG, T_MELT_K
 from regionmap.snow.crusts import glaze_thickness_m
@@ -45,19 +45,24 @@ def test_new_snow_density_vionnet2012_wind_form():
     # the floor of 50 kg m-3 in cold calm air (same source)
     assert new_snow_density_vionnet2012(T_MELT_K - 20.0, 0.0) == 50.0
     # more wind, denser new snow (same source): the wind term must act
-    assert new_snow_density_vionnet2012(T_MELT_K - 5.0, 9.0) > new_snow_density_vionnet2012(T_MELT_K - 5.0, 1.0)
+    assert new_snow_density_vionnet2012(T_MELT_K - 5.0, 9.0) > new_snow_density_vionnet2012(
+        T_MELT_K - 5.0, 1.0
+    )
 
 
-@pytest.mark.parametrize("rho, k_calonne, k_sturm", [
-    (100.0, 0.0367, 0.0464), (250.0, 0.1495, 0.0876), (400.0, 0.3748, 0.2513)])
+@pytest.mark.parametrize(
+    "rho, k_calonne, k_sturm",
+    [(100.0, 0.0367, 0.0464), (250.0, 0.1495, 0.0876), (400.0, 0.3748, 0.2513)],
+)
 def test_conductivity_calonne2011_sturm1997(rho, k_calonne, k_sturm):
     # Calonne et al. (2011) GRL 38 Eq. 5; Sturm et al. (1997) J. Glaciol. 43 Eq. 5; METHODS [calc]
     assert conductivity_calonne2011(rho) == pytest.approx(k_calonne, abs=5e-5)
     assert conductivity_sturm1997(rho) == pytest.approx(k_sturm, abs=5e-5)
 
 
-@pytest.mark.parametrize("hours_, expected_c", [(6.0, (-14.78, -10.51, -6.07)),
-                                                (24.0, (-17.33, -14.78, -10.51))])
+@pytest.mark.parametrize(
+    "hours_, expected_c", [(6.0, (-14.78, -10.51, -6.07)), (24.0, (-17.33, -14.78, -10.51))]
+)
 def test_conduction_carslaw_jaeger1959_erfc(hours_, expected_c):
     # Carslaw & Jaeger (1959), Conduction of Heat in Solids, Sec. 2.4: surface step T0 -> Ts in
     # a half space, T = Ts + (T0 - Ts) erf(z / (2 sqrt(kappa t))); rho 250, k 0.1495, c 2100;
@@ -74,8 +79,21 @@ def test_conduction_carslaw_jaeger1959_erfc(hours_, expected_c):
     out = np.zeros(n)
     steps = int(hours_ * 60)  # one-minute steps
     for _ in range(steps):
-        conduction_step_backward_euler(n, t, kk, cap, dzs, src, 60.0, 0.0, 0.0,
-                                       k_top * (T_MELT_K - 20.0), -k_top, *scratch, out)
+        conduction_step_backward_euler(
+            n,
+            t,
+            kk,
+            cap,
+            dzs,
+            src,
+            60.0,
+            0.0,
+            0.0,
+            k_top * (T_MELT_K - 20.0),
+            -k_top,
+            *scratch,
+            out,
+        )
         t[:] = out
     depth_centre = (np.arange(n)[::-1] + 0.5) * dz  # node 0 is the deepest
     kappa = k / (rho * c)
@@ -127,16 +145,21 @@ def test_louis1979_stable_factor():
     # Louis (1979), BLM 17: stable F_h = 1 / (1 + 15 Ri sqrt(1 + 5 Ri)) (METHODS.md [mem])
     ri = 0.2
     assert stability_factor_louis1979(ri, 2.77e-3, 2.0, 1e-3) == pytest.approx(
-        1.0 / (1.0 + 15 * ri * math.sqrt(1 + 5 * ri)), rel=1e-12)
+        1.0 / (1.0 + 15 * ri * math.sqrt(1 + 5 * ri)), rel=1e-12
+    )
     assert stability_factor_louis1979(0.0, 2.77e-3, 2.0, 1e-3) == 1.0
     assert stability_factor_louis1979(-0.5, 2.77e-3, 2.0, 1e-3) > 1.0  # unstable enhances
 
 
-@pytest.mark.parametrize("t_c, water_hpa, ice_hpa", [(0.0, 6.1121, 6.1115), (-10.0, 2.8645, 2.5989),
-                                                     (-20.0, 1.2550, 1.0325)])
+@pytest.mark.parametrize(
+    "t_c, water_hpa, ice_hpa",
+    [(0.0, 6.1121, 6.1115), (-10.0, 2.8645, 2.5989), (-20.0, 1.2550, 1.0325)],
+)
 def test_buck1981_against_murphy_koop2005(t_c, water_hpa, ice_hpa):
     # Murphy & Koop (2005), QJRMS 131, reference values in METHODS.md; Buck (1981) within 0.15 %
-    assert vapour_pressure_water_buck1981(T_MELT_K + t_c) / 100 == pytest.approx(water_hpa, rel=1.5e-3)
+    assert vapour_pressure_water_buck1981(T_MELT_K + t_c) / 100 == pytest.approx(
+        water_hpa, rel=1.5e-3
+    )
     assert vapour_pressure_ice_buck1981(T_MELT_K + t_c) / 100 == pytest.approx(ice_hpa, rel=1.5e-3)
 
 
@@ -159,7 +182,9 @@ def test_albedo_douville1995():
     assert a_dry == pytest.approx(0.85 - 0.08, abs=1e-12)
     assert a_wet == pytest.approx(0.35 * math.exp(-2.4) + 0.5, abs=1e-12)
     # +0.35 per 10 kg m-2 of snowfall, max 0.85 (same source, METHODS.md)
-    assert albedo_douville1995(0.5, False, 10.0, 3600.0, 0.5, 0.85, 0.008, 0.24, 0.035) == pytest.approx(0.85, abs=1e-3)
+    assert albedo_douville1995(
+        0.5, False, 10.0, 3600.0, 0.5, 0.85, 0.008, 0.24, 0.035
+    ) == pytest.approx(0.85, abs=1e-3)
 
 
 def test_anderson1976_compaction_terms():

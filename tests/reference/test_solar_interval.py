@@ -1,7 +1,6 @@
 """Interval-mean sun geometry with the sunlit-fraction table: 1-minute integration, shading."""
 
 import numpy as np
-import pytest
 from scipy.interpolate import RegularGridInterpolator
 
 from regionmap.downscale import solar
@@ -25,13 +24,16 @@ def ridge_east(az):
 
 def one_minute_reference(time_end, frac, cosi):
     """Oracle: per-minute NumPy solar position + SciPy bilinear table lookup, averaged."""
-    tab = (frac[0].astype(float) * cosi[0].astype(float))
+    tab = frac[0].astype(float) * cosi[0].astype(float)
     az_ext = np.concatenate([AZ, [360.0]])
     tab_ext = np.concatenate([tab, tab[:1]], axis=0)
     interp = RegularGridInterpolator((az_ext, EL), tab_ext, method="linear")
     minutes = np.arange(60)
-    t = (time_end.astype("datetime64[s]")[:, None] - np.timedelta64(3600, "s")
-         + (minutes * 60 + 30).astype("timedelta64[s]")[None, :])
+    t = (
+        time_end.astype("datetime64[s]")[:, None]
+        - np.timedelta64(3600, "s")
+        + (minutes * 60 + 30).astype("timedelta64[s]")[None, :]
+    )
     zen, az = solar.solar_position_noaa(t, LAT, LON)
     cosz = np.cos(np.radians(zen))
     el = np.clip(90.0 - zen, EL[0], EL[-1])
@@ -50,8 +52,9 @@ def test_interval_mean_shortwave_within_1pct_of_1_minute_integration_with_ridge_
     extra = terms["extra_w_m2"][None, :]
     ghi = 0.7 * extra * np.maximum(cosz_ref, 0)[None, :]  # a clear-ish day
     sw, _ = solar.slope_shortwave_interval_mean(ghi, extra, cosz, beam, np.array([[0.9]]), 0.6)
-    sw_ref, _ = solar.slope_shortwave_interval_mean(ghi, extra, cosz_ref[None], beam_ref[None],
-                                                    np.array([[0.9]]), 0.6)
+    sw_ref, _ = solar.slope_shortwave_interval_mean(
+        ghi, extra, cosz_ref[None], beam_ref[None], np.array([[0.9]]), 0.6
+    )
     day = sw_ref[0] > 5.0
     np.testing.assert_allclose(sw[0][day], sw_ref[0][day], rtol=0.01)
     assert abs(sw[0].sum() / sw_ref[0].sum() - 1) < 0.002
@@ -83,8 +86,9 @@ def test_deep_north_cirque_gets_no_beam_at_december_noon():
     _, beam_open = solar.interval_sun_geometry(terms, [LAT], [LON], AZ, EL, open_frac, open_cosi)
     assert np.all(beam_open > 0.1)
     ghi = 0.7 * terms["extra_w_m2"][None] * cosz
-    sw, kt = solar.slope_shortwave_interval_mean(ghi, terms["extra_w_m2"][None], cosz, beam,
-                                                 np.array([[0.6]]), 0.6)
+    sw, kt = solar.slope_shortwave_interval_mean(
+        ghi, terms["extra_w_m2"][None], cosz, beam, np.array([[0.6]]), 0.6
+    )
     beam_h = (1 - solar.diffuse_fraction_erbs1982(kt)) * ghi
     np.testing.assert_allclose(sw, (ghi - beam_h) * 0.6 + 0.6 * ghi * 0.4, rtol=1e-12)
 
@@ -100,7 +104,9 @@ def test_open_south_slope_gets_more_than_flat_ground_in_winter():
     cz, b_s = solar.interval_sun_geometry(terms, [LAT], [LON], AZ, EL, f_s, c_s)
     _, b_f = solar.interval_sun_geometry(terms, [LAT], [LON], AZ, EL, f_f, c_f)
     ghi = 0.7 * extra * cz
-    sw_s, _ = solar.slope_shortwave_interval_mean(ghi, extra, cz, b_s, np.array([[(1 + np.cos(np.radians(35))) / 2]]), 0.6)
+    sw_s, _ = solar.slope_shortwave_interval_mean(
+        ghi, extra, cz, b_s, np.array([[(1 + np.cos(np.radians(35))) / 2]]), 0.6
+    )
     sw_f, _ = solar.slope_shortwave_interval_mean(ghi, extra, cz, b_f, np.array([[1.0]]), 0.6)
     assert sw_s.sum() > 1.3 * sw_f.sum()
     np.testing.assert_allclose(sw_f, ghi, rtol=2e-2)  # flat, open: back to the global value

@@ -31,13 +31,20 @@ def test_spa_paper_example_reda_andreas2004():
     # topocentric (refracted) zenith 50.11162 deg, azimuth 194.34024 deg.
     t = pd.DatetimeIndex(["2003-10-17 12:30:30"]).tz_localize("Etc/GMT+7")
     ref = pvlib.solarposition.get_solarposition(
-        t, 39.742476, -105.1786, altitude=1830.14, pressure=82000.0, temperature=11.0,
-        delta_t=67.0, method="nrel_numpy",
+        t,
+        39.742476,
+        -105.1786,
+        altitude=1830.14,
+        pressure=82000.0,
+        temperature=11.0,
+        delta_t=67.0,
+        method="nrel_numpy",
     )
     assert ref["apparent_zenith"].iloc[0] == pytest.approx(50.11162, abs=1e-4)
     assert ref["azimuth"].iloc[0] == pytest.approx(194.34024, abs=1e-4)
-    zen, az = solar.solar_position_noaa(t.tz_convert("UTC").tz_localize(None).to_numpy(),
-                                        39.742476, -105.1786)
+    zen, az = solar.solar_position_noaa(
+        t.tz_convert("UTC").tz_localize(None).to_numpy(), 39.742476, -105.1786
+    )
     # NOAA / Spencer (1971) accuracy ~0.3 deg against SPA (METHODS.md), geometric zenith
     assert zen[0] == pytest.approx(ref["zenith"].iloc[0], abs=0.3)
     assert az[0] == pytest.approx(194.34024, abs=0.3)
@@ -62,8 +69,9 @@ def test_extraterrestrial_spencer1971_vs_pvlib_same_solar_constant():
 def test_erbs1982_diffuse_fraction_values():
     # Erbs, Klein & Duffie (1982), Solar Energy 28(4), Eq. 1 — values computed from the
     # formula (METHODS.md [calc]): kd(0.3) = 0.94860, kd(0.5) = 0.65915, kd(0.7) = 0.24398.
-    np.testing.assert_allclose(solar.diffuse_fraction_erbs1982([0.3, 0.5, 0.7]),
-                               [0.94860, 0.65915, 0.24398], atol=5e-6)
+    np.testing.assert_allclose(
+        solar.diffuse_fraction_erbs1982([0.3, 0.5, 0.7]), [0.94860, 0.65915, 0.24398], atol=5e-6
+    )
 
 
 def test_erbs1982_split_vs_pvlib_erbs():
@@ -90,11 +98,13 @@ def test_liu_jordan1963_isotropic_vs_pvlib_total_irradiance():
     dni, dhi = rng.uniform(0, 900, n), rng.uniform(0, 300, n)
     ghi = dhi + dni * np.cos(np.radians(zen))
     albedo = 0.6
-    ref = pvlib.irradiance.get_total_irradiance(tilt, surf_az, zen, sun_az, dni, ghi, dhi,
-                                                albedo=albedo, model="isotropic")
+    ref = pvlib.irradiance.get_total_irradiance(
+        tilt, surf_az, zen, sun_az, dni, ghi, dhi, albedo=albedo, model="isotropic"
+    )
     cos_i = solar.cos_incidence_deg(zen, sun_az, tilt, surf_az)
     svf = (1.0 + np.cos(np.radians(tilt))) / 2.0
     ours = solar.tilted_irradiance_liu_jordan1963(dni, dhi, ghi, cos_i, svf, albedo)
     np.testing.assert_allclose(ours, ref["poa_global"], rtol=1e-6, atol=1e-9)
-    np.testing.assert_allclose(cos_i, np.cos(np.radians(pvlib.irradiance.aoi(tilt, surf_az, zen, sun_az))),
-                               atol=1e-9)
+    np.testing.assert_allclose(
+        cos_i, np.cos(np.radians(pvlib.irradiance.aoi(tilt, surf_az, zen, sun_az))), atol=1e-9
+    )

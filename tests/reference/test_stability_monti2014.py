@@ -56,8 +56,14 @@ def test_uniform_profile_hits_none_relative(code):
     lc = np.array([n])
     out_c, out_d = np.empty(1), np.empty(1)
     threshold_count_columns(
-        lc, np.full((1, n), 0.08), np.full((1, n), 1.5), np.full((1, n), 2.0),
-        np.full((1, n), G[code], dtype=np.int8), True, out_c, out_d,
+        lc,
+        np.full((1, n), 0.08),
+        np.full((1, n), 1.5),
+        np.full((1, n), 2.0),
+        np.full((1, n), G[code], dtype=np.int8),
+        True,
+        out_c,
+        out_d,
     )
     assert out_c[0] == 0.0
     assert np.isnan(out_d[0])

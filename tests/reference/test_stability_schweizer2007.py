@@ -68,10 +68,10 @@ def test_each_criterion_alone_drops_one(lower, upper, slab_m, failing):
 @pytest.mark.parametrize(
     "lower,upper,slab_m",
     [
-        (("FC", 1.25, "F"), ("RG", 0.5, "1F"), 0.40),   # grain size exactly 1.25 mm
-        (("FC", 2.0, "F"), ("RG", 1.25, "1F"), 0.40),   # size difference exactly 0.75 mm
-        (("FC", 2.0, "F"), ("RG", 0.5, "1F"), 0.18),    # window top
-        (("FC", 2.0, "F"), ("RG", 0.5, "1F"), 0.94),    # window bottom
+        (("FC", 1.25, "F"), ("RG", 0.5, "1F"), 0.40),  # grain size exactly 1.25 mm
+        (("FC", 2.0, "F"), ("RG", 1.25, "1F"), 0.40),  # size difference exactly 0.75 mm
+        (("FC", 2.0, "F"), ("RG", 0.5, "1F"), 0.18),  # window top
+        (("FC", 2.0, "F"), ("RG", 0.5, "1F"), 0.94),  # window bottom
     ],
 )
 def test_thresholds_inclusive(lower, upper, slab_m):
@@ -82,7 +82,10 @@ def test_thresholds_inclusive(lower, upper, slab_m):
 def test_hardness_thresholds_inclusive():
     # Weak layer hardness exactly 1.3, difference exactly 1.7 (1.3 -> 3.0).
     count, _ = threshold_counts_of_profile(
-        [0.05, 0.4], [3.0, 2.0], [1.3, 3.0], [GRAIN_INDEX["SH"], GRAIN_INDEX["RG"]],
+        [0.05, 0.4],
+        [3.0, 2.0],
+        [1.3, 3.0],
+        [GRAIN_INDEX["SH"], GRAIN_INDEX["RG"]],
         mode="absolute",
     )
     assert count[0] == 6

@@ -16,10 +16,12 @@ def test_saturation_vapour_pressure_buck1981_table_values():
     # Buck (1981), J. Appl. Meteorol. 20 — METHODS.md [src]: water 6.1121/2.8648/1.2538 hPa,
     # ice 6.1115/2.5987/1.0327 hPa at 0/-10/-20 degC.
     t = np.array([273.15, 263.15, 253.15])
-    np.testing.assert_allclose(th.saturation_vapour_pressure_water_buck1981(t) / 100,
-                               [6.1121, 2.8648, 1.2538], atol=6e-5)
-    np.testing.assert_allclose(th.saturation_vapour_pressure_ice_buck1981(t) / 100,
-                               [6.1115, 2.5987, 1.0327], atol=6e-5)
+    np.testing.assert_allclose(
+        th.saturation_vapour_pressure_water_buck1981(t) / 100, [6.1121, 2.8648, 1.2538], atol=6e-5
+    )
+    np.testing.assert_allclose(
+        th.saturation_vapour_pressure_ice_buck1981(t) / 100, [6.1115, 2.5987, 1.0327], atol=6e-5
+    )
 
 
 def test_saturation_vapour_pressure_vs_metpy():
@@ -27,7 +29,9 @@ def test_saturation_vapour_pressure_vs_metpy():
     # over -30..+35 degC (their published accuracies).
     t_c = np.linspace(-30, 35, 66)
     ref = mc.saturation_vapor_pressure(t_c * units.degC).to("Pa").m
-    np.testing.assert_allclose(th.saturation_vapour_pressure_water_buck1981(t_c + 273.15), ref, rtol=5e-3)
+    np.testing.assert_allclose(
+        th.saturation_vapour_pressure_water_buck1981(t_c + 273.15), ref, rtol=5e-3
+    )
 
 
 def test_dew_point_from_relative_humidity_vs_metpy():
@@ -35,21 +39,29 @@ def test_dew_point_from_relative_humidity_vs_metpy():
 
     t_c = np.linspace(-25, 25, 11)[:, None]
     rh = np.array([0.3, 0.6, 0.9, 1.0])[None, :]
-    ref = mc.dewpoint_from_relative_humidity(np.broadcast_to(t_c, (11, 4)) * units.degC,
-                                             np.broadcast_to(rh, (11, 4)) * units.dimensionless).m
+    ref = mc.dewpoint_from_relative_humidity(
+        np.broadcast_to(t_c, (11, 4)) * units.degC,
+        np.broadcast_to(rh, (11, 4)) * units.dimensionless,
+    ).m
     # 0.1 K: the Buck (ours) and Bolton (MetPy) curves part by ~0.07 K at dew points near -37 degC
-    np.testing.assert_allclose(dew_point_from_relative_humidity(t_c + 273.15, rh) - 273.15, ref, atol=0.1)
+    np.testing.assert_allclose(
+        dew_point_from_relative_humidity(t_c + 273.15, rh) - 273.15, ref, atol=0.1
+    )
 
 
 def test_relative_humidity_from_specific_humidity_vs_metpy():
     p = np.array([1000e2, 850e2, 700e2])[:, None]
     t = np.array([263.15, 273.15, 288.15])[None, :]
     q = 0.8 * th.specific_humidity_from_relative_humidity(1.0, t, p)
-    ref = mc.relative_humidity_from_specific_humidity(p * units.Pa, t * units.K, q * units("kg/kg")).m
+    ref = mc.relative_humidity_from_specific_humidity(
+        p * units.Pa, t * units.K, q * units("kg/kg")
+    ).m
     np.testing.assert_allclose(th.relative_humidity_from_specific_humidity(q, t, p), ref, rtol=6e-3)
 
 
-@pytest.mark.parametrize("t_c, rh, p_hpa, expected", [(20, 0.5, 1013.25, 13.665), (20, 0.5, 800, 13.100)])
+@pytest.mark.parametrize(
+    "t_c, rh, p_hpa, expected", [(20, 0.5, 1013.25, 13.665), (20, 0.5, 800, 13.100)]
+)
 def test_wet_bulb_normand_metpy_values(t_c, rh, p_hpa, expected):
     # METHODS.md: metpy.calc.wet_bulb_temperature, 20 degC / 50 % -> 13.665 degC at
     # 1013.25 hPa and 13.100 degC at 800 hPa; issue 3 tolerance 0.05 K.
@@ -59,7 +71,13 @@ def test_wet_bulb_normand_metpy_values(t_c, rh, p_hpa, expected):
 
 def test_wet_bulb_normand_vs_metpy_near_freezing():
     # Oracle: metpy.calc.wet_bulb_temperature (Normand's rule) — range used for phase.
-    for t_c, rh, p in [(0, 0.9, 700), (-10, 0.7, 750), (2, 0.95, 850), (1, 0.6, 800), (-5, 0.5, 900)]:
+    for t_c, rh, p in [
+        (0, 0.9, 700),
+        (-10, 0.7, 750),
+        (2, 0.95, 850),
+        (1, 0.6, 800),
+        (-5, 0.5, 900),
+    ]:
         td = mc.dewpoint_from_relative_humidity(t_c * units.degC, rh * units.dimensionless)
         ref = mc.wet_bulb_temperature(p * units.hPa, t_c * units.degC, td).m
         ours = th.wet_bulb_temperature_normand(t_c + 273.15, rh, p * 100) - 273.15
@@ -73,7 +91,9 @@ def test_standard_atmosphere_icao_and_metpy():
     p = th.pressure_standard_atmosphere_icao(z) / 100
     np.testing.assert_allclose(p, [898.75, 794.95, 701.09], atol=0.02)
     ref = mc.height_to_pressure_std(np.linspace(0, 4000, 41) * units.m).to("hPa").m
-    np.testing.assert_allclose(th.pressure_standard_atmosphere_icao(np.linspace(0, 4000, 41)) / 100, ref, atol=0.2)
+    np.testing.assert_allclose(
+        th.pressure_standard_atmosphere_icao(np.linspace(0, 4000, 41)) / 100, ref, atol=0.2
+    )
 
 
 def test_hypsometric_matches_standard_atmosphere():

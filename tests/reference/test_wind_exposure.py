@@ -29,8 +29,9 @@ def test_liston_sturm1998_slope_term():
     # Liston & Sturm (1998), J. Glaciol. 44(148), Eqs. 15-16 [mem]: Omega_s = beta cos(omega - xi)
     # scaled to +-0.5, factor 1 + gamma_s Omega_s with gamma_s = 0.5 -> 1.25 facing into
     # the wind at the reference slope, 0.75 in its lee, 1 across it.
-    f = wind.wind_factor_liston_sturm1998(np.array([45.0, 45.0, 45.0]), np.array([270.0, 90.0, 0.0]),
-                                          np.array([270.0, 270.0, 270.0]))
+    f = wind.wind_factor_liston_sturm1998(
+        np.array([45.0, 45.0, 45.0]), np.array([270.0, 90.0, 0.0]), np.array([270.0, 270.0, 270.0])
+    )
     np.testing.assert_allclose(f, [1.25, 0.75, 1.0], atol=1e-12)
 
 
