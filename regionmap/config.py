@@ -80,9 +80,16 @@ class CellsSection(_Section):
 
 
 class VariableMapping(_Section):
-    name: str
+    """One ``[forcing.variables]`` entry (see ``regionmap.io.forcing_mapping``): the file
+    variable, or several summed; units, interval kind, accumulation, mixing ratio and the
+    cosine/sine variables that rotate grid-relative winds, where the file does not say."""
+
+    name: str | Annotated[list[str], Field(min_length=1)]
     units: str | None = None
+    kind: Literal["instantaneous", "mean", "sum"] | None = None
     accumulated: bool = False
+    mixing_ratio: bool = False
+    rotation: tuple[str, str] | None = None
 
 
 class HeightsSection(_Section):
@@ -309,8 +316,10 @@ def parse_interval_hours(text: str) -> int | None:
 def _model_at(loc: tuple) -> type[BaseModel] | None:
     """The pydantic model class that holds the key at ``loc`` (for closest-key hints)."""
     model: Any = Config
+    dict_key = False
     for part in loc[:-1]:
-        if isinstance(part, int):
+        if isinstance(part, int) or dict_key:  # a list index or a key of a dict of sections
+            dict_key = False
             continue
         field = (
             model.model_fields.get(part)
@@ -322,6 +331,7 @@ def _model_at(loc: tuple) -> type[BaseModel] | None:
         model = _first_model(field.annotation)
         if model is None:
             return None
+        dict_key = getattr(field.annotation, "__origin__", None) is dict
     return model
 
 

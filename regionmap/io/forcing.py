@@ -40,6 +40,7 @@ from scipy import sparse
 
 from regionmap.downscale import thermo as _thermo
 from regionmap.errors import ConfigError, ForcingReadError, GridMismatchError
+from regionmap.io import forcing_mapping as M
 from regionmap.io import units as U
 from regionmap.io.forcing_grid import ForcingGrid, grid_from_dataset
 
@@ -136,7 +137,6 @@ _OUT_UNITS = {
     "freezing_rain_frac": "1",
     "upper_air_temperature": "K",
 }
-_MAPPING_KEYS = {"name", "units", "accumulated"}
 _H = 3600
 
 
@@ -154,6 +154,7 @@ class _Source:
     file_of: np.ndarray  # native index -> file index
     t_all: np.ndarray  # native labels [s since epoch]
     level_pa: np.ndarray | None = None
+    accumulated: bool = False  # summed since a reference time ([forcing] mapping)
     D: sparse.csr_matrix | None = None  # native values -> native amounts (interval kind)
     S: sparse.csr_matrix | None = None  # native (amounts) -> hourly
     covered: np.ndarray | None = None
@@ -319,11 +320,12 @@ def open_forcing(
             static_path=getattr(s, "static", None),
             base_dir=base_dir,
         )
+    mapping = M.normalise_mapping(variables, _TARGET)
     paths = _expand(path_or_glob, base_dir)
-    mapping = _normalise_mapping(variables)
     datasets = [_open_one(p) for p in paths]
-    tdims = [_time_dim(ds, p) for ds, p in zip(datasets, paths)]
-    times = [_file_times(ds, td, p) for ds, td, p in zip(datasets, tdims, paths)]
+    tnames = [_time_coord(ds, p) for ds, p in zip(datasets, paths)]
+    tdims = [ds[tn].dims[0] for ds, tn in zip(datasets, tnames)]
+    times = [_file_times(ds, tn, p) for ds, tn, p in zip(datasets, tnames, paths)]
 
     chosen = {}
     for role, alternatives in _ROLES.items():
@@ -349,7 +351,7 @@ def open_forcing(
     wide = _wide_axis(times)
     for members in sources.values():
         for s in members:
-            _build_operator(s, times, wide, mapping)
+            _build_operator(s, times, wide)
     hours = _final_axis(sources, wide, start, end, paths)
     gap_hours = _check_gaps(sources, hours)
     heights, height_src = _heights(chosen, heights_m)
@@ -410,43 +412,49 @@ def _open_one(path: str) -> xr.Dataset:
         ) from None
 
 
-def _normalise_mapping(variables) -> dict:
-    out = {}
-    for key, entry in dict(variables or {}).items():
-        if not isinstance(entry, dict):
-            entry = {k: getattr(entry, k) for k in _MAPPING_KEYS if hasattr(entry, k)}
-        unknown = set(entry) - _MAPPING_KEYS
-        if key not in _TARGET or unknown or "name" not in entry:
-            raise ConfigError(
-                f"[forcing] variables.{key}: expected a key among {sorted(_TARGET)} with fields "
-                f"name (required), units, accumulated; got {entry!r}"
-            )
-        out[key] = dict(entry)
-    return out
+_TIME_NAMES = ("time", "valid_time", "XTIME", "Time", "t")
+"""Names that products give their valid-time coordinate (CF, ERA5/cfgrib, WRF)."""
+_REFERENCE_TIME = ("forecast_reference_time", "reference_time")
 
 
-def _time_dim(ds: xr.Dataset, path: str) -> str:
-    for coord in ds.coords.values():
-        if coord.ndim == 1 and np.issubdtype(coord.dtype, np.datetime64):
-            return coord.dims[0]
-    raise ForcingReadError(
-        f"forcing file {path!r}: no decodable time coordinate (CF units 'hours since ...' expected)"
-    )
+def _time_coord(ds: xr.Dataset, path: str) -> str:
+    """The name of the valid-time coordinate, found by meaning: CF axis T (cf_xarray),
+    ``standard_name = time`` or a product's known name — never a dimension's index."""
+    found = [
+        str(name)
+        for name, c in ds.coords.items()
+        if c.ndim == 1
+        and np.issubdtype(c.dtype, np.datetime64)
+        and c.attrs.get("standard_name") not in _REFERENCE_TIME
+    ]
+    if not found:
+        raise ForcingReadError(
+            f"forcing file {path!r}: no decodable time coordinate (CF units 'hours since ...' "
+            f"expected)"
+        )
+    axis_t = set(ds.cf.axes.get("T", [])) | set(ds.cf.coordinates.get("time", []))
+
+    def rank(name):
+        c = ds[name]
+        known = _TIME_NAMES.index(name) if name in _TIME_NAMES else len(_TIME_NAMES)
+        return (name not in axis_t, c.attrs.get("standard_name") != "time", known)
+
+    return min(found, key=rank)
 
 
-def _file_times(ds, tdim, path):
+def _file_times(ds, tname, path):
     """Labels and (optional) bounds in int64 seconds; checks order and duplicates."""
-    t = ds[tdim].values.astype("datetime64[s]").astype(np.int64)
+    t = ds[tname].values.astype("datetime64[s]").astype(np.int64)
     d = np.diff(t)
     if np.any(d <= 0):
         k = int(np.argmax(d <= 0))
         what = "duplicated" if d[k] == 0 else "not increasing"
         raise ForcingReadError(
-            f"forcing file {path!r}, variable {tdim!r}: times are {what} at "
+            f"forcing file {path!r}, variable {tname!r}: times are {what} at "
             f"{np.datetime64(int(t[k + 1]), 's')} (after {np.datetime64(int(t[k]), 's')}); "
             f"expected strictly increasing labels; hint: sort the file or drop duplicates"
         )
-    bname = ds[tdim].attrs.get("bounds") or ds[tdim].encoding.get("bounds")
+    bname = ds[tname].attrs.get("bounds") or ds[tname].encoding.get("bounds")
     bounds = None
     if bname and bname in ds:
         bounds = ds[bname].values.astype("datetime64[s]").astype(np.int64)
@@ -507,19 +515,13 @@ def _pick(sn, cands, path, want_height, upper):
 
 def _resolve_role(role, alternatives, datasets, paths, mapping, heights_m):
     want = _hget(heights_m, "wind" if role == "wind" else "temperature")
-    for alt in alternatives:
+    for alt in M.ranked_alternatives(alternatives, mapping):
         per_sn = []
         for sn in alt:
             das = []
             for ds, p in zip(datasets, paths):
                 if sn in mapping:
-                    name = mapping[sn]["name"]
-                    if name not in ds:
-                        raise ForcingReadError(
-                            f"forcing file {p!r}: variable {name!r} named in [forcing] "
-                            f"variables.{sn} is missing; found {sorted(ds.data_vars)}"
-                        )
-                    das.append(_squeezed(ds[name]))
+                    das.append(_squeezed(M.mapped_variable(ds, sn, mapping, p)))
                     continue
                 if sn in ("freezing_rain_frac", "upper_air_temperature"):
                     das.append(
@@ -588,7 +590,10 @@ def _cell_method(var) -> str | None:
 def _make_source(sn, das, paths, times, tdims, spatial, shape, mapping):
     entry = mapping.get(sn, {})
     var = das[0]
-    units = entry.get("units") or var.attrs.get("units")
+    # a mixing ratio arrives converted to specific humidity [1]
+    units = var.attrs.get("units") if entry.get("mixing_ratio") else None
+    units = units or entry.get("units") or var.attrs.get("units")
+    sn = M.with_kind(sn, entry, units, _TARGET) if entry else sn
     where = f"forcing file {paths[0]!r}, variable {var.name!r} ({sn})"
     if units is None:
         raise ForcingReadError(
@@ -602,7 +607,12 @@ def _make_source(sn, das, paths, times, tdims, spatial, shape, mapping):
             f"{where}: {exc}; expected units convertible to {_TARGET[sn]!r}; "
             f"hint: fix the attribute or set units in [forcing] variables"
         ) from None
-    method = _cell_method(var)
+    method = M.KINDS[entry["kind"]] if entry.get("kind") else _cell_method(var)
+    if method == "point" and sn in _AMOUNTS:
+        raise ForcingReadError(
+            f'{where}: an amount cannot be instantaneous; expected kind = "sum" (or a flux '
+            f'standard name with kind = "instantaneous")'
+        )
     kind = "interval" if sn in _AMOUNTS or sn in _FLUXES else "point"
     if method == "point" and sn in _FLUXES:
         kind = "point"
@@ -635,6 +645,7 @@ def _make_source(sn, das, paths, times, tdims, spatial, shape, mapping):
         file_of,
         t_all,
         level_pa,
+        accumulated=bool(entry.get("accumulated", False)),
     )
 
 
@@ -656,9 +667,11 @@ def _surface_altitude(static_path, base_dir, datasets, paths, shape, mapping):
         sp = _expand(static_path, base_dir)[0]
         datasets, paths = [_open_one(sp)], [sp]
     ds, p = datasets[0], paths[0]
-    for sn, factor in (("surface_altitude", 1.0), ("surface_geopotential", 1 / U.G0_M_S2)):
-        entry = mapping.get(sn, {})
-        cands = [ds[entry["name"]]] if entry.get("name") in ds else _candidates(ds, sn)
+    factors = {"surface_altitude": 1.0, "surface_geopotential": 1 / U.G0_M_S2}
+    for (sn,) in M.ranked_alternatives([(sn,) for sn in factors], mapping):
+        factor, entry = factors[sn], mapping.get(sn, {})
+        mapped = entry and all(n in ds for n in M.names_of(entry))
+        cands = [M.mapped_variable(ds, sn, mapping, p)] if mapped else _candidates(ds, sn)
         if not cands:
             continue
         var = cands[0]
@@ -714,14 +727,14 @@ def _native_intervals(tinfo, accumulated, where):
     return prev, np.zeros(t.size, bool), prev, np.ones(t.size, bool)
 
 
-def _build_operator(s: _Source, times, hours, mapping):
+def _build_operator(s: _Source, times, hours):
     """Sparse operators native -> hourly (``S``) and values -> amounts (``D``).
 
     Amounts are spread over the hours they overlap in proportion to the overlap, so every
     interval's amount is conserved; states are linear in time between labels. An hour is
     owned by the last file that covers it whole (later files win).
     """
-    acc = bool(mapping.get(s.standard_name, {}).get("accumulated", False))
+    acc = s.accumulated
     n_native, n_h = s.file_of.size, hours.size
     offsets = np.r_[0, np.cumsum([t["t"].size for t in times])]
     owner = np.full(n_h, -1)
