@@ -41,7 +41,7 @@ def main(argv: list[str]) -> int:
         )
     import warnings
 
-    from regionmap.report import write_report
+    from regionmap.report.briefing import write_report
 
     load_before = os.getloadavg()
     cpu0 = _cpu_s()

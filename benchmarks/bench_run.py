@@ -37,7 +37,7 @@ TARGETS = {
 def _write_dem(path: Path, copies: int) -> None:
     """The demo DEM, or ``copies`` of it side by side west to east, every second one mirrored
     east-west so the range continues without a step at the seams (a larger invented range)."""
-    from regionmap.demo import DEMO_CRS, demo_elevation_m, demo_transform, make_demo_dem
+    from regionmap.demo.scenario import DEMO_CRS, demo_elevation_m, demo_transform, make_demo_dem
     from regionmap.io.writers import write_geotiff
 
     if copies == 1:
@@ -61,8 +61,8 @@ def _scenario(
     import geopandas as gpd
     import shapely
 
-    from regionmap.demo import DEMO_CRS
-    from regionmap.demo_weather import write_demo_forcing
+    from regionmap.demo.scenario import DEMO_CRS
+    from regionmap.demo.weather import write_demo_forcing
     from regionmap.io.dem import read_dem
     from regionmap.io.writers import write_geojson
 
@@ -149,7 +149,8 @@ def bench_region(n_cells: int, days: int, folder: Path) -> dict:
 def bench_overhead(args, folder: Path) -> dict:
     """The same chunks through dask (threads) and through direct calls in a loop."""
     from regionmap.config import load_config
-    from regionmap.run import (
+    from regionmap.pipeline.execute import dask_client
+    from regionmap.pipeline.run import (
         RunContext,
         chunk_ranges,
         initial_state,
@@ -162,7 +163,6 @@ def bench_overhead(args, folder: Path) -> dict:
         snow_params,
         state_slice,
     )
-    from regionmap.runner import dask_client
 
     cfg = load_config(_scenario(folder / "r1000", *SIZES[1000][:2], args.days, SIZES[1000][2]))
     region = prepare_region(cfg)

@@ -61,7 +61,7 @@ def print_outcome(outcome) -> None:
 
 def _cmd_run(args: argparse.Namespace) -> int:
     from regionmap.config import load_config
-    from regionmap.runner import execute
+    from regionmap.pipeline.execute import execute
 
     cfg = load_config(args.config)
     restarts = _restarts_from_args(args, cfg)
@@ -102,7 +102,7 @@ def _restarts_from_args(args: argparse.Namespace, cfg) -> list:
 
 def _cmd_forcing(args: argparse.Namespace) -> int:
     from regionmap.config import load_config
-    from regionmap.runner import write_cell_forcing
+    from regionmap.pipeline.execute import write_cell_forcing
 
     cfg = load_config(args.config)
     path = write_cell_forcing(cfg, args.out, force=args.force, progress=not args.quiet)
@@ -111,7 +111,7 @@ def _cmd_forcing(args: argparse.Namespace) -> int:
 
 
 def _cmd_report(args: argparse.Namespace) -> int:
-    from regionmap.report import write_report
+    from regionmap.report.briefing import write_report
 
     path = write_report(args.outdir)
     print(f"briefing report written to {path}")
@@ -153,7 +153,7 @@ def _station_args(args: argparse.Namespace, cfg) -> tuple[Path, list[Path]]:
 
 def _cmd_verify(args: argparse.Namespace) -> int:
     from regionmap.config import load_config
-    from regionmap.stations_chain import verify_command
+    from regionmap.stations.chain import verify_command
 
     cfg = load_config(args.config)
     stations, observations = _station_args(args, cfg)
@@ -164,7 +164,7 @@ def _cmd_verify(args: argparse.Namespace) -> int:
 
 def _cmd_calibrate(args: argparse.Namespace) -> int:
     from regionmap.config import load_config
-    from regionmap.stations_chain import calibrate_command
+    from regionmap.stations.chain import calibrate_command
 
     cfg = load_config(args.config)
     stations, observations = _station_args(args, cfg)
@@ -182,7 +182,7 @@ def _cmd_calibrate(args: argparse.Namespace) -> int:
 
 
 def _cmd_demo(args: argparse.Namespace) -> int:
-    from regionmap.demo import run_demo
+    from regionmap.demo.scenario import run_demo
 
     return run_demo(args.out, progress=not args.quiet)
 

@@ -7,7 +7,7 @@ import pytest
 
 @pytest.fixture(scope="session")
 def demo_dem():
-    from regionmap.demo import SHIPPED_DEM
+    from regionmap.demo.scenario import SHIPPED_DEM
     from regionmap.io.dem import read_dem
 
     return read_dem(SHIPPED_DEM)
@@ -15,7 +15,7 @@ def demo_dem():
 
 @pytest.fixture(scope="session")
 def demo_zones(demo_dem):
-    from regionmap.demo import SHIPPED_ZONES
+    from regionmap.demo.scenario import SHIPPED_ZONES
     from regionmap.io.zones import read_zones
 
     return read_zones(SHIPPED_ZONES, "name", demo_dem)

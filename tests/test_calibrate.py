@@ -16,7 +16,9 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from regionmap.calibrate import (
+from regionmap.config import BiasSection
+from regionmap.errors import InputError
+from regionmap.stations.calibrate import (
     KOCHENDORFER2017_COEFFICIENTS,
     MIN_PAIRS,
     bias_toml,
@@ -26,8 +28,6 @@ from regionmap.calibrate import (
     fit_factor,
     fit_offset,
 )
-from regionmap.config import BiasSection
-from regionmap.errors import InputError
 
 START, HOURS = "2025-12-01T01:00", 24 * 120  # December to March
 

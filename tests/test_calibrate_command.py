@@ -1,4 +1,4 @@
-"""`regionmap calibrate` end to end through regionmap.stations_chain.calibrate_command.
+"""`regionmap calibrate` end to end through regionmap.stations.chain.calibrate_command.
 
 Observations are made from the model's own (uncorrected) station series with known biases:
 a +2 K warm model, a 1.6x precipitation over-forecast, and wind 5x too strong at a sheltered
@@ -19,7 +19,7 @@ from test_verify_command import PRECIP_OVER, T_BIAS_K, scenario, synthetic_obser
 from regionmap.config import config_from_dict
 from regionmap.downscale.quantile_mapping import read_qm_table
 from regionmap.errors import InputError
-from regionmap.stations_chain import calibrate_command, verify_command
+from regionmap.stations.chain import calibrate_command, verify_command
 
 
 def test_calibrate_recovers_known_biases_and_the_fit_removes_them(scenario, capsys, tmp_path):

@@ -1,4 +1,4 @@
-"""Control-state checkpoints for the ensemble (regionmap.checkpoints).
+"""Control-state checkpoints for the ensemble (regionmap.pipeline.checkpoints).
 
 Outside reference: none is needed beyond the model itself — the property checked is
 exactness. A column continued from a saved state must equal the uninterrupted run bit for
@@ -13,9 +13,9 @@ from dataclasses import fields
 
 import numpy as np
 
-from regionmap.checkpoints import CHECKPOINT_EVERY_H, Checkpoints, checkpoint_times
-from regionmap.restart import run_columns_with_restarts
-from regionmap.run import state_slice, state_take
+from regionmap.pipeline.checkpoints import CHECKPOINT_EVERY_H, Checkpoints, checkpoint_times
+from regionmap.pipeline.restart import run_columns_with_restarts
+from regionmap.pipeline.run import state_slice, state_take
 from regionmap.snow.column import run_columns
 from regionmap.snow.params import SnowParams
 from regionmap.snow.state import SnowState

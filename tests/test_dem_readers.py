@@ -86,11 +86,11 @@ def test_geographic_dem_metric_view_is_utm_and_areas_match_pyproj_geod(tmp_path)
 
 
 def test_shipped_demo_files_are_reproduced_by_their_generator(tmp_path):
-    # The shipped files are outputs of regionmap.demo; regenerating them must give the same
+    # The shipped files are outputs of regionmap.demo.scenario; regenerating them must give the same
     # grid and the same zones (a reproducibility check, not a physical reference).
     import geopandas as gpd
 
-    from regionmap.demo import (
+    from regionmap.demo.scenario import (
         DEMO_ZONE_NAMES,
         SHIPPED_DEM,
         SHIPPED_ZONES,

@@ -2,7 +2,7 @@
 
 The demo is built and run once per session (figures skipped). Every expectation comes from
 the design, i.e. the events file ``events_expected.json`` written beside the forcing
-(:func:`regionmap.demo_weather.demo_events`), or is computed independently of the snow model
+(:func:`regionmap.demo.weather.demo_events`), or is computed independently of the snow model
 from the downscaled forcing; the source is named beside each check. Thresholds such as
 "most of the area" are common practice for a regional statement, not measured values.
 
@@ -20,20 +20,20 @@ import pytest
 import xarray as xr
 
 from regionmap.config import load_config
-from regionmap.demo import build_demo_scenario
-from regionmap.runner import execute
+from regionmap.demo.scenario import build_demo_scenario
+from regionmap.pipeline.execute import execute
 
 MOST = 0.5  # "most of the area": more than half (common practice for a regional statement)
 
 
 @pytest.fixture(scope="session")
 def demo(tmp_path_factory):
-    import regionmap.products
+    import regionmap.products.write
 
     root = tmp_path_factory.mktemp("demo_answers")
     cfg = load_config(build_demo_scenario(root / "scenario"))
     with pytest.MonkeyPatch.context() as mp:  # the rain-crust ensemble in several cell blocks
-        mp.setattr(regionmap.products, "_ENSEMBLE_BLOCK_CELLS", 200)
+        mp.setattr(regionmap.products.write, "_ENSEMBLE_BLOCK_CELLS", 200)
         execute(cfg, out_dir=root / "out", report=False, progress=False)
     out = root / "out"
     cells = xr.open_dataset(out / "cells.nc")
@@ -63,7 +63,7 @@ def transition(demo):
     where it crosses 0.5 (linear between the cells that bracket it, in elevation order).
     """
     from regionmap.downscale.pipeline import downscale_cells
-    from regionmap.run import open_grid_forcing, prepare_batch, prepare_region
+    from regionmap.pipeline.run import open_grid_forcing, prepare_batch, prepare_region
 
     cfg = demo["cfg"]
     peak = np.datetime64(demo["design"]["expected"]["rain_crust"]["peak_time"], "s")

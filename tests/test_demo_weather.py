@@ -16,7 +16,7 @@ import pytest
 import xarray as xr
 from pyproj import CRS
 
-from regionmap.demo_weather import (
+from regionmap.demo.weather import (
     demo_events,
     demo_variables_mapping,
     model_grid,

@@ -18,10 +18,10 @@ import shapely
 from test_summaries_synth import CRS, TRANSFORM, cone_dem, synthetic_run
 
 from regionmap.errors import InputError
-from regionmap.export import cells_to_raster, write_gis
 from regionmap.io.outdir import OutputFolder
 from regionmap.io.writers import write_geotiff
-from regionmap.rain_crust import (
+from regionmap.products.gis import cells_to_raster, write_gis
+from regionmap.products.rain_crust import (
     RainEvent,
     rain_crust_limits,
     rain_crust_lines,
@@ -30,7 +30,7 @@ from regionmap.rain_crust import (
     rain_events,
     zone_rain_crust_columns,
 )
-from regionmap.summaries import layers_of_concern, summary_tables, terrain_weights_km2
+from regionmap.products.summaries import layers_of_concern, summary_tables, terrain_weights_km2
 
 MAP_TIME = "2026-01-22T12:00"
 CHECKER = Path("/work/shared/tools/check_outputs.py")

@@ -19,7 +19,7 @@ from test_summaries_synth import CRS, TRANSFORM, cone_dem, synthetic_run
 from regionmap.errors import InputError
 from regionmap.io.writers import write_geotiff
 from regionmap.plots.outputs import RunOutputs
-from regionmap.verify import verification_table, write_verification_csv
+from regionmap.stations.verify import verification_table, write_verification_csv
 
 MAP_TIME = "2026-01-22T12:00"
 

@@ -13,7 +13,7 @@ from scipy.ndimage import map_coordinates
 from test_summaries_synth import CRS, RAIN_EVENT_ID, RAIN_FORMED, TRANSFORM, synthetic_run
 
 from regionmap.errors import GridMismatchError
-from regionmap.rain_crust import (
+from regionmap.products.rain_crust import (
     RainEvent,
     rain_crust_limits,
     rain_crust_lines,

@@ -14,7 +14,7 @@ import html5lib
 import pytest
 from test_plots_synthrun import build_output_folder
 
-from regionmap.report import (
+from regionmap.report.briefing import (
     REPORT_MAX_BYTES,
     _data_uri,
     _no_web_text,
@@ -103,7 +103,7 @@ def test_report_without_verification_skips_the_section_with_a_note_and_lists_fig
 
 def test_report_of_many_figures_lists_those_over_the_image_budget(tmp_path, monkeypatch):
     # a region of many zones must still get its report: images beyond the budget are listed
-    import regionmap.report as report_module
+    import regionmap.report.briefing as report_module
 
     folder = build_output_folder(tmp_path / "out", with_verification=False)
     monkeypatch.setattr(report_module, "FIGURE_BUDGET_BYTES", 200_000)

@@ -1,6 +1,6 @@
 """report.html on a real run folder: the demo DEM, one demo zone and a week of the demo
 season around its rain-on-snow event (the small scenario of ``test_run``), run through
-``regionmap.runner.execute`` without the report, then ``write_report``.
+``regionmap.pipeline.execute.execute`` without the report, then ``write_report``.
 
 Checks against outside oracles: html5lib (the WHATWG HTML parsing algorithm), the PNG
 signature and pHYs chunk (ISO/IEC 15948), and the Debian Chromium package driven by
@@ -22,7 +22,7 @@ from test_run import config, run, scenario  # noqa: F401  (session fixture of th
 from regionmap.plots.maps import rain_crust_events
 from regionmap.plots.outputs import RunOutputs
 from regionmap.plots.style import PRINT_DPI
-from regionmap.report import (
+from regionmap.report.briefing import (
     MAP_METRICS,
     MAX_RAIN_CRUST_MAPS,
     OVERVIEW_METRICS,

@@ -1,4 +1,4 @@
-"""Restart cells from an observed profile (regionmap.restart).
+"""Restart cells from an observed profile (regionmap.pipeline.restart).
 
 Outside sources of the expected values:
 * the profile files themselves (tests/data/profiles, invented, written following the CAAML
@@ -27,7 +27,7 @@ import pandas as pd
 import pytest
 
 from regionmap.errors import InputError
-from regionmap.restart import (
+from regionmap.pipeline.restart import (
     apply_restart,
     merge_restart_records,
     resolve_restarts,

@@ -20,7 +20,7 @@ import xarray as xr
 
 from regionmap.cli import main
 from regionmap.config import load_config
-from regionmap.runner import execute
+from regionmap.pipeline.execute import execute
 
 CONFIG = """
 [region]
@@ -51,8 +51,8 @@ COMPARED = (
 
 @pytest.fixture(scope="session")
 def scenario(tmp_path_factory):
-    from regionmap.demo import demo_zones, make_demo_dem
-    from regionmap.demo_weather import write_demo_forcing
+    from regionmap.demo.scenario import demo_zones, make_demo_dem
+    from regionmap.demo.weather import write_demo_forcing
     from regionmap.io.dem import read_dem
     from regionmap.io.writers import write_geojson
 
@@ -350,7 +350,7 @@ def test_an_existing_cluster_via_scheduler_address(scenario, reference, tmp_path
 
 
 def test_chunks_keep_groups_whole():
-    from regionmap.run import chunk_ranges
+    from regionmap.pipeline.run import chunk_ranges
 
     zones = np.repeat([0, 1, 2, 3], [5, 300, 20, 40])
     assert chunk_ranges(zones.size, 50, zones) == [(0, 5), (5, 305), (305, 325), (325, 365)]
@@ -363,7 +363,7 @@ def test_chunks_keep_groups_whole():
 
 def test_drift_results_do_not_depend_on_chunking(scenario, tmp_path):
     # zone-conserving drift normalises per zone and step: chunks must keep zones whole
-    from regionmap.demo import demo_zones
+    from regionmap.demo.scenario import demo_zones
     from regionmap.io.writers import write_geojson
 
     write_geojson(scenario / "two_zones.geojson", demo_zones().iloc[[1, 2]])

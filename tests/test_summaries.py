@@ -10,7 +10,7 @@ import pytest
 from test_summaries_synth import synthetic_run
 
 from regionmap.errors import GridMismatchError, InputError
-from regionmap.summaries import (
+from regionmap.products.summaries import (
     band_transitions,
     cell_values,
     layer_summary_text,
@@ -212,7 +212,7 @@ def test_missing_time_and_mismatched_cells_are_clear_errors(run):
 def test_block_sizes_do_not_change_the_summaries(run, monkeypatch):
     """The summaries read cells.nc a block of cells and of days at a time; blocks of 3 cells
     and 4 days (several blocks on this run) give the same tables as one block."""
-    import regionmap.summaries as summaries
+    import regionmap.products.summaries as summaries
 
     _, index, table, slope, area, diag, prof = run
     w = terrain_weights_km2(index, slope, area, len(table))
@@ -245,7 +245,7 @@ def test_time_blocks_end_where_the_file_time_chunks_do(monkeypatch):
     that satisfy both."""
     import xarray as xr
 
-    import regionmap.summaries as summaries
+    import regionmap.products.summaries as summaries
 
     diag = xr.Dataset({"snow_depth_cm": (("cell", "time"), np.zeros((2, 100), np.float32))})
     diag["snow_depth_cm"].encoding["chunksizes"] = (2, 24)

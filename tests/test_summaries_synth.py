@@ -14,7 +14,7 @@ import xarray as xr
 from affine import Affine
 
 from regionmap.io.results import CellsNcWriter, ProfilesNcWriter
-from regionmap.runner import LAYER_VARS as RUNNER_LAYER_VARS
+from regionmap.pipeline.execute import LAYER_VARS as RUNNER_LAYER_VARS
 
 CRS = "EPSG:32633"
 PIXEL_M = 100.0
@@ -134,7 +134,7 @@ LAYER_VARS = {
     "temperature_k": ("f4", {"units": "K"}),
     "grain_size_mm": ("f4", {"units": "mm"}),
     "hardness_index": ("f4", {"units": "1"}),
-    # the fixed-width character variables the runner writes (regionmap.runner.LAYER_VARS)
+    # the fixed-width character variables the runner writes (regionmap.pipeline.execute.LAYER_VARS)
     "grain_class": (RUNNER_LAYER_VARS["grain_class"][0], {}),
     "crust_kind": (RUNNER_LAYER_VARS["crust_kind"][0], {}),
     "deposition_time": ("i8", {"units": "seconds since 1970-01-01"}),

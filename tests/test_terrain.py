@@ -143,7 +143,7 @@ def test_geographic_dem_aspect_and_horizon_are_relative_to_true_north(tmp_path):
 def test_write_terrain_layers_writes_each_layer_on_the_dem_grid(tmp_path):
     import rasterio
 
-    from regionmap.demo import make_demo_dem
+    from regionmap.demo.scenario import make_demo_dem
 
     dem_path = make_demo_dem(tmp_path / "dem.tif")
     s = TerrainSettings(n_azimuths=8, horizon_distance_m=2000.0, exposure_directions=4)

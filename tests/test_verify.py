@@ -11,7 +11,7 @@ import pandas as pd
 import pytest
 
 from regionmap.errors import InputError, OutputError
-from regionmap.verify import (
+from regionmap.stations.verify import (
     aggregate_model_to_observations,
     verification_table,
     write_verification_csv,

@@ -1,6 +1,6 @@
-"""`regionmap verify` through regionmap.stations_chain on demo-derived synthetic observations.
+"""`regionmap verify` through regionmap.stations.chain on demo-derived synthetic observations.
 
-The demo region and its weather are invented (regionmap.demo). Observations are made from
+The demo region and its weather are invented (regionmap.demo.scenario). Observations are made from
 the model's own station series with biases chosen here, written to CSV files in everyday
 units (degC, %, mm, cm), and read back by the command: the expected scores are known by
 construction, and the scores are recomputed with plain NumPy from the CSV text (Wilks 2011,
@@ -21,7 +21,7 @@ import pytest
 from regionmap.config import load_config
 from regionmap.errors import InputError
 from regionmap.io.stations import read_stations
-from regionmap.stations_chain import run_verification_last_day, station_model_series, verify_command
+from regionmap.stations.chain import run_verification_last_day, station_model_series, verify_command
 
 START, END = "2026-01-08", "2026-01-21T23:00"  # 14 days of the invented season, a storm included
 # station pixels (row, col) on the 300 x 300 demo DEM and their metadata exposure class
@@ -34,8 +34,8 @@ STATIONS = {
 
 def write_scenario(folder: Path, dem, *, start=START, end=END, lapse=None) -> Path:
     """Demo forcing for a short window and a config using the shipped demo DEM and zones."""
-    from regionmap.demo import SHIPPED_DEM, SHIPPED_ZONES
-    from regionmap.demo_weather import write_demo_forcing
+    from regionmap.demo.scenario import SHIPPED_DEM, SHIPPED_ZONES
+    from regionmap.demo.weather import write_demo_forcing
 
     folder.mkdir(parents=True, exist_ok=True)
     write_demo_forcing(

@@ -23,7 +23,7 @@ import xarray as xr
 
 from regionmap.errors import InputError
 from regionmap.io.times import utc_datetime64
-from regionmap.summaries import band_label, cell_values, summarise
+from regionmap.products.summaries import band_label, cell_values, summarise
 
 __all__ = ["Metric", "METRICS", "RunOutputs", "SECTOR_ORDER", "metric"]
 
@@ -58,7 +58,7 @@ class Metric:
     name : file-facing name (the ``maps/<name>.tif`` stem and the zones-table column).
     label : words for axis and colour-bar labels.
     units : unit as printed (after ``scale``).
-    summary_column : column of :func:`regionmap.summaries.summarise` output.
+    summary_column : column of :func:`regionmap.products.summaries.summarise` output.
     scale : factor from the stored value to the printed one (fractions → %).
     vmax : fixed upper end of the colour scale, or None to use the data.
     decimals : digits printed in overview cells.
@@ -363,7 +363,7 @@ class RunOutputs:
 
     def band_aspect(self, time=None) -> pd.DataFrame:
         """Area-weighted summary per zone × band × aspect at ``time`` (default the map time):
-        :func:`regionmap.summaries.summarise` rows plus ``band`` labels."""
+        :func:`regionmap.products.summaries.summarise` rows plus ``band`` labels."""
         t = self.map_time if time is None else self.time_in_run(time)
         return self._band_aspect_at(np.datetime64(t, "s"))
 

@@ -1,7 +1,7 @@
 """Season views organised around named layers, and the elevation chart.
 
 * **Layer tracker** — for one layer of concern of a zone (identified as in
-  :func:`regionmap.summaries.layers_of_concern`: buried surface hoar by its burial date, faceted
+  :func:`regionmap.products.summaries.layers_of_concern`: buried surface hoar by its burial date, faceted
   crystals and depth hoar by their formation date, crusts by kind and formation date, dates
   in the local time zone), its vertical depth below the surface on every daily snapshot, one
   line per elevation band (or per band and aspect), with the share of the band's area where
@@ -25,7 +25,7 @@ from matplotlib.patches import Patch
 from regionmap.errors import InputError
 from regionmap.plots.outputs import SECTOR_ORDER, RunOutputs, metric
 from regionmap.plots.style import METRIC_CMAP, OKABE_ITO, new_figure, save_png, slug
-from regionmap.summaries import band_label, decode_snapshot, layer_identities, layer_ids
+from regionmap.products.summaries import band_label, decode_snapshot, layer_identities, layer_ids
 
 __all__ = [
     "layer_tracks",
@@ -51,7 +51,7 @@ def _outputs(out) -> RunOutputs:
 
 def _block_rows(snap, cell_ids: np.ndarray, tz: str, wanted=None) -> pd.DataFrame:
     """(layer_id, cell_id, day, depth_cm) rows of the weak layers and crusts of one block
-    (named as in the layers of concern, :func:`regionmap.summaries.layer_identities`), only
+    (named as in the layers of concern, :func:`regionmap.products.summaries.layer_identities`), only
     those of the ids ``wanted`` when given. Ids are built once per distinct (kind, time)."""
     pos, kind, ref = layer_identities(snap)
     ok = ref > _NO_TIME

@@ -11,7 +11,7 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from regionmap.verify import (
+from regionmap.stations.verify import (
     bias,
     mean_absolute_error,
     r_squared,

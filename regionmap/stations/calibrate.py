@@ -2,7 +2,7 @@
 
 Input are matched tables of model and observed series (index ``station_id``, ``time``;
 canonical SI columns; the model already on the observations' intervals, see
-:func:`regionmap.verify.aggregate_model_to_observations`). :func:`calibrate` fits, per
+:func:`regionmap.stations.verify.aggregate_model_to_observations`). :func:`calibrate` fits, per
 variable,
 
 * an **offset** ``model + offset`` (mean of obs − model; temperature and humidity) or a
@@ -39,7 +39,7 @@ from regionmap.downscale.quantile_mapping import (
 )
 from regionmap.errors import InputError
 from regionmap.io.stations import EXPOSURE_CLASSES
-from regionmap.verify import (
+from regionmap.stations.verify import (
     bias,
     mean_absolute_error,
     r_squared,

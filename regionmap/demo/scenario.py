@@ -33,7 +33,7 @@ _PIXEL_M = 100.0
 _X0, _Y_TOP = 600_000.0, 5_210_000.0
 DEMO_ZONE_NAMES = ("Zelvorn Crest", "Yrlen Cirque", "Brasktal Front", "Quessa Basin")
 
-_REPO = Path(__file__).resolve().parent.parent
+_REPO = Path(__file__).resolve().parent.parent.parent
 SHIPPED_DEM = _REPO / "dem_samples" / "demo_range.tif"
 SHIPPED_ZONES = _REPO / "zones" / "demo_zones.geojson"
 
@@ -106,7 +106,7 @@ def make_demo_dem(path: str | os.PathLike) -> Path:
         crs=DEMO_CRS,
         nodata=-9999.0,
         description="elevation [m] of an invented mountain range (demo data)",
-        tags={"source": "regionmap.demo.make_demo_dem (invented terrain)", "units": "m"},
+        tags={"source": "regionmap.demo.scenario.make_demo_dem (invented terrain)", "units": "m"},
     )
 
 
@@ -199,7 +199,7 @@ def build_demo_scenario(folder: str | os.PathLike, *, raw: bool = False) -> Path
     Returns the config path. ``raw=True`` writes the forcing in the raw, non-CF variant with
     the matching ``[forcing] variables`` mapping in the config.
     """
-    from regionmap.demo_weather import demo_variables_mapping, write_demo_events, write_demo_forcing
+    from regionmap.demo.weather import demo_variables_mapping, write_demo_events, write_demo_forcing
     from regionmap.io.atomic import atomic_write_text
     from regionmap.io.dem import read_dem
 
@@ -241,7 +241,7 @@ def run_demo(out: str | os.PathLike, progress: bool = True) -> int:
 
     from regionmap.cli import print_outcome
     from regionmap.config import load_config
-    from regionmap.runner import execute
+    from regionmap.pipeline.execute import execute
 
     with tempfile.TemporaryDirectory(prefix="regionmap-demo-") as tmp:
         config_path = build_demo_scenario(Path(tmp) / "scenario")

@@ -19,13 +19,13 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 
-from regionmap.checkpoints import Checkpoints
 from regionmap.config import Config
 from regionmap.downscale.pipeline import CellBatch, downscale_cells, prepare_cells
 from regionmap.downscale.settings import DownscaleSettings
 from regionmap.downscale.types import CellForcing
 from regionmap.errors import GridMismatchError, InputError
-from regionmap.restart import restarts_in_chunk, run_columns_with_restarts
+from regionmap.pipeline.checkpoints import Checkpoints
+from regionmap.pipeline.restart import restarts_in_chunk, run_columns_with_restarts
 from regionmap.snow.params import SnowParams
 from regionmap.snow.state import SnowState
 
@@ -298,7 +298,7 @@ class RunContext:
     snapshot_hour_utc : hour (UTC) of the daily layer snapshots.
     kernel_threads : threads the column kernel uses inside one task.
     perturbation : (temperature offset [K], phase-threshold offset [K]) for ensemble members.
-    restarts : observed-profile restarts (:func:`regionmap.restart.resolve_restarts`).
+    restarts : observed-profile restarts (:func:`regionmap.pipeline.restart.resolve_restarts`).
     checkpoints : where each chunk saves its control states for the ensemble (None: nowhere).
     """
 

@@ -8,7 +8,7 @@ the melting distance depends on humidity and rate). The column model tags the cr
 event leaves (``crust_kind = "rain"`` and the event's ``event_id``); here the presence of that
 crust per cell becomes, per zone × aspect, an upper and a lower limit, each interpolated
 linearly between band centres where the area fraction with the crust crosses 0.5
-(:func:`regionmap.summaries.band_transitions`).
+(:func:`regionmap.products.summaries.band_transitions`).
 
 The likely range comes from a small perturbation ensemble the run makes around the event
 (air temperature ±1 K at all heights, phase threshold ±0.5 K): each member's crust presence
@@ -33,8 +33,8 @@ import pandas as pd
 import xarray as xr
 
 from regionmap.errors import GridMismatchError, InputError
+from regionmap.products.summaries import band_transitions, decode_snapshot
 from regionmap.snow.codes import CRUST_INDEX
-from regionmap.summaries import band_transitions, decode_snapshot
 
 if TYPE_CHECKING:
     import geopandas as gpd
@@ -198,7 +198,7 @@ def rain_crust_limits(
     DataFrame per group: ``event_id``, ``event_time``, ``upper_m``, ``upper_bound``,
     ``upper_low_m``, ``upper_high_m``, ``lower_m``, ``lower_bound``, ``lower_low_m``,
     ``lower_high_m``, ``n_members``. Bounds as in
-    :func:`regionmap.summaries.band_transitions` (``at_or_above``: the crust reaches the top
+    :func:`regionmap.products.summaries.band_transitions` (``at_or_above``: the crust reaches the top
     band; ``at_or_below``: down to the lowest; ``absent``).
     """
     keys = list(by)

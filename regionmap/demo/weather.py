@@ -647,7 +647,7 @@ def write_demo_forcing(
     ds.attrs.update(
         {
             "title": "regionmap demo season (invented data)",
-            "source": f"regionmap.demo_weather, seed {seed}",
+            "source": f"regionmap.demo.weather, seed {seed}",
             "comment": "Invented weather for demonstration and tests; model output is guidance for "
             "trained people, never a substitute for field observations, the local "
             "avalanche service and professional standards.",

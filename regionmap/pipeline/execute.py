@@ -23,12 +23,12 @@ from pathlib import Path
 import numpy as np
 
 from regionmap import CAUTION, __version__
-from regionmap.checkpoints import Checkpoints, checkpoint_times
 from regionmap.config import Config
 from regionmap.errors import InputError
 from regionmap.io.atomic import atomic_write_text
 from regionmap.io.results import PROFILES_CHUNK_CELLS, CellsNcWriter, ProfilesNcWriter
-from regionmap.run import (
+from regionmap.pipeline.checkpoints import Checkpoints, checkpoint_times
+from regionmap.pipeline.run import (
     RunContext,
     cells_frame,
     check_state_matches,
@@ -252,14 +252,14 @@ def execute(
     workers, scheduler : dask set-up (see :func:`dask_client`).
     force : allow replacing a non-empty folder that is not a regionmap output.
     progress : show a progress bar.
-    restarts : observed-profile restarts (see :mod:`regionmap.restart`).
+    restarts : observed-profile restarts (see :mod:`regionmap.pipeline.restart`).
     extra_files : relative name → file copied into the output folder (the demo's inputs).
     report : write the figures and ``report.html`` (tests of the numbers skip them).
     """
     from tqdm.auto import tqdm
 
     from regionmap.io.outdir import OutputFolder
-    from regionmap.products import write_products
+    from regionmap.products.write import write_products
 
     t_all = _time.perf_counter()
     timings: dict = {}
@@ -290,7 +290,7 @@ def execute(
         state0 = initial_state(batch, params, period)
     resolved = []
     if restarts:
-        from regionmap.restart import resolve_restarts
+        from regionmap.pipeline.restart import resolve_restarts
 
         resolved = resolve_restarts(
             restarts,
@@ -450,7 +450,7 @@ def execute(
         timings["task_column_s"] = task_seconds["column"]
         timings["write_s"] = write_seconds
         timings["total"] = _time.perf_counter() - t_all
-        from regionmap.restart import merge_restart_records
+        from regionmap.pipeline.restart import merge_restart_records
 
         record = _run_record(
             cfg,
@@ -477,11 +477,11 @@ def execute(
             shutil.copy2(src, dst)
         atomic_write_text(out / "run.json", json.dumps(record, indent=2, default=str))
         if cfg.stations is not None:
-            from regionmap.stations_chain import run_verification_last_day
+            from regionmap.stations.chain import run_verification_last_day
 
             run_verification_last_day(cfg, region, out, map_time, grid_forcing=gf)
         if report:
-            from regionmap.report import write_report
+            from regionmap.report.briefing import write_report
 
             t0 = _time.perf_counter()
             write_report(out)

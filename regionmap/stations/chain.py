@@ -238,7 +238,7 @@ def _region_parts(cfg: Config, region):
     if region is not None:
         return region.dem, region.terrain
     from regionmap.io.dem import read_dem
-    from regionmap.run import terrain_settings
+    from regionmap.pipeline.run import terrain_settings
     from regionmap.terrain import compute_terrain
 
     dem = read_dem(cfg.region.dem)
@@ -265,7 +265,7 @@ def station_model_series(
         From :func:`regionmap.io.stations.read_stations`.
     period : (start, end) of datetime64-like, optional
         First and last hourly interval end to return (UTC); None: the whole forcing.
-    region : regionmap.run.Region, optional
+    region : regionmap.pipeline.run.Region, optional
         A prepared region (its DEM and terrain are reused); None reads and computes them.
     grid_forcing : GridForcing, optional
         An opened forcing; None opens ``[forcing]``.
@@ -289,7 +289,12 @@ def station_model_series(
         Stations outside the DEM or the forcing grid, a period without forcing.
     """
     from regionmap.downscale.pipeline import downscale_cells
-    from regionmap.run import cell_settings, downscale_settings, open_grid_forcing, snow_params
+    from regionmap.pipeline.run import (
+        cell_settings,
+        downscale_settings,
+        open_grid_forcing,
+        snow_params,
+    )
 
     dem, terrain = _region_parts(cfg, region)
     gf = open_grid_forcing(cfg) if grid_forcing is None else grid_forcing
@@ -371,8 +376,8 @@ def _read_inputs(stations_path, observation_paths):
 
 
 def _matched(cfg, stations, obs, *, raw, where, region=None, grid_forcing=None):
-    from regionmap.run import open_grid_forcing
-    from regionmap.verify import aggregate_model_to_observations
+    from regionmap.pipeline.run import open_grid_forcing
+    from regionmap.stations.verify import aggregate_model_to_observations
 
     gf = open_grid_forcing(cfg) if grid_forcing is None else grid_forcing
     period = _clip_to_forcing(gf, obs, where)
@@ -388,7 +393,7 @@ def _matched(cfg, stations, obs, *, raw, where, region=None, grid_forcing=None):
 
 def _undercatch_corrected(obs: pd.DataFrame, undercatch) -> pd.DataFrame:
     """Observed precipitation corrected for gauge undercatch (Kochendorfer et al. 2017)."""
-    from regionmap.calibrate import correct_undercatch_kochendorfer2017
+    from regionmap.stations.calibrate import correct_undercatch_kochendorfer2017
 
     if undercatch is None or "precipitation" not in obs.columns:
         return obs
@@ -453,13 +458,13 @@ def verify_command(
         coefficients [mem]) before comparing; None compares the gauge as measured.
     echo : bool
         Print the table, where the files are and the caution.
-    region : regionmap.run.Region, optional
+    region : regionmap.pipeline.run.Region, optional
         A prepared region whose DEM and terrain are reused (None computes them).
 
     Returns
     -------
     pandas.DataFrame
-        :func:`regionmap.verify.verification_table` over the overlap, plus ``period_start``
+        :func:`regionmap.stations.verify.verification_table` over the overlap, plus ``period_start``
         and ``period_end`` (UTC) and ``exposure_class`` of each station.
 
     Raises
@@ -468,7 +473,7 @@ def verify_command(
         Bad station or observation files, stations outside the DEM or forcing, no overlap.
     """
     from regionmap.plots.verification import write_verification_figures
-    from regionmap.verify import verification_table, write_verification_csv
+    from regionmap.stations.verify import verification_table, write_verification_csv
 
     stations, obs = _read_inputs(stations_path, observation_paths)
     obs = _undercatch_corrected(obs, undercatch)
@@ -501,9 +506,9 @@ def verify_command(
 
 
 def _calibrate_observed(matched, obs, stations, *, method, per_month, undercatch):
-    """:func:`regionmap.calibrate.calibrate` on the variables the observations hold (each
+    """:func:`regionmap.stations.calibrate.calibrate` on the variables the observations hold (each
     exposure class is fitted from its stations that observe the variable)."""
-    from regionmap.calibrate import DEFAULT_KIND, QM_KIND, calibrate
+    from regionmap.stations.calibrate import DEFAULT_KIND, QM_KIND, calibrate
 
     kinds = DEFAULT_KIND if method == "scaling" else QM_KIND
     present = [
@@ -559,13 +564,13 @@ def calibrate_command(
         Kochendorfer et al. (2017) gauge correction of observed precipitation before fitting.
     echo : bool
         Print the TOML, the skill table, the notes and the caution.
-    region : regionmap.run.Region, optional
+    region : regionmap.pipeline.run.Region, optional
         A prepared region whose DEM and terrain are reused (None computes them).
 
     Returns
     -------
     toml_text : str
-        The ``[bias]`` section to paste (:func:`regionmap.calibrate.bias_toml`).
+        The ``[bias]`` section to paste (:func:`regionmap.stations.calibrate.bias_toml`).
     skill : pandas.DataFrame
         Skill before (``raw``), after (``fitted``) and cross-validated (leave one month out)
         per exposure class and variable.
@@ -575,8 +580,8 @@ def calibrate_command(
     InputError
         Bad inputs, or too little data to fit (the message says what is missing).
     """
-    from regionmap.calibrate import bias_toml
     from regionmap.downscale.quantile_mapping import write_qm_table
+    from regionmap.stations.calibrate import bias_toml
 
     stations, obs = _read_inputs(stations_path, observation_paths)
     model, matched = _matched(cfg, stations, obs, raw=True, where="calibrate", region=region)
@@ -640,7 +645,7 @@ def run_verification_last_day(cfg: Config, region, out_dir, map_time, *, grid_fo
     ----------
     cfg : Config
         With a ``[stations]`` section (``stations``, ``observations``); None section: nothing.
-    region : regionmap.run.Region
+    region : regionmap.pipeline.run.Region
         The run's prepared region (DEM and terrain reused).
     out_dir : path
         The run's (temporary) output folder; ``verification.csv`` is written there.
@@ -661,7 +666,7 @@ def run_verification_last_day(cfg: Config, region, out_dir, map_time, *, grid_fo
     InputError
         Bad station or observation files, stations outside the DEM or the forcing.
     """
-    from regionmap.verify import verification_table, write_verification_csv
+    from regionmap.stations.verify import verification_table, write_verification_csv
 
     if cfg.stations is None:
         return None

@@ -50,7 +50,7 @@ def _write_csv(path: Path, frame: pd.DataFrame) -> None:
 
 
 def _weights(region, cfg: Config) -> pd.DataFrame:
-    from regionmap.summaries import terrain_weights_km2
+    from regionmap.products.summaries import terrain_weights_km2
 
     return terrain_weights_km2(
         region.cells.index,
@@ -67,8 +67,8 @@ def _member_presence(
     """Crust presence of each ensemble member for one event: only cells near the control
     crust's elevation range are re-simulated, only from a day before the event to two days
     after it (the control state there comes from the run's checkpoints, see
-    :mod:`regionmap.checkpoints`); elsewhere members keep the control's presence."""
-    from regionmap.run import chunk_ranges
+    :mod:`regionmap.pipeline.checkpoints`); elsewhere members keep the control's presence."""
+    from regionmap.pipeline.run import chunk_ranges
 
     t0 = _time.perf_counter()
     z = table["elevation_m"].to_numpy(float)
@@ -129,8 +129,8 @@ def _block_presence(
     """(member, cell) crust presence of the ensemble for some cells (positions) over the
     forcing steps ``start:stop``, and the step their control state was resumed from."""
     from regionmap.downscale.pipeline import downscale_cells
-    from regionmap.rain_crust import rain_crust_presence
-    from regionmap.run import _forcing_for, _perturbed, state_take
+    from regionmap.pipeline.run import _forcing_for, _perturbed, state_take
+    from regionmap.products.rain_crust import rain_crust_presence
     from regionmap.snow.column import run_columns, snapshots_to_dataset
 
     p = ctx.period
@@ -178,7 +178,7 @@ def _rain_crust(
     """Limits, lines and sentences of every rain-on-snow event up to the map time."""
     import geopandas as gpd
 
-    from regionmap.rain_crust import (
+    from regionmap.products.rain_crust import (
         NO_CRUST_CLAUSE,
         RainEvent,
         rain_crust_limits,
@@ -272,8 +272,8 @@ def write_products(
     progress: bool = False,
 ) -> Products:
     """Summaries, layers of concern, rain-crust line and GIS layers of a finished run."""
-    from regionmap.export import write_gis
-    from regionmap.summaries import layers_of_concern, summary_tables
+    from regionmap.products.gis import write_gis
+    from regionmap.products.summaries import layers_of_concern, summary_tables
 
     table = region.cells.table.copy()
     if "slope_class" not in table.columns:

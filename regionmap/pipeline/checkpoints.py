@@ -1,7 +1,7 @@
 """Control states kept on disk during a run, so that ensemble members start near their window.
 
 The rain-crust ensemble re-simulates a few days around each rain-on-snow event with
-perturbed forcing (:mod:`regionmap.products`). Its members must start from the control
+perturbed forcing (:mod:`regionmap.products.write`). Its members must start from the control
 run's state shortly before the event; stepping the control again from the season start to
 get there costs as much as the run itself, once per event. Instead each chunk task saves its
 state at fixed times (every :data:`CHECKPOINT_EVERY_H` hours, and at every restart) into one
@@ -75,7 +75,7 @@ class Checkpoints:
         """The control state of the cells at ``positions`` (ascending) at the latest saved
         time not after ``not_after``; ``initial`` (the run's start state, all cells) taken at
         ``positions`` when no saved time is that early."""
-        from regionmap.run import state_take
+        from regionmap.pipeline.run import state_take
 
         k = int(np.searchsorted(self.times, np.datetime64(not_after, "s"), side="right")) - 1
         if k < 0:

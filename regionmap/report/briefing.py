@@ -5,7 +5,7 @@ print resolution, plus the overview CSV tables; figures are drawn in forked work
 while the data of the next ones are read). :func:`write_report` draws them too and
 writes ``report.html``: self-contained (images embedded as data URIs at a reduced
 resolution, no scripts, no external fonts or style sheets, no web addresses), built from the
-jinja2 template ``regionmap/templates/report.html.j2``. It holds the per-zone table, the
+jinja2 template ``regionmap/report/templates/report.html.j2``. It holds the per-zone table, the
 layers of concern, the rain-crust line in words, the maps, overviews, profiles, layer
 trackers and elevation charts, the station verification when ``verification.csv`` is in the
 folder, where the forcing became forecast, the run's metadata and the cautions.

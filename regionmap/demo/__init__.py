@@ -1,0 +1,1 @@
+"""The invented demo scenario: terrain, zones and weather."""

@@ -1,0 +1,1 @@
+"""The run: planning, region preparation, chunk tasks, checkpoints, restarts, execution."""

@@ -1,0 +1,1 @@
+"""Products made from a finished run's ``cells.nc`` and ``profiles.nc``."""

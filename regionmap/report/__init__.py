@@ -1,0 +1,1 @@
+"""The morning briefing: figures and ``report.html``."""

@@ -1,0 +1,1 @@
+"""Station observations: the model-to-station chain, verification, bias calibration."""
