@@ -13,6 +13,7 @@ from pathlib import Path
 
 from regionmap import CAUTION, __version__
 from regionmap.errors import InputError, RegionmapError
+from regionmap.io.times import local_time_label
 
 __all__ = ["main", "build_parser"]
 
@@ -47,9 +48,8 @@ def print_outcome(outcome) -> None:
     cols = [c for c in _TABLE_COLUMNS if c in zones.columns]
     view = zones[cols].rename(columns=_TABLE_COLUMNS)
     kind = "forecast" if outcome.is_forecast else "analysis"
-    print(
-        f"Snowpack structure at {outcome.map_time} UTC ({kind}), avalanche terrain, {outcome.n_cells} cells:"
-    )
+    when = local_time_label(outcome.map_time, outcome.local_timezone, year=True)
+    print(f"Snowpack structure at {when} ({kind}), avalanche terrain, {outcome.n_cells} cells:")
     print(view.to_string(index=False, float_format=lambda v: f"{v:.2f}", na_rep="-"))
     if outcome.sentences:
         print()

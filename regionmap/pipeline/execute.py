@@ -117,6 +117,7 @@ class RunOutcome:
     is_forecast: bool
     n_cells: int
     seconds: float
+    local_timezone: str = "UTC"  # of the times shown to users
 
 
 @contextlib.contextmanager
@@ -175,19 +176,61 @@ def _versions() -> dict:
 
 
 def _map_time(cfg: Config, out_times: np.ndarray, period) -> np.datetime64:
-    """The map time: ``[output] map_time``, else the analysis time, else the run's end."""
+    """The map time: ``[output] map_time``, else the morning observation of the analysis day
+    (:func:`default_map_time`)."""
     if cfg.output.map_time is not None:
         want = np.datetime64(cfg.output.map_time.replace(tzinfo=None), "s")
-    elif cfg.forcing.analysis_time is not None and period.has_forecast:
-        want = period.analysis_end
+        if want not in out_times:
+            raise InputError(
+                f"{cfg.source or 'config'}: [output] map_time {want} is not an output time of this run "
+                f"({out_times[0]} to {out_times[-1]}, every {cfg.output.diagnostics_every})"
+            )
+        return want
+    analysis_end = period.analysis_end if period.has_forecast else out_times[-1]
+    return default_map_time(
+        out_times,
+        analysis_end,
+        local_timezone=cfg.output.local_timezone,
+        observation_hour=cfg.output.observation_hour,
+    )
+
+
+def default_map_time(
+    out_times: np.ndarray, analysis_end, *, local_timezone: str, observation_hour: int
+) -> np.datetime64:
+    """The local observation hour of the analysis day: the hour ``observation_hour`` (local
+    clock) on the local calendar day of ``analysis_end`` — the picture a forecaster wants on
+    that morning, even when the analysis ran to midnight and the hours after it are forecast.
+    When the run ends before that hour, the last observation hour in the run; when it holds
+    none, the analysis end. Rounded down to an output time.
+
+    Parameters
+    ----------
+    out_times : (time,) datetime64[s] output times [UTC], increasing.
+    analysis_end : the last analysis time [UTC] (the run's end without a forecast part).
+    local_timezone, observation_hour : the local observation day (``[output]``).
+    """
+    import pandas as pd
+
+    from regionmap.products.summaries import observation_times
+
+    end = np.datetime64(analysis_end, "s")
+    obs = observation_times(
+        out_times[0],
+        out_times[-1],
+        local_timezone=local_timezone,
+        observation_hour=observation_hour,
+    )
+    local_day = pd.Timestamp(end).tz_localize("UTC").tz_convert(local_timezone).date()
+    days = pd.DatetimeIndex(obs).tz_localize("UTC").tz_convert(local_timezone).date
+    same = obs[days == local_day]
+    if same.size:
+        want = same[0]
+    elif obs.size:
+        want = obs[obs <= end][-1] if (obs <= end).any() else obs[0]
     else:
-        want = out_times[-1]
-    if want not in out_times:
-        raise InputError(
-            f"{cfg.source or 'config'}: [output] map_time {want} is not an output time of this run "
-            f"({out_times[0]} to {out_times[-1]}, every {cfg.output.diagnostics_every})"
-        )
-    return want
+        want = end
+    return out_times[max(0, np.searchsorted(out_times, want, side="right") - 1)]
 
 
 def _effective_chunk_size(n_cells: int, chunk_size: int, n_parallel: int) -> int:
@@ -495,6 +538,7 @@ def execute(
         bool(period.has_forecast and map_time > period.analysis_end),
         batch.n_cells,
         _time.perf_counter() - t_all,
+        cfg.output.local_timezone,
     )
 
 

@@ -28,6 +28,7 @@ from matplotlib.colors import BoundaryNorm, LightSource, Normalize
 from matplotlib.lines import Line2D
 
 from regionmap.errors import InputError, warn
+from regionmap.io.times import event_date_label, local_time_label, utc_datetime64
 from regionmap.plots.outputs import METRICS, Metric, RunOutputs
 from regionmap.plots.style import METRIC_CMAP, OKABE_ITO, new_figure, save_png
 
@@ -220,7 +221,9 @@ def plot_metric_map(out, metric: str, *, show_rain_crust: bool = False):
         if out.forecast_at(out.time_in_run(when, what=f"maps/{metric}.tif valid_time"))
         else "analysis"
     )
-    when = pd.Timestamp(when).strftime("%Y-%m-%d %H:%M UTC")
+    when = local_time_label(
+        utc_datetime64(when, f"maps/{metric}.tif valid_time"), out.local_timezone, year=True
+    )
     ax.set_title(f"{m.label}\nvalid {when} ({status})" + (f"; {note}" if note else ""), fontsize=10)
     return fig
 
@@ -401,9 +404,8 @@ def plot_rain_crust_map(out, event_id: int):
     fig, ax, note = _base_map(out, 7.5, 6.6, kx, ky, quiet=True)
     handles = _zone_outlines(out, ax, crs) + _rain_crust_lines(out, ax, crs, lines, extent)
     _finish_map(ax, handles, extent, crs, kx, ky)
-    when = pd.Timestamp(lines["event_time"].iloc[0]).strftime("%Y-%m-%d %H:%M UTC")
     ax.set_title(
-        f"rain-crust line of the rain-on-snow event ending {when}\n"
+        f"rain-crust line of the rain of {event_date_label(event_id, out.local_timezone)}\n"
         "labels: range over the zone's aspects" + (f"; {note}" if note else ""),
         fontsize=10,
     )

@@ -289,6 +289,37 @@ class RunOutputs:
         return pd.read_csv(self.path("layers_of_concern.csv"))
 
     @cached_property
+    def band_aspect_table(self) -> pd.DataFrame:
+        """``band_aspect.csv`` at the map time, the rows of the run's default weighting (its
+        first ``terrain``; ``area_km2`` is the weighted area); computed from ``cells.nc``
+        (:meth:`band_aspect`) when the folder has no such table."""
+        if not (self.out_dir / "band_aspect.csv").is_file():
+            return self.band_aspect().reset_index(drop=True)
+        frame = pd.read_csv(self.path("band_aspect.csv"))
+        if "terrain" in frame.columns and len(frame):
+            frame = frame[frame["terrain"] == frame["terrain"].iloc[0]]
+        return frame.reset_index(drop=True)
+
+    @cached_property
+    def new_snow_window_end(self) -> np.datetime64:
+        """End of the observation days the new-snow sums at the map time cover [UTC]: the
+        zones layer's ``new_snow_window_end``, else the last observation hour at or before
+        the map time."""
+        if "new_snow_window_end" in self.zones.columns and len(self.zones):
+            value = self.zones["new_snow_window_end"].iloc[0]
+            if not pd.isna(value) and str(value).strip():
+                return utc_datetime64(value, "zones.gpkg new_snow_window_end")
+        from regionmap.products.summaries import observation_times
+
+        obs = observation_times(
+            self.map_time - np.timedelta64(2, "D"),
+            self.map_time,
+            local_timezone=self.local_timezone,
+            observation_hour=self.observation_hour,
+        )
+        return obs[-1] if obs.size else self.map_time
+
+    @cached_property
     def zone_names(self) -> list[str]:
         return sorted(self.table["zone"].unique())
 

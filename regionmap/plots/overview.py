@@ -21,6 +21,7 @@ from matplotlib.collections import PolyCollection
 from matplotlib.colors import Normalize
 from matplotlib.patches import Rectangle
 
+from regionmap.io.times import local_time_label
 from regionmap.plots.outputs import SECTOR_ORDER, Metric, RunOutputs, metric
 from regionmap.plots.style import METRIC_CMAP, new_figure, save_png, slug, text_colour_on
 
@@ -202,7 +203,7 @@ def plot_overview(out, zone: str, metric_name: str, *, time=None):
         fontsize=8,
     )
     status = "forecast" if out.forecast_at(t) else "analysis"
-    when = pd.Timestamp(t).strftime("%Y-%m-%d %H:%M UTC")
+    when = local_time_label(t, out.local_timezone, year=True)
     fig.suptitle(
         f"{zone}: {m.label}\nvalid {when} ({status}), weighted over {out.weights[1]}", fontsize=10
     )

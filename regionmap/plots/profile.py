@@ -28,6 +28,7 @@ from matplotlib.lines import Line2D
 from matplotlib.patches import Patch
 
 from regionmap.errors import InputError
+from regionmap.io.times import local_time_label
 from regionmap.plots.outputs import SECTOR_ORDER, RunOutputs
 from regionmap.plots.style import (
     GRAIN_MAIN_COLOURS,
@@ -227,7 +228,7 @@ def plot_profile(
     ax_h, ax_e, ax_t, ax_r, ax_w = axes
     depth_total = float(p["top_cm"][-1]) if p["top_cm"].size else 0.0
     status = "forecast" if out.forecast_at(p["valid_time"]) else "analysis"
-    day = pd.Timestamp(p["day"]).strftime("%Y-%m-%d %H:%M UTC")
+    day = local_time_label(p["day"], out.local_timezone, year=True)
     fig.suptitle(
         f"{row['zone']}, {row['band']} m, {row['aspect_sector']} (cell {cid}, slope class {int(row['slope_class'])}, "
         f"mean slope {float(row.get('slope_deg', np.nan)):.0f}°)\nsimulated profile of {day} ({status}); "

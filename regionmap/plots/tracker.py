@@ -23,6 +23,7 @@ from matplotlib.lines import Line2D
 from matplotlib.patches import Patch
 
 from regionmap.errors import InputError
+from regionmap.io.times import local_time_label
 from regionmap.plots.outputs import SECTOR_ORDER, RunOutputs, metric
 from regionmap.plots.style import METRIC_CMAP, OKABE_ITO, new_figure, save_png, slug
 from regionmap.products.summaries import band_label, decode_snapshot, layer_identities, layer_ids
@@ -452,7 +453,7 @@ def plot_elevation_chart(out, zone: str, metric_name: str, *, time=None):
         )
     status = "forecast" if out.forecast_at(t) else "analysis"
     ax.set_title(
-        f"{zone}: {m.label}\nvalid {pd.Timestamp(t):%Y-%m-%d %H:%M} UTC ({status}), {out.weights[1]}",
+        f"{zone}: {m.label}\nvalid {local_time_label(t, out.local_timezone, year=True)} ({status}), {out.weights[1]}",
         fontsize=9,
     )
     return fig

@@ -19,6 +19,7 @@ import xarray as xr
 
 from regionmap.config import Config
 from regionmap.io.atomic import atomic_path
+from regionmap.io.times import event_date_label
 
 __all__ = ["Products", "write_products", "ENSEMBLE_MEMBERS"]
 
@@ -228,7 +229,7 @@ def _rain_crust(
         _write_csv(out / "rain_crust_limits.csv", limits)
     # the printed summary names the event and leaves out the zones it left no crust in
     words = [
-        f"{zone}, rain of {_event_label(event_id)}: {text}"
+        f"{zone}, rain of {event_date_label(event_id, cfg.output.local_timezone)}: {text}"
         for (zone, event_id), text in sentences.items()
         if text and not text.startswith(NO_CRUST_CLAUSE)
     ]
@@ -239,12 +240,6 @@ def _rain_crust(
         "seconds": round(sum(c["seconds"] for c in costs), 3),
     }
     return cols, lines, words, cost
-
-
-def _event_label(event_id: int) -> str:
-    """An event id (its start hour since 1970) as readable text: "2026-01-14 06:00 UTC"."""
-    start = np.datetime64(int(event_id), "h").astype("datetime64[m]").astype(object)
-    return f"{start:%Y-%m-%d %H:%M} UTC"
 
 
 def _event_windows(out: Path) -> dict:

@@ -3,12 +3,20 @@
 :func:`write_all_figures` draws the figures of an output folder into ``figures/`` (PNG at
 print resolution, plus the overview CSV tables; figures are drawn in forked worker processes
 while the data of the next ones are read). :func:`write_report` draws them too and
-writes ``report.html``: self-contained (images embedded as data URIs at a reduced
-resolution, no scripts, no external fonts or style sheets, no web addresses), built from the
-jinja2 template ``regionmap/report/templates/report.html.j2``. It holds the per-zone table, the
-layers of concern, the rain-crust line in words, the maps, overviews, profiles, layer
-trackers and elevation charts, the station verification when ``verification.csv`` is in the
-folder, where the forcing became forecast, the run's metadata and the cautions.
+writes ``report.html``, the morning briefing: self-contained (images embedded as data URIs at
+a reduced resolution, one inline script, no external scripts, fonts or style sheets, no web
+addresses), built from the jinja2 template ``regionmap/report/templates/report.html.j2``. At the
+top, a headline per zone (what changed since the previous run, the layers of concern in one
+line each, new load, wet-snow onset), then the maps, every layer of concern of every zone
+with its elevation-aspect rose, the zones' elevation-aspect roses of the main quantities,
+the per-zone table, the rain-crust line in words, where the forcing became forecast, the
+station verification when ``verification.csv`` is in the folder, the cautions and the run's
+metadata. Times are shown in the run's local time zone with UTC beside them.
+
+The report draws only the maps with matplotlib (in forked workers); the roses are drawn by
+the page itself from one character per band × aspect (:mod:`regionmap.plots.roses`), so
+its cost hardly grows with the number of zones and layers. The per-zone profiles, layer
+trackers, elevation charts and overview PNGs are drawn by :func:`write_all_figures`.
 
 Model output is guidance for trained people: field observations, the local avalanche
 service and professional standards come first.
@@ -32,6 +40,7 @@ import pandas as pd
 from regionmap import CAUTION, __version__
 from regionmap.errors import OutputError
 from regionmap.io.atomic import atomic_path, atomic_write_text
+from regionmap.io.times import event_date_label, local_time_label
 from regionmap.plots.maps import (
     available_maps,
     plot_metric_map,
@@ -48,6 +57,8 @@ from regionmap.plots.tracker import (
     plot_elevation_chart,
     plot_layer_tracker,
 )
+from regionmap.products.summaries import band_label
+from regionmap.report.headline import HEADLINE_MIN_PRESENCE_FRAC
 
 __all__ = ["write_all_figures", "write_report", "OVERVIEW_METRICS", "REPORT_MAX_BYTES", "CAUTIONS"]
 
@@ -122,7 +133,7 @@ def _map_specs(out: RunOutputs) -> list[tuple[str, str, str, callable]]:
             (
                 "maps",
                 f"map_rain_crust_{stamp}.png",
-                f"Map: rain-crust line of the rain-on-snow event ending {pd.Timestamp(when):%Y-%m-%d %H:%M} UTC",
+                f"Map: rain-crust line of the rain of {event_date_label(event_id, out.local_timezone)}",
                 lambda event_id=event_id: plot_rain_crust_map(out, event_id),
             )
         )
@@ -302,7 +313,7 @@ class _Drawing:
 
 
 def _render(
-    out: RunOutputs, *, thumbnails: bool, workers: int | None = None
+    out: RunOutputs, *, thumbnails: bool, workers: int | None = None, maps_only: bool = False
 ) -> tuple[list[_Figure], list[Path]]:
     """Draw every figure and write them under figures/.
 
@@ -317,6 +328,10 @@ def _render(
     workers = min(2, os.cpu_count() or 1) if workers is None else workers
     parallel = workers > 1
     map_specs = _map_specs(out)
+    if maps_only:
+        out.close()
+        drawn = _Drawing(map_specs, thumbnails, workers if parallel else 0).get()
+        return _written(out, map_specs, drawn), []
     maps = _Drawing(map_specs, thumbnails, 1 if parallel else 0)
     summary_specs = _summary_specs(out)
     summaries = _Drawing(summary_specs, thumbnails, workers if parallel else 0)
@@ -331,15 +346,20 @@ def _render(
         for m in OVERVIEW_METRICS
     ]
     specs = map_specs + summary_specs + layer_specs
-    drawn = maps.get() + summaries.get() + layers.get()
-    figures, written = [], []
+    figures = _written(out, specs, maps.get() + summaries.get() + layers.get())
+    return figures, [f.path for f in figures] + tables
+
+
+def _written(out: RunOutputs, specs, drawn) -> list[_Figure]:
+    """Write the drawn PNGs under figures/ (atomically) and describe them."""
+    figdir = out.out_dir / "figures"
+    figures = []
     for (section, name, caption, _), (png, thumb, size) in zip(specs, drawn):
         path = figdir / name
         with atomic_path(path) as tmp:
             tmp.write_bytes(png)
-        written.append(path)
         figures.append(_Figure(section, caption, path, thumb, size))
-    return figures, written + tables
+    return figures
 
 
 def write_all_figures(out_dir) -> list[Path]:
@@ -475,22 +495,6 @@ def _table(frame: pd.DataFrame, spec) -> tuple[list[str], list[list[str]]]:
     return [h for _, h, _, _ in cols], rows
 
 
-def _layer_table(out: RunOutputs) -> tuple[pd.DataFrame, int]:
-    """Rows of the layers-of-concern table: per zone the :data:`TABLE_WEAK_LAYERS` most
-    widespread weak layers, then the :data:`TABLE_CRUSTS` most widespread crusts (present on
-    at least :data:`MIN_PRESENCE_FRAC` of the zone); and how many such layers are left out."""
-    loc = out.layers_of_concern
-    loc = loc[(loc["aspect_sector"] == "all") & (loc["presence_frac"] >= MIN_PRESENCE_FRAC)]
-    loc = loc.sort_values(["zone", "presence_frac"], ascending=[True, False])
-    weak = loc[loc["category"] != "crust"].groupby("zone", sort=False).head(TABLE_WEAK_LAYERS)
-    crust = loc[loc["category"] == "crust"].groupby("zone", sort=False).head(TABLE_CRUSTS)
-    kept = pd.concat([weak.assign(_k=0), crust.assign(_k=1)])
-    kept = kept.sort_values(["zone", "_k", "presence_frac"], ascending=[True, True, False]).drop(
-        columns="_k"
-    )
-    return kept, len(loc) - len(kept)
-
-
 def _forecast_text(out: RunOutputs) -> str:
     fc = out.is_forecast
     times = out.times
@@ -545,8 +549,70 @@ def _run_items(run: dict) -> list[tuple[str, str]]:
     return items
 
 
+def _rose_payload(out: RunOutputs, lines: pd.DataFrame) -> tuple[dict, dict, list, dict]:
+    """What the page needs to draw the roses: the zones' grids, the colour scales, the
+    metric roses per zone and the layer roses per (zone, layer_id), as class strings."""
+    from regionmap.plots.overview import sector_layout
+    from regionmap.plots.roses import (
+        encode_classes,
+        grid_values,
+        metric_scales,
+        presence_scale,
+        zone_grid,
+    )
+
+    ba = out.band_aspect_table
+    sectors, _ = sector_layout(out.table["aspect_sector"].unique())
+    grids = zone_grid(ba, sectors)
+    scales = metric_scales(ba)
+    presence = presence_scale()
+    terrain = {
+        z: grid_values(ba[ba["zone"] == z], g, "area_km2", fill=0.0) > 0 for z, g in grids.items()
+    }
+    metric_roses = []
+    for zone, g in grids.items():
+        rows = ba[ba["zone"] == zone]
+        for col, (scale, factor) in scales.items():
+            v = grid_values(rows, g, col) * factor
+            metric_roses.append(
+                {"zone": zone, "scale": col, "v": encode_classes(scale.classes(v), terrain[zone])}
+            )
+    loc = out.layers_of_concern
+    parts = loc[(loc["aspect_sector"] != "all") & (loc["presence_frac"] > 0)]
+    layer_roses = {}
+    for (zone, lid), rows in parts.groupby(["zone", "layer_id"], sort=False):
+        if zone in grids:
+            v = grid_values(rows, grids[zone], "presence_frac", fill=0.0) * 100.0
+            k = np.where(v > 0, presence.classes(v), -1)
+            layer_roses[(zone, lid)] = encode_classes(k, terrain[zone])
+    page = {
+        "zones": {
+            z: {
+                "bands": [
+                    band_label(np.array([lo]), np.array([hi]))[0]
+                    for lo, hi in zip(g["band_lower_m"], g["band_upper_m"])
+                ],
+                "sectors": g["sectors"],
+                "flat": g["sectors"][-1] == "flat",
+            }
+            for z, g in grids.items()
+        },
+        "scales": {
+            "presence": presence.as_dict(),
+            **{k: sc.as_dict() for k, (sc, _) in scales.items()},
+        },
+    }
+    legends = {"presence": presence, **{k: sc for k, (sc, _) in scales.items()}}
+    return page, legends, metric_roses, layer_roses
+
+
+def _rings_note(page: dict, zone: str) -> str:
+    bands = page["zones"].get(zone, {}).get("bands", [])
+    return f"rings {bands[-1]} m (outside) to {bands[0]} m (centre)" if bands else ""
+
+
 def write_report(out_dir) -> Path:
-    """Draw all figures and write the self-contained ``OUT/report.html``; return its path.
+    """Draw the briefing's maps and write the self-contained ``OUT/report.html``; return its path.
 
     Raises
     ------
@@ -557,13 +623,63 @@ def write_report(out_dir) -> Path:
     """
     from jinja2 import Environment, FileSystemLoader, StrictUndefined, select_autoescape
 
+    from regionmap.report.headline import headline_items, layer_lines, zone_changes
+
     out = RunOutputs(out_dir)
     try:
-        figures, _ = _render(out, thumbnails=True)
-        zones = pd.DataFrame(out.zones.drop(columns=out.zones.geometry.name))
-        zone_cols, zone_rows = _table(zones.sort_values("zone"), _ZONE_COLUMNS)
-        loc, more = _layer_table(out)
-        layer_cols, layer_rows = _table(loc, _LAYER_COLUMNS)
+        tz = out.local_timezone
+        map_t = out.map_time
+        weights_label = out.weights[1]
+        terrain = "avalanche terrain" if weights_label.startswith("avalanche") else "all terrain"
+        changes = zone_changes(out)
+        lines = layer_lines(out.layers_of_concern, terrain=terrain)
+        page, legends, metric_roses, layer_roses = _rose_payload(out, lines)
+        window_end = out.new_snow_window_end
+        zones = pd.DataFrame(out.zones.drop(columns=out.zones.geometry.name)).sort_values("zone")
+        figures, _ = _render(out, thumbnails=True, maps_only=True)
+        zone_rows_by_name = zones.set_index("zone")
+        headlines = []
+        for zone in out.zone_names:
+            row = (
+                zone_rows_by_name.loc[zone]
+                if zone in zone_rows_by_name.index
+                else pd.Series(dtype=float)
+            )
+            headlines.append(
+                {
+                    "zone": zone,
+                    **headline_items(
+                        zone,
+                        changes,
+                        row,
+                        lines,
+                        local_timezone=tz,
+                        window_end=window_end,
+                        terrain=terrain,
+                    ),
+                }
+            )
+        layer_zones = []
+        for zone, zl in lines.groupby("zone", sort=True):
+            layer_zones.append(
+                {
+                    "zone": zone,
+                    "rings": _rings_note(page, zone),
+                    "layers": [
+                        {
+                            "text": r.text,
+                            "headline": bool(r.headline),
+                            "v": layer_roses.get((zone, r.layer_id), ""),
+                            "id": r.layer_id,
+                        }
+                        for r in zl.itertuples()
+                    ],
+                }
+            )
+        metric_zones = {}
+        for r in metric_roses:
+            metric_zones.setdefault(r["zone"], []).append(r)
+        zone_cols, zone_rows = _table(zones, _ZONE_COLUMNS)
         rain = []
         if "rain_crust_text" in zones.columns:
             rain = [
@@ -590,7 +706,6 @@ def write_report(out_dir) -> Path:
             if figs:
                 sections.append({"id": sid, "title": title, "note": note, "figures": figs})
         v_text, v_cols, v_rows = _verification(out)
-        map_t = out.map_time
         env = Environment(
             loader=FileSystemLoader(Path(__file__).parent / "templates"),
             autoescape=select_autoescape(["html", "j2"]),
@@ -600,21 +715,31 @@ def write_report(out_dir) -> Path:
         )
         html = env.get_template("report.html.j2").render(
             title="regionmap snowpack briefing",
-            map_time=pd.Timestamp(map_t).strftime("%Y-%m-%d %H:%M UTC"),
+            map_time=local_time_label(map_t, tz, year=True),
             map_status="forecast" if out.forecast_at(map_t) else "analysis",
-            weights_label=out.weights[1],
+            timezone=tz,
+            weights_label=weights_label,
             generated=dt.datetime.now(dt.UTC).strftime("%Y-%m-%d %H:%M UTC"),
             version=__version__,
             caution=CAUTION,
             cautions=CAUTIONS,
+            since=local_time_label(changes.since, tz),
+            since_label=changes.since_label,
+            headlines=headlines,
             forecast_text=_forecast_text(out),
             zone_columns=zone_cols,
             zone_rows=zone_rows,
+            window_end=local_time_label(window_end, tz),
             rain_crust=rain,
-            layer_columns=layer_cols,
-            layer_rows=layer_rows,
-            min_presence_pct=round(100 * MIN_PRESENCE_FRAC),
-            layers_more=more,
+            layer_zones=layer_zones,
+            headline_min_pct=round(100 * HEADLINE_MIN_PRESENCE_FRAC),
+            metric_zones=[
+                {"zone": z, "rings": _rings_note(page, z), "roses": metric_zones[z]}
+                for z in sorted(metric_zones)
+            ],
+            legends={k: list(zip(sc.colours, sc.labels())) for k, sc in legends.items()},
+            legend_titles={k: f"{sc.label} [{sc.units}]" for k, sc in legends.items()},
+            rose_data=json.dumps(page, separators=(",", ":")).replace("</", "<\\/"),
             sections=sections,
             verification_text=v_text,
             verification_columns=v_cols,
