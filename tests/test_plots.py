@@ -98,7 +98,12 @@ def test_overview_puts_highest_band_in_the_centre_and_north_on_top(outputs):
     assert (east.min() + east.max()) / 2 == pytest.approx(np.pi / 2)  # E a quarter turn clockwise
     assert [t.get_text() for t in ax.get_xticklabels()] == ["N", "E", "S", "W"]
     title = fig._suptitle.get_text()
-    assert "Zone A" in title and "analysis" in title and "2026-01-22 12:00" in title
+    # local time (UTC-7) with UTC beside it
+    assert (
+        "Zone A" in title
+        and "analysis" in title
+        and "Thu 22 Jan 2026 05:00 UTC-07 (12:00 UTC)" in title
+    )
     cbar_ax = [a for a in fig.axes if a.get_xlabel().endswith("[cm]")]
     assert cbar_ax, "colour bar labelled with the metric's units"
 
@@ -162,7 +167,8 @@ def test_rain_crust_lines_labelled_once_per_zone_and_limit(outputs, which):
         events = rain_crust_events(outputs)
         assert len(events) == 1  # one designed rain event (test_summaries_synth.layer_fields)
         fig = plot_rain_crust_map(outputs, events[0][0])
-        assert "rain-on-snow event ending" in fig.axes[0].get_title()
+        # the event by its local start (synthetic rain began 2026-01-20T12Z, 05:00 at UTC-7)
+        assert "rain of 20 Jan 2026" in fig.axes[0].get_title()
     ax = fig.axes[0]
     labels = [t.get_text() for t in ax.get_legend().get_texts()]
     assert "zone boundary" in labels

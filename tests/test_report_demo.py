@@ -31,6 +31,7 @@ from regionmap.report.briefing import (
 )
 
 _NS = "{http://www.w3.org/1999/xhtml}"  # html5lib's element namespace (WHATWG HTML)
+_SVG = "{http://www.w3.org/2000/svg}"  # and that of inline SVG
 
 
 @pytest.fixture(scope="module")
@@ -44,6 +45,8 @@ def _pngs(doc):
     """(img element, caption text, embedded PNG bytes) of every figure."""
     assert len(doc.findall(f".//{_NS}img")) == len(doc.findall(f".//{_NS}figure/{_NS}img"))
     for fig in doc.iter(f"{_NS}figure"):
+        if fig.find(f"{_NS}img") is None:
+            continue  # a rose the page draws
         img, caption = fig.find(f"{_NS}img"), fig.find(f"{_NS}figcaption").text
         src = img.get("src")
         assert src.startswith("data:image/png;base64,")
@@ -84,7 +87,7 @@ def test_demo_report_parses_embeds_reduced_images_and_stays_small(demo_report):
     assert sum(c.startswith("Map: rain-crust line") for c in captions) == min(
         len(events), MAX_RAIN_CRUST_MAPS
     )
-    roses = doc.findall(f".//{_NS}section[@id='overviews']//{_NS}svg[@data-v]")
+    roses = doc.findall(f".//{_NS}section[@id='overviews']//{_SVG}svg[@data-v]")
     assert {r.get("data-scale") for r in roses} >= set(OVERVIEW_METRICS)
     for img, caption, png in images:
         assert png[:8] == b"\x89PNG\r\n\x1a\n"  # PNG signature (ISO/IEC 15948 §5.2)
@@ -114,7 +117,7 @@ def test_demo_report_figures_match_the_run(demo_report):
         assert not out.is_forecast.any()
         # the summary table's snow depth equals the zones layer (written by the run, not the report)
         doc = html5lib.parse(text, treebuilder="etree", namespaceHTMLElements=True)
-        zones_table = doc.find(f".//{_NS}section[@id='zones']/{_NS}table")
+        zones_table = doc.find(f".//{_NS}section[@id='zones']//{_NS}table")
         header = [th.text for th in zones_table.iter(f"{_NS}th")]
         row = [td.text for td in zones_table.find(f"{_NS}tbody").iter(f"{_NS}td")]
         depth = float(row[header.index("snow depth [cm]")])
@@ -131,6 +134,6 @@ def test_demo_report_renders_in_headless_chromium_without_errors(demo_report, tm
     console, page_errors, requests, loaded, n_images = render_in_chromium(demo_report, shot)
     assert not console, console
     assert not page_errors, page_errors
-    assert loaded and n_images >= 8
+    assert loaded and n_images >= 5  # the maps
     assert shot.stat().st_size > 10_000
     assert all(u.startswith(("file:", "data:")) for u in requests), requests

@@ -6,6 +6,7 @@ week of the demo season around its rain-on-snow event.
 
 from __future__ import annotations
 
+import json
 import os
 import signal
 import subprocess
@@ -223,8 +224,9 @@ def test_rasters_hold_their_cells_values(reference):
         nodata = src.nodata
     with rasterio.open(out / "maps" / "snow_depth_cm.tif") as src:
         depth = src.read(1, masked=True)
+    map_time = np.datetime64(json.loads((out / "run.json").read_text())["period"]["map_time"])
     with xr.open_dataset(out / "cells.nc") as ds:
-        last = ds["snow_depth_cm"].values[:, -1]
+        last = ds["snow_depth_cm"].sel(time=map_time).values  # the rasters are at the map time
         ids = ds["cell_id"].values
     rng = np.random.default_rng(1)
     rows, cols = np.nonzero(index != nodata)
