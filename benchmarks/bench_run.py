@@ -6,11 +6,15 @@ call of the chunk function.
     python benchmarks/bench_run.py region --cells 10000 [--days 181]   # (<= 60 s, <= 3 GB)
     python benchmarks/bench_run.py scaling         # 1 000 / 10 000 / 30 000 cells
     python benchmarks/bench_run.py overhead        # dask vs one direct simulate_chunk call
+    python benchmarks/bench_run.py morning         # 10 598 cells: the morning run (report <= simulate + products)
 
 The synthetic regions reuse the invented demo range and its season; the zones are a grid of
 boxes over the range and slope classes multiply the cells (see SIZES for the counts; the
 30 000-cell case runs on two copies of the demo DEM side by side, the second mirrored).
-Prints the figures, exits 1 when a target is missed (unless --no-assert).
+The morning run continues the 10 598-cell region from yesterday's state (a season run to 24 h
+before the analysis time, not measured) over 24 h of analysis and 72 h of forecast, and
+prints its phases from ``run.json``. Prints the figures, exits 1 when a target is missed
+(unless --no-assert).
 """
 
 from __future__ import annotations
@@ -31,7 +35,12 @@ TARGETS = {
     "region_10k_s": 60.0,
     "region_10k_peak_gb": 3.0,
     "dask_overhead_frac": 0.10,
+    "morning_report_over_simulate_products": 1.0,
 }
+
+#: analysis time of the benchmark's morning run [UTC]; yesterday's run ends 24 h earlier and
+#: the forecast runs 72 h beyond it.
+MORNING_ANALYSIS = np.datetime64("2026-02-14T06:00")
 
 
 def _write_dem(path: Path, copies: int) -> None:
@@ -146,6 +155,53 @@ def bench_region(n_cells: int, days: int, folder: Path) -> dict:
     return {"cells": record["cell_count"], "seconds": seconds, "peak_gb": peak}
 
 
+def bench_morning(folder: Path) -> dict:
+    """Yesterday's season run of the 10 598-cell region (set-up), then the measured morning
+    run: ``--continue-from`` yesterday's ``state.nc``, 24 h analysis + 72 h forecast."""
+    import json
+
+    end = MORNING_ANALYSIS + np.timedelta64(72, "h")
+    days = int(np.ceil((end - np.datetime64("2025-11-01T00:00")) / np.timedelta64(24, "h")))
+    cfg_path = _scenario(folder / "morning10000", *SIZES[10000][:2], days, SIZES[10000][2])
+    base = cfg_path.read_text().split("[forcing]")[0]
+    yesterday = MORNING_ANALYSIS - np.timedelta64(24, "h")
+    runs = {
+        "yesterday": f'[forcing]\npath = "forcing.nc"\nend = "{yesterday}"\n',
+        "morning": f'[forcing]\npath = "forcing.nc"\nend = "{end}"\nanalysis_time = "{MORNING_ANALYSIS}"\n',
+    }
+    for name, forcing in runs.items():
+        (cfg_path.parent / f"{name}.toml").write_text(
+            base + forcing + f'[output]\ndir = "{name}"\n'
+        )
+    run = [sys.executable, "-m", "regionmap", "run", "--quiet", "--force"]
+    setup = subprocess.run(
+        run[:4] + [str(cfg_path.parent / "yesterday.toml")] + run[4:],
+        capture_output=True,
+        text=True,
+    )
+    if setup.returncode:
+        print(setup.stderr)
+        raise SystemExit(1)
+    state = cfg_path.parent / "yesterday" / "state.nc"
+    cmd = run[:4] + [str(cfg_path.parent / "morning.toml"), "--continue-from", str(state)] + run[4:]
+    t0 = time.perf_counter()
+    proc = subprocess.run(cmd, capture_output=True, text=True)
+    seconds = time.perf_counter() - t0
+    if proc.returncode:
+        print(proc.stderr)
+        raise SystemExit(1)
+    timings = json.loads((cfg_path.parent / "morning" / "run.json").read_text())["timings_s"]
+    report = float(timings.get("report", np.nan))
+    sim_products = float(timings.get("simulate", np.nan)) + float(timings.get("products", np.nan))
+    size_mb = (cfg_path.parent / "morning" / "report.html").stat().st_size / 2**20
+    print(
+        f"morning run of the 10 598-cell region (24 h analysis + 72 h forecast, continued): "
+        f"{seconds:.1f} s end to end; report {report:.1f} s against simulate + products "
+        f"{sim_products:.1f} s; report.html {size_mb:.1f} MB; phases {timings}"
+    )
+    return {"seconds": seconds, "report_ratio": report / sim_products}
+
+
 def bench_overhead(args, folder: Path) -> dict:
     """The same chunks through dask (threads) and through direct calls in a loop."""
     from regionmap.config import load_config
@@ -200,7 +256,7 @@ def bench_overhead(args, folder: Path) -> dict:
 
 def main() -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    ap.add_argument("what", choices=["demo", "region", "scaling", "overhead"])
+    ap.add_argument("what", choices=["demo", "region", "scaling", "overhead", "morning"])
     ap.add_argument("--cells", type=int, default=10000, choices=sorted(SIZES))
     ap.add_argument("--days", type=int, default=181)
     ap.add_argument("--keep", type=Path, help="folder for the synthetic scenarios (kept)")
@@ -222,6 +278,9 @@ def main() -> int:
     elif args.what == "scaling":
         for n in sorted(SIZES):
             bench_region(n, args.days, folder)
+    elif args.what == "morning":
+        r = bench_morning(folder)
+        ok = r["report_ratio"] <= TARGETS["morning_report_over_simulate_products"]
     else:
         r = bench_overhead(args, folder)
         ok = r["dask_overhead_frac"] <= TARGETS["dask_overhead_frac"]

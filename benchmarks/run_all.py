@@ -17,6 +17,7 @@ RUNS = [
     ["bench_run.py", "demo"],
     ["bench_run.py", "region", "--cells", "10000"],
     ["bench_run.py", "overhead"],
+    ["bench_run.py", "morning"],
     ["bench_figures.py"],
 ]
 
