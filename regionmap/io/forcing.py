@@ -41,6 +41,7 @@ from scipy import sparse
 from regionmap.downscale import thermo as _thermo
 from regionmap.errors import ConfigError, ForcingReadError, GridMismatchError
 from regionmap.io import forcing_mapping as M
+from regionmap.io import forcing_products as P
 from regionmap.io import units as U
 from regionmap.io.forcing_grid import ForcingGrid, grid_from_dataset
 
@@ -76,6 +77,7 @@ _TARGET = {
     "surface_altitude": "m",
     "surface_geopotential": "m2 s-2",
 }
+_TERRAIN = ("surface_altitude", "surface_geopotential")
 _AMOUNTS = {
     "precipitation_amount",
     "lwe_thickness_of_precipitation_amount",
@@ -320,9 +322,14 @@ def open_forcing(
             static_path=getattr(s, "static", None),
             base_dir=base_dir,
         )
-    mapping = M.normalise_mapping(variables, _TARGET)
-    paths = _expand(path_or_glob, base_dir)
-    datasets = [_open_one(p) for p in paths]
+    M.normalise_mapping(variables, _TARGET)  # config errors before any file is opened
+    files = _expand(path_or_glob, base_dir)
+    opened = P.open_products(files, _open_one)
+    datasets, paths = opened.datasets, opened.paths  # paths: a label per dataset
+    if static_path is not None:
+        static = P.open_products(_expand(static_path, base_dir)[:1], _open_one)
+        opened.implied.update({k: v for k, v in static.implied.items() if k in _TERRAIN})
+    mapping = M.normalise_mapping(variables, _TARGET, opened.implied)
     tnames = [_time_coord(ds, p) for ds, p in zip(datasets, paths)]
     tdims = [ds[tn].dims[0] for ds, tn in zip(datasets, tnames)]
     times = [_file_times(ds, tn, p) for ds, tn, p in zip(datasets, tnames, paths)]
@@ -346,7 +353,9 @@ def open_forcing(
             _make_source(sn, das, paths, times, tdims, (ydim, xdim), shape, mapping)
             for sn, das in members
         ]
-    alt = _surface_altitude(static_path, base_dir, datasets, paths, shape, mapping)
+    if static_path is not None:
+        datasets, paths = static.datasets, static.paths
+    alt = _surface_altitude(datasets, paths, shape, mapping)
 
     wide = _wide_axis(times)
     for members in sources.values():
@@ -366,7 +375,7 @@ def open_forcing(
         heights_m=heights,
         heights_source=height_src,
         counts=counts,
-        paths=paths,
+        paths=files,
         upper_air_pressure_pa=None if up is None else up[0].level_pa,
         _sources=sources,
         **arrays,
@@ -662,10 +671,7 @@ def _level_pressure(var, path):
     return lev.values.astype(np.float64) * scale + offset
 
 
-def _surface_altitude(static_path, base_dir, datasets, paths, shape, mapping):
-    if static_path is not None:
-        sp = _expand(static_path, base_dir)[0]
-        datasets, paths = [_open_one(sp)], [sp]
+def _surface_altitude(datasets, paths, shape, mapping):
     ds, p = datasets[0], paths[0]
     factors = {"surface_altitude": 1.0, "surface_geopotential": 1 / U.G0_M_S2}
     for (sn,) in M.ranked_alternatives([(sn,) for sn in factors], mapping):

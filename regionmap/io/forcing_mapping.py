@@ -119,18 +119,23 @@ def ranked_alternatives(alternatives, mapping):
     return sorted(alternatives, key=rank)
 
 
-def _variable(ds, name, key, path):
+def _variable(ds, name, key, path, entry):
     if name not in ds.variables:
+        named = (
+            f"that {entry[PRODUCT_KEY]} output gives {key}"
+            if PRODUCT_KEY in entry
+            else f"named in [forcing] variables.{key}"
+        )
         raise ForcingReadError(
-            f"forcing file {path!r}: variable {name!r} named in [forcing] variables.{key} is "
-            f"missing; found {sorted(ds.data_vars)}"
+            f"forcing file {path!r}: variable {name!r} {named} is missing; found "
+            f"{sorted(ds.data_vars)}; hint: map {key} in [forcing] variables"
         )
     return ds[name]
 
 
 def _summed(ds, sn, entry, path):
     names = names_of(entry)
-    parts = [_variable(ds, n, sn, path) for n in names]
+    parts = [_variable(ds, n, sn, path, entry) for n in names]
     units = {str(p.attrs.get("units")) for p in parts}
     if len(units) > 1 and not entry.get("units"):
         raise ForcingReadError(
@@ -158,7 +163,7 @@ def mapped_variable(ds: xr.Dataset, sn: str, mapping: dict, path: str) -> xr.Dat
     var = _summed(ds, sn, entry, path)
     if entry.get("rotation"):
         other = _summed(ds, _WIND_PAIR[sn], mapping[_WIND_PAIR[sn]], path)
-        cos, sin = (_variable(ds, n, sn, path) for n in entry["rotation"])
+        cos, sin = (_variable(ds, n, sn, path, entry) for n in entry["rotation"])
         if sn == "eastward_wind":
             rotated = var * cos - other * sin
         else:

@@ -1,0 +1,140 @@
+"""GRIB edition 1 and 2 forcing through the cfgrib engine (ecCodes).
+
+cfgrib turns a file's messages into datasets (one per level type and step type) with the
+reference time ``time``, the lead time ``step`` and ``valid_time``; this module merges them,
+says which fields the forcing needs by their ecCodes short names, and makes every
+accumulation and average run from the reference time: ecCodes' ``startStep`` tells whether a
+field is accumulated since the run start (``0-6``) or per output interval (``5-6``); interval
+values are summed up so the cycle can be taken apart like any accumulation
+(:mod:`regionmap.io.forcing_cycles`). The data are read into memory when the file is opened
+(ecCodes is not used from several threads).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import xarray as xr
+
+from regionmap.errors import ForcingReadError
+from regionmap.io.forcing_mapping import PRODUCT_KEY
+
+__all__ = ["is_grib", "open_grib"]
+
+# cfgrib variable name -> standard name (ecCodes parameter database, WMO GRIB2 code table 4.2)
+_FIELDS = {
+    "t2m": "air_temperature",
+    "d2m": "dew_point_temperature",
+    "r2": "relative_humidity",
+    "u10": "eastward_wind",
+    "v10": "northward_wind",
+    "sp": "surface_air_pressure",
+    "tp": "precipitation_amount",
+    "ssrd": "integral_wrt_time_of_surface_downwelling_shortwave_flux_in_air",
+    "strd": "integral_wrt_time_of_surface_downwelling_longwave_flux_in_air",
+    "sdswrf": "surface_downwelling_shortwave_flux_in_air",
+    "sdlwrf": "surface_downwelling_longwave_flux_in_air",
+    "orog": "surface_altitude",
+    "z": "surface_geopotential",
+}
+_KIND = {"accum": "sum", "avg": "mean", "instant": "instantaneous"}
+_DATASET_KEYS = ("time", "step", "valid_time", "latitude", "longitude", "x", "y")
+
+
+def is_grib(path: str) -> bool:
+    """A GRIB file starts with the four bytes ``GRIB`` (WMO Manual on Codes, FM 92)."""
+    try:
+        with open(path, "rb") as fh:
+            return fh.read(4) == b"GRIB"
+    except OSError:
+        return False
+
+
+def _steps_by_name(path):
+    """(shortName/cfVarName, stepType) -> sorted list of (startStep, endStep) [h] per message."""
+    import eccodes
+
+    found: dict[str, set] = {}
+    with open(path, "rb") as fh:
+        while (h := eccodes.codes_grib_new_from_file(fh)) is not None:
+            try:
+                name = eccodes.codes_get(h, "cfVarName")
+                if eccodes.codes_get(h, "stepType") in ("accum", "avg"):
+                    eccodes.codes_set(h, "stepUnits", "h")
+                    span = (eccodes.codes_get(h, "startStep"), eccodes.codes_get(h, "endStep"))
+                    found.setdefault(name, set()).add(span)
+            finally:
+                eccodes.codes_release(h)
+    return {k: sorted(v, key=lambda s: s[1]) for k, v in found.items()}
+
+
+def _since_start(var, spans, kind, path):
+    """Values per output interval turned into values since the reference time."""
+    if all(start == 0 for start, _ in spans):
+        return var
+    ends = np.array([e for _, e in spans], dtype=np.float64)
+    starts = np.array([s for s, _ in spans], dtype=np.float64)
+    if starts[0] != 0 or np.any(starts[1:] != ends[:-1]):
+        raise ForcingReadError(
+            f"forcing file {path!r}, variable {var.name!r}: {kind} intervals "
+            f"{[f'{s}-{e}' for s, e in spans][:6]} h neither start at the run start nor follow "
+            f"one another; expected steps 0-N or contiguous N-M"
+        )
+    steps_h = var["step"].values / np.timedelta64(1, "h")
+    length = np.interp(steps_h, ends, ends - starts, left=np.nan, right=np.nan)
+    shape = (-1,) + (1,) * (var.ndim - 1 - var.dims.index("step"))
+    amount = var * (length.reshape(shape) if kind == "avg" else 1.0)
+    total = amount.fillna(0.0).cumsum("step").where(amount.notnull())
+    out = total / (steps_h.reshape(shape) if kind == "avg" else 1.0)
+    return out.assign_attrs(var.attrs)
+
+
+def open_grib(path: str):
+    """The fields of one GRIB file as one in-memory dataset, and their mapping entries.
+
+    Returns
+    -------
+    (dataset, mapping) : dims ([time,] [step,] y, x) as cfgrib names them.
+    """
+    import cfgrib
+
+    try:
+        parts = cfgrib.open_datasets(path, backend_kwargs={"indexpath": ""}, cache=True)
+        spans = _steps_by_name(path)
+    except Exception as exc:
+        raise ForcingReadError(
+            f"forcing file {path!r} cannot be read as GRIB ({type(exc).__name__}: {exc})"
+        ) from None
+    merged = []
+    for ds in parts:
+        # single-level fields only (the same short name may also come on pressure levels)
+        keep = [n for n in ds.data_vars if n in _FIELDS and set(ds[n].dims) <= set(_DATASET_KEYS)]
+        if not keep:
+            continue
+        ds = ds[keep].load()
+        # level coordinates (heightAboveGround = 2 or 10, surface) differ between parts
+        scalar = [c for c in ds.coords if c not in ds.dims and c not in _DATASET_KEYS]
+        if "step" not in ds.dims:
+            scalar += [c for c in ("step", "valid_time") if c in ds.coords]
+        ds = ds.drop_vars(scalar)
+        for name in keep:
+            step_type = ds[name].attrs.get("GRIB_stepType", "instant")
+            if name in spans and "step" in ds[name].dims:
+                ds[name] = _since_start(ds[name], spans[name], step_type, path)
+        merged.append(ds)
+    if not merged:
+        raise ForcingReadError(
+            f"forcing file {path!r}: no GRIB field the forcing uses; expected some of "
+            f"{sorted(_FIELDS)} (ecCodes short names)"
+        )
+    ds = xr.merge(merged, join="outer", compat="override", combine_attrs="drop_conflicts")
+    mapping = {}
+    for name in ds.data_vars:
+        entry = {"name": name, PRODUCT_KEY: "GRIB"}
+        step_type = ds[name].attrs.get("GRIB_stepType", "instant")
+        if _FIELDS[name] not in ("surface_altitude", "surface_geopotential"):
+            entry["kind"] = _KIND.get(step_type, "instantaneous")
+            entry["accumulated"] = step_type in ("accum", "avg")
+        if _FIELDS[name].endswith("_amount") or _FIELDS[name].startswith("integral_"):
+            entry["kind"] = "sum"
+        mapping[_FIELDS[name]] = entry
+    return ds, mapping
