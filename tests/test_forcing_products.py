@@ -334,3 +334,399 @@ def test_wrf_errors_name_the_file(tmp_path):
     with pytest.raises(ForcingReadError, match=r"wrfout_d01_bad.*MAP_PROJ = 4; expected 1"):
         open_forcing(tmp_path / "wrfout_d01_bad")
     del attrs
+
+
+# ----------------------------------------------------------------------- GRIB and cycles
+
+LAT = 47.0 - 0.1 * np.arange(NY)  # north to south, as GRIB scans by default
+LON = 10.0 + 0.1 * np.arange(NX)
+CYCLES = {0: list(range(13)) + [15, 18], 12: list(range(7)) + [9, 12]}
+"""Reference hour (from T0) -> output steps [h]: hourly, then 3-hourly (a coarser tail)."""
+
+
+def cycle_weather(w, ref):
+    """The weather a cycle forecasts: the truth, except that the 00 cycle is off beyond 12 h
+    (where the 12 cycle must win; a negative control)."""
+    out = {k: v.copy() for k, v in w.items()}
+    if ref == 0:
+        for key, delta in (("t", 5.0), ("td", 5.0), ("u", 4.0), ("sw", 50.0), ("lw", 30.0)):
+            out[key][13:] += delta
+        out["pr"][13:] *= 3.0
+    return out
+
+
+def since_start(x, ref, steps):
+    """Sum of hourly values over (ref, ref + step] for each step."""
+    c = np.concatenate([np.zeros((1,) + x.shape[1:]), np.cumsum(x[ref + 1 :], axis=0)])
+    return c[np.asarray(steps)]
+
+
+def grib_messages(path, w):
+    """GRIB2 from ecCodes' regular_ll_sfc_grib2 sample: two cycles, IEEE-packed values."""
+    import eccodes
+
+    with open(path, "wb") as out:
+        for ref, steps in CYCLES.items():
+            cw = cycle_weather(w, ref)
+            fields = [
+                ("2t", "heightAboveGround", 2, "instant", cw["t"]),
+                ("2d", "heightAboveGround", 2, "instant", cw["td"]),
+                ("10u", "heightAboveGround", 10, "instant", cw["u"]),
+                ("10v", "heightAboveGround", 10, "instant", cw["v"]),
+                ("sp", "surface", 0, "instant", cw["p"]),
+            ]
+            for step in steps:
+                vals = [(n, tl, lev, st, a[ref + step]) for n, tl, lev, st, a in fields]
+                # accumulations since the start of the cycle: m of water, J m-2
+                acc = {
+                    "tp": since_start(cw["pr"], ref, [step])[0] / 1000.0,
+                    "ssrd": since_start(cw["sw"] * 3600.0, ref, [step])[0],
+                    "strd": since_start(cw["lw"] * 3600.0, ref, [step])[0],
+                }
+                vals += [(n, "surface", 0, "accum", a) for n, a in acc.items()]
+                if ref == 0 and step == 0:
+                    vals.append(("orog", "surface", 0, "instant", w["orog"]))
+                for name, level_type, level, step_type, values in vals:
+                    h = eccodes.codes_grib_new_from_samples("regular_ll_sfc_grib2")
+                    keys = {
+                        "centre": "ecmf",
+                        "dataDate": 20260110 + ref // 24,
+                        "dataTime": (ref % 24) * 100,
+                        "Ni": NX,
+                        "Nj": NY,
+                        "latitudeOfFirstGridPointInDegrees": LAT[0],
+                        "latitudeOfLastGridPointInDegrees": LAT[-1],
+                        "longitudeOfFirstGridPointInDegrees": LON[0],
+                        "longitudeOfLastGridPointInDegrees": LON[-1],
+                        "iDirectionIncrementInDegrees": 0.1,
+                        "jDirectionIncrementInDegrees": 0.1,
+                        "typeOfLevel": level_type,
+                        "level": level,
+                        "shortName": name,
+                    }
+                    for key, value in keys.items():
+                        eccodes.codes_set(h, key, value)
+                    if step_type == "accum":
+                        eccodes.codes_set(h, "stepType", "accum")
+                        eccodes.codes_set(h, "startStep", 0)
+                        eccodes.codes_set(h, "endStep", step)
+                    else:
+                        eccodes.codes_set(h, "step", step)
+                    eccodes.codes_set(h, "packingType", "grid_ieee")
+                    eccodes.codes_set_values(h, np.asarray(values, dtype=np.float64).ravel())
+                    eccodes.codes_write(h, out)
+                    eccodes.codes_release(h)
+    return path
+
+
+def latlon_grid(lat=LAT, lon=LON):
+    coords = {
+        "lat": ("lat", lat, {"standard_name": "latitude", "units": "degrees_north"}),
+        "lon": ("lon", lon, {"standard_name": "longitude", "units": "degrees_east"}),
+    }
+    return coords, ("lat", "lon"), None
+
+
+def cycles_twin(w, path):
+    """What the cycles say on valid time: hours 1-12 from the 00 cycle, then the 12 cycle
+    (hourly to 18 h, 3-hourly to 24 h), amounts per interval, radiation interval means."""
+    labels_h = [s for s in CYCLES[0] if 0 < s <= 12] + [12 + s for s in CYCLES[12] if s > 0]
+    labels_h = np.array(labels_h)
+    prev = np.r_[0, labels_h[:-1]]
+    amount = {
+        k: np.stack([w[k][a + 1 : b + 1].sum(0) for a, b in zip(prev, labels_h)])
+        for k in ("pr", "sw", "lw")
+    }
+    sub = {k: v[labels_h] if v.ndim == 3 else v for k, v in w.items()}
+    sub["sw"] = amount["sw"] / (labels_h - prev)[:, None, None]
+    sub["lw"] = amount["lw"] / (labels_h - prev)[:, None, None]
+    labels = T0 + labels_h * H
+    bounds = np.stack([T0 + prev * H, labels], axis=1)
+    return twin_cf(
+        sub, labels, path, grid=latlon_grid(), sw_point=False, amounts=amount["pr"], bounds=bounds
+    )
+
+
+def test_eccodes_ships_its_library():
+    import eccodes
+
+    # the binary wheel carries the ecCodes C library (major version 2)
+    assert eccodes.codes_get_api_version().startswith("2.")
+
+
+@pytest.fixture(scope="module")
+def grib_case(tmp_path_factory):
+    """The weather, a GRIB2 file of both cycles and the forcing read from it."""
+    folder = tmp_path_factory.mktemp("grib")
+    w = weather(25)
+    path = grib_messages(folder / "fc.grib2", w)
+    return w, path, open_forcing(path)
+
+
+def test_grib2_two_cycles_latest_wins_and_tail_brought_to_hourly(tmp_path, grib_case):
+    w, _, gf = grib_case
+    twin = open_forcing(cycles_twin(w, tmp_path / "twin.nc"))
+    assert gf.time[0] == T0 + H and gf.time[-1] == T0 + 24 * H
+    assert_same_weather(gf, twin, rtol=1e-5, atol=1e-3)
+    # negative control: nothing of the 00 cycle's forecast beyond 12 h (5 K warmer) is used
+    t = read_all(gf)["air_temperature"]
+    assert np.abs(t[12:18] - w["t"][13:19].reshape(6, -1)).max() < 1e-3
+
+
+def test_grib_cycles_in_separate_files_of_a_folder(tmp_path, grib_case):
+    import eccodes
+
+    _, whole, one = grib_case
+    # the same messages split by cycle into two files, as a centre's folder has them
+    with open(whole, "rb") as fh, open(tmp_path / "c00.grib2", "wb") as a:
+        with open(tmp_path / "c12.grib2", "wb") as b:
+            while (h := eccodes.codes_grib_new_from_file(fh)) is not None:
+                eccodes.codes_write(h, a if eccodes.codes_get(h, "dataTime") == 0 else b)
+                eccodes.codes_release(h)
+    folder = open_forcing(str(tmp_path / "c*.grib2"))
+    for name, v in read_all(one).items():
+        np.testing.assert_array_equal(read_all(folder)[name], v, err_msg=name)
+
+
+def test_cf_reference_time_by_lead_time_file(tmp_path):
+    w = weather(25)
+    steps = np.arange(13)
+    dims = ("forecast_reference_time", "forecast_period", "lat", "lon")
+    data = {}
+    for key, name, sn, units, extra in (
+        ("t", "tas", "air_temperature", "K", {}),
+        ("td", "tdps", "dew_point_temperature", "K", {}),
+        ("p", "ps", "surface_air_pressure", "Pa", {}),
+        ("u", "uas", "eastward_wind", "m s-1", {}),
+        ("v", "vas", "northward_wind", "m s-1", {}),
+    ):
+        arr = np.stack([cycle_weather(w, r)[key][r + steps] for r in (0, 12)])
+        data[name] = (dims, arr, {"standard_name": sn, "units": units, **extra})
+    for key, name, sn, units, scale in (
+        ("pr", "pr", "precipitation_amount", "kg m-2", 1.0),
+        (
+            "sw",
+            "rsds",
+            "integral_wrt_time_of_surface_downwelling_shortwave_flux_in_air",
+            "J m-2",
+            3600.0,
+        ),
+        (
+            "lw",
+            "rlds",
+            "integral_wrt_time_of_surface_downwelling_longwave_flux_in_air",
+            "J m-2",
+            3600.0,
+        ),
+    ):
+        arr = np.stack([since_start(cycle_weather(w, r)[key] * scale, r, steps) for r in (0, 12)])
+        data[name] = (dims, arr, {"standard_name": sn, "units": units, "cell_methods": "time: sum"})
+    data["orog"] = (("lat", "lon"), w["orog"], {"standard_name": "surface_altitude", "units": "m"})
+    coords, _, _ = latlon_grid()
+    refs = np.array([T0, T0 + 12 * H])
+    ds = xr.Dataset(
+        data,
+        coords={
+            "forecast_reference_time": (
+                "forecast_reference_time",
+                refs,
+                {"standard_name": "forecast_reference_time"},
+            ),
+            "forecast_period": (
+                "forecast_period",
+                steps.astype(float),
+                {"standard_name": "forecast_period", "units": "hours"},
+            ),
+            **coords,
+        },
+    )
+    save(ds, tmp_path / "cycles.nc")
+    gf = open_forcing(tmp_path / "cycles.nc")
+    labels_h = np.arange(1, 25)
+    sub = {k: v[labels_h] if v.ndim == 3 else v for k, v in w.items()}
+    twin = open_forcing(
+        twin_cf(
+            sub,
+            T0 + labels_h * H,
+            tmp_path / "twin.nc",
+            grid=latlon_grid(),
+            sw_point=False,
+            bounds=np.stack([T0 + (labels_h - 1) * H, T0 + labels_h * H], axis=1),
+        )
+    )
+    assert_same_weather(gf, twin, rtol=1e-6, atol=1e-4)
+
+
+# ----------------------------------------------------------------------------------- ERA5
+
+ERA5_LAT = 64.0 - 0.25 * np.arange(NY)  # descending, as the data store delivers it
+ERA5_LON = 340.0 + 0.25 * np.arange(NX)  # 0-360: 20 W .. 18.75 W
+
+
+def era5_fields(w):
+    dims = ("t", "latitude", "longitude")
+    return {
+        "t2m": (w["t"], "K", "2 metre temperature"),
+        "d2m": (w["td"], "K", "2 metre dewpoint temperature"),
+        "u10": (w["u"], "m s**-1", "10 metre U wind component"),
+        "v10": (w["v"], "m s**-1", "10 metre V wind component"),
+        "sp": (w["p"], "Pa", "Surface pressure"),
+        "tp": (w["pr"] / 1000.0, "m", "Total precipitation"),
+        "ssrd": (w["sw"] * 3600.0, "J m**-2", "Surface short-wave (solar) radiation downwards"),
+        "strd": (w["lw"] * 3600.0, "J m**-2", "Surface long-wave (thermal) radiation downwards"),
+    }, dims
+
+
+def era5_old(w, path, *, expver_split=None, with_z=True):
+    """The data store's former layout: time, latitude, longitude; int16 packed fields."""
+    fields, _ = era5_fields(w)
+    n = w["t"].shape[0]
+    times = T0 + np.arange(n) * H
+    data, enc = {}, {}
+    for name, (arr, units, long_name) in fields.items():
+        data[name] = (
+            ("time", "latitude", "longitude"),
+            arr,
+            {"units": units, "long_name": long_name},
+        )
+        lo, hi = float(arr.min()), float(arr.max())
+        scale = (hi - lo) / 60000.0 or 1.0
+        enc[name] = {
+            "dtype": "int16",
+            "scale_factor": scale,
+            "add_offset": (hi + lo) / 2,
+            "_FillValue": -32767,
+        }
+    if with_z:
+        data["z"] = (
+            ("time", "latitude", "longitude"),
+            np.broadcast_to(w["orog"] * 9.80665, (n, NY, NX)),
+            {"units": "m**2 s**-2", "long_name": "Geopotential", "standard_name": "geopotential"},
+        )
+    coords = {
+        "longitude": (
+            "longitude",
+            ERA5_LON.astype(np.float32),
+            {"units": "degrees_east", "long_name": "longitude"},
+        ),
+        "latitude": (
+            "latitude",
+            ERA5_LAT.astype(np.float32),
+            {"units": "degrees_north", "long_name": "latitude"},
+        ),
+        "time": ("time", times, {"long_name": "time"}),
+    }
+    ds = xr.Dataset(
+        data, coords=coords, attrs={"Conventions": "CF-1.6", "history": "data store download"}
+    )
+    if expver_split is not None:
+        # final ERA5 (1) then preliminary ERA5T (5), each NaN where the other holds data
+        first = ds.where(ds["time"] < times[expver_split])
+        second = ds.where(ds["time"] >= times[expver_split])
+        ds = xr.concat([first, second], dim=xr.DataArray([1, 5], dims="expver", name="expver"))
+        ds = ds.transpose("time", "expver", "latitude", "longitude")
+        enc = {k: {**v, "dtype": "float32"} for k, v in enc.items()}
+        for v in enc.values():
+            v.pop("scale_factor"), v.pop("add_offset")
+    enc["time"] = {"units": "hours since 1900-01-01 00:00:00.0", "dtype": "int32"}
+    ds.to_netcdf(path, encoding=enc)
+    return path
+
+
+def era5_new(w, path, *, with_z=True):
+    """The data store's current layout: valid_time, with expver and number coordinates."""
+    fields, _ = era5_fields(w)
+    n = w["t"].shape[0]
+    times = T0 + np.arange(n) * H
+    data = {}
+    for name, (arr, units, long_name) in fields.items():
+        attrs = {
+            "units": units,
+            "long_name": long_name,
+            "standard_name": "unknown",
+            "GRIB_shortName": name,
+            "GRIB_stepType": "accum" if name in ("tp", "ssrd", "strd") else "instant",
+        }
+        data[name] = (("valid_time", "latitude", "longitude"), arr.astype(np.float32), attrs)
+    if with_z:
+        data["z"] = (
+            ("valid_time", "latitude", "longitude"),
+            np.broadcast_to(w["orog"] * 9.80665, (n, NY, NX)).astype(np.float32),
+            {"units": "m**2 s**-2", "long_name": "Geopotential", "standard_name": "geopotential"},
+        )
+    coords = {
+        "number": (
+            (),
+            np.int64(0),
+            {"long_name": "ensemble member numerical id", "standard_name": "realization"},
+        ),
+        "valid_time": ("valid_time", times, {"long_name": "time", "standard_name": "time"}),
+        "latitude": ("latitude", ERA5_LAT, {"units": "degrees_north", "standard_name": "latitude"}),
+        "longitude": (
+            "longitude",
+            ERA5_LON,
+            {"units": "degrees_east", "standard_name": "longitude"},
+        ),
+        "expver": (
+            "valid_time",
+            np.array(["0001"] * n, dtype=object),
+            {"long_name": "model experiment version"},
+        ),
+    }
+    ds = xr.Dataset(data, coords=coords, attrs={"GRIB_centre": "ecmf", "Conventions": "CF-1.7"})
+    enc = {"valid_time": {"units": "seconds since 1970-01-01", "dtype": "int64"}}
+    ds.to_netcdf(path, encoding=enc)
+    return path
+
+
+def era5_twin(w, path):
+    # ERA5 accumulations are sums over the hour ending at the valid time
+    labels = T0 + np.arange(w["t"].shape[0]) * H
+    bounds = np.stack([labels - H, labels], axis=1)
+    grid = latlon_grid(ERA5_LAT, np.where(ERA5_LON > 180, ERA5_LON - 360, ERA5_LON))
+    return twin_cf(w, labels, path, grid=grid, sw_point=False, bounds=bounds)
+
+
+@pytest.mark.parametrize("layout", ["old", "old_expver", "new", "new_static_z"])
+def test_era5_layouts_without_mapping(tmp_path, layout):
+    w = weather(30)
+    twin = open_forcing(era5_twin(w, tmp_path / "twin.nc"))
+    static = None
+    if layout == "old":
+        path = era5_old(w, tmp_path / "era5.nc")
+    elif layout == "old_expver":
+        path = era5_old(w, tmp_path / "era5.nc", expver_split=20)
+    elif layout == "new":
+        path = era5_new(w, tmp_path / "era5.nc")
+    else:
+        path = era5_new(w, tmp_path / "era5.nc", with_z=False)
+        static = tmp_path / "geo.nc"
+        zz = xr.Dataset(
+            {
+                "z": (
+                    ("valid_time", "latitude", "longitude"),
+                    (w["orog"] * 9.80665)[None].astype(np.float32),
+                    {"units": "m**2 s**-2", "long_name": "Geopotential"},
+                )
+            },
+            coords={"valid_time": [T0], "latitude": ERA5_LAT, "longitude": ERA5_LON},
+        )
+        zz.to_netcdf(static)
+    gf = open_forcing(path, static_path=static)
+    # int16 packing keeps 1/60000 of each field's range
+    packed = layout == "old"
+    assert_same_weather(gf, twin, rtol=1e-5, atol=5e-3 if packed else 1e-3)
+    # the grid: 0-360 longitudes and descending latitudes locate a point (18.9 W, 63.5 N)
+    fi, fj = gf.grid_index_of(-18.9, 63.5)
+    np.testing.assert_allclose([fi[0], fj[0]], [2.0, 4.4], atol=1e-9)
+
+
+def test_era5_explicit_mapping_still_wins(tmp_path):
+    w = weather(30)
+    path = era5_new(w, tmp_path / "era5.nc")
+    ds = xr.open_dataset(path).load()
+    ds["t_other"] = ds["t2m"] + 10.0
+    ds.to_netcdf(tmp_path / "era5b.nc")
+    gf = open_forcing(tmp_path / "era5b.nc", variables={"air_temperature": {"name": "t_other"}})
+    t = read_all(gf)["air_temperature"]
+    np.testing.assert_allclose(t, w["t"].reshape(30, -1) + 10.0, atol=1e-3)

@@ -64,6 +64,19 @@ def _reference(ds, lead):
     return None
 
 
+def _held(ds, lead):
+    """Lead times that this cycle has data for: cycles of one GRIB file share cfgrib's union
+    of steps, and a step that only another cycle has is all NaN here (in-memory data only;
+    lazy files are taken as written)."""
+    held = np.zeros(ds.sizes[lead], bool)
+    loaded = [v for v in ds.data_vars.values() if lead in v.dims and isinstance(v.data, np.ndarray)]
+    if len(loaded) < sum(lead in v.dims for v in ds.data_vars.values()):
+        return ~held
+    for v in loaded:
+        held |= v.notnull().any([d for d in v.dims if d != lead]).values
+    return held
+
+
 def split_cycles(ds: xr.Dataset, path: str):
     """The cycles of ``ds`` as datasets on valid time, or None when ``ds`` has no lead time.
 
@@ -92,8 +105,9 @@ def split_cycles(ds: xr.Dataset, path: str):
     cycles = []
     for k, r in enumerate(refs):
         one = ds.isel({ref.dims[0]: k}) if ref.ndim == 1 else ds
-        one = one.drop_vars([ref_name, *valid_names]).isel({lead: keep})
-        valid = r + lead_s[keep].astype("timedelta64[s]")
+        steps = keep[_held(one, lead)[keep]]
+        one = one.drop_vars([ref_name, *valid_names]).isel({lead: steps})
+        valid = r + lead_s[steps].astype("timedelta64[s]")
         bounds = np.stack([np.full(valid.size, r), valid], axis=1).astype("datetime64[ns]")
         one = one.assign_coords(
             time=(lead, valid.astype("datetime64[ns]"), {"bounds": "time_bnds"})

@@ -12,6 +12,9 @@ values are summed up so the cycle can be taken apart like any accumulation
 
 from __future__ import annotations
 
+import os
+import tempfile
+
 import numpy as np
 import xarray as xr
 
@@ -49,22 +52,33 @@ def is_grib(path: str) -> bool:
         return False
 
 
-def _steps_by_name(path):
-    """(shortName/cfVarName, stepType) -> sorted list of (startStep, endStep) [h] per message."""
+def _scan(path):
+    """The kinds of field the forcing uses, as (shortName, typeOfLevel, stepType), and per
+    cfgrib name the (startStep, endStep) [h] of its accumulated or averaged messages."""
     import eccodes
 
-    found: dict[str, set] = {}
+    kinds, spans = set(), {}
     with open(path, "rb") as fh:
         while (h := eccodes.codes_grib_new_from_file(fh)) is not None:
             try:
                 name = eccodes.codes_get(h, "cfVarName")
-                if eccodes.codes_get(h, "stepType") in ("accum", "avg"):
+                if name not in _FIELDS:
+                    continue
+                step_type = eccodes.codes_get(h, "stepType")
+                kinds.add(
+                    (
+                        eccodes.codes_get(h, "shortName"),
+                        eccodes.codes_get(h, "typeOfLevel"),
+                        step_type,
+                    )
+                )
+                if step_type in ("accum", "avg"):
                     eccodes.codes_set(h, "stepUnits", "h")
                     span = (eccodes.codes_get(h, "startStep"), eccodes.codes_get(h, "endStep"))
-                    found.setdefault(name, set()).add(span)
+                    spans.setdefault(name, set()).add(span)
             finally:
                 eccodes.codes_release(h)
-    return {k: sorted(v, key=lambda s: s[1]) for k, v in found.items()}
+    return sorted(kinds), {k: sorted(v, key=lambda s: s[1]) for k, v in spans.items()}
 
 
 def _since_start(var, spans, kind, path):
@@ -95,11 +109,24 @@ def open_grib(path: str):
     -------
     (dataset, mapping) : dims ([time,] [step,] y, x) as cfgrib names them.
     """
-    import cfgrib
+    from cfgrib.xarray_plugin import CfGribBackend
 
     try:
-        parts = cfgrib.open_datasets(path, backend_kwargs={"indexpath": ""}, cache=True)
-        spans = _steps_by_name(path)
+        kinds, spans = _scan(path)
+        # one opening per kind of field; the index (in a scratch folder, never beside the
+        # user's file) is built once; naming the backend class skips xarray's search of
+        # every installed engine
+        with tempfile.TemporaryDirectory(prefix="regionmap-grib-") as scratch:
+            index = os.path.join(scratch, "grib.{short_hash}.idx")
+            parts = [
+                xr.open_dataset(
+                    path,
+                    engine=CfGribBackend,
+                    indexpath=index,
+                    filter_by_keys={"shortName": n, "typeOfLevel": lev, "stepType": st},
+                ).load()
+                for n, lev, st in kinds
+            ]
     except Exception as exc:
         raise ForcingReadError(
             f"forcing file {path!r} cannot be read as GRIB ({type(exc).__name__}: {exc})"
@@ -110,7 +137,7 @@ def open_grib(path: str):
         keep = [n for n in ds.data_vars if n in _FIELDS and set(ds[n].dims) <= set(_DATASET_KEYS)]
         if not keep:
             continue
-        ds = ds[keep].load()
+        ds = ds[keep]
         # level coordinates (heightAboveGround = 2 or 10, surface) differ between parts
         scalar = [c for c in ds.coords if c not in ds.dims and c not in _DATASET_KEYS]
         if "step" not in ds.dims:
