@@ -361,12 +361,14 @@ def since_start(x, ref, steps):
     return c[np.asarray(steps)]
 
 
-def grib_messages(path, w):
-    """GRIB2 from ecCodes' regular_ll_sfc_grib2 sample: two cycles, IEEE-packed values."""
+def grib_messages(path, w, cycles=CYCLES, per_interval=False):
+    """GRIB2 from ecCodes' regular_ll_sfc_grib2 sample: IEEE-packed values; accumulations
+    since the cycle start (steps 0-N) or, with ``per_interval``, over each output interval
+    (steps M-N), as ERA5's GRIB forecasts are."""
     import eccodes
 
     with open(path, "wb") as out:
-        for ref, steps in CYCLES.items():
+        for ref, steps in cycles.items():
             cw = cycle_weather(w, ref)
             fields = [
                 ("2t", "heightAboveGround", 2, "instant", cw["t"]),
@@ -375,15 +377,26 @@ def grib_messages(path, w):
                 ("10v", "heightAboveGround", 10, "instant", cw["v"]),
                 ("sp", "surface", 0, "instant", cw["p"]),
             ]
-            for step in steps:
+            for k, step in enumerate(steps):
                 vals = [(n, tl, lev, st, a[ref + step]) for n, tl, lev, st, a in fields]
-                # accumulations since the start of the cycle: m of water, J m-2
+                first = steps[k - 1] if per_interval and k > 0 else 0
+                # accumulations over (first, step]: m of water, J m-2
                 acc = {
-                    "tp": since_start(cw["pr"], ref, [step])[0] / 1000.0,
-                    "ssrd": since_start(cw["sw"] * 3600.0, ref, [step])[0],
-                    "strd": since_start(cw["lw"] * 3600.0, ref, [step])[0],
+                    "tp": cw["pr"] / 1000.0,
+                    "ssrd": cw["sw"] * 3600.0,
+                    "strd": cw["lw"] * 3600.0,
                 }
-                vals += [(n, "surface", 0, "accum", a) for n, a in acc.items()]
+                if not (per_interval and step == 0):  # no empty interval 0-0 per interval
+                    vals += [
+                        (
+                            n,
+                            "surface",
+                            0,
+                            "accum",
+                            since_start(a, ref, [step])[0] - since_start(a, ref, [first])[0],
+                        )
+                        for n, a in acc.items()
+                    ]
                 if ref == 0 and step == 0:
                     vals.append(("orog", "surface", 0, "instant", w["orog"]))
                 for name, level_type, level, step_type, values in vals:
@@ -408,7 +421,7 @@ def grib_messages(path, w):
                         eccodes.codes_set(h, key, value)
                     if step_type == "accum":
                         eccodes.codes_set(h, "stepType", "accum")
-                        eccodes.codes_set(h, "startStep", 0)
+                        eccodes.codes_set(h, "startStep", first)
                         eccodes.codes_set(h, "endStep", step)
                     else:
                         eccodes.codes_set(h, "step", step)
@@ -486,6 +499,37 @@ def test_grib_cycles_in_separate_files_of_a_folder(tmp_path, grib_case):
     folder = open_forcing(str(tmp_path / "c*.grib2"))
     for name, v in read_all(one).items():
         np.testing.assert_array_equal(read_all(folder)[name], v, err_msg=name)
+
+
+def test_grib_accumulations_per_interval_are_summed_per_cycle(tmp_path):
+    w = weather(25)
+    cycles = {0: [0, 1, 2, 3, 6, 9]}
+    interval = open_forcing(grib_messages(tmp_path / "i.grib2", w, cycles, per_interval=True))
+    since = open_forcing(grib_messages(tmp_path / "s.grib2", w, cycles))
+    a, b = read_all(interval), read_all(since)
+    for name in NAMES:
+        np.testing.assert_allclose(a[name], b[name], rtol=1e-6, atol=1e-4, err_msg=name)
+    # the 3-hour tail spread evenly: hours 7-9 share the amount of (6, 9] (CF-1.8 §7.3)
+    np.testing.assert_allclose(
+        a["precipitation"][6:9], w["pr"][7:10].mean(0).reshape(1, -1).repeat(3, 0), rtol=1e-6
+    )
+
+
+def test_grib_grid_relative_winds_on_a_projected_grid_are_refused(tmp_path):
+    import eccodes
+
+    path = tmp_path / "ps.grib2"
+    h = eccodes.codes_grib_new_from_samples("polar_stereographic_pl_grib2")
+    for key, value in (("typeOfLevel", "heightAboveGround"), ("level", 10), ("shortName", "10u")):
+        eccodes.codes_set(h, key, value)
+    eccodes.codes_set(h, "resolutionAndComponentFlags", 8)  # GRIB2 code table 3.3, bit 5
+    with open(path, "wb") as out:
+        eccodes.codes_write(h, out)
+    eccodes.codes_release(h)
+    with pytest.raises(
+        ForcingReadError, match=r"ps.grib2.*u10 is relative to its polar_stereographic grid"
+    ):
+        open_forcing(path)
 
 
 def test_cf_reference_time_by_lead_time_file(tmp_path):

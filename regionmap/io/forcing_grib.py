@@ -39,6 +39,8 @@ _FIELDS = {
     "orog": "surface_altitude",
     "z": "surface_geopotential",
 }
+_EARTH_ALIGNED = {"regular_ll", "regular_gg", "reduced_ll", "reduced_gg"}
+"""Grids whose rows run east-west: grid-relative winds are earth-relative there."""
 _KIND = {"accum": "sum", "avg": "mean", "instant": "instantaneous"}
 _DATASET_KEYS = ("time", "step", "valid_time", "latitude", "longitude", "x", "y")
 
@@ -65,6 +67,16 @@ def _scan(path):
                 if name not in _FIELDS:
                     continue
                 step_type = eccodes.codes_get(h, "stepType")
+                grid = eccodes.codes_get(h, "gridType")
+                # code tables 7 (GRIB1) and 3.3 (GRIB2): flag bit 5 (value 8) = relative to grid
+                flags = eccodes.codes_get(h, "resolutionAndComponentFlags")
+                relative = name in ("u10", "v10") and bool(flags & 8)
+                if relative and grid not in _EARTH_ALIGNED:
+                    raise ForcingReadError(
+                        f"forcing file {path!r}: {name} is relative to its {grid} grid "
+                        f"(resolution and component flags); expected earth-relative winds; hint: ask "
+                        f"for earth-relative winds or convert them (e.g. with ecCodes tools)"
+                    )
                 kinds.add(
                     (
                         eccodes.codes_get(h, "shortName"),
@@ -127,6 +139,8 @@ def open_grib(path: str):
                 ).load()
                 for n, lev, st in kinds
             ]
+    except ForcingReadError:
+        raise
     except Exception as exc:
         raise ForcingReadError(
             f"forcing file {path!r} cannot be read as GRIB ({type(exc).__name__}: {exc})"
