@@ -1,5 +1,8 @@
 """Read gridded NWP forcing (CF NetCDF or Zarr) into canonical, hourly, lazy arrays.
 
+Products that are not CF (WRF output, GRIB, ERA5 NetCDF, forecast cycles) are first brought
+to CF datasets on valid time by :mod:`regionmap.io.forcing_products`.
+
 The conventions are those of DESIGN §3 "Forcing conventions":
 
 * a time label closes its interval; interval means and sums come from ``time_bnds`` and
