@@ -122,7 +122,7 @@ def ranked_alternatives(alternatives, mapping):
 def _variable(ds, name, key, path, entry):
     if name not in ds.variables:
         named = (
-            f"that {entry[PRODUCT_KEY]} output gives {key}"
+            f"(used for {key} in {entry[PRODUCT_KEY]} output)"
             if PRODUCT_KEY in entry
             else f"named in [forcing] variables.{key}"
         )
