@@ -326,14 +326,27 @@ def test_wrf_new_run_restarts_the_accumulation_and_later_run_wins(tmp_path):
 
 def test_wrf_errors_name_the_file(tmp_path):
     w = weather(6)
-    attrs = dict(WRF_ATTRS, MAP_PROJ=np.int32(1), TRUELAT1=np.float32(30.0))
     path, _ = wrf_file(tmp_path / "wrfout_d01_x", w, list(range(6)))
-    bad = xr.open_dataset(path).load()
-    bad.attrs["MAP_PROJ"] = np.int32(4)
-    bad.to_netcdf(tmp_path / "wrfout_d01_bad")
-    with pytest.raises(ForcingReadError, match=r"wrfout_d01_bad.*MAP_PROJ = 4; expected 1"):
-        open_forcing(tmp_path / "wrfout_d01_bad")
-    del attrs
+    good = xr.open_dataset(path).load()
+    cases = {
+        "unknown_projection": (
+            good.assign_attrs(MAP_PROJ=np.int32(4)),
+            r"MAP_PROJ = 4; expected 1 \(Lambert conformal\)",
+        ),
+        # projection attributes that do not match XLAT/XLONG (another run's TRUELAT1)
+        "wrong_projection": (
+            good.assign_attrs(TRUELAT1=np.float32(20.0), TRUELAT2=np.float32(70.0)),
+            r"not a regular grid of DX = 3000 m",
+        ),
+        "no_rotation": (
+            good.drop_vars(["COSALPHA", "SINALPHA"]),
+            r"'COSALPHA' \(used for eastward_wind in WRF output\) is missing",
+        ),
+    }
+    for name, (ds, message) in cases.items():
+        ds.to_netcdf(tmp_path / f"wrfout_d01_{name}")
+        with pytest.raises(ForcingReadError, match=rf"wrfout_d01_{name}.*{message}"):
+            open_forcing(tmp_path / f"wrfout_d01_{name}")
 
 
 # ----------------------------------------------------------------------- GRIB and cycles
