@@ -34,22 +34,22 @@ NAMES = [
 ]
 
 
-def weather(n, seed=7):
+def weather(n, seed=7, shape=(NY, NX)):
     """Hourly weather (time, y, x) with labels T0 .. T0 + (n-1) h: states at the labels,
     precipitation per hour ending at the label (exact binary fractions)."""
     rng = np.random.default_rng(seed)
     hours = np.arange(n)[:, None, None]
-    ramp = np.arange(NY)[:, None] * 0.3 + np.arange(NX)[None, :] * 0.2
+    ramp = np.arange(shape[0])[:, None] * 0.3 + np.arange(shape[1])[None, :] * 0.2
     t = 265.0 + ramp + 3.0 * np.sin(hours / 4.0)
     return {
         "t": t,
-        "td": t - 2.0 - rng.uniform(0, 3, (n, NY, NX)),
+        "td": t - 2.0 - rng.uniform(0, 3, (n, *shape)),
         "p": 80000.0 + 50.0 * ramp + 10.0 * hours,
         "u": 2.0 + np.cos(hours / 5.0) + 0 * ramp,
         "v": -3.0 + 0.5 * ramp + 0 * hours,
         "sw": np.maximum(0.0, 400.0 * np.sin((hours - 7) / 10.0 * np.pi)) + 0 * ramp,
         "lw": 250.0 + 5.0 * ramp + hours,
-        "pr": rng.integers(0, 40, (n, NY, NX)) / 16.0,
+        "pr": rng.integers(0, 40, (n, *shape)) / 16.0,
         "orog": 1200.0 + 100.0 * ramp,
     }
 
@@ -150,11 +150,11 @@ WRF_ATTRS = {
 WRF_SPHERE = {"a": 6370000.0, "b": 6370000.0}
 
 
-def wrf_grid(attrs=WRF_ATTRS):
+def wrf_grid(attrs=WRF_ATTRS, shape=(NY, NX), centre=None):
     """The projection of the global attributes (on WRF's sphere), mass-point x/y, XLAT/XLONG,
     and the angle of north from the grid's y axis (clockwise) at each point."""
     proj = int(attrs["MAP_PROJ"])
-    if proj == 1:
+    if proj in (1, 6):  # 6: a latitude-longitude run, here on a turned (Lambert) grid
         crs = CRS.from_dict(
             {
                 "proj": "lcc",
@@ -171,11 +171,11 @@ def wrf_grid(attrs=WRF_ATTRS):
         )
     else:
         crs = CRS.from_dict({"proj": "merc", "lat_ts": 30.0, "lon_0": 0.0, **WRF_SPHERE})
-    centre = {1: (11.2, 46.6), 2: (-95.0, 58.0), 3: (20.0, 35.0)}[proj]
+    centre = centre or {1: (11.2, 46.6), 2: (-95.0, 58.0), 3: (20.0, 35.0), 6: (11.2, 46.6)}[proj]
     to_xy = Transformer.from_crs(crs.geodetic_crs, crs, always_xy=True)
     cx, cy = to_xy.transform(*centre)
-    x = cx + (np.arange(NX) - (NX - 1) / 2) * 3000.0
-    y = cy + (np.arange(NY) - (NY - 1) / 2) * 3000.0
+    x = cx + (np.arange(shape[1]) - (shape[1] - 1) / 2) * 3000.0
+    y = cy + (np.arange(shape[0]) - (shape[0] - 1) / 2) * 3000.0
     xx, yy = np.meshgrid(x, y)
     lon, lat = Transformer.from_crs(crs, crs.geodetic_crs, always_xy=True).transform(xx, yy)
     # north seen from the grid: a step of 1e-4 deg towards the pole, projected (PROJ)
@@ -184,11 +184,12 @@ def wrf_grid(attrs=WRF_ATTRS):
     return crs, x, y, lon, lat, theta
 
 
-def wrf_file(path, w, rows, attrs=WRF_ATTRS, *, start_acc=None):
+def wrf_file(path, w, rows, attrs=WRF_ATTRS, *, start_acc=None, centre=None):
     """A wrfout file holding hours ``rows`` of the weather: dims Time, south_north,
     west_east, DateStrLen; XLAT/XLONG with Time; winds relative to the grid; RAINNC/RAINC
     accumulated since the model start with the bucket counters I_RAINNC/I_RAINC."""
-    crs, x, y, lon, lat, theta = wrf_grid(attrs)
+    shape = w["t"].shape[1:]
+    crs, x, y, lon, lat, theta = wrf_grid(attrs, shape, centre)
     n = len(rows)
     times = [str(T0 + r * H).replace("T", "_") for r in rows]
     chars = np.array([list(t) for t in times], dtype="S1")
@@ -211,18 +212,18 @@ def wrf_file(path, w, rows, attrs=WRF_ATTRS, *, start_acc=None):
     data = {
         "Times": (("Time", "DateStrLen"), chars),
         "XLAT": field(
-            np.broadcast_to(lat, (n, NY, NX)), "degree_north", "LATITUDE, SOUTH IS NEGATIVE"
+            np.broadcast_to(lat, (n, *shape)), "degree_north", "LATITUDE, SOUTH IS NEGATIVE"
         ),
         "XLONG": field(
-            np.broadcast_to(lon, (n, NY, NX)), "degree_east", "LONGITUDE, WEST IS NEGATIVE"
+            np.broadcast_to(lon, (n, *shape)), "degree_east", "LONGITUDE, WEST IS NEGATIVE"
         ),
         "T2": field(w["t"][rows], "K", "TEMP at 2 M"),
         "Q2": field(mix, "kg kg-1", "QV at 2 M"),
         "PSFC": field(w["p"][rows], "Pa", "SFC PRESSURE"),
         "U10": field(u_grid, "m s-1", "U at 10 M"),
         "V10": field(v_grid, "m s-1", "V at 10 M"),
-        "COSALPHA": field(np.broadcast_to(cos, (n, NY, NX)), "", "Local cosine of map rotation"),
-        "SINALPHA": field(np.broadcast_to(sin, (n, NY, NX)), "", "Local sine of map rotation"),
+        "COSALPHA": field(np.broadcast_to(cos, (n, *shape)), "", "Local cosine of map rotation"),
+        "SINALPHA": field(np.broadcast_to(sin, (n, *shape)), "", "Local sine of map rotation"),
         "SWDOWN": field(w["sw"][rows], "W m-2", "DOWNWARD SHORT WAVE FLUX AT GROUND SURFACE"),
         "GLW": field(w["lw"][rows], "W m-2", "DOWNWARD LONG WAVE FLUX AT GROUND SURFACE"),
         "RAINNC": field(
@@ -235,7 +236,7 @@ def wrf_file(path, w, rows, attrs=WRF_ATTRS, *, start_acc=None):
             {"description": "BUCKET FOR RAINNC"},
         ),
         "I_RAINC": (d3, (c_total // bucket).astype(np.int32), {"description": "BUCKET FOR RAINC"}),
-        "HGT": field(np.broadcast_to(w["orog"], (n, NY, NX)), "m", "Terrain Height"),
+        "HGT": field(np.broadcast_to(w["orog"], (n, *shape)), "m", "Terrain Height"),
     }
     xtime = (
         (np.array(rows) * 60.0).astype(np.float32),
@@ -249,20 +250,27 @@ def wrf_file(path, w, rows, attrs=WRF_ATTRS, *, start_acc=None):
     return path, mix
 
 
-def wrf_twin(w, rows, path, attrs=WRF_ATTRS):
-    crs, x, y, lon, lat, theta = wrf_grid(attrs)
+def wrf_twin(w, rows, path, attrs=WRF_ATTRS, centre=None):
+    crs, x, y, lon, lat, theta = wrf_grid(attrs, w["t"].shape[1:], centre)
     coords = {
         "x": ("x", x, {"standard_name": "projection_x_coordinate", "units": "m"}),
         "y": ("y", y, {"standard_name": "projection_y_coordinate", "units": "m"}),
     }
+    if int(attrs["MAP_PROJ"]) == 6:  # 2-D latitude/longitude without a grid mapping
+        coords = {
+            "lat": (("y", "x"), lat, {"standard_name": "latitude", "units": "degrees_north"}),
+            "lon": (("y", "x"), lon, {"standard_name": "longitude", "units": "degrees_east"}),
+        }
+        crs = None
     labels = T0 + np.asarray(rows) * H
     sub = {k: (v[rows] if v.ndim == 3 else v) for k, v in w.items()}
     sub["pr"] = w["pr"][rows]
     bounds = np.stack([labels - H, labels], axis=1)
-    return twin_cf(sub, labels, path, grid=(coords, ("y", "x"), crs.to_cf()), bounds=bounds)
+    gm = None if crs is None else crs.to_cf()
+    return twin_cf(sub, labels, path, grid=(coords, ("y", "x"), gm), bounds=bounds)
 
 
-@pytest.mark.parametrize("proj", [1, 2, 3])
+@pytest.mark.parametrize("proj", [1, 2, 3, 6])
 def test_wrf_single_file_matches_its_cf_twin(tmp_path, proj):
     attrs = dict(WRF_ATTRS, MAP_PROJ=np.int32(proj))
     if proj == 2:
@@ -285,8 +293,9 @@ def test_wrf_single_file_matches_its_cf_twin(tmp_path, proj):
     # the grid: x/y recovered from XLAT/XLONG on WRF's sphere match the twin's grid (PROJ),
     # to the metre that float32 degrees resolve (8e-6 deg at 100 deg longitude)
     np.testing.assert_allclose(gf.lon, twin.lon, atol=2e-5)
-    np.testing.assert_allclose(gf.grid.x, twin.grid.x, atol=1.0)
-    np.testing.assert_allclose(gf.grid.y, twin.grid.y, atol=1.0)
+    if proj != 6:
+        np.testing.assert_allclose(gf.grid.x, twin.grid.x, atol=1.0)
+        np.testing.assert_allclose(gf.grid.y, twin.grid.y, atol=1.0)
     assert gf.counts["gap_hours_filled"] == 0 and gf.counts["nan_filled"] == 0
 
 
@@ -308,6 +317,36 @@ def test_wrf_split_run_with_restart_loses_nothing_at_file_boundaries(tmp_path):
     # every hour's precipitation, across both boundaries and the bucket resets (10 mm), is
     # the hour's amount that was accumulated (mm = kg m-2)
     np.testing.assert_allclose(a["precipitation"], w["pr"][1:].reshape(49, -1), atol=2e-5)
+
+
+def test_wrf_per_cell_forcing_matches_its_cf_twin(tmp_path, demo_cells):
+    from regionmap.downscale.pipeline import downscale_cells, prepare_cells
+    from regionmap.downscale.settings import DownscaleSettings
+
+    # a WRF domain of 16 x 16 points at 3 km over the demo range, the grid turned against
+    # north there (Lambert conformal about 10.5 E)
+    table = demo_cells.table
+    centre = (float(table["lon"].mean()), float(table["lat"].mean()))
+    w = weather(12, shape=(16, 16))
+    rows = list(range(12))
+    wrf, _ = wrf_file(tmp_path / "wrfout_d01_2026-01-10_00:00:00", w, rows, centre=centre)
+    twin = wrf_twin(w, rows[1:], tmp_path / "twin.nc", centre=centre)
+    settings = DownscaleSettings()
+    cells = []
+    for path in (wrf, twin):
+        gf = open_forcing(path)
+        cells.append(downscale_cells(gf, prepare_cells(demo_cells, gf, settings), settings))
+    a, b = cells
+    for name in ("t_air_k", "pressure_pa", "wind_m_s", "sw_in_w_m2"):
+        np.testing.assert_allclose(getattr(a, name), getattr(b, name), rtol=1e-5, err_msg=name)
+    # wrfout stores the accumulations in float32: differences of ~60 mm totals keep 1e-5 mm
+    np.testing.assert_allclose(a.precip_kg_m2, b.precip_kg_m2, rtol=0, atol=1e-4)
+    # humidity from Q2 (Bolton 1980 vapour pressure) and from the dew point (Buck 1981 in the
+    # reader) agree to 0.3 % (Buck 1981, Table 2); the longwave carried to the cell (through
+    # the air's emissivity) and the precipitation phase follow it
+    np.testing.assert_allclose(a.rh_frac, b.rh_frac, rtol=5e-3)
+    np.testing.assert_allclose(a.lw_in_w_m2, b.lw_in_w_m2, rtol=1e-4)
+    np.testing.assert_allclose(a.snow_frac, b.snow_frac, atol=0.02)
 
 
 def test_wrf_new_run_restarts_the_accumulation_and_later_run_wins(tmp_path):
