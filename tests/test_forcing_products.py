@@ -413,10 +413,11 @@ def since_start(x, ref, steps):
     return c[np.asarray(steps)]
 
 
-def grib_messages(path, w, cycles=CYCLES, per_interval=False):
+def grib_messages(path, w, cycles=CYCLES, per_interval=False, bucket_h=None):
     """GRIB2 from ecCodes' regular_ll_sfc_grib2 sample: IEEE-packed values; accumulations
     since the cycle start (steps 0-N) or, with ``per_interval``, over each output interval
-    (steps M-N), as ERA5's GRIB forecasts are."""
+    (steps M-N), as ERA5's GRIB forecasts are, or in buckets restarting every ``bucket_h``
+    hours (0-3, 0-6, 6-9, 6-12), as some centres' are."""
     import eccodes
 
     with open(path, "wb") as out:
@@ -432,13 +433,15 @@ def grib_messages(path, w, cycles=CYCLES, per_interval=False):
             for k, step in enumerate(steps):
                 vals = [(n, tl, lev, st, a[ref + step]) for n, tl, lev, st, a in fields]
                 first = steps[k - 1] if per_interval and k > 0 else 0
+                if bucket_h:
+                    first = max(0, (step - 1) // bucket_h * bucket_h)
                 # accumulations over (first, step]: m of water, J m-2
                 acc = {
                     "tp": cw["pr"] / 1000.0,
                     "ssrd": cw["sw"] * 3600.0,
                     "strd": cw["lw"] * 3600.0,
                 }
-                if not (per_interval and step == 0):  # no empty interval 0-0 per interval
+                if not ((per_interval or bucket_h) and step == 0):  # no empty interval 0-0
                     vals += [
                         (
                             n,
@@ -561,6 +564,12 @@ def test_grib_accumulations_per_interval_are_summed_per_cycle(tmp_path):
     a, b = read_all(interval), read_all(since)
     for name in NAMES:
         np.testing.assert_allclose(a[name], b[name], rtol=1e-6, atol=1e-4, err_msg=name)
+    # buckets restarting every 6 h (steps 0-3, 0-6, 6-9, 6-12)
+    buckets = {0: [0, 3, 6, 9, 12]}
+    got = read_all(open_forcing(grib_messages(tmp_path / "b.grib2", w, buckets, bucket_h=6)))
+    ref = read_all(open_forcing(grib_messages(tmp_path / "r.grib2", w, buckets)))
+    for name in NAMES:
+        np.testing.assert_allclose(got[name], ref[name], rtol=1e-6, atol=1e-4, err_msg=name)
     # the 3-hour tail spread evenly: hours 7-9 share the amount of (6, 9] (CF-1.8 §7.3)
     np.testing.assert_allclose(
         a["precipitation"][6:9], w["pr"][7:10].mean(0).reshape(1, -1).repeat(3, 0), rtol=1e-6

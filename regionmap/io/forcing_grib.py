@@ -93,25 +93,38 @@ def _scan(path):
     return sorted(kinds), {k: sorted(v, key=lambda s: s[1]) for k, v in spans.items()}
 
 
-def _since_start(var, spans, kind, path):
-    """Values per output interval turned into values since the reference time."""
+def _since_start(var, spans, step_type, path):
+    """Values over output intervals turned into values since the reference time.
+
+    Each message holds a sum (``accum``) or mean (``avg``) over its steps ``start-end``; its
+    total since the start is the total at ``start`` (0, or the end of another message) plus
+    its own amount. This covers intervals that follow one another (``5-6``) and buckets that
+    restart every few hours (``0-3``, ``0-6``, ``6-9``, ``6-12``). Means are returned as
+    means since the start.
+    """
     if all(start == 0 for start, _ in spans):
         return var
-    ends = np.array([e for _, e in spans], dtype=np.float64)
-    starts = np.array([s for s, _ in spans], dtype=np.float64)
-    if starts[0] != 0 or np.any(starts[1:] != ends[:-1]):
-        raise ForcingReadError(
-            f"forcing file {path!r}, variable {var.name!r}: {kind} intervals "
-            f"{[f'{s}-{e}' for s, e in spans][:6]} h neither start at the run start nor follow "
-            f"one another; expected steps 0-N or contiguous N-M"
-        )
+    start_of = {end: start for start, end in spans}
     steps_h = var["step"].values / np.timedelta64(1, "h")
-    length = np.interp(steps_h, ends, ends - starts, left=np.nan, right=np.nan)
-    shape = (-1,) + (1,) * (var.ndim - 1 - var.dims.index("step"))
-    amount = var * (length.reshape(shape) if kind == "avg" else 1.0)
-    total = amount.fillna(0.0).cumsum("step").where(amount.notnull())
-    out = total / (steps_h.reshape(shape) if kind == "avg" else 1.0)
-    return out.assign_attrs(var.attrs)
+    at = {float(h): k for k, h in enumerate(steps_h)}
+    axis = var.dims.index("step")
+    values = np.moveaxis(np.asarray(var.values, dtype=np.float64), axis, 0)
+    total = np.full_like(values, np.nan)
+    chained = len(start_of) == len(spans) and all(s == 0 or s in start_of for s, _ in spans)
+    if not chained:
+        raise ForcingReadError(
+            f"forcing file {path!r}, variable {var.name!r}: {step_type} intervals "
+            f"{[f'{s}-{e}' for s, e in spans][:8]} h cannot be summed from the run start; "
+            f"expected each interval to start at 0 or where another one ends"
+        )
+    for end in sorted(start_of):
+        start = start_of[end]
+        k = at[float(end)]
+        amount = values[k] * ((end - start) if step_type == "avg" else 1.0)
+        total[k] = amount + (0.0 if start == 0 else total[at[float(start)]])
+    if step_type == "avg":
+        total /= np.where(steps_h > 0, steps_h, np.nan).reshape((-1,) + (1,) * (values.ndim - 1))
+    return var.copy(data=np.moveaxis(total, 0, axis).astype(var.dtype))
 
 
 def open_grib(path: str):
