@@ -19,33 +19,30 @@ import pandas as pd
 import pytest
 import xarray as xr
 
-from regionmap.config import load_config
-from regionmap.demo.scenario import build_demo_scenario
-from regionmap.pipeline.execute import execute
-
 MOST = 0.5  # "most of the area": more than half (common practice for a regional statement)
 
 
-@pytest.fixture(scope="session")
-def demo(tmp_path_factory):
-    import regionmap.products.write
+def _read_csv_utc(path, time_columns) -> pd.DataFrame:
+    """A table with its ISO 8601 times (with UTC offset) as naive UTC datetimes."""
+    frame = pd.read_csv(path)
+    for col in time_columns:
+        frame[col] = pd.to_datetime(frame[col], utc=True).dt.tz_localize(None)
+    return frame
 
-    root = tmp_path_factory.mktemp("demo_answers")
-    cfg = load_config(build_demo_scenario(root / "scenario"))
-    with pytest.MonkeyPatch.context() as mp:  # the rain-crust ensemble in several cell blocks
-        mp.setattr(regionmap.products.write, "_ENSEMBLE_BLOCK_CELLS", 200)
-        execute(cfg, out_dir=root / "out", report=False, progress=False)
-    out = root / "out"
+
+@pytest.fixture(scope="session")
+def demo(demo_run):
+    cfg, scenario, out = demo_run
     cells = xr.open_dataset(out / "cells.nc")
     profiles = xr.open_dataset(out / "profiles.nc")
     yield {
         "cfg": cfg,
         "out": out,
-        "design": json.loads((root / "scenario" / "events_expected.json").read_text()),
+        "design": json.loads((scenario / "events_expected.json").read_text()),
         "cells": cells,
         "profiles": profiles,
-        "events": pd.read_csv(out / "events.csv", parse_dates=["first_time", "last_time"]),
-        "limits": pd.read_csv(out / "rain_crust_limits.csv", parse_dates=["event_time"]),
+        "events": _read_csv_utc(out / "events.csv", ["first_time", "last_time"]),
+        "limits": _read_csv_utc(out / "rain_crust_limits.csv", ["event_time"]),
         "table": cells[["zone", "aspect_sector", "elevation_m", "area_km2"]]
         .to_dataframe()
         .reset_index(drop=True),
@@ -275,7 +272,7 @@ def test_layer_tracker_follows_each_rain_crust_under_its_event_name(demo):
     time it finds it in exactly the bands where the layers-of-concern table does."""
     from regionmap.plots.tracker import layer_tracks
 
-    loc = pd.read_csv(demo["out"] / "layers_of_concern.csv", parse_dates=["valid_time"])
+    loc = _read_csv_utc(demo["out"] / "layers_of_concern.csv", ["valid_time"])
     rain = loc[
         (loc["kind"] == "rain") & (loc["presence_frac"] > 0)
     ]  # per zone, and per band x aspect

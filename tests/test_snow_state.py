@@ -89,7 +89,11 @@ def test_state_dataset_layout_and_size(forcing):
     ):
         assert name in ds.variables, name
     assert ds["ice_kg_m2"].dtype == np.float64 and ds["liquid_kg_m2"].dtype == np.float64
-    assert ds["deposition_time"].dtype == np.int64
+    # whole seconds since 1970 as float64 (CF-1.8 has no 64-bit integers), NaN where unused
+    dep = ds["deposition_time"].values
+    assert dep.dtype == np.float64
+    n_used = int(ds["layer_count"][0])
+    assert (dep[0, :n_used] == np.round(dep[0, :n_used])).all() and np.isnan(dep[0, n_used:]).all()
     n = int(ds["layer_count"][0])
     assert n > 0
     assert all(

@@ -204,7 +204,7 @@ def layer_fields(table: pd.DataFrame, *, crust_lo_m=1400.0, crust_hi_m=2000.0, d
 
 def write_profiles_nc(path, table: pd.DataFrame, **kw):
     count, fields = layer_fields(table, **kw)
-    w = ProfilesNcWriter(path, table.index.to_numpy(), DAYS, 4, LAYER_VARS)
+    w = ProfilesNcWriter(path, table, DAYS, 4, LAYER_VARS)
     w.write_chunk(np.arange(len(table)), count, fields)
     return w.close()
 

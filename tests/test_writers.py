@@ -114,9 +114,7 @@ def test_streamed_blocks_read_back_the_same_through_either_compression_path(tmp_
             times - np.timedelta64(1, "h"),
             np.zeros(n_time, bool),
         )
-        p = ProfilesNcWriter(
-            tmp_path / f"profiles_{blocks}.nc", cells.index.to_numpy(), days, n_layer, layer_vars
-        )
+        p = ProfilesNcWriter(tmp_path / f"profiles_{blocks}.nc", cells, days, n_layer, layer_vars)
         for lo, hi in zip(edges[:-1], edges[1:]):
             w.write_chunk(np.arange(lo, hi), {k: v[lo:hi] for k, v in diag.items()})
             p.write_chunk(np.arange(lo, hi), count[lo:hi], {k: v[lo:hi] for k, v in fields.items()})

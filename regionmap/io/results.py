@@ -34,6 +34,7 @@ from xarray.backends.locks import HDF5_LOCK, NETCDFC_LOCK, CombinedLock
 
 from regionmap import CAUTION, __version__
 from regionmap.io.atomic import atomic_path
+from regionmap.io.writers import history_entry
 
 __all__ = [
     "DIAGNOSTICS",
@@ -167,7 +168,7 @@ AMOUNTS: dict[str, tuple[str, dict]] = {
     ),
 }
 
-_FILLS = {"f4": np.float32(np.nan), "i1": _FILL_I8, "i2": _FILL_I16}
+_FILLS = {"f4": np.float32(np.nan), "f8": np.float64(np.nan), "i1": _FILL_I8, "i2": _FILL_I16}
 #: cells per HDF5 chunk of cells.nc (DESIGN: ~256 cells x 744 h) and of profiles.nc
 CELLS_CHUNK_CELLS = 256
 PROFILES_CHUNK_CELLS = 64
@@ -285,11 +286,76 @@ def _compressed_chunks(values: np.ndarray, lo: int, chunks: tuple, fill, shuffle
 
 
 def _seconds(times) -> np.ndarray:
-    return np.asarray(times, dtype="datetime64[s]").astype(np.int64)
+    """Whole seconds since 1970 as float64 (exact below 2**53 s; CF-1.8 §2.2 has no 64-bit
+    integers)."""
+    return np.asarray(times, dtype="datetime64[s]").astype(np.int64).astype(np.float64)
 
 
 def _fill_for(dtype: str):
     return _FILLS.get(dtype)
+
+
+def _write_cell_table(nc, cells: pd.DataFrame) -> None:
+    """The cells' identity and geometry along ``cell`` (the cell table's columns)."""
+    spec = {
+        "zone": ("str", {"long_name": "forecast zone"}),
+        "band_lower_m": (
+            "f8",
+            {"units": "m", "long_name": "lower edge of the elevation band (-inf: open)"},
+        ),
+        "band_upper_m": (
+            "f8",
+            {"units": "m", "long_name": "upper edge of the elevation band (inf: open)"},
+        ),
+        "aspect_sector": ("str", {"long_name": "aspect sector (N, NE, ... or flat)"}),
+        "slope_class": (
+            "i2",
+            {"units": "1", "long_name": "slope class index (0 when slopes are not split)"},
+        ),
+        "elevation_m": (
+            "f4",
+            {
+                "standard_name": "surface_altitude",
+                "units": "m",
+                "long_name": "mean elevation of the cell",
+            },
+        ),
+        "slope_deg": ("f4", {"units": "degree", "long_name": "mean slope angle"}),
+        "aspect_deg": (
+            "f4",
+            {"units": "degree", "long_name": "circular-mean aspect (0 = N, clockwise)"},
+        ),
+        "area_km2": ("f8", {"units": "km2", "long_name": "cell area"}),
+        "pixel_count": ("i4", {"units": "1", "long_name": "DEM pixels in the cell"}),
+        "sky_view_frac": ("f4", {"units": "1", "long_name": "mean sky-view factor"}),
+        "lat": (
+            "f8",
+            {
+                "standard_name": "latitude",
+                "units": "degrees_north",
+                "long_name": "cell centroid latitude",
+            },
+        ),
+        "lon": (
+            "f8",
+            {
+                "standard_name": "longitude",
+                "units": "degrees_east",
+                "long_name": "cell centroid longitude",
+            },
+        ),
+    }
+    for name, (dtype, attrs) in spec.items():
+        if name not in cells.columns:
+            continue
+        values = cells[name].to_numpy()
+        if dtype == "str":
+            var = nc.createVariable(name, str, ("cell",))
+            var[:] = np.asarray(values, dtype=object).astype(str)
+        else:
+            var = nc.createVariable(name, dtype, ("cell",))
+            var[:] = np.asarray(values, dtype=dtype)
+        var.attrs.update(attrs)
 
 
 class CellsNcWriter(_StreamingNc):
@@ -337,13 +403,14 @@ class CellsNcWriter(_StreamingNc):
                 "title": title,
                 "source": f"regionmap {__version__}",
                 "caution": CAUTION,
+                "history": history_entry(),
                 **(global_attrs or {}),
             }
         )
         nc.createDimension("cell", n_cell)
         nc.createDimension("time", n_time)
         nc.createDimension("nv", 2)
-        time = nc.createVariable("time", "i8", ("time",))
+        time = nc.createVariable("time", "f8", ("time",))
         time.attrs.update(
             {
                 "standard_name": "time",
@@ -351,10 +418,18 @@ class CellsNcWriter(_StreamingNc):
                 "calendar": "standard",
                 "bounds": "time_bnds",
                 "axis": "T",
+                "long_name": "end of the output interval",
             }
         )
         time[:] = _seconds(times)
-        bnds = nc.createVariable("time_bnds", "i8", ("time", "nv"))
+        bnds = nc.createVariable("time_bnds", "f8", ("time", "nv"))
+        bnds.attrs.update(
+            {
+                "units": _EPOCH,
+                "calendar": "standard",
+                "long_name": "start and end of the output interval",
+            }
+        )
         bnds[:] = np.stack([_seconds(interval_start), _seconds(times)], axis=1)
         fc = nc.createVariable("is_forecast", "i1", ("time",))
         fc.attrs.update(
@@ -366,9 +441,9 @@ class CellsNcWriter(_StreamingNc):
         )
         fc[:] = np.asarray(is_forecast, dtype=np.int8)
         cid = nc.createVariable("cell_id", "i4", ("cell",))
-        cid.attrs.update({"cf_role": "timeseries_id", "long_name": "cell identifier"})
+        cid.attrs.update({"cf_role": "timeseries_id", "long_name": "cell identifier", "units": "1"})
         cid[:] = cells.index.to_numpy(np.int32)
-        self._write_cell_table(cells)
+        _write_cell_table(nc, cells)
         chunk_cells = max(1, min(CELLS_CHUNK_CELLS, n_cell))
         chunk_time = max(1, min(744, n_time))
         for name, (dtype, attrs) in self.variables.items():
@@ -388,51 +463,6 @@ class CellsNcWriter(_StreamingNc):
             attrs["coordinates"] = "cell_id lat lon elevation_m"
             var.attrs.update(attrs)
             self._layout(name)
-
-    def _write_cell_table(self, cells: pd.DataFrame) -> None:
-        nc = self._nc
-        spec = {
-            "zone": ("str", {"long_name": "forecast zone"}),
-            "band_lower_m": (
-                "f8",
-                {"units": "m", "long_name": "lower edge of the elevation band (-inf: open)"},
-            ),
-            "band_upper_m": (
-                "f8",
-                {"units": "m", "long_name": "upper edge of the elevation band (inf: open)"},
-            ),
-            "aspect_sector": ("str", {"long_name": "aspect sector (N, NE, ... or flat)"}),
-            "slope_class": ("i2", {"long_name": "slope class index (0 when slopes are not split)"}),
-            "elevation_m": (
-                "f4",
-                {
-                    "standard_name": "surface_altitude",
-                    "units": "m",
-                    "long_name": "mean elevation of the cell",
-                },
-            ),
-            "slope_deg": ("f4", {"units": "degree", "long_name": "mean slope angle"}),
-            "aspect_deg": (
-                "f4",
-                {"units": "degree", "long_name": "circular-mean aspect (0 = N, clockwise)"},
-            ),
-            "area_km2": ("f8", {"units": "km2", "long_name": "cell area"}),
-            "pixel_count": ("i4", {"units": "1"}),
-            "sky_view_frac": ("f4", {"units": "1", "long_name": "mean sky-view factor"}),
-            "lat": ("f8", {"standard_name": "latitude", "units": "degrees_north"}),
-            "lon": ("f8", {"standard_name": "longitude", "units": "degrees_east"}),
-        }
-        for name, (dtype, attrs) in spec.items():
-            if name not in cells.columns:
-                continue
-            values = cells[name].to_numpy()
-            if dtype == "str":
-                var = nc.createVariable(name, str, ("cell",))
-                var[:] = np.asarray(values, dtype=object).astype(str)
-            else:
-                var = nc.createVariable(name, dtype, ("cell",))
-                var[:] = np.asarray(values, dtype=dtype)
-            var.attrs.update(attrs)
 
     def write_chunk(self, cell_positions: np.ndarray, diagnostics: dict[str, np.ndarray]) -> None:
         """Write one chunk's (cell, time) arrays at the given positions along ``cell``.
@@ -458,7 +488,8 @@ class ProfilesNcWriter(_StreamingNc):
     Parameters
     ----------
     path : target file.
-    cell_ids : (cell,) int cell identifiers.
+    cells : pandas DataFrame indexed by ``cell_id`` (the cell table), written along ``cell``
+        as in ``cells.nc`` so the file describes its cells by itself.
     days : (day,) datetime64 snapshot times [UTC].
     n_layers : layer slots per snapshot (bottom layer first).
     layer_vars : name → (dtype, attrs); dtype ``"S<width>"`` for the classification codes
@@ -467,7 +498,12 @@ class ProfilesNcWriter(_StreamingNc):
 
     @_hdf5_locked
     def __init__(
-        self, path, cell_ids, days, n_layers: int, layer_vars: dict[str, tuple[str, dict]]
+        self,
+        path,
+        cells: pd.DataFrame,
+        days,
+        n_layers: int,
+        layer_vars: dict[str, tuple[str, dict]],
     ):
         nc = self._open(path)
         self._layouts = {}
@@ -478,18 +514,32 @@ class ProfilesNcWriter(_StreamingNc):
                 "title": "regionmap daily layer snapshots",
                 "source": f"regionmap {__version__}",
                 "caution": CAUTION,
+                "history": history_entry(),
             }
         )
-        nc.createDimension("cell", len(cell_ids))
+        nc.createDimension("cell", len(cells))
         nc.createDimension("day", len(days))
         nc.createDimension("layer", n_layers)
         cid = nc.createVariable("cell_id", "i4", ("cell",))
-        cid[:] = np.asarray(cell_ids, dtype=np.int32)
-        day = nc.createVariable("day", "i8", ("day",))
-        day.attrs.update({"standard_name": "time", "units": _EPOCH, "calendar": "standard"})
+        cid.attrs.update({"long_name": "cell identifier (as in cells.nc)", "units": "1"})
+        cid[:] = cells.index.to_numpy(np.int32)
+        _write_cell_table(nc, cells)
+        day = nc.createVariable("day", "f8", ("day",))
+        day.attrs.update(
+            {
+                "standard_name": "time",
+                "units": _EPOCH,
+                "calendar": "standard",
+                "axis": "T",
+                "long_name": "time of the daily snapshot",
+            }
+        )
         day[:] = _seconds(days)
+        layer = nc.createVariable("layer", "i2", ("layer",))
+        layer.attrs.update({"units": "1", "long_name": "layer slot, 0 = bottom layer"})
+        layer[:] = np.arange(n_layers, dtype=np.int16)
         chunks = (
-            max(1, min(PROFILES_CHUNK_CELLS, len(cell_ids))),
+            max(1, min(PROFILES_CHUNK_CELLS, len(cells))),
             max(1, min(31, len(days))),
             n_layers,
         )
@@ -502,7 +552,13 @@ class ProfilesNcWriter(_StreamingNc):
             chunksizes=chunks[:2],
             fill_value=_FILL_I16,
         )
-        lc.attrs.update({"long_name": "number of layers in use (bottom first)"})
+        lc.attrs.update(
+            {
+                "units": "1",
+                "long_name": "number of layers in use (bottom first)",
+                "coordinates": "cell_id lat lon elevation_m",
+            }
+        )
         self._layout("layer_count")
         for name, (dtype, attrs) in layer_vars.items():
             if dtype.startswith("S"):

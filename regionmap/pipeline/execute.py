@@ -71,20 +71,21 @@ LAYER_VARS = {
         {"long_name": "crust kind: none, melt-freeze, sun, rain, glaze"},
     ),
     "deposition_time": (
-        "i8",
+        "f8",
         {"units": "seconds since 1970-01-01", "long_name": "deposition time of the layer's snow"},
     ),
     "formation_time": (
-        "i8",
+        "f8",
         {
             "units": "seconds since 1970-01-01",
             "long_name": "when the layer became what it is (burial of SH, refreeze of a crust, else deposition)",
         },
     ),
     "event_id": (
-        "i8",
+        "i4",
         {
-            "long_name": "id of the precipitation event that made the layer or its crust: its start as whole hours since 1970-01-01 UTC"
+            "units": "1",
+            "long_name": "id of the precipitation event that made the layer or its crust: its start as whole hours since 1970-01-01 UTC",
         },
     ),
 }
@@ -444,7 +445,7 @@ def execute(
                     if prof_w is None:
                         prof_w = ProfilesNcWriter(
                             out / "profiles.nc",
-                            table.index.to_numpy(),
+                            table,
                             snaps["time"],
                             params.max_layers,
                             LAYER_VARS,
@@ -598,11 +599,10 @@ def _event_frame(events: list[dict], table=None):
 
 def _write_event_log(path: Path, events: list[dict], table) -> None:
     """``events.csv``: one row per rain-on-snow or freezing-rain event and cell."""
-    from regionmap.io.atomic import atomic_path
+    from regionmap.io.writers import write_csv
 
     frame = _event_frame(events, table).sort_values(["first_time", "cell"], kind="stable")
-    with atomic_path(path) as tmp:
-        frame.drop(columns="cell").to_csv(tmp, index=False)
+    write_csv(path, frame.drop(columns="cell"))
 
 
 def _event_log(events: list[dict]) -> list[dict]:

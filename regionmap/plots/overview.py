@@ -305,17 +305,15 @@ def write_overview(out, zone: str, metric_name: str, *, time=None) -> tuple[Path
 def write_overview_csv(out, zone: str, metric_name: str, path: Path, *, time=None) -> Path:
     """The overview's numbers as CSV: one row per band (highest first), one column per aspect,
     plus ``zone``, ``metric``, ``units``, ``valid_time`` and ``status`` columns."""
-    from regionmap.io.atomic import atomic_path
+    from regionmap.io.writers import write_csv
 
     out = _outputs(out)
     m = metric(metric_name)
     t = out.map_time if time is None else out.time_in_run(time)
     wide = overview_table(out, zone, metric_name, time=t).reset_index()
     wide.insert(0, "status", "forecast" if out.forecast_at(t) else "analysis")
-    wide.insert(0, "valid_time", pd.Timestamp(t).strftime("%Y-%m-%dT%H:%M:%SZ"))
+    wide.insert(0, "valid_time", pd.Timestamp(t))
     wide.insert(0, "units", m.units)
     wide.insert(0, "metric", m.name)
     wide.insert(0, "zone", zone)
-    with atomic_path(path) as tmp:
-        wide.to_csv(tmp, index=False, float_format="%.4g")
-    return Path(path)
+    return write_csv(path, wide)

@@ -1,17 +1,22 @@
-"""GIS export: ``zones.gpkg``, ``zones.geojson``, ``layers_of_concern.csv`` and
-``maps/<metric>.tif`` (DESIGN §3 outputs).
+"""GIS export: ``zones.gpkg`` (with each layer's default style), GeoJSON of its layers with
+geometry, ``layers_of_concern.csv`` and ``maps/<metric>.tif`` (DESIGN §3 outputs; every
+file, layer and field is described in ``docs/outputs.md``).
 
-Rasters are on the DEM's grid and CRS; a pixel's value is its cell's value, taken through
-the pixel → cell index raster in one NumPy gather. Each raster's nodata value lies outside
-the values it can hold (255 for uint8 counts, −1 for cell ids, −9999 for non-negative
-floats), its band description says what it is and in which unit, and its tags carry the
-valid time. All files go through the atomic writers of :mod:`regionmap.io.writers`.
+Rasters are Cloud Optimized GeoTIFFs on the DEM's grid and CRS; a pixel's value is its
+cell's value, taken through the pixel → cell index raster in one NumPy gather. Each
+raster's nodata value lies outside the values it can hold (255 for uint8 counts, −1 for
+cell ids, −9999 for floats), a quantity that does not exist in a simulated cell (no weak
+layer) has a value of its own (:data:`NO_WEAK_LAYER`), its band has a unit, a description
+and statistics, its tags carry the valid time, and it opens styled: a colour table where
+the values are classes, a QGIS ``.qml`` and an OGC ``.sld`` beside continuous maps. All
+files go through the atomic writers of :mod:`regionmap.io.writers`.
 """
 
 from __future__ import annotations
 
 import os
 from collections.abc import Mapping
+from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
@@ -19,51 +24,119 @@ import pandas as pd
 
 from regionmap import CAUTION, __version__
 from regionmap.errors import GridMismatchError, InputError
-from regionmap.io.atomic import atomic_path
-from regionmap.io.writers import write_geojson, write_geopackage, write_geotiff
+from regionmap.io.atomic import atomic_write_text
+from regionmap.io.styles import (
+    class_colour_table,
+    ramp_stops,
+    raster_qml,
+    raster_sld,
+    vector_qml,
+    vector_sld,
+)
+from regionmap.io.writers import (
+    LayerStyle,
+    write_csv,
+    write_geojson,
+    write_geopackage,
+    write_geotiff,
+)
 
-__all__ = ["MAP_SPECS", "REQUIRED_ZONE_COLUMNS", "cells_to_raster", "write_gis"]
+__all__ = [
+    "MAP_SPECS",
+    "NO_WEAK_LAYER",
+    "REQUIRED_ZONE_COLUMNS",
+    "MapSpec",
+    "cells_to_raster",
+    "write_gis",
+]
 
-#: metric → (dtype, nodata, units, description). Other metrics are written as float32.
-MAP_SPECS: dict[str, tuple[str, float | int, str, str]] = {
-    "depth_hoar_fraction": (
+
+@dataclass(frozen=True)
+class MapSpec:
+    """How a metric is written as a raster and styled.
+
+    ``kind`` is ``"classes"`` (whole numbers that are classes: a byte raster with a colour
+    table) or ``"continuous"`` (float32 with a ``.qml`` and ``.sld`` beside it, ramp from
+    ``lo`` to ``hi``). ``none_value`` is the value of simulated pixels where the quantity
+    does not exist (e.g. no weak layer), distinct from ``nodata`` (outside every cell).
+    """
+
+    dtype: str
+    nodata: float | int
+    units: str
+    description: str
+    kind: str = "continuous"
+    lo: float = 0.0
+    hi: float = 1.0
+    none_value: float | None = None
+    none_label: str = ""
+    ramp: str = "viridis"
+
+
+#: value of "no weak layer" in the weak-layer depth maps (depths are >= 0)
+NO_WEAK_LAYER = -1.0
+#: largest crust count with a colour of its own (more crusts share its colour)
+CRUST_CLASSES = 9
+
+#: metric → raster and style. Other metrics are written as float32 without a ramp range.
+MAP_SPECS: dict[str, MapSpec] = {
+    "depth_hoar_fraction": MapSpec(
         "float32",
         -9999.0,
         "1",
         "depth hoar present in the cell's column (1) or not (0), as a fraction",
+        hi=1.0,
+        ramp="cividis",
     ),
-    "crust_count": ("uint8", 255, "1", "number of crusts and ice layers in the column"),
-    "new_snow_24h_cm": ("float32", -9999.0, "cm", "new snow of the last local observation day"),
-    "new_snow_72h_cm": (
-        "float32",
-        -9999.0,
-        "cm",
-        "new snow of the last three local observation days",
+    "crust_count": MapSpec(
+        "uint8",
+        255,
+        "1",
+        "number of crusts and ice layers in the column",
+        kind="classes",
+        hi=CRUST_CLASSES - 1,
+        ramp="cividis",
     ),
-    "new_snow_72h_kg_m2": (
+    "new_snow_24h_cm": MapSpec(
+        "float32", -9999.0, "cm", "new snow of the last local observation day", hi=60.0
+    ),
+    "new_snow_72h_cm": MapSpec(
+        "float32", -9999.0, "cm", "new snow of the last three local observation days", hi=120.0
+    ),
+    "new_snow_72h_kg_m2": MapSpec(
         "float32",
         -9999.0,
         "kg m-2",
         "snowfall water equivalent of the last three observation days",
+        hi=120.0,
     ),
-    "snow_depth_cm": ("float32", -9999.0, "cm", "snow depth (vertical)"),
-    "pwl_depth_cm": (
+    "snow_depth_cm": MapSpec("float32", -9999.0, "cm", "snow depth (vertical)", hi=400.0),
+    "pwl_depth_cm": MapSpec(
         "float32",
         -9999.0,
         "cm",
-        "vertical depth of the uppermost persistent weak layer (nodata: none)",
+        f"vertical depth of the uppermost persistent weak layer ({NO_WEAK_LAYER:g}: none)",
+        hi=200.0,
+        none_value=NO_WEAK_LAYER,
+        none_label="no persistent weak layer",
     ),
-    "pwl_slab_cm": (
+    "pwl_slab_cm": MapSpec(
         "float32",
         -9999.0,
         "cm",
-        "slab thickness above the uppermost persistent weak layer, perpendicular to the slope",
+        "slab thickness above the uppermost persistent weak layer, perpendicular to the "
+        f"slope ({NO_WEAK_LAYER:g}: no weak layer)",
+        hi=200.0,
+        none_value=NO_WEAK_LAYER,
+        none_label="no persistent weak layer",
     ),
-    "threshold_count_max": (
+    "threshold_count_max": MapSpec(
         "float32",
         -9999.0,
         "1",
         "largest structural threshold count in the column",
+        hi=6.0,
+        ramp="cividis",
     ),
 }
 REQUIRED_MAPS = (
@@ -213,47 +286,125 @@ def write_gis(
     cells = cells.join(cell_summary[[c for c in cell_summary.columns if c not in cells.columns]])
     cells = cells.rename_axis("cell_id").reset_index()
     loc = layers_of_concern.copy()
+    loc_gpkg = loc.copy()
+    if "date" in loc_gpkg.columns:  # local calendar dates: a Date field
+        loc_gpkg["date"] = pd.to_datetime(loc_gpkg["date"]).dt.date.astype(object)
+    layers = {
+        "zones": zones,
+        "cells": cells,
+        "rain_crust_line": rain_crust_gdf,
+        "layers_of_concern": loc_gpkg,
+    }
     written["zones.gpkg"] = write_geopackage(
-        out / "zones.gpkg",
-        {
-            "zones": zones,
-            "cells": cells,
-            "rain_crust_line": rain_crust_gdf,
-            "layers_of_concern": loc,
-        },
+        out / "zones.gpkg", layers, styles=vector_styles(layers)
     )
+    # RFC 7946 GeoJSON of every layer with geometry (the table is layers_of_concern.csv)
     written["zones.geojson"] = write_geojson(out / "zones.geojson", zones)
-    with atomic_path(out / "layers_of_concern.csv") as tmp:
-        loc.to_csv(tmp, index=False, float_format="%.6g")
-    written["layers_of_concern.csv"] = out / "layers_of_concern.csv"
+    written["cells.geojson"] = write_geojson(out / "cells.geojson", cells)
+    written["rain_crust_line.geojson"] = write_geojson(
+        out / "rain_crust_line.geojson", rain_crust_gdf
+    )
+    written["layers_of_concern.csv"] = write_csv(out / "layers_of_concern.csv", loc)
 
     # --- rasters
     when = _time_text(valid_time)
     index = cellset.index
-    for name, values in {**maps, "cell_id": table.index.to_numpy()}.items():
-        if name == "cell_id":
-            dtype, nodata, units, text = "int32", -1, "1", "cell identifier (pixel -> cell index)"
-        else:
-            dtype, nodata, units, text = MAP_SPECS.get(
-                name, ("float32", -9999.0, "", name.replace("_", " "))
-            )
-        raster = cells_to_raster(values, index, dtype=dtype, nodata=nodata)
-        tags = {
-            "valid_time": when,
-            "units": units,
-            "metric": name,
-            "source": f"regionmap {__version__}",
-            "caution": CAUTION,
-        }
-        path = out / "maps" / f"{name}.tif"
-        written[f"maps/{name}.tif"] = write_geotiff(
+    for name, values in maps.items():
+        spec = MAP_SPECS.get(name) or MapSpec("float32", -9999.0, "", name.replace("_", " "))
+        written.update(_write_map(out, name, values, index, spec, transform, crs, when))
+    written["maps/cell_id.tif"] = write_geotiff(
+        out / "maps" / "cell_id.tif",
+        cells_to_raster(table.index.to_numpy(), index, dtype="int32", nodata=-1),
+        transform=transform,
+        crs=crs,
+        nodata=-1,
+        units="1",
+        description="cell_id: cell identifier (pixel -> cell index); -1 outside every cell",
+        tags=_map_tags("cell_id", "1", when),
+    )
+    return written
+
+
+def _map_tags(name: str, units: str, when: str) -> dict[str, str]:
+    return {
+        "valid_time": when,
+        "units": units,
+        "metric": name,
+        "source": f"regionmap {__version__}",
+        "caution": CAUTION,
+    }
+
+
+def _write_map(out: Path, name, values, index, spec: MapSpec, transform, crs, when) -> dict:
+    """One metric's COG and, for continuous maps with a ramp, its ``.qml`` and ``.sld``."""
+    values = np.asarray(values, dtype=np.float64)
+    if spec.none_value is not None:
+        values = np.where(np.isnan(values), spec.none_value, values)
+    raster = cells_to_raster(values, index, dtype=spec.dtype, nodata=spec.nodata)
+    path = out / "maps" / f"{name}.tif"
+    band_tags = {}
+    if spec.none_value is not None:
+        band_tags = {"none_value": f"{spec.none_value:g}", "none_meaning": spec.none_label}
+    colour_table = None
+    if spec.kind == "classes":
+        colour_table = class_colour_table(int(spec.hi) + 1, ramp=spec.ramp, nodata=spec.nodata)
+    written = {
+        f"maps/{name}.tif": write_geotiff(
             path,
             raster,
             transform=transform,
             crs=crs,
-            nodata=nodata,
-            description=f"{name} [{units}]: {text}; valid {when}",
-            tags=tags,
-            cog=True,
+            nodata=spec.nodata,
+            units=spec.units,
+            description=f"{name} [{spec.units}]: {spec.description}; valid {when}",
+            tags=_map_tags(name, spec.units, when),
+            band_tags=band_tags,
+            colour_table=colour_table,
+            resampling="nearest" if spec.none_value is not None else None,
+        )
+    }
+    if spec.kind == "continuous" and name in MAP_SPECS:
+        stops = ramp_stops(
+            spec.lo,
+            spec.hi,
+            ramp=spec.ramp,
+            units=spec.units,
+            none_value=spec.none_value,
+            none_label=spec.none_label,
+        )
+        title = f"{name} [{spec.units}], valid {when}"
+        written[f"maps/{name}.qml"] = atomic_write_text(
+            path.with_suffix(".qml"), raster_qml(stops, title=title)
+        )
+        written[f"maps/{name}.sld"] = atomic_write_text(
+            path.with_suffix(".sld"), raster_sld(stops, name=name, title=title)
         )
     return written
+
+
+#: layer → (geometry kind, attribute its colours follow, its units, ramp range, ramp, label)
+_VECTOR_STYLES = {
+    "zones": ("fill", "depth_hoar_fraction", "1", (0.0, 1.0), "cividis", "zone"),
+    "cells": ("fill", "snow_depth_cm", "cm", (0.0, 400.0), "viridis", None),
+    "rain_crust_line": ("line", None, "", None, None, "zone"),
+    "layers_of_concern": (None, None, "", None, None, None),
+}
+
+
+def vector_styles(layers: Mapping[str, object]) -> dict[str, LayerStyle]:
+    """Default styles of the GeoPackage's layers: zones and cells coloured by a summary
+    (colour-vision-friendly ramps, :mod:`regionmap.io.styles`), the rain-crust line as a
+    line labelled with its zone, the layers-of-concern table without symbols."""
+    styles = {}
+    for name in layers:
+        geometry, attribute, units, span, ramp, label = _VECTOR_STYLES[name]
+        stops = None
+        if attribute is not None:
+            stops = ramp_stops(*span, ramp=ramp, n=6, units=units)
+        what = f"coloured by {attribute}" if attribute else "default symbols"
+        styles[name] = LayerStyle(
+            qml=vector_qml(geometry, attribute=attribute, stops=stops, label_field=label),
+            sld=vector_sld(name, geometry or "fill", attribute=attribute, stops=stops),
+            description=f"regionmap {name}: {what}",
+        )
+    return styles

@@ -500,7 +500,7 @@ def cell_values(
         last one at or before it (``profile_time``).
     table : cell table (``CellSet.table``), indexed by ``cell_id``.
     times : datetime-likes [UTC] at which to evaluate; each must be an output time of ``diag``.
-    layers : also decode the profile snapshots for the layer metrics (``crust_count_<kind>``,
+    layers : also decode the profile snapshots for the layer metrics (``crust_layers_<kind>``,
         ``FC_``/``DH_``/``SH_…``, ``pwl_slab_cm``, ``pwl_load_kg_m2``); without, only the
         ``cells.nc`` metrics (decoding costs ~1 s per 10 000 cells × 16 days × 30 layers).
 
@@ -509,7 +509,7 @@ def cell_values(
     DataFrame with ``cell_id``, ``valid_time``, ``is_forecast``, ``profile_time``,
     ``new_snow_window_end`` and the metrics: ``snow_depth_cm``, ``swe_kg_m2``,
     ``snow_present`` (depth ≥ 1 cm, our choice), ``new_snow_24h_cm``, ``new_snow_72h_cm``,
-    ``new_snow_24h_kg_m2``, ``new_snow_72h_kg_m2``, ``crust_count``, ``crust_count_<kind>``,
+    ``new_snow_24h_kg_m2``, ``new_snow_72h_kg_m2``, ``crust_count``, ``crust_layers_<kind>``,
     ``depth_hoar_present`` (the column's flag and threshold), ``pwl_present``,
     ``pwl_depth_cm``, ``pwl_slab_cm`` (perpendicular to the slope), ``pwl_load_kg_m2``,
     ``<FC|DH|SH>_present``/``_depth_cm``/``_slab_cm`` from the snapshot, and
@@ -641,7 +641,8 @@ def _layer_values(profiles, table, d, has_snap) -> dict[str, np.ndarray]:
     snap = decode_snapshot(profiles, np.maximum(d, 0))
     cos_slope = np.cos(np.deg2rad(table["slope_deg"].to_numpy(np.float64)))[:, None]
     for kind in CRUST_TYPES:
-        values[f"crust_count_{kind.replace('-', '_')}"] = (
+        # model layers of this crust kind (one crust may span several layers)
+        values[f"crust_layers_{kind.replace('-', '_')}"] = (
             (snap.crust == CRUST_INDEX[kind]).sum(axis=2).astype(np.float64)
         )
     any_pwl = np.zeros_like(snap.valid)
@@ -663,7 +664,7 @@ def _layer_values(profiles, table, d, has_snap) -> dict[str, np.ndarray]:
     snap_keys = [
         k
         for k in values
-        if k.startswith(("crust_count_", "FC_", "DH_", "SH_", "pwl_slab", "pwl_load"))
+        if k.startswith(("crust_layers_", "FC_", "DH_", "SH_", "pwl_slab", "pwl_load"))
     ]
     for key in snap_keys:
         values[key] = np.where(has_snap[None, :], values[key], np.nan)

@@ -18,8 +18,8 @@ import pandas as pd
 import xarray as xr
 
 from regionmap.config import Config
-from regionmap.io.atomic import atomic_path
 from regionmap.io.times import event_date_label
+from regionmap.io.writers import write_csv
 
 __all__ = ["Products", "write_products", "ENSEMBLE_MEMBERS"]
 
@@ -43,11 +43,6 @@ class Products:
     zones: pd.DataFrame
     sentences: list[str]
     ensemble_cost: dict = field(default_factory=dict)
-
-
-def _write_csv(path: Path, frame: pd.DataFrame) -> None:
-    with atomic_path(path) as tmp:
-        frame.to_csv(tmp, index=False)
 
 
 def _weights(region, cfg: Config) -> pd.DataFrame:
@@ -226,7 +221,7 @@ def _rain_crust(
         )
     cols = zone_rain_crust_columns(zone_limits, sentences)
     if not limits.empty:
-        _write_csv(out / "rain_crust_limits.csv", limits)
+        write_csv(out / "rain_crust_limits.csv", limits)
     # the printed summary names the event and leaves out the zones it left no crust in
     words = [
         f"{zone}, rain of {event_date_label(event_id, cfg.output.local_timezone)}: {text}"
@@ -247,7 +242,9 @@ def _event_windows(out: Path) -> dict:
     path = out / "events.csv"
     if not path.exists():
         return {}
-    frame = pd.read_csv(path, parse_dates=["first_time", "last_time"])
+    frame = pd.read_csv(path)
+    for col in ("first_time", "last_time"):  # ISO 8601 with offset -> naive UTC
+        frame[col] = pd.to_datetime(frame[col], utc=True).dt.tz_localize(None)
     frame = frame[frame["kind"] == "rain-on-snow"]
     g = frame.groupby("event_id").agg(
         first_time=("first_time", "min"), last_time=("last_time", "max")
@@ -304,7 +301,7 @@ def write_products(
             out, cfg, region, ctx, state0, prof, table, weights, map_time
         )
     zones = tables.zones.merge(rc_cols, left_on="zone", right_index=True, how="left")
-    zones["valid_time"] = str(map_time)
+    zones["valid_time"] = pd.Timestamp(map_time)
     zones["is_forecast"] = bool(is_forecast)
     cells = tables.cells.join(weights[["avalanche_km2", "all_km2"]], how="left")
     # a cell is one simulated column, so its depth-hoar fraction is its presence flag (0 or 1)
@@ -337,7 +334,9 @@ def write_products(
         crs=region.dem.crs,
         valid_time=map_time,
     )
-    _write_csv(out / "band_aspect.csv", tables.band_aspect)
-    _write_csv(out / "daily.csv", tables.daily)
-    _write_csv(out / "snow_line.csv", tables.snow_line)
+    # band x aspect groups without terrain of the weighting have no values: left out
+    band_aspect = tables.band_aspect
+    write_csv(out / "band_aspect.csv", band_aspect[band_aspect["area_km2"] > 0])
+    write_csv(out / "daily.csv", tables.daily)
+    write_csv(out / "snow_line.csv", tables.snow_line)
     return Products(zones, words, cost)

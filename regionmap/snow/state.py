@@ -2,8 +2,9 @@
 
 In memory, layer arrays are (cell, layer) bottom first, with the precision the kernel keeps
 (float64 ice and liquid mass; float32 thickness, temperature, grain size and microstructure;
-int32 times in seconds since 2000-01-01 and event ids in hours since 1970). On file, times are
-int64 seconds since 1970 and grain classes / crust kinds are the code strings of
+int32 times in seconds since 2000-01-01 and event ids in hours since 1970). On file (CF-1.8:
+no 64-bit integers), times are whole seconds since 1970 as float64 (exact; NaN in unused
+slots), counters int32, and grain classes / crust kinds the code strings of
 :mod:`regionmap.snow.codes`. A save/load round trip restores the state bit for bit.
 """
 
@@ -18,6 +19,7 @@ import numpy as np
 import xarray as xr
 
 from regionmap.errors import InputError, OutputError
+from regionmap.io.writers import history_entry
 from regionmap.snow.codes import (
     crust_codes_to_strings,
     crust_strings_to_codes,
@@ -201,9 +203,12 @@ class SnowState:
         active = np.arange(n_layer)[None, :] < self.layer_count[:, None]
         dims = ("cell", "layer")
 
-        def t64(a):
-            out = a.astype(np.int64) + EPOCH_2000_S
-            return np.where(active, out, np.int64(-1))
+        def seconds_1970(a):
+            out = (a.astype(np.int64) + EPOCH_2000_S).astype(np.float64)
+            return np.where(active, out, np.nan)
+
+        def attrs(units, long_name):
+            return {"units": units, "long_name": long_name}
 
         from regionmap.snow.diagnostics import layer_hardness_array
 
@@ -212,13 +217,17 @@ class SnowState:
                 "layer_count": (
                     ("cell",),
                     self.layer_count,
-                    {"long_name": "active layers, bottom first"},
+                    attrs("1", "active layers, bottom first"),
                 ),
-                "thickness_m": (dims, self.thickness_m, {"units": "m"}),
-                "ice_kg_m2": (dims, self.ice_kg_m2, {"units": "kg m-2"}),
-                "liquid_kg_m2": (dims, self.liquid_kg_m2, {"units": "kg m-2"}),
-                "temperature_k": (dims, self.temperature_k, {"units": "K"}),
-                "grain_size_mm": (dims, self.grain_size_mm, {"units": "mm"}),
+                "thickness_m": (dims, self.thickness_m, attrs("m", "layer thickness (vertical)")),
+                "ice_kg_m2": (dims, self.ice_kg_m2, attrs("kg m-2", "ice mass of the layer")),
+                "liquid_kg_m2": (
+                    dims,
+                    self.liquid_kg_m2,
+                    attrs("kg m-2", "liquid water in the layer"),
+                ),
+                "temperature_k": (dims, self.temperature_k, attrs("K", "layer temperature")),
+                "grain_size_mm": (dims, self.grain_size_mm, attrs("mm", "grain size")),
                 "hardness_index": (
                     dims,
                     layer_hardness_array(self),
@@ -227,55 +236,79 @@ class SnowState:
                         "long_name": "hand hardness index F=1 ... I=6 (Fierz et al. 2009)",
                     },
                 ),
-                "dendricity": (dims, self.dendricity, {"units": "1"}),
-                "facetedness": (dims, self.facetedness, {"units": "1"}),
+                "dendricity": (
+                    dims,
+                    self.dendricity,
+                    attrs("1", "dendricity: 1 fresh dendrites, 0 decomposed"),
+                ),
+                "facetedness": (
+                    dims,
+                    self.facetedness,
+                    attrs("1", "facetedness: 0 rounded, 1 fully faceted"),
+                ),
                 "grain_class": (
                     dims,
                     np.where(active, grain_codes_to_strings(self.grain_code), "").astype(str),
+                    {"long_name": "grain class (international classification codes)"},
                 ),
                 "crust_kind": (
                     dims,
                     np.where(active, crust_codes_to_strings(self.crust_code), "").astype(str),
+                    {"long_name": "crust kind: none, melt-freeze, sun, rain, glaze"},
                 ),
                 "formation_flags": (
                     dims,
                     self.flags,
-                    {"long_name": "formation flag bits (regionmap.snow.crusts)"},
+                    attrs("1", "formation flag bits (regionmap.snow.crusts)"),
                 ),
                 "deposition_time": (
                     dims,
-                    t64(self.deposition_time_s2000),
-                    {"units": "seconds since 1970-01-01", "_FillValue_note": "-1 where unused"},
+                    seconds_1970(self.deposition_time_s2000),
+                    attrs("seconds since 1970-01-01", "deposition time of the layer's snow"),
                 ),
                 "formation_time": (
                     dims,
-                    t64(self.formation_time_s2000),
-                    {"units": "seconds since 1970-01-01"},
+                    seconds_1970(self.formation_time_s2000),
+                    attrs("seconds since 1970-01-01", "when the layer became what it is"),
                 ),
                 "event_id": (
                     dims,
                     self.event_id,
-                    {"long_name": "start of the forming event, whole hours since 1970-01-01T00Z"},
+                    attrs("1", "start of the forming event, whole hours since 1970-01-01T00Z"),
                 ),
                 "soil_temperature_k": (
                     ("cell", "soil_layer"),
                     self.surface[:, V_SOIL : V_SOIL + N_SOIL],
-                    {"units": "K"},
+                    attrs("K", "soil layer temperature, deepest first"),
                 ),
                 "new_snow_history_kg_m2": (
                     ("cell", "ring_hour"),
                     self.new_snow_kg_m2,
-                    {"units": "kg m-2"},
+                    attrs("kg m-2", "hourly new-snow mass, slot = hour since 1970 modulo 72"),
                 ),
-                "new_snow_history_m": (("cell", "ring_hour"), self.new_snow_m, {"units": "m"}),
+                "new_snow_history_m": (
+                    ("cell", "ring_hour"),
+                    self.new_snow_m,
+                    attrs("m", "hourly fresh new-snow depth, slot = hour since 1970 modulo 72"),
+                ),
             },
             coords={
-                "cell_id": (("cell",), self.cell_id),
-                "soil_thickness_m": (("soil_layer",), np.array(SOIL_THICKNESS_M)),
-                "time": self.time.astype("datetime64[ns]"),
+                "cell_id": (
+                    ("cell",),
+                    self.cell_id.astype(np.int32),
+                    attrs("1", "cell identifier"),
+                ),
+                "soil_thickness_m": (
+                    ("soil_layer",),
+                    np.array(SOIL_THICKNESS_M),
+                    attrs("m", "soil layer thickness, deepest first"),
+                ),
+                "time": ((), self.time.astype("datetime64[ns]"), {"long_name": "valid time"}),
             },
             attrs={
+                "Conventions": "CF-1.8",
                 "title": "regionmap snow state",
+                "history": history_entry(),
                 "settings_fingerprint": self.fingerprint,
                 "layer_order": "bottom first",
                 "caution": "model guidance for trained people; never a substitute for field "
@@ -285,7 +318,10 @@ class SnowState:
         for name, k, units, long in _CELL_FLOAT:
             ds[name] = (("cell",), self.surface[:, k], {"units": units, "long_name": long})
         for name, k, long in _CELL_INT:
-            ds[name] = (("cell",), self.counters[:, k], {"long_name": long})
+            ds[name] = (("cell",), self.counters[:, k].astype(np.int32), attrs("1", long))
+        ds["time"].encoding.update(units="seconds since 1970-01-01", dtype="float64")
+        for name in ("deposition_time", "formation_time"):
+            ds[name].encoding.update(_FillValue=np.nan)
         return ds
 
     @classmethod
@@ -338,7 +374,8 @@ class SnowState:
             raw = ds[name].values
             if np.issubdtype(raw.dtype, np.datetime64):  # decoded by xarray from CF units
                 raw = raw.astype("datetime64[s]").astype(np.int64)
-            v = raw.astype(np.int64) - EPOCH_2000_S
+            # unused slots (NaN / NaT) are zeroed below
+            v = np.nan_to_num(raw, nan=0.0).astype(np.int64) - EPOCH_2000_S
             return np.where(active, v, 0).astype(np.int32)
 
         layers = {

@@ -18,14 +18,13 @@ how far to trust the guidance, and replace neither field observations nor local 
 
 from __future__ import annotations
 
-import os
-import tempfile
 from pathlib import Path
 
 import numpy as np
 import pandas as pd
 
 from regionmap.errors import InputError, OutputError
+from regionmap.io.writers import write_csv
 
 __all__ = [
     "AMOUNT_VARIABLES",
@@ -365,7 +364,7 @@ def verification_table(
 
 
 def write_verification_csv(table: pd.DataFrame, path: str | Path) -> Path:
-    """Write a verification table as CSV atomically (temporary file, then ``os.replace``).
+    """Write a verification table as CSV atomically (:func:`regionmap.io.writers.write_csv`).
 
     Parameters
     ----------
@@ -389,14 +388,7 @@ def write_verification_csv(table: pd.DataFrame, path: str | Path) -> Path:
         raise OutputError(
             f"Cannot write verification table {path}: folder {path.parent} does not exist."
         )
-    tmp = None
     try:
-        fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
-        with os.fdopen(fd, "w", encoding="utf-8", newline="") as fh:
-            table.to_csv(fh, index=False, float_format="%.6g")
-        os.replace(tmp, path)
+        return write_csv(path, table)
     except OSError as exc:
-        if tmp is not None and os.path.exists(tmp):
-            os.unlink(tmp)
         raise OutputError(f"Cannot write verification table {path}: {exc}.") from None
-    return path
