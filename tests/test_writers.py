@@ -147,3 +147,84 @@ def test_streamed_blocks_read_back_the_same_through_either_compression_path(tmp_
             a.variables["snow_depth_cm"].filters()["shuffle"]
             and a.variables["snow_depth_cm"].filters()["zlib"]
         )
+
+
+def test_csv_text_times_with_offset_booleans_and_rounding(tmp_path):
+    import pandas as pd
+
+    from regionmap.io.writers import write_csv
+
+    frame = pd.DataFrame(
+        {
+            "valid_time": pd.to_datetime(["2026-02-14T00:00", "2026-02-14T23:00"]),
+            "event_time": pd.to_datetime(["2026-01-17T02:00+01:00", None], utc=True),
+            "is_forecast": [True, False],
+            "snow_depth_cm": [81.94999, np.nan],
+            "depth_hoar_fraction": [0.123456, 1.0],
+            "elevation_m": [1449.6, 2000.0],
+        }
+    )
+    write_csv(tmp_path / "t.csv", frame)
+    lines = (tmp_path / "t.csv").read_text().splitlines()
+    assert (
+        lines[0]
+        == "valid_time,event_time,is_forecast,snow_depth_cm,depth_hoar_fraction,elevation_m"
+    )
+    # ISO 8601 with the UTC offset, midnight keeps its hour; a zoned time converted to UTC
+    assert lines[1] == "2026-02-14T00:00:00+00:00,2026-01-17T01:00:00+00:00,true,81.9,0.123,1450.0"
+    assert lines[2] == "2026-02-14T23:00:00+00:00,,false,,1.0,2000.0"
+
+
+def test_geojson_is_rfc7946_with_nulls_for_missing_values(tmp_path):
+    import json
+
+    import geopandas as gpd
+    import shapely
+
+    gdf = gpd.GeoDataFrame(
+        {"band_upper_m": [np.inf, 2400.0], "v": [np.nan, 1.23456789], "ok": [True, False]},
+        geometry=[shapely.box(500_000, 5_000_000, 501_000, 5_001_000)] * 2,
+        crs=32633,
+    )
+    write_geojson(tmp_path / "g.geojson", gdf)
+    doc = json.loads((tmp_path / "g.geojson").read_text())
+    assert "crs" not in doc  # RFC 7946 §4
+    props = [f["properties"] for f in doc["features"]]
+    assert props == [
+        {"band_upper_m": None, "v": None, "ok": True},
+        {"band_upper_m": 2400.0, "v": 1.23, "ok": False},
+    ]
+    ring = np.asarray(doc["features"][0]["geometry"]["coordinates"][0])
+    assert (np.round(ring, 6) == ring).all()
+    # exterior ring counterclockwise (RFC 7946 §3.1.6): positive shoelace area
+    assert np.sum(ring[:-1, 0] * ring[1:, 1] - ring[1:, 0] * ring[:-1, 1]) > 0
+
+
+def test_geopackage_version_styles_and_date_fields(tmp_path):
+    import datetime
+    import sqlite3
+
+    import pandas as pd
+    import pyogrio
+
+    from regionmap.io.writers import LayerStyle
+
+    table = pd.DataFrame(
+        {"date": [datetime.date(2025, 11, 8), None], "t": pd.to_datetime(["2026-01-01", None])}
+    )
+    path = write_geopackage(
+        tmp_path / "s.gpkg",
+        {"table": table},
+        styles={"table": LayerStyle("<qgis/>", "<StyledLayerDescriptor/>", "a table")},
+    )
+    with sqlite3.connect(path) as db:
+        assert db.execute("PRAGMA user_version").fetchone()[0] == 10200  # GeoPackage 1.2
+    db.close()
+    info = pyogrio.read_info(path, layer="table")
+    types = dict(zip(info["fields"], info["dtypes"]))
+    assert types["date"] == "datetime64[D]" and types["t"].startswith("datetime64")
+    back = pyogrio.read_dataframe(path, layer="table")
+    assert back["t"].dt.tz is not None  # DateTime written as UTC
+    styles = pyogrio.read_dataframe(path, layer="layer_styles")
+    assert list(styles["f_table_name"]) == ["table"] and styles["useAsDefault"].all()
+    assert styles["styleQML"].iloc[0] == "<qgis/>"

@@ -138,7 +138,8 @@ def make_demo_zones(path: str | os.PathLike) -> Path:
     """Write the demo zones as GeoJSON (EPSG:4326, attribute ``name``)."""
     from regionmap.io.writers import write_geojson
 
-    return write_geojson(path, demo_zones())
+    # an input, not a product: full precision, so the shipped file is reproduced exactly
+    return write_geojson(path, demo_zones(), coordinate_decimals=15)
 
 
 #: The demo run: the season up to a mid-February analysis with a 72 h forecast after it.

@@ -346,11 +346,13 @@ def write_csv(path: str | os.PathLike, frame) -> Path:
 GEOJSON_COORDINATE_DECIMALS = 6
 
 
-def write_geojson(path: str | os.PathLike, gdf) -> Path:
+def write_geojson(
+    path: str | os.PathLike, gdf, *, coordinate_decimals: int = GEOJSON_COORDINATE_DECIMALS
+) -> Path:
     """Write a GeoDataFrame as GeoJSON per RFC 7946: EPSG:4326 longitude, latitude, no
     ``crs`` member, polygons wound by the right-hand rule, coordinates to
-    :data:`GEOJSON_COORDINATE_DECIMALS` decimals, values as in :func:`table_text` (booleans
-    as JSON booleans; NaN and infinite values as null)."""
+    ``coordinate_decimals`` decimals, values as in :func:`table_text` (booleans as JSON
+    booleans; NaN and infinite values as null)."""
     import pyogrio
 
     out = gdf.to_crs(4326) if gdf.crs is not None else gdf
@@ -370,7 +372,7 @@ def write_geojson(path: str | os.PathLike, gdf) -> Path:
             layer=Path(path).stem,
             layer_options={
                 "RFC7946": "YES",
-                "COORDINATE_PRECISION": str(GEOJSON_COORDINATE_DECIMALS),
+                "COORDINATE_PRECISION": str(coordinate_decimals),
             },
         )
     return Path(path)
