@@ -93,7 +93,7 @@ def _rgb(colour: str) -> str:
     return ",".join(str(int(colour[k : k + 2], 16)) for k in (1, 3, 5))
 
 
-def raster_qml(stops: list[RampStop], *, title: str) -> str:
+def raster_qml(stops: list[RampStop]) -> str:
     """QGIS style of a single-band raster: colours interpolated between ``stops`` (values
     beyond the last stop take its colour; nodata is transparent)."""
     lo, hi = stops[0].value, stops[-1].value
@@ -103,7 +103,6 @@ def raster_qml(stops: list[RampStop], *, title: str) -> str:
         for s in stops
     )
     return f"""<qgis version="3.28.0" styleCategories="Symbology">
-  <layerMetadata><title>{_text(title)}</title></layerMetadata>
   <pipe>
     <rasterrenderer type="singlebandpseudocolor" band="1" opacity="1" alphaBand="-1" classificationMin="{lo!r}" classificationMax="{hi!r}">
       <rastershader>
@@ -234,8 +233,9 @@ def vector_qml(
             '<text-buffer bufferDraw="1" bufferSize="1" bufferColor="255,255,255,255"/>'
             "</text-style></settings></labeling>"
         )
+    enabled = ' labelsEnabled="1"' if label_field else ""
     return (
-        f'<qgis version="3.28.0" styleCategories="Symbology|Labeling">{renderer}{labels}'
+        f'<qgis version="3.28.0" styleCategories="Symbology|Labeling"{enabled}>{renderer}{labels}'
         f"<layerGeometryType>{ {'fill': 2, 'line': 1, None: 4}[geometry] }</layerGeometryType></qgis>\n"
     )
 

@@ -205,8 +205,6 @@ def write_geopackage(
 def _gpkg_columns(frame):
     """``frame`` with naive datetimes made UTC, and the names of its ``datetime.date``
     columns (written as text, then declared DATE)."""
-    import datetime
-
     import pandas as pd
 
     frame = frame.copy()
@@ -217,14 +215,9 @@ def _gpkg_columns(frame):
             frame[col] = values.dt.tz_convert("UTC")
         elif values.dtype.kind == "M":
             frame[col] = values.dt.tz_localize("UTC")
-        elif values.dtype == object:
-            present = values.dropna()
-            if len(present) and all(
-                isinstance(v, datetime.date) and not isinstance(v, datetime.datetime)
-                for v in present
-            ):
-                frame[col] = values.map(lambda v: v.isoformat() if v is not None else None)
-                dates.append(col)
+        elif values.dtype == object and pd.api.types.infer_dtype(values, skipna=True) == "date":
+            frame[col] = pd.to_datetime(values).dt.strftime("%Y-%m-%d")
+            dates.append(col)
     return frame, dates
 
 

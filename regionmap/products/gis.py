@@ -373,9 +373,7 @@ def _write_map(out: Path, name, values, index, spec: MapSpec, transform, crs, wh
             none_label=spec.none_label,
         )
         title = f"{name} [{spec.units}], valid {when}"
-        written[f"maps/{name}.qml"] = atomic_write_text(
-            path.with_suffix(".qml"), raster_qml(stops, title=title)
-        )
+        written[f"maps/{name}.qml"] = atomic_write_text(path.with_suffix(".qml"), raster_qml(stops))
         written[f"maps/{name}.sld"] = atomic_write_text(
             path.with_suffix(".sld"), raster_sld(stops, name=name, title=title)
         )
