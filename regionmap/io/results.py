@@ -423,13 +423,7 @@ class CellsNcWriter(_StreamingNc):
         )
         time[:] = _seconds(times)
         bnds = nc.createVariable("time_bnds", "f8", ("time", "nv"))
-        bnds.attrs.update(
-            {
-                "units": _EPOCH,
-                "calendar": "standard",
-                "long_name": "start and end of the output interval",
-            }
-        )
+        # a boundary variable takes its units and meaning from ``time`` (CF-1.8 §7.1)
         bnds[:] = np.stack([_seconds(interval_start), _seconds(times)], axis=1)
         fc = nc.createVariable("is_forecast", "i1", ("time",))
         fc.attrs.update(
