@@ -3,6 +3,7 @@
 
 from __future__ import annotations
 
+import hashlib
 import math
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
@@ -11,9 +12,23 @@ import numba
 import numpy as np
 import pandas as pd
 
-from regionmap.errors import ConfigError, InputError
+from regionmap.errors import ConfigError, GridMismatchError, InputError
 
-__all__ = ["CellSettings", "SunlitTable", "CellSet", "build_cells", "sector_names", "sunlit_tables"]
+__all__ = [
+    "CellSettings",
+    "SunlitTable",
+    "CellSet",
+    "build_cells",
+    "sector_names",
+    "sunlit_tables",
+    "IDENTITY_COLUMNS",
+    "describe_cell",
+    "match_cells",
+    "region_fingerprints",
+]
+
+#: The columns of the cell table that identify a cell across runs and zone files.
+IDENTITY_COLUMNS = ("zone", "band_lower_m", "band_upper_m", "aspect_sector", "slope_class")
 
 _SECTORS = {
     4: ["N", "E", "S", "W"],
@@ -436,3 +451,86 @@ def build_cells(dem, terrain, zones, settings: CellSettings | None = None) -> Ce
         crs=dem.crs,
         band_edges_m=edges,
     )
+
+
+# --------------------------------------------------------------------------- identity
+def describe_cell(row) -> str:
+    """A cell's identity in words: ``zone 'North', band 1800-2100 m, aspect NE, slope class 0``."""
+    lo, hi = float(row["band_lower_m"]), float(row["band_upper_m"])
+    band = (
+        f"below {hi:g} m"
+        if lo == -np.inf
+        else (f"above {lo:g} m" if hi == np.inf else f"{lo:g}-{hi:g} m")
+    )
+    return (
+        f"zone {row['zone']!r}, band {band}, aspect {row['aspect_sector']}, "
+        f"slope class {int(row['slope_class'])}"
+    )
+
+
+def match_cells(saved: pd.DataFrame, current: pd.DataFrame, where: str) -> np.ndarray:
+    """Where each of this run's cells is in a saved set of cells, matched by identity
+    (:data:`IDENTITY_COLUMNS`), whatever the order of either.
+
+    Parameters
+    ----------
+    saved, current : DataFrame with the identity columns, one row per cell.
+    where : the saved set's file, for messages.
+
+    Returns
+    -------
+    ndarray (current cell,) int64
+        Row of ``saved`` for each row of ``current``.
+
+    Raises
+    ------
+    GridMismatchError
+        The two sets differ; the message names the first cell found in one and not the other.
+    """
+    cols = list(IDENTITY_COLUMNS)
+    keys_saved = pd.MultiIndex.from_frame(saved[cols].reset_index(drop=True))
+    keys_now = pd.MultiIndex.from_frame(current[cols].reset_index(drop=True))
+    if keys_saved.has_duplicates:
+        dup = saved.reset_index(drop=True)[keys_saved.duplicated()].iloc[0]
+        raise GridMismatchError(f"{where}: the cell {describe_cell(dup)} appears twice")
+    pos = keys_saved.get_indexer(keys_now)
+    if (pos < 0).any():
+        first = current.reset_index(drop=True).iloc[int(np.argmax(pos < 0))]
+        raise GridMismatchError(
+            f"{where}: this run's cell {describe_cell(first)} is not in the state "
+            f"({int((pos < 0).sum())} of {len(current)} cells are not); the state comes from "
+            "other zones or [cells] settings. Hint: continue with the zones and settings of "
+            "the run that wrote it, or start a new season"
+        )
+    if len(saved) != len(current):
+        unused = np.setdiff1d(np.arange(len(saved)), pos)
+        first = saved.reset_index(drop=True).iloc[int(unused[0])]
+        raise GridMismatchError(
+            f"{where}: the state's cell {describe_cell(first)} is not in this run "
+            f"({unused.size} of its {len(saved)} cells are not); the state comes from other "
+            "zones or [cells] settings. Hint: continue with the zones and settings of the run "
+            "that wrote it, or start a new season"
+        )
+    return pos.astype(np.int64)
+
+
+def region_fingerprints(dem, zones) -> dict:
+    """Fingerprints of a run's DEM and of each of its zones, independent of the zones' order.
+
+    Returns
+    -------
+    dict
+        ``{"dem": hex, "zones": {name: hex}}``: SHA-256 (first 16 hex digits) of the DEM's
+        elevations, grid transform and CRS, and of each zone's normalised polygon (WKB, in
+        the DEM's CRS).
+    """
+    import shapely
+
+    h = hashlib.sha256(np.ascontiguousarray(dem.elevation_m, dtype=np.float64).tobytes())
+    h.update(repr(tuple(dem.transform)[:6]).encode())
+    h.update(dem.crs.to_wkt().encode())
+    zone_prints = {
+        str(name): hashlib.sha256(shapely.to_wkb(shapely.normalize(geom))).hexdigest()[:16]
+        for name, geom in zip(zones["zone"], zones.geometry)
+    }
+    return {"dem": h.hexdigest()[:16], "zones": zone_prints}

@@ -382,3 +382,66 @@ def test_drift_results_do_not_depend_on_chunking(scenario, tmp_path):
         run(cfg, tmp_path / f"out{size}")
         outs.append(read(tmp_path / f"out{size}"))
     assert_same(outs[0], outs[1])
+
+
+def _zones_config(scenario: Path, name: str, zones, **kw):
+    """A config of the two-zone scenario with its own zones file."""
+    from regionmap.io.writers import write_geojson
+
+    write_geojson(scenario / f"{name}.geojson", zones)
+    cfg = config(scenario, name, step=500, start="2026-01-18T01:00", **kw)
+    text = cfg.source.read_text().replace("zones.geojson", f"{name}.geojson")
+    cfg.source.write_text(text)
+    return load_config(cfg.source)
+
+
+def _by_identity(out: Path, names=("snow_depth_cm", "swe_kg_m2", "crust_count")):
+    """cells.nc variables with rows sorted by cell identity (zone, band, aspect, class)."""
+    with xr.open_dataset(out / "cells.nc") as ds:
+        keys = list(
+            zip(
+                ds["zone"].values.astype(str),
+                ds["band_lower_m"].values,
+                ds["aspect_sector"].values.astype(str),
+                ds["slope_class"].values,
+            )
+        )
+        order = sorted(range(len(keys)), key=keys.__getitem__)
+        return [keys[k] for k in order], {v: ds[v].values[order] for v in names}
+
+
+def test_continuation_matches_cells_by_identity(scenario, tmp_path, capsys):
+    from regionmap.demo import demo_zones
+
+    zones = demo_zones()
+    first = _zones_config(scenario, "ab_first", zones.iloc[[1, 2]], end="2026-01-19T00:00")
+    run(first, tmp_path / "first")
+    state = tmp_path / "first" / "state.nc"
+    same = _zones_config(scenario, "ab", zones.iloc[[1, 2]], end="2026-01-20T00:00")
+    run(same, tmp_path / "same", continue_from=state)
+    # the zones file reordered between the two days: each cell continues its own snowpack
+    swapped = _zones_config(scenario, "ba", zones.iloc[[2, 1]], end="2026-01-20T00:00")
+    run(swapped, tmp_path / "swapped", continue_from=state)
+    keys_same, same_values = _by_identity(tmp_path / "same")
+    keys_swapped, swapped_values = _by_identity(tmp_path / "swapped")
+    assert keys_same == keys_swapped
+    for name, values in same_values.items():
+        np.testing.assert_array_equal(values, swapped_values[name], err_msg=name)
+    with xr.open_dataset(tmp_path / "swapped" / "cells.nc") as ds:
+        assert ds["zone"].values[0] == zones["name"].iloc[2]  # the new order is the file's
+
+    # one zone edited, or one left out: refused with one line naming it, nothing written
+    edited = zones.iloc[[1, 2]].copy()
+    edited.loc[edited.index[1], "geometry"] = edited.geometry.iloc[1].buffer(-500)
+    capsys.readouterr()
+    for name, zones_now, expect in (
+        ("edited", edited, f"zone {zones['name'].iloc[2]!r} has another polygon"),
+        ("a_only", zones.iloc[[1]], f"the state's cell zone {zones['name'].iloc[2]!r}"),
+    ):
+        cfg = _zones_config(scenario, name, zones_now, end="2026-01-20T00:00")
+        out = tmp_path / name
+        args = ["run", str(cfg.source), "--out", str(out), "--continue-from", str(state)]
+        assert main([*args, "--quiet"]) == 2
+        lines = capsys.readouterr().err.strip().splitlines()
+        assert len(lines) == 1 and expect in lines[0] and "state.nc" in lines[0], lines
+        assert not out.exists()

@@ -152,3 +152,50 @@ def test_params_reject_bad_values():
         SnowParams(max_layers=500)
     with pytest.raises(ConfigError, match="conductivity_model"):
         SnowParams(conductivity_model="other")
+
+
+def _one_layer_state_file(tmp_path, **changes):
+    """state.nc of two cells with one 10 cm layer each, with ``changes`` to its variables."""
+
+    s = SnowState.empty(2, time=START)
+    s.counters[:, 0] = 1
+    s.thickness_m[:, 0] = 0.1
+    s.ice_kg_m2[:, 0] = 20.0
+    s.temperature_k[:, 0] = 265.0
+    s.grain_size_mm[:, 0] = 0.3
+    ds = s.to_dataset()
+    for name, value in changes.items():
+        if name == "time":
+            ds = ds.assign_coords(time=("t", np.array(value, dtype="datetime64[ns]")))
+        else:
+            data = ds[name].values.copy()
+            data[(1, 0) if data.ndim == 2 else 1] = value
+            ds[name] = (ds[name].dims, data, ds[name].attrs)
+    path = tmp_path / "state.nc"
+    ds.to_netcdf(path)
+    return path
+
+
+@pytest.mark.parametrize(
+    "changes, expect",
+    [
+        ({}, None),
+        ({"temperature_k": np.nan}, "variable temperature_k of cell_id 1 layer 0 is nan K"),
+        ({"temperature_k": 290.0}, "temperature_k of cell_id 1 layer 0 is 290 K"),
+        ({"thickness_m": -0.1}, "thickness_m of cell_id 1 layer 0 is -0.1 m"),
+        ({"ice_kg_m2": 1e9}, "ice_kg_m2 of cell_id 1 layer 0 is 1e+09 kg m-2"),
+        ({"ice_kg_m2": 500.0}, "layer 0 of cell_id 1 has a density of 5000 kg m-3"),
+        ({"soil_temperature_k": np.inf}, "soil_temperature_k of cell_id 1 is inf K"),
+        ({"time": ["2026-01-01", "2026-01-02"]}, "variable time must be one valid time"),
+    ],
+)
+def test_load_refuses_impossible_contents(tmp_path, changes, expect):
+    # physical bounds: snow is never above its melting point (273.15 K) and a layer's
+    # density lies below water's 1000 kg m-3 (common knowledge, not a fitted value)
+    path = _one_layer_state_file(tmp_path, **changes)
+    if expect is None:
+        assert SnowState.load(path).layer_count.tolist() == [1, 1]
+        return
+    with pytest.raises(InputError) as info:
+        SnowState.load(path)
+    assert expect in str(info.value) and str(path) in str(info.value)

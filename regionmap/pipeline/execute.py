@@ -23,6 +23,7 @@ from pathlib import Path
 import numpy as np
 
 from regionmap import CAUTION, __version__
+from regionmap.cells import region_fingerprints
 from regionmap.config import Config
 from regionmap.errors import InputError
 from regionmap.io.atomic import atomic_write_text
@@ -30,8 +31,8 @@ from regionmap.io.results import PROFILES_CHUNK_CELLS, CellsNcWriter, ProfilesNc
 from regionmap.pipeline.checkpoints import Checkpoints, checkpoint_times
 from regionmap.pipeline.run import (
     RunContext,
+    align_state,
     cells_frame,
-    check_state_matches,
     chunk_ranges,
     initial_state,
     open_grid_forcing,
@@ -45,7 +46,7 @@ from regionmap.pipeline.run import (
     state_slice,
 )
 from regionmap.snow.codes import CRUST_KINDS, GRAIN_CODES
-from regionmap.snow.state import SnowState
+from regionmap.snow.state import SnowState, load_state_with_identity
 
 __all__ = ["RunOutcome", "execute", "dask_client", "LAYER_VARS"]
 
@@ -308,6 +309,9 @@ def execute(
     t_all = _time.perf_counter()
     timings: dict = {}
     target = Path(out_dir or cfg.output.dir)
+    state0 = None
+    if continue_from is not None:  # read and checked before the long work
+        state0, saved_cells, saved_region = load_state_with_identity(continue_from)
     region = prepare_region(cfg, progress=False)
     timings.update(region.timings_s)
     t0 = _time.perf_counter()
@@ -317,10 +321,12 @@ def execute(
     params = snow_params(cfg)
     diag_every = cfg.output.diagnostics_every_h
 
-    state0 = None
+    fingerprints = region_fingerprints(region.dem, region.zones)
+    table = cells_frame(region)
     if continue_from is not None:
-        state0 = SnowState.load(continue_from)
-        check_state_matches(state0, batch, params, str(continue_from))
+        state0 = align_state(
+            state0, saved_cells, saved_region, table, fingerprints, params, str(continue_from)
+        )
     period = plan_period(
         gf.time,
         state_time=None if state0 is None else state0.time,
@@ -390,7 +396,6 @@ def execute(
     _warm_kernels(params)
     timings["kernel_warm"] = _time.perf_counter() - t0
 
-    table = cells_frame(region)
     is_fc = (
         out_times > period.analysis_end if period.has_forecast else np.zeros(out_times.size, bool)
     )
@@ -475,8 +480,8 @@ def execute(
                 prof_w.abort()
             raise
         _write_event_log(out / "events.csv", events, table)
-        state_an.save(out / "state.nc")
-        state_end.save(out / "state_end.nc")
+        state_an.save(out / "state.nc", cells=table, region=fingerprints)
+        state_end.save(out / "state_end.nc", cells=table, region=fingerprints)
         t0 = _time.perf_counter()
         products = write_products(
             out,

@@ -455,27 +455,69 @@ def simulate_chunk(
     }
 
 
-def check_state_matches(state: SnowState, batch: CellBatch, params: SnowParams, where: str) -> None:
-    """A continuation state must hold the same cells and settings as this run.
+def align_state(
+    state: SnowState,
+    saved_cells,
+    saved_region: dict | None,
+    cells: pd.DataFrame,
+    region: dict,
+    params: SnowParams,
+    where: str,
+) -> SnowState:
+    """A continuation state with its cells in this run's order, matched by identity.
+
+    Parameters
+    ----------
+    state : the loaded state.
+    saved_cells, saved_region : the identity of its cells and its region fingerprints
+        (:func:`regionmap.snow.state.load_state_with_identity`).
+    cells : this run's cell table (cell_id order).
+    region : this run's :func:`regionmap.cells.region_fingerprints`.
+    params : this run's snow settings.
+    where : the state's file, for messages.
 
     Raises
     ------
     GridMismatchError
-        Different cell ids (another region, zones or [cells] settings).
+        No cell identities in the state, another DEM, an edited zone, or different cells
+        (the first one named).
     InputError
         Different snow settings fingerprint.
     """
-    ids = np.asarray(state.cell_id)
-    if ids.shape != batch.cell_id.shape or not np.array_equal(ids, batch.cell_id):
+    from regionmap.cells import match_cells
+
+    if saved_cells is None or saved_region is None:
         raise GridMismatchError(
-            f"{where}: the state holds {ids.size} cells but this run has {batch.cell_id.size}"
-            " (or different cell ids): it comes from another region, zones or [cells] settings"
+            f"{where}: the state holds no cell identities or region fingerprints, so its cells "
+            "cannot be matched to this run's; hint: continue from a state.nc written by this "
+            "version of regionmap, or start a new season"
         )
+    if saved_region["dem"] != region["dem"]:
+        raise GridMismatchError(
+            f"{where}: the state was made on another DEM (fingerprint {saved_region['dem']}, "
+            f"this run {region['dem']}); continue with the DEM of the run that wrote it"
+        )
+    edited = [
+        name
+        for name, print_ in region["zones"].items()
+        if name in saved_region["zones"] and saved_region["zones"][name] != print_
+    ]
+    if edited:
+        raise GridMismatchError(
+            f"{where}: zone {edited[0]!r} has another polygon than in the run that wrote the "
+            "state; its cells would hold another zone's snowpack. Hint: continue with the "
+            "zones of that run, or start a new season"
+        )
+    positions = match_cells(saved_cells, cells, where)
     if state.fingerprint and state.fingerprint != params.fingerprint():
         raise InputError(
             f"{where}: the state was made with other [snow] settings (fingerprint "
             f"{state.fingerprint}, this run {params.fingerprint()}); continue with the same settings"
         )
+    if positions.size and not np.array_equal(positions, np.arange(positions.size)):
+        state = state_take(state, positions)
+    state.cell_id = cells.index.to_numpy(np.int64)
+    return state
 
 
 def state_take(state: SnowState, positions) -> SnowState:

@@ -10,6 +10,7 @@ slots), counters int32, and grain classes / crust kinds the code strings of
 
 from __future__ import annotations
 
+import json
 import os
 import tempfile
 from dataclasses import dataclass, fields
@@ -18,6 +19,7 @@ from pathlib import Path
 import numpy as np
 import xarray as xr
 
+from regionmap.cells import IDENTITY_COLUMNS
 from regionmap.errors import InputError, OutputError
 from regionmap.io.writers import history_entry
 from regionmap.snow.codes import (
@@ -47,7 +49,7 @@ from regionmap.snow.kernel import (
 )
 from regionmap.snow.params import N_SOIL, SOIL_THICKNESS_M
 
-__all__ = ["SnowState", "LAYER_FIELDS"]
+__all__ = ["SnowState", "LAYER_FIELDS", "load_state_with_identity"]
 
 #: (name, in-memory dtype) of the (cell, layer) arrays
 LAYER_FIELDS: tuple[tuple[str, type], ...] = (
@@ -197,8 +199,18 @@ class SnowState:
         return total / max(self.n_cells, 1)
 
     # ---------------------------------------------------------------- state.nc
-    def to_dataset(self) -> xr.Dataset:
-        """The ``state.nc`` layout (DESIGN 3): (cell, layer) bottom first, strings for codes."""
+    def to_dataset(self, cells=None, region: dict | None = None) -> xr.Dataset:
+        """The ``state.nc`` layout: (cell, layer) bottom first, strings for codes.
+
+        Parameters
+        ----------
+        cells : pandas.DataFrame or None
+            The run's cell table in the state's cell order; its :data:`IDENTITY_COLUMNS`
+            are stored along ``cell`` so that a continuation can match cells by identity.
+        region : dict or None
+            Fingerprints of the region (``{"dem": str, "zones": {name: str}}``), stored as
+            the attributes ``dem_fingerprint`` and ``zones_fingerprint`` (JSON).
+        """
         n_layer = self.max_layers
         active = np.arange(n_layer)[None, :] < self.layer_count[:, None]
         dims = ("cell", "layer")
@@ -322,6 +334,15 @@ class SnowState:
         ds["time"].encoding.update(units="seconds since 1970-01-01", dtype="float64")
         for name in ("deposition_time", "formation_time"):
             ds[name].encoding.update(_FillValue=np.nan)
+        if cells is not None:
+            if len(cells) != self.n_cells:
+                raise ValueError("to_dataset: the cell table does not match the state's cells")
+            for name in IDENTITY_COLUMNS:
+                values = cells[name].to_numpy()
+                ds[name] = (("cell",), values.astype(str) if values.dtype == object else values)
+        if region is not None:
+            ds.attrs["dem_fingerprint"] = region["dem"]
+            ds.attrs["zones_fingerprint"] = json.dumps(region["zones"], sort_keys=True)
         return ds
 
     @classmethod
@@ -353,6 +374,16 @@ class SnowState:
                 f"{source}: not a regionmap snow state; missing variables {missing or ['time/cell_id']}; "
                 "hint: pass a state.nc written by regionmap"
             )
+        if ds["time"].ndim != 0:
+            raise InputError(
+                f"{source}: variable time must be one valid time (a scalar), got an array of "
+                f"shape {ds['time'].shape}; expected a state.nc written by regionmap"
+            )
+        if ds["thickness_m"].ndim != 2 or ds["cell_id"].ndim != 1:
+            raise InputError(
+                f"{source}: thickness_m must be (cell, layer) and cell_id (cell,), got "
+                f"{ds['thickness_m'].dims} and {ds['cell_id'].dims}"
+            )
         count = ds["layer_count"].values.astype(np.int64)
         n, n_layer = ds["thickness_m"].shape
         if count.min(initial=0) < 0 or count.max(initial=0) > n_layer:
@@ -361,6 +392,7 @@ class SnowState:
                 f"{count.min()}..{count.max()}"
             )
         active = np.arange(n_layer)[None, :] < count[:, None]
+        _check_physical(ds, active, source)
         try:
             grain = grain_strings_to_codes(np.where(active, ds["grain_class"].values, ""))
             crust = crust_strings_to_codes(np.where(active, ds["crust_kind"].values, "none"))
@@ -412,14 +444,15 @@ class SnowState:
             **layers,
         )
 
-    def save(self, path) -> Path:
-        """Write ``state.nc`` atomically (temporary file in the same folder, then os.replace)."""
+    def save(self, path, *, cells=None, region: dict | None = None) -> Path:
+        """Write ``state.nc`` atomically (temporary file in the same folder, then os.replace);
+        ``cells`` and ``region`` as in :meth:`to_dataset`."""
         path = Path(path)
         try:
             path.parent.mkdir(parents=True, exist_ok=True)
             fd, tmp = tempfile.mkstemp(prefix=".tmp-", suffix=".nc", dir=path.parent)
             os.close(fd)
-            self.to_dataset().to_netcdf(tmp, engine="netcdf4")
+            self.to_dataset(cells, region).to_netcdf(tmp, engine="netcdf4")
             os.replace(tmp, path)
         except OSError as exc:
             raise OutputError(
@@ -431,17 +464,118 @@ class SnowState:
     @classmethod
     def load(cls, path) -> SnowState:
         """Read a ``state.nc`` written by :meth:`save`."""
-        path = Path(path)
-        if not path.is_file():
+        return load_state_with_identity(path)[0]
+
+
+#: Plausible ranges of the active layers' values in a state.nc: (variable, low, high, unit,
+#: what is impossible about values outside). Snow is never warmer than melting point
+#: (273.15 K; a little margin for rounding); no seasonal snowpack holds a 20 m layer; a
+#: layer's density lies between fresh snow's (tens of kg m-3) and water's.
+_LAYER_RANGES = (
+    ("temperature_k", 150.0, 273.5, "K", "snow temperature"),
+    ("thickness_m", 1e-6, 20.0, "m", "layer thickness"),
+    ("ice_kg_m2", 0.0, 2e4, "kg m-2", "ice mass of a layer"),
+    ("liquid_kg_m2", 0.0, 2e4, "kg m-2", "liquid water of a layer"),
+    ("grain_size_mm", 0.0, 100.0, "mm", "grain size"),
+)
+_CELL_RANGES = (
+    ("soil_temperature_k", 200.0, 340.0, "K", "soil temperature"),
+    ("surface_temperature_k", 150.0, 340.0, "K", "surface temperature"),
+    ("albedo", 0.0, 1.0, "1", "albedo"),
+    ("surface_hoar_kg_m2", 0.0, 100.0, "kg m-2", "surface-hoar mass"),
+    ("new_snow_history_kg_m2", 0.0, 1e3, "kg m-2", "hourly new snow"),
+    ("new_snow_history_m", 0.0, 10.0, "m", "hourly new-snow depth"),
+)
+
+
+def _first_bad(values: np.ndarray, low: float, high: float, mask=None):
+    """Index and value of the first entry outside [low, high] or not finite (None if none)."""
+    with np.errstate(invalid="ignore"):
+        bad = ~(np.isfinite(values) & (values >= low) & (values <= high))
+    if mask is not None:
+        bad &= mask
+    if not bad.any():
+        return None
+    where = np.unravel_index(int(np.argmax(bad)), values.shape)
+    return where, values[where]
+
+
+def _check_physical(ds: xr.Dataset, active: np.ndarray, source: str) -> None:
+    """Refuse a state whose values cannot be physical (NaN, negative, absurd).
+
+    Raises
+    ------
+    InputError
+        Naming the file, the variable, the first offending cell (and layer) and the range.
+    """
+    ids = ds["cell_id"].values
+    for name, low, high, unit, what in _LAYER_RANGES + _CELL_RANGES:
+        values = np.asarray(ds[name].values, dtype=np.float64)
+        found = _first_bad(values, low, high, active if values.shape == active.shape else None)
+        if found is not None:
+            where, value = found
+            layer = f" layer {where[1]}" if values.shape == active.shape else ""
             raise InputError(
-                f"{path}: snow state file not found; hint: give the state.nc of an "
-                "earlier run (--continue-from)"
+                f"{source}: variable {name} of cell_id {ids[where[0]]}{layer} is {value:g} "
+                f"{unit}; a {what} must lie within {low:g}..{high:g} {unit}; the state is "
+                "damaged or not written by regionmap"
             )
+    mass = np.asarray(ds["ice_kg_m2"].values, float) + np.asarray(ds["liquid_kg_m2"].values, float)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        density = mass / np.asarray(ds["thickness_m"].values, float)
+    found = _first_bad(density, 1.0, 1000.0 * 1.01, active)
+    if found is not None:
+        (cell, layer), value = found
+        raise InputError(
+            f"{source}: layer {layer} of cell_id {ids[cell]} has a density of {value:g} kg m-3 "
+            "((ice_kg_m2 + liquid_kg_m2) / thickness_m); expected 1..1000 kg m-3; the state "
+            "is damaged or not written by regionmap"
+        )
+
+
+def load_state_with_identity(path) -> tuple[SnowState, object, dict | None]:
+    """Read a ``state.nc`` with the identity of its cells.
+
+    Returns
+    -------
+    state : SnowState
+    cells : pandas.DataFrame or None
+        The :data:`IDENTITY_COLUMNS` of each cell in the state's order (None when the file
+        holds none).
+    region : dict or None
+        ``{"dem": fingerprint, "zones": {name: fingerprint}}`` (None when absent).
+
+    Raises
+    ------
+    InputError
+        Missing or unreadable file, or contents that are not a valid snow state.
+    """
+    import pandas as pd
+
+    path = Path(path)
+    if not path.is_file():
+        raise InputError(
+            f"{path}: snow state file not found; hint: give the state.nc of an "
+            "earlier run (--continue-from)"
+        )
+    try:
+        with xr.open_dataset(path, engine="netcdf4") as ds:
+            ds.load()
+    except (OSError, ValueError, RuntimeError) as exc:
+        raise InputError(f"{path}: cannot read as NetCDF ({exc}); expected a state.nc") from None
+    state = SnowState.from_dataset(ds, source=str(path))
+    cells = None
+    if all(name in ds.variables and ds[name].dims == ("cell",) for name in IDENTITY_COLUMNS):
+        cells = pd.DataFrame({name: ds[name].values for name in IDENTITY_COLUMNS})
+        cells["zone"] = cells["zone"].astype(str)
+        cells["aspect_sector"] = cells["aspect_sector"].astype(str)
+    region = None
+    if "dem_fingerprint" in ds.attrs and "zones_fingerprint" in ds.attrs:
         try:
-            with xr.open_dataset(path, engine="netcdf4") as ds:
-                ds.load()
-        except (OSError, ValueError) as exc:
-            raise InputError(
-                f"{path}: cannot read as NetCDF ({exc}); expected a state.nc"
-            ) from None
-        return cls.from_dataset(ds, source=str(path))
+            zones = json.loads(ds.attrs["zones_fingerprint"])
+        except ValueError:
+            zones = None
+        if not isinstance(zones, dict):
+            raise InputError(f"{path}: attribute zones_fingerprint is not a JSON object")
+        region = {"dem": str(ds.attrs["dem_fingerprint"]), "zones": zones}
+    return state, cells, region
