@@ -7,12 +7,14 @@ fault. ``--debug`` shows tracebacks.
 from __future__ import annotations
 
 import argparse
+import logging
 import sys
 import traceback
+import warnings
 from pathlib import Path
 
 from regionmap import CAUTION, __version__
-from regionmap.errors import InputError, RegionmapError
+from regionmap.errors import InputError, RegionmapError, RegionmapWarning
 from regionmap.io.times import local_time_label
 
 __all__ = ["main", "build_parser"]
@@ -187,9 +189,27 @@ def _cmd_demo(args: argparse.Namespace) -> int:
     return run_demo(args.out, progress=not args.quiet)
 
 
+def _positive_int(text: str) -> int:
+    """An argparse type: a whole number of at least 1."""
+    try:
+        value = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected a whole number >= 1, got {text!r}") from None
+    if value < 1:
+        raise argparse.ArgumentTypeError(f"expected a whole number >= 1, got {value}")
+    return value
+
+
+class _Parser(argparse.ArgumentParser):
+    """argparse with its usage errors as one line (the usage stays in ``--help``)."""
+
+    def error(self, message: str):
+        self.exit(2, f"regionmap: error: {self.prog}: {message}; see {self.prog} --help\n")
+
+
 def build_parser() -> argparse.ArgumentParser:
     """The argument parser with every sub-command (also used to document the CLI)."""
-    parser = argparse.ArgumentParser(
+    parser = _Parser(
         prog="regionmap",
         description="Regional snowpack-structure guidance for avalanche forecasters: downscale NWP "
         "forcing to elevation-band x aspect cells, run a snow column per cell, and map weak "
@@ -198,14 +218,34 @@ def build_parser() -> argparse.ArgumentParser:
     )
     parser.add_argument("--version", action="version", version=f"regionmap {__version__}")
     parser.add_argument("--debug", action="store_true", help="show tracebacks on errors")
-    parser.add_argument("--quiet", action="store_true", help="no progress bars")
-    # the same two options after the sub-command, too
-    common = argparse.ArgumentParser(add_help=False)
+    parser.add_argument(
+        "-q", "--quiet", action="store_true", help="no progress bars; errors only in the log"
+    )
+    parser.add_argument(
+        "-v",
+        "--verbose",
+        action="count",
+        default=0,
+        help="more log messages (-v: progress of the stages and library warnings, -vv: debug)",
+    )
+    # the same options after the sub-command, too
+    common = _Parser(add_help=False)
     common.add_argument(
         "--debug", action="store_true", default=argparse.SUPPRESS, help="show tracebacks on errors"
     )
     common.add_argument(
-        "--quiet", action="store_true", default=argparse.SUPPRESS, help="no progress bars"
+        "-q",
+        "--quiet",
+        action="store_true",
+        default=argparse.SUPPRESS,
+        help="no progress bars; errors only in the log",
+    )
+    common.add_argument(
+        "-v",
+        "--verbose",
+        action="count",
+        default=argparse.SUPPRESS,
+        help="more log messages (-v, -vv)",
     )
     sub = parser.add_subparsers(dest="command", metavar="COMMAND", required=True)
     _add = sub.add_parser
@@ -260,7 +300,7 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--aspect", help="aspect sector of the restarted cells (N, NE, ... or flat)")
     group = p.add_mutually_exclusive_group()
     group.add_argument(
-        "--workers", type=int, metavar="N", help="a local dask cluster of N processes"
+        "--workers", type=_positive_int, metavar="N", help="a local dask cluster of N processes"
     )
     group.add_argument(
         "--scheduler", metavar="ADDRESS", help="an existing dask.distributed scheduler"
@@ -417,12 +457,51 @@ def _small_netcdf_chunk_caches() -> None:
     netCDF4.set_chunk_cache(4 * 2**20)
 
 
+#: Libraries with log handlers of their own (dask.distributed prints its workers' errors
+#: and tracebacks): silent by default, their warnings shown with -v, more with -vv.
+_LIBRARY_LOGGERS = ("distributed", "dask", "tornado", "asyncio", "bokeh", "numba", "rasterio")
+
+
+def _show_warning(message, category, filename, lineno, file=None, line=None) -> None:
+    """Warnings as log records: regionmap's own as one warning line, libraries' at INFO
+    (seen with -v), so that library noise never reaches the terminal by default."""
+    if issubclass(category, RegionmapWarning):
+        logging.getLogger("regionmap").warning("%s", message)
+    else:
+        logging.getLogger("py.warnings").info(
+            "%s: %s (%s:%s)", category.__name__, message, filename, lineno
+        )
+
+
+def configure_logging(verbosity: int = 0, quiet: bool = False) -> int:
+    """Standard-library logging for a command: regionmap's messages from WARNING (default),
+    INFO (-v), DEBUG (-vv) or ERROR (-q) on; other libraries' messages and warnings only
+    with -v. Returns the level set."""
+    level = logging.ERROR if quiet else max(logging.DEBUG, logging.WARNING - 10 * verbosity)
+    root = logging.getLogger()
+    for handler in list(root.handlers):
+        if getattr(handler, "_regionmap", False):
+            root.removeHandler(handler)
+    handler = logging.StreamHandler(sys.stderr)
+    handler.setFormatter(logging.Formatter("regionmap: %(levelname)s: %(message)s"))
+    handler.addFilter(lambda record: verbosity >= 1 or record.name.startswith("regionmap"))
+    handler._regionmap = True
+    root.addHandler(handler)
+    root.setLevel(level)
+    library_level = {0: logging.CRITICAL + 1, 1: logging.WARNING}.get(verbosity, logging.INFO)
+    for name in _LIBRARY_LOGGERS:
+        logging.getLogger(name).setLevel(max(level, library_level))
+    warnings.showwarning = _show_warning
+    return level
+
+
 def main(argv: list[str] | None = None) -> int:
     """Run the CLI; returns the exit status."""
     _return_freed_memory_to_the_os()
     _small_netcdf_chunk_caches()
     parser = build_parser()
     args = parser.parse_args(argv)
+    configure_logging(args.verbose, args.quiet)
     try:
         return int(args.func(args) or 0)
     except RegionmapError as exc:

@@ -16,7 +16,16 @@ import zoneinfo
 from pathlib import Path
 from typing import Annotated, Any, Literal
 
-from pydantic import BaseModel, ConfigDict, Field, ValidationError, field_validator, model_validator
+from pydantic import (
+    AfterValidator,
+    BaseModel,
+    BeforeValidator,
+    ConfigDict,
+    Field,
+    ValidationError,
+    field_validator,
+    model_validator,
+)
 
 from regionmap.errors import ConfigError
 
@@ -30,6 +39,28 @@ BIAS_VARIABLES = (
     "shortwave_down",
     "longwave_down",
 )
+
+
+def _time_input(value):
+    """A TOML date-time, a local date, or an ISO 8601 text; numbers are refused (pydantic
+    would read them as seconds since 1970)."""
+    if isinstance(value, dt.datetime | str):
+        return value
+    if isinstance(value, dt.date):
+        return dt.datetime(value.year, value.month, value.day)
+    raise ValueError(f"expected a date-time such as 2026-01-15T00:00 (UTC), got {value!r}")
+
+
+def _as_utc(value: dt.datetime) -> dt.datetime:
+    """Times with an offset are converted to UTC; times without one are taken as UTC. Both
+    come back without a time zone, so they compare with each other."""
+    if value.tzinfo is not None:
+        value = value.astimezone(dt.UTC).replace(tzinfo=None)
+    return value
+
+
+#: A time in the config: UTC unless it carries an offset (then converted to UTC).
+UtcTime = Annotated[dt.datetime, BeforeValidator(_time_input), AfterValidator(_as_utc)]
 
 
 class _Section(BaseModel):
@@ -99,9 +130,9 @@ class HeightsSection(_Section):
 
 class ForcingSection(_Section):
     path: str
-    start: dt.datetime | None = None
-    end: dt.datetime | None = None
-    analysis_time: dt.datetime | None = None
+    start: UtcTime | None = None
+    end: UtcTime | None = None
+    analysis_time: UtcTime | None = None
     variables: dict[str, VariableMapping] = Field(default_factory=dict)
     heights_m: HeightsSection = HeightsSection()
     static: Path | None = None
@@ -178,7 +209,7 @@ class BiasSection(_Section):
 
 class OutputSection(_Section):
     dir: Path = Path("out")
-    map_time: dt.datetime | None = None
+    map_time: UtcTime | None = None
     diagnostics_every: str = "1h"
     local_timezone: str = "UTC"
     observation_hour: Annotated[int, Field(ge=0, le=23)] = 7
@@ -257,7 +288,7 @@ class StationsSection(_Section):
 
 class RestartEntry(_Section):
     profile: Path
-    time: dt.datetime | None = None
+    time: UtcTime | None = None
     zone: str
     bands: list[str]
     aspects: list[str]
@@ -436,6 +467,12 @@ def load_config(path: str | Path) -> Config:
         text = p.read_text(encoding="utf-8")
     except FileNotFoundError:
         raise ConfigError(f"config file {p} does not exist") from None
+    except UnicodeDecodeError as exc:
+        line = p.read_bytes()[: exc.start].count(b"\n") + 1
+        raise ConfigError(
+            f"{p}: line {line} is not UTF-8 text (byte 0x{exc.object[exc.start]:02x}); TOML "
+            "files are UTF-8: save the file as UTF-8"
+        ) from None
     except OSError as exc:
         raise ConfigError(f"cannot read config file {p}: {exc.strerror}") from None
     try:

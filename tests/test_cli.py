@@ -90,6 +90,13 @@ def _zones(path, box=(600_100, 5_198_100, 601_900, 5_199_900), geometry="polygon
         ("zones_without_polygons", "polygon"),
         ("unknown_config_key", "did you mean 'zone_field'"),
         ("wrong_type", "aspect_sectors"),
+        ("non_utf8_config", "line 2 is not UTF-8 text (byte 0xe9)"),
+        ("number_for_a_time", "[forcing] start: expected a date-time"),
+        # a time with an offset beside one without: both UTC, so the run reaches the forcing
+        ("time_zone_mixed", "f.nc' does not exist"),
+        ("huge_zone_coordinates", "coordinate of 1e+308 m, beyond any place on Earth"),
+        ("workers_zero", "--workers: expected a whole number >= 1, got 0"),
+        ("workers_negative", "--workers: expected a whole number >= 1, got -2"),
     ],
 )
 def test_bad_inputs_exit_2_with_one_line_and_write_nothing(tmp_path, case, expect):
@@ -106,6 +113,8 @@ def test_bad_inputs_exit_2_with_one_line_and_write_nothing(tmp_path, case, expec
         _dem(dem)
     if case == "zones_miss_dem":
         _zones(zones, box=(700_000, 5_000_000, 701_000, 5_001_000))
+    elif case == "huge_zone_coordinates":
+        _zones(zones, box=(600_100, 5_198_100, 1e308, 5_199_900))
     elif case == "zones_without_polygons":
         _zones(zones, geometry="point")
     else:
@@ -114,13 +123,22 @@ def test_bad_inputs_exit_2_with_one_line_and_write_nothing(tmp_path, case, expec
         extra = 'zone_feild = "name"\n'
     if case == "wrong_type":
         extra = '[cells]\naspect_sectors = "eight"\n'
+    forcing = 'path = "f.nc"\n'
+    if case == "number_for_a_time":
+        forcing += "start = 2026\n"
+    if case == "time_zone_mixed":
+        forcing += "start = 2026-01-01T01:00:00+01:00\nend = 2026-01-02T00:00:00\n"
     cfg = tmp_path / "run.toml"
     cfg.write_text(
-        f'[region]\ndem = "dem.tif"\nzones = "zones.geojson"\n{extra}[forcing]\npath = "f.nc"\n'
+        f'[region]\ndem = "dem.tif"\nzones = "zones.geojson"\n{extra}[forcing]\n{forcing}'
     )
+    if case == "non_utf8_config":
+        cfg.write_bytes(b"# regionmap\n# Sch\xe9ma in Latin-1\n" + cfg.read_bytes())
     out = tmp_path / "out"
+    options = {"workers_zero": ["--workers", "0"], "workers_negative": ["--workers", "-2"]}
     proc = subprocess.run(
-        [sys.executable, "-m", "regionmap", "run", str(cfg), "--out", str(out)],
+        [sys.executable, "-m", "regionmap", "run", str(cfg), "--out", str(out)]
+        + options.get(case, []),
         capture_output=True,
         text=True,
     )
@@ -129,3 +147,31 @@ def test_bad_inputs_exit_2_with_one_line_and_write_nothing(tmp_path, case, expec
     assert len(lines) == 1 and lines[0].startswith("regionmap: error:"), proc.stderr
     assert expect in lines[0]
     assert not out.exists()
+
+
+def test_library_warnings_do_not_reach_the_terminal(tmp_path):
+    # a raster without any georeferencing: rasterio warns (NotGeoreferencedWarning) on open;
+    # the user sees only regionmap's one line
+    import warnings
+
+    import numpy as np
+    import rasterio
+
+    dem = tmp_path / "plain.tif"
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        with rasterio.open(
+            dem, "w", driver="GTiff", width=20, height=20, count=1, dtype="float32"
+        ) as dst:
+            dst.write(np.full((20, 20), 1500.0, dtype="float32"), 1)
+    base = [sys.executable, "-m", "regionmap"]
+    args = ["terrain", str(dem), "--out", str(tmp_path / "t")]
+    proc = subprocess.run(base + args, capture_output=True, text=True)
+    assert proc.returncode == 2
+    assert (
+        proc.stderr.strip().splitlines() == [proc.stderr.strip().splitlines()[0]]
+        and "no coordinate reference system" in proc.stderr
+    )
+    # -v shows them, as one log line each
+    proc = subprocess.run(base + ["-v"] + args, capture_output=True, text=True)
+    assert proc.returncode == 2 and "NotGeoreferencedWarning" in proc.stderr

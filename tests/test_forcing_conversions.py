@@ -156,9 +156,18 @@ def test_integral_shortwave_and_accumulated_mapping_without_bounds(tmp_path):
     ds["ssrd"].attrs["standard_name"] = (
         "integral_wrt_time_of_surface_downwelling_shortwave_flux_in_air"
     )
-    mapping = {"precipitation_amount": {"name": "pr", "units": "mm", "accumulated": True}}
+    mapping = {
+        "precipitation_amount": {"name": "pr", "units": "mm", "accumulated": True},
+        # accumulated since the start: without the flag, 100 W m-2 summed for 16 h would be
+        # read as one hour of 1600 W m-2 (refused as unphysical)
+        "integral_wrt_time_of_surface_downwelling_shortwave_flux_in_air": {
+            "name": "ssrd",
+            "accumulated": True,
+        },
+    }
     path = write(ds, tmp_path)
     gf = open_forcing(path, variables=mapping)
+    np.testing.assert_allclose(gf.shortwave_down.values, 100.0, rtol=1e-6)
     # without bounds the first accumulated label is the baseline: the hourly axis starts one later
     assert gf.time[0] == T0 + np.timedelta64(1, "h")
     np.testing.assert_allclose(gf.precipitation.values, ds["pr"].diff("time").values, rtol=1e-6)

@@ -137,3 +137,61 @@ def test_bad_variables_mapping_is_a_config_error(tmp_path):
         ForcingReadError, match=r"'T2M' named in \[forcing\] variables\.air_temperature"
     ):
         open_forcing(path, variables={"air_temperature": {"name": "T2M"}})
+
+
+@pytest.mark.parametrize(
+    "case, expect",
+    [
+        (
+            "celsius_as_kelvin",
+            r"'t2m'.*-?\d.* K at .*cannot be physical.*degrees Celsius labelled K",
+        ),
+        ("kelvin_as_celsius", r"'t2m'.*cannot be physical.*kelvin labelled degrees Celsius"),
+        ("wind_in_km_h", r"'u10'.*cannot be physical.*km h-1 labelled m s-1"),
+        ("precip_mm_as_m", r"'pr'.*kg m-2 per hour.*cannot be physical.*mm labelled m"),
+        ("temperature_spike", r"'t2m'.*1e\+06 K at 2026-01-01T13:00:00 cannot be physical"),
+    ],
+)
+def test_values_that_cannot_be_physical_are_refused_at_open(tmp_path, case, expect):
+    # bounds well beyond the world's weather records (184-330 K air temperature, ~113 m s-1
+    # gusts, ~300 mm of rain in an hour): common knowledge, not fitted values
+    ds = make_forcing()
+    if case == "celsius_as_kelvin":
+        ds["t2m"] = ds["t2m"] - 273.15
+    elif case == "kelvin_as_celsius":
+        ds["t2m"].attrs["units"] = "degC"
+    elif case == "wind_in_km_h":
+        ds["u10"] = ds["u10"] * 0 + 100.0
+    elif case == "precip_mm_as_m":
+        ds["pr"] = ds["pr"] + 5.0
+        ds["pr"].attrs.update(units="m", standard_name="lwe_thickness_of_precipitation_amount")
+    else:
+        ds["t2m"][12, 1, 1] = 1e6
+    for name in ("t2m", "u10", "pr"):
+        ds[name].attrs.update(
+            {k: v for k, v in make_forcing()[name].attrs.items() if k not in ds[name].attrs}
+        )
+    with pytest.raises(ForcingReadError, match=r"f\.nc.*" + expect):
+        open_forcing(write(ds, tmp_path))
+
+
+def test_a_corrupted_compressed_chunk_names_file_and_variable(tmp_path):
+    import h5py
+
+    ds = make_forcing(n_h=96, ny=12, nx=12)
+    enc = {
+        k: {"units": "hours since 2025-10-01 00:00:00", "dtype": "float64"}
+        for k in ("time", "time_bnds")
+    }
+    for name in ("t2m", "rh", "u10", "v10", "ssrd", "pr"):
+        enc[name] = {"zlib": True, "complevel": 4, "chunksizes": (48, 6, 6)}
+    path = tmp_path / "f.nc"
+    ds.to_netcdf(path, encoding=enc)
+    with h5py.File(path) as f:
+        chunk = f["u10"].id.get_chunk_info(2)
+    raw = bytearray(path.read_bytes())
+    middle = chunk.byte_offset + chunk.size // 2
+    raw[middle : middle + 32] = b"\xff" * 32  # inside the deflate stream of one chunk
+    path.write_bytes(bytes(raw))
+    with pytest.raises(ForcingReadError, match=r"f\.nc', variable 'u10': cannot be read.*damaged"):
+        open_forcing(path)

@@ -39,8 +39,9 @@ def grid_coords(kind, ny=6, nx=7):
             "lat": ("y", lat, {"units": "degrees_north", "standard_name": "latitude"}),
             "lon": ("x", lon, {"units": "degrees_east", "standard_name": "longitude"}),
         }
-        field = 2.0 * lon[None, :] + 3.0 * lat[:, None]
-        return coords, field, (lambda lo, la: 2.0 * lo + 3.0 * la), None
+        # a linear field of a few kelvin (centred on the grid, so 270 K + field is physical)
+        field = 2.0 * (lon[None, :] - 11.0) + 3.0 * (lat[:, None] - 46.0)
+        return coords, field, (lambda lo, la: 2.0 * (lo - 11.0) + 3.0 * (la - 46.0)), None
     x = -9000.0 + 3000.0 * np.arange(nx)
     y = -6000.0 + 3000.0 * np.arange(ny)
     crs = CRS.from_cf(LCC)

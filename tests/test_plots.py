@@ -18,7 +18,10 @@ from regionmap.plots.style import (
     METRIC_RAMP,
     OKABE_ITO,
     grain_colour,
+    new_figure,
     relative_luminance,
+    render_png,
+    zone_slug,
 )
 from regionmap.plots.tracker import (
     MAX_TRACKER_LINES,
@@ -325,3 +328,22 @@ def test_layer_tracks_of_chosen_layers_equal_the_full_tracks(outputs):
     )
     pd.testing.assert_frame_equal(chosen[full.columns], full)
     assert set(chosen["layer_id"]) == set(ids)
+
+
+def test_zone_file_names_are_unique_per_zone():
+    names = ["H West", "H-West", "h/west", "h west", "H West "]
+    slugs = [zone_slug(n) for n in names]
+    assert len(set(slugs)) == len(names)
+    assert all(s.startswith("h-west-") for s in slugs)
+    assert zone_slug("H West") == zone_slug("H West")  # stable from run to run
+
+
+def test_dollar_signs_in_names_are_drawn_as_plain_text():
+    # a mathtext parse of "$\\frac{$" would raise; drawn as plain text it renders
+    fig = new_figure(3, 2)
+    ax = fig.add_subplot()
+    ax.set_title("Zone $\\frac{$ x")
+    ax.set_xticks([0, 1], ["$a$", "$\\unknowncommand$"])
+    png, _ = render_png(fig, dpi=50)
+    assert png.startswith(b"\x89PNG")
+    assert ax.title.get_parse_math() is False

@@ -14,6 +14,7 @@ import html5lib
 import pytest
 from test_plots_synthrun import build_output_folder
 
+from regionmap.plots.style import zone_slug
 from regionmap.report.briefing import (
     REPORT_MAX_BYTES,
     _data_uri,
@@ -97,7 +98,8 @@ def test_report_without_verification_skips_the_section_with_a_note_and_lists_fig
     assert all(p.is_file() for p in paths)
     assert {p.suffix for p in paths} == {".png", ".csv"}
     names = {p.name for p in paths}
-    assert "map_snow_depth_cm.png" in names and "overview_zone-a_depth_hoar_fraction.csv" in names
+    overview = f"overview_{zone_slug('Zone A')}_depth_hoar_fraction.csv"
+    assert "map_snow_depth_cm.png" in names and overview in names
     assert not (folder / "report.html").exists()
     text = write_report(folder).read_text(encoding="utf-8")
     assert "No station verification results in this output folder" in text

@@ -916,6 +916,7 @@ def _series(s: _Source, rows, reader, stats, fn=None):
             amount[neg] = 0.0
         y = S[:, need] @ amount / _H  # interval means; amounts are re-multiplied by the caller
     y[~s.covered[rows]] = np.nan
+    _check_physical(s, y, rows)
     run, (t_at, _) = _longest_run(np.isnan(y))
     if run > MAX_GAP_H:
         raise ForcingReadError(
@@ -926,6 +927,75 @@ def _series(s: _Source, rows, reader, stats, fn=None):
     stats["nan_filled"] += int((np.isnan(y) & s.covered[rows][:, None]).sum())
     y = _fill_nan(y)
     return y.reshape((y.shape[0],) + rest)
+
+
+#: Values no weather model produces near the ground: standard name -> (low, high, unit,
+#: factor from the reader's hourly series to the checked unit). Bounds well outside the
+#: records (about 184 K to 330 K air temperature, 113 m s-1 gust, about 300 mm of rain in
+#: an hour; common knowledge of the world's weather records, not fitted values).
+_PHYSICAL = {
+    "air_temperature": (180.0, 340.0, "K", 1.0),
+    "upper_air_temperature": (150.0, 340.0, "K", 1.0),
+    "dew_point_temperature": (150.0, 340.0, "K", 1.0),
+    "wind_speed": (0.0, 75.0, "m s-1", 1.0),
+    "eastward_wind": (-75.0, 75.0, "m s-1", 1.0),
+    "northward_wind": (-75.0, 75.0, "m s-1", 1.0),
+    "precipitation_flux": (-np.inf, 200.0, "kg m-2 per hour", _H),
+    "lwe_precipitation_rate": (-np.inf, 200.0, "kg m-2 per hour", _H),
+    "precipitation_amount": (-np.inf, 200.0, "kg m-2 per hour", _H),
+    "lwe_thickness_of_precipitation_amount": (-np.inf, 200.0, "kg m-2 per hour", _H),
+    "surface_downwelling_shortwave_flux_in_air": (-50.0, 1500.0, "W m-2", 1.0),
+    "integral_wrt_time_of_surface_downwelling_shortwave_flux_in_air": (
+        -50.0,
+        1500.0,
+        "W m-2",
+        1.0,
+    ),
+    "surface_downwelling_longwave_flux_in_air": (30.0, 700.0, "W m-2", 1.0),
+    "integral_wrt_time_of_surface_downwelling_longwave_flux_in_air": (30.0, 700.0, "W m-2", 1.0),
+    "surface_air_pressure": (2.5e4, 1.1e5, "Pa", 1.0),
+}
+
+
+def _unit_hint(s: _Source, low: float, high: float, value: float) -> str:
+    """The likely unit mix-up behind an impossible value, or ''."""
+    sn = s.standard_name
+    if sn.endswith("temperature"):
+        if s.offset == 0.0 and -90.0 < value < 60.0:
+            return '; the values look like degrees Celsius labelled K: set units = "degC"'
+        if s.offset != 0.0 and low < value - 273.15 < high:
+            return '; the values look like kelvin labelled degrees Celsius: set units = "K"'
+    if "precipitation" in sn and low < value / 1000.0 < high:
+        return "; the values look 1000 times too large: mm labelled m?"
+    if "wind" in sn and low <= value / 3.6 <= high:
+        return '; the speeds look like km h-1 labelled m s-1: set units = "km h-1"'
+    return ""
+
+
+def _check_physical(s: _Source, y: np.ndarray, rows: np.ndarray) -> None:
+    """Refuse values that cannot be physical (unit mix-ups), naming file, variable and time.
+
+    Raises
+    ------
+    ForcingReadError
+        With the first offending value, the plausible range and, where one fits, the likely
+        unit mix-up.
+    """
+    if s.standard_name not in _PHYSICAL or not y.size:
+        return
+    name = "upper_air_temperature" if s.level_pa is not None else s.standard_name
+    low, high, unit, factor = _PHYSICAL[name]
+    v = y * factor
+    with np.errstate(invalid="ignore"):
+        bad = (v < low) | (v > high)
+    if not bad.any():
+        return
+    t, p = np.unravel_index(int(np.argmax(bad)), bad.shape)
+    value = float(v[t, p])
+    raise ForcingReadError(
+        f"{s.label()}: {value:.6g} {unit} at {np.datetime64(int(s.hours[rows[t]]), 's')} cannot "
+        f"be physical (expected {low:g} to {high:g} {unit}){_unit_hint(s, low, high, value)}"
+    )
 
 
 def _available(sources, name):
@@ -1080,7 +1150,40 @@ def _validate(sources, alt, n_h) -> dict:
         for i in range(alt_d.numblocks[1])
     ]
     counts = {"nan_filled": 0, "negative_precip_clipped": 0, "rh_clipped": 0}
-    for r in dask.compute(*tasks):
+    try:
+        results = dask.compute(*tasks)
+    except ForcingReadError:
+        raise
+    except (RuntimeError, OSError, ValueError) as exc:  # netCDF-C/HDF5 and codec errors
+        raise _unreadable(sources, members, exc) from None
+    for r in results:
         for k in counts:
             counts[k] += r[k]
     return counts
+
+
+def _unreadable(sources, members, exc: Exception) -> ForcingReadError:
+    """The error naming the file and variable that could not be read, found by reading
+    each variable of each file again in spatial blocks (after a failed pass over all data)."""
+    for r, k in members:
+        s = sources[r][k]
+        for f, path in enumerate(s.paths):
+            rows = np.flatnonzero(s.file_of == f)
+            if rows.size == 0:
+                continue
+            part = s.data[rows[0] : rows[-1] + 1]
+            side = max(8, int(np.sqrt(4e6 / max(int(np.prod(part.shape[:-2])), 1))))
+            part = part.rechunk((-1,) * (part.ndim - 2) + (side, side))
+            try:
+                for block in part.to_delayed().ravel():
+                    block.compute(scheduler="synchronous")
+            except (RuntimeError, OSError, ValueError) as inner:
+                return ForcingReadError(
+                    f"forcing file {path!r}, variable {s.names[f]!r}: cannot be read "
+                    f"({type(inner).__name__}: {inner}); the file is damaged (e.g. a corrupted "
+                    "compressed chunk) or truncated; hint: write or download it again"
+                )
+    return ForcingReadError(
+        f"forcing file {sources['air_temperature'][0].paths[0]!r}: reading the data failed "
+        f"({type(exc).__name__}: {exc})"
+    )

@@ -15,6 +15,7 @@ import numpy as np
 
 from regionmap.errors import InputError, OutputError
 from regionmap.io.atomic import atomic_path
+from regionmap.io.tables import spreadsheet_safe
 
 __all__ = [
     "GPKG_VERSION",
@@ -328,8 +329,9 @@ def table_text(frame, *, booleans_as_text: bool = True):
 
 def write_csv(path: str | os.PathLike, frame) -> Path:
     """Write a table as CSV (UTF-8, comma separated, header row, no index) atomically, in
-    the text of :func:`table_text`; missing values are empty fields."""
-    text = table_text(frame)
+    the text of :func:`table_text`; missing values are empty fields; texts a spreadsheet
+    would run as formulas neutralised (:func:`regionmap.io.tables.spreadsheet_safe`)."""
+    text = table_text(spreadsheet_safe(frame))
     with atomic_path(path) as tmp:
         text.to_csv(tmp, index=False, lineterminator="\n")
     return Path(path)

@@ -32,6 +32,32 @@ def _polygonal_part(geom):
     return merged if isinstance(merged, (Polygon, MultiPolygon)) else None
 
 
+def _check_coordinates(names, geoms, crs, where: str) -> None:
+    """Refuse coordinates that are not finite or lie beyond any place on Earth: longitudes
+    and latitudes outside +-360 / +-90 degrees, projected coordinates beyond 1e8 m.
+
+    Raises
+    ------
+    InputError
+        Naming the first such zone and one of its coordinates.
+    """
+    import shapely
+
+    limits = np.array([360.0, 90.0, 360.0, 90.0]) if crs.is_geographic else np.full(4, 1e8)
+    bounds = shapely.bounds(np.asarray(list(geoms), dtype=object))
+    with np.errstate(invalid="ignore"):
+        bad = ~(np.abs(bounds) <= limits).all(axis=1)
+    if bad.any():
+        k = int(np.argmax(bad))
+        value = bounds[k][~(np.abs(bounds[k]) <= limits)][0]
+        unit = "degrees" if crs.is_geographic else "m"
+        raise InputError(
+            f"{where}: zone {list(names)[k]!r} has a coordinate of {value:g} {unit}, beyond any "
+            f"place on Earth in {crs.to_string()}; expected coordinates within +-{limits[0]:g} "
+            f"{unit}: check the file's CRS and values"
+        )
+
+
 def read_zones(path: str | os.PathLike, zone_field: str, dem, layer: str | None = None):
     """Read forecast zones as polygons in the DEM's CRS.
 
@@ -101,6 +127,7 @@ def read_zones(path: str | os.PathLike, zone_field: str, dem, layer: str | None 
         raise InputError(
             f"{where}: no polygons (geometry types {kinds}); expected Polygon or MultiPolygon zones"
         )
+    _check_coordinates(names, polygonal, gdf.crs, where)
     out_geoms = []
     for name, g in zip(names, polygonal):
         if g is None:
@@ -120,6 +147,7 @@ def read_zones(path: str | os.PathLike, zone_field: str, dem, layer: str | None 
         out_geoms.append(g)
     zones = gpd.GeoDataFrame({"zone": names.to_numpy()}, geometry=out_geoms, crs=gdf.crs)
     zones = zones.to_crs(dem.crs).reset_index(drop=True)
+    _check_coordinates(zones.zone, zones.geometry, dem.crs, f"{where} (in the DEM's CRS)")
     zones["geometry"] = [
         g if g.is_valid else _polygonal_part(shapely.make_valid(g)) for g in zones.geometry
     ]

@@ -23,7 +23,7 @@ from matplotlib.patches import Rectangle
 
 from regionmap.io.times import local_time_label
 from regionmap.plots.outputs import SECTOR_ORDER, Metric, RunOutputs, metric
-from regionmap.plots.style import METRIC_CMAP, new_figure, save_png, slug, text_colour_on
+from regionmap.plots.style import METRIC_CMAP, new_figure, save_png, text_colour_on, zone_slug
 
 __all__ = [
     "overview_table",
@@ -295,7 +295,7 @@ def _trim(wide: pd.DataFrame) -> pd.DataFrame:
 def write_overview(out, zone: str, metric_name: str, *, time=None) -> tuple[Path, Path]:
     """Write ``figures/overview_<zone>_<metric>.png`` and the matching ``.csv``."""
     out = _outputs(out)
-    stem = out.out_dir / "figures" / f"overview_{slug(zone)}_{metric_name}"
+    stem = out.out_dir / "figures" / f"overview_{zone_slug(zone)}_{metric_name}"
     fig = plot_overview(out, zone, metric_name, time=time)
     png = save_png(fig, stem.with_suffix(".png"))
     csv = write_overview_csv(out, zone, metric_name, stem.with_suffix(".csv"), time=time)

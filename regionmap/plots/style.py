@@ -49,6 +49,7 @@ __all__ = [
     "slug",
     "save_png",
     "render_png",
+    "zone_slug",
     "encode_png",
 ]
 
@@ -137,6 +138,14 @@ def slug(text: str) -> str:
     return s or "x"
 
 
+def zone_slug(zone: str) -> str:
+    """File-name part of a zone, unique per zone name: its :func:`slug` and the first 6 hex
+    digits of the name's SHA-256 (``"H West"`` and ``"h/west"`` share the slug ``h-west``)."""
+    import hashlib
+
+    return f"{slug(zone)}-{hashlib.sha256(str(zone).encode()).hexdigest()[:6]}"
+
+
 def render_png(fig: Figure, *, dpi: int = PRINT_DPI) -> tuple[bytes, np.ndarray]:
     """Draw a figure once on the Agg canvas and encode it as PNG.
 
@@ -149,11 +158,17 @@ def render_png(fig: Figure, *, dpi: int = PRINT_DPI) -> tuple[bytes, np.ndarray]
     png : the PNG file's bytes (with its resolution in the pHYs chunk).
     rgb : ndarray (y, x, 3) uint8, the pixels (for reduced copies).
     """
+    import matplotlib
     from matplotlib.backends.backend_agg import FigureCanvasAgg
+    from matplotlib.text import Text
 
     canvas = FigureCanvasAgg(fig)
     fig.set_dpi(dpi)
-    canvas.draw()
+    # every text is plain: a zone named "$x$" must not be read as mathtext
+    for text in fig.findobj(Text):
+        text.set_parse_math(False)
+    with matplotlib.rc_context({"text.parse_math": False}):
+        canvas.draw()
     rgb = np.asarray(canvas.buffer_rgba())[..., :3].copy()
     return encode_png(rgb, dpi=dpi), rgb
 

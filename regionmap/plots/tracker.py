@@ -25,7 +25,7 @@ from matplotlib.patches import Patch
 from regionmap.errors import InputError
 from regionmap.io.times import local_time_label
 from regionmap.plots.outputs import SECTOR_ORDER, RunOutputs, metric
-from regionmap.plots.style import METRIC_CMAP, OKABE_ITO, new_figure, save_png, slug
+from regionmap.plots.style import METRIC_CMAP, OKABE_ITO, new_figure, save_png, slug, zone_slug
 from regionmap.products.summaries import band_label, decode_snapshot, layer_identities, layer_ids
 
 __all__ = [
@@ -372,7 +372,7 @@ def write_layer_tracker(
     """Write ``figures/layer_<zone>_<layer_id>[_aspects].png``."""
     out = _outputs(out)
     fig = plot_layer_tracker(out, zone, layer_id, by_aspect=by_aspect, tracks=tracks)
-    name = f"layer_{slug(zone)}_{slug(layer_id)}{'_aspects' if by_aspect else ''}.png"
+    name = f"layer_{zone_slug(zone)}_{slug(layer_id)}{'_aspects' if by_aspect else ''}.png"
     return save_png(fig, out.out_dir / "figures" / name)
 
 
@@ -463,4 +463,4 @@ def write_elevation_chart(out, zone: str, metric_name: str, *, time=None) -> Pat
     """Write ``figures/elevation_<zone>_<metric>.png``."""
     out = _outputs(out)
     fig = plot_elevation_chart(out, zone, metric_name, time=time)
-    return save_png(fig, out.out_dir / "figures" / f"elevation_{slug(zone)}_{metric_name}.png")
+    return save_png(fig, out.out_dir / "figures" / f"elevation_{zone_slug(zone)}_{metric_name}.png")

@@ -50,7 +50,7 @@ from regionmap.plots.maps import (
 from regionmap.plots.outputs import METRICS, RunOutputs
 from regionmap.plots.overview import plot_overview, write_overview_csv
 from regionmap.plots.profile import plot_profile, read_profile
-from regionmap.plots.style import PRINT_DPI, REPORT_DPI, render_png, slug
+from regionmap.plots.style import PRINT_DPI, REPORT_DPI, render_png, slug, zone_slug
 from regionmap.plots.tracker import (
     layer_tracks,
     new_snow_days,
@@ -160,7 +160,7 @@ def _summary_specs(out: RunOutputs) -> list[tuple[str, str, str, callable]]:
             specs.append(
                 (
                     "overviews",
-                    f"overview_{slug(zone)}_{m}.png",
+                    f"overview_{zone_slug(zone)}_{m}.png",
                     f"{zone}: elevation-aspect overview of {METRICS[m].label}",
                     lambda zone=zone, m=m: plot_overview(out, zone, m),
                 )
@@ -168,7 +168,7 @@ def _summary_specs(out: RunOutputs) -> list[tuple[str, str, str, callable]]:
         specs.append(
             (
                 "elevation",
-                f"elevation_{slug(zone)}_{ELEVATION_METRIC}.png",
+                f"elevation_{zone_slug(zone)}_{ELEVATION_METRIC}.png",
                 f"{zone}: {METRICS[ELEVATION_METRIC].label} against elevation",
                 lambda zone=zone: plot_elevation_chart(out, zone, ELEVATION_METRIC),
             )
@@ -180,7 +180,7 @@ def _summary_specs(out: RunOutputs) -> list[tuple[str, str, str, callable]]:
             specs.append(
                 (
                     "profiles",
-                    f"profile_{slug(zone)}_cell{cid}.png",
+                    f"profile_{zone_slug(zone)}_cell{cid}.png",
                     f"{zone}: simulated profile of cell {cid} ({row['band']} m, {row['aspect_sector']}), "
                     "the cell with the highest threshold count at the map time",
                     lambda cid=cid, prof=prof: plot_profile(out, cid, profile=prof),
@@ -203,7 +203,7 @@ def _layer_specs(out: RunOutputs) -> list[tuple[str, str, str, callable]]:
                     specs.append(
                         (
                             "layers",
-                            f"layer_{slug(zone)}_{slug(lid)}.png",
+                            f"layer_{zone_slug(zone)}_{slug(lid)}.png",
                             f"{zone}: layer {lid} over the season",
                             lambda zone=zone, lid=lid, tracks=tracks, snow_days=snow_days: (
                                 plot_layer_tracker(
@@ -341,7 +341,7 @@ def _render(
     figdir = out.out_dir / "figures"
     # the overviews' numbers while the last figures draw (forked workers already hold their data)
     tables = [
-        write_overview_csv(out, zone, m, figdir / f"overview_{slug(zone)}_{m}.csv")
+        write_overview_csv(out, zone, m, figdir / f"overview_{zone_slug(zone)}_{m}.csv")
         for zone in out.zone_names
         for m in OVERVIEW_METRICS
     ]
