@@ -411,7 +411,7 @@ def _by_identity(out: Path, names=("snow_depth_cm", "swe_kg_m2", "crust_count"))
 
 
 def test_continuation_matches_cells_by_identity(scenario, tmp_path, capsys):
-    from regionmap.demo import demo_zones
+    from regionmap.demo.scenario import demo_zones
 
     zones = demo_zones()
     first = _zones_config(scenario, "ab_first", zones.iloc[[1, 2]], end="2026-01-19T00:00")
