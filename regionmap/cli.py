@@ -73,6 +73,8 @@ def _cmd_run(args: argparse.Namespace) -> int:
         continue_from=args.continue_from,
         workers=args.workers,
         scheduler=args.scheduler,
+        dashboard=args.dashboard,
+        scheduler_security=args.scheduler_security,
         force=args.force,
         progress=not args.quiet,
         restarts=restarts,
@@ -304,6 +306,18 @@ def build_parser() -> argparse.ArgumentParser:
     )
     group.add_argument(
         "--scheduler", metavar="ADDRESS", help="an existing dask.distributed scheduler"
+    )
+    p.add_argument(
+        "--scheduler-security",
+        type=Path,
+        metavar="FILE",
+        help="TLS settings for --scheduler: a dask config file (YAML) with distributed: comm: "
+        "tls: (default: the dask config)",
+    )
+    p.add_argument(
+        "--dashboard",
+        action="store_true",
+        help="serve dask's dashboard on 127.0.0.1 while the run lasts (needs bokeh)",
     )
     p.add_argument(
         "--force",

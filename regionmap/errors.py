@@ -20,6 +20,7 @@ __all__ = [
     "ForcingReadError",
     "ConvergenceError",
     "OutputError",
+    "ClusterError",
     "RegionmapWarning",
     "warn",
 ]
@@ -51,6 +52,10 @@ class ConvergenceError(RegionmapError, RuntimeError):
 
 class OutputError(RegionmapError, OSError):
     """An output location cannot be written (not a regionmap folder, locked, no space)."""
+
+
+class ClusterError(RegionmapError, RuntimeError):
+    """The dask cluster lost the run's tasks (workers died, none came, the scheduler went)."""
 
 
 class RegionmapWarning(UserWarning):

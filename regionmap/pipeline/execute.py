@@ -29,6 +29,7 @@ from regionmap.errors import InputError
 from regionmap.io.atomic import atomic_write_text
 from regionmap.io.results import PROFILES_CHUNK_CELLS, CellsNcWriter, ProfilesNcWriter
 from regionmap.pipeline.checkpoints import Checkpoints, checkpoint_times
+from regionmap.pipeline.cluster import cluster_errors, dask_client
 from regionmap.pipeline.run import (
     RunContext,
     align_state,
@@ -122,43 +123,9 @@ class RunOutcome:
     local_timezone: str = "UTC"  # of the times shown to users
 
 
-@contextlib.contextmanager
-def dask_client(workers: int | None = None, scheduler: str | None = None):
-    """A dask.distributed client: in-process threads by default, ``workers`` local processes
-    on loopback, or an existing cluster at ``scheduler``."""
-    from distributed import Client, LocalCluster
-
-    if scheduler:
-        try:
-            client = Client(scheduler, timeout="20s")
-        except OSError as exc:
-            raise InputError(
-                f"--scheduler {scheduler}: cannot connect to a dask scheduler there ({exc})"
-            ) from None
-        with client:
-            yield client
-        return
-    if workers:
-        cluster = LocalCluster(
-            n_workers=int(workers),
-            threads_per_worker=1,
-            processes=True,
-            host="127.0.0.1",
-            dashboard_address=None,
-            worker_dashboard_address=None,
-            silence_logs=40,
-        )
-    else:
-        cluster = LocalCluster(
-            n_workers=1,
-            threads_per_worker=max(1, os.cpu_count() or 1),
-            processes=False,
-            dashboard_address=None,
-            worker_dashboard_address=None,
-            silence_logs=40,
-        )
-    with cluster, Client(cluster) as client:
-        yield client
+def _context(ctx: RunContext) -> RunContext:
+    """The run's context, handed to the chunk tasks through the scheduler."""
+    return ctx
 
 
 def _sha256(path: Path) -> str:
@@ -281,6 +248,8 @@ def execute(
     continue_from: Path | None = None,
     workers: int | None = None,
     scheduler: str | None = None,
+    dashboard: bool = False,
+    scheduler_security: Path | None = None,
     force: bool = False,
     progress: bool = True,
     restarts=(),
@@ -294,7 +263,8 @@ def execute(
     cfg : validated config.
     out_dir : overrides ``[output] dir``.
     continue_from : a ``state.nc`` of an earlier run of the same region and settings.
-    workers, scheduler : dask set-up (see :func:`dask_client`).
+    workers, scheduler, dashboard, scheduler_security : dask set-up (see
+        :func:`regionmap.pipeline.cluster.dask_client`).
     force : allow replacing a non-empty folder that is not a regionmap output.
     progress : show a progress bar.
     restarts : observed-profile restarts (see :mod:`regionmap.pipeline.restart`).
@@ -422,8 +392,12 @@ def execute(
         prof_w = None
         try:
             t0 = _time.perf_counter()
-            with dask_client(workers, scheduler) as client:
-                ctx_f = client.scatter(ctx, broadcast=True)  # once, not in every task's graph
+            with dask_client(
+                workers, scheduler, dashboard=dashboard, scheduler_security=scheduler_security
+            ) as client:
+                # the context as a task, not scattered data: when a worker dies, the
+                # scheduler can make it again for the worker that takes over its chunks
+                ctx_f = client.submit(_context, ctx, pure=False, key="run-context")
                 futures = [
                     client.submit(
                         simulate_chunk,
@@ -442,7 +416,8 @@ def execute(
                     total=len(futures), desc="cell chunks", unit="chunk", disable=not progress
                 )
                 for fut in as_completed(futures):
-                    res = fut.result()
+                    with cluster_errors(f"cell chunk {fut.key}"):
+                        res = fut.result()
                     lo, hi = res["lo"], res["hi"]
                     t_w = _time.perf_counter()
                     cells_w.write_chunk(np.arange(lo, hi), res["diagnostics"])
