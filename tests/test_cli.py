@@ -175,3 +175,23 @@ def test_library_warnings_do_not_reach_the_terminal(tmp_path):
     # -v shows them, as one log line each
     proc = subprocess.run(base + ["-v"] + args, capture_output=True, text=True)
     assert proc.returncode == 2 and "NotGeoreferencedWarning" in proc.stderr
+
+
+def test_an_output_folder_that_holds_the_inputs_is_refused(tmp_path):
+    # as `regionmap run DEMO/scenario/demo.toml --out DEMO`: the run would replace its inputs
+    scenario = tmp_path / "scenario"
+    scenario.mkdir()
+    _dem(scenario / "dem.tif")
+    _zones(scenario / "zones.geojson")
+    cfg = scenario / "run.toml"
+    cfg.write_text('[region]\ndem = "dem.tif"\nzones = "zones.geojson"\n[forcing]\npath = "f.nc"\n')
+    before = sorted(p.name for p in tmp_path.rglob("*"))
+    proc = subprocess.run(
+        [sys.executable, "-m", "regionmap", "run", str(cfg), "--out", str(tmp_path)],
+        capture_output=True,
+        text=True,
+    )
+    assert proc.returncode == 2
+    lines = proc.stderr.strip().splitlines()
+    assert len(lines) == 1 and "holds this run's config" in lines[0], proc.stderr
+    assert sorted(p.name for p in tmp_path.rglob("*")) == before

@@ -219,3 +219,46 @@ def test_sigkill_in_each_phase(tmp_path, phase, expected_after_kill):
     assert any("stale lock" in r for r in out.recovered)
     assert _generation(target) == 3
     assert _siblings(target) == []
+
+
+def test_files_a_user_put_into_an_output_are_never_deleted(tmp_path):
+    target = tmp_path / "out"
+    with OutputFolder(target) as out:
+        _write_generation(out.path, 1)
+    marker = json.loads((target / MARKER_NAME).read_text())
+    assert sorted(marker["files"]) == sorted(FILES)  # the marker lists what the run wrote
+    (target / "maps" / "my_notes.txt").write_text("precious")
+    with pytest.raises(OutputError, match=r"did not write \(maps/my_notes\.txt\).*--force"):
+        OutputFolder(target).__enter__()
+    assert (target / "maps" / "my_notes.txt").read_text() == "precious"
+    assert _siblings(target) == []
+    with pytest.warns(RegionmapWarning, match="kept as"):
+        with OutputFolder(target, force=True) as out:
+            _write_generation(out.path, 2)
+    assert _generation(target) == 2
+    kept = [p for p in tmp_path.iterdir() if p.name.startswith("out.replaced-")]
+    assert len(kept) == 1 and (kept[0] / "maps" / "my_notes.txt").read_text() == "precious"
+
+
+def test_an_output_without_a_file_list_is_not_replaced_without_force(tmp_path):
+    # an older regionmap's marker lists no files: nothing in the folder is known to be ours
+    target = tmp_path / "out"
+    with OutputFolder(target) as out:
+        _write_generation(out.path, 1)
+    record = json.loads((target / MARKER_NAME).read_text())
+    del record["files"]
+    (target / MARKER_NAME).write_text(json.dumps(record))
+    with pytest.raises(OutputError, match="no list of the files it wrote"):
+        OutputFolder(target).__enter__()
+    assert _generation(target) == 1
+
+
+def test_an_output_folder_holding_the_run_inputs_is_refused(tmp_path):
+    from regionmap.io.outdir import check_inputs_outside
+
+    inputs = [("config", tmp_path / "cfg.toml"), ("DEM", tmp_path / "d" / "scenario" / "dem.tif")]
+    check_inputs_outside(tmp_path / "out", inputs)  # elsewhere: fine
+    with pytest.raises(OutputError, match=r"holds this run's DEM \(.*scenario/dem\.tif\)"):
+        check_inputs_outside(tmp_path / "d", inputs)
+    with pytest.raises(OutputError, match=r"holds this run's config"):
+        check_inputs_outside(tmp_path, inputs)

@@ -21,6 +21,7 @@ import xarray as xr
 
 from regionmap.cli import main
 from regionmap.config import load_config
+from regionmap.io.outdir import MARKER_NAME
 from regionmap.pipeline.execute import execute
 
 CONFIG = """
@@ -142,6 +143,9 @@ def test_reference_run_writes_the_contract(reference):
     ]
     assert not failed, proc.stdout
     assert outcome.n_cells > 10
+    # the ensemble's saved control states lived in the temporary output folder and are gone
+    assert not (out / ".checkpoints").exists()
+    assert ".checkpoints" not in " ".join(json.loads((out / MARKER_NAME).read_text())["files"])
 
 
 @pytest.mark.parametrize("chunk_size", [1, 37])

@@ -11,13 +11,16 @@ Names next to the target folder ``OUT`` (all in its parent folder):
 * ``.OUT.regionmap-new-<id>`` — the folder being written;
 * ``.OUT.regionmap-old-<id>`` — the previous output, moved aside during the swap;
 * ``OUT/.regionmap-output``   — the marker file that identifies a regionmap output
-  (JSON: program, version, created, complete).
+  (JSON: program, version, created, complete, and the files the run wrote).
 
 Rule for replacing ``OUT`` (exactly):
 
 1. ``OUT`` missing, or an empty folder → written (an empty folder is removed with
    ``rmdir``, which cannot lose anything, and the new one renamed into its place).
-2. ``OUT`` holds the marker → replaced (the previous output is deleted after the swap).
+2. ``OUT`` holds the marker and only the files its run wrote (the marker lists them) →
+   replaced (the previous output is deleted after the swap). With other files in it (a
+   user's notes), or no list (an older regionmap's output), it is treated as in 3 and 4:
+   refused, or with ``force`` kept whole beside the new output.
 3. ``OUT`` non-empty without the marker, ``force=False`` → :class:`OutputError`, nothing
    touched.
 4. ``OUT`` non-empty without the marker, ``force=True`` → the new output is swapped in and
@@ -47,7 +50,14 @@ from types import TracebackType
 from regionmap import __version__
 from regionmap.errors import OutputError, warn
 
-__all__ = ["OutputFolder", "MARKER_NAME", "is_regionmap_output", "recover_leftovers"]
+__all__ = [
+    "OutputFolder",
+    "MARKER_NAME",
+    "is_regionmap_output",
+    "recover_leftovers",
+    "foreign_files",
+    "check_inputs_outside",
+]
 
 MARKER_NAME = ".regionmap-output"
 _LOCK = ".{name}.regionmap-lock"
@@ -61,6 +71,36 @@ def is_regionmap_output(path: str | os.PathLike) -> bool:
     return p.is_dir() and not p.is_symlink() and (p / MARKER_NAME).is_file()
 
 
+def _files_of(folder: Path) -> list[str]:
+    """Relative paths (POSIX) of every file under ``folder`` except the marker."""
+    return sorted(
+        p.relative_to(folder).as_posix()
+        for p in folder.rglob("*")
+        if (p.is_file() or p.is_symlink()) and p.name != MARKER_NAME
+    )
+
+
+def foreign_files(folder: str | os.PathLike) -> list[str] | None:
+    """Files of a regionmap output folder that its run did not write (a user's notes...).
+
+    Returns
+    -------
+    list of str or None
+        Relative paths not listed in the marker's ``files``; None when the marker lists no
+        files (written by an older regionmap), so that nothing in it is known to be ours.
+    """
+    folder = Path(folder)
+    try:
+        record = json.loads((folder / MARKER_NAME).read_text(encoding="utf-8"))
+    except (OSError, ValueError):
+        return None
+    listed = record.get("files") if isinstance(record, dict) else None
+    if not isinstance(listed, list):
+        return None
+    known = set(listed)
+    return [name for name in _files_of(folder) if name not in known]
+
+
 def _write_marker(folder: Path, *, complete: bool) -> None:
     record = {
         "program": "regionmap",
@@ -68,6 +108,8 @@ def _write_marker(folder: Path, *, complete: bool) -> None:
         "created": dt.datetime.now(dt.UTC).isoformat(timespec="seconds"),
         "complete": complete,
     }
+    if complete:  # what the run wrote: anything else found here later is someone else's
+        record["files"] = _files_of(folder)
     tmp = folder / (MARKER_NAME + ".tmp")
     with open(tmp, "w", encoding="utf-8") as fh:
         json.dump(record, fh)
@@ -207,6 +249,7 @@ class OutputFolder:
         self.path: Path | None = None
         self.recovered: list[str] = []
         self.kept_as: Path | None = None
+        self._keep_previous = False  # the previous output holds files it did not write
         self._lock = self.target.parent / _LOCK.format(name=self.target.name)
         self._locked = False
 
@@ -267,7 +310,25 @@ class OutputFolder:
                 f"output folder {t}: expected a folder, found a "
                 f"{'symbolic link' if t.is_symlink() else 'file'}; choose another --out"
             )
-        if t.is_dir() and not is_regionmap_output(t) and any(t.iterdir()) and not self.force:
+        if is_regionmap_output(t):
+            foreign = foreign_files(t)
+            if foreign == []:
+                return
+            if not self.force:
+                what = (
+                    f"files that regionmap did not write ({', '.join(foreign[:3])}"
+                    f"{', ...' if len(foreign) > 3 else ''})"
+                    if foreign
+                    else "no list of the files it wrote (an older regionmap made it)"
+                )
+                raise OutputError(
+                    f"output folder {t} is a regionmap output but holds {what}; replacing "
+                    "it would delete them: move them out, choose another --out, or pass "
+                    f"--force to keep the previous folder whole as {t.name}.replaced-<time>"
+                )
+            self._keep_previous = True
+            return
+        if t.is_dir() and any(t.iterdir()) and not self.force:
             raise OutputError(
                 f"output folder {t} is not empty and is not a regionmap output (no "
                 f"{MARKER_NAME} marker); choose an empty or new folder, or pass --force "
@@ -324,14 +385,14 @@ class OutputFolder:
                 os.rename(new, target)
                 _fsync_dir(parent)
                 return
-            if is_regionmap_output(target):
+            if is_regionmap_output(target) and not self._keep_previous:
                 aside = parent / (_OLD.format(name=target.name) + new.name.rsplit("-", 1)[-1])
             elif not any(target.iterdir()):
                 os.rmdir(target)  # an empty folder holds nothing to keep
                 os.rename(new, target)
                 _fsync_dir(parent)
                 return
-            else:  # force=True, checked on entry: keep the foreign folder, visibly
+            else:  # force=True, checked on entry: keep the folder, visibly
                 stamp = dt.datetime.now(dt.UTC).strftime("%Y%m%dT%H%M%SZ")
                 aside = parent / f"{target.name}.replaced-{stamp}"
                 self.kept_as = aside
@@ -341,9 +402,7 @@ class OutputFolder:
             if self.kept_as is None:
                 _remove_marked_tree(aside)
             else:
-                warn(
-                    f"output folder {target}: the previous non-regionmap folder was kept as {aside}"
-                )
+                warn(f"output folder {target}: the previous folder was kept as {aside}")
         except OSError as exc:
             if isinstance(exc, OutputError):
                 raise
@@ -352,3 +411,30 @@ class OutputFolder:
             ) from exc
         finally:
             self.path = None
+
+
+def check_inputs_outside(target: str | os.PathLike, inputs) -> None:
+    """Refuse an output folder that holds one of the run's inputs: the run replaces the
+    folder, which would delete them (e.g. ``regionmap run DIR/scenario/demo.toml --out DIR``).
+
+    Parameters
+    ----------
+    target : the output folder.
+    inputs : iterable of (what, path) (``("config", path)``); None paths are skipped.
+
+    Raises
+    ------
+    OutputError
+        Naming the first input found inside ``target``.
+    """
+    out = Path(target).absolute().resolve()
+    for what, path in inputs:
+        if path is None:
+            continue
+        p = Path(path).absolute().resolve()
+        if p == out or out in p.parents:
+            raise OutputError(
+                f"output folder {target} holds this run's {what} ({path}); a run replaces its "
+                "output folder, which would delete it: choose another --out (or move the "
+                "inputs out of the folder)"
+            )

@@ -5,7 +5,8 @@ perturbed forcing (:mod:`regionmap.products.write`). Its members must start from
 run's state shortly before the event; stepping the control again from the season start to
 get there costs as much as the run itself, once per event. Instead each chunk task saves its
 state at fixed times (every :data:`CHECKPOINT_EVERY_H` hours, and at every restart) into one
-``.npz`` file per chunk in a temporary folder, and the ensemble starts from the latest one.
+``.npz`` file per chunk in a folder inside the run's temporary output folder (so an interrupted
+run leaves none behind), and the ensemble starts from the latest one.
 
 Continuing a column from a saved state is exact (bit for bit the same as one run), so the
 members' results do not depend on the checkpoint interval.

@@ -14,7 +14,6 @@ import json
 import os
 import platform
 import shutil
-import tempfile
 import time as _time
 from dataclasses import dataclass
 from importlib import metadata
@@ -27,6 +26,7 @@ from regionmap.cells import region_fingerprints
 from regionmap.config import Config
 from regionmap.errors import InputError
 from regionmap.io.atomic import atomic_write_text
+from regionmap.io.outdir import check_inputs_outside
 from regionmap.io.results import PROFILES_CHUNK_CELLS, CellsNcWriter, ProfilesNcWriter
 from regionmap.pipeline.checkpoints import Checkpoints, checkpoint_times
 from regionmap.pipeline.cluster import cluster_errors, dask_client
@@ -92,6 +92,9 @@ LAYER_VARS = {
     ),
 }
 
+#: The chunk tasks' saved control states, inside the run's temporary output folder.
+CHECKPOINT_FOLDER = ".checkpoints"
+
 _VERSIONS = (
     "numpy",
     "numba",
@@ -121,6 +124,27 @@ class RunOutcome:
     n_cells: int
     seconds: float
     local_timezone: str = "UTC"  # of the times shown to users
+
+
+def run_inputs(cfg: Config, continue_from=None, restarts=()) -> list[tuple[str, Path]]:
+    """Every file a run reads as (what, path), for :func:`regionmap.io.outdir.check_inputs_outside`."""
+    import glob
+
+    inputs = [
+        ("config", cfg.source),
+        ("DEM", cfg.region.dem),
+        ("zones", cfg.region.zones),
+        ("quantile-mapping table", cfg.bias.quantile_mapping),
+        ("state (--continue-from)", continue_from),
+    ]
+    if cfg.forcing is not None:
+        found = sorted(glob.glob(str(cfg.forcing.path))) or [cfg.forcing.path]
+        inputs += [("forcing", p) for p in found] + [("forcing static file", cfg.forcing.static)]
+    if cfg.stations is not None:
+        inputs.append(("stations", cfg.stations.stations))
+        inputs += [("observations", p) for p in cfg.stations.observations]
+    inputs += [("restart profile", r.profile) for r in restarts]
+    return inputs
 
 
 def _context(ctx: RunContext) -> RunContext:
@@ -279,6 +303,7 @@ def execute(
     t_all = _time.perf_counter()
     timings: dict = {}
     target = Path(out_dir or cfg.output.dir)
+    check_inputs_outside(target, run_inputs(cfg, continue_from, restarts))
     state0 = None
     if continue_from is not None:  # read and checked before the long work
         state0, saved_cells, saved_region = load_state_with_identity(continue_from)
@@ -330,21 +355,13 @@ def execute(
         _effective_chunk_size(batch.n_cells, cfg.run.chunk_size, n_par),
         batch.zone_code if dsettings.drift else None,
     )  # drift: whole zones per chunk
-    # workers of a remote cluster cannot write into this machine's temporary folder: there
-    # the ensemble steps its cells from the run's start state instead
-    checkpoint_dir = (
-        contextlib.nullcontext()
-        if scheduler
-        else tempfile.TemporaryDirectory(prefix="regionmap-checkpoints-")
-    )
-    checkpoints = (
+    # workers of a remote cluster cannot write into this machine's folders: there the
+    # ensemble steps its cells from the run's start state instead
+    kept_times = (
         None
         if scheduler
-        else Checkpoints(
-            checkpoint_dir.name,
-            checkpoint_times(
-                state0.time, period.stop - period.first, diag_every, [r.time for r in resolved]
-            ),
+        else checkpoint_times(
+            state0.time, period.stop - period.first, diag_every, [r.time for r in resolved]
         )
     )
     ctx = RunContext(
@@ -359,7 +376,6 @@ def execute(
         if not (workers or scheduler)
         else 1,
         restarts=resolved,
-        checkpoints=checkpoints,
     )
     register_forcing(ctx, gf)
     t0 = _time.perf_counter()
@@ -379,8 +395,12 @@ def execute(
     status_bits = 0
     restart_records: list = []
 
-    with checkpoint_dir, OutputFolder(target, force=force) as folder:
+    with OutputFolder(target, force=force) as folder:
         out = folder.path
+        if kept_times is not None:
+            # inside the run's temporary output folder: an interrupted run leaves none behind
+            (out / CHECKPOINT_FOLDER).mkdir()
+            ctx.checkpoints = Checkpoints(str(out / CHECKPOINT_FOLDER), kept_times)
         cells_w = CellsNcWriter(
             out / "cells.nc",
             table,
@@ -469,6 +489,7 @@ def execute(
             progress=progress,
         )
         timings["products"] = _time.perf_counter() - t0
+        shutil.rmtree(out / CHECKPOINT_FOLDER, ignore_errors=True)
         # summed over chunk tasks (wall time inside each task; tasks run side by side)
         timings["task_downscale_s"] = task_seconds["downscale"]
         timings["task_column_s"] = task_seconds["column"]
@@ -732,6 +753,7 @@ def write_cell_forcing(
     from regionmap.downscale.pipeline import downscale_cells, downscale_record
     from regionmap.io.outdir import OutputFolder
 
+    check_inputs_outside(out_dir, run_inputs(cfg))
     region = prepare_region(cfg)
     gf = open_grid_forcing(cfg)
     batch, dsettings = prepare_batch(region, gf, cfg)
