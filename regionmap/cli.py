@@ -15,6 +15,7 @@ from pathlib import Path
 
 from regionmap import CAUTION, __version__
 from regionmap.errors import InputError, RegionmapError, RegionmapWarning
+from regionmap.io.atomic import is_no_space
 from regionmap.io.times import local_time_label
 
 __all__ = ["main", "build_parser"]
@@ -529,6 +530,12 @@ def main(argv: list[str] | None = None) -> int:
     except Exception as exc:  # an internal fault: say so, keep the traceback for --debug
         if args.debug:
             traceback.print_exc()
+        if is_no_space(exc):  # a full disk inside a library's writer
+            where = getattr(exc, "filename", None) or "the output"
+            print(
+                f"regionmap: error: no space left on device while writing {where}", file=sys.stderr
+            )
+            return 2
         print(
             f"regionmap: internal error: {type(exc).__name__}: {exc} (run with --debug for the traceback)",
             file=sys.stderr,

@@ -449,3 +449,52 @@ def test_continuation_matches_cells_by_identity(scenario, tmp_path, capsys):
         lines = capsys.readouterr().err.strip().splitlines()
         assert len(lines) == 1 and expect in lines[0] and "state.nc" in lines[0], lines
         assert not out.exists()
+
+
+def _no_space(*args, **kwargs):
+    import errno
+
+    raise OSError(errno.ENOSPC, "No space left on device")
+
+
+@pytest.mark.parametrize("writer", ["cells.nc", "maps/snow_depth_cm.tif"])
+def test_a_full_disk_ends_the_run_with_one_line_and_leaves_nothing(
+    scenario, tmp_path, monkeypatch, capsys, writer
+):
+    # a disk that fills while a writer runs: simulated where the file's bytes are written
+    # (HDF5 chunks of cells.nc; GDAL's GeoTIFF writer raising its own error)
+    import rasterio
+
+    if writer == "cells.nc":
+        from regionmap.io.results import CellsNcWriter
+
+        monkeypatch.setattr(CellsNcWriter, "_store_blocks", _no_space)
+    else:
+
+        def gdal_full(self, *args, **kwargs):
+            raise rasterio.errors.RasterioIOError(
+                "TIFFAppendToStrip:Write error at scanline 0: No space left on device"
+            )
+
+        monkeypatch.setattr(rasterio.io.DatasetWriter, "write", gdal_full)
+    out = tmp_path / "out"
+    cfg = config(scenario, "full", start="2026-01-20T01:00")
+    assert main(["run", str(cfg.source), "--out", str(out), "--quiet"]) == 2
+    lines = capsys.readouterr().err.strip().splitlines()
+    assert len(lines) == 1, lines
+    assert "no space left on device while writing" in lines[0] and writer in lines[0], lines
+    assert list(tmp_path.iterdir()) == []  # no output, no half-written folder, no lock
+
+
+def test_too_little_free_space_is_refused_before_the_run(scenario, tmp_path, monkeypatch, capsys):
+    import shutil
+    from collections import namedtuple
+
+    usage = namedtuple("usage", "total used free")
+    monkeypatch.setattr(shutil, "disk_usage", lambda path: usage(10**9, 10**9 - 10**6, 10**6))
+    out = tmp_path / "out"
+    cfg = config(scenario, "ref")
+    assert main(["run", str(cfg.source), "--out", str(out), "--quiet"]) == 2
+    lines = capsys.readouterr().err.strip().splitlines()
+    assert len(lines) == 1 and "not enough free space" in lines[0] and "1 MB free" in lines[0]
+    assert list(tmp_path.iterdir()) == []

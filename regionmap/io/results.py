@@ -33,7 +33,7 @@ from isal import isal_zlib
 from xarray.backends.locks import HDF5_LOCK, NETCDFC_LOCK, CombinedLock
 
 from regionmap import CAUTION, __version__
-from regionmap.io.atomic import atomic_path
+from regionmap.io.atomic import atomic_path, disk_errors
 from regionmap.io.writers import history_entry
 
 __all__ = [
@@ -232,6 +232,10 @@ class _StreamingNc:
     @_hdf5_locked
     def _store(self, prepared) -> None:
         """Write prepared blocks (:meth:`_prepare`), under the HDF5 lock."""
+        with disk_errors(self.path):
+            self._store_blocks(prepared)
+
+    def _store_blocks(self, prepared) -> None:
         for name, lo, values, chunks in prepared:
             if chunks is None:
                 self._nc.variables[name][lo : lo + values.shape[0]] = values
@@ -251,8 +255,9 @@ class _StreamingNc:
     @_hdf5_locked
     def close(self) -> Path:
         """Finish the file and rename it into place."""
-        self._nc.close()
-        self._stack.close()
+        with disk_errors(self.path):
+            self._nc.close()
+            self._stack.close()
         return self.path
 
     @_hdf5_locked

@@ -14,7 +14,7 @@ from pathlib import Path
 import numpy as np
 
 from regionmap.errors import InputError, OutputError
-from regionmap.io.atomic import atomic_path
+from regionmap.io.atomic import atomic_path, is_no_space, no_space_error
 from regionmap.io.tables import spreadsheet_safe
 
 __all__ = [
@@ -140,6 +140,8 @@ def write_geotiff(
                 if tags:
                     dst.update_tags(**{k: str(v) for k, v in tags.items()})
         except rasterio.errors.RasterioError as exc:
+            if is_no_space(exc):
+                raise no_space_error(path) from None
             raise OutputError(f"cannot write GeoTIFF {path}: {exc}") from exc
     return Path(path)
 

@@ -19,6 +19,7 @@ from pathlib import Path
 
 import numpy as np
 
+from regionmap.io.atomic import disk_errors
 from regionmap.snow.state import SnowState
 
 __all__ = ["CHECKPOINT_EVERY_H", "Checkpoints", "checkpoint_times"]
@@ -69,8 +70,9 @@ class Checkpoints:
         tmp = path.with_name(
             "tmp-" + path.name
         )  # not matched by latest()'s "chunk-*" until complete
-        np.savez(tmp, **arrays)
-        tmp.replace(path)
+        with disk_errors(path):
+            np.savez(tmp, **arrays)
+            tmp.replace(path)
 
     def latest(self, not_after, positions: np.ndarray, initial: SnowState) -> SnowState:
         """The control state of the cells at ``positions`` (ascending) at the latest saved

@@ -21,6 +21,7 @@ import xarray as xr
 
 from regionmap.cells import IDENTITY_COLUMNS
 from regionmap.errors import InputError, OutputError
+from regionmap.io.atomic import is_no_space, no_space_error
 from regionmap.io.writers import history_entry
 from regionmap.snow.codes import (
     crust_codes_to_strings,
@@ -455,6 +456,8 @@ class SnowState:
             self.to_dataset(cells, region).to_netcdf(tmp, engine="netcdf4")
             os.replace(tmp, path)
         except OSError as exc:
+            if is_no_space(exc):
+                raise no_space_error(path) from None
             raise OutputError(
                 f"{path}: cannot write the snow state ({exc}); hint: check the "
                 "folder exists and is writable"
