@@ -244,6 +244,32 @@ def test_caaml_errors_name_the_problem(tmp_path, old, new, match):
             "# time: 2026-01-01T00:00Z\ntop_cm,bottom_cm,grain_class,grain_size_mm,hardness\n10,10,RG,0.5,1F\n",
             r"no positive thickness",
         ),
+        # values that cannot be physical: a 35 m snowpack (m written for cm), infinite
+        # sizes, impossible densities
+        (
+            "# time: 2026-01-01T00:00Z\ntop_cm,bottom_cm,grain_class,grain_size_mm,hardness\n3500,0,RG,0.5,1F\n",
+            r"line 3: the layer's top lies at 35 m above the ground; expected 0 to 20 m",
+        ),
+        (
+            "# time: 2026-01-01T00:00Z\ntop_cm,bottom_cm,grain_class,grain_size_mm,hardness\ninf,0,RG,0.5,1F\n",
+            r"the layer's top lies at inf m",
+        ),
+        (
+            "# time: 2026-01-01T00:00Z\ntop_cm,bottom_cm,grain_class,grain_size_mm,hardness\n10,0,RG,inf,1F\n",
+            r"grain size inf mm; expected 0 to 100 mm",
+        ),
+        (
+            "# time: 2026-01-01T00:00Z\ntop_cm,bottom_cm,grain_class,grain_size_mm,hardness\n10,0,RG,-2,1F\n",
+            r"column 'grain_size_mm': expected a size ≥ 0, got -2",
+        ),
+        (
+            "# time: 2026-01-01T00:00Z\ntop_cm,bottom_cm,grain_class,grain_size_mm,hardness,density_kg_m3\n10,0,RG,0.5,1F,5000\n",
+            r"density 5000 kg m-3 .* inconsistent",
+        ),
+        (
+            "# time: 2026-01-01T00:00Z\ntop_cm,bottom_cm,grain_class,grain_size_mm,hardness,density_kg_m3\n10,0,RG,0.5,1F,-inf\n",
+            r"line 3: density -inf kg m-3; expected \(0, 917\] or empty",
+        ),
     ],
 )
 def test_csv_errors(tmp_path, text, match):

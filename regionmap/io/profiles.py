@@ -234,6 +234,7 @@ def _build_profile(
     grain_size_mm, hardness, density, liquid, layer_temp_k = (
         a[order] for a in (grain_size_mm, hardness, density, liquid, layer_temp_k)
     )
+    _check_ranges(top_m, bottom_m, grain_size_mm, where)
     thickness = top_m - bottom_m
     if np.any(thickness <= 0):
         i = int(np.flatnonzero(thickness <= 0)[0])
@@ -263,7 +264,10 @@ def _build_profile(
             f"depth of {snow_depth_m * 100:.1f} cm; a restart needs layers down to the ground."
         )
     codes = np.array([GRAIN_INDEX[g] for g in grain], dtype=np.int64)
-    estimated = ~np.isfinite(density)
+    if np.isinf(density).any():
+        i = int(np.flatnonzero(np.isinf(density))[0])
+        raise InputError(f"{where[i]}: density {density[i]:g} kg m-3; expected (0, 917] or empty.")
+    estimated = np.isnan(density)
     if estimated.any():
         idx = np.flatnonzero(estimated)
         density = density.copy()
@@ -311,6 +315,37 @@ def _build_profile(
         temperature_interpolated=interpolated,
         name=name,
     )
+
+
+#: No seasonal snowpack reaches this depth; deeper layer boundaries are unit mix-ups
+#: (cm read as m, or mm as cm) or typing errors.
+MAX_SNOW_DEPTH_M = 20.0
+#: Larger grains are not snow grains (depth hoar and surface hoar stay below a few cm).
+MAX_GRAIN_SIZE_MM = 100.0
+
+
+def _check_ranges(top_m, bottom_m, grain_size_mm, where: list[str]) -> None:
+    """Refuse layer boundaries that are not finite or lie outside 0 .. 20 m, and grain sizes
+    that are infinite, negative or above 100 mm (a missing size, NaN, is allowed)."""
+    for name, values in (("top", top_m), ("bottom", bottom_m)):
+        with np.errstate(invalid="ignore"):
+            bad = ~((values >= -_GAP_TOLERANCE_M) & (values <= MAX_SNOW_DEPTH_M))
+        if bad.any():
+            i = int(np.flatnonzero(bad)[0])
+            raise InputError(
+                f"{where[i]}: the layer's {name} lies at {values[i]:g} m above the ground; "
+                f"expected 0 to {MAX_SNOW_DEPTH_M:g} m (a unit mix-up, cm written as m?)."
+            )
+    with np.errstate(invalid="ignore"):
+        bad = ~np.isnan(grain_size_mm) & ~(
+            (grain_size_mm >= 0) & (grain_size_mm <= MAX_GRAIN_SIZE_MM)
+        )
+    if bad.any():
+        i = int(np.flatnonzero(bad)[0])
+        raise InputError(
+            f"{where[i]}: grain size {grain_size_mm[i]:g} mm; expected 0 to "
+            f"{MAX_GRAIN_SIZE_MM:g} mm (or leave it empty)."
+        )
 
 
 def _check_temperature(t_k: np.ndarray, where: str) -> None:
