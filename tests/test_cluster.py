@@ -107,3 +107,21 @@ def test_scheduler_security_file_must_hold_tls_settings(tmp_path):
     with pytest.raises(InputError, match=r"security\.yaml: expected a dask config file"):
         with dask_client(scheduler="tls://127.0.0.1:1", scheduler_security=bad):
             pass
+
+
+def _bad_input():
+    raise InputError("forcing file 'f.nc', variable 't2m': 290 K at ... cannot be physical")
+
+
+@pytest.mark.parametrize("workers", [None, 1])
+def test_an_error_inside_a_task_reaches_the_user_as_its_own_line_only(capfd, workers):
+    # dask logs "Compute Failed" with the task's traceback from the worker; the CLI's
+    # logging set-up keeps that off the terminal, and the error itself comes back whole
+    from regionmap.cli import configure_logging
+
+    configure_logging(0)
+    with dask_client(workers=workers) as client:
+        with pytest.raises(InputError, match="cannot be physical"):
+            client.submit(_bad_input, pure=False).result(timeout=120)
+    err = capfd.readouterr().err
+    assert "Traceback" not in err and "Compute Failed" not in err and "distributed" not in err, err
