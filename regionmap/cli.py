@@ -488,6 +488,18 @@ def _show_warning(message, category, filename, lineno, file=None, line=None) -> 
         )
 
 
+class _StderrHandler(logging.StreamHandler):
+    """A handler that writes to the ``sys.stderr`` of the moment (tests swap it)."""
+
+    @property
+    def stream(self):
+        return sys.stderr
+
+    @stream.setter
+    def stream(self, value) -> None:
+        pass
+
+
 def configure_logging(verbosity: int = 0, quiet: bool = False) -> int:
     """Standard-library logging for a command: regionmap's messages from WARNING (default),
     INFO (-v), DEBUG (-vv) or ERROR (-q) on; other libraries' messages and warnings only
@@ -497,7 +509,7 @@ def configure_logging(verbosity: int = 0, quiet: bool = False) -> int:
     for handler in list(root.handlers):
         if getattr(handler, "_regionmap", False):
             root.removeHandler(handler)
-    handler = logging.StreamHandler(sys.stderr)
+    handler = _StderrHandler()
     handler.setFormatter(logging.Formatter("regionmap: %(levelname)s: %(message)s"))
     handler.addFilter(lambda record: verbosity >= 1 or record.name.startswith("regionmap"))
     handler._regionmap = True
