@@ -300,56 +300,60 @@ def _fill_for(dtype: str):
     return _FILLS.get(dtype)
 
 
+#: The cell table's columns as NetCDF variables along ``cell``: name -> (dtype, attributes).
+CELL_TABLE_VARIABLES = {
+    "zone": ("str", {"long_name": "forecast zone"}),
+    "band_lower_m": (
+        "f8",
+        {"units": "m", "long_name": "lower edge of the elevation band (-inf: open)"},
+    ),
+    "band_upper_m": (
+        "f8",
+        {"units": "m", "long_name": "upper edge of the elevation band (inf: open)"},
+    ),
+    "aspect_sector": ("str", {"long_name": "aspect sector (N, NE, ... or flat)"}),
+    "slope_class": (
+        "i2",
+        {"units": "1", "long_name": "slope class index (0 when slopes are not split)"},
+    ),
+    "elevation_m": (
+        "f4",
+        {
+            "standard_name": "surface_altitude",
+            "units": "m",
+            "long_name": "mean elevation of the cell",
+        },
+    ),
+    "slope_deg": ("f4", {"units": "degree", "long_name": "mean slope angle"}),
+    "aspect_deg": (
+        "f4",
+        {"units": "degree", "long_name": "circular-mean aspect (0 = N, clockwise)"},
+    ),
+    "area_km2": ("f8", {"units": "km2", "long_name": "cell area"}),
+    "pixel_count": ("i4", {"units": "1", "long_name": "DEM pixels in the cell"}),
+    "sky_view_frac": ("f4", {"units": "1", "long_name": "mean sky-view factor"}),
+    "lat": (
+        "f8",
+        {
+            "standard_name": "latitude",
+            "units": "degrees_north",
+            "long_name": "cell centroid latitude",
+        },
+    ),
+    "lon": (
+        "f8",
+        {
+            "standard_name": "longitude",
+            "units": "degrees_east",
+            "long_name": "cell centroid longitude",
+        },
+    ),
+}
+
+
 def _write_cell_table(nc, cells: pd.DataFrame) -> None:
     """The cells' identity and geometry along ``cell`` (the cell table's columns)."""
-    spec = {
-        "zone": ("str", {"long_name": "forecast zone"}),
-        "band_lower_m": (
-            "f8",
-            {"units": "m", "long_name": "lower edge of the elevation band (-inf: open)"},
-        ),
-        "band_upper_m": (
-            "f8",
-            {"units": "m", "long_name": "upper edge of the elevation band (inf: open)"},
-        ),
-        "aspect_sector": ("str", {"long_name": "aspect sector (N, NE, ... or flat)"}),
-        "slope_class": (
-            "i2",
-            {"units": "1", "long_name": "slope class index (0 when slopes are not split)"},
-        ),
-        "elevation_m": (
-            "f4",
-            {
-                "standard_name": "surface_altitude",
-                "units": "m",
-                "long_name": "mean elevation of the cell",
-            },
-        ),
-        "slope_deg": ("f4", {"units": "degree", "long_name": "mean slope angle"}),
-        "aspect_deg": (
-            "f4",
-            {"units": "degree", "long_name": "circular-mean aspect (0 = N, clockwise)"},
-        ),
-        "area_km2": ("f8", {"units": "km2", "long_name": "cell area"}),
-        "pixel_count": ("i4", {"units": "1", "long_name": "DEM pixels in the cell"}),
-        "sky_view_frac": ("f4", {"units": "1", "long_name": "mean sky-view factor"}),
-        "lat": (
-            "f8",
-            {
-                "standard_name": "latitude",
-                "units": "degrees_north",
-                "long_name": "cell centroid latitude",
-            },
-        ),
-        "lon": (
-            "f8",
-            {
-                "standard_name": "longitude",
-                "units": "degrees_east",
-                "long_name": "cell centroid longitude",
-            },
-        ),
-    }
+    spec = CELL_TABLE_VARIABLES
     for name, (dtype, attrs) in spec.items():
         if name not in cells.columns:
             continue

@@ -338,9 +338,13 @@ class SnowState:
         if cells is not None:
             if len(cells) != self.n_cells:
                 raise ValueError("to_dataset: the cell table does not match the state's cells")
+            from regionmap.io.results import CELL_TABLE_VARIABLES
+
             for name in IDENTITY_COLUMNS:
+                dtype, var_attrs = CELL_TABLE_VARIABLES[name]
                 values = cells[name].to_numpy()
-                ds[name] = (("cell",), values.astype(str) if values.dtype == object else values)
+                values = values.astype(str) if dtype == "str" else values.astype(dtype)
+                ds[name] = (("cell",), values, var_attrs)
         if region is not None:
             ds.attrs["dem_fingerprint"] = region["dem"]
             ds.attrs["zones_fingerprint"] = json.dumps(region["zones"], sort_keys=True)
