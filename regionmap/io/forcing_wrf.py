@@ -23,6 +23,10 @@ accumulations on) are joined along time before the accumulation is taken apart, 
 lost at file boundaries; a time written twice (a restart's first output) is taken from the
 later file. A new run (another start date) is a separate series; later runs win where they
 overlap.
+
+The xwrf package (0.0.5) decodes times and projection coordinates the same way, but neither
+folds buckets back, joins a split run nor refuses projection attributes that do not fit
+XLAT/XLONG, so it would cover the easy half of this module for an extra dependency.
 """
 
 from __future__ import annotations
