@@ -155,9 +155,9 @@ def mapped_variable(ds: xr.Dataset, sn: str, mapping: dict, path: str) -> xr.Dat
     rotated to earth-relative, a mixing ratio turned into specific humidity.
 
     Grid-relative components (u, v) become earth-relative with the local angle α between the
-    grid's y axis and north: u_e = u cos α − v sin α, v_e = v cos α + u sin α (the rotation
-    WRF's post-processors apply with COSALPHA/SINALPHA; Skamarock et al. 2019, NCAR/TN-556+STR,
-    section 5 on map projections).
+    grid's y axis and north: u_e = u cos α − v sin α, v_e = v cos α + u sin α (a plane
+    rotation by α; the convention of WRF's COSALPHA/SINALPHA as WRF post-processing applies
+    it, e.g. the xwrf package 0.0.5, ``postprocess._calc_base_diagnostics``).
     """
     entry = mapping[sn]
     var = _summed(ds, sn, entry, path)
