@@ -14,6 +14,7 @@ import html5lib
 import pytest
 from test_plots_synthrun import build_output_folder
 
+from regionmap.errors import OutputError
 from regionmap.plots.style import zone_slug
 from regionmap.report.briefing import (
     REPORT_MAX_BYTES,
@@ -242,3 +243,23 @@ def test_report_reads_on_a_laptop_and_a_phone(report, tmp_path, width, height):
         # on a laptop the caution and the first zone's headline show without scrolling
         assert info["caution"][1] <= info["viewport"][1]
         assert info["headline_first_item"][1] <= info["viewport"][1]
+
+
+def test_report_over_the_size_limit_drops_minor_roses_first(tmp_path, monkeypatch):
+    # a region of very many zones and layers: the minor layers keep their sentence, not their rose
+    import regionmap.report.briefing as report_module
+    import regionmap.report.headline as headline_module
+
+    folder = build_output_folder(tmp_path / "out", with_verification=False)
+    # every layer but the rain crusts and glaze is minor
+    monkeypatch.setattr(headline_module, "HEADLINE_MIN_PRESENCE_FRAC", 1.01)
+    full = write_report(folder).read_text(encoding="utf-8")
+    assert re.findall(r'<figure class="rose minor"><svg', full)
+    monkeypatch.setattr(report_module, "REPORT_MAX_BYTES", len(full.encode("utf-8")) - 1)
+    text = write_report(folder).read_text(encoding="utf-8")
+    assert not re.findall(r'<figure class="rose minor"><svg', text)
+    assert text.count('<figure class="rose minor">') == full.count('<figure class="rose minor">')
+    assert "listed without their rose, to keep this report under 10 MB" in text
+    monkeypatch.setattr(report_module, "REPORT_MAX_BYTES", 1000)
+    with pytest.raises(OutputError, match="over the 10 MB limit"):
+        write_report(folder)

@@ -30,7 +30,7 @@ from matplotlib.lines import Line2D
 from regionmap.errors import InputError, warn
 from regionmap.io.times import event_date_label, local_time_label, utc_datetime64
 from regionmap.plots.outputs import METRICS, Metric, RunOutputs
-from regionmap.plots.style import METRIC_CMAP, OKABE_ITO, new_figure, save_png
+from regionmap.plots.style import OKABE_ITO, metric_cmap, new_figure, robust_top, save_png
 
 __all__ = [
     "available_maps",
@@ -191,23 +191,27 @@ def plot_metric_map(out, metric: str, *, show_rain_crust: bool = False):
     lat = float(np.nanmean(out.table["lat"])) if "lat" in out.table else 45.0
     kx, ky = _metres_per_unit(crs, lat)
     fig, ax, note = _base_map(out, 7.5, 6.6, kx, ky, quiet=False)
+    cmap = metric_cmap(metric)
+    extend = "neither"
     if np.issubdtype(np.dtype(dtype), np.integer):
         top = int(max(1, values.max() if values.count() else 1))
-        norm = BoundaryNorm(np.arange(-0.5, top + 1.5), METRIC_CMAP.N)
+        norm = BoundaryNorm(np.arange(-0.5, top + 1.5), cmap.N)
     else:
-        top = m.vmax if m.vmax is not None else (float(values.max()) if values.count() else 1.0)
-        norm = Normalize(0.0, top if top > 0 else 1.0)
+        # fixed physical scale when the quantity has one, else robust (a high percentile)
+        top = robust_top(values.compressed(), m.vmax)
+        norm = Normalize(0.0, top)
+        extend = "max" if values.count() and float(values.max()) > top else "neither"
     im = ax.imshow(
         values,
-        cmap=METRIC_CMAP,
+        cmap=cmap,
         norm=norm,
         extent=extent,
         interpolation="nearest",
-        alpha=0.72,
+        alpha=0.88,
         zorder=1,
         gid="metric",
     )
-    cbar = fig.colorbar(im, ax=ax, shrink=0.8, pad=0.02)
+    cbar = fig.colorbar(im, ax=ax, shrink=0.8, pad=0.02, extend=extend)
     if isinstance(norm, BoundaryNorm):
         cbar.set_ticks(np.arange(0, top + 1))
     cbar.set_label(f"{m.label} [{m.units}]")
@@ -237,11 +241,11 @@ def _base_map(
     relief = _shaded_relief(out, kx, ky)
     if relief is not None:
         shade, extent = relief
-        # vmin below 0 keeps the relief light, so the metric and the lines stay readable over it
+        # vmin well below 0 keeps the relief light, so the metric and the lines stay readable over it
         ax.imshow(
             shade,
             cmap="gray",
-            vmin=-0.6,
+            vmin=-1.0,
             vmax=1.0,
             extent=extent,
             interpolation="nearest",

@@ -30,6 +30,8 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
+from regionmap.plots.style import METRIC_RAMPS, robust_top
+
 __all__ = [
     "RoseScale",
     "ROSE_SCALES",
@@ -45,8 +47,6 @@ NO_TERRAIN = "."
 #: character of a band × aspect with terrain but no value (e.g. no weak layer: drawn blank).
 NO_VALUE = "-"
 _DIGITS = "0123456789abcdefghijklmnopqrstuvwxyz"
-#: percentile of the band × aspect values that sets the top of a robust scale.
-ROBUST_PERCENTILE = 98.0
 
 
 @dataclass(frozen=True)
@@ -103,24 +103,12 @@ def presence_scale(
     return RoseScale(name, label, "%", tuple(np.arange(0, 101, 10.0)), _ramp("Purples", 10))
 
 
-def _nice_top(v: float) -> float:
-    if not np.isfinite(v) or v <= 0:
-        return 1.0
-    p = 10 ** np.floor(np.log10(v))
-    for s in (1, 1.5, 2, 2.5, 3, 4, 5, 6, 8, 10):
-        if s * p >= v:
-            return float(s * p)
-    return float(10 * p)
-
-
 def robust_scale(
     name: str, label: str, units: str, values, cmap_name: str, *, n: int = 8
 ) -> RoseScale:
-    """``n`` equal classes from 0 to a rounded :data:`ROBUST_PERCENTILE` of ``values`` (NaN
-    ignored), the last one open-ended."""
-    v = np.asarray(values, dtype=np.float64)
-    v = v[np.isfinite(v)]
-    top = _nice_top(float(np.percentile(v, ROBUST_PERCENTILE)) if v.size else 1.0)
+    """``n`` equal classes from 0 to a rounded high percentile of ``values``
+    (:func:`regionmap.plots.style.robust_top`; NaN ignored), the last one open-ended."""
+    top = robust_top(values)
     edges = tuple(np.linspace(0.0, top, n + 1))
     decimals = 0 if top / n >= 1 else 1
     return RoseScale(
@@ -128,52 +116,32 @@ def robust_scale(
     )
 
 
-#: the quantities drawn as roses per zone, with their ramp and kind of scale:
-#: (band_aspect.csv column, label, units, factor, ramp, fixed edges or None for robust)
+#: the quantities drawn as roses per zone: (band_aspect.csv column, label, units, factor to
+#: the printed units, fixed class edges or None for a robust scale); the ramp of each is
+#: :data:`regionmap.plots.style.METRIC_RAMPS`.
 ROSE_SCALES: tuple[tuple, ...] = (
-    (
-        "pwl_fraction",
-        "persistent weak layer present",
-        "%",
-        100.0,
-        "Purples",
-        tuple(np.arange(0, 101, 10.0)),
-    ),
-    (
-        "depth_hoar_fraction",
-        "depth hoar present",
-        "%",
-        100.0,
-        "Purples",
-        tuple(np.arange(0, 101, 10.0)),
-    ),
-    ("pwl_depth_cm", "depth of the uppermost persistent weak layer", "cm", 1.0, "Blues", None),
-    ("new_snow_72h_cm", "new snow, three observation days", "cm", 1.0, "BuPu", None),
-    ("snow_depth_cm", "snow depth", "cm", 1.0, "PuBu", None),
-    (
-        "crust_count_mean",
-        "crusts in the column (mean)",
-        "count",
-        1.0,
-        "Greys",
-        tuple(np.arange(0, 7.0)),
-    ),
+    ("pwl_fraction", "persistent weak layer present", "%", 100.0, tuple(range(0, 101, 10))),
+    ("depth_hoar_fraction", "depth hoar present", "%", 100.0, tuple(range(0, 101, 10))),
+    ("pwl_depth_cm", "depth of the uppermost persistent weak layer", "cm", 1.0, None),
+    ("new_snow_72h_cm", "new snow, three observation days", "cm", 1.0, None),
+    ("snow_depth_cm", "snow depth", "cm", 1.0, None),
+    ("crust_count_mean", "crusts in the column (mean)", "count", 1.0, tuple(range(0, 7))),
 )
 
 
 def metric_scales(band_aspect: pd.DataFrame) -> dict[str, tuple[RoseScale, float]]:
     """The :data:`ROSE_SCALES` the band × aspect table has, each with its factor."""
     out = {}
-    for col, label, units, factor, ramp, fixed in ROSE_SCALES:
+    for col, label, units, factor, fixed in ROSE_SCALES:
         if col not in band_aspect.columns:
             continue
+        ramp = METRIC_RAMPS[col]
         if fixed is not None:
             edges = tuple(float(e) for e in fixed)
             scale = RoseScale(col, label, units, edges, _ramp(ramp, len(edges) - 1))
         else:
-            scale = robust_scale(
-                col, label, units, band_aspect[col].to_numpy(np.float64) * factor, ramp
-            )
+            values = band_aspect[col].to_numpy(np.float64) * factor
+            scale = robust_scale(col, label, units, values, ramp)
         out[col] = (scale, factor)
     return out
 

@@ -41,6 +41,9 @@ __all__ = [
     "grain_main_class",
     "METRIC_CMAP",
     "METRIC_RAMP",
+    "METRIC_RAMPS",
+    "metric_cmap",
+    "robust_top",
     "text_colour_on",
     "relative_luminance",
     "PRINT_DPI",
@@ -92,6 +95,59 @@ METRIC_RAMP: tuple[str, ...] = (
 METRIC_CMAP = LinearSegmentedColormap.from_list(
     "regionmap_indigo", METRIC_RAMP, N=256
 ).with_extremes(bad=(1.0, 1.0, 1.0, 0.0))
+
+#: ColorBrewer sequential ramp of each quantity (Harrower & Brewer 2003, as matplotlib ships
+#: them): single- or two-hue ramps whose lightness falls monotonically, so they stay readable
+#: for the common colour-vision deficiencies; none passes through green, yellow, orange or
+#: red. Quantities not listed use :data:`METRIC_CMAP`.
+#:
+#: Harrower, M. & Brewer, C. A. (2003). ColorBrewer.org: an online tool for selecting colour
+#: schemes for maps. The Cartographic Journal 40(1), 27-37, doi:10.1179/000870403235002042.
+METRIC_RAMPS: dict[str, str] = {
+    "snow_depth_cm": "PuBu",
+    "new_snow_24h_cm": "BuPu",
+    "new_snow_72h_cm": "BuPu",
+    "new_snow_72h_kg_m2": "BuPu",
+    "depth_hoar_fraction": "Purples",
+    "pwl_fraction": "Purples",
+    "pwl_depth_cm": "Blues",
+    "pwl_slab_cm": "Blues",
+    "crust_count": "Greys",
+    "crust_count_mean": "Greys",
+    "threshold_count_max": "Purples",
+}
+#: percentile of a quantity's values that tops its colour scale when it has no fixed one, so
+#: that a few outliers do not wash out the rest (the colour bar then extends beyond it).
+ROBUST_PERCENTILE = 98.0
+
+
+def metric_cmap(name: str):
+    """The colour map of a quantity (:data:`METRIC_RAMPS`, from the ramp's light end but not
+    its near-white, which would vanish over the hillshade), else :data:`METRIC_CMAP`."""
+    from matplotlib import colormaps
+
+    if name not in METRIC_RAMPS:
+        return METRIC_CMAP
+    base = colormaps[METRIC_RAMPS[name]]
+    colours = base(np.linspace(0.15, 1.0, 256))
+    return LinearSegmentedColormap.from_list(f"regionmap_{name}", colours, N=256).with_extremes(
+        bad=(1.0, 1.0, 1.0, 0.0)
+    )
+
+
+def robust_top(values, fixed: float | None = None) -> float:
+    """Top of a colour scale: ``fixed`` when given, else the :data:`ROBUST_PERCENTILE` of the
+    finite values rounded up to a 1-2-2.5-5 step (1.0 when there are none above 0)."""
+    if fixed is not None:
+        return float(fixed)
+    v = np.asarray(values, dtype=np.float64)
+    v = v[np.isfinite(v)]
+    top = float(np.percentile(v, ROBUST_PERCENTILE)) if v.size else 0.0
+    if top <= 0:
+        return 1.0
+    p = 10 ** np.floor(np.log10(top))
+    return float(min(s * p for s in (1, 1.5, 2, 2.5, 3, 4, 5, 6, 8, 10) if s * p >= top))
+
 
 #: Print resolution of the PNGs under figures/ [dots per inch] (150 dpi or more is the usual
 #: floor for print; common practice).

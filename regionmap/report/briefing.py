@@ -611,6 +611,13 @@ def _rings_note(page: dict, zone: str) -> str:
     return f"rings {bands[-1]} m (outside) to {bands[0]} m (centre)" if bands else ""
 
 
+def _without_minor_roses(zone: dict) -> dict:
+    """A zone's layers with the roses of its minor (not headline) layers left out."""
+    layers = [dict(layer, v="") if not layer["headline"] else layer for layer in zone["layers"]]
+    dropped = sum(1 for a, b in zip(zone["layers"], layers) if a["v"] and not b["v"])
+    return {**zone, "layers": layers, "without_roses": dropped}
+
+
 def write_report(out_dir) -> Path:
     """Draw the briefing's maps and write the self-contained ``OUT/report.html``; return its path.
 
@@ -665,6 +672,7 @@ def write_report(out_dir) -> Path:
                 {
                     "zone": zone,
                     "rings": _rings_note(page, zone),
+                    "without_roses": 0,
                     "layers": [
                         {
                             "text": r.text,
@@ -713,7 +721,7 @@ def write_report(out_dir) -> Path:
             trim_blocks=False,
             lstrip_blocks=False,
         )
-        html = env.get_template("report.html.j2").render(
+        context = dict(
             title="regionmap snowpack briefing",
             map_time=local_time_label(map_t, tz, year=True),
             map_status="forecast" if out.forecast_at(map_t) else "analysis",
@@ -747,8 +755,14 @@ def write_report(out_dir) -> Path:
             run_items=_run_items(out.run),
             run_json=json.dumps(out.run, indent=2, default=str),
         )
-        html = _no_web_text(html)
+        template = env.get_template("report.html.j2")
+        html = _no_web_text(template.render(**context))
         size = len(html.encode("utf-8"))
+        if size >= REPORT_MAX_BYTES:
+            # a region of very many zones and layers: the minor layers keep their sentence
+            context["layer_zones"] = [_without_minor_roses(z) for z in layer_zones]
+            html = _no_web_text(template.render(**context))
+            size = len(html.encode("utf-8"))
         if size >= REPORT_MAX_BYTES:
             raise OutputError(
                 f"report.html would be {size / 2**20:.1f} MB, over the 10 MB limit; "
