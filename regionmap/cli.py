@@ -116,10 +116,13 @@ def _cmd_forcing(args: argparse.Namespace) -> int:
 
 
 def _cmd_report(args: argparse.Namespace) -> int:
-    from regionmap.report.briefing import write_report
+    from regionmap.report.briefing import write_all_figures, write_report
 
     path = write_report(args.outdir)
     print(f"briefing report written to {path}")
+    if args.all_figures:
+        written = write_all_figures(args.outdir)
+        print(f"{len(written)} figures and tables written to {Path(args.outdir) / 'figures'}")
     print(f"Caution: {CAUTION}")
     return 0
 
@@ -410,10 +413,17 @@ def build_parser() -> argparse.ArgumentParser:
     p = sub.add_parser(
         "report",
         help="write the HTML briefing report of a run",
-        description="Write report.html (self-contained) and figures/ for a run's output folder.",
+        description="Write report.html (self-contained) and its maps under figures/ for a run's "
+        "output folder; with --all-figures also every zone's overviews, profile, layer trackers "
+        "and elevation chart at print resolution.",
         epilog=f"Caution: {CAUTION}",
     )
     p.add_argument("outdir", type=Path, help="a run's output folder")
+    p.add_argument(
+        "--all-figures",
+        action="store_true",
+        help="also draw the per-zone figures (PNG) and overview tables (CSV) into figures/",
+    )
     p.set_defaults(func=_cmd_report)
 
     p = sub.add_parser(

@@ -93,7 +93,12 @@ def test_report_content_sections(report):
     assert "field observations" in text.lower() and "local avalanche service" in text.lower()
 
 
-def test_report_without_verification_skips_the_section_with_a_note_and_lists_figures(tmp_path):
+def test_report_without_verification_skips_the_section_with_a_note_and_lists_figures(
+    tmp_path, capsys, monkeypatch
+):
+    import regionmap.report.briefing as report_module
+    from regionmap.cli import main
+
     folder = build_output_folder(tmp_path / "out", with_verification=False)
     paths = write_all_figures(folder)
     assert all(p.is_file() for p in paths)
@@ -102,8 +107,14 @@ def test_report_without_verification_skips_the_section_with_a_note_and_lists_fig
     overview = f"overview_{zone_slug('Zone A')}_depth_hoar_fraction.csv"
     assert "map_snow_depth_cm.png" in names and overview in names
     assert not (folder / "report.html").exists()
-    text = write_report(folder).read_text(encoding="utf-8")
+    # the report command writes the briefing, and every figure only when asked
+    calls = []
+    monkeypatch.setattr(report_module, "write_all_figures", lambda d: calls.append(d) or paths)
+    assert main(["report", str(folder)]) == 0 and not calls
+    text = (folder / "report.html").read_text(encoding="utf-8")
     assert "No station verification results in this output folder" in text
+    assert main(["report", str(folder), "--all-figures"]) == 0 and calls == [folder]
+    assert f"{len(paths)} figures and tables written to" in capsys.readouterr().out
 
 
 def test_report_of_many_figures_lists_those_over_the_image_budget(tmp_path, monkeypatch):
