@@ -232,3 +232,45 @@ def test_layer_sentences_against_the_synthetic_run(tmp_path):
     # (local, UTC-7), the rain crust of the event that began 2026-01-20
     assert lines["text"].str.startswith("buried surface hoar of 12 Jan").any()
     assert lines["text"].str.startswith("rain crust of 20 Jan").any()
+
+
+# --------------------------------------------------------------------------- changes
+def test_zone_changes_since_24_h_or_the_previous_run(tmp_path):
+    import json
+
+    import xarray as xr
+    from test_plots_synthrun import build_output_folder
+
+    from regionmap.plots.outputs import RunOutputs
+    from regionmap.report.headline import reference_time, zone_changes
+
+    folder = build_output_folder(tmp_path / "out", with_verification=False)
+    out = RunOutputs(folder)
+    try:
+        since, why = reference_time(out)
+        assert since == out.map_time - np.timedelta64(24, "h") and why == "24 h before"
+        ch = zone_changes(out)
+        # regression check against a direct sum over cells.nc: area-weighted mean snowfall in
+        # (since, map time] per zone
+        w = out.weights[0].reindex(out.table.index).to_numpy()
+        with xr.open_dataset(folder / "cells.nc") as ds:
+            sel = (ds["time"].values > since) & (ds["time"].values <= out.map_time)
+            fall = ds["snowfall_kg_m2"].values[:, sel].sum(axis=1)
+        for zone in out.zone_names:
+            m = (out.table["zone"] == zone).to_numpy()
+            want = np.sum(fall[m] * w[m]) / np.sum(w[m])
+            assert ch.changes.loc[zone, "snowfall_kg_m2"] == pytest.approx(want, rel=1e-9, abs=1e-9)
+        assert (ch.changes["wet_frac_now"].between(0, 1)).all()
+        # a run continued from a state: compared with that state's time (the hour before its first step)
+        run = json.loads((folder / "run.json").read_text())
+        first = str(out.times[0] + np.timedelta64(1, "h"))
+        run["period"] = {"continued_from": "yesterday/state.nc", "first_step": first}
+        (folder / "run.json").write_text(json.dumps(run))
+    finally:
+        out.close()
+    again = RunOutputs(folder)
+    try:
+        since, why = reference_time(again)
+        assert since == again.times[0] and why == "the previous run"
+    finally:
+        again.close()

@@ -19,6 +19,7 @@ from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
+from scipy import sparse
 
 from regionmap.io.times import local_date_label, local_time_label
 
@@ -261,11 +262,12 @@ def zone_changes(out) -> ZoneChanges:
     w = w.reindex(out.table.index).to_numpy(np.float64)
     zone_names = out.zone_names
     code = pd.Categorical(out.table["zone"], categories=zone_names).codes
-    # (zone, cell) weight matrix with rows that sum to 1
-    member = np.zeros((len(zone_names), code.size))
-    member[code, np.arange(code.size)] = w
-    total = member.sum(axis=1, keepdims=True)
-    member = np.divide(member, total, out=np.zeros_like(member), where=total > 0)
+    # sparse (zone, cell) weights whose rows sum to 1: weighted zone means as one product
+    total = np.bincount(code, weights=w, minlength=len(zone_names))
+    share = np.divide(w, total[code], out=np.zeros_like(w), where=total[code] > 0)
+    member = sparse.csr_matrix(
+        (share, (code, np.arange(code.size))), shape=(len(zone_names), code.size)
+    )
     first = 1 if p0 >= 1 else 0  # interval sums after `since` only
     cut = pm - window.start  # positions in the window up to and including the map time
 
@@ -278,7 +280,7 @@ def zone_changes(out) -> ZoneChanges:
     snow_now, snow_fc = sums("snowfall_kg_m2")
     rain_now, rain_fc = sums("rain_kg_m2")
     if "liquid_water_kg_m2" in ds.variables:
-        wet = member @ (ds["liquid_water_kg_m2"].values >= WET_SNOW_MIN_KG_M2)
+        wet = member @ (ds["liquid_water_kg_m2"].values >= WET_SNOW_MIN_KG_M2).astype(np.float64)
     else:
         wet = np.zeros((len(zone_names), t.size))
     k_since = 0 if p0 >= 1 and times[window.start] == since else None
