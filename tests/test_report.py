@@ -88,6 +88,12 @@ def test_report_content_sections(report):
     # the zones' rain-crust sentence from rain_crust.rain_crust_sentence, designed 1400-2000 m
     assert "rain crust likely between" in text
     assert "buried surface hoar of 12 Jan" in text  # layers of concern, as a sentence
+    # the headline: changes over the last 24 h, the new snow of the observation days to their
+    # real end: the map time 2026-01-22T12Z is 05:00 at UTC-7, before that day's 07:00
+    # observation, so the days end at 07:00 local the day before
+    assert "Last 24 h:" in text
+    assert "New snow to Wed 21 Jan 07:00 UTC-07 (14:00 UTC)" in text
+    assert "wet snow" in text.lower()
     assert "ST1" in text and "ST2" in text  # verification.csv written by the fixture
     assert "no forecast part" in text
     assert "field observations" in text.lower() and "local avalanche service" in text.lower()

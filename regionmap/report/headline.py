@@ -323,7 +323,6 @@ def headline_items(
     ``load`` (new snow of the observation days ending at ``window_end``, and the forecast's),
     ``wet`` (wet snow now and its onset) and ``layers`` (the headline layers' sentences)."""
     c = changes.changes.loc[zone]
-    since = local_time_label(changes.since, local_timezone)
     since_date = pd.Timestamp(changes.since).tz_localize("UTC").tz_convert(local_timezone).date()
     zl = lines[lines["zone"] == zone]
     new = zl[pd.to_datetime(zl["date"]).dt.date >= since_date]
@@ -332,7 +331,8 @@ def headline_items(
         for r in new[new["headline"]].itertuples()
     ]
     changed = (
-        f"Since {since} ({changes.since_label}): {c.snowfall_kg_m2:.0f} kg m-2 snowfall, "
+        f"{'Since the previous run' if changes.since_label == 'the previous run' else 'Last 24 h'}: "
+        f"{c.snowfall_kg_m2:.0f} kg m-2 snowfall, "
         f"{c.rain_kg_m2:.0f} kg m-2 rain; "
         + (f"new: {', '.join(new_words)}." if new_words else "no new layer of concern.")
     )
