@@ -186,7 +186,11 @@ def plot_metric_map(out, metric: str, *, show_rain_crust: bool = False):
     out = _outputs(out)
     data, tags, (transform, crs, description, dtype) = _read_map(out, metric)
     m = _metric_of(metric, tags.get("units", ""), description)
+    # every mapped quantity is >= 0; below it a raster marks "none" (e.g. no weak layer),
+    # which is left unshaded over the relief
     values = np.ma.masked_invalid(data.astype(np.float64) * m.scale)
+    none = values < 0
+    values = np.ma.masked_where(none.filled(False), values)
     extent = _extent(transform, data.shape)
     lat = float(np.nanmean(out.table["lat"])) if "lat" in out.table else 45.0
     kx, ky = _metres_per_unit(crs, lat)
@@ -228,6 +232,8 @@ def plot_metric_map(out, metric: str, *, show_rain_crust: bool = False):
     when = local_time_label(
         utc_datetime64(when, f"maps/{metric}.tif valid_time"), out.local_timezone, year=True
     )
+    if none.any():
+        note = "unshaded: none" + (f"; {note}" if note else "")
     ax.set_title(f"{m.label}\nvalid {when} ({status})" + (f"; {note}" if note else ""), fontsize=10)
     return fig
 

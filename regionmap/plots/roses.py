@@ -146,35 +146,32 @@ def metric_scales(band_aspect: pd.DataFrame) -> dict[str, tuple[RoseScale, float
     return out
 
 
-def zone_grid(band_aspect: pd.DataFrame, sectors: list[str]) -> dict[str, dict]:
-    """Per zone: its bands (highest first, only those with terrain between the highest and
-    lowest), the sector order (compass sectors of the run, then ``flat`` when the zone has
-    weighted flat terrain) and the (band, sector) → position of each band × aspect row.
+def zone_grid(
+    band_aspect: pd.DataFrame, cells: pd.DataFrame, sectors: list[str]
+) -> dict[str, dict]:
+    """Per zone: its bands (highest first, from the highest to the lowest band with weighted
+    terrain) and the sector order (compass sectors of the run, then ``flat`` when the zone
+    has weighted flat terrain).
 
     Parameters
     ----------
     band_aspect : ``band_aspect.csv`` rows of one weighting (``zone``, ``band_lower_m``,
-        ``band_upper_m``, ``aspect_sector``, ``area_km2`` = weighted area).
+        ``aspect_sector``, ``area_km2`` = weighted area; rows without terrain may be absent).
+    cells : the cell table (``zone``, ``band_lower_m``, ``band_upper_m``): the bands.
     sectors : compass sectors of the run in clockwise order.
     """
     grids = {}
-    ba = band_aspect
-    for zone, z in ba.groupby("zone", sort=True):
-        has = z[z["area_km2"] > 0]
-        if has.empty:
-            continue
-        lo, hi = has["band_lower_m"].min(), has["band_lower_m"].max()
-        bands = (
-            z[(z["band_lower_m"] >= lo) & (z["band_lower_m"] <= hi)][
-                ["band_lower_m", "band_upper_m"]
-            ]
-            .drop_duplicates()
-            .sort_values("band_lower_m", ascending=False)
-        )
-        order = list(sectors) + (["flat"] if (has["aspect_sector"] == "flat").any() else [])
+    has = band_aspect[band_aspect["area_km2"] > 0]
+    bands_all = cells[["zone", "band_lower_m", "band_upper_m"]].drop_duplicates()
+    for zone, z in has.groupby("zone", sort=True):
+        lo, hi = z["band_lower_m"].min(), z["band_lower_m"].max()
+        b = bands_all[bands_all["zone"] == zone]
+        b = b[(b["band_lower_m"] >= lo) & (b["band_lower_m"] <= hi)]
+        b = b.sort_values("band_lower_m", ascending=False)
+        order = list(sectors) + (["flat"] if (z["aspect_sector"] == "flat").any() else [])
         grids[zone] = {
-            "band_lower_m": bands["band_lower_m"].to_numpy(),
-            "band_upper_m": bands["band_upper_m"].to_numpy(),
+            "band_lower_m": b["band_lower_m"].to_numpy(),
+            "band_upper_m": b["band_upper_m"].to_numpy(),
             "sectors": order,
         }
     return grids

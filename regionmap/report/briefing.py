@@ -563,7 +563,7 @@ def _rose_payload(out: RunOutputs, lines: pd.DataFrame) -> tuple[dict, dict, lis
 
     ba = out.band_aspect_table
     sectors, _ = sector_layout(out.table["aspect_sector"].unique())
-    grids = zone_grid(ba, sectors)
+    grids = zone_grid(ba, out.table, sectors)
     scales = metric_scales(ba)
     presence = presence_scale()
     terrain = {
