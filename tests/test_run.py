@@ -476,7 +476,9 @@ def test_a_full_disk_ends_the_run_with_one_line_and_leaves_nothing(
                 "TIFFAppendToStrip:Write error at scanline 0: No space left on device"
             )
 
-        monkeypatch.setattr(rasterio.io.DatasetWriter, "write", gdal_full)
+        # GTiff files are written by a DatasetWriter, COGs by a BufferedDatasetWriter
+        for writer_class in (rasterio.io.DatasetWriter, rasterio.io.BufferedDatasetWriter):
+            monkeypatch.setattr(writer_class, "write", gdal_full)
     out = tmp_path / "out"
     cfg = config(scenario, "full", start="2026-01-20T01:00")
     assert main(["run", str(cfg.source), "--out", str(out), "--quiet"]) == 2
