@@ -74,9 +74,13 @@ def test_default_map_time_is_the_observation_hour_of_the_analysis_day():
         times, np.datetime64("2026-02-14T20:00"), local_timezone="Etc/GMT+7", observation_hour=7
     )
     assert t == np.datetime64("2026-02-14T14:00")
-    # the run ends before the observation hour of its last day: the last one it holds
+    # a run without forecast to 23:00: that day's observation hour
     t = default_map_time(times, times[-1], local_timezone="UTC", observation_hour=7)
     assert t == np.datetime64("2026-02-17T07:00")
+    # the run ends before the observation hour of its last day: the run's end, the nearest
+    ends_early = _hours("2026-02-01T01:00", "2026-02-13T07:00")
+    t = default_map_time(ends_early, ends_early[-1], local_timezone="UTC", observation_hour=7)
+    assert t == np.datetime64("2026-02-13T06:00")
     # three-hourly output: rounded down to an output time
     t = default_map_time(
         _hours("2026-02-01T03:00", "2026-02-18T00:00", 3),
@@ -85,7 +89,7 @@ def test_default_map_time_is_the_observation_hour_of_the_analysis_day():
         observation_hour=7,
     )
     assert t == np.datetime64("2026-02-15T06:00")
-    # no observation hour in the run: the analysis end
+    # no observation hour in the run: its end
     short = _hours("2026-02-01T01:00", "2026-02-01T05:00")
     assert default_map_time(short, short[-1], local_timezone="UTC", observation_hour=7) == short[-1]
 

@@ -235,8 +235,8 @@ def default_map_time(
     """The local observation hour of the analysis day: the hour ``observation_hour`` (local
     clock) on the local calendar day of ``analysis_end`` — the picture a forecaster wants on
     that morning, even when the analysis ran to midnight and the hours after it are forecast.
-    When the run ends before that hour, the last observation hour in the run; when it holds
-    none, the analysis end. Rounded down to an output time.
+    When the run ends before that hour, the run's last output time (the nearest to it).
+    Rounded down to an output time.
 
     Parameters
     ----------
@@ -258,12 +258,7 @@ def default_map_time(
     local_day = pd.Timestamp(end).tz_localize("UTC").tz_convert(local_timezone).date()
     days = pd.DatetimeIndex(obs).tz_localize("UTC").tz_convert(local_timezone).date
     same = obs[days == local_day]
-    if same.size:
-        want = same[0]
-    elif obs.size:
-        want = obs[obs <= end][-1] if (obs <= end).any() else obs[0]
-    else:
-        want = end
+    want = same[0] if same.size else out_times[-1]
     return out_times[max(0, np.searchsorted(out_times, want, side="right") - 1)]
 
 
