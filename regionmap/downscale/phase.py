@@ -4,8 +4,14 @@ from __future__ import annotations
 
 import numpy as np
 
+from regionmap.downscale.thermo import wet_bulb_temperature_normand
+
 __all__ = [
+    "snow_probability_jennings2018",
+    "threshold_temperature_jennings2018",
     "snow_fraction_jennings2018",
+    "no_liquid_below_wet_bulb",
+    "snow_fraction",
     "snow_fraction_wet_bulb_threshold",
     "snow_fraction_air_temperature_threshold",
     "bourgouin2000_areas",
@@ -17,21 +23,28 @@ _T0 = 273.15
 _RD = 287.04749097718457  # J kg-1 K-1
 
 
-def snow_fraction_jennings2018(t_air_k, rh_frac) -> np.ndarray:
-    """Probability of snow from air temperature and humidity (bivariate logistic).
+#: Half width of the mixed rain-snow band around the Jennings et al. (2018) 50 % threshold
+#: [K] (ours: a narrow band, so that hours within half a degree of the threshold mix).
+JENNINGS2018_MIXED_HALF_WIDTH_K = 0.5
+
+
+def snow_probability_jennings2018(t_air_k, rh_frac) -> np.ndarray:
+    """Probability that precipitation is snow, from air temperature and humidity.
 
     Parameters
     ----------
     t_air_k : array_like float64
         Near-surface air temperature [K].
     rh_frac : array_like float64
-        Relative humidity [1] (the model uses percent).
+        Relative humidity [1] (the regression uses percent).
 
     Returns
     -------
     ndarray float64
         p = 1 / (1 + exp(alpha + beta T + gamma RH)), T in degC, RH in %,
-        alpha = -10.04, beta = 1.41, gamma = 0.09 [1], used as the solid fraction.
+        alpha = -10.04, beta = 1.41, gamma = 0.09 [1]. This is the share of observations
+        that were snow at that temperature and humidity, not the solid share of one hour's
+        precipitation: use :func:`snow_fraction_jennings2018` for the mass partition.
 
     References
     ----------
@@ -45,8 +58,53 @@ def snow_fraction_jennings2018(t_air_k, rh_frac) -> np.ndarray:
     return 1.0 / (1.0 + np.exp(-10.04 + 1.41 * t_c + 0.09 * rh_pct))
 
 
+def threshold_temperature_jennings2018(rh_frac) -> np.ndarray:
+    """Air temperature of 50 % snow probability at a given humidity [K].
+
+    Parameters
+    ----------
+    rh_frac : array_like float64
+        Relative humidity [1].
+
+    Returns
+    -------
+    ndarray float64
+        T50 = (10.04 - 0.09 RH) / 1.41 degC (RH in %), where the bivariate logistic
+        regression of Jennings et al. (2018), Nature Communications 9, 1148, Table 2, equals
+        1/2: 0.738 degC at 100 % RH, 3.929 degC at 50 % [K].
+    """
+    rh_pct = 100.0 * np.asarray(rh_frac, dtype=np.float64)
+    return _T0 + (10.04 - 0.09 * rh_pct) / 1.41
+
+
+def snow_fraction_jennings2018(
+    t_air_k, rh_frac, *, half_width_k: float = JENNINGS2018_MIXED_HALF_WIDTH_K
+) -> np.ndarray:
+    """Solid share of precipitation: the humidity-dependent threshold of Jennings et al.
+
+    Parameters
+    ----------
+    t_air_k : array_like float64
+        Near-surface air temperature [K].
+    rh_frac : array_like float64
+        Relative humidity [1].
+    half_width_k : float
+        Half width of the linear mixed band centred on the threshold [K]; 0 gives a step.
+
+    Returns
+    -------
+    ndarray float64
+        1 below T50(RH) - half width, 0 above T50(RH) + half width, linear between [1];
+        T50 from :func:`threshold_temperature_jennings2018` (Jennings et al. 2018, Nature
+        Communications 9, 1148, Table 2, doi:10.1038/s41467-018-03629-7).
+    """
+    return snow_fraction_wet_bulb_threshold(
+        t_air_k, threshold_k=threshold_temperature_jennings2018(rh_frac), half_width_k=half_width_k
+    )
+
+
 def snow_fraction_wet_bulb_threshold(
-    t_wet_bulb_k, *, threshold_k: float = 274.15, half_width_k: float = 0.0
+    t_wet_bulb_k, *, threshold_k=274.15, half_width_k: float = 0.0
 ) -> np.ndarray:
     """Solid fraction from a wet-bulb threshold, with an optional linear transition.
 
@@ -54,7 +112,7 @@ def snow_fraction_wet_bulb_threshold(
     ----------
     t_wet_bulb_k : array_like float64
         Wet-bulb temperature [K].
-    threshold_k : float
+    threshold_k : float or array_like float64
         50 % snow at this wet-bulb temperature [K] (default 1 degC, common practice).
     half_width_k : float
         Half width of a linear rain-snow transition; 0 gives a step [K].
@@ -93,6 +151,88 @@ def snow_fraction_air_temperature_threshold(
     return snow_fraction_wet_bulb_threshold(
         t_air_k, threshold_k=threshold_k, half_width_k=half_width_k
     )
+
+
+def no_liquid_below_wet_bulb(snow_frac, t_wet_bulb_k) -> np.ndarray:
+    """All precipitation solid where the wet-bulb temperature is at or below 0 degC.
+
+    Parameters
+    ----------
+    snow_frac : array_like float64
+        Solid share from a surface phase method [1].
+    t_wet_bulb_k : array_like float64
+        Wet-bulb temperature [K].
+
+    Returns
+    -------
+    ndarray float64
+        1 where T_w <= 273.15 K, else ``snow_frac`` [1].
+
+    Notes
+    -----
+    A falling hydrometeor tends to the wet-bulb temperature (it cools by evaporation and
+    sublimation); a snowflake melts only where its surface exceeds 0 degC, so below 0 degC
+    wet bulb no melt water reaches the ground (Matsuo & Sasyo 1981, J. Meteorol. Soc.
+    Japan 59(1), 10-25; Ding et al. 2014, J. Hydrol. 513, 154-163,
+    doi:10.1016/j.jhydrol.2014.03.038, whose rain-snow threshold in wet bulb stays above
+    0 degC [mem]). Supercooled liquid from a melting layer aloft is the freezing-rain path
+    (:func:`freezing_rain_at_cell`), not this one.
+    """
+    sf = np.asarray(snow_frac, dtype=np.float64)
+    return np.where(np.asarray(t_wet_bulb_k) <= _T0, 1.0, sf)
+
+
+def snow_fraction(
+    method: str,
+    t_air_k,
+    rh_frac,
+    pressure_pa,
+    *,
+    threshold_c: float = 1.0,
+    half_width_k: float = 0.0,
+) -> np.ndarray:
+    """Solid share of precipitation at the cell by the configured method [1].
+
+    Parameters
+    ----------
+    method : "jennings2018", "wet_bulb" or "air_temperature"
+        Jennings et al. (2018) humidity-dependent threshold with its narrow mixed band, or a
+        wet-bulb or air-temperature threshold ``threshold_c`` [degC] with a linear band of
+        half width ``half_width_k`` [K].
+    t_air_k, rh_frac, pressure_pa : array_like float64
+        Air temperature [K], relative humidity [1], pressure [Pa].
+
+    Returns
+    -------
+    ndarray float64
+        Solid share, 1 wherever the wet-bulb temperature is at or below 0 degC
+        (:func:`no_liquid_below_wet_bulb`) [1].
+    """
+    t = np.asarray(t_air_k, dtype=np.float64)
+    rh = np.broadcast_to(np.asarray(rh_frac, dtype=np.float64), t.shape)
+    p = np.broadcast_to(np.asarray(pressure_pa, dtype=np.float64), t.shape)
+    threshold_k = _T0 + threshold_c
+    if method == "jennings2018":
+        sf = snow_fraction_jennings2018(t, rh)
+    elif method == "air_temperature":
+        sf = snow_fraction_air_temperature_threshold(
+            t, threshold_k=threshold_k, half_width_k=half_width_k
+        )
+    elif method != "wet_bulb":
+        raise ValueError(
+            f"phase method: expected jennings2018, wet_bulb or air_temperature, got {method!r}"
+        )
+    # the wet bulb only where liquid is possible (it costs a moist-adiabat integration)
+    liquid_possible = (t > _T0) if method == "wet_bulb" else (sf < 1.0)
+    tw = np.full(t.shape, _T0 - 1.0)
+    tw[liquid_possible] = wet_bulb_temperature_normand(
+        t[liquid_possible], rh[liquid_possible], p[liquid_possible]
+    )
+    if method == "wet_bulb":
+        sf = snow_fraction_wet_bulb_threshold(
+            tw, threshold_k=threshold_k, half_width_k=half_width_k
+        )
+    return no_liquid_below_wet_bulb(sf, tw)
 
 
 def _split_area(d_lo, d_hi, dlnp):

@@ -300,21 +300,14 @@ def _chunk_block(gf, batch: CellBatch, settings, data, z_pts, time, month_idx, c
         p_cell[:, sel] = mat @ precip_pts[:, sel]
 
     # phase and freezing rain
-    if settings.phase == "jennings2018":
-        snow = _phase.snow_fraction_jennings2018(t_c, rh_c)
-    elif settings.phase == "wet_bulb":
-        tw = _thermo.wet_bulb_temperature_normand(t_c, rh_c, p_c)
-        snow = _phase.snow_fraction_wet_bulb_threshold(
-            tw,
-            threshold_k=273.15 + settings.phase_threshold_c,
-            half_width_k=settings.phase_half_width_k,
-        )
-    else:
-        snow = _phase.snow_fraction_air_temperature_threshold(
-            t_c,
-            threshold_k=273.15 + settings.phase_threshold_c,
-            half_width_k=settings.phase_half_width_k,
-        )
+    snow = _phase.snow_fraction(
+        settings.phase,
+        t_c,
+        rh_c,
+        p_c,
+        threshold_c=settings.phase_threshold_c,
+        half_width_k=settings.phase_half_width_k,
+    )
     if "freezing_rain_frac" in data:
         aloft = w @ np.clip(data["freezing_rain_frac"], 0.0, 1.0)
     elif "upper_air_temperature" in data:

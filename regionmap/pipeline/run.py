@@ -20,6 +20,7 @@ import numpy as np
 import pandas as pd
 
 from regionmap.config import Config
+from regionmap.downscale.phase import snow_fraction
 from regionmap.downscale.pipeline import CellBatch, downscale_cells, prepare_cells
 from regionmap.downscale.settings import DownscaleSettings
 from regionmap.downscale.types import CellForcing
@@ -335,23 +336,6 @@ def register_forcing(ctx: RunContext, gf) -> None:
     _FORCING_CACHE[(str(ctx.cfg.source), repr(ctx.cfg.forcing))] = gf
 
 
-def _snow_fraction(t_air_k, rh_frac, pressure_pa, settings: DownscaleSettings) -> np.ndarray:
-    """The configured phase method (as in the downscaling pipeline)."""
-    from regionmap.downscale import phase, thermo
-
-    if settings.phase == "jennings2018":
-        return phase.snow_fraction_jennings2018(t_air_k, rh_frac)
-    threshold_k = 273.15 + settings.phase_threshold_c
-    if settings.phase == "wet_bulb":
-        tw = thermo.wet_bulb_temperature_normand(t_air_k, rh_frac, pressure_pa)
-        return phase.snow_fraction_wet_bulb_threshold(
-            tw, threshold_k=threshold_k, half_width_k=settings.phase_half_width_k
-        )
-    return phase.snow_fraction_air_temperature_threshold(
-        t_air_k, threshold_k=threshold_k, half_width_k=settings.phase_half_width_k
-    )
-
-
 def _perturbed(
     forcing: CellForcing, dt_k: float, dphase_k: float, settings: DownscaleSettings
 ) -> CellForcing:
@@ -361,7 +345,14 @@ def _perturbed(
     if dt_k == 0.0 and dphase_k == 0.0:
         return forcing
     t = forcing.t_air_k + dt_k
-    sf = _snow_fraction(t - dphase_k, forcing.rh_frac, forcing.pressure_pa, settings)
+    sf = snow_fraction(
+        settings.phase,
+        t - dphase_k,
+        forcing.rh_frac,
+        forcing.pressure_pa,
+        threshold_c=settings.phase_threshold_c,
+        half_width_k=settings.phase_half_width_k,
+    )
     fz = forcing.freezing_rain_frac
     out = forcing.subset()
     out.t_air_k = t

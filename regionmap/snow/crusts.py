@@ -1,13 +1,18 @@
 """Crusts: melt-freeze, sun, rain and freezing-rain glaze.
 
-Formation rules (Fierz et al. 2009 for the classes MFcr and IF; crust kinds from the
-avalanche literature, Jamieson 2006, Rev. Geophys. 44, RG2001, doi:10.1029/2005RG000176):
-a layer that was wet and refreezes becomes a melt-freeze crust; a *sun* crust when the
-wetting came from solar input on a dry pack; a *rain* crust when rain wetted it (tagged with
-the rain event's id). Freezing rain on a sub-freezing surface freezes on contact into a
-glaze of ice (IF) whose thickness is the water equivalent over the density of ice. A layer
-refrozen again keeps its first crust kind and formation time, so repeated melt-freeze cycles
-of the same layer stay one crust.
+Formation rules (Fierz et al. 2009 for the classes MFcr and IF and the liquid-water classes;
+crust kinds from the avalanche literature, Jamieson 2006, Rev. Geophys. 44, RG2001,
+doi:10.1029/2005RG000176): a layer that reached the "wet" class (>= 3 % liquid water by
+volume, Fierz et al. 2009, liquid water content classes [src]) with water of a known source and then refreezes
+becomes a crust -- a *sun* crust when solar input melted a dry surface, a *melt-freeze*
+crust for other surface melt, a *rain* crust when a substantial rain (in amount and as a
+share of its event's precipitation, :func:`substantial_rain`) wetted it (tagged with the rain
+event's id). Only the snow the water wetted to that class refreezes into the crust, so a
+crust is as thick as the wetted layers, typically centimetres (Jamieson 2006 [mem]).
+Freezing rain on a sub-freezing surface freezes on contact into a glaze of ice (IF) whose
+thickness is the water equivalent over the density of ice. A layer refrozen again keeps its
+first crust kind and formation time, so repeated melt-freeze cycles of the same layer stay
+one crust.
 """
 
 from __future__ import annotations
@@ -16,9 +21,10 @@ from numba import njit
 
 from regionmap.snow.constants import RHO_ICE_KG_M3
 
-__all__ = ["glaze_thickness_m", "crust_kind_on_refreeze", "counts_as_crust"]
+__all__ = ["glaze_thickness_m", "substantial_rain", "crust_kind_on_refreeze", "counts_as_crust"]
 
 NONE, MELT_FREEZE, SUN, RAIN, GLAZE = 0, 1, 2, 3, 4
+NO_CRUST = NONE
 #: layer flag bits (formation flags carried per layer)
 FLAG_WET_RAIN = 1  # wetted by rain in the current wet spell
 FLAG_WET_SUN = 2  # wetted by surface melt driven by sunshine on a dry pack
@@ -33,15 +39,26 @@ def glaze_thickness_m(water_kg_m2):
 
 
 @njit(cache=True, nogil=True, error_model="numpy")
-def crust_kind_on_refreeze(old_kind, flags):
-    """Crust kind of a wet layer that has just refrozen (old kind kept: one crust per layer)."""
+def substantial_rain(rain_kg_m2, precip_kg_m2, min_rain_kg_m2, min_share):
+    """Whether a rain event so far can leave a rain crust: at least ``min_rain_kg_m2`` of
+    rain [kg m-2] and at least ``min_share`` [1] of the event's precipitation as rain."""
+    return rain_kg_m2 >= min_rain_kg_m2 and rain_kg_m2 >= min_share * max(precip_kg_m2, 1e-12)
+
+
+@njit(cache=True, nogil=True, error_model="numpy")
+def crust_kind_on_refreeze(old_kind, flags, rain_substantial):
+    """Crust kind of a wet layer that has just refrozen (old kind kept: one crust per layer).
+
+    Rain water of a rain event too small for a crust leaves no crust kind (:data:`NONE`)."""
     if old_kind != NONE:
         return old_kind
     if flags & FLAG_WET_RAIN:
-        return RAIN
+        return RAIN if rain_substantial else NONE
     if flags & FLAG_WET_SUN and not flags & FLAG_WET_MELT:
         return SUN
-    return MELT_FREEZE
+    if flags & (FLAG_WET_SUN | FLAG_WET_MELT):
+        return MELT_FREEZE
+    return NONE
 
 
 @njit(cache=True, nogil=True, error_model="numpy")

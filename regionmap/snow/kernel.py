@@ -40,8 +40,10 @@ from regionmap.snow.crusts import (
     FLAG_WET_RAIN,
     FLAG_WET_SUN,
     GLAZE,
+    NO_CRUST,
     crust_kind_on_refreeze,
     glaze_thickness_m,
+    substantial_rain,
 )
 from regionmap.snow.layering import (
     F_DEND,
@@ -104,6 +106,8 @@ from regionmap.snow.params import (
     P_NEW_SNOW_GRAIN_MM,
     P_NEWTON_ITERATIONS,
     P_POND_PORE_FRAC,
+    P_RAIN_CRUST_MIN_KG_M2,
+    P_RAIN_CRUST_MIN_SHARE,
     P_ROUGHNESS_M,
     P_ROUND_RATE_PER_DAY,
     P_SETTLING_RATE0_PER_S,
@@ -130,6 +134,7 @@ from regionmap.snow.surface import (
     solve_surface_temperature,
     specific_humidity,
     vapour_pressure_water_buck1981,
+    wet_bulb_temperature_psychrometric,
 )
 from regionmap.snow.surface_hoar import (
     surface_hoar_destroyed,
@@ -141,7 +146,9 @@ from regionmap.snow.water import is_flow_barrier, layer_enthalpy, percolate_colu
 
 # per-cell surface state vector (float64)
 V_ALBEDO, V_TSURF, V_SH_MASS, V_SNOW_AGE_H, V_SNOW_GAP_H, V_RAIN_GAP_H, V_FZ_GAP_H = range(7)
-V_SOIL = 7  # soil temperatures V_SOIL .. V_SOIL + N_SOIL - 1, deepest first
+# rain and all precipitation since the current rain event began [kg m-2]
+V_RAIN_EV_KG_M2, V_RAIN_EV_PRECIP_KG_M2 = 7, 8
+V_SOIL = 9  # soil temperatures V_SOIL .. V_SOIL + N_SOIL - 1, deepest first
 N_SV = V_SOIL + N_SOIL
 # per-cell integer state vector
 J_N, J_SNOW_EV, J_RAIN_EV, J_FZ_EV, J_SH_START = range(5)
@@ -563,8 +570,20 @@ def _bury_or_drop_hoar(fw, iw, n, sv, si, wind, now_s, p, cap):
 
 
 @njit(cache=True, nogil=True, error_model="numpy")
-def _wet_flags_and_crusts(fw, iw, n, rain_event, rain_wetting, solar_melt, now_s, p):
-    """Tag wet layers with the source of their water; turn refrozen wet layers into crusts."""
+def _wet_flags_and_crusts(
+    fw, iw, n, rain_event, rain_wetting, rain_crust_event, surface_melt, solar_melt, now_s, p
+):
+    """Tag wet layers with the source of their water; turn refrozen wet layers into crusts.
+
+    Water from the top down in a step with rain is rain water; water in a layer of a step
+    with surface melt is melt (sun melt when the sun drove it). A layer that reached the
+    "wet" class (``crust_wet_frac`` by volume) with water of a known source becomes a crust
+    when it refreezes (:func:`regionmap.snow.crusts.crust_kind_on_refreeze`); a rain-wetted
+    layer is a rain crust only when its rain event is substantial (``rain_crust_event`` at
+    refreeze, :func:`regionmap.snow.crusts.substantial_rain`), otherwise it refreezes
+    without a crust kind. Water of no known source (a trace, the melt-back of a glaze)
+    wets without making a crust.
+    """
     wet_src = FLAG_WET_RAIN | FLAG_WET_SUN | FLAG_WET_MELT
     from_top = True
     for i in range(n - 1, -1, -1):
@@ -575,22 +594,24 @@ def _wet_flags_and_crusts(fw, iw, n, rain_event, rain_wetting, solar_melt, now_s
                 if not fl & FLAG_WET_RAIN:
                     iw[I_EVENT, i] = rain_event
                 fl |= FLAG_WET_RAIN
-            elif not fl & wet_src:
+            elif surface_melt and from_top and not fl & wet_src:
                 fl |= FLAG_WET_SUN if solar_melt else FLAG_WET_MELT
             if liq / (RHO_WATER_KG_M3 * max(fw[F_THICK, i], 1e-9)) >= p[P_CRUST_WET_FRAC]:
                 fl |= FLAG_WAS_WET
         else:
             from_top = False
-            if fl & FLAG_WAS_WET and fw[F_TEMP, i] < T_MELT_K:
-                kind = crust_kind_on_refreeze(iw[I_CRUST, i], fl)
-                if iw[I_CRUST, i] == 0:
-                    iw[I_FORM, i] = now_s
-                iw[I_CRUST, i] = kind
-                if iw[I_CODE, i] != _IF:
-                    iw[I_CODE, i] = _MFCR
+            if fl & FLAG_WAS_WET and fl & wet_src and fw[F_TEMP, i] < T_MELT_K:
+                same_event = iw[I_EVENT, i] == rain_event
+                kind = crust_kind_on_refreeze(iw[I_CRUST, i], fl, rain_crust_event and same_event)
+                if kind != NO_CRUST:
+                    if iw[I_CRUST, i] == NO_CRUST:
+                        iw[I_FORM, i] = now_s
+                    iw[I_CRUST, i] = kind
+                    if iw[I_CODE, i] != _IF:
+                        iw[I_CODE, i] = _MFCR
                 fl &= ~(FLAG_WAS_WET | wet_src)
-            elif fl & wet_src and fw[F_TEMP, i] < T_MELT_K:
-                fl &= ~wet_src
+            elif fw[F_TEMP, i] < T_MELT_K:
+                fl &= ~(FLAG_WAS_WET | wet_src)
         iw[I_FLAGS, i] = fl
 
 
@@ -824,9 +845,14 @@ def _step(
     if liquid > 0.0:
         if sv[V_RAIN_GAP_H] >= p[P_EVENT_GAP_H] or si[J_RAIN_EV] == 0:
             si[J_RAIN_EV] = hour_abs
+            sv[V_RAIN_EV_KG_M2] = 0.0
+            sv[V_RAIN_EV_PRECIP_KG_M2] = 0.0
         sv[V_RAIN_GAP_H] = 0.0
     else:
         sv[V_RAIN_GAP_H] += hours
+    if sv[V_RAIN_GAP_H] < p[P_EVENT_GAP_H]:
+        sv[V_RAIN_EV_KG_M2] += liquid - fz
+        sv[V_RAIN_EV_PRECIP_KG_M2] += precip
     if fz > 0.0:
         if sv[V_FZ_GAP_H] >= p[P_EVENT_GAP_H] or si[J_FZ_EV] == 0:
             si[J_FZ_EV] = hour_abs
@@ -867,7 +893,9 @@ def _step(
     if rain > 0.0:
         if n > 0:
             top = n - 1
-            heat = C_WATER_J_KG_K * (max(ta, T_MELT_K) - T_MELT_K) * rain
+            # rain arrives at its wet-bulb temperature (a falling drop's equilibrium)
+            t_rain = wet_bulb_temperature_psychrometric(ta, rh, pres)
+            heat = C_WATER_J_KG_K * (max(t_rain, T_MELT_K) - T_MELT_K) * rain
             h = layer_enthalpy(fw[F_ICE, top], fw[F_LIQ, top], fw[F_TEMP, top]) + heat
             ice, liq, t, extra = resolve_phase(fw[F_ICE, top] + fw[F_LIQ, top] + rain, h)
             fw[F_ICE, top] = ice
@@ -926,7 +954,10 @@ def _step(
         e_flux -= excess
         sv[V_SOIL + N_SOIL - 1] += excess / (p[P_SOIL_HEAT_CAPACITY_J_M3_K] * _SOIL_DZ[N_SOIL - 1])
     melting = n > 0 and fw[F_LIQ, n - 1] > 0.0 and ts >= T_MELT_K
-    solar_melt = top_dry and sw_abs > max(lw_net + sens + lat, 0.0) and rain <= 0.0
+    # melt from the surface energy balance: a melting skin with a net gain, and the sun's
+    # share larger than that of all other gains on a dry surface
+    surface_melt = melting and sw_abs + lw_net + sens + lat > 0.0
+    solar_melt = surface_melt and top_dry and sw_abs > max(lw_net + sens + lat, 0.0)
     # deposition / sublimation; surface hoar grows from deposition under its conditions
     if n > 0:
         to_hoar = surface_hoar_forms(vap, wind_raw, ts, ta, snow, p[P_SH_WIND_MAX_M_S])
@@ -971,7 +1002,24 @@ def _step(
             0.0,
         )
     acc[A_RUNOFF] = runoff
-    _wet_flags_and_crusts(fw, iw, n, si[J_RAIN_EV], rain_wetting, solar_melt, now_s, p)
+    rain_crust_event = substantial_rain(
+        sv[V_RAIN_EV_KG_M2],
+        sv[V_RAIN_EV_PRECIP_KG_M2],
+        p[P_RAIN_CRUST_MIN_KG_M2],
+        p[P_RAIN_CRUST_MIN_SHARE],
+    )
+    _wet_flags_and_crusts(
+        fw,
+        iw,
+        n,
+        si[J_RAIN_EV],
+        rain_wetting,
+        rain_crust_event,
+        surface_melt,
+        solar_melt,
+        now_s,
+        p,
+    )
     _compact(fw, n, dt, p, wk[0])
     _metamorphose(fw, iw, n, sv, ts, dt, p, wk[1], wk[2], wk[3])
     # surface hoar destruction: into the top layer

@@ -170,14 +170,18 @@ def facetedness_rate(
 def classify_grain(old_code, dendricity, facetedness, grain_mm, wet, near_surface, dh_min_grain_mm):
     """Grain class (index into GRAIN_CODES) from the layer's microstructure state.
 
-    Rules (Fierz et al. 2009 class definitions; thresholds ours): wet -> MF; SH, IF stay;
+    Rules (Fierz et al. 2009 class definitions; thresholds ours): wet snow whose wet
+    metamorphism has rounded it (dendricity <= 0.1, facetedness < 0.25) -> MF, wet snow not
+    yet rounded keeps the class of its shape (a trace of water for an hour does not make
+    melt forms); SH, IF stay;
     DH stays DH while dry; dendricity >= 0.5 -> PP; > 0.1 -> DF unless faceted (f >= 0.5);
     f >= 0.9 with grains >= ``dh_min_grain_mm`` -> DH; f >= 0.5 -> FC (FCsf when it formed
     in the top layers, ``near_surface``); 0.25 <= f < 0.5 -> FCxr when coming from facets,
     RGxf otherwise; else RG (MF and MFcr stay melt forms once dry, MFcr is set by crusts).
     """
     faceted = (old_code == FC) | (old_code == FCSF) | (old_code == FCXR)
-    keeps = (old_code == IF) | ((old_code == SH) & (not wet))
+    melt_form = wet & (dendricity <= 0.1) & (facetedness < 0.25)
+    keeps = (old_code == IF) | ((old_code == SH) & (not melt_form))
     stays_dry = (old_code == MF) | (old_code == MFCR) | (old_code == DH)
     fc_kind = (
         FCSF
@@ -203,4 +207,4 @@ def classify_grain(old_code, dendricity, facetedness, grain_mm, wet, near_surfac
             )
         )
     )
-    return old_code if keeps else (MF if wet else (old_code if stays_dry else dry))
+    return old_code if keeps else (MF if melt_form else (old_code if stays_dry else dry))

@@ -74,7 +74,9 @@ class SnowParams:
     pond_pore_frac: float = 0.3  #: retention above a barrier (ours, mimics Wever et al. 2014)
     barrier_density_kg_m3: float = 600.0  #: layers this dense hold water back (ours)
     capillary_ratio: float = 2.0  #: coarse/fine grain ratio of a capillary barrier (ours)
-    crust_wet_frac: float = 0.005  #: liquid volume share that makes a refrozen layer a crust (ours)
+    crust_wet_frac: float = 0.03  #: liquid volume share that makes a refrozen layer a crust: the "wet" class (Fierz et al. 2009, liquid water content classes: wet 3-8 %)
+    rain_crust_min_kg_m2: float = 2.0  #: rain of an event that can leave a rain crust (ours)
+    rain_crust_min_share: float = 0.5  #: and its share of the event's precipitation (ours)
     # crusts
     crust_min_thickness_m: float = 0.005  #: a crust counts from 0.5 cm (ours)
     crust_min_hardness: float = 5.0  #: and from hand hardness K (issue 4: crusts K-I)

@@ -41,6 +41,8 @@ from regionmap.snow.kernel import (
     RING_H,
     V_ALBEDO,
     V_FZ_GAP_H,
+    V_RAIN_EV_KG_M2,
+    V_RAIN_EV_PRECIP_KG_M2,
     V_RAIN_GAP_H,
     V_SH_MASS,
     V_SNOW_AGE_H,
@@ -76,6 +78,13 @@ _CELL_FLOAT = (
     ("hours_since_snowfall", V_SNOW_GAP_H, "h", "dry hours since snowfall (event gap)"),
     ("hours_since_rain", V_RAIN_GAP_H, "h", "dry hours since rain (event gap)"),
     ("hours_since_freezing_rain", V_FZ_GAP_H, "h", "dry hours since freezing rain"),
+    ("rain_event_rain_kg_m2", V_RAIN_EV_KG_M2, "kg m-2", "rain of the current rain event"),
+    (
+        "rain_event_precipitation_kg_m2",
+        V_RAIN_EV_PRECIP_KG_M2,
+        "kg m-2",
+        "precipitation (all phases) of the current rain event",
+    ),
 )
 _CELL_INT = (
     ("snowfall_event_id", J_SNOW_EV, "current deposition event, start hour since 1970"),

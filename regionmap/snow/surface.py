@@ -14,6 +14,7 @@ from regionmap.snow.constants import (
     C_AIR_J_KG_K,
     GRAVITY_M_S2,
     L_SUBLIMATION_J_KG,
+    L_VAPOUR_J_KG,
     R_DRY_J_KG_K,
     SIGMA_W_M2_K4,
     T_MELT_K,
@@ -24,6 +25,7 @@ __all__ = [
     "vapour_pressure_ice_buck1981",
     "vapour_pressure_water_buck1981",
     "specific_humidity",
+    "wet_bulb_temperature_psychrometric",
     "neutral_exchange_coefficient",
     "stability_factor_louis1979",
     "turbulent_exchange_coefficient",
@@ -56,6 +58,28 @@ def vapour_pressure_ice_buck1981(t_k):
 def specific_humidity(vapour_pressure_pa, pressure_pa):
     """Specific humidity q = 0.622 e / (p - 0.378 e) [kg kg-1] (e.g. Wallace & Hobbs 2006)."""
     return 0.622 * vapour_pressure_pa / (pressure_pa - 0.378 * vapour_pressure_pa)
+
+
+@njit(cache=True, nogil=True, error_model="numpy")
+def wet_bulb_temperature_psychrometric(t_k, rh_frac, pressure_pa):
+    """Wet-bulb temperature from the psychrometric equation (Newton iterations) [K].
+
+    Solves e_s(T_w) - A p (T - T_w) = RH e_s(T) for T_w, with e_s over water from Buck
+    (1981) and the psychrometer coefficient A = c_p / (eps L_v) = 6.46e-4 K-1 of an
+    aspirated psychrometer (WMO 2008, Guide to Meteorological Instruments and Methods of
+    Observation, WMO-No. 8, Annex 4.B, which gives 6.53e-4 K-1 for the Assmann type [mem]).
+    Checked against MetPy's ``wet_bulb_temperature`` (Normand's construction).
+    """
+    a = C_AIR_J_KG_K / (0.622 * L_VAPOUR_J_KG)
+    e = min(max(rh_frac, 1e-4), 1.0) * vapour_pressure_water_buck1981(t_k)
+    tw = t_k
+    for _ in range(8):
+        es = vapour_pressure_water_buck1981(tw)
+        t_c = tw - T_MELT_K
+        des = es * 17.502 * 240.97 / ((240.97 + t_c) * (240.97 + t_c))
+        f = es - a * pressure_pa * (t_k - tw) - e
+        tw -= f / (des + a * pressure_pa)
+    return min(tw, t_k)
 
 
 @njit(cache=True, nogil=True, error_model="numpy")
