@@ -90,6 +90,9 @@ class CellBatch:
     sunlit_cos_incidence: np.ndarray
     weights: CellWeights
     exposure_class: np.ndarray | None = None
+    #: (forcing time,) int64 region-wide event window of each forcing hour
+    #: (:func:`regionmap.downscale.events.region_event_hours`), None when not known
+    region_event_hour: np.ndarray | None = None
     _per_cell: tuple = field(
         default=(
             "cell_id",
@@ -117,7 +120,12 @@ class CellBatch:
         """Some cells of the batch (positions), weights included."""
         kw = {
             name: getattr(self, name)
-            for name in ("sx_directions_deg", "sun_azimuth_deg", "sun_elevation_deg")
+            for name in (
+                "sx_directions_deg",
+                "sun_azimuth_deg",
+                "sun_elevation_deg",
+                "region_event_hour",
+            )
         }
         for name in self._per_cell:
             value = getattr(self, name)
@@ -561,8 +569,10 @@ def downscale_cells(
             f"downscale: the forcing's measurement heights must give 'wind' and "
             f"'temperature' [m], got {heights!r}. Hint: set [forcing] heights_m."
         )
+    region_hours = cells_subset.region_event_hour
     return CellForcing(
         time=time,
+        event_hour=None if region_hours is None else region_hours[start:stop],
         wind_height_m=float(heights["wind"]),
         temp_height_m=float(heights["temperature"]),
         dt_s=3600.0,

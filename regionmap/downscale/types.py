@@ -41,6 +41,10 @@ class CellForcing:
         layer aloft onto sub-freezing surface air [1]; 0 without upper-air information.
     wind_height_m, temp_height_m : measurement heights above the surface [m]
     dt_s : step length [s]
+    event_hour : ndarray (time,) int64 or None
+        Start (whole hours since 1970) of the region-wide precipitation window holding each
+        hour, 0 outside (:func:`regionmap.downscale.events.region_event_hours`); None: none
+        known, each cell's events start their own ids.
     """
 
     time: np.ndarray
@@ -56,12 +60,21 @@ class CellForcing:
     wind_height_m: float = 10.0
     temp_height_m: float = 2.0
     dt_s: float = 3600.0
+    event_hour: np.ndarray | None = None
 
     def __post_init__(self) -> None:
         self.time = np.asarray(self.time, dtype="datetime64[s]")
         for name in _SERIES:
             setattr(self, name, np.ascontiguousarray(getattr(self, name), dtype=np.float64))
         shape = self.t_air_k.shape
+        if self.event_hour is None:
+            self.event_hour = np.zeros(self.time.size, dtype=np.int64)
+        self.event_hour = np.ascontiguousarray(self.event_hour, dtype=np.int64)
+        if self.event_hour.shape != self.time.shape:
+            raise ValueError(
+                f"CellForcing event_hour must be (time,) = ({self.time.size},), "
+                f"got {self.event_hour.shape}"
+            )
         bad = [n for n in _SERIES if getattr(self, n).shape != shape]
         if len(shape) != 2 or shape[1] != self.time.size or bad:
             raise ValueError(
@@ -81,6 +94,7 @@ class CellForcing:
         """A view on some cells and/or steps (arrays copied to stay C-contiguous)."""
         kw = {f.name: getattr(self, f.name) for f in fields(self)}
         kw["time"] = self.time[steps]
+        kw["event_hour"] = self.event_hour[steps]
         for name in _SERIES:
             kw[name] = getattr(self, name)[cells, steps]
         return CellForcing(**kw)

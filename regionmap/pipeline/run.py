@@ -20,6 +20,7 @@ import numpy as np
 import pandas as pd
 
 from regionmap.config import Config
+from regionmap.downscale.events import read_region_precipitation_max, region_event_hours
 from regionmap.downscale.phase import snow_fraction
 from regionmap.downscale.pipeline import CellBatch, downscale_cells, prepare_cells
 from regionmap.downscale.settings import DownscaleSettings
@@ -558,7 +559,20 @@ def prepare_batch(region: Region, gf, cfg: Config) -> tuple[CellBatch, Downscale
     settings = downscale_settings(cfg)
     table = region.cells.table
     gf.check_covers(table["lon"].to_numpy(float), table["lat"].to_numpy(float))
-    return prepare_cells(region.cells, gf, settings), settings
+    batch = prepare_cells(region.cells, gf, settings)
+    # region-wide event windows from the grid precipitation over the region: an hour is wet
+    # where a grid point has at least the event amount over the largest precipitation
+    # factor, so every cell's wet hour lies in a window
+    snow = snow_params(cfg)
+    points = np.unique(batch.weights.matrix.indices).astype(np.int64)
+    precip_max = read_region_precipitation_max(gf, points, batch.weights.grid_shape)
+    batch.region_event_hour = region_event_hours(
+        precip_max,
+        np.asarray(gf.time, dtype="datetime64[s]"),
+        min_kg_m2=snow.event_min_kg_m2 / settings.precip_factor_bounds[1],
+        gap_h=snow.event_gap_h,
+    )
+    return batch, settings
 
 
 def cells_frame(region: Region) -> pd.DataFrame:

@@ -248,6 +248,7 @@ def run_columns(
             c0,
             c1,
             time_s,
+            f.event_hour,
             f.t_air_k,
             f.rh_frac,
             f.pressure_pa,

@@ -804,6 +804,7 @@ def _step(
     fzf,
     now_s,
     hour_abs,
+    region_event_hour,
     dt,
     zu,
     zt,
@@ -815,6 +816,10 @@ def _step(
     tot,
 ):
     """Advance one cell by one step; fills ``acc`` (N_ACC,) and returns a status bitmask.
+
+    An event (snowfall, rain, freezing rain) that starts in this step takes the id
+    ``region_event_hour`` (the region-wide window's start, hours since 1970) when it is
+    positive, else this hour.
 
     ``tot`` (2,) holds the column mass [kg m-2] and enthalpy [J m-2] of the state on entry
     (:func:`_column_mass_enthalpy`, kept from the previous step) and receives those of the
@@ -835,16 +840,18 @@ def _step(
     rain = liquid - fz
     acc[A_SNOW] = snow
     acc[A_RAIN] = liquid
-    # event identities (start hour since 1970) of snowfall, rain and freezing rain
+    # event identities (start hour since 1970) of snowfall, rain and freezing rain: the
+    # region-wide window's when known, so an event has one id in every cell
+    event_start = region_event_hour if region_event_hour > 0 else hour_abs
     if snow > 0.0:
         if sv[V_SNOW_GAP_H] >= p[P_SNOW_EVENT_GAP_H] or si[J_SNOW_EV] == 0:
-            si[J_SNOW_EV] = hour_abs
+            si[J_SNOW_EV] = event_start
         sv[V_SNOW_GAP_H] = 0.0
     else:
         sv[V_SNOW_GAP_H] += hours
     if liquid > 0.0:
         if sv[V_RAIN_GAP_H] >= p[P_EVENT_GAP_H] or si[J_RAIN_EV] == 0:
-            si[J_RAIN_EV] = hour_abs
+            si[J_RAIN_EV] = event_start
             sv[V_RAIN_EV_KG_M2] = 0.0
             sv[V_RAIN_EV_PRECIP_KG_M2] = 0.0
         sv[V_RAIN_GAP_H] = 0.0
@@ -855,7 +862,7 @@ def _step(
         sv[V_RAIN_EV_PRECIP_KG_M2] += precip
     if fz > 0.0:
         if sv[V_FZ_GAP_H] >= p[P_EVENT_GAP_H] or si[J_FZ_EV] == 0:
-            si[J_FZ_EV] = hour_abs
+            si[J_FZ_EV] = event_start
         sv[V_FZ_GAP_H] = 0.0
     else:
         sv[V_FZ_GAP_H] += hours
