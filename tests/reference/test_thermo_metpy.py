@@ -104,3 +104,24 @@ def test_hypsometric_matches_standard_atmosphere():
     t_mean = 288.15 - 0.0065 * (z0 + z1) / 2
     p1 = th.pressure_hypsometric(p0, t_mean, z1 - z0)
     assert p1 / 100 == pytest.approx(th.pressure_standard_atmosphere_icao(z1) / 100, abs=0.2)
+
+
+def test_kernel_wet_bulb_of_rain_vs_metpy():
+    # the column's rain temperature (psychrometric equation, Newton) against MetPy's
+    # wet_bulb_temperature (Normand's construction): within 0.15 K from -5 to +20 degC
+    from regionmap.snow.surface import wet_bulb_temperature_psychrometric
+
+    for t_c, rh, p_pa in [
+        (20.0, 0.5, 101325.0),
+        (20.0, 0.5, 80000.0),
+        (1.0, 0.8, 75000.0),
+        (2.0, 0.6, 70000.0),
+        (0.5, 0.95, 85000.0),
+        (4.0, 0.3, 65000.0),
+        (-5.0, 0.7, 70000.0),
+    ]:
+        td = mc.dewpoint_from_relative_humidity(t_c * units.degC, rh)
+        ref = mc.wet_bulb_temperature(p_pa * units.Pa, t_c * units.degC, td).to("K").m
+        assert wet_bulb_temperature_psychrometric(t_c + 273.15, rh, p_pa) == pytest.approx(
+            ref, abs=0.15
+        )
