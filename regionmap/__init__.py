@@ -11,3 +11,9 @@ CAUTION = (
     "forecast and never a substitute for field observations, the local avalanche service's "
     "bulletins, or professional judgement and standards of practice."
 )
+
+#: shown by the report and the console when ``[region] invented_data = true`` (the demo)
+INVENTED_DATA = (
+    "Invented demo data: an invented mountain range at a fictitious location, with invented "
+    "zones and weather. Nothing here describes a real place or real snow."
+)

@@ -7,13 +7,15 @@ fault. ``--debug`` shows tracebacks.
 from __future__ import annotations
 
 import argparse
+import contextlib
+import json
 import logging
 import sys
 import traceback
 import warnings
 from pathlib import Path
 
-from regionmap import CAUTION, __version__
+from regionmap import CAUTION, INVENTED_DATA, __version__
 from regionmap.errors import InputError, RegionmapError, RegionmapWarning
 from regionmap.io.atomic import is_no_space
 from regionmap.io.times import local_time_label
@@ -51,6 +53,8 @@ def print_outcome(outcome) -> None:
     cols = [c for c in _TABLE_COLUMNS if c in zones.columns]
     view = zones[cols].rename(columns=_TABLE_COLUMNS)
     kind = "forecast" if outcome.is_forecast else "analysis"
+    if outcome.invented_data:
+        print(f"*** {INVENTED_DATA} ***")
     when = local_time_label(outcome.map_time, outcome.local_timezone, year=True)
     print(f"Snowpack structure at {when} ({kind}), avalanche terrain, {outcome.n_cells} cells:")
     print(view.to_string(index=False, float_format=lambda v: f"{v:.2f}", na_rep="-"))
@@ -62,26 +66,75 @@ def print_outcome(outcome) -> None:
     print(f"Caution: {CAUTION}")
 
 
+def outcome_summary(outcome) -> dict:
+    """A finished run as plain JSON types: where, when, how many cells, the per-zone table,
+    the rain-crust sentences, the output files and the caution (``--json``)."""
+    import math
+
+    import numpy as np
+
+    zones = outcome.zones
+    zones = zones.drop(columns=[zones.geometry.name]) if hasattr(zones, "geometry") else zones
+
+    def plain(v):
+        if hasattr(v, "item"):  # numpy scalars
+            v = v.item()
+        if isinstance(v, float) and not math.isfinite(v):
+            return None
+        return v if isinstance(v, (str, int, float, bool, type(None))) else str(v)
+
+    out = Path(outcome.out_dir)
+    files = ["run.json", "cells.nc", "profiles.nc", "state.nc", "zones.gpkg", "report.html"]
+    return {
+        "regionmap": __version__,
+        "invented_data": bool(outcome.invented_data),
+        "out_dir": str(out),
+        "map_time_utc": str(np.datetime64(outcome.map_time, "s")) + "Z",
+        "map_time_kind": "forecast" if outcome.is_forecast else "analysis",
+        "cells": int(outcome.n_cells),
+        "seconds": round(float(outcome.seconds), 3),
+        "zones": [{k: plain(v) for k, v in row.items()} for row in zones.to_dict("records")],
+        "rain_crust": list(outcome.sentences),
+        "files": {name: str(out / name) for name in files if (out / name).exists()},
+        "caution": CAUTION,
+    }
+
+
+def _finish(outcome, as_json: bool) -> int:
+    """Print a finished run's summary; with ``--json`` on stderr, and JSON alone on stdout."""
+    with _human_text_to_stderr(as_json):
+        print_outcome(outcome)
+    if as_json:
+        print(json.dumps(outcome_summary(outcome), indent=2))
+    return 0
+
+
 def _cmd_run(args: argparse.Namespace) -> int:
     from regionmap.config import load_config
     from regionmap.pipeline.execute import execute
 
     cfg = load_config(args.config)
     restarts = _restarts_from_args(args, cfg)
-    outcome = execute(
-        cfg,
-        out_dir=args.out,
-        continue_from=args.continue_from,
-        workers=args.workers,
-        scheduler=args.scheduler,
-        dashboard=args.dashboard,
-        scheduler_security=args.scheduler_security,
-        force=args.force,
-        progress=not args.quiet,
-        restarts=restarts,
-    )
-    print_outcome(outcome)
-    return 0
+    with _human_text_to_stderr(args.json):
+        outcome = execute(
+            cfg,
+            out_dir=args.out,
+            continue_from=args.continue_from,
+            workers=args.workers,
+            scheduler=args.scheduler,
+            dashboard=args.dashboard,
+            scheduler_security=args.scheduler_security,
+            force=args.force,
+            progress=not args.quiet,
+            restarts=restarts,
+        )
+    return _finish(outcome, args.json)
+
+
+def _human_text_to_stderr(as_json: bool):
+    """With ``--json`` stdout carries the JSON summary only: anything else printed goes to
+    stderr."""
+    return contextlib.redirect_stdout(sys.stderr) if as_json else contextlib.nullcontext()
 
 
 def _restarts_from_args(args: argparse.Namespace, cfg) -> list:
@@ -132,7 +185,7 @@ def _cmd_profile(args: argparse.Namespace) -> int:
 
     if args.cell is None and (args.zone is None or args.band is None or args.aspect is None):
         raise InputError("profile: give --cell ID, or --zone, --band LOW-HIGH and --aspect")
-    path = profile_command(
+    drawn = profile_command(
         args.outdir,
         cell=args.cell,
         zone=args.zone,
@@ -141,7 +194,15 @@ def _cmd_profile(args: argparse.Namespace) -> int:
         slope_class=args.slope_class,
         time=args.time,
     )
-    print(f"profile written to {path}")
+    snapshot = f"{drawn.snapshot_utc.astype('datetime64[m]')} UTC"
+    if drawn.asked_utc is None:
+        print(f"the map time's daily snapshot, {snapshot}, is drawn")
+    elif drawn.asked_utc != drawn.snapshot_utc:
+        print(
+            f"no snapshot at {drawn.asked_utc.astype('datetime64[m]')} UTC (profiles are kept "
+            f"once a day): the last one before it, {snapshot}, is drawn"
+        )
+    print(f"profile of cell {drawn.cell_id} at {snapshot} written to {drawn.path}")
     return 0
 
 
@@ -192,7 +253,17 @@ def _cmd_calibrate(args: argparse.Namespace) -> int:
 def _cmd_demo(args: argparse.Namespace) -> int:
     from regionmap.demo.scenario import run_demo
 
-    return run_demo(args.out, progress=not args.quiet)
+    with _human_text_to_stderr(args.json):
+        outcome = run_demo(args.out, progress=not args.quiet)
+    return _finish(outcome, args.json)
+
+
+def _add_json_option(p: argparse.ArgumentParser) -> None:
+    p.add_argument(
+        "--json",
+        action="store_true",
+        help="print a machine-readable summary (JSON) on stdout; everything else goes to stderr",
+    )
 
 
 def _positive_int(text: str) -> int:
@@ -274,6 +345,7 @@ def build_parser() -> argparse.ArgumentParser:
         default=Path("regionmap-demo"),
         help="output folder (default: %(default)s)",
     )
+    _add_json_option(p)
     p.set_defaults(func=_cmd_demo)
 
     p = sub.add_parser(
@@ -328,6 +400,7 @@ def build_parser() -> argparse.ArgumentParser:
         action="store_true",
         help="replace a non-empty folder that is not a regionmap output (it is kept aside, never deleted)",
     )
+    _add_json_option(p)
     p.set_defaults(func=_cmd_run)
 
     p = sub.add_parser(
@@ -406,7 +479,10 @@ def build_parser() -> argparse.ArgumentParser:
         "--slope-class", type=int, metavar="K", help="slope class index, when slopes are split"
     )
     p.add_argument(
-        "--time", metavar="T", help="snapshot time (UTC, ISO 8601); default: the map time"
+        "--time",
+        metavar="T",
+        help="time (UTC, ISO 8601); the last daily snapshot at or before it is drawn and names "
+        "the file (default: the map time)",
     )
     p.set_defaults(func=_cmd_profile)
 

@@ -72,6 +72,8 @@ class RegionSection(_Section):
     zones: Path
     zone_field: str = "name"
     zone_layer: str | None = None
+    #: the inputs are invented (demo data): run.json, the report and the console say so
+    invented_data: bool = False
 
 
 class CellsSection(_Section):

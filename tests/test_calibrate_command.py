@@ -13,6 +13,7 @@ from __future__ import annotations
 import tomllib
 
 import numpy as np
+import pandas as pd
 import pytest
 from test_verify_command import PRECIP_OVER, T_BIAS_K, scenario, synthetic_observations  # noqa: F401
 
@@ -66,6 +67,18 @@ def test_calibrate_recovers_known_biases_and_the_fit_removes_them(scenario, caps
             < 0.05 * row.loc[(sid, "wind_speed"), "obs_mean"]
         )
     assert abs(row.loc[("LOWPLOT", "precipitation"), "total_percent_difference"]) < 5.0
+    # --out holds what the help promises in scaling mode: the section, the skill table and
+    # the figures (PNG signature, ISO/IEC 15948), and no quantile-mapping tables
+    cal = tmp_path / "cal"
+    assert tomllib.loads((cal / "bias.toml").read_text())["bias"] == bias
+    written = pd.read_csv(cal / "calibration_skill.csv")
+    assert len(written) == len(skill) and set(written["stage"]) == set(skill["stage"])
+    figures = sorted(p.name for p in (cal / "figures").glob("*.png"))
+    assert "calibration_skill.png" in figures
+    assert "verification_scatter_air-temperature.png" in figures
+    for name in figures:
+        assert (cal / "figures" / name).read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+    assert not (cal / "qm.nc").exists()
 
 
 def test_per_month_quantile_mapping_and_undercatch(scenario, tmp_path):

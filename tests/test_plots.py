@@ -250,13 +250,32 @@ def test_profile_command_errors_name_what_did_not_match(outputs, kw, message):
 
 
 def test_profile_command_writes_a_png(outputs):
-    path = profile_command(
+    drawn = profile_command(
         outputs, zone="Zone A", band="2200-2300", aspect="n", time="2026-01-15T06:00"
     )
+    path = drawn.path
     assert (
         path.is_file() and path.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
     )  # PNG signature (ISO/IEC 15948)
     assert path.parent == outputs.out_dir / "figures"
+
+
+def test_profile_command_names_the_file_after_the_snapshot_it_drew(outputs):
+    """Profiles are kept once a day: a time between two snapshots draws the earlier one,
+    and the file and the returned record name that snapshot, not the time asked for."""
+    days = outputs.profile_days
+    asked = days[3] + np.timedelta64(5, "h")
+    assert asked < days[4]  # between two daily snapshots
+    drawn = profile_command(outputs, cell=int(outputs.table.index[0]), time=str(asked))
+    assert drawn.snapshot_utc == days[3] and drawn.asked_utc == asked
+    assert drawn.path.name.endswith(pd.Timestamp(days[3]).strftime("_%Y%m%dT%H%M.png"))
+    # on a snapshot, the snapshot itself
+    exact = profile_command(outputs, cell=int(outputs.table.index[0]), time=str(days[2]))
+    assert exact.snapshot_utc == exact.asked_utc == days[2]
+    # before the first snapshot: refused, naming it
+    if outputs.times[0] < days[0]:
+        with pytest.raises(InputError, match="no daily snapshot at or before"):
+            profile_command(outputs, cell=int(outputs.table.index[0]), time=str(outputs.times[0]))
 
 
 # ----------------------------------------------------------------- tracker, elevation chart

@@ -97,6 +97,7 @@ def test_report_content_sections(report):
     assert "ST1" in text and "ST2" in text  # verification.csv written by the fixture
     assert "no forecast part" in text
     assert "field observations" in text.lower() and "local avalanche service" in text.lower()
+    assert 'id="invented-data"' not in text  # real data: no invented-data banner
 
 
 def test_report_without_verification_skips_the_section_with_a_note_and_lists_figures(

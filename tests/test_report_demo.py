@@ -37,7 +37,11 @@ _SVG = "{http://www.w3.org/2000/svg}"  # and that of inline SVG
 @pytest.fixture(scope="module")
 def demo_report(scenario, tmp_path_factory):  # noqa: F811
     out = tmp_path_factory.mktemp("report-demo") / "out"
-    run(config(scenario, "report"), out)
+    cfg = config(scenario, "report")  # invented data, as the demo's config declares
+    run(
+        cfg.model_copy(update={"region": cfg.region.model_copy(update={"invented_data": True})}),
+        out,
+    )
     return write_report(out)
 
 
@@ -137,3 +141,17 @@ def test_demo_report_renders_in_headless_chromium_without_errors(demo_report, tm
     assert loaded and n_images >= 5  # the maps
     assert shot.stat().st_size > 10_000
     assert all(u.startswith(("file:", "data:")) for u in requests), requests
+
+
+def test_invented_data_are_declared_in_run_json_and_at_the_top_of_the_report(demo_report):
+    import json
+
+    from regionmap import INVENTED_DATA
+
+    assert json.loads((demo_report.parent / "run.json").read_text())["invented_data"] is True
+    doc = html5lib.parse(
+        demo_report.read_text(encoding="utf-8"), treebuilder="etree", namespaceHTMLElements=True
+    )
+    body = doc.find(f"{_NS}body")
+    first = next(iter(body))  # the banner comes before everything else on the page
+    assert first.get("id") == "invented-data" and "".join(first.itertext()) == INVENTED_DATA

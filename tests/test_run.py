@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import json
 import os
+import shutil
 import signal
 import subprocess
 import sys
@@ -53,13 +54,13 @@ COMPARED = (
 
 @pytest.fixture(scope="session")
 def scenario(tmp_path_factory):
-    from regionmap.demo.scenario import demo_zones, make_demo_dem
+    from regionmap.demo.scenario import SHIPPED_DEM, demo_zones
     from regionmap.demo.weather import write_demo_forcing
     from regionmap.io.dem import read_dem
     from regionmap.io.writers import write_geojson
 
     d = tmp_path_factory.mktemp("scenario")
-    make_demo_dem(d / "dem.tif")
+    shutil.copyfile(SHIPPED_DEM, d / "dem.tif")
     write_geojson(d / "zones.geojson", demo_zones().iloc[[1]])
     dem = read_dem(d / "dem.tif")
     write_demo_forcing(

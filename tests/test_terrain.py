@@ -3,6 +3,9 @@ kernel against the horizon definition evaluated directly."""
 
 from __future__ import annotations
 
+import shutil
+from pathlib import Path
+
 import numpy as np
 import pytest
 from affine import Affine
@@ -143,9 +146,9 @@ def test_geographic_dem_aspect_and_horizon_are_relative_to_true_north(tmp_path):
 def test_write_terrain_layers_writes_each_layer_on_the_dem_grid(tmp_path):
     import rasterio
 
-    from regionmap.demo.scenario import make_demo_dem
+    from regionmap.demo.scenario import SHIPPED_DEM
 
-    dem_path = make_demo_dem(tmp_path / "dem.tif")
+    dem_path = Path(shutil.copyfile(SHIPPED_DEM, tmp_path / "dem.tif"))
     s = TerrainSettings(n_azimuths=8, horizon_distance_m=2000.0, exposure_directions=4)
     written = write_terrain_layers(dem_path, tmp_path / "out", s, progress=False)
     names = sorted(p.name for p in written)

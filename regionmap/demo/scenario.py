@@ -1,8 +1,9 @@
 """The invented demo region: a deterministic mountain DEM and four forecast zones.
 
-Everything here is invented. The range, its zones and their names are made up; the
-coordinates (WGS 84 / UTM zone 32N) are placeholders that give the invented range a
-mid-latitude position for solar geometry, not a real place.
+Everything here is invented: the range, its zones and their names, and its place. The
+coordinates (WGS 84 / UTM zone 30N, about 46.7 N 4.4 W) lie in the open Bay of Biscay, some
+90 km from the nearest coast, where there are no mountains: they only give the invented range
+a mid-latitude sun. ``DEMO_LOCATION_NOTE`` says so in the files the demo writes.
 
 Model output is guidance for trained people and never a substitute for field
 observations, the local avalanche service and professional standards.
@@ -11,12 +12,14 @@ observations, the local avalanche service and professional standards.
 from __future__ import annotations
 
 import os
+import shutil
 from pathlib import Path
 
 import numpy as np
 
 __all__ = [
     "DEMO_CRS",
+    "DEMO_LOCATION_NOTE",
     "DEMO_ZONE_NAMES",
     "demo_elevation_m",
     "demo_transform",
@@ -27,10 +30,16 @@ __all__ = [
     "SHIPPED_ZONES",
 ]
 
-DEMO_CRS = "EPSG:32632"  # placeholder coordinates for an invented range
+DEMO_CRS = "EPSG:32630"  # WGS 84 / UTM zone 30N; an open-sea location for an invented range
 _NX = _NY = 300
 _PIXEL_M = 100.0
-_X0, _Y_TOP = 600_000.0, 5_210_000.0
+_X0, _Y_TOP = 380_000.0, 5_190_000.0  # 46.6-46.9 N, 4.6-4.2 W: open sea, no real relief
+DEMO_RELIEF_SEED = 14
+DEMO_LOCATION_NOTE = (
+    "invented demo data: an invented mountain range at a fictitious location (the coordinates "
+    "lie in the open sea and only give the range a mid-latitude sun); invented zones and "
+    "invented weather"
+)
 DEMO_ZONE_NAMES = ("Zelvorn Crest", "Yrlen Cirque", "Brasktal Front", "Quessa Basin")
 
 _REPO = Path(__file__).resolve().parent.parent.parent
@@ -44,58 +53,20 @@ def demo_transform():
     return Affine(_PIXEL_M, 0.0, _X0, 0.0, -_PIXEL_M, _Y_TOP)
 
 
-def _ridge(x, y, pts, height, half_width):
-    """A ridge of given crest height above its surroundings along a polyline (km)."""
-    pts = np.asarray(pts, dtype=float)
-    d = np.full(x.shape, np.inf)
-    for (x1, y1), (x2, y2) in zip(pts[:-1], pts[1:]):
-        vx, vy = x2 - x1, y2 - y1
-        t = np.clip(((x - x1) * vx + (y - y1) * vy) / (vx * vx + vy * vy), 0.0, 1.0)
-        d = np.minimum(d, np.hypot(x - (x1 + t * vx), y - (y1 + t * vy)))
-    return height * np.exp(-((d / half_width) ** 2))
-
-
 def demo_elevation_m() -> np.ndarray:
-    """The demo DEM (300 x 300 at 100 m), elevations 1200–3200 m, deterministic.
+    """The demo DEM (300 x 300 at 100 m), elevations 1200-3200 m, deterministic.
 
-    A curved main ridge running WSW–ENE, side ridges running N–S, NW–SE and NE–SW, a few
-    summits, a deep north-facing cirque cut into the main ridge, and a fixed sum of
-    sinusoids as texture (no random numbers, so every platform builds the same grid).
+    An invented range synthesised by :func:`regionmap.demo.relief.demo_relief_m` (seed
+    ``DEMO_RELIEF_SEED``): a main divide running WSW-ENE across the middle, branching valleys
+    draining to every side, cirques below the highest summits, slopes up to a talus angle.
     """
-    x1 = (np.arange(_NX) + 0.5) * _PIXEL_M / 1000.0  # km east of the west edge
-    y1 = 30.0 - (np.arange(_NY) + 0.5) * _PIXEL_M / 1000.0  # km north of the south edge
-    x, y = np.meshgrid(x1, y1)
-    h = 0.015 * (x + y)  # gentle rise to the north-east
-    main = [(0.0, 13.0), (6.0, 15.5), (12.0, 14.5), (18.0, 16.5), (24.0, 15.0), (30.0, 17.0)]
-    h = h + _ridge(x, y, main, 1.55, 2.0)
-    h = h + _ridge(x, y, [(6.0, 15.5), (5.5, 22.0), (7.0, 28.0)], 1.0, 1.3)  # N-S spur
-    h = h + _ridge(x, y, [(21.0, 15.8), (25.0, 10.0), (28.5, 4.0)], 1.05, 1.3)  # NW-SE spur
-    h = h + _ridge(x, y, [(12.0, 14.5), (8.5, 9.0), (4.0, 3.0)], 0.9, 1.3)  # NE-SW spur
-    h = h + _ridge(x, y, [(24.0, 15.0), (26.0, 22.0), (23.0, 27.5)], 0.8, 1.2)  # northern spur
-    for px, py, ph, pw in [
-        (18.0, 16.3, 0.55, 1.3),
-        (6.0, 15.7, 0.35, 1.0),
-        (26.0, 21.5, 0.3, 1.1),
-        (9.5, 6.0, 0.25, 1.2),
-    ]:
-        h = h + ph * np.exp(-(((x - px) ** 2 + (y - py) ** 2) / pw**2))
-    # north-facing cirque: a bowl on the north flank of the main ridge below the summit
-    cx, cy = 18.0, 18.3
-    r = np.hypot((x - cx) / 1.6, (y - cy) / 1.9)
-    h = h - 0.75 * np.exp(-(r**4))
-    # side valleys and ribs cut into the flanks (stronger where the terrain is high)
-    texture = (
-        0.20 * np.sin(2.1 * x + 0.7) * np.cos(1.7 * y + 0.3)
-        + 0.12 * np.sin(3.9 * x - 2.3 * y + 1.1)
-        + 0.07 * np.cos(6.3 * x + 5.1 * y + 2.0)
-        + 0.04 * np.sin(9.7 * x - 8.3 * y + 0.4)
-    )
-    h = h + texture * (0.35 + h / 2.0)
-    return 1200.0 + 2000.0 * (h - h.min()) / (h.max() - h.min())
+    from regionmap.demo.relief import demo_relief_m
+
+    return demo_relief_m(DEMO_RELIEF_SEED, n=_NX, spacing_m=_PIXEL_M)
 
 
 def make_demo_dem(path: str | os.PathLike) -> Path:
-    """Write the demo DEM as a GeoTIFF (float32, metres, EPSG:32632 placeholder coordinates)."""
+    """Write the demo DEM as a GeoTIFF (float32, metres, a fictitious location in EPSG:32630)."""
     from regionmap.io.writers import write_geotiff
 
     z = demo_elevation_m().astype(np.float32)
@@ -106,7 +77,11 @@ def make_demo_dem(path: str | os.PathLike) -> Path:
         crs=DEMO_CRS,
         nodata=-9999.0,
         description="elevation [m] of an invented mountain range (demo data)",
-        tags={"source": "regionmap.demo.scenario.make_demo_dem (invented terrain)", "units": "m"},
+        tags={
+            "source": "regionmap.demo.scenario.make_demo_dem (invented terrain)",
+            "units": "m",
+            "comment": DEMO_LOCATION_NOTE,
+        },
     )
 
 
@@ -162,12 +137,15 @@ def demo_config_text(
     """The demo's TOML config (paths relative to the config file)."""
     r = DEMO_RUN
     return f"""# regionmap demo: an invented range, invented zones and an invented season.
+# The location is fictitious: the coordinates (UTM zone 30N) lie in the open sea and only
+# give the invented range a mid-latitude sun.
 # Model output is guidance for trained people; field observations, the local avalanche
 # service and professional standards come first.
 [region]
 dem = "{dem}"
 zones = "{zones}"
 zone_field = "name"
+invented_data = true   # the report and the console say that the data are invented
 
 [cells]
 band_step_m = {r["band_step_m"]}
@@ -206,7 +184,11 @@ def build_demo_scenario(folder: str | os.PathLike, *, raw: bool = False) -> Path
 
     folder = Path(folder)
     folder.mkdir(parents=True, exist_ok=True)
-    dem_path = make_demo_dem(folder / "demo_range.tif")
+    dem_path = folder / "demo_range.tif"
+    if SHIPPED_DEM.is_file():  # the generator's output, checked by the tests
+        shutil.copyfile(SHIPPED_DEM, dem_path)
+    else:
+        make_demo_dem(dem_path)
     make_demo_zones(folder / "demo_zones.geojson")
     dem = read_dem(dem_path)
     forcing = "forcing_raw.nc" if raw else "forcing.nc"
@@ -231,27 +213,24 @@ def build_demo_scenario(folder: str | os.PathLike, *, raw: bool = False) -> Path
     return atomic_write_text(folder / "demo.toml", text)
 
 
-def run_demo(out: str | os.PathLike, progress: bool = True) -> int:
+def run_demo(out: str | os.PathLike, progress: bool = True):
     """Build the invented demo scenario and run the whole chain on it.
 
     The scenario's inputs are kept in ``<out>/scenario/`` so the run can be repeated with
-    ``regionmap run <out>/scenario/demo.toml``. Prints the per-zone table with the rain-crust
-    sentences and the caution; returns the exit status (0).
+    ``regionmap run <out>/scenario/demo.toml``. Returns the run's
+    :class:`regionmap.pipeline.execute.RunOutcome` (the CLI prints it).
     """
     import tempfile
 
-    from regionmap.cli import print_outcome
     from regionmap.config import load_config
     from regionmap.pipeline.execute import execute
 
     with tempfile.TemporaryDirectory(prefix="regionmap-demo-") as tmp:
         config_path = build_demo_scenario(Path(tmp) / "scenario")
         cfg = load_config(config_path)
-        outcome = execute(
+        return execute(
             cfg,
             out_dir=Path(out),
             progress=progress,
             extra_files={f"scenario/{p.name}": p for p in config_path.parent.iterdir()},
         )
-    print_outcome(outcome)
-    return 0

@@ -183,7 +183,8 @@ def demo_events() -> dict:
     storm_rh = 0.97
     transition_m = FREEZING_LEVEL_ROS_M - jennings2018_t50_c(storm_rh) / 0.0065
     return {
-        "description": "Invented demo season (regionmap). Model output is guidance for trained "
+        "description": "Invented demo season (regionmap) over an invented range at a fictitious "
+        "location (the coordinates lie in the open sea). Model output is guidance for trained "
         "people, never a substitute for field observations, the local avalanche "
         "service and professional standards.",
         "events": DEMO_EVENTS,
@@ -648,7 +649,8 @@ def write_demo_forcing(
         {
             "title": "regionmap demo season (invented data)",
             "source": f"regionmap.demo.weather, seed {seed}",
-            "comment": "Invented weather for demonstration and tests; model output is guidance for "
+            "comment": "Invented weather over an invented range at a fictitious location (the "
+            "coordinates lie in the open sea), for demonstration and tests; model output is guidance for "
             "trained people, never a substitute for field observations, the local "
             "avalanche service and professional standards.",
         }

@@ -124,6 +124,7 @@ class RunOutcome:
     n_cells: int
     seconds: float
     local_timezone: str = "UTC"  # of the times shown to users
+    invented_data: bool = False
 
 
 def expected_output_bytes(
@@ -587,6 +588,7 @@ def execute(
         batch.n_cells,
         _time.perf_counter() - t_all,
         cfg.output.local_timezone,
+        cfg.region.invented_data,
     )
 
 
@@ -706,6 +708,7 @@ def _run_record(
     return {
         "regionmap": __version__,
         "caution": CAUTION,
+        "invented_data": cfg.region.invented_data,
         "created_utc": dt.datetime.now(dt.UTC).isoformat(timespec="seconds"),
         "config_file": str(cfg.source) if cfg.source else None,
         "config": cfg.model_dump(mode="json"),

@@ -20,6 +20,7 @@ wetness classes 0 / 3 / 8 / 15 % by volume).
 from __future__ import annotations
 
 import re
+from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
@@ -28,7 +29,7 @@ from matplotlib.lines import Line2D
 from matplotlib.patches import Patch
 
 from regionmap.errors import InputError
-from regionmap.io.times import local_time_label
+from regionmap.io.times import local_time_label, utc_datetime64
 from regionmap.plots.outputs import SECTOR_ORDER, RunOutputs
 from regionmap.plots.style import (
     GRAIN_MAIN_COLOURS,
@@ -42,7 +43,14 @@ from regionmap.snow.codes import PERSISTENT_CODES, grain_strings_to_codes
 from regionmap.snow.hardness import HARDNESS_LABELS
 from regionmap.snow.stability import threshold_counts_of_profile
 
-__all__ = ["select_cell", "read_profile", "plot_profile", "profile_command", "WETNESS_LIMITS_PCT"]
+__all__ = [
+    "ProfileFigure",
+    "select_cell",
+    "read_profile",
+    "plot_profile",
+    "profile_command",
+    "WETNESS_LIMITS_PCT",
+]
 
 #: upper limits of the wetness classes dry / moist / wet / very wet, % by volume (Fierz et al. 2009).
 WETNESS_LIMITS_PCT = (0.0, 3.0, 8.0, 15.0)
@@ -374,28 +382,44 @@ def plot_profile(
     return fig
 
 
+@dataclass(frozen=True)
+class ProfileFigure:
+    """What ``regionmap profile`` drew: the file, the snapshot shown and the time asked for.
+
+    ``snapshot_utc`` is the daily snapshot drawn (the last at or before ``asked_utc``);
+    ``asked_utc`` is None when no time was given (the map time is used).
+    """
+
+    path: Path
+    cell_id: int
+    snapshot_utc: np.datetime64
+    asked_utc: np.datetime64 | None
+
+
 def profile_command(
     out_dir, cell=None, zone=None, band=None, aspect=None, slope_class=None, time=None
-) -> Path:
+) -> ProfileFigure:
     """``regionmap profile OUTDIR (--cell ID | --zone Z --band LOW-HIGH --aspect A
-    [--slope-class K]) [--time T]``: write ``figures/profile_cell<ID>_<YYYYmmddTHHMM>.png``
-    and return its path.
+    [--slope-class K]) [--time T]``: draw the last daily snapshot at or before the time (the
+    map time by default) into ``figures/profile_cell<ID>_<snapshot YYYYmmddTHHMM>.png``.
 
     Raises
     ------
     InputError
-        Naming what did not match: unknown cell, zone, band, aspect or slope class, or a time
-        outside the run.
+        Naming what did not match: unknown cell, zone, band, aspect or slope class, a time
+        outside the run or before its first daily snapshot.
     """
     out = _outputs(out_dir)
     try:
         cid = select_cell(
             out, cell=cell, zone=zone, band=band, aspect=aspect, slope_class=slope_class
         )
-        t = out.map_time if time is None else out.time_in_run(time)
-        fig = plot_profile(out, cid, time=t)
-        stamp = pd.Timestamp(t).strftime("%Y%m%dT%H%M")
-        return save_png(fig, out.out_dir / "figures" / f"profile_cell{cid}_{stamp}.png")
+        asked = None if time is None else utc_datetime64(time, "--time")
+        prof = read_profile(out, cid, out.map_time if time is None else out.time_in_run(time))
+        fig = plot_profile(out, cid, profile=prof)
+        stamp = pd.Timestamp(prof["day"]).strftime("%Y%m%dT%H%M")
+        path = save_png(fig, out.out_dir / "figures" / f"profile_cell{cid}_{stamp}.png")
+        return ProfileFigure(path, cid, np.datetime64(prof["day"], "s"), asked)
     finally:
         if not isinstance(out_dir, RunOutputs):
             out.close()

@@ -5,6 +5,8 @@
 * :func:`accumulated_precipitation_figure` — accumulated observed and modelled precipitation
   per station over the pairs where both exist.
 * :func:`write_verification_figures` — both kinds as PNG under a folder.
+* :func:`calibration_skill_figure` — mean absolute error per variable before calibration,
+  after it (in sample) and cross-validated, per exposure class.
 
 Colours: the Okabe & Ito (2008) colour-blind-safe set of :mod:`regionmap.plots.style`.
 Station comparisons describe the model at points; they are no substitute for field
@@ -25,6 +27,7 @@ __all__ = [
     "scatter_figure",
     "accumulated_precipitation_figure",
     "write_verification_figures",
+    "calibration_skill_figure",
 ]
 
 #: Axis label and display scaling (offset, factor) per canonical variable.
@@ -163,3 +166,54 @@ def write_verification_figures(model: pd.DataFrame, obs: pd.DataFrame, folder) -
     if fig is not None:
         written.append(save_png(fig, folder / "verification_precipitation_accumulated.png"))
     return written
+
+
+_STAGES = (
+    ("raw", "raw model"),
+    ("fitted", "fitted (in sample)"),
+    ("cross_validated", "cross-validated"),
+)
+
+
+def calibration_skill_figure(skill: pd.DataFrame):
+    """Mean absolute error per variable and exposure class, one bar per calibration stage.
+
+    Parameters
+    ----------
+    skill : pandas.DataFrame
+        :attr:`regionmap.stations.calibrate.CalibrationResult.skill` (columns
+        ``exposure_class``, ``variable``, ``stage``, ``mae``).
+
+    Returns
+    -------
+    matplotlib.figure.Figure or None
+        None when the table holds no score. Each variable has its own panel and unit.
+    """
+    skill = skill.dropna(subset=["mae"])
+    if skill.empty:
+        return None
+    variables = list(pd.unique(skill["variable"]))
+    fig = new_figure(4.0 * len(variables), 3.6)
+    for k, variable in enumerate(variables):
+        ax = fig.add_subplot(1, len(variables), k + 1)
+        rows = skill[skill["variable"] == variable]
+        classes = list(pd.unique(rows["exposure_class"]))
+        label, _, factor = VARIABLE_LABELS.get(variable, (variable, 0.0, 1.0))
+        x = np.arange(len(classes))
+        for j, (stage, name) in enumerate(_STAGES):
+            mae = rows[rows["stage"] == stage].set_index("exposure_class")["mae"]
+            ax.bar(
+                x + (j - 1) * 0.27,
+                mae.reindex(classes).to_numpy(dtype=float) * factor,
+                width=0.27,
+                color=_COLOURS[j],
+                label=name,
+            )
+        ax.set_xticks(x, [str(c) for c in classes])
+        ax.set_xlabel("exposure class")
+        ax.set_ylabel(f"mean absolute error, {label}")
+        ax.set_title(variable.replace("_", " "))
+        ax.grid(True, axis="y", linewidth=0.3)
+        if k == 0:
+            ax.legend(fontsize=7)
+    return fig

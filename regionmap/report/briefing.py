@@ -37,7 +37,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from regionmap import CAUTION, __version__
+from regionmap import CAUTION, INVENTED_DATA, __version__
 from regionmap.errors import OutputError
 from regionmap.io.atomic import atomic_path, atomic_write_text
 from regionmap.io.times import event_date_label, local_time_label
@@ -734,6 +734,7 @@ def write_report(out_dir) -> Path:
             since=local_time_label(changes.since, tz),
             since_label=changes.since_label,
             headlines=headlines,
+            invented_data=INVENTED_DATA if out.run.get("invented_data") else None,
             forecast_text=_forecast_text(out),
             zone_columns=zone_cols,
             zone_rows=zone_rows,

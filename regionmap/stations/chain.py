@@ -555,8 +555,10 @@ def calibrate_command(
     stations_path, observation_paths : paths
         As for :func:`verify_command`.
     out_dir : path
-        Folder for ``qm.nc`` (written when quantile-mapping tables are fitted; created when
-        missing).
+        Folder (created when missing) for ``bias.toml`` (the fitted section),
+        ``calibration_skill.csv`` (the skill table), ``figures/`` (the raw model against the
+        stations, :func:`regionmap.plots.verification.write_verification_figures`, and
+        ``calibration_skill.png``) and, when quantile-mapping tables are fitted, ``qm.nc``.
     method : {"scaling", "quantile_mapping"}
     per_month : bool
         Scaling with twelve monthly values.
@@ -581,6 +583,9 @@ def calibrate_command(
         Bad inputs, or too little data to fit (the message says what is missing).
     """
     from regionmap.downscale.quantile_mapping import write_qm_table
+    from regionmap.io.atomic import atomic_write_text
+    from regionmap.plots.style import save_png
+    from regionmap.plots.verification import calibration_skill_figure, write_verification_figures
     from regionmap.stations.calibrate import bias_toml
 
     stations, obs = _read_inputs(stations_path, observation_paths)
@@ -597,9 +602,9 @@ def calibrate_command(
         matched, obs, stations, method=method, per_month=per_month, undercatch=undercatch
     )
     out = Path(out_dir)
+    out.mkdir(parents=True, exist_ok=True)
     qm_path = None
     if result.qm_tables:
-        out.mkdir(parents=True, exist_ok=True)
         qm_path = write_qm_table(out / "qm.nc", result.qm_tables)
     text = bias_toml(result, quantile_mapping_file=str(qm_path) if qm_path else "qm.nc")
     if derived:
@@ -609,6 +614,14 @@ def calibrate_command(
             + "; give exposure_class in "
             "the station metadata to set it yourself."
         )
+    written = [
+        atomic_write_text(out / "bias.toml", text),
+        atomic_write_text(out / "calibration_skill.csv", result.skill.to_csv(index=False)),
+        *write_verification_figures(matched, obs, out / "figures"),
+    ]
+    fig = calibration_skill_figure(result.skill)
+    if fig is not None:
+        written.append(save_png(fig, out / "figures" / "calibration_skill.png"))
     if echo:
         print(text)
         print(
@@ -631,6 +644,7 @@ def calibrate_command(
             print(f"  note: {note}")
         if qm_path:
             print(f"Quantile-mapping tables: {qm_path}")
+        print(f"Written in {out}: {', '.join(str(p.relative_to(out)) for p in written)}")
         print(
             "Caution: settings fitted at a few stations describe the model's past behaviour there; "
             "check them against field observations before relying on them. " + CAUTION
