@@ -127,6 +127,7 @@ def _cmd_run(args: argparse.Namespace) -> int:
             force=args.force,
             progress=not args.quiet,
             restarts=restarts,
+            use_cache=not args.no_cache,
         )
     return _finish(outcome, args.json)
 
@@ -254,15 +255,22 @@ def _cmd_demo(args: argparse.Namespace) -> int:
     from regionmap.demo.scenario import run_demo
 
     with _human_text_to_stderr(args.json):
-        outcome = run_demo(args.out, progress=not args.quiet)
+        outcome = run_demo(args.out, progress=not args.quiet, use_cache=not args.no_cache)
     return _finish(outcome, args.json)
 
 
-def _add_json_option(p: argparse.ArgumentParser) -> None:
+def _add_run_options(p: argparse.ArgumentParser) -> None:
+    """``--json`` and ``--no-cache`` of ``run`` and ``demo``."""
     p.add_argument(
         "--json",
         action="store_true",
         help="print a machine-readable summary (JSON) on stdout; everything else goes to stderr",
+    )
+    p.add_argument(
+        "--no-cache",
+        action="store_true",
+        help="prepare the region (terrain, cells, weights) afresh instead of loading it from the "
+        "cache ([run] cache_dir, $REGIONMAP_CACHE_DIR or ~/.cache/regionmap), and store nothing",
     )
 
 
@@ -345,7 +353,7 @@ def build_parser() -> argparse.ArgumentParser:
         default=Path("regionmap-demo"),
         help="output folder (default: %(default)s)",
     )
-    _add_json_option(p)
+    _add_run_options(p)
     p.set_defaults(func=_cmd_demo)
 
     p = sub.add_parser(
@@ -400,7 +408,7 @@ def build_parser() -> argparse.ArgumentParser:
         action="store_true",
         help="replace a non-empty folder that is not a regionmap output (it is kept aside, never deleted)",
     )
-    _add_json_option(p)
+    _add_run_options(p)
     p.set_defaults(func=_cmd_run)
 
     p = sub.add_parser(

@@ -281,6 +281,14 @@ class RunSection(_Section):
     #: daily profiles, and a multiple of 256 fills whole chunks of cells.nc (whose
     #: compression then runs outside the HDF5 lock: io.results)
     chunk_size: Annotated[int, Field(ge=1, le=100_000)] = 256
+    #: where prepared regions (terrain, cells, weights) are kept between runs; default
+    #: $REGIONMAP_CACHE_DIR, else $XDG_CACHE_HOME/regionmap, else ~/.cache/regionmap
+    cache_dir: Path | None = None
+
+    @field_validator("cache_dir")
+    @classmethod
+    def _home(cls, v):
+        return None if v is None else v.expanduser()
 
 
 class StationsSection(_Section):

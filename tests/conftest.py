@@ -55,3 +55,11 @@ def demo_run(tmp_path_factory):
         mp.setattr(regionmap.products.write, "_ENSEMBLE_BLOCK_CELLS", 200)
         execute(cfg, out_dir=root / "out", report=False, progress=False)
     return cfg, root / "scenario", root / "out"
+
+
+@pytest.fixture(scope="session", autouse=True)
+def _private_preparation_cache(tmp_path_factory):
+    """Runs inside the tests keep their prepared regions in a cache folder of their own."""
+    with pytest.MonkeyPatch.context() as mp:
+        mp.setenv("REGIONMAP_CACHE_DIR", str(tmp_path_factory.mktemp("regionmap-cache")))
+        yield

@@ -213,7 +213,7 @@ def build_demo_scenario(folder: str | os.PathLike, *, raw: bool = False) -> Path
     return atomic_write_text(folder / "demo.toml", text)
 
 
-def run_demo(out: str | os.PathLike, progress: bool = True):
+def run_demo(out: str | os.PathLike, progress: bool = True, use_cache: bool = True):
     """Build the invented demo scenario and run the whole chain on it.
 
     The scenario's inputs are kept in ``<out>/scenario/`` so the run can be repeated with
@@ -233,4 +233,5 @@ def run_demo(out: str | os.PathLike, progress: bool = True):
             out_dir=Path(out),
             progress=progress,
             extra_files={f"scenario/{p.name}": p for p in config_path.parent.iterdir()},
+            use_cache=use_cache,
         )

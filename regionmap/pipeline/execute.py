@@ -28,6 +28,7 @@ from regionmap.errors import InputError, OutputError
 from regionmap.io.atomic import atomic_write_text
 from regionmap.io.outdir import check_inputs_outside
 from regionmap.io.results import PROFILES_CHUNK_CELLS, CellsNcWriter, ProfilesNcWriter
+from regionmap.pipeline.cache import preparation_cache
 from regionmap.pipeline.checkpoints import Checkpoints, checkpoint_times
 from regionmap.pipeline.cluster import cluster_errors, dask_client
 from regionmap.pipeline.run import (
@@ -316,6 +317,7 @@ def execute(
     restarts=(),
     extra_files: dict | None = None,
     report: bool = True,
+    use_cache: bool = True,
 ) -> RunOutcome:
     """Run the chain for ``cfg`` and write every output of DESIGN §3.
 
@@ -331,6 +333,8 @@ def execute(
     restarts : observed-profile restarts (see :mod:`regionmap.pipeline.restart`).
     extra_files : relative name → file copied into the output folder (the demo's inputs).
     report : write the figures and ``report.html`` (tests of the numbers skip them).
+    use_cache : load the prepared region from the preparation cache and store it there
+        (:mod:`regionmap.pipeline.cache`); False prepares it afresh and stores nothing.
     """
     from tqdm.auto import tqdm
 
@@ -344,11 +348,12 @@ def execute(
     state0 = None
     if continue_from is not None:  # read and checked before the long work
         state0, saved_cells, saved_region = load_state_with_identity(continue_from)
-    region = prepare_region(cfg, progress=False)
+    cache = preparation_cache(cfg) if use_cache else None
+    region = prepare_region(cfg, progress=False, cache=cache)
     timings.update(region.timings_s)
     t0 = _time.perf_counter()
     gf = open_grid_forcing(cfg)
-    batch, dsettings = prepare_batch(region, gf, cfg)
+    batch, dsettings = prepare_batch(region, gf, cfg, cache=cache)
     timings["forcing_open_and_weights"] = _time.perf_counter() - t0
     params = snow_params(cfg)
     diag_every = cfg.output.diagnostics_every_h
@@ -563,6 +568,10 @@ def execute(
             scheduler=scheduler,
             chunks=len(chunks),
         )
+        record["preparation_cache"] = {
+            "dir": str(cache.folder) if cache else None,
+            "region": "loaded" if "region_from_cache" in region.timings_s else "prepared",
+        }
         for name, src in (extra_files or {}).items():
             dst = out / name
             dst.parent.mkdir(parents=True, exist_ok=True)
@@ -803,9 +812,10 @@ def write_cell_forcing(
     from regionmap.io.outdir import OutputFolder
 
     check_inputs_outside(out_dir, run_inputs(cfg))
-    region = prepare_region(cfg)
+    cache = preparation_cache(cfg)
+    region = prepare_region(cfg, cache=cache)
     gf = open_grid_forcing(cfg)
-    batch, dsettings = prepare_batch(region, gf, cfg)
+    batch, dsettings = prepare_batch(region, gf, cfg, cache=cache)
     times = np.asarray(gf.time, dtype="datetime64[s]")
     analysis = (
         np.datetime64(cfg.forcing.analysis_time.replace(tzinfo=None), "s")

@@ -26,6 +26,7 @@ from regionmap.downscale.pipeline import CellBatch, downscale_cells, prepare_cel
 from regionmap.downscale.settings import DownscaleSettings
 from regionmap.downscale.types import CellForcing
 from regionmap.errors import GridMismatchError, InputError
+from regionmap.pipeline.cache import PreparationCache
 from regionmap.pipeline.checkpoints import Checkpoints
 from regionmap.pipeline.restart import restarts_in_chunk, run_columns_with_restarts
 from regionmap.snow.params import SnowParams
@@ -130,34 +131,58 @@ def snow_params(cfg: Config) -> SnowParams:
 # --------------------------------------------------------------------------- region
 @dataclass
 class Region:
-    """Static inputs of a run: DEM, zones, terrain and cells."""
+    """Static inputs of a run: DEM, zones, terrain and cells.
+
+    ``cache_key`` is the region's key in the preparation cache (None without a cache).
+    """
 
     dem: object
     zones: object
     terrain: object
     cells: object
     timings_s: dict = field(default_factory=dict)
+    cache_key: str | None = None
 
 
-def prepare_region(cfg: Config, *, progress: bool = False) -> Region:
-    """Read the DEM and zones, compute terrain and cells."""
+def prepare_region(
+    cfg: Config, *, progress: bool = False, cache: PreparationCache | None = None
+) -> Region:
+    """Read the DEM and zones, compute terrain and cells, or load them from ``cache``
+    (:mod:`regionmap.pipeline.cache`), where a new preparation is stored."""
     from regionmap.cells import build_cells
     from regionmap.io.dem import read_dem
     from regionmap.io.zones import read_zones
     from regionmap.terrain import compute_terrain
 
     timings = {}
+    t_settings, c_settings = terrain_settings(cfg), cell_settings(cfg)
+    key = None
+    if cache is not None:
+        t0 = _time.perf_counter()
+        key = cache.region_key(cfg, t_settings, c_settings)
+        region = cache.load("region", key)
+        if region is not None:
+            region.dem.path = cfg.region.dem  # the same bytes, wherever they are now
+            region.timings_s = {"region_from_cache": _time.perf_counter() - t0}
+            return region
+        timings["region_cache_key"] = _time.perf_counter() - t0
     t0 = _time.perf_counter()
     dem = read_dem(cfg.region.dem)
     zones = read_zones(cfg.region.zones, cfg.region.zone_field, dem, layer=cfg.region.zone_layer)
     timings["read_region"] = _time.perf_counter() - t0
     t0 = _time.perf_counter()
-    terrain = compute_terrain(dem, terrain_settings(cfg), progress=progress or None)
+    terrain = compute_terrain(dem, t_settings, progress=progress or None)
     timings["terrain"] = _time.perf_counter() - t0
     t0 = _time.perf_counter()
-    cells = build_cells(dem, terrain, zones, cell_settings(cfg))
+    cells = build_cells(dem, terrain, zones, c_settings)
     timings["cells"] = _time.perf_counter() - t0
-    return Region(dem, zones, terrain, cells, timings)
+    region = Region(dem, zones, terrain, cells, cache_key=key)
+    if cache is not None:
+        t0 = _time.perf_counter()
+        cache.save("region", key, region)
+        timings["region_cache_save"] = _time.perf_counter() - t0
+    region.timings_s = timings
+    return region
 
 
 def open_grid_forcing(cfg: Config):
@@ -554,12 +579,22 @@ def initial_state(batch: CellBatch, params: SnowParams, period: Period) -> SnowS
     return state
 
 
-def prepare_batch(region: Region, gf, cfg: Config) -> tuple[CellBatch, DownscaleSettings]:
-    """Interpolation weights of every cell (built once, in the client)."""
+def prepare_batch(
+    region: Region, gf, cfg: Config, *, cache: PreparationCache | None = None
+) -> tuple[CellBatch, DownscaleSettings]:
+    """Interpolation weights of every cell (built once, in the client), or loaded from
+    ``cache`` for a region prepared with it, where new weights are stored."""
     settings = downscale_settings(cfg)
     table = region.cells.table
     gf.check_covers(table["lon"].to_numpy(float), table["lat"].to_numpy(float))
-    batch = prepare_cells(region.cells, gf, settings)
+    if cache is None or region.cache_key is None:
+        batch = prepare_cells(region.cells, gf, settings)
+    else:
+        key = cache.weights_key(region.cache_key, gf, settings)
+        weights = cache.load("weights", key)
+        batch = prepare_cells(region.cells, gf, settings, weights=weights)
+        if weights is None:
+            cache.save("weights", key, batch.weights)
     # region-wide event windows from the grid precipitation over the region: an hour is wet
     # where a grid point has at least the event amount over the largest precipitation
     # factor, so every cell's wet hour lies in a window
