@@ -251,6 +251,22 @@ def _cmd_calibrate(args: argparse.Namespace) -> int:
     return 0
 
 
+def _cmd_init(args: argparse.Namespace) -> int:
+    from regionmap.io.starter_config import write_starter_config
+
+    path, missing = write_starter_config(
+        args.folder, dem=args.dem, zones=args.zones, forcing=args.forcing, force=args.force
+    )
+    print(f"config written to {path}; check it, then: regionmap run {path}")
+    if missing:
+        print(
+            f"note: the forcing has no variable with the standard name for {', '.join(missing)}; "
+            f"map them in [forcing.variables] of {path} before running",
+            file=sys.stderr,
+        )
+    return 0
+
+
 def _cmd_demo(args: argparse.Namespace) -> int:
     from regionmap.demo.scenario import run_demo
 
@@ -355,6 +371,23 @@ def build_parser() -> argparse.ArgumentParser:
     )
     _add_run_options(p)
     p.set_defaults(func=_cmd_demo)
+
+    p = sub.add_parser(
+        "init",
+        help="write a commented config from your DEM, zones and forcing",
+        description="Read your DEM (elevation range -> band edges), zones (the attribute that names "
+        "each zone, the layer) and forcing (period, variables found by CF standard name) and "
+        "write FOLDER/regionmap.toml with comments. A file that cannot be read is refused.",
+        epilog=f"Caution: {CAUTION}",
+    )
+    p.add_argument("folder", type=Path, help="folder for regionmap.toml (created when missing)")
+    p.add_argument("--dem", type=Path, required=True, help="DEM: any GDAL raster with a CRS")
+    p.add_argument("--zones", type=Path, required=True, help="zone polygons (GeoJSON, GPKG, ...)")
+    p.add_argument(
+        "--forcing", required=True, metavar="PATH", help="CF NetCDF/Zarr forcing (file or glob)"
+    )
+    p.add_argument("--force", action="store_true", help="replace an existing regionmap.toml")
+    p.set_defaults(func=_cmd_init)
 
     p = sub.add_parser(
         "run",
