@@ -43,7 +43,9 @@ def test_bad_config_with_json_is_one_line_on_stderr_and_nothing_on_stdout(tmp_pa
 
 def _outcome(invented: bool) -> RunOutcome:
     zones = pd.DataFrame({"zone": ["A"], "snow_depth_cm": [120.0], "depth_hoar_fraction": [np.nan]})
-    return RunOutcome("out", zones, [], np.datetime64("2026-02-15T06:00"), False, 3, 1.0, invented)
+    return RunOutcome(
+        "out", zones, [], np.datetime64("2026-02-15T06:00"), False, 3, 1.0, invented_data=invented
+    )
 
 
 @pytest.mark.parametrize("invented", [True, False])
