@@ -28,7 +28,7 @@ from regionmap.errors import InputError, OutputError
 from regionmap.io.atomic import atomic_write_text
 from regionmap.io.outdir import check_inputs_outside
 from regionmap.io.results import PROFILES_CHUNK_CELLS, CellsNcWriter, ProfilesNcWriter
-from regionmap.pipeline.cache import preparation_cache
+from regionmap.pipeline.cache import file_sha256, preparation_cache
 from regionmap.pipeline.checkpoints import Checkpoints, checkpoint_times
 from regionmap.pipeline.cluster import cluster_errors, dask_client
 from regionmap.pipeline.run import (
@@ -193,14 +193,6 @@ def run_inputs(cfg: Config, continue_from=None, restarts=()) -> list[tuple[str, 
 def _context(ctx: RunContext) -> RunContext:
     """The run's context, handed to the chunk tasks through the scheduler."""
     return ctx
-
-
-def _sha256(path: Path) -> str:
-    h = hashlib.sha256()
-    with open(path, "rb") as fh:
-        for block in iter(lambda: fh.read(1 << 20), b""):
-            h.update(block)
-    return h.hexdigest()
 
 
 def _versions() -> dict:
@@ -709,7 +701,7 @@ def _run_record(
     if continue_from is not None:
         inputs["continue_from"] = continue_from
     checksums = {
-        k: {"path": str(p), "sha256": _sha256(Path(p))}
+        k: {"path": str(p), "sha256": file_sha256(p)}
         for k, p in inputs.items()
         if Path(p).is_file()
     }
