@@ -609,6 +609,7 @@ def prepare_cells(
     pixel_cell: np.ndarray | None = None,
     pixel_lon_deg: np.ndarray | None = None,
     pixel_lat_deg: np.ndarray | None = None,
+    weights: CellWeights | None = None,
 ) -> CellBatch:
     """Collect what downscaling needs of a CellSet and build its weights once.
 
@@ -622,6 +623,9 @@ def prepare_cells(
     settings : DownscaleSettings
     pixel_cell, pixel_lon_deg, pixel_lat_deg : ndarray (pixel,), optional
         Cell of each pixel and its centre [deg], overriding the CellSet's index.
+    weights : CellWeights, optional
+        Weights built earlier for these cells and this grid (the preparation cache); None
+        builds them.
 
     Returns
     -------
@@ -639,28 +643,29 @@ def prepare_cells(
 
     table = cellset.table
     n = len(table)
-    if pixel_cell is None:
-        pixel_cell, pixel_lon_deg, pixel_lat_deg = _cell_pixels(cellset)
     directions = getattr(cellset, "sx_directions_deg", None)
     if directions is None:
         raise InputError(
             "downscale: the cell set has sx_deg but no sx_directions_deg (the wind "
             "directions of its columns) [deg]."
         )
-    weights = build_cell_weights(
-        grid_forcing.grid_index_of,
-        grid_forcing.extent_lonlat,
-        np.shape(grid_forcing.surface_altitude),
-        pixel_cell,
-        pixel_lon_deg,
-        pixel_lat_deg,
-        n,
-        table["lon"].to_numpy(float),
-        table["lat"].to_numpy(float),
-        method=settings.interpolation,
-        lapse_radius=settings.grid_lapse_radius,
-        where=str(getattr(grid_forcing, "paths", ["forcing grid"])[0]),
-    )
+    if weights is None:
+        if pixel_cell is None:
+            pixel_cell, pixel_lon_deg, pixel_lat_deg = _cell_pixels(cellset)
+        weights = build_cell_weights(
+            grid_forcing.grid_index_of,
+            grid_forcing.extent_lonlat,
+            np.shape(grid_forcing.surface_altitude),
+            pixel_cell,
+            pixel_lon_deg,
+            pixel_lat_deg,
+            n,
+            table["lon"].to_numpy(float),
+            table["lat"].to_numpy(float),
+            method=settings.interpolation,
+            lapse_radius=settings.grid_lapse_radius,
+            where=str(getattr(grid_forcing, "paths", ["forcing grid"])[0]),
+        )
     sun = cellset.sunlit
     return CellBatch(
         cell_id=table.index.to_numpy(np.int64),
