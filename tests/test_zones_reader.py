@@ -44,7 +44,7 @@ def test_zones_that_miss_the_dem_are_named(tmp_path, demo_dem):
     p = _geojson(
         tmp_path / "z.geojson",
         [({"name": "Inside"}, _utm(demo_dem, 0, 0, 5000, 5000)), ({"name": "Faraway"}, far)],
-        crs="EPSG:32632",
+        crs=demo_dem.crs.to_string(),
     )
     with pytest.raises(InputError, match=r"\['Faraway'\] lie outside the DEM"):
         read_zones(p, "name", demo_dem)
@@ -53,7 +53,9 @@ def test_zones_that_miss_the_dem_are_named(tmp_path, demo_dem):
 def test_zones_file_without_polygons(tmp_path, demo_dem):
     left, bottom, _, _ = demo_dem.bounds
     p = _geojson(
-        tmp_path / "pts.geojson", [({"name": "A"}, Point(left + 10, bottom + 10))], crs="EPSG:32632"
+        tmp_path / "pts.geojson",
+        [({"name": "A"}, Point(left + 10, bottom + 10))],
+        crs=demo_dem.crs.to_string(),
     )
     with pytest.raises(InputError, match="no polygons"):
         read_zones(p, "name", demo_dem)
@@ -66,7 +68,7 @@ def test_overlapping_zones_name_both(tmp_path, demo_dem):
             ({"name": "Upper"}, _utm(demo_dem, 0, 0, 6000, 6000)),
             ({"name": "Lower"}, _utm(demo_dem, 5000, 5000, 9000, 9000)),
         ],
-        crs="EPSG:32632",
+        crs=demo_dem.crs.to_string(),
     )
     with pytest.raises(InputError, match=r"'Upper' and 'Lower' overlap"):
         read_zones(p, "name", demo_dem)
@@ -75,7 +77,9 @@ def test_overlapping_zones_name_both(tmp_path, demo_dem):
 def test_duplicate_names_and_missing_field(tmp_path, demo_dem):
     a, b = _utm(demo_dem, 0, 0, 5000, 5000), _utm(demo_dem, 5000, 0, 9000, 5000)
     p = _geojson(
-        tmp_path / "d.geojson", [({"name": "Same"}, a), ({"name": "Same"}, b)], crs="EPSG:32632"
+        tmp_path / "d.geojson",
+        [({"name": "Same"}, a), ({"name": "Same"}, b)],
+        crs=demo_dem.crs.to_string(),
     )
     with pytest.raises(InputError, match="duplicate zone names"):
         read_zones(p, "name", demo_dem)
@@ -88,7 +92,7 @@ def test_invalid_bowtie_is_repaired_with_a_warning(tmp_path, demo_dem):
     x, y = left + 2000, bottom + 2000
     bowtie = Polygon([(x, y), (x + 4000, y + 4000), (x + 4000, y), (x, y + 4000)])
     assert not bowtie.is_valid
-    p = _geojson(tmp_path / "b.geojson", [({"name": "Knot"}, bowtie)], crs="EPSG:32632")
+    p = _geojson(tmp_path / "b.geojson", [({"name": "Knot"}, bowtie)], crs=demo_dem.crs.to_string())
     with pytest.warns(RegionmapWarning, match="'Knot' had an invalid polygon"):
         z = read_zones(p, "name", demo_dem)
     assert z.geometry.iloc[0].is_valid and z.geometry.iloc[0].area == pytest.approx(8e6, rel=1e-9)
