@@ -584,6 +584,7 @@ def calibrate_command(
     """
     from regionmap.downscale.quantile_mapping import write_qm_table
     from regionmap.io.atomic import atomic_write_text
+    from regionmap.io.writers import write_csv
     from regionmap.plots.style import save_png
     from regionmap.plots.verification import calibration_skill_figure, write_verification_figures
     from regionmap.stations.calibrate import bias_toml
@@ -616,7 +617,7 @@ def calibrate_command(
         )
     written = [
         atomic_write_text(out / "bias.toml", text),
-        atomic_write_text(out / "calibration_skill.csv", result.skill.to_csv(index=False)),
+        write_csv(out / "calibration_skill.csv", result.skill),
         *write_verification_figures(matched, obs, out / "figures"),
     ]
     fig = calibration_skill_figure(result.skill)
