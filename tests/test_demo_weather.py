@@ -192,13 +192,14 @@ def test_storm_veers_and_cools_behind_the_front(season):
     assert sub["wind_speed"].values.max() >= 0.9 * ev["wind_m_s"]
 
 
-def test_burial_storm_is_calm(season):
+def test_burial_storm_has_ordinary_wind(season):
     ds = season["ds"]
     ev = demo_events()["expected"]["surface_hoar"]
     sub = ds.sel(time=slice(ev["buried_at"], ev["buried_by"]))
-    # common practice: surface hoar survives burial by a snowfall with light wind only
-    # (a few m/s); the design keeps the burial storm's wind at its stated value
-    assert ev["burial_wind_m_s"] < 3.5 and sub["wind_speed"].values.max() < 3.5
+    # the design: an ordinary storm, moderate wind (5-8 m/s at 10 m on the grid), not a calm
+    # one; whether the hoar survives is left to the terrain's shelter
+    assert 5.0 <= ev["burial_wind_m_s"] <= 8.0
+    assert 5.0 <= float(sub["wind_speed"].values.max()) <= 1.5 * 8.0
     assert float(sub["pr"].sum("time").min()) > 20.0
 
 

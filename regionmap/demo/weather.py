@@ -101,8 +101,9 @@ DEMO_EVENTS = [
         "end": "2025-12-23T18:00",
         "t_ref_c": -7.0,
         "precip_kg_m2_h": 1.5,
-        "wind_m_s": 2.0,
-        "note": "a calm snowfall (light wind) buries the surface hoar intact",
+        "wind_m_s": 7.0,
+        "note": "a storm with ordinary wind buries the surface hoar: kept in sheltered terrain, "
+        "blown away where the terrain is exposed",
     },
     {
         "id": "rain_on_snow",
@@ -169,7 +170,7 @@ def demo_events() -> dict:
     The expectations follow from the design (the event definitions above and common
     practice), not from a model run: a shallow early pack under three weeks of cold clear
     sky facets (depth hoar on shaded aspects); calm clear humid nights grow surface hoar that
-    a calm snowfall buries intact; a long light rain below the freezing level onto a pack of
+    a storm with ordinary wind buries, keeping it in sheltered terrain (common practice); a long light rain below the freezing level onto a pack of
     well over 50 cm, followed by a cold snap, leaves a rain crust below the rain-snow
     transition, which sits below the freezing level; a warm layer aloft over sub-freezing
     surface air gives a glaze below the warm layer's base.
@@ -221,7 +222,8 @@ def demo_events() -> dict:
                 "burial_wind_m_s": ev["burial_storm"]["wind_m_s"],
                 "layer": "SH",
                 "elevation_m": [1200, 3200],
-                "aspects": "all; best preserved in sheltered terrain",
+                "aspects": "all",
+                "terrain": "kept where sheltered from the storm's wind, blown away where exposed",
                 "persists": "to the analysis time above the rain-snow transition of the "
                 "rain-on-snow event",
             },

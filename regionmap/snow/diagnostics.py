@@ -62,9 +62,10 @@ def _is_persistent(code):
 
 @njit(cache=True, nogil=True, error_model="numpy")
 def layer_hardness(fw, iw, n, out):
-    """Hand-hardness index of each active layer (Geldsetzer & Jamieson 2000 via hardness.py)."""
+    """Hand-hardness index of each active layer from its dry density (ice mass per volume)
+    and grain class (Geldsetzer & Jamieson 2000 within field ranges, via hardness.py)."""
     for i in range(padded_count(n)):  # vectorises; ``out`` has room (vecmath.padded_count)
-        dens = (fw[F_ICE, i] + fw[F_LIQ, i]) / max(fw[F_THICK, i], 1e-9)
+        dens = fw[F_ICE, i] / max(fw[F_THICK, i], 1e-9)
         out[i] = hardness_index_from_density(dens, iw[I_CODE, i], iw[I_CRUST, i])
 
 
@@ -149,9 +150,9 @@ def column_structure(
 
 def layer_hardness_array(state) -> np.ndarray:
     """Hand-hardness index (cell, layer) of a :class:`~regionmap.snow.state.SnowState`
-    (float32, NaN in unused slots), from density and grain class (hardness.py)."""
+    (float32, NaN in unused slots), from dry density and grain class (hardness.py)."""
     with np.errstate(divide="ignore", invalid="ignore"):
-        dens = (state.ice_kg_m2 + state.liquid_kg_m2) / state.thickness_m.astype(np.float64)
+        dens = state.ice_kg_m2 / state.thickness_m.astype(np.float64)
     dens = np.where(state.thickness_m > 0, dens, np.nan)
     return hardness_index_from_density_array(dens, state.grain_code, state.crust_code).astype(
         np.float32

@@ -1,13 +1,24 @@
-"""Hand hardness of snow layers: index, notation, and density <-> hardness fits.
+"""Hand hardness of snow layers: index, notation, and density <-> hardness by grain type.
 
 The hand-hardness scale is the one of the International Classification for Seasonal Snow on
 the Ground (Fierz et al. 2009, Table A.3 and Sect. 1.5): fist (F) = 1, four fingers (4F) = 2,
 one finger (1F) = 3, pencil (P) = 4, knife blade (K) = 5, ice (I) = 6.
 
 Density and hand hardness are related per grain type by the linear regressions of
-Geldsetzer & Jamieson (2000), ``density = A + B * hardness_index``. The coefficients below
-are **recalled, low confidence** ([mem] in METHODS.md) and have not been re-verified against
-the paper; verify them before relying on absolute densities or hardness values.
+Geldsetzer & Jamieson (2000), ``density = A + B * hardness_index``, fitted on dry-snow layers
+of manual profiles. The coefficients below are **recalled, low confidence** ([mem]) and have
+not been re-verified against the paper; verify them before relying on absolute densities or
+hardness values.
+
+Those regressions predict density from hardness, with wide scatter. Inverted to predict
+hardness from a model's density, a shallow slope (depth hoar: 25 kg m-3 per step) turns a
+density error of a few tens of kg m-3 into several hardness steps: depth hoar of
+350 kg m-3 would be ice. A modelled hardness therefore stays inside the range the grain type
+shows in field profiles (:data:`FIELD_HARDNESS_RANGE`): the span of hand hardness Geldsetzer &
+Jamieson (2000) report per grain type and the usual ranges of the avalanche handbooks
+(McClung & Schaerer 2006, The Avalanche Handbook, 3rd ed., Ch. 3 [mem]). Density is the *dry*
+density (ice mass per volume), the quantity the regressions were made on: liquid water
+makes snow softer, never harder.
 
 Inside compiled kernels a layer's grain class is its index into
 :data:`regionmap.snow.codes.GRAIN_CODES` and its crust kind the index into
@@ -26,6 +37,11 @@ References
    Big Sky, Montana, 121-127.
 .. [3] Cuffey, K. M. and Paterson, W. S. B. (2010). The Physics of Glaciers, 4th ed.,
    Elsevier (pore close-off, firn to ice, near 830 kg m-3).
+.. [4] McClung, D. and Schaerer, P. (2006). The Avalanche Handbook, 3rd ed., The
+   Mountaineers, Seattle (hand hardness of the common grain types in field profiles).
+.. [5] Jamieson, B. (2006). Formation of refrozen snowpack layers and their role in slab
+   avalanche release. Reviews of Geophysics 44, RG2001, doi:10.1029/2005RG000176 (crusts
+   from pencil to ice hardness).
 """
 
 from __future__ import annotations
@@ -43,6 +59,7 @@ __all__ = [
     "HARDNESS_LABELS",
     "HARDNESS_MODIFIER_STEP",
     "GELDSETZER2000_FITS",
+    "FIELD_HARDNESS_RANGE",
     "CRUST_K_DENSITY_KG_M3",
     "CRUST_I_DENSITY_KG_M3",
     "ICE_DENSITY_KG_M3",
@@ -89,8 +106,28 @@ _FIT_OF_CODE: dict[str, str] = {
     "MFcr": "RG",  # only for an observed crust softer than K (see density_from_hardness)
 }
 
-#: Density at which a melt-freeze crust is K: the RG fit of [2] evaluated at K (index 5),
-#: so a crust is never softer than rounded grains of the same density. Our choice.
+#: Hand-hardness range (lowest, highest index) each grain class shows in field profiles:
+#: Geldsetzer & Jamieson (2000) [2] and McClung & Schaerer (2006) [4], both [mem]. PP and SH
+#: F-4F, DF F-1F, FC and DH F-1F, FCxr (rounding facets, harder) F-P, FCsf (near-surface
+#: facets) F-4F, rounded grains 4F-K, melt forms F-K; crusts P-I ([5]; by density below) and
+#: ice formations I.
+FIELD_HARDNESS_RANGE: dict[str, tuple[float, float]] = {
+    "PP": (1.0, 2.0),
+    "DF": (1.0, 3.0),
+    "RG": (2.0, 5.0),
+    "RGxf": (2.0, 5.0),
+    "FC": (1.0, 3.0),
+    "FCxr": (1.0, 4.0),
+    "FCsf": (1.0, 2.0),
+    "DH": (1.0, 3.0),
+    "SH": (1.0, 2.0),
+    "MF": (1.0, 5.0),
+    "MFcr": (4.0, 6.0),
+    "IF": (6.0, 6.0),
+}
+
+#: Density at which a crust is K: the RG fit of [2] evaluated at K (index 5), so a crust is
+#: never softer than rounded grains of the same density. Our choice.
 CRUST_K_DENSITY_KG_M3: float = GELDSETZER2000_FITS["RG"][0] + 5.0 * GELDSETZER2000_FITS["RG"][1]
 #: Density at which a crust counts as ice (I): pore close-off, firn turning to ice [3]. [mem]
 CRUST_I_DENSITY_KG_M3: float = 830.0
@@ -102,6 +139,12 @@ _FIT_A = np.full(_N_CODES, np.nan)
 _FIT_B = np.full(_N_CODES, np.nan)
 for _code, _fit in _FIT_OF_CODE.items():
     _FIT_A[GRAIN_INDEX[_code]], _FIT_B[GRAIN_INDEX[_code]] = GELDSETZER2000_FITS[_fit]
+_RANGE_LO = np.full(_N_CODES, np.nan)
+_RANGE_HI = np.full(_N_CODES, np.nan)
+for _code, (_lo, _hi) in FIELD_HARDNESS_RANGE.items():
+    _RANGE_LO[GRAIN_INDEX[_code]], _RANGE_HI[GRAIN_INDEX[_code]] = _lo, _hi
+#: RG fit of [2] as the crusts' rule below K (refrozen melt forms are rounded polycrystals)
+_CRUST_A, _CRUST_B = GELDSETZER2000_FITS["RG"]
 _MFCR = GRAIN_INDEX["MFcr"]
 _IF = GRAIN_INDEX["IF"]
 _N_CRUSTS = len(CRUST_KINDS)
@@ -109,13 +152,13 @@ _N_CRUSTS = len(CRUST_KINDS)
 
 @njit(cache=True, nogil=True, error_model="numpy", inline="always")
 def hardness_index_from_density(density_kg_m3, grain_code, crust_kind):
-    """Hand-hardness index of a layer from its density, grain class and crust kind.
+    """Hand-hardness index of a layer from its dry density, grain class and crust kind.
 
     Parameters
     ----------
     density_kg_m3 : float
-        Layer density [kg m-3]. The fits are of dry-snow density: for a wet layer pass the
-        ice mass per volume.
+        Dry density of the layer, ice mass per volume [kg m-3]: the regressions were made on
+        dry snow, and the liquid water of a wet layer softens it rather than hardening it.
     grain_code : int
         Index into :data:`regionmap.snow.codes.GRAIN_CODES`.
     crust_kind : int
@@ -124,24 +167,26 @@ def hardness_index_from_density(density_kg_m3, grain_code, crust_kind):
     Returns
     -------
     float
-        Hand-hardness index, F = 1 ... I = 6 (Fierz et al. 2009), clipped to [1, 6]
-        [dimensionless]. NaN for an unused slot (grain code 0), an unknown code or a NaN
-        density. Never raises.
+        Hand-hardness index, F = 1 ... I = 6 (Fierz et al. 2009) [dimensionless]. NaN for an
+        unused slot (grain code 0), an unknown code or a NaN density. Never raises.
 
     Notes
     -----
     * Ice formations (IF) are I (6).
-    * Crusts (grain MFcr, or any crust kind other than ``none``): K (5) at and below
-      :data:`CRUST_K_DENSITY_KG_M3`, rising linearly to I (6) at
-      :data:`CRUST_I_DENSITY_KG_M3` -- our rule, made continuous with the RG fit.
-    * Other grain classes invert the linear fit ``density = A + B * h`` of Geldsetzer &
-      Jamieson (2000): ``h = (density - A) / B``, clipped to [1, 6]. Coefficients are
-      recalled, low confidence ([mem]; see :data:`GELDSETZER2000_FITS`).
+    * Crusts (grain MFcr, or any crust kind other than ``none``), pencil to ice by density
+      (Jamieson 2006): the RG fit of Geldsetzer & Jamieson (2000) between P (4) and K (5),
+      i.e. P up to 375 kg m-3 and K at :data:`CRUST_K_DENSITY_KG_M3`, then rising linearly
+      to I (6) at :data:`CRUST_I_DENSITY_KG_M3` (pore close-off) -- our rule, continuous.
+    * Other grain classes invert the fit ``density = A + B * h`` of Geldsetzer & Jamieson
+      (2000), ``h = (density - A) / B``, kept inside the grain class's field range
+      :data:`FIELD_HARDNESS_RANGE`. Coefficients and ranges recalled, low confidence
+      ([mem]; see :data:`GELDSETZER2000_FITS`).
 
     References
     ----------
     Fierz et al. (2009), IHP-VII Tech. Doc. Hydrol. 83, UNESCO-IHP; Geldsetzer & Jamieson
-    (2000), Proc. ISSW 2000, 121-127.
+    (2000), Proc. ISSW 2000, 121-127; McClung & Schaerer (2006), The Avalanche Handbook;
+    Jamieson (2006), Rev. Geophys. 44, RG2001.
     """
     invalid = (
         (grain_code <= 0)
@@ -152,17 +197,19 @@ def hardness_index_from_density(density_kg_m3, grain_code, crust_kind):
     )
     # every rule is evaluated and one selected (no branches: the kernel's loop vectorises)
     code = min(max(grain_code, 0), _N_CODES - 1)
-    crust_h = 5.0 + (density_kg_m3 - CRUST_K_DENSITY_KG_M3) * (
+    below_k = min(max((density_kg_m3 - _CRUST_A) * (1.0 / _CRUST_B), 4.0), 5.0)
+    above_k = max(density_kg_m3 - CRUST_K_DENSITY_KG_M3, 0.0) * (
         1.0 / (CRUST_I_DENSITY_KG_M3 - CRUST_K_DENSITY_KG_M3)
     )
+    crust_h = min(below_k + above_k, 6.0)
     fit_h = (density_kg_m3 - _FIT_A[code]) / _FIT_B[code]
     h = (
         6.0
         if grain_code == _IF
         else (
-            min(max(crust_h, 5.0), 6.0)
+            crust_h
             if (grain_code == _MFCR) | (crust_kind > 0)
-            else min(max(fit_h, 1.0), 6.0)
+            else min(max(fit_h, _RANGE_LO[code]), _RANGE_HI[code])
         )
     )
     return np.nan if invalid else h

@@ -112,11 +112,12 @@ from regionmap.snow.params import (
     P_ROUND_RATE_PER_DAY,
     P_SETTLING_RATE0_PER_S,
     P_SETTLING_RHO_D_KG_M3,
-    P_SH_BURIAL_WIND_MAX_M_S,
     P_SH_DENSITY_KG_M3,
     P_SH_DESTROY_SW_W_M2,
-    P_SH_DESTROY_WIND_M_S,
+    P_SH_DESTROY_USTAR_M_S,
+    P_SH_KEEP_USTAR_M_S,
     P_SH_MIN_MASS_KG_M2,
+    P_SH_SHIELD_KG_M2,
     P_SH_WIND_MAX_M_S,
     P_SNOW_EVENT_GAP_H,
     P_SOIL_CONDUCTIVITY_W_M_K,
@@ -137,9 +138,11 @@ from regionmap.snow.surface import (
     wet_bulb_temperature_psychrometric,
 )
 from regionmap.snow.surface_hoar import (
+    friction_velocity_log_law,
     surface_hoar_destroyed,
     surface_hoar_forms,
     surface_hoar_size_mm,
+    surface_hoar_survival,
 )
 from regionmap.snow.vecmath import padded_count
 from regionmap.snow.water import is_flow_barrier, layer_enthalpy, percolate_column, resolve_phase
@@ -533,15 +536,28 @@ def _vapour_exchange(fw, iw, n, sv, mass, to_hoar):
 
 
 @njit(cache=True, nogil=True, error_model="numpy")
-def _bury_or_drop_hoar(fw, iw, n, sv, si, wind, now_s, p, cap):
-    """At snowfall: keep surface hoar as a buried SH layer when the wind is light and there is
-    enough of it, else mix it into the top layer."""
+def _hoar_into_top(fw, n, mass):
+    """Mix ``mass`` kg m-2 of surface hoar (ice at 0 degC) into the top layer at its density."""
+    top = n - 1
+    dens = max(fw[F_ICE, top] / max(fw[F_THICK, top], 1e-9), 50.0)
+    fw[F_ICE, top] += mass
+    fw[F_THICK, top] += mass / dens
+
+
+@njit(cache=True, nogil=True, error_model="numpy")
+def _bury_or_drop_hoar(fw, iw, n, sv, si, ustar, now_s, p, cap):
+    """At snowfall: the share of the surface hoar that survives this hour's wind
+    (:func:`regionmap.snow.surface_hoar.surface_hoar_survival`, nothing above it yet) becomes
+    a buried SH layer when there is enough of it; the rest is mixed into the top layer."""
     m_sh = sv[V_SH_MASS]
     sv[V_SH_MASS] = 0.0
-    top = n - 1
-    if wind <= p[P_SH_BURIAL_WIND_MAX_M_S] and m_sh >= p[P_SH_MIN_MASS_KG_M2]:
+    keep = m_sh * surface_hoar_survival(
+        ustar, 0.0, p[P_SH_KEEP_USTAR_M_S], p[P_SH_DESTROY_USTAR_M_S], p[P_SH_SHIELD_KG_M2]
+    )
+    if keep >= p[P_SH_MIN_MASS_KG_M2]:
         n, ok = _make_room(fw, iw, n, now_s, p, cap)
         if ok:
+            _hoar_into_top(fw, n, m_sh - keep)
             t_top = fw[F_TEMP, n - 1]
             n = insert_top(fw, iw, n)
             rho = p[P_SH_DENSITY_KG_M3]
@@ -549,10 +565,10 @@ def _bury_or_drop_hoar(fw, iw, n, sv, si, wind, now_s, p, cap):
                 fw,
                 iw,
                 n - 1,
-                m_sh / rho,
-                m_sh,
+                keep / rho,
+                keep,
                 t_top,
-                surface_hoar_size_mm(m_sh, rho),
+                surface_hoar_size_mm(keep, rho),
                 0.0,
                 1.0,
                 _SH,
@@ -562,10 +578,50 @@ def _bury_or_drop_hoar(fw, iw, n, sv, si, wind, now_s, p, cap):
             )
             iw[I_FORM, n - 1] = now_s
             return n
-        top = n - 1
-    dens = max(fw[F_ICE, top] / max(fw[F_THICK, top], 1e-9), 50.0)
-    fw[F_ICE, top] += m_sh
-    fw[F_THICK, top] += m_sh / dens
+    _hoar_into_top(fw, n, m_sh)
+    return n
+
+
+@njit(cache=True, nogil=True, error_model="numpy")
+def _erode_buried_hoar(fw, iw, n, ustar, p):
+    """Wind on surface hoar buried under less snow than the shield load: the share that does
+    not survive this hour (:func:`regionmap.snow.surface_hoar.surface_hoar_survival`) joins
+    the layer above (enthalpy kept); a layer left below the smallest kept mass merges into
+    it. Returns n."""
+    shield = p[P_SH_SHIELD_KG_M2]
+    load = 0.0
+    i = n - 1
+    while i >= 0 and load < shield:
+        m_i = fw[F_ICE, i] + fw[F_LIQ, i]
+        if iw[I_CODE, i] == _SH and i < n - 1:
+            frac = surface_hoar_survival(
+                ustar, load, p[P_SH_KEEP_USTAR_M_S], p[P_SH_DESTROY_USTAR_M_S], shield
+            )
+            j = i + 1
+            if fw[F_ICE, i] * frac < p[P_SH_MIN_MASS_KG_M2]:
+                n = merge_pair(fw, iw, n, i)
+                j = i
+                lost = 0.0
+            else:
+                lost = fw[F_ICE, i] * (1.0 - frac)
+            if lost > 0.0:
+                h = layer_enthalpy(fw[F_ICE, j], fw[F_LIQ, j], fw[F_TEMP, j]) + layer_enthalpy(
+                    lost, 0.0, fw[F_TEMP, i]
+                )
+                dens = max(fw[F_ICE, j] / max(fw[F_THICK, j], 1e-9), 50.0)
+                fw[F_THICK, j] += lost / dens
+                fw[F_THICK, i] *= frac
+                fw[F_GRAIN, i] *= frac
+                fw[F_ICE, i] -= lost
+                ice, liq, t, _ = resolve_phase(fw[F_ICE, j] + fw[F_LIQ, j] + lost, h)
+            else:
+                h = layer_enthalpy(fw[F_ICE, j], fw[F_LIQ, j], fw[F_TEMP, j])
+                ice, liq, t, _ = resolve_phase(fw[F_ICE, j] + fw[F_LIQ, j], h)
+            fw[F_ICE, j] = ice
+            fw[F_LIQ, j] = liq
+            fw[F_TEMP, j] = t
+        load += m_i
+        i -= 1
     return n
 
 
@@ -640,8 +696,9 @@ def _compact(fw, n, dt, p, load_w):
         liq = liq_w[i]
         thick = thick_w[i]
         dens = ice / max(thick, 1e-9)
+        theta_w = liq * (1.0 / RHO_WATER_KG_M3) / max(thick, 1e-9)
         rate = compaction_strain_rate(
-            dens, temp_w[i], liq > 0.0, GRAVITY_M_S2 * load_w[i], eta0, c_t, c_rho, rate0, rho_d
+            dens, temp_w[i], theta_w, GRAVITY_M_S2 * load_w[i], eta0, c_t, c_rho, rate0, rho_d
         )
         dz = thick / (1.0 + rate * dt)
         dz_min = ice / RHO_ICE_KG_M3 + liq / RHO_WATER_KG_M3
@@ -866,14 +923,17 @@ def _step(
         sv[V_FZ_GAP_H] = 0.0
     else:
         sv[V_FZ_GAP_H] += hours
-    # burial of surface hoar, then snowfall
+    # wind on thinly buried surface hoar, burial of surface hoar, then snowfall
+    ustar = friction_velocity_log_law(wind_raw, zu, p[P_ROUGHNESS_M])
+    if ustar > p[P_SH_KEEP_USTAR_M_S] and n > 1:
+        n = _erode_buried_hoar(fw, iw, n, ustar, p)
     slot = hour_abs % RING_H
     ring_m[slot] = 0.0
     ring_d[slot] = 0.0
     if snow > 0.0:
         e0 = column_enthalpy(fw, n, sv[V_SH_MASS])
         if sv[V_SH_MASS] > 0.0 and n > 0:
-            n = _bury_or_drop_hoar(fw, iw, n, sv, si, wind_raw, now_s, p, cap)
+            n = _bury_or_drop_hoar(fw, iw, n, sv, si, ustar, now_s, p, cap)
         n, st = _add_snowfall(fw, iw, n, snow, ta, wind, now_s, si[J_SNOW_EV], p, cap)
         status |= st
         e_mass += column_enthalpy(fw, n, sv[V_SH_MASS]) - e0
@@ -1029,7 +1089,7 @@ def _step(
     )
     _compact(fw, n, dt, p, wk[0])
     _metamorphose(fw, iw, n, sv, ts, dt, p, wk[1], wk[2], wk[3])
-    # surface hoar destruction: into the top layer
+    # surface hoar destruction by melt or sun, and the share the wind takes: into the top layer
     if sv[V_SH_MASS] > 0.0:
         if n == 0:
             # the snow under it has melted away: the hoar leaves as melt water
@@ -1037,16 +1097,23 @@ def _step(
             acc[A_RUNOFF] = runoff
             e_mass += L_FUSION_J_KG * sv[V_SH_MASS]
             sv[V_SH_MASS] = 0.0
-        elif surface_hoar_destroyed(
-            wind_raw, melting, sw_abs, p[P_SH_DESTROY_WIND_M_S], p[P_SH_DESTROY_SW_W_M2]
-        ):
-            e0 = column_enthalpy(fw, n, sv[V_SH_MASS])
-            top = n - 1
-            dens = max(fw[F_ICE, top] / max(fw[F_THICK, top], 1e-9), 50.0)
-            fw[F_ICE, top] += sv[V_SH_MASS]
-            fw[F_THICK, top] += sv[V_SH_MASS] / dens
-            sv[V_SH_MASS] = 0.0
-            e_mass += column_enthalpy(fw, n, 0.0) - e0
+        else:
+            destroyed = surface_hoar_destroyed(melting, sw_abs, p[P_SH_DESTROY_SW_W_M2])
+            survival = surface_hoar_survival(
+                ustar,
+                0.0,
+                p[P_SH_KEEP_USTAR_M_S],
+                p[P_SH_DESTROY_USTAR_M_S],
+                p[P_SH_SHIELD_KG_M2],
+            )
+            lost = sv[V_SH_MASS] if destroyed else sv[V_SH_MASS] * (1.0 - survival)
+            if sv[V_SH_MASS] - lost < 1e-9:  # no specks of hoar left behind
+                lost = sv[V_SH_MASS]
+            if lost > 0.0:
+                e0 = column_enthalpy(fw, n, sv[V_SH_MASS])
+                _hoar_into_top(fw, n, lost)
+                sv[V_SH_MASS] -= lost
+                e_mass += column_enthalpy(fw, n, sv[V_SH_MASS]) - e0
     if snow > 0.0 or hour_abs % 6 == 0 or n >= cap - 2:
         n = merge_pass(fw, iw, n, now_s, p[P_NEW_LAYER_MAX_M], p[P_MERGE_DEPTH_FRAC], cap - 2)
     if n > 0:

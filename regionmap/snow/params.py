@@ -42,7 +42,7 @@ class SnowParams:
         0.3  #: fresh-snow grain size (Vionnet et al. 2012 use ~0.1-0.4 [mem])
     )
     # compaction: Anderson 1976 / Jordan 1991 [mem]
-    compaction_eta0_pa_s: float = 3.7e7  #: upper end of the published range (METHODS: 3.6e6-3.7e7 [mem]), chosen so new snow settles ~20 % in 24 h (settlement rule of thumb, McClung & Schaerer)
+    compaction_eta0_pa_s: float = 3.6e6  #: Jordan (1991), Eq. 34 [mem]
     compaction_c_t_per_k: float = 0.08
     compaction_c_rho_m3_kg: float = 0.021
     settling_rate0_per_s: float = 2.778e-6
@@ -79,7 +79,9 @@ class SnowParams:
     rain_crust_min_share: float = 0.5  #: and its share of the event's precipitation (ours)
     # crusts
     crust_min_thickness_m: float = 0.005  #: a crust counts from 0.5 cm (ours)
-    crust_min_hardness: float = 5.0  #: and from hand hardness K (issue 4: crusts K-I)
+    crust_min_hardness: float = (
+        4.0  #: and from hand hardness P (crusts P-I: Jamieson 2006, Rev. Geophys. 44 [mem])
+    )
     # dry metamorphism (Colbeck 1983 regimes; Marbouty 1980 growth)
     gradient_round_k_m: float = 10.0
     gradient_strong_k_m: float = 25.0
@@ -88,11 +90,14 @@ class SnowParams:
     kinetic_growth_m_s: float = 1.04e-9  #: Marbouty (1980) maximum rate [mem]
     depth_hoar_min_grain_mm: float = 1.5  #: ours (Fierz et al. 2009: DH typically 1-5 mm)
     near_surface_depth_m: float = 0.10  #: near-surface zone (Birkeland 1998 [mem])
-    # surface hoar (Hachikubo 2001; destruction [mem])
-    sh_wind_max_m_s: float = 3.5
-    sh_destroy_wind_m_s: float = 4.5
+    # surface hoar (growth: Hachikubo 2001; survival: surface_hoar.surface_hoar_survival)
+    sh_wind_max_m_s: float = 3.5  #: grows at cell winds up to 3.5 m s-1 (Hachikubo 2001)
+    sh_keep_ustar_m_s: float = 0.15  #: wind spares it up to this friction velocity (ours, within the 0.07-0.25 m s-1 drift thresholds of fresh snow, Li & Pomeroy 1997 [mem])
+    sh_destroy_ustar_m_s: float = 0.35  #: and destroys it from this one (ours, where older snow starts to drift, Li & Pomeroy 1997 [mem])
+    sh_shield_kg_m2: float = (
+        10.0  #: burying snow that shields it from the wind (~10 cm of storm snow, ours)
+    )
     sh_destroy_sw_w_m2: float = 150.0  #: absorbed shortwave that destroys it (ours)
-    sh_burial_wind_max_m_s: float = 3.5  #: ours
     sh_density_kg_m3: float = 100.0  #: ours
     sh_min_mass_kg_m2: float = 0.02  #: smallest mass kept as a buried layer (0.2 mm, ours)
     # events and diagnostics

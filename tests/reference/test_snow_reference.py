@@ -13,7 +13,11 @@ import numpy as np
 import pytest
 from scipy.special import erf
 
-from regionmap.snow.compaction import destructive_settling_rate_anderson1976, viscosity_anderson1976
+from regionmap.snow.compaction import (
+    destructive_settling_rate_anderson1976,
+    viscosity_anderson1976,
+    wet_softening_vionnet2012,
+)
 from regionmap.snow.conduction import (
     conduction_step_backward_euler,
     conductivity_calonne2011,
@@ -195,3 +199,23 @@ def test_anderson1976_compaction_terms():
     assert rate == pytest.approx(2.778e-6 * math.exp(-0.2), rel=1e-12)
     wet = destructive_settling_rate_anderson1976(70.0, T_MELT_K, True, 2.778e-6, 100.0)
     assert wet == pytest.approx(2 * 2.778e-6, rel=1e-12)  # c4 = 2 when wet
+
+
+def test_viscosity_constant_is_jordan1991():
+    # Jordan (1991) CRREL SR 91-16, Eq. 34 (Anderson 1976) [mem]: eta0 = 3.6e6 N s m-2,
+    # c5 = 0.08 K-1, c6 = 0.021 m3 kg-1
+    from regionmap.snow.params import SnowParams
+
+    p = SnowParams()
+    assert (p.compaction_eta0_pa_s, p.compaction_c_t_per_k, p.compaction_c_rho_m3_kg) == (
+        3.6e6,
+        0.08,
+        0.021,
+    )
+
+
+def test_wet_softening_vionnet2012():
+    # Vionnet et al. (2012), GMD 5, liquid-water factor of the viscosity 1 / (1 + 60 theta_w)
+    # [mem]: dry snow unchanged; 5 % water by volume -> a quarter of the dry viscosity
+    assert wet_softening_vionnet2012(0.0) == 1.0
+    assert wet_softening_vionnet2012(0.05) == pytest.approx(0.25, rel=1e-12)
