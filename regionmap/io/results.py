@@ -121,7 +121,8 @@ DIAGNOSTICS: dict[str, tuple[str, dict]] = {
         "i1",
         {
             "units": "1",
-            "long_name": "column holds a persistent weak layer (FC, DH or SH)",
+            "long_name": "column holds a persistent weak layer of concern (FC, DH or SH under "
+            "a slab, critical by the threshold count)",
             "flag_values": np.array([0, 1], "i1"),
             "flag_meanings": "absent present",
         },

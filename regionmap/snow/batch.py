@@ -76,6 +76,8 @@ from regionmap.snow.params import (
     P_DEPTH_HOAR_MIN_CM,
     P_EVENT_MIN_KG_M2,
     P_PWL_MIN_DEPTH_M,
+    P_PWL_MIN_GRAIN_MM,
+    P_PWL_MIN_THICKNESS_M,
     P_SH_DENSITY_KG_M3,
     P_THRESHOLD_RELATIVE,
 )
@@ -344,6 +346,8 @@ def run_cells(
                     p[P_CRUST_MIN_THICKNESS_M],
                     p[P_CRUST_MIN_HARDNESS],
                     p[P_PWL_MIN_DEPTH_M],
+                    p[P_PWL_MIN_THICKNESS_M],
+                    p[P_PWL_MIN_GRAIN_MM],
                     relative,
                     scratch,
                     struct,

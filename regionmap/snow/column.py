@@ -192,8 +192,9 @@ def run_columns(
         :data:`DIAGNOSTICS_32`; interval sums: snowfall, rain, runoff, sublimation,
         deposition, mass residual; energy residual is an interval mean). New snow 24/72 h
         is the fresh depth (mass / new-snow density) and mass fallen in the last 24/72 hours;
-        ``pwl_*`` describe the uppermost persistent layer (FC, FCxr, FCsf, DH, SH) buried at
-        least ``pwl_min_depth_m`` (NaN depth/size where none); crust counts count
+        ``pwl_*`` describe the uppermost persistent weak layer of concern (FC, FCxr, FCsf,
+        DH, SH under a slab, thick and coarse enough and critical by the threshold count:
+        :mod:`regionmap.snow.diagnostics`; NaN depth/size where none); crust counts count
         contiguous runs of dry crust layers at least ``crust_min_thickness_m`` thick and
         ``crust_min_hardness`` hard; ``threshold_*`` the worst interface (NaN depth where
         no interface scores). ``status`` (cell,)

@@ -1,8 +1,17 @@
 """Per-cell diagnostics of one column (compiled): structure a forecaster reads.
 
 Crust counts (contiguous runs of counted crust layers count once), depth hoar, the uppermost
-buried persistent weak layer, surface wetness class (Fierz et al. 2009) and the worst
-interface's structural threshold count (:mod:`regionmap.snow.stability`). Model output is
+persistent weak layer of concern, surface wetness class (Fierz et al. 2009) and the worst
+interface's structural threshold count (:mod:`regionmap.snow.stability`).
+
+A *persistent weak layer of concern* is a run of layers of persistent grain type (FC, FCxr,
+FCsf, DH, SH; Schweizer & Jamieson 2007) at least ``pwl_min_thickness_m`` thick (buried
+surface hoar at any thickness: it is millimetres thin), with grains of at least
+``pwl_min_grain_mm``, under a slab at least ``pwl_min_depth_m`` deep, and one of its two
+bounding interfaces scoring at or above the critical value of the threshold count
+(:data:`regionmap.snow.stability.CRITICAL_COUNT_ABSOLUTE`, or
+:data:`~regionmap.snow.stability.CRITICAL_SUM_RELATIVE` for the relative sum of Monti et al.
+2014). Persistent layers that miss one of these are not counted. Model output is
 guidance for trained people, never a substitute for field observations, the local avalanche
 service or professional standards.
 """
@@ -16,7 +25,12 @@ from regionmap.snow.constants import RHO_WATER_KG_M3
 from regionmap.snow.crusts import counts_as_crust
 from regionmap.snow.hardness import hardness_index_from_density, hardness_index_from_density_array
 from regionmap.snow.layering import F_GRAIN, F_ICE, F_LIQ, F_THICK, I_CODE, I_CRUST
-from regionmap.snow.stability import N_CRITERIA, worst_interface_column
+from regionmap.snow.stability import (
+    CRITICAL_COUNT_ABSOLUTE,
+    CRITICAL_SUM_RELATIVE,
+    N_CRITERIA,
+    interface_scores_column,
+)
 from regionmap.snow.vecmath import padded_count
 
 __all__ = [
@@ -24,6 +38,7 @@ __all__ = [
     "layer_hardness",
     "column_structure",
     "layer_hardness_array",
+    "mark_weak_layers_of_concern",
     "N_SCRATCH_ROWS",
 ]
 
@@ -35,7 +50,7 @@ S_DH_THICK_M, S_PWL, S_PWL_DEPTH_M, S_PWL_THICK_M, S_PWL_GRAIN_MM, S_PWL_CODE = 
 S_TC_MAX, S_TC_DEPTH_M, S_WETNESS = 11, 12, 13
 N_STRUCT = 14
 #: rows of the scratch array :func:`column_structure` needs (shape (N_SCRATCH_ROWS, layer))
-N_SCRATCH_ROWS = N_CRITERIA + 1
+N_SCRATCH_ROWS = N_CRITERIA + 2
 
 
 @njit(cache=True, nogil=True, error_model="numpy")
@@ -61,6 +76,82 @@ def _is_persistent(code):
 
 
 @njit(cache=True, nogil=True, error_model="numpy")
+def mark_weak_layers_of_concern(
+    n,
+    thickness_m,
+    grain_size_mm,
+    grain_code,
+    scores,
+    critical,
+    min_depth_m,
+    min_thickness_m,
+    min_grain_mm,
+    mark,
+):
+    """Mark the persistent weak layers of concern of one column (module notes).
+
+    Parameters
+    ----------
+    n : int
+        Active layers, bottom first.
+    thickness_m, grain_size_mm : ndarray (>= n,) float64
+        Layer thickness [m] and grain size [mm].
+    grain_code : ndarray (>= n,) int
+        Indices into GRAIN_CODES.
+    scores : ndarray (>= n - 1,) float64
+        Threshold score of interface k (top of layer k), 0..6.
+    critical : float
+        Score at or above which an interface is critical.
+    min_depth_m, min_thickness_m, min_grain_mm : float
+        Slab above the run [m], thickness of the run [m] (buried SH at any thickness) and
+        its coarsest grains [mm].
+    mark : ndarray (>= n,) float64
+        Written: 1 for each layer of a run of concern, else 0.
+
+    Returns
+    -------
+    int
+        Index of the top layer of the uppermost run of concern, -1 when none.
+    """
+    for k in range(n):
+        mark[k] = 0.0
+    top = -1
+    depth = 0.0
+    i = n - 1
+    while i >= 0:
+        if not _is_persistent(grain_code[i]):
+            depth += thickness_m[i]
+            i -= 1
+            continue
+        # a run of persistent layers from i down to j + 1
+        thick = 0.0
+        grain = 0.0
+        has_sh = False
+        j = i
+        while j >= 0 and _is_persistent(grain_code[j]):
+            thick += thickness_m[j]
+            grain = max(grain, grain_size_mm[j])
+            has_sh = has_sh or grain_code[j] == _SH
+            j -= 1
+        score = scores[i] if i < n - 1 else 0.0  # the interface above the run
+        if j >= 0:
+            score = max(score, scores[j])  # and the one below it
+        if (
+            depth >= min_depth_m
+            and (thick >= min_thickness_m or has_sh)
+            and grain >= min_grain_mm
+            and score >= critical
+        ):
+            for k in range(j + 1, i + 1):
+                mark[k] = 1.0
+            if top < 0:
+                top = i
+        depth += thick
+        i = j
+    return top
+
+
+@njit(cache=True, nogil=True, error_model="numpy")
 def layer_hardness(fw, iw, n, out):
     """Hand-hardness index of each active layer from its dry density (ice mass per volume)
     and grain class (Geldsetzer & Jamieson 2000 within field ranges, via hardness.py)."""
@@ -78,6 +169,8 @@ def column_structure(
     crust_min_thickness_m,
     crust_min_hardness,
     pwl_min_depth_m,
+    pwl_min_thickness_m,
+    pwl_min_grain_mm,
     relative,
     scratch,
     out,
@@ -86,8 +179,9 @@ def column_structure(
 
     ``hardness`` (layer,) is the hardness of each layer from :func:`layer_hardness`;
     ``scratch`` (N_SCRATCH_ROWS, layer) float64 work space for the threshold count
-    (:func:`regionmap.snow.stability.worst_interface_column`), reused between calls so the
-    hourly diagnostics allocate nothing.
+    (:func:`regionmap.snow.stability.interface_scores_column`), reused between calls so the
+    hourly diagnostics allocate nothing. The PWL entries describe the uppermost persistent
+    weak layer of concern (module notes).
     """
     for k in range(N_STRUCT):
         out[k] = 0.0
@@ -114,38 +208,51 @@ def column_structure(
                 out[S_CRUST + kind] += 1.0
         else:
             i -= 1
-    # depth hoar thickness; uppermost buried persistent layer
-    depth = 0.0
-    found = False
-    for i in range(n - 1, -1, -1):
-        code = iw[I_CODE, i]
-        if code == _DH:
+    # structural threshold count of every interface (active layers only); the worst one
+    scores = scratch[N_CRITERIA + 1]
+    tc, tc_depth = interface_scores_column(
+        n, fw[F_THICK], fw[F_GRAIN], hardness, iw[I_CODE], relative, scratch, scores
+    )
+    out[S_TC_MAX] = tc
+    out[S_TC_DEPTH_M] = tc_depth
+    # depth hoar thickness; uppermost persistent weak layer of concern
+    for i in range(n):
+        if iw[I_CODE, i] == _DH:
             out[S_DH_THICK_M] += fw[F_THICK, i]
-        if not found and _is_persistent(code) and depth >= pwl_min_depth_m:
-            found = True
-            out[S_PWL] = 1.0
-            out[S_PWL_DEPTH_M] = depth
-            out[S_PWL_GRAIN_MM] = fw[F_GRAIN, i]
-            out[S_PWL_CODE] = code
-            t = 0.0
-            j = i
-            while j >= 0 and _is_persistent(iw[I_CODE, j]):
-                t += fw[F_THICK, j]
-                j -= 1
-            out[S_PWL_THICK_M] = t
-        depth += fw[F_THICK, i]
-    if not found:
-        out[S_PWL_DEPTH_M] = -1.0
+    out[S_PWL_DEPTH_M] = -1.0
+    mark = scratch[0]  # free once the interfaces are scored
+    top = mark_weak_layers_of_concern(
+        n,
+        fw[F_THICK],
+        fw[F_GRAIN],
+        iw[I_CODE],
+        scores,
+        CRITICAL_SUM_RELATIVE if relative else CRITICAL_COUNT_ABSOLUTE,
+        pwl_min_depth_m,
+        pwl_min_thickness_m,
+        pwl_min_grain_mm,
+        mark,
+    )
+    if top >= 0:
+        depth = 0.0
+        for i in range(n - 1, top, -1):
+            depth += fw[F_THICK, i]
+        thick = 0.0
+        grain = 0.0
+        i = top
+        while i >= 0 and mark[i] > 0.0 and _is_persistent(iw[I_CODE, i]):
+            thick += fw[F_THICK, i]
+            grain = max(grain, fw[F_GRAIN, i])
+            i -= 1
+        out[S_PWL] = 1.0
+        out[S_PWL_DEPTH_M] = depth
+        out[S_PWL_THICK_M] = thick
+        out[S_PWL_GRAIN_MM] = grain
+        out[S_PWL_CODE] = iw[I_CODE, top]
     # surface wetness class of the top layer
     if n > 0:
         lwc = fw[F_LIQ, n - 1] / (RHO_WATER_KG_M3 * max(fw[F_THICK, n - 1], 1e-9))
         out[S_WETNESS] = wetness_class_fierz2009(lwc)
-    # structural threshold count of the worst interface (active layers only)
-    tc, tc_depth = worst_interface_column(
-        n, fw[F_THICK], fw[F_GRAIN], hardness, iw[I_CODE], relative, scratch
-    )
-    out[S_TC_MAX] = tc
-    out[S_TC_DEPTH_M] = tc_depth
 
 
 def layer_hardness_array(state) -> np.ndarray:

@@ -96,7 +96,6 @@ from regionmap.snow.params import (
     P_EVENT_MIN_KG_M2,
     P_FACET_RATE_PER_DAY,
     P_GRADIENT_ROUND_K_M,
-    P_GRADIENT_STRONG_K_M,
     P_IRREDUCIBLE_PORE_FRAC,
     P_KINETIC_GROWTH_M_S,
     P_MERGE_DEPTH_FRAC,
@@ -749,7 +748,6 @@ def _metamorphose(fw, iw, n, sv, ts, dt, p, grad_w, centre_w, arr_w):
     """
     days = dt / 86400.0
     g_round = p[P_GRADIENT_ROUND_K_M]
-    g_strong = p[P_GRADIENT_STRONG_K_M]
     facet_rate = p[P_FACET_RATE_PER_DAY]
     round_rate = p[P_ROUND_RATE_PER_DAY]
     kinetic = p[P_KINETIC_GROWTH_M_S]
@@ -774,7 +772,7 @@ def _metamorphose(fw, iw, n, sv, ts, dt, p, grad_w, centre_w, arr_w):
         arr = arrhenius_ratio_6000(t)
         f = (
             facet_w[i]
-            + facetedness_rate(t, dens, grad, g_round, g_strong, facet_rate, round_rate, arr) * days
+            + facetedness_rate(t, dens, grad, g_round, facet_rate, round_rate, arr) * days
         )
         gs = grain_growth_marbouty1980(grain_w[i], t, dens, grad, dt, kinetic)
         code = code_w[i]

@@ -7,8 +7,11 @@ faceting law is driven by the *hourly magnitude* of the temperature gradient, su
 step (not a daily mean: in diurnal recrystallisation the gradient reverses every day), so
 near-surface facets, radiation recrystallisation and facets beside crusts come out of the same
 physics. Regimes after Colbeck (1983), J. Geophys. Res. 88(C9), 5475-5482,
-doi:10.1029/JC088iC09p05475: below ~10 K m-1 rounding, above ~10-20 K m-1 faceting, strong
-growth from ~25 K m-1.
+doi:10.1029/JC088iC09p05475: below ~10 K m-1 rounding, above ~10-20 K m-1 faceting; the
+faceting rate follows Marbouty's (1980) kinetic growth factors (from 15 K m-1, strong from
+~25-50 K m-1, none above 350 kg m-3). Near-surface facets form where clear nights drive
+gradients of the order of 100 K m-1 through the top decimetres (Birkeland 1998, Arct. Alp.
+Res. 30(2), 193-199, doi:10.2307/1552134 [mem]).
 
 The dry-snow laws (Marbouty factors, faceting, the Arrhenius term) are inlined into the
 kernel's loop over layers and use :func:`regionmap.snow.vecmath.exp_vec`, so that loop
@@ -144,24 +147,28 @@ def facetedness_rate(
     density_kg_m3,
     gradient_k_m,
     g_round_k_m,
-    g_strong_k_m,
     facet_per_day,
     round_per_day,
     arrhenius_ratio,
 ):
-    """Change of facetedness [day-1] under the hourly gradient magnitude (our law).
+    """Change of facetedness [day-1] under the hourly gradient magnitude.
 
-    Faceting ``facet_per_day`` x Marbouty temperature factor x ramp((|G| - G_r)/(G_s - G_r))
-    x density factor (1 to 300 kg m-3, 0 at 500); rounding ``round_per_day`` x
-    (1 - |G|/G_r) x exp(-6000 (1/T - 1/T0)) below G_r. Regimes after Colbeck (1983).
-    ``arrhenius_ratio`` is that exponential, :func:`arrhenius_ratio_6000` (shared with the
-    decomposition rate, so the kernel evaluates it once per layer).
+    Faceting ``facet_per_day`` x the three factors of Marbouty's (1980) kinetic growth law
+    (temperature, density, gradient: nothing below 15 K m-1, full from 50 K m-1, nothing
+    above 350 kg m-3); rounding ``round_per_day`` x (1 - |G|/G_r) x exp(-6000 (1/T - 1/T0))
+    below G_r (10 K m-1, Colbeck 1983); between G_r and 15 K m-1 neither. Faceting thus
+    needs a strong gradient sustained over days, and near-surface layers facet under the
+    strong diurnal gradients of clear nights (Birkeland 1998). The rate constants are ours.
+    ``arrhenius_ratio`` is :func:`arrhenius_ratio_6000` (shared with the decomposition rate,
+    so the kernel evaluates it once per layer).
     """
     g = abs(gradient_k_m)
-    # (reciprocals of the settings: loop invariants, hoisted out of the kernel's layer loop)
-    ramp = min((g - g_round_k_m) * (1.0 / (g_strong_k_m - g_round_k_m)), 1.0)
-    dens = min(max(1.0 - (density_kg_m3 - 300.0) * 0.005, 0.0), 1.0)
-    faceting = facet_per_day * marbouty_temperature_factor(t_k) * ramp * dens
+    faceting = (
+        facet_per_day
+        * marbouty_temperature_factor(t_k)
+        * (marbouty_density_factor(density_kg_m3) * marbouty_gradient_factor(g))
+    )
+    # (reciprocal of the setting: a loop invariant, hoisted out of the kernel's layer loop)
     rounding = -round_per_day * (1.0 - g * (1.0 / g_round_k_m)) * arrhenius_ratio
     return faceting if g >= g_round_k_m else rounding
 

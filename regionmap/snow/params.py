@@ -83,8 +83,7 @@ class SnowParams:
         4.0  #: and from hand hardness P (crusts P-I: Jamieson 2006, Rev. Geophys. 44 [mem])
     )
     # dry metamorphism (Colbeck 1983 regimes; Marbouty 1980 growth)
-    gradient_round_k_m: float = 10.0
-    gradient_strong_k_m: float = 25.0
+    gradient_round_k_m: float = 10.0  #: rounding below (Colbeck 1983)
     facet_rate_per_day: float = 0.3  #: ours
     round_rate_per_day: float = 0.1  #: ours
     kinetic_growth_m_s: float = 1.04e-9  #: Marbouty (1980) maximum rate [mem]
@@ -105,7 +104,13 @@ class SnowParams:
     event_min_kg_m2: float = 0.1  #: hourly amount that counts for an event (ours)
     threshold_relative: bool = True  #: Monti et al. 2014 relative thresholds; False: absolute
     depth_hoar_min_cm: float = 2.0  #: depth hoar counts as present from this thickness
-    pwl_min_depth_m: float = 0.05  #: a persistent layer counts as buried from this depth (ours)
+    pwl_min_depth_m: float = 0.18  #: a weak layer of concern lies under a slab this deep (upper end of the critical depth window, Schweizer & Jamieson 2007 [mem])
+    pwl_min_thickness_m: float = (
+        0.005  #: of at least 0.5 cm of persistent grains (buried SH at any thickness; ours)
+    )
+    pwl_min_grain_mm: float = (
+        1.0  #: with grains of at least 1 mm ("coarse", Fierz et al. 2009; ours)
+    )
 
     def __post_init__(self) -> None:
         if not 10 <= self.max_layers <= MAX_LAYERS_LIMIT:

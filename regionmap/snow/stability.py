@@ -78,10 +78,13 @@ __all__ = [
     "GRAIN_SIZE_DIFF_MIN_MM",
     "HARDNESS_DIFF_MIN",
     "DEPTH_WINDOW_M",
+    "CRITICAL_COUNT_ABSOLUTE",
+    "CRITICAL_SUM_RELATIVE",
     "N_CRITERIA",
     "threshold_count_interfaces",
     "threshold_count_columns",
     "worst_interface_column",
+    "interface_scores_column",
     "threshold_counts_of_profile",
     "threshold_count_reference",
     "worst_interface_reference",
@@ -94,6 +97,10 @@ GRAIN_SIZE_DIFF_MIN_MM: float = 0.75
 HARDNESS_DIFF_MIN: float = 1.7
 DEPTH_WINDOW_M: tuple[float, float] = (0.18, 0.94)
 N_CRITERIA: int = 6
+#: Critical score: 5 or more of the 6 criteria mark a likely problem interface (Schweizer &
+#: Jamieson 2007 [mem]); for the relative sum, 0.8 of its maximum, 6 (Monti et al. 2014 [mem]).
+CRITICAL_COUNT_ABSOLUTE: float = 5.0
+CRITICAL_SUM_RELATIVE: float = 0.8 * N_CRITERIA
 
 _DEPTH_MIN_M, _DEPTH_MAX_M = DEPTH_WINDOW_M
 _N_CODES = len(GRAIN_CODES)
@@ -267,6 +274,49 @@ def threshold_count_interfaces(
 
 
 @njit(cache=True, nogil=True, error_model="numpy")
+def _scan_interfaces(
+    n, thickness_m, grain_size_mm, hardness_index, grain_code, relative, scratch, scores, store
+):
+    """Score every interface of ``n`` active layers, worst first found from the top; with
+    ``store``, score k into ``scores[k]``. Returns (worst score, its depth)."""
+    best = 0.0
+    best_depth_m = np.nan
+    if relative:
+        depth_m = scratch[N_CRITERIA]
+        _column_variables(
+            n, thickness_m, grain_size_mm, hardness_index, grain_code, scratch, depth_m
+        )
+        lo, inv = _relative_scaling(n, scratch)
+        for k in range(n - 2, -1, -1):
+            v = (
+                scratch[0, k],
+                scratch[1, k],
+                scratch[2, k],
+                scratch[3, k],
+                scratch[4, k],
+                scratch[5, k],
+            )
+            s = _relative_sum(v, lo, inv)
+            if store:
+                scores[k] = s
+            if s > best:
+                best = s
+                best_depth_m = depth_m[k]
+    else:
+        d = 0.0
+        for k in range(n - 2, -1, -1):
+            d += thickness_m[k + 1]
+            v = _interface_variables(k, d, grain_size_mm, hardness_index, grain_code)
+            s = _absolute_count(v[0], v[1], v[2], v[3], v[4], v[5])
+            if store:
+                scores[k] = s
+            if s > best:
+                best = s
+                best_depth_m = d
+    return best, best_depth_m
+
+
+@njit(cache=True, nogil=True, error_model="numpy")
 def worst_interface_column(
     layer_count, thickness_m, grain_size_mm, hardness_index, grain_code, relative, scratch
 ):
@@ -299,39 +349,34 @@ def worst_interface_column(
     Compiled; never raises. Criteria and sources as in :func:`threshold_count_interfaces`.
     """
     n = min(max(layer_count, 0), thickness_m.shape[0])
-    best = 0.0
-    best_depth_m = np.nan
     if n < 2:
-        return best, best_depth_m
-    if relative:
-        depth_m = scratch[N_CRITERIA]
-        _column_variables(
-            n, thickness_m, grain_size_mm, hardness_index, grain_code, scratch, depth_m
-        )
-        lo, inv = _relative_scaling(n, scratch)
-        for k in range(n - 2, -1, -1):
-            v = (
-                scratch[0, k],
-                scratch[1, k],
-                scratch[2, k],
-                scratch[3, k],
-                scratch[4, k],
-                scratch[5, k],
-            )
-            s = _relative_sum(v, lo, inv)
-            if s > best:
-                best = s
-                best_depth_m = depth_m[k]
-    else:
-        d = 0.0
-        for k in range(n - 2, -1, -1):
-            d += thickness_m[k + 1]
-            v = _interface_variables(k, d, grain_size_mm, hardness_index, grain_code)
-            s = _absolute_count(v[0], v[1], v[2], v[3], v[4], v[5])
-            if s > best:
-                best = s
-                best_depth_m = d
-    return best, best_depth_m
+        return 0.0, np.nan
+    return _scan_interfaces(
+        n,
+        thickness_m,
+        grain_size_mm,
+        hardness_index,
+        grain_code,
+        relative,
+        scratch,
+        scratch[0],
+        False,
+    )
+
+
+@njit(cache=True, nogil=True, error_model="numpy")
+def interface_scores_column(
+    layer_count, thickness_m, grain_size_mm, hardness_index, grain_code, relative, scratch, scores
+):
+    """:func:`worst_interface_column` that also writes the score of every interface k (top of
+    layer k) into ``scores[k]`` (k < layer_count - 1; ``scores`` (>= layer,) float64, not a
+    row of ``scratch``). Returns (worst score, its depth [m])."""
+    n = min(max(layer_count, 0), thickness_m.shape[0])
+    if n < 2:
+        return 0.0, np.nan
+    return _scan_interfaces(
+        n, thickness_m, grain_size_mm, hardness_index, grain_code, relative, scratch, scores, True
+    )
 
 
 @njit(cache=True, nogil=True, error_model="numpy")
