@@ -243,7 +243,7 @@ def burial_wind(demo):
     Returns (sheltered, exposed) cell masks: the third of the cells with the least wind and
     the tenth with the most."""
     from regionmap.downscale.pipeline import downscale_cells
-    from regionmap.run import open_grid_forcing, prepare_batch, prepare_region
+    from regionmap.pipeline.run import open_grid_forcing, prepare_batch, prepare_region
 
     cfg = demo["cfg"]
     start = np.datetime64(demo["design"]["expected"]["surface_hoar"]["buried_at"], "s")
@@ -380,3 +380,22 @@ def test_no_rain_events_outside_the_designed_ones(demo):
     for a, b in windows:
         inside |= ((rain["first_time"] >= a) & (rain["first_time"] <= b)).to_numpy()
     assert len(rain) > 0 and inside.all(), rain[~inside].head()
+
+
+# ---------------------------------------------------------------------- hand hardness
+
+
+def test_season_hardness_by_grain_type_within_field_ranges(demo):
+    """Negative control (d) on the whole demo season: hand hardness by grain type stays
+    within the ranges of field profiles (McClung & Schaerer 2006, The Avalanche Handbook,
+    Ch. 3 [mem]: PP and SH F-4F; DF, FC and DH F-1F; crusts P-I, Jamieson 2006 [mem])."""
+    ranges = {"PP": (1, 2), "SH": (1, 2), "DF": (1, 3), "FC": (1, 3), "DH": (1, 3)}
+    ranges |= {"FCsf": (1, 3), "MFcr": (4, 6)}
+    p = demo["profiles"]
+    grain = p["grain_class"].values.astype(str)
+    hard = p["hardness_index"].values.astype(np.float64)
+    used = np.arange(p.sizes["layer"]) < p["layer_count"].values[..., None]
+    for code, (lo, hi) in ranges.items():
+        h = hard[used & (grain == code)]
+        assert h.size > 0, code
+        assert lo - 1e-6 <= h.min() and h.max() <= hi + 1e-6, (code, h.min(), h.max())

@@ -84,6 +84,9 @@ def test_basal_facets_turn_to_depth_hoar_shallow_shaded(depth_hoar_run):
     faceted = np.isin(snap["grain_code"][0], facets).any(axis=1)
     first_facet = np.argmax(faceted)
     assert 2 <= first_facet < first_dh <= 29  # within the designed cold spell
+    # negative control (e): depth hoar needs weeks of strong gradient, not days (Marbouty
+    # 1980: growth of ~0.1 mm per day at best; common practice)
+    assert first_dh >= 14
 
 
 def test_less_depth_hoar_on_sunny_aspect(depth_hoar_run):
@@ -93,6 +96,7 @@ def test_less_depth_hoar_on_sunny_aspect(depth_hoar_run):
 
 
 def test_deep_pack_gets_no_basal_depth_hoar(depth_hoar_run):
+    # negative control (e): a deep pack, whose base stays warm, grows no depth hoar there
     state, diag, _ = depth_hoar_run
     n = state.layer_count[2]
     depth_cm = diag["snow_depth_cm"][2, -1]

@@ -67,8 +67,8 @@ DEMO_EVENTS = [
     {
         "id": "early_snow",
         "kind": "storm",
-        "start": "2025-11-08T06:00",
-        "end": "2025-11-09T18:00",
+        "start": "2025-11-02T06:00",
+        "end": "2025-11-03T18:00",
         "t_ref_c": -7.0,
         "precip_kg_m2_h": 1.1,
         "wind_m_s": 8.0,
@@ -77,12 +77,13 @@ DEMO_EVENTS = [
     {
         "id": "cold_clear_spell",
         "kind": "clear",
-        "start": "2025-11-09T18:00",
+        "start": "2025-11-03T18:00",
         "end": "2025-11-30T00:00",
         "t_ref_c": -10.0,
         "rh": 0.45,
         "wind_m_s": 4.0,
-        "note": "three weeks of cold clear sky over the thin early pack: strong gradients, basal faceting",
+        "note": "almost four weeks of cold clear sky over the thin early pack: strong gradients, "
+        "basal faceting, depth hoar (it takes weeks)",
     },
     {
         "id": "surface_hoar_nights",
@@ -100,7 +101,7 @@ DEMO_EVENTS = [
         "start": "2025-12-21T12:00",
         "end": "2025-12-23T18:00",
         "t_ref_c": -7.0,
-        "precip_kg_m2_h": 1.5,
+        "precip_kg_m2_h": 2.5,
         "wind_m_s": 7.0,
         "note": "a storm with ordinary wind buries the surface hoar: kept in sheltered terrain, "
         "blown away where the terrain is exposed",
@@ -168,7 +169,7 @@ def demo_events() -> dict:
     """The designed events and their expected answers (what :func:`write_demo_events` writes).
 
     The expectations follow from the design (the event definitions above and common
-    practice), not from a model run: a shallow early pack under three weeks of cold clear
+    practice), not from a model run: a shallow early pack under four weeks of cold clear
     sky facets (depth hoar on shaded aspects); calm clear humid nights grow surface hoar that
     a storm with ordinary wind buries, keeping it in sheltered terrain (common practice); a long light rain below the freezing level onto a pack of
     well over 50 cm, followed by a cold snap, leaves a rain crust below the rain-snow
