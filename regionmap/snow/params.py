@@ -104,7 +104,7 @@ class SnowParams:
     event_min_kg_m2: float = 0.1  #: hourly amount that counts for an event (ours)
     threshold_relative: bool = True  #: Monti et al. 2014 relative thresholds; False: absolute
     depth_hoar_min_cm: float = 2.0  #: depth hoar counts as present from this thickness
-    pwl_min_depth_m: float = 0.18  #: a weak layer of concern lies under a slab this deep (upper end of the critical depth window, Schweizer & Jamieson 2007 [mem])
+    pwl_min_depth_m: float = 0.18  #: a weak layer of concern lies under a slab this deep (lower end of the critical depth window, Schweizer & Jamieson 2007 [mem])
     pwl_min_thickness_m: float = (
         0.005  #: of at least 0.5 cm of persistent grains (buried SH at any thickness; ours)
     )
