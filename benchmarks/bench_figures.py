@@ -1,4 +1,4 @@
-"""Benchmark: all figures and the report for the demo output folder in <= 15 s (issue 6).
+"""Benchmark: all figures and the report for the demo output folder in <= 15 s.
 
 Usage: python benchmarks/bench_figures.py [OUTDIR] [--no-assert]
 Without OUTDIR the demo is run first (``regionmap demo --out <tmp>``); the figure and report

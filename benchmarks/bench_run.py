@@ -1,4 +1,4 @@
-"""Speed of the regional run (issue 5): the demo end to end, and synthetic regions of
+"""Speed of the regional run: the demo end to end, and synthetic regions of
 1 000 / 10 000 / 30 000 cells over a full season, with the dask overhead against one direct
 call of the chunk function.
 

@@ -1,4 +1,4 @@
-"""Speed of the snow column (issue 4): 10 000 cells x ~3600 hourly steps, full physics.
+"""Speed of the snow column: 10 000 cells x ~3600 hourly steps, full physics.
 
 Runs an invented season (``regionmap.snow.synthetic.season_forcing``: storms, cold clear
 spells, rain, freezing rain, a spring thaw) through :func:`regionmap.snow.run_columns` in

@@ -1,6 +1,6 @@
 """Speed of the horizon scan (and fused sky view). Prints figures and asserts the targets.
 
-Targets (issue 2): 2000 x 2000, 16 azimuths, 3 km: <= 1 s; 4000 x 4000, 36 azimuths plus
+Targets: 2000 x 2000, 16 azimuths, 3 km: <= 1 s; 4000 x 4000, 36 azimuths plus
 sky view: <= 6 s and <= 4 GB peak memory, on a 2-core machine.
 Run: python benchmarks/bench_terrain.py [--no-assert]
 

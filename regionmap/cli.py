@@ -572,9 +572,9 @@ def _return_freed_memory_to_the_os() -> None:
     heap above 1 MB (``mallopt``), so arrays of finished chunks go back to the system.
 
     By default glibc raises its map threshold after each large free, and the chunk tasks'
-    many-megabyte arrays then fragment the heaps of the threads, which never shrink: the
-    10 598-cell benchmark peaked at 3.52 GB, and at 2.96 GB with these settings. The price is
-    more page mapping: the demo takes about 1.5 s longer (19.0 -> 20.5 s).
+    many-megabyte arrays then fragment the heaps of the threads, which never shrink; with
+    these settings the largest benchmark's peak memory falls by about a sixth, at the price
+    of more page mapping.
     """
     import ctypes
     import platform

@@ -1,6 +1,6 @@
 """TOML configuration → validated settings.
 
-Keys follow DESIGN §3. Unknown keys are errors that name the closest valid key; wrong types
+Unknown keys are errors that name the closest valid key; wrong types
 and ranges name the key, the file and what was expected; paths are resolved relative to the
 config file.
 """

@@ -3,7 +3,7 @@
 Observations are made from the model's own (uncorrected) station series with known biases:
 a +2 K warm model, a 1.6x precipitation over-forecast, and wind 5x too strong at a sheltered
 plot (a factor of 0.2) but 1/1.3 too weak on an exposed crest. The command must recover them
-within 5 % (issue 7), print them as a [bias] section that the config accepts, and that
+within 5 %, print them as a [bias] section that the config accepts, and that
 section applied to the same stations must remove the bias (verification by construction;
 scores as in Wilks 2011, Sect. 8.3). Demo region and weather are invented.
 """

@@ -2,7 +2,7 @@
 
 Outside reference: none is needed beyond the model itself — the property checked is
 exactness. A column continued from a saved state must equal the uninterrupted run bit for
-bit (issue 4: continuation A -> C equals A -> B -> C), so states read back from the
+bit (continuation A -> C equals A -> B -> C), so states read back from the
 checkpoints must equal states reached by stepping from the season start, and saving them
 must not change the run's own results.
 """

@@ -1,4 +1,4 @@
-"""The demo season's designed answers, found by the whole chain (issue 5 "Checks", DESIGN §6).
+"""The demo season's designed answers, found by the whole chain.
 
 The demo is built and run once per session (figures skipped). Every expectation comes from
 the design, i.e. the events file ``events_expected.json`` written beside the forcing
@@ -148,7 +148,7 @@ def test_rain_crust_upper_limit_is_the_rain_snow_transition(demo, transition):
     lim = lim[lim["event_id"] == event_id].merge(transition, on=["zone", "aspect_sector"])
     assert len(lim) == len(transition)  # every zone x aspect has its limit
     assert lim["upper_bound"].isna().all()  # a real crossing, not "at or above the top"
-    # within 100 m (issue 5); the product states limits rounded to 50 m (rain_crust._ROUND_M),
+    # within 100 m; the product states limits rounded to 50 m (rain_crust._ROUND_M),
     # so the rounding half-step is added to the tolerance
     np.testing.assert_array_less(np.abs(lim["upper_m"] - lim["transition_m"]), 100.0 + 25.0)
     assert np.median(np.abs(lim["upper_m"] - lim["transition_m"])) < 100.0
@@ -280,7 +280,7 @@ def test_surface_hoar_persists_above_the_transition(demo, transition, burial_win
     sel = (table["elevation_m"].to_numpy() > trans + 100.0) & burial_wind[0]
     has = _buried_surface_hoar(demo)
     assert _frac(has[sel], table["area_km2"].to_numpy()[sel]) > MOST
-    # the layer tracker names it by its burial date (DESIGN §3, layers of concern)
+    # the layer tracker names it by its burial date (layers of concern)
     sh = demo["design"]["expected"]["surface_hoar"]
     days = pd.date_range(sh["buried_at"][:10], sh["buried_by"][:10], freq="D").strftime("%Y-%m-%d")
     loc = pd.read_csv(demo["out"] / "layers_of_concern.csv")
@@ -291,7 +291,7 @@ def test_surface_hoar_persists_above_the_transition(demo, transition, burial_win
 
 
 def test_layer_tracker_follows_each_rain_crust_under_its_event_name(demo):
-    """DESIGN §3 (layers of concern): a rain crust is one layer named for its rain event,
+    """Layers of concern: a rain crust is one layer named for its rain event,
     whatever day each cell refroze, and the layer tracker follows the same layer: at the map
     time it finds it in exactly the bands where the layers-of-concern table does."""
     from regionmap.plots.tracker import layer_tracks

@@ -49,7 +49,7 @@ def season(tmp_path_factory):
 def test_cf18_metadata_throughout(season):
     ds = season["ds"]
     assert ds.attrs["Conventions"] == "CF-1.8"
-    # CF-1.8 §7.1: the time coordinate names its bounds; bounds close at the label (DESIGN §3)
+    # CF-1.8 §7.1: the time coordinate names its bounds; bounds close at the label
     assert ds["time"].attrs["bounds"] == "time_bnds"
     np.testing.assert_array_equal(ds["time_bnds"].values[:, 1], ds["time"].values)
     assert np.all(np.diff(ds["time_bnds"].values, axis=1) == np.timedelta64(3600, "s"))

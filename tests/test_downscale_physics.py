@@ -7,7 +7,7 @@ from regionmap.downscale import bias, precip
 
 
 def test_thornton1997_factor_values_and_bounds():
-    # Thornton et al. (1997) as in Liston & Elder (2006), METHODS.md [calc], chi = 0.35 km-1:
+    # Thornton et al. (1997) as in Liston & Elder (2006) [calc], chi = 0.35 km-1:
     # +1 km -> x2.0769, +0.5 km -> x1.4242, -0.5 km -> x0.7021; the default bounds cap 1.5.
     f = precip.precip_factor_thornton1997(
         np.array([1000.0, 500.0, -500.0]), 0.35, bounds=(0.0, 10.0)

@@ -155,7 +155,7 @@ def test_grid_points_read_once_per_span_and_chunk_invariance(monkeypatch):
     monkeypatch.setattr(pipeline, "READ_BUDGET_BYTES", 1)  # spans shrink to one block each
     c = downscale_cells(grid, batch, DownscaleSettings(time_block_h=24, chunk_cells=7))
     assert grid.reads == 5
-    # bit for bit, whatever the chunks and blocks (DESIGN: results do not depend on chunking)
+    # bit for bit, whatever the chunks and blocks (results must not depend on chunking)
     for name in (
         "t_air_k",
         "rh_frac",
@@ -173,7 +173,7 @@ def test_grid_points_read_once_per_span_and_chunk_invariance(monkeypatch):
 
 
 def test_drift_conserves_each_zone_total_to_1e9():
-    # Mass: issue 3 check — the drift factor conserves each zone's precipitation (1e-9 rel).
+    # Mass: the drift factor conserves each zone's precipitation (1e-9 rel).
     grid = make_grid()
     batch = make_batch(grid, zones=3)
     base = downscale_cells(grid, batch, DownscaleSettings())

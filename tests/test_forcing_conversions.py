@@ -53,7 +53,7 @@ def test_specific_humidity_without_pressure_uses_standard_atmosphere_at_model_he
         {"standard_name": "specific_humidity", "units": "kg/kg"},
     )
     gf = open_forcing(write(ds.drop_vars("rh"), tmp_path))
-    # MetPy height_to_pressure_std (ICAO standard atmosphere), within 0.2 hPa (METHODS.md)
+    # MetPy height_to_pressure_std (ICAO standard atmosphere), within 0.2 hPa
     ref = metpy_calc.height_to_pressure_std(ds["orog"].values * mu.m).to("Pa").m
     np.testing.assert_allclose(gf.surface_air_pressure.values[0], ref, atol=20.0)
     t, p = ds["t2m"].values, np.broadcast_to(ref, (48, 6, 7))

@@ -1,8 +1,8 @@
-"""Forcing reader, bad input: one test per rule of issue 3 item 1 (DESIGN §3).
+"""Forcing reader, bad input: one test per rule of the forcing conventions.
 
 Each rule is checked for the error class (regionmap.errors) and that the message names the
 file and the variable. Tolerances (3 h gaps, -0.05 kg m-2) are the project's contract
-(DESIGN §3), not outside values.
+(the forcing conventions), not outside values.
 """
 
 from __future__ import annotations

@@ -7,7 +7,7 @@ docs/profile_csv.md. Expected values and their sources:
   2009, International Classification for Seasonal Snow on the Ground); "1F+" = 3 1/3 is the
   project's one-third convention for the sign (regionmap.snow.hardness);
 * densities from hardness: Geldsetzer & Jamieson (2000) linear fits as recalled in
-  METHODS.md [mem, low confidence]: PP 45+36h, DF 91+35h, RG 91+71h, FC 112+46h, DH 185+25h;
+  recalled [mem, low confidence]: PP 45+36h, DF 91+35h, RG 91+71h, FC 112+46h, DH 185+25h;
 * wetness -> liquid water content at the class midpoints of Fierz et al. (2009) (moist 0-3 %,
   wet 3-8 %) [src];
 * temperatures: linear interpolation between the observed points and 0 degC at the ground,

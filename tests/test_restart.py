@@ -9,7 +9,7 @@ Outside sources of the expected values:
   IHP-VII Tech. Doc. Hydrol. 83); grain-class codes of the same classification, subclasses
   the model does not carry reduced to their main class (FCso -> FC, SHsu -> SH, DFdc -> DF);
 * densities of layers without an observed density: the linear fits of Geldsetzer & Jamieson
-  (2000, Proc. ISSW 2000, 121-127) as recalled in METHODS.md [mem]: PP 45+36h, DF 91+35h,
+  (2000, Proc. ISSW 2000, 121-127) as recalled [mem]: PP 45+36h, DF 91+35h,
   FC 112+46h, DH 185+25h (SH on the FC fit, project choice); MFcr at K: the RG fit at K,
   91+71*5 = 446 kg m-3 (project crust rule);
 * conservation of mass and energy; enthalpy relative to liquid water at 0 degC with
@@ -276,7 +276,7 @@ def test_run_split_at_the_restart_evolves_and_closes_mass():
     np.testing.assert_allclose(
         end.swe_kg_m2() - state0.swe_kg_m2(), fluxes + increment, rtol=1e-9, atol=1e-9
     )
-    # energy bookkeeping of the kernel is not disturbed by the restart (issue 4 tolerance)
+    # energy bookkeeping of the kernel is not disturbed by the restart
     assert np.abs(diags["energy_residual_w_m2"][1:3, k + 1 :]).mean() <= 0.1
     assert merge_restart_records(records)[0]["cell_id"] == [5, 6]
 

@@ -26,7 +26,7 @@ def season():
 
 
 def test_mass_closure_every_step(season):
-    # issue 4: change in SWE = snowfall + rain + deposition - sublimation - runoff, each step,
+    # change in SWE = snowfall + rain + deposition - sublimation - runoff, each step,
     # to 1e-9 relative (conservation of mass; relative to the column's SWE, at least 1 kg m-2)
     _, _, d = season
     scale = np.maximum(d["swe_kg_m2"], 1.0)
@@ -48,7 +48,7 @@ def test_mass_closure_over_the_season(season):
 
 
 def test_energy_closure_over_the_season(season):
-    # issue 4: energy closure per step, mean residual <= 0.1 W m-2 over a season (stated
+    # energy closure per step, mean residual <= 0.1 W m-2 over a season (stated
     # tolerance); the residual is stored heat change minus surface, ground and mass fluxes
     _, _, d = season
     res = d["energy_residual_w_m2"].astype(np.float64)
@@ -137,7 +137,7 @@ def test_storm_snow_settles_10_to_30_percent_in_its_first_day():
     wet=st.floats(0.0, 1.0),
 )
 def test_random_forcing_keeps_state_physical(seed, warm, wind, wet):
-    # properties (issue 4): no negative masses or thicknesses, snow never above 0 degC,
+    # properties: no negative masses or thicknesses, snow never above 0 degC,
     # layer count within bounds, mass closed, under random forcing
     rng = np.random.default_rng(seed)
     nt = 24 * 8

@@ -1,4 +1,4 @@
-"""Scenario tests of the snow column with designed synthetic weather (issue 4, (a)-(e)).
+"""Scenario tests of the snow column with designed synthetic weather.
 
 Each scenario asserts the structure a practitioner expects from the designed weather (common
 practice of snowpack observation, e.g. McClung & Schaerer, The Avalanche Handbook, and the
@@ -169,7 +169,7 @@ def test_surface_hoar_buried_by_storm_persists(surface_hoar_run):
     n = state.layer_count[0]
     sh = np.nonzero(state.grain_code[0, :n] == SH)[0]
     assert sh.size == 1, state.grain_code[0, :n]
-    # burial time within one day of the designed storm (issue 4 timing check)
+    # burial time within one day of the designed storm
     formed = np.datetime64(int(state.formation_time_s2000[0, sh[0]]) + 946684800, "s")
     assert abs(formed - storm_start) <= np.timedelta64(1, "D")
     # right after the storm: a weak layer of concern under the storm snow, its depth within
@@ -295,7 +295,7 @@ def test_freezing_rain_makes_glaze_of_expected_thickness(glaze_run):
     n = state.layer_count[0]
     glaze = np.nonzero(state.crust_code[0, :n] == CRUST_INDEX["glaze"])[0]
     assert glaze.size == 1 and state.grain_code[0, glaze[0]] == IF
-    # METHODS.md [calc]: thickness = water / 917 -> 2 kg m-2 gives 2.18 mm; within 5 %: the
+    # [calc]: thickness = water / 917 -> 2 kg m-2 gives 2.18 mm; within 5 %: the
     # latent heat leaves through the surface balance, and what it cannot shed melts back
     assert state.thickness_m[0, glaze[0]] * 1e3 == pytest.approx(2.18, rel=0.05)
     assert state.thickness_m[0, glaze[0]] == pytest.approx(

@@ -38,7 +38,7 @@ def _assert_same_state(a, b):
 
 
 def test_continuation_a_to_c_equals_a_to_b_to_c(forcing, tmp_path):
-    # issue 4 (f): a run from A to C equals A -> B, saved, restored, then B -> C, bit for bit
+    # a run from A to C equals A -> B, saved, restored, then B -> C, bit for bit
     s0 = SnowState.empty(forcing.n_cells, time=START)
     full, d_full, _ = run_columns(s0, forcing, diag_every_h=24)
     k = 24 * 23 + 7  # B mid-day, in the middle of the weather
@@ -70,7 +70,7 @@ def test_state_dataset_layout_and_size(forcing):
     s0 = SnowState.empty(forcing.n_cells, time=START)
     s, _, snap = run_columns(s0, forcing.subset(steps=slice(0, 24 * 30)))
     ds = s.to_dataset()
-    # DESIGN 3 state.nc names and types
+    # state.nc names and types (docs/outputs.md)
     for name in (
         "thickness_m",
         "ice_kg_m2",
@@ -104,7 +104,7 @@ def test_state_dataset_layout_and_size(forcing):
     assert ds["time"].values == np.datetime64(s.time, "ns")
     prof = snapshots_to_dataset(snap, s.cell_id)
     assert prof.sizes["day"] == 30 and "formation_time" in prof
-    # issue 4 target: state <= 2 KB per cell (we report the figure; 50 layers)
+    # target: state <= 2 KB per cell (we report the figure; 50 layers)
     assert s.nbytes_per_cell() < 3500
 
 

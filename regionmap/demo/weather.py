@@ -1,6 +1,6 @@
 """The demo season's weather: a small, deterministic coarse-grid weather generator.
 
-Everything here is invented (DESIGN §6): an NWP-like season over the demo DEM on a 3 km grid
+Everything here is invented: an NWP-like season over the demo DEM on a 3 km grid
 with smoothed model terrain, hourly from November to April, with designed events whose
 expected answers are written beside the forcing by :func:`write_demo_events`. It is demo and
 test data, not a climate of any real place.

@@ -12,8 +12,7 @@ __all__ = [
 ]
 
 #: Monthly precipitation-elevation coefficients chi, January..December [km-1], Thornton et
-#: al. (1997) as used by Liston & Elder (2006), J. Hydrometeor. 7(2), Table 1 (from memory,
-#: METHODS.md [mem]).
+#: al. (1997) as used by Liston & Elder (2006), J. Hydrometeor. 7(2), Table 1 (from memory [mem]).
 THORNTON1997_CHI_PER_KM = np.array(
     [0.35, 0.35, 0.35, 0.30, 0.25, 0.20, 0.20, 0.20, 0.20, 0.25, 0.30, 0.35]
 )

@@ -3,7 +3,7 @@
 Products that are not CF (WRF output, GRIB, ERA5 NetCDF, forecast cycles) are first brought
 to CF datasets on valid time by :mod:`regionmap.io.forcing_products`.
 
-The conventions are those of DESIGN §3 "Forcing conventions":
+The conventions (docs/forcing.md):
 
 * a time label closes its interval; interval means and sums come from ``time_bnds`` and
   ``cell_methods``; amounts accumulated since a reference time are recognised from bounds
@@ -473,7 +473,7 @@ def _file_times(ds, tname, path):
         if bounds.shape != (t.size, 2) or np.any(bounds[:, 1] != t) or np.any(bounds[:, 0] >= t):
             raise ForcingReadError(
                 f"forcing file {path!r}, variable {bname!r}: time bounds must be (time, 2) with "
-                f"the label as the interval end (DESIGN §3); hint: relabel to interval ends"
+                f"the label as the interval end; hint: relabel to interval ends"
             )
     return {"t": t, "bounds": bounds, "path": path}
 
@@ -505,7 +505,7 @@ def _height_of(var):
 
 
 def _pick(sn, cands, path, want_height, upper):
-    """Choose among variables sharing a standard name (DESIGN §3)."""
+    """Choose among variables sharing a standard name."""
     cands = [c for c in cands if bool(_vertical_dims(c)) == upper]
     if len(cands) <= 1:
         return cands[0] if cands else None

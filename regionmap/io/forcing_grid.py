@@ -156,7 +156,7 @@ def _coord_along(ds, dim):
 
 def grid_from_dataset(ds: xr.Dataset, var: xr.DataArray, path: str) -> ForcingGrid:
     """Recognise the grid of ``var``: 1-D lat/lon, projected x/y with a grid_mapping, or
-    2-D latitude/longitude (DESIGN §3)."""
+    2-D latitude/longitude."""
     ydim, xdim = var.dims[-2:]
     xc, yc = _coord_along(ds, xdim), _coord_along(ds, ydim)
     gm = var.attrs.get("grid_mapping") or var.encoding.get("grid_mapping")

@@ -74,7 +74,7 @@ def _hdf5_locked(method):
 _FILL_I8 = np.int8(-127)
 _FILL_I16 = np.int16(-32767)
 
-#: name → (dtype, attributes) of the per-time diagnostics (DESIGN §3 names).
+#: name → (dtype, attributes) of the per-time diagnostics (see docs/outputs.md).
 DIAGNOSTICS: dict[str, tuple[str, dict]] = {
     "snow_depth_cm": (
         "f4",
@@ -170,7 +170,7 @@ AMOUNTS: dict[str, tuple[str, dict]] = {
 }
 
 _FILLS = {"f4": np.float32(np.nan), "f8": np.float64(np.nan), "i1": _FILL_I8, "i2": _FILL_I16}
-#: cells per HDF5 chunk of cells.nc (DESIGN: ~256 cells x 744 h) and of profiles.nc
+#: cells per HDF5 chunk of cells.nc (~256 cells x 744 h) and of profiles.nc
 CELLS_CHUNK_CELLS = 256
 PROFILES_CHUNK_CELLS = 64
 #: Chunk cache of each variable of a streamed file [bytes].

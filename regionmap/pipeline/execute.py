@@ -52,7 +52,7 @@ from regionmap.snow.state import SnowState, load_state_with_identity
 
 __all__ = ["RunOutcome", "execute", "dask_client", "LAYER_VARS"]
 
-#: profiles.nc layer variables (DESIGN §3 state.nc layer names plus formation_time).
+#: profiles.nc layer variables (the state.nc layer names plus formation_time).
 LAYER_VARS = {
     "thickness_m": ("f4", {"units": "m", "long_name": "layer thickness (vertical)"}),
     "ice_kg_m2": ("f4", {"units": "kg m-2", "long_name": "ice mass of the layer"}),
@@ -311,7 +311,7 @@ def execute(
     report: bool = True,
     use_cache: bool = True,
 ) -> RunOutcome:
-    """Run the chain for ``cfg`` and write every output of DESIGN §3.
+    """Run the chain for ``cfg`` and write every output listed in docs/outputs.md.
 
     Parameters
     ----------

@@ -1,4 +1,4 @@
-"""Read a run's output folder (DESIGN §3 "Outputs") for the figures and the report.
+"""Read a run's output folder (docs/outputs.md) for the figures and the report.
 
 :class:`RunOutputs` opens the files lazily and once: ``run.json``, ``cells.nc``,
 ``profiles.nc``, ``zones.gpkg`` (layers ``zones``, ``cells``, ``rain_crust_line``),
@@ -172,7 +172,7 @@ class RunOutputs:
         p = self.out_dir / name
         if not p.exists():
             raise InputError(
-                f"{p} is missing; expected it in a complete regionmap output folder (DESIGN §3)"
+                f"{p} is missing; expected it in a complete regionmap output folder (docs/outputs.md)"
             )
         return p
 

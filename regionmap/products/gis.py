@@ -1,5 +1,5 @@
 """GIS export: ``zones.gpkg`` (with each layer's default style), GeoJSON of its layers with
-geometry, ``layers_of_concern.csv`` and ``maps/<metric>.tif`` (DESIGN §3 outputs; every
+geometry, ``layers_of_concern.csv`` and ``maps/<metric>.tif`` (docs/outputs.md; every
 file, layer and field is described in ``docs/outputs.md``).
 
 Rasters are Cloud Optimized GeoTIFFs on the DEM's grid and CRS; a pixel's value is its

@@ -1,6 +1,6 @@
 """Cell diagnostics → area-weighted summaries per zone and per zone × band × aspect.
 
-Inputs are the run's two result files, as xarray Datasets shaped as DESIGN §3 says:
+Inputs are the run's two result files, as xarray Datasets shaped as docs/outputs.md describes:
 ``cells.nc`` (dims ``cell``, ``time``; diagnostics, per-interval amounts, ``is_forecast``) and
 ``profiles.nc`` (dims ``cell``, ``day``, ``layer``; daily layer snapshots), plus the cell table
 of :class:`regionmap.cells.CellSet` and per-cell weights.
@@ -201,7 +201,7 @@ def _running_snowfall_blocks(diag: xr.Dataset):
     """Yield ``(lo, hi, cum)``: the running sum (hi - lo, time) of ``snowfall_kg_m2`` over
     the record [kg m-2] (float64) for cells ``lo:hi``, a block of cells at a time."""
     if "snowfall_kg_m2" not in diag.variables:
-        raise InputError("cells.nc: missing variable 'snowfall_kg_m2' (DESIGN §3 names)")
+        raise InputError("cells.nc: missing variable 'snowfall_kg_m2' (see docs/outputs.md)")
     var = diag["snowfall_kg_m2"].transpose("cell", "time")
     n_cell = diag.sizes["cell"]
     for lo in range(0, n_cell, _CELL_BLOCK):
@@ -409,7 +409,7 @@ def decode_snapshot(profiles: xr.Dataset, days=None) -> LayerSnapshot:
     missing = [v for v in need if v not in profiles.variables]
     if missing:
         raise InputError(
-            f"profiles.nc: missing variables {missing}; expected the layer snapshot fields of DESIGN §3"
+            f"profiles.nc: missing variables {missing}; expected the layer snapshot fields of docs/outputs.md"
         )
     ds = profiles if days is None else profiles.isel(day=np.atleast_1d(days))
     ds = ds.transpose("cell", "day", "layer", ...)
@@ -592,7 +592,7 @@ def _cell_values_block(diag, profiles, table, t_all, want, win, *, layers) -> pd
 
     def at(name: str, p=pos) -> np.ndarray:
         if name not in diag.variables:
-            raise InputError(f"cells.nc: missing variable {name!r} (DESIGN §3 names)")
+            raise InputError(f"cells.nc: missing variable {name!r} (see docs/outputs.md)")
         return diag[name].isel(time=p).transpose("cell", ...).values.astype(np.float64)
 
     values: dict[str, np.ndarray] = {

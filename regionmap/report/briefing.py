@@ -85,7 +85,7 @@ MIN_PRESENCE_FRAC = 0.1
 MAX_TRACKED_LAYERS = 2
 #: rows of the layers-of-concern table per zone: weak layers, crusts (the most widespread).
 TABLE_WEAK_LAYERS, TABLE_CRUSTS = 5, 3
-#: size limit of report.html [bytes] (DESIGN §3).
+#: size limit of report.html [bytes].
 REPORT_MAX_BYTES = 10 * 2**20
 #: embedded images stop at this many bytes; later figures (regions of many zones) are listed
 #: by file name only, so the report stays under REPORT_MAX_BYTES with its tables.

@@ -188,7 +188,7 @@ def run_columns(
         The state at the end of the period.
     diagnostics : dict
         ``time`` (out_time,) datetime64[s] interval ends; per-cell (cell, out_time) arrays
-        named as in cells.nc (DESIGN 3) plus extras (see :data:`DIAGNOSTICS_64`,
+        named as in cells.nc plus extras (see :data:`DIAGNOSTICS_64`,
         :data:`DIAGNOSTICS_32`; interval sums: snowfall, rain, runoff, sublimation,
         deposition, mass residual; energy residual is an interval mean). New snow 24/72 h
         is the fresh depth (mass / new-snow density) and mass fallen in the last 24/72 hours;
@@ -344,7 +344,7 @@ def run_columns(
 
 
 def snapshots_to_dataset(snapshots: dict, cell_id: np.ndarray) -> xr.Dataset:
-    """profiles.nc content from :func:`run_columns` snapshots (codes as strings, DESIGN 3)."""
+    """profiles.nc content from :func:`run_columns` snapshots (codes as strings)."""
     dims = ("cell", "day", "layer")
     used = (
         np.arange(snapshots["thickness_m"].shape[2])[None, None, :]

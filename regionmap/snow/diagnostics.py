@@ -55,7 +55,7 @@ N_SCRATCH_ROWS = N_CRITERIA + 2
 
 @njit(cache=True, nogil=True, error_model="numpy")
 def wetness_class_fierz2009(liquid_volume_frac):
-    """Liquid-water-content class (Fierz et al. 2009, Table 3.3 [src in METHODS.md]).
+    """Liquid-water-content class (Fierz et al. 2009, Table 3.3 [src]).
 
     0 dry (0), 1 moist (0-3 %), 2 wet (3-8 %), 3 very wet (8-15 %), 4 soaked (> 15 %) by volume.
     """

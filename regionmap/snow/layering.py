@@ -5,7 +5,7 @@ rows, ``I_*``), shaped (row, layer), bottom layer first. Merging keeps mass exac
 liquid add), keeps enthalpy (temperature by heat-capacity weighting of two layers in the same
 phase state) and takes mass-weighted microstructure. Thin similar neighbours merge; crusts,
 surface hoar, depth hoar, ice and clearly different layers (class, size, density, age) never
-merge away. Rules are ours, after the layering principle of issue 4 / DESIGN 4.
+merge away. Rules are ours.
 """
 
 from __future__ import annotations

@@ -32,8 +32,8 @@ class SnowParams:
     """
 
     # layering
-    max_layers: int = 50  #: layers per cell (issue 4: ~50)
-    new_layer_max_m: float = 0.02  #: new snow starts layers of at most 2 cm (issue 4: 1-2 cm)
+    max_layers: int = 50  #: layers per cell (about 50 hold a season's distinct layers; ours)
+    new_layer_max_m: float = 0.02  #: new snow starts layers of at most 2 cm (ours)
     merge_depth_frac: float = 0.1  #: merged layers may be up to this share of their depth (ours)
     snow_event_gap_h: float = 6.0  #: dry hours that end a deposition event (ours)
     # new snow

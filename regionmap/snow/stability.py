@@ -90,7 +90,7 @@ __all__ = [
     "worst_interface_reference",
 ]
 
-#: Thresholds of Schweizer & Jamieson (2007) / McCammon & Schweizer (2002) [mem, METHODS.md].
+#: Thresholds of Schweizer & Jamieson (2007) / McCammon & Schweizer (2002) [mem].
 WEAK_GRAIN_SIZE_MIN_MM: float = 1.25
 WEAK_HARDNESS_MAX: float = 1.3
 GRAIN_SIZE_DIFF_MIN_MM: float = 0.75

@@ -1,4 +1,4 @@
-"""State of a batch of snow columns, and its ``state.nc`` form (DESIGN 3).
+"""State of a batch of snow columns, and its ``state.nc`` form.
 
 In memory, layer arrays are (cell, layer) bottom first, with the precision the kernel keeps
 (float64 ice and liquid mass; float32 thickness, temperature, grain size and microstructure;

@@ -2,7 +2,7 @@
 
 SOURCE: Fierz, C. et al. (2009). The International Classification for Seasonal Snow on the
 Ground. IHP-VII Technical Documents in Hydrology No. 83, UNESCO-IHP, Paris -- hand-hardness
-index table (F 1, 4F 2, 1F 3, P 4, K 5, I 6) [src, METHODS.md]; intermediate steps written
+index table (F 1, 4F 2, 1F 3, P 4, K 5, I 6) [src]; intermediate steps written
 "4F-1F" between adjacent terms. The one-third step of the "+"/"-" modifiers is our own
 documented convention (the classification gives the signs no number).
 """

@@ -3,7 +3,7 @@
 SOURCE: Geldsetzer, T. and Jamieson, J. B. (2000). Estimating dry snow density from grain
 form and hand hardness. Proc. International Snow Science Workshop 2000, Big Sky, Montana,
 121-127: linear fits density = A + B * h. The coefficients checked here are the ones
-RECALLED in METHODS.md -- [mem, LOW CONFIDENCE: not re-verified against the paper]:
+RECALLED -- [mem, LOW CONFIDENCE: not re-verified against the paper]:
 PP 45+36h, DF 91+35h, RG 91+71h, FC 112+46h, DH 185+25h. A failure here means the code
 departs from those recalled numbers, not that the paper was checked.
 Hardness index scale: Fierz et al. (2009), IHP-VII Tech. Doc. Hydrol. 83 (F 1 ... I 6) [src].
@@ -25,7 +25,7 @@ from regionmap.snow.hardness import (
     parse_hand_hardness,
 )
 
-# [mem, low confidence] Geldsetzer & Jamieson (2000) as recalled in METHODS.md.
+# [mem, low confidence] Geldsetzer & Jamieson (2000) as recalled.
 RECALLED_FITS = {
     "PP": (45.0, 36.0),
     "DF": (91.0, 35.0),

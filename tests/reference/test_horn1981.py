@@ -1,7 +1,7 @@
 """Horn (1981) slope and aspect: worked examples and GDAL's gdaldem as the oracle.
 
 Sources: Horn, B. K. P. (1981), Proc. IEEE 69(1), 14-47, doi:10.1109/PROC.1981.11918;
-worked 3 x 3 examples as listed in METHODS.md (GIS handbook examples that gdaldem
+worked 3 x 3 examples (GIS handbook examples that gdaldem
 reproduces); GDAL `gdaldem slope|aspect -alg Horn -compute_edges` run on matplotlib's
 sample DEMs (open data shipped in the matplotlib package).
 """
@@ -30,7 +30,7 @@ def _need_gdaldem():
 
 
 def test_horn_worked_example_steep_window_horn1981():
-    # METHODS.md worked example: window 50 45 50 / 30 30 30 / 8 10 10 at 5 m
+    # Worked example: window 50 45 50 / 30 30 30 / 8 10 10 at 5 m
     # -> slope 75.26 deg, aspect 180.75 deg (values printed to 2 decimals).
     z = np.array([[50, 45, 50], [30, 30, 30], [8, 10, 10]], dtype=float)
     slope, aspect = slope_aspect_horn1981(z, 5.0, 5.0)
@@ -39,7 +39,7 @@ def test_horn_worked_example_steep_window_horn1981():
 
 
 def test_horn_worked_example_east_facing_window_horn1981():
-    # METHODS.md worked example: window 101 92 85 / 101 92 85 / 101 91 84 -> aspect 92.64 deg.
+    # Worked example: window 101 92 85 / 101 92 85 / 101 91 84 -> aspect 92.64 deg.
     z = np.array([[101, 92, 85], [101, 92, 85], [101, 91, 84]], dtype=float)
     _, aspect = slope_aspect_horn1981(z, 5.0, 5.0)
     assert aspect[1, 1] == pytest.approx(92.64, abs=0.005)

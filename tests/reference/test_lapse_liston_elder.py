@@ -7,7 +7,7 @@ from regionmap.downscale import lapse
 
 
 def test_liston_elder2006_january_worked_case():
-    # METHODS.md [calc] from Liston & Elder (2006), J. Hydrometeor. 7(2), Table 1 / Eq. 6
+    # [calc] from Liston & Elder (2006), J. Hydrometeor. 7(2), Table 1 / Eq. 6
     # (Kunkel 1989 coefficients): January, 0 degC, 80 % RH, +1 km -> -4.40 degC, RH 72.0 %.
     t_lapse, vp = lapse.monthly_lapse_rates_kunkel1989(1, 45.0)
     t1 = lapse.adjust_temperature_lapse(273.15, 1000.0, t_lapse)

@@ -7,7 +7,7 @@ from regionmap.downscale import lapse, longwave, thermo
 
 
 def test_clear_sky_emissivities_formula_values():
-    # METHODS.md [calc]: e = 10 hPa, T = 283.15 K -> Brutsaert (1975) 0.7691, Prata (1996) 0.7777
+    # [calc]: e = 10 hPa, T = 283.15 K -> Brutsaert (1975) 0.7691, Prata (1996) 0.7777
     assert longwave.emissivity_clear_sky_brutsaert1975(1000.0, 283.15) == pytest.approx(
         0.7691, abs=1e-4
     )

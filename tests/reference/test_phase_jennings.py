@@ -8,7 +8,7 @@ from regionmap.downscale import phase
 
 
 def test_jennings2018_fifty_percent_thresholds():
-    # Jennings et al. (2018), Nature Comm. 9:1148, Table 2 (METHODS.md [calc]): 50 % snow at
+    # Jennings et al. (2018), Nature Comm. 9:1148, Table 2 [calc]: 50 % snow at
     # 0.738 degC with 100 % RH and 3.929 degC with 50 % RH; p(0 degC, 100 %) = 0.7389.
     for rh, expected in [(1.0, 0.738), (0.5, 3.929)]:
         t50 = brentq(

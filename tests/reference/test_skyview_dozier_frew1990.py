@@ -2,7 +2,7 @@
 maximum upwind slope sign convention (Winstral et al. 2002).
 
 Sources: Dozier, J., & Frew, J. (1990), IEEE TGRS 28(5), 963-969, doi:10.1109/36.58986,
-Eq. 7b; the analytic cases are [calc] in METHODS.md (derived from that equation):
+Eq. 7b; the analytic cases are [calc] (derived from that equation):
 uniform horizon e on flat ground -> cos^2 e; open slope S -> (1 + cos S)/2; floor of a
 V-valley with wall slope a -> cos a. Winstral, Elder & Davis (2002), J. Hydrometeor.
 3(5), 524-538, Eq. 1: positive Sx = sheltered, negative = exposed.
@@ -27,7 +27,7 @@ AZ72 = np.arange(72) * 5.0
 
 
 def test_uniform_horizon_flat_ground_cos2e_dozier_frew1990():
-    # [calc] METHODS.md: e = 20 deg -> cos^2(20 deg) = 0.88302
+    # [calc]: e = 20 deg -> cos^2(20 deg) = 0.88302
     v = sky_view_dozier_frew1990(np.full(72, 20.0), AZ72, 0.0, np.nan)
     assert v == pytest.approx(0.88302, abs=1e-3)
     assert v == pytest.approx(math.cos(math.radians(20.0)) ** 2, abs=1e-3)
@@ -99,7 +99,7 @@ def test_horizon_toward_synthetic_ridge_with_earth_curvature(azimuth):
     # distance dc east of the observer on flat ground. Along azimuth phi the crest is
     # dc/sin(phi) away; the near face rises more slowly than the line of sight, so the
     # horizon is the crest: atan((H - d^2/2R)/d), d = dc/sin(phi) (Dozier & Frew 1990, the
-    # d^2/2R drop as in METHODS.md).
+    # d^2/2R drop of Dozier & Frew).
     d_px = 100.0
     ny, nx = 400, 400
     crest_col = 300

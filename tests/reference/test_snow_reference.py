@@ -1,6 +1,6 @@
 """Snow-column process functions against published values (source beside each check).
 
-Tags as in METHODS.md: [src] confirmed against the source or a standard table, [mem] recalled
+Tags: [src] confirmed against the source or a standard table, [mem] recalled
 from the source and not re-verified, [calc] computed from the formula as written (checks the
 code against the formula), "common practice" for rules of thumb.
 """
@@ -39,7 +39,7 @@ from regionmap.snow.water import layer_enthalpy, resolve_phase
 
 @pytest.mark.parametrize("t_c, rho", [(0.0, 119.2), (-5.0, 75.4), (-10.0, 69.0)])
 def test_new_snow_density_hedstrom1998(t_c, rho):
-    # Hedstrom & Pomeroy (1998), Hydrol. Process. 12, Eq. 3; values in METHODS.md [mem]
+    # Hedstrom & Pomeroy (1998), Hydrol. Process. 12, Eq. 3; values [mem]
     assert new_snow_density_hedstrom1998(T_MELT_K + t_c) == pytest.approx(rho, abs=0.05)
 
 
@@ -70,7 +70,7 @@ def test_conductivity_calonne2011_sturm1997(rho, k_calonne, k_sturm):
 def test_conduction_carslaw_jaeger1959_erfc(hours_, expected_c):
     # Carslaw & Jaeger (1959), Conduction of Heat in Solids, Sec. 2.4: surface step T0 -> Ts in
     # a half space, T = Ts + (T0 - Ts) erf(z / (2 sqrt(kappa t))); rho 250, k 0.1495, c 2100;
-    # METHODS.md values [calc]; the model's backward-Euler step within 0.3 K (issue 4)
+    # analytic values [calc]; the model's backward-Euler step within 0.3 K
     rho, c, dz, n = 250.0, 2100.0, 0.005, 400  # 2 m of 5 mm layers: deep enough to be a half space
     k = conductivity_calonne2011(rho)
     t = np.full(n, -5.0 + T_MELT_K)
@@ -104,12 +104,12 @@ def test_conduction_carslaw_jaeger1959_erfc(hours_, expected_c):
     for z, expect in zip((0.05, 0.10, 0.20), expected_c):
         model = np.interp(z, depth_centre[::-1], t[::-1]) - T_MELT_K
         exact = -20.0 + 15.0 * erf(z / (2 * math.sqrt(kappa * hours_ * 3600)))
-        assert exact == pytest.approx(expect, abs=0.01)  # the METHODS.md values themselves
+        assert exact == pytest.approx(expect, abs=0.01)  # the analytic values themselves
         assert model == pytest.approx(expect, abs=0.3)
 
 
 def test_refreeze_case_of_issue4():
-    # issue 4 check value: 1 kg m-2 of water into 20 kg m-2 of ice at -10 degC ends at -1.96 degC
+    # check value [calc]: 1 kg m-2 of water into 20 kg m-2 of ice at -10 degC ends at -1.96 degC
     # (energy balance with c_ice 2100, L_f 3.334e5 [calc])
     h = layer_enthalpy(20.0, 1.0, T_MELT_K)  # water at 0 degC ...
     h += C_ICE_J_KG_K * 20.0 * -10.0  # ... meets ice at -10 degC
@@ -119,7 +119,7 @@ def test_refreeze_case_of_issue4():
 
 
 def test_melting_1kg_takes_333_4_kj():
-    # latent heat of fusion 333.4 kJ/kg (METHODS.md constants; standard tables)
+    # latent heat of fusion 333.4 kJ/kg (standard tables)
     h0 = layer_enthalpy(1.0, 0.0, T_MELT_K)
     ice, liq, t, extra = resolve_phase(1.0, h0 + 333.4e3)
     assert liq == pytest.approx(1.0, abs=1e-12) and ice == pytest.approx(0.0, abs=1e-12)
@@ -129,7 +129,7 @@ def test_melting_1kg_takes_333_4_kj():
 
 
 def test_glaze_thickness_is_water_over_ice_density():
-    # METHODS.md [calc]: 2 mm water equivalent of freezing rain -> 2.18 mm of ice (917 kg m-3)
+    # [calc]: 2 mm water equivalent of freezing rain -> 2.18 mm of ice (917 kg m-3)
     assert glaze_thickness_m(2.0) * 1e3 == pytest.approx(2.18, abs=0.005)
 
 
@@ -141,12 +141,12 @@ def test_wetness_classes_fierz2009(lwc, cls):
 
 
 def test_neutral_exchange_coefficient_2m():
-    # METHODS.md [calc]: C_HN(2 m, z0 = z0h = 1 mm) = k^2 / ln(2000)^2 = 2.77e-3 with k = 0.40
+    # [calc]: C_HN(2 m, z0 = z0h = 1 mm) = k^2 / ln(2000)^2 = 2.77e-3 with k = 0.40
     assert neutral_exchange_coefficient(2.0, 2.0, 1e-3, 1e-3) == pytest.approx(2.77e-3, abs=5e-6)
 
 
 def test_louis1979_stable_factor():
-    # Louis (1979), BLM 17: stable F_h = 1 / (1 + 15 Ri sqrt(1 + 5 Ri)) (METHODS.md [mem])
+    # Louis (1979), BLM 17: stable F_h = 1 / (1 + 15 Ri sqrt(1 + 5 Ri)) [mem]
     ri = 0.2
     assert stability_factor_louis1979(ri, 2.77e-3, 2.0, 1e-3) == pytest.approx(
         1.0 / (1.0 + 15 * ri * math.sqrt(1 + 5 * ri)), rel=1e-12
@@ -160,7 +160,7 @@ def test_louis1979_stable_factor():
     [(0.0, 6.1121, 6.1115), (-10.0, 2.8645, 2.5989), (-20.0, 1.2550, 1.0325)],
 )
 def test_buck1981_against_murphy_koop2005(t_c, water_hpa, ice_hpa):
-    # Murphy & Koop (2005), QJRMS 131, reference values in METHODS.md; Buck (1981) within 0.15 %
+    # Murphy & Koop (2005), QJRMS 131, reference values; Buck (1981) within 0.15 %
     assert vapour_pressure_water_buck1981(T_MELT_K + t_c) / 100 == pytest.approx(
         water_hpa, rel=1.5e-3
     )
@@ -178,21 +178,21 @@ def test_buck1981_against_metpy():
 
 def test_albedo_douville1995():
     # Douville et al. (1995), Clim. Dyn. 12: dry -0.008 per day, wet e-folding 0.24 per day
-    # towards 0.5, refresh with snowfall (METHODS.md [mem]); ten daily steps
+    # towards 0.5, refresh with snowfall [mem]; ten daily steps
     a_dry = a_wet = 0.85
     for _ in range(10):
         a_dry = albedo_douville1995(a_dry, False, 0.0, 86400.0, 0.5, 0.85, 0.008, 0.24, 0.035)
         a_wet = albedo_douville1995(a_wet, True, 0.0, 86400.0, 0.5, 0.85, 0.008, 0.24, 0.035)
     assert a_dry == pytest.approx(0.85 - 0.08, abs=1e-12)
     assert a_wet == pytest.approx(0.35 * math.exp(-2.4) + 0.5, abs=1e-12)
-    # +0.35 per 10 kg m-2 of snowfall, max 0.85 (same source, METHODS.md)
+    # +0.35 per 10 kg m-2 of snowfall, max 0.85 (same source)
     assert albedo_douville1995(
         0.5, False, 10.0, 3600.0, 0.5, 0.85, 0.008, 0.24, 0.035
     ) == pytest.approx(0.85, abs=1e-3)
 
 
 def test_anderson1976_compaction_terms():
-    # Jordan (1991) CRREL SR 91-16 Eqs. 34-36 (Anderson 1976) as in METHODS.md [mem]
+    # Jordan (1991) CRREL SR 91-16 Eqs. 34-36 (Anderson 1976) [mem]
     eta = viscosity_anderson1976(100.0, T_MELT_K - 5.0, 3.6e6, 0.08, 0.021)
     assert eta == pytest.approx(3.6e6 * math.exp(0.4) * math.exp(2.1), rel=1e-12)
     rate = destructive_settling_rate_anderson1976(70.0, T_MELT_K - 5.0, False, 2.778e-6, 100.0)

@@ -73,7 +73,7 @@ def test_kernel_horizontal_geometry_equals_numpy_reference():
 
 
 def test_deep_north_cirque_gets_no_beam_at_december_noon():
-    # Shading check (issue 3): horizon 40 deg over the southern sky; at 46.5 N on 21 December
+    # Shading check: horizon 40 deg over the southern sky; at 46.5 N on 21 December
     # the noon sun stands ~20 deg high (90 - 46.5 - 23.44), so no pixel is in sun.
     # The cirque floor slopes gently (10 deg) to the north, so the sun would reach it
     # (cos i > 0) were it not for the horizon.

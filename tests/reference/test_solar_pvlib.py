@@ -45,7 +45,7 @@ def test_spa_paper_example_reda_andreas2004():
     zen, az = solar.solar_position_noaa(
         t.tz_convert("UTC").tz_localize(None).to_numpy(), 39.742476, -105.1786
     )
-    # NOAA / Spencer (1971) accuracy ~0.3 deg against SPA (METHODS.md), geometric zenith
+    # NOAA / Spencer (1971) accuracy ~0.3 deg against SPA, geometric zenith
     assert zen[0] == pytest.approx(ref["zenith"].iloc[0], abs=0.3)
     assert az[0] == pytest.approx(194.34024, abs=0.3)
 
@@ -68,7 +68,7 @@ def test_extraterrestrial_spencer1971_vs_pvlib_same_solar_constant():
 
 def test_erbs1982_diffuse_fraction_values():
     # Erbs, Klein & Duffie (1982), Solar Energy 28(4), Eq. 1 — values computed from the
-    # formula (METHODS.md [calc]): kd(0.3) = 0.94860, kd(0.5) = 0.65915, kd(0.7) = 0.24398.
+    # formula [calc]: kd(0.3) = 0.94860, kd(0.5) = 0.65915, kd(0.7) = 0.24398.
     np.testing.assert_allclose(
         solar.diffuse_fraction_erbs1982([0.3, 0.5, 0.7]), [0.94860, 0.65915, 0.24398], atol=5e-6
     )

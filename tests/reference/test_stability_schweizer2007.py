@@ -2,7 +2,7 @@
 
 SOURCES: McCammon, I. and Schweizer, J. (2002), Proc. ISSW 2002; Schweizer, J. and
 Jamieson, J. B. (2007), Cold Reg. Sci. Technol. 47, 50-59, doi:10.1016/j.coldregions.
-2006.08.011 -- six criteria as listed in METHODS.md [mem]: persistent grain type of the weak
+2006.08.011 -- six criteria as recalled [mem]: persistent grain type of the weak
 layer; weak-layer grain size >= 1.25 mm; weak-layer hardness <= 1.3; grain-size difference
 >= 0.75 mm; hardness difference >= 1.7; interface depth 18-94 cm. Hardness index: Fierz et
 al. (2009), F = 1 ... I = 6 [src]. Inclusive window ends are our reading.
@@ -76,7 +76,7 @@ def test_each_criterion_alone_drops_one(lower, upper, slab_m, failing):
 )
 def test_thresholds_inclusive(lower, upper, slab_m):
     count, _ = two_layers(lower, upper, slab_m=slab_m)
-    assert count == 6  # ">=" and "<=" as the criteria are stated (METHODS.md) [mem]
+    assert count == 6  # ">=" and "<=" as the criteria are stated [mem]
 
 
 def test_hardness_thresholds_inclusive():

@@ -13,7 +13,7 @@ warnings.filterwarnings("ignore", module="metpy")
 
 
 def test_saturation_vapour_pressure_buck1981_table_values():
-    # Buck (1981), J. Appl. Meteorol. 20 — METHODS.md [src]: water 6.1121/2.8648/1.2538 hPa,
+    # Buck (1981), J. Appl. Meteorol. 20 [src]: water 6.1121/2.8648/1.2538 hPa,
     # ice 6.1115/2.5987/1.0327 hPa at 0/-10/-20 degC.
     t = np.array([273.15, 263.15, 253.15])
     np.testing.assert_allclose(
@@ -63,8 +63,8 @@ def test_relative_humidity_from_specific_humidity_vs_metpy():
     "t_c, rh, p_hpa, expected", [(20, 0.5, 1013.25, 13.665), (20, 0.5, 800, 13.100)]
 )
 def test_wet_bulb_normand_metpy_values(t_c, rh, p_hpa, expected):
-    # METHODS.md: metpy.calc.wet_bulb_temperature, 20 degC / 50 % -> 13.665 degC at
-    # 1013.25 hPa and 13.100 degC at 800 hPa; issue 3 tolerance 0.05 K.
+    # metpy.calc.wet_bulb_temperature, 20 degC / 50 % -> 13.665 degC at
+    # 1013.25 hPa and 13.100 degC at 800 hPa; tolerance 0.05 K.
     tw = th.wet_bulb_temperature_normand(t_c + 273.15, rh, p_hpa * 100) - 273.15
     assert tw == pytest.approx(expected, abs=0.05)
 
@@ -85,7 +85,7 @@ def test_wet_bulb_normand_vs_metpy_near_freezing():
 
 
 def test_standard_atmosphere_icao_and_metpy():
-    # ICAO Doc 7488 / ISO 2533: 898.75, 794.95, 701.09 hPa at 1, 2, 3 km (METHODS.md);
+    # ICAO Doc 7488 / ISO 2533: 898.75, 794.95, 701.09 hPa at 1, 2, 3 km;
     # oracle metpy.calc.height_to_pressure_std within 0.2 hPa.
     z = np.array([1000.0, 2000.0, 3000.0])
     p = th.pressure_standard_atmosphere_icao(z) / 100
