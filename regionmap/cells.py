@@ -30,28 +30,13 @@ __all__ = [
 #: The columns of the cell table that identify a cell across runs and zone files.
 IDENTITY_COLUMNS = ("zone", "band_lower_m", "band_upper_m", "aspect_sector", "slope_class")
 
-_SECTORS = {
-    4: ["N", "E", "S", "W"],
-    8: ["N", "NE", "E", "SE", "S", "SW", "W", "NW"],
-    16: [
-        "N",
-        "NNE",
-        "NE",
-        "ENE",
-        "E",
-        "ESE",
-        "SE",
-        "SSE",
-        "S",
-        "SSW",
-        "SW",
-        "WSW",
-        "W",
-        "WNW",
-        "NW",
-        "NNW",
-    ],
-}
+#: The 16 compass sectors clockwise from north; 8 and 4 sectors take every second and fourth.
+COMPASS_16: tuple[str, ...] = (
+    "N", "NNE", "NE", "ENE", "E", "ESE", "SE", "SSE",
+    "S", "SSW", "SW", "WSW", "W", "WNW", "NW", "NNW",
+)  # fmt: skip
+
+_SECTORS = {n: list(COMPASS_16[:: 16 // n]) for n in (4, 8, 16)}
 
 
 def sector_names(n: int) -> list[str]:

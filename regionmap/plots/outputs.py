@@ -21,6 +21,7 @@ import numpy as np
 import pandas as pd
 import xarray as xr
 
+from regionmap.cells import COMPASS_16
 from regionmap.errors import InputError
 from regionmap.io.times import utc_datetime64
 from regionmap.products.summaries import band_label, cell_values, summarise
@@ -28,25 +29,7 @@ from regionmap.products.summaries import band_label, cell_values, summarise
 __all__ = ["Metric", "METRICS", "RunOutputs", "SECTOR_ORDER", "metric"]
 
 #: compass sectors in clockwise order from north, then flat.
-SECTOR_ORDER: tuple[str, ...] = (
-    "N",
-    "NNE",
-    "NE",
-    "ENE",
-    "E",
-    "ESE",
-    "SE",
-    "SSE",
-    "S",
-    "SSW",
-    "SW",
-    "WSW",
-    "W",
-    "WNW",
-    "NW",
-    "NNW",
-    "flat",
-)
+SECTOR_ORDER: tuple[str, ...] = (*COMPASS_16, "flat")
 
 
 @dataclass(frozen=True)

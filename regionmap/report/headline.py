@@ -21,6 +21,7 @@ import numpy as np
 import pandas as pd
 from scipy import sparse
 
+from regionmap.cells import COMPASS_16
 from regionmap.io.times import local_date_label, local_time_label
 
 __all__ = [
@@ -60,26 +61,6 @@ WET_SNOW_MIN_KG_M2 = 1.0
 #: wet snow "sets in" in a zone when its wet share of terrain first reaches this.
 WET_ONSET_FRAC = 0.1
 
-#: compass sectors clockwise from north (16-sector names; 8 and 4 sectors are subsets).
-_COMPASS = (
-    "N",
-    "NNE",
-    "NE",
-    "ENE",
-    "E",
-    "ESE",
-    "SE",
-    "SSE",
-    "S",
-    "SSW",
-    "SW",
-    "WSW",
-    "W",
-    "WNW",
-    "NW",
-    "NNW",
-)
-
 
 def _round_to(v: float, step: float) -> int:
     return int(step * np.round(v / step))
@@ -109,7 +90,7 @@ def aspect_phrase(sectors, all_sectors) -> str:
     """
     have = set(sectors)
     flat = "flat" in have
-    order = [s for s in _COMPASS if s in set(all_sectors)]
+    order = [s for s in COMPASS_16 if s in set(all_sectors)]
     on = np.array([s in have for s in order])
     parts = []
     if on.all():
@@ -176,7 +157,7 @@ def layer_lines(loc: pd.DataFrame, *, terrain: str = "avalanche terrain") -> pd.
     parts["_major"] = parts["presence_frac"] >= BAND_MIN_PRESENCE_FRAC
     has_major = parts.groupby(key)["_major"].transform("any")
     parts = parts[parts["_major"] | ~has_major]
-    sector_bit = {s: 1 << k for k, s in enumerate([*_COMPASS, "flat"])}
+    sector_bit = {s: 1 << k for k, s in enumerate([*COMPASS_16, "flat"])}
     parts["_bit"] = parts["aspect_sector"].map(sector_bit).fillna(0).astype(np.int64)
     g = parts.groupby(key)
     ext = pd.DataFrame(
@@ -190,7 +171,7 @@ def layer_lines(loc: pd.DataFrame, *, terrain: str = "avalanche terrain") -> pd.
     )
     lines = zone_rows.merge(ext, left_on=key, right_index=True, how="left")
     all_sectors = [s for s in loc["aspect_sector"].unique() if s not in ("all", "flat")]
-    names = [*_COMPASS, "flat"]
+    names = [*COMPASS_16, "flat"]
     phrases = {
         int(b): aspect_phrase([n for k, n in enumerate(names) if int(b) >> k & 1], all_sectors)
         for b in lines["_bits"].fillna(0).unique()
