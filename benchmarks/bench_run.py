@@ -217,7 +217,6 @@ def bench_overhead(args, folder: Path) -> dict:
         register_forcing,
         simulate_chunk,
         snow_params,
-        state_slice,
     )
 
     cfg = load_config(_scenario(folder / "r1000", *SIZES[1000][:2], args.days, SIZES[1000][2]))
@@ -230,18 +229,18 @@ def bench_overhead(args, folder: Path) -> dict:
     chunks = chunk_ranges(batch.n_cells, 250)
     ctx = RunContext(cfg, batch, ds, params, period, 1, 12, kernel_threads=1)
     register_forcing(ctx, gf)
-    simulate_chunk(ctx, 0, 1, state_slice(state, 0, 1))  # warm
+    simulate_chunk(ctx, 0, 1, state.take(slice(0, 1)))  # warm
     t0 = time.perf_counter()
     from concurrent.futures import ThreadPoolExecutor
 
     with ThreadPoolExecutor(2) as pool:
-        list(pool.map(lambda c: simulate_chunk(ctx, c[0], c[1], state_slice(state, *c)), chunks))
+        list(pool.map(lambda c: simulate_chunk(ctx, c[0], c[1], state.take(slice(*c))), chunks))
     direct = time.perf_counter() - t0
     with dask_client() as client:
         t0 = time.perf_counter()
         ctx_f = client.scatter(ctx, broadcast=True)  # as the runner does: once, not per task
         futures = [
-            client.submit(simulate_chunk, ctx_f, lo, hi, state_slice(state, lo, hi), pure=False)
+            client.submit(simulate_chunk, ctx_f, lo, hi, state.take(slice(lo, hi)), pure=False)
             for lo, hi in chunks
         ]
         client.gather(futures)

@@ -15,7 +15,6 @@ import numpy as np
 
 from regionmap.pipeline.checkpoints import CHECKPOINT_EVERY_H, Checkpoints, checkpoint_times
 from regionmap.pipeline.restart import run_columns_with_restarts
-from regionmap.pipeline.run import state_slice, state_take
 from regionmap.snow.column import run_columns
 from regionmap.snow.params import SnowParams
 from regionmap.snow.state import SnowState
@@ -60,19 +59,17 @@ def test_saved_states_equal_states_stepped_from_the_start(tmp_path):
     for lo, hi in ((0, 2), (2, 5)):  # two chunks, as the runner's tasks save them
         kept = dict.fromkeys(times)
         end, diag, _, _ = run_columns_with_restarts(
-            state_slice(s0, lo, hi), forcing.subset(cells=slice(lo, hi)), [], params, 24, kept=kept
+            s0.take(slice(lo, hi)), forcing.subset(cells=slice(lo, hi)), [], params, 24, kept=kept
         )
         ck.save(lo, hi, kept)
         # saving states on the way changes nothing of the run itself
-        _assert_same_state(end, state_slice(plain_end, lo, hi))
+        _assert_same_state(end, plain_end.take(slice(lo, hi)))
         assert np.array_equal(diag["swe_kg_m2"], plain_diag["swe_kg_m2"][lo:hi])
     # the latest state not after day 16: day 14 (the second weekly checkpoint), cells 1 and 3
     day16 = np.datetime64(START, "s") + np.timedelta64(16 * 24 * 3600, "s")
     got = ck.latest(day16, np.array([1, 3]), s0)
     assert got.time == np.datetime64(START, "s") + np.timedelta64(14 * 24 * 3600, "s")
     stepped, _, _ = run_columns(s0, forcing.subset(steps=slice(0, 14 * 24)), params, 24)
-    _assert_same_state(got, state_take(stepped, [1, 3]))
+    _assert_same_state(got, stepped.take([1, 3]))
     # before the first checkpoint, the run's start state
-    _assert_same_state(
-        ck.latest(np.datetime64(START, "s"), np.array([0, 4]), s0), state_take(s0, [0, 4])
-    )
+    _assert_same_state(ck.latest(np.datetime64(START, "s"), np.array([0, 4]), s0), s0.take([0, 4]))

@@ -97,7 +97,10 @@ def _enthalpy(state: SnowState) -> np.ndarray:
         n = state.layer_count[c]
         ice, liq = state.ice_kg_m2[c, :n], state.liquid_kg_m2[c, :n]
         t = state.temperature_k[c, :n].astype(np.float64) - 273.15
-        out[c] = np.sum((C_ICE * ice + C_W * liq) * t - L_F * ice) - L_F * state.surface[c, 2]
+        out[c] = (
+            np.sum((C_ICE * ice + C_W * liq) * t - L_F * ice)
+            - L_F * state.cell_value("surface_hoar_kg_m2")[c]
+        )
     return out
 
 
@@ -202,8 +205,10 @@ def test_restarted_cell_holds_the_profile_layers_from_the_file():
     # crust kind for the melt-freeze crust, surface state reset
     crust = new.crust_code[1, :n]
     assert [c != 0 for c in crust] == [code == "MFcr" for code in codes]
-    assert new.surface[1, 1] == pytest.approx(float(raw[-1]["temperature_degC"]) + 273.15, abs=1e-4)
-    assert new.surface[1, 2] == 0.0 and not new.new_snow_kg_m2[1].any()
+    assert new.cell_value("surface_temperature_k")[1] == pytest.approx(
+        float(raw[-1]["temperature_degC"]) + 273.15, abs=1e-4
+    )
+    assert new.cell_value("surface_hoar_kg_m2")[1] == 0.0 and not new.new_snow_kg_m2[1].any()
     assert record["cell_id"] == [1] and record["layers"] == n
 
 

@@ -199,3 +199,27 @@ def test_load_refuses_impossible_contents(tmp_path, changes, expect):
     with pytest.raises(InputError) as info:
         SnowState.load(path)
     assert expect in str(info.value) and str(path) in str(info.value)
+
+
+def test_take_and_put_round_trip_cells_and_named_cell_values(forcing):
+    # take/put are copies by position; put back into a fresh state the parts rebuild the whole
+    params = SnowParams(max_layers=20)
+    state = SnowState.empty(6, params.max_layers, time=np.datetime64(START, "s"))
+    stepped, _, _ = run_columns(state, forcing, params, 24, threads=1)
+    part = stepped.take([1, 4])
+    assert part.n_cells == 2 and np.array_equal(part.cell_id, stepped.cell_id[[1, 4]])
+    part.thickness_m[:] = 0  # a copy, not a view
+    assert stepped.thickness_m[1].any()
+    whole = SnowState.empty(6, params.max_layers, time=np.datetime64(START, "s"))
+    for lo, hi in ((0, 2), (2, 6)):
+        whole.put(lo, hi, stepped.take(slice(lo, hi)))
+    _assert_same_state(whole, stepped)
+    # named per-cell values address the same numbers as state.nc does
+    ds = stepped.to_dataset()
+    for name in ("albedo", "surface_hoar_kg_m2", "rain_event_id", "layer_count"):
+        assert np.array_equal(stepped.cell_value(name), ds[name].values), name
+    stepped.set_cell_values([0, 2], albedo=0.6, layer_count=0)
+    assert stepped.cell_value("albedo")[[0, 2]].tolist() == [0.6, 0.6]
+    assert stepped.layer_count[[0, 2]].tolist() == [0, 0]
+    with pytest.raises(KeyError, match="not a per-cell state value"):
+        stepped.cell_value("thickness_m")

@@ -78,11 +78,9 @@ class Checkpoints:
         """The control state of the cells at ``positions`` (ascending) at the latest saved
         time not after ``not_after``; ``initial`` (the run's start state, all cells) taken at
         ``positions`` when no saved time is that early."""
-        from regionmap.pipeline.run import state_take
-
         k = int(np.searchsorted(self.times, np.datetime64(not_after, "s"), side="right")) - 1
         if k < 0:
-            return state_take(initial, positions)
+            return initial.take(positions)
         positions = np.asarray(positions, dtype=np.int64)
         parts: dict[str, list] = {name: [] for name in _ARRAYS}
         for path in sorted(Path(self.folder).glob("chunk-*.npz")):

@@ -44,8 +44,6 @@ from regionmap.pipeline.run import (
     register_forcing,
     simulate_chunk,
     snow_params,
-    state_put,
-    state_slice,
 )
 from regionmap.snow.codes import CRUST_KINDS, GRAIN_CODES
 from regionmap.snow.state import SnowState, load_state_with_identity
@@ -468,7 +466,7 @@ def execute(
                         ctx_f,
                         lo,
                         hi,
-                        state_slice(state0, lo, hi),
+                        state0.take(slice(lo, hi)),
                         pure=False,
                         key=f"chunk-{lo}-{hi}",
                     )
@@ -498,8 +496,8 @@ def execute(
                         np.arange(lo, hi), snaps["layer_count"], _profile_fields(snaps)
                     )
                     write_seconds += _time.perf_counter() - t_w
-                    state_put(state_an, res["state_analysis"], lo, hi)
-                    state_put(state_end, res["state_end"], lo, hi)
+                    state_an.put(lo, hi, res["state_analysis"])
+                    state_end.put(lo, hi, res["state_end"])
                     events.append(_events_of(res["diagnostics"], lo))
                     for k in forcing_sums:
                         forcing_sums[k] += res["forcing_summary"][k]

@@ -47,17 +47,6 @@ from regionmap.snow.constants import (
     T_MELT_K,
 )
 from regionmap.snow.crusts import FLAG_WAS_WET, FLAG_WET_MELT
-from regionmap.snow.kernel import (
-    J_N,
-    J_SH_START,
-    V_ALBEDO,
-    V_FZ_GAP_H,
-    V_RAIN_GAP_H,
-    V_SH_MASS,
-    V_SNOW_AGE_H,
-    V_SNOW_GAP_H,
-    V_TSURF,
-)
 from regionmap.snow.params import SnowParams
 from regionmap.snow.state import SnowState
 
@@ -350,7 +339,7 @@ def column_enthalpy_j_m2(state: SnowState) -> np.ndarray:
     liq = np.where(active, state.liquid_kg_m2, 0.0)
     dtemp = np.where(active, state.temperature_k.astype(np.float64) - T_MELT_K, 0.0)
     layers = (C_ICE_J_KG_K * ice + C_WATER_J_KG_K * liq) * dtemp - L_FUSION_J_KG * ice
-    return layers.sum(axis=1) - L_FUSION_J_KG * state.surface[:, V_SH_MASS]
+    return layers.sum(axis=1) - L_FUSION_J_KG * state.cell_value("surface_hoar_kg_m2")
 
 
 def _profile_layers(profile: ObservedProfile, params: SnowParams, restart_s2000: int) -> dict:
@@ -460,18 +449,21 @@ def apply_restart(state: SnowState, positions, restart: Restart, params: SnowPar
         arr = getattr(new, name)
         arr[pos, :] = 0
         arr[pos, :n_layer] = column[None, :]
-    new.counters[pos, J_N] = n_layer
-    new.counters[pos, J_SH_START] = 0
     top = str(prof.grain_code[-1])
     top_wet = bool(prof.liquid_frac[-1] > 0.0)
     albedo = _WET_SURFACE_ALBEDO if top_wet else ALBEDO_OF_CLASS[top]
-    new.surface[pos, V_ALBEDO] = min(max(albedo, params.albedo_min), params.albedo_max)
-    new.surface[pos, V_TSURF] = float(np.float32(prof.temperature_k[-1]))
-    new.surface[pos, V_SH_MASS] = 0.0
-    new.surface[pos, V_SNOW_AGE_H] = SNOW_AGE_H_OF_CLASS.get(top, _OLD_SNOW_AGE_H)
-    new.surface[pos, V_SNOW_GAP_H] = _NO_EVENT_GAP_H
-    new.surface[pos, V_RAIN_GAP_H] = _NO_EVENT_GAP_H
-    new.surface[pos, V_FZ_GAP_H] = _NO_EVENT_GAP_H
+    new.set_cell_values(
+        pos,
+        layer_count=n_layer,
+        surface_hoar_start_s2000=0,
+        albedo=min(max(albedo, params.albedo_min), params.albedo_max),
+        surface_temperature_k=float(np.float32(prof.temperature_k[-1])),
+        surface_hoar_kg_m2=0.0,
+        snow_age_h=SNOW_AGE_H_OF_CLASS.get(top, _OLD_SNOW_AGE_H),
+        hours_since_snowfall=_NO_EVENT_GAP_H,
+        hours_since_rain=_NO_EVENT_GAP_H,
+        hours_since_freezing_rain=_NO_EVENT_GAP_H,
+    )
     new.new_snow_kg_m2[pos] = 0.0
     new.new_snow_m[pos] = 0.0
     swe_after = new.swe_kg_m2()[pos]

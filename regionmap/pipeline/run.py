@@ -537,40 +537,6 @@ def align_state(
     return state
 
 
-def state_take(state: SnowState, positions) -> SnowState:
-    """Some cells of a state (a slice or an index array along ``cell``), copied."""
-    from dataclasses import fields
-
-    n = state.n_cells
-    kw = {}
-    for f in fields(state):
-        v = getattr(state, f.name)
-        kw[f.name] = (
-            v[positions].copy()
-            if isinstance(v, np.ndarray) and v.ndim >= 1 and v.shape[0] == n
-            else v
-        )
-    return SnowState(**kw)
-
-
-def state_slice(state: SnowState, lo: int, hi: int) -> SnowState:
-    """Cells ``lo:hi`` of a state."""
-    return state_take(state, slice(lo, hi))
-
-
-def state_put(dst: SnowState, src: SnowState, lo: int, hi: int) -> None:
-    """Write a chunk's state into the region's state at positions ``lo:hi``."""
-    from dataclasses import fields
-
-    n = dst.n_cells
-    for f in fields(dst):
-        v = getattr(dst, f.name)
-        if isinstance(v, np.ndarray) and v.ndim >= 1 and v.shape[0] == n:
-            v[lo:hi] = getattr(src, f.name)
-    dst.time = src.time
-    dst.fingerprint = src.fingerprint
-
-
 def initial_state(batch: CellBatch, params: SnowParams, period: Period) -> SnowState:
     """Snow-free cells valid one hour before the first simulated step."""
     t0 = period.times[period.first] - np.timedelta64(3600, "s")

@@ -125,7 +125,7 @@ def _block_presence(
     """(member, cell) crust presence of the ensemble for some cells (positions) over the
     forcing steps ``start:stop``, and the step their control state was resumed from."""
     from regionmap.downscale.pipeline import downscale_cells
-    from regionmap.pipeline.run import _forcing_for, _perturbed, state_take
+    from regionmap.pipeline.run import _forcing_for, _perturbed
     from regionmap.products.rain_crust import rain_crust_presence
     from regionmap.snow.column import run_columns, snapshots_to_dataset
 
@@ -135,7 +135,7 @@ def _block_presence(
     # the control state at the start of the window, for these cells only: stepped on from
     # the latest state the run saved before it (or from the run's start state)
     if ctx.checkpoints is None:
-        state = state_take(state0, cells)
+        state = state0.take(cells)
     else:
         state = ctx.checkpoints.latest(p.times[start] - np.timedelta64(3600, "s"), cells, state0)
     resume = max(

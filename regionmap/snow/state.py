@@ -93,6 +93,9 @@ _CELL_INT = (
     ("surface_hoar_start_s2000", J_SH_START, "start of surface-hoar growth, s since 2000"),
 )
 
+_CELL_FLOAT_INDEX = {name: k for name, k, *_ in _CELL_FLOAT}
+_CELL_INT_INDEX = {name: k for name, k, *_ in _CELL_INT}
+
 
 @dataclass
 class SnowState:
@@ -195,6 +198,49 @@ class SnowState:
             if isinstance(v, np.ndarray):
                 kw[k] = v.copy()
         return SnowState(**kw)
+
+    def take(self, positions) -> SnowState:
+        """Some cells of the state (a slice or an index array along ``cell``), copied."""
+        n = self.n_cells
+        kw = {}
+        for f in fields(self):
+            v = getattr(self, f.name)
+            kw[f.name] = (
+                v[positions].copy()
+                if isinstance(v, np.ndarray) and v.ndim >= 1 and v.shape[0] == n
+                else v
+            )
+        return SnowState(**kw)
+
+    def put(self, lo: int, hi: int, part: SnowState) -> None:
+        """Write the state of cells ``lo:hi`` (e.g. a chunk's) into this one; the valid time
+        and fingerprint become the part's."""
+        n = self.n_cells
+        for f in fields(self):
+            v = getattr(self, f.name)
+            if isinstance(v, np.ndarray) and v.ndim >= 1 and v.shape[0] == n:
+                v[lo:hi] = getattr(part, f.name)
+        self.time = part.time
+        self.fingerprint = part.fingerprint
+
+    def cell_value(self, name: str) -> np.ndarray:
+        """A per-cell surface or event value by its ``state.nc`` name (a view, (cell,))."""
+        if name == "layer_count":
+            return self.counters[:, J_N]
+        if name in _CELL_FLOAT_INDEX:
+            return self.surface[:, _CELL_FLOAT_INDEX[name]]
+        if name in _CELL_INT_INDEX:
+            return self.counters[:, _CELL_INT_INDEX[name]]
+        raise KeyError(
+            f"{name!r} is not a per-cell state value; expected layer_count or one of "
+            f"{sorted(_CELL_FLOAT_INDEX) + sorted(_CELL_INT_INDEX)}"
+        )
+
+    def set_cell_values(self, positions, **values) -> None:
+        """Set per-cell surface or event values (``state.nc`` names) of the cells at
+        ``positions``."""
+        for name, value in values.items():
+            self.cell_value(name)[positions] = value
 
     def swe_kg_m2(self) -> np.ndarray:
         """Snow water equivalent per cell, surface hoar included [kg m-2]."""
