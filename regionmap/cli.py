@@ -8,14 +8,20 @@ from __future__ import annotations
 
 import argparse
 import contextlib
+import ctypes
 import json
 import logging
+import math
+import platform
 import sys
 import traceback
 import warnings
 from pathlib import Path
 
+import numpy as np
+
 from regionmap import CAUTION, INVENTED_DATA, __version__
+from regionmap.config import RestartEntry, load_config, parse_band
 from regionmap.errors import InputError, RegionmapError, RegionmapWarning
 from regionmap.io.atomic import is_no_space
 from regionmap.io.times import local_time_label
@@ -69,10 +75,6 @@ def print_outcome(outcome) -> None:
 def outcome_summary(outcome) -> dict:
     """A finished run as plain JSON types: where, when, how many cells, the per-zone table,
     the rain-crust sentences, the output files and the caution (``--json``)."""
-    import math
-
-    import numpy as np
-
     zones = outcome.zones
     zones = zones.drop(columns=[zones.geometry.name]) if hasattr(zones, "geometry") else zones
 
@@ -110,7 +112,6 @@ def _finish(outcome, as_json: bool) -> int:
 
 
 def _cmd_run(args: argparse.Namespace) -> int:
-    from regionmap.config import load_config
     from regionmap.pipeline.execute import execute
 
     cfg = load_config(args.config)
@@ -145,8 +146,6 @@ def _restarts_from_args(args: argparse.Namespace, cfg) -> list:
         raise InputError("--restart needs --zone, --band and --aspect (and they need --restart)")
     entries = list(cfg.restart)
     if args.restart is not None:
-        from regionmap.config import RestartEntry, parse_band
-
         parse_band(args.band)
         entries.append(
             RestartEntry(
@@ -160,7 +159,6 @@ def _restarts_from_args(args: argparse.Namespace, cfg) -> list:
 
 
 def _cmd_forcing(args: argparse.Namespace) -> int:
-    from regionmap.config import load_config
     from regionmap.pipeline.execute import write_cell_forcing
 
     cfg = load_config(args.config)
@@ -222,7 +220,6 @@ def _station_args(args: argparse.Namespace, cfg) -> tuple[Path, list[Path]]:
 
 
 def _cmd_verify(args: argparse.Namespace) -> int:
-    from regionmap.config import load_config
     from regionmap.stations.chain import verify_command
 
     cfg = load_config(args.config)
@@ -233,7 +230,6 @@ def _cmd_verify(args: argparse.Namespace) -> int:
 
 
 def _cmd_calibrate(args: argparse.Namespace) -> int:
-    from regionmap.config import load_config
     from regionmap.stations.chain import calibrate_command
 
     cfg = load_config(args.config)
@@ -576,9 +572,6 @@ def _return_freed_memory_to_the_os() -> None:
     these settings the largest benchmark's peak memory falls by about a sixth, at the price
     of more page mapping.
     """
-    import ctypes
-    import platform
-
     if platform.libc_ver()[0] != "glibc":
         return
     m_trim_threshold, m_mmap_threshold = -1, -3  # <malloc.h>

@@ -44,7 +44,7 @@ def demo_cells(demo_dem, demo_terrain, demo_zones):
 def demo_run(tmp_path_factory):
     """The demo scenario run once by the whole chain (report skipped): (config, scenario
     folder, output folder)."""
-    import regionmap.products.write
+    import regionmap.pipeline.ensemble
     from regionmap.config import load_config
     from regionmap.demo.scenario import build_demo_scenario
     from regionmap.pipeline.execute import execute
@@ -52,7 +52,7 @@ def demo_run(tmp_path_factory):
     root = tmp_path_factory.mktemp("demo_run")
     cfg = load_config(build_demo_scenario(root / "scenario"))
     with pytest.MonkeyPatch.context() as mp:  # the rain-crust ensemble in several cell blocks
-        mp.setattr(regionmap.products.write, "_ENSEMBLE_BLOCK_CELLS", 200)
+        mp.setattr(regionmap.pipeline.ensemble, "_ENSEMBLE_BLOCK_CELLS", 200)
         execute(cfg, out_dir=root / "out", report=False, progress=False)
     return cfg, root / "scenario", root / "out"
 

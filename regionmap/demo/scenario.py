@@ -13,9 +13,18 @@ from __future__ import annotations
 
 import os
 import shutil
+import tempfile
 from pathlib import Path
 
 import numpy as np
+
+from regionmap.config import load_config
+from regionmap.demo.relief import demo_relief_m
+from regionmap.demo.weather import demo_variables_mapping, write_demo_events, write_demo_forcing
+from regionmap.io.atomic import atomic_write_text
+from regionmap.io.dem import read_dem
+from regionmap.io.writers import write_geojson, write_geotiff
+from regionmap.pipeline.execute import RunOutcome, execute
 
 __all__ = [
     "DEMO_CRS",
@@ -60,15 +69,11 @@ def demo_elevation_m() -> np.ndarray:
     ``DEMO_RELIEF_SEED``): a main divide running WSW-ENE across the middle, branching valleys
     draining to every side, cirques below the highest summits, slopes up to a talus angle.
     """
-    from regionmap.demo.relief import demo_relief_m
-
     return demo_relief_m(DEMO_RELIEF_SEED, n=_NX, spacing_m=_PIXEL_M)
 
 
 def make_demo_dem(path: str | os.PathLike) -> Path:
     """Write the demo DEM as a GeoTIFF (float32, metres, a fictitious location in EPSG:32630)."""
-    from regionmap.io.writers import write_geotiff
-
     z = demo_elevation_m().astype(np.float32)
     return write_geotiff(
         path,
@@ -111,7 +116,6 @@ def demo_zones():
 
 def make_demo_zones(path: str | os.PathLike) -> Path:
     """Write the demo zones as GeoJSON (EPSG:4326, attribute ``name``)."""
-    from regionmap.io.writers import write_geojson
 
     # an input, not a product: full precision, so the shipped file is reproduced exactly
     return write_geojson(path, demo_zones(), coordinate_decimals=15)
@@ -178,10 +182,6 @@ def build_demo_scenario(folder: str | os.PathLike, *, raw: bool = False) -> Path
     Returns the config path. ``raw=True`` writes the forcing in the raw, non-CF variant with
     the matching ``[forcing] variables`` mapping in the config.
     """
-    from regionmap.demo.weather import demo_variables_mapping, write_demo_events, write_demo_forcing
-    from regionmap.io.atomic import atomic_write_text
-    from regionmap.io.dem import read_dem
-
     folder = Path(folder)
     folder.mkdir(parents=True, exist_ok=True)
     dem_path = folder / "demo_range.tif"
@@ -213,18 +213,12 @@ def build_demo_scenario(folder: str | os.PathLike, *, raw: bool = False) -> Path
     return atomic_write_text(folder / "demo.toml", text)
 
 
-def run_demo(out: str | os.PathLike, progress: bool = True, use_cache: bool = True):
+def run_demo(out: str | os.PathLike, progress: bool = True, use_cache: bool = True) -> RunOutcome:
     """Build the invented demo scenario and run the whole chain on it.
 
     The scenario's inputs are kept in ``<out>/scenario/`` so the run can be repeated with
-    ``regionmap run <out>/scenario/demo.toml``. Returns the run's
-    :class:`regionmap.pipeline.execute.RunOutcome` (the CLI prints it).
+    ``regionmap run <out>/scenario/demo.toml``.
     """
-    import tempfile
-
-    from regionmap.config import load_config
-    from regionmap.pipeline.execute import execute
-
     with tempfile.TemporaryDirectory(prefix="regionmap-demo-") as tmp:
         config_path = build_demo_scenario(Path(tmp) / "scenario")
         cfg = load_config(config_path)

@@ -6,6 +6,8 @@ from collections.abc import Sequence
 
 import numpy as np
 
+from .quantile_mapping import apply_quantile_mapping
+
 __all__ = ["monthly_values", "apply_offset_factor", "apply_quantile_table"]
 
 
@@ -87,6 +89,4 @@ def apply_quantile_table(values: np.ndarray, month_index: np.ndarray, table) -> 
     Delegates to :func:`regionmap.downscale.quantile_mapping.apply_quantile_mapping`
     (Panofsky & Brier 1968; Gudmundsson et al. 2012, HESS 16, 3383-3390).
     """
-    from .quantile_mapping import apply_quantile_mapping
-
     return np.asarray(apply_quantile_mapping(values, month_index, table), dtype=np.float64)

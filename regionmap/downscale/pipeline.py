@@ -13,6 +13,7 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 
 import numpy as np
+import pandas as pd
 import scipy.sparse as sp
 
 from regionmap.errors import InputError
@@ -25,9 +26,10 @@ from . import precip as _precip
 from . import solar as _solar
 from . import thermo as _thermo
 from . import wind as _wind
+from .quantile_mapping import select_qm_table
 from .settings import DownscaleSettings
 from .types import CellForcing
-from .weights import CellWeights
+from .weights import CellWeights, build_cell_weights
 
 __all__ = ["CellBatch", "prepare_cells", "downscale_cells", "downscale_record"]
 
@@ -404,8 +406,6 @@ def _apply_bias(
 ) -> None:
     """Offsets/factors, then quantile mapping, per exposure class of the cells, for the
     variables in ``only`` (default: every variable except those corrected before phase)."""
-    from .quantile_mapping import select_qm_table
-
     keys = only if only is not None else tuple(k for k in _BIAS_TARGET if k not in _BEFORE_PHASE)
     n_cell = next(iter(out.values())).shape[0]
     classes = (
@@ -637,10 +637,6 @@ def prepare_cells(
     GridMismatchError
         The forcing grid does not cover every cell (both extents in the message).
     """
-    import pandas as pd
-
-    from .weights import build_cell_weights
-
     table = cellset.table
     n = len(table)
     directions = getattr(cellset, "sx_directions_deg", None)

@@ -22,6 +22,7 @@ the same.
 
 from __future__ import annotations
 
+import functools
 import itertools
 from contextlib import ExitStack
 from pathlib import Path
@@ -61,7 +62,6 @@ def _hdf5_locked(method):
     is not thread-safe, and chunk tasks read forcing files while the client writes. The locks
     go through xarray's CombinedLock, which takes them in xarray's own global order (taking
     them in another order deadlocks against a concurrent read)."""
-    import functools
 
     @functools.wraps(method)
     def wrapper(*args, **kwargs):

@@ -20,17 +20,22 @@ from importlib import metadata
 from pathlib import Path
 
 import numpy as np
+import pandas as pd
 
 from regionmap import CAUTION, __version__
 from regionmap.cells import region_fingerprints
 from regionmap.config import Config
+from regionmap.downscale.pipeline import downscale_cells, downscale_record
+from regionmap.downscale.types import CellForcing
 from regionmap.errors import InputError, OutputError
 from regionmap.io.atomic import atomic_write_text
-from regionmap.io.outdir import check_inputs_outside
+from regionmap.io.outdir import OutputFolder, check_inputs_outside
 from regionmap.io.results import PROFILES_CHUNK_CELLS, CellsNcWriter, ProfilesNcWriter
 from regionmap.pipeline.cache import file_sha256, preparation_cache
 from regionmap.pipeline.checkpoints import Checkpoints, checkpoint_times
 from regionmap.pipeline.cluster import cluster_errors, dask_client
+from regionmap.pipeline.ensemble import rain_crust_ensemble
+from regionmap.pipeline.restart import merge_restart_records, resolve_restarts
 from regionmap.pipeline.run import (
     RunContext,
     align_state,
@@ -45,8 +50,11 @@ from regionmap.pipeline.run import (
     simulate_chunk,
     snow_params,
 )
+from regionmap.products.write import write_products
 from regionmap.snow.codes import CRUST_KINDS, GRAIN_CODES
+from regionmap.snow.column import run_columns
 from regionmap.snow.state import SnowState, load_state_with_identity
+from regionmap.stations.chain import run_verification_last_day
 
 __all__ = ["RunOutcome", "execute", "dask_client", "LAYER_VARS"]
 
@@ -266,9 +274,6 @@ def _effective_chunk_size(n_cells: int, chunk_size: int, n_parallel: int) -> int
 
 def _warm_kernels(params) -> None:
     """Compile (or load from the numba cache) the column kernel once in the client."""
-    from regionmap.downscale.types import CellForcing
-    from regionmap.snow.column import run_columns
-
     n = 2
     t = np.datetime64("2000-01-01T01:00", "s") + np.arange(n) * np.timedelta64(3600, "s")
     z = np.zeros((1, n))
@@ -328,9 +333,6 @@ def execute(
     """
     from tqdm.auto import tqdm
 
-    from regionmap.io.outdir import OutputFolder
-    from regionmap.products.write import write_products
-
     t_all = _time.perf_counter()
     timings: dict = {}
     target = Path(out_dir or cfg.output.dir)
@@ -367,8 +369,6 @@ def execute(
         state0 = initial_state(batch, params, period)
     resolved = []
     if restarts:
-        from regionmap.pipeline.restart import resolve_restarts
-
         resolved = resolve_restarts(
             restarts,
             cells_frame(region),
@@ -520,15 +520,14 @@ def execute(
         state_an.save(out / "state.nc", cells=table, region=fingerprints)
         state_end.save(out / "state_end.nc", cells=table, region=fingerprints)
         t0 = _time.perf_counter()
+        ensemble = rain_crust_ensemble(out, ctx, state0, table, map_time)
         products = write_products(
             out,
             cfg,
             region,
-            ctx,
             map_time=map_time,
-            state0=state0,
             is_forecast=bool(map_time > period.analysis_end) if period.has_forecast else False,
-            progress=progress,
+            ensemble_members=ensemble.members,
         )
         timings["products"] = _time.perf_counter() - t0
         shutil.rmtree(out / CHECKPOINT_FOLDER, ignore_errors=True)
@@ -537,7 +536,6 @@ def execute(
         timings["task_column_s"] = task_seconds["column"]
         timings["write_s"] = write_seconds
         timings["total"] = _time.perf_counter() - t_all
-        from regionmap.pipeline.restart import merge_restart_records
 
         record = _run_record(
             cfg,
@@ -553,7 +551,7 @@ def execute(
             status_bits,
             continue_from,
             merge_restart_records(restart_records),
-            products.ensemble_cost,
+            ensemble.cost,
             workers=workers,
             scheduler=scheduler,
             chunks=len(chunks),
@@ -568,8 +566,6 @@ def execute(
             shutil.copy2(src, dst)
         atomic_write_text(out / "run.json", json.dumps(record, indent=2, default=str))
         if cfg.stations is not None:
-            from regionmap.stations.chain import run_verification_last_day
-
             run_verification_last_day(cfg, region, out, map_time, grid_forcing=gf)
         if report:
             from regionmap.report.briefing import write_report
@@ -632,8 +628,6 @@ def _events_of(diag: dict, lo: int) -> dict:
 
 
 def _event_frame(events: list[dict], table=None):
-    import pandas as pd
-
     cols = ["kind", "event_id", "cell", "first_time", "last_time", "amount_kg_m2"]
     if not events:
         return pd.DataFrame(columns=cols)
@@ -689,8 +683,6 @@ def _run_record(
     scheduler,
     chunks,
 ) -> dict:
-    from regionmap.downscale.pipeline import downscale_record
-
     inputs = {
         "dem": cfg.region.dem,
         "zones": cfg.region.zones,
@@ -797,9 +789,6 @@ def write_cell_forcing(
     """``regionmap forcing``: the downscaled hourly forcing of every cell as CF NetCDF
     (``forcing.nc``, dims cell × time), written chunk by chunk into an atomic output folder."""
     from tqdm.auto import tqdm
-
-    from regionmap.downscale.pipeline import downscale_cells, downscale_record
-    from regionmap.io.outdir import OutputFolder
 
     check_inputs_outside(out_dir, run_inputs(cfg))
     cache = preparation_cache(cfg)

@@ -34,10 +34,12 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
+from regionmap.config import parse_band
 from regionmap.errors import InputError
 from regionmap.io.profiles import ObservedProfile, read_profile
 from regionmap.io.times import utc_datetime64
 from regionmap.snow.codes import CRUST_INDEX, GRAIN_INDEX
+from regionmap.snow.column import run_columns
 from regionmap.snow.constants import (
     C_ICE_J_KG_K,
     C_WATER_J_KG_K,
@@ -47,6 +49,7 @@ from regionmap.snow.constants import (
     T_MELT_K,
 )
 from regionmap.snow.crusts import FLAG_WAS_WET, FLAG_WET_MELT
+from regionmap.snow.diagnostics import layer_hardness_array
 from regionmap.snow.params import SnowParams
 from regionmap.snow.state import SnowState
 
@@ -167,8 +170,6 @@ def _band_text(lo: float, hi: float) -> str:
 
 
 def _parse_band(text: str, where: str) -> tuple[float, float]:
-    from regionmap.config import parse_band
-
     try:
         return parse_band(text)
     except InputError as exc:
@@ -413,8 +414,6 @@ def apply_restart(state: SnowState, positions, restart: Restart, params: SnowPar
         A state not valid at the restart time, positions outside the state, or a profile
         with more layers than the state has slots.
     """
-    from regionmap.snow.diagnostics import layer_hardness_array
-
     params = SnowParams() if params is None else params
     pos = np.unique(np.asarray(positions, dtype=np.int64).ravel())
     prof = restart.profile
@@ -584,8 +583,6 @@ def run_columns_with_restarts(
         A restart not on a diagnostics boundary of this part (resolve the restarts with the
         run's ``diag_every_h``).
     """
-    from regionmap.snow.column import run_columns
-
     t = np.asarray(forcing.time, dtype="datetime64[s]")
     t_state = np.datetime64(state.time, "s")
     due = [(r, p) for r, p in chunk_restarts if t_state <= r.time < t[-1]]

@@ -19,18 +19,22 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 
+from regionmap.cells import CellSettings, build_cells
 from regionmap.config import Config
 from regionmap.downscale.events import read_region_precipitation_max, region_event_hours
-from regionmap.downscale.phase import snow_fraction
 from regionmap.downscale.pipeline import CellBatch, downscale_cells, prepare_cells
+from regionmap.downscale.quantile_mapping import read_qm_table
 from regionmap.downscale.settings import DownscaleSettings
-from regionmap.downscale.types import CellForcing
 from regionmap.errors import GridMismatchError, InputError
+from regionmap.io.dem import read_dem
+from regionmap.io.forcing import open_forcing
+from regionmap.io.zones import read_zones
 from regionmap.pipeline.cache import PreparationCache
 from regionmap.pipeline.checkpoints import Checkpoints
 from regionmap.pipeline.restart import restarts_in_chunk, run_columns_with_restarts
 from regionmap.snow.params import SnowParams
 from regionmap.snow.state import SnowState
+from regionmap.terrain import TerrainSettings, compute_terrain
 
 __all__ = [
     "Region",
@@ -49,8 +53,6 @@ __all__ = [
 
 # --------------------------------------------------------------------------- settings
 def terrain_settings(cfg: Config):
-    from regionmap.terrain import TerrainSettings
-
     t = cfg.terrain
     return TerrainSettings(
         n_azimuths=t.horizon_azimuths,
@@ -61,8 +63,6 @@ def terrain_settings(cfg: Config):
 
 
 def cell_settings(cfg: Config):
-    from regionmap.cells import CellSettings
-
     c = cfg.cells
     return CellSettings(
         band_edges_m=tuple(c.band_edges_m) if c.band_edges_m is not None else None,
@@ -99,8 +99,6 @@ def _bias_dict(cfg: Config) -> dict:
 
 
 def downscale_settings(cfg: Config) -> DownscaleSettings:
-    from regionmap.downscale.quantile_mapping import read_qm_table
-
     d = cfg.downscale
     tables = read_qm_table(cfg.bias.quantile_mapping) if cfg.bias.quantile_mapping else []
     return DownscaleSettings(
@@ -149,11 +147,6 @@ def prepare_region(
 ) -> Region:
     """Read the DEM and zones, compute terrain and cells, or load them from ``cache``
     (:mod:`regionmap.pipeline.cache`), where a new preparation is stored."""
-    from regionmap.cells import build_cells
-    from regionmap.io.dem import read_dem
-    from regionmap.io.zones import read_zones
-    from regionmap.terrain import compute_terrain
-
     timings = {}
     t_settings, c_settings = terrain_settings(cfg), cell_settings(cfg)
     key = None
@@ -187,8 +180,6 @@ def prepare_region(
 
 def open_grid_forcing(cfg: Config):
     """Open the ``[forcing]`` files lazily."""
-    from regionmap.io.forcing import open_forcing
-
     if cfg.forcing is None:
         raise InputError(
             f"{cfg.source or 'config'}: a [forcing] section with path = ... is required for a run"
@@ -324,7 +315,6 @@ class RunContext:
     diag_every_h : diagnostics interval [h].
     snapshot_hour_utc : hour (UTC) of the daily layer snapshots.
     kernel_threads : threads the column kernel uses inside one task.
-    perturbation : (temperature offset [K], phase-threshold offset [K]) for ensemble members.
     restarts : observed-profile restarts (:func:`regionmap.pipeline.restart.resolve_restarts`).
     checkpoints : where each chunk saves its control states for the ensemble (None: nowhere).
     """
@@ -337,7 +327,6 @@ class RunContext:
     diag_every_h: int
     snapshot_hour_utc: int
     kernel_threads: int = 1
-    perturbation: tuple[float, float] = (0.0, 0.0)
     restarts: list = field(default_factory=list)
     checkpoints: Checkpoints | None = None
 
@@ -345,7 +334,7 @@ class RunContext:
 _FORCING_CACHE: dict = {}
 
 
-def _forcing_for(ctx: RunContext):
+def forcing_for(ctx: RunContext):
     """The grid forcing, opened once per process."""
     key = (str(ctx.cfg.source), repr(ctx.cfg.forcing))
     gf = _FORCING_CACHE.get(key)
@@ -360,30 +349,6 @@ def register_forcing(ctx: RunContext, gf) -> None:
     """Let tasks in this process use an already opened forcing."""
     _FORCING_CACHE.clear()
     _FORCING_CACHE[(str(ctx.cfg.source), repr(ctx.cfg.forcing))] = gf
-
-
-def _perturbed(
-    forcing: CellForcing, dt_k: float, dphase_k: float, settings: DownscaleSettings
-) -> CellForcing:
-    """Forcing of an ensemble member: air temperature shifted by ``dt_k`` at all heights and
-    the snow fraction recomputed with the phase threshold raised by ``dphase_k`` (the phase
-    curve evaluated at ``T - dphase_k``). Freezing-rain hours keep their phase."""
-    if dt_k == 0.0 and dphase_k == 0.0:
-        return forcing
-    t = forcing.t_air_k + dt_k
-    sf = snow_fraction(
-        settings.phase,
-        t - dphase_k,
-        forcing.rh_frac,
-        forcing.pressure_pa,
-        threshold_c=settings.phase_threshold_c,
-        half_width_k=settings.phase_half_width_k,
-    )
-    fz = forcing.freezing_rain_frac
-    out = forcing.subset()
-    out.t_air_k = t
-    out.snow_frac = np.ascontiguousarray(np.where(fz > 0, forcing.snow_frac, sf))
-    return out
 
 
 def _concat_parts(parts: list[dict]) -> dict:
@@ -416,12 +381,11 @@ def simulate_chunk(
     time), ``state_analysis`` and ``state_end`` (SnowState), ``forcing_summary`` (sums for
     run.json) and ``seconds`` (downscale, column).
     """
-    gf = _forcing_for(ctx)
+    gf = forcing_for(ctx)
     batch = ctx.batch.subset(np.arange(lo, hi))
     p = ctx.period
     t0 = _time.perf_counter()
     forcing = downscale_cells(gf, batch, ctx.downscale, slice(p.first, p.stop))
-    forcing = _perturbed(forcing, *ctx.perturbation, ctx.downscale)
     t_down = _time.perf_counter() - t0
     n_an = p.split - p.first
     t0 = _time.perf_counter()
@@ -532,7 +496,7 @@ def align_state(
             f"{state.fingerprint}, this run {params.fingerprint()}); continue with the same settings"
         )
     if positions.size and not np.array_equal(positions, np.arange(positions.size)):
-        state = state_take(state, positions)
+        state = state.take(positions)
     state.cell_id = cells.index.to_numpy(np.int64)
     return state
 

@@ -19,6 +19,7 @@ per event, one label per zone and limit), so that the metric stays readable.
 
 from __future__ import annotations
 
+import hashlib
 from pathlib import Path
 
 import numpy as np
@@ -28,6 +29,7 @@ from matplotlib.colors import BoundaryNorm, LightSource, Normalize
 from matplotlib.lines import Line2D
 
 from regionmap.errors import InputError, warn
+from regionmap.io.dem import read_dem
 from regionmap.io.times import event_date_label, local_time_label, utc_datetime64
 from regionmap.plots.outputs import METRICS, Metric, RunOutputs
 from regionmap.plots.style import OKABE_ITO, metric_cmap, new_figure, robust_top, save_png
@@ -59,8 +61,6 @@ def find_dem(out) -> Path | None:
     """The run's DEM file: ``run.json`` ``config.region.dem`` (relative paths against the
     output folder) when it is on disk, else a ``.tif`` inside the output folder with the same
     name whose SHA-256 matches ``run.json`` ``inputs.dem.sha256``; None when neither exists."""
-    import hashlib
-
     out = _outputs(out)
     region = (
         out.run.get("config", {}).get("region", {})
@@ -98,8 +98,6 @@ def _shaded_relief(out: RunOutputs, kx: float, ky: float):
         if dem_path is None:
             cache["value"] = None
         else:
-            from regionmap.io.dem import read_dem
-
             dem = read_dem(dem_path)
             shade = hillshade(dem.elevation_m, abs(dem.transform.a) * kx, abs(dem.transform.e) * ky)
             cache["value"] = (

@@ -27,12 +27,15 @@ References
 
 from __future__ import annotations
 
+import io
 import re
 from pathlib import Path
 
 import numpy as np
 from matplotlib.colors import LinearSegmentedColormap, to_rgb
 from matplotlib.figure import Figure
+
+from regionmap.io.atomic import atomic_path
 
 __all__ = [
     "OKABE_ITO",
@@ -233,8 +236,6 @@ def encode_png(
     rgb: np.ndarray, *, dpi: int = PRINT_DPI, compress_level: int = PNG_COMPRESS_LEVEL
 ) -> bytes:
     """PNG bytes of an (y, x, 3) uint8 image (Pillow), its resolution recorded as ``dpi``."""
-    import io
-
     from PIL import Image
 
     buf = io.BytesIO()
@@ -246,8 +247,6 @@ def encode_png(
 
 def save_png(fig: Figure, path: Path, *, dpi: int = PRINT_DPI) -> Path:
     """Save a figure as PNG (folders created), atomically (one draw, see :func:`render_png`)."""
-    from regionmap.io.atomic import atomic_path
-
     path = Path(path)
     path.parent.mkdir(parents=True, exist_ok=True)
     png, _ = render_png(fig, dpi=dpi)

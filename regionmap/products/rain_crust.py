@@ -43,6 +43,7 @@ __all__ = [
     "NO_CRUST_CLAUSE",
     "RainEvent",
     "rain_events",
+    "line_events",
     "rain_crust_presence",
     "rain_crust_limits",
     "rain_crust_lines",
@@ -152,6 +153,25 @@ def rain_events(profiles: xr.Dataset, *, day=None) -> pd.DataFrame:
     ).reset_index()
     out["event_time"] = out["event_time"].to_numpy().astype("datetime64[s]")
     return out.sort_values("event_time", ignore_index=True)
+
+
+#: An event draws a rain-crust line when its crust is in at least this many cells and this
+#: share of all cells (ours).
+_MIN_EVENT_CELLS = 3
+_MIN_EVENT_CELL_FRAC = 0.02
+
+
+def line_events(
+    profiles: xr.Dataset, *, day, n_cells_total: int
+) -> tuple[pd.DataFrame, pd.DataFrame]:
+    """The events of :func:`rain_events` that draw a rain-crust line, and the minor ones.
+
+    A line needs an event that left crusts over some terrain; single cells with a crust of
+    their own (e.g. a shallow pack soaked by a shower) do not make a line.
+    """
+    events = rain_events(profiles, day=day)
+    min_cells = max(_MIN_EVENT_CELLS, int(np.ceil(_MIN_EVENT_CELL_FRAC * n_cells_total)))
+    return events[events["n_cells"] >= min_cells], events[events["n_cells"] < min_cells]
 
 
 def _band_fractions(

@@ -26,8 +26,11 @@ from __future__ import annotations
 
 import base64
 import datetime as dt
+import gc
 import io
 import json
+import multiprocessing as mp
+import os
 import re
 import struct
 import zlib
@@ -42,6 +45,8 @@ from regionmap.errors import OutputError
 from regionmap.io.atomic import atomic_path, atomic_write_text
 from regionmap.io.times import event_date_label, local_time_label
 from regionmap.plots.maps import (
+    _metres_per_unit,
+    _shaded_relief,
     available_maps,
     plot_metric_map,
     plot_rain_crust_map,
@@ -139,8 +144,6 @@ def _map_specs(out: RunOutputs) -> list[tuple[str, str, str, callable]]:
         )
     if specs:
         import rasterio
-
-        from regionmap.plots.maps import _metres_per_unit, _shaded_relief
 
         lat = float(np.nanmean(out.table["lat"])) if "lat" in out.table else 45.0
         with rasterio.open(out.path("maps/cell_id.tif")) as src:
@@ -284,13 +287,10 @@ class _Drawing:
 
     def __init__(self, specs, thumbnails: bool, workers: int):
         global _JOB
-        import multiprocessing as mp
 
         self.specs, self.pool = specs, None
         _JOB = (specs, thumbnails)
         if workers >= 1 and len(specs) >= 2 and "fork" in mp.get_all_start_methods():
-            import gc
-
             gc.freeze()  # the workers' garbage collector leaves the inherited objects (and their pages) alone
             try:
                 self.pool = mp.get_context("fork").Pool(workers)
@@ -323,8 +323,6 @@ def _render(
     snapshot days of profiles.nc (the slowest read); the trackers last, while the overviews'
     CSV tables are written here. Each fork inherits the data it draws; the NetCDF files are
     closed before the last one."""
-    import os
-
     workers = min(2, os.cpu_count() or 1) if workers is None else workers
     parallel = workers > 1
     map_specs = _map_specs(out)

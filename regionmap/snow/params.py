@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import hashlib
 from dataclasses import asdict, dataclass, fields
 from typing import Literal
 
@@ -142,8 +143,6 @@ class SnowParams:
 
     def fingerprint(self) -> str:
         """A short stable hash of the settings (stored in state.nc)."""
-        import hashlib
-
         return hashlib.sha256(self.as_array().tobytes()).hexdigest()[:16]
 
 

@@ -30,6 +30,7 @@ from regionmap.snow.codes import (
     grain_strings_to_codes,
 )
 from regionmap.snow.constants import EPOCH_2000_S, T_MELT_K
+from regionmap.snow.diagnostics import layer_hardness_array
 from regionmap.snow.kernel import (
     J_FZ_EV,
     J_N,
@@ -277,8 +278,6 @@ class SnowState:
 
         def attrs(units, long_name):
             return {"units": units, "long_name": long_name}
-
-        from regionmap.snow.diagnostics import layer_hardness_array
 
         ds = xr.Dataset(
             {

@@ -32,8 +32,38 @@ import numpy as np
 import pandas as pd
 
 from regionmap import CAUTION
+from regionmap.cells import sunlit_tables
 from regionmap.config import Config
+from regionmap.downscale.pipeline import downscale_cells, prepare_cells
+from regionmap.downscale.quantile_mapping import write_qm_table
+from regionmap.downscale.wind import exposure_class_from_sx
 from regionmap.errors import InputError, warn
+from regionmap.io.atomic import atomic_write_text
+from regionmap.io.dem import read_dem
+from regionmap.io.stations import read_observations, read_stations
+from regionmap.io.writers import write_csv
+from regionmap.pipeline.run import (
+    cell_settings,
+    downscale_settings,
+    open_grid_forcing,
+    snow_params,
+    terrain_settings,
+)
+from regionmap.snow.column import run_columns
+from regionmap.snow.state import SnowState
+from regionmap.stations.calibrate import (
+    DEFAULT_KIND,
+    QM_KIND,
+    bias_toml,
+    calibrate,
+    correct_undercatch_kochendorfer2017,
+)
+from regionmap.stations.verify import (
+    aggregate_model_to_observations,
+    verification_table,
+    write_verification_csv,
+)
+from regionmap.terrain import compute_terrain
 
 __all__ = [
     "MODEL_VARIABLES",
@@ -146,9 +176,6 @@ def station_cells(
     InputError
         A station outside the DEM or on nodata.
     """
-    from regionmap.cells import sunlit_tables
-    from regionmap.downscale.wind import exposure_class_from_sx
-
     row, col = _station_pixels(dem, stations)
     n = len(stations)
     slope = terrain.slope_deg[row, col].astype(np.float64)
@@ -202,8 +229,6 @@ def station_cells(
 
 
 def _batch(cells: StationCells, gf, settings):
-    from regionmap.downscale.pipeline import prepare_cells
-
     t = cells.table
     gf.check_covers(t["lon"].to_numpy(float), t["lat"].to_numpy(float))
     batch = prepare_cells(
@@ -237,10 +262,6 @@ def _region_parts(cfg: Config, region):
     """DEM and terrain: the run's when given, else read and computed here."""
     if region is not None:
         return region.dem, region.terrain
-    from regionmap.io.dem import read_dem
-    from regionmap.pipeline.run import terrain_settings
-    from regionmap.terrain import compute_terrain
-
     dem = read_dem(cfg.region.dem)
     return dem, compute_terrain(dem, terrain_settings(cfg))
 
@@ -288,14 +309,6 @@ def station_model_series(
     InputError, GridMismatchError
         Stations outside the DEM or the forcing grid, a period without forcing.
     """
-    from regionmap.downscale.pipeline import downscale_cells
-    from regionmap.pipeline.run import (
-        cell_settings,
-        downscale_settings,
-        open_grid_forcing,
-        snow_params,
-    )
-
     dem, terrain = _region_parts(cfg, region)
     gf = open_grid_forcing(cfg) if grid_forcing is None else grid_forcing
     settings = downscale_settings(cfg)
@@ -318,9 +331,6 @@ def station_model_series(
     columns = {name: getattr(forcing, field)[:, keep] for name, field in MODEL_VARIABLES.items()}
     columns["shortwave_down"] = sw_flat
     if snow:
-        from regionmap.snow.column import run_columns
-        from regionmap.snow.state import SnowState
-
         params = snow_params(cfg)
         state0 = SnowState.empty(
             n, params.max_layers, time=forcing.time[0] - np.timedelta64(3600, "s")
@@ -364,8 +374,6 @@ def _clip_to_forcing(gf, obs: pd.DataFrame, where: str) -> tuple[np.datetime64, 
 
 
 def _read_inputs(stations_path, observation_paths):
-    from regionmap.io.stations import read_observations, read_stations
-
     stations = read_stations(stations_path)
     paths = (
         [observation_paths]
@@ -376,9 +384,6 @@ def _read_inputs(stations_path, observation_paths):
 
 
 def _matched(cfg, stations, obs, *, raw, where, region=None, grid_forcing=None):
-    from regionmap.pipeline.run import open_grid_forcing
-    from regionmap.stations.verify import aggregate_model_to_observations
-
     gf = open_grid_forcing(cfg) if grid_forcing is None else grid_forcing
     period = _clip_to_forcing(gf, obs, where)
     used = stations.loc[sorted(set(obs.index.get_level_values("station_id")))]
@@ -393,8 +398,6 @@ def _matched(cfg, stations, obs, *, raw, where, region=None, grid_forcing=None):
 
 def _undercatch_corrected(obs: pd.DataFrame, undercatch) -> pd.DataFrame:
     """Observed precipitation corrected for gauge undercatch (Kochendorfer et al. 2017)."""
-    from regionmap.stations.calibrate import correct_undercatch_kochendorfer2017
-
     if undercatch is None or "precipitation" not in obs.columns:
         return obs
     missing = [v for v in ("wind_speed", "air_temperature") if v not in obs.columns]
@@ -473,7 +476,6 @@ def verify_command(
         Bad station or observation files, stations outside the DEM or forcing, no overlap.
     """
     from regionmap.plots.verification import write_verification_figures
-    from regionmap.stations.verify import verification_table, write_verification_csv
 
     stations, obs = _read_inputs(stations_path, observation_paths)
     obs = _undercatch_corrected(obs, undercatch)
@@ -508,8 +510,6 @@ def verify_command(
 def _calibrate_observed(matched, obs, stations, *, method, per_month, undercatch):
     """:func:`regionmap.stations.calibrate.calibrate` on the variables the observations hold (each
     exposure class is fitted from its stations that observe the variable)."""
-    from regionmap.stations.calibrate import DEFAULT_KIND, QM_KIND, calibrate
-
     kinds = DEFAULT_KIND if method == "scaling" else QM_KIND
     present = [
         v for v in kinds if v in matched.columns and v in obs.columns and obs[v].notna().any()
@@ -582,12 +582,8 @@ def calibrate_command(
     InputError
         Bad inputs, or too little data to fit (the message says what is missing).
     """
-    from regionmap.downscale.quantile_mapping import write_qm_table
-    from regionmap.io.atomic import atomic_write_text
-    from regionmap.io.writers import write_csv
     from regionmap.plots.style import save_png
     from regionmap.plots.verification import calibration_skill_figure, write_verification_figures
-    from regionmap.stations.calibrate import bias_toml
 
     stations, obs = _read_inputs(stations_path, observation_paths)
     model, matched = _matched(cfg, stations, obs, raw=True, where="calibrate", region=region)
@@ -681,8 +677,6 @@ def run_verification_last_day(cfg: Config, region, out_dir, map_time, *, grid_fo
     InputError
         Bad station or observation files, stations outside the DEM or the forcing.
     """
-    from regionmap.stations.verify import verification_table, write_verification_csv
-
     if cfg.stations is None:
         return None
     stations, obs = _read_inputs(cfg.stations.stations, cfg.stations.observations)

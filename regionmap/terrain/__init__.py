@@ -17,6 +17,7 @@ import numpy as np
 
 from regionmap.errors import ConfigError
 from regionmap.io.dem import Dem, read_dem, reproject_to_grid
+from regionmap.io.writers import write_geotiff
 from regionmap.terrain.horizon import (
     horizon_sky_view_dozier_frew1990,
     max_upwind_slope_winstral2002,
@@ -250,8 +251,6 @@ def write_terrain_layers(
     list of Path : the files written.
     """
     from tqdm import tqdm
-
-    from regionmap.io.writers import write_geotiff
 
     settings = settings or TerrainSettings()
     dem = read_dem(dem_path)
