@@ -214,20 +214,20 @@ def bench_overhead(args, folder: Path) -> dict:
         plan_period,
         prepare_batch,
         prepare_region,
+        quantile_tables,
         register_forcing,
         simulate_chunk,
-        snow_params,
     )
 
     cfg = load_config(_scenario(folder / "r1000", *SIZES[1000][:2], args.days, SIZES[1000][2]))
     region = prepare_region(cfg)
     gf = open_grid_forcing(cfg)
-    batch, ds = prepare_batch(region, gf, cfg)
-    params = snow_params(cfg)
+    batch = prepare_batch(region, gf, cfg)
+    params = cfg.snow
     period = plan_period(gf.time)
     state = initial_state(batch, params, period)
     chunks = chunk_ranges(batch.n_cells, 250)
-    ctx = RunContext(cfg, batch, ds, params, period, 1, 12, kernel_threads=1)
+    ctx = RunContext(cfg, batch, quantile_tables(cfg), period, 1, 12, kernel_threads=1)
     register_forcing(ctx, gf)
     simulate_chunk(ctx, 0, 1, state.take(slice(0, 1)))  # warm
     t0 = time.perf_counter()

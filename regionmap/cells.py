@@ -12,10 +12,11 @@ import numba
 import numpy as np
 import pandas as pd
 
-from regionmap.errors import ConfigError, GridMismatchError, InputError
+from regionmap.config import CellSettings
+from regionmap.errors import GridMismatchError, InputError
 
 __all__ = [
-    "CellSettings",
+    "band_edges_m",
     "SunlitTable",
     "CellSet",
     "build_cells",
@@ -44,74 +45,15 @@ def sector_names(n: int) -> list[str]:
     return _SECTORS[n] + ["flat"]
 
 
-@dataclass(frozen=True)
-class CellSettings:
-    """How pixels are grouped into cells (the ``[cells]`` config section).
-
-    Attributes
-    ----------
-    band_edges_m : tuple of float or None
-        Band edges [m]; bands are open-ended below the first and above the last edge.
-    band_step_m : float or None
-        Alternative to ``band_edges_m``: edges every ``band_step_m`` metres (multiples of it).
-    aspect_sectors : int
-        4, 8 or 16 aspect sectors, the first centred on north.
-    flat_below_deg : float
-        Pixels with a slope below this [deg] form the ``flat`` sector.
-    slope_classes_deg : tuple of float
-        Optional slope-class edges [deg]; class k spans [edge k-1, edge k).
-    sun_azimuth_step_deg, sun_elevation_step_deg : float
-        Resolution of the sunlit-fraction table: azimuths 0, step, … < 360 and elevations
-        0, step, … ≤ 90 [deg].
-    small_below_pixels : int
-        Cells with fewer pixels are flagged ``small`` (kept, never dropped).
-    """
-
-    band_edges_m: tuple[float, ...] | None = None
-    band_step_m: float | None = 300.0
-    aspect_sectors: int = 8
-    flat_below_deg: float = 10.0
-    slope_classes_deg: tuple[float, ...] = ()
-    sun_azimuth_step_deg: float = 10.0
-    sun_elevation_step_deg: float = 5.0
-    small_below_pixels: int = 25
-
-    def __post_init__(self):
-        if self.band_edges_m is not None:
-            e = np.asarray(self.band_edges_m, dtype=float)
-            if e.size == 0 or np.any(np.diff(e) <= 0):
-                raise ConfigError(
-                    f"[cells] band_edges_m = {list(self.band_edges_m)}: expected strictly increasing edges in metres"
-                )
-        elif self.band_step_m is None or not self.band_step_m > 0:
-            raise ConfigError(
-                f"[cells] band_step_m = {self.band_step_m!r}: expected a positive step in metres (or give band_edges_m)"
-            )
-        if self.aspect_sectors not in _SECTORS:
-            raise ConfigError(
-                f"[cells] aspect_sectors = {self.aspect_sectors!r}: expected 4, 8 or 16"
-            )
-        if not 0 <= self.flat_below_deg < 90:
-            raise ConfigError(
-                f"[cells] flat_below_deg = {self.flat_below_deg!r}: expected 0 <= value < 90 degrees"
-            )
-        s = np.asarray(self.slope_classes_deg, dtype=float)
-        if s.size and (np.any(np.diff(s) <= 0) or s[0] <= 0 or s[-1] >= 90):
-            raise ConfigError(
-                f"[cells] slope_classes_deg = {list(self.slope_classes_deg)}: expected increasing edges between 0 and 90"
-            )
-        if not (0 < self.sun_azimuth_step_deg <= 90 and 0 < self.sun_elevation_step_deg <= 45):
-            raise ConfigError(
-                "[cells] sun grid steps: expected 0 < azimuth step <= 90 and 0 < elevation step <= 45 degrees"
-            )
-
-    def edges_for(self, elevation_m: np.ndarray) -> np.ndarray:
-        """Band edges [m] for the given elevations."""
-        if self.band_edges_m is not None:
-            return np.asarray(self.band_edges_m, dtype=float)
-        lo = math.floor(np.nanmin(elevation_m) / self.band_step_m) * self.band_step_m
-        hi = math.ceil(np.nanmax(elevation_m) / self.band_step_m) * self.band_step_m
-        return np.arange(lo, hi + 0.5 * self.band_step_m, self.band_step_m)
+def band_edges_m(settings: CellSettings, elevation_m: np.ndarray) -> np.ndarray:
+    """Band edges [m] for the given elevations: ``band_edges_m``, or multiples of
+    ``band_step_m`` spanning them."""
+    if settings.band_edges_m is not None:
+        return np.asarray(settings.band_edges_m, dtype=float)
+    step = settings.band_step_m
+    lo = math.floor(np.nanmin(elevation_m) / step) * step
+    hi = math.ceil(np.nanmax(elevation_m) / step) * step
+    return np.arange(lo, hi + 0.5 * step, step)
 
 
 @dataclass
@@ -330,7 +272,7 @@ def build_cells(dem, terrain, zones, settings: CellSettings | None = None) -> Ce
     zp = z[rows, cols]
     slope = terrain.slope_deg[rows, cols]
     aspect = terrain.aspect_deg[rows, cols]
-    edges = settings.edges_for(zp)
+    edges = band_edges_m(settings, zp)
     band = np.searchsorted(edges, zp, side="right")  # 0 = below the first edge
     n_sec = settings.aspect_sectors
     width = 360.0 / n_sec

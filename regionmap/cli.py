@@ -30,10 +30,11 @@ __all__ = ["main", "build_parser"]
 
 
 def _cmd_terrain(args: argparse.Namespace) -> int:
-    from regionmap.terrain import TerrainSettings, write_terrain_layers
+    from regionmap.config import TerrainSettings
+    from regionmap.terrain import write_terrain_layers
 
     settings = TerrainSettings(
-        n_azimuths=args.azimuths,
+        horizon_azimuths=args.azimuths,
         horizon_distance_m=args.horizon_distance,
     )
     written = write_terrain_layers(args.dem, args.out, settings, progress=not args.quiet)

@@ -1,44 +1,39 @@
 """TOML configuration → validated settings.
 
-Unknown keys are errors that name the closest valid key; wrong types
-and ranges name the key, the file and what was expected; paths are resolved relative to the
-config file.
+Each section of the file is the settings object of its stage (``[terrain]`` →
+:class:`TerrainSettings`, ``[cells]`` → :class:`CellSettings`, ``[downscale]`` and ``[bias]``
+→ :mod:`regionmap.downscale.settings`, ``[snow]`` → :class:`regionmap.snow.params.SnowParams`),
+with the same option names and one default each. Unknown keys are errors that name the
+closest valid key; wrong types and ranges name the key, the file and what was expected;
+paths are resolved relative to the config file.
 """
 
 from __future__ import annotations
 
 import datetime as dt
-import difflib
-import math
 import re
 import tomllib
 import zoneinfo
 from pathlib import Path
-from typing import Annotated, Any, Literal
+from typing import Annotated, ClassVar, Literal
 
+import numpy as np
 from pydantic import (
     AfterValidator,
     BaseModel,
     BeforeValidator,
-    ConfigDict,
     Field,
     ValidationError,
     field_validator,
     model_validator,
 )
 
+from regionmap.downscale.settings import BiasSettings, DownscaleSettings
 from regionmap.errors import ConfigError
+from regionmap.settings import Settings, validation_message
+from regionmap.snow.params import SnowParams
 
 __all__ = ["Config", "load_config", "parse_band", "config_from_dict"]
-
-BIAS_VARIABLES = (
-    "air_temperature",
-    "relative_humidity",
-    "wind_speed",
-    "precipitation",
-    "shortwave_down",
-    "longwave_down",
-)
 
 
 def _time_input(value):
@@ -63,11 +58,9 @@ def _as_utc(value: dt.datetime) -> dt.datetime:
 UtcTime = Annotated[dt.datetime, BeforeValidator(_time_input), AfterValidator(_as_utc)]
 
 
-class _Section(BaseModel):
-    model_config = ConfigDict(extra="forbid", frozen=True)
+class RegionSection(Settings):
+    section: ClassVar[str] = "region"
 
-
-class RegionSection(_Section):
     dem: Path
     zones: Path
     zone_field: str = "name"
@@ -76,28 +69,66 @@ class RegionSection(_Section):
     invented_data: bool = False
 
 
-class CellsSection(_Section):
-    band_edges_m: list[float] | None = None
-    band_step_m: Annotated[float, Field(gt=0)] | None = None
+class CellSettings(Settings):
+    """How pixels are grouped into cells (``[cells]``).
+
+    Attributes
+    ----------
+    band_edges_m : tuple of float or None
+        Band edges [m]; bands are open-ended below the first and above the last edge.
+    band_step_m : float or None
+        Alternative to ``band_edges_m``: edges every ``band_step_m`` metres (multiples of
+        it); 300 m unless ``band_edges_m`` is given (then None).
+    aspect_sectors : int
+        4, 8 or 16 aspect sectors, the first centred on north.
+    flat_below_deg : float
+        Pixels with a slope below this [deg] form the ``flat`` sector.
+    slope_classes_deg : tuple of float
+        Optional slope-class edges [deg]; class k spans [edge k-1, edge k).
+    avalanche_terrain_deg : (low, high)
+        Slopes the summaries weight as avalanche terrain [deg] (30-50 by default, common
+        practice).
+    sun_azimuth_step_deg, sun_elevation_step_deg : float
+        Resolution of the sunlit-fraction table: azimuths 0, step, … < 360 and elevations
+        0, step, … ≤ 90 [deg].
+    small_below_pixels : int
+        Cells with fewer pixels are flagged ``small`` (kept, never dropped).
+    """
+
+    section: ClassVar[str] = "cells"
+
+    band_edges_m: tuple[float, ...] | None = None
+    band_step_m: Annotated[float, Field(gt=0)] | None = 300.0
     aspect_sectors: Literal[4, 8, 16] = 8
     flat_below_deg: Annotated[float, Field(ge=0, lt=90)] = 10.0
-    slope_classes_deg: list[Annotated[float, Field(gt=0, lt=90)]] | None = None
+    slope_classes_deg: tuple[Annotated[float, Field(gt=0, lt=90)], ...] = ()
     avalanche_terrain_deg: tuple[
         Annotated[float, Field(ge=0, le=90)], Annotated[float, Field(ge=0, le=90)]
     ] = (30.0, 50.0)
+    sun_azimuth_step_deg: Annotated[float, Field(gt=0, le=90)] = 10.0
+    sun_elevation_step_deg: Annotated[float, Field(gt=0, le=45)] = 5.0
+    small_below_pixels: Annotated[int, Field(ge=0)] = 25
+
+    @model_validator(mode="before")
+    @classmethod
+    def _edges_or_step(cls, data):
+        if isinstance(data, dict) and data.get("band_edges_m") is not None:
+            if data.get("band_step_m") is not None:
+                raise ValueError("give either band_edges_m or band_step_m, not both")
+            data = {**data, "band_step_m": None}
+        return data
 
     @model_validator(mode="after")
     def _bands(self):
-        if self.band_edges_m is not None and self.band_step_m is not None:
-            raise ValueError("give either band_edges_m or band_step_m, not both")
+        if self.band_edges_m is None and self.band_step_m is None:
+            raise ValueError("give band_edges_m or band_step_m")
         if self.band_edges_m is not None:
             edges = self.band_edges_m
             if len(edges) < 1 or any(b <= a for a, b in zip(edges, edges[1:])):
-                raise ValueError(f"band_edges_m must be strictly increasing, got {edges}")
-        if self.slope_classes_deg is not None:
-            s = self.slope_classes_deg
-            if any(b <= a for a, b in zip(s, s[1:])):
-                raise ValueError(f"slope_classes_deg must be strictly increasing, got {s}")
+                raise ValueError(f"band_edges_m must be strictly increasing, got {list(edges)}")
+        s = self.slope_classes_deg
+        if any(b <= a for a, b in zip(s, s[1:])):
+            raise ValueError(f"slope_classes_deg must be strictly increasing, got {list(s)}")
         lo, hi = self.avalanche_terrain_deg
         if hi <= lo:
             raise ValueError(
@@ -105,14 +136,10 @@ class CellsSection(_Section):
             )
         return self
 
-    @property
-    def effective_band_step_m(self) -> float | None:
-        if self.band_edges_m is None and self.band_step_m is None:
-            return 300.0
-        return self.band_step_m
 
+class VariableMapping(Settings):
+    section: ClassVar[str] = "forcing.variables"
 
-class VariableMapping(_Section):
     """One ``[forcing.variables]`` entry (see ``regionmap.io.forcing_mapping``): the file
     variable, or several summed; units, interval kind, accumulation, mixing ratio and the
     cosine/sine variables that rotate grid-relative winds, where the file does not say."""
@@ -125,12 +152,16 @@ class VariableMapping(_Section):
     rotation: tuple[str, str] | None = None
 
 
-class HeightsSection(_Section):
+class HeightsSection(Settings):
+    section: ClassVar[str] = "forcing.heights_m"
+
     wind: Annotated[float, Field(gt=0, le=200)] | None = None
     temperature: Annotated[float, Field(gt=0, le=200)] | None = None
 
 
-class ForcingSection(_Section):
+class ForcingSection(Settings):
+    section: ClassVar[str] = "forcing"
+
     path: str
     start: UtcTime | None = None
     end: UtcTime | None = None
@@ -146,70 +177,9 @@ class ForcingSection(_Section):
         return self
 
 
-def _scalar_or_monthly(value):
-    """A number, or a list of 12 numbers (January … December)."""
-    if value is None:
-        return None
-    if isinstance(value, bool) or not isinstance(value, (int, float, list)):
-        raise ValueError(f"expected a number or a list of 12 monthly numbers, got {value!r}")
-    if isinstance(value, list):
-        if len(value) != 12 or not all(
-            isinstance(x, (int, float)) and not isinstance(x, bool) for x in value
-        ):
-            raise ValueError(
-                f"expected a number or a list of 12 monthly numbers (Jan…Dec), got {value!r}"
-            )
-        return [float(x) for x in value]
-    return float(value)
+class OutputSection(Settings):
+    section: ClassVar[str] = "output"
 
-
-class BiasEntry(_Section):
-    """One correction: ``factor`` multiplies, ``offset`` adds (canonical units), optionally
-    only for cells of one wind-exposure class."""
-
-    factor: float | list[float] | None = None
-    offset: float | list[float] | None = None
-    exposure: Literal["all", "sheltered", "neutral", "exposed"] = "all"
-
-    @field_validator("factor", "offset", mode="before")
-    @classmethod
-    def _monthly(cls, v):
-        return _scalar_or_monthly(v)
-
-    @field_validator("factor")
-    @classmethod
-    def _positive(cls, v):
-        values = v if isinstance(v, list) else [v]
-        if v is not None and any(not (x > 0 and math.isfinite(x)) for x in values):
-            raise ValueError(f"factors must be positive, got {v}")
-        return v
-
-
-def _as_entry_list(value):
-    if value is None:
-        return []
-    return [value] if isinstance(value, dict) else value
-
-
-class BiasSection(_Section):
-    """Per-variable corrections; each key takes one table or a list of tables (one per
-    exposure class)."""
-
-    air_temperature: list[BiasEntry] = Field(default_factory=list)
-    relative_humidity: list[BiasEntry] = Field(default_factory=list)
-    wind_speed: list[BiasEntry] = Field(default_factory=list)
-    precipitation: list[BiasEntry] = Field(default_factory=list)
-    shortwave_down: list[BiasEntry] = Field(default_factory=list)
-    longwave_down: list[BiasEntry] = Field(default_factory=list)
-    quantile_mapping: Path | None = None
-
-    @field_validator(*BIAS_VARIABLES, mode="before")
-    @classmethod
-    def _entries(cls, v):
-        return _as_entry_list(v)
-
-
-class OutputSection(_Section):
     dir: Path = Path("out")
     map_time: UtcTime | None = None
     diagnostics_every: str = "1h"
@@ -239,44 +209,46 @@ class OutputSection(_Section):
         return parse_interval_hours(self.diagnostics_every)
 
 
-class TerrainSection(_Section):
+class TerrainSettings(Settings):
+    """Terrain-analysis options (``[terrain]``).
+
+    Attributes
+    ----------
+    horizon_azimuths : int
+        Horizon azimuths, equally spaced from north.
+    horizon_distance_m : float
+        Horizon search distance [m].
+    exposure_directions : int
+        Wind-direction sectors for Sx, equally spaced from north.
+    exposure_distance_m : float
+        Upwind search distance d_max for Sx [m] (300 m, common later practice [mem]).
+    curvature_length_m : float
+        Curvature length scale η [m].
+    earth_curvature : bool
+        Lower distant terrain by d²/2R in the horizon scan.
+    """
+
+    section: ClassVar[str] = "terrain"
+
     horizon_azimuths: Annotated[int, Field(ge=4, le=72)] = 16
     horizon_distance_m: Annotated[float, Field(gt=0, le=50_000)] = 5000.0
     exposure_directions: Annotated[int, Field(ge=4, le=36)] = 8
     exposure_distance_m: Annotated[float, Field(gt=0, le=5000)] = 300.0
+    curvature_length_m: Annotated[float, Field(gt=0)] = 500.0
+    earth_curvature: bool = True
+
+    @property
+    def horizon_azimuths_deg(self) -> np.ndarray:
+        return np.arange(self.horizon_azimuths) * (360.0 / self.horizon_azimuths)
+
+    @property
+    def exposure_directions_deg(self) -> np.ndarray:
+        return np.arange(self.exposure_directions) * (360.0 / self.exposure_directions)
 
 
-class DownscaleSection(_Section):
-    interpolation: Literal["bilinear", "idw"] = "bilinear"
-    lapse: Literal["monthly", "fixed", "grid"] = "monthly"
-    lapse_rate_k_per_km: Annotated[float, Field(ge=0, le=12)] = 6.5
-    precip_coefficient_scale: Annotated[float, Field(ge=0, le=1)] = 0.5
-    precip_factor_bounds: tuple[float, float] = (0.5, 1.5)
-    #: zone-conserving exposure drift of precipitation; chunks then hold whole zones, so a
-    #: run's memory grows with its largest zone
-    drift: bool = False
-    phase: Literal["jennings2018", "wet_bulb", "air_temperature"] = "jennings2018"
-    phase_threshold_c: Annotated[float, Field(ge=-3, le=4)] = 1.0
-    longwave: Literal["prata1996", "brutsaert1975"] = "prata1996"
-    wind: Literal["winstral", "liston_sturm", "none"] = "winstral"
+class RunSection(Settings):
+    section: ClassVar[str] = "run"
 
-    @model_validator(mode="after")
-    def _bounds(self):
-        lo, hi = self.precip_factor_bounds
-        if not (0 < lo <= 1 <= hi):
-            raise ValueError(
-                f"precip_factor_bounds must satisfy 0 < low <= 1 <= high, got {[lo, hi]}"
-            )
-        return self
-
-
-class SnowSection(_Section):
-    max_layers: Annotated[int, Field(ge=10, le=80)] = 50
-    threshold_mode: Literal["relative", "absolute"] = "relative"
-    depth_hoar_min_cm: Annotated[float, Field(ge=0, le=50)] = 2.0
-
-
-class RunSection(_Section):
     #: cells per task; a task holds ~1.3 MB per cell of a season's hourly diagnostics and
     #: daily profiles, and a multiple of 256 fills whole chunks of cells.nc (whose
     #: compression then runs outside the HDF5 lock: io.results)
@@ -291,12 +263,16 @@ class RunSection(_Section):
         return None if v is None else v.expanduser()
 
 
-class StationsSection(_Section):
+class StationsSection(Settings):
+    section: ClassVar[str] = "stations"
+
     stations: Path
     observations: list[Path]
 
 
-class RestartEntry(_Section):
+class RestartEntry(Settings):
+    section: ClassVar[str] = "restart"
+
     profile: Path
     time: UtcTime | None = None
     zone: str
@@ -311,15 +287,15 @@ class RestartEntry(_Section):
         return v
 
 
-class Config(_Section):
+class Config(Settings):
     region: RegionSection
-    cells: CellsSection = CellsSection()
+    cells: CellSettings = CellSettings()
     forcing: ForcingSection | None = None
-    bias: BiasSection = BiasSection()
+    bias: BiasSettings = BiasSettings()
     output: OutputSection = OutputSection()
-    terrain: TerrainSection = TerrainSection()
-    downscale: DownscaleSection = DownscaleSection()
-    snow: SnowSection = SnowSection()
+    terrain: TerrainSettings = TerrainSettings()
+    downscale: DownscaleSettings = DownscaleSettings()
+    snow: SnowParams = SnowParams()
     run: RunSection = RunSection()
     stations: StationsSection | None = None
     restart: list[RestartEntry] = Field(default_factory=list)
@@ -354,77 +330,6 @@ def parse_interval_hours(text: str) -> int | None:
     return int(m.group(1)) * (24 if m.group(2) in "dD" else 1)
 
 
-def _model_at(loc: tuple) -> type[BaseModel] | None:
-    """The pydantic model class that holds the key at ``loc`` (for closest-key hints)."""
-    model: Any = Config
-    dict_key = False
-    for part in loc[:-1]:
-        if isinstance(part, int) or dict_key:  # a list index or a key of a dict of sections
-            dict_key = False
-            continue
-        field = (
-            model.model_fields.get(part)
-            if isinstance(model, type) and issubclass(model, BaseModel)
-            else None
-        )
-        if field is None:
-            return None
-        model = _first_model(field.annotation)
-        if model is None:
-            return None
-        dict_key = getattr(field.annotation, "__origin__", None) is dict
-    return model
-
-
-def _first_model(annotation) -> type[BaseModel] | None:
-    if isinstance(annotation, type) and issubclass(annotation, BaseModel):
-        return annotation
-    for arg in getattr(annotation, "__args__", ()) or ():
-        found = _first_model(arg)
-        if found is not None:
-            return found
-    return None
-
-
-def _key_name(loc: tuple) -> str:
-    parts = [str(p) for p in loc if not isinstance(p, int)]
-    if not parts:
-        return "(top level)"
-    if len(parts) == 1:
-        return f"[{parts[0]}]"
-    return f"[{'.'.join(parts[:-1])}] {parts[-1]}"
-
-
-def _format_errors(exc: ValidationError, source: str) -> str:
-    messages = []
-    seen = set()
-    for err in exc.errors():
-        loc = tuple(err["loc"])
-        key = _key_name(loc)
-        if key in seen:
-            continue
-        seen.add(key)
-        if err["type"] == "extra_forbidden":
-            model = _model_at(loc)
-            valid = list(model.model_fields) if model else []
-            valid = [v for v in valid if v != "source"]
-            close = difflib.get_close_matches(str(loc[-1]), valid, n=1, cutoff=0.5)
-            hint = (
-                f"; did you mean {close[0]!r}?"
-                if close
-                else (f"; valid keys: {', '.join(valid)}" if valid else "")
-            )
-            messages.append(f"unknown key {key}{hint}")
-        elif err["type"] == "missing":
-            messages.append(f"missing required key {key}")
-        else:
-            got = err.get("input")
-            msg = err["msg"].removeprefix("Value error, ")
-            got_text = "" if isinstance(got, dict) or " got " in msg else f" (got {got!r})"
-            messages.append(f"key {key}: {msg}{got_text}")
-    return f"{source}: " + "; ".join(messages)
-
-
 def _resolve_paths(model: BaseModel, base: Path) -> BaseModel:
     updates = {}
     for name, value in model:
@@ -449,7 +354,7 @@ def config_from_dict(
     try:
         cfg = Config.model_validate(data)
     except ValidationError as exc:
-        raise ConfigError(_format_errors(exc, source)) from None
+        raise ConfigError(validation_message(exc, Config, source=source)) from None
     except ValueError as exc:  # raised by our own helpers inside validators
         raise ConfigError(f"{source}: {exc}") from None
     base = (base_dir or Path.cwd()).resolve()

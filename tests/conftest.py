@@ -23,14 +23,16 @@ def demo_zones(demo_dem):
 
 @pytest.fixture(scope="session")
 def demo_terrain(demo_dem):
-    from regionmap.terrain import TerrainSettings, compute_terrain
+    from regionmap.config import TerrainSettings
+    from regionmap.terrain import compute_terrain
 
     return compute_terrain(demo_dem, TerrainSettings())
 
 
 @pytest.fixture(scope="session")
 def demo_cells(demo_dem, demo_terrain, demo_zones):
-    from regionmap.cells import CellSettings, build_cells
+    from regionmap.cells import build_cells
+    from regionmap.config import CellSettings
 
     return build_cells(
         demo_dem,

@@ -16,7 +16,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from regionmap.config import BiasSection
+from regionmap.downscale.settings import BiasSettings
 from regionmap.errors import InputError
 from regionmap.stations.calibrate import (
     KOCHENDORFER2017_COEFFICIENTS,
@@ -114,7 +114,7 @@ def test_per_month_offsets_recovered_and_unfitted_months_pooled():
     assert c.own_fit[4] is False and c.values[4] == pytest.approx(pooled, abs=0.05)
     doc = tomllib.loads(bias_toml(result))
     assert len(doc["bias"]["air_temperature"]["offset"]) == 12
-    assert BiasSection(**doc["bias"]).air_temperature[0].offset[0] == pytest.approx(
+    assert BiasSettings(**doc["bias"]).air_temperature[0].offset[0] == pytest.approx(
         c.values[0], abs=1e-3
     )
 
@@ -126,7 +126,7 @@ def test_quantile_mapping_method_tables_and_toml():
     assert ("wind_speed", "sheltered") in keys and ("air_temperature", "all") in keys
     doc = tomllib.loads(bias_toml(result, quantile_mapping_file="qm.nc"))
     assert doc["bias"]["quantile_mapping"] == "qm.nc"
-    assert BiasSection(**doc["bias"]).quantile_mapping.name == "qm.nc"
+    assert BiasSettings(**doc["bias"]).quantile_mapping.name == "qm.nc"
     skill = result.skill.set_index(["exposure_class", "variable", "stage"])
     assert abs(skill.loc[("all", "air_temperature", "cross_validated")]["bias"]) < 0.1
 
@@ -149,7 +149,7 @@ def test_bias_toml_parses_with_config_units():
     assert "quantile_mapping" not in doc["bias"]
     assert "Guidance only" in text
     # the config schema (regionmap.config, extra keys forbidden) accepts what we print
-    section = BiasSection(**doc["bias"])
+    section = BiasSettings(**doc["bias"])
     assert [e.exposure for e in section.wind_speed] == ["sheltered", "exposed"]
     assert section.air_temperature[0].exposure == "all"
 

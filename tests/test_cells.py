@@ -10,10 +10,11 @@ from affine import Affine
 from rasterio.crs import CRS
 from rasterio.features import rasterize
 
-from regionmap.cells import CellSettings, build_cells
+from regionmap.cells import build_cells
+from regionmap.config import CellSettings, TerrainSettings
 from regionmap.errors import ConfigError
 from regionmap.io.dem import Dem
-from regionmap.terrain import TerrainSettings, compute_terrain
+from regionmap.terrain import compute_terrain
 
 
 def test_every_valid_in_zone_pixel_is_in_exactly_one_cell(demo_dem, demo_zones, demo_cells):
@@ -113,7 +114,7 @@ def test_sunlit_table_on_open_plane_is_one_above_and_zero_behind_the_plane():
     z = 5000.0 - g * (np.sin(math.radians(aspect)) * x - np.cos(math.radians(aspect)) * y)
     t = Affine(d, 0, 500000.0, 0, -d, 5200000.0)
     dem = Dem(z, t, CRS.from_epsg(32632))
-    terrain = compute_terrain(dem, TerrainSettings(n_azimuths=72, horizon_distance_m=1000.0))
+    terrain = compute_terrain(dem, TerrainSettings(horizon_azimuths=72, horizon_distance_m=1000.0))
     inner = box(500000 + 10 * d, 5200000 - 70 * d, 500000 + 70 * d, 5200000 - 10 * d)
     zones = gpd.GeoDataFrame({"zone": ["Plane"]}, geometry=[inner], crs=dem.crs)
     c = build_cells(dem, terrain, zones, CellSettings(band_edges_m=(0.0,), flat_below_deg=5.0))

@@ -24,7 +24,7 @@ def test_minimal_config_resolves_paths_relative_to_the_file(tmp_path):
     assert cfg.region.dem == tmp_path.resolve() / "d/dem.tif"
     assert cfg.forcing.path == str(tmp_path.resolve() / "f/*.nc")
     assert cfg.output.dir == tmp_path.resolve() / "out"
-    assert cfg.cells.effective_band_step_m == 300.0
+    assert cfg.cells.band_step_m == 300.0 and cfg.cells.band_edges_m is None
 
 
 def test_design_example_config_validates(tmp_path):

@@ -60,15 +60,27 @@ def transition(demo):
     where it crosses 0.5 (linear between the cells that bracket it, in elevation order).
     """
     from regionmap.downscale.pipeline import downscale_cells
-    from regionmap.pipeline.run import open_grid_forcing, prepare_batch, prepare_region
+    from regionmap.pipeline.run import (
+        open_grid_forcing,
+        prepare_batch,
+        prepare_region,
+        quantile_tables,
+    )
 
     cfg = demo["cfg"]
     peak = np.datetime64(demo["design"]["expected"]["rain_crust"]["peak_time"], "s")
     region = prepare_region(cfg)
     gf = open_grid_forcing(cfg)
-    batch, settings = prepare_batch(region, gf, cfg)
+    batch = prepare_batch(region, gf, cfg)
     k = int(np.searchsorted(np.asarray(gf.time, dtype="datetime64[s]"), peak))
-    forcing = downscale_cells(gf, batch, settings, slice(k, k + 1))
+    forcing = downscale_cells(
+        gf,
+        batch,
+        cfg.downscale,
+        slice(k, k + 1),
+        bias=cfg.bias,
+        quantile_tables=quantile_tables(cfg),
+    )
     table = region.cells.table.reset_index(drop=True)
     np.testing.assert_array_equal(batch.cell_id, demo["cells"]["cell_id"].values)
     sf = forcing.snow_frac[:, 0]
@@ -249,9 +261,9 @@ def burial_wind(demo):
     start = np.datetime64(demo["design"]["expected"]["surface_hoar"]["buried_at"], "s")
     region = prepare_region(cfg)
     gf = open_grid_forcing(cfg)
-    batch, settings = prepare_batch(region, gf, cfg)
+    batch = prepare_batch(region, gf, cfg)
     k = int(np.searchsorted(np.asarray(gf.time, dtype="datetime64[s]"), start))
-    wind = downscale_cells(gf, batch, settings, slice(k, k + 12)).wind_m_s.mean(axis=1)
+    wind = downscale_cells(gf, batch, cfg.downscale, slice(k, k + 12)).wind_m_s.mean(axis=1)
     return wind <= np.quantile(wind, 1 / 3), wind >= np.quantile(wind, 0.9)
 
 

@@ -7,7 +7,7 @@ import pytest
 
 from regionmap.downscale import solar
 from regionmap.downscale.pipeline import CellBatch, downscale_cells, downscale_record
-from regionmap.downscale.settings import DownscaleSettings
+from regionmap.downscale.settings import BiasSettings, DownscaleSettings
 from regionmap.downscale.weights import build_cell_weights
 from regionmap.errors import ConfigError, GridMismatchError, InputError
 
@@ -122,7 +122,7 @@ def test_fixed_lapse_reproduces_standard_atmosphere_field_whatever_the_model_ter
     # rounding of the values the reader hands over.
     grid = make_grid(t_fn=lambda z, h: 288.15 - 0.0065 * z + 0 * h)
     batch = make_batch(grid)
-    cf = downscale_cells(grid, batch, DownscaleSettings(lapse="fixed", lapse_fixed_k_per_km=6.5))
+    cf = downscale_cells(grid, batch, DownscaleSettings(lapse="fixed", lapse_rate_k_per_km=6.5))
     t_grid = 288.15 - 0.0065 * grid.surface_altitude
     f32_err = np.max(np.abs(t_grid.astype(np.float32) - t_grid))
     t_true = 288.15 - 0.0065 * batch.elevation_m
@@ -192,14 +192,12 @@ def test_bias_factors_and_monthly_offsets_apply_exactly():
     base = downscale_cells(grid, batch, DownscaleSettings())
     offs = [-0.5] * 12
     offs[0] = -1.25  # January
-    s = DownscaleSettings(
-        bias={
-            "precipitation": {"factor": 0.85},
-            "air_temperature": {"offset": offs},
-            "wind_speed": {"factor": [0.5] * 12},
-        }
+    bias = BiasSettings(
+        precipitation={"factor": 0.85},
+        air_temperature={"offset": offs},
+        wind_speed={"factor": [0.5] * 12},
     )
-    cf = downscale_cells(grid, batch, s)
+    cf = downscale_cells(grid, batch, DownscaleSettings(), bias=bias)
     np.testing.assert_array_equal(cf.precip_kg_m2, base.precip_kg_m2 * 0.85)
     np.testing.assert_array_equal(cf.t_air_k, base.t_air_k + -1.25)
     np.testing.assert_array_equal(cf.wind_m_s, base.wind_m_s * 0.5)
@@ -208,12 +206,12 @@ def test_bias_factors_and_monthly_offsets_apply_exactly():
 def test_freezing_rain_only_with_upper_air_information():
     grid = make_grid(t_fn=lambda z, h: 271.0 + 0 * z + 0 * h)
     batch = make_batch(grid, elevation=np.full(40, 1500.0))
-    cf = downscale_cells(grid, batch, DownscaleSettings(lapse="fixed", lapse_fixed_k_per_km=0.0))
+    cf = downscale_cells(grid, batch, DownscaleSettings(lapse="fixed", lapse_rate_k_per_km=0.0))
     assert np.all(cf.freezing_rain_frac == 0)
     assert downscale_record(grid, DownscaleSettings())["freezing_rain_source"].startswith("none")
     grid.freezing_rain_frac = True
     grid.fields["freezing_rain_frac"] = np.full((72, NY, NX), 0.8)
-    cf = downscale_cells(grid, batch, DownscaleSettings(lapse="fixed", lapse_fixed_k_per_km=0.0))
+    cf = downscale_cells(grid, batch, DownscaleSettings(lapse="fixed", lapse_rate_k_per_km=0.0))
     np.testing.assert_allclose(cf.freezing_rain_frac, 0.8, atol=1e-6)
     assert np.all(cf.snow_frac <= 0.2 + 1e-6)
 
@@ -240,7 +238,7 @@ def test_bad_settings_are_config_errors():
     with pytest.raises(ConfigError, match="lapse"):
         DownscaleSettings(lapse="steep")
     with pytest.raises(ConfigError, match="12"):
-        DownscaleSettings(bias={"air_temperature": {"offset": [1, 2]}})
+        BiasSettings(air_temperature={"offset": [1, 2]})
     grid = make_grid()
     with pytest.raises(InputError, match="time_slice"):
         downscale_cells(grid, make_batch(grid), DownscaleSettings(), slice(10, 5))
@@ -274,7 +272,7 @@ def test_freezing_rain_needs_the_warm_layer_above_the_cell():
     cf = downscale_cells(
         grid,
         batch,
-        DownscaleSettings(lapse="fixed", lapse_fixed_k_per_km=0.0, pressure="standard_atmosphere"),
+        DownscaleSettings(lapse="fixed", lapse_rate_k_per_km=0.0, pressure="standard_atmosphere"),
     )
     assert np.all(cf.freezing_rain_frac[elevation == low] > 0.5)
     assert np.all(cf.freezing_rain_frac[elevation == high] == 0)

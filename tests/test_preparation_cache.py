@@ -18,13 +18,7 @@ from test_run import assert_same, config, read, run, scenario  # noqa: F401  (se
 from regionmap.errors import RegionmapWarning
 from regionmap.pipeline import cache as cache_module
 from regionmap.pipeline.cache import PreparationCache
-from regionmap.pipeline.run import (
-    cell_settings,
-    open_grid_forcing,
-    prepare_batch,
-    prepare_region,
-    terrain_settings,
-)
+from regionmap.pipeline.run import open_grid_forcing, prepare_batch, prepare_region
 
 
 def _assert_same_value(a, b, where):
@@ -52,9 +46,9 @@ def test_cached_preparation_equals_a_fresh_one(scenario, tmp_path):  # noqa: F81
     np.testing.assert_array_equal(fresh.dem.elevation_m, loaded.dem.elevation_m)
     pd.testing.assert_frame_equal(fresh.cells.table, loaded.cells.table)
     gf = open_grid_forcing(cfg)
-    batch_fresh, _ = prepare_batch(fresh, gf, cfg)
+    batch_fresh = prepare_batch(fresh, gf, cfg)
     prepare_batch(stored, gf, cfg, cache=cache)  # stores the weights
-    batch_loaded, _ = prepare_batch(loaded, gf, cfg, cache=cache)
+    batch_loaded = prepare_batch(loaded, gf, cfg, cache=cache)
     assert len([p for p in cache.entries() if p.name.startswith("weights-")]) == 1
     _assert_same_value(batch_fresh, batch_loaded, "batch")
 
@@ -79,9 +73,8 @@ def test_run_results_are_identical_with_and_without_the_cache(scenario, tmp_path
 def test_key_changes_with_every_input_that_shapes_the_preparation(scenario, tmp_path, monkeypatch):  # noqa: F811
     cfg = config(scenario, "keys")
     cache = PreparationCache(tmp_path / "cache")
-    ts, cs = terrain_settings(cfg), cell_settings(cfg)
-    base = cache.region_key(cfg, ts, cs)
-    assert cache.region_key(cfg, ts, cs) == base  # deterministic
+    base = cache.region_key(cfg)
+    assert cache.region_key(cfg) == base  # deterministic
     keys = {base}
 
     def differs(key):
@@ -98,32 +91,33 @@ def test_key_changes_with_every_input_that_shapes_the_preparation(scenario, tmp_
     moved = cfg.model_copy(
         update={"region": cfg.region.model_copy(update={"dem": dem, "zones": zones})}
     )
-    assert cache.region_key(moved, ts, cs) == base  # same bytes elsewhere: same key
+    assert cache.region_key(moved) == base  # same bytes elsewhere: same key
     with rasterio.open(dem, "r+") as src:
         z = src.read(1)
         z[10, 10] += 1.0
         src.write(z, 1)
-    differs(cache.region_key(moved, ts, cs))
+    differs(cache.region_key(moved))
     zones.write_text(zones.read_text().replace("Yrlen Cirque", "Yrlen Basin"))
-    differs(cache.region_key(moved, ts, cs))
+    differs(cache.region_key(moved))
     # settings, zone field, version, code
-    differs(cache.region_key(cfg, dataclasses.replace(ts, n_azimuths=ts.n_azimuths * 2), cs))
-    differs(cache.region_key(cfg, ts, dataclasses.replace(cs, aspect_sectors=4)))
+    azimuths = cfg.terrain.horizon_azimuths * 2
+    terrain = cfg.terrain.model_copy(update={"horizon_azimuths": azimuths})
+    differs(cache.region_key(cfg.model_copy(update={"terrain": terrain})))
+    cells = cfg.cells.model_copy(update={"aspect_sectors": 4})
+    differs(cache.region_key(cfg.model_copy(update={"cells": cells})))
     other_field = cfg.model_copy(
         update={"region": cfg.region.model_copy(update={"zone_field": "other"})}
     )
-    differs(cache.region_key(other_field, ts, cs))
+    differs(cache.region_key(other_field))
     monkeypatch.setattr(cache_module, "__version__", "0.0.0-other")
-    differs(cache.region_key(cfg, ts, cs))
+    differs(cache.region_key(cfg))
     monkeypatch.setattr(cache_module, "_code_fingerprint", lambda: "edited code")
-    differs(cache.region_key(cfg, ts, cs))
+    differs(cache.region_key(cfg))
     # the weights: also the forcing grid and the interpolation
     gf = open_grid_forcing(cfg)
-    from regionmap.pipeline.run import downscale_settings
-
-    d = downscale_settings(cfg)
+    d = cfg.downscale
     w = cache.weights_key(base, gf, d)
-    assert w != cache.weights_key(base, gf, dataclasses.replace(d, interpolation="idw"))
+    assert w != cache.weights_key(base, gf, d.model_copy(update={"interpolation": "idw"}))
     assert w != cache.weights_key("another region", gf, d)
     grid = SimpleNamespace(lon=gf.grid.lon + 0.01, lat=gf.grid.lat, crs=gf.grid.crs)
     shifted = SimpleNamespace(grid=grid, surface_altitude=gf.surface_altitude)

@@ -84,11 +84,9 @@ def _settling_state(t_c):
 
 
 def _settled_after_a_day(t_c):
-    import dataclasses
-
     t = hours("2025-12-01T00:00", 24)
     f = make_forcing(t, 1, t_air_k=T_MELT_K + t_c, rh_frac=0.9, wind_m_s=1.0, cloud_frac=1.0)
-    p = dataclasses.replace(SnowParams(), deep_ground_temperature_k=T_MELT_K + t_c)
+    p = SnowParams(deep_ground_temperature_k=T_MELT_K + t_c)
     _, d, _ = run_columns(_settling_state(t_c), f, p)
     return 1.0 - d["snow_depth_cm"][0, -1] / 30.0
 

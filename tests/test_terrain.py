@@ -13,9 +13,10 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from test_terrain_speed_equivalence import _direct, random_line
 
+from regionmap.config import TerrainSettings
 from regionmap.errors import ConfigError
 from regionmap.io.dem import read_dem
-from regionmap.terrain import TerrainSettings, compute_terrain, write_terrain_layers
+from regionmap.terrain import compute_terrain, write_terrain_layers
 from regionmap.terrain.horizon import _scan_one_line
 
 
@@ -42,8 +43,8 @@ def test_hull_scan_equals_direct_maximum_dozier_frew1990(n, window, seed, floor0
 
 
 def test_terrain_settings_reject_bad_values():
-    with pytest.raises(ConfigError, match="n_azimuths"):
-        TerrainSettings(n_azimuths=100)
+    with pytest.raises(ConfigError, match="horizon_azimuths"):
+        TerrainSettings(horizon_azimuths=100)
     with pytest.raises(ConfigError, match="exposure_distance_m"):
         TerrainSettings(exposure_distance_m=0)
 
@@ -84,7 +85,7 @@ def test_geographic_dem_is_analysed_on_its_utm_view(tmp_path):
     )
     dem = read_dem(p)
     t = compute_terrain(
-        dem, TerrainSettings(n_azimuths=8, horizon_distance_m=500.0, exposure_directions=4)
+        dem, TerrainSettings(horizon_azimuths=8, horizon_distance_m=500.0, exposure_directions=4)
     )
     assert t.slope_deg.shape == dem.shape and t.horizon_deg.shape == (8, ny, nx)
     inner = (slice(10, -10), slice(10, -10))
@@ -125,7 +126,7 @@ def test_geographic_dem_aspect_and_horizon_are_relative_to_true_north(tmp_path):
         cog=False,
     )
     s = TerrainSettings(
-        n_azimuths=36, horizon_distance_m=300.0, exposure_directions=8, earth_curvature=False
+        horizon_azimuths=36, horizon_distance_m=300.0, exposure_directions=8, earth_curvature=False
     )
     t = compute_terrain(read_dem(p), s)
     inner = (slice(40, -40), slice(40, -40))
@@ -149,7 +150,7 @@ def test_write_terrain_layers_writes_each_layer_on_the_dem_grid(tmp_path):
     from regionmap.demo.scenario import SHIPPED_DEM
 
     dem_path = Path(shutil.copyfile(SHIPPED_DEM, tmp_path / "dem.tif"))
-    s = TerrainSettings(n_azimuths=8, horizon_distance_m=2000.0, exposure_directions=4)
+    s = TerrainSettings(horizon_azimuths=8, horizon_distance_m=2000.0, exposure_directions=4)
     written = write_terrain_layers(dem_path, tmp_path / "out", s, progress=False)
     names = sorted(p.name for p in written)
     assert names == [

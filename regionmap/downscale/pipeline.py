@@ -10,6 +10,7 @@ The grid points a batch needs are read once per time block.
 
 from __future__ import annotations
 
+from collections.abc import Sequence
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -26,8 +27,8 @@ from . import precip as _precip
 from . import solar as _solar
 from . import thermo as _thermo
 from . import wind as _wind
-from .quantile_mapping import select_qm_table
-from .settings import DownscaleSettings
+from .quantile_mapping import QuantileMappingTable, select_qm_table
+from .settings import BiasEntry, BiasSettings, DownscaleSettings
 from .types import CellForcing
 from .weights import CellWeights, build_cell_weights
 
@@ -53,7 +54,6 @@ _BIAS_TARGET = {  # [bias] key -> (CellForcing field, scale of the offset to can
     "shortwave_down": ("sw_in_w_m2", 1.0),
     "longwave_down": ("lw_in_w_m2", 1.0),
     "precipitation": ("precip_kg_m2", 1.0),
-    "surface_air_pressure": ("pressure_pa", 1.0),
 }
 
 
@@ -183,7 +183,7 @@ def _cell_lapse(settings, month_index, lat_deg):
     )
     td_lapse = _lapse.dew_point_lapse_liston_elder2006(vp_month)
     if settings.lapse == "fixed":
-        t_month = np.full_like(t_month, settings.lapse_fixed_k_per_km / 1000.0)
+        t_month = np.full_like(t_month, settings.lapse_rate_k_per_km / 1000.0)
     return t_month, td_lapse
 
 
@@ -198,7 +198,7 @@ def _precip_matrices(wmat: sp.csr_matrix, dz_pair: np.ndarray, months: np.ndarra
             settings.precip_chi_per_km
             if settings.precip_chi_per_km is not None
             else _precip.THORNTON1997_CHI_PER_KM[m]
-        ) * settings.precip_chi_scale
+        ) * settings.precip_coefficient_scale
         fac = _precip.precip_factor_thornton1997(dz_pair, chi, bounds=settings.precip_factor_bounds)
         out[m] = sp.csr_matrix((wmat.data * fac, wmat.indices, wmat.indptr), shape=wmat.shape)
     return out
@@ -217,13 +217,21 @@ def _read(gf, names, iy, ix, tslice) -> dict:
 
 
 def _downscale_block(
-    grid_forcing, chunks, settings, data, z_pts, time, month_idx, cols, out, sx_all
+    grid_forcing, chunks, settings, corrections, data, z_pts, time, month_idx, cols, out, sx_all
 ):
     """Downscale every cell chunk over the hours ``cols`` (positions in ``time``) from the grid
     values ``data`` of those hours, into ``out`` (and the drift's Sx into ``sx_all``)."""
     for sel, chunk, carry in chunks:
         res = _chunk_block(
-            grid_forcing, chunk, settings, data, z_pts, time[cols], month_idx[cols], carry
+            grid_forcing,
+            chunk,
+            settings,
+            corrections,
+            data,
+            z_pts,
+            time[cols],
+            month_idx[cols],
+            carry,
         )
         for name in out:
             out[name][sel, cols] = res[name]
@@ -238,7 +246,7 @@ def _n_levels(grid_forcing) -> int:
     return int(np.size(getattr(grid_forcing, "upper_air_pressure_pa", 0)))
 
 
-def _chunk_block(gf, batch: CellBatch, settings, data, z_pts, time, month_idx, carry):
+def _chunk_block(gf, batch: CellBatch, settings, corrections, data, z_pts, time, month_idx, carry):
     """Downscale one chunk of cells over one time block; returns a dict of (cell, time)."""
     w = batch.weights.matrix  # (cell, point) with columns = union positions
     z_c = batch.elevation_m[:, None]
@@ -265,7 +273,7 @@ def _chunk_block(gf, batch: CellBatch, settings, data, z_pts, time, month_idx, c
     rh_c = _lapse.humidity_at_new_temperature(t_c, td_c)
     # the user's temperature and humidity corrections come before phase and longwave
     corrected = {"t_air_k": t_c, "rh_frac": rh_c}
-    _apply_bias(corrected, month_idx, settings, batch.exposure_class, only=_BEFORE_PHASE)
+    _apply_bias(corrected, month_idx, corrections, batch.exposure_class, only=_BEFORE_PHASE)
     t_c, rh_c = corrected["t_air_k"], np.clip(corrected["rh_frac"], 1e-4, 1.0)
     e_c = rh_c * _thermo.saturation_vapour_pressure_water_buck1981(t_c)
 
@@ -283,13 +291,13 @@ def _chunk_block(gf, batch: CellBatch, settings, data, z_pts, time, month_idx, c
     )
     factor = np.ones_like(speed)
     sx_now = None
-    if settings.wind in ("winstral", "both") or settings.drift:
+    if settings.wind == "winstral" or settings.drift:
         sx_now = _wind.sx_at_direction(batch.sx_deg, batch.sx_directions_deg, wdir_c)
-    if settings.wind in ("winstral", "both"):
+    if settings.wind == "winstral":
         factor = factor * _wind.wind_factor_winstral_sx(
             sx_now, coef_per_deg=settings.wind_sx_coef_per_deg, bounds=settings.wind_factor_bounds
         )
-    if settings.wind in ("liston_sturm", "both"):
+    if settings.wind == "liston_sturm":
         factor = factor * _wind.wind_factor_liston_sturm1998(
             batch.slope_deg[:, None],
             batch.aspect_deg[:, None],
@@ -355,10 +363,10 @@ def _chunk_block(gf, batch: CellBatch, settings, data, z_pts, time, month_idx, c
     )
 
     # longwave
-    eps_clr_c = _lw.clear_sky_emissivity(e_c, t_c, settings.longwave_clear_sky)
+    eps_clr_c = _lw.clear_sky_emissivity(e_c, t_c, settings.longwave)
     if "longwave_down" in data:
         e_pts = rh_pts * _thermo.saturation_vapour_pressure_water_buck1981(t_pts)
-        cf = w @ _lw.cloud_factor(data["longwave_down"], e_pts, t_pts, settings.longwave_clear_sky)
+        cf = w @ _lw.cloud_factor(data["longwave_down"], e_pts, t_pts, settings.longwave)
         eps_c = cf * eps_clr_c
     else:
         day = cosz >= settings.cloud_proxy_min_cos_zenith
@@ -394,18 +402,24 @@ def _chunk_block(gf, batch: CellBatch, settings, data, z_pts, time, month_idx, c
 _BEFORE_PHASE = ("air_temperature", "relative_humidity")
 
 
-def _entry_for(entries: list[dict], exposure: str) -> dict | None:
+def _entry_for(entries: list[BiasEntry], exposure: str) -> BiasEntry | None:
     """The correction for one exposure class: its own entry, else the one for all cells."""
-    own = [e for e in entries if e.get("exposure", "all") == exposure]
-    general = [e for e in entries if e.get("exposure", "all") == "all"]
+    own = [e for e in entries if e.exposure == exposure]
+    general = [e for e in entries if e.exposure == "all"]
     return (own or general or [None])[0]
 
 
 def _apply_bias(
-    out: dict, month_idx: np.ndarray, settings: DownscaleSettings, exposure_class=None, *, only=None
+    out: dict,
+    month_idx: np.ndarray,
+    corrections: tuple[BiasSettings, tuple],
+    exposure_class=None,
+    *,
+    only=None,
 ) -> None:
     """Offsets/factors, then quantile mapping, per exposure class of the cells, for the
     variables in ``only`` (default: every variable except those corrected before phase)."""
+    bias, quantile_tables = corrections
     keys = only if only is not None else tuple(k for k in _BIAS_TARGET if k not in _BEFORE_PHASE)
     n_cell = next(iter(out.values())).shape[0]
     classes = (
@@ -413,12 +427,7 @@ def _apply_bias(
         if exposure_class is None
         else np.asarray(exposure_class, dtype=object)
     )
-    for key in settings.bias:
-        if key not in _BIAS_TARGET:
-            raise InputError(
-                f"[bias] {key}: unknown variable; expected one of {sorted(_BIAS_TARGET)}"
-            )
-    for table in settings.quantile_tables:
+    for table in quantile_tables:
         if table.variable not in _BIAS_TARGET:
             raise InputError(
                 f"[bias] quantile_mapping: table for {table.variable!r} has no downscaled "
@@ -428,21 +437,18 @@ def _apply_bias(
         name, scale = _BIAS_TARGET[key]
         if name not in out:
             continue
-        entries = settings.bias.get(key)
-        entries = (
-            [] if entries is None else ([entries] if isinstance(entries, dict) else list(entries))
-        )
+        entries = getattr(bias, key)
         for cls in np.unique(classes):
             rows = classes == cls
             corr = _entry_for(entries, cls)
             if corr is not None:
-                offset = corr.get("offset")
+                offset = corr.offset
                 if offset is not None:
                     offset = np.asarray(offset, dtype=np.float64) * scale
                 out[name][rows] = _bias.apply_offset_factor(
-                    out[name][rows], month_idx, offset=offset, factor=corr.get("factor")
+                    out[name][rows], month_idx, offset=offset, factor=corr.factor
                 )
-            table = select_qm_table(settings.quantile_tables, key, cls)
+            table = select_qm_table(quantile_tables, key, cls)
             if table is not None:
                 out[name][rows] = _bias.apply_quantile_table(out[name][rows], month_idx, table)
     if "rh_frac" in out:
@@ -457,6 +463,9 @@ def downscale_cells(
     cells_subset: CellBatch,
     settings: DownscaleSettings,
     time_slice: slice = slice(None),
+    *,
+    bias: BiasSettings | None = None,
+    quantile_tables: Sequence[QuantileMappingTable] = (),
 ) -> CellForcing:
     """Hourly per-cell forcing for a batch of cells over a slice of the forcing's hours.
 
@@ -470,6 +479,9 @@ def downscale_cells(
     settings : DownscaleSettings
     time_slice : slice
         Contiguous hourly indices into ``grid_forcing.time``.
+    bias : the ``[bias]`` offsets and factors (None: none).
+    quantile_tables : quantile-mapping tables applied after them (read from ``[bias]
+        quantile_mapping`` by :func:`regionmap.downscale.quantile_mapping.read_qm_table`).
 
     Returns
     -------
@@ -487,6 +499,7 @@ def downscale_cells(
         )
     time = times_all[start:stop]
     month_idx = _month_index(time)
+    corrections = (bias if bias is not None else BiasSettings(), tuple(quantile_tables))
     n_cell, n_t = cells_subset.n_cells, time.size
     out = {name: np.empty((n_cell, n_t)) for name in _SERIES}
     sx_all = np.empty((n_cell, n_t)) if settings.drift else None
@@ -543,6 +556,7 @@ def downscale_cells(
                 grid_forcing,
                 chunks,
                 settings,
+                corrections,
                 data,
                 z_pts,
                 time,
@@ -562,7 +576,7 @@ def downscale_cells(
             coef_per_deg=settings.drift_coef_per_deg,
             bounds=settings.drift_bounds,
         )
-    _apply_bias(out, month_idx, settings, cells_subset.exposure_class)
+    _apply_bias(out, month_idx, corrections, cells_subset.exposure_class)
     heights = grid_forcing.heights_m
     if not {"wind", "temperature"} <= set(heights):
         raise InputError(

@@ -32,6 +32,7 @@ import warnings
 from pathlib import Path
 
 import numpy as np
+from pydantic import BaseModel
 
 from regionmap import __version__
 from regionmap.errors import RegionmapWarning
@@ -94,7 +95,9 @@ def _code_fingerprint() -> str:
 
 
 def _plain(value):
-    """Settings as JSON-able values (dataclasses, tuples, arrays, paths)."""
+    """Settings as JSON-able values (settings sections, dataclasses, tuples, arrays, paths)."""
+    if isinstance(value, BaseModel):
+        return _plain(value.model_dump())
     if dataclasses.is_dataclass(value):
         return {f.name: _plain(getattr(value, f.name)) for f in dataclasses.fields(value)}
     if isinstance(value, dict):
@@ -125,8 +128,9 @@ class PreparationCache:
         self.max_bytes = int(max_bytes)
 
     # ------------------------------------------------------------------ keys
-    def region_key(self, cfg, terrain_settings, cell_settings) -> str:
-        """Key of a region's terrain and cells: input files, settings, version, code."""
+    def region_key(self, cfg) -> str:
+        """Key of a region's terrain and cells: input files, ``[terrain]`` and ``[cells]``,
+        version, code."""
         r = cfg.region
         return _key(
             {
@@ -137,8 +141,8 @@ class PreparationCache:
                 "zones_sha256": file_sha256(r.zones),
                 "zone_field": r.zone_field,
                 "zone_layer": r.zone_layer,
-                "terrain": _plain(terrain_settings),
-                "cells": _plain(cell_settings),
+                "terrain": _plain(cfg.terrain),
+                "cells": _plain(cfg.cells),
             }
         )
 

@@ -23,10 +23,9 @@ import pandas as pd
 import xarray as xr
 
 from regionmap.downscale.phase import snow_fraction
-from regionmap.downscale.pipeline import downscale_cells
 from regionmap.downscale.settings import DownscaleSettings
 from regionmap.downscale.types import CellForcing
-from regionmap.pipeline.run import RunContext, chunk_ranges, forcing_for
+from regionmap.pipeline.run import RunContext, chunk_ranges, downscale_forcing, forcing_for
 from regionmap.products.rain_crust import line_events, rain_crust_presence
 from regionmap.snow.column import run_columns, snapshots_to_dataset
 from regionmap.snow.state import SnowState
@@ -147,7 +146,7 @@ def _member_presence(
         }
     lo_z, hi_z = z[control].min() - _ENSEMBLE_MARGIN_M, z[control].max() + _ENSEMBLE_MARGIN_M
     cells = np.nonzero((z >= lo_z) & (z <= hi_z))[0]
-    if ctx.downscale.drift:  # drift is normalised per zone: re-simulate whole zones
+    if ctx.cfg.downscale.drift:  # drift is normalised per zone: re-simulate whole zones
         zone = ctx.batch.zone_code
         cells = np.nonzero(np.isin(zone, zone[cells]))[0]
     p = ctx.period
@@ -165,7 +164,7 @@ def _member_presence(
     formed = (first_ev - np.timedelta64(3600, "s"), last_ev + np.timedelta64(_AFTER_H * 3600, "s"))
     resume = start
     groups = (
-        ctx.batch.zone_code[cells] if ctx.downscale.drift else None
+        ctx.batch.zone_code[cells] if ctx.cfg.downscale.drift else None
     )  # drift: whole zones per block
     # blocks side by side, one per core (the kernel and most of the downscaling release the GIL)
     n_threads = os.cpu_count() or 1
@@ -208,15 +207,15 @@ def _block_presence(
         p.first, int(np.searchsorted(p.times, np.datetime64(state.time, "s"), side="right"))
     )
     if start > resume:  # one diagnostics interval: only the state is wanted
-        spin = downscale_cells(gf, batch, ctx.downscale, slice(resume, start))
+        spin = downscale_forcing(ctx, gf, batch, slice(resume, start))
         state, _, _ = run_columns(
-            state, spin, ctx.snow, start - resume, with_snapshots=False, threads=1
+            state, spin, ctx.cfg.snow, start - resume, with_snapshots=False, threads=1
         )
-    window = downscale_cells(gf, batch, ctx.downscale, slice(start, stop))
+    window = downscale_forcing(ctx, gf, batch, slice(start, stop))
     presence = np.zeros((len(ENSEMBLE_MEMBERS), cells.size), bool)
     for m, (dt_k, dphase_k) in enumerate(ENSEMBLE_MEMBERS):
-        f = perturbed_forcing(window, dt_k, dphase_k, ctx.downscale)
-        _, _, snaps = run_columns(state, f, ctx.snow, stop - start, None, threads=1)
+        f = perturbed_forcing(window, dt_k, dphase_k, ctx.cfg.downscale)
+        _, _, snaps = run_columns(state, f, ctx.cfg.snow, stop - start, None, threads=1)
         ds = (
             snapshots_to_dataset(snaps, batch.cell_id)
             .swap_dims({"day": "time"})

@@ -46,9 +46,9 @@ from regionmap.pipeline.run import (
     plan_period,
     prepare_batch,
     prepare_region,
+    quantile_tables,
     register_forcing,
     simulate_chunk,
-    snow_params,
 )
 from regionmap.products.write import write_products
 from regionmap.snow.codes import CRUST_KINDS, GRAIN_CODES
@@ -345,9 +345,10 @@ def execute(
     timings.update(region.timings_s)
     t0 = _time.perf_counter()
     gf = open_grid_forcing(cfg)
-    batch, dsettings = prepare_batch(region, gf, cfg, cache=cache)
+    batch = prepare_batch(region, gf, cfg, cache=cache)
+    qm_tables = quantile_tables(cfg)
     timings["forcing_open_and_weights"] = _time.perf_counter() - t0
-    params = snow_params(cfg)
+    params = cfg.snow
     diag_every = cfg.output.diagnostics_every_h
 
     fingerprints = region_fingerprints(region.dem, region.zones)
@@ -385,7 +386,7 @@ def execute(
     chunks = chunk_ranges(
         batch.n_cells,
         _effective_chunk_size(batch.n_cells, cfg.run.chunk_size, n_par),
-        batch.zone_code if dsettings.drift else None,
+        batch.zone_code if cfg.downscale.drift else None,
     )  # drift: whole zones per chunk
     # workers of a remote cluster cannot write into this machine's folders: there the
     # ensemble steps its cells from the run's start state instead
@@ -409,8 +410,7 @@ def execute(
     ctx = RunContext(
         cfg=cfg,
         batch=batch,
-        downscale=dsettings,
-        snow=params,
+        quantile_tables=qm_tables,
         period=period,
         diag_every_h=diag_every,
         snapshot_hour_utc=snapshot_hour,
@@ -541,7 +541,6 @@ def execute(
             cfg,
             region,
             gf,
-            dsettings,
             params,
             period,
             map_time,
@@ -667,7 +666,6 @@ def _run_record(
     cfg,
     region,
     gf,
-    dsettings,
     params,
     period,
     map_time,
@@ -723,12 +721,13 @@ def _run_record(
             },
             "heights_m": gf.heights_m,
             "heights_source": gf.heights_source,
-            "downscaling": downscale_record(gf, dsettings),
+            "downscaling": downscale_record(gf, cfg.downscale),
             "cell_totals_kg_m2": forcing_sums,
         },
         "snow": {
             "params": {
-                k: (v if not isinstance(v, float) else float(v)) for k, v in params.__dict__.items()
+                k: (v if not isinstance(v, float) else float(v))
+                for k, v in params.model_dump().items()
             },
             "kernel_status_bits": status_bits,
         },
@@ -794,7 +793,8 @@ def write_cell_forcing(
     cache = preparation_cache(cfg)
     region = prepare_region(cfg, cache=cache)
     gf = open_grid_forcing(cfg)
-    batch, dsettings = prepare_batch(region, gf, cfg, cache=cache)
+    batch = prepare_batch(region, gf, cfg, cache=cache)
+    qm_tables = quantile_tables(cfg)
     times = np.asarray(gf.time, dtype="datetime64[s]")
     analysis = (
         np.datetime64(cfg.forcing.analysis_time.replace(tzinfo=None), "s")
@@ -813,20 +813,28 @@ def write_cell_forcing(
             variables=FORCING_VARS,
             title="regionmap downscaled per-cell forcing",
             global_attrs={
-                "downscaling": json.dumps(downscale_record(gf, dsettings), default=str),
+                "downscaling": json.dumps(downscale_record(gf, cfg.downscale), default=str),
                 "wind_height_m": float(gf.heights_m["wind"]),
                 "temperature_height_m": float(gf.heights_m["temperature"]),
             },
         )
         try:
-            groups = batch.zone_code if dsettings.drift else None  # drift: whole zones per chunk
+            groups = (
+                batch.zone_code if cfg.downscale.drift else None
+            )  # drift: whole zones per chunk
             for lo, hi in tqdm(
                 chunk_ranges(batch.n_cells, cfg.run.chunk_size, groups),
                 desc="cell chunks",
                 unit="chunk",
                 disable=not progress,
             ):
-                f = downscale_cells(gf, batch.subset(np.arange(lo, hi)), dsettings)
+                f = downscale_cells(
+                    gf,
+                    batch.subset(np.arange(lo, hi)),
+                    cfg.downscale,
+                    bias=cfg.bias,
+                    quantile_tables=qm_tables,
+                )
                 writer.write_chunk(
                     np.arange(lo, hi), {name: getattr(f, name) for name in FORCING_VARS}
                 )

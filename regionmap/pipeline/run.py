@@ -19,12 +19,12 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 
-from regionmap.cells import CellSettings, build_cells
+from regionmap.cells import build_cells
 from regionmap.config import Config
 from regionmap.downscale.events import read_region_precipitation_max, region_event_hours
 from regionmap.downscale.pipeline import CellBatch, downscale_cells, prepare_cells
 from regionmap.downscale.quantile_mapping import read_qm_table
-from regionmap.downscale.settings import DownscaleSettings
+from regionmap.downscale.types import CellForcing
 from regionmap.errors import GridMismatchError, InputError
 from regionmap.io.dem import read_dem
 from regionmap.io.forcing import open_forcing
@@ -34,96 +34,17 @@ from regionmap.pipeline.checkpoints import Checkpoints
 from regionmap.pipeline.restart import restarts_in_chunk, run_columns_with_restarts
 from regionmap.snow.params import SnowParams
 from regionmap.snow.state import SnowState
-from regionmap.terrain import TerrainSettings, compute_terrain
+from regionmap.terrain import compute_terrain
 
 __all__ = [
     "Region",
     "RunContext",
     "prepare_region",
-    "terrain_settings",
-    "cell_settings",
-    "downscale_settings",
-    "snow_params",
     "open_grid_forcing",
     "simulate_chunk",
     "chunk_ranges",
     "plan_period",
 ]
-
-
-# --------------------------------------------------------------------------- settings
-def terrain_settings(cfg: Config):
-    t = cfg.terrain
-    return TerrainSettings(
-        n_azimuths=t.horizon_azimuths,
-        horizon_distance_m=t.horizon_distance_m,
-        exposure_directions=t.exposure_directions,
-        exposure_distance_m=t.exposure_distance_m,
-    )
-
-
-def cell_settings(cfg: Config):
-    c = cfg.cells
-    return CellSettings(
-        band_edges_m=tuple(c.band_edges_m) if c.band_edges_m is not None else None,
-        band_step_m=c.effective_band_step_m,
-        aspect_sectors=c.aspect_sectors,
-        flat_below_deg=c.flat_below_deg,
-        slope_classes_deg=tuple(c.slope_classes_deg or ()),
-    )
-
-
-def _bias_dict(cfg: Config) -> dict:
-    """``[bias]`` entries in the downscaling's form: per variable a list of corrections, each
-    for all cells or for one exposure class."""
-    out = {}
-    for name in (
-        "air_temperature",
-        "relative_humidity",
-        "wind_speed",
-        "precipitation",
-        "shortwave_down",
-        "longwave_down",
-    ):
-        entries = []
-        for entry in getattr(cfg.bias, name):
-            corr = {"exposure": entry.exposure}
-            if entry.factor is not None:
-                corr["factor"] = entry.factor
-            if entry.offset is not None:
-                corr["offset"] = entry.offset
-            entries.append(corr)
-        if entries:
-            out[name] = entries
-    return out
-
-
-def downscale_settings(cfg: Config) -> DownscaleSettings:
-    d = cfg.downscale
-    tables = read_qm_table(cfg.bias.quantile_mapping) if cfg.bias.quantile_mapping else []
-    return DownscaleSettings(
-        interpolation=d.interpolation,
-        lapse=d.lapse,
-        lapse_fixed_k_per_km=d.lapse_rate_k_per_km,
-        precip_chi_scale=d.precip_coefficient_scale,
-        precip_factor_bounds=tuple(d.precip_factor_bounds),
-        drift=d.drift,
-        phase=d.phase,
-        phase_threshold_c=d.phase_threshold_c,
-        longwave_clear_sky=d.longwave,
-        wind=d.wind,
-        bias=_bias_dict(cfg),
-        quantile_tables=tables,
-    )
-
-
-def snow_params(cfg: Config) -> SnowParams:
-    s = cfg.snow
-    return SnowParams(
-        max_layers=s.max_layers,
-        threshold_relative=s.threshold_mode == "relative",
-        depth_hoar_min_cm=s.depth_hoar_min_cm,
-    )
 
 
 # --------------------------------------------------------------------------- region
@@ -148,11 +69,10 @@ def prepare_region(
     """Read the DEM and zones, compute terrain and cells, or load them from ``cache``
     (:mod:`regionmap.pipeline.cache`), where a new preparation is stored."""
     timings = {}
-    t_settings, c_settings = terrain_settings(cfg), cell_settings(cfg)
     key = None
     if cache is not None:
         t0 = _time.perf_counter()
-        key = cache.region_key(cfg, t_settings, c_settings)
+        key = cache.region_key(cfg)
         region = cache.load("region", key)
         if region is not None:
             region.dem.path = cfg.region.dem  # the same bytes, wherever they are now
@@ -164,10 +84,10 @@ def prepare_region(
     zones = read_zones(cfg.region.zones, cfg.region.zone_field, dem, layer=cfg.region.zone_layer)
     timings["read_region"] = _time.perf_counter() - t0
     t0 = _time.perf_counter()
-    terrain = compute_terrain(dem, t_settings, progress=progress or None)
+    terrain = compute_terrain(dem, cfg.terrain, progress=progress or None)
     timings["terrain"] = _time.perf_counter() - t0
     t0 = _time.perf_counter()
-    cells = build_cells(dem, terrain, zones, c_settings)
+    cells = build_cells(dem, terrain, zones, cfg.cells)
     timings["cells"] = _time.perf_counter() - t0
     region = Region(dem, zones, terrain, cells, cache_key=key)
     if cache is not None:
@@ -307,10 +227,10 @@ class RunContext:
 
     Attributes
     ----------
-    cfg : the validated config (to reopen the forcing in worker processes).
+    cfg : the validated config (its sections are the stages' settings; it reopens the
+        forcing in worker processes).
     batch : CellBatch of all cells with their interpolation weights.
-    downscale : DownscaleSettings.
-    snow : SnowParams.
+    quantile_tables : the ``[bias]`` quantile-mapping tables.
     period : Period.
     diag_every_h : diagnostics interval [h].
     snapshot_hour_utc : hour (UTC) of the daily layer snapshots.
@@ -321,8 +241,7 @@ class RunContext:
 
     cfg: Config
     batch: CellBatch
-    downscale: DownscaleSettings
-    snow: SnowParams
+    quantile_tables: tuple
     period: Period
     diag_every_h: int
     snapshot_hour_utc: int
@@ -349,6 +268,18 @@ def register_forcing(ctx: RunContext, gf) -> None:
     """Let tasks in this process use an already opened forcing."""
     _FORCING_CACHE.clear()
     _FORCING_CACHE[(str(ctx.cfg.source), repr(ctx.cfg.forcing))] = gf
+
+
+def downscale_forcing(ctx: RunContext, gf, batch: CellBatch, steps: slice) -> CellForcing:
+    """Per-cell forcing of some cells over forcing steps ``steps``, corrected by ``[bias]``."""
+    return downscale_cells(
+        gf,
+        batch,
+        ctx.cfg.downscale,
+        steps,
+        bias=ctx.cfg.bias,
+        quantile_tables=ctx.quantile_tables,
+    )
 
 
 def _concat_parts(parts: list[dict]) -> dict:
@@ -385,7 +316,7 @@ def simulate_chunk(
     batch = ctx.batch.subset(np.arange(lo, hi))
     p = ctx.period
     t0 = _time.perf_counter()
-    forcing = downscale_cells(gf, batch, ctx.downscale, slice(p.first, p.stop))
+    forcing = downscale_forcing(ctx, gf, batch, slice(p.first, p.stop))
     t_down = _time.perf_counter() - t0
     n_an = p.split - p.first
     t0 = _time.perf_counter()
@@ -402,7 +333,7 @@ def simulate_chunk(
             state_now,
             forcing.subset(steps=steps),
             mine,
-            ctx.snow,
+            ctx.cfg.snow,
             ctx.diag_every_h,
             ctx.snapshot_hour_utc,
             with_snapshots=with_snapshots,
@@ -511,10 +442,10 @@ def initial_state(batch: CellBatch, params: SnowParams, period: Period) -> SnowS
 
 def prepare_batch(
     region: Region, gf, cfg: Config, *, cache: PreparationCache | None = None
-) -> tuple[CellBatch, DownscaleSettings]:
+) -> CellBatch:
     """Interpolation weights of every cell (built once, in the client), or loaded from
     ``cache`` for a region prepared with it, where new weights are stored."""
-    settings = downscale_settings(cfg)
+    settings = cfg.downscale
     table = region.cells.table
     gf.check_covers(table["lon"].to_numpy(float), table["lat"].to_numpy(float))
     if cache is None or region.cache_key is None:
@@ -528,16 +459,21 @@ def prepare_batch(
     # region-wide event windows from the grid precipitation over the region: an hour is wet
     # where a grid point has at least the event amount over the largest precipitation
     # factor, so every cell's wet hour lies in a window
-    snow = snow_params(cfg)
     points = np.unique(batch.weights.matrix.indices).astype(np.int64)
     precip_max = read_region_precipitation_max(gf, points, batch.weights.grid_shape)
     batch.region_event_hour = region_event_hours(
         precip_max,
         np.asarray(gf.time, dtype="datetime64[s]"),
-        min_kg_m2=snow.event_min_kg_m2 / settings.precip_factor_bounds[1],
-        gap_h=snow.event_gap_h,
+        min_kg_m2=cfg.snow.event_min_kg_m2 / settings.precip_factor_bounds[1],
+        gap_h=cfg.snow.event_gap_h,
     )
-    return batch, settings
+    return batch
+
+
+def quantile_tables(cfg: Config) -> tuple:
+    """The quantile-mapping tables of ``[bias] quantile_mapping`` (none without it)."""
+    path = cfg.bias.quantile_mapping
+    return tuple(read_qm_table(path)) if path is not None else ()
 
 
 def cells_frame(region: Region) -> pd.DataFrame:

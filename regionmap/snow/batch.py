@@ -79,7 +79,7 @@ from regionmap.snow.params import (
     P_PWL_MIN_GRAIN_MM,
     P_PWL_MIN_THICKNESS_M,
     P_SH_DENSITY_KG_M3,
-    P_THRESHOLD_RELATIVE,
+    P_THRESHOLD_MODE,
 )
 from regionmap.snow.surface_hoar import surface_hoar_size_mm
 from regionmap.snow.vecmath import padded_count
@@ -223,7 +223,7 @@ def run_cells(
     hard = np.zeros(width)
     scratch = np.zeros((N_SCRATCH_ROWS, cap))
     struct = np.zeros(N_STRUCT)
-    relative = p[P_THRESHOLD_RELATIVE] != 0.0
+    relative = p[P_THRESHOLD_MODE] != 0.0  # 1: relative thresholds
     epoch = 946684800
     for c in range(c0, c1):
         for i in range(cap):

@@ -1,14 +1,14 @@
-"""Parameters of the snow column, with defaults and their sources."""
+"""Parameters of the snow column (the ``[snow]`` section), with defaults and their sources."""
 
 from __future__ import annotations
 
 import hashlib
-from dataclasses import asdict, dataclass, fields
-from typing import Literal
+from typing import Annotated, ClassVar, Literal
 
 import numpy as np
+from pydantic import Field
 
-from regionmap.errors import ConfigError
+from regionmap.settings import Settings
 
 __all__ = [
     "SnowParams",
@@ -24,16 +24,19 @@ N_SOIL = 4  #: soil layers below the snow
 SOIL_THICKNESS_M = (0.8, 0.4, 0.2, 0.1)  #: soil layer thickness, deepest first [m]
 
 
-@dataclass(frozen=True)
-class SnowParams:
+class SnowParams(Settings):
     """Settings of the column model. Units in the names; sources beside each default.
 
     Values tagged [mem] were recalled, not re-read from the source; "ours" marks choices of
     this model (thresholds a practitioner would recognise, not published constants).
     """
 
+    section: ClassVar[str] = "snow"
+
     # layering
-    max_layers: int = 50  #: layers per cell (about 50 hold a season's distinct layers; ours)
+    max_layers: Annotated[int, Field(ge=10, le=MAX_LAYERS_LIMIT)] = (
+        50  #: layers per cell (about 50 hold a season's distinct layers; ours)
+    )
     new_layer_max_m: float = 0.02  #: new snow starts layers of at most 2 cm (ours)
     merge_depth_frac: float = 0.1  #: merged layers may be up to this share of their depth (ours)
     snow_event_gap_h: float = 6.0  #: dry hours that end a deposition event (ours)
@@ -103,8 +106,12 @@ class SnowParams:
     # events and diagnostics
     event_gap_h: float = 6.0  #: rain / freezing-rain dry hours that end an event (ours)
     event_min_kg_m2: float = 0.1  #: hourly amount that counts for an event (ours)
-    threshold_relative: bool = True  #: Monti et al. 2014 relative thresholds; False: absolute
-    depth_hoar_min_cm: float = 2.0  #: depth hoar counts as present from this thickness
+    threshold_mode: Literal["relative", "absolute"] = (
+        "relative"  #: Monti et al. 2014 relative thresholds, or absolute ones
+    )
+    depth_hoar_min_cm: Annotated[float, Field(ge=0, le=50)] = (
+        2.0  #: depth hoar counts as present from this thickness
+    )
     pwl_min_depth_m: float = 0.18  #: a weak layer of concern lies under a slab this deep (lower end of the critical depth window, Schweizer & Jamieson 2007 [mem])
     pwl_min_thickness_m: float = (
         0.005  #: of at least 0.5 cm of persistent grains (buried SH at any thickness; ours)
@@ -113,32 +120,12 @@ class SnowParams:
         1.0  #: with grains of at least 1 mm ("coarse", Fierz et al. 2009; ours)
     )
 
-    def __post_init__(self) -> None:
-        if not 10 <= self.max_layers <= MAX_LAYERS_LIMIT:
-            raise ConfigError(
-                f"[snow] max_layers: expected an integer in 10..{MAX_LAYERS_LIMIT}, got "
-                f"{self.max_layers!r}; hint: 50 suits a season"
-            )
-        if self.new_snow_density_model not in ("hedstrom1998", "vionnet2012"):
-            raise ConfigError(
-                f"[snow] new_snow_density_model: expected 'hedstrom1998' or 'vionnet2012', "
-                f"got {self.new_snow_density_model!r}"
-            )
-        if self.conductivity_model not in ("calonne2011", "sturm1997"):
-            raise ConfigError(
-                f"[snow] conductivity_model: expected 'calonne2011' or 'sturm1997', got "
-                f"{self.conductivity_model!r}"
-            )
-        for f in fields(self):
-            v = getattr(self, f.name)
-            if isinstance(v, float) and not np.isfinite(v):
-                raise ConfigError(f"[snow] {f.name}: expected a finite number, got {v!r}")
-
     def as_array(self) -> np.ndarray:
         """All settings as a float64 vector in :data:`PARAM_NAMES` order (for the kernel)."""
-        d = asdict(self)
+        d = self.model_dump()
         d["new_snow_density_model"] = 0.0 if self.new_snow_density_model == "hedstrom1998" else 1.0
         d["conductivity_model"] = 0.0 if self.conductivity_model == "calonne2011" else 1.0
+        d["threshold_mode"] = 1.0 if self.threshold_mode == "relative" else 0.0
         return np.array([float(d[n]) for n in PARAM_NAMES], dtype=np.float64)
 
     def fingerprint(self) -> str:
@@ -146,7 +133,7 @@ class SnowParams:
         return hashlib.sha256(self.as_array().tobytes()).hexdigest()[:16]
 
 
-PARAM_NAMES: tuple[str, ...] = tuple(f.name for f in fields(SnowParams))
+PARAM_NAMES: tuple[str, ...] = tuple(SnowParams.model_fields)
 PARAM_INDEX: dict[str, int] = {n: i for i, n in enumerate(PARAM_NAMES)}
 
 # Integer positions in the kernel parameter vector, as module constants the compiled code can

@@ -25,7 +25,7 @@ to trust the guidance and replace neither field observations nor the local avala
 
 from __future__ import annotations
 
-from dataclasses import dataclass, replace
+from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
@@ -42,13 +42,7 @@ from regionmap.io.atomic import atomic_write_text
 from regionmap.io.dem import read_dem
 from regionmap.io.stations import read_observations, read_stations
 from regionmap.io.writers import write_csv
-from regionmap.pipeline.run import (
-    cell_settings,
-    downscale_settings,
-    open_grid_forcing,
-    snow_params,
-    terrain_settings,
-)
+from regionmap.pipeline.run import open_grid_forcing, quantile_tables
 from regionmap.snow.column import run_columns
 from regionmap.snow.state import SnowState
 from regionmap.stations.calibrate import (
@@ -263,7 +257,7 @@ def _region_parts(cfg: Config, region):
     if region is not None:
         return region.dem, region.terrain
     dem = read_dem(cfg.region.dem)
-    return dem, compute_terrain(dem, terrain_settings(cfg))
+    return dem, compute_terrain(dem, cfg.terrain)
 
 
 def station_model_series(
@@ -311,10 +305,9 @@ def station_model_series(
     """
     dem, terrain = _region_parts(cfg, region)
     gf = open_grid_forcing(cfg) if grid_forcing is None else grid_forcing
-    settings = downscale_settings(cfg)
-    if raw:
-        settings = replace(settings, bias={}, quantile_tables=[])
-    cs = cell_settings(cfg)
+    settings = cfg.downscale
+    corrections = {} if raw else {"bias": cfg.bias, "quantile_tables": quantile_tables(cfg)}
+    cs = cfg.cells
     steps = dict(
         sun_azimuth_step_deg=cs.sun_azimuth_step_deg,
         sun_elevation_step_deg=cs.sun_elevation_step_deg,
@@ -323,15 +316,19 @@ def station_model_series(
     flat = station_cells(stations, dem, terrain, horizontal=True, **steps)
     wanted = _time_slice(gf.time, period)
     run_slice = slice(0, wanted.stop) if snow else wanted
-    forcing = downscale_cells(gf, _batch(on_terrain, gf, settings), settings, run_slice)
-    sw_flat = downscale_cells(gf, _batch(flat, gf, settings), settings, wanted).sw_in_w_m2
+    forcing = downscale_cells(
+        gf, _batch(on_terrain, gf, settings), settings, run_slice, **corrections
+    )
+    sw_flat = downscale_cells(
+        gf, _batch(flat, gf, settings), settings, wanted, **corrections
+    ).sw_in_w_m2
     keep = slice(wanted.start - run_slice.start, None)
     time = forcing.time[keep]
     n, nt = len(stations), time.size
     columns = {name: getattr(forcing, field)[:, keep] for name, field in MODEL_VARIABLES.items()}
     columns["shortwave_down"] = sw_flat
     if snow:
-        params = snow_params(cfg)
+        params = cfg.snow
         state0 = SnowState.empty(
             n, params.max_layers, time=forcing.time[0] - np.timedelta64(3600, "s")
         )

@@ -15,7 +15,7 @@ from pathlib import Path
 
 import numpy as np
 
-from regionmap.errors import ConfigError
+from regionmap.config import TerrainSettings
 from regionmap.io.dem import Dem, read_dem, reproject_to_grid
 from regionmap.io.writers import write_geotiff
 from regionmap.terrain.horizon import (
@@ -26,7 +26,6 @@ from regionmap.terrain.horizon import (
 from regionmap.terrain.slope import curvature_liston_sturm1998, slope_aspect_horn1981
 
 __all__ = [
-    "TerrainSettings",
     "Terrain",
     "compute_terrain",
     "write_terrain_layers",
@@ -36,58 +35,6 @@ __all__ = [
     "sky_view_dozier_frew1990",
     "max_upwind_slope_winstral2002",
 ]
-
-
-@dataclass(frozen=True)
-class TerrainSettings:
-    """Terrain-analysis options (the ``[terrain]`` config section).
-
-    Attributes
-    ----------
-    n_azimuths : int
-        Horizon azimuths, equally spaced from north (4–72, default 16).
-    horizon_distance_m : float
-        Horizon search distance [m] (default 5000).
-    exposure_directions : int
-        Wind-direction sectors for Sx, equally spaced from north (default 8).
-    exposure_distance_m : float
-        Upwind search distance d_max for Sx [m] (default 300, common later practice [mem]).
-    curvature_length_m : float
-        Curvature length scale η [m] (default 500).
-    earth_curvature : bool
-        Lower distant terrain by d²/2R in the horizon scan (default True).
-    """
-
-    n_azimuths: int = 16
-    horizon_distance_m: float = 5000.0
-    exposure_directions: int = 8
-    exposure_distance_m: float = 300.0
-    curvature_length_m: float = 500.0
-    earth_curvature: bool = True
-
-    def __post_init__(self):
-        checks = [
-            ("n_azimuths", 4 <= int(self.n_azimuths) <= 72, "an integer from 4 to 72"),
-            ("horizon_distance_m", self.horizon_distance_m > 0, "a positive distance in metres"),
-            (
-                "exposure_directions",
-                1 <= int(self.exposure_directions) <= 72,
-                "an integer from 1 to 72",
-            ),
-            ("exposure_distance_m", self.exposure_distance_m > 0, "a positive distance in metres"),
-            ("curvature_length_m", self.curvature_length_m > 0, "a positive distance in metres"),
-        ]
-        for key, ok, expected in checks:
-            if not ok:
-                raise ConfigError(f"[terrain] {key} = {getattr(self, key)!r}: expected {expected}")
-
-    @property
-    def horizon_azimuths_deg(self) -> np.ndarray:
-        return np.arange(self.n_azimuths) * (360.0 / self.n_azimuths)
-
-    @property
-    def exposure_directions_deg(self) -> np.ndarray:
-        return np.arange(self.exposure_directions) * (360.0 / self.exposure_directions)
 
 
 @dataclass
@@ -127,7 +74,7 @@ def compute_terrain(dem: Dem, settings: TerrainSettings | None = None, *, progre
     dem : Dem
     settings : TerrainSettings (defaults when None)
     progress : callable or None
-        Called with a number of finished steps (n_azimuths + exposure_directions + 2 in total).
+        Called with a number of finished steps (horizon_azimuths + exposure_directions + 2 in total).
     """
     settings = settings or TerrainSettings()
     m = dem.metric()
@@ -256,7 +203,7 @@ def write_terrain_layers(
     dem = read_dem(dem_path)
     out = Path(out_dir)
     out.mkdir(parents=True, exist_ok=True)
-    steps = settings.n_azimuths + settings.exposure_directions + 2 + 6
+    steps = settings.horizon_azimuths + settings.exposure_directions + 2 + 6
     written: list[Path] = []
     with tqdm(total=steps, desc="terrain", unit="step", disable=not progress) as bar:
         t = compute_terrain(dem, settings, progress=bar.update)
