@@ -20,9 +20,11 @@ PACKAGE_DIR = Path(regionmap.__file__).parent
 LAZY_ALLOWED = {
     "affine",
     "cf_xarray",
+    "cfgrib",
     "contourpy",
     "dask",
     "distributed",
+    "eccodes",
     "geopandas",
     "jinja2",
     "matplotlib",

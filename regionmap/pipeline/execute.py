@@ -50,6 +50,7 @@ from regionmap.pipeline.run import (
     register_forcing,
     simulate_chunk,
 )
+from regionmap.products.summaries import observation_times
 from regionmap.products.write import write_products
 from regionmap.snow.codes import CRUST_KINDS, GRAIN_CODES
 from regionmap.snow.column import run_columns
@@ -244,10 +245,6 @@ def default_map_time(
     analysis_end : the last analysis time [UTC] (the run's end without a forecast part).
     local_timezone, observation_hour : the local observation day (``[output]``).
     """
-    import pandas as pd
-
-    from regionmap.products.summaries import observation_times
-
     end = np.datetime64(analysis_end, "s")
     obs = observation_times(
         out_times[0],

@@ -24,7 +24,7 @@ import xarray as xr
 from regionmap.cells import COMPASS_16
 from regionmap.errors import InputError
 from regionmap.io.times import utc_datetime64
-from regionmap.products.summaries import band_label, cell_values, summarise
+from regionmap.products.summaries import band_label, cell_values, observation_times, summarise
 
 __all__ = ["Metric", "METRICS", "RunOutputs", "SECTOR_ORDER", "metric"]
 
@@ -292,7 +292,6 @@ class RunOutputs:
             value = self.zones["new_snow_window_end"].iloc[0]
             if not pd.isna(value) and str(value).strip():
                 return utc_datetime64(value, "zones.gpkg new_snow_window_end")
-        from regionmap.products.summaries import observation_times
 
         obs = observation_times(
             self.map_time - np.timedelta64(2, "D"),
