@@ -48,9 +48,9 @@ def sector_names(n: int) -> list[str]:
 def band_edges_m(settings: CellSettings, elevation_m: np.ndarray) -> np.ndarray:
     """Band edges [m] for the given elevations: ``band_edges_m``, or multiples of
     ``band_step_m`` spanning them."""
-    if settings.band_edges_m is not None:
-        return np.asarray(settings.band_edges_m, dtype=float)
     step = settings.band_step_m
+    if settings.band_edges_m is not None or step is None:  # the settings give one of both
+        return np.asarray(settings.band_edges_m, dtype=float)
     lo = math.floor(np.nanmin(elevation_m) / step) * step
     hi = math.ceil(np.nanmax(elevation_m) / step) * step
     return np.arange(lo, hi + 0.5 * step, step)

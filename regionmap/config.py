@@ -15,7 +15,7 @@ import re
 import tomllib
 import zoneinfo
 from pathlib import Path
-from typing import Annotated, ClassVar, Literal
+from typing import Annotated, Any, ClassVar, Literal, TypeVar
 
 import numpy as np
 from pydantic import (
@@ -206,7 +206,10 @@ class OutputSection(Settings):
 
     @property
     def diagnostics_every_h(self) -> int:
-        return parse_interval_hours(self.diagnostics_every)
+        hours = parse_interval_hours(self.diagnostics_every)
+        if hours is None:  # the validator refuses such values
+            raise ConfigError(f"[output] diagnostics_every = {self.diagnostics_every!r}")
+        return hours
 
 
 class TerrainSettings(Settings):
@@ -330,8 +333,11 @@ def parse_interval_hours(text: str) -> int | None:
     return int(m.group(1)) * (24 if m.group(2) in "dD" else 1)
 
 
-def _resolve_paths(model: BaseModel, base: Path) -> BaseModel:
-    updates = {}
+_M = TypeVar("_M", bound=BaseModel)
+
+
+def _resolve_paths(model: _M, base: Path) -> _M:
+    updates: dict[str, Any] = {}
     for name, value in model:
         if isinstance(value, Path) and name != "source":
             updates[name] = value if value.is_absolute() else (base / value)
