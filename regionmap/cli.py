@@ -21,7 +21,7 @@ from pathlib import Path
 import numpy as np
 
 from regionmap import CAUTION, INVENTED_DATA, __version__
-from regionmap.config import RestartEntry, load_config, parse_band
+from regionmap.config import RestartEntry, TerrainSettings, load_config, parse_band
 from regionmap.errors import InputError, RegionmapError, RegionmapWarning
 from regionmap.io.atomic import is_no_space
 from regionmap.io.times import local_time_label
@@ -30,7 +30,6 @@ __all__ = ["main", "build_parser"]
 
 
 def _cmd_terrain(args: argparse.Namespace) -> int:
-    from regionmap.config import TerrainSettings
     from regionmap.terrain import write_terrain_layers
 
     settings = TerrainSettings(
@@ -552,12 +551,15 @@ def build_parser() -> argparse.ArgumentParser:
         "--out", type=Path, default=Path("terrain"), help="output folder (default: %(default)s)"
     )
     p.add_argument(
-        "--azimuths", type=int, default=16, help="horizon azimuths (4-72, default %(default)s)"
+        "--azimuths",
+        type=int,
+        default=TerrainSettings.model_fields["horizon_azimuths"].default,
+        help="horizon azimuths (4-72, default %(default)s)",
     )
     p.add_argument(
         "--horizon-distance",
         type=float,
-        default=5000.0,
+        default=TerrainSettings.model_fields["horizon_distance_m"].default,
         help="horizon search distance in m (default %(default)s)",
     )
     p.set_defaults(func=_cmd_terrain)
@@ -569,9 +571,9 @@ def _return_freed_memory_to_the_os() -> None:
     heap above 1 MB (``mallopt``), so arrays of finished chunks go back to the system.
 
     By default glibc raises its map threshold after each large free, and the chunk tasks'
-    many-megabyte arrays then fragment the heaps of the threads, which never shrink; with
-    these settings the largest benchmark's peak memory falls by about a sixth, at the price
-    of more page mapping.
+    many-megabyte arrays then fragment the heaps of the threads, which never shrink: the
+    largest benchmark's peak memory falls by about a sixth with these settings
+    (``benchmarks/NOTES.md``), at the price of more page mapping.
     """
     if platform.libc_ver()[0] != "glibc":
         return

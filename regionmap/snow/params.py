@@ -62,7 +62,7 @@ class SnowParams(Settings):
     soil_freezing_range_k: float = 1.0  #: it freezes between 0 and -1 degC (ours)
     # surface energy balance
     emissivity: float = 0.98  #: snow emissivity [mem]
-    roughness_m: float = 0.001  #: z0 = z0h over snow (~1 mm, METHODS)
+    roughness_m: float = 0.001  #: z0 = z0h over snow (~1 mm, common practice [mem])
     stable_floor_frac: float = 0.3  #: share of neutral exchange kept in very stable air (ours)
     wind_min_m_s: float = 0.5  #: wind floor in the bulk formulas (ours)
     newton_iterations: int = 6  #: safeguarded Newton steps on the skin temperature

@@ -59,7 +59,7 @@ def test_new_snow_density_vionnet2012_wind_form():
     [(100.0, 0.0367, 0.0464), (250.0, 0.1495, 0.0876), (400.0, 0.3748, 0.2513)],
 )
 def test_conductivity_calonne2011_sturm1997(rho, k_calonne, k_sturm):
-    # Calonne et al. (2011) GRL 38 Eq. 5; Sturm et al. (1997) J. Glaciol. 43 Eq. 5; METHODS [calc]
+    # Calonne et al. (2011) GRL 38 Eq. 5; Sturm et al. (1997) J. Glaciol. 43 Eq. 5 [calc]
     assert conductivity_calonne2011(rho) == pytest.approx(k_calonne, abs=5e-5)
     assert conductivity_sturm1997(rho) == pytest.approx(k_sturm, abs=5e-5)
 
