@@ -205,18 +205,14 @@ def bench_morning(folder: Path) -> dict:
 def bench_overhead(args, folder: Path) -> dict:
     """The same chunks through dask (threads) and through direct calls in a loop."""
     from regionmap.config import load_config
+    from regionmap.pipeline.chunk import RunContext, initial_state, register_forcing, simulate_chunk
     from regionmap.pipeline.execute import dask_client
-    from regionmap.pipeline.run import (
-        RunContext,
-        chunk_ranges,
-        initial_state,
+    from regionmap.pipeline.plan import chunk_ranges, plan_period
+    from regionmap.pipeline.region import (
         open_grid_forcing,
-        plan_period,
         prepare_batch,
         prepare_region,
         quantile_tables,
-        register_forcing,
-        simulate_chunk,
     )
 
     cfg = load_config(_scenario(folder / "r1000", *SIZES[1000][:2], args.days, SIZES[1000][2]))

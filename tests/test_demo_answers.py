@@ -60,7 +60,7 @@ def transition(demo):
     where it crosses 0.5 (linear between the cells that bracket it, in elevation order).
     """
     from regionmap.downscale.pipeline import downscale_cells
-    from regionmap.pipeline.run import (
+    from regionmap.pipeline.region import (
         open_grid_forcing,
         prepare_batch,
         prepare_region,
@@ -255,7 +255,7 @@ def burial_wind(demo):
     Returns (sheltered, exposed) cell masks: the third of the cells with the least wind and
     the tenth with the most."""
     from regionmap.downscale.pipeline import downscale_cells
-    from regionmap.pipeline.run import open_grid_forcing, prepare_batch, prepare_region
+    from regionmap.pipeline.region import open_grid_forcing, prepare_batch, prepare_region
 
     cfg = demo["cfg"]
     start = np.datetime64(demo["design"]["expected"]["surface_hoar"]["buried_at"], "s")

@@ -18,7 +18,7 @@ from test_run import assert_same, config, read, run, scenario  # noqa: F401  (se
 from regionmap.errors import RegionmapWarning
 from regionmap.pipeline import cache as cache_module
 from regionmap.pipeline.cache import PreparationCache
-from regionmap.pipeline.run import open_grid_forcing, prepare_batch, prepare_region
+from regionmap.pipeline.region import open_grid_forcing, prepare_batch, prepare_region
 
 
 def _assert_same_value(a, b, where):

@@ -357,7 +357,7 @@ def test_an_existing_cluster_via_scheduler_address(scenario, reference, tmp_path
 
 
 def test_chunks_keep_groups_whole():
-    from regionmap.pipeline.run import chunk_ranges
+    from regionmap.pipeline.plan import chunk_ranges
 
     zones = np.repeat([0, 1, 2, 3], [5, 300, 20, 40])
     assert chunk_ranges(zones.size, 50, zones) == [(0, 5), (5, 305), (305, 325), (325, 365)]

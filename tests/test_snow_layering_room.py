@@ -1,6 +1,6 @@
 """A full column with no similar neighbours still makes room without losing a crust.
 
-thin similar neighbours merge, but crusts, surface hoar, depth hoar
+Thin similar neighbours merge, but crusts, surface hoar, depth hoar
 and clearly different layers never merge away. Checked here on a column of alternating
 glaze (IF) and thin new-snow (PP) layers, the case that random freezing rain produces.
 """

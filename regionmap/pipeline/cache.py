@@ -58,7 +58,7 @@ _PREPARATION_CODE = (
     "io/zones.py",
     "downscale/weights.py",
     "downscale/pipeline.py",
-    "pipeline/run.py",
+    "pipeline/region.py",
 )
 
 

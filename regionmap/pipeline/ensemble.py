@@ -25,7 +25,8 @@ import xarray as xr
 from regionmap.downscale.phase import snow_fraction
 from regionmap.downscale.settings import DownscaleSettings
 from regionmap.downscale.types import CellForcing
-from regionmap.pipeline.run import RunContext, chunk_ranges, downscale_forcing, forcing_for
+from regionmap.pipeline.chunk import RunContext, downscale_forcing, forcing_for
+from regionmap.pipeline.plan import chunk_ranges
 from regionmap.products.rain_crust import line_events, rain_crust_presence
 from regionmap.snow.column import run_columns, snapshots_to_dataset
 from regionmap.snow.state import SnowState

@@ -33,23 +33,24 @@ from regionmap.io.outdir import OutputFolder, check_inputs_outside
 from regionmap.io.results import PROFILES_CHUNK_CELLS, CellsNcWriter, ProfilesNcWriter
 from regionmap.pipeline.cache import file_sha256, preparation_cache
 from regionmap.pipeline.checkpoints import Checkpoints, checkpoint_times
-from regionmap.pipeline.cluster import cluster_errors, dask_client
-from regionmap.pipeline.ensemble import rain_crust_ensemble
-from regionmap.pipeline.restart import merge_restart_records, resolve_restarts
-from regionmap.pipeline.run import (
+from regionmap.pipeline.chunk import (
     RunContext,
     align_state,
-    cells_frame,
-    chunk_ranges,
     initial_state,
-    open_grid_forcing,
-    plan_period,
-    prepare_batch,
-    prepare_region,
-    quantile_tables,
     register_forcing,
     simulate_chunk,
 )
+from regionmap.pipeline.cluster import cluster_errors, dask_client
+from regionmap.pipeline.ensemble import rain_crust_ensemble
+from regionmap.pipeline.plan import chunk_ranges, plan_period
+from regionmap.pipeline.region import (
+    cells_frame,
+    open_grid_forcing,
+    prepare_batch,
+    prepare_region,
+    quantile_tables,
+)
+from regionmap.pipeline.restart import merge_restart_records, resolve_restarts
 from regionmap.products.summaries import observation_times
 from regionmap.products.write import write_products
 from regionmap.snow.codes import CRUST_KINDS, GRAIN_CODES

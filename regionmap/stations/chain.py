@@ -42,7 +42,7 @@ from regionmap.io.atomic import atomic_write_text
 from regionmap.io.dem import read_dem
 from regionmap.io.stations import read_observations, read_stations
 from regionmap.io.writers import write_csv
-from regionmap.pipeline.run import open_grid_forcing, quantile_tables
+from regionmap.pipeline.region import open_grid_forcing, quantile_tables
 from regionmap.snow.column import run_columns
 from regionmap.snow.state import SnowState
 from regionmap.stations.calibrate import (
@@ -280,7 +280,7 @@ def station_model_series(
         From :func:`regionmap.io.stations.read_stations`.
     period : (start, end) of datetime64-like, optional
         First and last hourly interval end to return (UTC); None: the whole forcing.
-    region : regionmap.pipeline.run.Region, optional
+    region : regionmap.pipeline.region.Region, optional
         A prepared region (its DEM and terrain are reused); None reads and computes them.
     grid_forcing : GridForcing, optional
         An opened forcing; None opens ``[forcing]``.
@@ -458,7 +458,7 @@ def verify_command(
         coefficients [mem]) before comparing; None compares the gauge as measured.
     echo : bool
         Print the table, where the files are and the caution.
-    region : regionmap.pipeline.run.Region, optional
+    region : regionmap.pipeline.region.Region, optional
         A prepared region whose DEM and terrain are reused (None computes them).
 
     Returns
@@ -563,7 +563,7 @@ def calibrate_command(
         Kochendorfer et al. (2017) gauge correction of observed precipitation before fitting.
     echo : bool
         Print the TOML, the skill table, the notes and the caution.
-    region : regionmap.pipeline.run.Region, optional
+    region : regionmap.pipeline.region.Region, optional
         A prepared region whose DEM and terrain are reused (None computes them).
 
     Returns
@@ -653,7 +653,7 @@ def run_verification_last_day(cfg: Config, region, out_dir, map_time, *, grid_fo
     ----------
     cfg : Config
         With a ``[stations]`` section (``stations``, ``observations``); None section: nothing.
-    region : regionmap.pipeline.run.Region
+    region : regionmap.pipeline.region.Region
         The run's prepared region (DEM and terrain reused).
     out_dir : path
         The run's (temporary) output folder; ``verification.csv`` is written there.
