@@ -19,11 +19,15 @@ from __future__ import annotations
 
 from numba import njit
 
+from regionmap.snow.codes import CRUST_INDEX
 from regionmap.snow.constants import RHO_ICE_KG_M3
 
 __all__ = ["glaze_thickness_m", "substantial_rain", "crust_kind_on_refreeze", "counts_as_crust"]
 
-NONE, MELT_FREEZE, SUN, RAIN, GLAZE = 0, 1, 2, 3, 4
+#: crust kinds as indices of the crust table (module-level ints: constants to the compiled code)
+NONE, MELT_FREEZE, SUN, RAIN, GLAZE = (
+    CRUST_INDEX[kind] for kind in ("none", "melt-freeze", "sun", "rain", "glaze")
+)
 NO_CRUST = NONE
 #: layer flag bits (formation flags carried per layer)
 FLAG_WET_RAIN = 1  # wetted by rain in the current wet spell

@@ -24,6 +24,7 @@ import math
 
 from numba import njit
 
+from regionmap.snow.codes import GRAIN_INDEX
 from regionmap.snow.constants import T_MELT_K
 from regionmap.snow.vecmath import exp_vec, log_vec
 
@@ -40,8 +41,11 @@ __all__ = [
     "classify_grain",
 ]
 
-# grain indices of regionmap.snow.codes.GRAIN_CODES (kept literal for the compiled code)
-PP, DF, RG, RGXF, FC, FCXR, FCSF, DH, SH, MF, MFCR, IF = 1, 2, 3, 4, 5, 6, 7, 8, 9, 10, 11, 12
+# grain indices of the classification table (module-level ints: constants to the compiled code)
+PP, DF, RG, RGXF, FC, FCXR, FCSF, DH, SH, MF, MFCR, IF = (
+    GRAIN_INDEX[code]
+    for code in ("PP", "DF", "RG", "RGxf", "FC", "FCxr", "FCsf", "DH", "SH", "MF", "MFcr", "IF")
+)
 
 
 @njit(cache=True, nogil=True, error_model="numpy", inline="always")
