@@ -6,13 +6,17 @@ never leaves a half file or destroys an older one.
 
 from __future__ import annotations
 
+import datetime
 import os
+import sqlite3
 from collections.abc import Mapping
 from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
+import pandas as pd
 
+from regionmap import __version__
 from regionmap.errors import InputError, OutputError
 from regionmap.io.atomic import atomic_path, is_no_space, no_space_error
 from regionmap.io.tables import spreadsheet_safe
@@ -36,11 +40,7 @@ _BLOCK = 256
 
 def history_entry() -> str:
     """A CF ``history`` line (CF-1.8 §2.6.2): the UTC time and the program that wrote the file."""
-    from datetime import UTC, datetime
-
-    from regionmap import __version__
-
-    now = datetime.now(UTC).strftime("%Y-%m-%dT%H:%M:%SZ")
+    now = datetime.datetime.now(datetime.UTC).strftime("%Y-%m-%dT%H:%M:%SZ")
     return f"{now} written by regionmap {__version__}"
 
 
@@ -179,8 +179,6 @@ def write_geopackage(
     styles : layer name → :class:`LayerStyle`, stored as each layer's default style in the
         ``layer_styles`` table.
     """
-    import sqlite3
-
     import pyogrio
 
     with atomic_path(path) as tmp:
@@ -208,8 +206,6 @@ def write_geopackage(
 def _gpkg_columns(frame):
     """``frame`` with naive datetimes made UTC, and the names of its ``datetime.date``
     columns (written as text, then declared DATE)."""
-    import pandas as pd
-
     frame = frame.copy()
     dates = []
     for col in frame.columns:
@@ -240,10 +236,7 @@ def _declare_date_columns(db, date_columns: Mapping[str, list[str]]) -> None:
 
 def _layer_styles_table(layers: Mapping[str, object], styles: Mapping[str, LayerStyle]):
     """The ``layer_styles`` rows of every styled layer (columns as QGIS creates them)."""
-    import datetime
-
     import geopandas as gpd
-    import pandas as pd
 
     now = datetime.datetime.now(datetime.UTC).replace(microsecond=0)
     rows = []
@@ -315,8 +308,6 @@ def table_text(frame, *, booleans_as_text: bool = True):
     """``frame`` as the text a table file holds: floats rounded (:func:`rounded`), times in
     UTC as ISO 8601 with offset (:data:`TIME_FORMAT`), booleans ``true`` / ``false`` (or
     kept as booleans)."""
-    import pandas as pd
-
     frame = rounded(frame)
     for col in frame.columns:
         values = frame[col]

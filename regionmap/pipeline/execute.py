@@ -31,6 +31,7 @@ from regionmap.errors import InputError, OutputError
 from regionmap.io.atomic import atomic_write_text
 from regionmap.io.outdir import OutputFolder, check_inputs_outside
 from regionmap.io.results import PROFILES_CHUNK_CELLS, CellsNcWriter, ProfilesNcWriter
+from regionmap.io.writers import write_csv
 from regionmap.pipeline.cache import file_sha256, preparation_cache
 from regionmap.pipeline.checkpoints import Checkpoints, checkpoint_times
 from regionmap.pipeline.chunk import (
@@ -638,8 +639,6 @@ def _event_frame(events: list[dict], table=None):
 
 def _write_event_log(path: Path, events: list[dict], table) -> None:
     """``events.csv``: one row per rain-on-snow or freezing-rain event and cell."""
-    from regionmap.io.writers import write_csv
-
     frame = _event_frame(events, table).sort_values(["first_time", "cell"], kind="stable")
     write_csv(path, frame.drop(columns="cell"))
 

@@ -22,6 +22,7 @@ from matplotlib.colors import Normalize
 from matplotlib.patches import Rectangle
 
 from regionmap.io.times import local_time_label
+from regionmap.io.writers import write_csv
 from regionmap.plots.outputs import SECTOR_ORDER, Metric, RunOutputs, metric
 from regionmap.plots.style import METRIC_CMAP, new_figure, save_png, text_colour_on, zone_slug
 
@@ -305,8 +306,6 @@ def write_overview(out, zone: str, metric_name: str, *, time=None) -> tuple[Path
 def write_overview_csv(out, zone: str, metric_name: str, path: Path, *, time=None) -> Path:
     """The overview's numbers as CSV: one row per band (highest first), one column per aspect,
     plus ``zone``, ``metric``, ``units``, ``valid_time`` and ``status`` columns."""
-    from regionmap.io.writers import write_csv
-
     out = _outputs(out)
     m = metric(metric_name)
     t = out.map_time if time is None else out.time_in_run(time)
