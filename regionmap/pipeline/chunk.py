@@ -15,6 +15,7 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 
+from regionmap.cells import match_cells
 from regionmap.config import Config
 from regionmap.downscale.pipeline import CellBatch, downscale_cells
 from regionmap.downscale.types import CellForcing
@@ -212,8 +213,6 @@ def align_state(
     InputError
         Different snow settings fingerprint.
     """
-    from regionmap.cells import match_cells
-
     if saved_cells is None or saved_region is None:
         raise GridMismatchError(
             f"{where}: the state holds no cell identities or region fingerprints, so its cells "

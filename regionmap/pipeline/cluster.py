@@ -22,9 +22,11 @@ import contextlib
 import importlib.util
 import logging
 import os
+import warnings
 from concurrent.futures import CancelledError
 from pathlib import Path
 
+import yaml
 from distributed.diagnostics.plugin import WorkerPlugin
 
 from regionmap.errors import ClusterError, InputError
@@ -47,8 +49,6 @@ class _QuietWorker(WorkerPlugin):
         self.level = level
 
     def setup(self, worker) -> None:
-        import warnings
-
         if self.level > logging.WARNING:
             warnings.simplefilter("ignore")
         for name in ("distributed", "dask", "numba", "rasterio"):
@@ -63,7 +63,6 @@ def _library_log_level() -> int:
 def _scheduler_security(path: Path | None):
     """TLS settings for ``--scheduler``: from a dask config file, else from the dask config."""
     import dask
-    import yaml
     from distributed.security import Security
 
     if path is None:

@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import contextlib
 import datetime as dt
+import glob
 import hashlib
 import json
 import os
@@ -180,8 +181,6 @@ def check_free_space(target: Path, needed_bytes: int) -> None:
 
 def run_inputs(cfg: Config, continue_from=None, restarts=()) -> list[tuple[str, Path]]:
     """Every file a run reads as (what, path), for :func:`regionmap.io.outdir.check_inputs_outside`."""
-    import glob
-
     inputs = [
         ("config", cfg.source),
         ("DEM", cfg.region.dem),

@@ -27,6 +27,7 @@ References
 
 from __future__ import annotations
 
+import hashlib
 import io
 import re
 from pathlib import Path
@@ -200,8 +201,6 @@ def slug(text: str) -> str:
 def zone_slug(zone: str) -> str:
     """File-name part of a zone, unique per zone name: its :func:`slug` and the first 6 hex
     digits of the name's SHA-256 (``"H West"`` and ``"h/west"`` share the slug ``h-west``)."""
-    import hashlib
-
     return f"{slug(zone)}-{hashlib.sha256(str(zone).encode()).hexdigest()[:6]}"
 
 

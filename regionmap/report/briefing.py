@@ -53,8 +53,15 @@ from regionmap.plots.maps import (
     rain_crust_events,
 )
 from regionmap.plots.outputs import METRICS, RunOutputs
-from regionmap.plots.overview import plot_overview, write_overview_csv
+from regionmap.plots.overview import plot_overview, sector_layout, write_overview_csv
 from regionmap.plots.profile import plot_profile, read_profile
+from regionmap.plots.roses import (
+    encode_classes,
+    grid_values,
+    metric_scales,
+    presence_scale,
+    zone_grid,
+)
 from regionmap.plots.style import PRINT_DPI, REPORT_DPI, render_png, slug, zone_slug
 from regionmap.plots.tracker import (
     layer_tracks,
@@ -63,7 +70,12 @@ from regionmap.plots.tracker import (
     plot_layer_tracker,
 )
 from regionmap.products.summaries import band_label
-from regionmap.report.headline import HEADLINE_MIN_PRESENCE_FRAC
+from regionmap.report.headline import (
+    HEADLINE_MIN_PRESENCE_FRAC,
+    headline_items,
+    layer_lines,
+    zone_changes,
+)
 
 __all__ = ["write_all_figures", "write_report", "OVERVIEW_METRICS", "REPORT_MAX_BYTES", "CAUTIONS"]
 
@@ -550,15 +562,6 @@ def _run_items(run: dict) -> list[tuple[str, str]]:
 def _rose_payload(out: RunOutputs, lines: pd.DataFrame) -> tuple[dict, dict, list, dict]:
     """What the page needs to draw the roses: the zones' grids, the colour scales, the
     metric roses per zone and the layer roses per (zone, layer_id), as class strings."""
-    from regionmap.plots.overview import sector_layout
-    from regionmap.plots.roses import (
-        encode_classes,
-        grid_values,
-        metric_scales,
-        presence_scale,
-        zone_grid,
-    )
-
     ba = out.band_aspect_table
     sectors, _ = sector_layout(out.table["aspect_sector"].unique())
     grids = zone_grid(ba, out.table, sectors)
@@ -627,8 +630,6 @@ def write_report(out_dir) -> Path:
         When the report would exceed 10 MB or cannot be written.
     """
     from jinja2 import Environment, FileSystemLoader, StrictUndefined, select_autoescape
-
-    from regionmap.report.headline import headline_items, layer_lines, zone_changes
 
     out = RunOutputs(out_dir)
     try:

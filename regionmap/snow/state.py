@@ -17,11 +17,13 @@ from dataclasses import dataclass, fields
 from pathlib import Path
 
 import numpy as np
+import pandas as pd
 import xarray as xr
 
 from regionmap.cells import IDENTITY_COLUMNS
 from regionmap.errors import InputError, OutputError
 from regionmap.io.atomic import is_no_space, no_space_error
+from regionmap.io.results import CELL_TABLE_VARIABLES
 from regionmap.io.writers import history_entry
 from regionmap.snow.codes import (
     crust_codes_to_strings,
@@ -392,7 +394,6 @@ class SnowState:
         if cells is not None:
             if len(cells) != self.n_cells:
                 raise ValueError("to_dataset: the cell table does not match the state's cells")
-            from regionmap.io.results import CELL_TABLE_VARIABLES
 
             for name in IDENTITY_COLUMNS:
                 dtype, var_attrs = CELL_TABLE_VARIABLES[name]
@@ -611,8 +612,6 @@ def load_state_with_identity(path) -> tuple[SnowState, object, dict | None]:
     InputError
         Missing or unreadable file, or contents that are not a valid snow state.
     """
-    import pandas as pd
-
     path = Path(path)
     if not path.is_file():
         raise InputError(
