@@ -16,6 +16,10 @@ from pathlib import Path
 import numpy as np
 
 from regionmap.errors import ForcingReadError, InputError
+from regionmap.io import forcing as _f
+from regionmap.io.atomic import atomic_write_text
+from regionmap.io.dem import read_dem
+from regionmap.io.zones import read_zones
 
 __all__ = ["band_edges_for", "write_starter_config", "zone_field_of"]
 
@@ -64,8 +68,6 @@ def _zones(path: Path, dem):
     import geopandas as gpd
     import pyogrio
 
-    from regionmap.io.zones import read_zones
-
     try:
         layers = [str(name) for name, kind in pyogrio.list_layers(path) if "Polygon" in str(kind)]
         all_layers = [str(name) for name, _ in pyogrio.list_layers(path)]
@@ -88,8 +90,6 @@ def _zones(path: Path, dem):
 
 def _forcing(pattern: str, base: Path) -> dict:
     """Period and variables of the forcing files (metadata only; the values are not read)."""
-    from regionmap.io import forcing as _f
-
     paths = _f._expand(pattern, base)
     first, last, variables = None, None, {}
     for p in paths:
@@ -169,9 +169,6 @@ def write_starter_config(
         A file that cannot be read or used (named in the message), or an existing config
         without ``force``.
     """
-    from regionmap.io.atomic import atomic_write_text
-    from regionmap.io.dem import read_dem
-
     folder = Path(folder)
     target = folder / CONFIG_NAME
     if target.exists() and not force:

@@ -35,7 +35,8 @@ import numpy as np
 from pydantic import BaseModel
 
 from regionmap import __version__
-from regionmap.errors import RegionmapWarning
+from regionmap.errors import OutputError, RegionmapWarning
+from regionmap.io.atomic import atomic_path
 
 __all__ = [
     "CACHE_MAX_BYTES",
@@ -191,9 +192,6 @@ class PreparationCache:
     def save(self, kind: str, key: str, value) -> Path | None:
         """Store ``value`` atomically, then prune; None (with a warning) when the folder
         cannot be written: the run goes on without the cache."""
-        from regionmap.errors import OutputError
-        from regionmap.io.atomic import atomic_path
-
         path = self.path(kind, key)
         try:
             with atomic_path(path) as tmp, open(tmp, "wb") as f:
