@@ -21,6 +21,7 @@ from __future__ import annotations
 import numpy as np
 from numba import njit
 
+from regionmap.snow.codes import GRAIN_INDEX
 from regionmap.snow.constants import RHO_WATER_KG_M3
 from regionmap.snow.crusts import counts_as_crust
 from regionmap.snow.hardness import hardness_index_from_density, hardness_index_from_density_array
@@ -42,7 +43,8 @@ __all__ = [
     "N_SCRATCH_ROWS",
 ]
 
-_FC, _FCXR, _FCSF, _DH, _SH = 5, 6, 7, 8, 9
+#: grain indices of the classification table (module-level ints: constants to the compiled code)
+_FC, _FCXR, _FCSF, _DH, _SH = (GRAIN_INDEX[c] for c in ("FC", "FCxr", "FCsf", "DH", "SH"))
 
 # indices into the structure output vector
 S_CRUST, S_CRUST_MF, S_CRUST_SUN, S_CRUST_RAIN, S_CRUST_GLAZE = 0, 1, 2, 3, 4

@@ -18,6 +18,7 @@ from __future__ import annotations
 import numpy as np
 from numba import njit
 
+from regionmap.snow.codes import GRAIN_INDEX
 from regionmap.snow.compaction import compaction_strain_rate
 from regionmap.snow.conduction import (
     conduction_back_substitution,
@@ -170,7 +171,8 @@ ST_NONFINITE = 4  # a non-finite value appeared (cell state kept, step skipped)
 EV_RAIN_ON_SNOW, EV_FREEZING_RAIN = 1, 2
 
 _SOIL_DZ = np.array(SOIL_THICKNESS_M, dtype=np.float64)
-_PP, _SH, _DH, _MF, _MFCR, _IF = 1, 9, 8, 10, 11, 12
+#: grain indices of the classification table (module-level ints: constants to the compiled code)
+_PP, _SH, _DH, _MF, _MFCR, _IF = (GRAIN_INDEX[c] for c in ("PP", "SH", "DH", "MF", "MFcr", "IF"))
 
 
 @njit(cache=True, nogil=True, error_model="numpy")

@@ -12,6 +12,7 @@ from __future__ import annotations
 
 from numba import njit
 
+from regionmap.snow.codes import GRAIN_INDEX
 from regionmap.snow.constants import C_ICE_J_KG_K, C_WATER_J_KG_K
 
 __all__ = [
@@ -29,7 +30,8 @@ F_ROWS = 7
 I_CODE, I_CRUST, I_FLAGS, I_DEP, I_FORM, I_EVENT = 0, 1, 2, 3, 4, 5
 I_ROWS = 6
 
-_SH, _DH, _MFCR, _IF = 9, 8, 11, 12
+#: grain indices of the classification table (module-level ints: constants to the compiled code)
+_SH, _DH, _MFCR, _IF = (GRAIN_INDEX[c] for c in ("SH", "DH", "MFcr", "IF"))
 
 
 @njit(cache=True, nogil=True, error_model="numpy")
