@@ -206,7 +206,7 @@ def bench_overhead(args, folder: Path) -> dict:
     """The same chunks through dask (threads) and through direct calls in a loop."""
     from regionmap.config import load_config
     from regionmap.pipeline.chunk import RunContext, initial_state, register_forcing, simulate_chunk
-    from regionmap.pipeline.execute import dask_client
+    from regionmap.pipeline.cluster import dask_client
     from regionmap.pipeline.plan import chunk_ranges, plan_period
     from regionmap.pipeline.region import (
         open_grid_forcing,

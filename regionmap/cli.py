@@ -159,7 +159,7 @@ def _restarts_from_args(args: argparse.Namespace, cfg) -> list:
 
 
 def _cmd_forcing(args: argparse.Namespace) -> int:
-    from regionmap.pipeline.execute import write_cell_forcing
+    from regionmap.pipeline.cell_forcing import write_cell_forcing
 
     cfg = load_config(args.config)
     path = write_cell_forcing(cfg, args.out, force=args.force, progress=not args.quiet)
@@ -304,56 +304,11 @@ class _Parser(argparse.ArgumentParser):
         self.exit(2, f"regionmap: error: {self.prog}: {message}; see {self.prog} --help\n")
 
 
-def build_parser() -> argparse.ArgumentParser:
-    """The argument parser with every sub-command (also used to document the CLI)."""
-    parser = _Parser(
-        prog="regionmap",
-        description="Regional snowpack-structure guidance for avalanche forecasters: downscale NWP "
-        "forcing to elevation-band x aspect cells, run a snow column per cell, and map weak "
-        "layers, crusts and new-snow loads per forecast zone.",
-        epilog=f"Caution: {CAUTION}",
-    )
-    parser.add_argument("--version", action="version", version=f"regionmap {__version__}")
-    parser.add_argument("--debug", action="store_true", help="show tracebacks on errors")
-    parser.add_argument(
-        "-q", "--quiet", action="store_true", help="no progress bars; errors only in the log"
-    )
-    parser.add_argument(
-        "-v",
-        "--verbose",
-        action="count",
-        default=0,
-        help="more log messages (-v: progress of the stages and library warnings, -vv: debug)",
-    )
-    # the same options after the sub-command, too
-    common = _Parser(add_help=False)
-    common.add_argument(
-        "--debug", action="store_true", default=argparse.SUPPRESS, help="show tracebacks on errors"
-    )
-    common.add_argument(
-        "-q",
-        "--quiet",
-        action="store_true",
-        default=argparse.SUPPRESS,
-        help="no progress bars; errors only in the log",
-    )
-    common.add_argument(
-        "-v",
-        "--verbose",
-        action="count",
-        default=argparse.SUPPRESS,
-        help="more log messages (-v, -vv)",
-    )
-    sub = parser.add_subparsers(dest="command", metavar="COMMAND", required=True)
-    _add = sub.add_parser
-
-    def add_parser(name, **kw):
-        return _add(name, parents=[common], **kw)
-
-    sub.add_parser = add_parser
-
+def _add_demo_command(sub, common: argparse.ArgumentParser) -> None:
+    """``regionmap demo``: the invented scenario, run end to end."""
     p = sub.add_parser(
         "demo",
+        parents=[common],
         help="build the invented demo region and run the chain on it",
         description="Build the invented demo scenario (DEM, zones, a season of NWP-like forcing) and "
         "run the whole chain on it.",
@@ -368,8 +323,12 @@ def build_parser() -> argparse.ArgumentParser:
     _add_run_options(p)
     p.set_defaults(func=_cmd_demo)
 
+
+def _add_init_command(sub, common: argparse.ArgumentParser) -> None:
+    """``regionmap init``: a commented config from the user's files."""
     p = sub.add_parser(
         "init",
+        parents=[common],
         help="write a commented config from your DEM, zones and forcing",
         description="Read your DEM (elevation range -> band edges), zones (the attribute that names "
         "each zone, the layer) and forcing (period, variables found by CF standard name) and "
@@ -385,8 +344,12 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--force", action="store_true", help="replace an existing regionmap.toml")
     p.set_defaults(func=_cmd_init)
 
+
+def _add_run_command(sub, common: argparse.ArgumentParser) -> None:
+    """``regionmap run``: the whole chain for a config."""
     p = sub.add_parser(
         "run",
+        parents=[common],
         help="run the whole chain for a config",
         description="Downscale the forcing to every cell, run the snow column per cell in parallel, and "
         "write cells.nc, profiles.nc, state.nc, zones.gpkg, maps/ and the report.",
@@ -440,8 +403,12 @@ def build_parser() -> argparse.ArgumentParser:
     _add_run_options(p)
     p.set_defaults(func=_cmd_run)
 
+
+def _add_forcing_command(sub, common: argparse.ArgumentParser) -> None:
+    """``regionmap forcing``: the downscaled per-cell forcing."""
     p = sub.add_parser(
         "forcing",
+        parents=[common],
         help="write the downscaled per-cell forcing, for inspection",
         description="Downscale the NWP forcing to every cell and write it as CF NetCDF (cell x time).",
     )
@@ -454,12 +421,16 @@ def build_parser() -> argparse.ArgumentParser:
     )
     p.set_defaults(func=_cmd_forcing)
 
+
+def _add_stations_command(sub, common: argparse.ArgumentParser) -> None:
+    """``regionmap verify`` and ``regionmap calibrate``: the chain at station points."""
     for name, helptext in (
         ("verify", "compare the downscaled forcing with station observations"),
         ("calibrate", "fit [bias] settings from station observations"),
     ):
         p = sub.add_parser(
             name,
+            parents=[common],
             help=helptext,
             description=helptext[0].upper() + helptext[1:] + ": the forcing "
             "is downscaled to each station point by the same chain as the cells.",
@@ -500,8 +471,12 @@ def build_parser() -> argparse.ArgumentParser:
         else:
             p.set_defaults(func=_cmd_verify)
 
+
+def _add_profile_command(sub, common: argparse.ArgumentParser) -> None:
+    """``regionmap profile``: one cell's simulated profile."""
     p = sub.add_parser(
         "profile",
+        parents=[common],
         help="draw one cell's simulated profile",
         description="Draw one cell's layers (grain class, size, hand hardness, temperature, density, "
         "liquid water) with crusts, weak layers and the worst interface marked.",
@@ -523,8 +498,12 @@ def build_parser() -> argparse.ArgumentParser:
     )
     p.set_defaults(func=_cmd_profile)
 
+
+def _add_report_command(sub, common: argparse.ArgumentParser) -> None:
+    """``regionmap report``: the briefing of a finished run."""
     p = sub.add_parser(
         "report",
+        parents=[common],
         help="write the HTML briefing report of a run",
         description="Write report.html (self-contained) and its maps under figures/ for a run's "
         "output folder; with --all-figures also every zone's overviews, profile, layer trackers "
@@ -539,8 +518,12 @@ def build_parser() -> argparse.ArgumentParser:
     )
     p.set_defaults(func=_cmd_report)
 
+
+def _add_terrain_command(sub, common: argparse.ArgumentParser) -> None:
+    """``regionmap terrain``: terrain layers of a DEM."""
     p = sub.add_parser(
         "terrain",
+        parents=[common],
         help="write terrain layers of a DEM as GeoTIFF",
         description="Slope, aspect (Horn 1981), curvature, sky-view factor (Dozier & Frew 1990) and "
         "maximum-upwind-slope wind exposure (Winstral et al. 2002) of a DEM, written as GeoTIFFs on "
@@ -563,6 +546,64 @@ def build_parser() -> argparse.ArgumentParser:
         help="horizon search distance in m (default %(default)s)",
     )
     p.set_defaults(func=_cmd_terrain)
+
+
+#: The sub-commands in the order ``regionmap --help`` lists them.
+_COMMANDS = (
+    _add_demo_command,
+    _add_init_command,
+    _add_run_command,
+    _add_forcing_command,
+    _add_stations_command,
+    _add_profile_command,
+    _add_report_command,
+    _add_terrain_command,
+)
+
+
+def build_parser() -> argparse.ArgumentParser:
+    """The argument parser with every sub-command (also used to document the CLI)."""
+    parser = _Parser(
+        prog="regionmap",
+        description="Regional snowpack-structure guidance for avalanche forecasters: downscale NWP "
+        "forcing to elevation-band x aspect cells, run a snow column per cell, and map weak "
+        "layers, crusts and new-snow loads per forecast zone.",
+        epilog=f"Caution: {CAUTION}",
+    )
+    parser.add_argument("--version", action="version", version=f"regionmap {__version__}")
+    parser.add_argument("--debug", action="store_true", help="show tracebacks on errors")
+    parser.add_argument(
+        "-q", "--quiet", action="store_true", help="no progress bars; errors only in the log"
+    )
+    parser.add_argument(
+        "-v",
+        "--verbose",
+        action="count",
+        default=0,
+        help="more log messages (-v: progress of the stages and library warnings, -vv: debug)",
+    )
+    # the same options after the sub-command, too
+    common = _Parser(add_help=False)
+    common.add_argument(
+        "--debug", action="store_true", default=argparse.SUPPRESS, help="show tracebacks on errors"
+    )
+    common.add_argument(
+        "-q",
+        "--quiet",
+        action="store_true",
+        default=argparse.SUPPRESS,
+        help="no progress bars; errors only in the log",
+    )
+    common.add_argument(
+        "-v",
+        "--verbose",
+        action="count",
+        default=argparse.SUPPRESS,
+        help="more log messages (-v, -vv)",
+    )
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND", required=True)
+    for add_command in _COMMANDS:
+        add_command(sub, common)
     return parser
 
 

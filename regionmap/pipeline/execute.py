@@ -8,32 +8,25 @@ temporary folder beside the target that replaces the old output folder only when
 from __future__ import annotations
 
 import contextlib
-import datetime as dt
 import glob
-import hashlib
 import json
 import os
-import platform
 import shutil
 import time as _time
 from dataclasses import dataclass
-from importlib import metadata
 from pathlib import Path
 
 import numpy as np
 import pandas as pd
 
-from regionmap import CAUTION, __version__
 from regionmap.cells import region_fingerprints
 from regionmap.config import Config
-from regionmap.downscale.pipeline import downscale_cells, downscale_record
 from regionmap.downscale.types import CellForcing
 from regionmap.errors import InputError, OutputError
 from regionmap.io.atomic import atomic_write_text
 from regionmap.io.outdir import OutputFolder, check_inputs_outside
 from regionmap.io.results import PROFILES_CHUNK_CELLS, CellsNcWriter, ProfilesNcWriter
-from regionmap.io.writers import write_csv
-from regionmap.pipeline.cache import file_sha256, preparation_cache
+from regionmap.pipeline.cache import preparation_cache
 from regionmap.pipeline.checkpoints import Checkpoints, checkpoint_times
 from regionmap.pipeline.chunk import (
     RunContext,
@@ -44,15 +37,17 @@ from regionmap.pipeline.chunk import (
 )
 from regionmap.pipeline.cluster import cluster_errors, dask_client
 from regionmap.pipeline.ensemble import rain_crust_ensemble
-from regionmap.pipeline.plan import chunk_ranges, plan_period
+from regionmap.pipeline.plan import Period, chunk_ranges, plan_period
+from regionmap.pipeline.record import RunTotals, run_record, write_event_log
 from regionmap.pipeline.region import (
+    Region,
     cells_frame,
     open_grid_forcing,
     prepare_batch,
     prepare_region,
     quantile_tables,
 )
-from regionmap.pipeline.restart import merge_restart_records, resolve_restarts
+from regionmap.pipeline.restart import resolve_restarts
 from regionmap.products.summaries import observation_times
 from regionmap.products.write import write_products
 from regionmap.snow.codes import CRUST_KINDS, GRAIN_CODES
@@ -60,7 +55,7 @@ from regionmap.snow.column import run_columns
 from regionmap.snow.state import SnowState, load_state_with_identity
 from regionmap.stations.chain import run_verification_last_day
 
-__all__ = ["RunOutcome", "execute", "dask_client", "LAYER_VARS"]
+__all__ = ["RunOutcome", "execute", "LAYER_VARS", "default_map_time", "run_inputs"]
 
 #: profiles.nc layer variables (the state.nc layer names plus formation_time).
 LAYER_VARS = {
@@ -105,22 +100,6 @@ LAYER_VARS = {
 
 #: The chunk tasks' saved control states, inside the run's temporary output folder.
 CHECKPOINT_FOLDER = ".checkpoints"
-
-_VERSIONS = (
-    "numpy",
-    "numba",
-    "xarray",
-    "dask",
-    "distributed",
-    "netCDF4",
-    "rasterio",
-    "geopandas",
-    "pyproj",
-    "shapely",
-    "pandas",
-    "scipy",
-    "matplotlib",
-)
 
 
 @dataclass
@@ -201,14 +180,6 @@ def run_inputs(cfg: Config, continue_from=None, restarts=()) -> list[tuple[str, 
 def _context(ctx: RunContext) -> RunContext:
     """The run's context, handed to the chunk tasks through the scheduler."""
     return ctx
-
-
-def _versions() -> dict:
-    out = {"regionmap": __version__, "python": platform.python_version()}
-    for name in _VERSIONS:
-        with contextlib.suppress(metadata.PackageNotFoundError):
-            out[name] = metadata.version(name)
-    return out
 
 
 def _map_time(cfg: Config, out_times: np.ndarray, period) -> np.datetime64:
@@ -296,6 +267,29 @@ def _warm_kernels(params) -> None:
     )
 
 
+@dataclass
+class _RunPlan:
+    """What a run prepares before it writes anything: the region, the forcing, the cells'
+    start state, the simulated hours and the chunks, and the chunk tasks' context."""
+
+    region: Region
+    grid_forcing: object
+    table: pd.DataFrame  # the cell table of the outputs (cells_frame)
+    fingerprints: dict  # the DEM's and zones' fingerprints, stored with the states
+    state0: SnowState
+    period: Period
+    out_times: np.ndarray  # (time,) datetime64[s] output times
+    map_time: np.datetime64
+    chunks: list
+    kept_times: np.ndarray | None  # checkpoint times (None: no checkpoints)
+    ctx: RunContext
+
+    @property
+    def map_is_forecast(self) -> bool:
+        """The map time lies in the forecast part of the period."""
+        return bool(self.period.has_forecast and self.map_time > self.period.analysis_end)
+
+
 def execute(
     cfg: Config,
     *,
@@ -329,16 +323,84 @@ def execute(
     use_cache : load the prepared region from the preparation cache and store it there
         (:mod:`regionmap.pipeline.cache`); False prepares it afresh and stores nothing.
     """
-    from tqdm.auto import tqdm
-
     t_all = _time.perf_counter()
     timings: dict = {}
     target = Path(out_dir or cfg.output.dir)
     check_inputs_outside(target, run_inputs(cfg, continue_from, restarts))
+    cache = preparation_cache(cfg) if use_cache else None
+    plan = _plan_run(cfg, continue_from, restarts, workers, scheduler, cache, timings)
+    check_free_space(target, _expected_bytes(plan))
+    register_forcing(plan.ctx, plan.grid_forcing)
+    t0 = _time.perf_counter()
+    _warm_kernels(cfg.snow)
+    timings["kernel_warm"] = _time.perf_counter() - t0
+    cluster = {
+        "workers": workers,
+        "scheduler": scheduler,
+        "dashboard": dashboard,
+        "scheduler_security": scheduler_security,
+    }
+    with OutputFolder(target, force=force) as folder:
+        out = folder.path
+        totals = _simulate_into(out, plan, cluster, progress, timings)
+        t0 = _time.perf_counter()
+        ensemble = rain_crust_ensemble(out, plan.ctx, plan.state0, plan.table, plan.map_time)
+        products = write_products(
+            out,
+            cfg,
+            plan.region,
+            map_time=plan.map_time,
+            is_forecast=plan.map_is_forecast,
+            ensemble_members=ensemble.members,
+        )
+        timings["products"] = _time.perf_counter() - t0
+        shutil.rmtree(out / CHECKPOINT_FOLDER, ignore_errors=True)
+        timings["total"] = _time.perf_counter() - t_all
+        record = run_record(
+            cfg,
+            region=plan.region,
+            grid_forcing=plan.grid_forcing,
+            period=plan.period,
+            map_time=plan.map_time,
+            totals=totals,
+            timings=timings,
+            continue_from=continue_from,
+            ensemble_cost=ensemble.cost,
+            scheduler={
+                "kind": "cluster" if scheduler else ("processes" if workers else "threads"),
+                "workers": workers,
+                "address": scheduler,
+                "chunks": len(plan.chunks),
+                "chunk_size": cfg.run.chunk_size,
+            },
+        )
+        record["preparation_cache"] = {
+            "dir": str(cache.folder) if cache else None,
+            "region": "loaded" if "region_from_cache" in plan.region.timings_s else "prepared",
+        }
+        _finish_folder(out, cfg, plan, record, extra_files, report)
+    return RunOutcome(
+        target,
+        products.zones,
+        products.sentences,
+        plan.map_time,
+        plan.map_is_forecast,
+        plan.ctx.batch.n_cells,
+        _time.perf_counter() - t_all,
+        cfg.output.local_timezone,
+        cfg.region.invented_data,
+    )
+
+
+def _plan_run(
+    cfg: Config, continue_from, restarts, workers, scheduler, cache, timings: dict
+) -> _RunPlan:
+    """Everything before the first output: the region, the forcing and the weights, the
+    start state (a continuation aligned to this run's cells, else snow-free), the simulated
+    hours and the map time, the restarts, the chunks and their checkpoint times."""
     state0 = None
     if continue_from is not None:  # read and checked before the long work
         state0, saved_cells, saved_region = load_state_with_identity(continue_from)
-    cache = preparation_cache(cfg) if use_cache else None
     region = prepare_region(cfg, progress=False, cache=cache)
     timings.update(region.timings_s)
     t0 = _time.perf_counter()
@@ -346,46 +408,44 @@ def execute(
     batch = prepare_batch(region, gf, cfg, cache=cache)
     qm_tables = quantile_tables(cfg)
     timings["forcing_open_and_weights"] = _time.perf_counter() - t0
-    params = cfg.snow
     diag_every = cfg.output.diagnostics_every_h
-
     fingerprints = region_fingerprints(region.dem, region.zones)
     table = cells_frame(region)
-    if continue_from is not None:
+    if state0 is not None:
+        where = str(continue_from)
         state0 = align_state(
-            state0, saved_cells, saved_region, table, fingerprints, params, str(continue_from)
+            state0, saved_cells, saved_region, table, fingerprints, cfg.snow, where
         )
+    analysis_time = cfg.forcing.analysis_time
     period = plan_period(
         gf.time,
         state_time=None if state0 is None else state0.time,
-        analysis_time=cfg.forcing.analysis_time.replace(tzinfo=None)
-        if cfg.forcing.analysis_time
-        else None,
+        analysis_time=analysis_time.replace(tzinfo=None) if analysis_time else None,
         diag_every_h=diag_every,
         where=str(cfg.forcing.path),
     )
     if state0 is None:
-        state0 = initial_state(batch, params, period)
-    resolved = []
-    if restarts:
-        resolved = resolve_restarts(
-            restarts,
-            cells_frame(region),
-            period.times[period.first : period.stop],
-            diag_every_h=diag_every,
-            max_layers=params.max_layers,
-        )
-
+        state0 = initial_state(batch, cfg.snow, period)
     sim_times = period.times[period.first : period.stop]
+    resolved = (
+        resolve_restarts(
+            restarts,
+            table,
+            sim_times,
+            diag_every_h=diag_every,
+            max_layers=cfg.snow.max_layers,
+        )
+        if restarts
+        else []
+    )
     out_times = sim_times[diag_every - 1 :: diag_every]
     map_time = _map_time(cfg, out_times, period)
-    snapshot_hour = int((map_time.astype("datetime64[h]").astype(np.int64)) % 24)
     n_par = max(1, workers or (os.cpu_count() or 1))
     chunks = chunk_ranges(
         batch.n_cells,
         _effective_chunk_size(batch.n_cells, cfg.run.chunk_size, n_par),
-        batch.zone_code if cfg.downscale.drift else None,
-    )  # drift: whole zones per chunk
+        batch.zone_code if cfg.downscale.drift else None,  # drift: whole zones per chunk
+    )
     # workers of a remote cluster cannot write into this machine's folders: there the
     # ensemble steps its cells from the run's start state instead
     kept_times = (
@@ -395,193 +455,165 @@ def execute(
             state0.time, period.stop - period.first, diag_every, [r.time for r in resolved]
         )
     )
-    check_free_space(
-        target,
-        expected_output_bytes(
-            batch.n_cells,
-            out_times.size,
-            sim_times.size // 24 + 1,
-            0 if kept_times is None else kept_times.size,
-            state0.nbytes_per_cell(),
-        ),
-    )
     ctx = RunContext(
         cfg=cfg,
         batch=batch,
         quantile_tables=qm_tables,
         period=period,
         diag_every_h=diag_every,
-        snapshot_hour_utc=snapshot_hour,
-        kernel_threads=max(1, n_par // max(1, min(len(chunks), n_par)))
-        if not (workers or scheduler)
-        else 1,
+        snapshot_hour_utc=int((map_time.astype("datetime64[h]").astype(np.int64)) % 24),
+        kernel_threads=1
+        if (workers or scheduler)
+        else max(1, n_par // max(1, min(len(chunks), n_par))),
         restarts=resolved,
     )
-    register_forcing(ctx, gf)
-    t0 = _time.perf_counter()
-    _warm_kernels(params)
-    timings["kernel_warm"] = _time.perf_counter() - t0
-
-    is_fc = (
-        out_times > period.analysis_end if period.has_forecast else np.zeros(out_times.size, bool)
-    )
-    interval_start = out_times - np.timedelta64(3600 * diag_every, "s")
-    state_an = state0.copy()
-    state_end = state0.copy()
-    events: list[dict] = []
-    forcing_sums = {"precip_kg_m2": 0.0, "snowfall_kg_m2": 0.0, "freezing_rain_kg_m2": 0.0}
-    task_seconds = {"downscale": 0.0, "column": 0.0}
-    write_seconds = 0.0  # cells.nc and profiles.nc, in this thread while chunks run
-    status_bits = 0
-    restart_records: list = []
-
-    with OutputFolder(target, force=force) as folder:
-        out = folder.path
-        if kept_times is not None:
-            # inside the run's temporary output folder: an interrupted run leaves none behind
-            (out / CHECKPOINT_FOLDER).mkdir()
-            ctx.checkpoints = Checkpoints(str(out / CHECKPOINT_FOLDER), kept_times)
-        cells_w = CellsNcWriter(
-            out / "cells.nc",
-            table,
-            out_times,
-            interval_start,
-            is_fc,
-            global_attrs={"map_time": str(map_time)},
-        )
-        prof_w = None
-        try:
-            t0 = _time.perf_counter()
-            with dask_client(
-                workers, scheduler, dashboard=dashboard, scheduler_security=scheduler_security
-            ) as client:
-                # the context as a task, not scattered data: when a worker dies, the
-                # scheduler can make it again for the worker that takes over its chunks
-                ctx_f = client.submit(_context, ctx, pure=False, key="run-context")
-                futures = [
-                    client.submit(
-                        simulate_chunk,
-                        ctx_f,
-                        lo,
-                        hi,
-                        state0.take(slice(lo, hi)),
-                        pure=False,
-                        key=f"chunk-{lo}-{hi}",
-                    )
-                    for lo, hi in chunks
-                ]
-                from distributed import as_completed
-
-                bar = tqdm(
-                    total=len(futures), desc="cell chunks", unit="chunk", disable=not progress
-                )
-                for fut in as_completed(futures):
-                    with cluster_errors(f"cell chunk {fut.key}"):
-                        res = fut.result()
-                    lo, hi = res["lo"], res["hi"]
-                    t_w = _time.perf_counter()
-                    cells_w.write_chunk(np.arange(lo, hi), res["diagnostics"])
-                    snaps = res["snapshots"]
-                    if prof_w is None:
-                        prof_w = ProfilesNcWriter(
-                            out / "profiles.nc",
-                            table,
-                            snaps["time"],
-                            params.max_layers,
-                            LAYER_VARS,
-                        )
-                    prof_w.write_chunk(
-                        np.arange(lo, hi), snaps["layer_count"], _profile_fields(snaps)
-                    )
-                    write_seconds += _time.perf_counter() - t_w
-                    state_an.put(lo, hi, res["state_analysis"])
-                    state_end.put(lo, hi, res["state_end"])
-                    events.append(_events_of(res["diagnostics"], lo))
-                    for k in forcing_sums:
-                        forcing_sums[k] += res["forcing_summary"][k]
-                    for k in task_seconds:
-                        task_seconds[k] += res["seconds"][k]
-                    status_bits |= int(np.bitwise_or.reduce(res["diagnostics"]["status"]))
-                    restart_records += res["restart_records"]
-                    bar.update(1)
-                    fut.release()
-                bar.close()
-            timings["simulate"] = _time.perf_counter() - t0
-            cells_w.close()
-            prof_w.close()
-        except BaseException:
-            cells_w.abort()
-            if prof_w is not None:
-                prof_w.abort()
-            raise
-        _write_event_log(out / "events.csv", events, table)
-        state_an.save(out / "state.nc", cells=table, region=fingerprints)
-        state_end.save(out / "state_end.nc", cells=table, region=fingerprints)
-        t0 = _time.perf_counter()
-        ensemble = rain_crust_ensemble(out, ctx, state0, table, map_time)
-        products = write_products(
-            out,
-            cfg,
-            region,
-            map_time=map_time,
-            is_forecast=bool(map_time > period.analysis_end) if period.has_forecast else False,
-            ensemble_members=ensemble.members,
-        )
-        timings["products"] = _time.perf_counter() - t0
-        shutil.rmtree(out / CHECKPOINT_FOLDER, ignore_errors=True)
-        # summed over chunk tasks (wall time inside each task; tasks run side by side)
-        timings["task_downscale_s"] = task_seconds["downscale"]
-        timings["task_column_s"] = task_seconds["column"]
-        timings["write_s"] = write_seconds
-        timings["total"] = _time.perf_counter() - t_all
-
-        record = _run_record(
-            cfg,
-            region,
-            gf,
-            params,
-            period,
-            map_time,
-            timings,
-            forcing_sums,
-            events,
-            status_bits,
-            continue_from,
-            merge_restart_records(restart_records),
-            ensemble.cost,
-            workers=workers,
-            scheduler=scheduler,
-            chunks=len(chunks),
-        )
-        record["preparation_cache"] = {
-            "dir": str(cache.folder) if cache else None,
-            "region": "loaded" if "region_from_cache" in region.timings_s else "prepared",
-        }
-        for name, src in (extra_files or {}).items():
-            dst = out / name
-            dst.parent.mkdir(parents=True, exist_ok=True)
-            shutil.copy2(src, dst)
-        atomic_write_text(out / "run.json", json.dumps(record, indent=2, default=str))
-        if cfg.stations is not None:
-            run_verification_last_day(cfg, region, out, map_time, grid_forcing=gf)
-        if report:
-            from regionmap.report.briefing import write_report
-
-            t0 = _time.perf_counter()
-            write_report(out)
-            record["timings_s"]["report"] = round(_time.perf_counter() - t0, 3)
-            atomic_write_text(out / "run.json", json.dumps(record, indent=2, default=str))
-    return RunOutcome(
-        target,
-        products.zones,
-        products.sentences,
+    return _RunPlan(
+        region,
+        gf,
+        table,
+        fingerprints,
+        state0,
+        period,
+        out_times,
         map_time,
-        bool(period.has_forecast and map_time > period.analysis_end),
-        batch.n_cells,
-        _time.perf_counter() - t_all,
-        cfg.output.local_timezone,
-        cfg.region.invented_data,
+        chunks,
+        kept_times,
+        ctx,
     )
+
+
+def _expected_bytes(plan: _RunPlan) -> int:
+    """:func:`expected_output_bytes` of a planned run."""
+    n_sim_hours = plan.period.stop - plan.period.first
+    return expected_output_bytes(
+        plan.ctx.batch.n_cells,
+        plan.out_times.size,
+        n_sim_hours // 24 + 1,
+        0 if plan.kept_times is None else plan.kept_times.size,
+        plan.state0.nbytes_per_cell(),
+    )
+
+
+def _simulate_into(out: Path, plan: _RunPlan, cluster: dict, progress: bool, timings: dict):
+    """Send the chunk tasks through dask and stream each finished chunk into ``cells.nc``
+    and ``profiles.nc``; then write ``events.csv``, ``state.nc`` and ``state_end.nc``.
+    Returns the chunks' :class:`regionmap.pipeline.record.RunTotals`."""
+    if plan.kept_times is not None:
+        # inside the run's temporary output folder: an interrupted run leaves none behind
+        (out / CHECKPOINT_FOLDER).mkdir()
+        plan.ctx.checkpoints = Checkpoints(str(out / CHECKPOINT_FOLDER), plan.kept_times)
+    t0 = _time.perf_counter()
+    states = {"state.nc": plan.state0.copy(), "state_end.nc": plan.state0.copy()}
+    totals = RunTotals()
+    period = plan.period
+    is_fc = (
+        plan.out_times > period.analysis_end
+        if period.has_forecast
+        else np.zeros(plan.out_times.size, bool)
+    )
+    interval_start = plan.out_times - np.timedelta64(3600 * plan.ctx.diag_every_h, "s")
+    cells_w = CellsNcWriter(
+        out / "cells.nc",
+        plan.table,
+        plan.out_times,
+        interval_start,
+        is_fc,
+        global_attrs={"map_time": str(plan.map_time)},
+    )
+    prof_w = None
+    write_s = 0.0  # cells.nc and profiles.nc, in this thread while chunks run
+    try:
+        with contextlib.closing(_finished_chunks(plan, cluster, progress)) as finished:
+            for res in finished:
+                t_w = _time.perf_counter()
+                cells = np.arange(res["lo"], res["hi"])
+                cells_w.write_chunk(cells, res["diagnostics"])
+                snaps = res["snapshots"]
+                if prof_w is None:
+                    max_layers = plan.ctx.cfg.snow.max_layers
+                    prof_w = ProfilesNcWriter(
+                        out / "profiles.nc", plan.table, snaps["time"], max_layers, LAYER_VARS
+                    )
+                prof_w.write_chunk(cells, snaps["layer_count"], _profile_fields(snaps))
+                write_s += _time.perf_counter() - t_w
+                states["state.nc"].put(res["lo"], res["hi"], res["state_analysis"])
+                states["state_end.nc"].put(res["lo"], res["hi"], res["state_end"])
+                totals.add(res)
+        cells_w.close()
+        prof_w.close()
+    except BaseException:
+        cells_w.abort()
+        if prof_w is not None:
+            prof_w.abort()
+        raise
+    timings["simulate"] = _time.perf_counter() - t0
+    write_event_log(out / "events.csv", totals.events, plan.table)
+    for name, state in states.items():
+        state.save(out / name, cells=plan.table, region=plan.fingerprints)
+    # summed over chunk tasks (wall time inside each task; tasks run side by side)
+    timings["task_downscale_s"] = totals.task_seconds["downscale"]
+    timings["task_column_s"] = totals.task_seconds["column"]
+    timings["write_s"] = write_s
+    return totals
+
+
+def _finished_chunks(plan: _RunPlan, cluster: dict, progress: bool):
+    """The chunk tasks' results as they finish (a dask client made for the run)."""
+    from distributed import as_completed
+    from tqdm.auto import tqdm
+
+    with dask_client(
+        cluster["workers"],
+        cluster["scheduler"],
+        dashboard=cluster["dashboard"],
+        scheduler_security=cluster["scheduler_security"],
+    ) as client:
+        # the context as a task, not scattered data: when a worker dies, the scheduler can
+        # make it again for the worker that takes over its chunks
+        ctx_f = client.submit(_context, plan.ctx, pure=False, key="run-context")
+        futures = [
+            client.submit(
+                simulate_chunk,
+                ctx_f,
+                lo,
+                hi,
+                plan.state0.take(slice(lo, hi)),
+                pure=False,
+                key=f"chunk-{lo}-{hi}",
+            )
+            for lo, hi in plan.chunks
+        ]
+        with tqdm(
+            total=len(futures), desc="cell chunks", unit="chunk", disable=not progress
+        ) as bar:
+            for fut in as_completed(futures):
+                with cluster_errors(f"cell chunk {fut.key}"):
+                    res = fut.result()
+                yield res
+                bar.update(1)
+                fut.release()
+
+
+def _finish_folder(out: Path, cfg: Config, plan: _RunPlan, record: dict, extra_files, report):
+    """The last files of a run: the extra files (the demo's inputs), ``run.json``, the
+    verification of the last day at the stations and the report (its time added to
+    ``run.json``)."""
+    for name, src in (extra_files or {}).items():
+        dst = out / name
+        dst.parent.mkdir(parents=True, exist_ok=True)
+        shutil.copy2(src, dst)
+    atomic_write_text(out / "run.json", json.dumps(record, indent=2, default=str))
+    if cfg.stations is not None:
+        run_verification_last_day(
+            cfg, plan.region, out, plan.map_time, grid_forcing=plan.grid_forcing
+        )
+    if report:
+        from regionmap.report.briefing import write_report
+
+        t0 = _time.perf_counter()
+        write_report(out)
+        record["timings_s"]["report"] = round(_time.perf_counter() - t0, 3)
+        atomic_write_text(out / "run.json", json.dumps(record, indent=2, default=str))
 
 
 def _profile_fields(snaps: dict) -> dict:
@@ -611,231 +643,3 @@ def _profile_fields(snaps: dict) -> dict:
         text = np.array(table, dtype=LAYER_VARS[name][0])[np.asarray(codes, dtype=np.intp)]
         out[name] = np.where(used, text, b"")
     return out
-
-
-def _events_of(diag: dict, lo: int) -> dict:
-    return {
-        "kind": diag["event_kind"],
-        "event_id": diag["event_id"],
-        "cell": diag["event_cell"] + lo,
-        "first_time": diag["event_first_time"],
-        "last_time": diag["event_last_time"],
-        "amount_kg_m2": diag["event_amount_kg_m2"],
-    }
-
-
-def _event_frame(events: list[dict], table=None):
-    cols = ["kind", "event_id", "cell", "first_time", "last_time", "amount_kg_m2"]
-    if not events:
-        return pd.DataFrame(columns=cols)
-    frame = pd.DataFrame({k: np.concatenate([e[k] for e in events]) for k in cols})
-    if table is not None and not frame.empty:
-        frame["cell_id"] = table.index.to_numpy()[frame["cell"].to_numpy(int)]
-        for col in ("zone", "band_lower_m", "band_upper_m", "aspect_sector"):
-            frame[col] = table[col].to_numpy()[frame["cell"].to_numpy(int)]
-    return frame
-
-
-def _write_event_log(path: Path, events: list[dict], table) -> None:
-    """``events.csv``: one row per rain-on-snow or freezing-rain event and cell."""
-    frame = _event_frame(events, table).sort_values(["first_time", "cell"], kind="stable")
-    write_csv(path, frame.drop(columns="cell"))
-
-
-def _event_log(events: list[dict]) -> list[dict]:
-    """Region-wide event list: one row per (kind, event id) with cells and amounts."""
-    frame = _event_frame(events)
-    if frame.empty:
-        return []
-    g = frame.groupby(["kind", "event_id"])
-    out = g.agg(
-        first_time=("first_time", "min"),
-        last_time=("last_time", "max"),
-        cells=("cell", "nunique"),
-        mean_amount_kg_m2=("amount_kg_m2", "mean"),
-        max_amount_kg_m2=("amount_kg_m2", "max"),
-    ).reset_index()
-    return json.loads(out.to_json(orient="records", date_format="iso"))
-
-
-def _run_record(
-    cfg,
-    region,
-    gf,
-    params,
-    period,
-    map_time,
-    timings,
-    forcing_sums,
-    events,
-    status_bits,
-    continue_from,
-    restart_record,
-    ensemble_cost,
-    *,
-    workers,
-    scheduler,
-    chunks,
-) -> dict:
-    inputs = {
-        "dem": cfg.region.dem,
-        "zones": cfg.region.zones,
-        **{f"forcing[{i}]": p for i, p in enumerate(gf.paths)},
-    }
-    if continue_from is not None:
-        inputs["continue_from"] = continue_from
-    checksums = {
-        k: {"path": str(p), "sha256": file_sha256(p)}
-        for k, p in inputs.items()
-        if Path(p).is_file()
-    }
-    settings_text = json.dumps(cfg.model_dump(mode="json", exclude={"output"}), sort_keys=True)
-    return {
-        "regionmap": __version__,
-        "caution": CAUTION,
-        "invented_data": cfg.region.invented_data,
-        "created_utc": dt.datetime.now(dt.UTC).isoformat(timespec="seconds"),
-        "config_file": str(cfg.source) if cfg.source else None,
-        "config": cfg.model_dump(mode="json"),
-        "versions": _versions(),
-        "inputs": checksums,
-        "cell_count": int(len(region.cells.table)),
-        "small_cells": int(region.cells.table["small"].sum())
-        if "small" in region.cells.table
-        else 0,
-        "period": {
-            "first_step": str(period.times[period.first]),
-            "last_step": str(period.times[period.stop - 1]),
-            "analysis_end": str(period.analysis_end),
-            "has_forecast": bool(period.has_forecast),
-            "map_time": str(map_time),
-            "continued_from": str(continue_from) if continue_from else None,
-        },
-        "forcing": {
-            "counts": {
-                k: (int(v) if isinstance(v, (int, np.integer)) else v) for k, v in gf.counts.items()
-            },
-            "heights_m": gf.heights_m,
-            "heights_source": gf.heights_source,
-            "downscaling": downscale_record(gf, cfg.downscale),
-            "cell_totals_kg_m2": forcing_sums,
-        },
-        "snow": {
-            "params": {
-                k: (v if not isinstance(v, float) else float(v))
-                for k, v in params.model_dump().items()
-            },
-            "kernel_status_bits": status_bits,
-        },
-        "events": _event_log(events),
-        "restarts": restart_record,
-        "rain_crust_ensemble": ensemble_cost,
-        "settings_fingerprint": hashlib.sha256(settings_text.encode()).hexdigest()[:16],
-        "snow_fingerprint": params.fingerprint(),
-        "scheduler": {
-            "kind": "cluster" if scheduler else ("processes" if workers else "threads"),
-            "workers": workers,
-            "address": scheduler,
-            "chunks": chunks,
-            "chunk_size": cfg.run.chunk_size,
-        },
-        "timings_s": {k: round(float(v), 3) for k, v in timings.items()},
-    }
-
-
-#: ``regionmap forcing`` variables: CellForcing field → (dtype, CF attributes).
-FORCING_VARS = {
-    "t_air_k": ("f4", {"standard_name": "air_temperature", "units": "K"}),
-    "rh_frac": ("f4", {"standard_name": "relative_humidity", "units": "1"}),
-    "pressure_pa": ("f4", {"standard_name": "surface_air_pressure", "units": "Pa"}),
-    "wind_m_s": ("f4", {"standard_name": "wind_speed", "units": "m s-1"}),
-    "sw_in_w_m2": (
-        "f4",
-        {
-            "standard_name": "surface_downwelling_shortwave_flux_in_air",
-            "units": "W m-2",
-            "long_name": "incoming shortwave on the sloping cell, shaded, interval mean",
-            "cell_methods": "time: mean",
-        },
-    ),
-    "lw_in_w_m2": (
-        "f4",
-        {
-            "standard_name": "surface_downwelling_longwave_flux_in_air",
-            "units": "W m-2",
-            "cell_methods": "time: mean",
-        },
-    ),
-    "precip_kg_m2": (
-        "f4",
-        {"standard_name": "precipitation_amount", "units": "kg m-2", "cell_methods": "time: sum"},
-    ),
-    "snow_frac": ("f4", {"units": "1", "long_name": "solid fraction of the precipitation"}),
-    "freezing_rain_frac": (
-        "f4",
-        {"units": "1", "long_name": "fraction of the precipitation falling as freezing rain"},
-    ),
-}
-
-
-def write_cell_forcing(
-    cfg: Config, out_dir: Path, *, force: bool = False, progress: bool = True
-) -> Path:
-    """``regionmap forcing``: the downscaled hourly forcing of every cell as CF NetCDF
-    (``forcing.nc``, dims cell × time), written chunk by chunk into an atomic output folder."""
-    from tqdm.auto import tqdm
-
-    check_inputs_outside(out_dir, run_inputs(cfg))
-    cache = preparation_cache(cfg)
-    region = prepare_region(cfg, cache=cache)
-    gf = open_grid_forcing(cfg)
-    batch = prepare_batch(region, gf, cfg, cache=cache)
-    qm_tables = quantile_tables(cfg)
-    times = np.asarray(gf.time, dtype="datetime64[s]")
-    analysis = (
-        np.datetime64(cfg.forcing.analysis_time.replace(tzinfo=None), "s")
-        if cfg.forcing.analysis_time
-        else None
-    )
-    is_fc = times > analysis if analysis is not None else np.zeros(times.size, bool)
-    table = cells_frame(region)
-    with OutputFolder(out_dir, force=force) as folder:
-        writer = CellsNcWriter(
-            folder.path / "forcing.nc",
-            table,
-            times,
-            times - np.timedelta64(3600, "s"),
-            is_fc,
-            variables=FORCING_VARS,
-            title="regionmap downscaled per-cell forcing",
-            global_attrs={
-                "downscaling": json.dumps(downscale_record(gf, cfg.downscale), default=str),
-                "wind_height_m": float(gf.heights_m["wind"]),
-                "temperature_height_m": float(gf.heights_m["temperature"]),
-            },
-        )
-        try:
-            groups = (
-                batch.zone_code if cfg.downscale.drift else None
-            )  # drift: whole zones per chunk
-            for lo, hi in tqdm(
-                chunk_ranges(batch.n_cells, cfg.run.chunk_size, groups),
-                desc="cell chunks",
-                unit="chunk",
-                disable=not progress,
-            ):
-                f = downscale_cells(
-                    gf,
-                    batch.subset(np.arange(lo, hi)),
-                    cfg.downscale,
-                    bias=cfg.bias,
-                    quantile_tables=qm_tables,
-                )
-                writer.write_chunk(
-                    np.arange(lo, hi), {name: getattr(f, name) for name in FORCING_VARS}
-                )
-            writer.close()
-        except BaseException:
-            writer.abort()
-            raise
-    return Path(out_dir) / "forcing.nc"
