@@ -67,9 +67,10 @@ def _same_attrs(a: dict, b: dict) -> bool:
 def compare_netcdf(path_a: Path, path_b: Path, tolerance: float = 0.0) -> None:
     """Raise :class:`Difference` at the first variable (or attribute) that differs."""
     name = path_a.name
-    with xr.open_dataset(path_a, decode_times=False) as a, xr.open_dataset(
-        path_b, decode_times=False
-    ) as b:
+    with (
+        xr.open_dataset(path_a, decode_times=False) as a,
+        xr.open_dataset(path_b, decode_times=False) as b,
+    ):
         if not _same_attrs(a.attrs, b.attrs):
             raise Difference(f"{name}: global attributes differ")
         if set(a.variables) != set(b.variables):
