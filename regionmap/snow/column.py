@@ -21,13 +21,20 @@ from regionmap.errors import GridMismatchError, InputError, warn
 from regionmap.snow import batch as B
 from regionmap.snow.codes import crust_codes_to_strings, grain_codes_to_strings
 from regionmap.snow.constants import EPOCH_2000_S
+from regionmap.snow.containers import (
+    Diagnostics,
+    EventLog,
+    ForcingArrays,
+    Snapshots,
+    StateArrays,
+)
 from regionmap.snow.kernel import EV_FREEZING_RAIN, EV_RAIN_ON_SNOW, ST_EVENT_OVERFLOW
 from regionmap.snow.params import SnowParams
 from regionmap.snow.state import SnowState
 
 __all__ = ["run_columns", "snapshots_to_dataset", "DIAGNOSTICS_64", "DIAGNOSTICS_32", "EVENT_KINDS"]
 
-#: cells.nc names of the float64 diagnostics (mass budget), by row of ``batch.d64``
+#: cells.nc names of the float64 diagnostics (mass budget), by row of :attr:`Diagnostics.d64 <regionmap.snow.containers.Diagnostics.d64>`
 DIAGNOSTICS_64 = {
     "swe_kg_m2": B.D64_SWE,
     "snowfall_kg_m2": B.D64_SNOW,  # interval sums from here on
@@ -220,111 +227,96 @@ def run_columns(
     diag_every = int(diag_every_h)
     new = state.copy()
     n_cells, n_steps, cap = state.n_cells, forcing.n_steps, state.max_layers
-    time_s = forcing.time.astype("datetime64[s]").astype(np.int64)
-    hour = (time_s[-1] // 3600) % 24 if snapshot_hour_utc is None else int(snapshot_hour_utc)
-    snap_day = np.full(n_steps, -1, dtype=np.int64)
-    if with_snapshots:
-        is_snap = (time_s // 3600) % 24 == hour
-        snap_day[is_snap] = np.arange(int(is_snap.sum()))
+    kernel_forcing = ForcingArrays.from_forcing(forcing)
+    snap_day = _snapshot_day_of_step(kernel_forcing.time_s, snapshot_hour_utc, with_snapshots)
+    diagnostics_out = Diagnostics(
+        diag_every,
+        np.zeros((B.N_D64, n_cells, n_steps // diag_every)),
+        np.zeros((B.N_D32, n_cells, n_steps // diag_every), dtype=np.float32),
+    )
     n_days = int(snap_day.max() + 1) if with_snapshots else 0
-    n_out = n_steps // diag_every
-    d64 = np.zeros((B.N_D64, n_cells, n_out))
-    d32 = np.zeros((B.N_D32, n_cells, n_out), dtype=np.float32)
-    sf_out = np.zeros((B.N_SF, n_cells, n_days, cap), dtype=np.float32)
-    si_out = np.zeros((B.N_SI_SNAP, n_cells, n_days, cap), dtype=np.int32)
-    sn_out = np.zeros((n_cells, n_days), dtype=np.int32)
-    max_events = max(4, min(n_steps // 7 + 1, 256))
-    ev_kind = np.zeros((n_cells, max_events), dtype=np.int8)
-    ev_id = np.zeros((n_cells, max_events), dtype=np.int64)
-    ev_first = np.zeros((n_cells, max_events), dtype=np.int64)
-    ev_last = np.zeros((n_cells, max_events), dtype=np.int64)
-    ev_amount = np.zeros((n_cells, max_events))
-    ev_n = np.zeros(n_cells, dtype=np.int64)
+    snapshots_out = Snapshots(
+        snap_day,
+        np.zeros((B.N_SF, n_cells, n_days, cap), dtype=np.float32),
+        np.zeros((B.N_SI_SNAP, n_cells, n_days, cap), dtype=np.int32),
+        np.zeros((n_cells, n_days), dtype=np.int32),
+    )
+    events = _empty_event_log(n_cells, max_events=max(4, min(n_steps // 7 + 1, 256)))
     status = np.zeros(n_cells, dtype=np.int32)
     p = params.as_array()
-    f = forcing
+    state_arrays = StateArrays.from_state(new)
 
-    def work(c0: int, c1: int) -> None:
+    def work(block: tuple[int, int]) -> None:
         B.run_cells(
-            c0,
-            c1,
-            time_s,
-            f.event_hour,
-            f.t_air_k,
-            f.rh_frac,
-            f.pressure_pa,
-            f.wind_m_s,
-            f.sw_in_w_m2,
-            f.lw_in_w_m2,
-            f.precip_kg_m2,
-            f.snow_frac,
-            f.freezing_rain_frac,
-            float(f.dt_s),
-            float(f.wind_height_m),
-            float(f.temp_height_m),
-            p,
-            new.thickness_m,
-            new.ice_kg_m2,
-            new.liquid_kg_m2,
-            new.temperature_k,
-            new.grain_size_mm,
-            new.dendricity,
-            new.facetedness,
-            new.grain_code,
-            new.crust_code,
-            new.flags,
-            new.deposition_time_s2000,
-            new.formation_time_s2000,
-            new.event_id,
-            new.surface,
-            new.counters,
-            new.new_snow_kg_m2,
-            new.new_snow_m,
-            diag_every,
-            d64,
-            d32,
-            snap_day,
-            sf_out,
-            si_out,
-            sn_out,
-            ev_kind,
-            ev_id,
-            ev_first,
-            ev_last,
-            ev_amount,
-            ev_n,
-            status,
+            *block, kernel_forcing, p, state_arrays, diagnostics_out, snapshots_out, events, status
         )
 
     edges = list(range(0, n_cells, max(int(block_cells), 1))) + [n_cells]
     blocks = list(zip(edges[:-1], edges[1:]))
     if threads > 1 and len(blocks) > 1:
         with ThreadPoolExecutor(max_workers=int(threads)) as pool:
-            list(pool.map(lambda b: work(*b), blocks))
+            list(pool.map(work, blocks))
     else:
         for b in blocks:
-            work(*b)
+            work(b)
     new.time = forcing.time[-1].astype("datetime64[s]")
     new.fingerprint = params.fingerprint()
-
-    out_time = forcing.time[diag_every - 1 :: diag_every].astype("datetime64[s]")
-    diagnostics: dict = {"time": out_time, "status": status}
-    for name, row in DIAGNOSTICS_64.items():
-        diagnostics[name] = d64[row]
-    for name, (row, dtype) in DIAGNOSTICS_32.items():
-        diagnostics[name] = d32[row].astype(dtype) if dtype is not np.float32 else d32[row]
     if np.any(status & ST_EVENT_OVERFLOW):
         warn("run_columns: the event log overflowed for some cells; later events are missing")
-    cells, slots = np.nonzero(np.arange(max_events)[None, :] < ev_n[:, None])
-    kinds = ev_kind[cells, slots]
-    diagnostics["event_kind"] = np.array([EVENT_KINDS[int(k)] for k in kinds], dtype=object)
-    diagnostics["event_id"] = ev_id[cells, slots]
-    diagnostics["event_cell"] = cells.astype(np.int64)
-    diagnostics["event_first_time"] = ev_first[cells, slots].astype("datetime64[s]")
-    diagnostics["event_last_time"] = ev_last[cells, slots].astype("datetime64[s]")
-    diagnostics["event_amount_kg_m2"] = ev_amount[cells, slots]
+    diagnostics = _diagnostics_dict(forcing.time, diagnostics_out, events, status)
+    snapshots = _snapshots_dict(forcing.time, snapshots_out)
+    return new, diagnostics, snapshots
 
-    snapshots = {"time": forcing.time[snap_day >= 0].astype("datetime64[s]"), "layer_count": sn_out}
+
+def _snapshot_day_of_step(time_s: np.ndarray, snapshot_hour_utc, with_snapshots: bool):
+    """(time,) int64: the snapshot written after each step (0, 1, ...), -1 for none."""
+    last_hour = (time_s[-1] // 3600) % 24
+    hour = last_hour if snapshot_hour_utc is None else int(snapshot_hour_utc)
+    snap_day = np.full(time_s.size, -1, dtype=np.int64)
+    if with_snapshots:
+        is_snap = (time_s // 3600) % 24 == hour
+        snap_day[is_snap] = np.arange(int(is_snap.sum()))
+    return snap_day
+
+
+def _empty_event_log(n_cells: int, max_events: int) -> EventLog:
+    return EventLog(
+        kind=np.zeros((n_cells, max_events), dtype=np.int8),
+        event_id=np.zeros((n_cells, max_events), dtype=np.int64),
+        first_s=np.zeros((n_cells, max_events), dtype=np.int64),
+        last_s=np.zeros((n_cells, max_events), dtype=np.int64),
+        amount_kg_m2=np.zeros((n_cells, max_events)),
+        count=np.zeros(n_cells, dtype=np.int64),
+    )
+
+
+def _diagnostics_dict(time, out: Diagnostics, events: EventLog, status: np.ndarray) -> dict:
+    """The diagnostics and the event log as :func:`run_columns` returns them."""
+    every = out.every_steps
+    diagnostics: dict = {"time": time[every - 1 :: every].astype("datetime64[s]"), "status": status}
+    for name, row in DIAGNOSTICS_64.items():
+        diagnostics[name] = out.d64[row]
+    for name, (row, dtype) in DIAGNOSTICS_32.items():
+        diagnostics[name] = out.d32[row].astype(dtype) if dtype is not np.float32 else out.d32[row]
+    slot_used = np.arange(events.kind.shape[1])[None, :] < events.count[:, None]
+    cells, slots = np.nonzero(slot_used)
+    kinds = events.kind[cells, slots]
+    diagnostics["event_kind"] = np.array([EVENT_KINDS[int(k)] for k in kinds], dtype=object)
+    diagnostics["event_id"] = events.event_id[cells, slots]
+    diagnostics["event_cell"] = cells.astype(np.int64)
+    diagnostics["event_first_time"] = events.first_s[cells, slots].astype("datetime64[s]")
+    diagnostics["event_last_time"] = events.last_s[cells, slots].astype("datetime64[s]")
+    diagnostics["event_amount_kg_m2"] = events.amount_kg_m2[cells, slots]
+    return diagnostics
+
+
+def _snapshots_dict(time, out: Snapshots) -> dict:
+    """The daily layer snapshots as :func:`run_columns` returns them."""
+    sf_out, si_out, sn_out = out.floats, out.ints, out.layer_count
+    snapshots = {
+        "time": time[out.day_of_step >= 0].astype("datetime64[s]"),
+        "layer_count": sn_out,
+    }
     for name, row in (
         ("thickness_m", B.SF_THICK),
         ("ice_kg_m2", B.SF_ICE),
@@ -336,11 +328,11 @@ def run_columns(
         snapshots[name] = sf_out[row]
     snapshots["grain_code"] = si_out[B.SI_CODE].astype(np.int8)
     snapshots["crust_code"] = si_out[B.SI_CRUST].astype(np.int8)
-    used = np.arange(cap)[None, None, :] < sn_out[:, :, None]
+    used = np.arange(si_out.shape[3])[None, None, :] < sn_out[:, :, None]
     for name, row in (("deposition_time", B.SI_DEP), ("formation_time", B.SI_FORM)):
         snapshots[name] = np.where(used, si_out[row].astype(np.int64) + EPOCH_2000_S, -1)
     snapshots["event_id"] = si_out[B.SI_EVENT]
-    return new, diagnostics, snapshots
+    return snapshots
 
 
 def snapshots_to_dataset(snapshots: dict, cell_id: np.ndarray) -> xr.Dataset:

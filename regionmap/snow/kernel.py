@@ -843,45 +843,43 @@ def _cleanup(fw, iw, n):
 
 
 @njit(cache=True, nogil=True, error_model="numpy")
-def _step(
-    fw,
-    iw,
-    sv,
-    si,
-    ring_m,
-    ring_d,
-    ta,
-    rh,
-    pres,
-    wind_raw,
-    sw_in,
-    lw_in,
-    precip,
-    sf,
-    fzf,
-    now_s,
-    hour_abs,
-    region_event_hour,
-    dt,
-    zu,
-    zt,
-    p,
-    cap,
-    wk,
-    wb,
-    acc,
-    tot,
-):
-    """Advance one cell by one step; fills ``acc`` (N_ACC,) and returns a status bitmask.
+def _step(col, met, p, cap, work):
+    """Advance one cell by one step; fills ``work.acc`` (N_ACC,) and returns a status bitmask.
 
-    An event (snowfall, rain, freezing rain) that starts in this step takes the id
-    ``region_event_hour`` (the region-wide window's start, hours since 1970) when it is
-    positive, else this hour.
-
-    ``tot`` (2,) holds the column mass [kg m-2] and enthalpy [J m-2] of the state on entry
-    (:func:`_column_mass_enthalpy`, kept from the previous step) and receives those of the
-    state on exit.
+    Parameters
+    ----------
+    col : Column
+        The cell's layers and surface state, updated in place.
+    met : StepWeather
+        The step's forcing and time. An event (snowfall, rain, freezing rain) that starts in
+        this step takes the id ``met.event_hour`` (the region-wide window's start, hours since
+        1970) when it is positive, else this hour.
+    p : ndarray (N_PARAMS,) float64
+        Settings.
+    cap : int
+        Layer slots.
+    work : StepWork
+        Work arrays; ``work.totals`` (2,) holds the column mass [kg m-2] and enthalpy
+        [J m-2] of the state on entry (:func:`_column_mass_enthalpy`, kept from the previous
+        step) and receives those of the state on exit.
     """
+    fw, iw, sv, si, ring_m, ring_d = col
+    wk, wb, acc, tot = work
+    ta = met.t_air_k
+    rh = met.rh_frac
+    pres = met.pressure_pa
+    wind_raw = met.wind_m_s
+    sw_in = met.sw_in_w_m2
+    lw_in = met.lw_in_w_m2
+    precip = met.precip_kg_m2
+    sf = met.snow_frac
+    fzf = met.freezing_rain_frac
+    now_s = met.now_s2000
+    hour_abs = met.hour_abs
+    region_event_hour = met.event_hour
+    dt = met.dt_s
+    zu = met.wind_height_m
+    zt = met.temp_height_m
     for k in range(N_ACC):
         acc[k] = 0.0
     status = 0
