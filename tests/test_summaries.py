@@ -177,7 +177,8 @@ def test_layers_of_concern_named_by_local_date_and_loaded(run):
     names = set(loc["layer_name"])
     # SH buried 2026-01-13T03Z = 2026-01-12 20:00 at UTC-7: named by the local date
     assert "SH buried 2026-01-12" in names
-    assert "DH formed 2025-11-30" in names  # formed 2025-12-01T06Z = 2025-11-30 23:00 local
+    # no storm id on the DH's snow: named by its formation, 2025-12-01T06Z = 2025-11-30 23:00 local
+    assert "DH in snow of 2025-11-30" in names
     assert "rain crust 2026-01-20" in names
     sh = loc[(loc["layer_id"] == "SH-2026-01-12") & (loc["aspect_sector"] == "all")]
     np.testing.assert_allclose(sh["presence_frac"], 1.0)

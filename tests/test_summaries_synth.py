@@ -145,13 +145,27 @@ LAYER_VARS = {
 #: designed layers: bottom DH (cells >= 1800 m), a rain crust of the rain event that began
 #: 2026-01-20T10Z (event id = its start hour since 1970, as the column model tags it), formed
 #: 2026-01-20T12Z on cells with crust_elev_lo <= elevation < crust_elev_hi, buried SH under a
-#: storm deposited 2026-01-13T03Z (= 2026-01-12 20:00 at UTC-7), and new snow on top.
+#: storm whose region-wide window began 2026-01-13T01Z and that reached the cells
+#: 2026-01-13T03Z (= 2026-01-12 20:00 at UTC-7; cells above ``late_storm_above_m`` 8 h later,
+#: 2026-01-13 04:00 local), and new snow on top.
+#: Grains and hardness make the SH (and the DH joined to it) a weak layer of concern by the
+#: six criteria of Schweizer & Jamieson (2007): 6 mm surface hoar of hardness F under 30 cm
+#: of 1F storm snow of 0.5 mm grains, 32 cm deep, scores 6 of 6 (persistent; >= 1.25 mm;
+#: <= 1.3; grain-size difference 5.5 >= 0.75 mm; hardness difference 2 >= 1.7; 18-94 cm).
 SH_BURIAL = "2026-01-13T03:00"
+STORM_EVENT_ID = int(np.datetime64("2026-01-13T01:00", "h").astype(np.int64))
 RAIN_FORMED = "2026-01-20T12:00"
 RAIN_EVENT_ID = int(np.datetime64("2026-01-20T10:00", "h").astype(np.int64))
 
 
-def layer_fields(table: pd.DataFrame, *, crust_lo_m=1400.0, crust_hi_m=2000.0, days=DAYS):
+def layer_fields(
+    table: pd.DataFrame,
+    *,
+    crust_lo_m=1400.0,
+    crust_hi_m=2000.0,
+    days=DAYS,
+    late_storm_above_m=np.inf,
+):
     """(cell, day, layer) fields for :data:`LAYER_VARS`, bottom first, 4 slots."""
     n, nd, nl = len(table), len(days), 4
     elev = table["elevation_m"].to_numpy()
@@ -173,7 +187,9 @@ def layer_fields(table: pd.DataFrame, *, crust_lo_m=1400.0, crust_hi_m=2000.0, d
     dep[:, :, 1] = form[:, :, 1] = _sec("2026-01-11T08:00")
     grain[:, :, 2] = "DF"
     thick[:, :, 2] = 0.3
-    dep[:, :, 2] = form[:, :, 2] = _sec(SH_BURIAL)
+    late = np.where(elev >= late_storm_above_m, 8 * 3600, 0)[:, None]
+    dep[:, :, 2] = form[:, :, 2] = _sec(SH_BURIAL) + late
+    event[:, :, 2] = STORM_EVENT_ID
     rc = (elev >= crust_lo_m) & (elev < crust_hi_m)
     grain[:, :, 3] = np.where(rc, "MFcr", "RG")[:, None]
     crust[:, :, 3] = np.where(rc, "rain", "none")[:, None]
@@ -182,6 +198,18 @@ def layer_fields(table: pd.DataFrame, *, crust_lo_m=1400.0, crust_hi_m=2000.0, d
     dep[:, :, 3] = _sec("2026-01-19T00:00")
     form[:, :, 3] = np.where(rc, _sec(RAIN_FORMED), _sec("2026-01-19T00:00"))[:, None]
     density = np.array([300.0, 100.0, 150.0, 600.0])
+    grain_mm = np.zeros((n, nd, nl))
+    hardness = np.zeros((n, nd, nl))
+    grain_mm[:, :, 0], hardness[:, :, 0] = (
+        np.where(dh, 3.0, 0.5)[:, None],
+        np.where(dh, 1, 3)[:, None],
+    )
+    grain_mm[:, :, 1], hardness[:, :, 1] = 6.0, 1.0
+    grain_mm[:, :, 2], hardness[:, :, 2] = 0.5, 3.0
+    grain_mm[:, :, 3], hardness[:, :, 3] = (
+        np.where(rc, 1.0, 0.5)[:, None],
+        np.where(rc, 5, 3)[:, None],
+    )
     count = np.full((n, nd), nl)
     # before the SH was buried only slots 0-1 exist; before the crust formed slots 0-2
     count[:, days < np.datetime64(SH_BURIAL)] = 2
@@ -191,8 +219,8 @@ def layer_fields(table: pd.DataFrame, *, crust_lo_m=1400.0, crust_hi_m=2000.0, d
         "ice_kg_m2": thick * density,
         "liquid_kg_m2": np.zeros_like(thick),
         "temperature_k": np.full(thick.shape, 268.0),
-        "grain_size_mm": np.full(thick.shape, 1.0),
-        "hardness_index": np.full(thick.shape, 2.0),
+        "grain_size_mm": grain_mm,
+        "hardness_index": hardness,
         "grain_class": grain,
         "crust_kind": crust,
         "deposition_time": dep,

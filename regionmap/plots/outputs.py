@@ -24,6 +24,7 @@ import xarray as xr
 from regionmap.cells import COMPASS_16
 from regionmap.errors import InputError
 from regionmap.io.times import utc_datetime64
+from regionmap.products.concern import DEFAULT_CRITERIA, ConcernCriteria
 from regionmap.products.summaries import band_label, cell_values, observation_times, summarise
 
 __all__ = ["Metric", "METRICS", "RunOutputs", "SECTOR_ORDER", "metric"]
@@ -69,18 +70,21 @@ METRICS: dict[str, Metric] = {
         ),
         Metric(
             "pwl_fraction",
-            "persistent-weak-layer presence (area share)",
+            "persistent weak layer of concern (area share)",
             "%",
             "pwl_fraction",
             100.0,
             100.0,
         ),
         Metric(
-            "pwl_depth_cm", "depth of the uppermost persistent weak layer", "cm", "pwl_depth_cm"
+            "pwl_depth_cm",
+            "depth of the uppermost persistent weak layer of concern",
+            "cm",
+            "pwl_depth_cm",
         ),
         Metric(
             "pwl_slab_cm",
-            "slab above the uppermost persistent weak layer (slope-normal)",
+            "slab above the uppermost persistent weak layer of concern (slope-normal)",
             "cm",
             "pwl_slab_cm",
         ),
@@ -328,6 +332,24 @@ class RunOutputs:
         return float(lo), float(hi)
 
     @cached_property
+    def concern_criteria(self) -> ConcernCriteria:
+        """What made a persistent layer one of concern in this run: the ``[snow]`` settings
+        recorded in ``run.json`` (threshold mode, ``pwl_min_*``), the column model's
+        defaults for those it does not record."""
+        d = DEFAULT_CRITERIA
+        mode = self._config(
+            "snow", "threshold_mode", default="relative" if d.relative else "absolute"
+        )
+        return ConcernCriteria(
+            relative=mode == "relative",
+            min_depth_m=float(self._config("snow", "pwl_min_depth_m", default=d.min_depth_m)),
+            min_thickness_m=float(
+                self._config("snow", "pwl_min_thickness_m", default=d.min_thickness_m)
+            ),
+            min_grain_mm=float(self._config("snow", "pwl_min_grain_mm", default=d.min_grain_mm)),
+        )
+
+    @cached_property
     def map_time(self) -> np.datetime64:
         """The run's map time: ``run.json`` ``map_time``, else the valid time of the zones
         layer, else the last output time."""
@@ -406,6 +428,7 @@ class RunOutputs:
                 [t],
                 local_timezone=self.local_timezone,
                 observation_hour=self.observation_hour,
+                criteria=self.concern_criteria,
             )
         return cache[t]
 

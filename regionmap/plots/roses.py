@@ -120,9 +120,9 @@ def robust_scale(
 #: the printed units, fixed class edges or None for a robust scale); the ramp of each is
 #: :data:`regionmap.plots.style.METRIC_RAMPS`.
 ROSE_SCALES: tuple[tuple, ...] = (
-    ("pwl_fraction", "persistent weak layer present", "%", 100.0, tuple(range(0, 101, 10))),
+    ("pwl_fraction", "persistent weak layer of concern", "%", 100.0, tuple(range(0, 101, 10))),
     ("depth_hoar_fraction", "depth hoar present", "%", 100.0, tuple(range(0, 101, 10))),
-    ("pwl_depth_cm", "depth of the uppermost persistent weak layer", "cm", 1.0, None),
+    ("pwl_depth_cm", "depth of the uppermost persistent weak layer of concern", "cm", 1.0, None),
     ("new_snow_72h_cm", "new snow, three observation days", "cm", 1.0, None),
     ("snow_depth_cm", "snow depth", "cm", 1.0, None),
     ("crust_count_mean", "crusts in the column (mean)", "count", 1.0, tuple(range(0, 7))),

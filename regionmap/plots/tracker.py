@@ -1,11 +1,12 @@
 """Season views organised around named layers, and the elevation chart.
 
 * **Layer tracker** — for one layer of concern of a zone (identified as in
-  :func:`regionmap.products.summaries.layers_of_concern`: buried surface hoar by its burial date, faceted
-  crystals and depth hoar by their formation date, crusts by kind and formation date, dates
-  in the local time zone), its vertical depth below the surface on every daily snapshot, one
+  :func:`regionmap.products.summaries.layers_of_concern`: buried surface hoar by the storm
+  that buried it, faceted crystals and depth hoar by the storm that deposited their snow,
+  rain crusts and glaze by their event, other crusts by kind and formation date, dates in
+  the local time zone), its vertical depth below the surface on every daily snapshot, one
   line per elevation band (or per band and aspect), with the share of the band's area where
-  the layer is present below it, and the days with new snow marked.
+  it is present as a layer of concern, and the days with new snow marked.
 * **Elevation chart** — one metric of a zone against elevation (band centres), one line per
   aspect sector.
 
@@ -50,11 +51,12 @@ def _outputs(out) -> RunOutputs:
     return out if isinstance(out, RunOutputs) else RunOutputs(out)
 
 
-def _block_rows(snap, cell_ids: np.ndarray, tz: str, wanted=None) -> pd.DataFrame:
-    """(layer_id, cell_id, day, depth_cm) rows of the weak layers and crusts of one block
-    (named as in the layers of concern, :func:`regionmap.products.summaries.layer_identities`), only
-    those of the ids ``wanted`` when given. Ids are built once per distinct (kind, time)."""
-    pos, kind, ref = layer_identities(snap)
+def _block_rows(snap, cell_ids: np.ndarray, tz: str, criteria, wanted=None) -> pd.DataFrame:
+    """(layer_id, cell_id, day, depth_cm) rows of the weak layers of concern and crusts of one
+    block (named as in the layers of concern,
+    :func:`regionmap.products.summaries.layer_identities`), only those of the ids ``wanted``
+    when given. Ids are built once per distinct (kind, time)."""
+    pos, kind, ref = layer_identities(snap, criteria)
     ok = ref > _NO_TIME
     pos, kind, ref = tuple(p[ok] for p in pos), kind[ok], ref[ok]
     ref_i, ref_u = pd.factorize(ref)  # hashing, not sorting: millions of entries, few values
@@ -105,6 +107,7 @@ def layer_tracks(out, zone: str, *, by_aspect: bool = False, layer_ids=None) -> 
             decode_snapshot(prof, np.arange(d, min(d + _DAY_BLOCK, n_day))),
             cell_ids,
             out.local_timezone,
+            out.concern_criteria,
             layer_ids,
         )
         for d in range(0, n_day, _DAY_BLOCK)
@@ -126,7 +129,7 @@ def layer_tracks(out, zone: str, *, by_aspect: bool = False, layer_ids=None) -> 
 
 def _first_day(out: RunOutputs, layer_ids) -> int:
     """First snapshot position that can hold any of ``layer_ids``: a layer id ends with its
-    local reference date (formation, or burial for surface hoar), so no snapshot more than a
+    local reference date (an event's start, a burial or a formation), so no snapshot more than a
     day before the earliest of them holds one (the day covers the local/UTC offset). 0 when
     an id carries no date."""
     dates = []

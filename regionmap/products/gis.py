@@ -115,20 +115,20 @@ MAP_SPECS: dict[str, MapSpec] = {
         "float32",
         -9999.0,
         "cm",
-        f"vertical depth of the uppermost persistent weak layer ({NO_WEAK_LAYER:g}: none)",
+        f"vertical depth of the uppermost persistent weak layer of concern ({NO_WEAK_LAYER:g}: none)",
         hi=200.0,
         none_value=NO_WEAK_LAYER,
-        none_label="no persistent weak layer",
+        none_label="no persistent weak layer of concern",
     ),
     "pwl_slab_cm": MapSpec(
         "float32",
         -9999.0,
         "cm",
-        "slab thickness above the uppermost persistent weak layer, perpendicular to the "
-        f"slope ({NO_WEAK_LAYER:g}: no weak layer)",
+        "slab thickness above the uppermost persistent weak layer of concern, perpendicular "
+        f"to the slope ({NO_WEAK_LAYER:g}: no weak layer of concern)",
         hi=200.0,
         none_value=NO_WEAK_LAYER,
-        none_label="no persistent weak layer",
+        none_label="no persistent weak layer of concern",
     ),
     "threshold_count_max": MapSpec(
         "float32",

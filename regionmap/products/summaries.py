@@ -36,6 +36,7 @@ import pandas as pd
 import xarray as xr
 
 from regionmap.errors import GridMismatchError, InputError
+from regionmap.products.concern import DEFAULT_CRITERIA, ConcernCriteria, weak_layers_of_concern
 from regionmap.snow.codes import CRUST_INDEX, CRUST_KINDS, GRAIN_INDEX
 
 __all__ = [
@@ -290,9 +291,12 @@ class LayerSnapshot:
     Attributes
     ----------
     day : (day,) datetime64[s] snapshot times [UTC]
+    layer_count : (cell, day) int64, active layers (bottom first)
     valid : bool, layer slot in use
     thickness_m : vertical thickness [m] (0 where unused)
     mass_kg_m2 : ice + liquid mass [kg m-2] (0 where unused)
+    grain_size_mm : grain size [mm] (0 where unused)
+    hardness_index : hand-hardness index, F = 1 ... I = 6 (0 where unused)
     grain : int8 index into ``GRAIN_CODES``
     crust : int8 index into ``CRUST_KINDS``
     formation_s, deposition_s : int64 seconds since 1970 (UTC)
@@ -300,12 +304,18 @@ class LayerSnapshot:
     depth_cm : vertical depth of the layer's top below the surface [cm]
     load_above_kg_m2 : mass of the layers above [kg m-2]
     burial_s : deposition time of the layer directly above (int64 s; −2**62 when none)
+    burial_event_s : start of the precipitation event that deposited the layer directly above
+        (its ``event_id`` in seconds, int64; −2**62 when none): the region-wide window of the
+        storm that buried the layer
     """
 
     day: np.ndarray
+    layer_count: np.ndarray
     valid: np.ndarray
     thickness_m: np.ndarray
     mass_kg_m2: np.ndarray
+    grain_size_mm: np.ndarray
+    hardness_index: np.ndarray
     grain: np.ndarray
     crust: np.ndarray
     formation_s: np.ndarray
@@ -314,10 +324,23 @@ class LayerSnapshot:
     depth_cm: np.ndarray
     load_above_kg_m2: np.ndarray
     burial_s: np.ndarray
+    burial_event_s: np.ndarray
 
     @property
     def buried(self) -> np.ndarray:
         return self.valid & (self.burial_s > _NO_TIME)
+
+    def of_concern(self, criteria: ConcernCriteria = DEFAULT_CRITERIA) -> np.ndarray:
+        """(cell, day, layer) bool: the layer belongs to a persistent weak layer of concern
+        (:func:`regionmap.products.concern.weak_layers_of_concern`)."""
+        return weak_layers_of_concern(
+            self.layer_count,
+            self.thickness_m,
+            self.grain_size_mm,
+            self.hardness_index,
+            self.grain,
+            criteria,
+        )
 
 
 _NO_TIME = np.int64(-(2**62))
@@ -391,8 +414,9 @@ def decode_snapshot(profiles: xr.Dataset, days=None) -> LayerSnapshot:
     Parameters
     ----------
     profiles : Dataset with dims (cell, day, layer): ``layer_count``, ``thickness_m``,
-        ``ice_kg_m2``, ``liquid_kg_m2``, ``grain_class``, ``crust_kind``, ``formation_time``,
-        ``deposition_time``, ``event_id``; layers bottom first.
+        ``ice_kg_m2``, ``liquid_kg_m2``, ``grain_size_mm``, ``hardness_index``,
+        ``grain_class``, ``crust_kind``, ``formation_time``, ``deposition_time``,
+        ``event_id``; layers bottom first.
     days : positions along ``day`` to decode (default all).
     """
     need = [
@@ -400,6 +424,8 @@ def decode_snapshot(profiles: xr.Dataset, days=None) -> LayerSnapshot:
         "thickness_m",
         "ice_kg_m2",
         "liquid_kg_m2",
+        "grain_size_mm",
+        "hardness_index",
         "grain_class",
         "crust_kind",
         "formation_time",
@@ -428,6 +454,10 @@ def decode_snapshot(profiles: xr.Dataset, days=None) -> LayerSnapshot:
         + np.nan_to_num(ds["liquid_kg_m2"].values.astype(np.float64)),
         0.0,
     )
+    grain_mm, hardness = (
+        np.where(valid, np.nan_to_num(ds[name].values.astype(np.float64)), 0.0)
+        for name in ("grain_size_mm", "hardness_index")
+    )
     grain = np.where(
         valid, _codes(ds["grain_class"].values, GRAIN_INDEX, "grain_class", None), 0
     ).astype(np.int8)
@@ -442,25 +472,32 @@ def decode_snapshot(profiles: xr.Dataset, days=None) -> LayerSnapshot:
     above_valid = np.concatenate([valid[:, :, 1:], np.zeros_like(valid[:, :, :1])], axis=2)
     above_dep = np.concatenate([deposition[:, :, 1:], deposition[:, :, :1]], axis=2)
     burial = np.where(valid & above_valid, above_dep, _NO_TIME)
+    above_event = np.concatenate([event[:, :, 1:], event[:, :, :1]], axis=2)
+    burial_event = np.where(valid & above_valid & (above_event > 0), above_event * 3600, _NO_TIME)
     return LayerSnapshot(
-        day.astype("datetime64[s]"),
-        valid,
-        thick,
-        mass,
-        grain,
-        crust,
-        np.where(valid, formation, _NO_TIME),
-        np.where(valid, deposition, _NO_TIME),
-        np.where(valid, event, -1),
-        depth_m * 100.0,
-        load,
-        burial,
+        day=day.astype("datetime64[s]"),
+        layer_count=np.minimum(count, n_layer),
+        valid=valid,
+        thickness_m=thick,
+        mass_kg_m2=mass,
+        grain_size_mm=grain_mm,
+        hardness_index=hardness,
+        grain=grain,
+        crust=crust,
+        formation_s=np.where(valid, formation, _NO_TIME),
+        deposition_s=np.where(valid, deposition, _NO_TIME),
+        event_id=np.where(valid, event, -1),
+        depth_cm=depth_m * 100.0,
+        load_above_kg_m2=load,
+        burial_s=burial,
+        burial_event_s=burial_event,
     )
 
 
-def _family_mask(snap: LayerSnapshot, family: str) -> np.ndarray:
+def _family_mask(snap: LayerSnapshot, family: str, concern: np.ndarray) -> np.ndarray:
+    """Layers of a weak-layer family that belong to a weak layer of concern."""
     codes = [GRAIN_INDEX[c] for c in PWL_FAMILIES[family]]
-    return np.isin(snap.grain, codes) & snap.buried
+    return np.isin(snap.grain, codes) & concern
 
 
 # --------------------------------------------------------------------------- cell values
@@ -490,6 +527,7 @@ def cell_values(
     local_timezone: str = "UTC",
     observation_hour: int = 7,
     layers: bool = True,
+    criteria: ConcernCriteria = DEFAULT_CRITERIA,
 ) -> pd.DataFrame:
     """Per-cell metrics at each of ``times`` → long DataFrame (one row per cell × time).
 
@@ -502,7 +540,9 @@ def cell_values(
     times : datetime-likes [UTC] at which to evaluate; each must be an output time of ``diag``.
     layers : also decode the profile snapshots for the layer metrics (``crust_layers_<kind>``,
         ``FC_``/``DH_``/``SH_…``, ``pwl_slab_cm``, ``pwl_load_kg_m2``); without, only the
-        ``cells.nc`` metrics (decoding costs ~1 s per 10 000 cells × 16 days × 30 layers).
+        ``cells.nc`` metrics.
+    criteria : what makes a persistent layer one of concern (the column model's thresholds,
+        :class:`regionmap.products.concern.ConcernCriteria`).
 
     Returns
     -------
@@ -511,9 +551,11 @@ def cell_values(
     ``snow_present`` (depth ≥ 1 cm, our choice), ``new_snow_24h_cm``, ``new_snow_72h_cm``,
     ``new_snow_24h_kg_m2``, ``new_snow_72h_kg_m2``, ``crust_count``, ``crust_layers_<kind>``,
     ``depth_hoar_present`` (the column's flag and threshold), ``pwl_present``,
-    ``pwl_depth_cm``, ``pwl_slab_cm`` (perpendicular to the slope), ``pwl_load_kg_m2``,
-    ``<FC|DH|SH>_present``/``_depth_cm``/``_slab_cm`` from the snapshot, and
-    ``threshold_count_max``.
+    ``pwl_depth_cm``, ``threshold_count_max``; from the snapshot: ``pwl_slab_cm``
+    (perpendicular to the slope) and ``pwl_load_kg_m2`` above the uppermost weak layer of
+    concern, ``<FC|DH|SH>_present``/``_depth_cm``/``_slab_cm`` of the weak layers of concern
+    of each family. ``pwl_*`` and the family metrics count only persistent weak layers of
+    concern (:mod:`regionmap.products.concern`), as the column's ``pwl_present`` does.
     """
     frames = _cell_value_blocks(
         diag,
@@ -523,6 +565,7 @@ def cell_values(
         local_timezone=local_timezone,
         observation_hour=observation_hour,
         layers=layers,
+        criteria=criteria,
     )
     return pd.concat(list(frames), ignore_index=True).sort_values(
         ["cell_id", "valid_time"], ignore_index=True
@@ -556,7 +599,17 @@ def _time_blocks(diag: xr.Dataset, pos: np.ndarray) -> list[slice]:
     return [slice(a, b) for a, b in zip(edges, edges[1:] + [pos.size])]
 
 
-def _cell_value_blocks(diag, profiles, table, times, *, local_timezone, observation_hour, layers):
+def _cell_value_blocks(
+    diag,
+    profiles,
+    table,
+    times,
+    *,
+    local_timezone,
+    observation_hour,
+    layers,
+    criteria: ConcernCriteria = DEFAULT_CRITERIA,
+):
     """Yield the rows of :func:`cell_values` a block of times at a time (:func:`_time_blocks`;
     memory ~ cells × block × layers), unsorted."""
     _check_alignment(diag, table, profiles)
@@ -574,6 +627,7 @@ def _cell_value_blocks(diag, profiles, table, times, *, local_timezone, observat
             want[part],
             {k: v[..., part] for k, v in win.items()},
             layers=layers,
+            criteria=criteria,
         )
 
 
@@ -585,7 +639,9 @@ def _as_utc_array(times) -> np.ndarray:
     )
 
 
-def _cell_values_block(diag, profiles, table, t_all, want, win, *, layers) -> pd.DataFrame:
+def _cell_values_block(
+    diag, profiles, table, t_all, want, win, *, layers, criteria
+) -> pd.DataFrame:
     pos = _positions(t_all, want, "the summary times")
     win_end, win_pos = win["win_end"], win["win_pos"]
     n_cell, n_t = diag.sizes["cell"], want.size
@@ -619,7 +675,7 @@ def _cell_values_block(diag, profiles, table, t_all, want, win, *, layers) -> pd
     d = np.searchsorted(day, want, side="right") - 1
     has_snap = d >= 0
     if layers:
-        values.update(_layer_values(profiles, table, d, has_snap))
+        values.update(_layer_values(profiles, table, d, has_snap, criteria))
     fc = (
         diag["is_forecast"].values.astype(bool)[pos]
         if "is_forecast" in diag.variables
@@ -635,8 +691,9 @@ def _cell_values_block(diag, profiles, table, t_all, want, win, *, layers) -> pd
     return frame
 
 
-def _layer_values(profiles, table, d, has_snap) -> dict[str, np.ndarray]:
-    """Layer metrics (cell, n) from the snapshots at positions ``d`` (NaN where none)."""
+def _layer_values(profiles, table, d, has_snap, criteria) -> dict[str, np.ndarray]:
+    """Layer metrics (cell, n) from the snapshots at positions ``d`` (NaN where none); the
+    weak-layer metrics count the persistent weak layers of concern only."""
     values: dict[str, np.ndarray] = {}
     snap = decode_snapshot(profiles, np.maximum(d, 0))
     cos_slope = np.cos(np.deg2rad(table["slope_deg"].to_numpy(np.float64)))[:, None]
@@ -645,16 +702,17 @@ def _layer_values(profiles, table, d, has_snap) -> dict[str, np.ndarray]:
         values[f"crust_layers_{kind.replace('-', '_')}"] = (
             (snap.crust == CRUST_INDEX[kind]).sum(axis=2).astype(np.float64)
         )
+    concern = snap.of_concern(criteria)
     any_pwl = np.zeros_like(snap.valid)
     for fam in PWL_FAMILIES:
-        mask = _family_mask(snap, fam)
+        mask = _family_mask(snap, fam, concern)
         any_pwl |= mask
         depth = np.where(mask, snap.depth_cm, np.inf).min(axis=2)
         present = np.isfinite(depth)
         values[f"{fam}_present"] = present.astype(np.float64)
         values[f"{fam}_depth_cm"] = np.where(present, depth, np.nan)
         values[f"{fam}_slab_cm"] = values[f"{fam}_depth_cm"] * cos_slope
-    # slab above the uppermost weak layer of any family
+    # slab above the uppermost weak layer of concern of any family
     top = np.argmin(np.where(any_pwl, snap.depth_cm, np.inf), axis=2)
     present = any_pwl.any(axis=2)
     depth = np.take_along_axis(snap.depth_cm, top[:, :, None], axis=2)[:, :, 0]
@@ -872,6 +930,7 @@ def summary_tables(
     observation_hour: int = 7,
     avalanche_terrain_deg: tuple[float, float] = (30.0, 50.0),
     daily_layers: bool = False,
+    criteria: ConcernCriteria = DEFAULT_CRITERIA,
 ) -> SummaryTables:
     """All summaries of a run: per zone and per zone × band × aspect at the map time, and
     daily series at the local observation-day ends.
@@ -886,13 +945,14 @@ def summary_tables(
     avalanche_terrain_deg : the ``[cells]`` slope range, recorded in the tables.
     daily_layers : give the daily series the layer metrics too (see :func:`cell_values`);
         by default they carry the ``cells.nc`` metrics and the map time carries all.
+    criteria : what makes a persistent layer one of concern (:func:`cell_values`).
     """
     t_all = _times_of(diag)
     obs = observation_times(
         t_all[0], t_all[-1], local_timezone=local_timezone, observation_hour=observation_hour
     )
     map_t = _as_utc_array(map_time)
-    kw = dict(local_timezone=local_timezone, observation_hour=observation_hour)
+    kw = dict(local_timezone=local_timezone, observation_hour=observation_hour, criteria=criteria)
     at_map = cell_values(diag, profiles, table, map_t, **kw)
     lo, hi = avalanche_terrain_deg
     terrain_label = {"avalanche": f"avalanche terrain ({lo:g}-{hi:g} deg)", "all": "all terrain"}
@@ -968,33 +1028,59 @@ def layer_ids(kind: np.ndarray, ref_s: np.ndarray, local_timezone: str) -> np.nd
     return np.asarray(LAYER_KINDS, dtype=object)[kind] + "-" + local_dates(ref_s, local_timezone)
 
 
-def layer_identities(snap: LayerSnapshot) -> tuple[tuple[np.ndarray, ...], np.ndarray, np.ndarray]:
-    """Every buried weak layer and every crust of a snapshot, with what names it region-wide.
+def layer_identities(
+    snap: LayerSnapshot, criteria: ConcernCriteria = DEFAULT_CRITERIA
+) -> tuple[tuple[np.ndarray, ...], np.ndarray, np.ndarray]:
+    """Every persistent weak layer of concern and every crust of a snapshot, with what names
+    it region-wide.
+
+    A region-wide precipitation event (storm, rain, freezing rain) is one time window for the
+    whole region, and its id (``event_id``, the window's start hour) is the same in every
+    cell; naming layers by it gives the layers of one event one name everywhere, whatever
+    hour each cell's share of the storm arrived.
+
+    Parameters
+    ----------
+    snap : decoded snapshots (:func:`decode_snapshot`).
+    criteria : what makes a persistent layer one of concern
+        (:func:`regionmap.products.concern.weak_layers_of_concern`).
 
     Returns
     -------
     pos : (cell, day, layer) index arrays of the entries: the weak layers first, then the
         crusts (a faceting crust appears once as each).
     kind : int, index into :data:`LAYER_KINDS` (the family FC/DH/SH, or the crust kind).
-    ref_s : int64 seconds since 1970 the layer is named for: the burial of surface hoar (the
-        deposition of the layer above), the start of the precipitation event of a rain crust
-        or glaze (one event, one layer, whatever day each cell refroze), else the formation;
-        ``_NO_TIME`` where the snapshot lacks it. :func:`layer_ids` names them.
+    ref_s : int64 seconds since 1970 the layer is named for: buried surface hoar by the start
+        of the storm that buried it (the event of the layer directly above; that layer's
+        deposition when it carries no event), faceted crystals and depth hoar by the start
+        of the storm that deposited their snow (their formation without an event), rain
+        crusts and glaze by the start of their precipitation event (one event, one layer,
+        whatever day each cell refroze), other crusts by their formation; ``_NO_TIME``
+        where the snapshot lacks it. :func:`layer_ids` names them.
     """
-    buried = snap.valid & (snap.burial_s > _NO_TIME)
-    family = np.where(buried, _FAMILY_OF_GRAIN[np.maximum(snap.grain, 0)], 0)
+    family = np.where(snap.of_concern(criteria), _FAMILY_OF_GRAIN[np.maximum(snap.grain, 0)], 0)
     weak = np.nonzero(family)
     crust = np.nonzero(snap.valid & (snap.crust > 0))
     pos = tuple(np.concatenate([w, c]) for w, c in zip(weak, crust))
     kind = np.concatenate(
         [family[weak].astype(np.int64) - 1, _N_FAMILIES + snap.crust[crust].astype(np.int64)]
     )
-    ref_s = np.where(kind == LAYER_KINDS.index("SH"), snap.burial_s[pos], snap.formation_s[pos])
-    event_s = snap.event_id[pos].astype(np.int64) * 3600
-    by_event = np.isin(
-        kind, [LAYER_KINDS.index("rain", _N_FAMILIES), LAYER_KINDS.index("glaze", _N_FAMILIES)]
+    own_event_s = np.where(snap.event_id[pos] > 0, snap.event_id[pos].astype(np.int64) * 3600, 0)
+    is_sh = kind == LAYER_KINDS.index("SH")
+    burial_s = np.where(
+        snap.burial_event_s[pos] > _NO_TIME, snap.burial_event_s[pos], snap.burial_s[pos]
     )
-    return pos, kind, np.where(by_event & (event_s > 0), event_s, ref_s)
+    by_event = np.isin(
+        kind,
+        [
+            LAYER_KINDS.index("FC"),
+            LAYER_KINDS.index("DH"),
+            LAYER_KINDS.index("rain", _N_FAMILIES),
+            LAYER_KINDS.index("glaze", _N_FAMILIES),
+        ],
+    ) & (own_event_s > 0)
+    ref_s = np.where(is_sh, burial_s, np.where(by_event, own_event_s, snap.formation_s[pos]))
+    return pos, kind, ref_s
 
 
 def layers_of_concern(
@@ -1006,17 +1092,21 @@ def layers_of_concern(
     time,
     local_timezone: str = "UTC",
     observation_hour: int = 7,
+    criteria: ConcernCriteria = DEFAULT_CRITERIA,
 ) -> pd.DataFrame:
-    """Persistent weak layers and crusts identified region-wide, summarised per zone and per
-    zone × band × aspect at ``time``.
+    """Persistent weak layers of concern and crusts identified region-wide, summarised per
+    zone and per zone × band × aspect at ``time``.
 
-    A layer is identified by its kind and a date in the local time zone: buried surface hoar
-    (``SH``) by its burial date (the deposition of the layer above it), faceted crystals
-    (``FC``, incl. FCxr and FCsf) and depth hoar (``DH``) by their formation date, crusts by
-    kind (``melt-freeze``, ``sun``, ``rain``, ``glaze``) and formation date — rain crusts and
-    glaze by the start of their precipitation event (``event_id``). Weak layers count
-    once buried; crusts also at the surface. When a cell holds two layers with the same
-    identity, the shallower one is used.
+    A layer is identified by its kind and a date in the local time zone
+    (:func:`layer_identities`): buried surface hoar (``SH``) by the start of the storm that
+    buried it, faceted crystals (``FC``, incl. FCxr and FCsf) and depth hoar (``DH``) by the
+    start of the storm that deposited their snow, rain crusts and glaze by the start of
+    their precipitation event, melt-freeze and sun crusts by their formation date. Weak
+    layers count where they are of concern (:mod:`regionmap.products.concern`: the same rule
+    as the column's ``pwl_present``); crusts count also at the surface. The layers of one
+    event carry one id, and when a cell holds several layers with the same id (one storm's
+    snow faceted in two layers, say) the shallowest one stands for them: one row per layer
+    id and group.
 
     Parameters
     ----------
@@ -1027,6 +1117,7 @@ def layers_of_concern(
     weight_km2 : (cell,) area weights [km2] (avalanche terrain by default in the run).
     time : datetime-like [UTC]; an output time of ``diag``.
     local_timezone, observation_hour : the local observation day (dates and 24/72 h loads).
+    criteria : what makes a persistent layer one of concern (the column model's thresholds).
 
     Returns
     -------
@@ -1076,7 +1167,7 @@ def layers_of_concern(
         k: getattr(snap, k)[:, 0, :]
         for k in ("depth_cm", "load_above_kg_m2", "thickness_m", "burial_s")
     }
-    (ci, _, li), code, ref_s = layer_identities(snap)
+    (ci, _, li), code, ref_s = layer_identities(snap, criteria)
     as_crust = code >= _N_FAMILIES
     kind = np.asarray(LAYER_KINDS, dtype=object)[code]
     if (ref_s <= _NO_TIME).any():
@@ -1085,7 +1176,7 @@ def layers_of_concern(
             "the layers of concern need it (int64 seconds since 1970, or datetimes)"
         )
     date = local_dates(ref_s, local_timezone)
-    verb = np.where(kind == "SH", " buried ", np.where(as_crust, " crust ", " formed "))
+    verb = np.where(kind == "SH", " buried ", np.where(as_crust, " crust ", " in snow of "))
     rows = pd.DataFrame(
         {
             "cell_id": table.index.to_numpy()[ci],

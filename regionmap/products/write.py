@@ -19,6 +19,7 @@ import xarray as xr
 from regionmap.config import Config
 from regionmap.io.times import event_date_label
 from regionmap.io.writers import write_csv
+from regionmap.products.concern import ConcernCriteria
 from regionmap.products.gis import write_gis
 from regionmap.products.rain_crust import (
     NO_CRUST_CLAUSE,
@@ -115,6 +116,7 @@ def write_products(
     :func:`regionmap.pipeline.ensemble.rain_crust_ensemble`) gives the rain-crust line its
     likely range; without it the range is the control run's line.
     """
+    criteria = ConcernCriteria.from_snow_params(cfg.snow)
     table = region.cells.table.copy()
     if "slope_class" not in table.columns:
         table["slope_class"] = 0
@@ -135,6 +137,7 @@ def write_products(
             local_timezone=tz,
             observation_hour=hour,
             avalanche_terrain_deg=tuple(cfg.cells.avalanche_terrain_deg),
+            criteria=criteria,
         )
         loc = layers_of_concern(
             diag,
@@ -144,6 +147,7 @@ def write_products(
             time=map_time,
             local_timezone=tz,
             observation_hour=hour,
+            criteria=criteria,
         )
         rc_cols, lines, words = _rain_crust(
             out, region, prof, table, weights, map_time, ensemble_members or {}, tz

@@ -446,7 +446,7 @@ def _fmt(v, decimals: int = 0) -> str:
 _ZONE_COLUMNS = [  # column, header, scale, decimals
     ("zone", "zone", 1, 0),
     ("depth_hoar_fraction", "depth hoar [% area]", 100, 0),
-    ("pwl_fraction", "weak layer present [% area]", 100, 0),
+    ("pwl_fraction", "weak layer of concern [% area]", 100, 0),
     ("pwl_depth_cm", "weak-layer depth [cm]", 1, 0),
     ("crust_count_mean", "crusts (mean)", 1, 1),
     ("crust_count_max", "crusts (max)", 1, 0),
