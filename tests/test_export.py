@@ -65,9 +65,10 @@ def _assemble(folder: Path, run):
     )
     lims, zlims = [], []
     for ev in rain_events(prof).itertuples():
-        event = RainEvent(
-            ev.event_id, ev.event_time, rain_crust_presence(prof, event_id=ev.event_id)
-        )
+        presence = rain_crust_presence(prof, event_id=ev.event_id)
+        # rain share 50 % at the design's crust top, 2000 m, linear across it
+        share = np.clip(0.5 + (2000.0 - table["elevation_m"].to_numpy()) / 200.0, 0.0, 1.0)
+        event = RainEvent(ev.event_id, ev.event_time, presence, share)
         lims.append(rain_crust_limits(table, w["all_km2"].to_numpy(), event))
         zlims.append(rain_crust_limits(table, w["all_km2"].to_numpy(), event, by=("zone",)))
     lim = pd.concat(lims, ignore_index=True)

@@ -6,8 +6,8 @@ Members shift the air temperature by ±1 K at all heights or the phase threshold
 re-simulated, only from a day before the event to two days after it; each block of cells
 starts from the control state the run saved shortly before
 (:mod:`regionmap.pipeline.checkpoints`). Elsewhere members keep the control's presence. The
-result is each member's crust presence per event, which the products turn into limits
-(:mod:`regionmap.products.rain_crust`).
+result is each member's crust presence and rain share of the event per event, which the
+products turn into limits (:mod:`regionmap.products.rain_crust`).
 """
 
 from __future__ import annotations
@@ -27,7 +27,12 @@ from regionmap.downscale.settings import DownscaleSettings
 from regionmap.downscale.types import CellForcing
 from regionmap.pipeline.chunk import RunContext, downscale_forcing, forcing_for
 from regionmap.pipeline.plan import chunk_ranges
-from regionmap.products.rain_crust import line_events, rain_crust_presence
+from regionmap.products.rain_crust import (
+    forcing_rain_share,
+    line_events,
+    rain_crust_presence,
+    rain_event_windows,
+)
 from regionmap.snow.column import run_columns, snapshots_to_dataset
 from regionmap.snow.state import SnowState
 
@@ -46,16 +51,21 @@ _ENSEMBLE_BLOCK_CELLS = 2048
 
 @dataclass
 class RainCrustEnsemble:
-    """Each member's rain-crust presence per event, and what it cost.
+    """Each member's rain-crust presence and rain share per event, and what it cost.
 
     Attributes
     ----------
     members : {event_id: ndarray (member, cell) bool} in :data:`ENSEMBLE_MEMBERS` order; events
         without a rain-on-snow window in the event log are missing.
+    rain_share : {event_id: ndarray (member, cell) float}: the liquid share of each member's
+        precipitation over the event's rain hours [1]
+        (:func:`regionmap.products.rain_crust.forcing_rain_share`); NaN in the cells that
+        were not re-simulated.
     cost : the ``rain_crust_ensemble`` record of ``run.json``.
     """
 
     members: dict[int, np.ndarray] = field(default_factory=dict)
+    rain_share: dict[int, np.ndarray] = field(default_factory=dict)
     cost: dict = field(default_factory=dict)
 
 
@@ -83,21 +93,6 @@ def perturbed_forcing(
     return out
 
 
-def _event_windows(out: Path) -> dict:
-    """Rain-on-snow windows per event id from the run's event log (``events.csv``)."""
-    path = out / "events.csv"
-    if not path.exists():
-        return {}
-    frame = pd.read_csv(path)
-    for col in ("first_time", "last_time"):  # ISO 8601 with offset -> naive UTC
-        frame[col] = pd.to_datetime(frame[col], utc=True).dt.tz_localize(None)
-    frame = frame[frame["kind"] == "rain-on-snow"]
-    g = frame.groupby("event_id").agg(
-        first_time=("first_time", "min"), last_time=("last_time", "max")
-    )
-    return {int(k): row for k, row in g.iterrows()}
-
-
 def rain_crust_ensemble(
     out: Path, ctx: RunContext, state0: SnowState, table: pd.DataFrame, map_time
 ) -> RainCrustEnsemble:
@@ -115,14 +110,15 @@ def rain_crust_ensemble(
     costs = []
     with xr.open_dataset(out / "profiles.nc", engine="netcdf4") as prof:
         events, minor = line_events(prof, day=map_time, n_cells_total=len(table))
-        log = _event_windows(out)
+        log = rain_event_windows(out / "events.csv")
         for ev in events.itertuples():
             window = log.get(int(ev.event_id))
             if window is None:
                 continue
             control = rain_crust_presence(prof, day=map_time, event_id=int(ev.event_id))
-            members, cost = _member_presence(ctx, state0, window, control, table)
+            members, shares, cost = _member_presence(ctx, state0, window, control, table)
             ensemble.members[int(ev.event_id)] = members
+            ensemble.rain_share[int(ev.event_id)] = shares
             costs.append({"event_id": int(ev.event_id), **cost})
     ensemble.cost = {
         "members": [list(m) for m in ENSEMBLE_MEMBERS],
@@ -134,17 +130,23 @@ def rain_crust_ensemble(
 
 
 def _member_presence(
-    ctx: RunContext, state0: SnowState, event: pd.Series, control: np.ndarray, table: pd.DataFrame
-) -> tuple[np.ndarray, dict]:
-    """(member, cell) crust presence of the ensemble for one event, and its cost."""
+    ctx: RunContext,
+    state0: SnowState,
+    window: tuple[np.datetime64, np.datetime64],
+    control: np.ndarray,
+    table: pd.DataFrame,
+) -> tuple[np.ndarray, np.ndarray, dict]:
+    """(member, cell) crust presence and rain share of the ensemble for one event whose rain
+    fell in ``window`` (first, last hour), and its cost."""
     t0 = _time.perf_counter()
     z = table["elevation_m"].to_numpy(float)
+    shares = np.full((len(ENSEMBLE_MEMBERS), control.size), np.nan)
     if not control.any():
-        return np.repeat(control[None, :], len(ENSEMBLE_MEMBERS), axis=0), {
-            "cells": 0,
-            "steps": 0,
-            "seconds": 0.0,
-        }
+        return (
+            np.repeat(control[None, :], len(ENSEMBLE_MEMBERS), axis=0),
+            shares,
+            {"cells": 0, "steps": 0, "seconds": 0.0},
+        )
     lo_z, hi_z = z[control].min() - _ENSEMBLE_MARGIN_M, z[control].max() + _ENSEMBLE_MARGIN_M
     cells = np.nonzero((z >= lo_z) & (z <= hi_z))[0]
     if ctx.cfg.downscale.drift:  # drift is normalised per zone: re-simulate whole zones
@@ -152,8 +154,7 @@ def _member_presence(
         cells = np.nonzero(np.isin(zone, zone[cells]))[0]
     p = ctx.period
     times = p.times
-    first_ev = np.datetime64(event["first_time"], "s")
-    last_ev = np.datetime64(event["last_time"], "s")
+    first_ev, last_ev = (np.datetime64(t, "s") for t in window)
     start = max(
         p.first, int(np.searchsorted(times, first_ev - np.timedelta64(_SPIN_BEFORE_H * 3600, "s")))
     )
@@ -175,26 +176,36 @@ def _member_presence(
     with ThreadPoolExecutor(min(n_threads, len(blocks))) as pool:
         done = list(
             pool.map(
-                lambda b: _block_presence(ctx, state0, cells[b[0] : b[1]], start, stop, formed),
+                lambda b: _block_presence(
+                    ctx, state0, cells[b[0] : b[1]], start, stop, formed, (first_ev, last_ev)
+                ),
                 blocks,
             )
         )
-    for (lo, hi), (presence, _resume) in zip(blocks, done):
+    for (lo, hi), (presence, share, _resume) in zip(blocks, done):
         members[:, cells[lo:hi]] = presence
+        shares[:, cells[lo:hi]] = share
     cost = {
         "cells": int(cells.size),
         "steps": int(stop - resume),
         "member_steps": int(stop - start),
         "seconds": round(_time.perf_counter() - t0, 3),
     }
-    return members, cost
+    return members, shares, cost
 
 
 def _block_presence(
-    ctx: RunContext, state0: SnowState, cells: np.ndarray, start: int, stop: int, formed: tuple
-) -> tuple[np.ndarray, int]:
-    """(member, cell) crust presence of the ensemble for some cells (positions) over the
-    forcing steps ``start:stop``, and the step their control state was resumed from."""
+    ctx: RunContext,
+    state0: SnowState,
+    cells: np.ndarray,
+    start: int,
+    stop: int,
+    formed: tuple,
+    rain_window: tuple,
+) -> tuple[np.ndarray, np.ndarray, int]:
+    """(member, cell) crust presence and rain share over ``rain_window`` (first, last
+    interval end) of the ensemble for some cells (positions) over the forcing steps
+    ``start:stop``, and the step their control state was resumed from."""
     p = ctx.period
     gf = forcing_for(ctx)
     batch = ctx.batch.subset(cells)
@@ -214,8 +225,12 @@ def _block_presence(
         )
     window = downscale_forcing(ctx, gf, batch, slice(start, stop))
     presence = np.zeros((len(ENSEMBLE_MEMBERS), cells.size), bool)
+    share = np.zeros((len(ENSEMBLE_MEMBERS), cells.size))
+    t = p.times[start:stop]
+    in_event = (t >= rain_window[0]) & (t <= rain_window[1])
     for m, (dt_k, dphase_k) in enumerate(ENSEMBLE_MEMBERS):
         f = perturbed_forcing(window, dt_k, dphase_k, ctx.cfg.downscale)
+        share[m] = forcing_rain_share(f.precip_kg_m2[:, in_event], f.snow_frac[:, in_event])
         _, _, snaps = run_columns(state, f, ctx.cfg.snow, stop - start, None, threads=1)
         ds = (
             snapshots_to_dataset(snaps, batch.cell_id)
@@ -223,4 +238,4 @@ def _block_presence(
             .rename({"time": "day"})
         )
         presence[m] = rain_crust_presence(ds, formed_between=formed)
-    return presence, resume
+    return presence, share, resume

@@ -352,6 +352,7 @@ def execute(
             map_time=plan.map_time,
             is_forecast=plan.map_is_forecast,
             ensemble_members=ensemble.members,
+            ensemble_rain_share=ensemble.rain_share,
         )
         timings["products"] = _time.perf_counter() - t0
         shutil.rmtree(out / CHECKPOINT_FOLDER, ignore_errors=True)

@@ -5,32 +5,59 @@ the time (below it there was no snow to wet) and below the rain–snow transitio
 precipitation fell as snow). That transition sits some way below the freezing level, since
 falling snow needs a few hundred metres of above-freezing air to melt (common practice;
 the melting distance depends on humidity and rate). The column model tags the crusts such an
-event leaves (``crust_kind = "rain"`` and the event's ``event_id``); here the presence of that
-crust per cell becomes, per zone × aspect, an upper and a lower limit, each interpolated
-linearly between band centres where the area fraction with the crust crosses 0.5
-(:func:`regionmap.products.summaries.band_transitions`).
+event leaves (``crust_kind = "rain"`` and the event's ``event_id``).
+
+**Upper limit: the rain–snow transition** (the rain-crust line). Each cell's *rain share*
+of the event — the liquid part of the precipitation it received over the event's window,
+``rain_kg_m2 / (rain_kg_m2 + snowfall_kg_m2)`` — falls with elevation. Per zone × aspect
+the shares are fitted against the cells' own mean elevations by an antitonic (non-increasing)
+weighted least-squares regression, the pool-adjacent-violators fit of Ayer et al. (1955),
+and the line is where that fit, joined linearly between the cells' elevations, crosses 50 %
+(the interpolated isotonic estimate of a target level of Stylianou & Flournoy 2002). Where
+the transition moved during the event, or lay between two cells, the shares are fractional
+and the line falls between the cells, finer than the band step. The column makes a rain crust only where rain was at least half of
+the event's precipitation (:class:`regionmap.snow.params.SnowParams` ``rain_crust_min_share``),
+so this is also the crust's upper edge. When the share is 50 % or more up to the group's
+highest cell, the line is above that cell (``at_or_above``: it is not extrapolated); when it is
+under 50 % even in the lowest cell, below it (``at_or_below``).
+
+**Lower limit: the snow line of the time**, from the crust's presence: interpolated linearly
+between band centres where the area fraction with the crust crosses 0.5
+(:func:`regionmap.products.summaries.band_transitions`). A group without the crust has no
+limits (``absent``).
 
 The likely range comes from a small perturbation ensemble the run makes around the event
-(air temperature ±1 K at all heights, phase threshold ±0.5 K): each member's crust presence
-goes through the same computation and the range is the smallest and largest limit over the
-members and the control run. It shows the sensitivity of the model chain; the NWP's own
-freezing-level error usually dominates and is not in it.
+(air temperature ±1 K at all heights, phase threshold ±0.5 K): each member's rain shares and
+crust presence go through the same computation and the range is the smallest and largest
+limit over the members and the control run. It shows the sensitivity of the model chain;
+the NWP's own freezing-level error usually dominates and is not in it.
 
 The limits are drawn as contour lines of the DEM (contourpy) inside each zone-aspect region
 (clipped with shapely) and stated in words for the CLI and the zones table.
 
 Model output is guidance for trained people; it does not replace field observations, the
 local avalanche service's products or professional judgement.
+
+References
+----------
+.. [1] Ayer, M., Brunk, H. D., Ewing, G. M., Reid, W. T. and Silverman, E. (1955). An
+   empirical distribution function for sampling with incomplete information. Annals of
+   Mathematical Statistics 26(4), 641-647. doi:10.1214/aoms/1177728423
+.. [2] Stylianou, M. and Flournoy, N. (2002). Dose finding using the biased coin up-and-down
+   design and isotonic regression. Biometrics 58(1), 171-177.
+   doi:10.1111/j.0006-341X.2002.00171.x [mem: recalled, not re-checked]
 """
 
 from __future__ import annotations
 
 from dataclasses import dataclass
+from pathlib import Path
 from typing import TYPE_CHECKING
 
 import numpy as np
 import pandas as pd
 import xarray as xr
+from scipy.optimize import isotonic_regression
 
 from regionmap.errors import GridMismatchError, InputError
 from regionmap.products.summaries import band_transitions, decode_snapshot
@@ -44,6 +71,10 @@ __all__ = [
     "RainEvent",
     "rain_events",
     "line_events",
+    "rain_event_windows",
+    "event_rain_share",
+    "forcing_rain_share",
+    "transition_elevation_isotonic",
     "rain_crust_presence",
     "rain_crust_limits",
     "rain_crust_lines",
@@ -83,13 +114,19 @@ class RainEvent:
     event_id : int, the column's event id of the crust.
     event_time : datetime64[s], representative time (median crust formation time) [UTC].
     presence : (cell,) bool, control run: the cell's column holds the event's rain crust.
-    members : (member, cell) bool or None, the same for each perturbation member.
+    rain_share : (cell,) float, control run: the liquid share of the cell's precipitation
+        over the event's window [1] (NaN where it had none; :func:`event_rain_share`).
+    members : (member, cell) bool or None, crust presence of each perturbation member.
+    member_rain_share : (member, cell) float or None, each member's rain share (NaN where
+        the member was not re-simulated: the control's share stands in).
     """
 
     event_id: int
     event_time: np.datetime64
     presence: np.ndarray
+    rain_share: np.ndarray
     members: np.ndarray | None = None
+    member_rain_share: np.ndarray | None = None
 
 
 def _snapshot_day(profiles: xr.Dataset, day) -> int:
@@ -174,6 +211,122 @@ def line_events(
     return events[events["n_cells"] >= min_cells], events[events["n_cells"] < min_cells]
 
 
+def rain_event_windows(events_csv) -> dict[int, tuple[np.datetime64, np.datetime64]]:
+    """Each rain-on-snow event's window from the run's event log (``events.csv``): the first
+    and last hour with rain of the event anywhere in the region, as (first, last) interval
+    ends [UTC], by event id; empty when the file does not exist."""
+    path = Path(events_csv)
+    if not path.exists():
+        return {}
+    frame = pd.read_csv(path)
+    missing = {"kind", "event_id", "first_time", "last_time"} - set(frame.columns)
+    if missing:
+        raise InputError(f"{path}: missing columns {sorted(missing)} (see docs/outputs.md)")
+    frame = frame[frame["kind"] == "rain-on-snow"]
+    first = pd.to_datetime(frame["first_time"], utc=True).dt.tz_localize(None)
+    last = pd.to_datetime(frame["last_time"], utc=True).dt.tz_localize(None)
+    g = pd.DataFrame({"event_id": frame["event_id"], "first": first, "last": last}).groupby(
+        "event_id"
+    )
+    lo, hi = g["first"].min(), g["last"].max()
+    return {int(k): (np.datetime64(lo[k], "s"), np.datetime64(hi[k], "s")) for k in lo.index}
+
+
+def event_rain_share(diag: xr.Dataset, first, last) -> np.ndarray:
+    """(cell,) liquid share of each cell's precipitation in the intervals that end in
+    [``first``, ``last``] [1]: ``rain_kg_m2 / (rain_kg_m2 + snowfall_kg_m2)`` summed over them
+    (``cells.nc``); NaN where a cell had no precipitation then."""
+    for name in ("rain_kg_m2", "snowfall_kg_m2"):
+        if name not in diag.variables:
+            raise InputError(f"cells.nc: missing variable {name!r} (see docs/outputs.md)")
+    t = diag["time"].values.astype("datetime64[s]")
+    sel = np.nonzero((t >= np.datetime64(first, "s")) & (t <= np.datetime64(last, "s")))[0]
+    if sel.size == 0:
+        return np.full(diag.sizes["cell"], np.nan)
+    part = slice(int(sel[0]), int(sel[-1]) + 1)
+
+    def total(name: str) -> np.ndarray:
+        v = diag[name].isel(time=part).transpose("cell", "time").values.astype(np.float64)
+        return np.nansum(v, axis=1)
+
+    rain, snow = total("rain_kg_m2"), total("snowfall_kg_m2")
+    precip = rain + snow
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return np.where(precip > 0.0, rain / precip, np.nan)
+
+
+def forcing_rain_share(precip_kg_m2: np.ndarray, snow_frac: np.ndarray) -> np.ndarray:
+    """(cell,) liquid share of the precipitation in hourly cell forcing (cell, time) [1], as
+    the column counts it (rain = precipitation × (1 − snow fraction)): the rain share of a
+    perturbed ensemble member, comparable with :func:`event_rain_share`; NaN without
+    precipitation."""
+    p = np.asarray(precip_kg_m2, dtype=np.float64)
+    liquid = (p * (1.0 - np.asarray(snow_frac, dtype=np.float64))).sum(axis=1)
+    total = p.sum(axis=1)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return np.where(total > 0.0, liquid / total, np.nan)
+
+
+def transition_elevation_isotonic(
+    elevation_m: np.ndarray, share: np.ndarray, weight: np.ndarray, *, level: float = 0.5
+) -> tuple[float, str]:
+    """Elevation where a share that falls with elevation crosses ``level``.
+
+    An antitonic weighted least-squares fit of ``share`` on elevation (pool adjacent
+    violators, Ayer et al. 1955; ``scipy.optimize.isotonic_regression``), joined linearly
+    between the cells' elevations; the crossing of ``level`` is interpolated between the two
+    cells that bracket it (Stylianou & Flournoy 2002).
+
+    Parameters
+    ----------
+    elevation_m : (n,) float, the cells' mean elevations [m].
+    share : (n,) float, e.g. the rain share of an event [1]; NaN entries are left out.
+    weight : (n,) float, the cells' area weights [km2]; cells of weight 0 are left out.
+    level : the share whose elevation is wanted.
+
+    Returns
+    -------
+    elevation_m : float [m]
+    bound : ``""`` for a crossing between cells; ``"at_or_above"`` when the fit is at or above
+        ``level`` up to the highest cell (its elevation is returned: the crossing is higher);
+        ``"at_or_below"`` when it is under ``level`` down to the lowest cell (its elevation:
+        the crossing is lower); ``"absent"`` (NaN) without cells or when the share is 0
+        everywhere (no rain at all).
+    """
+    z, y, w = (np.asarray(a, dtype=np.float64) for a in (elevation_m, share, weight))
+    ok = np.isfinite(z) & np.isfinite(y) & (w > 0)
+    order = np.argsort(z[ok], kind="stable")
+    z, y, w = z[ok][order], y[ok][order], w[ok][order]
+    if z.size == 0 or not (y > 0).any():
+        return float("nan"), "absent"
+    fit = isotonic_regression(y, weights=w, increasing=False).x
+    if fit[-1] >= level:
+        return float(z[-1]), "at_or_above"
+    if fit[0] < level:
+        return float(z[0]), "at_or_below"
+    k = int(np.flatnonzero(fit >= level)[-1])  # the fit is non-increasing: k + 1 is under
+    frac = (fit[k] - level) / (fit[k] - fit[k + 1])
+    return float(z[k] + frac * (z[k + 1] - z[k])), ""
+
+
+def _share_lines(
+    table: pd.DataFrame, weight_km2: np.ndarray, shares: np.ndarray, keys: list[str]
+) -> pd.DataFrame:
+    """Upper limit per member × group from the rain shares (member, cell):
+    :func:`transition_elevation_isotonic` over the group's cells (one call per group)."""
+    n_mem = shares.shape[0]
+    z = table["elevation_m"].to_numpy(np.float64)
+    w = np.asarray(weight_km2, dtype=np.float64)
+    groups = table.groupby(keys, sort=True, dropna=False).indices
+    rows = []
+    for m in range(n_mem):
+        for key, idx in groups.items():
+            elev, bound = transition_elevation_isotonic(z[idx], shares[m, idx], w[idx])
+            key = key if isinstance(key, tuple) else (key,)
+            rows.append((m, *key, elev, bound))
+    return pd.DataFrame(rows, columns=["member", *keys, "upper_m", "upper_bound"])
+
+
 def _band_fractions(
     table: pd.DataFrame, weight_km2: np.ndarray, presence: np.ndarray, keys
 ) -> pd.DataFrame:
@@ -210,16 +363,19 @@ def rain_crust_limits(
     table : cell table indexed by ``cell_id`` (``zone``, ``aspect_sector``, band edges,
         ``elevation_m``).
     weight_km2 : (cell,) area weights [km2] (all terrain suits: the crust follows elevation).
-    event : :class:`RainEvent` with the control presence and optional member presence.
+    event : :class:`RainEvent` with the control presence and rain shares, and optionally the
+        members'.
     by : grouping columns (``("zone",)`` for one limit per zone).
 
     Returns
     -------
     DataFrame per group: ``event_id``, ``event_time``, ``upper_m``, ``upper_bound``,
     ``upper_low_m``, ``upper_high_m``, ``lower_m``, ``lower_bound``, ``lower_low_m``,
-    ``lower_high_m``, ``n_members``. Bounds as in
-    :func:`regionmap.products.summaries.band_transitions` (``at_or_above``: the crust reaches the top
-    band; ``at_or_below``: down to the lowest; ``absent``).
+    ``lower_high_m``, ``n_members``. The upper limit is the rain share's 50 % crossing
+    (:func:`transition_elevation_isotonic`: ``at_or_above`` the highest cell, ``at_or_below`` the
+    lowest); the lower limit the crust presence's crossing between band centres
+    (:func:`regionmap.products.summaries.band_transitions`: ``at_or_below``: the crust
+    reaches down to the lowest band). Both are ``absent`` in a group without the crust.
     """
     keys = list(by)
     control = np.asarray(event.presence, dtype=bool)
@@ -236,9 +392,29 @@ def rain_crust_limits(
         raise GridMismatchError(
             f"rain event {event.event_id}: member presence has shape {members.shape}, expected (member, {control.size})"
         )
+    share = np.asarray(event.rain_share, dtype=np.float64)
+    if share.shape != control.shape:
+        raise GridMismatchError(
+            f"rain event {event.event_id}: rain_share has shape {share.shape}, expected ({control.size},) cells"
+        )
+    member_share = (
+        np.full(members.shape, np.nan)
+        if event.member_rain_share is None
+        else np.asarray(event.member_rain_share, dtype=np.float64)
+    )
+    if member_share.shape != members.shape:
+        raise GridMismatchError(
+            f"rain event {event.event_id}: member rain shares have shape {member_share.shape}, expected {members.shape}"
+        )
     allp = np.vstack([control[None, :], members])
+    shares = np.vstack([share[None, :], np.where(np.isnan(member_share), share, member_share)])
     fr = _band_fractions(table, weight_km2, allp, keys)
-    lim = band_transitions(fr, ["member", *keys], "frac")
+    lower = band_transitions(fr, ["member", *keys], "frac")
+    upper = _share_lines(table, weight_km2, shares, keys)
+    lim = lower.drop(columns=["upper_m", "upper_bound"]).merge(upper, on=["member", *keys])
+    no_crust = lim["lower_bound"] == "absent"
+    lim.loc[no_crust, "upper_m"] = np.nan
+    lim.loc[no_crust, "upper_bound"] = "absent"
     ctl = lim[lim["member"] == 0].drop(columns="member").set_index(keys)
     spread = lim.groupby(keys, dropna=False).agg(
         upper_low_m=("upper_m", "min"),
@@ -301,6 +477,10 @@ def _clause(row) -> str:
     upper_rng = f"({_r(row.upper_low_m)}–{_r(row.upper_high_m)} m)" if spread else ""
     if row.upper_bound == "absent":
         return NO_CRUST_CLAUSE
+    if row.upper_bound == "at_or_below":  # rain under half of the precipitation everywhere
+        return (
+            "rain crust only in places: rain was under half of the precipitation at all elevations"
+        )
     if row.upper_bound == "at_or_above":
         if row.lower_bound == "at_or_below":
             return "rain crust likely at all elevations"

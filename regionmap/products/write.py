@@ -24,11 +24,13 @@ from regionmap.products.gis import write_gis
 from regionmap.products.rain_crust import (
     NO_CRUST_CLAUSE,
     RainEvent,
+    event_rain_share,
     line_events,
     rain_crust_limits,
     rain_crust_lines,
     rain_crust_presence,
     rain_crust_sentence,
+    rain_event_windows,
     zone_rain_crust_columns,
 )
 from regionmap.products.summaries import layers_of_concern, summary_tables, terrain_weights_km2
@@ -55,23 +57,37 @@ def _weights(region, cfg: Config) -> pd.DataFrame:
 def _rain_crust(
     out: Path,
     region,
+    diag: xr.Dataset,
     prof: xr.Dataset,
     table: pd.DataFrame,
     weights: pd.DataFrame,
     map_time,
     ensemble_members: dict[int, np.ndarray],
+    ensemble_rain_share: dict[int, np.ndarray],
     local_timezone: str,
 ) -> tuple[pd.DataFrame, object, list[str]]:
     """Limits, lines and sentences of every rain-on-snow event up to the map time."""
     import geopandas as gpd
 
     events, _ = line_events(prof, day=map_time, n_cells_total=len(table))
+    windows = rain_event_windows(out / "events.csv")
     w_all = weights["all_km2"].to_numpy()
     by_aspect, by_zone = [], []
     for ev in events.itertuples():
-        control = rain_crust_presence(prof, day=map_time, event_id=int(ev.event_id))
-        members = ensemble_members.get(int(ev.event_id))
-        event = RainEvent(int(ev.event_id), np.datetime64(ev.event_time, "s"), control, members)
+        event_id = int(ev.event_id)
+        control = rain_crust_presence(prof, day=map_time, event_id=event_id)
+        # the event's rain hours; without a log entry, from its start to its crusts' time
+        first, last = windows.get(
+            event_id, (np.datetime64(event_id * 3600, "s"), np.datetime64(ev.event_time, "s"))
+        )
+        event = RainEvent(
+            event_id,
+            np.datetime64(ev.event_time, "s"),
+            control,
+            event_rain_share(diag, first, last),
+            ensemble_members.get(event_id),
+            ensemble_rain_share.get(event_id),
+        )
         by_aspect.append(rain_crust_limits(table, w_all, event, by=("zone", "aspect_sector")))
         by_zone.append(rain_crust_limits(table, w_all, event, by=("zone",)))
     if by_aspect:
@@ -109,12 +125,14 @@ def write_products(
     map_time,
     is_forecast: bool,
     ensemble_members: dict[int, np.ndarray] | None = None,
+    ensemble_rain_share: dict[int, np.ndarray] | None = None,
 ) -> Products:
     """Summaries, layers of concern, rain-crust line and GIS layers of a finished run.
 
-    ``ensemble_members`` ({event_id: (member, cell) bool}, from
-    :func:`regionmap.pipeline.ensemble.rain_crust_ensemble`) gives the rain-crust line its
-    likely range; without it the range is the control run's line.
+    ``ensemble_members`` ({event_id: (member, cell) bool}) and ``ensemble_rain_share``
+    ({event_id: (member, cell) float}), from
+    :func:`regionmap.pipeline.ensemble.rain_crust_ensemble`, give the rain-crust line its
+    likely range; without them the range is the control run's line.
     """
     criteria = ConcernCriteria.from_snow_params(cfg.snow)
     table = region.cells.table.copy()
@@ -150,7 +168,16 @@ def write_products(
             criteria=criteria,
         )
         rc_cols, lines, words = _rain_crust(
-            out, region, prof, table, weights, map_time, ensemble_members or {}, tz
+            out,
+            region,
+            diag,
+            prof,
+            table,
+            weights,
+            map_time,
+            ensemble_members or {},
+            ensemble_rain_share or {},
+            tz,
         )
     zones = tables.zones.merge(rc_cols, left_on="zone", right_index=True, how="left")
     zones["valid_time"] = pd.Timestamp(map_time)
