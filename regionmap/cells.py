@@ -458,6 +458,6 @@ def region_fingerprints(dem, zones) -> dict:
     h.update(dem.crs.to_wkt().encode())
     zone_prints = {
         str(name): hashlib.sha256(shapely.to_wkb(shapely.normalize(geom))).hexdigest()[:16]
-        for name, geom in zip(zones["zone"], zones.geometry)
+        for name, geom in zip(zones["zone"], zones.geometry, strict=True)
     }
     return {"dem": h.hexdigest()[:16], "zones": zone_prints}

@@ -14,6 +14,7 @@ import datetime as dt
 import re
 import tomllib
 import zoneinfo
+from itertools import pairwise
 from pathlib import Path
 from typing import Annotated, Any, ClassVar, Literal, TypeVar
 
@@ -124,10 +125,10 @@ class CellSettings(Settings):
             raise ValueError("give band_edges_m or band_step_m")
         if self.band_edges_m is not None:
             edges = self.band_edges_m
-            if len(edges) < 1 or any(b <= a for a, b in zip(edges, edges[1:])):
+            if len(edges) < 1 or any(b <= a for a, b in pairwise(edges)):
                 raise ValueError(f"band_edges_m must be strictly increasing, got {list(edges)}")
         s = self.slope_classes_deg
-        if any(b <= a for a, b in zip(s, s[1:])):
+        if any(b <= a for a, b in pairwise(s)):
             raise ValueError(f"slope_classes_deg must be strictly increasing, got {list(s)}")
         lo, hi = self.avalanche_terrain_deg
         if hi <= lo:

@@ -184,7 +184,7 @@ def test_table_file_round_trip_and_selection(tmp_path):
     assert [(b.variable, b.exposure_class) for b in back] == [
         (a.variable, a.exposure_class) for a in tables
     ]
-    for a, b in zip(tables, back):
+    for a, b in zip(tables, back, strict=True):
         np.testing.assert_array_equal(a.model_quantiles, b.model_quantiles)
         np.testing.assert_array_equal(a.pooled, b.pooled)
         np.testing.assert_array_equal(

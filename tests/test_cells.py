@@ -33,7 +33,7 @@ def test_every_valid_in_zone_pixel_is_in_exactly_one_cell(demo_dem, demo_zones, 
 
 def test_cell_areas_sum_to_rasterised_zone_area(demo_dem, demo_zones, demo_cells):
     area = demo_dem.pixel_area_m2()
-    for name, geom in zip(demo_zones.zone, demo_zones.geometry):
+    for name, geom in zip(demo_zones.zone, demo_zones.geometry, strict=True):
         mask = rasterize(
             [(geom, 1)], out_shape=demo_dem.shape, transform=demo_dem.transform, fill=0
         ).astype(bool)

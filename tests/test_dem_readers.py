@@ -105,7 +105,7 @@ def test_shipped_demo_files_are_reproduced_by_their_generator(tmp_path):
     new_z = gpd.read_file(make_demo_zones(tmp_path / "zones.geojson"))
     old_z = gpd.read_file(SHIPPED_ZONES)
     assert list(new_z["name"]) == list(old_z["name"]) == list(DEMO_ZONE_NAMES)
-    for a, b in zip(new_z.geometry, old_z.geometry):
+    for a, b in zip(new_z.geometry, old_z.geometry, strict=True):
         assert a.equals_exact(b, tolerance=1e-9)
 
 

@@ -502,7 +502,7 @@ def cycles_twin(w, path):
     labels_h = np.array(labels_h)
     prev = np.r_[0, labels_h[:-1]]
     amount = {
-        k: np.stack([w[k][a + 1 : b + 1].sum(0) for a, b in zip(prev, labels_h)])
+        k: np.stack([w[k][a + 1 : b + 1].sum(0) for a, b in zip(prev, labels_h, strict=True)])
         for k in ("pr", "sw", "lw")
     }
     sub = {k: v[labels_h] if v.ndim == 3 else v for k, v in w.items()}

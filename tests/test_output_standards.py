@@ -219,14 +219,14 @@ def test_geopackage_times_are_datetime_and_dates_date(demo_run):
     path = demo_run[2] / "zones.gpkg"
     for layer in GPKG_LAYERS:
         info = pyogrio.read_info(path, layer=layer)
-        types = dict(zip(info["fields"], info["dtypes"]))
+        types = dict(zip(info["fields"], info["dtypes"], strict=True))
         for name, dtype in types.items():
             if name.endswith("_time") or name == "new_snow_window_end":
                 assert dtype.startswith("datetime64"), (layer, name, dtype)
     # the local calendar date of a layer of concern is a Date field (pyogrio hands GDAL's
     # OFTDate back as datetime64[D])
     info = pyogrio.read_info(path, layer="layers_of_concern")
-    assert dict(zip(info["fields"], info["dtypes"]))["date"] == "datetime64[D]"
+    assert dict(zip(info["fields"], info["dtypes"], strict=True))["date"] == "datetime64[D]"
 
 
 # ---------------------------------------------------------------- GeoJSON (RFC 7946)
@@ -282,7 +282,7 @@ def test_every_layer_with_geometry_has_a_geojson(demo_run):
     import geopandas as gpd
 
     out = demo_run[2]
-    for layer, name in zip(("zones", "cells", "rain_crust_line"), GEOJSON):
+    for layer, name in zip(("zones", "cells", "rain_crust_line"), GEOJSON, strict=True):
         gpkg = gpd.read_file(out / "zones.gpkg", layer=layer)
         gj = gpd.read_file(out / name)
         assert len(gj) == len(gpkg) and gj.crs.to_epsg() == 4326, name

@@ -3,6 +3,8 @@ units, legend entries, patch geometry), not pixels."""
 
 from __future__ import annotations
 
+from itertools import pairwise
+
 import numpy as np
 import pandas as pd
 import pytest
@@ -55,7 +57,7 @@ def test_metric_ramp_lightness_falls_monotonically_crameri2020():
     # Crameri et al. (2020), Nat. Commun. 11:5444: a perceptually ordered sequential map has
     # monotonic lightness, which keeps it readable under colour-vision deficiency.
     lum = [relative_luminance(c) for c in METRIC_RAMP]
-    assert all(a > b for a, b in zip(lum, lum[1:]))
+    assert all(a > b for a, b in pairwise(lum))
 
 
 def test_metric_ramp_holds_no_danger_scale_hues_common_practice():
@@ -79,7 +81,10 @@ def test_overview_puts_highest_band_in_the_centre_and_north_on_top(outputs):
     for coll in ax.collections:
         if coll.get_gid() in ("sector-rings", "no-terrain"):
             polys.update(
-                {url: path.vertices for url, path in zip(coll.get_urls(), coll.get_paths())}
+                {
+                    url: path.vertices
+                    for url, path in zip(coll.get_urls(), coll.get_paths(), strict=True)
+                }
             )
     bands = (
         outputs.table[outputs.table["zone"] == "Zone A"]
@@ -89,9 +94,7 @@ def test_overview_puts_highest_band_in_the_centre_and_north_on_top(outputs):
     inner = {b: polys[f"{b}|N"][:, 1].min() for b in bands}
     assert inner[bands[-1]] == pytest.approx(HOLE_RINGS)  # highest band innermost
     assert polys[f"{bands[-1]}|N"][:, 1].max() == pytest.approx(HOLE_RINGS + 1.0)
-    assert all(
-        inner[a] > inner[b] for a, b in zip(bands, bands[1:])
-    )  # radius falls as elevation rises
+    assert all(inner[a] > inner[b] for a, b in pairwise(bands))  # radius falls as elevation rises
     north = polys[f"{bands[0]}|N"][:, 0]
     assert (north.min() + north.max()) / 2 == pytest.approx(
         0.0

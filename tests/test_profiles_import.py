@@ -53,7 +53,7 @@ def test_caaml_top_down_layers_bottom_first_in_si():
 
 def test_density_from_hardness_geldsetzer_jamieson2000_mem():
     p = read_caaml_profile(DATA / "caaml_top_down.xml")
-    rho = dict(zip(p.grain_code, p.density_kg_m3))
+    rho = dict(zip(p.grain_code, p.density_kg_m3, strict=True))
     # Geldsetzer & Jamieson (2000) as recalled [mem]: DH 185+25*2, FC 112+46*4, PP 45+36*1,
     # DF 91+35*2.5; SH uses the FC fit (project choice): 112+46*1
     assert rho["DH"] == pytest.approx(235.0)

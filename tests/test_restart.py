@@ -176,7 +176,7 @@ def test_restarted_cell_holds_the_profile_layers_from_the_file():
     # density: the observed one where given, else Geldsetzer & Jamieson (2000) [mem] fits
     fits = {"PP": (45, 36), "DF": (91, 35), "FC": (112, 46), "DH": (185, 25), "SH": (112, 46)}
     density = (new.ice_kg_m2[1, :n] + new.liquid_kg_m2[1, :n]) / thick
-    for x, code, rho in zip(raw, codes, density):
+    for x, code, rho in zip(raw, codes, density, strict=True):
         h = _hardness_fierz(x["hardness"])
         if x["density_kg_m3"]:
             expected = float(x["density_kg_m3"])
@@ -191,7 +191,7 @@ def test_restarted_cell_holds_the_profile_layers_from_the_file():
     from regionmap.snow.hardness import FIELD_HARDNESS_RANGE
 
     model_h = layer_hardness_array(new)[1, :n]
-    for x, code, h_model in zip(raw, codes, model_h):
+    for x, code, h_model in zip(raw, codes, model_h, strict=True):
         if not x["density_kg_m3"]:
             lo, hi = FIELD_HARDNESS_RANGE[code]
             expected = min(max(_hardness_fierz(x["hardness"]), lo), hi)
@@ -237,7 +237,9 @@ def test_increments_close_with_the_state_difference():
         sum(
             (float(x["top_cm"]) - float(x["bottom_cm"])) / 100 * rho
             for x, rho in zip(
-                raw, (after.ice_kg_m2[0] + after.liquid_kg_m2[0])[:7] / after.thickness_m[0, :7]
+                raw,
+                (after.ice_kg_m2[0] + after.liquid_kg_m2[0])[:7] / after.thickness_m[0, :7],
+                strict=True,
             )
         ),
         rel=1e-6,

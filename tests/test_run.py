@@ -113,7 +113,7 @@ def read(out: Path):
 
 
 def assert_same(a, b):
-    for part_a, part_b in zip(a, b):
+    for part_a, part_b in zip(a, b, strict=True):
         for name in part_a:
             np.testing.assert_array_equal(part_a[name], part_b[name], err_msg=name)
 
@@ -409,6 +409,7 @@ def _by_identity(out: Path, names=("snow_depth_cm", "swe_kg_m2", "crust_count"))
                 ds["band_lower_m"].values,
                 ds["aspect_sector"].values.astype(str),
                 ds["slope_class"].values,
+                strict=True,
             )
         )
         order = sorted(range(len(keys)), key=keys.__getitem__)

@@ -1,5 +1,7 @@
 """Atomic writers: outputs open with the reference readers; failures keep the old file."""
 
+from itertools import pairwise
+
 import numpy as np
 import pytest
 import rasterio
@@ -115,7 +117,7 @@ def test_streamed_blocks_read_back_the_same_through_either_compression_path(tmp_
             np.zeros(n_time, bool),
         )
         p = ProfilesNcWriter(tmp_path / f"profiles_{blocks}.nc", cells, days, n_layer, layer_vars)
-        for lo, hi in zip(edges[:-1], edges[1:]):
+        for lo, hi in pairwise(edges):
             w.write_chunk(np.arange(lo, hi), {k: v[lo:hi] for k, v in diag.items()})
             p.write_chunk(np.arange(lo, hi), count[lo:hi], {k: v[lo:hi] for k, v in fields.items()})
         w.close()
@@ -221,7 +223,7 @@ def test_geopackage_version_styles_and_date_fields(tmp_path):
         assert db.execute("PRAGMA user_version").fetchone()[0] == 10200  # GeoPackage 1.2
     db.close()
     info = pyogrio.read_info(path, layer="table")
-    types = dict(zip(info["fields"], info["dtypes"]))
+    types = dict(zip(info["fields"], info["dtypes"], strict=True))
     assert types["date"] == "datetime64[D]" and types["t"].startswith("datetime64")
     back = pyogrio.read_dataframe(path, layer="table")
     assert back["t"].dt.tz is not None  # DateTime written as UTC

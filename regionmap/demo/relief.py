@@ -354,13 +354,15 @@ def thermal_erosion_musgrave1989(
     z = np.array(z_m, dtype=np.float64)
     talus_drop = [np.tan(np.radians(talus_deg)) * spacing_m * np.hypot(dy, dx) for dy, dx in _D8]
     for _ in range(iterations):
-        excess = np.stack([z - _neighbour(z, dy, dx) - t for (dy, dx), t in zip(_D8, talus_drop)])
+        excess = np.stack(
+            [z - _neighbour(z, dy, dx) - t for (dy, dx), t in zip(_D8, talus_drop, strict=True)]
+        )
         np.maximum(excess, 0.0, out=excess)
         total = excess.sum(axis=0)
         share = np.divide(excess, total, out=np.zeros_like(excess), where=total > 0)
         moved = 0.5 * rate * excess.max(axis=0) * share  # (neighbour, y, x) leaving (y, x)
         z -= moved.sum(axis=0)
-        for (dy, dx), m in zip(_D8, moved):  # arrives at (y + dy, x + dx)
+        for (dy, dx), m in zip(_D8, moved, strict=True):  # arrives at (y + dy, x + dx)
             z += _neighbour(m, -dy, -dx, outside=0.0)
     return z
 

@@ -333,9 +333,9 @@ def open_forcing(
         static = P.open_products(_expand(static_path, base_dir)[:1], _open_one)
         opened.implied.update({k: v for k, v in static.implied.items() if k in _TERRAIN})
     mapping = M.normalise_mapping(variables, _TARGET, opened.implied)
-    tnames = [_time_coord(ds, p) for ds, p in zip(datasets, paths)]
-    tdims = [ds[tn].dims[0] for ds, tn in zip(datasets, tnames)]
-    times = [_file_times(ds, tn, p) for ds, tn, p in zip(datasets, tnames, paths)]
+    tnames = [_time_coord(ds, p) for ds, p in zip(datasets, paths, strict=True)]
+    tdims = [ds[tn].dims[0] for ds, tn in zip(datasets, tnames, strict=True)]
+    times = [_file_times(ds, tn, p) for ds, tn, p in zip(datasets, tnames, paths, strict=True)]
 
     chosen = {}
     for role, alternatives in _ROLES.items():
@@ -531,7 +531,7 @@ def _resolve_role(role, alternatives, datasets, paths, mapping, heights_m):
         per_sn = []
         for sn in alt:
             das = []
-            for ds, p in zip(datasets, paths):
+            for ds, p in zip(datasets, paths, strict=True):
                 if sn in mapping:
                     das.append(_squeezed(M.mapped_variable(ds, sn, mapping, p)))
                     continue
@@ -634,7 +634,7 @@ def _make_source(sn, das, paths, times, tdims, spatial, shape, mapping):
             f"time: mean, sum or point"
         )
     blocks, level_pa = [], None
-    for d, p, td in zip(das, paths, tdims):
+    for d, p, td in zip(das, paths, tdims, strict=True):
         if d.dims[-2:] != spatial or tuple(d.shape[-2:]) != shape or d.dims[0] != td:
             raise GridMismatchError(
                 f"forcing file {p!r}, variable {d.name!r}: dims {d.dims} "
@@ -798,7 +798,7 @@ def _build_operator(s: _Source, times, hours):
             parts.append((np.r_[h, h], np.r_[j, j + 1] + offsets[k], np.r_[1 - w, w], None))
     else:
         parts = [(r[o], c[o], v[o], None) for r, c, v, f in parts for o in [owner[r] == f]]
-        r, c, v = (np.concatenate(x) for x in zip(*d_parts))
+        r, c, v = (np.concatenate(x) for x in zip(*d_parts, strict=True))
         s.D = sparse.csr_matrix((v, (r, c)), shape=(n_native, n_native))
     r, c, v = (np.concatenate([p[i] for p in parts]) if parts else np.empty(0) for i in range(3))
     S = sparse.csr_matrix(
@@ -1091,7 +1091,7 @@ def _block_fn(sources, names, members, rows):
     """A function of (alt block, *source blocks) -> (dict of (rows, ..., cy, cx), stats)."""
 
     def fn(alt_blk, *blocks):
-        lookup = {id(sources[r][k]): b for (r, k), b in zip(members, blocks)}
+        lookup = {id(sources[r][k]): b for (r, k), b in zip(members, blocks, strict=True)}
 
         def reader(s, cols):
             b = lookup[id(s)][cols]

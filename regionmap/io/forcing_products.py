@@ -72,7 +72,7 @@ def _merge(implied, entries):
 def _cycles(opened: Opened) -> Opened:
     """Cycles split out and ordered by reference time (stable: a later file wins a tie)."""
     items = []
-    for order, (ds, label) in enumerate(zip(opened.datasets, opened.paths)):
+    for order, (ds, label) in enumerate(zip(opened.datasets, opened.paths, strict=True)):
         cycles = split_cycles(ds, label)
         if cycles is None:
             items.append((None, order, ds, label))

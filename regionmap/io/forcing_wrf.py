@@ -173,7 +173,7 @@ def wrf_runs(datasets, paths):
             f"one; hint: choose one domain in [forcing] path, e.g. 'wrfout_d02_*'"
         )
     runs: dict[str, list] = {}
-    for ds, p in zip(datasets, paths):
+    for ds, p in zip(datasets, paths, strict=True):
         key = str(ds.attrs.get("SIMULATION_START_DATE", ""))
         runs.setdefault(key, []).append((_normalised(ds, p), p))
     out, labels = [], []

@@ -694,16 +694,19 @@ def read_csv_profile(path: str | Path) -> ObservedProfile:
         i = int(np.flatnonzero(size < 0)[0])
         raise InputError(f"{where[i]}, column 'grain_size_mm': expected a size ≥ 0, got {size[i]}.")
     grain = [
-        _grain_code(g, f"{w}, column 'grain_class'") for g, w in zip(table["grain_class"], where)
+        _grain_code(g, f"{w}, column 'grain_class'")
+        for g, w in zip(table["grain_class"], where, strict=True)
     ]
     hard = np.array(
         [
             parse_hand_hardness(h, where=f"{w}, column 'hardness'")
-            for h, w in zip(table["hardness"], where)
+            for h, w in zip(table["hardness"], where, strict=True)
         ]
     )
     wet_text = table["wetness"] if "wetness" in table.columns else [""] * len(table)
-    liquid = np.array([_liquid_frac(t, f"{w}, column 'wetness'") for t, w in zip(wet_text, where)])
+    liquid = np.array(
+        [_liquid_frac(t, f"{w}, column 'wetness'") for t, w in zip(wet_text, where, strict=True)]
+    )
     return _build_profile(
         source=path,
         time=time,

@@ -278,8 +278,10 @@ def _compressed_chunks(values: np.ndarray, lo: int, chunks: tuple, fill, shuffle
     dataset's) are padded with ``fill`` to their full size, as HDF5 stores them."""
     out = []
     size = values.dtype.itemsize
-    for start in itertools.product(*(range(0, n, c) for n, c in zip(values.shape, chunks))):
-        part = values[tuple(slice(a, a + c) for a, c in zip(start, chunks))]
+    for start in itertools.product(
+        *(range(0, n, c) for n, c in zip(values.shape, chunks, strict=True))
+    ):
+        part = values[tuple(slice(a, a + c) for a, c in zip(start, chunks, strict=True))]
         if part.shape != tuple(chunks):
             full = np.full(chunks, fill if fill is not None else 0, dtype=values.dtype)
             full[tuple(slice(0, n) for n in part.shape)] = part

@@ -339,7 +339,7 @@ def _read_one_observation_file(path: Path, station_ids: pd.Index) -> pd.DataFram
             "_line": lines,
         }
     )
-    for column, (name, unit) in zip(var_columns, parsed):
+    for column, (name, unit) in zip(var_columns, parsed, strict=True):
         raw = _parse_numbers(table[column], path, lines, column, required=False)
         values = _to_canonical(raw, name, unit)
         lo, hi = OBSERVATION_VARIABLES[name]

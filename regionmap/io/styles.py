@@ -12,6 +12,7 @@ PLoS ONE 13(7): e0199239, doi:10.1371/journal.pone.0199239). Values a map uses f
 from __future__ import annotations
 
 from dataclasses import dataclass
+from itertools import pairwise
 from xml.sax.saxutils import quoteattr
 
 import numpy as np
@@ -184,7 +185,7 @@ def _bins(stops: list[RampStop]) -> list[tuple[float, float | None, str, str]]:
     """(lower, upper, label, colour) classes from each ramp stop to the next, each in its
     lower stop's colour; the last class is open above (upper None)."""
     ramp = [s for s in stops if s.colour != NONE_COLOUR]
-    out = [(a.value, b.value, f"{a.label} - {b.label}", a.colour) for a, b in zip(ramp, ramp[1:])]
+    out = [(a.value, b.value, f"{a.label} - {b.label}", a.colour) for a, b in pairwise(ramp)]
     last = ramp[-1]
     return [*out, (last.value, None, f">= {last.label}", last.colour)]
 

@@ -129,7 +129,7 @@ def read_zones(path: str | os.PathLike, zone_field: str, dem, layer: str | None 
         )
     _check_coordinates(names, polygonal, gdf.crs, where)
     out_geoms = []
-    for name, g in zip(names, polygonal):
+    for name, g in zip(names, polygonal, strict=True):
         if g is None:
             raise InputError(
                 f"{where}: zone {name!r} has no polygon geometry; expected a Polygon or MultiPolygon"
@@ -153,7 +153,7 @@ def read_zones(path: str | os.PathLike, zone_field: str, dem, layer: str | None 
     ]
     # overlapping zones
     left, right = zones.sindex.query(zones.geometry, predicate="intersects")
-    pairs = [(i, j) for i, j in zip(left, right) if i < j]
+    pairs = [(i, j) for i, j in zip(left, right, strict=True) if i < j]
     areas = zones.geometry.area.to_numpy()
     for i, j in pairs:
         inter = zones.geometry.iloc[i].intersection(zones.geometry.iloc[j]).area
@@ -165,7 +165,7 @@ def read_zones(path: str | os.PathLike, zone_field: str, dem, layer: str | None 
     frame = box(*dem.bounds)
     missing = [
         n
-        for n, g in zip(zones.zone, zones.geometry)
+        for n, g in zip(zones.zone, zones.geometry, strict=True)
         if not g.intersects(frame) or g.intersection(frame).area <= 0
     ]
     if missing:

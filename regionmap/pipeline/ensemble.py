@@ -182,7 +182,7 @@ def _member_presence(
                 blocks,
             )
         )
-    for (lo, hi), (presence, share, _resume) in zip(blocks, done):
+    for (lo, hi), (presence, share, _resume) in zip(blocks, done, strict=True):
         members[:, cells[lo:hi]] = presence
         shares[:, cells[lo:hi]] = share
     cost = {

@@ -7,6 +7,7 @@ chunk size, on where a cell falls in a chunk, or on the scheduler.
 from __future__ import annotations
 
 from dataclasses import dataclass
+from itertools import pairwise
 
 import numpy as np
 
@@ -109,7 +110,7 @@ def chunk_ranges(
     size = max(int(chunk_size), 1)
     if groups is None:
         edges = list(range(0, n_cells, size)) + [n_cells]
-        return list(zip(edges[:-1], edges[1:]))
+        return list(pairwise(edges))
     groups = np.asarray(groups)
     if n_cells == 0:
         return []
@@ -124,4 +125,4 @@ def chunk_ranges(
             edges.append(prev)
         prev = end
     edges.append(n_cells)
-    return list(zip(edges[:-1], edges[1:]))
+    return list(pairwise(edges))

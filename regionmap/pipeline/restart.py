@@ -29,6 +29,7 @@ professional standards.
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from itertools import pairwise
 from pathlib import Path
 
 import numpy as np
@@ -188,7 +189,7 @@ def _select_cells(
     upper = table["band_upper_m"].to_numpy(float)
     lo_w = np.where(np.isfinite(lower), lower, OPEN_BAND_LOW_M)
     hi_w = np.where(np.isfinite(upper), upper, OPEN_BAND_HIGH_M)
-    zone_bands = sorted({(a, b) for a, b in zip(lo_w[in_zone], hi_w[in_zone])})
+    zone_bands = sorted({(a, b) for a, b in zip(lo_w[in_zone], hi_w[in_zone], strict=True)})
     edges = sorted({e for band in zone_bands for e in band})
     listing = [f"{a:g}-{b:g}" for a, b in zone_bands]
     if not bands:
@@ -608,7 +609,7 @@ def run_columns_with_restarts(
     diags, snaps = [], []
     bounds = sorted({0, *cuts, *keep}) + [t.size]
     current = state
-    for step, end in zip(bounds[:-1], bounds[1:]):
+    for step, end in pairwise(bounds):
         when = t_state + np.timedelta64(3600 * step, "s")
         for r, p in due:
             if r.time == when:

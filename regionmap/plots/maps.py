@@ -269,7 +269,7 @@ def _zone_outlines(out: RunOutputs, ax, crs) -> list:
     if crs is not None and zones.crs is not None and zones.crs != crs:
         zones = zones.to_crs(crs)
     zones.boundary.plot(ax=ax, color="#111111", linewidth=1.2, zorder=3)
-    for name, geom in zip(zones["zone"], zones.geometry):
+    for name, geom in zip(zones["zone"], zones.geometry, strict=True):
         p = geom.representative_point()
         ax.text(
             p.x,

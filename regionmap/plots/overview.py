@@ -154,7 +154,9 @@ def plot_overview(out, zone: str, metric_name: str, *, time=None):
     v = values.ravel()
     ok = np.isfinite(v)
     colours = METRIC_CMAP(norm(np.where(ok, v, 0.0)))
-    labels = np.array([f"{wide.index[r]}|{compass[k]}" for r, k in zip(ring, sector)], dtype=object)
+    labels = np.array(
+        [f"{wide.index[r]}|{compass[k]}" for r, k in zip(ring, sector, strict=True)], dtype=object
+    )
     filled = PolyCollection(
         list(verts[ok]),
         facecolors=colours[ok],
@@ -175,7 +177,7 @@ def plot_overview(out, zone: str, metric_name: str, *, time=None):
     ax.add_collection(filled)
     ax.add_collection(empty)
     theta = np.deg2rad(sector * width_deg)
-    for th, r, val, c in zip(theta[ok], ring[ok], v[ok], colours[ok]):
+    for th, r, val, c in zip(theta[ok], ring[ok], v[ok], colours[ok], strict=True):
         ax.text(
             th,
             HOLE_RINGS + r + 0.5,

@@ -260,7 +260,7 @@ def plot_profile(
         ax_h.set_ylim(0, 10)
         return fig
     bottom, top, thick_cm = p["bottom_cm"], p["top_cm"], p["thickness_m"] * 100.0
-    for k, (code, crust, h) in enumerate(zip(p["grain"], p["crust"], p["hardness"])):
+    for k, (code, crust, h) in enumerate(zip(p["grain"], p["crust"], p["hardness"], strict=True)):
         colour = grain_colour(code)
         hh = float(h) if np.isfinite(h) else 1.0
         ax_h.barh(

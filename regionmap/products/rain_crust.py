@@ -557,7 +557,7 @@ def zone_rain_crust_columns(zone_limits: pd.DataFrame, sentences: pd.Series) -> 
             "rain_crust_event_time": last["event_time"],
         }
     )
-    keys = list(zip(out.index, last["event_id"]))
+    keys = list(zip(out.index, last["event_id"], strict=True))
     out["rain_crust_text"] = [sentences.get(k, "") for k in keys]
     return out
 

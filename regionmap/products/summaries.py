@@ -596,7 +596,7 @@ def _time_blocks(diag: xr.Dataset, pos: np.ndarray) -> list[slice]:
     for i in range(1, pos.size):
         if chunk_of[i] != chunk_of[i - 1] or i - edges[-1] >= _TIME_BLOCK:
             edges.append(i)
-    return [slice(a, b) for a, b in zip(edges, edges[1:] + [pos.size])]
+    return [slice(a, b) for a, b in zip(edges, edges[1:] + [pos.size], strict=True)]
 
 
 def _cell_value_blocks(
@@ -1061,7 +1061,7 @@ def layer_identities(
     family = np.where(snap.of_concern(criteria), _FAMILY_OF_GRAIN[np.maximum(snap.grain, 0)], 0)
     weak = np.nonzero(family)
     crust = np.nonzero(snap.valid & (snap.crust > 0))
-    pos = tuple(np.concatenate([w, c]) for w, c in zip(weak, crust))
+    pos = tuple(np.concatenate([w, c]) for w, c in zip(weak, crust, strict=True))
     kind = np.concatenate(
         [family[weak].astype(np.int64) - 1, _N_FAMILIES + snap.crust[crust].astype(np.int64)]
     )

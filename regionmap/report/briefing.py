@@ -364,7 +364,7 @@ def _written(out: RunOutputs, specs, drawn) -> list[_Figure]:
     """Write the drawn PNGs under figures/ (atomically) and describe them."""
     figdir = out.out_dir / "figures"
     figures = []
-    for (section, name, caption, _), (png, thumb, size) in zip(specs, drawn):
+    for (section, name, caption, _), (png, thumb, size) in zip(specs, drawn, strict=True):
         path = figdir / name
         with atomic_path(path) as tmp:
             tmp.write_bytes(png)
@@ -591,7 +591,7 @@ def _rose_payload(out: RunOutputs, lines: pd.DataFrame) -> tuple[dict, dict, lis
             z: {
                 "bands": [
                     band_label(np.array([lo]), np.array([hi]))[0]
-                    for lo, hi in zip(g["band_lower_m"], g["band_upper_m"])
+                    for lo, hi in zip(g["band_lower_m"], g["band_upper_m"], strict=True)
                 ],
                 "sectors": g["sectors"],
                 "flat": g["sectors"][-1] == "flat",
@@ -615,7 +615,7 @@ def _rings_note(page: dict, zone: str) -> str:
 def _without_minor_roses(zone: dict) -> dict:
     """A zone's layers with the roses of its minor (not headline) layers left out."""
     layers = [dict(layer, v="") if not layer["headline"] else layer for layer in zone["layers"]]
-    dropped = sum(1 for a, b in zip(zone["layers"], layers) if a["v"] and not b["v"])
+    dropped = sum(1 for a, b in zip(zone["layers"], layers, strict=True) if a["v"] and not b["v"])
     return {**zone, "layers": layers, "without_roses": dropped}
 
 
@@ -691,7 +691,7 @@ def write_report(out_dir) -> Path:
         if "rain_crust_text" in zones.columns:
             rain = [
                 (z, t)
-                for z, t in zip(zones["zone"], zones["rain_crust_text"])
+                for z, t in zip(zones["zone"], zones["rain_crust_text"], strict=True)
                 if isinstance(t, str) and t.strip()
             ]
         sections, embedded = [], 0
@@ -745,7 +745,9 @@ def write_report(out_dir) -> Path:
                 {"zone": z, "rings": _rings_note(page, z), "roses": metric_zones[z]}
                 for z in sorted(metric_zones)
             ],
-            legends={k: list(zip(sc.colours, sc.labels())) for k, sc in legends.items()},
+            legends={
+                k: list(zip(sc.colours, sc.labels(), strict=True)) for k, sc in legends.items()
+            },
             legend_titles={k: f"{sc.label} [{sc.units}]" for k, sc in legends.items()},
             rose_data=json.dumps(page, separators=(",", ":")).replace("</", "<\\/"),
             sections=sections,

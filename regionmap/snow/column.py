@@ -12,6 +12,7 @@ local avalanche service or professional standards.
 from __future__ import annotations
 
 from concurrent.futures import ThreadPoolExecutor
+from itertools import pairwise
 
 import numpy as np
 import xarray as xr
@@ -252,7 +253,7 @@ def run_columns(
         )
 
     edges = list(range(0, n_cells, max(int(block_cells), 1))) + [n_cells]
-    blocks = list(zip(edges[:-1], edges[1:]))
+    blocks = list(pairwise(edges))
     if threads > 1 and len(blocks) > 1:
         with ThreadPoolExecutor(max_workers=int(threads)) as pool:
             list(pool.map(work, blocks))

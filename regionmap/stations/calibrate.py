@@ -627,7 +627,7 @@ def _toml_entry(c: Correction, exposure_class: str) -> tuple[str, str]:
         entry += f', exposure = "{exposure_class}"'
     comment = ""
     if c.own_fit and not all(c.own_fit):
-        pooled = [m for m, own in zip(_MONTHS, c.own_fit) if not own]
+        pooled = [m for m, own in zip(_MONTHS, c.own_fit, strict=True) if not own]
         comment = f"{', '.join(pooled)}: all-month value (too little data)"
     return "{ " + entry + " }", comment
 

@@ -343,8 +343,10 @@ def station_model_series(
         {k: np.asarray(v, dtype=np.float64).reshape(n * nt) for k, v in columns.items()},
         index=index,
     )
-    out.attrs["exposure_class"] = dict(zip(stations.index, on_terrain.exposure_class))
-    out.attrs["exposure_source"] = dict(zip(stations.index, on_terrain.exposure_source))
+    out.attrs["exposure_class"] = dict(zip(stations.index, on_terrain.exposure_class, strict=True))
+    out.attrs["exposure_source"] = dict(
+        zip(stations.index, on_terrain.exposure_source, strict=True)
+    )
     return out
 
 

@@ -34,6 +34,7 @@ from __future__ import annotations
 
 import math
 from concurrent.futures import ThreadPoolExecutor
+from itertools import pairwise
 
 import numba
 import numpy as np
@@ -791,7 +792,7 @@ def horizon_sky_view_dozier_frew1990(
     chunks = [tasks[k::_N_THREADS] for k in range(_N_THREADS)]
     bounds = np.linspace(0, ny, _N_THREADS + 1).astype(int)
     with ThreadPoolExecutor(_N_THREADS) as pool:
-        list(pool.map(terms, [slice(a, b) for a, b in zip(bounds[:-1], bounds[1:])]))
+        list(pool.map(terms, [slice(a, b) for a, b in pairwise(bounds)]))
         parts = list(pool.map(work, chunks))
     sky = parts[0]
     for p in parts[1:]:

@@ -101,7 +101,7 @@ def test_conduction_carslaw_jaeger1959_erfc(hours_, expected_c):
         t[:] = out
     depth_centre = (np.arange(n)[::-1] + 0.5) * dz  # node 0 is the deepest
     kappa = k / (rho * c)
-    for z, expect in zip((0.05, 0.10, 0.20), expected_c):
+    for z, expect in zip((0.05, 0.10, 0.20), expected_c, strict=True):
         model = np.interp(z, depth_centre[::-1], t[::-1]) - T_MELT_K
         exact = -20.0 + 15.0 * erf(z / (2 * math.sqrt(kappa * hours_ * 3600)))
         assert exact == pytest.approx(expect, abs=0.01)  # the analytic values themselves
