@@ -57,12 +57,15 @@ def main(argv: list[str]) -> int:
     n_png = len(list((out / "figures").glob("*.png")))
     size_mb = report.stat().st_size / 2**20
     print(
-        f"figures + report: {elapsed:.1f} s wall, {cpu:.1f} s CPU (process + drawing workers) for {n_png} PNGs, "
+        f"figures + report: {elapsed:.1f} s wall, {cpu:.1f} s CPU (process + drawing workers) for "
+        f"{n_png} PNGs, "
         f"report.html {size_mb:.2f} MB (target <= {TARGET_S:g} s)"
     )
     print(
-        f"load average (1/5/15 min) before {load_before[0]:.2f}/{load_before[1]:.2f}/{load_before[2]:.2f}, "
-        f"after {load_after[0]:.2f}/{load_after[1]:.2f}/{load_after[2]:.2f} on {os.cpu_count()} CPUs"
+        "load average (1/5/15 min) before "
+        f"{load_before[0]:.2f}/{load_before[1]:.2f}/{load_before[2]:.2f}, "
+        f"after {load_after[0]:.2f}/{load_after[1]:.2f}/{load_after[2]:.2f} on {os.cpu_count()} "
+        "CPUs"
     )
     if check and elapsed > TARGET_S:
         print("FAIL: slower than the target", file=sys.stderr)

@@ -6,7 +6,8 @@ call of the chunk function.
     python benchmarks/bench_run.py region --cells 10000 [--days 181]   # (<= 60 s, <= 3 GB)
     python benchmarks/bench_run.py scaling         # 1 000 / 10 000 / 30 000 cells
     python benchmarks/bench_run.py overhead        # dask vs one direct simulate_chunk call
-    python benchmarks/bench_run.py morning         # 10 598 cells: the morning run (report <= simulate + products)
+    python benchmarks/bench_run.py morning         # 10 598 cells: the morning run
+                                                   # (report <= simulate + products)
 
 The synthetic regions reuse the invented demo range and its season; the zones are a grid of
 boxes over the range and slope classes multiply the cells (see SIZES for the counts; the
@@ -149,7 +150,8 @@ def bench_region(n_cells: int, days: int, folder: Path) -> dict:
     record = json.loads((cfg_path.parent / "out" / "run.json").read_text())
     peak = _peak_gb_of_children()
     print(
-        f"{record['cell_count']:6d} cells, {days} days: {seconds:6.1f} s end to end, peak RSS {peak:.2f} GB; "
+        f"{record['cell_count']:6d} cells, {days} days: {seconds:6.1f} s end to end, peak RSS "
+        f"{peak:.2f} GB; "
         f"timings {record['timings_s']}"
     )
     return {"cells": record["cell_count"], "seconds": seconds, "peak_gb": peak}
@@ -167,7 +169,8 @@ def bench_morning(folder: Path) -> dict:
     yesterday = MORNING_ANALYSIS - np.timedelta64(24, "h")
     runs = {
         "yesterday": f'[forcing]\npath = "forcing.nc"\nend = "{yesterday}"\n',
-        "morning": f'[forcing]\npath = "forcing.nc"\nend = "{end}"\nanalysis_time = "{MORNING_ANALYSIS}"\n',
+        "morning": f'[forcing]\npath = "forcing.nc"\nend = "{end}"\n'
+        f'analysis_time = "{MORNING_ANALYSIS}"\n',
     }
     for name, forcing in runs.items():
         (cfg_path.parent / f"{name}.toml").write_text(
@@ -243,7 +246,8 @@ def bench_overhead(args, folder: Path) -> dict:
         via_dask = time.perf_counter() - t0
     frac = via_dask / direct - 1.0
     print(
-        f"{batch.n_cells} cells: direct {direct:.2f} s, dask {via_dask:.2f} s, overhead {100 * frac:+.1f} % "
+        f"{batch.n_cells} cells: direct {direct:.2f} s, dask {via_dask:.2f} s, overhead "
+        f"{100 * frac:+.1f} % "
         f"(target <= {100 * TARGETS['dask_overhead_frac']:.0f} %)"
     )
     return {"dask_overhead_frac": frac}

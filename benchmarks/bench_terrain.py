@@ -68,7 +68,8 @@ def main(check: bool = True) -> None:
     peak_gb = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024**2
     print(
         f"horizon + sky view, 4000x4000, 36 azimuths, 3 km at 10 m: {t2:.2f} s (target <= 6 s); "
-        f"CPU {c2:.2f} s ({per_pixel_ns(c2, 4000, 36)}); peak RSS {peak_gb:.2f} GB (target <= 4 GB); {load()}"
+        f"CPU {c2:.2f} s ({per_pixel_ns(c2, 4000, 36)}); peak RSS {peak_gb:.2f} GB (target <= 4 "
+        f"GB); {load()}"
     )
     if check:
         assert t1 <= 1.0, f"2000x2000 horizon took {t1:.2f} s > 1 s"

@@ -214,7 +214,8 @@ def _station_args(args: argparse.Namespace, cfg) -> tuple[Path, list[Path]]:
         observations = list(cfg.stations.observations) if cfg.stations else []
     if stations is None or not observations:
         raise InputError(
-            "give --stations FILE and --observations FILE[,FILE...] (or a [stations] section in the config)"
+            "give --stations FILE and --observations FILE[,FILE...] (or a [stations] section in "
+            "the config)"
         )
     return stations, observations
 
@@ -310,8 +311,8 @@ def _add_demo_command(sub, common: argparse.ArgumentParser) -> None:
         "demo",
         parents=[common],
         help="build the invented demo region and run the chain on it",
-        description="Build the invented demo scenario (DEM, zones, a season of NWP-like forcing) and "
-        "run the whole chain on it.",
+        description="Build the invented demo scenario (DEM, zones, a season of NWP-like forcing) "
+        "and run the whole chain on it.",
         epilog=f"Caution: {CAUTION}",
     )
     p.add_argument(
@@ -330,8 +331,8 @@ def _add_init_command(sub, common: argparse.ArgumentParser) -> None:
         "init",
         parents=[common],
         help="write a commented config from your DEM, zones and forcing",
-        description="Read your DEM (elevation range -> band edges), zones (the attribute that names "
-        "each zone, the layer) and forcing (period, variables found by CF standard name) and "
+        description="Read your DEM (elevation range -> band edges), zones (the attribute that "
+        "names each zone, the layer) and forcing (period, variables found by CF standard name) and "
         "write FOLDER/regionmap.toml with comments. A file that cannot be read is refused.",
         epilog=f"Caution: {CAUTION}",
     )
@@ -351,8 +352,8 @@ def _add_run_command(sub, common: argparse.ArgumentParser) -> None:
         "run",
         parents=[common],
         help="run the whole chain for a config",
-        description="Downscale the forcing to every cell, run the snow column per cell in parallel, and "
-        "write cells.nc, profiles.nc, state.nc, zones.gpkg, maps/ and the report.",
+        description="Downscale the forcing to every cell, run the snow column per cell in "
+        "parallel, and write cells.nc, profiles.nc, state.nc, zones.gpkg, maps/ and the report.",
         epilog=f"Caution: {CAUTION}",
     )
     p.add_argument("config", type=Path, help="the run's TOML config")
@@ -398,7 +399,8 @@ def _add_run_command(sub, common: argparse.ArgumentParser) -> None:
     p.add_argument(
         "--force",
         action="store_true",
-        help="replace a non-empty folder that is not a regionmap output (it is kept aside, never deleted)",
+        help="replace a non-empty folder that is not a regionmap output (it is kept aside, never "
+        "deleted)",
     )
     _add_run_options(p)
     p.set_defaults(func=_cmd_run)
@@ -410,7 +412,8 @@ def _add_forcing_command(sub, common: argparse.ArgumentParser) -> None:
         "forcing",
         parents=[common],
         help="write the downscaled per-cell forcing, for inspection",
-        description="Downscale the NWP forcing to every cell and write it as CF NetCDF (cell x time).",
+        description="Downscale the NWP forcing to every cell and write it as CF NetCDF "
+        "(cell x time).",
     )
     p.add_argument("config", type=Path, help="the run's TOML config")
     p.add_argument("--out", type=Path, required=True, help="output folder")
@@ -478,8 +481,8 @@ def _add_profile_command(sub, common: argparse.ArgumentParser) -> None:
         "profile",
         parents=[common],
         help="draw one cell's simulated profile",
-        description="Draw one cell's layers (grain class, size, hand hardness, temperature, density, "
-        "liquid water) with crusts, weak layers and the worst interface marked.",
+        description="Draw one cell's layers (grain class, size, hand hardness, temperature, "
+        "density, liquid water) with crusts, weak layers and the worst interface marked.",
         epilog=f"Caution: {CAUTION}",
     )
     p.add_argument("outdir", type=Path, help="a run's output folder")
@@ -525,8 +528,10 @@ def _add_terrain_command(sub, common: argparse.ArgumentParser) -> None:
         "terrain",
         parents=[common],
         help="write terrain layers of a DEM as GeoTIFF",
-        description="Slope, aspect (Horn 1981), curvature, sky-view factor (Dozier & Frew 1990) and "
-        "maximum-upwind-slope wind exposure (Winstral et al. 2002) of a DEM, written as GeoTIFFs on "
+        description="Slope, aspect (Horn 1981), curvature, sky-view factor (Dozier & Frew 1990) "
+        "and "
+        "maximum-upwind-slope wind exposure (Winstral et al. 2002) of a DEM, written as GeoTIFFs "
+        "on "
         "the DEM's grid.",
     )
     p.add_argument("dem", type=Path, help="any GDAL raster with a CRS")
@@ -713,7 +718,8 @@ def main(argv: list[str] | None = None) -> int:
             )
             return 2
         print(
-            f"regionmap: internal error: {type(exc).__name__}: {exc} (run with --debug for the traceback)",
+            f"regionmap: internal error: {type(exc).__name__}: {exc} (run with --debug for the "
+            "traceback)",
             file=sys.stderr,
         )
         return 1

@@ -45,8 +45,10 @@ path = "forcing.nc"
 start = "2025-11-01T00:00"
 end = "2026-04-30T23:00"
 analysis_time = "2026-02-14T12:00"
-variables = { air_temperature = { name = "T2M", units = "K" }, precipitation_amount = { name = "TP", units = "mm", accumulated = true } }
 heights_m = { wind = 10, temperature = 2 }
+[forcing.variables]
+air_temperature = { name = "T2M", units = "K" }
+precipitation_amount = { name = "TP", units = "mm", accumulated = true }
 [bias]
 wind_speed = { factor = 0.5 }
 precipitation = { factor = 0.85 }

@@ -109,7 +109,8 @@ def test_cells_outside_the_grid_print_both_extents(tmp_path):
     gf.check_covers([11.1, 11.2], [46.2, 46.2])  # inside: no error
     with pytest.raises(
         GridMismatchError,
-        match=r"f\.nc.*1 of 2 points.*grid extent lon 11\.0000\.\.11\.3000.*points span lon 11\.1000\.\.12\.0000",
+        match=r"f\.nc.*1 of 2 points.*grid extent lon 11\.0000\.\.11\.3000.*"
+        r"points span lon 11\.1000\.\.12\.0000",
     ):
         gf.check_covers([11.1, 12.0], [46.2, 46.2])
 
@@ -122,7 +123,8 @@ def test_several_temperatures_need_height_to_pick(tmp_path):
     path = write(ds, tmp_path)
     with pytest.raises(
         ForcingReadError,
-        match=r"several variables have standard_name 'air_temperature': t10 \(height 10\.0\), t2m \(height 2\.0\)",
+        match=r"several variables have standard_name 'air_temperature': "
+        r"t10 \(height 10\.0\), t2m \(height 2\.0\)",
     ):
         open_forcing(path)
     gf = open_forcing(path, heights_m={"temperature": 10.0, "wind": 10.0})

@@ -221,53 +221,78 @@ def test_caaml_errors_name_the_problem(tmp_path, old, new, match):
             r"missing \['hardness'\]",
         ),
         (
-            "# time: 2026-01-01T00:00Z\ntop_cm,bottom_cm,grain_class,grain_size_mm,hardness,colour\n10,0,RG,0.5,1F,x\n",
+            "# time: 2026-01-01T00:00Z\n"
+            "top_cm,bottom_cm,grain_class,grain_size_mm,hardness,colour\n"
+            "10,0,RG,0.5,1F,x\n",
             r"unknown \['colour'\]",
         ),
         (
-            "# time: 2026-01-01T00:00Z\ntop_cm,bottom_cm,grain_class,grain_size_mm,hardness\n20,10,RG,0.5,1F\n",
+            "# time: 2026-01-01T00:00Z\n"
+            "top_cm,bottom_cm,grain_class,grain_size_mm,hardness\n"
+            "20,10,RG,0.5,1F\n",
             r"does not reach the ground",
         ),
         (
-            "# time: 2026-01-01T00:00Z\ntop_cm,bottom_cm,grain_class,grain_size_mm,hardness\n10,0,RG,big,1F\n",
+            "# time: 2026-01-01T00:00Z\n"
+            "top_cm,bottom_cm,grain_class,grain_size_mm,hardness\n"
+            "10,0,RG,big,1F\n",
             r"line 3, column 'grain_size_mm': expected a number, got 'big'",
         ),
         (
-            "# time: 2026-01-01T00:00Z\ntop_cm,bottom_cm,grain_class,grain_size_mm,hardness\n10,0,RG,0.5,1F\n30,12,FC,1,4F\n",
+            "# time: 2026-01-01T00:00Z\n"
+            "top_cm,bottom_cm,grain_class,grain_size_mm,hardness\n"
+            "10,0,RG,0.5,1F\n"
+            "30,12,FC,1,4F\n",
             r"gap of 2.0 cm",
         ),
         (
-            "# time: 2026-01-01T00:00Z\ntop_cm,bottom_cm,grain_class,grain_size_mm,hardness,wetness\n10,0,RG,0.5,1F,D-W\n",
+            "# time: 2026-01-01T00:00Z\n"
+            "top_cm,bottom_cm,grain_class,grain_size_mm,hardness,wetness\n"
+            "10,0,RG,0.5,1F,D-W\n",
             r"unknown wetness 'D-W'",
         ),
         (
-            "# time: 2026-01-01T00:00Z\ntop_cm,bottom_cm,grain_class,grain_size_mm,hardness\n10,10,RG,0.5,1F\n",
+            "# time: 2026-01-01T00:00Z\n"
+            "top_cm,bottom_cm,grain_class,grain_size_mm,hardness\n"
+            "10,10,RG,0.5,1F\n",
             r"no positive thickness",
         ),
         # values that cannot be physical: a 35 m snowpack (m written for cm), infinite
         # sizes, impossible densities
         (
-            "# time: 2026-01-01T00:00Z\ntop_cm,bottom_cm,grain_class,grain_size_mm,hardness\n3500,0,RG,0.5,1F\n",
+            "# time: 2026-01-01T00:00Z\n"
+            "top_cm,bottom_cm,grain_class,grain_size_mm,hardness\n"
+            "3500,0,RG,0.5,1F\n",
             r"line 3: the layer's top lies at 35 m above the ground; expected 0 to 20 m",
         ),
         (
-            "# time: 2026-01-01T00:00Z\ntop_cm,bottom_cm,grain_class,grain_size_mm,hardness\ninf,0,RG,0.5,1F\n",
+            "# time: 2026-01-01T00:00Z\n"
+            "top_cm,bottom_cm,grain_class,grain_size_mm,hardness\n"
+            "inf,0,RG,0.5,1F\n",
             r"the layer's top lies at inf m",
         ),
         (
-            "# time: 2026-01-01T00:00Z\ntop_cm,bottom_cm,grain_class,grain_size_mm,hardness\n10,0,RG,inf,1F\n",
+            "# time: 2026-01-01T00:00Z\n"
+            "top_cm,bottom_cm,grain_class,grain_size_mm,hardness\n"
+            "10,0,RG,inf,1F\n",
             r"grain size inf mm; expected 0 to 100 mm",
         ),
         (
-            "# time: 2026-01-01T00:00Z\ntop_cm,bottom_cm,grain_class,grain_size_mm,hardness\n10,0,RG,-2,1F\n",
+            "# time: 2026-01-01T00:00Z\n"
+            "top_cm,bottom_cm,grain_class,grain_size_mm,hardness\n"
+            "10,0,RG,-2,1F\n",
             r"column 'grain_size_mm': expected a size ≥ 0, got -2",
         ),
         (
-            "# time: 2026-01-01T00:00Z\ntop_cm,bottom_cm,grain_class,grain_size_mm,hardness,density_kg_m3\n10,0,RG,0.5,1F,5000\n",
+            "# time: 2026-01-01T00:00Z\n"
+            "top_cm,bottom_cm,grain_class,grain_size_mm,hardness,density_kg_m3\n"
+            "10,0,RG,0.5,1F,5000\n",
             r"density 5000 kg m-3 .* inconsistent",
         ),
         (
-            "# time: 2026-01-01T00:00Z\ntop_cm,bottom_cm,grain_class,grain_size_mm,hardness,density_kg_m3\n10,0,RG,0.5,1F,-inf\n",
+            "# time: 2026-01-01T00:00Z\n"
+            "top_cm,bottom_cm,grain_class,grain_size_mm,hardness,density_kg_m3\n"
+            "10,0,RG,0.5,1F,-inf\n",
             r"line 3: density -inf kg m-3; expected \(0, 917\] or empty",
         ),
     ],

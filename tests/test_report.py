@@ -224,7 +224,10 @@ def layout_in_chromium(html_path, width: int, height: int, screenshot):
             page.on("pageerror", lambda e: errors.append(str(e)))
             page.goto(html_path.resolve().as_uri(), wait_until="load")
             page.screenshot(path=str(screenshot))
-            box = "(s => { const r = document.querySelector(s).getBoundingClientRect(); return [r.top, r.bottom, r.left, r.right]; })"
+            box = (
+                "(s => { const r = document.querySelector(s).getBoundingClientRect(); "
+                "return [r.top, r.bottom, r.left, r.right]; })"
+            )
             info = {
                 "scroll_width": page.evaluate("document.documentElement.scrollWidth"),
                 "viewport": page.evaluate("[window.innerWidth, window.innerHeight]"),

@@ -58,7 +58,8 @@ def _pngs(doc):
 
 
 def _phys_dpi(png: bytes) -> float:
-    """Horizontal resolution from the pHYs chunk (ISO/IEC 15948 §11.3.5.3: pixels per metre, unit 1)."""
+    """Horizontal resolution from the pHYs chunk (ISO/IEC 15948 §11.3.5.3: pixels per metre,
+    unit 1)."""
     pos = 8
     while pos < len(png):
         length, kind = struct.unpack(">I4s", png[pos : pos + 8])

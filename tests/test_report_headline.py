@@ -163,7 +163,8 @@ def test_layer_sentence_from_the_table():
     assert 0.05 < BAND_MIN_PRESENCE_FRAC
     lines = layer_lines(pd.DataFrame(rows))
     assert list(lines["text"]) == [
-        "buried surface hoar of 22 Dec: 1700–2900 m, N to E, 105–120 cm deep, on 60 % of avalanche terrain"
+        "buried surface hoar of 22 Dec: 1700–2900 m, N to E, 105–120 cm deep, on 60 % of avalanche "
+        "terrain"
     ]
 
 
@@ -265,7 +266,8 @@ def test_zone_changes_since_24_h_or_the_previous_run(tmp_path):
             want = np.sum(fall[m] * w[m]) / np.sum(w[m])
             assert ch.changes.loc[zone, "snowfall_kg_m2"] == pytest.approx(want, rel=1e-9, abs=1e-9)
         assert (ch.changes["wet_frac_now"].between(0, 1)).all()
-        # a run continued from a state: compared with that state's time (the hour before its first step)
+        # a run continued from a state: compared with that state's time (the hour before its
+        # first step)
         run = json.loads((folder / "run.json").read_text())
         first = str(out.times[0] + np.timedelta64(1, "h"))
         run["period"] = {"continued_from": "yesterday/state.nc", "first_step": first}

@@ -13,8 +13,8 @@ Outside sources of the expected values:
   FC 112+46h, DH 185+25h (SH on the FC fit, project choice); MFcr at K: the RG fit at K,
   91+71*5 = 446 kg m-3 (project crust rule);
 * conservation of mass and energy; enthalpy relative to liquid water at 0 degC with
-  c_ice = 2100 J kg-1 K-1, c_water = 4217 J kg-1 K-1 and L_f = 3.334e5 J kg-1 (handbook values, e.g. Fierz et al. 2009
-  Appendix / Cuffey & Paterson 2010 Table 9.1 [mem]).
+  c_ice = 2100 J kg-1 K-1, c_water = 4217 J kg-1 K-1 and L_f = 3.334e5 J kg-1 (handbook
+  values, e.g. Fierz et al. 2009 Appendix / Cuffey & Paterson 2010 Table 9.1 [mem]).
 """
 
 from __future__ import annotations
@@ -132,7 +132,8 @@ def test_resolve_matches_zone_band_aspect_and_rounds_to_the_hour():
         ),
         (
             _entry(bands=("2100-2400",)),
-            r"band '2100-2400' does not match .* its bands are \['0-1500', '1500-1800', '1800-9000'\]",
+            r"band '2100-2400' does not match .* its bands are \['0-1500', '1500-1800', "
+            r"'1800-9000'\]",
         ),
         (
             _entry(aspects=("NNE",)),

@@ -21,13 +21,19 @@ PLOT1,11.2,47.1,2140,Invented plot,sheltered,"clearing, lee of a ridge"
 CREST2,11.3,47.2,2890,Invented crest,Exposed,
 """
 
-OBS = """station_id,time,air_temperature[degC],relative_humidity[%],wind_speed[km h-1],precipitation[mm],snow_depth[cm]
-PLOT1,2026-01-01T00:00Z,0.0,80,36,0.0,120
+OBS_HEADER = (
+    "station_id,time,air_temperature[degC],relative_humidity[%],wind_speed[km h-1],"
+    "precipitation[mm],snow_depth[cm]\n"
+)
+OBS = (
+    OBS_HEADER
+    + """PLOT1,2026-01-01T00:00Z,0.0,80,36,0.0,120
 PLOT1,2026-01-01T01:00Z,-5.5,,18,0.4,121
 
 PLOT1,2026-01-01T02:00Z,-6.0,85,0,1.2,
 CREST2,2026-01-01T01:00:00+01:00,-9,70,50,0,80
 """
+)
 
 
 def _write(tmp_path, name, text):

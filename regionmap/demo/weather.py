@@ -116,8 +116,8 @@ DEMO_EVENTS = [
         "wind_m_s": 3.0,
         "dir_deg": 200.0,
         "shape": "plateau",
-        "note": "three days of light rain below the freezing level onto the snowpack (warm sector, steady "
-        "freezing level)",
+        "note": "three days of light rain below the freezing level onto the snowpack (warm "
+        "sector, steady freezing level)",
     },
     {
         "id": "cold_snap",
@@ -168,13 +168,13 @@ def jennings2018_t50_c(rh_frac: float) -> float:
 def demo_events() -> dict:
     """The designed events and their expected answers (what :func:`write_demo_events` writes).
 
-    The expectations follow from the design (the event definitions above and common
-    practice), not from a model run: a shallow early pack under four weeks of cold clear
-    sky facets (depth hoar on shaded aspects); calm clear humid nights grow surface hoar that
-    a storm with ordinary wind buries, keeping it in sheltered terrain (common practice); a long light rain below the freezing level onto a pack of
-    well over 50 cm, followed by a cold snap, leaves a rain crust below the rain-snow
-    transition, which sits below the freezing level; a warm layer aloft over sub-freezing
-    surface air gives a glaze below the warm layer's base.
+    The expectations follow from the design (the event definitions above and common practice),
+    not from a model run: a shallow early pack under four weeks of cold clear sky facets (depth
+    hoar on shaded aspects); calm clear humid nights grow surface hoar that a storm with
+    ordinary wind buries, keeping it in sheltered terrain (common practice); a long light rain
+    below the freezing level onto a pack of well over 50 cm, followed by a cold snap, leaves a
+    rain crust below the rain-snow transition, which sits below the freezing level; a warm layer
+    aloft over sub-freezing surface air gives a glaze below the warm layer's base.
     """
     ev = {e["id"]: e for e in DEMO_EVENTS}
     ros = ev["rain_on_snow"]
@@ -200,7 +200,8 @@ def demo_events() -> dict:
             "no_background_rain": {
                 "before": "2026-04-01T00:00",
                 "rain_only_in": ["rain_on_snow", "freezing_rain"],
-                "note": f"background storms before April are at most {BACKGROUND_STORM_MAX_T_REF_C} "
+                "note": "background storms before April are at most "
+                f"{BACKGROUND_STORM_MAX_T_REF_C} "
                 f"degC at {Z_REF_M:.0f} m and snow down to the valleys",
             },
             "basal_faceting": {
@@ -236,7 +237,8 @@ def demo_events() -> dict:
                 "rain_kg_m2_design": round(ros["precip_kg_m2_h"] * ros_rain_h, 1),
                 "storm_rh": storm_rh,
                 "transition_m_design": round(transition_m, 0),
-                "crust_below": "the rain-snow transition (snow fraction 0.5), below the freezing level",
+                "crust_below": "the rain-snow transition (snow fraction 0.5), below the "
+                "freezing level",
                 "snowpack_before_cm": ">= 50 at every height",
                 "refrozen_by": [ev["cold_snap"]["start"], ev["cold_snap"]["end"]],
             },
@@ -264,7 +266,8 @@ def demo_events() -> dict:
 
 
 def write_demo_events(path, *, indent: int = 2) -> Path:
-    """Write :func:`demo_events` as JSON (atomically enough for a small file) and return the path."""
+    """Write :func:`demo_events` as JSON (atomically enough for a small file) and return the
+    path."""
     path = Path(path)
     tmp = path.with_name(path.name + ".tmp")
     tmp.write_text(json.dumps(demo_events(), indent=indent) + "\n", encoding="utf-8")
@@ -653,7 +656,8 @@ def write_demo_forcing(
             "title": "regionmap demo season (invented data)",
             "source": f"regionmap.demo.weather, seed {seed}",
             "comment": "Invented weather over an invented range at a fictitious location (the "
-            "coordinates lie in the open sea), for demonstration and tests; model output is guidance for "
+            "coordinates lie in the open sea), for demonstration and tests; model output is "
+            "guidance for "
             "trained people, never a substitute for field observations, the local "
             "avalanche service and professional standards.",
         }

@@ -146,7 +146,10 @@ def _freezing_rain_source(gf) -> str:
         return "forcing variable freezing_rain_frac"
     if getattr(gf, "upper_air_temperature", None) is not None:
         return "upper-air temperature, Bourgouin (2000) energy areas"
-    return "none: the forcing has no upper-air or precipitation-type information, so no freezing rain is flagged"
+    return (
+        "none: the forcing has no upper-air or precipitation-type information, so no "
+        "freezing rain is flagged"
+    )
 
 
 def downscale_record(grid_forcing, settings: DownscaleSettings) -> dict:

@@ -233,7 +233,10 @@ def fit_quantile_mapping(
     if pooled_fit is None:
         need = f"{MIN_SAMPLES_PER_MONTH} valid pairs"
         if kind == "multiplicative":
-            need += f" with at least {MIN_WET_SAMPLES_PER_MONTH} wet values (> {wet_threshold}) in model and observations"
+            need += (
+                f" with at least {MIN_WET_SAMPLES_PER_MONTH} wet values (> {wet_threshold}) in "
+                "model and observations"
+            )
         raise InputError(
             f"Quantile mapping for {variable}: too little data to fit; need at least {need}, "
             f"got {m.size} pairs ({int(np.sum(o > wet_threshold))} observed wet). Use a "
@@ -480,7 +483,8 @@ def read_qm_table(path: str | Path) -> list[QuantileMappingTable]:
     p = ds["probability"].to_numpy().astype(np.float64)
     if p.size < 2 or p[0] != 0.0 or p[-1] != 1.0 or np.any(np.diff(p) <= 0):
         raise InputError(
-            f"Quantile-mapping file {path}: probability must increase strictly from 0 to 1, got {p}."
+            f"Quantile-mapping file {path}: probability must increase strictly from 0 to 1, got "
+            f"{p}."
         )
     if ds.sizes.get("month") != 12:
         raise InputError(
@@ -501,14 +505,16 @@ def read_qm_table(path: str | Path) -> list[QuantileMappingTable]:
             if np.any(np.diff(q, axis=1) < 0):
                 month = int(np.flatnonzero(np.any(np.diff(q, axis=1) < 0, axis=1))[0]) + 1
                 raise InputError(
-                    f"{where}: {label} decreases within month {month}; quantiles must be non-decreasing."
+                    f"{where}: {label} decreases within month {month}; quantiles must be "
+                    "non-decreasing."
                 )
         thresholds = ds["model_wet_threshold"].values[i].astype(np.float64)
         if kind == "multiplicative" and (
             not np.all(np.isfinite(thresholds)) or np.any(qm < 0) or np.any(qo < 0)
         ):
             raise InputError(
-                f"{where}: a multiplicative table needs finite wet thresholds and non-negative quantiles."
+                f"{where}: a multiplicative table needs finite wet thresholds and non-negative "
+                "quantiles."
             )
         tables.append(
             QuantileMappingTable(

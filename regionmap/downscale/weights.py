@@ -154,7 +154,8 @@ def build_cell_weights(
         raise GridMismatchError(
             f"{where}: the forcing grid does not cover every cell: {int(outside.sum())} of "
             f"{outside.size} cell pixels lie outside it. Cells span lon "
-            f"{np.nanmin(lon):.4f}..{np.nanmax(lon):.4f}, lat {np.nanmin(lat):.4f}..{np.nanmax(lat):.4f}; "
+            f"{np.nanmin(lon):.4f}..{np.nanmax(lon):.4f}, lat "
+            f"{np.nanmin(lat):.4f}..{np.nanmax(lat):.4f}; "
             f"the grid spans lon {gx0:.4f}..{gx1:.4f}, lat {gy0:.4f}..{gy1:.4f}. "
             "Hint: use forcing that extends at least one grid point beyond the region."
         )

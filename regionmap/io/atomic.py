@@ -1,7 +1,8 @@
 """Atomic file writes: write beside the target, then rename over it.
 
 An interrupted write leaves the previous file untouched and at most a hidden temporary file
-(``.<name>.<random>.tmp<suffix>``, the suffix kept so GDAL picks the right driver) that the next write of the same target removes.
+(``.<name>.<random>.tmp<suffix>``, the suffix kept so GDAL picks the right driver) that the
+next write of the same target removes.
 """
 
 from __future__ import annotations

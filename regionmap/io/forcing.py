@@ -420,7 +420,8 @@ def _open_one(path: str) -> xr.Dataset:
         return open_({tdims[0]: -1} if tdims else {})
     except Exception as exc:
         raise ForcingReadError(
-            f"forcing file {path!r} cannot be opened as NetCDF or Zarr ({type(exc).__name__}: {exc})"
+            f"forcing file {path!r} cannot be opened as NetCDF or Zarr ({type(exc).__name__}: "
+            f"{exc})"
         ) from None
 
 
@@ -757,7 +758,8 @@ def _build_operator(s: _Source, times, hours):
             j = int(np.argmax(step))
             raise ForcingReadError(
                 f"{where}: a step of {step[j] / _H:g} h ({step[j] / _H - 1:g} h missing) after "
-                f"{np.datetime64(int(t[j]), 's')}; expected steps of at most {limit // _H} h; hint: fill the gap, or give time_bnds when the "
+                f"{np.datetime64(int(t[j]), 's')}; expected steps of at most {limit // _H} h; "
+                "hint: fill the gap, or give time_bnds when the "
                 f"file is coarser by design"
             )
         idx = np.arange(t.size)
@@ -824,7 +826,8 @@ def _final_axis(sources, wide, start, end, paths):
         k = int((v - wide[0]) // _H) if name == "end" else int(-(-(v - wide[0]) // _H))
         if not lo <= k <= hi:
             raise ForcingReadError(
-                f"forcing {paths[0]!r}: [forcing] {name} = {np.datetime64(v, 's')} lies outside the "
+                f"forcing {paths[0]!r}: [forcing] {name} = {np.datetime64(v, 's')} lies outside "
+                "the "
                 f"hours every variable covers, {np.datetime64(int(wide[lo]), 's')} .. "
                 f"{np.datetime64(int(wide[hi]), 's')}; hint: change [forcing] {name}"
             )
@@ -845,7 +848,8 @@ def _check_gaps(sources, hours) -> int:
             run, (at, _) = _longest_run(~s.covered[:, None])
             if run > MAX_GAP_H:
                 raise ForcingReadError(
-                    f"{s.label()}: {run} h without data from {np.datetime64(int(hours[at]) - _H, 's')} "
+                    f"{s.label()}: {run} h without data from "
+                    f"{np.datetime64(int(hours[at]) - _H, 's')} "
                     f"(files {s.paths}); expected gaps of at most {MAX_GAP_H} h; hint: fill the "
                     f"forcing or choose [forcing] start/end around the gap"
                 )
@@ -921,7 +925,8 @@ def _series(s: _Source, rows, reader, stats, fn=None):
     if run > MAX_GAP_H:
         raise ForcingReadError(
             f"{s.label()}: {run} consecutive missing hours (NaN) from "
-            f"{np.datetime64(int(s.hours[rows[t_at]]), 's')}; expected NaN runs of at most {MAX_GAP_H} h; hint: "
+            f"{np.datetime64(int(s.hours[rows[t_at]]), 's')}; expected NaN runs of at most "
+            f"{MAX_GAP_H} h; hint: "
             f"fill the forcing or choose [forcing] start/end around them"
         )
     stats["nan_filled"] += int((np.isnan(y) & s.covered[rows][:, None]).sum())

@@ -74,7 +74,8 @@ def _scan(path):
                 if relative and grid not in _EARTH_ALIGNED:
                     raise ForcingReadError(
                         f"forcing file {path!r}: {name} is relative to its {grid} grid "
-                        f"(resolution and component flags); expected earth-relative winds; hint: ask "
+                        "(resolution and component flags); expected earth-relative winds; hint: "
+                        "ask "
                         f"for earth-relative winds or convert them (e.g. with ecCodes tools)"
                     )
                 kinds.add(

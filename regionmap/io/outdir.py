@@ -407,7 +407,8 @@ class OutputFolder:
             if isinstance(exc, OutputError):
                 raise
             raise OutputError(
-                f"output folder {target}: could not put the new output in place: {exc.strerror or exc}"
+                f"output folder {target}: could not put the new output in place: "
+                f"{exc.strerror or exc}"
             ) from exc
         finally:
             self.path = None

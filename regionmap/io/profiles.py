@@ -461,14 +461,16 @@ def read_caaml_profile(path: str | Path) -> ObservedProfile:
     meas = doc.find(root, "snowProfileResultsOf/SnowProfileMeasurements")
     if meas is None:
         raise InputError(
-            f"Profile file {path}: required element snowProfileResultsOf/SnowProfileMeasurements is missing."
+            f"Profile file {path}: required element snowProfileResultsOf/SnowProfileMeasurements "
+            "is missing."
         )
     default_dir = _direction(meas, "top down", f"Profile file {path}, SnowProfileMeasurements")
     strat = doc.find(meas, "stratProfile")
     layers = [] if strat is None else strat.findall(doc.q("Layer"))
     if not layers:
         raise InputError(
-            f"Profile file {path}: required element stratProfile with at least one Layer is missing."
+            f"Profile file {path}: required element stratProfile with at least one Layer is "
+            "missing."
         )
     strat_dir = _direction(strat, default_dir, f"Profile file {path}, stratProfile")
     hs = doc.length_m(
@@ -571,7 +573,8 @@ def _caaml_temperatures(doc: _Caaml, meas: ET.Element, default_dir: str, total_m
     height = total_m - depth_m if direction == "top down" else depth_m
     if np.any(height < -_GAP_TOLERANCE_M) or np.any(height > total_m + _GAP_TOLERANCE_M):
         raise InputError(
-            f"{where}: a temperature observation lies outside the snowpack (0 … {total_m * 100:.1f} cm)."
+            f"{where}: a temperature observation lies outside the snowpack (0 … "
+            f"{total_m * 100:.1f} cm)."
         )
     temp_k = temp_c + _T0_K
     _check_temperature(temp_k, where)

@@ -131,7 +131,8 @@ DIAGNOSTICS: dict[str, tuple[str, dict]] = {
         "f4",
         {
             "units": "cm",
-            "long_name": "vertical depth below the surface of the top of the uppermost persistent weak layer",
+            "long_name": "vertical depth below the surface of the top of the uppermost "
+            "persistent weak layer",
         },
     ),
     "threshold_count_max": (

@@ -105,9 +105,11 @@ def raster_qml(stops: list[RampStop]) -> str:
     )
     return f"""<qgis version="3.28.0" styleCategories="Symbology">
   <pipe>
-    <rasterrenderer type="singlebandpseudocolor" band="1" opacity="1" alphaBand="-1" classificationMin="{lo!r}" classificationMax="{hi!r}">
+    <rasterrenderer type="singlebandpseudocolor" band="1" opacity="1" alphaBand="-1"
+        classificationMin="{lo!r}" classificationMax="{hi!r}">
       <rastershader>
-        <colorrampshader colorRampType="INTERPOLATED" classificationMode="1" clip="0" minimumValue="{lo!r}" maximumValue="{hi!r}">
+        <colorrampshader colorRampType="INTERPOLATED" classificationMode="1" clip="0"
+            minimumValue="{lo!r}" maximumValue="{hi!r}">
 {items}
         </colorrampshader>
       </rastershader>
@@ -178,7 +180,10 @@ def _qml_symbol(kind: str, name: str, colour: str) -> str:
             '<Option name="style" type="QString" value="solid"/>'
             "</Option></layer>"
         )
-    return f'<symbol type="{kind}" name="{name}" alpha="1" clip_to_extent="1" force_rhr="0">{layer}</symbol>'
+    return (
+        f'<symbol type="{kind}" name="{name}" alpha="1" clip_to_extent="1" force_rhr="0">'
+        f"{layer}</symbol>"
+    )
 
 
 def _bins(stops: list[RampStop]) -> list[tuple[float, float | None, str, str]]:
@@ -235,9 +240,10 @@ def vector_qml(
             "</text-style></settings></labeling>"
         )
     enabled = ' labelsEnabled="1"' if label_field else ""
+    geometry_type = {"fill": 2, "line": 1, None: 4}[geometry]
     return (
         f'<qgis version="3.28.0" styleCategories="Symbology|Labeling"{enabled}>{renderer}{labels}'
-        f"<layerGeometryType>{ {'fill': 2, 'line': 1, None: 4}[geometry] }</layerGeometryType></qgis>\n"
+        f"<layerGeometryType>{geometry_type}</layerGeometryType></qgis>\n"
     )
 
 

@@ -91,7 +91,8 @@ def write_geotiff(
         data = data[np.newaxis]
     if data.ndim != 3:
         raise InputError(
-            f"write_geotiff {path}: expected a (y, x) or (band, y, x) array, got shape {np.shape(array)}"
+            f"write_geotiff {path}: expected a (y, x) or (band, y, x) array, got shape "
+            f"{np.shape(array)}"
         )
     descriptions = [description] if isinstance(description, str) else list(description)
     if len(descriptions) != data.shape[0]:

@@ -90,7 +90,8 @@ def read_zones(path: str | os.PathLike, zone_field: str, dem, layer: str | None 
     p = Path(path)
     if not p.exists():
         raise InputError(
-            f"zones {p}: file not found; check the [region] zones path (relative to the config file)"
+            f"zones {p}: file not found; check the [region] zones path (relative to the config "
+            "file)"
         )
     try:
         gdf = gpd.read_file(p, layer=layer, engine="pyogrio")
@@ -103,16 +104,19 @@ def read_zones(path: str | os.PathLike, zone_field: str, dem, layer: str | None 
     if zone_field not in gdf.columns:
         fields = [c for c in gdf.columns if c != "geometry"]
         raise InputError(
-            f"{where}: no attribute {zone_field!r} for zone names; fields are {fields} ([region] zone_field)"
+            f"{where}: no attribute {zone_field!r} for zone names; fields are {fields} ([region] "
+            "zone_field)"
         )
     if gdf.crs is None:
         raise InputError(
-            f"{where}: no coordinate reference system; expected a georeferenced file (e.g. EPSG:4326 GeoJSON)"
+            f"{where}: no coordinate reference system; expected a georeferenced file (e.g. "
+            "EPSG:4326 GeoJSON)"
         )
     names = gdf[zone_field]
     if names.isna().any() or (names.astype(str).str.strip() == "").any():
         raise InputError(
-            f"{where}: {int(names.isna().sum() + (names.astype(str).str.strip() == '').sum())} zone(s) without a name in {zone_field!r}"
+            f"{where}: {int(names.isna().sum() + (names.astype(str).str.strip() == '').sum())} "
+            f"zone(s) without a name in {zone_field!r}"
         )
     names = names.astype(str).str.strip()
     dup = names[names.duplicated()].unique().tolist()
@@ -132,16 +136,19 @@ def read_zones(path: str | os.PathLike, zone_field: str, dem, layer: str | None 
     for name, g in zip(names, polygonal, strict=True):
         if g is None:
             raise InputError(
-                f"{where}: zone {name!r} has no polygon geometry; expected a Polygon or MultiPolygon"
+                f"{where}: zone {name!r} has no polygon geometry; expected a Polygon or "
+                "MultiPolygon"
             )
         if not g.is_valid:
             fixed = _polygonal_part(shapely.make_valid(g))
             if fixed is None or fixed.area <= 0:
                 raise InputError(
-                    f"{where}: zone {name!r} has an invalid polygon that cannot be repaired ({shapely.is_valid_reason(g)})"
+                    f"{where}: zone {name!r} has an invalid polygon that cannot be repaired "
+                    f"({shapely.is_valid_reason(g)})"
                 )
             warn(
-                f"{where}: zone {name!r} had an invalid polygon ({shapely.is_valid_reason(g)}); repaired with make_valid"
+                f"{where}: zone {name!r} had an invalid polygon ({shapely.is_valid_reason(g)}); "
+                "repaired with make_valid"
             )
             g = fixed
         out_geoms.append(g)
@@ -160,7 +167,8 @@ def read_zones(path: str | os.PathLike, zone_field: str, dem, layer: str | None 
         if inter > 1e-6 * min(areas[i], areas[j]):
             raise InputError(
                 f"{where}: zones {zones.zone.iloc[i]!r} and {zones.zone.iloc[j]!r} overlap "
-                f"({inter / min(areas[i], areas[j]):.1%} of the smaller); zones must not overlap (shared edges are fine)"
+                f"({inter / min(areas[i], areas[j]):.1%} of the smaller); zones must not overlap "
+                "(shared edges are fine)"
             )
     frame = box(*dem.bounds)
     missing = [
@@ -170,7 +178,8 @@ def read_zones(path: str | os.PathLike, zone_field: str, dem, layer: str | None 
     ]
     if missing:
         raise InputError(
-            f"{where}: zone(s) {missing} lie outside the DEM {dem.path} (DEM bounds {tuple(np.round(dem.bounds, 3))} "
+            f"{where}: zone(s) {missing} lie outside the DEM {dem.path} (DEM bounds "
+            f"{tuple(np.round(dem.bounds, 3))} "
             f"in {dem.crs}); check the CRS of both files"
         )
     return zones

@@ -239,7 +239,8 @@ def align_state(
     if state.fingerprint and state.fingerprint != params.fingerprint():
         raise InputError(
             f"{where}: the state was made with other [snow] settings (fingerprint "
-            f"{state.fingerprint}, this run {params.fingerprint()}); continue with the same settings"
+            f"{state.fingerprint}, this run {params.fingerprint()}); continue with the same "
+            "settings"
         )
     if positions.size and not np.array_equal(positions, np.arange(positions.size)):
         state = state.take(positions)

@@ -71,7 +71,8 @@ LAYER_VARS = {
     "grain_class": (
         f"S{max(map(len, GRAIN_CODES))}",
         {
-            "long_name": "grain class (International Classification for Seasonal Snow on the Ground codes)"
+            "long_name": "grain class (International Classification for Seasonal Snow on the "
+            "Ground codes)"
         },
     ),
     "crust_kind": (
@@ -86,14 +87,16 @@ LAYER_VARS = {
         "f8",
         {
             "units": "seconds since 1970-01-01",
-            "long_name": "when the layer became what it is (burial of SH, refreeze of a crust, else deposition)",
+            "long_name": "when the layer became what it is (burial of SH, refreeze of a crust, "
+            "else deposition)",
         },
     ),
     "event_id": (
         "i4",
         {
             "units": "1",
-            "long_name": "id of the precipitation event that made the layer or its crust: its start as whole hours since 1970-01-01 UTC",
+            "long_name": "id of the precipitation event that made the layer or its crust: its "
+            "start as whole hours since 1970-01-01 UTC",
         },
     ),
 }
@@ -159,7 +162,8 @@ def check_free_space(target: Path, needed_bytes: int) -> None:
 
 
 def run_inputs(cfg: Config, continue_from=None, restarts=()) -> list[tuple[str, Path]]:
-    """Every file a run reads as (what, path), for :func:`regionmap.io.outdir.check_inputs_outside`."""
+    """Every file a run reads as (what, path), for
+    :func:`regionmap.io.outdir.check_inputs_outside`."""
     inputs = [
         ("config", cfg.source),
         ("DEM", cfg.region.dem),
@@ -189,7 +193,8 @@ def _map_time(cfg: Config, out_times: np.ndarray, period) -> np.datetime64:
         want = np.datetime64(cfg.output.map_time.replace(tzinfo=None), "s")
         if want not in out_times:
             raise InputError(
-                f"{cfg.source or 'config'}: [output] map_time {want} is not an output time of this run "
+                f"{cfg.source or 'config'}: [output] map_time {want} is not an output time of this "
+                "run "
                 f"({out_times[0]} to {out_times[-1]}, every {cfg.output.diagnostics_every})"
             )
         return want

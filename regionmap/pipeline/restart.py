@@ -280,7 +280,8 @@ def resolve_restarts(
         if not start <= observed <= t[-1]:
             raise InputError(
                 f"{where}: restart time {observed} UTC "
-                f"({'from the profile' if given is None else 'from the entry'}) is outside the run's "
+                f"({'from the profile' if given is None else 'from the entry'}) is outside the "
+                "run's "
                 f"period {start} .. {t[-1]} UTC; hint: set the entry's time, or run a period that "
                 "contains the observation"
             )
@@ -322,7 +323,8 @@ def resolve_restarts(
                 if both.size:
                     raise InputError(
                         f"[[restart]] entries {a + 1} and {b + 1} both restart cell(s) "
-                        f"{cell_table.index.to_numpy()[both][:5].tolist()} at {out[a].time} UTC; give "
+                        f"{cell_table.index.to_numpy()[both][:5].tolist()} at {out[a].time} UTC; "
+                        "give "
                         "each cell one profile per time"
                     )
     return out

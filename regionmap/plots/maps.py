@@ -245,7 +245,8 @@ def _base_map(
     relief = _shaded_relief(out, kx, ky)
     if relief is not None:
         shade, extent = relief
-        # vmin well below 0 keeps the relief light, so the metric and the lines stay readable over it
+        # vmin well below 0 keeps the relief light, so the metric and the lines stay readable
+        # over it
         ax.imshow(
             shade,
             cmap="gray",
@@ -259,7 +260,8 @@ def _base_map(
         return fig, ax, ""
     if not quiet:
         warn(
-            f"{out.out_dir / 'run.json'}: config.region.dem is not recorded or not on disk; map drawn without hillshade"
+            f"{out.out_dir / 'run.json'}: config.region.dem is not recorded or not on disk; map "
+            "drawn without hillshade"
         )
     return fig, ax, "DEM not found: no hillshade"
 

@@ -159,7 +159,8 @@ class RunOutputs:
         p = self.out_dir / name
         if not p.exists():
             raise InputError(
-                f"{p} is missing; expected it in a complete regionmap output folder (docs/outputs.md)"
+                f"{p} is missing; expected it in a complete regionmap output folder "
+                "(docs/outputs.md)"
             )
         return p
 
@@ -244,7 +245,8 @@ class RunOutputs:
 
     @cached_property
     def cell_layer(self) -> pd.DataFrame:
-        """Attribute columns of the ``cells`` layer of ``zones.gpkg`` (no geometry), by ``cell_id``."""
+        """Attribute columns of the ``cells`` layer of ``zones.gpkg`` (no geometry), by
+        ``cell_id``."""
         import pyogrio
 
         frame = pyogrio.read_dataframe(self.path("zones.gpkg"), layer="cells", read_geometry=False)

@@ -52,7 +52,8 @@ __all__ = [
     "WETNESS_LIMITS_PCT",
 ]
 
-#: upper limits of the wetness classes dry / moist / wet / very wet, % by volume (Fierz et al. 2009).
+#: upper limits of the wetness classes dry / moist / wet / very wet, % by volume (Fierz et al.
+#: 2009).
 WETNESS_LIMITS_PCT = (0.0, 3.0, 8.0, 15.0)
 _WATER_DENSITY_KG_M3 = 1000.0
 
@@ -102,7 +103,8 @@ def select_cell(out, *, cell=None, zone=None, band=None, aspect=None, slope_clas
     if zb.empty:
         bands = list(z.sort_values("band_lower_m")["band"].unique())
         raise InputError(
-            f"profile: zone {zone!r} has no band {band!r}; its bands are {bands} (write LOW-HIGH in m)"
+            f"profile: zone {zone!r} has no band {band!r}; its bands are {bands} (write LOW-HIGH "
+            "in m)"
         )
     wanted = {s.lower(): s for s in SECTOR_ORDER}.get(str(aspect).strip().lower())
     zba = zb[zb["aspect_sector"] == wanted]
@@ -238,8 +240,10 @@ def plot_profile(
     status = "forecast" if out.forecast_at(p["valid_time"]) else "analysis"
     day = local_time_label(p["day"], out.local_timezone, year=True)
     fig.suptitle(
-        f"{row['zone']}, {row['band']} m, {row['aspect_sector']} (cell {cid}, slope class {int(row['slope_class'])}, "
-        f"mean slope {float(row.get('slope_deg', np.nan)):.0f}°)\nsimulated profile of {day} ({status}); "
+        f"{row['zone']}, {row['band']} m, {row['aspect_sector']} (cell {cid}, slope class "
+        f"{int(row['slope_class'])}, "
+        f"mean slope {float(row.get('slope_deg', np.nan)):.0f}°)\nsimulated profile of {day} "
+        f"({status}); "
         f"snow depth {depth_total:.0f} cm (vertical)",
         fontsize=10,
     )

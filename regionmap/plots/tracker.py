@@ -456,7 +456,8 @@ def plot_elevation_chart(out, zone: str, metric_name: str, *, time=None):
         )
     status = "forecast" if out.forecast_at(t) else "analysis"
     ax.set_title(
-        f"{zone}: {m.label}\nvalid {local_time_label(t, out.local_timezone, year=True)} ({status}), {out.weights[1]}",
+        f"{zone}: {m.label}\nvalid {local_time_label(t, out.local_timezone, year=True)} "
+        f"({status}), {out.weights[1]}",
         fontsize=9,
     )
     return fig

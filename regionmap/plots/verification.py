@@ -61,7 +61,8 @@ def scatter_figure(model: pd.DataFrame, obs: pd.DataFrame, variable: str):
     ----------
     model, obs : pandas.DataFrame
         Matched tables, index (``station_id``, ``time``), canonical SI columns (the model on
-        the observations' intervals, :func:`regionmap.stations.verify.aggregate_model_to_observations`).
+        the observations' intervals,
+        :func:`regionmap.stations.verify.aggregate_model_to_observations`).
     variable : str
         Column to plot.
 

@@ -262,7 +262,8 @@ def write_gis(
     missing = [c for c in REQUIRED_ZONE_COLUMNS if c not in zone_table.columns]
     if missing:
         raise InputError(
-            f"zones table: missing columns {missing}; expected at least {list(REQUIRED_ZONE_COLUMNS)}"
+            f"zones table: missing columns {missing}; expected at least "
+            f"{list(REQUIRED_ZONE_COLUMNS)}"
         )
     missing = [m for m in REQUIRED_MAPS if m not in maps]
     if missing:
@@ -272,7 +273,8 @@ def write_gis(
     for name, values in maps.items():
         if np.shape(values) != (n_cell,):
             raise GridMismatchError(
-                f"maps[{name!r}]: shape {np.shape(values)}, expected ({n_cell},) values in cell_id order"
+                f"maps[{name!r}]: shape {np.shape(values)}, expected ({n_cell},) values in cell_id "
+                "order"
             )
     written: dict[str, Path] = {}
 

@@ -381,7 +381,8 @@ def rain_crust_limits(
     control = np.asarray(event.presence, dtype=bool)
     if control.shape != (len(table),):
         raise GridMismatchError(
-            f"rain event {event.event_id}: presence has shape {control.shape}, expected ({len(table)},) cells"
+            f"rain event {event.event_id}: presence has shape {control.shape}, expected "
+            f"({len(table)},) cells"
         )
     members = (
         np.zeros((0, control.size), bool)
@@ -390,7 +391,8 @@ def rain_crust_limits(
     )
     if members.ndim != 2 or members.shape[1] != control.size:
         raise GridMismatchError(
-            f"rain event {event.event_id}: member presence has shape {members.shape}, expected (member, {control.size})"
+            f"rain event {event.event_id}: member presence has shape {members.shape}, expected "
+            f"(member, {control.size})"
         )
     share = np.asarray(event.rain_share, dtype=np.float64)
     if share.shape != control.shape:

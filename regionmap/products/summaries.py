@@ -393,7 +393,8 @@ def _codes(values: np.ndarray, table: dict[str, int], name: str, default: str | 
             }
         )
         raise InputError(
-            f"profiles.nc: variable {name!r} holds unknown codes {bad[:5]}; expected one of {sorted(table)}"
+            f"profiles.nc: variable {name!r} holds unknown codes {bad[:5]}; expected one of "
+            f"{sorted(table)}"
         )
     return out.astype(np.int8)
 
@@ -435,7 +436,8 @@ def decode_snapshot(profiles: xr.Dataset, days=None) -> LayerSnapshot:
     missing = [v for v in need if v not in profiles.variables]
     if missing:
         raise InputError(
-            f"profiles.nc: missing variables {missing}; expected the layer snapshot fields of docs/outputs.md"
+            f"profiles.nc: missing variables {missing}; expected the layer snapshot fields of "
+            "docs/outputs.md"
         )
     ds = profiles if days is None else profiles.isel(day=np.atleast_1d(days))
     ds = ds.transpose("cell", "day", "layer", ...)
@@ -777,7 +779,8 @@ def summarise(
     if (pos < 0).any():
         raise GridMismatchError("summaries: cell values name cell_ids that the cell table lacks")
     w = np.asarray(weight_km2, dtype=np.float64)[pos]
-    # group code = (cell-table group of the row's cell, valid time): integer arithmetic, no sort of rows
+    # group code = (cell-table group of the row's cell, valid time): integer arithmetic, no sort
+    # of rows
     cell_group, groups = pd.factorize(pd.MultiIndex.from_frame(table[keys]), sort=True)
     t_code, t_uniq = pd.factorize(values["valid_time"].to_numpy(), sort=True)
     gid, first = np.unique(

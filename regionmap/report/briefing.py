@@ -114,7 +114,8 @@ CAUTIONS: tuple[str, ...] = (
     "This is model guidance. Field observations, the local avalanche service's bulletins and "
     "professional standards of practice come first.",
     "Simulated layers, depths and threshold counts are estimates of a light snow column driven by "
-    "downscaled weather-model forcing; they carry the forcing's errors (precipitation, freezing level, wind).",
+    "downscaled weather-model forcing; they carry the forcing's errors (precipitation, freezing "
+    "level, wind).",
     "Wind drift, cornices, local avalanche activity and slope-scale variability are not resolved.",
     "Forecast parts of the run use forecast forcing and are less certain than the analysis.",
 )
@@ -130,8 +131,9 @@ class _Figure:
 
 
 def _map_specs(out: RunOutputs) -> list[tuple[str, str, str, callable]]:
-    """(section, file name, caption, draw function) of the maps. What they read from the NetCDF files (cell table, times) and the zones, the
-    rain-crust lines and the hillshade are read here, so forked workers only read GeoTIFFs."""
+    """(section, file name, caption, draw function) of the maps. What they read from the
+    NetCDF files (cell table, times) and the zones, the rain-crust lines and the hillshade are
+    read here, so forked workers only read GeoTIFFs."""
     specs = []
     maps = set(available_maps(out))
     for name in [m for m in MAP_METRICS if m in maps]:
@@ -150,7 +152,8 @@ def _map_specs(out: RunOutputs) -> list[tuple[str, str, str, callable]]:
             (
                 "maps",
                 f"map_rain_crust_{stamp}.png",
-                f"Map: rain-crust line of the rain of {event_date_label(event_id, out.local_timezone)}",
+                "Map: rain-crust line of the rain of "
+                f"{event_date_label(event_id, out.local_timezone)}",
                 lambda event_id=event_id: plot_rain_crust_map(out, event_id),
             )
         )
@@ -196,7 +199,8 @@ def _summary_specs(out: RunOutputs) -> list[tuple[str, str, str, callable]]:
                 (
                     "profiles",
                     f"profile_{zone_slug(zone)}_cell{cid}.png",
-                    f"{zone}: simulated profile of cell {cid} ({row['band']} m, {row['aspect_sector']}), "
+                    f"{zone}: simulated profile of cell {cid} ({row['band']} m, "
+                    f"{row['aspect_sector']}), "
                     "the cell with the highest threshold count at the map time",
                     lambda cid=cid, prof=prof: plot_profile(out, cid, profile=prof),
                 )
@@ -303,7 +307,8 @@ class _Drawing:
         self.specs, self.pool = specs, None
         _JOB = (specs, thumbnails)
         if workers >= 1 and len(specs) >= 2 and "fork" in mp.get_all_start_methods():
-            gc.freeze()  # the workers' garbage collector leaves the inherited objects (and their pages) alone
+            # the workers' garbage collector leaves the inherited objects (and their pages) alone
+            gc.freeze()
             try:
                 self.pool = mp.get_context("fork").Pool(workers)
             finally:
@@ -483,7 +488,8 @@ _SECTIONS = [
     (
         "overviews",
         "Elevation-aspect overviews",
-        "Aspect sectors around (north at the top), elevation bands as rings with the highest band in the centre.",
+        "Aspect sectors around (north at the top), elevation bands as rings with the highest band "
+        "in the centre.",
     ),
     (
         "profiles",
@@ -510,7 +516,10 @@ def _forecast_text(out: RunOutputs) -> str:
     times = out.times
     start, end = (pd.Timestamp(t).strftime("%Y-%m-%d %H:%M UTC") for t in (times[0], times[-1]))
     if not fc.any():
-        return f"The whole run ({start} to {end}) is driven by analysis forcing; there is no forecast part."
+        return (
+            f"The whole run ({start} to {end}) is driven by analysis forcing; there is no "
+            "forecast part."
+        )
     first = pd.Timestamp(times[np.argmax(fc)]).strftime("%Y-%m-%d %H:%M UTC")
     if fc.all():
         return f"The whole run ({start} to {end}) is driven by forecast forcing."
@@ -525,14 +534,16 @@ def _verification(out: RunOutputs) -> tuple[str, list[str], list[list[str]]]:
     path = out.out_dir / "verification.csv"
     if not path.is_file():
         return (
-            "No station verification results in this output folder (verification.csv); this section "
+            "No station verification results in this output folder (verification.csv); this "
+            "section "
             "appears when station data are configured.",
             [],
             [],
         )
     frame = pd.read_csv(path)
     if "period_start" in frame.columns and "period_end" in frame.columns and len(frame):
-        text = f"Downscaled model against station observations, {frame['period_start'].iloc[0]} to {frame['period_end'].iloc[0]}."
+        start, end = frame["period_start"].iloc[0], frame["period_end"].iloc[0]
+        text = f"Downscaled model against station observations, {start} to {end}."
     else:
         text = "Downscaled model against station observations over the period in verification.csv."
     cols, rows = _table(frame, _VERIFICATION_COLUMNS)

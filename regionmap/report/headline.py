@@ -308,11 +308,13 @@ def headline_items(
     zl = lines[lines["zone"] == zone]
     new = zl[pd.to_datetime(zl["date"]).dt.date >= since_date]
     new_words = [
-        f"{KIND_WORDS.get(r.kind, r.kind)} of {local_date_label(r.date)} ({100 * r.presence_frac:.0f} %)"
+        f"{KIND_WORDS.get(r.kind, r.kind)} of {local_date_label(r.date)} "
+        f"({100 * r.presence_frac:.0f} %)"
         for r in new[new["headline"]].itertuples()
     ]
+    since = "Since the previous run" if changes.since_label == "the previous run" else "Last 24 h"
     changed = (
-        f"{'Since the previous run' if changes.since_label == 'the previous run' else 'Last 24 h'}: "
+        f"{since}: "
         f"{c.snowfall_kg_m2:.0f} kg m-2 snowfall, "
         f"{c.rain_kg_m2:.0f} kg m-2 rain; "
         + (f"new: {', '.join(new_words)}." if new_words else "no new layer of concern.")
@@ -320,11 +322,15 @@ def headline_items(
     end = local_time_label(window_end, local_timezone)
     hn24, hn72 = zone_row.get("new_snow_24h_cm", np.nan), zone_row.get("new_snow_72h_cm", np.nan)
     load72 = zone_row.get("new_snow_72h_kg_m2", np.nan)
-    load = f"New snow to {end}: {_num(hn24)} cm in 24 h, {_num(hn72)} cm ({_num(load72)} kg m-2) in 72 h."
+    load = (
+        f"New snow to {end}: {_num(hn24)} cm in 24 h, {_num(hn72)} cm ({_num(load72)} kg m-2) "
+        "in 72 h."
+    )
     if changes.end > changes.map_time:
         load += (
             f" Forecast to {local_time_label(changes.end, local_timezone)}: "
-            f"{c.forecast_snowfall_kg_m2:.0f} kg m-2 snowfall, {c.forecast_rain_kg_m2:.0f} kg m-2 rain."
+            f"{c.forecast_snowfall_kg_m2:.0f} kg m-2 snowfall, {c.forecast_rain_kg_m2:.0f} kg m-2 "
+            "rain."
         )
     if pd.notna(c.wet_onset):
         wet = (

@@ -86,7 +86,8 @@ def _check(
     if state.n_cells != forcing.n_cells:
         raise GridMismatchError(
             f"run_columns: the snow state has {state.n_cells} cells but the forcing has "
-            f"{forcing.n_cells}; hint: state and forcing must cover the same cells in the same order"
+            f"{forcing.n_cells}; hint: state and forcing must cover the same cells in the same "
+            "order"
         )
     if state.max_layers != params.max_layers:
         raise InputError(

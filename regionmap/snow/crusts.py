@@ -2,17 +2,16 @@
 
 Formation rules (Fierz et al. 2009 for the classes MFcr and IF and the liquid-water classes;
 crust kinds from the avalanche literature, Jamieson 2006, Rev. Geophys. 44, RG2001,
-doi:10.1029/2005RG000176): a layer that reached the "wet" class (>= 3 % liquid water by
-volume, Fierz et al. 2009, liquid water content classes [src]) with water of a known source and then refreezes
-becomes a crust -- a *sun* crust when solar input melted a dry surface, a *melt-freeze*
-crust for other surface melt, a *rain* crust when a substantial rain (in amount and as a
-share of its event's precipitation, :func:`substantial_rain`) wetted it (tagged with the rain
-event's id). Only the snow the water wetted to that class refreezes into the crust, so a
-crust is as thick as the wetted layers, typically centimetres (Jamieson 2006 [mem]).
-Freezing rain on a sub-freezing surface freezes on contact into a glaze of ice (IF) whose
-thickness is the water equivalent over the density of ice. A layer refrozen again keeps its
-first crust kind and formation time, so repeated melt-freeze cycles of the same layer stay
-one crust.
+doi:10.1029/2005RG000176): a layer that reached the "wet" class (>= 3 % liquid water by volume,
+Fierz et al. 2009, liquid water content classes [src]) with water of a known source and then
+refreezes becomes a crust -- a *sun* crust when solar input melted a dry surface, a
+*melt-freeze* crust for other surface melt, a *rain* crust when a substantial rain (in amount
+and as a share of its event's precipitation, :func:`substantial_rain`) wetted it (tagged with
+the rain event's id). Only the snow the water wetted to that class refreezes into the crust, so
+a crust is as thick as the wetted layers, typically centimetres (Jamieson 2006 [mem]). Freezing
+rain on a sub-freezing surface freezes on contact into a glaze of ice (IF) whose thickness is
+the water equivalent over the density of ice. A layer refrozen again keeps its first crust kind
+and formation time, so repeated melt-freeze cycles of the same layer stay one crust.
 """
 
 from __future__ import annotations

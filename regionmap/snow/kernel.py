@@ -813,7 +813,8 @@ def _metamorphose(fw, iw, n, sv, ts, dt, p, grad_w, centre_w, arr_w):
 @njit(cache=True, nogil=True, error_model="numpy")
 def _cleanup(fw, iw, n):
     """Remove ice-free layers (their water moves down, or leaves) and fold layers thinner
-    than 0.1 mm or with less than 0.01 kg m-2 of ice into a neighbour. Returns (n, water leaving the base [kg m-2])."""
+    than 0.1 mm or with less than 0.01 kg m-2 of ice into a neighbour. Returns (n, water
+    leaving the base [kg m-2])."""
     out = 0.0
     i = n - 1
     while i >= 0:

@@ -66,7 +66,8 @@ class SnowParams(Settings):
     stable_floor_frac: float = 0.3  #: share of neutral exchange kept in very stable air (ours)
     wind_min_m_s: float = 0.5  #: wind floor in the bulk formulas (ours)
     newton_iterations: int = 6  #: safeguarded Newton steps on the skin temperature
-    sw_surface_frac: float = 0.5  #: absorbed shortwave taken at the skin (near-infrared share, ours); the rest penetrates
+    #: absorbed shortwave taken at the skin (near-infrared share, ours); the rest penetrates
+    sw_surface_frac: float = 0.5
     # albedo: Douville et al. 1995 [mem]
     albedo_min: float = 0.5
     albedo_max: float = 0.85
@@ -78,7 +79,9 @@ class SnowParams(Settings):
     pond_pore_frac: float = 0.3  #: retention above a barrier (ours, mimics Wever et al. 2014)
     barrier_density_kg_m3: float = 600.0  #: layers this dense hold water back (ours)
     capillary_ratio: float = 2.0  #: coarse/fine grain ratio of a capillary barrier (ours)
-    crust_wet_frac: float = 0.03  #: liquid volume share that makes a refrozen layer a crust: the "wet" class (Fierz et al. 2009, liquid water content classes: wet 3-8 %)
+    #: liquid volume share that makes a refrozen layer a crust: the "wet" class (Fierz et al.
+    #: 2009, liquid water content classes: wet 3-8 %)
+    crust_wet_frac: float = 0.03
     rain_crust_min_kg_m2: float = 2.0  #: rain of an event that can leave a rain crust (ours)
     rain_crust_min_share: float = 0.5  #: and its share of the event's precipitation (ours)
     # crusts
@@ -95,8 +98,12 @@ class SnowParams(Settings):
     near_surface_depth_m: float = 0.10  #: near-surface zone (Birkeland 1998 [mem])
     # surface hoar (growth: Hachikubo 2001; survival: surface_hoar.surface_hoar_survival)
     sh_wind_max_m_s: float = 3.5  #: grows at cell winds up to 3.5 m s-1 (Hachikubo 2001)
-    sh_keep_ustar_m_s: float = 0.15  #: wind spares it up to this friction velocity (ours, within the 0.07-0.25 m s-1 drift thresholds of fresh snow, Li & Pomeroy 1997 [mem])
-    sh_destroy_ustar_m_s: float = 0.35  #: and destroys it from this one (ours, where older snow starts to drift, Li & Pomeroy 1997 [mem])
+    #: wind spares it up to this friction velocity (ours, within the 0.07-0.25 m s-1 drift
+    #: thresholds of fresh snow, Li & Pomeroy 1997 [mem])
+    sh_keep_ustar_m_s: float = 0.15
+    #: and destroys it from this one (ours, where older snow starts to drift, Li & Pomeroy
+    #: 1997 [mem])
+    sh_destroy_ustar_m_s: float = 0.35
     sh_shield_kg_m2: float = (
         10.0  #: burying snow that shields it from the wind (~10 cm of storm snow, ours)
     )
@@ -112,7 +119,9 @@ class SnowParams(Settings):
     depth_hoar_min_cm: Annotated[float, Field(ge=0, le=50)] = (
         2.0  #: depth hoar counts as present from this thickness
     )
-    pwl_min_depth_m: float = 0.18  #: a weak layer of concern lies under a slab this deep (lower end of the critical depth window, Schweizer & Jamieson 2007 [mem])
+    #: a weak layer of concern lies under a slab this deep (lower end of the critical depth
+    #: window, Schweizer & Jamieson 2007 [mem])
+    pwl_min_depth_m: float = 0.18
     pwl_min_thickness_m: float = (
         0.005  #: of at least 0.5 cm of persistent grains (buried SH at any thickness; ours)
     )

@@ -431,7 +431,8 @@ class SnowState:
         missing = [v for v in need if v not in ds.variables]
         if missing or "time" not in ds.coords or "cell_id" not in ds.coords:
             raise InputError(
-                f"{source}: not a regionmap snow state; missing variables {missing or ['time/cell_id']}; "
+                f"{source}: not a regionmap snow state; missing variables "
+                f"{missing or ['time/cell_id']}; "
                 "hint: pass a state.nc written by regionmap"
             )
         if ds["time"].ndim != 0:

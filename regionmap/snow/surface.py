@@ -38,7 +38,8 @@ __all__ = [
 def vapour_pressure_water_buck1981(t_k):
     """Saturation vapour pressure over water, Buck (1981), J. Appl. Meteorol. 20, Eq. 8 [Pa].
 
-    e = 611.21 exp(17.502 T / (240.97 + T)), T in degC. doi:10.1175/1520-0450(1981)020<1527:NEFCVP>2.0.CO;2
+    e = 611.21 exp(17.502 T / (240.97 + T)), T in degC.
+    doi:10.1175/1520-0450(1981)020<1527:NEFCVP>2.0.CO;2
     """
     t_c = t_k - T_MELT_K
     return 611.21 * math.exp(17.502 * t_c / (240.97 + t_c))
@@ -159,7 +160,8 @@ def surface_fluxes(
     Returns
     -------
     q_net : float
-        Absorbed shortwave (surface part) + emissivity LW_in - emissivity sigma Ts^4 + H + LE [W m-2].
+        Absorbed shortwave (surface part) + emissivity LW_in - emissivity sigma Ts^4 + H + LE
+        [W m-2].
     sensible : float
         H = rho_a c_p C_H U (T_a - T_s) [W m-2].
     latent : float

@@ -495,12 +495,14 @@ def verify_command(
             else ""
         )
         print(
-            f"Downscaled model against station observations{note}, {start - np.timedelta64(3600, 's')} "
+            f"Downscaled model against station observations{note}, "
+            f"{start - np.timedelta64(3600, 's')} "
             f"to {end} UTC (bias = model minus observation):"
         )
         _print_table(table)
         print(
-            f"\nTable: {csv_path}; figures: {', '.join(p.name for p in figures)} in {out / 'figures'}."
+            f"\nTable: {csv_path}; figures: {', '.join(p.name for p in figures)} in "
+            f"{out / 'figures'}."
         )
         print(f"Caution: station scores describe the model at a few points. {CAUTION}")
     return table
@@ -621,7 +623,8 @@ def calibrate_command(
     if echo:
         print(text)
         print(
-            "Skill before (raw), after (fitted, in sample) and cross-validated (leave one month out); "
+            "Skill before (raw), after (fitted, in sample) and cross-validated (leave one month "
+            "out); "
             "bias = model minus observation:"
         )
         cols = {

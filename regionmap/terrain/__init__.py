@@ -74,7 +74,8 @@ def compute_terrain(dem: Dem, settings: TerrainSettings | None = None, *, progre
     dem : Dem
     settings : TerrainSettings (defaults when None)
     progress : callable or None
-        Called with a number of finished steps (horizon_azimuths + exposure_directions + 2 in total).
+        Called with a number of finished steps (horizon_azimuths + exposure_directions + 2 in
+        total).
     """
     settings = settings or TerrainSettings()
     m = dem.metric()

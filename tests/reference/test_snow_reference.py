@@ -136,7 +136,8 @@ def test_glaze_thickness_is_water_over_ice_density():
 @pytest.mark.parametrize("lwc, cls", [(0.0, 0), (0.02, 1), (0.05, 2), (0.10, 3), (0.20, 4)])
 def test_wetness_classes_fierz2009(lwc, cls):
     # Fierz et al. (2009), International Classification for Seasonal Snow on the Ground,
-    # liquid water content classes by volume: dry 0, moist 0-3, wet 3-8, very wet 8-15, soaked >15 [src]
+    # liquid water content classes by volume: dry 0, moist 0-3, wet 3-8, very wet 8-15,
+    # soaked >15 [src]
     assert wetness_class_fierz2009(lwc) == cls
 
 
@@ -168,7 +169,8 @@ def test_buck1981_against_murphy_koop2005(t_c, water_hpa, ice_hpa):
 
 
 def test_buck1981_against_metpy():
-    # MetPy's saturation_vapor_pressure (Bolton 1980) over water, an outside library: 0.2 % at -10..+10 degC
+    # MetPy's saturation_vapor_pressure (Bolton 1980) over water, an outside library: 0.2 % at
+    # -10..+10 degC
     mpcalc = pytest.importorskip("metpy.calc")
     units = pytest.importorskip("metpy.units").units
     for t_c in (-10.0, 0.0, 10.0):
