@@ -35,7 +35,8 @@ from regionmap.snow.state import SnowState
 
 __all__ = ["run_columns", "snapshots_to_dataset", "DIAGNOSTICS_64", "DIAGNOSTICS_32", "EVENT_KINDS"]
 
-#: cells.nc names of the float64 diagnostics (mass budget), by row of :attr:`Diagnostics.d64 <regionmap.snow.containers.Diagnostics.d64>`
+#: cells.nc names of the float64 diagnostics (mass budget), by row of
+#: :attr:`Diagnostics.d64 <regionmap.snow.containers.Diagnostics.d64>`
 DIAGNOSTICS_64 = {
     "swe_kg_m2": B.D64_SWE,
     "snowfall_kg_m2": B.D64_SNOW,  # interval sums from here on
