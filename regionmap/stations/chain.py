@@ -583,35 +583,46 @@ def calibrate_command(
     InputError
         Bad inputs, or too little data to fit (the message says what is missing).
     """
-    from regionmap.plots.style import save_png
-    from regionmap.plots.verification import calibration_skill_figure, write_verification_figures
-
     stations, obs = _read_inputs(stations_path, observation_paths)
     model, matched = _matched(cfg, stations, obs, raw=True, where="calibrate", region=region)
-    stations = stations.copy()
-    derived = [
-        s
-        for s in stations.index
-        if s in model.attrs["exposure_source"] and model.attrs["exposure_source"][s] != "metadata"
-    ]
-    for s in derived:
-        stations.loc[s, "exposure_class"] = model.attrs["exposure_class"][s]
+    stations, derived = _with_terrain_exposure(stations, model)
     result = _calibrate_observed(
         matched, obs, stations, method=method, per_month=per_month, undercatch=undercatch
     )
-    out = Path(out_dir)
-    out.mkdir(parents=True, exist_ok=True)
-    qm_path = None
-    if result.qm_tables:
-        qm_path = write_qm_table(out / "qm.nc", result.qm_tables)
-    text = bias_toml(result, quantile_mapping_file=str(qm_path) if qm_path else "qm.nc")
     if derived:
         result.notes.append(
             "exposure class from the terrain (Sx) for station(s) "
             + ", ".join(f"{s}: {model.attrs['exposure_class'][s]}" for s in derived)
-            + "; give exposure_class in "
-            "the station metadata to set it yourself."
+            + "; give exposure_class in the station metadata to set it yourself."
         )
+    out = Path(out_dir)
+    text, qm_path, written = _write_calibration(out, result, matched, obs)
+    if echo:
+        _print_calibration(text, result, qm_path, out, written)
+    return text, result.skill
+
+
+def _with_terrain_exposure(stations: pd.DataFrame, model) -> tuple[pd.DataFrame, list]:
+    """The stations with the exposure class of their terrain (Sx) where their metadata gives
+    none, as cells have; and the ids of those stations."""
+    source = model.attrs["exposure_source"]
+    derived = [s for s in stations.index if s in source and source[s] != "metadata"]
+    stations = stations.copy()
+    for s in derived:
+        stations.loc[s, "exposure_class"] = model.attrs["exposure_class"][s]
+    return stations, derived
+
+
+def _write_calibration(out: Path, result, matched, obs) -> tuple[str, Path | None, list]:
+    """``bias.toml``, ``calibration_skill.csv``, the figures and the quantile-mapping tables
+    (``qm.nc``) of a calibration in ``out``; returns the TOML text, the tables' path (None
+    without them) and the files written."""
+    from regionmap.plots.style import save_png
+    from regionmap.plots.verification import calibration_skill_figure, write_verification_figures
+
+    out.mkdir(parents=True, exist_ok=True)
+    qm_path = write_qm_table(out / "qm.nc", result.qm_tables) if result.qm_tables else None
+    text = bias_toml(result, quantile_mapping_file=str(qm_path) if qm_path else "qm.nc")
     written = [
         atomic_write_text(out / "bias.toml", text),
         write_csv(out / "calibration_skill.csv", result.skill),
@@ -620,35 +631,40 @@ def calibrate_command(
     fig = calibration_skill_figure(result.skill)
     if fig is not None:
         written.append(save_png(fig, out / "figures" / "calibration_skill.png"))
-    if echo:
-        print(text)
-        print(
-            "Skill before (raw), after (fitted, in sample) and cross-validated (leave one month "
-            "out); "
-            "bias = model minus observation:"
-        )
-        cols = {
-            "exposure_class": "exposure",
-            "variable": "variable",
-            "stage": "stage",
-            "n": "n",
-            "bias": "bias",
-            "mae": "MAE",
-            "rmse": "RMSE",
-            "r2": "R2",
-            "total_percent_difference": "total %",
-        }
-        _print_table(result.skill, cols)
-        for note in result.notes:
-            print(f"  note: {note}")
-        if qm_path:
-            print(f"Quantile-mapping tables: {qm_path}")
-        print(f"Written in {out}: {', '.join(str(p.relative_to(out)) for p in written)}")
-        print(
-            "Caution: settings fitted at a few stations describe the model's past behaviour there; "
-            "check them against field observations before relying on them. " + CAUTION
-        )
-    return text, result.skill
+    return text, qm_path, written
+
+
+#: Columns of the printed skill table and their headings.
+_SKILL_COLUMNS = {
+    "exposure_class": "exposure",
+    "variable": "variable",
+    "stage": "stage",
+    "n": "n",
+    "bias": "bias",
+    "mae": "MAE",
+    "rmse": "RMSE",
+    "r2": "R2",
+    "total_percent_difference": "total %",
+}
+
+
+def _print_calibration(text: str, result, qm_path, out: Path, written: list) -> None:
+    """The fitted ``[bias]`` section, the skill table, the notes, the files and the caution."""
+    print(text)
+    print(
+        "Skill before (raw), after (fitted, in sample) and cross-validated (leave one month "
+        "out); bias = model minus observation:"
+    )
+    _print_table(result.skill, _SKILL_COLUMNS)
+    for note in result.notes:
+        print(f"  note: {note}")
+    if qm_path:
+        print(f"Quantile-mapping tables: {qm_path}")
+    print(f"Written in {out}: {', '.join(str(p.relative_to(out)) for p in written)}")
+    print(
+        "Caution: settings fitted at a few stations describe the model's past behaviour there; "
+        "check them against field observations before relying on them. " + CAUTION
+    )
 
 
 def run_verification_last_day(cfg: Config, region, out_dir, map_time, *, grid_forcing=None):
