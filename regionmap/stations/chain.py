@@ -415,10 +415,8 @@ def _undercatch_corrected(obs: pd.DataFrame, undercatch) -> pd.DataFrame:
     return out
 
 
-_CONSOLE = {
-    "station_id": "station",
-    "variable": "variable",
-    "units": "unit",
+#: Headings of the skill statistics in the printed tables.
+_STATISTICS = {
     "n": "n",
     "bias": "bias",
     "mae": "MAE",
@@ -426,6 +424,7 @@ _CONSOLE = {
     "r2": "R2",
     "total_percent_difference": "total %",
 }
+_CONSOLE = {"station_id": "station", "variable": "variable", "units": "unit", **_STATISTICS}
 
 
 def _print_table(table: pd.DataFrame, columns: dict = _CONSOLE) -> None:
@@ -639,12 +638,7 @@ _SKILL_COLUMNS = {
     "exposure_class": "exposure",
     "variable": "variable",
     "stage": "stage",
-    "n": "n",
-    "bias": "bias",
-    "mae": "MAE",
-    "rmse": "RMSE",
-    "r2": "R2",
-    "total_percent_difference": "total %",
+    **_STATISTICS,
 }
 
 
