@@ -40,7 +40,7 @@ def _column(weak="FC", weak_cm=2.0, weak_mm=2.0, weak_hardness=1.0, slab_cm=30.0
 
 
 def _judge(columns, criteria=ABSOLUTE):
-    th, e, h, g = (np.stack(a) for a in zip(*columns))
+    th, e, h, g = (np.stack(a) for a in zip(*columns, strict=True))
     marks = weak_layers_of_concern(np.full(len(columns), 3), th, e, h, g, criteria)
     return marks[:, 1]
 
@@ -87,7 +87,7 @@ def test_relative_sum_marks_the_standout_layer_monti2014():
         )
 
     relative = ConcernCriteria(True, 0.18, 0.005, 1.0)
-    th, e, h, g = (np.stack(a) for a in zip(col(0.3), col(0.08)))
+    th, e, h, g = (np.stack(a) for a in zip(col(0.3), col(0.08), strict=True))
     marks = weak_layers_of_concern(np.array([4, 4]), th, e, h, g, relative)
     np.testing.assert_array_equal(marks, [[True, True, False, False], [False] * 4])
 

@@ -115,7 +115,8 @@ MAP_SPECS: dict[str, MapSpec] = {
         "float32",
         -9999.0,
         "cm",
-        f"vertical depth of the uppermost persistent weak layer of concern ({NO_WEAK_LAYER:g}: none)",
+        "vertical depth of the uppermost persistent weak layer of concern "
+        f"({NO_WEAK_LAYER:g}: none)",
         hi=200.0,
         none_value=NO_WEAK_LAYER,
         none_label="no persistent weak layer of concern",

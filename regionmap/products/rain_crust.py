@@ -7,19 +7,19 @@ falling snow needs a few hundred metres of above-freezing air to melt (common pr
 the melting distance depends on humidity and rate). The column model tags the crusts such an
 event leaves (``crust_kind = "rain"`` and the event's ``event_id``).
 
-**Upper limit: the rain–snow transition** (the rain-crust line). Each cell's *rain share*
-of the event — the liquid part of the precipitation it received over the event's window,
-``rain_kg_m2 / (rain_kg_m2 + snowfall_kg_m2)`` — falls with elevation. Per zone × aspect
-the shares are fitted against the cells' own mean elevations by an antitonic (non-increasing)
-weighted least-squares regression, the pool-adjacent-violators fit of Ayer et al. (1955),
-and the line is where that fit, joined linearly between the cells' elevations, crosses 50 %
-(the interpolated isotonic estimate of a target level of Stylianou & Flournoy 2002). Where
-the transition moved during the event, or lay between two cells, the shares are fractional
-and the line falls between the cells, finer than the band step. The column makes a rain crust only where rain was at least half of
-the event's precipitation (:class:`regionmap.snow.params.SnowParams` ``rain_crust_min_share``),
-so this is also the crust's upper edge. When the share is 50 % or more up to the group's
-highest cell, the line is above that cell (``at_or_above``: it is not extrapolated); when it is
-under 50 % even in the lowest cell, below it (``at_or_below``).
+**Upper limit: the rain–snow transition** (the rain-crust line). Each cell's *rain share* of the
+event — the liquid part of the precipitation it received over the event's window, ``rain_kg_m2 /
+(rain_kg_m2 + snowfall_kg_m2)`` — falls with elevation. Per zone × aspect the shares are fitted
+against the cells' own mean elevations by an antitonic (non-increasing) weighted least-squares
+regression, the pool-adjacent-violators fit of Ayer et al. (1955), and the line is where that
+fit, joined linearly between the cells' elevations, crosses 50 % (the interpolated isotonic
+estimate of a target level of Stylianou & Flournoy 2002). Where the transition moved during the
+event, or lay between two cells, the shares are fractional and the line falls between the cells,
+finer than the band step. The column makes a rain crust only where rain was at least half of the
+event's precipitation (:class:`regionmap.snow.params.SnowParams` ``rain_crust_min_share``), so
+this is also the crust's upper edge. When the share is 50 % or more up to the group's highest
+cell, the line is above that cell (``at_or_above``: it is not extrapolated); when it is under
+50 % even in the lowest cell, below it (``at_or_below``).
 
 **Lower limit: the snow line of the time**, from the crust's presence: interpolated linearly
 between band centres where the area fraction with the crust crosses 0.5
@@ -397,7 +397,8 @@ def rain_crust_limits(
     share = np.asarray(event.rain_share, dtype=np.float64)
     if share.shape != control.shape:
         raise GridMismatchError(
-            f"rain event {event.event_id}: rain_share has shape {share.shape}, expected ({control.size},) cells"
+            f"rain event {event.event_id}: rain_share has shape {share.shape}, expected "
+            f"({control.size},) cells"
         )
     member_share = (
         np.full(members.shape, np.nan)
@@ -406,7 +407,8 @@ def rain_crust_limits(
     )
     if member_share.shape != members.shape:
         raise GridMismatchError(
-            f"rain event {event.event_id}: member rain shares have shape {member_share.shape}, expected {members.shape}"
+            f"rain event {event.event_id}: member rain shares have shape {member_share.shape}, "
+            f"expected {members.shape}"
         )
     allp = np.vstack([control[None, :], members])
     shares = np.vstack([share[None, :], np.where(np.isnan(member_share), share, member_share)])
