@@ -4,7 +4,9 @@ Five panels share the height above the ground: hand hardness on the trade's scal
 1F, P, K, I; Fierz et al. 2009) drawn as bars coloured by grain class with the class code
 written on each layer; grain size [mm]; temperature [°C]; density [kg m-3]; liquid water
 content [% by volume] with the classification's wetness-class limits. Crusts are hatched,
-persistent weak layers (FC, DH, SH and their subclasses) marked, and the interface with the
+layers of persistent grains (FC, DH, SH and their subclasses) marked — filled where they are
+a weak layer of concern (:mod:`regionmap.products.concern`, the rule of every product),
+open where not — and the interface with the
 largest structural threshold count (:func:`regionmap.snow.stability.threshold_counts_of_profile`,
 relative mode for simulated profiles) drawn across all panels.
 
@@ -39,6 +41,7 @@ from regionmap.plots.style import (
     save_png,
     text_colour_on,
 )
+from regionmap.products.concern import weak_layers_of_concern
 from regionmap.snow.codes import PERSISTENT_CODES, grain_strings_to_codes
 from regionmap.snow.hardness import HARDNESS_LABELS
 from regionmap.snow.stability import threshold_counts_of_profile
@@ -144,7 +147,8 @@ def read_profile(out, cell_id: int, time=None) -> dict:
     dict with ``day`` (datetime64[s]), ``valid_time``, ``thickness_m``, ``bottom_cm``,
     ``top_cm`` (height above ground), ``grain`` (codes), ``crust`` (kinds), ``hardness``,
     ``grain_size_mm``, ``temperature_c``, ``density_kg_m3``, ``lwc_pct`` (% by volume),
-    ``persistent`` (bool).
+    ``persistent`` (bool: persistent grains), ``of_concern`` (bool: part of a persistent weak
+    layer of concern, by the run's criteria).
     """
     out = _outputs(out)
     t = out.map_time if time is None else out.time_in_run(time)
@@ -178,6 +182,14 @@ def read_profile(out, cell_id: int, time=None) -> dict:
             thick > 0, arr("liquid_kg_m2") / _WATER_DENSITY_KG_M3 / thick * 100.0, np.nan
         )
     crust = strings("crust_kind")
+    concern = weak_layers_of_concern(
+        np.array([n]),
+        thick[None, :],
+        np.nan_to_num(arr("grain_size_mm"))[None, :],
+        np.nan_to_num(arr("hardness_index"))[None, :],
+        grain_strings_to_codes(grain)[None, :],
+        out.concern_criteria,
+    )[0]
     return {
         "day": days[d],
         "valid_time": t,
@@ -192,6 +204,7 @@ def read_profile(out, cell_id: int, time=None) -> dict:
         "density_kg_m3": density,
         "lwc_pct": lwc,
         "persistent": np.isin(grain, PERSISTENT_CODES),
+        "of_concern": concern,
     }
 
 
@@ -295,8 +308,9 @@ def plot_profile(
                 [bottom[k] + thick_cm[k] / 2],
                 marker="<",
                 color="black",
+                markerfacecolor="black" if p["of_concern"][k] else "white",
                 markersize=6,
-                gid=f"pwl-{k}",
+                gid=f"pwl-{k}" if p["of_concern"][k] else f"persistent-{k}",
             )
     edges = np.concatenate([[0.0], top])
     ax_e.stairs(
@@ -348,12 +362,19 @@ def plot_profile(
         handles.append(
             Patch(facecolor="white", edgecolor="#333333", hatch="xxx", label=f"crust ({kinds})")
         )
-    if p["persistent"].any():
-        handles.append(
-            Line2D(
-                [], [], marker="<", color="black", linestyle="none", label="persistent weak layer"
+    for concern, label in ((True, "weak layer of concern"), (False, "persistent grains")):
+        if (p["persistent"] & (p["of_concern"] == concern)).any():
+            handles.append(
+                Line2D(
+                    [],
+                    [],
+                    marker="<",
+                    color="black",
+                    markerfacecolor="black" if concern else "white",
+                    linestyle="none",
+                    label=label,
+                )
             )
-        )
     if top.size >= 2:
         codes = grain_strings_to_codes(p["grain"]).astype(np.int64)
         count, depth_m = threshold_counts_of_profile(
