@@ -326,10 +326,6 @@ class LayerSnapshot:
     burial_s: np.ndarray
     burial_event_s: np.ndarray
 
-    @property
-    def buried(self) -> np.ndarray:
-        return self.valid & (self.burial_s > _NO_TIME)
-
     def of_concern(self, criteria: ConcernCriteria = DEFAULT_CRITERIA) -> np.ndarray:
         """(cell, day, layer) bool: the layer belongs to a persistent weak layer of concern
         (:func:`regionmap.products.concern.weak_layers_of_concern`)."""
