@@ -93,6 +93,10 @@ observation_hour = 7
         ({"region": REGION, "output": {"diagnostics_every": "90min"}}, r"whole number of hours"),
         ({"region": {"dem": "d.tif"}}, r"missing required key \[region\] zones"),
         ({"region": REGION, "output": {"observation_hour": 25}}, r"\[output\] observation_hour"),
+        (
+            {"region": REGION, "downscale": {"drift": True}},
+            r"\[downscale\].*drift is no longer a setting.*\[snow\] wind_transport",
+        ),
     ],
 )
 def test_bad_config_names_key_and_file(data, match):

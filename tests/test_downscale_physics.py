@@ -17,19 +17,6 @@ def test_thornton1997_factor_values_and_bounds():
     np.testing.assert_allclose(f, [1.5, 0.5])
 
 
-def test_drift_factor_conserves_zone_totals_and_moves_snow_to_the_lee():
-    rng = np.random.default_rng(0)
-    sx = 15 * rng.standard_normal((30, 50))
-    p = rng.gamma(0.5, 2.0, (30, 50))
-    zone = np.repeat([0, 1, 2], 10)
-    area = rng.uniform(1e4, 1e6, 30)
-    d = precip.drift_factor_exposure(sx, p, zone, area)
-    for z in range(3):
-        m = zone == z
-        np.testing.assert_allclose(area[m] @ (p[m] * d[m]), area[m] @ p[m], rtol=1e-9)
-    assert d[sx > 20].mean() > 1 > d[sx < -20].mean()
-
-
 def test_monthly_bias_needs_12_values():
     with pytest.raises(ValueError, match="12"):
         bias.monthly_values([1, 2, 3], np.array([0, 1]))

@@ -368,19 +368,18 @@ def test_chunks_keep_groups_whole():
         chunk_ranges(4, 2, np.array([0, 1, 0, 1]))
 
 
-def test_drift_results_do_not_depend_on_chunking(scenario, tmp_path):
-    # zone-conserving drift normalises per zone and step: chunks must keep zones whole
+def test_wind_transport_results_do_not_depend_on_chunking(scenario, tmp_path):
+    # wind transport conserves each zone's mass hour by hour: chunks must keep zones whole
     from regionmap.demo.scenario import demo_zones
     from regionmap.io.writers import write_geojson
 
     write_geojson(scenario / "two_zones.geojson", demo_zones().iloc[[1, 2]])
-    base = config(scenario, "drift", step=500, start="2026-01-18T01:00")
+    base = config(scenario, "transport", step=500, start="2026-01-18T01:00")
     outs = []
     for size in (1000, 7):
         cfg = base.model_copy(
             update={
                 "region": base.region.model_copy(update={"zones": scenario / "two_zones.geojson"}),
-                "downscale": base.downscale.model_copy(update={"drift": True}),
                 "run": base.run.model_copy(update={"chunk_size": size}),
             }
         )

@@ -101,10 +101,11 @@ DEMO_EVENTS = [
         "start": "2025-12-21T12:00",
         "end": "2025-12-23T18:00",
         "t_ref_c": -7.0,
-        "precip_kg_m2_h": 2.5,
+        "precip_kg_m2_h": 2.8,
         "wind_m_s": 7.0,
         "note": "a storm with ordinary wind buries the surface hoar: kept in sheltered terrain, "
-        "blown away where the terrain is exposed",
+        "blown away where the terrain is exposed; enough snow that windward slopes the wind "
+        "scours still hold 50 cm when the rain comes",
     },
     {
         "id": "rain_on_snow",

@@ -66,7 +66,7 @@ class CellBatch:
     cell_id : ndarray (cell,) int64
     elevation_m, slope_deg, aspect_deg, sky_view_frac, lon_deg, lat_deg, area_m2 :
         ndarray (cell,) float64 [m, deg, deg, 1, deg, deg, m2]; aspect NaN for flat cells.
-    zone_code : ndarray (cell,) int64 — zone index, for zone-conserving drift.
+    zone_code : ndarray (cell,) int64 — zone index, for zone-conserving wind transport.
     exposure_class : ndarray (cell,) str — ``sheltered``/``neutral``/``exposed`` (from Sx),
         selects exposure-specific ``[bias]`` entries and quantile-mapping tables.
     sx_deg : ndarray (cell, direction) float64, with ``sx_directions_deg`` (direction,).
@@ -159,7 +159,6 @@ def downscale_record(grid_forcing, settings: DownscaleSettings) -> dict:
         "lapse": settings.lapse,
         "pressure": settings.pressure,
         "precip_elevation": settings.precip_elevation,
-        "drift": settings.drift,
         "phase": settings.phase,
         "freezing_rain_source": _freezing_rain_source(grid_forcing),
         "longwave": (
@@ -223,7 +222,7 @@ def _downscale_block(
     grid_forcing, chunks, settings, corrections, data, z_pts, time, month_idx, cols, out, sx_all
 ):
     """Downscale every cell chunk over the hours ``cols`` (positions in ``time``) from the grid
-    values ``data`` of those hours, into ``out`` (and the drift's Sx into ``sx_all``)."""
+    values ``data`` of those hours, into ``out`` (and Sx at the hour's wind into ``sx_all``)."""
     for sel, chunk, carry in chunks:
         res = _chunk_block(
             grid_forcing,
@@ -238,8 +237,7 @@ def _downscale_block(
         )
         for name in out:
             out[name][sel, cols] = res[name]
-        if sx_all is not None:
-            sx_all[sel, cols] = res["_sx_now"]
+        sx_all[sel, cols] = res["_sx_now"]
 
 
 def _n_levels(grid_forcing) -> int:
@@ -293,9 +291,7 @@ def _chunk_block(gf, batch: CellBatch, settings, corrections, data, z_pts, time,
         np.degrees(np.arctan2(w @ (spd * np.sin(wdir)), w @ (spd * np.cos(wdir)))), 360.0
     )
     factor = np.ones_like(speed)
-    sx_now = None
-    if settings.wind == "winstral" or settings.drift:
-        sx_now = _wind.sx_at_direction(batch.sx_deg, batch.sx_directions_deg, wdir_c)
+    sx_now = _wind.sx_at_direction(batch.sx_deg, batch.sx_directions_deg, wdir_c)
     if settings.wind == "winstral":
         factor = factor * _wind.wind_factor_winstral_sx(
             sx_now, coef_per_deg=settings.wind_sx_coef_per_deg, bounds=settings.wind_factor_bounds
@@ -489,9 +485,8 @@ def downscale_cells(
     Returns
     -------
     CellForcing
-        (cell, time) series in the batch's cell order. With ``drift`` on, precipitation is
-        redistributed so that each zone's area-weighted total over the cells of this batch is
-        kept at every step: pass whole zones.
+        (cell, time) series in the batch's cell order, with ``sx_deg`` (Sx at the hour's
+        wind direction) for wind transport.
     """
     times_all = np.asarray(grid_forcing.time, dtype="datetime64[s]")
     start, stop, step = time_slice.indices(times_all.size)
@@ -505,7 +500,7 @@ def downscale_cells(
     corrections = (bias if bias is not None else BiasSettings(), tuple(quantile_tables))
     n_cell, n_t = cells_subset.n_cells, time.size
     out = {name: np.empty((n_cell, n_t)) for name in _SERIES}
-    sx_all = np.empty((n_cell, n_t)) if settings.drift else None
+    sx_all = np.empty((n_cell, n_t))
 
     names = [
         "air_temperature",
@@ -569,16 +564,6 @@ def downscale_cells(
                 sx_all,
             )
 
-    if settings.drift:
-        zone = np.unique(cells_subset.zone_code, return_inverse=True)[1]
-        out["precip_kg_m2"] = out["precip_kg_m2"] * _precip.drift_factor_exposure(
-            sx_all,
-            out["precip_kg_m2"],
-            zone,
-            cells_subset.area_m2,
-            coef_per_deg=settings.drift_coef_per_deg,
-            bounds=settings.drift_bounds,
-        )
     _apply_bias(out, month_idx, corrections, cells_subset.exposure_class)
     heights = grid_forcing.heights_m
     if not {"wind", "temperature"} <= set(heights):
@@ -593,6 +578,7 @@ def downscale_cells(
         wind_height_m=float(heights["wind"]),
         temp_height_m=float(heights["temperature"]),
         dt_s=3600.0,
+        sx_deg=sx_all,
         **out,
     )
 

@@ -49,9 +49,6 @@ class DownscaleSettings(Settings):
     precip_coefficient_scale : multiplier on chi; default 0.5 because a 2-4 km model
         already resolves much of the orographic enhancement (judgement, tune per model) [1].
     precip_factor_bounds : bounds of the factor itself [1].
-    drift : zone-conserving exposure drift of precipitation; chunks then hold whole zones, so
-        a run's memory grows with its largest zone.
-    drift_coef_per_deg, drift_bounds : raw factor clip(1 + k Sx) [deg-1], [1].
     phase : "jennings2018", "wet_bulb" or "air_temperature" threshold.
     phase_threshold_c, phase_half_width_k : threshold methods' 50 % point [degC] and
         half width of the linear transition [K] (0 = step).
@@ -85,9 +82,6 @@ class DownscaleSettings(Settings):
     precip_chi_per_km: float | None = None
     precip_coefficient_scale: Annotated[float, Field(ge=0, le=1)] = 0.5
     precip_factor_bounds: tuple[float, float] = (0.5, 1.5)
-    drift: bool = False
-    drift_coef_per_deg: float = 0.02
-    drift_bounds: tuple[float, float] = (0.5, 1.5)
     phase: Literal["jennings2018", "wet_bulb", "air_temperature"] = "jennings2018"
     phase_threshold_c: Annotated[float, Field(ge=-3, le=4)] = 1.0
     phase_half_width_k: Annotated[float, Field(ge=0)] = 0.0
@@ -105,6 +99,17 @@ class DownscaleSettings(Settings):
     chunk_cells: Annotated[int, Field(ge=1)] = 1000
     time_block_h: Annotated[int, Field(ge=1)] = 168
 
+    @model_validator(mode="before")
+    @classmethod
+    def _drift_superseded(cls, data):
+        if isinstance(data, dict) and "drift" in data:
+            raise ValueError(
+                "drift is no longer a setting: the snow column's wind transport ([snow] "
+                "wind_transport, on by default) moves snow from exposed to sheltered cells and "
+                "keeps each zone's mass; remove 'drift' from [downscale]"
+            )
+        return data
+
     @model_validator(mode="after")
     def _check_bounds(self):
         lo, hi = self.precip_factor_bounds
@@ -112,7 +117,7 @@ class DownscaleSettings(Settings):
             raise ValueError(
                 f"precip_factor_bounds must satisfy 0 < low <= 1 <= high, got {[lo, hi]}"
             )
-        for name in ("drift_bounds", "wind_factor_bounds", "grid_lapse_bounds_k_per_km"):
+        for name in ("wind_factor_bounds", "grid_lapse_bounds_k_per_km"):
             _bounds(getattr(self, name), name)
         return self
 

@@ -19,6 +19,8 @@ _SERIES = (
     "snow_frac",
     "freezing_rain_frac",
 )
+#: (cell, time) series that may be None
+_OPTIONAL_SERIES = ("sx_deg", "wind_transport_kg_m2")
 
 
 @dataclass
@@ -45,6 +47,13 @@ class CellForcing:
         Start (whole hours since 1970) of the region-wide precipitation window holding each
         hour, 0 outside (:func:`regionmap.downscale.events.region_event_hours`); None: none
         known, each cell's events start their own ids.
+    sx_deg : ndarray (cell, time) float64 or None
+        Maximum upwind slope of the cell at the hour's wind direction, positive = sheltered
+        [deg] (what wind transport needs of the terrain); None when not computed.
+    wind_transport_kg_m2 : ndarray (cell, time) float64 or None
+        Wind transport of each hour decided for the zone
+        (:func:`regionmap.snow.wind_transport.zone_transport`): positive deposited, negative
+        erosion asked of the surface [kg m-2]; None: no transport.
     """
 
     time: np.ndarray
@@ -61,6 +70,8 @@ class CellForcing:
     temp_height_m: float = 2.0
     dt_s: float = 3600.0
     event_hour: np.ndarray | None = None
+    sx_deg: np.ndarray | None = None
+    wind_transport_kg_m2: np.ndarray | None = None
 
     def __post_init__(self) -> None:
         self.time = np.asarray(self.time, dtype="datetime64[s]")
@@ -75,7 +86,15 @@ class CellForcing:
                 f"CellForcing event_hour must be (time,) = ({self.time.size},), "
                 f"got {self.event_hour.shape}"
             )
+        for name in _OPTIONAL_SERIES:
+            if getattr(self, name) is not None:
+                setattr(self, name, np.ascontiguousarray(getattr(self, name), dtype=np.float64))
         bad = [n for n in _SERIES if getattr(self, n).shape != shape]
+        bad += [
+            n
+            for n in _OPTIONAL_SERIES
+            if getattr(self, n) is not None and getattr(self, n).shape != shape
+        ]
         if len(shape) != 2 or shape[1] != self.time.size or bad:
             raise ValueError(
                 f"CellForcing arrays must all be (cell, time) = (n, {self.time.size}); "
@@ -97,4 +116,7 @@ class CellForcing:
         kw["event_hour"] = self.event_hour[steps]
         for name in _SERIES:
             kw[name] = getattr(self, name)[cells, steps]
+        for name in _OPTIONAL_SERIES:
+            value = getattr(self, name)
+            kw[name] = None if value is None else value[cells, steps]
         return CellForcing(**kw)

@@ -168,9 +168,30 @@ AMOUNTS: dict[str, tuple[str, dict]] = {
             "long_name": "net sublimation (negative: deposition)",
         },
     ),
+    "wind_deposited_kg_m2": (
+        "f4",
+        {"units": "kg m-2", "long_name": "snow deposited by wind transport"},
+    ),
+    "wind_eroded_kg_m2": (
+        "f4",
+        {"units": "kg m-2", "long_name": "snow eroded by wind transport"},
+    ),
+    "wind_erosion_shortfall_kg_m2": (
+        "f4",
+        {
+            "units": "kg m-2",
+            "long_name": "erosion the zone's transport asked of this cell that its surface "
+            "(wet, crusted or bonded snow) could not give; the zone gained this much",
+        },
+    ),
 }
 
-_FILLS = {"f4": np.float32(np.nan), "f8": np.float64(np.nan), "i1": _FILL_I8, "i2": _FILL_I16}
+_FILLS = {
+    "f4": np.float32(np.nan),
+    "f8": np.float64(np.nan),
+    "i1": _FILL_I8,
+    "i2": _FILL_I16,
+}
 #: cells per HDF5 chunk of cells.nc (~256 cells x 744 h) and of profiles.nc
 CELLS_CHUNK_CELLS = 256
 PROFILES_CHUNK_CELLS = 64

@@ -97,11 +97,8 @@ def write_cell_forcing(
             },
         )
         try:
-            groups = (
-                batch.zone_code if cfg.downscale.drift else None
-            )  # drift: whole zones per chunk
             for lo, hi in tqdm(
-                chunk_ranges(batch.n_cells, cfg.run.chunk_size, groups),
+                chunk_ranges(batch.n_cells, cfg.run.chunk_size),
                 desc="cell chunks",
                 unit="chunk",
                 disable=not progress,

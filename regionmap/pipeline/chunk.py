@@ -156,6 +156,7 @@ def simulate_chunk(
             with_snapshots=with_snapshots,
             threads=ctx.kernel_threads,
             kept=kept,
+            zones=(batch.zone_code, batch.area_m2),
         )
         diags.append(d)
         snaps.append(s)
@@ -171,17 +172,39 @@ def simulate_chunk(
         "snowfall_kg_m2": float((forcing.precip_kg_m2 * forcing.snow_frac).sum()),
         "freezing_rain_kg_m2": float((forcing.precip_kg_m2 * forcing.freezing_rain_frac).sum()),
     }
+    diagnostics = _concat_parts(diags)
     return {
         "lo": lo,
         "hi": hi,
-        "diagnostics": _concat_parts(diags),
+        "diagnostics": diagnostics,
         "snapshots": _concat_parts(snaps) if with_snapshots else None,
         "state_analysis": state_an,
         "state_end": state_end,
         "forcing_summary": summary,
+        "wind_transport_kg": _wind_transport_kg(diagnostics, batch),
         "restart_records": records,
         "seconds": {"downscale": t_down, "column": t_col},
     }
+
+
+#: cells.nc amounts of the wind-transport budget, by the budget's names
+_TRANSPORT_AMOUNTS = {
+    "eroded": "wind_eroded_kg_m2",
+    "deposited": "wind_deposited_kg_m2",
+    "shortfall": "wind_erosion_shortfall_kg_m2",
+}
+
+
+def _wind_transport_kg(diagnostics: dict, batch) -> dict:
+    """{zone code: {eroded, deposited, shortfall}} of a chunk's cells over its hours [kg]."""
+    out = {}
+    for code in np.unique(batch.zone_code):
+        mine = batch.zone_code == code
+        out[int(code)] = {
+            key: float(diagnostics[name][mine].sum(axis=1) @ batch.area_m2[mine])
+            for key, name in _TRANSPORT_AMOUNTS.items()
+        }
+    return out
 
 
 def align_state(

@@ -149,7 +149,7 @@ def _member_presence(
         )
     lo_z, hi_z = z[control].min() - _ENSEMBLE_MARGIN_M, z[control].max() + _ENSEMBLE_MARGIN_M
     cells = np.nonzero((z >= lo_z) & (z <= hi_z))[0]
-    if ctx.cfg.downscale.drift:  # drift is normalised per zone: re-simulate whole zones
+    if ctx.cfg.snow.wind_transport:  # transport moves snow within zones: re-simulate whole zones
         zone = ctx.batch.zone_code
         cells = np.nonzero(np.isin(zone, zone[cells]))[0]
     p = ctx.period
@@ -165,9 +165,7 @@ def _member_presence(
     members = np.repeat(control[None, :], len(ENSEMBLE_MEMBERS), axis=0)
     formed = (first_ev - np.timedelta64(3600, "s"), last_ev + np.timedelta64(_AFTER_H * 3600, "s"))
     resume = start
-    groups = (
-        ctx.batch.zone_code[cells] if ctx.cfg.downscale.drift else None
-    )  # drift: whole zones per block
+    groups = ctx.batch.zone_code[cells] if ctx.cfg.snow.wind_transport else None
     # blocks side by side, one per core (the kernel and most of the downscaling release the GIL)
     n_threads = os.cpu_count() or 1
     blocks = chunk_ranges(
@@ -209,6 +207,7 @@ def _block_presence(
     p = ctx.period
     gf = forcing_for(ctx)
     batch = ctx.batch.subset(cells)
+    zones = (batch.zone_code, batch.area_m2)
     # the control state at the start of the window, for these cells only: stepped on from
     # the latest state the run saved before it (or from the run's start state)
     if ctx.checkpoints is None:
@@ -221,7 +220,13 @@ def _block_presence(
     if start > resume:  # one diagnostics interval: only the state is wanted
         spin = downscale_forcing(ctx, gf, batch, slice(resume, start))
         state, _, _ = run_columns(
-            state, spin, ctx.cfg.snow, start - resume, with_snapshots=False, threads=1
+            state,
+            spin,
+            ctx.cfg.snow,
+            start - resume,
+            with_snapshots=False,
+            threads=1,
+            zones=zones,
         )
     window = downscale_forcing(ctx, gf, batch, slice(start, stop))
     presence = np.zeros((len(ENSEMBLE_MEMBERS), cells.size), bool)
@@ -231,7 +236,9 @@ def _block_presence(
     for m, (dt_k, dphase_k) in enumerate(ENSEMBLE_MEMBERS):
         f = perturbed_forcing(window, dt_k, dphase_k, ctx.cfg.downscale)
         share[m] = forcing_rain_share(f.precip_kg_m2[:, in_event], f.snow_frac[:, in_event])
-        _, _, snaps = run_columns(state, f, ctx.cfg.snow, stop - start, None, threads=1)
+        _, _, snaps = run_columns(
+            state, f, ctx.cfg.snow, stop - start, None, threads=1, zones=zones
+        )
         ds = (
             snapshots_to_dataset(snaps, batch.cell_id)
             .swap_dims({"day": "time"})

@@ -51,7 +51,7 @@ from regionmap.pipeline.restart import resolve_restarts
 from regionmap.products.summaries import observation_times
 from regionmap.products.write import write_products
 from regionmap.snow.codes import CRUST_KINDS, GRAIN_CODES
-from regionmap.snow.column import run_columns
+from regionmap.snow.column import WIND_PACKED_ATTRS, run_columns
 from regionmap.snow.state import SnowState, load_state_with_identity
 from regionmap.stations.chain import run_verification_last_day
 
@@ -99,6 +99,7 @@ LAYER_VARS = {
             "start as whole hours since 1970-01-01 UTC",
         },
     ),
+    "wind_packed": ("i1", WIND_PACKED_ATTRS),
 }
 
 #: The chunk tasks' saved control states, inside the run's temporary output folder.
@@ -247,7 +248,8 @@ def _effective_chunk_size(n_cells: int, chunk_size: int, n_parallel: int) -> int
 
 
 def _warm_kernels(params) -> None:
-    """Compile (or load from the numba cache) the column kernel once in the client."""
+    """Compile (or load from the numba cache) the column kernel and the zone's wind transport
+    once in the client."""
     n = 2
     t = np.datetime64("2000-01-01T01:00", "s") + np.arange(n) * np.timedelta64(3600, "s")
     z = np.zeros((1, n))
@@ -262,6 +264,7 @@ def _warm_kernels(params) -> None:
         precip_kg_m2=z + 1,
         snow_frac=z + 1,
         freezing_rain_frac=z,
+        sx_deg=z,
     )
     run_columns(
         SnowState.empty(1, params.max_layers, time=t[0] - np.timedelta64(3600, "s")),
@@ -269,6 +272,7 @@ def _warm_kernels(params) -> None:
         params,
         1,
         threads=1,
+        zones=(np.zeros(1, dtype=np.int64), np.ones(1)),
     )
 
 
@@ -450,7 +454,7 @@ def _plan_run(
     chunks = chunk_ranges(
         batch.n_cells,
         _effective_chunk_size(batch.n_cells, cfg.run.chunk_size, n_par),
-        batch.zone_code if cfg.downscale.drift else None,  # drift: whole zones per chunk
+        batch.zone_code if cfg.snow.wind_transport else None,  # transport: whole zones
     )
     # workers of a remote cluster cannot write into this machine's folders: there the
     # ensemble steps its cells from the run's start state instead
@@ -640,6 +644,7 @@ def _profile_fields(snaps: dict) -> dict:
             "deposition_time",
             "formation_time",
             "event_id",
+            "wind_packed",
         )
     }
     for name, table, codes in (

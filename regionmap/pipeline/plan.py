@@ -104,8 +104,8 @@ def chunk_ranges(
 
     With ``groups`` (cell,) — e.g. the zone of each cell, each group one contiguous run — a
     range never splits a group: whole groups are packed up to ``chunk_size`` cells (a larger
-    group is a range of its own). Zone-conserving drift needs this, so that its per-zone
-    normalisation, and with it every result, does not depend on the chunk size.
+    group is a range of its own). Wind transport needs this: it conserves each zone's mass
+    between the zone's cells, so every result then does not depend on the chunk size.
     """
     size = max(int(chunk_size), 1)
     if groups is None:

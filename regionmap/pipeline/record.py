@@ -22,7 +22,7 @@ from regionmap.io.writers import write_csv
 from regionmap.pipeline.cache import file_sha256
 from regionmap.pipeline.restart import merge_restart_records
 
-__all__ = ["RunTotals", "write_event_log", "event_log", "run_record"]
+__all__ = ["RunTotals", "write_event_log", "event_log", "run_record", "wind_transport_record"]
 
 #: Libraries whose versions the run record names.
 _VERSIONS = (
@@ -57,6 +57,8 @@ class RunTotals:
     task_seconds: dict = field(default_factory=lambda: {"downscale": 0.0, "column": 0.0})
     status_bits: int = 0
     restart_records: list = field(default_factory=list)
+    #: {zone code: {eroded, deposited, shortfall}} wind transport [kg]
+    wind_transport_kg: dict = field(default_factory=dict)
 
     def add(self, result: dict) -> None:
         """Add one chunk task's result (:func:`regionmap.pipeline.chunk.simulate_chunk`)."""
@@ -67,6 +69,10 @@ class RunTotals:
             self.task_seconds[k] += result["seconds"][k]
         self.status_bits |= int(np.bitwise_or.reduce(result["diagnostics"]["status"]))
         self.restart_records += result["restart_records"]
+        for code, amounts in result["wind_transport_kg"].items():
+            mine = self.wind_transport_kg.setdefault(code, dict.fromkeys(amounts, 0.0))
+            for key, kg in amounts.items():
+                mine[key] += kg
 
 
 def _chunk_events(diag: dict, lo: int) -> dict:
@@ -120,6 +126,31 @@ def _versions() -> dict:
         with contextlib.suppress(metadata.PackageNotFoundError):
             out[name] = metadata.version(name)
     return out
+
+
+def wind_transport_record(kg_by_zone: dict, zone_names, on: bool) -> dict:
+    """run.json's ``wind_transport``: per zone (``kg_by_zone`` keyed by the zone's position in
+    ``zone_names``) eroded, deposited, residual (deposited - eroded: the mass the zone
+    gained) and the shortfall that explains it [t]."""
+    zones = {}
+    for code, kg in sorted(kg_by_zone.items()):
+        zones[str(zone_names[code])] = {
+            "eroded_t": round(kg["eroded"] / 1000.0, 3),
+            "deposited_t": round(kg["deposited"] / 1000.0, 3),
+            "residual_t": round((kg["deposited"] - kg["eroded"]) / 1000.0, 3),
+            "shortfall_t": round(kg["shortfall"] / 1000.0, 3),
+        }
+    return {
+        "on": bool(on),
+        "model": "saltation (Pomeroy & Gray 1990) above the dry-snow threshold of Li & "
+        "Pomeroy (1997), from the exposed to the sheltered cells of each zone by the maximum "
+        "upwind slope at the hour's wind; no suspension, no blowing-snow sublimation, no "
+        "transport between zones",
+        "residual": "each hour a zone deposits what its exposed cells are asked to give; "
+        "residual_t is the mass the zone gained where a cell's surface (wet, crusted or "
+        "bonded snow) gave less than asked (shortfall_t)",
+        "zones": zones,
+    }
 
 
 def run_record(
@@ -193,6 +224,9 @@ def run_record(
         "events": event_log(totals.events),
         "restarts": merge_restart_records(totals.restart_records),
         "rain_crust_ensemble": ensemble_cost,
+        "wind_transport": wind_transport_record(
+            totals.wind_transport_kg, pd.unique(region.cells.table["zone"]), params.wind_transport
+        ),
         "settings_fingerprint": hashlib.sha256(settings_text.encode()).hexdigest()[:16],
         "snow_fingerprint": params.fingerprint(),
         "scheduler": scheduler,

@@ -53,6 +53,7 @@ from regionmap.snow.crusts import FLAG_WAS_WET, FLAG_WET_MELT
 from regionmap.snow.diagnostics import layer_hardness_array
 from regionmap.snow.params import SnowParams
 from regionmap.snow.state import SnowState
+from regionmap.snow.wind_transport import erodible_mass_of_columns
 
 __all__ = [
     "Restart",
@@ -466,6 +467,17 @@ def apply_restart(state: SnowState, positions, restart: Restart, params: SnowPar
         hours_since_rain=_NO_EVENT_GAP_H,
         hours_since_freezing_rain=_NO_EVENT_GAP_H,
     )
+    # the wind transport's erodible snow: the dry, uncrusted snow at the observed top
+    new.set_cell_values(
+        pos,
+        wind_erodible_kg_m2=erodible_mass_of_columns(
+            new.liquid_kg_m2[pos],
+            new.ice_kg_m2[pos],
+            new.crust_code[pos],
+            new.grain_code[pos],
+            new.layer_count[pos],
+        ),
+    )
     new.new_snow_kg_m2[pos] = 0.0
     new.new_snow_m[pos] = 0.0
     swe_after = new.swe_kg_m2()[pos]
@@ -551,6 +563,7 @@ def run_columns_with_restarts(
     with_snapshots: bool = True,
     threads: int = 2,
     kept: dict | None = None,
+    zones: tuple[np.ndarray, np.ndarray] | None = None,
 ):
     """:func:`regionmap.snow.column.run_columns` over one part of the period, split at restarts
     (and at the times of ``kept``).
@@ -565,8 +578,9 @@ def run_columns_with_restarts(
         From :func:`restarts_in_chunk`. A restart is applied here when its time lies in
         [``state.time``, ``forcing.time[-1]``): to the state valid at that time, before the
         next step (so a restart at the boundary of two parts belongs to the later part).
-    params, diag_every_h, snapshot_hour_utc, with_snapshots, threads
-        As for ``run_columns``.
+    params, diag_every_h, snapshot_hour_utc, with_snapshots, threads, zones
+        As for ``run_columns`` (wind transport starts again from the column's erodible snow
+        at every split).
     kept : dict or None
         {valid time (datetime64[s]): anything}; each time inside this part (from the
         state's time to before the last step's) becomes a split point and its value is
@@ -627,6 +641,7 @@ def run_columns_with_restarts(
             snapshot_hour_utc,
             with_snapshots=with_snapshots,
             threads=threads,
+            zones=zones,
         )
         diags.append(d)
         snaps.append(s)

@@ -35,6 +35,9 @@ from regionmap.snow.kernel import (
     A_RUNOFF,
     A_SNOW,
     A_SUBL,
+    A_WIND_IN,
+    A_WIND_OUT,
+    A_WIND_SHORT,
     EV_FREEZING_RAIN,
     EV_RAIN_ON_SNOW,
     J_FZ_EV,
@@ -87,7 +90,8 @@ from regionmap.snow.vecmath import padded_count
 
 # diagnostics rows: float64 (mass budget) and float32 (the rest)
 D64_SWE, D64_SNOW, D64_RAIN, D64_RUNOFF, D64_SUBL, D64_DEPO, D64_MASS_RES = range(7)
-N_D64 = 7
+D64_WIND_IN, D64_WIND_OUT, D64_WIND_SHORT = 7, 8, 9  # wind transport
+N_D64 = 10
 (
     D32_DEPTH_CM,
     D32_HN24_CM,
@@ -119,8 +123,8 @@ N_D32 = 25
 # snapshot rows
 SF_THICK, SF_ICE, SF_LIQ, SF_TEMP, SF_GRAIN, SF_HARD = range(6)
 N_SF = 6
-SI_CODE, SI_CRUST, SI_DEP, SI_FORM, SI_EVENT = range(5)
-N_SI_SNAP = 5
+SI_CODE, SI_CRUST, SI_DEP, SI_FORM, SI_EVENT, SI_FLAGS = range(6)
+N_SI_SNAP = 6
 
 
 @njit(cache=True, nogil=True, error_model="numpy")
@@ -212,6 +216,7 @@ def _step_weather(forcing, c, s, epoch_s):
     precip = forcing.precip_kg_m2[c, s]
     sf = forcing.snow_frac[c, s]
     fzf = forcing.freezing_rain_frac[c, s]
+    transport = forcing.wind_transport_kg_m2[c, s]
     ok = (
         math.isfinite(ta)
         and math.isfinite(rh)
@@ -222,6 +227,7 @@ def _step_weather(forcing, c, s, epoch_s):
         and math.isfinite(precip)
         and math.isfinite(sf)
         and math.isfinite(fzf)
+        and math.isfinite(transport)
     )
     met = StepWeather(
         ta,
@@ -233,6 +239,7 @@ def _step_weather(forcing, c, s, epoch_s):
         max(precip, 0.0),
         min(max(sf, 0.0), 1.0),
         min(max(fzf, 0.0), 1.0),
+        transport,
         forcing.time_s[s] - epoch_s,
         forcing.time_s[s] // 3600,
         forcing.event_hour[s],
@@ -261,6 +268,9 @@ def _write_diagnostics(col, c, o, hour_abs, hard, struct, sums, every_steps, p, 
     d64[D64_SUBL, c, o] = sums[A_SUBL]
     d64[D64_DEPO, c, o] = sums[A_DEPO]
     d64[D64_MASS_RES, c, o] = sums[A_MASS_RES]
+    d64[D64_WIND_IN, c, o] = sums[A_WIND_IN]
+    d64[D64_WIND_OUT, c, o] = sums[A_WIND_OUT]
+    d64[D64_WIND_SHORT, c, o] = sums[A_WIND_SHORT]
     h24m = 0.0
     h24d = 0.0
     h72m = 0.0
@@ -325,6 +335,7 @@ def _write_snapshot(col, cap, hard, c, day, snapshots):
         si_out[SI_DEP, c, day, i] = iw[I_DEP, i] if act else 0
         si_out[SI_FORM, c, day, i] = iw[I_FORM, i] if act else 0
         si_out[SI_EVENT, c, day, i] = iw[I_EVENT, i] if act else 0
+        si_out[SI_FLAGS, c, day, i] = iw[I_FLAGS, i] if act else 0
 
 
 @njit(cache=True, nogil=True, error_model="numpy")

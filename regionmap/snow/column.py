@@ -29,11 +29,25 @@ from regionmap.snow.containers import (
     Snapshots,
     StateArrays,
 )
-from regionmap.snow.kernel import EV_FREEZING_RAIN, EV_RAIN_ON_SNOW, ST_EVENT_OVERFLOW
+from regionmap.snow.kernel import (
+    EV_FREEZING_RAIN,
+    EV_RAIN_ON_SNOW,
+    ST_EVENT_OVERFLOW,
+    V_WIND_ERODIBLE,
+)
+from regionmap.snow.layering import FLAG_WIND_PACKED
 from regionmap.snow.params import SnowParams
 from regionmap.snow.state import SnowState
+from regionmap.snow.wind_transport import zone_transport
 
-__all__ = ["run_columns", "snapshots_to_dataset", "DIAGNOSTICS_64", "DIAGNOSTICS_32", "EVENT_KINDS"]
+__all__ = [
+    "run_columns",
+    "wind_transport_of",
+    "snapshots_to_dataset",
+    "DIAGNOSTICS_64",
+    "DIAGNOSTICS_32",
+    "EVENT_KINDS",
+]
 
 #: cells.nc names of the float64 diagnostics (mass budget), by row of
 #: :attr:`Diagnostics.d64 <regionmap.snow.containers.Diagnostics.d64>`
@@ -45,6 +59,9 @@ DIAGNOSTICS_64 = {
     "sublimation_kg_m2": B.D64_SUBL,
     "deposition_kg_m2": B.D64_DEPO,
     "mass_residual_kg_m2": B.D64_MASS_RES,
+    "wind_deposited_kg_m2": B.D64_WIND_IN,
+    "wind_eroded_kg_m2": B.D64_WIND_OUT,
+    "wind_erosion_shortfall_kg_m2": B.D64_WIND_SHORT,
 }
 #: float32 diagnostics: name -> (row, dtype of the returned array)
 DIAGNOSTICS_32 = {
@@ -75,6 +92,15 @@ DIAGNOSTICS_32 = {
     "surface_hoar_size_mm": (B.D32_SH_MM, np.float32),
 }
 EVENT_KINDS = {EV_RAIN_ON_SNOW: "rain-on-snow", EV_FREEZING_RAIN: "freezing-rain"}
+#: ``wind_packed`` of an unused layer slot (profiles.nc ``_FillValue``, the int8 fill)
+WIND_PACKED_FILL = -127
+#: CF attributes of profiles.nc ``wind_packed``
+WIND_PACKED_ATTRS = {
+    "units": "1",
+    "long_name": "layer deposited by wind transport (wind-packed)",
+    "flag_values": np.array([0, 1], dtype=np.int8),
+    "flag_meanings": "not_wind_deposited wind_deposited",
+}
 
 
 def _check(
@@ -171,6 +197,7 @@ def run_columns(
     with_snapshots: bool = True,
     threads: int = 2,
     block_cells: int = 64,
+    zones: tuple[np.ndarray, np.ndarray] | None = None,
 ):
     """Step every cell of ``state`` through the forcing period.
 
@@ -191,6 +218,10 @@ def run_columns(
         False skips the daily layer snapshots (saves memory on very large batches).
     threads, block_cells : int
         Worker threads and cells per block handed to the compiled driver.
+    zones : (ndarray (cell,) int, ndarray (cell,) float) or None
+        Zone of each cell and its area [m2], for wind transport between the cells of a zone
+        (:func:`wind_transport_of`): all cells of each zone must be present. None: no
+        transport unless the forcing carries it.
 
     Returns
     -------
@@ -216,7 +247,8 @@ def run_columns(
         ``time`` (day,) and, on (cell, day, layer): ``thickness_m``, ``ice_kg_m2``,
         ``liquid_kg_m2``, ``temperature_k``, ``grain_size_mm``, ``hardness_index``
         (float32, NaN where unused), ``grain_code``, ``crust_code`` (int8),
-        ``deposition_time``, ``formation_time`` (int64 s since 1970), ``event_id``;
+        ``deposition_time``, ``formation_time`` (int64 s since 1970), ``event_id``,
+        ``wind_packed`` (int8: 1 deposited by wind transport, 0 not, -127 unused slot);
         ``layer_count`` (cell, day). :func:`snapshots_to_dataset` makes profiles.nc of it.
     """
     params = SnowParams() if params is None else params
@@ -230,7 +262,8 @@ def run_columns(
     diag_every = int(diag_every_h)
     new = state.copy()
     n_cells, n_steps, cap = state.n_cells, forcing.n_steps, state.max_layers
-    kernel_forcing = ForcingArrays.from_forcing(forcing)
+    transport, erodible_end = wind_transport_of(state, forcing, params, zones)
+    kernel_forcing = ForcingArrays.from_forcing(forcing, transport)
     snap_day = _snapshot_day_of_step(kernel_forcing.time_s, snapshot_hour_utc, with_snapshots)
     diagnostics_out = Diagnostics(
         diag_every,
@@ -264,6 +297,8 @@ def run_columns(
             work(b)
     new.time = forcing.time[-1].astype("datetime64[s]")
     new.fingerprint = params.fingerprint()
+    if erodible_end is not None:
+        new.surface[:, V_WIND_ERODIBLE] = erodible_end
     if np.any(status & ST_EVENT_OVERFLOW):
         warn("run_columns: the event log overflowed for some cells; later events are missing")
     diagnostics = _diagnostics_dict(forcing.time, diagnostics_out, events, status)
@@ -335,7 +370,53 @@ def _snapshots_dict(time, out: Snapshots) -> dict:
     for name, row in (("deposition_time", B.SI_DEP), ("formation_time", B.SI_FORM)):
         snapshots[name] = np.where(used, si_out[row].astype(np.int64) + EPOCH_2000_S, -1)
     snapshots["event_id"] = si_out[B.SI_EVENT]
+    snapshots["wind_packed"] = np.where(
+        used, (si_out[B.SI_FLAGS] & FLAG_WIND_PACKED) != 0, WIND_PACKED_FILL
+    ).astype(np.int8)
     return snapshots
+
+
+def wind_transport_of(
+    state: SnowState,
+    forcing: CellForcing,
+    params: SnowParams,
+    zones: tuple[np.ndarray, np.ndarray] | None,
+) -> tuple[np.ndarray, np.ndarray | None]:
+    """Wind transport of every cell and hour [kg m-2] (positive deposited, negative erosion
+    asked of the surface) and the erodible snow after it [kg m-2].
+
+    The forcing's own transport when it carries one; else decided per zone by
+    :func:`regionmap.snow.wind_transport.zone_transport` from the forcing and the erodible
+    snow the state carries (``surface[:, V_WIND_ERODIBLE]``, so a run split anywhere gives
+    the same transport); zeros when transport is off, without zones or without Sx in the
+    forcing. The erodible snow is None when the transport was not decided here.
+    """
+    if forcing.wind_transport_kg_m2 is not None:
+        return forcing.wind_transport_kg_m2, None
+    out = np.zeros_like(forcing.precip_kg_m2)
+    if not params.wind_transport or zones is None or forcing.sx_deg is None:
+        return out, None
+    zone_code, area_m2 = zones
+    zone = np.unique(np.asarray(zone_code), return_inverse=True)[1].astype(np.int64)
+    snowfall = forcing.precip_kg_m2 * forcing.snow_frac
+    erodible_end = zone_transport(
+        zone,
+        np.ascontiguousarray(area_m2, dtype=np.float64),
+        forcing.sx_deg,
+        forcing.wind_m_s,
+        forcing.t_air_k,
+        forcing.pressure_pa,
+        snowfall,
+        forcing.precip_kg_m2 - snowfall,
+        np.ascontiguousarray(state.surface[:, V_WIND_ERODIBLE]),
+        float(forcing.wind_height_m),
+        params.roughness_m,
+        params.transport_fetch_m,
+        params.transport_neutral_sx_deg,
+        float(forcing.dt_s),
+        out,
+    )
+    return out, erodible_end
 
 
 def snapshots_to_dataset(snapshots: dict, cell_id: np.ndarray) -> xr.Dataset:
@@ -376,5 +457,7 @@ def snapshots_to_dataset(snapshots: dict, cell_id: np.ndarray) -> xr.Dataset:
         snapshots["event_id"],
         {"long_name": "start of the forming event, whole hours since 1970-01-01T00Z"},
     )
+    ds["wind_packed"] = (dims, snapshots["wind_packed"], dict(WIND_PACKED_ATTRS))
+    ds["wind_packed"].encoding["_FillValue"] = np.int8(WIND_PACKED_FILL)
     ds.attrs["layer_order"] = "bottom first"
     return ds

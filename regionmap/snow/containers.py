@@ -40,13 +40,16 @@ class ForcingArrays(NamedTuple):
     precip_kg_m2: np.ndarray
     snow_frac: np.ndarray
     freezing_rain_frac: np.ndarray
+    #: wind transport of each hour [kg m-2], positive deposited (``column.wind_transport_of``)
+    wind_transport_kg_m2: np.ndarray
     dt_s: float  #: step length [s]
     wind_height_m: float  #: height of the wind above the surface [m]
     temp_height_m: float  #: height of temperature and humidity above the surface [m]
 
     @classmethod
-    def from_forcing(cls, forcing) -> ForcingArrays:
-        """The kernel's view of a :class:`~regionmap.downscale.types.CellForcing`."""
+    def from_forcing(cls, forcing, wind_transport_kg_m2) -> ForcingArrays:
+        """The kernel's view of a :class:`~regionmap.downscale.types.CellForcing` and the
+        wind transport decided for it."""
         return cls(
             time_s=forcing.time.astype("datetime64[s]").astype(np.int64),
             event_hour=forcing.event_hour,
@@ -59,6 +62,7 @@ class ForcingArrays(NamedTuple):
             precip_kg_m2=forcing.precip_kg_m2,
             snow_frac=forcing.snow_frac,
             freezing_rain_frac=forcing.freezing_rain_frac,
+            wind_transport_kg_m2=wind_transport_kg_m2,
             dt_s=float(forcing.dt_s),
             wind_height_m=float(forcing.wind_height_m),
             temp_height_m=float(forcing.temp_height_m),
@@ -145,6 +149,7 @@ class StepWeather(NamedTuple):
     precip_kg_m2: float  #: >= 0
     snow_frac: float  #: 0..1
     freezing_rain_frac: float  #: 0..1
+    wind_transport_kg_m2: float  #: positive deposited, negative erosion asked [kg m-2]
     now_s2000: int  #: interval end [s since 2000]
     hour_abs: int  #: interval end [whole hours since 1970]
     event_hour: int  #: region-wide event start [h since 1970], 0 none

@@ -54,6 +54,7 @@ from regionmap.snow.layering import (
     F_LIQ,
     F_TEMP,
     F_THICK,
+    FLAG_WIND_PACKED,
     I_CODE,
     I_CRUST,
     I_DEP,
@@ -127,6 +128,8 @@ from regionmap.snow.params import (
     P_STABLE_FLOOR_FRAC,
     P_SW_SURFACE_FRAC,
     P_WIND_MIN_M_S,
+    P_WIND_PACKED_DENSITY_KG_M3,
+    P_WIND_PACKED_GRAIN_MM,
     SOIL_THICKNESS_M,
 )
 from regionmap.snow.radiation import albedo_douville1995, penetration_fraction
@@ -146,12 +149,16 @@ from regionmap.snow.surface_hoar import (
 )
 from regionmap.snow.vecmath import padded_count
 from regionmap.snow.water import is_flow_barrier, layer_enthalpy, percolate_column, resolve_phase
+from regionmap.snow.wind_transport import erodible_layer
 
 # per-cell surface state vector (float64)
 V_ALBEDO, V_TSURF, V_SH_MASS, V_SNOW_AGE_H, V_SNOW_GAP_H, V_RAIN_GAP_H, V_FZ_GAP_H = range(7)
 # rain and all precipitation since the current rain event began [kg m-2]
 V_RAIN_EV_KG_M2, V_RAIN_EV_PRECIP_KG_M2 = 7, 8
-V_SOIL = 9  # soil temperatures V_SOIL .. V_SOIL + N_SOIL - 1, deepest first
+# erodible snow of the wind-transport bucket [kg m-2]: kept by run_columns for the zone's
+# transport (regionmap.snow.wind_transport.zone_transport), carried but not used by the kernel
+V_WIND_ERODIBLE = 9
+V_SOIL = 10  # soil temperatures V_SOIL .. V_SOIL + N_SOIL - 1, deepest first
 N_SV = V_SOIL + N_SOIL
 # per-cell integer state vector
 J_N, J_SNOW_EV, J_RAIN_EV, J_FZ_EV, J_SH_START = range(5)
@@ -160,7 +167,9 @@ RING_H = 72  # hours of new-snow history
 
 # accumulated fluxes of one step (float64)
 A_SNOW, A_RAIN, A_RUNOFF, A_SUBL, A_DEPO, A_MASS_RES, A_ENERGY_RES, A_RAIN_ON_SNOW, A_FZ = range(9)
-N_ACC = 9
+# wind transport: deposited, eroded, and the erosion asked for that the surface could not give
+A_WIND_IN, A_WIND_OUT, A_WIND_SHORT = 9, 10, 11
+N_ACC = 12
 
 # status bits
 ST_LAYER_FULL = 1  # no room for a new layer: snow added to the top layer instead
@@ -172,7 +181,9 @@ EV_RAIN_ON_SNOW, EV_FREEZING_RAIN = 1, 2
 
 _SOIL_DZ = np.array(SOIL_THICKNESS_M, dtype=np.float64)
 #: grain indices of the classification table (module-level ints: constants to the compiled code)
-_PP, _SH, _DH, _MF, _MFCR, _IF = (GRAIN_INDEX[c] for c in ("PP", "SH", "DH", "MF", "MFcr", "IF"))
+_PP, _RG, _SH, _DH, _MF, _MFCR, _IF = (
+    GRAIN_INDEX[c] for c in ("PP", "RG", "SH", "DH", "MF", "MFcr", "IF")
+)
 
 
 @njit(cache=True, nogil=True, error_model="numpy")
@@ -253,10 +264,12 @@ def _make_room(fw, iw, n, now_s, p, cap):
 
 
 @njit(cache=True, nogil=True, error_model="numpy")
-def _add_snowfall(fw, iw, n, mass, t_air, wind, now_s, event, p, cap):
-    """New snow: fills the top PP layer of the same event up to the new-layer thickness, then
-    opens new thin layers. Returns (n, status)."""
-    rho = new_snow_density(int(p[P_NEW_SNOW_DENSITY_MODEL]), t_air, wind)
+def _add_snow(fw, iw, n, mass, rho, t_air, now_s, event, p, cap, code, grain_mm, dend, flag):
+    """New snow of density ``rho`` [kg m-3], class ``code``, grain size, dendricity and
+    layer ``flag``: fills the top layer of the same kind and event up to the new-layer
+    thickness, then opens new thin layers. Snowfall is PP (dendricity 1, no flag); snow
+    the wind deposits is rounded, broken grains flagged ``FLAG_WIND_PACKED``.
+    Returns (n, status)."""
     t_snow = min(t_air, T_MELT_K)
     max_dz = p[P_NEW_LAYER_MAX_M]
     status = 0
@@ -265,7 +278,8 @@ def _add_snowfall(fw, iw, n, mass, t_air, wind, now_s, event, p, cap):
         top = n - 1
         if (
             n > 0
-            and iw[I_CODE, top] == _PP
+            and iw[I_CODE, top] == code
+            and (iw[I_FLAGS, top] & FLAG_WIND_PACKED) == flag
             and iw[I_EVENT, top] == event
             and fw[F_THICK, top] < max_dz * 0.999
             and fw[F_LIQ, top] == 0.0
@@ -275,10 +289,12 @@ def _add_snowfall(fw, iw, n, mass, t_air, wind, now_s, event, p, cap):
             c_old = C_ICE_J_KG_K * fw[F_ICE, top]
             c_add = C_ICE_J_KG_K * add
             fw[F_TEMP, top] = (c_old * fw[F_TEMP, top] + c_add * t_snow) / (c_old + c_add)
-            fw[F_GRAIN, top] = (
-                fw[F_ICE, top] * fw[F_GRAIN, top] + add * p[P_NEW_SNOW_GRAIN_MM]
-            ) / (fw[F_ICE, top] + add)
-            fw[F_DEND, top] = (fw[F_ICE, top] * fw[F_DEND, top] + add) / (fw[F_ICE, top] + add)
+            fw[F_GRAIN, top] = (fw[F_ICE, top] * fw[F_GRAIN, top] + add * grain_mm) / (
+                fw[F_ICE, top] + add
+            )
+            fw[F_DEND, top] = (fw[F_ICE, top] * fw[F_DEND, top] + add * dend) / (
+                fw[F_ICE, top] + add
+            )
             fw[F_FACET, top] = fw[F_ICE, top] * fw[F_FACET, top] / (fw[F_ICE, top] + add)
             fw[F_ICE, top] += add
             fw[F_THICK, top] += add / rho
@@ -298,22 +314,33 @@ def _add_snowfall(fw, iw, n, mass, t_air, wind, now_s, event, p, cap):
         add = min(remaining, max_dz * rho)
         n = insert_top(fw, iw, n)
         _set_layer(
-            fw,
-            iw,
-            n - 1,
-            add / rho,
-            add,
-            t_snow,
-            p[P_NEW_SNOW_GRAIN_MM],
-            1.0,
-            0.0,
-            _PP,
-            0,
-            now_s,
-            event,
+            fw, iw, n - 1, add / rho, add, t_snow, grain_mm, dend, 0.0, code, 0, now_s, event
         )
+        iw[I_FLAGS, n - 1] = flag
         remaining -= add
     return n, status
+
+
+@njit(cache=True, nogil=True, error_model="numpy")
+def _wind_erode(fw, iw, n, request, ustar):
+    """Take up to ``request`` kg m-2 from the top layers the wind can erode
+    (:func:`regionmap.snow.wind_transport.erodible_layer`), stopping at the first it cannot.
+    Returns (n, mass taken)."""
+    taken = 0.0
+    while n > 0 and taken < request:
+        top = n - 1
+        dens = fw[F_ICE, top] / max(fw[F_THICK, top], 1e-9)
+        if not erodible_layer(fw[F_LIQ, top], iw[I_CRUST, top], iw[I_CODE, top], dens, ustar):
+            break
+        take = request - taken
+        if take >= fw[F_ICE, top]:
+            taken += fw[F_ICE, top]
+            n = remove_layer(fw, iw, n, top)
+        else:
+            fw[F_THICK, top] *= 1.0 - take / fw[F_ICE, top]
+            fw[F_ICE, top] -= take
+            taken += take
+    return n, taken
 
 
 @njit(cache=True, nogil=True, error_model="numpy")
@@ -854,7 +881,11 @@ def _step(col, met, p, cap, work):
     met : StepWeather
         The step's forcing and time. An event (snowfall, rain, freezing rain) that starts in
         this step takes the id ``met.event_hour`` (the region-wide window's start, hours since
-        1970) when it is positive, else this hour.
+        1970) when it is positive, else this hour. ``met.wind_transport_kg_m2`` is the hour's
+        wind transport decided for the zone
+        (:func:`regionmap.snow.wind_transport.zone_transport`): positive deposits a
+        wind-packed layer (with the hour's snowfall, which lands in the same wind), negative
+        asks the surface for that much erodible snow.
     p : ndarray (N_PARAMS,) float64
         Settings.
     cap : int
@@ -875,6 +906,7 @@ def _step(col, met, p, cap, work):
     precip = met.precip_kg_m2
     sf = met.snow_frac
     fzf = met.freezing_rain_frac
+    transport = met.wind_transport_kg_m2
     now_s = met.now_s2000
     hour_abs = met.hour_abs
     region_event_hour = met.event_hour
@@ -933,13 +965,83 @@ def _step(col, met, p, cap, work):
         e0 = column_enthalpy(fw, n, sv[V_SH_MASS])
         if sv[V_SH_MASS] > 0.0 and n > 0:
             n = _bury_or_drop_hoar(fw, iw, n, sv, si, ustar, now_s, p, cap)
-        n, st = _add_snowfall(fw, iw, n, snow, ta, wind, now_s, si[J_SNOW_EV], p, cap)
+        rho_new = new_snow_density(int(p[P_NEW_SNOW_DENSITY_MODEL]), ta, wind)
+        if transport > 0.0:
+            # falling and drifting snow land together: their volumes add; the layer is
+            # wind-packed when most of its mass came with the drift
+            rho_mix = (snow + transport) / (
+                snow / rho_new + transport / p[P_WIND_PACKED_DENSITY_KG_M3]
+            )
+            packed = transport >= snow
+            n, st = _add_snow(
+                fw,
+                iw,
+                n,
+                snow + transport,
+                rho_mix,
+                ta,
+                now_s,
+                si[J_SNOW_EV],
+                p,
+                cap,
+                _RG if packed else _PP,
+                p[P_WIND_PACKED_GRAIN_MM] if packed else p[P_NEW_SNOW_GRAIN_MM],
+                0.0 if packed else 1.0,
+                FLAG_WIND_PACKED if packed else 0,
+            )
+            acc[A_WIND_IN] = transport
+            transport = 0.0
+        else:
+            n, st = _add_snow(
+                fw,
+                iw,
+                n,
+                snow,
+                rho_new,
+                ta,
+                now_s,
+                si[J_SNOW_EV],
+                p,
+                cap,
+                _PP,
+                p[P_NEW_SNOW_GRAIN_MM],
+                1.0,
+                0,
+            )
         status |= st
         e_mass += column_enthalpy(fw, n, sv[V_SH_MASS]) - e0
         ring_m[slot] = snow
-        ring_d[slot] = snow / new_snow_density(int(p[P_NEW_SNOW_DENSITY_MODEL]), ta, wind)
+        ring_d[slot] = snow / rho_new
         if snow >= 0.1:
             sv[V_SNOW_AGE_H] = 0.0
+    # wind transport: deposition on sheltered, erosion of what the surface offers on exposed
+    if transport > 0.0:
+        e0 = column_enthalpy(fw, n, sv[V_SH_MASS])
+        n, st = _add_snow(
+            fw,
+            iw,
+            n,
+            transport,
+            p[P_WIND_PACKED_DENSITY_KG_M3],
+            ta,
+            now_s,
+            si[J_SNOW_EV],
+            p,
+            cap,
+            _RG,
+            p[P_WIND_PACKED_GRAIN_MM],
+            0.0,
+            FLAG_WIND_PACKED,
+        )
+        status |= st
+        e_mass += column_enthalpy(fw, n, sv[V_SH_MASS]) - e0
+        acc[A_WIND_IN] = transport
+    elif transport < 0.0:
+        e0 = column_enthalpy(fw, n, sv[V_SH_MASS])
+        n, taken = _wind_erode(fw, iw, n, -transport, ustar)
+        e_mass += column_enthalpy(fw, n, sv[V_SH_MASS]) - e0
+        acc[A_WIND_OUT] = taken
+        acc[A_WIND_SHORT] = -transport - taken
     sv[V_SNOW_AGE_H] += hours
     # freezing rain on a sub-freezing snow surface: glaze
     q_extra = 0.0
@@ -1132,13 +1234,15 @@ def _step(col, met, p, cap, work):
         sv[V_TSURF] = min(ta, T_MELT_K)
     # storage precision: these fields are kept as float32 in the state
     for k in range(N_SV):
-        if k != V_SH_MASS:
+        if k != V_SH_MASS and k != V_WIND_ERODIBLE:
             sv[k] = _f32(sv[k])
     ring_m[slot] = _f32(ring_m[slot])
     ring_d[slot] = _f32(ring_d[slot])
     # closure (in the same pass as the rounding)
     m_after, e_after = _round_and_totals(fw, n, sv[V_SH_MASS])
-    acc[A_MASS_RES] = (m_after - m_before) - (snow + liquid + acc[A_DEPO] - acc[A_SUBL] - runoff)
+    gains = snow + liquid + acc[A_DEPO] + acc[A_WIND_IN]
+    losses = acc[A_SUBL] + runoff + acc[A_WIND_OUT]
+    acc[A_MASS_RES] = (m_after - m_before) - (gains - losses)
     if n > 0 or m_before > 0.0:
         acc[A_ENERGY_RES] = (e_after - e_before - e_mass - e_flux) / dt
     tot[0] = m_after

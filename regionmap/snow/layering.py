@@ -17,6 +17,7 @@ from regionmap.snow.constants import C_ICE_J_KG_K, C_WATER_J_KG_K
 
 __all__ = [
     "F_ROWS",
+    "FLAG_WIND_PACKED",
     "I_ROWS",
     "insert_top",
     "remove_layer",
@@ -32,6 +33,9 @@ I_ROWS = 6
 
 #: grain indices of the classification table (module-level ints: constants to the compiled code)
 _SH, _DH, _MFCR, _IF = (GRAIN_INDEX[c] for c in ("SH", "DH", "MFcr", "IF"))
+
+#: layer flag (``I_FLAGS`` bit): snow deposited by wind transport (a wind-packed layer)
+FLAG_WIND_PACKED = 32
 
 
 @njit(cache=True, nogil=True, error_model="numpy")
@@ -102,7 +106,7 @@ def mergeable(fw, iw, i, now_s, max_thick_m, strict):
     """Whether layers i and i + 1 may merge.
 
     Never when either is a crust, SH, DH, MFcr or IF; otherwise when both have the same
-    class, the same wetness state, grain sizes within 0.25 mm + 20 %, densities within 30 %,
+    class, the same wetness state, both or neither wind-packed, grain sizes within 0.25 mm + 20 %, densities within 30 %,
     and, when ``strict``, deposition times within max(1 day, 20 % of the older layer's age
     at ``now_s``) and a merged thickness within ``max_thick_m``.
     """
@@ -110,6 +114,8 @@ def mergeable(fw, iw, i, now_s, max_thick_m, strict):
     if _protected(fw, iw, i) or _protected(fw, iw, j):
         return False
     if iw[I_CODE, i] != iw[I_CODE, j]:
+        return False
+    if (iw[I_FLAGS, i] & FLAG_WIND_PACKED) != (iw[I_FLAGS, j] & FLAG_WIND_PACKED):
         return False
     if (fw[F_LIQ, i] > 0.0) != (fw[F_LIQ, j] > 0.0):
         return False

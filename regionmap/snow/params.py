@@ -110,6 +110,20 @@ class SnowParams(Settings):
     sh_destroy_sw_w_m2: float = 150.0  #: absorbed shortwave that destroys it (ours)
     sh_density_kg_m3: float = 100.0  #: ours
     sh_min_mass_kg_m2: float = 0.02  #: smallest mass kept as a buried layer (0.2 mm, ours)
+    # wind transport (regionmap.snow.wind_transport)
+    #: move snow from exposed to sheltered cells of each zone (false: no transport)
+    wind_transport: bool = True
+    #: fetch over which saltation builds up on an exposed cell: of the order of a few hundred
+    #: metres (Takeuchi 1980, J. Glaciol. 26(94) [mem]; ours)
+    transport_fetch_m: Annotated[float, Field(gt=0)] = 300.0
+    #: cells within +-1 deg of zero upwind slope neither lose nor gain (ours)
+    transport_neutral_sx_deg: Annotated[float, Field(ge=0)] = 1.0
+    #: wind-packed snow 350-400 kg m-3 (Cuffey & Paterson 2010, The Physics of Glaciers,
+    #: 4th ed., Table 2.1 [mem])
+    wind_packed_density_kg_m3: Annotated[float, Field(ge=50, le=600)] = 350.0
+    #: grains broken and rounded in saltation: fine, 0.2-0.5 mm (Fierz et al. 2009 size
+    #: classes; ours)
+    wind_packed_grain_mm: Annotated[float, Field(gt=0)] = 0.3
     # events and diagnostics
     event_gap_h: float = 6.0  #: rain / freezing-rain dry hours that end an event (ours)
     event_min_kg_m2: float = 0.1  #: hourly amount that counts for an event (ours)

@@ -52,6 +52,7 @@ from regionmap.snow.kernel import (
     V_SNOW_GAP_H,
     V_SOIL,
     V_TSURF,
+    V_WIND_ERODIBLE,
 )
 from regionmap.snow.params import N_SOIL, SOIL_THICKNESS_M
 
@@ -87,6 +88,12 @@ _CELL_FLOAT = (
         V_RAIN_EV_PRECIP_KG_M2,
         "kg m-2",
         "precipitation (all phases) of the current rain event",
+    ),
+    (
+        "wind_erodible_kg_m2",
+        V_WIND_ERODIBLE,
+        "kg m-2",
+        "snow the zone's wind transport counts as erodible at the cell's surface",
     ),
 )
 _CELL_INT = (

@@ -16,8 +16,8 @@ point (:func:`regionmap.snow.column.run_columns`) from the first forcing hour, s
 * :func:`calibrate_command` — ``regionmap calibrate``: ``[bias]`` TOML, ``qm.nc``, skill.
 * :func:`run_verification_last_day` — what a run writes when ``[stations]`` is configured.
 
-With ``[downscale] drift = true`` the zone-conserving redistribution of precipitation has no
-zone around a station; each station keeps its interpolated amount (drift factor 1).
+A station stands alone, with no zone of cells around it: its column has no wind transport
+(the zone's transport moves snow between the cells of a zone).
 
 Station scores describe the model at a few points. They help trained forecasters judge how far
 to trust the guidance and replace neither field observations nor the local avalanche service.
