@@ -116,7 +116,9 @@ CAUTIONS: tuple[str, ...] = (
     "Simulated layers, depths and threshold counts are estimates of a light snow column driven by "
     "downscaled weather-model forcing; they carry the forcing's errors (precipitation, freezing "
     "level, wind).",
-    "Wind drift, cornices, local avalanche activity and slope-scale variability are not resolved.",
+    "Wind transport is averaged over each elevation band and aspect of a zone: the loading of "
+    "single lee slopes below ridges, cornices, local avalanche activity and slope-scale "
+    "variability are not resolved.",
     "Forecast parts of the run use forecast forcing and are less certain than the analysis.",
 )
 
