@@ -106,9 +106,10 @@ def mergeable(fw, iw, i, now_s, max_thick_m, strict):
     """Whether layers i and i + 1 may merge.
 
     Never when either is a crust, SH, DH, MFcr or IF; otherwise when both have the same
-    class, the same wetness state, both or neither wind-packed, grain sizes within 0.25 mm + 20 %, densities within 30 %,
-    and, when ``strict``, deposition times within max(1 day, 20 % of the older layer's age
-    at ``now_s``) and a merged thickness within ``max_thick_m``.
+    class, the same wetness state, both or neither wind-packed, grain sizes within
+    0.25 mm + 20 %, densities within 30 %, and, when ``strict``, deposition times within
+    max(1 day, 20 % of the older layer's age at ``now_s``) and a merged thickness within
+    ``max_thick_m``.
     """
     j = i + 1
     if _protected(fw, iw, i) or _protected(fw, iw, j):
