@@ -9,17 +9,17 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 
-from regionmap.cells import build_cells
+from regionmap.cells import CellSet, build_cells
 from regionmap.config import Config
 from regionmap.downscale.events import read_region_precipitation_max, region_event_hours
 from regionmap.downscale.pipeline import CellBatch, prepare_cells
 from regionmap.downscale.quantile_mapping import read_qm_table
 from regionmap.errors import InputError
-from regionmap.io.dem import read_dem
+from regionmap.io.dem import Dem, read_dem
 from regionmap.io.forcing import open_forcing
 from regionmap.io.zones import read_zones
 from regionmap.pipeline.cache import PreparationCache
-from regionmap.terrain import compute_terrain
+from regionmap.terrain import Terrain, compute_terrain
 
 __all__ = [
     "Region",
@@ -38,10 +38,10 @@ class Region:
     ``cache_key`` is the region's key in the preparation cache (None without a cache).
     """
 
-    dem: object
-    zones: object
-    terrain: object
-    cells: object
+    dem: Dem
+    zones: pd.DataFrame  # a GeoDataFrame (read_zones)
+    terrain: Terrain
+    cells: CellSet
     timings_s: dict = field(default_factory=dict)
     cache_key: str | None = None
 
@@ -73,7 +73,7 @@ def prepare_region(
     cells = build_cells(dem, terrain, zones, cfg.cells)
     timings["cells"] = _time.perf_counter() - t0
     region = Region(dem, zones, terrain, cells, cache_key=key)
-    if cache is not None:
+    if cache is not None and key is not None:
         t0 = _time.perf_counter()
         cache.save("region", key, region)
         timings["region_cache_save"] = _time.perf_counter() - t0
