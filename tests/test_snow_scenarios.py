@@ -117,35 +117,43 @@ def test_shallow_pack_without_slab_holds_no_weak_layer_of_concern(depth_hoar_run
 
 
 # ------------------------------------------------------------------ (b) surface hoar
-#: 10 m wind of the burial storm over the region (ordinary storm wind) [m s-1]
-STORM_WIND_M_S = 6.5
-#: the cells' wind factors: sheltered and exposed ends of the usual range of exposure
-#: corrections of a grid wind (Winstral et al. 2002; Liston & Sturm 1998)
-SHELTERED, EXPOSED = 0.5, 1.3
+#: 10 m winds of the burial storm over the region: the ordinary storm winds of negative
+#: control (b), 5-8 m s-1 [m s-1]
+STORM_WINDS_M_S = (5.0, 6.5, 8.0)
+#: the cells' wind factors: the sheltered and exposed ends of the terrain's modification of
+#: a grid wind, 0.5-1.5 (Liston & Sturm 1998, J. Glaciol. 44, 498-516, Eq. 16 with
+#: gamma_s + gamma_c = 1 [mem]; exposure in Winstral et al. 2002)
+SHELTERED, EXPOSED = 0.5, 1.5
+#: cells: calm clear nights, one per storm wind, sheltered then exposed; then the controls
+#: windy nights and cloudy nights (sheltered, middle storm wind)
+_BURIAL = [(w, fac) for fac in (SHELTERED, EXPOSED) for w in STORM_WINDS_M_S]
+N_BURIAL = len(_BURIAL)
+WINDY_NIGHTS, CLOUDY_NIGHTS = N_BURIAL, N_BURIAL + 1
 
 
 @pytest.fixture(scope="module")
 def surface_hoar_run():
-    """Base snow, three calm clear humid nights, a storm with ordinary wind, ten cloudy days.
-    Cells: calm clear, sheltered (SH expected); windy clear (control); calm cloudy (control);
-    calm clear, exposed to the storm's wind (control)."""
+    """Base snow, three calm clear humid nights, a storm of 30 kg m-2 in 12 h, ten cloudy
+    days. Cells: the hoar buried by each storm wind in sheltered and exposed terrain; the
+    controls windy clear nights and calm cloudy nights."""
     n_base, n_clear, n_storm, n_after = 24, 24 * 3, 12, 24 * 10
     nt = n_base + n_clear + n_storm + n_after
+    n_cells = N_BURIAL + 2
     t = hours(START, nt)
     idx = np.arange(nt)
     clear = (idx >= n_base) & (idx < n_base + n_clear)
     storm = (idx >= n_base + n_clear) & (idx < n_base + n_clear + n_storm)
     ta = np.where(clear, diurnal_temperature(t, -8.0, 4.0), T_MELT_K - 6.0)
     pr = np.where(idx < n_base, 1.0, 0.0) + np.where(storm, 30.0 / n_storm, 0.0)
-    cloud = np.vstack(
-        [np.where(clear, 0.0, 1.0), np.where(clear, 0.0, 1.0), np.ones(nt), np.where(clear, 0, 1.0)]
-    )
-    night_wind = np.array([1.0, 7.0, 1.0, 1.0])[:, None]
-    factor = np.array([SHELTERED, SHELTERED, SHELTERED, EXPOSED])[:, None]
-    wind = np.where(clear, night_wind, np.where(storm, STORM_WIND_M_S, 2.0) * factor)
+    cloudy_nights = np.arange(n_cells)[:, None] == CLOUDY_NIGHTS
+    cloud = np.where(clear & ~cloudy_nights, 0.0, 1.0)
+    storm_wind = np.array([w for w, _ in _BURIAL] + [6.5, 6.5])[:, None]
+    factor = np.array([fac for _, fac in _BURIAL] + [SHELTERED, SHELTERED])[:, None]
+    night_wind = np.where(np.arange(n_cells) == WINDY_NIGHTS, 7.0, 1.0)[:, None]
+    wind = np.where(clear, night_wind, np.where(storm, storm_wind, 2.0) * factor)
     f = make_forcing(
         t,
-        4,
+        n_cells,
         t_air_k=ta,
         rh_frac=np.where(clear, 0.95, 0.9),
         wind_m_s=wind,
@@ -155,36 +163,42 @@ def surface_hoar_run():
         snow_frac=1.0,
     )
     storm_start = t[n_base + n_clear]
-    return _run(f, 4, diag_every_h=1), storm_start, n_base + n_clear, n_base + n_clear + n_storm
+    return (
+        _run(f, n_cells, diag_every_h=1),
+        storm_start,
+        n_base + n_clear,
+        n_base + n_clear + n_storm,
+    )
 
 
-def test_surface_hoar_buried_by_storm_persists(surface_hoar_run):
+@pytest.mark.parametrize("cell", range(len(STORM_WINDS_M_S)))
+def test_surface_hoar_buried_by_storm_persists(surface_hoar_run, cell):
     (state, diag, _), storm_start, i_storm, i_end = surface_hoar_run
     # negative control (b): surface hoar grown over calm clear nights and buried by a storm
-    # with ordinary wind survives as a buried SH layer in sheltered terrain (common practice;
-    # Feick et al. 2007, J. Geophys. Res. 112 [mem])
+    # with ordinary wind (5-8 m s-1) survives as a buried SH layer in sheltered terrain
+    # (common practice; Feick et al. 2007, J. Geophys. Res. 112, F02002 [mem])
     # formation: deposition under clear calm humid nights (Hachikubo 2001) grows SH of
     # millimetres (Fierz et al. 2009: surface hoar typically 2-10 mm, up to several cm)
-    assert 0.5 < diag["surface_hoar_size_mm"][0, i_storm - 1] < 30.0
-    n = state.layer_count[0]
-    sh = np.nonzero(state.grain_code[0, :n] == SH)[0]
-    assert sh.size == 1, state.grain_code[0, :n]
+    assert 0.5 < diag["surface_hoar_size_mm"][cell, i_storm - 1] < 30.0
+    n = state.layer_count[cell]
+    sh = np.nonzero(state.grain_code[cell, :n] == SH)[0]
+    assert sh.size == 1, state.grain_code[cell, :n]
     # burial time within one day of the designed storm
-    formed = np.datetime64(int(state.formation_time_s2000[0, sh[0]]) + 946684800, "s")
+    formed = np.datetime64(int(state.formation_time_s2000[cell, sh[0]]) + 946684800, "s")
     assert abs(formed - storm_start) <= np.timedelta64(1, "D")
     # right after the storm: a weak layer of concern under the storm snow, its depth within
     # 15 % of the storm snow above it
-    storm_slab_cm = diag["snow_depth_cm"][0, i_end] - diag["snow_depth_cm"][0, i_storm - 1]
-    assert diag["pwl_present"][0, i_end] == 1
-    assert diag["pwl_depth_cm"][0, i_end] == pytest.approx(storm_slab_cm, rel=0.15)
+    storm_slab_cm = diag["snow_depth_cm"][cell, i_end] - diag["snow_depth_cm"][cell, i_storm - 1]
+    assert diag["pwl_present"][cell, i_end] == 1
+    assert diag["pwl_depth_cm"][cell, i_end] == pytest.approx(storm_slab_cm, rel=0.15)
     # still there 10 days later under the settled load, its crystals (mm) intact
-    n_end = state.layer_count[0]
-    sh_end = state.grain_code[0, :n_end] == SH
+    n_end = state.layer_count[cell]
+    sh_end = state.grain_code[cell, :n_end] == SH
     assert np.sum(sh_end) == 1
-    assert state.grain_size_mm[0, :n_end][sh_end][0] >= 1.0
+    assert state.grain_size_mm[cell, :n_end][sh_end][0] >= 1.0
 
 
-@pytest.mark.parametrize("cell, why", [(1, "windy nights"), (2, "cloudy nights")])
+@pytest.mark.parametrize("cell, why", [(WINDY_NIGHTS, "windy nights"), (CLOUDY_NIGHTS, "cloudy")])
 def test_no_surface_hoar_when_windy_or_cloudy(surface_hoar_run, cell, why):
     (state, diag, _), *_ = surface_hoar_run
     # control (Hachikubo 2001; common practice): wind > ~4 m/s or cloud -> no surface hoar
@@ -193,13 +207,16 @@ def test_no_surface_hoar_when_windy_or_cloudy(surface_hoar_run, cell, why):
     assert np.nanmax(diag["surface_hoar_size_mm"][cell]) < 0.2, why
 
 
-def test_storm_wind_on_exposed_terrain_destroys_the_hoar(surface_hoar_run):
+@pytest.mark.parametrize("storm_wind", STORM_WINDS_M_S[1:])
+def test_storm_wind_on_exposed_terrain_destroys_the_hoar(surface_hoar_run, storm_wind):
     (state, diag, _), _, i_storm, _ = surface_hoar_run
-    # control: the same hoar under the same storm where the terrain speeds the wind up
-    # (8.5 m s-1 at the cell, drifting snow: Li & Pomeroy 1997 [mem]) is not kept
-    assert diag["surface_hoar_size_mm"][3, i_storm - 1] > 0.5  # it had grown
-    n = state.layer_count[3]
-    assert not np.any(state.grain_code[3, :n] == SH)
+    # negative control (b), its other half: the same hoar under the same storm where the
+    # terrain speeds the wind up (about 10-12 m s-1 at the cell, where new and older snow
+    # drift: Li & Pomeroy 1997, J. Appl. Meteorol. 36, 205-213 [mem]) is not kept
+    cell = _BURIAL.index((storm_wind, EXPOSED))
+    assert diag["surface_hoar_size_mm"][cell, i_storm - 1] > 0.5  # it had grown
+    n = state.layer_count[cell]
+    assert not np.any(state.grain_code[cell, :n] == SH)
 
 
 # ------------------------------------------------------------------ (c) rain crust

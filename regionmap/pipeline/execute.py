@@ -87,8 +87,8 @@ LAYER_VARS = {
         "f8",
         {
             "units": "seconds since 1970-01-01",
-            "long_name": "when the layer became what it is (burial of SH, refreeze of a crust, "
-            "else deposition)",
+            "long_name": "when the layer became what it is (burial of SH, the start of the "
+            "refreeze that made a crust, else deposition)",
         },
     ),
     "event_id": (

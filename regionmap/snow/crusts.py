@@ -7,8 +7,16 @@ Fierz et al. 2009, liquid water content classes [src]) with water of a known sou
 refreezes becomes a crust -- a *sun* crust when solar input melted a dry surface, a
 *melt-freeze* crust for other surface melt, a *rain* crust when a substantial rain (in amount
 and as a share of its event's precipitation, :func:`substantial_rain`) wetted it (tagged with
-the rain event's id). Only the snow the water wetted to that class refreezes into the crust, so
-a crust is as thick as the wetted layers, typically centimetres (Jamieson 2006 [mem]). Freezing
+the rain event's id). The crust is the wetted snow that a refreezing front descending from the
+cold surface refreezes within a night's refreeze (:func:`refrozen_by_surface_front`); wet snow
+deeper down, which refreezes days later as the front slows, or which refreezes from below or
+in place under still-wet snow, becomes refrozen melt forms without a crust kind. The front is
+conduction-limited: a frozen lid of conductivity k over wet snow of volumetric liquid content
+theta_w, its surface dT below 0 degC, refreezes to a depth of about
+sqrt(2 k dT t / (rho_w L theta_w)) after t (the quasi-steady Stefan solution; Carslaw &
+Jaeger 1959, Conduction of Heat in Solids, 2nd ed., Sect. 11.2 [mem]), so a crust is
+centimetres thick after a mild night and about a decimetre after a hard frost (field crusts:
+millimetres to centimetres, thick ones a decimetre or two, Jamieson 2006 [mem]). Freezing
 rain on a sub-freezing surface freezes on contact into a glaze of ice (IF) whose thickness is
 the water equivalent over the density of ice. A layer refrozen again keeps its first crust kind
 and formation time, so repeated melt-freeze cycles of the same layer stay one crust.
@@ -21,7 +29,13 @@ from numba import njit
 from regionmap.snow.codes import CRUST_INDEX
 from regionmap.snow.constants import RHO_ICE_KG_M3
 
-__all__ = ["glaze_thickness_m", "substantial_rain", "crust_kind_on_refreeze", "counts_as_crust"]
+__all__ = [
+    "glaze_thickness_m",
+    "substantial_rain",
+    "crust_kind_on_refreeze",
+    "refrozen_by_surface_front",
+    "counts_as_crust",
+]
 
 #: crust kinds as indices of the crust table (module-level ints: constants to the compiled code)
 NONE, MELT_FREEZE, SUN, RAIN, GLAZE = (
@@ -32,6 +46,7 @@ NO_CRUST = NONE
 FLAG_WET_RAIN = 1  # wetted by rain in the current wet spell
 FLAG_WET_SUN = 2  # wetted by surface melt driven by sunshine on a dry pack
 FLAG_WAS_WET = 4  # held more than the crust-forming liquid share in the current wet spell
+FLAG_FRONT = 8  # refrozen by the refreezing front from the surface (cleared when wet again)
 FLAG_WET_MELT = 16  # wetted by melt from air warmth / longwave (melt-freeze)
 
 
@@ -62,6 +77,18 @@ def crust_kind_on_refreeze(old_kind, flags, rain_substantial):
     if flags & (FLAG_WET_SUN | FLAG_WET_MELT):
         return MELT_FREEZE
     return NONE
+
+
+@njit(cache=True, nogil=True, error_model="numpy")
+def refrozen_by_surface_front(lid_dry, since_front_start_s, window_s):
+    """Whether a wet layer refreezing now is part of its crust: frozen by the front from the
+    cold surface (every layer above it dry) within ``window_s`` of the front's start.
+
+    A night's refreeze (about 12 h) makes the crust; the front's depth after a time t is
+    about sqrt(2 k dT t / (rho_w L theta_w)) (Stefan, quasi-steady; Carslaw & Jaeger 1959 [mem],
+    Sect. 11.2), so the window bounds the crust to the snow the first night refreezes.
+    """
+    return lid_dry and since_front_start_s <= window_s
 
 
 @njit(cache=True, nogil=True, error_model="numpy")

@@ -36,6 +36,7 @@ from regionmap.snow.constants import (
     T_MELT_K,
 )
 from regionmap.snow.crusts import (
+    FLAG_FRONT,
     FLAG_WAS_WET,
     FLAG_WET_MELT,
     FLAG_WET_RAIN,
@@ -44,6 +45,7 @@ from regionmap.snow.crusts import (
     NO_CRUST,
     crust_kind_on_refreeze,
     glaze_thickness_m,
+    refrozen_by_surface_front,
     substantial_rain,
 )
 from regionmap.snow.layering import (
@@ -90,6 +92,7 @@ from regionmap.snow.params import (
     P_COMPACTION_C_T_PER_K,
     P_COMPACTION_ETA0_PA_S,
     P_CONDUCTIVITY_MODEL,
+    P_CRUST_REFREEZE_WINDOW_H,
     P_CRUST_WET_FRAC,
     P_DEEP_GROUND_TEMPERATURE_K,
     P_DEPTH_HOAR_MIN_GRAIN_MM,
@@ -160,9 +163,10 @@ V_RAIN_EV_KG_M2, V_RAIN_EV_PRECIP_KG_M2 = 7, 8
 V_WIND_ERODIBLE = 9
 V_SOIL = 10  # soil temperatures V_SOIL .. V_SOIL + N_SOIL - 1, deepest first
 N_SV = V_SOIL + N_SOIL
-# per-cell integer state vector
-J_N, J_SNOW_EV, J_RAIN_EV, J_FZ_EV, J_SH_START = range(5)
-N_SI = 5
+# per-cell integer state vector (J_FRONT_START: start of the current refreezing front from
+# the surface, s since 2000)
+J_N, J_SNOW_EV, J_RAIN_EV, J_FZ_EV, J_SH_START, J_FRONT_START = range(6)
+N_SI = 6
 RING_H = 72  # hours of new-snow history
 
 # accumulated fluxes of one step (float64)
@@ -180,6 +184,7 @@ ST_NONFINITE = 4  # a non-finite value appeared (cell state kept, step skipped)
 EV_RAIN_ON_SNOW, EV_FREEZING_RAIN = 1, 2
 
 _SOIL_DZ = np.array(SOIL_THICKNESS_M, dtype=np.float64)
+APPARENT_PER_K = 1.0  # latent heat of a wet layer's water spread over this many K^-1
 #: grain indices of the classification table (module-level ints: constants to the compiled code)
 _PP, _RG, _SH, _DH, _MF, _MFCR, _IF = (
     GRAIN_INDEX[c] for c in ("PP", "RG", "SH", "DH", "MF", "MFcr", "IF")
@@ -430,7 +435,14 @@ def _energy_and_conduction(
         dens = ice_w[l] / max(thick_w[l], 1e-9)
         dens_w[l] = dens  # kept for the shortwave penetration below
         kn[j] = snow_conductivity(model_k, dens)
-        cn[j] = C_ICE_J_KG_K * ice_w[l] + C_WATER_J_KG_K * liq_w[l]
+        # a wet layer stays at 0 degC while its water freezes: its latent heat counts as an
+        # apparent heat capacity over 1 K in the implicit step, so the front's heat flux is
+        # not lost to a wet node cooling far below 0 degC within one step
+        cn[j] = (
+            C_ICE_J_KG_K * ice_w[l]
+            + C_WATER_J_KG_K * liq_w[l]
+            + APPARENT_PER_K * L_FUSION_J_KG * liq_w[l]
+        )
         tn[j] = temp_w[l]
         sn[j] = 0.0
     albedo = sv[V_ALBEDO]
@@ -496,7 +508,11 @@ def _energy_and_conduction(
         sv[V_TSURF] = ts
         return 0.0, 0.0, 0.0, 0.0, 0.0, 0.0, 0.0, 0.0, ts
     for l in range(padded_count(n)):
-        fw[F_TEMP, l] = tn[ns + l]
+        # back to the temperature that carries the same heat change at the real heat
+        # capacity (identical for dry layers); the phase step then freezes the water
+        c_real = C_ICE_J_KG_K * ice_w[l] + C_WATER_J_KG_K * liq_w[l]
+        t_old = temp_w[l]
+        fw[F_TEMP, l] = t_old + (tn[ns + l] - t_old) * cn[ns + l] / max(c_real, 1e-12)
     kint = 1.0 / (0.5 * dzn[ns - 1] / kn[ns - 1] + 0.5 * dzn[ns] / kn[ns])
     ground = kint * (tn[ns - 1] - tn[ns])
     lw_net = q_net - sw_surf - sens - lat  # (q_extra stays out of lw_net)
@@ -655,21 +671,29 @@ def _erode_buried_hoar(fw, iw, n, ustar, p):
 
 @njit(cache=True, nogil=True, error_model="numpy")
 def _wet_flags_and_crusts(
-    fw, iw, n, rain_event, rain_wetting, rain_crust_event, surface_melt, solar_melt, now_s, p
+    fw, iw, n, si, rain_event, rain_wetting, rain_crust_event, surface_melt, solar_melt, now_s, p
 ):
-    """Tag wet layers with the source of their water; turn refrozen wet layers into crusts.
+    """Tag wet layers with the source of their water; turn wet layers refrozen from the cold
+    surface into crusts.
 
     Water from the top down in a step with rain is rain water; water in a layer of a step
     with surface melt is melt (sun melt when the sun drove it). A layer that reached the
     "wet" class (``crust_wet_frac`` by volume) with water of a known source becomes a crust
-    when it refreezes (:func:`regionmap.snow.crusts.crust_kind_on_refreeze`); a rain-wetted
-    layer is a rain crust only when its rain event is substantial (``rain_crust_event`` at
-    refreeze, :func:`regionmap.snow.crusts.substantial_rain`), otherwise it refreezes
-    without a crust kind. Water of no known source (a trace, the melt-back of a glaze)
-    wets without making a crust.
+    when it refreezes (:func:`regionmap.snow.crusts.crust_kind_on_refreeze`) as part of the
+    refreezing front that descends from the cold surface
+    (:func:`regionmap.snow.crusts.refrozen_by_surface_front`): every layer above it dry, and
+    refrozen within ``crust_refreeze_window_h`` of the front's start (``si[J_FRONT_START]``,
+    set when the first layer of a front refreezes). Wet snow that refreezes later, or from
+    below or in place under a wet layer, refreezes as melt forms without a crust kind. A
+    rain-wetted layer is a rain crust only when its rain event is substantial
+    (``rain_crust_event`` at refreeze, :func:`regionmap.snow.crusts.substantial_rain`).
+    Water of no known source (a trace, the melt-back of a glaze) wets without making a crust.
     """
     wet_src = FLAG_WET_RAIN | FLAG_WET_SUN | FLAG_WET_MELT
+    window_s = 3600.0 * p[P_CRUST_REFREEZE_WINDOW_H]
     from_top = True
+    lid_dry = True  # every layer above is dry
+    front_above = False  # a layer above was refrozen by the current front
     for i in range(n - 1, -1, -1):
         liq = fw[F_LIQ, i]
         fl = iw[I_FLAGS, i]
@@ -682,20 +706,28 @@ def _wet_flags_and_crusts(
                 fl |= FLAG_WET_SUN if solar_melt else FLAG_WET_MELT
             if liq / (RHO_WATER_KG_M3 * max(fw[F_THICK, i], 1e-9)) >= p[P_CRUST_WET_FRAC]:
                 fl |= FLAG_WAS_WET
+            fl &= ~FLAG_FRONT
+            lid_dry = False
         else:
             from_top = False
             if fl & FLAG_WAS_WET and fl & wet_src and fw[F_TEMP, i] < T_MELT_K:
+                if lid_dry and not front_above:
+                    si[J_FRONT_START] = now_s
+                in_crust = refrozen_by_surface_front(lid_dry, now_s - si[J_FRONT_START], window_s)
+                if lid_dry:
+                    fl |= FLAG_FRONT
                 same_event = iw[I_EVENT, i] == rain_event
                 kind = crust_kind_on_refreeze(iw[I_CRUST, i], fl, rain_crust_event and same_event)
-                if kind != NO_CRUST:
+                if kind != NO_CRUST and in_crust:
                     if iw[I_CRUST, i] == NO_CRUST:
-                        iw[I_FORM, i] = now_s
+                        iw[I_FORM, i] = si[J_FRONT_START]
                     iw[I_CRUST, i] = kind
                     if iw[I_CODE, i] != _IF:
                         iw[I_CODE, i] = _MFCR
                 fl &= ~(FLAG_WAS_WET | wet_src)
             elif fw[F_TEMP, i] < T_MELT_K:
                 fl &= ~(FLAG_WAS_WET | wet_src)
+            front_above = front_above or (fl & FLAG_FRONT) != 0
         iw[I_FLAGS, i] = fl
 
 
@@ -1180,6 +1212,7 @@ def _step(col, met, p, cap, work):
         fw,
         iw,
         n,
+        si,
         si[J_RAIN_EV],
         rain_wetting,
         rain_crust_event,

@@ -82,6 +82,9 @@ class SnowParams(Settings):
     #: liquid volume share that makes a refrozen layer a crust: the "wet" class (Fierz et al.
     #: 2009, liquid water content classes: wet 3-8 %)
     crust_wet_frac: float = 0.03
+    #: wet snow the surface's refreezing front freezes within this time of its start is the
+    #: crust: a night's refreeze (ours)
+    crust_refreeze_window_h: float = 12.0
     rain_crust_min_kg_m2: float = 2.0  #: rain of an event that can leave a rain crust (ours)
     rain_crust_min_share: float = 0.5  #: and its share of the event's precipitation (ours)
     # crusts

@@ -34,6 +34,7 @@ from regionmap.snow.codes import (
 from regionmap.snow.constants import EPOCH_2000_S, T_MELT_K
 from regionmap.snow.diagnostics import layer_hardness_array
 from regionmap.snow.kernel import (
+    J_FRONT_START,
     J_FZ_EV,
     J_N,
     J_RAIN_EV,
@@ -101,7 +102,15 @@ _CELL_INT = (
     ("rain_event_id", J_RAIN_EV, "current rain event, start hour since 1970"),
     ("freezing_rain_event_id", J_FZ_EV, "current freezing-rain event, start hour since 1970"),
     ("surface_hoar_start_s2000", J_SH_START, "start of surface-hoar growth, s since 2000"),
+    (
+        "refreeze_front_start_s2000",
+        J_FRONT_START,
+        "start of the refreezing front from the surface that makes crusts, s since 2000",
+    ),
 )
+#: cell variables a state written before they existed may lack, with the value that means
+#: "nothing in progress" (no refreezing front open: the next refreeze starts one)
+_CELL_INT_OPTIONAL = {"refreeze_front_start_s2000": 0}
 
 _CELL_FLOAT_INDEX = {name: k for name, k, *_ in _CELL_FLOAT}
 _CELL_INT_INDEX = {name: k for name, k, *_ in _CELL_INT}
@@ -434,7 +443,8 @@ class SnowState:
             "new_snow_history_kg_m2",
             "new_snow_history_m",
         ]
-        need += [n for n, *_ in _CELL_FLOAT] + [n for n, *_ in _CELL_INT]
+        need += [n for n, *_ in _CELL_FLOAT]
+        need += [n for n, *_ in _CELL_INT if n not in _CELL_INT_OPTIONAL]
         missing = [v for v in need if v not in ds.variables]
         if missing or "time" not in ds.coords or "cell_id" not in ds.coords:
             raise InputError(
@@ -500,7 +510,10 @@ class SnowState:
         counters = np.zeros((n, N_SI), dtype=np.int64)
         counters[:, J_N] = count
         for name, k, _ in _CELL_INT:
-            counters[:, k] = ds[name].values
+            if name in ds.variables:
+                counters[:, k] = ds[name].values
+            else:
+                counters[:, k] = _CELL_INT_OPTIONAL[name]
         return cls(
             time=np.datetime64(ds["time"].values, "s"),
             cell_id=ds["cell_id"].values.astype(np.int64),
