@@ -54,7 +54,9 @@ def test_energy_closure_over_the_season(season):
     res = d["energy_residual_w_m2"].astype(np.float64)
     snow = d["swe_kg_m2"] > 0
     assert abs(res[snow].mean()) <= 0.1
-    assert np.mean(np.abs(res[snow]) > 1.0) < 5e-3  # single-step misses of a few W m-2 are rare
+    # and in every step (glaze, rain, melt-out included): the state's float32 temperatures
+    # leave a few hundredths of W m-2
+    assert np.abs(res[snow]).max() <= 0.1
 
 
 def test_season_structure_is_plausible(season):

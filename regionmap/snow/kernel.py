@@ -872,8 +872,10 @@ def _metamorphose(fw, iw, n, sv, ts, dt, p, grad_w, centre_w, arr_w):
 @njit(cache=True, nogil=True, error_model="numpy")
 def _cleanup(fw, iw, n):
     """Remove ice-free layers (their water moves down, or leaves) and fold layers thinner
-    than 0.1 mm or with less than 0.01 kg m-2 of ice into a neighbour. Returns (n, water
-    leaving the base [kg m-2])."""
+    than 0.1 mm or with less than 0.01 kg m-2 of ice (ice layers: 0.001 kg m-2, a film of
+    about a micrometre) into a neighbour: a node without heat capacity or thickness would
+    leave the conduction step's tridiagonal system near-singular. Returns (n, water leaving
+    the base [kg m-2])."""
     out = 0.0
     i = n - 1
     while i >= 0:
@@ -888,7 +890,11 @@ def _cleanup(fw, iw, n):
             else:
                 out += fw[F_LIQ, i]
             n = remove_layer(fw, iw, n, i)
-        elif (fw[F_THICK, i] < 1e-4 or fw[F_ICE, i] < 0.01) and n > 1 and iw[I_CODE, i] != _IF:
+        elif n > 1 and (
+            (fw[F_THICK, i] < 1e-4 or fw[F_ICE, i] < 0.01)
+            and iw[I_CODE, i] != _IF
+            or fw[F_ICE, i] < 1e-3  # a glaze melted back to a film under a micrometre
+        ):
             k = i - 1 if i > 0 else 0
             n = merge_pair(fw, iw, n, k)
             h = layer_enthalpy(fw[F_ICE, k], fw[F_LIQ, k], fw[F_TEMP, k])
@@ -1081,7 +1087,9 @@ def _step(col, met, p, cap, work):
         e0 = column_enthalpy(fw, n, sv[V_SH_MASS])
         n, st, q_latent = _glaze(fw, iw, n, fz, now_s, si[J_FZ_EV], p, cap)
         status |= st
-        e_mass += column_enthalpy(fw, n, sv[V_SH_MASS]) - e0 + q_latent
+        # the water enters as ice (its enthalpy change here); the latent heat it releases is
+        # a heat source at the skin (q_extra), counted once, in the surface flux
+        e_mass += column_enthalpy(fw, n, sv[V_SH_MASS]) - e0
         q_extra = q_latent / dt
         if st == 0:
             acc[A_FZ] = fz
