@@ -184,7 +184,8 @@ ST_NONFINITE = 4  # a non-finite value appeared (cell state kept, step skipped)
 EV_RAIN_ON_SNOW, EV_FREEZING_RAIN = 1, 2
 
 _SOIL_DZ = np.array(SOIL_THICKNESS_M, dtype=np.float64)
-APPARENT_PER_K = 1.0  #: [K-1] share of a wet layer's latent heat counted as heat capacity per kelvin
+#: [K-1] share of a wet layer's latent heat counted as heat capacity per kelvin
+APPARENT_PER_K = 1.0
 #: grain indices of the classification table (module-level ints: constants to the compiled code)
 _PP, _RG, _SH, _DH, _MF, _MFCR, _IF = (
     GRAIN_INDEX[c] for c in ("PP", "RG", "SH", "DH", "MF", "MFcr", "IF")
