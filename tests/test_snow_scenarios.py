@@ -99,6 +99,8 @@ def test_less_depth_hoar_on_sunny_aspect(depth_hoar_run):
 
 def test_deep_pack_gets_no_basal_depth_hoar(depth_hoar_run):
     # negative control (e): a deep pack, whose base stays warm, grows no depth hoar there
+    # (common practice: depth hoar is a shallow-pack layer, weak gradients in deep packs;
+    # McClung & Schaerer 2006, The Avalanche Handbook, Ch. 3 [mem])
     state, diag, _ = depth_hoar_run
     n = state.layer_count[2]
     depth_cm = diag["snow_depth_cm"][2, -1]

@@ -5,6 +5,13 @@ SOURCES (hardness index F 1 ... I 6, Fierz et al. 2009 [src]): McClung, D. and S
 (2006), The Avalanche Handbook, 3rd ed., Ch. 3 [mem]: new snow and buried surface hoar F-4F;
 decomposing fragments, facets and depth hoar F-1F; rounding facets up to P; crusts P-I
 (Jamieson 2006, Rev. Geophys. 44 [mem]). Ranges typed here, not imported from the code.
+
+What this control can catch: the hardness module keeps each grain type's hardness inside its
+field range whatever the layer's density, so a failure here means the ranges, the grain
+classes or the crust rules drifted -- not that the modelled densities are right. The
+densities the ranges hide are a separate question: on this season many faceted (FC, FCsf)
+and buried surface-hoar layers are denser than the inverted density regressions allow for
+their range, so their hardness sits at the range's upper end.
 """
 
 from __future__ import annotations

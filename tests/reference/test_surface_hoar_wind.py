@@ -42,12 +42,3 @@ def test_hoar_lost_where_older_snow_drifts_li_pomeroy1997():
     assert _survival(0.5) == 0.0
     # between the drift thresholds of fresh snow and older snow it is graded
     assert 0.0 < _survival(0.25) < 1.0
-
-
-def test_burying_snow_shields_the_hoar():
-    # common practice: buried surface hoar is preserved through storms; the load above it
-    # takes the wind's hold away (regression of our shield rule, labelled: the shield load
-    # is a setting, not a published value)
-    shield = SnowParams().sh_shield_kg_m2
-    assert _survival(0.5, load=shield) == 1.0
-    assert _survival(0.5, load=0.5 * shield) == pytest.approx(0.5)
