@@ -12,7 +12,7 @@ import pytest
 import xarray as xr
 from test_forcing_reader import T0, make_forcing, own_coords, write
 
-from regionmap.io import units as U
+from regionmap.constants import GRAVITY_M_S2
 from regionmap.io.forcing import open_forcing
 
 metpy_calc = pytest.importorskip("metpy.calc")
@@ -210,7 +210,7 @@ def test_upper_air_temperature_and_static_geopotential(tmp_path):
         {
             "z": (
                 ("y", "x"),
-                np.full((6, 7), 1800.0 * U.G0_M_S2),
+                np.full((6, 7), 1800.0 * GRAVITY_M_S2),
                 {"standard_name": "surface_geopotential", "units": "m2 s-2"},
             )
         }

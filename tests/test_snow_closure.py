@@ -7,8 +7,8 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
+from regionmap.constants import T_MELT_K
 from regionmap.snow.column import run_columns
-from regionmap.snow.constants import T_MELT_K
 from regionmap.snow.kernel import J_N, V_SOIL, V_TSURF
 from regionmap.snow.params import SnowParams
 from regionmap.snow.state import SnowState

@@ -10,9 +10,9 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
+from regionmap.constants import T_MELT_K
 from regionmap.snow.codes import CRUST_INDEX, GRAIN_INDEX
 from regionmap.snow.column import run_columns
-from regionmap.snow.constants import T_MELT_K
 from regionmap.snow.params import SnowParams
 from regionmap.snow.state import SnowState
 from regionmap.snow.synthetic import clear_sky_shortwave, diurnal_temperature, hours, make_forcing

@@ -16,10 +16,10 @@ import dataclasses
 import numpy as np
 import pytest
 
+from regionmap.constants import T_MELT_K
 from regionmap.downscale.wind import wind_factor_winstral_sx
 from regionmap.snow.codes import CRUST_INDEX, GRAIN_INDEX
 from regionmap.snow.column import run_columns
-from regionmap.snow.constants import T_MELT_K
 from regionmap.snow.kernel import V_WIND_ERODIBLE
 from regionmap.snow.params import SnowParams
 from regionmap.snow.state import SnowState

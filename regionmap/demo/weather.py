@@ -31,11 +31,20 @@ import numpy as np
 import xarray as xr
 from scipy import ndimage
 
+from regionmap.constants import (
+    GRAVITY_M_S2,
+    ICAO_LAPSE_RATE_K_M,
+    ICAO_PRESSURE_EXPONENT,
+    ICAO_PRESSURE_PA,
+    ICAO_TEMPERATURE_K,
+    STEFAN_BOLTZMANN_W_M2_K4,
+    ZERO_CELSIUS_K,
+)
 from regionmap.downscale import longwave as _lw
 from regionmap.downscale import solar as _solar
 from regionmap.downscale import thermo as _thermo
 from regionmap.errors import InputError
-from regionmap.io.units import G0_M_S2, components_from_wind
+from regionmap.io.units import components_from_wind
 from regionmap.io.writers import write_netcdf
 
 __all__ = [
@@ -47,7 +56,6 @@ __all__ = [
     "PRESSURE_LEVELS_HPA",
 ]
 
-SIGMA = 5.670374419e-8  # Stefan-Boltzmann constant [W m-2 K-4] (exact, SI 2019)
 Z_REF_M = 2000.0  # reference height of the synoptic series [m]
 PRESSURE_LEVELS_HPA = np.array([900.0, 850.0, 800.0, 750.0, 700.0, 650.0, 600.0, 500.0])
 FREEZING_LEVEL_ROS_M = 2200.0
@@ -531,18 +539,22 @@ def season_fields(
     dry = np.clip(1.0 - s["precip"] / 0.05, 0.0, 1.0)[:, None, None]
     diurnal = 4.5 * clear * dry * np.cos(2 * np.pi * (solar_hour - 15.0) / 24.0)
     t_c = _profile_c(alt[None], s, diurnal)
-    t_k = t_c + 273.15
+    t_k = t_c + ZERO_CELSIUS_K
     rh = np.clip(
         s["rh"][:, None, None] - 0.12 * clear * np.cos(2 * np.pi * (solar_hour - 15.0) / 24.0),
         0.15,
         1.0,
     )
 
-    z_levels = 288.15 / 0.0065 * (1.0 - (PRESSURE_LEVELS_HPA / 1013.25) ** (1 / 5.25588))
-    upper_k = _profile_c(z_levels[None, :, None], s)[..., 0] + 273.15  # (time, level)
+    # heights of the pressure levels in the ICAO standard atmosphere (its pressure law inverted)
+    p_ratio = PRESSURE_LEVELS_HPA / (ICAO_PRESSURE_PA / 100.0)
+    z_levels = (
+        ICAO_TEMPERATURE_K / ICAO_LAPSE_RATE_K_M * (1.0 - p_ratio ** (1 / ICAO_PRESSURE_EXPONENT))
+    )
+    upper_k = _profile_c(z_levels[None, :, None], s)[..., 0] + ZERO_CELSIUS_K  # (time, level)
 
     p_pa = _thermo.pressure_standard_atmosphere_icao(alt)[None] * (
-        1 + s["dp_hpa"][:, None, None] / 1013.25
+        1 + s["dp_hpa"][:, None, None] / (ICAO_PRESSURE_PA / 100.0)
     )
     x_norm = (xx - xx.mean()) / max(np.ptp(xx) / 2, 1.0)
     wind_to_west = np.cos(np.radians(s["dir_deg"] - 270.0))[:, None, None]
@@ -577,7 +589,7 @@ def season_fields(
     eps = _lw.emissivity_all_sky_crawford_duchon1999(
         s["cloud"][:, None, None], _lw.emissivity_clear_sky_prata1996(e_pa, t_k)
     )
-    lw = eps * SIGMA * t_k**4
+    lw = eps * STEFAN_BOLTZMANN_W_M2_K4 * t_k**4
 
     fields = {
         "air_temperature_k": _q(t_k, 2.0**-6),
@@ -812,7 +824,7 @@ def _raw_dataset(f, g) -> xr.Dataset:
             "TPL": (("time", "lev", "y", "x"), f["upper_air_temperature_k"], {"units": "K"}),
             "Z": (
                 ("y", "x"),
-                (g["altitude_m"].astype(np.float64) * G0_M_S2).astype(np.float32),
+                (g["altitude_m"].astype(np.float64) * GRAVITY_M_S2).astype(np.float32),
                 {"units": "m2 s-2"},
             ),
             "lat2d": (("y", "x"), g["lat"], {"units": "degrees_north"}),

@@ -9,16 +9,18 @@ from __future__ import annotations
 import numpy as np
 import scipy.sparse as sp
 
-from .thermo import (
+from regionmap.constants import ZERO_CELSIUS_K
+from regionmap.downscale.thermo import (
+    BUCK1981_WATER_B,
+    BUCK1981_WATER_C_DEGC,
     dew_point_from_vapour_pressure_buck1981,
+    relative_humidity_from_dew_point,
     saturation_vapour_pressure_water_buck1981,
 )
 
 __all__ = [
     "KUNKEL1989_T_LAPSE_K_PER_KM",
     "KUNKEL1989_VP_COEF_PER_KM",
-    "BUCK_B",
-    "BUCK_C_DEGC",
     "monthly_lapse_rates_kunkel1989",
     "dew_point_lapse_liston_elder2006",
     "adjust_temperature_lapse",
@@ -36,9 +38,6 @@ KUNKEL1989_T_LAPSE_K_PER_KM = np.array([4.4, 5.9, 7.1, 7.8, 8.1, 8.2, 8.1, 8.1, 
 KUNKEL1989_VP_COEF_PER_KM = np.array(
     [0.41, 0.42, 0.40, 0.39, 0.38, 0.36, 0.33, 0.33, 0.36, 0.37, 0.40, 0.40]
 )
-#: Coefficients b [1] and c [degC] of Buck's saturation curve used by Liston & Elder (2006).
-BUCK_B = 17.502
-BUCK_C_DEGC = 240.97
 
 
 def monthly_lapse_rates_kunkel1989(month, latitude_deg) -> tuple[np.ndarray, np.ndarray]:
@@ -83,7 +82,7 @@ def dew_point_lapse_liston_elder2006(vp_coef_per_m) -> np.ndarray:
     ndarray float64
         Dew-point lapse rate lambda c / b [K m-1] (Liston & Elder 2006, Eq. 6).
     """
-    return np.asarray(vp_coef_per_m) * BUCK_C_DEGC / BUCK_B
+    return np.asarray(vp_coef_per_m) * BUCK1981_WATER_C_DEGC / BUCK1981_WATER_B
 
 
 def adjust_temperature_lapse(t_k, dz_m, lapse_k_m) -> np.ndarray:
@@ -114,10 +113,7 @@ def humidity_at_new_temperature(t_new_k, dew_point_new_k) -> np.ndarray:
     ndarray float64
         e_s(T_d) / e_s(T) in (0, 1] [1].
     """
-    td = np.minimum(dew_point_new_k, t_new_k)
-    return saturation_vapour_pressure_water_buck1981(td) / (
-        saturation_vapour_pressure_water_buck1981(t_new_k)
-    )
+    return relative_humidity_from_dew_point(np.minimum(dew_point_new_k, t_new_k), t_new_k)
 
 
 def dew_point_from_relative_humidity(t_k, rh_frac) -> np.ndarray:
@@ -191,7 +187,7 @@ def grid_lapse_fit(
     t = np.asarray(t_points_k, dtype=np.float64)
     # a common offset keeps E[T^2] - E[T]^2 from cancelling; a constant one, so that a cell's
     # fit does not depend on which other points its chunk of cells reads
-    t = t - 273.15  # (0 degC)
+    t = t - ZERO_CELSIUS_K
     szt = np.asarray(cov @ t)
     t_mean = np.asarray(mean @ t)
     stt = np.maximum(k * (np.asarray(mean @ (t * t)) - t_mean * t_mean), 0.0)

@@ -4,8 +4,9 @@ from __future__ import annotations
 
 import numpy as np
 
+from regionmap.constants import STEFAN_BOLTZMANN_W_M2_K4
+
 __all__ = [
-    "STEFAN_BOLTZMANN",
     "emissivity_clear_sky_prata1996",
     "emissivity_clear_sky_brutsaert1975",
     "clear_sky_emissivity",
@@ -17,7 +18,6 @@ __all__ = [
 ]
 
 #: Stefan-Boltzmann constant [W m-2 K-4] (exact in the 2019 SI).
-STEFAN_BOLTZMANN = 5.670374419e-8
 
 
 def emissivity_clear_sky_prata1996(e_pa, t_k) -> np.ndarray:
@@ -97,7 +97,7 @@ def cloud_factor(lw_down_w_m2, e_pa, t_k, method: str = "prata1996") -> np.ndarr
     """
     t = np.asarray(t_k)
     return np.asarray(lw_down_w_m2) / (
-        clear_sky_emissivity(e_pa, t, method) * STEFAN_BOLTZMANN * t**4
+        clear_sky_emissivity(e_pa, t, method) * STEFAN_BOLTZMANN_W_M2_K4 * t**4
     )
 
 
@@ -132,7 +132,7 @@ def longwave_at_cell(
     """
     t = np.asarray(t_k)
     svf = np.asarray(sky_view_frac)
-    blackbody = STEFAN_BOLTZMANN * t**4
+    blackbody = STEFAN_BOLTZMANN_W_M2_K4 * t**4
     return svf * np.minimum(all_sky_emissivity, 1.0) * blackbody + (1.0 - svf) * (
         terrain_emissivity * blackbody
     )

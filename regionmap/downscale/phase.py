@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import numpy as np
 
+from regionmap.constants import R_DRY_J_KG_K, ZERO_CELSIUS_K
 from regionmap.downscale.thermo import wet_bulb_temperature_normand
 
 __all__ = [
@@ -18,9 +19,6 @@ __all__ = [
     "freezing_rain_fraction_bourgouin2000",
     "freezing_rain_at_cell",
 ]
-
-_T0 = 273.15
-_RD = 287.04749097718457  # J kg-1 K-1
 
 
 #: Half width of the mixed rain-snow band around the Jennings et al. (2018) 50 % threshold
@@ -53,7 +51,7 @@ def snow_probability_jennings2018(t_air_k, rh_frac) -> np.ndarray:
     Nature Communications 9, 1148, Table 2 (bivariate binary logistic regression).
     doi:10.1038/s41467-018-03629-7
     """
-    t_c = np.asarray(t_air_k, dtype=np.float64) - _T0
+    t_c = np.asarray(t_air_k, dtype=np.float64) - ZERO_CELSIUS_K
     rh_pct = 100.0 * np.asarray(rh_frac, dtype=np.float64)
     return 1.0 / (1.0 + np.exp(-10.04 + 1.41 * t_c + 0.09 * rh_pct))
 
@@ -74,7 +72,7 @@ def threshold_temperature_jennings2018(rh_frac) -> np.ndarray:
         1/2: 0.738 degC at 100 % RH, 3.929 degC at 50 % [K].
     """
     rh_pct = 100.0 * np.asarray(rh_frac, dtype=np.float64)
-    return _T0 + (10.04 - 0.09 * rh_pct) / 1.41
+    return ZERO_CELSIUS_K + (10.04 - 0.09 * rh_pct) / 1.41
 
 
 def snow_fraction_jennings2018(
@@ -179,7 +177,7 @@ def no_liquid_below_wet_bulb(snow_frac, t_wet_bulb_k) -> np.ndarray:
     (:func:`freezing_rain_at_cell`), not this one.
     """
     sf = np.asarray(snow_frac, dtype=np.float64)
-    return np.where(np.asarray(t_wet_bulb_k) <= _T0, 1.0, sf)
+    return np.where(np.asarray(t_wet_bulb_k) <= ZERO_CELSIUS_K, 1.0, sf)
 
 
 def snow_fraction(
@@ -211,7 +209,7 @@ def snow_fraction(
     t = np.asarray(t_air_k, dtype=np.float64)
     rh = np.broadcast_to(np.asarray(rh_frac, dtype=np.float64), t.shape)
     p = np.broadcast_to(np.asarray(pressure_pa, dtype=np.float64), t.shape)
-    threshold_k = _T0 + threshold_c
+    threshold_k = ZERO_CELSIUS_K + threshold_c
     if method == "jennings2018":
         sf = snow_fraction_jennings2018(t, rh)
     elif method == "air_temperature":
@@ -223,8 +221,8 @@ def snow_fraction(
             f"phase method: expected jennings2018, wet_bulb or air_temperature, got {method!r}"
         )
     # the wet bulb only where liquid is possible (it costs a moist-adiabat integration)
-    liquid_possible = (t > _T0) if method == "wet_bulb" else (sf < 1.0)
-    tw = np.full(t.shape, _T0 - 1.0)
+    liquid_possible = (t > ZERO_CELSIUS_K) if method == "wet_bulb" else (sf < 1.0)
+    tw = np.full(t.shape, ZERO_CELSIUS_K - 1.0)
     tw[liquid_possible] = wet_bulb_temperature_normand(
         t[liquid_possible], rh[liquid_possible], p[liquid_possible]
     )
@@ -288,7 +286,7 @@ def bourgouin2000_areas(
     p_lev = np.asarray(p_levels_pa, dtype=np.float64)[order]
     t_lev = np.asarray(t_levels_k, dtype=np.float64)[order]
     shape = np.shape(t_surface_k)
-    cold_sfc = np.asarray(t_surface_k) < _T0
+    cold_sfc = np.asarray(t_surface_k) < ZERO_CELSIUS_K
     stage = np.where(cold_sfc, 0, 3)  # 0 cold surface layer, 1 warm layer, 2 above, 3 none
     melt = np.zeros(shape)
     cold = np.zeros(shape)
@@ -299,9 +297,9 @@ def bourgouin2000_areas(
         above = lnp_hi < lnp_lo
         dlnp = np.where(above, lnp_lo - lnp_hi, 0.0)
         t_hi = t_lev[k]
-        pos, neg = _split_area(t_lo - _T0, t_hi - _T0, dlnp)
-        cross_up = (t_lo < _T0) & (t_hi >= _T0)
-        cross_down = (t_lo >= _T0) & (t_hi < _T0)
+        pos, neg = _split_area(t_lo - ZERO_CELSIUS_K, t_hi - ZERO_CELSIUS_K, dlnp)
+        cross_up = (t_lo < ZERO_CELSIUS_K) & (t_hi >= ZERO_CELSIUS_K)
+        cross_down = (t_lo >= ZERO_CELSIUS_K) & (t_hi < ZERO_CELSIUS_K)
         in0, in1 = stage == 0, stage == 1
         cold += np.where(in0 & above, neg, 0.0)
         melt += np.where((in0 | in1) & above, pos, 0.0)
@@ -309,7 +307,7 @@ def bourgouin2000_areas(
         stage = np.where(above & (stage == 1) & cross_down, 2, stage)
         t_lo = np.where(above, t_hi, t_lo)
         lnp_lo = np.where(above, lnp_hi, lnp_lo)
-    return _RD * melt, _RD * cold
+    return R_DRY_J_KG_K * melt, R_DRY_J_KG_K * cold
 
 
 def freezing_rain_fraction_bourgouin2000(melt_area_j_kg, cold_area_j_kg) -> np.ndarray:
@@ -362,5 +360,5 @@ def freezing_rain_at_cell(
     freezing_rain_frac : ndarray (cell, time) float64
         The aloft fraction where the cell's air is below 0 degC, else 0 [1].
     """
-    fzra = np.where(np.asarray(t_air_k) < _T0, np.clip(fzra_aloft_frac, 0.0, 1.0), 0.0)
+    fzra = np.where(np.asarray(t_air_k) < ZERO_CELSIUS_K, np.clip(fzra_aloft_frac, 0.0, 1.0), 0.0)
     return np.minimum(snow_frac, 1.0 - fzra), fzra

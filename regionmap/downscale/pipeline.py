@@ -34,8 +34,6 @@ from .weights import CellWeights, build_cell_weights
 
 __all__ = ["CellBatch", "prepare_cells", "downscale_cells", "downscale_record"]
 
-_G0 = 9.80665
-_RD = 287.04749097718457
 _SERIES = (
     "t_air_k",
     "rh_frac",

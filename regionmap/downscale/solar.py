@@ -14,8 +14,9 @@ from __future__ import annotations
 import numpy as np
 from numba import njit
 
+from regionmap.constants import SOLAR_CONSTANT_W_M2
+
 __all__ = [
-    "SOLAR_CONSTANT_W_M2",
     "sun_terms_noaa",
     "hour_angle_deg",
     "solar_position_noaa",
@@ -30,7 +31,6 @@ __all__ = [
 
 #: Total solar irradiance [W m-2], Kopp & Lean (2011), GRL 38, L01706,
 #: doi:10.1029/2010GL045777.
-SOLAR_CONSTANT_W_M2 = 1361.0
 
 
 def _as_datetime64_s(time) -> np.ndarray:

@@ -1,14 +1,41 @@
-"""Moist thermodynamics of near-surface air: pure functions on float64 arrays (SI units)."""
+"""Moist thermodynamics of near-surface air (SI units).
+
+The saturation curves and the specific humidity are numba ufuncs: one implementation serves
+NumPy code (arrays of any shape, xarray objects, scalars) and the compiled snow kernel,
+which calls them on scalars. The other functions work on float64 arrays.
+"""
 
 from __future__ import annotations
 
+import math
+
 import numpy as np
+from numba import float64, vectorize
+
+from regionmap.constants import (
+    C_AIR_J_KG_K,
+    EPSILON,
+    GRAVITY_M_S2,
+    ICAO_LAPSE_RATE_K_M,
+    ICAO_PRESSURE_EXPONENT,
+    ICAO_PRESSURE_PA,
+    ICAO_TEMPERATURE_K,
+    L_VAPOUR_J_KG,
+    R_DRY_J_KG_K,
+    ZERO_CELSIUS_K,
+)
 
 __all__ = [
-    "EPSILON",
+    "BUCK1981_WATER_PA",
+    "BUCK1981_WATER_B",
+    "BUCK1981_WATER_C_DEGC",
+    "BUCK1981_ICE_PA",
+    "BUCK1981_ICE_B",
+    "BUCK1981_ICE_C_DEGC",
     "saturation_vapour_pressure_water_buck1981",
     "saturation_vapour_pressure_ice_buck1981",
     "dew_point_from_vapour_pressure_buck1981",
+    "relative_humidity_from_dew_point",
     "vapour_pressure_from_specific_humidity",
     "specific_humidity_from_vapour_pressure",
     "relative_humidity_from_specific_humidity",
@@ -18,57 +45,64 @@ __all__ = [
     "pressure_hypsometric",
 ]
 
-#: Ratio of the gas constants of dry air and water vapour [1].
-EPSILON = 287.04749097718457 / 461.52311572606084
-_RD = 287.04749097718457  # J kg-1 K-1, dry air
-_G0 = 9.80665  # m s-2, standard gravity (ICAO)
-_CP_D = 1004.6662184201462  # J kg-1 K-1, dry air
-_LV = 2.50084e6  # J kg-1, latent heat of vaporisation at 0 degC
-_T0 = 273.15
+#: Buck (1981)'s curve e = a exp(b T / (c + T)), T in degC, over plane water: the
+#: coefficients he calls e_w1 (a = 6.1121 hPa, b = 17.502, c = 240.97 degC; fitted for
+#: -20 to +50 degC).
+BUCK1981_WATER_PA = 611.21
+BUCK1981_WATER_B = 17.502
+BUCK1981_WATER_C_DEGC = 240.97
+#: The same form over plane ice, Buck's e_i1 (6.1115 hPa, 22.452, 272.55 degC; -50 to 0 degC).
+BUCK1981_ICE_PA = 611.15
+BUCK1981_ICE_B = 22.452
+BUCK1981_ICE_C_DEGC = 272.55
 
 
-def saturation_vapour_pressure_water_buck1981(t_k) -> np.ndarray:
-    """Saturation vapour pressure over plane water (Buck 1981).
+@vectorize([float64(float64)], nopython=True, cache=True)
+def saturation_vapour_pressure_water_buck1981(t_k):
+    """Saturation vapour pressure over plane pure water (Buck 1981).
 
     Parameters
     ----------
-    t_k : array_like float64
-        Air temperature [K].
+    t_k : float or array_like
+        Temperature [K].
 
     Returns
     -------
-    ndarray float64
-        e_s = 611.21 exp(17.502 T / (240.97 + T)), T in degC [Pa].
+    float or ndarray float64
+        e_w = 611.21 exp(17.502 T / (240.97 + T)), T in degC [Pa] (no enhancement factor).
 
     References
     ----------
     Buck, A. L. (1981). New equations for computing vapor pressure and enhancement factor.
-    J. Appl. Meteorol. 20(12), 1527-1532, Eq. 3 coefficients (e_w1).
-    doi:10.1175/1520-0450(1981)020<1527:NEFCVP>2.0.CO;2
+    J. Appl. Meteorol. 20(12), 1527-1532, coefficients e_w1 of his Table 2 [mem: the
+    table and its labels recalled, not re-read]. doi:10.1175/1520-0450(1981)020<1527:NEFCVP>2.0.CO;2
     """
-    t_c = np.asarray(t_k, dtype=np.float64) - _T0
-    return 611.21 * np.exp(17.502 * t_c / (240.97 + t_c))
+    t_c = t_k - ZERO_CELSIUS_K
+    return BUCK1981_WATER_PA * math.exp(BUCK1981_WATER_B * t_c / (BUCK1981_WATER_C_DEGC + t_c))
 
 
-def saturation_vapour_pressure_ice_buck1981(t_k) -> np.ndarray:
+@vectorize([float64(float64)], nopython=True, cache=True)
+def saturation_vapour_pressure_ice_buck1981(t_k):
     """Saturation vapour pressure over plane ice (Buck 1981).
 
     Parameters
     ----------
-    t_k : array_like float64
-        Air temperature [K].
+    t_k : float or array_like
+        Temperature [K].
 
     Returns
     -------
-    ndarray float64
-        e_i = 611.15 exp(22.452 T / (272.55 + T)), T in degC [Pa].
+    float or ndarray float64
+        e_i = 611.15 exp(22.452 T / (272.55 + T)), T in degC [Pa] (no enhancement factor).
 
     References
     ----------
-    Buck (1981), J. Appl. Meteorol. 20(12), 1527-1532 (e_i1 coefficients).
+    Buck, A. L. (1981). New equations for computing vapor pressure and enhancement factor.
+    J. Appl. Meteorol. 20(12), 1527-1532, coefficients e_i1 of his Table 2 [mem: the
+    table and its labels recalled, not re-read]. doi:10.1175/1520-0450(1981)020<1527:NEFCVP>2.0.CO;2
     """
-    t_c = np.asarray(t_k, dtype=np.float64) - _T0
-    return 611.15 * np.exp(22.452 * t_c / (272.55 + t_c))
+    t_c = t_k - ZERO_CELSIUS_K
+    return BUCK1981_ICE_PA * math.exp(BUCK1981_ICE_B * t_c / (BUCK1981_ICE_C_DEGC + t_c))
 
 
 def dew_point_from_vapour_pressure_buck1981(e_pa) -> np.ndarray:
@@ -82,10 +116,29 @@ def dew_point_from_vapour_pressure_buck1981(e_pa) -> np.ndarray:
     Returns
     -------
     ndarray float64
-        Dew point T_d = 240.97 x / (17.502 - x) + 273.15, x = ln(e / 611.21) [K].
+        Dew point T_d = c x / (b - x) + 273.15, x = ln(e / a) [K], with Buck's water
+        coefficients a, b, c.
     """
-    x = np.log(np.asarray(e_pa, dtype=np.float64) / 611.21)
-    return 240.97 * x / (17.502 - x) + _T0
+    x = np.log(np.asarray(e_pa, dtype=np.float64) / BUCK1981_WATER_PA)
+    return BUCK1981_WATER_C_DEGC * x / (BUCK1981_WATER_B - x) + ZERO_CELSIUS_K
+
+
+def relative_humidity_from_dew_point(t_dew_k, t_k) -> np.ndarray:
+    """Relative humidity over water from the dew point [1].
+
+    Parameters
+    ----------
+    t_dew_k, t_k : array_like float64
+        Dew point and air temperature [K].
+
+    Returns
+    -------
+    ndarray float64
+        e_s(T_d) / e_s(T) with the water curve of
+        :func:`saturation_vapour_pressure_water_buck1981`, not clipped [1].
+    """
+    es = saturation_vapour_pressure_water_buck1981
+    return es(t_dew_k) / es(t_k)
 
 
 def vapour_pressure_from_specific_humidity(q_kg_kg, pressure_pa) -> np.ndarray:
@@ -107,16 +160,22 @@ def vapour_pressure_from_specific_humidity(q_kg_kg, pressure_pa) -> np.ndarray:
     return q * pressure_pa / (EPSILON + (1.0 - EPSILON) * q)
 
 
-def specific_humidity_from_vapour_pressure(e_pa, pressure_pa) -> np.ndarray:
-    """Specific humidity from vapour pressure: q = eps e / (p - (1 - eps) e) [kg kg-1].
+@vectorize([float64(float64, float64)], nopython=True, cache=True)
+def specific_humidity_from_vapour_pressure(e_pa, pressure_pa):
+    """Specific humidity from vapour pressure [kg kg-1].
 
     Parameters
     ----------
-    e_pa, pressure_pa : array_like float64
+    e_pa, pressure_pa : float or array_like
         Vapour pressure and air pressure [Pa].
+
+    Returns
+    -------
+    float or ndarray float64
+        q = eps e / (p - (1 - eps) e), eps = R_d / R_v (e.g. Wallace & Hobbs 2006,
+        Atmospheric Science, Eq. 3.57) [kg kg-1].
     """
-    e = np.asarray(e_pa, dtype=np.float64)
-    return EPSILON * e / (pressure_pa - (1.0 - EPSILON) * e)
+    return EPSILON * e_pa / (pressure_pa - (1.0 - EPSILON) * e_pa)
 
 
 def relative_humidity_from_specific_humidity(q_kg_kg, t_k, pressure_pa) -> np.ndarray:
@@ -190,12 +249,13 @@ def wet_bulb_temperature_normand(t_k, rh_frac, pressure_pa, n_steps: int = 6) ->
     )
     td = np.minimum(dew_point_from_vapour_pressure_buck1981(e), t)
     t_lcl = 1.0 / (1.0 / (td - 56.0) + np.log(t / td) / 800.0) + 56.0
-    p_lcl = p * (t_lcl / t) ** (_CP_D / _RD)
+    p_lcl = p * (t_lcl / t) ** (C_AIR_J_KG_K / R_DRY_J_KG_K)
 
     def slope(tt, pp):
         es = saturation_vapour_pressure_water_buck1981(tt)
         rs = EPSILON * es / (pp - es)
-        return (_RD * tt + _LV * rs) / (pp * (_CP_D + _LV * _LV * rs * EPSILON / (_RD * tt * tt)))
+        lv, rd = L_VAPOUR_J_KG, R_DRY_J_KG_K
+        return (rd * tt + lv * rs) / (pp * (C_AIR_J_KG_K + lv * lv * rs * EPSILON / (rd * tt * tt)))
 
     h = (p - p_lcl) / n_steps
     tw, pp = t_lcl, p_lcl
@@ -227,7 +287,9 @@ def pressure_standard_atmosphere_icao(elevation_m) -> np.ndarray:
     ICAO (1993), Manual of the ICAO Standard Atmosphere, Doc 7488/3; ISO 2533:1975.
     """
     z = np.asarray(elevation_m, dtype=np.float64)
-    return 101325.0 * (1.0 - 0.0065 * z / 288.15) ** 5.25588
+    return ICAO_PRESSURE_PA * (1.0 - ICAO_LAPSE_RATE_K_M * z / ICAO_TEMPERATURE_K) ** (
+        ICAO_PRESSURE_EXPONENT
+    )
 
 
 def pressure_hypsometric(pressure_pa, t_mean_k, dz_m) -> np.ndarray:
@@ -248,4 +310,7 @@ def pressure_hypsometric(pressure_pa, t_mean_k, dz_m) -> np.ndarray:
         p exp(-g0 dz / (R_d T_mean)) [Pa] (the hypsometric equation, e.g. Wallace & Hobbs
         2006, Atmospheric Science, Eq. 3.29).
     """
-    return np.asarray(pressure_pa) * np.exp(-_G0 * np.asarray(dz_m) / (_RD * np.asarray(t_mean_k)))
+    dz = np.asarray(dz_m)
+    return np.asarray(pressure_pa) * np.exp(
+        -GRAVITY_M_S2 * dz / (R_DRY_J_KG_K * np.asarray(t_mean_k))
+    )

@@ -41,6 +41,7 @@ import numpy as np
 import xarray as xr
 from scipy import sparse
 
+from regionmap.constants import GRAVITY_M_S2, ZERO_CELSIUS_K
 from regionmap.downscale import thermo as _thermo
 from regionmap.errors import ConfigError, ForcingReadError, GridMismatchError
 from regionmap.io import forcing_mapping as M
@@ -677,7 +678,7 @@ def _level_pressure(var, path):
 
 def _surface_altitude(datasets, paths, shape, mapping):
     ds, p = datasets[0], paths[0]
-    factors = {"surface_altitude": 1.0, "surface_geopotential": 1 / U.G0_M_S2}
+    factors = {"surface_altitude": 1.0, "surface_geopotential": 1 / GRAVITY_M_S2}
     for (sn,) in M.ranked_alternatives([(sn,) for sn in factors], mapping):
         factor, entry = factors[sn], mapping.get(sn, {})
         mapped = entry and all(n in ds for n in M.names_of(entry))
@@ -968,7 +969,7 @@ def _unit_hint(s: _Source, low: float, high: float, value: float) -> str:
     if sn.endswith("temperature"):
         if s.offset == 0.0 and -90.0 < value < 60.0:
             return '; the values look like degrees Celsius labelled K: set units = "degC"'
-        if s.offset != 0.0 and low < value - 273.15 < high:
+        if s.offset != 0.0 and low < value - ZERO_CELSIUS_K < high:
             return '; the values look like kelvin labelled degrees Celsius: set units = "K"'
     if "precipitation" in sn and low < value / 1000.0 < high:
         return "; the values look 1000 times too large: mm labelled m?"
@@ -1048,7 +1049,9 @@ def _compute(sources, names, rows, alt, reader):
                     get("humidity"), get("air_temperature"), pressure()
                 )
             else:
-                v = U.relative_humidity_from_dew_point(get("humidity"), get("air_temperature"))
+                v = _thermo.relative_humidity_from_dew_point(
+                    get("humidity"), get("air_temperature")
+                )
             stats["rh_clipped"] += int(((v > 1.0) | (v < 0.0)).sum())
             v = np.clip(v, 0.0, 1.0)
         elif sources["wind"][0].standard_name == "eastward_wind":

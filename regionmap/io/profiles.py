@@ -62,6 +62,7 @@ import defusedxml.ElementTree as DET
 import numpy as np
 import pandas as pd
 
+from regionmap.constants import RHO_ICE_KG_M3, RHO_WATER_KG_M3, T_MELT_K
 from regionmap.errors import InputError
 from regionmap.io.stations import _read_csv_lines
 from regionmap.io.times import utc_datetime64
@@ -86,8 +87,6 @@ _NS_PREFIX = "http://caaml.org/Schemas/SnowProfileIOP/v6"
 #: class below).
 WETNESS_LIQUID_FRAC: dict[str, float] = {"D": 0.0, "M": 0.015, "W": 0.055, "V": 0.115, "S": 0.175}
 
-_WATER_DENSITY_KG_M3 = 1000.0
-_T0_K = 273.15
 _GAP_TOLERANCE_M = 0.005
 _LENGTH_M = {"mm": 1e-3, "cm": 1e-2, "m": 1.0, "": 1e-2}
 
@@ -145,7 +144,7 @@ class ObservedProfile:
 
     def liquid_kg_m2(self) -> np.ndarray:
         """Liquid water per layer, θw ρw h [kg m-2]."""
-        return self.liquid_frac * _WATER_DENSITY_KG_M3 * self.thickness_m
+        return self.liquid_frac * RHO_WATER_KG_M3 * self.thickness_m
 
     def ice_kg_m2(self) -> np.ndarray:
         """Ice per layer, ρ h − liquid [kg m-2]."""
@@ -274,8 +273,13 @@ def _build_profile(
         density[idx] = density_from_hardness_array(
             hardness[idx], codes[idx], where=f"{source} (density from hardness)"
         )
-    ice_volume = (density - liquid * _WATER_DENSITY_KG_M3) / 917.0
-    bad = (density <= 0) | (density > 917.0) | (ice_volume < 0) | (ice_volume + liquid > 1.0 + 1e-9)
+    ice_volume = (density - liquid * RHO_WATER_KG_M3) / RHO_ICE_KG_M3
+    bad = (
+        (density <= 0)
+        | (density > RHO_ICE_KG_M3)
+        | (ice_volume < 0)
+        | (ice_volume + liquid > 1.0 + 1e-9)
+    )
     if bad.any():
         i = int(np.flatnonzero(bad)[0])
         raise InputError(
@@ -290,17 +294,17 @@ def _build_profile(
     if z_pts.size:
         surface = t_pts[np.argmin(z_pts)]
     elif np.isfinite(air_temp_k):
-        surface = min(air_temp_k, _T0_K)
+        surface = min(air_temp_k, T_MELT_K)
     else:
-        surface = _T0_K
+        surface = T_MELT_K
     z_all = np.concatenate([[0.0], z_pts, [total]])
-    t_all = np.concatenate([[surface], t_pts, [_T0_K]])
+    t_all = np.concatenate([[surface], t_pts, [T_MELT_K]])
     sort = np.argsort(z_all, kind="stable")
     temperature = np.where(known, layer_temp_k, np.interp(mid_depth, z_all[sort], t_all[sort]))
     interpolated = ~known
     wet = liquid > 0
-    interpolated |= wet & (temperature != _T0_K)
-    temperature = np.where(wet, _T0_K, temperature)
+    interpolated |= wet & (temperature != T_MELT_K)
+    temperature = np.where(wet, T_MELT_K, temperature)
     return ObservedProfile(
         time=time,
         source=str(source),
@@ -349,11 +353,11 @@ def _check_ranges(top_m, bottom_m, grain_size_mm, where: list[str]) -> None:
 
 
 def _check_temperature(t_k: np.ndarray, where: str) -> None:
-    bad = np.isfinite(t_k) & ((t_k > _T0_K) | (t_k < _T0_K - 70.0))
+    bad = np.isfinite(t_k) & ((t_k > T_MELT_K) | (t_k < T_MELT_K - 70.0))
     if bad.any():
         raise InputError(
-            f"{where}: snow temperature {t_k[bad][0] - _T0_K:.1f} °C is outside -70 … 0 °C; snow "
-            "cannot be warmer than 0 °C (enter 0 for wet snow)."
+            f"{where}: snow temperature {t_k[bad][0] - T_MELT_K:.1f} °C is outside -70 … 0 °C; "
+            "snow cannot be warmer than 0 °C (enter 0 for wet snow)."
         )
 
 
@@ -540,7 +544,7 @@ def read_caaml_profile(path: str | Path) -> ObservedProfile:
         layer_temp_k=np.full(n, np.nan),
         temp_height_m=temp_height,
         temp_k=temp_k,
-        air_temp_k=air_c + _T0_K,
+        air_temp_k=air_c + T_MELT_K,
         snow_depth_m=total,
         where=where,
         name=doc.text(root, "locRef/name") or "",
@@ -576,7 +580,7 @@ def _caaml_temperatures(doc: _Caaml, meas: ET.Element, default_dir: str, total_m
             f"{where}: a temperature observation lies outside the snowpack (0 … "
             f"{total_m * 100:.1f} cm)."
         )
-    temp_k = temp_c + _T0_K
+    temp_k = temp_c + T_MELT_K
     _check_temperature(temp_k, where)
     return height, temp_k
 
@@ -657,7 +661,7 @@ def read_csv_profile(path: str | Path) -> ObservedProfile:
     air_k = np.nan
     if "air_temperature_degC" in meta:
         try:
-            air_k = float(meta["air_temperature_degC"]) + _T0_K
+            air_k = float(meta["air_temperature_degC"]) + T_MELT_K
         except ValueError:
             raise InputError(
                 f"Profile file {path}, '# air_temperature_degC:' line: expected a number, got "
@@ -691,7 +695,7 @@ def read_csv_profile(path: str | Path) -> ObservedProfile:
     bottom = numbers("bottom_cm", True) / 100.0
     size = numbers("grain_size_mm", True)
     rho = numbers("density_kg_m3", False)
-    layer_t = numbers("temperature_degC", False) + _T0_K
+    layer_t = numbers("temperature_degC", False) + T_MELT_K
     _check_temperature(layer_t, f"Profile file {path}, column 'temperature_degC'")
     if np.any(size < 0):
         i = int(np.flatnonzero(size < 0)[0])

@@ -34,13 +34,13 @@ import numpy as np
 import pandas as pd
 import pint
 
+from regionmap.constants import RHO_WATER_KG_M3
 from regionmap.errors import InputError
 
 __all__ = [
     "EXPOSURE_CLASSES",
     "OBSERVATION_VARIABLES",
     "CANONICAL_UNITS",
-    "WATER_DENSITY_KG_M3",
     "read_stations",
     "read_observations",
 ]
@@ -51,7 +51,6 @@ __all__ = [
 EXPOSURE_CLASSES: tuple[str, ...] = ("sheltered", "neutral", "exposed")
 
 #: Density of liquid water used to turn a depth of water into a mass per area [kg m-3].
-WATER_DENSITY_KG_M3 = 1000.0
 
 #: Canonical unit of each observation variable.
 CANONICAL_UNITS: dict[str, str] = {
@@ -287,7 +286,7 @@ def _to_canonical(values: np.ndarray, name: str, unit: pint.Unit) -> np.ndarray:
         name in _WATER_DEPTH_VARIABLES
         and unit.dimensionality == ureg.parse_units("m").dimensionality
     ):
-        quantity = quantity * ureg.Quantity(WATER_DENSITY_KG_M3, "kg m-3")
+        quantity = quantity * ureg.Quantity(RHO_WATER_KG_M3, "kg m-3")
     return np.asarray(quantity.to(CANONICAL_UNITS[name]).magnitude, dtype=np.float64)
 
 

@@ -5,10 +5,8 @@ notes (``degree_C`` spellings, and depth of water ↔ mass per area) are handled
 explicitly, never guessed. Every conversion is affine (``value * scale + offset``), so the
 reader can apply it lazily and exactly.
 
-Physics helpers (plain NumPy, float64):
-
-* :func:`relative_humidity_from_dew_point` (saturation curve from ``downscale.thermo``).
-* :func:`wind_from_components`, :func:`components_from_wind`.
+Wind helpers (plain NumPy, float64): :func:`wind_from_components`,
+:func:`components_from_wind`.
 """
 
 from __future__ import annotations
@@ -17,23 +15,14 @@ import re
 
 import numpy as np
 
-from regionmap.downscale.thermo import saturation_vapour_pressure_water_buck1981
+from regionmap.constants import RHO_WATER_KG_M3
 
 __all__ = [
-    "WATER_DENSITY_KG_M3",
-    "G0_M_S2",
     "normalise_units",
     "affine_conversion",
-    "relative_humidity_from_dew_point",
     "wind_from_components",
     "components_from_wind",
 ]
-
-WATER_DENSITY_KG_M3 = 1000.0
-"""Density of liquid water used for depth ↔ mass of precipitation (1 mm = 1 kg m-2)."""
-
-G0_M_S2 = 9.80665
-"""Standard gravity (CGPM 1901), for geopotential ↔ geopotential height."""
 
 _CELSIUS = re.compile(r"^\s*(deg(ree)?s?[ _]?c(elsius)?|°\s?c|c(elsius)?)\s*$", re.IGNORECASE)
 
@@ -99,7 +88,7 @@ def affine_conversion(units: str, target: str) -> tuple[float, float]:
     -----
     A depth of liquid water (``mm``, ``m``) converts to mass per area, and a depth rate
     (``mm h-1``, ``m s-1`` of water) to a mass flux, through the density of water
-    ``WATER_DENSITY_KG_M3`` = 1000 kg m-3, explicitly: pint alone cannot know that the
+    ``RHO_WATER_KG_M3`` = 1000 kg m-3, explicitly: pint alone cannot know that the
     length is a water-equivalent thickness.
 
     Raises
@@ -112,7 +101,7 @@ def affine_conversion(units: str, target: str) -> tuple[float, float]:
     dst_units = ureg.Unit(normalise_units(target))
     mass_per_area = ureg.Unit("kg m-2").dimensionality
     if dst_units.dimensionality in (mass_per_area, (ureg.Unit("kg m-2 s-1")).dimensionality):
-        water = ureg.Quantity(WATER_DENSITY_KG_M3, "kg m-3")
+        water = ureg.Quantity(RHO_WATER_KG_M3, "kg m-3")
         if (src * water).dimensionality == dst_units.dimensionality:
             src = src * water
     try:
@@ -124,13 +113,6 @@ def affine_conversion(units: str, target: str) -> tuple[float, float]:
         ) from None
     offset = float(out[0])
     return float(out[1] - out[0]), offset
-
-
-def relative_humidity_from_dew_point(t_dew_k, t_air_k):
-    """Relative humidity over water [1] = e_s(T_d) / e_s(T), with the Buck (1981) water curve
-    of :func:`regionmap.downscale.thermo.saturation_vapour_pressure_water_buck1981`."""
-    es = saturation_vapour_pressure_water_buck1981
-    return es(t_dew_k) / es(t_air_k)
 
 
 def wind_from_components(u_m_s, v_m_s):

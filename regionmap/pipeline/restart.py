@@ -36,19 +36,19 @@ import numpy as np
 import pandas as pd
 
 from regionmap.config import parse_band
+from regionmap.constants import (
+    C_ICE_J_KG_K,
+    C_WATER_J_KG_K,
+    L_FUSION_J_KG,
+    RHO_WATER_KG_M3,
+    T_MELT_K,
+)
 from regionmap.errors import InputError
 from regionmap.io.profiles import ObservedProfile, read_profile
 from regionmap.io.times import utc_datetime64
 from regionmap.snow.codes import CRUST_INDEX, GRAIN_INDEX
 from regionmap.snow.column import run_columns
-from regionmap.snow.constants import (
-    C_ICE_J_KG_K,
-    C_WATER_J_KG_K,
-    EPOCH_2000_S,
-    L_FUSION_J_KG,
-    RHO_WATER_KG_M3,
-    T_MELT_K,
-)
+from regionmap.snow.containers import EPOCH_2000_S
 from regionmap.snow.crusts import FLAG_WAS_WET, FLAG_WET_MELT
 from regionmap.snow.diagnostics import layer_hardness_array
 from regionmap.snow.params import SnowParams
@@ -337,7 +337,7 @@ def column_enthalpy_j_m2(state: SnowState) -> np.ndarray:
     Sum over active layers of ``(c_ice M_ice + c_w M_liq)(T − T0) − L_f M_ice`` and
     ``− L_f M_SH`` for surface hoar on the surface (taken at 0 °C), the convention of the
     column kernel (:func:`regionmap.snow.kernel.column_enthalpy`). Soil is not included.
-    Constants from :mod:`regionmap.snow.constants`.
+    Constants from :mod:`regionmap.constants`.
     """
     active = np.arange(state.max_layers)[None, :] < state.layer_count[:, None]
     ice = np.where(active, state.ice_kg_m2, 0.0)

@@ -30,6 +30,7 @@ import pandas as pd
 from matplotlib.lines import Line2D
 from matplotlib.patches import Patch
 
+from regionmap.constants import RHO_WATER_KG_M3, ZERO_CELSIUS_K
 from regionmap.errors import InputError
 from regionmap.io.times import local_time_label, utc_datetime64
 from regionmap.plots.outputs import SECTOR_ORDER, RunOutputs
@@ -58,7 +59,6 @@ __all__ = [
 #: upper limits of the wetness classes dry / moist / wet / very wet, % by volume (Fierz et al.
 #: 2009).
 WETNESS_LIMITS_PCT = (0.0, 3.0, 8.0, 15.0)
-_WATER_DENSITY_KG_M3 = 1000.0
 
 
 def _outputs(out) -> RunOutputs:
@@ -178,9 +178,7 @@ def read_profile(out, cell_id: int, time=None) -> dict:
     grain = strings("grain_class")
     with np.errstate(invalid="ignore", divide="ignore"):
         density = np.where(thick > 0, mass / thick, np.nan)
-        lwc = np.where(
-            thick > 0, arr("liquid_kg_m2") / _WATER_DENSITY_KG_M3 / thick * 100.0, np.nan
-        )
+        lwc = np.where(thick > 0, arr("liquid_kg_m2") / RHO_WATER_KG_M3 / thick * 100.0, np.nan)
     crust = strings("crust_kind")
     concern = weak_layers_of_concern(
         np.array([n]),
@@ -200,7 +198,7 @@ def read_profile(out, cell_id: int, time=None) -> dict:
         "crust": np.where(crust == "", "none", crust),
         "hardness": arr("hardness_index"),
         "grain_size_mm": arr("grain_size_mm"),
-        "temperature_c": arr("temperature_k") - 273.15,
+        "temperature_c": arr("temperature_k") - ZERO_CELSIUS_K,
         "density_kg_m3": density,
         "lwc_pct": lwc,
         "persistent": np.isin(grain, PERSISTENT_CODES),

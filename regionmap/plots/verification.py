@@ -20,6 +20,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
+from regionmap.constants import ZERO_CELSIUS_K
 from regionmap.plots.style import OKABE_ITO, new_figure, save_png, slug
 
 __all__ = [
@@ -32,7 +33,7 @@ __all__ = [
 
 #: Axis label and display scaling (offset, factor) per canonical variable.
 VARIABLE_LABELS: dict[str, tuple[str, float, float]] = {
-    "air_temperature": ("air temperature [°C]", -273.15, 1.0),
+    "air_temperature": ("air temperature [°C]", -ZERO_CELSIUS_K, 1.0),
     "relative_humidity": ("relative humidity [%]", 0.0, 100.0),
     "wind_speed": ("wind speed [m s-1]", 0.0, 1.0),
     "precipitation": ("precipitation per interval [kg m-2]", 0.0, 1.0),

@@ -8,7 +8,7 @@ import math
 import numpy as np
 from numba import njit
 
-from regionmap.snow.containers import Column, StepWeather, StepWork
+from regionmap.snow.containers import EPOCH_2000_S, Column, StepWeather, StepWork
 from regionmap.snow.diagnostics import (
     N_SCRATCH_ROWS,
     N_STRUCT,
@@ -130,7 +130,7 @@ N_SI_SNAP = 6
 @njit(cache=True, nogil=True, error_model="numpy")
 def _log_event(c, kind, event_id, t_label, amount, log):
     """Append to or extend the cell's event log; returns a status bit on overflow."""
-    k = log.count[c]
+    k = log.n_logged[c]
     for j in range(k - 1, -1, -1):
         if log.kind[c, j] == kind and log.event_id[c, j] == event_id:
             log.last_s[c, j] = t_label
@@ -143,7 +143,7 @@ def _log_event(c, kind, event_id, t_label, amount, log):
     log.first_s[c, k] = t_label
     log.last_s[c, k] = t_label
     log.amount_kg_m2[c, k] = amount
-    log.count[c] = k + 1
+    log.n_logged[c] = k + 1
     return 0
 
 
@@ -204,7 +204,7 @@ def _store_cell(col, cap, state, c):
 
 
 @njit(cache=True, nogil=True, error_model="numpy")
-def _step_weather(forcing, c, s, epoch_s):
+def _step_weather(forcing, c, s):
     """The forcing of cell ``c`` at step ``s``, clipped to its physical range, or None when a
     value is not finite."""
     ta = forcing.t_air_k[c, s]
@@ -240,7 +240,7 @@ def _step_weather(forcing, c, s, epoch_s):
         min(max(sf, 0.0), 1.0),
         min(max(fzf, 0.0), 1.0),
         transport,
-        forcing.time_s[s] - epoch_s,
+        forcing.time_s[s] - EPOCH_2000_S,
         forcing.time_s[s] // 3600,
         forcing.event_hour[s],
         forcing.dt_s,
@@ -385,7 +385,6 @@ def run_cells(c0, c1, forcing, p, state, diagnostics, snapshots, events, status)
     scratch = np.zeros((N_SCRATCH_ROWS, cap))
     struct = np.zeros(N_STRUCT)
     relative = p[P_THRESHOLD_MODE] != 0.0  # 1: relative thresholds
-    epoch_2000_s = 946684800
     for c in range(c0, c1):
         _load_cell(state, c, col, cap)
         st = 0
@@ -396,7 +395,7 @@ def run_cells(c0, c1, forcing, p, state, diagnostics, snapshots, events, status)
             col.fw, col.si[J_N], col.sv[V_SH_MASS]
         )
         for s in range(n_steps):
-            ok, met = _step_weather(forcing, c, s, epoch_2000_s)
+            ok, met = _step_weather(forcing, c, s)
             if ok:
                 st |= _step(col, met, p, cap, work)
             else:

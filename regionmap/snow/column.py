@@ -21,8 +21,8 @@ from regionmap.downscale.types import CellForcing
 from regionmap.errors import GridMismatchError, InputError, warn
 from regionmap.snow import batch as B
 from regionmap.snow.codes import crust_codes_to_strings, grain_codes_to_strings
-from regionmap.snow.constants import EPOCH_2000_S
 from regionmap.snow.containers import (
+    EPOCH_2000_S,
     Diagnostics,
     EventLog,
     ForcingArrays,
@@ -324,7 +324,7 @@ def _empty_event_log(n_cells: int, max_events: int) -> EventLog:
         first_s=np.zeros((n_cells, max_events), dtype=np.int64),
         last_s=np.zeros((n_cells, max_events), dtype=np.int64),
         amount_kg_m2=np.zeros((n_cells, max_events)),
-        count=np.zeros(n_cells, dtype=np.int64),
+        n_logged=np.zeros(n_cells, dtype=np.int64),
     )
 
 
@@ -336,7 +336,7 @@ def _diagnostics_dict(time, out: Diagnostics, events: EventLog, status: np.ndarr
         diagnostics[name] = out.d64[row]
     for name, (row, dtype) in DIAGNOSTICS_32.items():
         diagnostics[name] = out.d32[row].astype(dtype) if dtype is not np.float32 else out.d32[row]
-    slot_used = np.arange(events.kind.shape[1])[None, :] < events.count[:, None]
+    slot_used = np.arange(events.kind.shape[1])[None, :] < events.n_logged[:, None]
     cells, slots = np.nonzero(slot_used)
     kinds = events.kind[cells, slots]
     diagnostics["event_kind"] = np.array([EVENT_KINDS[int(k)] for k in kinds], dtype=object)

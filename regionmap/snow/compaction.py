@@ -16,7 +16,7 @@ from __future__ import annotations
 
 from numba import njit
 
-from regionmap.snow.constants import T_MELT_K
+from regionmap.constants import T_MELT_K
 from regionmap.snow.vecmath import exp_vec
 
 __all__ = [

@@ -11,7 +11,7 @@ from __future__ import annotations
 
 from numba import njit
 
-from regionmap.snow.constants import L_FUSION_J_KG, T_MELT_K
+from regionmap.constants import L_FUSION_J_KG, T_MELT_K
 
 __all__ = [
     "conductivity_calonne2011",

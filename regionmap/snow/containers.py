@@ -14,7 +14,12 @@ from typing import NamedTuple
 
 import numpy as np
 
+#: 2000-01-01T00:00Z in seconds since 1970: the origin of the layer times the kernel keeps as
+#: int32 (``deposition_time_s2000``, ``formation_time_s2000``, ``StepWeather.now_s2000``).
+EPOCH_2000_S = 946684800
+
 __all__ = [
+    "EPOCH_2000_S",
     "ForcingArrays",
     "StateArrays",
     "Diagnostics",
@@ -122,7 +127,7 @@ class EventLog(NamedTuple):
     first_s: np.ndarray  #: int64 first interval end [s since 1970]
     last_s: np.ndarray  #: int64 last interval end [s since 1970]
     amount_kg_m2: np.ndarray  #: float64 amount summed over the event
-    count: np.ndarray  #: (cell,) int64 events logged
+    n_logged: np.ndarray  #: (cell,) int64 events logged
 
 
 class Column(NamedTuple):

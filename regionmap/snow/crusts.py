@@ -26,8 +26,8 @@ from __future__ import annotations
 
 from numba import njit
 
+from regionmap.constants import RHO_ICE_KG_M3
 from regionmap.snow.codes import CRUST_INDEX
-from regionmap.snow.constants import RHO_ICE_KG_M3
 
 __all__ = [
     "glaze_thickness_m",

@@ -21,8 +21,8 @@ from __future__ import annotations
 import numpy as np
 from numba import njit
 
+from regionmap.constants import RHO_WATER_KG_M3
 from regionmap.snow.codes import GRAIN_INDEX
-from regionmap.snow.constants import RHO_WATER_KG_M3
 from regionmap.snow.crusts import counts_as_crust
 from regionmap.snow.hardness import hardness_index_from_density, hardness_index_from_density_array
 from regionmap.snow.layering import F_GRAIN, F_ICE, F_LIQ, F_THICK, I_CODE, I_CRUST

@@ -52,6 +52,7 @@ import re
 import numpy as np
 from numba import njit
 
+from regionmap.constants import RHO_ICE_KG_M3
 from regionmap.errors import InputError
 from regionmap.snow.codes import CRUST_KINDS, GRAIN_CODES, GRAIN_INDEX
 
@@ -62,7 +63,6 @@ __all__ = [
     "FIELD_HARDNESS_RANGE",
     "CRUST_K_DENSITY_KG_M3",
     "CRUST_I_DENSITY_KG_M3",
-    "ICE_DENSITY_KG_M3",
     "hardness_index_from_density",
     "density_from_hardness",
     "hardness_index_from_density_array",
@@ -132,7 +132,6 @@ CRUST_K_DENSITY_KG_M3: float = GELDSETZER2000_FITS["RG"][0] + 5.0 * GELDSETZER20
 #: Density at which a crust counts as ice (I): pore close-off, firn turning to ice [3]. [mem]
 CRUST_I_DENSITY_KG_M3: float = 830.0
 #: Density of pure ice [kg m-3], used for ice formations (IF) when density is missing.
-ICE_DENSITY_KG_M3: float = 917.0
 
 _N_CODES = len(GRAIN_CODES)
 _FIT_A = np.full(_N_CODES, np.nan)
@@ -250,7 +249,7 @@ def density_from_hardness(hardness_index, grain_code):
     if grain_code <= 0 or grain_code >= _N_CODES or math.isnan(hardness_index):
         return np.nan
     if grain_code == _IF:
-        return ICE_DENSITY_KG_M3
+        return RHO_ICE_KG_M3
     if grain_code == _MFCR and hardness_index >= 5.0:
         return CRUST_K_DENSITY_KG_M3 + (hardness_index - 5.0) * (
             CRUST_I_DENSITY_KG_M3 - CRUST_K_DENSITY_KG_M3

@@ -18,15 +18,7 @@ from __future__ import annotations
 import numpy as np
 from numba import njit
 
-from regionmap.snow.codes import GRAIN_INDEX
-from regionmap.snow.compaction import compaction_strain_rate
-from regionmap.snow.conduction import (
-    conduction_back_substitution,
-    conduction_forward_sweep,
-    snow_conductivity,
-    soil_heat_capacity,
-)
-from regionmap.snow.constants import (
+from regionmap.constants import (
     C_ICE_J_KG_K,
     C_WATER_J_KG_K,
     GRAVITY_M_S2,
@@ -34,6 +26,18 @@ from regionmap.snow.constants import (
     RHO_ICE_KG_M3,
     RHO_WATER_KG_M3,
     T_MELT_K,
+)
+from regionmap.downscale.thermo import (
+    saturation_vapour_pressure_water_buck1981,
+    specific_humidity_from_vapour_pressure,
+)
+from regionmap.snow.codes import GRAIN_INDEX
+from regionmap.snow.compaction import compaction_strain_rate
+from regionmap.snow.conduction import (
+    conduction_back_substitution,
+    conduction_forward_sweep,
+    snow_conductivity,
+    soil_heat_capacity,
 )
 from regionmap.snow.crusts import (
     FLAG_FRONT,
@@ -139,8 +143,6 @@ from regionmap.snow.radiation import albedo_douville1995, penetration_fraction
 from regionmap.snow.surface import (
     neutral_exchange_coefficient,
     solve_surface_temperature,
-    specific_humidity,
-    vapour_pressure_water_buck1981,
     wet_bulb_temperature_psychrometric,
 )
 from regionmap.snow.surface_hoar import (
@@ -1128,7 +1130,9 @@ def _step(col, met, p, cap, work):
         else:
             runoff += rain
     # surface energy balance + conduction
-    q_air = specific_humidity(rh * vapour_pressure_water_buck1981(ta), pres)
+    q_air = specific_humidity_from_vapour_pressure(
+        rh * saturation_vapour_pressure_water_buck1981(ta), pres
+    )
     top_dry = n > 0 and fw[F_LIQ, n - 1] <= 0.0
     q_net, sw_snow, ground, sw_abs, lw_net, sens, lat, vap, ts = _energy_and_conduction(
         fw,

@@ -12,8 +12,8 @@ from __future__ import annotations
 
 from numba import njit
 
+from regionmap.constants import C_ICE_J_KG_K, C_WATER_J_KG_K
 from regionmap.snow.codes import GRAIN_INDEX
-from regionmap.snow.constants import C_ICE_J_KG_K, C_WATER_J_KG_K
 
 __all__ = [
     "F_ROWS",

@@ -24,8 +24,8 @@ import math
 
 from numba import njit
 
+from regionmap.constants import T_MELT_K
 from regionmap.snow.codes import GRAIN_INDEX
-from regionmap.snow.constants import T_MELT_K
 from regionmap.snow.vecmath import exp_vec, log_vec
 
 __all__ = [

@@ -10,7 +10,7 @@ import math
 
 from numba import njit
 
-from regionmap.snow.constants import T_MELT_K
+from regionmap.constants import T_MELT_K
 
 __all__ = [
     "new_snow_density_hedstrom1998",

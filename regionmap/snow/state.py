@@ -21,6 +21,7 @@ import pandas as pd
 import xarray as xr
 
 from regionmap.cells import IDENTITY_COLUMNS
+from regionmap.constants import RHO_WATER_KG_M3, T_MELT_K
 from regionmap.errors import InputError, OutputError
 from regionmap.io.atomic import is_no_space, no_space_error
 from regionmap.io.results import CELL_TABLE_VARIABLES
@@ -31,7 +32,7 @@ from regionmap.snow.codes import (
     grain_codes_to_strings,
     grain_strings_to_codes,
 )
-from regionmap.snow.constants import EPOCH_2000_S, T_MELT_K
+from regionmap.snow.containers import EPOCH_2000_S
 from regionmap.snow.diagnostics import layer_hardness_array
 from regionmap.snow.kernel import (
     J_FRONT_START,
@@ -175,7 +176,7 @@ class SnowState:
         *,
         time="2000-01-01T00:00",
         cell_id=None,
-        soil_temperature_k: float = 273.15,
+        soil_temperature_k: float = T_MELT_K,
     ) -> SnowState:
         """Snow-free cells at ``time`` with soil at ``soil_temperature_k``."""
         n = int(n_cells)
@@ -606,7 +607,7 @@ def _check_physical(ds: xr.Dataset, active: np.ndarray, source: str) -> None:
     mass = np.asarray(ds["ice_kg_m2"].values, float) + np.asarray(ds["liquid_kg_m2"].values, float)
     with np.errstate(divide="ignore", invalid="ignore"):
         density = mass / np.asarray(ds["thickness_m"].values, float)
-    found = _first_bad(density, 1.0, 1000.0 * 1.01, active)
+    found = _first_bad(density, 1.0, RHO_WATER_KG_M3 * 1.01, active)
     if found is not None:
         (cell, layer), value = found
         raise InputError(

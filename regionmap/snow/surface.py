@@ -10,21 +10,28 @@ import math
 
 from numba import njit
 
-from regionmap.snow.constants import (
+from regionmap.constants import (
     C_AIR_J_KG_K,
+    EPSILON,
     GRAVITY_M_S2,
     L_SUBLIMATION_J_KG,
     L_VAPOUR_J_KG,
     R_DRY_J_KG_K,
-    SIGMA_W_M2_K4,
+    STEFAN_BOLTZMANN_W_M2_K4,
     T_MELT_K,
     VON_KARMAN,
 )
+from regionmap.downscale.thermo import (
+    BUCK1981_ICE_B,
+    BUCK1981_ICE_C_DEGC,
+    BUCK1981_WATER_B,
+    BUCK1981_WATER_C_DEGC,
+    saturation_vapour_pressure_ice_buck1981,
+    saturation_vapour_pressure_water_buck1981,
+    specific_humidity_from_vapour_pressure,
+)
 
 __all__ = [
-    "vapour_pressure_ice_buck1981",
-    "vapour_pressure_water_buck1981",
-    "specific_humidity",
     "wet_bulb_temperature_psychrometric",
     "neutral_exchange_coefficient",
     "stability_factor_louis1979",
@@ -32,33 +39,6 @@ __all__ = [
     "surface_fluxes",
     "solve_surface_temperature",
 ]
-
-
-@njit(cache=True, nogil=True, error_model="numpy")
-def vapour_pressure_water_buck1981(t_k):
-    """Saturation vapour pressure over water, Buck (1981), J. Appl. Meteorol. 20, Eq. 8 [Pa].
-
-    e = 611.21 exp(17.502 T / (240.97 + T)), T in degC.
-    doi:10.1175/1520-0450(1981)020<1527:NEFCVP>2.0.CO;2
-    """
-    t_c = t_k - T_MELT_K
-    return 611.21 * math.exp(17.502 * t_c / (240.97 + t_c))
-
-
-@njit(cache=True, nogil=True, error_model="numpy")
-def vapour_pressure_ice_buck1981(t_k):
-    """Saturation vapour pressure over ice, Buck (1981), J. Appl. Meteorol. 20 [Pa].
-
-    e = 611.15 exp(22.452 T / (272.55 + T)), T in degC.
-    """
-    t_c = t_k - T_MELT_K
-    return 611.15 * math.exp(22.452 * t_c / (272.55 + t_c))
-
-
-@njit(cache=True, nogil=True, error_model="numpy")
-def specific_humidity(vapour_pressure_pa, pressure_pa):
-    """Specific humidity q = 0.622 e / (p - 0.378 e) [kg kg-1] (e.g. Wallace & Hobbs 2006)."""
-    return 0.622 * vapour_pressure_pa / (pressure_pa - 0.378 * vapour_pressure_pa)
 
 
 @njit(cache=True, nogil=True, error_model="numpy")
@@ -71,13 +51,14 @@ def wet_bulb_temperature_psychrometric(t_k, rh_frac, pressure_pa):
     Observation, WMO-No. 8, Annex 4.B, which gives 6.53e-4 K-1 for the Assmann type [mem]).
     Checked against MetPy's ``wet_bulb_temperature`` (Normand's construction).
     """
-    a = C_AIR_J_KG_K / (0.622 * L_VAPOUR_J_KG)
-    e = min(max(rh_frac, 1e-4), 1.0) * vapour_pressure_water_buck1981(t_k)
+    a = C_AIR_J_KG_K / (EPSILON * L_VAPOUR_J_KG)
+    e = min(max(rh_frac, 1e-4), 1.0) * saturation_vapour_pressure_water_buck1981(t_k)
+    b, c = BUCK1981_WATER_B, BUCK1981_WATER_C_DEGC
     tw = t_k
     for _ in range(8):
-        es = vapour_pressure_water_buck1981(tw)
+        es = saturation_vapour_pressure_water_buck1981(tw)
         t_c = tw - T_MELT_K
-        des = es * 17.502 * 240.97 / ((240.97 + t_c) * (240.97 + t_c))
+        des = es * b * c / ((c + t_c) * (c + t_c))
         f = es - a * pressure_pa * (t_k - tw) - e
         tw -= f / (des + a * pressure_pa)
     return min(tw, t_k)
@@ -181,16 +162,17 @@ def surface_fluxes(
     c_h = turbulent_exchange_coefficient(
         t_air_k, t_surf_k, wind_m_s, c_neutral, z_temp_m, z0_m, stable_floor_frac
     )
-    e_s = vapour_pressure_ice_buck1981(t_surf_k)
-    q_surf = specific_humidity(e_s, pressure_pa)
+    e_s = saturation_vapour_pressure_ice_buck1981(t_surf_k)
+    q_surf = specific_humidity_from_vapour_pressure(e_s, pressure_pa)
     t_c = t_surf_k - T_MELT_K
-    dq_surf = q_surf * 22.452 * 272.55 / ((272.55 + t_c) * (272.55 + t_c))
+    b, c = BUCK1981_ICE_B, BUCK1981_ICE_C_DEGC
+    dq_surf = q_surf * b * c / ((c + t_c) * (c + t_c))
     conductance = rho_air * c_h * wind_m_s
     sensible = C_AIR_J_KG_K * conductance * (t_air_k - t_surf_k)
     vapour_flux = conductance * (q_air - q_surf)
     latent = L_SUBLIMATION_J_KG * vapour_flux
     t2 = t_surf_k * t_surf_k
-    lw_out = emissivity * SIGMA_W_M2_K4 * t2 * t2
+    lw_out = emissivity * STEFAN_BOLTZMANN_W_M2_K4 * t2 * t2
     lw_net = emissivity * lw_in_w_m2 - lw_out
     dq_dts = (
         -4.0 * lw_out / t_surf_k

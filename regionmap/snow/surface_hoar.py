@@ -24,6 +24,8 @@ import math
 
 from numba import njit
 
+from regionmap.constants import T_MELT_K, VON_KARMAN
+
 __all__ = [
     "surface_hoar_forms",
     "surface_hoar_destroyed",
@@ -33,7 +35,6 @@ __all__ = [
 ]
 
 #: von Karman constant
-VON_KARMAN = 0.40
 
 
 @njit(cache=True, nogil=True, error_model="numpy")
@@ -44,7 +45,7 @@ def surface_hoar_forms(
     air temperature and below 0 degC), no snowfall."""
     return (
         vapour_flux_kg_m2_s > 0.0
-        and t_surf_k < 273.15
+        and t_surf_k < T_MELT_K
         and wind_m_s <= wind_max_m_s
         and t_surf_k < t_air_k
         and snowfall_kg_m2 <= 0.0

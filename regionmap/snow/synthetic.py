@@ -9,8 +9,9 @@ from __future__ import annotations
 
 import numpy as np
 
+from regionmap.constants import STEFAN_BOLTZMANN_W_M2_K4, T_MELT_K
+from regionmap.downscale.thermo import saturation_vapour_pressure_water_buck1981
 from regionmap.downscale.types import CellForcing
-from regionmap.snow.constants import SIGMA_W_M2_K4, T_MELT_K
 
 __all__ = [
     "hours",
@@ -55,11 +56,10 @@ def longwave_brutsaert1975(t_air_k, rh_frac, cloud_frac=0.0):
     weighting of ours).
     """
     t_air_k = np.asarray(t_air_k, dtype=np.float64)
-    t_c = t_air_k - T_MELT_K
-    e_hpa = np.asarray(rh_frac) * 6.1121 * np.exp(17.502 * t_c / (240.97 + t_c))
+    e_hpa = np.asarray(rh_frac) * saturation_vapour_pressure_water_buck1981(t_air_k) / 100.0
     eps = 1.24 * (e_hpa / t_air_k) ** (1.0 / 7.0)
     eps = eps * (1.0 - cloud_frac) + cloud_frac
-    return eps * SIGMA_W_M2_K4 * t_air_k**4
+    return eps * STEFAN_BOLTZMANN_W_M2_K4 * t_air_k**4
 
 
 def make_forcing(

@@ -16,7 +16,7 @@ from __future__ import annotations
 
 from numba import njit
 
-from regionmap.snow.constants import (
+from regionmap.constants import (
     C_ICE_J_KG_K,
     C_WATER_J_KG_K,
     L_FUSION_J_KG,

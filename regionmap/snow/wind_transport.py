@@ -26,8 +26,8 @@ import math
 import numpy as np
 from numba import njit
 
+from regionmap.constants import GRAVITY_M_S2, R_DRY_J_KG_K, T_MELT_K, VON_KARMAN
 from regionmap.snow.codes import GRAIN_INDEX
-from regionmap.snow.constants import GRAVITY_M_S2, R_DRY_J_KG_K, T_MELT_K, VON_KARMAN
 
 _IF, _MFCR, _SH = GRAIN_INDEX["IF"], GRAIN_INDEX["MFcr"], GRAIN_INDEX["SH"]
 

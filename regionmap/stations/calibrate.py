@@ -31,6 +31,7 @@ from typing import Literal
 import numpy as np
 import pandas as pd
 
+from regionmap.constants import ZERO_CELSIUS_K
 from regionmap.downscale.quantile_mapping import (
     QuantileMappingTable,
     apply_quantile_mapping,
@@ -348,7 +349,7 @@ def catch_efficiency_kochendorfer2017(
         coefficients = KOCHENDORFER2017_COEFFICIENTS[shield]
     a, b, c, u_max = coefficients
     u = np.minimum(np.asarray(wind_m_s, dtype=np.float64), u_max)
-    t_c = np.asarray(t_air_k, dtype=np.float64) - 273.15
+    t_c = np.asarray(t_air_k, dtype=np.float64) - ZERO_CELSIUS_K
     return np.exp(-a * u * (1.0 - np.arctan(b * t_c) + c))
 
 

@@ -39,14 +39,14 @@ from itertools import pairwise
 import numba
 import numpy as np
 
+from regionmap.constants import EARTH_RADIUS_M
+
 __all__ = [
-    "EARTH_RADIUS_M",
     "horizon_sky_view_dozier_frew1990",
     "sky_view_dozier_frew1990",
     "max_upwind_slope_winstral2002",
 ]
 
-EARTH_RADIUS_M = 6.371e6
 _N_THREADS = 2
 
 

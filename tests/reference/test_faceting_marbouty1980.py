@@ -12,7 +12,7 @@ SOURCES:
 
 import pytest
 
-from regionmap.snow.constants import T_MELT_K
+from regionmap.constants import T_MELT_K
 from regionmap.snow.metamorphism import arrhenius_ratio_6000, facetedness_rate
 
 T = T_MELT_K - 6.0  # Marbouty's peak growth temperature [mem]

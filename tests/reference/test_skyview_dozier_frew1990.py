@@ -15,8 +15,8 @@ import math
 import numpy as np
 import pytest
 
+from regionmap.constants import EARTH_RADIUS_M
 from regionmap.terrain.horizon import (
-    EARTH_RADIUS_M,
     horizon_sky_view_dozier_frew1990,
     max_upwind_slope_winstral2002,
     sky_view_dozier_frew1990,

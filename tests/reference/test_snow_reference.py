@@ -13,6 +13,7 @@ import numpy as np
 import pytest
 from scipy.special import erf
 
+from regionmap.constants import C_ICE_J_KG_K, L_FUSION_J_KG, T_MELT_K
 from regionmap.snow.compaction import (
     destructive_settling_rate_anderson1976,
     viscosity_anderson1976,
@@ -23,7 +24,6 @@ from regionmap.snow.conduction import (
     conductivity_calonne2011,
     conductivity_sturm1997,
 )
-from regionmap.snow.constants import C_ICE_J_KG_K, L_FUSION_J_KG, T_MELT_K
 from regionmap.snow.crusts import glaze_thickness_m
 from regionmap.snow.diagnostics import wetness_class_fierz2009
 from regionmap.snow.newsnow import new_snow_density_hedstrom1998, new_snow_density_vionnet2012
@@ -31,8 +31,6 @@ from regionmap.snow.radiation import albedo_douville1995
 from regionmap.snow.surface import (
     neutral_exchange_coefficient,
     stability_factor_louis1979,
-    vapour_pressure_ice_buck1981,
-    vapour_pressure_water_buck1981,
 )
 from regionmap.snow.water import layer_enthalpy, resolve_phase
 
@@ -154,28 +152,6 @@ def test_louis1979_stable_factor():
     )
     assert stability_factor_louis1979(0.0, 2.77e-3, 2.0, 1e-3) == 1.0
     assert stability_factor_louis1979(-0.5, 2.77e-3, 2.0, 1e-3) > 1.0  # unstable enhances
-
-
-@pytest.mark.parametrize(
-    "t_c, water_hpa, ice_hpa",
-    [(0.0, 6.1121, 6.1115), (-10.0, 2.8645, 2.5989), (-20.0, 1.2550, 1.0325)],
-)
-def test_buck1981_against_murphy_koop2005(t_c, water_hpa, ice_hpa):
-    # Murphy & Koop (2005), QJRMS 131, reference values; Buck (1981) within 0.15 %
-    assert vapour_pressure_water_buck1981(T_MELT_K + t_c) / 100 == pytest.approx(
-        water_hpa, rel=1.5e-3
-    )
-    assert vapour_pressure_ice_buck1981(T_MELT_K + t_c) / 100 == pytest.approx(ice_hpa, rel=1.5e-3)
-
-
-def test_buck1981_against_metpy():
-    # MetPy's saturation_vapor_pressure (Bolton 1980) over water, an outside library: 0.2 % at
-    # -10..+10 degC
-    mpcalc = pytest.importorskip("metpy.calc")
-    units = pytest.importorskip("metpy.units").units
-    for t_c in (-10.0, 0.0, 10.0):
-        ref = mpcalc.saturation_vapor_pressure(t_c * units.degC).to("Pa").magnitude
-        assert vapour_pressure_water_buck1981(T_MELT_K + t_c) == pytest.approx(ref, rel=2e-3)
 
 
 def test_albedo_douville1995():

@@ -6,15 +6,18 @@ import metpy.calc as mc
 import numpy as np
 import pytest
 from metpy.units import units
+from numba import njit
 
 from regionmap.downscale import thermo as th
 
 warnings.filterwarnings("ignore", module="metpy")
 
 
-def test_saturation_vapour_pressure_buck1981_table_values():
-    # Buck (1981), J. Appl. Meteorol. 20 [src]: water 6.1121/2.8648/1.2538 hPa,
-    # ice 6.1115/2.5987/1.0327 hPa at 0/-10/-20 degC.
+def test_buck1981_coefficients_as_printed():
+    # Buck (1981), J. Appl. Meteorol. 20, 1527-1532, e_w1 and e_i1: a = 6.1121 and 6.1115 hPa
+    # at 0 degC; at -10/-20 degC the curves give 2.8648/1.2538 (water) and 2.5987/1.0327 hPa
+    # (ice), computed from the coefficients as printed (a check of the coefficients, not of
+    # the curves: the next two tests check those).
     t = np.array([273.15, 263.15, 253.15])
     np.testing.assert_allclose(
         th.saturation_vapour_pressure_water_buck1981(t) / 100, [6.1121, 2.8648, 1.2538], atol=6e-5
@@ -24,14 +27,57 @@ def test_saturation_vapour_pressure_buck1981_table_values():
     )
 
 
-def test_saturation_vapour_pressure_vs_metpy():
-    # MetPy saturation_vapor_pressure (Bolton 1980 form): the two fits agree within 0.5 %
-    # over -30..+35 degC (their published accuracies).
-    t_c = np.linspace(-30, 35, 66)
-    ref = mc.saturation_vapor_pressure(t_c * units.degC).to("Pa").m
+@pytest.mark.parametrize(
+    "t_c, water_hpa, ice_hpa",
+    [(0.0, 6.1121, 6.1115), (-10.0, 2.8645, 2.5989), (-20.0, 1.2550, 1.0325)],
+)
+def test_buck1981_against_murphy_koop2005(t_c, water_hpa, ice_hpa):
+    # Murphy & Koop (2005), Q. J. R. Meteorol. Soc. 131, 1539-1565 (doi:10.1256/qj.04.94):
+    # their water (Eq. 10) and ice (Eq. 7) formulations, values at 0/-10/-20 degC [mem]. Buck
+    # fitted his curves to within about 0.1 % of the accurate formulations of his day, which
+    # is the tolerance (0.15 %).
+    t_k = 273.15 + t_c
+    assert th.saturation_vapour_pressure_water_buck1981(t_k) / 100 == pytest.approx(
+        water_hpa, rel=1.5e-3
+    )
+    assert th.saturation_vapour_pressure_ice_buck1981(t_k) / 100 == pytest.approx(
+        ice_hpa, rel=1.5e-3
+    )
+
+
+def test_buck1981_against_metpy_ambaum2020():
+    # MetPy 1.7's saturation_vapor_pressure implements Ambaum (2020), Q. J. R. Meteorol. Soc.
+    # 146, 4252-4258 (doi:10.1002/qj.3899), Eq. 13 over water and Eq. 17 over ice: an
+    # independent closed form from the Clausius-Clapeyron equation with temperature-dependent
+    # latent heat. The two agree within 0.5 % over water (-20..+40 degC, the range of Buck's
+    # e_w1 fit) and 0.6 % over ice (-50..0 degC, that of e_i1); Ambaum's form is the one
+    # that parts from the steam tables near 0 degC (6.1076 against 6.1121 hPa).
+    t_c = np.linspace(-20.0, 40.0, 61)
+    ref = mc.saturation_vapor_pressure(t_c * units.degC, phase="liquid").to("Pa").m
     np.testing.assert_allclose(
         th.saturation_vapour_pressure_water_buck1981(t_c + 273.15), ref, rtol=5e-3
     )
+    t_c = np.linspace(-50.0, 0.0, 51)
+    ref = mc.saturation_vapor_pressure(t_c * units.degC, phase="solid").to("Pa").m
+    np.testing.assert_allclose(
+        th.saturation_vapour_pressure_ice_buck1981(t_c + 273.15), ref, rtol=6e-3
+    )
+    # negative control: the water curve is not the ice curve (10 % apart at -10 degC)
+    assert th.saturation_vapour_pressure_water_buck1981(263.15) / ref[40] > 1.09
+
+
+def test_one_buck_implementation_for_arrays_and_compiled_code():
+    # regression check, not a reference: the compiled kernel calls the same ufunc on scalars
+    # and gets the values NumPy callers get on arrays, bit for bit
+    @njit
+    def in_compiled_code(t_k):
+        out = np.empty_like(t_k)
+        for i in range(t_k.size):
+            out[i] = th.saturation_vapour_pressure_ice_buck1981(t_k[i])
+        return out
+
+    t_k = np.linspace(220.0, 273.15, 17)
+    assert np.array_equal(in_compiled_code(t_k), th.saturation_vapour_pressure_ice_buck1981(t_k))
 
 
 def test_dew_point_from_relative_humidity_vs_metpy():
@@ -43,7 +89,8 @@ def test_dew_point_from_relative_humidity_vs_metpy():
         np.broadcast_to(t_c, (11, 4)) * units.degC,
         np.broadcast_to(rh, (11, 4)) * units.dimensionless,
     ).m
-    # 0.1 K: the Buck (ours) and Bolton (MetPy) curves part by ~0.07 K at dew points near -37 degC
+    # 0.1 K: the Buck (ours) and MetPy's saturation curves part by ~0.07 K at dew points near
+    # -37 degC
     np.testing.assert_allclose(
         dew_point_from_relative_humidity(t_c + 273.15, rh) - 273.15, ref, atol=0.1
     )

@@ -18,7 +18,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from regionmap.snow.constants import T_MELT_K
+from regionmap.constants import T_MELT_K
 from regionmap.snow.wind_transport import (
     friction_velocity_neutral,
     saltation_transport_pomeroy_gray1990,
