@@ -209,6 +209,34 @@ def _as_multipolygons(gdf):
     return gdf.set_geometry(list(fixed), crs=gdf.crs)
 
 
+_GROUP_KEYS = ["zone", "band_lower_m", "band_upper_m", "aspect_sector"]
+
+
+def _problem_polygons(problems: pd.DataFrame, cells, zones):
+    """The problems table with geometry: the union of the cells of each zone × band × aspect
+    (slope classes merged), the zone's polygon for the zone-wide rows."""
+    import geopandas as gpd
+
+    geometry = cells.geometry.name
+    groups = cells[[*_GROUP_KEYS, geometry]]
+    if groups.duplicated(_GROUP_KEYS).any():  # slope classes: one polygon per group
+        groups = groups.dissolve(by=_GROUP_KEYS, as_index=False)
+    groups = groups.rename(columns={geometry: "_group_geometry"})
+    zone_geometry = zones[["zone", zones.geometry.name]].rename(
+        columns={zones.geometry.name: "_zone_geometry"}
+    )
+    lookup = problems.copy()
+    edges = ["band_lower_m", "band_upper_m"]
+    lookup[edges] = lookup[edges].astype(np.float64)
+    joined = lookup.merge(groups, on=_GROUP_KEYS, how="left").merge(
+        zone_geometry, on="zone", how="left"
+    )
+    zone_wide = joined["aspect_sector"].to_numpy() == "all"
+    geoms = np.where(zone_wide, joined["_zone_geometry"].values, joined["_group_geometry"].values)
+    frame = joined.drop(columns=["_group_geometry", "_zone_geometry"])
+    return _as_multipolygons(gpd.GeoDataFrame(frame, geometry=list(geoms), crs=cells.crs))
+
+
 def _time_text(t) -> str:
     return pd.Timestamp(t).strftime("%Y-%m-%dT%H:%M:%SZ")
 
@@ -226,6 +254,7 @@ def write_gis(
     transform,
     crs,
     valid_time,
+    problems: pd.DataFrame | None = None,
 ) -> dict[str, Path]:
     """Write the GIS outputs of a run into ``out_dir``.
 
@@ -245,6 +274,9 @@ def write_gis(
         ``pwl_depth_cm``. ``cell_id.tif`` is always written.
     transform, crs : the DEM's affine transform and CRS.
     valid_time : the map time [UTC], written into every raster's tags.
+    problems : ``problems.problem_table`` rows: written as the ``problems`` layer (each row
+        with the polygons of its zone × band × aspect, zone-wide rows with the zone's) and
+        ``problems.geojson``; None writes neither.
 
     Returns
     -------
@@ -298,6 +330,8 @@ def write_gis(
         "rain_crust_line": rain_crust_gdf,
         "layers_of_concern": loc_gpkg,
     }
+    if problems is not None:
+        layers["problems"] = _problem_polygons(problems, cells, zones)
     written["zones.gpkg"] = write_geopackage(
         out / "zones.gpkg", layers, styles=vector_styles(layers)
     )
@@ -308,6 +342,8 @@ def write_gis(
         out / "rain_crust_line.geojson", rain_crust_gdf
     )
     written["layers_of_concern.csv"] = write_csv(out / "layers_of_concern.csv", loc)
+    if problems is not None:
+        written["problems.geojson"] = write_geojson(out / "problems.geojson", layers["problems"])
 
     # --- rasters
     when = _time_text(valid_time)
@@ -389,6 +425,7 @@ _VECTOR_STYLES = {
     "cells": ("fill", "snow_depth_cm", "cm", (0.0, 400.0), "viridis", None),
     "rain_crust_line": ("line", None, "", None, None, "zone"),
     "layers_of_concern": (None, None, "", None, None, None),
+    "problems": ("fill", "likelihood", "1", (0.0, 1.0), "cividis", "problem"),
 }
 
 

@@ -21,6 +21,7 @@ from regionmap.io.times import event_date_label
 from regionmap.io.writers import write_csv
 from regionmap.products.concern import ConcernCriteria
 from regionmap.products.gis import write_gis
+from regionmap.products.problems import problems_at
 from regionmap.products.rain_crust import (
     NO_CRUST_CLAUSE,
     RainEvent,
@@ -167,6 +168,9 @@ def write_products(
             observation_hour=hour,
             criteria=criteria,
         )
+        problems, _ = problems_at(
+            diag, prof, table, weights["avalanche_km2"].to_numpy(), time=map_time, params=cfg.snow
+        )
         rc_cols, lines, words = _rain_crust(
             out,
             region,
@@ -212,7 +216,9 @@ def write_products(
         transform=region.dem.transform,
         crs=region.dem.crs,
         valid_time=map_time,
+        problems=problems,
     )
+    write_csv(out / "problems.csv", problems)
     # band x aspect groups without terrain of the weighting have no values: left out
     band_aspect = tables.band_aspect
     write_csv(out / "band_aspect.csv", band_aspect[band_aspect["area_km2"] > 0])

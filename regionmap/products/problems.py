@@ -1,0 +1,793 @@
+"""Avalanche-problem indicators per cell and time, and their summary per zone × band × aspect.
+
+Computed from a finished run's ``cells.nc`` and ``profiles.nc`` alone (products can be made
+again from the files). The five problems are those of the conceptual model of avalanche
+hazard (Statham et al. 2018): new snow, wind slab, persistent slab, deep persistent slab and
+wet snow. Each cell at a time either has a problem or not, by the criteria below, and carries
+a *sensitivity* in 0–1 from the stability index the problem uses; a group's ``likelihood`` is
+the area share of its avalanche terrain with the problem, weighted by that sensitivity.
+
+Criteria (vertical depths; "weak interface" as in the threshold-sum approach):
+
+* **new snow** — the snow deposited in the last 72 h (``new_snow_72h_cm``, settled depth) is
+  at least the lower end of the *critical new-snow depth* for its bond to the old surface:
+  10–20 cm on a poor bond (an old surface of surface hoar, facets or depth hoar, or a crust or
+  ice layer), 20–30 cm otherwise. These are the critical new-snow depths of Swiss forecasting
+  practice for unfavourable and mixed conditions (Schweizer et al. 2003, Rev. Geophys. 41,
+  section on new snow; recalled from memory; common practice). Index: depth / upper end.
+* **wind slab** — recently wind-deposited snow (layers flagged ``wind_packed`` in
+  ``profiles.nc``, deposited in the last :data:`WIND_SLAB_RECENT_DAYS` days; ours, common
+  practice: wind slabs mostly stabilise within days) forming a slab of at least
+  :data:`SLAB_MIN_CM` over a weak interface: the layer below has persistent grains or is a
+  crust or ice layer, or is softer by the threshold sum's hardness difference (1.7, Schweizer &
+  Jamieson 2007), or the interface scores at or above the critical threshold sum. Wind
+  deposition happens on lee cells, so the flag places it. A run whose ``profiles.nc`` has no
+  ``wind_packed`` variable does not assess wind slabs: its rows say so (``assessed`` false).
+  Index: the threshold sum at the slab's base, over its critical value.
+* **persistent slab**, **deep persistent slab** — a persistent weak layer *of concern*
+  (:func:`weak_layers_of_concern`: the column model's definition, applied to the snapshot)
+  whose top lies at most / more than :data:`DEEP_SLAB_M` (0.94 m) below the surface: the deep
+  end of the critical depth window of the threshold sum, below which skier triggering is rare
+  (Schweizer & Jamieson 2007; recalled from memory). Below the window the depth criterion
+  cannot be met, so a deep layer is of concern when its interfaces reach the same share of the
+  five structural criteria (``below_depth_window``). Index: the threshold sum of the layer's
+  bounding interfaces over its maximum (6), so deep layers, lacking the depth criterion, rank
+  lower (harder to trigger).
+* **wet snow** — the liquid-water index of the column, the thickness-weighted mean volumetric
+  liquid water content over 3 % (Mitterer et al. 2011), reaches 1; or liquid water sits on a
+  capillary barrier or a persistent weak layer at least :data:`SLAB_MIN_CM` deep (a wet
+  layer over one whose grains are 0.75 mm or more coarser — the threshold sum's grain-size
+  difference — or of persistent grains); or the pack is wet to the ground (its bottom layer and
+  at least half its depth hold water: the pack has become isothermal and wet throughout, when
+  wet-snow activity is expected; common practice, e.g. Baggi & Schweizer 2009 [mem]). Index:
+  the LWC index, the wetness of the layer on the barrier over the 'wet' class's lower limit
+  (3 % by volume, Fierz et al. 2009), or the wet share of the column, whichever is largest.
+
+These are model indicators for trained people, not a hazard rating and not a forecast: field
+observations, the local avalanche service and professional standards come first.
+
+References
+----------
+.. [1] Statham, G. et al. (2018). A conceptual model of avalanche hazard. Natural Hazards 90,
+   663-691. doi:10.1007/s11069-017-3070-5
+.. [2] Schweizer, J., Jamieson, J. B. and Schneebeli, M. (2003). Snow avalanche formation.
+   Reviews of Geophysics 41(4), 1016. doi:10.1029/2002RG000123
+.. [3] Schweizer, J. and Jamieson, J. B. (2007). A threshold sum approach to stability
+   evaluation of manual snow profiles. Cold Regions Science and Technology 47, 50-59.
+   doi:10.1016/j.coldregions.2006.08.011
+.. [4] Mitterer, C., Hirashima, H. and Schweizer, J. (2011). Wet-snow instabilities:
+   comparison of measured and modelled liquid water content and snow stratigraphy. Annals of
+   Glaciology 52(58), 201-208. doi:10.3189/172756411797252077
+.. [5] Baggi, S. and Schweizer, J. (2009). Characteristics of wet-snow avalanche activity:
+   20 years of observations from a high alpine valley (Dischma, Switzerland). Natural Hazards
+   50, 97-108. doi:10.1007/s11069-008-9322-7
+.. [6] Fierz, C. et al. (2009). The International Classification for Seasonal Snow on the
+   Ground. IHP-VII Technical Documents in Hydrology 83, UNESCO-IHP, Paris.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import xarray as xr
+from numba import njit
+
+from regionmap.cells import COMPASS_16
+from regionmap.errors import InputError
+from regionmap.products.summaries import (
+    _BAND_ASPECT,
+    _as_utc_array,
+    _check_alignment,
+    _positions,
+    _times_of,
+    band_label,
+    decode_snapshot,
+    running_snowfall_at,
+)
+from regionmap.snow.codes import CRUST_INDEX, GRAIN_INDEX, PERSISTENT_CODES
+from regionmap.snow.constants import RHO_WATER_KG_M3
+from regionmap.snow.diagnostics import mark_weak_layers_of_concern
+from regionmap.snow.params import SnowParams
+from regionmap.snow.stability import (
+    CRITICAL_COUNT_ABSOLUTE,
+    CRITICAL_SUM_RELATIVE,
+    DEPTH_WINDOW_M,
+    GRAIN_SIZE_DIFF_MIN_MM,
+    HARDNESS_DIFF_MIN,
+    N_CRITERIA,
+    interface_scores_column,
+)
+
+__all__ = [
+    "PROBLEMS",
+    "PROBLEM_LABELS",
+    "LIKELIHOOD_CLASSES",
+    "DEEP_SLAB_M",
+    "SLAB_MIN_CM",
+    "WIND_SLAB_RECENT_DAYS",
+    "LWC_INDEX_REFERENCE_FRAC",
+    "CRITICAL_NEW_SNOW_CM",
+    "lwc_index_mitterer2011",
+    "weak_layers_of_concern",
+    "cell_problems",
+    "problem_table",
+    "problems_at",
+    "likelihood_class",
+    "problem_sentences",
+]
+
+#: the problems, in the order of the conceptual model of avalanche hazard (Statham et al. 2018)
+PROBLEMS: tuple[str, ...] = (
+    "new_snow",
+    "wind_slab",
+    "persistent_slab",
+    "deep_persistent_slab",
+    "wet_snow",
+)
+PROBLEM_LABELS: dict[str, str] = {
+    "new_snow": "new snow",
+    "wind_slab": "wind slab",
+    "persistent_slab": "persistent slab",
+    "deep_persistent_slab": "deep persistent slab",
+    "wet_snow": "wet snow",
+}
+#: the stability index each problem's sensitivity comes from
+PROBLEM_INDEX: dict[str, str] = {
+    "new_snow": "new snow 72 h / critical new-snow depth",
+    "wind_slab": "threshold sum at the slab's base / critical sum",
+    "persistent_slab": "threshold sum of the weak layer / 6",
+    "deep_persistent_slab": "threshold sum of the weak layer / 6",
+    "wet_snow": "LWC index (Mitterer et al. 2011)",
+}
+#: weak layers whose top lies deeper than this are deep persistent slabs [m]: the lower edge
+#: of the threshold sum's critical depth window, 0.94 m (Schweizer & Jamieson 2007 [mem])
+DEEP_SLAB_M: float = DEPTH_WINDOW_M[1]
+#: a wind slab or a wet slab needs at least this much snow above its weak interface [cm]
+#: (the upper edge of the critical depth window, 0.18 m below the surface; Schweizer &
+#: Jamieson 2007 [mem])
+SLAB_MIN_CM: float = DEPTH_WINDOW_M[0] * 100.0
+#: wind-deposited layers count as a wind slab for this many days after deposition (ours;
+#: common practice: wind slabs mostly stabilise within days)
+WIND_SLAB_RECENT_DAYS: float = 7.0
+#: critical new-snow depth (lower, upper end) [cm] for a poor and a fair bond to the old
+#: surface: unfavourable and mixed conditions of Swiss practice (Schweizer et al. 2003 [mem];
+#: common practice)
+CRITICAL_NEW_SNOW_CM: dict[str, tuple[float, float]] = {"poor": (10.0, 20.0), "fair": (20.0, 30.0)}
+#: mean volumetric liquid water content of the column at which the LWC index is 1 (3 %,
+#: Mitterer et al. 2011 [mem])
+LWC_INDEX_REFERENCE_FRAC: float = 0.03
+#: the lower limit of the 'wet' liquid-water class, by volume (Fierz et al. 2009, Table 3.3)
+WET_CLASS_FRAC: float = 0.03
+#: the column counts as wet to the ground when its bottom layer and at least this share of its
+#: depth hold liquid water (ours)
+WET_TO_GROUND_SHARE: float = 0.5
+#: likelihood classes (terms of Statham et al. 2018) by the likelihood proxy: upper edges (ours)
+LIKELIHOOD_CLASSES: tuple[tuple[str, float], ...] = (
+    ("unlikely", 0.1),
+    ("possible", 0.3),
+    ("likely", 0.6),
+    ("very likely", np.inf),
+)
+
+_PERSISTENT = np.zeros(max(GRAIN_INDEX.values()) + 1, bool)
+_PERSISTENT[[GRAIN_INDEX[c] for c in PERSISTENT_CODES]] = True
+_IF = GRAIN_INDEX["IF"]
+_MFCR = GRAIN_INDEX["MFcr"]
+_NO_CRUST = CRUST_INDEX["none"]
+
+
+# --------------------------------------------------------------------------- physics
+def lwc_index_mitterer2011(
+    liquid_kg_m2: np.ndarray, thickness_m: np.ndarray, *, axis: int = -1
+) -> np.ndarray:
+    """Liquid-water-content index of a snow column (Mitterer et al. 2011).
+
+    Parameters
+    ----------
+    liquid_kg_m2 : ndarray (..., layer) float64
+        Liquid water of each layer [kg m-2] (0 in unused slots).
+    thickness_m : ndarray (..., layer) float64
+        Layer thickness [m] (0 in unused slots).
+    axis : the layer axis.
+
+    Returns
+    -------
+    ndarray (...) float64
+        Thickness-weighted mean volumetric liquid water content of the column divided by 3 %
+        [1]; NaN where the column has no snow.
+
+    Notes
+    -----
+    LWC_index = θ̄_w / 0.03 with θ̄_w = Σ θ_k h_k / Σ h_k = (Σ L_k / ρ_w) / H; an index of 1
+    marked the onset of wet-snow avalanche activity in Mitterer et al. (2011), Ann. Glaciol.
+    52(58), 201-208, doi:10.3189/172756411797252077 (recalled from memory).
+    """
+    water_m = np.sum(np.asarray(liquid_kg_m2, dtype=np.float64), axis=axis) / RHO_WATER_KG_M3
+    depth_m = np.sum(np.asarray(thickness_m, dtype=np.float64), axis=axis)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return np.where(depth_m > 0, water_m / depth_m / LWC_INDEX_REFERENCE_FRAC, np.nan)
+
+
+@njit(cache=True, nogil=True, error_model="numpy")
+def _concern_columns(
+    layer_count,
+    thickness_m,
+    grain_size_mm,
+    hardness_index,
+    grain_code,
+    relative,
+    critical,
+    min_depth_m,
+    min_thickness_m,
+    min_grain_mm,
+    scores,
+    run_score,
+):
+    """Interface scores and weak layers of concern of many columns (rows), see
+    :func:`weak_layers_of_concern`; ``run_score`` > 0 marks a layer of concern."""
+    n_col, n_layer = thickness_m.shape
+    scratch = np.empty((N_CRITERIA + 1, max(n_layer, 1)))
+    mark = np.zeros(max(n_layer, 1))
+    for c in range(n_col):
+        n = min(max(layer_count[c], 0), n_layer)
+        for k in range(n_layer):
+            scores[c, k] = np.nan
+            run_score[c, k] = 0.0
+        if n < 2:
+            continue
+        interface_scores_column(
+            n,
+            thickness_m[c],
+            grain_size_mm[c],
+            hardness_index[c],
+            grain_code[c],
+            relative,
+            scratch,
+            scores[c],
+        )
+        top = mark_weak_layers_of_concern(
+            n,
+            thickness_m[c],
+            grain_size_mm[c],
+            grain_code[c],
+            scores[c],
+            critical,
+            min_depth_m,
+            min_thickness_m,
+            min_grain_mm,
+            mark,
+        )
+        if top < 0:
+            continue
+        i = n - 1
+        while i >= 0:  # each run of marked layers gets its bounding interfaces' best score
+            if mark[i] <= 0.0:
+                i -= 1
+                continue
+            j = i
+            while j >= 0 and mark[j] > 0.0:
+                j -= 1
+            s = scores[c, i] if i < n - 1 else 0.0
+            if j >= 0:
+                s = max(s, scores[c, j])
+            for k in range(j + 1, i + 1):
+                run_score[c, k] = max(s, 1e-9)
+            i = j
+
+
+def weak_layers_of_concern(
+    layer_count: np.ndarray,
+    thickness_m: np.ndarray,
+    grain_size_mm: np.ndarray,
+    hardness_index: np.ndarray,
+    grain_code: np.ndarray,
+    params: SnowParams | None = None,
+    *,
+    below_depth_window: bool = False,
+) -> tuple[np.ndarray, np.ndarray]:
+    """Threshold scores of every interface and the persistent weak layers of concern.
+
+    The column model's definition (:mod:`regionmap.snow.diagnostics`): a run of layers of
+    persistent grains (FC, FCxr, FCsf, DH, SH) at least ``pwl_min_thickness_m`` thick (buried
+    SH at any thickness), grains of at least ``pwl_min_grain_mm``, under a slab at least
+    ``pwl_min_depth_m`` deep, with a bounding interface at or above the critical threshold
+    score (relative sum of Monti et al. 2014 or count of Schweizer & Jamieson 2007, as
+    ``threshold_relative`` says).
+
+    Parameters
+    ----------
+    layer_count : ndarray (col,) int
+    thickness_m, grain_size_mm, hardness_index : ndarray (col, layer) float64
+        Bottom layer first; [m], [mm], hand-hardness index (F = 1 … I = 6).
+    grain_code : ndarray (col, layer) int8, indices into ``GRAIN_CODES``.
+    params : the snow settings (defaults when None).
+    below_depth_window : for layers below the critical depth window (0.18–0.94 m), where the
+        depth criterion cannot be met: the critical score is then the same share of the five
+        criteria left (relative sum 4.8 × 5/6 = 4.0; count: all five), so that a deep weak
+        layer is judged by its structure. Only the layers below the window are meaningful.
+
+    Returns
+    -------
+    scores : ndarray (col, layer) float64
+        Score of interface k (top of layer k), 0..6; NaN at and above the top layer.
+    run_score : ndarray (col, layer) float64
+        For a layer of concern, the best score of its run's two bounding interfaces (> 0);
+        0 for every other layer.
+    """
+    p = SnowParams() if params is None else params
+    critical = CRITICAL_SUM_RELATIVE if p.threshold_relative else CRITICAL_COUNT_ABSOLUTE
+    if below_depth_window:
+        critical *= (N_CRITERIA - 1) / N_CRITERIA
+    th = np.ascontiguousarray(thickness_m, dtype=np.float64)
+    scores = np.empty(th.shape)
+    run_score = np.empty(th.shape)
+    _concern_columns(
+        np.ascontiguousarray(layer_count, dtype=np.int64),
+        th,
+        np.ascontiguousarray(np.nan_to_num(grain_size_mm), dtype=np.float64),
+        np.ascontiguousarray(np.nan_to_num(hardness_index), dtype=np.float64),
+        np.ascontiguousarray(grain_code, dtype=np.int64),
+        bool(p.threshold_relative),
+        critical,
+        p.pwl_min_depth_m,
+        p.pwl_min_thickness_m,
+        p.pwl_min_grain_mm,
+        scores,
+        run_score,
+    )
+    return scores, run_score
+
+
+# --------------------------------------------------------------------------- per cell
+def _take(a: np.ndarray, idx: np.ndarray, fill=np.nan) -> np.ndarray:
+    """``a[..., idx]`` per row (``fill`` where idx < 0)."""
+    got = np.take_along_axis(a, np.maximum(idx, 0)[..., None], axis=-1)[..., 0]
+    return np.where(idx >= 0, got, fill)
+
+
+def _top_index(mask: np.ndarray) -> np.ndarray:
+    """Index of the uppermost True layer of each row, -1 where none."""
+    n = mask.shape[-1]
+    last = n - 1 - np.argmax(mask[..., ::-1], axis=-1)
+    return np.where(mask.any(axis=-1), last, -1)
+
+
+def _snapshot_fields(profiles: xr.Dataset, days: np.ndarray) -> dict[str, np.ndarray]:
+    """Grain size, hardness, liquid water and the wind flag (cell, n, layer) of snapshots."""
+    ds = profiles.isel(day=days).transpose("cell", "day", "layer", ...)
+    missing = [v for v in ("grain_size_mm", "hardness_index") if v not in ds.variables]
+    if missing:
+        raise InputError(
+            f"profiles.nc: missing variables {missing}; the avalanche problems need the layer "
+            "snapshot fields of docs/outputs.md"
+        )
+    out = {
+        name: np.nan_to_num(ds[name].values.astype(np.float64))
+        for name in ("grain_size_mm", "hardness_index", "liquid_kg_m2")
+    }
+    if "wind_packed" in ds.variables:
+        out["wind_packed"] = np.nan_to_num(ds["wind_packed"].values.astype(np.float64)) > 0
+    return out
+
+
+def cell_problems(
+    diag: xr.Dataset,
+    profiles: xr.Dataset,
+    table: pd.DataFrame,
+    times,
+    *,
+    params: SnowParams | None = None,
+) -> pd.DataFrame:
+    """The avalanche problems of every cell at each of ``times`` (module notes).
+
+    Parameters
+    ----------
+    diag, profiles : the run's ``cells.nc`` and ``profiles.nc`` Datasets; the snapshot used at
+        a time is the last one at or before it.
+    table : cell table indexed by ``cell_id`` in ``cells.nc`` order.
+    times : datetime-likes [UTC], output times of ``diag``.
+    params : snow settings for the weak layers of concern (defaults when None).
+
+    Returns
+    -------
+    DataFrame, one row per cell × time × problem: ``cell_id``, ``valid_time``, ``problem``,
+    ``assessed`` (False for wind slab without wind-transport flags), ``present`` (bool),
+    ``sensitivity`` (0–1, the index scaled, NaN where absent), ``index_value`` (the problem's
+    stability index), ``depth_cm`` (vertical depth of its weak interface, or of the wet
+    layer's barrier; for wet snow by the LWC index alone, the snow depth), ``load_24h_kg_m2``,
+    ``load_72h_kg_m2`` (snowfall of the last 24 / 72 h) and for new snow ``bond``
+    (``poor``/``fair``/``none``).
+    """
+    _check_alignment(diag, table, profiles)
+    t_all = _times_of(diag)
+    want = _as_utc_array(times)
+    pos = _positions(t_all, want, "the avalanche-problem times")
+    day = profiles["day"].values.astype("datetime64[s]")
+    d = np.searchsorted(day, want, side="right") - 1
+    if (d < 0).any():
+        raise InputError(
+            f"profiles.nc: no layer snapshot at or before {want[d < 0][0]} for the avalanche problems"
+        )
+    snap = decode_snapshot(profiles, d)
+    extra = _snapshot_fields(profiles, d)
+    n_cell, n_t, n_layer = snap.valid.shape
+    t_s = want.astype(np.int64)[None, :, None]
+    valid = snap.valid
+    thick_cm = snap.thickness_m * 100.0
+    depth_cm = snap.depth_cm  # top of each layer below the surface
+    grain = snap.grain.astype(np.int64)
+    hard = np.where(valid, extra["hardness_index"], np.nan)
+    gsize = np.where(valid, extra["grain_size_mm"], np.nan)
+    liquid = np.where(valid, extra["liquid_kg_m2"], 0.0)
+    count = valid.sum(axis=2)
+
+    # threshold scores and the weak layers of concern of every snapshot column
+    flat = (n_cell * n_t, n_layer)
+    columns = (
+        count.reshape(-1),
+        snap.thickness_m.reshape(flat),
+        gsize.reshape(flat),
+        hard.reshape(flat),
+        grain.reshape(flat),
+    )
+    scores, run_score = weak_layers_of_concern(*columns, params)
+    _, run_score_deep = weak_layers_of_concern(*columns, params, below_depth_window=True)
+    scores = scores.reshape(snap.valid.shape)
+    run_score = run_score.reshape(snap.valid.shape)
+    run_score_deep = run_score_deep.reshape(snap.valid.shape)
+    p = SnowParams() if params is None else params
+    critical = CRITICAL_SUM_RELATIVE if p.threshold_relative else CRITICAL_COUNT_ABSOLUTE
+    persistent = valid & _PERSISTENT[grain]
+    hard_surface = valid & ((snap.crust != _NO_CRUST) | (grain == _IF) | (grain == _MFCR))
+
+    # snowfall of the last 24 / 72 h at each time
+    back = [
+        np.searchsorted(t_all, want - np.timedelta64(h * 3600, "s"), side="right") - 1
+        for h in (24, 72)
+    ]
+    cum = running_snowfall_at(diag, np.concatenate([pos, *back]))
+    c_now, c_24, c_72 = np.split(cum, 3, axis=1)
+    load_24 = c_now - c_24
+    load_72 = c_now - c_72
+
+    def at(name: str) -> np.ndarray:
+        if name not in diag.variables:
+            raise InputError(f"cells.nc: missing variable {name!r} (see docs/outputs.md)")
+        return diag[name].isel(time=pos).transpose("cell", ...).values.astype(np.float64)
+
+    hn72_cm = np.nan_to_num(at("new_snow_72h_cm"))
+    snow_depth_cm = np.nan_to_num(at("snow_depth_cm"))
+    frames = []
+
+    def add(problem, assessed, present, sensitivity, index_value, depth, bond=None):
+        present = np.asarray(present, bool)
+        frame = pd.DataFrame(
+            {
+                "cell_id": np.repeat(table.index.to_numpy(), n_t),
+                "valid_time": np.tile(want, n_cell),
+                "problem": problem,
+                "assessed": assessed,
+                "present": present.reshape(-1) if assessed else False,
+                "sensitivity": np.where(present, np.clip(sensitivity, 0.0, 1.0), np.nan).reshape(-1)
+                if assessed
+                else np.nan,
+                "index_value": np.where(present, index_value, np.nan).reshape(-1)
+                if assessed
+                else np.nan,
+                "depth_cm": np.where(present, depth, np.nan).reshape(-1) if assessed else np.nan,
+                "load_24h_kg_m2": load_24.reshape(-1),
+                "load_72h_kg_m2": load_72.reshape(-1),
+                "bond": "" if bond is None else bond.reshape(-1),
+            }
+        )
+        frames.append(frame)
+
+    # --- new snow: 72 h of snow over its bond to the old surface
+    recent = valid & (snap.deposition_s > t_s - 72 * 3600)
+    old = _top_index(valid & ~recent)
+    old_poor = _take(persistent | hard_surface, old, False).astype(bool)
+    bond = np.where(old < 0, "none", np.where(old_poor, "poor", "fair"))
+    lo = np.where(old_poor, CRITICAL_NEW_SNOW_CM["poor"][0], CRITICAL_NEW_SNOW_CM["fair"][0])
+    hi = np.where(old_poor, CRITICAL_NEW_SNOW_CM["poor"][1], CRITICAL_NEW_SNOW_CM["fair"][1])
+    new_depth = np.where(old >= 0, _take(depth_cm, old), snow_depth_cm)
+    add("new_snow", True, hn72_cm >= lo, hn72_cm / hi, hn72_cm / hi, new_depth, bond)
+
+    # --- wind slab: recent wind-deposited snow over a weak interface
+    if "wind_packed" in extra:
+        wind = (
+            valid
+            & extra["wind_packed"]
+            & (snap.deposition_s > t_s - int(WIND_SLAB_RECENT_DAYS * 86400))
+        )
+        top_w = _top_index(wind)
+        # lowest layer of the uppermost run of wind-deposited layers
+        below_top = np.arange(n_layer)[None, None, :] <= top_w[..., None]
+        broken = below_top & ~wind
+        base = np.where(broken.any(axis=2), _top_index(broken) + 1, 0)
+        base = np.where(top_w >= 0, base, -1)
+        under = base - 1
+        slab_cm = np.where(base >= 1, _take(depth_cm, under), np.nan)
+        weak_under = (
+            _take(persistent | hard_surface, under, False).astype(bool)
+            | (_take(hard, base) - _take(hard, under) >= HARDNESS_DIFF_MIN)
+            | (_take(scores, under, 0.0) >= critical)
+        )
+        present = (base >= 1) & weak_under & (slab_cm >= SLAB_MIN_CM)
+        index = _take(scores, under, 0.0) / critical
+        add("wind_slab", True, present, index, index, slab_cm)
+    else:
+        add("wind_slab", False, np.zeros((n_cell, n_t), bool), np.nan, np.nan, np.nan)
+
+    # --- persistent and deep persistent slabs: the uppermost layer of concern of each depth
+    deep = depth_cm > DEEP_SLAB_M * 100.0
+    for problem, runs, where in (
+        ("persistent_slab", run_score, ~deep),
+        ("deep_persistent_slab", run_score_deep, deep),
+    ):
+        concern = runs > 0
+        run_top = concern & ~np.concatenate(
+            [concern[..., 1:], np.zeros_like(concern[..., :1])], axis=2
+        )
+        k = _top_index(run_top & where)
+        index = _take(runs, k, 0.0) / N_CRITERIA
+        add(problem, True, k >= 0, index, index, _take(depth_cm, k))
+
+    # --- wet snow: LWC index of the column; water on a capillary barrier or weak layer
+    lwc_index = np.nan_to_num(lwc_index_mitterer2011(liquid, snap.thickness_m))
+    theta = np.where(
+        valid & (snap.thickness_m > 0),
+        liquid / (RHO_WATER_KG_M3 * np.maximum(snap.thickness_m, 1e-9)),
+        0.0,
+    )
+    theta_above = np.concatenate([theta[..., 1:], np.zeros_like(theta[..., :1])], axis=2)
+    gsize_above = np.concatenate([gsize[..., 1:], np.full_like(gsize[..., :1], np.nan)], axis=2)
+    # layer k is a barrier (or weak layer) with water in the layer above it or in itself
+    barrier = valid & ((gsize - gsize_above >= GRAIN_SIZE_DIFF_MIN_MM) | persistent)
+    wet_on = barrier & ((theta_above > 0) | (persistent & (theta > 0))) & (depth_cm >= SLAB_MIN_CM)
+    kb = _top_index(wet_on)
+    theta_on = np.maximum(
+        _take(theta_above, kb, 0.0), _take(np.where(persistent, theta, 0.0), kb, 0.0)
+    )
+    wet = valid & (theta > 0)
+    bottom_wet = wet[..., 0]
+    wet_share = np.where(
+        snow_depth_cm > 0, (wet * thick_cm).sum(axis=2) / np.maximum(snow_depth_cm, 1e-9), 0.0
+    )
+    to_ground = bottom_wet & (wet_share >= WET_TO_GROUND_SHARE)
+    wet_present = (lwc_index >= 1.0) | (kb >= 0) | to_ground
+    wet_sens = np.maximum.reduce(
+        [lwc_index, theta_on / WET_CLASS_FRAC, np.where(to_ground, wet_share, 0.0)]
+    )
+    wet_depth = np.where(kb >= 0, _take(depth_cm, kb), snow_depth_cm)
+    add("wet_snow", True, wet_present & (snow_depth_cm > 0), wet_sens, lwc_index, wet_depth)
+
+    out = pd.concat(frames, ignore_index=True)
+    out["problem"] = pd.Categorical(out["problem"], categories=PROBLEMS)
+    return out.sort_values(["cell_id", "valid_time", "problem"], ignore_index=True)
+
+
+# --------------------------------------------------------------------------- per group
+def likelihood_class(likelihood) -> np.ndarray:
+    """Class names of likelihood proxies (:data:`LIKELIHOOD_CLASSES`; "" where NaN)."""
+    x = np.asarray(likelihood, dtype=np.float64)
+    names = np.array([c for c, _ in LIKELIHOOD_CLASSES], dtype=object)
+    edges = np.array([e for _, e in LIKELIHOOD_CLASSES[:-1]])
+    return np.where(np.isfinite(x), names[np.searchsorted(edges, x, side="right")], "")
+
+
+PROBLEM_COLUMNS = [
+    "zone",
+    "band",
+    "band_lower_m",
+    "band_upper_m",
+    "aspect_sector",
+    "problem",
+    "assessed",
+    "present_frac",
+    "area_km2",
+    "depth_min_cm",
+    "depth_max_cm",
+    "likelihood",
+    "likelihood_class",
+    "stability_index",
+    "index_mean",
+    "load_24h_kg_m2",
+    "load_72h_kg_m2",
+    "poor_bond_frac",
+    "terrain_km2",
+    "valid_time",
+    "is_forecast",
+    "note",
+]
+
+
+def problem_table(cells: pd.DataFrame, table: pd.DataFrame, weight_km2) -> pd.DataFrame:
+    """Summary of :func:`cell_problems` rows per zone × band × aspect and per zone.
+
+    Parameters
+    ----------
+    cells : :func:`cell_problems` rows (one valid time).
+    table : cell table indexed by ``cell_id``.
+    weight_km2 : (cell,) area weights [km2] (avalanche terrain in the run).
+
+    Returns
+    -------
+    DataFrame with :data:`PROBLEM_COLUMNS` (``is_forecast`` and ``valid_time`` filled by the
+    caller when missing): one row per group with terrain of the weighting and problem, and a
+    zone-wide row per problem (``band`` = ``aspect_sector`` = ``all``). ``present_frac`` and
+    ``area_km2`` [km2] where the problem is present; ``depth_min_cm``/``depth_max_cm`` the
+    range of its weak interface's vertical depth over those cells; ``likelihood`` the
+    sensitivity-weighted area share (0–1) and ``likelihood_class``; ``index_mean`` the
+    area-mean stability index where present; loads the area means of the last 24 / 72 h of
+    snowfall; ``poor_bond_frac`` (new snow) the share of its area with a poor bond;
+    ``terrain_km2`` the group's weighted area. Not-assessed problems have NaN values and a
+    ``note``.
+    """
+    w_all = pd.Series(np.asarray(weight_km2, dtype=np.float64), index=table.index)
+    rows = cells.merge(table[_BAND_ASPECT], left_on="cell_id", right_index=True)
+    rows["_w"] = w_all.reindex(rows["cell_id"]).to_numpy()
+    pres = rows["present"].to_numpy(bool)
+    w = rows["_w"].to_numpy()
+    rows["_wp"] = np.where(pres, w, 0.0)
+    rows["_wl"] = np.where(pres, w * np.nan_to_num(rows["sensitivity"].to_numpy()), 0.0)
+    rows["_wi"] = np.where(pres, w * np.nan_to_num(rows["index_value"].to_numpy()), 0.0)
+    rows["_wb"] = np.where(pres & (rows["bond"].to_numpy() == "poor"), w, 0.0)
+    for load in ("load_24h_kg_m2", "load_72h_kg_m2"):
+        rows[f"_w{load}"] = w * np.nan_to_num(rows[load].to_numpy())
+    rows["_dmin"] = np.where(pres & (w > 0), rows["depth_cm"], np.nan)
+    rows["_dmax"] = rows["_dmin"]
+    out = []
+    for keys in (_BAND_ASPECT, ["zone"]):
+        g = rows.groupby([*keys, "problem"], observed=True, dropna=False, sort=True)
+        agg = g.agg(
+            terrain_km2=("_w", "sum"),
+            area_km2=("_wp", "sum"),
+            _wl=("_wl", "sum"),
+            _wi=("_wi", "sum"),
+            _wb=("_wb", "sum"),
+            _w24=("_wload_24h_kg_m2", "sum"),
+            _w72=("_wload_72h_kg_m2", "sum"),
+            depth_min_cm=("_dmin", "min"),
+            depth_max_cm=("_dmax", "max"),
+            assessed=("assessed", "all"),
+        ).reset_index()
+        agg = agg[agg["terrain_km2"] > 0].copy()
+        tot, area = agg["terrain_km2"], agg["area_km2"]
+        agg["present_frac"] = area / tot
+        agg["likelihood"] = agg["_wl"] / tot
+        agg["index_mean"] = (agg["_wi"] / area).where(area > 0)
+        agg["poor_bond_frac"] = (agg["_wb"] / area).where(
+            (area > 0) & (agg["problem"] == "new_snow")
+        )
+        agg["load_24h_kg_m2"] = agg["_w24"] / tot
+        agg["load_72h_kg_m2"] = agg["_w72"] / tot
+        if keys == ["zone"]:
+            agg["band_lower_m"], agg["band_upper_m"] = np.nan, np.nan
+            agg["band"], agg["aspect_sector"] = "all", "all"
+        else:
+            agg["band"] = band_label(agg["band_lower_m"], agg["band_upper_m"])
+        out.append(agg)
+    res = pd.concat(out, ignore_index=True)
+    not_assessed = ~res["assessed"].astype(bool)
+    for col in (
+        "present_frac",
+        "area_km2",
+        "likelihood",
+        "index_mean",
+        "depth_min_cm",
+        "depth_max_cm",
+    ):
+        res.loc[not_assessed, col] = np.nan
+    res["likelihood_class"] = np.where(
+        not_assessed,
+        "not assessed",
+        np.where(res["present_frac"] > 0, likelihood_class(res["likelihood"]), "none"),
+    )
+    res["stability_index"] = res["problem"].astype(str).map(PROBLEM_INDEX)
+    res["note"] = np.where(
+        not_assessed,
+        "not assessed: profiles.nc has no wind_packed layers (wind transport off in this run)",
+        "",
+    )
+    res["problem"] = res["problem"].astype(str)
+    for col in ("valid_time", "is_forecast"):
+        if col not in res.columns:
+            res[col] = pd.NaT if col == "valid_time" else False
+    order = {p: i for i, p in enumerate(PROBLEMS)}
+    res["_order"] = res["problem"].map(order)
+    res = res.sort_values(
+        ["zone", "_order", "band_lower_m", "aspect_sector"], na_position="first", ignore_index=True
+    )
+    return res[PROBLEM_COLUMNS]
+
+
+def problems_at(
+    diag: xr.Dataset,
+    profiles: xr.Dataset,
+    table: pd.DataFrame,
+    weight_km2,
+    *,
+    time,
+    params: SnowParams | None = None,
+) -> tuple[pd.DataFrame, pd.DataFrame]:
+    """The problems table (:func:`problem_table`) at ``time`` and the per-cell rows it was
+    made from (:func:`cell_problems`)."""
+    cells = cell_problems(diag, profiles, table, [time], params=params)
+    res = problem_table(cells, table, weight_km2)
+    t_all = _times_of(diag)
+    want = _as_utc_array(time)[:1]
+    pos = _positions(t_all, want, "the avalanche-problem time")[0]
+    res["valid_time"] = want[0]
+    res["is_forecast"] = (
+        bool(diag["is_forecast"].values[pos]) if "is_forecast" in diag.variables else False
+    )
+    return res, cells
+
+
+def problem_sentences(problems: pd.DataFrame, *, min_present_frac: float = 0.1) -> pd.Series:
+    """One line per zone naming its problems, from the zone-wide rows: "persistent slab,
+    likely (45 % of avalanche terrain, weak layer 60-85 cm deep, mostly N-E 2100-2400 m);
+    …", most likely first; problems on less than ``min_present_frac`` of the area are left
+    out, a not-assessed wind slab is named as such. Index: zone."""
+    zone_rows = problems[problems["aspect_sector"] == "all"]
+    groups = problems[problems["aspect_sector"] != "all"]
+    lines = {}
+    for zone, rows in zone_rows.groupby("zone", sort=True):
+        parts = []
+        rows = rows.sort_values("likelihood", ascending=False, na_position="last")
+        for r in rows.itertuples():
+            label = PROBLEM_LABELS[r.problem]
+            if not r.assessed:
+                parts.append(f"{label} not assessed (no wind transport in this run)")
+                continue
+            if not r.present_frac >= min_present_frac:
+                continue
+            where = groups[(groups["zone"] == zone) & (groups["problem"] == r.problem)]
+            where = where[where["present_frac"] >= 0.5]
+            aspects = _aspect_text(where["aspect_sector"])
+            bands = where["band_lower_m"].to_numpy(float), where["band_upper_m"].to_numpy(float)
+            elev = _elevation_text(*bands)
+            depth = (
+                f"{r.depth_min_cm:.0f}-{r.depth_max_cm:.0f} cm deep"
+                if np.isfinite(r.depth_min_cm)
+                else ""
+            )
+            detail = ", ".join(
+                x
+                for x in (
+                    f"{r.present_frac * 100:.0f} % of avalanche terrain",
+                    depth,
+                    " ".join(x for x in (aspects, elev) if x),
+                )
+                if x
+            )
+            parts.append(f"{label}, {r.likelihood_class} ({detail})")
+        lines[zone] = "; ".join(parts) if parts else "no avalanche problem indicated"
+    return pd.Series(lines, name="problems", dtype=object)
+
+
+def _aspect_text(sectors: pd.Series) -> str:
+    named = [s for s in COMPASS_16 if s in set(sectors)]
+    if not named:
+        return ""
+    if len(named) >= 6:
+        return "most aspects"
+    return "/".join(named)
+
+
+def _elevation_text(lo: np.ndarray, hi: np.ndarray) -> str:
+    if lo.size == 0:
+        return ""
+    low = np.nanmin(np.where(np.isfinite(lo), lo, np.nan)) if np.isfinite(lo).any() else -np.inf
+    high = np.nanmax(np.where(np.isfinite(hi), hi, np.nan)) if np.isfinite(hi).any() else np.inf
+    if not np.isfinite(lo).all():
+        low = -np.inf
+    if not np.isfinite(hi).all():
+        high = np.inf
+    if np.isfinite(low) and np.isfinite(high):
+        return f"{low:.0f}-{high:.0f} m"
+    if np.isfinite(low):
+        return f"above {low:.0f} m"
+    if np.isfinite(high):
+        return f"below {high:.0f} m"
+    return "all elevations"
