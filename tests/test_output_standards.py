@@ -167,7 +167,7 @@ def test_profiles_describe_their_cells(demo_run):
 # ---------------------------------------------------------------- GeoPackage
 #: GDAL's GeoPackage validator, shipped with its Python bindings (Debian python3-gdal)
 GDAL_GPKG_VALIDATOR = GDAL_COG_VALIDATOR.with_name("validate_gpkg.py")
-GPKG_LAYERS = ("zones", "cells", "rain_crust_line", "layers_of_concern")
+GPKG_LAYERS = ("zones", "cells", "rain_crust_line", "layers_of_concern", "problems")
 
 
 def test_geopackage_is_version_1_2_and_valid_for_gdal(demo_run):
@@ -230,7 +230,7 @@ def test_geopackage_times_are_datetime_and_dates_date(demo_run):
 
 
 # ---------------------------------------------------------------- GeoJSON (RFC 7946)
-GEOJSON = ("zones.geojson", "cells.geojson", "rain_crust_line.geojson")
+GEOJSON = ("zones.geojson", "cells.geojson", "rain_crust_line.geojson", "problems.geojson")
 
 
 def _ring_area(ring) -> float:
@@ -282,7 +282,7 @@ def test_every_layer_with_geometry_has_a_geojson(demo_run):
     import geopandas as gpd
 
     out = demo_run[2]
-    for layer, name in zip(("zones", "cells", "rain_crust_line"), GEOJSON, strict=True):
+    for layer, name in zip(("zones", "cells", "rain_crust_line", "problems"), GEOJSON, strict=True):
         gpkg = gpd.read_file(out / "zones.gpkg", layer=layer)
         gj = gpd.read_file(out / name)
         assert len(gj) == len(gpkg) and gj.crs.to_epsg() == 4326, name
@@ -296,6 +296,7 @@ CSV_TABLES = (
     "events.csv",
     "snow_line.csv",
     "rain_crust_limits.csv",
+    "problems.csv",
 )
 #: ISO 8601 date and time with a UTC offset
 ISO_WITH_OFFSET = r"^\d{4}-\d{2}-\d{2}T\d{2}:\d{2}:\d{2}[+-]\d{2}:\d{2}$"
