@@ -156,3 +156,38 @@ def test_invented_data_are_declared_in_run_json_and_at_the_top_of_the_report(dem
     body = doc.find(f"{_NS}body")
     first = next(iter(body))  # the banner comes before everything else on the page
     assert first.get("id") == "invented-data" and "".join(first.itertext()) == INVENTED_DATA
+
+
+def test_demo_report_opens_with_the_zone_problem_matrix_from_problems_csv(demo_report):
+    import pandas as pd
+
+    from regionmap.products.problems import PROBLEM_LABELS, PROBLEMS
+
+    doc = html5lib.parse(
+        demo_report.read_text(encoding="utf-8"), treebuilder="etree", namespaceHTMLElements=True
+    )
+    sections = [s.get("id") for s in doc.iter(f"{_NS}section")]
+    # the matrix comes first, before the headline; the problems section has its caution
+    assert sections[0] == "problems-matrix" and sections.index("problems") > 0
+    matrix = doc.find(f".//{_NS}section[@id='problems-matrix']//{_NS}table")
+    header = [th.text for th in matrix.iter(f"{_NS}th")]
+    assert header == ["zone", *[PROBLEM_LABELS[p] for p in PROBLEMS]]
+    problems = pd.read_csv(demo_report.parent / "problems.csv")
+    zone_rows = problems[problems["aspect_sector"] == "all"].set_index(["zone", "problem"])
+    for tr in matrix.find(f"{_NS}tbody").iter(f"{_NS}tr"):
+        cells = [td.text for td in tr.iter(f"{_NS}td")]
+        zone = cells[0]
+        for problem, text in zip(PROBLEMS, cells[1:]):
+            row = zone_rows.loc[(zone, problem)]
+            if not row["assessed"]:
+                assert text == "not assessed"
+            elif row["present_frac"] > 0:
+                assert text.startswith(row["likelihood_class"])
+            else:
+                assert text == "none"
+    section = doc.find(f".//{_NS}section[@id='problems']")
+    assert "not a hazard rating" in "".join(section.itertext())
+    # one rose per problem present in the zone (the page draws them)
+    present = problems[(problems["aspect_sector"] == "all") & (problems["present_frac"] > 0)]
+    roses = section.findall(f".//{_SVG}svg[@data-scale='problem']")
+    assert len(roses) == len(present)

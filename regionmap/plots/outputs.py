@@ -25,6 +25,7 @@ from regionmap.cells import COMPASS_16
 from regionmap.errors import InputError
 from regionmap.io.times import utc_datetime64
 from regionmap.products.concern import DEFAULT_CRITERIA, ConcernCriteria
+from regionmap.products.problems import problems_at
 from regionmap.products.summaries import band_label, cell_values, observation_times, summarise
 
 __all__ = ["Metric", "METRICS", "RunOutputs", "SECTOR_ORDER", "metric"]
@@ -276,6 +277,22 @@ class RunOutputs:
     def layers_of_concern(self) -> pd.DataFrame:
         """``layers_of_concern.csv``."""
         return pd.read_csv(self.path("layers_of_concern.csv"))
+
+    @cached_property
+    def problems(self) -> pd.DataFrame:
+        """``problems.csv``; computed from ``cells.nc`` and ``profiles.nc``
+        (:func:`regionmap.products.problems.problems_at`) for a folder written without it."""
+        path = self.out_dir / "problems.csv"
+        if path.is_file():
+            return pd.read_csv(path, keep_default_na=False, na_values=[""])
+        frame, _ = problems_at(
+            self.cells,
+            self.profiles,
+            self.table,
+            self.weights[0].to_numpy(),
+            time=self.map_time,
+        )
+        return frame
 
     @cached_property
     def band_aspect_table(self) -> pd.DataFrame:

@@ -69,6 +69,7 @@ from regionmap.plots.tracker import (
     plot_elevation_chart,
     plot_layer_tracker,
 )
+from regionmap.products.problems import PROBLEM_LABELS, PROBLEMS, problem_sentences
 from regionmap.products.summaries import band_label
 from regionmap.report.headline import (
     HEADLINE_MIN_PRESENCE_FRAC,
@@ -120,6 +121,15 @@ CAUTIONS: tuple[str, ...] = (
     "single lee slopes below ridges, cornices, local avalanche activity and slope-scale "
     "variability are not resolved.",
     "Forecast parts of the run use forecast forcing and are less certain than the analysis.",
+)
+
+
+#: the caution beside the avalanche-problem indicators
+PROBLEM_CAUTION = (
+    "Model indicators for trained people, not a hazard rating and not an avalanche forecast: "
+    "they show where the simulated snowpack has the structure of each avalanche problem. "
+    "Field observations, the local avalanche service's bulletins and professional standards "
+    "of practice come first."
 )
 
 
@@ -572,9 +582,10 @@ def _run_items(run: dict) -> list[tuple[str, str]]:
     return items
 
 
-def _rose_payload(out: RunOutputs, lines: pd.DataFrame) -> tuple[dict, dict, list, dict]:
+def _rose_payload(out: RunOutputs, lines: pd.DataFrame) -> tuple[dict, dict, list, dict, dict]:
     """What the page needs to draw the roses: the zones' grids, the colour scales, the
-    metric roses per zone and the layer roses per (zone, layer_id), as class strings."""
+    metric roses per zone, the layer roses per (zone, layer_id) and the avalanche-problem
+    roses per (zone, problem), as class strings."""
     ba = out.band_aspect_table
     sectors, _ = sector_layout(out.table["aspect_sector"].unique())
     grids = zone_grid(ba, out.table, sectors)
@@ -599,6 +610,15 @@ def _rose_payload(out: RunOutputs, lines: pd.DataFrame) -> tuple[dict, dict, lis
             v = grid_values(rows, grids[zone], "presence_frac", fill=0.0) * 100.0
             k = np.where(v > 0, presence.classes(v), -1)
             layer_roses[(zone, lid)] = encode_classes(k, terrain[zone])
+    problems = out.problems
+    problem_scale = presence_scale("problem", "share of the terrain with the problem")
+    problem_roses = {}
+    parts = problems[(problems["aspect_sector"] != "all") & (problems["present_frac"] > 0)]
+    for (zone, problem), rows in parts.groupby(["zone", "problem"], sort=False):
+        if zone in grids:
+            v = grid_values(rows, grids[zone], "present_frac", fill=0.0) * 100.0
+            k = np.where(v > 0, problem_scale.classes(v), -1)
+            problem_roses[(zone, problem)] = encode_classes(k, terrain[zone])
     page = {
         "zones": {
             z: {
@@ -613,11 +633,58 @@ def _rose_payload(out: RunOutputs, lines: pd.DataFrame) -> tuple[dict, dict, lis
         },
         "scales": {
             "presence": presence.as_dict(),
+            "problem": problem_scale.as_dict(),
             **{k: sc.as_dict() for k, (sc, _) in scales.items()},
         },
     }
-    legends = {"presence": presence, **{k: sc for k, (sc, _) in scales.items()}}
-    return page, legends, metric_roses, layer_roses
+    legends = {
+        "presence": presence,
+        "problem": problem_scale,
+        **{k: sc for k, (sc, _) in scales.items()},
+    }
+    return page, legends, metric_roses, layer_roses, problem_roses
+
+
+def _problem_matrix(problems: pd.DataFrame, zones: list[str]) -> list[dict]:
+    """Zone × problem matrix of the zone-wide rows: per zone, one cell per problem with its
+    likelihood class and the share of the zone's terrain with it."""
+    zone_rows = problems[problems["aspect_sector"] == "all"].set_index(["zone", "problem"])
+    matrix = []
+    for zone in zones:
+        cells = []
+        for problem in PROBLEMS:
+            if (zone, problem) not in zone_rows.index:
+                cells.append({"text": "", "cls": "none"})
+                continue
+            r = zone_rows.loc[(zone, problem)]
+            if not bool(r["assessed"]):
+                cells.append({"text": "not assessed", "cls": "na"})
+            elif not r["present_frac"] > 0:
+                cells.append({"text": "none", "cls": "none"})
+            else:
+                text = f"{r['likelihood_class']} ({100 * r['present_frac']:.0f} %)"
+                cells.append({"text": text, "cls": "present"})
+        matrix.append({"zone": zone, "cells": cells})
+    return matrix
+
+
+def _problem_zones(problems: pd.DataFrame, roses: dict, page: dict) -> list[dict]:
+    """Per zone: its one line of text and a rose per problem present in it."""
+    lines = problem_sentences(problems)
+    zone_rows = problems[(problems["aspect_sector"] == "all") & (problems["present_frac"] > 0)]
+    out = []
+    for zone, text in lines.items():
+        rows = zone_rows[zone_rows["zone"] == zone].sort_values("likelihood", ascending=False)
+        items = [
+            {
+                "text": f"{PROBLEM_LABELS[r.problem]}: {r.likelihood_class}, "
+                f"{100 * r.present_frac:.0f} % of the terrain",
+                "v": roses.get((zone, r.problem), ""),
+            }
+            for r in rows.itertuples()
+        ]
+        out.append({"zone": zone, "text": text, "rings": _rings_note(page, zone), "roses": items})
+    return out
 
 
 def _rings_note(page: dict, zone: str) -> str:
@@ -652,7 +719,8 @@ def write_report(out_dir) -> Path:
         terrain = "avalanche terrain" if weights_label.startswith("avalanche") else "all terrain"
         changes = zone_changes(out)
         lines = layer_lines(out.layers_of_concern, terrain=terrain)
-        page, legends, metric_roses, layer_roses = _rose_payload(out, lines)
+        page, legends, metric_roses, layer_roses, problem_roses = _rose_payload(out, lines)
+        problems = out.problems
         window_end = out.new_snow_window_end
         zones = pd.DataFrame(out.zones.drop(columns=out.zones.geometry.name)).sort_values("zone")
         figures, _ = _render(out, thumbnails=True, maps_only=True)
@@ -753,6 +821,10 @@ def write_report(out_dir) -> Path:
             window_end=local_time_label(window_end, tz),
             rain_crust=rain,
             layer_zones=layer_zones,
+            problem_names=[PROBLEM_LABELS[p] for p in PROBLEMS],
+            problem_matrix=_problem_matrix(problems, out.zone_names),
+            problem_zones=_problem_zones(problems, problem_roses, page),
+            problem_caution=PROBLEM_CAUTION,
             headline_min_pct=round(100 * HEADLINE_MIN_PRESENCE_FRAC),
             metric_zones=[
                 {"zone": z, "rings": _rings_note(page, z), "roses": metric_zones[z]}
