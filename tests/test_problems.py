@@ -20,6 +20,7 @@ from regionmap.products.problems import (
     cell_problems,
     likelihood_class,
     lwc_index_mitterer2011,
+    problem_flags,
     problem_sentences,
     problem_table,
 )
@@ -191,6 +192,9 @@ def test_wind_slab_not_assessed_without_the_flag_and_said_so():
     assert wind["present_frac"].isna().all()
     assert wind["note"].str.contains("wind_packed").all()
     assert "wind slab not assessed" in problem_sentences(summary)["Invented Zone"]
+    flags = problem_flags(got)  # the cells layer's columns: empty, not 0, when not assessed
+    assert np.isnan(flags.loc[0, "wind_slab_present"])
+    assert flags.loc[0, "persistent_slab_present"] in (0.0, 1.0)
     # every problem has its rows
     assert set(summary["problem"]) == set(PROBLEMS)
 

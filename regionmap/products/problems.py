@@ -114,6 +114,7 @@ __all__ = [
     "problems_at",
     "likelihood_class",
     "problem_sentences",
+    "problem_flags",
 ]
 
 #: the problems, in the order of the conceptual model of avalanche hazard (Statham et al. 2018)
@@ -366,7 +367,7 @@ def _snapshot_fields(profiles: xr.Dataset, days: np.ndarray) -> dict[str, np.nda
         for name in ("grain_size_mm", "hardness_index", "liquid_kg_m2")
     }
     if "wind_packed" in ds.variables:
-        out["wind_packed"] = np.nan_to_num(ds["wind_packed"].values.astype(np.float64)) > 0
+        out["wind_packed"] = ds["wind_packed"].values.astype(np.float64) == 1.0
     return out
 
 
@@ -722,6 +723,19 @@ def problems_at(
         bool(diag["is_forecast"].values[pos]) if "is_forecast" in diag.variables else False
     )
     return res, cells
+
+
+def problem_flags(cells: pd.DataFrame) -> pd.DataFrame:
+    """Per cell (index ``cell_id``), ``<problem>_present`` as 1.0 / 0.0 from
+    :func:`cell_problems` rows of one time; NaN where the problem is not assessed."""
+    value = np.where(cells["assessed"].to_numpy(bool), cells["present"].to_numpy(float), np.nan)
+    wide = (
+        cells.assign(_v=value)
+        .pivot(index="cell_id", columns="problem", values="_v")
+        .reindex(columns=list(PROBLEMS))
+    )
+    wide.columns = [f"{p}_present" for p in wide.columns]
+    return wide
 
 
 def problem_sentences(problems: pd.DataFrame, *, min_present_frac: float = 0.1) -> pd.Series:

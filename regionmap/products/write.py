@@ -21,7 +21,7 @@ from regionmap.io.times import event_date_label
 from regionmap.io.writers import write_csv
 from regionmap.products.concern import ConcernCriteria
 from regionmap.products.gis import write_gis
-from regionmap.products.problems import problems_at
+from regionmap.products.problems import problem_flags, problems_at
 from regionmap.products.rain_crust import (
     NO_CRUST_CLAUSE,
     RainEvent,
@@ -168,7 +168,7 @@ def write_products(
             observation_hour=hour,
             criteria=criteria,
         )
-        problems, _ = problems_at(
+        problems, cell_problems = problems_at(
             diag, prof, table, weights["avalanche_km2"].to_numpy(), time=map_time, params=cfg.snow
         )
         rc_cols, lines, words = _rain_crust(
@@ -187,6 +187,7 @@ def write_products(
     zones["valid_time"] = pd.Timestamp(map_time)
     zones["is_forecast"] = bool(is_forecast)
     cells = tables.cells.join(weights[["avalanche_km2", "all_km2"]], how="left")
+    cells = cells.join(problem_flags(cell_problems), how="left")
     # a cell is one simulated column, so its depth-hoar fraction is its presence flag (0 or 1)
     sources = {
         "depth_hoar_fraction": "depth_hoar_present",
