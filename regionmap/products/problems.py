@@ -67,6 +67,9 @@ References
 
 from __future__ import annotations
 
+from dataclasses import dataclass
+from typing import NamedTuple
+
 import numpy as np
 import pandas as pd
 import xarray as xr
@@ -353,8 +356,49 @@ def _top_index(mask: np.ndarray) -> np.ndarray:
     return np.where(mask.any(axis=-1), last, -1)
 
 
-def _snapshot_fields(profiles: xr.Dataset, days: np.ndarray) -> dict[str, np.ndarray]:
-    """Grain size, hardness, liquid water and the wind flag (cell, n, layer) of snapshots."""
+@dataclass(frozen=True)
+class _Columns:
+    """Layer fields of snapshot columns, arrays (cell, time, layer) bottom first, and what
+    the indicators share: threshold scores of each interface (top of layer k) and the
+    best bounding score of each layer of concern (0 elsewhere; ``concern_deep`` with the
+    critical score for layers below the depth window)."""
+
+    time_s: np.ndarray  # (1, time, 1) int64 valid times
+    valid: np.ndarray
+    thickness_m: np.ndarray
+    depth_cm: np.ndarray  # of the layer's top below the surface
+    grain: np.ndarray
+    hardness: np.ndarray
+    grain_mm: np.ndarray
+    liquid_kg_m2: np.ndarray
+    deposition_s: np.ndarray
+    wind_packed: np.ndarray | None
+    persistent: np.ndarray
+    hard_surface: np.ndarray  # crusts and ice
+    scores: np.ndarray
+    critical: float
+    concern: np.ndarray
+    concern_deep: np.ndarray
+
+    @property
+    def snow_depth_cm(self) -> np.ndarray:
+        return self.thickness_m.sum(axis=2) * 100.0
+
+
+class _Indicator(NamedTuple):
+    """One problem of every cell and time (cell, time): presence, sensitivity 0-1, the
+    stability index, the depth of the weak interface [cm]; new snow also the bond."""
+
+    present: np.ndarray
+    sensitivity: np.ndarray
+    index: np.ndarray
+    depth_cm: np.ndarray
+    bond: np.ndarray | None = None
+
+
+def _read_columns(profiles: xr.Dataset, days: np.ndarray, want: np.ndarray, params) -> _Columns:
+    """Decode the snapshots ``days`` (one per wanted time) and score their interfaces."""
+    snap = decode_snapshot(profiles, days)
     ds = profiles.isel(day=days).transpose("cell", "day", "layer", ...)
     missing = [v for v in ("grain_size_mm", "hardness_index") if v not in ds.variables]
     if missing:
@@ -362,13 +406,129 @@ def _snapshot_fields(profiles: xr.Dataset, days: np.ndarray) -> dict[str, np.nda
             f"profiles.nc: missing variables {missing}; the avalanche problems need the layer "
             "snapshot fields of docs/outputs.md"
         )
-    out = {
-        name: np.nan_to_num(ds[name].values.astype(np.float64))
-        for name in ("grain_size_mm", "hardness_index", "liquid_kg_m2")
-    }
+    valid = snap.valid
+
+    def field(name: str, fill: float) -> np.ndarray:
+        return np.where(valid, np.nan_to_num(ds[name].values.astype(np.float64)), fill)
+
+    wind = None
     if "wind_packed" in ds.variables:
-        out["wind_packed"] = ds["wind_packed"].values.astype(np.float64) == 1.0
-    return out
+        wind = valid & (ds["wind_packed"].values.astype(np.float64) == 1.0)
+    grain = snap.grain.astype(np.int64)
+    hardness, grain_mm = field("hardness_index", np.nan), field("grain_size_mm", np.nan)
+    shape = (valid.shape[0] * valid.shape[1], valid.shape[2])
+    columns = (
+        valid.sum(axis=2).reshape(-1),
+        snap.thickness_m.reshape(shape),
+        grain_mm.reshape(shape),
+        hardness.reshape(shape),
+        grain.reshape(shape),
+    )
+    scores, concern = weak_layers_of_concern(*columns, params)
+    _, concern_deep = weak_layers_of_concern(*columns, params, below_depth_window=True)
+    p = SnowParams() if params is None else params
+    return _Columns(
+        time_s=want.astype(np.int64)[None, :, None],
+        valid=valid,
+        thickness_m=snap.thickness_m,
+        depth_cm=snap.depth_cm,
+        grain=grain,
+        hardness=hardness,
+        grain_mm=grain_mm,
+        liquid_kg_m2=field("liquid_kg_m2", 0.0),
+        deposition_s=snap.deposition_s,
+        wind_packed=wind,
+        persistent=valid & _PERSISTENT[grain],
+        hard_surface=valid & ((snap.crust != _NO_CRUST) | (grain == _IF) | (grain == _MFCR)),
+        scores=scores.reshape(valid.shape),
+        critical=CRITICAL_SUM_RELATIVE if p.threshold_relative else CRITICAL_COUNT_ABSOLUTE,
+        concern=concern.reshape(valid.shape),
+        concern_deep=concern_deep.reshape(valid.shape),
+    )
+
+
+def _new_snow(col: _Columns, new_snow_72h_cm: np.ndarray) -> _Indicator:
+    """New snow of the last 72 h against the critical new-snow depth of its bond."""
+    recent = col.valid & (col.deposition_s > col.time_s - 72 * 3600)
+    old = _top_index(col.valid & ~recent)  # the old snow surface
+    poor = _take(col.persistent | col.hard_surface, old, False).astype(bool)
+    bond = np.where(old < 0, "none", np.where(poor, "poor", "fair"))
+    low = np.where(poor, CRITICAL_NEW_SNOW_CM["poor"][0], CRITICAL_NEW_SNOW_CM["fair"][0])
+    high = np.where(poor, CRITICAL_NEW_SNOW_CM["poor"][1], CRITICAL_NEW_SNOW_CM["fair"][1])
+    ratio = new_snow_72h_cm / high
+    depth = np.where(old >= 0, _take(col.depth_cm, old), col.snow_depth_cm)
+    return _Indicator(new_snow_72h_cm >= low, ratio, ratio, depth, bond)
+
+
+def _wind_slab(col: _Columns) -> _Indicator | None:
+    """Recent wind-deposited slab over a weak interface; None without the wind flag."""
+    if col.wind_packed is None:
+        return None
+    wind = col.wind_packed & (col.deposition_s > col.time_s - int(WIND_SLAB_RECENT_DAYS * 86400))
+    top = _top_index(wind)
+    # the lowest layer of the uppermost run of wind-deposited layers, and the one under it
+    gap = (np.arange(wind.shape[2]) <= top[..., None]) & ~wind
+    base = np.where(top >= 0, np.where(gap.any(axis=2), _top_index(gap) + 1, 0), -1)
+    under = base - 1
+    slab_cm = np.where(base >= 1, _take(col.depth_cm, under), np.nan)
+    score = _take(col.scores, under, 0.0)
+    weak = (
+        _take(col.persistent | col.hard_surface, under, False).astype(bool)
+        | (_take(col.hardness, base) - _take(col.hardness, under) >= HARDNESS_DIFF_MIN)
+        | (score >= col.critical)
+    )
+    present = (base >= 1) & weak & (slab_cm >= SLAB_MIN_CM)
+    return _Indicator(present, score / col.critical, score / col.critical, slab_cm)
+
+
+def _persistent_slabs(col: _Columns) -> tuple[_Indicator, _Indicator]:
+    """The uppermost weak layer of concern within and below the depth window."""
+    deep = col.depth_cm > DEEP_SLAB_M * 100.0
+    out = []
+    for runs, where in ((col.concern, ~deep), (col.concern_deep, deep)):
+        concern = runs > 0
+        above = np.concatenate([concern[..., 1:], np.zeros_like(concern[..., :1])], axis=2)
+        k = _top_index(concern & ~above & where)  # the top layer of a run of concern
+        index = _take(runs, k, 0.0) / N_CRITERIA
+        out.append(_Indicator(k >= 0, index, index, _take(col.depth_cm, k)))
+    return out[0], out[1]
+
+
+def _wet_snow(col: _Columns) -> _Indicator:
+    """LWC index of the column; water on a capillary barrier or weak layer; wet to the ground."""
+    lwc_index = np.nan_to_num(lwc_index_mitterer2011(col.liquid_kg_m2, col.thickness_m))
+    theta = np.where(
+        col.valid & (col.thickness_m > 0),
+        col.liquid_kg_m2 / (RHO_WATER_KG_M3 * np.maximum(col.thickness_m, 1e-9)),
+        0.0,
+    )
+    theta_above = np.concatenate([theta[..., 1:], np.zeros_like(theta[..., :1])], axis=2)
+    size_above = np.concatenate(
+        [col.grain_mm[..., 1:], np.full_like(col.grain_mm[..., :1], np.nan)], axis=2
+    )
+    # a capillary barrier (coarser than the layer above) or a persistent weak layer, with
+    # water in the layer above it (or, for the weak layer, in itself), under a slab
+    barrier = col.valid & ((col.grain_mm - size_above >= GRAIN_SIZE_DIFF_MIN_MM) | col.persistent)
+    wetted = (theta_above > 0) | (col.persistent & (theta > 0))
+    k = _top_index(barrier & wetted & (col.depth_cm >= SLAB_MIN_CM))
+    theta_on = np.maximum(
+        _take(theta_above, k, 0.0), _take(np.where(col.persistent, theta, 0.0), k, 0.0)
+    )
+    depth_cm = col.snow_depth_cm
+    wet_cm = ((theta > 0) * col.thickness_m).sum(axis=2) * 100.0
+    wet_share = np.where(depth_cm > 0, wet_cm / np.maximum(depth_cm, 1e-9), 0.0)
+    to_ground = (theta[..., 0] > 0) & (wet_share >= WET_TO_GROUND_SHARE)
+    present = ((lwc_index >= 1.0) | (k >= 0) | to_ground) & (depth_cm > 0)
+    sensitivity = np.maximum.reduce(
+        [lwc_index, theta_on / WET_CLASS_FRAC, np.where(to_ground, wet_share, 0.0)]
+    )
+    return _Indicator(
+        present, sensitivity, lwc_index, np.where(k >= 0, _take(col.depth_cm, k), depth_cm)
+    )
+
+
+#: cells whose snapshots are decoded together (bounds the memory of the layer arrays)
+_CELL_BLOCK = 4096
 
 
 def cell_problems(
@@ -409,162 +569,64 @@ def cell_problems(
         raise InputError(
             f"profiles.nc: no layer snapshot at or before {want[d < 0][0]} for the avalanche problems"
         )
-    snap = decode_snapshot(profiles, d)
-    extra = _snapshot_fields(profiles, d)
-    n_cell, n_t, n_layer = snap.valid.shape
-    t_s = want.astype(np.int64)[None, :, None]
-    valid = snap.valid
-    thick_cm = snap.thickness_m * 100.0
-    depth_cm = snap.depth_cm  # top of each layer below the surface
-    grain = snap.grain.astype(np.int64)
-    hard = np.where(valid, extra["hardness_index"], np.nan)
-    gsize = np.where(valid, extra["grain_size_mm"], np.nan)
-    liquid = np.where(valid, extra["liquid_kg_m2"], 0.0)
-    count = valid.sum(axis=2)
-
-    # threshold scores and the weak layers of concern of every snapshot column
-    flat = (n_cell * n_t, n_layer)
-    columns = (
-        count.reshape(-1),
-        snap.thickness_m.reshape(flat),
-        gsize.reshape(flat),
-        hard.reshape(flat),
-        grain.reshape(flat),
-    )
-    scores, run_score = weak_layers_of_concern(*columns, params)
-    _, run_score_deep = weak_layers_of_concern(*columns, params, below_depth_window=True)
-    scores = scores.reshape(snap.valid.shape)
-    run_score = run_score.reshape(snap.valid.shape)
-    run_score_deep = run_score_deep.reshape(snap.valid.shape)
-    p = SnowParams() if params is None else params
-    critical = CRITICAL_SUM_RELATIVE if p.threshold_relative else CRITICAL_COUNT_ABSOLUTE
-    persistent = valid & _PERSISTENT[grain]
-    hard_surface = valid & ((snap.crust != _NO_CRUST) | (grain == _IF) | (grain == _MFCR))
-
+    if "new_snow_72h_cm" not in diag.variables:
+        raise InputError("cells.nc: missing variable 'new_snow_72h_cm' (see docs/outputs.md)")
     # snowfall of the last 24 / 72 h at each time
     back = [
         np.searchsorted(t_all, want - np.timedelta64(h * 3600, "s"), side="right") - 1
         for h in (24, 72)
     ]
-    cum = running_snowfall_at(diag, np.concatenate([pos, *back]))
-    c_now, c_24, c_72 = np.split(cum, 3, axis=1)
-    load_24 = c_now - c_24
-    load_72 = c_now - c_72
-
-    def at(name: str) -> np.ndarray:
-        if name not in diag.variables:
-            raise InputError(f"cells.nc: missing variable {name!r} (see docs/outputs.md)")
-        return diag[name].isel(time=pos).transpose("cell", ...).values.astype(np.float64)
-
-    hn72_cm = np.nan_to_num(at("new_snow_72h_cm"))
-    snow_depth_cm = np.nan_to_num(at("snow_depth_cm"))
+    c_now, c_24, c_72 = np.split(running_snowfall_at(diag, np.concatenate([pos, *back])), 3, axis=1)
     frames = []
-
-    def add(problem, assessed, present, sensitivity, index_value, depth, bond=None):
-        present = np.asarray(present, bool)
-        frame = pd.DataFrame(
-            {
-                "cell_id": np.repeat(table.index.to_numpy(), n_t),
-                "valid_time": np.tile(want, n_cell),
-                "problem": problem,
-                "assessed": assessed,
-                "present": present.reshape(-1) if assessed else False,
-                "sensitivity": np.where(present, np.clip(sensitivity, 0.0, 1.0), np.nan).reshape(-1)
-                if assessed
-                else np.nan,
-                "index_value": np.where(present, index_value, np.nan).reshape(-1)
-                if assessed
-                else np.nan,
-                "depth_cm": np.where(present, depth, np.nan).reshape(-1) if assessed else np.nan,
-                "load_24h_kg_m2": load_24.reshape(-1),
-                "load_72h_kg_m2": load_72.reshape(-1),
-                "bond": "" if bond is None else bond.reshape(-1),
-            }
-        )
-        frames.append(frame)
-
-    # --- new snow: 72 h of snow over its bond to the old surface
-    recent = valid & (snap.deposition_s > t_s - 72 * 3600)
-    old = _top_index(valid & ~recent)
-    old_poor = _take(persistent | hard_surface, old, False).astype(bool)
-    bond = np.where(old < 0, "none", np.where(old_poor, "poor", "fair"))
-    lo = np.where(old_poor, CRITICAL_NEW_SNOW_CM["poor"][0], CRITICAL_NEW_SNOW_CM["fair"][0])
-    hi = np.where(old_poor, CRITICAL_NEW_SNOW_CM["poor"][1], CRITICAL_NEW_SNOW_CM["fair"][1])
-    new_depth = np.where(old >= 0, _take(depth_cm, old), snow_depth_cm)
-    add("new_snow", True, hn72_cm >= lo, hn72_cm / hi, hn72_cm / hi, new_depth, bond)
-
-    # --- wind slab: recent wind-deposited snow over a weak interface
-    if "wind_packed" in extra:
-        wind = (
-            valid
-            & extra["wind_packed"]
-            & (snap.deposition_s > t_s - int(WIND_SLAB_RECENT_DAYS * 86400))
-        )
-        top_w = _top_index(wind)
-        # lowest layer of the uppermost run of wind-deposited layers
-        below_top = np.arange(n_layer)[None, None, :] <= top_w[..., None]
-        broken = below_top & ~wind
-        base = np.where(broken.any(axis=2), _top_index(broken) + 1, 0)
-        base = np.where(top_w >= 0, base, -1)
-        under = base - 1
-        slab_cm = np.where(base >= 1, _take(depth_cm, under), np.nan)
-        weak_under = (
-            _take(persistent | hard_surface, under, False).astype(bool)
-            | (_take(hard, base) - _take(hard, under) >= HARDNESS_DIFF_MIN)
-            | (_take(scores, under, 0.0) >= critical)
-        )
-        present = (base >= 1) & weak_under & (slab_cm >= SLAB_MIN_CM)
-        index = _take(scores, under, 0.0) / critical
-        add("wind_slab", True, present, index, index, slab_cm)
-    else:
-        add("wind_slab", False, np.zeros((n_cell, n_t), bool), np.nan, np.nan, np.nan)
-
-    # --- persistent and deep persistent slabs: the uppermost layer of concern of each depth
-    deep = depth_cm > DEEP_SLAB_M * 100.0
-    for problem, runs, where in (
-        ("persistent_slab", run_score, ~deep),
-        ("deep_persistent_slab", run_score_deep, deep),
-    ):
-        concern = runs > 0
-        run_top = concern & ~np.concatenate(
-            [concern[..., 1:], np.zeros_like(concern[..., :1])], axis=2
-        )
-        k = _top_index(run_top & where)
-        index = _take(runs, k, 0.0) / N_CRITERIA
-        add(problem, True, k >= 0, index, index, _take(depth_cm, k))
-
-    # --- wet snow: LWC index of the column; water on a capillary barrier or weak layer
-    lwc_index = np.nan_to_num(lwc_index_mitterer2011(liquid, snap.thickness_m))
-    theta = np.where(
-        valid & (snap.thickness_m > 0),
-        liquid / (RHO_WATER_KG_M3 * np.maximum(snap.thickness_m, 1e-9)),
-        0.0,
-    )
-    theta_above = np.concatenate([theta[..., 1:], np.zeros_like(theta[..., :1])], axis=2)
-    gsize_above = np.concatenate([gsize[..., 1:], np.full_like(gsize[..., :1], np.nan)], axis=2)
-    # layer k is a barrier (or weak layer) with water in the layer above it or in itself
-    barrier = valid & ((gsize - gsize_above >= GRAIN_SIZE_DIFF_MIN_MM) | persistent)
-    wet_on = barrier & ((theta_above > 0) | (persistent & (theta > 0))) & (depth_cm >= SLAB_MIN_CM)
-    kb = _top_index(wet_on)
-    theta_on = np.maximum(
-        _take(theta_above, kb, 0.0), _take(np.where(persistent, theta, 0.0), kb, 0.0)
-    )
-    wet = valid & (theta > 0)
-    bottom_wet = wet[..., 0]
-    wet_share = np.where(
-        snow_depth_cm > 0, (wet * thick_cm).sum(axis=2) / np.maximum(snow_depth_cm, 1e-9), 0.0
-    )
-    to_ground = bottom_wet & (wet_share >= WET_TO_GROUND_SHARE)
-    wet_present = (lwc_index >= 1.0) | (kb >= 0) | to_ground
-    wet_sens = np.maximum.reduce(
-        [lwc_index, theta_on / WET_CLASS_FRAC, np.where(to_ground, wet_share, 0.0)]
-    )
-    wet_depth = np.where(kb >= 0, _take(depth_cm, kb), snow_depth_cm)
-    add("wet_snow", True, wet_present & (snow_depth_cm > 0), wet_sens, lwc_index, wet_depth)
-
+    n_cell = diag.sizes["cell"]
+    for lo in range(0, n_cell, _CELL_BLOCK):
+        block = slice(lo, min(lo + _CELL_BLOCK, n_cell))
+        col = _read_columns(profiles.isel(cell=block), d, want, params)
+        hn72 = diag["new_snow_72h_cm"].isel(cell=block, time=pos).transpose("cell", ...).values
+        persistent, deep = _persistent_slabs(col)
+        found = {
+            "new_snow": _new_snow(col, np.nan_to_num(hn72.astype(np.float64))),
+            "wind_slab": _wind_slab(col),
+            "persistent_slab": persistent,
+            "deep_persistent_slab": deep,
+            "wet_snow": _wet_snow(col),
+        }
+        ids = np.repeat(table.index.to_numpy()[block], want.size)
+        common = {
+            "cell_id": ids,
+            "valid_time": np.tile(want, ids.size // want.size),
+            "load_24h_kg_m2": (c_now - c_24)[block].reshape(-1),
+            "load_72h_kg_m2": (c_now - c_72)[block].reshape(-1),
+        }
+        for problem in PROBLEMS:
+            frames.append(_indicator_rows(problem, found[problem], common))
     out = pd.concat(frames, ignore_index=True)
     out["problem"] = pd.Categorical(out["problem"], categories=PROBLEMS)
     return out.sort_values(["cell_id", "valid_time", "problem"], ignore_index=True)
+
+
+def _indicator_rows(problem: str, found: _Indicator | None, common: dict) -> pd.DataFrame:
+    """The :func:`cell_problems` rows of one problem (not assessed when ``found`` is None)."""
+    frame = pd.DataFrame(common)
+    frame.insert(2, "problem", problem)
+    frame.insert(3, "assessed", found is not None)
+    if found is None:
+        frame.insert(4, "present", False)
+        for name in ("sensitivity", "index_value", "depth_cm"):
+            frame[name] = np.nan
+        frame["bond"] = ""
+        return frame
+    present = found.present.reshape(-1)
+    frame.insert(4, "present", present)
+
+    def where_present(v) -> np.ndarray:
+        return np.where(present, np.asarray(v, dtype=np.float64).reshape(-1), np.nan)
+
+    frame["sensitivity"] = np.clip(where_present(found.sensitivity), 0.0, 1.0)
+    frame["index_value"] = where_present(found.index)
+    frame["depth_cm"] = where_present(found.depth_cm)
+    frame["bond"] = "" if found.bond is None else found.bond.reshape(-1)
+    return frame
 
 
 # --------------------------------------------------------------------------- per group
