@@ -23,6 +23,8 @@ from regionmap.products.problems import (
     problem_flags,
     problem_sentences,
     problem_table,
+    skier_reach,
+    skier_shear_stress_fohn1987,
 )
 from regionmap.snow.codes import GRAIN_INDEX
 from regionmap.snow.column import run_columns, snapshots_to_dataset
@@ -366,3 +368,31 @@ def test_no_wet_snow_in_a_cold_spell_but_after_a_warm_up(cold_spell_and_warm_up_
     # no slab problems in a pack without persistent grains (negative control)
     for problem in ("persistent_slab", "deep_persistent_slab", "new_snow"):
         assert not got.loc[(t_warm, 1, problem), "present"]
+
+
+# ------------------------------------------------------------------ reference: skier stress
+@pytest.mark.parametrize("slope_deg", [0.0, 38.0])
+@pytest.mark.parametrize("depth_m", [0.3, 0.94, 1.5])
+def test_skier_shear_stress_fohn1987_is_flamants_line_load(slope_deg, depth_m):
+    # Analytic oracle: Flamant's solution for a line load P on an elastic half-space
+    # (Timoshenko & Goodier, Theory of Elasticity, 3rd ed. 1970, §36): purely radial stress
+    # sigma_r = -2 P cos(theta - beta) / (pi r), beta the load's angle from the surface
+    # normal (a skier's weight on a slope of psi: beta = psi). Shear on planes parallel to
+    # the surface at depth D: sigma_r sin(theta) cos(theta) with r = D / cos(theta).
+    p = 780.0
+    theta = np.deg2rad(np.linspace(-89.99, 89.99, 200_001))
+    psi = np.deg2rad(slope_deg)
+    r = depth_m / np.cos(theta)
+    tau = 2 * p * np.cos(theta - psi) / (np.pi * r) * np.sin(theta) * np.cos(theta)
+    assert skier_shear_stress_fohn1987(depth_m, slope_deg) == pytest.approx(
+        np.abs(tau).max(), rel=1e-4
+    )
+
+
+def test_skier_reach_falls_as_one_over_depth_below_the_window():
+    # the 1/D decay of the line-load stress above (Foehn 1987), relative to 0.94 m, the deep
+    # end of the critical depth window of Schweizer & Jamieson (2007) [recalled from memory]
+    got = skier_reach(np.array([20.0, 94.0, 188.0]))
+    assert got == pytest.approx([1.0, 1.0, 0.5])
+    ratio = skier_shear_stress_fohn1987(1.88, 38.0) / skier_shear_stress_fohn1987(0.94, 38.0)
+    assert got[2] == pytest.approx(ratio, rel=1e-9)

@@ -4,8 +4,11 @@ Computed from a finished run's ``cells.nc`` and ``profiles.nc`` alone (products 
 again from the files). The five problems are those of the conceptual model of avalanche
 hazard (Statham et al. 2018): new snow, wind slab, persistent slab, deep persistent slab and
 wet snow. Each cell at a time either has a problem or not, by the criteria below, and carries
-a *sensitivity* in 0–1 from the stability index the problem uses; a group's ``likelihood`` is
-the area share of its avalanche terrain with the problem, weighted by that sensitivity.
+a *sensitivity* in 0–1 from the stability index the problem uses; for the slab problems times
+the share of a skier's added shear stress that reaches the weak interface (1 down to 0.94 m,
+then falling as 1/D: Föhn 1987, :func:`skier_shear_stress_fohn1987`), so deep slabs, hard to
+trigger, rank lower. A group's ``likelihood`` is the area share of its avalanche terrain with
+the problem, weighted by that sensitivity.
 
 Criteria (vertical depths; "weak interface" as in the threshold-sum approach):
 
@@ -50,18 +53,20 @@ References
 ----------
 .. [1] Statham, G. et al. (2018). A conceptual model of avalanche hazard. Natural Hazards 90,
    663-691. doi:10.1007/s11069-017-3070-5
-.. [2] Schweizer, J., Jamieson, J. B. and Schneebeli, M. (2003). Snow avalanche formation.
+.. [2] Föhn, P. M. B. (1987). The stability index and various triggering mechanisms. IAHS
+   Publication 162 (Avalanche Formation, Movement and Effects), 195-214.
+.. [3] Schweizer, J., Jamieson, J. B. and Schneebeli, M. (2003). Snow avalanche formation.
    Reviews of Geophysics 41(4), 1016. doi:10.1029/2002RG000123
-.. [3] Schweizer, J. and Jamieson, J. B. (2007). A threshold sum approach to stability
+.. [4] Schweizer, J. and Jamieson, J. B. (2007). A threshold sum approach to stability
    evaluation of manual snow profiles. Cold Regions Science and Technology 47, 50-59.
    doi:10.1016/j.coldregions.2006.08.011
-.. [4] Mitterer, C., Hirashima, H. and Schweizer, J. (2011). Wet-snow instabilities:
+.. [5] Mitterer, C., Hirashima, H. and Schweizer, J. (2011). Wet-snow instabilities:
    comparison of measured and modelled liquid water content and snow stratigraphy. Annals of
    Glaciology 52(58), 201-208. doi:10.3189/172756411797252077
-.. [5] Baggi, S. and Schweizer, J. (2009). Characteristics of wet-snow avalanche activity:
+.. [6] Baggi, S. and Schweizer, J. (2009). Characteristics of wet-snow avalanche activity:
    20 years of observations from a high alpine valley (Dischma, Switzerland). Natural Hazards
    50, 97-108. doi:10.1007/s11069-008-9322-7
-.. [6] Fierz, C. et al. (2009). The International Classification for Seasonal Snow on the
+.. [7] Fierz, C. et al. (2009). The International Classification for Seasonal Snow on the
    Ground. IHP-VII Technical Documents in Hydrology 83, UNESCO-IHP, Paris.
 """
 
@@ -111,6 +116,8 @@ __all__ = [
     "LWC_INDEX_REFERENCE_FRAC",
     "CRITICAL_NEW_SNOW_CM",
     "lwc_index_mitterer2011",
+    "skier_shear_stress_fohn1987",
+    "skier_reach",
     "weak_layers_of_concern",
     "cell_problems",
     "problem_table",
@@ -153,6 +160,8 @@ SLAB_MIN_CM: float = DEPTH_WINDOW_M[0] * 100.0
 #: wind-deposited layers count as a wind slab for this many days after deposition (ours;
 #: common practice: wind slabs mostly stabilise within days)
 WIND_SLAB_RECENT_DAYS: float = 7.0
+#: the skier as a line load on the snow surface [N m-1] (Föhn 1987 [mem])
+SKIER_LINE_LOAD_N_M: float = 780.0
 #: critical new-snow depth (lower, upper end) [cm] for a poor and a fair bond to the old
 #: surface: unfavourable and mixed conditions of Swiss practice (Schweizer et al. 2003 [mem];
 #: common practice)
@@ -210,6 +219,51 @@ def lwc_index_mitterer2011(
     depth_m = np.sum(np.asarray(thickness_m, dtype=np.float64), axis=axis)
     with np.errstate(invalid="ignore", divide="ignore"):
         return np.where(depth_m > 0, water_m / depth_m / LWC_INDEX_REFERENCE_FRAC, np.nan)
+
+
+def skier_shear_stress_fohn1987(
+    depth_m, slope_deg, *, line_load_n_m: float = SKIER_LINE_LOAD_N_M
+) -> np.ndarray:
+    """Largest added shear stress of a skier in a weak layer at depth ``depth_m`` (Föhn 1987).
+
+    Parameters
+    ----------
+    depth_m : array_like float
+        Slab thickness above the weak layer [m] (> 0).
+    slope_deg : array_like float
+        Slope angle ψ [deg].
+    line_load_n_m : float
+        The skier as a line load R on the snow surface [N m-1]; 780 N m-1 for a skier of
+        about 80 kg on 1.5 m long skis, dynamic (Föhn 1987 [mem]).
+
+    Returns
+    -------
+    ndarray float64
+        max over α of Δτ_xz = 2 R cos α sin² α sin(α + ψ) / (π D) [Pa], α the angle from the
+        surface normal to the point in the layer, searched on 0.1° steps.
+
+    Notes
+    -----
+    The slab and weak layer as a homogeneous elastic half-space under a line load (Flamant's
+    solution), after Föhn, P. M. B. (1987), The stability index and various triggering
+    mechanisms, IAHS Publication 162, 195-214; used in the skier stability index of Jamieson
+    & Johnston (1998), Annals of Glaciology 26, 296-302, doi:10.3189/1998AoG26-1-296-302.
+    The stress falls as 1/D with depth.
+    """
+    alpha = np.deg2rad(np.arange(0.0, 90.0, 0.1))
+    psi = np.deg2rad(np.asarray(slope_deg, dtype=np.float64))[..., None]
+    shape = np.cos(alpha) * np.sin(alpha) ** 2 * np.sin(alpha + psi)
+    depth = np.asarray(depth_m, dtype=np.float64)
+    return 2.0 * line_load_n_m * shape.max(axis=-1) / (np.pi * depth)
+
+
+def skier_reach(depth_cm) -> np.ndarray:
+    """Share of the skier's added shear stress that reaches a weak layer at ``depth_cm``,
+    relative to a layer at the deep end of the critical depth window (0.94 m): 1 down to
+    it, then DEEP_SLAB_M / D, the 1/D decay of :func:`skier_shear_stress_fohn1987` [1]."""
+    depth_m = np.asarray(depth_cm, dtype=np.float64) / 100.0
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return np.where(depth_m > DEEP_SLAB_M, DEEP_SLAB_M / depth_m, 1.0)
 
 
 @njit(cache=True, nogil=True, error_model="numpy")
@@ -457,7 +511,7 @@ def _new_snow(col: _Columns, new_snow_72h_cm: np.ndarray) -> _Indicator:
     high = np.where(poor, CRITICAL_NEW_SNOW_CM["poor"][1], CRITICAL_NEW_SNOW_CM["fair"][1])
     ratio = new_snow_72h_cm / high
     depth = np.where(old >= 0, _take(col.depth_cm, old), col.snow_depth_cm)
-    return _Indicator(new_snow_72h_cm >= low, ratio, ratio, depth, bond)
+    return _Indicator(new_snow_72h_cm >= low, ratio * skier_reach(depth), ratio, depth, bond)
 
 
 def _wind_slab(col: _Columns) -> _Indicator | None:
@@ -478,7 +532,8 @@ def _wind_slab(col: _Columns) -> _Indicator | None:
         | (score >= col.critical)
     )
     present = (base >= 1) & weak & (slab_cm >= SLAB_MIN_CM)
-    return _Indicator(present, score / col.critical, score / col.critical, slab_cm)
+    index = score / col.critical
+    return _Indicator(present, index * skier_reach(slab_cm), index, slab_cm)
 
 
 def _persistent_slabs(col: _Columns) -> tuple[_Indicator, _Indicator]:
@@ -490,7 +545,8 @@ def _persistent_slabs(col: _Columns) -> tuple[_Indicator, _Indicator]:
         above = np.concatenate([concern[..., 1:], np.zeros_like(concern[..., :1])], axis=2)
         k = _top_index(concern & ~above & where)  # the top layer of a run of concern
         index = _take(runs, k, 0.0) / N_CRITERIA
-        out.append(_Indicator(k >= 0, index, index, _take(col.depth_cm, k)))
+        depth = _take(col.depth_cm, k)
+        out.append(_Indicator(k >= 0, index * skier_reach(depth), index, depth))
     return out[0], out[1]
 
 
