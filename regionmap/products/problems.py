@@ -350,7 +350,7 @@ def weak_layers_of_concern(
     SH at any thickness), grains of at least ``pwl_min_grain_mm``, under a slab at least
     ``pwl_min_depth_m`` deep, with a bounding interface at or above the critical threshold
     score (relative sum of Monti et al. 2014 or count of Schweizer & Jamieson 2007, as
-    ``threshold_relative`` says).
+    ``threshold_mode`` says).
 
     Parameters
     ----------
@@ -373,7 +373,7 @@ def weak_layers_of_concern(
         0 for every other layer.
     """
     p = SnowParams() if params is None else params
-    critical = CRITICAL_SUM_RELATIVE if p.threshold_relative else CRITICAL_COUNT_ABSOLUTE
+    critical = CRITICAL_SUM_RELATIVE if p.threshold_mode == "relative" else CRITICAL_COUNT_ABSOLUTE
     if below_depth_window:
         critical *= (N_CRITERIA - 1) / N_CRITERIA
     th = np.ascontiguousarray(thickness_m, dtype=np.float64)
@@ -385,7 +385,7 @@ def weak_layers_of_concern(
         np.ascontiguousarray(np.nan_to_num(grain_size_mm), dtype=np.float64),
         np.ascontiguousarray(np.nan_to_num(hardness_index), dtype=np.float64),
         np.ascontiguousarray(grain_code, dtype=np.int64),
-        bool(p.threshold_relative),
+        p.threshold_mode == "relative",
         critical,
         p.pwl_min_depth_m,
         p.pwl_min_thickness_m,
@@ -495,7 +495,9 @@ def _read_columns(profiles: xr.Dataset, days: np.ndarray, want: np.ndarray, para
         persistent=valid & _PERSISTENT[grain],
         hard_surface=valid & ((snap.crust != _NO_CRUST) | (grain == _IF) | (grain == _MFCR)),
         scores=scores.reshape(valid.shape),
-        critical=CRITICAL_SUM_RELATIVE if p.threshold_relative else CRITICAL_COUNT_ABSOLUTE,
+        critical=CRITICAL_SUM_RELATIVE
+        if p.threshold_mode == "relative"
+        else CRITICAL_COUNT_ABSOLUTE,
         concern=concern.reshape(valid.shape),
         concern_deep=concern_deep.reshape(valid.shape),
     )
