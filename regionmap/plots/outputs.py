@@ -291,6 +291,7 @@ class RunOutputs:
             self.table,
             self.weights[0].to_numpy(),
             time=self.map_time,
+            criteria=self.concern_criteria,
         )
         return frame
 

@@ -28,12 +28,12 @@ Criteria (vertical depths; "weak interface" as in the threshold-sum approach):
   ``wind_packed`` variable does not assess wind slabs: its rows say so (``assessed`` false).
   Index: the threshold sum at the slab's base, over its critical value.
 * **persistent slab**, **deep persistent slab** — a persistent weak layer *of concern*
-  (:func:`weak_layers_of_concern`: the column model's definition, applied to the snapshot)
+  (:mod:`regionmap.products.concern`: the column model's definition, applied to the snapshot)
   whose top lies at most / more than :data:`DEEP_SLAB_M` (0.94 m) below the surface: the deep
   end of the critical depth window of the threshold sum, below which skier triggering is rare
   (Schweizer & Jamieson 2007; recalled from memory). Below the window the depth criterion
   cannot be met, so a deep layer is of concern when its interfaces reach the same share of the
-  five structural criteria (``below_depth_window``). Index: the threshold sum of the layer's
+  five structural criteria (:class:`BelowWindowCriteria`). Index: the threshold sum of the layer's
   bounding interfaces over its maximum (6), so deep layers, lacking the depth criterion, rank
   lower (harder to trigger).
 * **wet snow** — the liquid-water index of the column, the thickness-weighted mean volumetric
@@ -72,7 +72,7 @@ References
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import asdict, dataclass
 from typing import NamedTuple
 
 import numpy as np
@@ -82,8 +82,10 @@ from numba import njit
 
 from regionmap.cells import COMPASS_16
 from regionmap.errors import InputError
+from regionmap.products.concern import DEFAULT_CRITERIA, ConcernCriteria
 from regionmap.products.summaries import (
     _BAND_ASPECT,
+    LayerSnapshot,
     _as_utc_array,
     _check_alignment,
     _positions,
@@ -94,11 +96,7 @@ from regionmap.products.summaries import (
 )
 from regionmap.snow.codes import CRUST_INDEX, GRAIN_INDEX, PERSISTENT_CODES
 from regionmap.snow.constants import RHO_WATER_KG_M3
-from regionmap.snow.diagnostics import mark_weak_layers_of_concern
-from regionmap.snow.params import SnowParams
 from regionmap.snow.stability import (
-    CRITICAL_COUNT_ABSOLUTE,
-    CRITICAL_SUM_RELATIVE,
     DEPTH_WINDOW_M,
     GRAIN_SIZE_DIFF_MIN_MM,
     HARDNESS_DIFF_MIN,
@@ -118,7 +116,8 @@ __all__ = [
     "lwc_index_mitterer2011",
     "skier_shear_stress_fohn1987",
     "skier_reach",
-    "weak_layers_of_concern",
+    "BelowWindowCriteria",
+    "interface_scores",
     "cell_problems",
     "problem_table",
     "problems_at",
@@ -266,134 +265,70 @@ def skier_reach(depth_cm) -> np.ndarray:
         return np.where(depth_m > DEEP_SLAB_M, DEEP_SLAB_M / depth_m, 1.0)
 
 
+@dataclass(frozen=True)
+class BelowWindowCriteria(ConcernCriteria):
+    """:class:`~regionmap.products.concern.ConcernCriteria` for weak layers below the critical
+    depth window (deeper than 0.94 m), where the depth criterion cannot be met: the critical
+    score is the same share of the five criteria left (relative sum 4.8 × 5/6 = 4.0; count:
+    all five), so that a deep weak layer is judged by its structure."""
+
+    @property
+    def critical_score(self) -> float:
+        return super().critical_score * (N_CRITERIA - 1) / N_CRITERIA
+
+
 @njit(cache=True, nogil=True, error_model="numpy")
-def _concern_columns(
-    layer_count,
-    thickness_m,
-    grain_size_mm,
-    hardness_index,
-    grain_code,
-    relative,
-    critical,
-    min_depth_m,
-    min_thickness_m,
-    min_grain_mm,
-    scores,
-    run_score,
+def _interface_scores(
+    layer_count, thickness_m, grain_size_mm, hardness_index, grain_code, relative, scores
 ):
-    """Interface scores and weak layers of concern of many columns (rows), see
-    :func:`weak_layers_of_concern`; ``run_score`` > 0 marks a layer of concern."""
+    """Threshold score of every interface k (top of layer k) of many columns (rows), NaN at
+    and above the top layer (:func:`regionmap.snow.stability.interface_scores_column`)."""
     n_col, n_layer = thickness_m.shape
     scratch = np.empty((N_CRITERIA + 1, max(n_layer, 1)))
-    mark = np.zeros(max(n_layer, 1))
     for c in range(n_col):
-        n = min(max(layer_count[c], 0), n_layer)
         for k in range(n_layer):
             scores[c, k] = np.nan
-            run_score[c, k] = 0.0
-        if n < 2:
-            continue
-        interface_scores_column(
-            n,
-            thickness_m[c],
-            grain_size_mm[c],
-            hardness_index[c],
-            grain_code[c],
-            relative,
-            scratch,
-            scores[c],
-        )
-        top = mark_weak_layers_of_concern(
-            n,
-            thickness_m[c],
-            grain_size_mm[c],
-            grain_code[c],
-            scores[c],
-            critical,
-            min_depth_m,
-            min_thickness_m,
-            min_grain_mm,
-            mark,
-        )
-        if top < 0:
-            continue
-        i = n - 1
-        while i >= 0:  # each run of marked layers gets its bounding interfaces' best score
-            if mark[i] <= 0.0:
-                i -= 1
-                continue
-            j = i
-            while j >= 0 and mark[j] > 0.0:
-                j -= 1
-            s = scores[c, i] if i < n - 1 else 0.0
-            if j >= 0:
-                s = max(s, scores[c, j])
-            for k in range(j + 1, i + 1):
-                run_score[c, k] = max(s, 1e-9)
-            i = j
+        n = min(max(layer_count[c], 0), n_layer)
+        if n >= 2:
+            interface_scores_column(
+                n,
+                thickness_m[c],
+                grain_size_mm[c],
+                hardness_index[c],
+                grain_code[c],
+                relative,
+                scratch,
+                scores[c],
+            )
 
 
-def weak_layers_of_concern(
-    layer_count: np.ndarray,
-    thickness_m: np.ndarray,
-    grain_size_mm: np.ndarray,
-    hardness_index: np.ndarray,
-    grain_code: np.ndarray,
-    params: SnowParams | None = None,
-    *,
-    below_depth_window: bool = False,
-) -> tuple[np.ndarray, np.ndarray]:
-    """Threshold scores of every interface and the persistent weak layers of concern.
-
-    The column model's definition (:mod:`regionmap.snow.diagnostics`): a run of layers of
-    persistent grains (FC, FCxr, FCsf, DH, SH) at least ``pwl_min_thickness_m`` thick (buried
-    SH at any thickness), grains of at least ``pwl_min_grain_mm``, under a slab at least
-    ``pwl_min_depth_m`` deep, with a bounding interface at or above the critical threshold
-    score (relative sum of Monti et al. 2014 or count of Schweizer & Jamieson 2007, as
-    ``threshold_mode`` says).
-
-    Parameters
-    ----------
-    layer_count : ndarray (col,) int
-    thickness_m, grain_size_mm, hardness_index : ndarray (col, layer) float64
-        Bottom layer first; [m], [mm], hand-hardness index (F = 1 … I = 6).
-    grain_code : ndarray (col, layer) int8, indices into ``GRAIN_CODES``.
-    params : the snow settings (defaults when None).
-    below_depth_window : for layers below the critical depth window (0.18–0.94 m), where the
-        depth criterion cannot be met: the critical score is then the same share of the five
-        criteria left (relative sum 4.8 × 5/6 = 4.0; count: all five), so that a deep weak
-        layer is judged by its structure. Only the layers below the window are meaningful.
-
-    Returns
-    -------
-    scores : ndarray (col, layer) float64
-        Score of interface k (top of layer k), 0..6; NaN at and above the top layer.
-    run_score : ndarray (col, layer) float64
-        For a layer of concern, the best score of its run's two bounding interfaces (> 0);
-        0 for every other layer.
-    """
-    p = SnowParams() if params is None else params
-    critical = CRITICAL_SUM_RELATIVE if p.threshold_mode == "relative" else CRITICAL_COUNT_ABSOLUTE
-    if below_depth_window:
-        critical *= (N_CRITERIA - 1) / N_CRITERIA
-    th = np.ascontiguousarray(thickness_m, dtype=np.float64)
-    scores = np.empty(th.shape)
-    run_score = np.empty(th.shape)
-    _concern_columns(
-        np.ascontiguousarray(layer_count, dtype=np.int64),
-        th,
-        np.ascontiguousarray(np.nan_to_num(grain_size_mm), dtype=np.float64),
-        np.ascontiguousarray(np.nan_to_num(hardness_index), dtype=np.float64),
-        np.ascontiguousarray(grain_code, dtype=np.int64),
-        p.threshold_mode == "relative",
-        critical,
-        p.pwl_min_depth_m,
-        p.pwl_min_thickness_m,
-        p.pwl_min_grain_mm,
+def interface_scores(snap: LayerSnapshot, criteria: ConcernCriteria) -> np.ndarray:
+    """(cell, day, layer) threshold score of the interface at the top of each layer, 0..6
+    (relative sum or count as ``criteria.relative`` says); NaN at and above the top layer."""
+    shape = (snap.valid.shape[0] * snap.valid.shape[1], snap.valid.shape[2])
+    scores = np.empty(shape)
+    _interface_scores(
+        np.ascontiguousarray(snap.layer_count, dtype=np.int64).reshape(-1),
+        np.ascontiguousarray(snap.thickness_m, dtype=np.float64).reshape(shape),
+        np.ascontiguousarray(snap.grain_size_mm, dtype=np.float64).reshape(shape),
+        np.ascontiguousarray(snap.hardness_index, dtype=np.float64).reshape(shape),
+        np.ascontiguousarray(snap.grain, dtype=np.int64).reshape(shape),
+        criteria.relative,
         scores,
-        run_score,
     )
-    return scores, run_score
+    return scores.reshape(snap.valid.shape)
+
+
+def _run_tops(concern: np.ndarray, scores: np.ndarray) -> np.ndarray:
+    """At the top layer of each run of layers of concern, the better score of the run's two
+    bounding interfaces (above its top, below its bottom); 0 elsewhere."""
+    layer = np.arange(concern.shape[-1])
+    below = np.concatenate([np.zeros_like(concern[..., :1]), concern[..., :-1]], axis=-1)
+    above = np.concatenate([concern[..., 1:], np.zeros_like(concern[..., :1])], axis=-1)
+    bottom = np.maximum.accumulate(np.where(concern & ~below, layer, -1), axis=-1)
+    under = np.take_along_axis(np.nan_to_num(scores), np.maximum(bottom - 1, 0), axis=-1)
+    under = np.where(bottom >= 1, under, 0.0)
+    return np.where(concern & ~above, np.maximum(np.nan_to_num(scores), under), 0.0)
 
 
 # --------------------------------------------------------------------------- per cell
@@ -413,9 +348,8 @@ def _top_index(mask: np.ndarray) -> np.ndarray:
 @dataclass(frozen=True)
 class _Columns:
     """Layer fields of snapshot columns, arrays (cell, time, layer) bottom first, and what
-    the indicators share: threshold scores of each interface (top of layer k) and the
-    best bounding score of each layer of concern (0 elsewhere; ``concern_deep`` with the
-    critical score for layers below the depth window)."""
+    the indicators share: the threshold score of each interface (top of layer k) and the
+    runs of weak layers of concern."""
 
     time_s: np.ndarray  # (1, time, 1) int64 valid times
     valid: np.ndarray
@@ -431,8 +365,8 @@ class _Columns:
     hard_surface: np.ndarray  # crusts and ice
     scores: np.ndarray
     critical: float
-    concern: np.ndarray
-    concern_deep: np.ndarray
+    concern: np.ndarray  # at the top of each run of concern, its bounding score; else 0
+    concern_deep: np.ndarray  # the same by the criteria below the depth window
 
     @property
     def snow_depth_cm(self) -> np.ndarray:
@@ -450,56 +384,36 @@ class _Indicator(NamedTuple):
     bond: np.ndarray | None = None
 
 
-def _read_columns(profiles: xr.Dataset, days: np.ndarray, want: np.ndarray, params) -> _Columns:
+def _read_columns(
+    profiles: xr.Dataset, days: np.ndarray, want: np.ndarray, criteria: ConcernCriteria
+) -> _Columns:
     """Decode the snapshots ``days`` (one per wanted time) and score their interfaces."""
     snap = decode_snapshot(profiles, days)
-    ds = profiles.isel(day=days).transpose("cell", "day", "layer", ...)
-    missing = [v for v in ("grain_size_mm", "hardness_index") if v not in ds.variables]
-    if missing:
-        raise InputError(
-            f"profiles.nc: missing variables {missing}; the avalanche problems need the layer "
-            "snapshot fields of docs/outputs.md"
-        )
     valid = snap.valid
-
-    def field(name: str, fill: float) -> np.ndarray:
-        return np.where(valid, np.nan_to_num(ds[name].values.astype(np.float64)), fill)
-
     wind = None
-    if "wind_packed" in ds.variables:
-        wind = valid & (ds["wind_packed"].values.astype(np.float64) == 1.0)
+    if "wind_packed" in profiles.variables:
+        flag = profiles["wind_packed"].isel(day=days).transpose("cell", "day", "layer")
+        wind = valid & (flag.values.astype(np.float64) == 1.0)
+    liquid = profiles["liquid_kg_m2"].isel(day=days).transpose("cell", "day", "layer").values
     grain = snap.grain.astype(np.int64)
-    hardness, grain_mm = field("hardness_index", np.nan), field("grain_size_mm", np.nan)
-    shape = (valid.shape[0] * valid.shape[1], valid.shape[2])
-    columns = (
-        valid.sum(axis=2).reshape(-1),
-        snap.thickness_m.reshape(shape),
-        grain_mm.reshape(shape),
-        hardness.reshape(shape),
-        grain.reshape(shape),
-    )
-    scores, concern = weak_layers_of_concern(*columns, params)
-    _, concern_deep = weak_layers_of_concern(*columns, params, below_depth_window=True)
-    p = SnowParams() if params is None else params
+    scores = interface_scores(snap, criteria)
     return _Columns(
         time_s=want.astype(np.int64)[None, :, None],
         valid=valid,
         thickness_m=snap.thickness_m,
         depth_cm=snap.depth_cm,
         grain=grain,
-        hardness=hardness,
-        grain_mm=grain_mm,
-        liquid_kg_m2=field("liquid_kg_m2", 0.0),
+        hardness=np.where(valid, snap.hardness_index, np.nan),
+        grain_mm=np.where(valid, snap.grain_size_mm, np.nan),
+        liquid_kg_m2=np.where(valid, np.nan_to_num(liquid.astype(np.float64)), 0.0),
         deposition_s=snap.deposition_s,
         wind_packed=wind,
         persistent=valid & _PERSISTENT[grain],
         hard_surface=valid & ((snap.crust != _NO_CRUST) | (grain == _IF) | (grain == _MFCR)),
-        scores=scores.reshape(valid.shape),
-        critical=CRITICAL_SUM_RELATIVE
-        if p.threshold_mode == "relative"
-        else CRITICAL_COUNT_ABSOLUTE,
-        concern=concern.reshape(valid.shape),
-        concern_deep=concern_deep.reshape(valid.shape),
+        scores=scores,
+        critical=criteria.critical_score,
+        concern=_run_tops(snap.of_concern(criteria), scores),
+        concern_deep=_run_tops(snap.of_concern(BelowWindowCriteria(**asdict(criteria))), scores),
     )
 
 
@@ -543,9 +457,7 @@ def _persistent_slabs(col: _Columns) -> tuple[_Indicator, _Indicator]:
     deep = col.depth_cm > DEEP_SLAB_M * 100.0
     out = []
     for runs, where in ((col.concern, ~deep), (col.concern_deep, deep)):
-        concern = runs > 0
-        above = np.concatenate([concern[..., 1:], np.zeros_like(concern[..., :1])], axis=2)
-        k = _top_index(concern & ~above & where)  # the top layer of a run of concern
+        k = _top_index((runs > 0) & where)  # the top layer of the uppermost run of concern
         index = _take(runs, k, 0.0) / N_CRITERIA
         depth = _take(col.depth_cm, k)
         out.append(_Indicator(k >= 0, index * skier_reach(depth), index, depth))
@@ -595,7 +507,7 @@ def cell_problems(
     table: pd.DataFrame,
     times,
     *,
-    params: SnowParams | None = None,
+    criteria: ConcernCriteria = DEFAULT_CRITERIA,
 ) -> pd.DataFrame:
     """The avalanche problems of every cell at each of ``times`` (module notes).
 
@@ -605,7 +517,8 @@ def cell_problems(
         a time is the last one at or before it.
     table : cell table indexed by ``cell_id`` in ``cells.nc`` order.
     times : datetime-likes [UTC], output times of ``diag``.
-    params : snow settings for the weak layers of concern (defaults when None).
+    criteria : what makes a weak layer one of concern (the run's ``[snow]`` settings; the
+        column model's defaults).
 
     Returns
     -------
@@ -639,7 +552,7 @@ def cell_problems(
     n_cell = diag.sizes["cell"]
     for lo in range(0, n_cell, _CELL_BLOCK):
         block = slice(lo, min(lo + _CELL_BLOCK, n_cell))
-        col = _read_columns(profiles.isel(cell=block), d, want, params)
+        col = _read_columns(profiles.isel(cell=block), d, want, criteria)
         hn72 = diag["new_snow_72h_cm"].isel(cell=block, time=pos).transpose("cell", ...).values
         persistent, deep = _persistent_slabs(col)
         found = {
@@ -829,11 +742,11 @@ def problems_at(
     weight_km2,
     *,
     time,
-    params: SnowParams | None = None,
+    criteria: ConcernCriteria = DEFAULT_CRITERIA,
 ) -> tuple[pd.DataFrame, pd.DataFrame]:
     """The problems table (:func:`problem_table`) at ``time`` and the per-cell rows it was
     made from (:func:`cell_problems`)."""
-    cells = cell_problems(diag, profiles, table, [time], params=params)
+    cells = cell_problems(diag, profiles, table, [time], criteria=criteria)
     res = problem_table(cells, table, weight_km2)
     t_all = _times_of(diag)
     want = _as_utc_array(time)[:1]

@@ -169,7 +169,7 @@ def write_products(
             criteria=criteria,
         )
         problems, cell_problems = problems_at(
-            diag, prof, table, weights["avalanche_km2"].to_numpy(), time=map_time, params=cfg.snow
+            diag, prof, table, weights["avalanche_km2"].to_numpy(), time=map_time, criteria=criteria
         )
         rc_cols, lines, words = _rain_crust(
             out,
