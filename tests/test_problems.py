@@ -15,6 +15,7 @@ import pandas as pd
 import pytest
 import xarray as xr
 
+from regionmap.constants import T_MELT_K
 from regionmap.products.problems import (
     PROBLEMS,
     cell_problems,
@@ -28,7 +29,6 @@ from regionmap.products.problems import (
 )
 from regionmap.snow.codes import GRAIN_INDEX
 from regionmap.snow.column import run_columns, snapshots_to_dataset
-from regionmap.snow.constants import T_MELT_K
 from regionmap.snow.params import SnowParams
 from regionmap.snow.state import SnowState
 from regionmap.snow.synthetic import clear_sky_shortwave, diurnal_temperature, hours, make_forcing

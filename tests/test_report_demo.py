@@ -177,7 +177,7 @@ def test_demo_report_opens_with_the_zone_problem_matrix_from_problems_csv(demo_r
     for tr in matrix.find(f"{_NS}tbody").iter(f"{_NS}tr"):
         cells = [td.text for td in tr.iter(f"{_NS}td")]
         zone = cells[0]
-        for problem, text in zip(PROBLEMS, cells[1:]):
+        for problem, text in zip(PROBLEMS, cells[1:], strict=True):
             row = zone_rows.loc[(zone, problem)]
             if not row["assessed"]:
                 assert text == "not assessed"

@@ -81,6 +81,7 @@ import xarray as xr
 from numba import njit
 
 from regionmap.cells import COMPASS_16
+from regionmap.constants import RHO_WATER_KG_M3
 from regionmap.errors import InputError
 from regionmap.products.concern import DEFAULT_CRITERIA, ConcernCriteria
 from regionmap.products.summaries import (
@@ -95,7 +96,6 @@ from regionmap.products.summaries import (
     running_snowfall_at,
 )
 from regionmap.snow.codes import CRUST_INDEX, GRAIN_INDEX, PERSISTENT_CODES
-from regionmap.snow.constants import RHO_WATER_KG_M3
 from regionmap.snow.stability import (
     DEPTH_WINDOW_M,
     GRAIN_SIZE_DIFF_MIN_MM,
@@ -538,7 +538,8 @@ def cell_problems(
     d = np.searchsorted(day, want, side="right") - 1
     if (d < 0).any():
         raise InputError(
-            f"profiles.nc: no layer snapshot at or before {want[d < 0][0]} for the avalanche problems"
+            f"profiles.nc: no layer snapshot at or before {want[d < 0][0]} for the avalanche "
+            "problems"
         )
     if "new_snow_72h_cm" not in diag.variables:
         raise InputError("cells.nc: missing variable 'new_snow_72h_cm' (see docs/outputs.md)")
