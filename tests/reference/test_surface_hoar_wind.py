@@ -7,7 +7,7 @@ SOURCES:
   using meteorological data. J. Appl. Meteorol. 36, 205-213 [mem]: threshold friction
   velocities 0.07-0.25 m s-1 for fresh dry snow, 0.25-1.0 m s-1 for older snow.
 * Hachikubo, A. (2001). Ann. Glaciol. 32, 27-31: surface hoar grows at winds of about
-  0.5-3.5 m s-1 [src in METHODS].
+  0.5-3.5 m s-1 [mem].
 """
 
 import math
