@@ -188,6 +188,10 @@ def test_surface_hoar_buried_by_storm_persists(surface_hoar_run, cell):
     # burial time within one day of the designed storm
     formed = np.datetime64(int(state.formation_time_s2000[cell, sh[0]]) + 946684800, "s")
     assert abs(formed - storm_start) <= np.timedelta64(1, "D")
+    # its event id (whole hours since 1970, the state's convention) is its growth start, in
+    # the three clear nights before the storm
+    grown = np.datetime64(int(state.event_id[cell, sh[0]]) * 3600, "s")
+    assert storm_start - np.timedelta64(3, "D") <= grown < storm_start
     # right after the storm: a weak layer of concern under the storm snow, its depth within
     # 15 % of the storm snow above it
     storm_slab_cm = diag["snow_depth_cm"][cell, i_end] - diag["snow_depth_cm"][cell, i_storm - 1]

@@ -39,6 +39,7 @@ from regionmap.snow.conduction import (
     snow_conductivity,
     soil_heat_capacity,
 )
+from regionmap.snow.containers import EPOCH_2000_S
 from regionmap.snow.crusts import (
     FLAG_FRONT,
     FLAG_WAS_WET,
@@ -168,6 +169,8 @@ N_SV = V_SOIL + N_SOIL
 # per-cell integer state vector (J_FRONT_START: start of the current refreezing front from
 # the surface, s since 2000)
 J_N, J_SNOW_EV, J_RAIN_EV, J_FZ_EV, J_SH_START, J_FRONT_START = range(6)
+# event ids are whole hours since 1970; layer times are seconds since 2000
+EPOCH_2000_H = EPOCH_2000_S // 3600
 N_SI = 6
 RING_H = 72  # hours of new-snow history
 
@@ -621,7 +624,7 @@ def _bury_or_drop_hoar(fw, iw, n, sv, si, ustar, now_s, p, cap):
                 _SH,
                 0,
                 si[J_SH_START],
-                si[J_SH_START] // 3600,
+                (si[J_SH_START] // 3600) + EPOCH_2000_H,
             )
             iw[I_FORM, n - 1] = now_s
             return n
