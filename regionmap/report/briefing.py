@@ -699,6 +699,123 @@ def _without_minor_roses(zone: dict) -> dict:
     return {**zone, "layers": layers, "without_roses": dropped}
 
 
+def _headlines(out, changes, zones, lines, window_end, terrain: str, tz: str) -> list[dict]:
+    """One headline block per zone, in the run's zone order."""
+    zone_rows_by_name = zones.set_index("zone")
+    headlines = []
+    for zone in out.zone_names:
+        row = (
+            zone_rows_by_name.loc[zone]
+            if zone in zone_rows_by_name.index
+            else pd.Series(dtype=float)
+        )
+        headlines.append(
+            {
+                "zone": zone,
+                **headline_items(
+                    zone,
+                    changes,
+                    row,
+                    lines,
+                    local_timezone=tz,
+                    window_end=window_end,
+                    terrain=terrain,
+                ),
+            }
+        )
+    return headlines
+
+
+def _layer_zones(lines: pd.DataFrame, page: dict, layer_roses: dict) -> list[dict]:
+    """Per zone, its layers of concern: sentence, headline flag and rose."""
+    layer_zones = []
+    for zone, zl in lines.groupby("zone", sort=True):
+        layer_zones.append(
+            {
+                "zone": zone,
+                "rings": _rings_note(page, zone),
+                "without_roses": 0,
+                "layers": [
+                    {
+                        "text": r.text,
+                        "headline": bool(r.headline),
+                        "v": layer_roses.get((zone, r.layer_id), ""),
+                        "id": r.layer_id,
+                    }
+                    for r in zl.itertuples()
+                ],
+            }
+        )
+    return layer_zones
+
+
+def _rain_crust_lines(zones: pd.DataFrame) -> list[tuple[str, str]]:
+    """(zone, sentence) for the zones with a rain-crust line sentence."""
+    if "rain_crust_text" not in zones.columns:
+        return []
+    return [
+        (z, t)
+        for z, t in zip(zones["zone"], zones["rain_crust_text"], strict=True)
+        if isinstance(t, str) and t.strip()
+    ]
+
+
+def _figure_sections(figures: list[_Figure]) -> list[dict]:
+    """The map sections with their figures; thumbnails embedded while the byte budget lasts."""
+    sections, embedded = [], 0
+    for sid, title, note in _SECTIONS:
+        figs = []
+        for f in (f for f in figures if f.section == sid):
+            uri = _data_uri(f.thumb_png)
+            fits = embedded + len(uri) <= FIGURE_BUDGET_BYTES
+            embedded += len(uri) if fits else 0
+            figs.append(
+                {
+                    "uri": uri if fits else None,
+                    "caption": f.caption,
+                    "name": f.path.name,
+                    "width": f.size[0],
+                    "height": f.size[1],
+                }
+            )
+        if figs:
+            sections.append({"id": sid, "title": title, "note": note, "figures": figs})
+    return sections
+
+
+def _render_html(context: dict) -> str:
+    """Render the report template; drop the minor layers' roses if the page would be too big.
+
+    Raises
+    ------
+    OutputError
+        When the page would still exceed the size limit.
+    """
+    from jinja2 import Environment, FileSystemLoader, StrictUndefined, select_autoescape
+
+    env = Environment(
+        loader=FileSystemLoader(Path(__file__).parent / "templates"),
+        autoescape=select_autoescape(["html", "j2"]),
+        undefined=StrictUndefined,
+        trim_blocks=False,
+        lstrip_blocks=False,
+    )
+    template = env.get_template("report.html.j2")
+    html = _no_web_text(template.render(**context))
+    size = len(html.encode("utf-8"))
+    if size >= REPORT_MAX_BYTES:
+        # a region of very many zones and layers: the minor layers keep their sentence
+        context["layer_zones"] = [_without_minor_roses(z) for z in context["layer_zones"]]
+        html = _no_web_text(template.render(**context))
+        size = len(html.encode("utf-8"))
+    if size >= REPORT_MAX_BYTES:
+        raise OutputError(
+            f"report.html would be {size / 2**20:.1f} MB, over the 10 MB limit; "
+            "hint: fewer maps or a lower REPORT_DPI"
+        )
+    return html
+
+
 def write_report(out_dir) -> Path:
     """Draw the briefing's maps and write the self-contained ``OUT/report.html``; return its path.
 
@@ -709,8 +826,6 @@ def write_report(out_dir) -> Path:
     OutputError
         When the report would exceed 10 MB or cannot be written.
     """
-    from jinja2 import Environment, FileSystemLoader, StrictUndefined, select_autoescape
-
     out = RunOutputs(out_dir)
     try:
         tz = out.local_timezone
@@ -724,83 +839,15 @@ def write_report(out_dir) -> Path:
         window_end = out.new_snow_window_end
         zones = pd.DataFrame(out.zones.drop(columns=out.zones.geometry.name)).sort_values("zone")
         figures, _ = _render(out, thumbnails=True, maps_only=True)
-        zone_rows_by_name = zones.set_index("zone")
-        headlines = []
-        for zone in out.zone_names:
-            row = (
-                zone_rows_by_name.loc[zone]
-                if zone in zone_rows_by_name.index
-                else pd.Series(dtype=float)
-            )
-            headlines.append(
-                {
-                    "zone": zone,
-                    **headline_items(
-                        zone,
-                        changes,
-                        row,
-                        lines,
-                        local_timezone=tz,
-                        window_end=window_end,
-                        terrain=terrain,
-                    ),
-                }
-            )
-        layer_zones = []
-        for zone, zl in lines.groupby("zone", sort=True):
-            layer_zones.append(
-                {
-                    "zone": zone,
-                    "rings": _rings_note(page, zone),
-                    "without_roses": 0,
-                    "layers": [
-                        {
-                            "text": r.text,
-                            "headline": bool(r.headline),
-                            "v": layer_roses.get((zone, r.layer_id), ""),
-                            "id": r.layer_id,
-                        }
-                        for r in zl.itertuples()
-                    ],
-                }
-            )
+        headlines = _headlines(out, changes, zones, lines, window_end, terrain, tz)
+        layer_zones = _layer_zones(lines, page, layer_roses)
         metric_zones = {}
         for r in metric_roses:
             metric_zones.setdefault(r["zone"], []).append(r)
         zone_cols, zone_rows = _table(zones, _ZONE_COLUMNS)
-        rain = []
-        if "rain_crust_text" in zones.columns:
-            rain = [
-                (z, t)
-                for z, t in zip(zones["zone"], zones["rain_crust_text"], strict=True)
-                if isinstance(t, str) and t.strip()
-            ]
-        sections, embedded = [], 0
-        for sid, title, note in _SECTIONS:
-            figs = []
-            for f in (f for f in figures if f.section == sid):
-                uri = _data_uri(f.thumb_png)
-                fits = embedded + len(uri) <= FIGURE_BUDGET_BYTES
-                embedded += len(uri) if fits else 0
-                figs.append(
-                    {
-                        "uri": uri if fits else None,
-                        "caption": f.caption,
-                        "name": f.path.name,
-                        "width": f.size[0],
-                        "height": f.size[1],
-                    }
-                )
-            if figs:
-                sections.append({"id": sid, "title": title, "note": note, "figures": figs})
+        rain = _rain_crust_lines(zones)
+        sections = _figure_sections(figures)
         v_text, v_cols, v_rows = _verification(out)
-        env = Environment(
-            loader=FileSystemLoader(Path(__file__).parent / "templates"),
-            autoescape=select_autoescape(["html", "j2"]),
-            undefined=StrictUndefined,
-            trim_blocks=False,
-            lstrip_blocks=False,
-        )
         context = dict(
             title="regionmap snowpack briefing",
             map_time=local_time_label(map_t, tz, year=True),
@@ -842,19 +889,7 @@ def write_report(out_dir) -> Path:
             run_items=_run_items(out.run),
             run_json=json.dumps(out.run, indent=2, default=str),
         )
-        template = env.get_template("report.html.j2")
-        html = _no_web_text(template.render(**context))
-        size = len(html.encode("utf-8"))
-        if size >= REPORT_MAX_BYTES:
-            # a region of very many zones and layers: the minor layers keep their sentence
-            context["layer_zones"] = [_without_minor_roses(z) for z in layer_zones]
-            html = _no_web_text(template.render(**context))
-            size = len(html.encode("utf-8"))
-        if size >= REPORT_MAX_BYTES:
-            raise OutputError(
-                f"report.html would be {size / 2**20:.1f} MB, over the 10 MB limit; "
-                "hint: fewer maps or a lower REPORT_DPI"
-            )
+        html = _render_html(context)
         return atomic_write_text(out.out_dir / "report.html", html)
     finally:
         out.close()
