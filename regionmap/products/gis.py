@@ -291,35 +291,13 @@ def write_gis(
     """
     out = Path(out_dir)
     table = cellset.table
-    n_cell = len(table)
-    missing = [c for c in REQUIRED_ZONE_COLUMNS if c not in zone_table.columns]
-    if missing:
-        raise InputError(
-            f"zones table: missing columns {missing}; expected at least "
-            f"{list(REQUIRED_ZONE_COLUMNS)}"
-        )
-    missing = [m for m in REQUIRED_MAPS if m not in maps]
-    if missing:
-        raise InputError(
-            f"maps: missing metrics {missing}; expected at least {list(REQUIRED_MAPS)}"
-        )
-    for name, values in maps.items():
-        if np.shape(values) != (n_cell,):
-            raise GridMismatchError(
-                f"maps[{name!r}]: shape {np.shape(values)}, expected ({n_cell},) values in cell_id "
-                "order"
-            )
+    _check_gis_inputs(zone_table, maps, len(table))
     written: dict[str, Path] = {}
 
     # --- vector layers
     zones = zones_gdf[["zone", zones_gdf.geometry.name]].merge(zone_table, on="zone", how="left")
     zones = _as_multipolygons(zones)
-    cells = cellset.polygons()
-    cells = _as_multipolygons(cells.set_index("cell_id") if "cell_id" in cells.columns else cells)
-    extra = [c for c in table.columns if c not in cells.columns]
-    cells = cells.join(table[extra])
-    cells = cells.join(cell_summary[[c for c in cell_summary.columns if c not in cells.columns]])
-    cells = cells.rename_axis("cell_id").reset_index()
+    cells = _cell_polygons(cellset, cell_summary)
     loc = layers_of_concern.copy()
     loc_gpkg = loc.copy()
     if "date" in loc_gpkg.columns:  # local calendar dates: a Date field
@@ -345,15 +323,62 @@ def write_gis(
     if problems is not None:
         written["problems.geojson"] = write_geojson(out / "problems.geojson", layers["problems"])
 
-    # --- rasters
-    when = _time_text(valid_time)
+    written.update(_write_rasters(out, cellset, maps, transform, crs, _time_text(valid_time)))
+    return written
+
+
+def _check_gis_inputs(zone_table: pd.DataFrame, maps: Mapping[str, np.ndarray], n_cell: int):
+    """Refuse a zone table or maps that lack what the GIS outputs need.
+
+    Raises
+    ------
+    InputError
+        Missing zone columns or maps.
+    GridMismatchError
+        Map arrays whose length differs from the number of cells.
+    """
+    missing = [c for c in REQUIRED_ZONE_COLUMNS if c not in zone_table.columns]
+    if missing:
+        raise InputError(
+            f"zones table: missing columns {missing}; expected at least "
+            f"{list(REQUIRED_ZONE_COLUMNS)}"
+        )
+    missing = [m for m in REQUIRED_MAPS if m not in maps]
+    if missing:
+        raise InputError(
+            f"maps: missing metrics {missing}; expected at least {list(REQUIRED_MAPS)}"
+        )
+    for name, values in maps.items():
+        if np.shape(values) != (n_cell,):
+            raise GridMismatchError(
+                f"maps[{name!r}]: shape {np.shape(values)}, expected ({n_cell},) values in cell_id "
+                "order"
+            )
+
+
+def _cell_polygons(cellset, cell_summary: pd.DataFrame):
+    """The cell polygons with the cell table's columns and the map-time values joined."""
+    table = cellset.table
+    cells = cellset.polygons()
+    cells = _as_multipolygons(cells.set_index("cell_id") if "cell_id" in cells.columns else cells)
+    extra = [c for c in table.columns if c not in cells.columns]
+    cells = cells.join(table[extra])
+    cells = cells.join(cell_summary[[c for c in cell_summary.columns if c not in cells.columns]])
+    return cells.rename_axis("cell_id").reset_index()
+
+
+def _write_rasters(
+    out: Path, cellset, maps: Mapping[str, np.ndarray], transform, crs, when: str
+) -> dict[str, Path]:
+    """Write one GeoTIFF per map and ``maps/cell_id.tif``; return name → path."""
     index = cellset.index
+    written: dict[str, Path] = {}
     for name, values in maps.items():
         spec = MAP_SPECS.get(name) or MapSpec("float32", -9999.0, "", name.replace("_", " "))
         written.update(_write_map(out, name, values, index, spec, transform, crs, when))
     written["maps/cell_id.tif"] = write_geotiff(
         out / "maps" / "cell_id.tif",
-        cells_to_raster(table.index.to_numpy(), index, dtype="int32", nodata=-1),
+        cells_to_raster(cellset.table.index.to_numpy(), index, dtype="int32", nodata=-1),
         transform=transform,
         crs=crs,
         nodata=-1,
