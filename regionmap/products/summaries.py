@@ -1136,32 +1136,81 @@ def layers_of_concern(
     pos = _positions(t_all, want, "the layers-of-concern time")[0]
     day = profiles["day"].values.astype("datetime64[s]")
     d = np.searchsorted(day, want[0], side="right") - 1
-    columns = [
-        "layer_id",
-        "layer_name",
-        "kind",
-        "category",
-        "date",
-        "zone",
-        "band",
-        "band_lower_m",
-        "band_upper_m",
-        "aspect_sector",
-        "presence_frac",
-        "area_km2",
-        "depth_cm",
-        "slab_cm",
-        "thickness_cm",
-        "load_above_kg_m2",
-        "load_since_burial_kg_m2",
-        "load_24h_kg_m2",
-        "load_72h_kg_m2",
-        "valid_time",
-        "is_forecast",
-    ]
     if d < 0:
-        return pd.DataFrame(columns=columns)
-    snap = decode_snapshot(profiles, [d])
+        return pd.DataFrame(columns=_CONCERN_COLUMNS)
+    rows = _concern_layer_rows(decode_snapshot(profiles, [d]), table, criteria, local_timezone)
+    _add_snowfall_on_layers(
+        rows,
+        diag,
+        t_all,
+        want,
+        pos,
+        local_timezone=local_timezone,
+        observation_hour=observation_hour,
+    )
+    w = np.asarray(weight_km2, dtype=np.float64)
+    rows["_w"] = w[rows["_c"].to_numpy()]
+    cells = table[_BAND_ASPECT].copy()
+    cells["_w"] = w
+    rows = rows.merge(table[_BAND_ASPECT], left_on="cell_id", right_index=True)
+    out = [_concern_means_by(rows, cells, keys) for keys in (_BAND_ASPECT, ["zone"])]
+    result = pd.concat(out, ignore_index=True)
+    result["valid_time"] = want[0]
+    result["is_forecast"] = (
+        bool(diag["is_forecast"].values[pos]) if "is_forecast" in diag.variables else False
+    )
+    return result[_CONCERN_COLUMNS].sort_values(
+        ["date", "layer_id", "zone", "band_lower_m", "aspect_sector"],
+        ignore_index=True,
+        na_position="first",
+    )
+
+
+_CONCERN_COLUMNS = [
+    "layer_id",
+    "layer_name",
+    "kind",
+    "category",
+    "date",
+    "zone",
+    "band",
+    "band_lower_m",
+    "band_upper_m",
+    "aspect_sector",
+    "presence_frac",
+    "area_km2",
+    "depth_cm",
+    "slab_cm",
+    "thickness_cm",
+    "load_above_kg_m2",
+    "load_since_burial_kg_m2",
+    "load_24h_kg_m2",
+    "load_72h_kg_m2",
+    "valid_time",
+    "is_forecast",
+]
+_CONCERN_MEANS = [
+    "depth_cm",
+    "slab_cm",
+    "thickness_cm",
+    "load_above_kg_m2",
+    "load_since_burial_kg_m2",
+    "load_24h_kg_m2",
+    "load_72h_kg_m2",
+]
+
+
+def _concern_layer_rows(
+    snap, table: pd.DataFrame, criteria: ConcernCriteria, local_timezone: str
+) -> pd.DataFrame:
+    """One row per layer id and cell (the shallowest layer of an id stands for it) with its
+    identity, depth [cm], slab [cm], thickness [cm], load above [kg m-2] and burial time [s].
+
+    Raises
+    ------
+    InputError
+        When a weak layer or crust has no formation time.
+    """
     sq = {
         k: getattr(snap, k)[:, 0, :]
         for k in ("depth_cm", "load_above_kg_m2", "thickness_m", "burial_s")
@@ -1196,7 +1245,21 @@ def layers_of_concern(
     )
     cos_slope = np.cos(np.deg2rad(table["slope_deg"].to_numpy(np.float64)))
     rows["slab_cm"] = rows["depth_cm"].to_numpy() * cos_slope[rows["_c"].to_numpy()]
-    # snowfall on the layer: since burial up to `time`, and in the last 1 / 3 observation days
+    return rows
+
+
+def _add_snowfall_on_layers(
+    rows: pd.DataFrame,
+    diag: xr.Dataset,
+    t_all: np.ndarray,
+    want: np.ndarray,
+    pos: int,
+    *,
+    local_timezone: str,
+    observation_hour: int,
+) -> None:
+    """Add to ``rows`` the snowfall on each buried layer [kg m-2]: since its burial up to
+    ``want``, and in the last one / three local observation days (NaN where not buried)."""
     win = _snowfall_windows(
         diag, t_all, want, local_timezone=local_timezone, observation_hour=observation_hour
     )
@@ -1216,60 +1279,40 @@ def layers_of_concern(
     for hours, key in ((24, "c_24h"), (72, "c_72h")):
         added = win["c_end"][c, 0] - np.maximum(win[key][c, 0], c_burial)
         rows[f"load_{hours}h_kg_m2"] = np.where(is_buried, np.maximum(added, 0.0), np.nan)
-    w = np.asarray(weight_km2, dtype=np.float64)
-    rows["_w"] = w[c]
-    cells = table[_BAND_ASPECT].copy()
-    cells["_w"] = w
-    rows = rows.merge(table[_BAND_ASPECT], left_on="cell_id", right_index=True)
-    means = [
-        "depth_cm",
-        "slab_cm",
-        "thickness_cm",
-        "load_above_kg_m2",
-        "load_since_burial_kg_m2",
-        "load_24h_kg_m2",
-        "load_72h_kg_m2",
-    ]
-    out = []
-    for keys in (_BAND_ASPECT, ["zone"]):
-        total = cells.groupby(keys, dropna=False)["_w"].sum().rename("_total")
-        x = rows[means].to_numpy(np.float64)
-        ok = np.isfinite(x) & (rows["_w"].to_numpy()[:, None] > 0)
-        part = pd.DataFrame(
-            np.where(ok, x * rows["_w"].to_numpy()[:, None], 0.0), columns=[f"s_{m}" for m in means]
+
+
+def _concern_means_by(rows: pd.DataFrame, cells: pd.DataFrame, keys: list[str]) -> pd.DataFrame:
+    """Area with each layer [km2], its presence fraction [1] and area-weighted means of
+    :data:`_CONCERN_MEANS` over the cells with it, per layer and group ``keys``."""
+    means = _CONCERN_MEANS
+    total = cells.groupby(keys, dropna=False)["_w"].sum().rename("_total")
+    x = rows[means].to_numpy(np.float64)
+    ok = np.isfinite(x) & (rows["_w"].to_numpy()[:, None] > 0)
+    part = pd.DataFrame(
+        np.where(ok, x * rows["_w"].to_numpy()[:, None], 0.0), columns=[f"s_{m}" for m in means]
+    )
+    part[[f"w_{m}" for m in means]] = np.where(ok, rows["_w"].to_numpy()[:, None], 0.0)
+    ident = ["layer_id", "layer_name", "kind", "category", "date"]
+    for col in (*ident, *keys, "_w"):
+        part[col] = rows[col].to_numpy()
+    g = part.groupby([*ident, *keys], dropna=False).sum(numeric_only=True)
+    res = pd.DataFrame(index=g.index)
+    res["area_km2"] = g["_w"]
+    for m in means:
+        res[m] = g[f"s_{m}"] / g[f"w_{m}"].where(g[f"w_{m}"] > 0)
+    res = res.reset_index().merge(total, left_on=keys, right_index=True)
+    res = res[res["_total"] > 0]
+    res["presence_frac"] = res["area_km2"] / res["_total"]
+    if keys == ["zone"]:
+        res["band_lower_m"], res["band_upper_m"], res["aspect_sector"], res["band"] = (
+            np.nan,
+            np.nan,
+            "all",
+            "all",
         )
-        part[[f"w_{m}" for m in means]] = np.where(ok, rows["_w"].to_numpy()[:, None], 0.0)
-        ident = ["layer_id", "layer_name", "kind", "category", "date"]
-        for col in (*ident, *keys, "_w"):
-            part[col] = rows[col].to_numpy()
-        g = part.groupby([*ident, *keys], dropna=False).sum(numeric_only=True)
-        res = pd.DataFrame(index=g.index)
-        res["area_km2"] = g["_w"]
-        for m in means:
-            res[m] = g[f"s_{m}"] / g[f"w_{m}"].where(g[f"w_{m}"] > 0)
-        res = res.reset_index().merge(total, left_on=keys, right_index=True)
-        res = res[res["_total"] > 0]
-        res["presence_frac"] = res["area_km2"] / res["_total"]
-        if keys == ["zone"]:
-            res["band_lower_m"], res["band_upper_m"], res["aspect_sector"], res["band"] = (
-                np.nan,
-                np.nan,
-                "all",
-                "all",
-            )
-        else:
-            res["band"] = band_label(res["band_lower_m"], res["band_upper_m"])
-        out.append(res)
-    result = pd.concat(out, ignore_index=True)
-    result["valid_time"] = want[0]
-    result["is_forecast"] = (
-        bool(diag["is_forecast"].values[pos]) if "is_forecast" in diag.variables else False
-    )
-    return result[columns].sort_values(
-        ["date", "layer_id", "zone", "band_lower_m", "aspect_sector"],
-        ignore_index=True,
-        na_position="first",
-    )
+    else:
+        res["band"] = band_label(res["band_lower_m"], res["band_upper_m"])
+    return res
 
 
 def layer_summary_text(loc: pd.DataFrame, *, min_presence_frac: float = 0.1) -> pd.Series:
