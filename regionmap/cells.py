@@ -7,6 +7,7 @@ import hashlib
 import math
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
+from functools import partial
 
 import numba
 import numpy as np
@@ -247,62 +248,23 @@ def build_cells(dem, terrain, zones, settings: CellSettings | None = None) -> Ce
         A zone covers no valid DEM pixel (named).
     """
     from pyproj import Transformer
-    from rasterio.features import rasterize
 
     settings = settings or CellSettings()
     z = dem.elevation_m
-    ny, nx = z.shape
-    zone_idx = rasterize(
-        [(g, i) for i, g in enumerate(zones.geometry)],
-        out_shape=(ny, nx),
-        transform=dem.transform,
-        fill=-1,
-        dtype="int32",
-        all_touched=False,
-    )
-    valid = (zone_idx >= 0) & np.isfinite(z) & np.isfinite(terrain.slope_deg)
-    counts = np.bincount(zone_idx[valid], minlength=len(zones))
-    empty = [zones.zone.iloc[i] for i in np.flatnonzero(counts == 0)]
-    if empty:
-        raise InputError(
-            f"zones {empty}: no valid DEM pixel (pixel centre with data) inside; "
-            f"the zone is smaller than a pixel or lies on nodata of DEM {dem.path}"
-        )
+    zone_idx, valid = _zone_pixels(dem, terrain, zones)
     rows, cols = np.nonzero(valid)
     zp = z[rows, cols]
     slope = terrain.slope_deg[rows, cols]
     aspect = terrain.aspect_deg[rows, cols]
     edges = band_edges_m(settings, zp)
-    band = np.searchsorted(edges, zp, side="right")  # 0 = below the first edge
-    n_sec = settings.aspect_sectors
-    width = 360.0 / n_sec
-    flat = (slope < settings.flat_below_deg) | np.isnan(aspect)
-    sector = np.where(
-        flat, n_sec, np.floor(((np.nan_to_num(aspect) + 0.5 * width) % 360.0) / width)
-    ).astype(np.int64)
     sclass_edges = np.asarray(settings.slope_classes_deg, dtype=float)
-    sclass = (
-        np.searchsorted(sclass_edges, slope, side="right")
-        if sclass_edges.size
-        else np.zeros(slope.size, np.int64)
-    )
-    n_band = edges.size + 1
-    n_cls = sclass_edges.size + 1
-    key = (
-        (zone_idx[rows, cols].astype(np.int64) * n_band + band) * (n_sec + 1) + sector
-    ) * n_cls + sclass
+    n_band, n_sec, n_cls = edges.size + 1, settings.aspect_sectors, sclass_edges.size + 1
+    key = _cell_keys(zone_idx[rows, cols], zp, slope, aspect, edges, sclass_edges, settings)
     keys, cell = np.unique(key, return_inverse=True)
     n = keys.size
     area = dem.pixel_area_m2()[rows, cols]
     w_sum = np.bincount(cell, area, n)
-
-    def mean(v, weights=area):
-        ok = np.isfinite(v)
-        num = np.bincount(cell[ok], (v * weights)[ok], n)
-        den = np.bincount(cell[ok], weights[ok], n)
-        with np.errstate(invalid="ignore", divide="ignore"):
-            return np.where(den > 0, num / den, np.nan)
-
+    mean = partial(_cell_mean, cell, n, area)
     a_rad = np.radians(aspect)
     asp_mean = (
         np.degrees(np.arctan2(mean(np.sin(a_rad)), mean(np.cos(a_rad)))) % 360.0
@@ -315,16 +277,13 @@ def build_cells(dem, terrain, zones, settings: CellSettings | None = None) -> Ce
     k_sec = (keys // n_cls) % (n_sec + 1)
     k_band = (keys // (n_cls * (n_sec + 1))) % n_band
     k_zone = keys // (n_cls * (n_sec + 1) * n_band)
-    lower = np.concatenate([[-np.inf], edges])[k_band]
-    upper = np.concatenate([edges, [np.inf]])[k_band]
     pix = np.bincount(cell, minlength=n)
-    names = np.asarray(sector_names(n_sec))
     table = pd.DataFrame(
         {
             "zone": zones.zone.to_numpy()[k_zone],
-            "band_lower_m": lower,
-            "band_upper_m": upper,
-            "aspect_sector": names[k_sec],
+            "band_lower_m": np.concatenate([[-np.inf], edges])[k_band],
+            "band_upper_m": np.concatenate([edges, [np.inf]])[k_band],
+            "aspect_sector": np.asarray(sector_names(n_sec))[k_sec],
             "slope_class": k_cls.astype(np.int64),
             "slope_lower_deg": np.concatenate([[0.0], sclass_edges])[k_cls],
             "slope_upper_deg": np.concatenate([sclass_edges, [90.0]])[k_cls],
@@ -343,31 +302,10 @@ def build_cells(dem, terrain, zones, settings: CellSettings | None = None) -> Ce
         }
     )
     table.index = pd.RangeIndex(n, name="cell_id")
-    sx = (
-        np.stack(
-            [
-                mean(terrain.sx_deg[d][rows, cols].astype(np.float64))
-                for d in range(terrain.sx_deg.shape[0])
-            ],
-            axis=1,
-        )
-        if terrain.sx_deg.shape[0]
-        else np.zeros((n, 0))
-    )
-    index = np.full((ny, nx), -1, dtype=np.int32)
+    sx = _cell_sx(mean, terrain, rows, cols, n)
+    index = np.full(z.shape, -1, dtype=np.int32)
     index[rows, cols] = cell
-    sun_az = np.arange(0.0, 360.0 - 1e-9, settings.sun_azimuth_step_deg)
-    sun_el = np.arange(0.0, 90.0 + 1e-9, settings.sun_elevation_step_deg)
-    sunlit = sunlit_tables(
-        cell,
-        terrain.horizon_deg[:, rows, cols],
-        slope,
-        aspect,
-        terrain.horizon_azimuths_deg,
-        n,
-        sun_az,
-        sun_el,
-    )
+    sunlit = _cell_sunlit(cell, n, terrain, rows, cols, slope, aspect, settings)
     return CellSet(
         table,
         sx.astype(np.float32),
@@ -378,6 +316,107 @@ def build_cells(dem, terrain, zones, settings: CellSettings | None = None) -> Ce
         crs=dem.crs,
         band_edges_m=edges,
     )
+
+
+def _cell_sx(mean, terrain, rows: np.ndarray, cols: np.ndarray, n: int) -> np.ndarray:
+    """(cell, direction) mean maximum upwind slope Sx [deg] (``mean`` averages per cell)."""
+    if not terrain.sx_deg.shape[0]:
+        return np.zeros((n, 0))
+    return np.stack(
+        [
+            mean(terrain.sx_deg[d][rows, cols].astype(np.float64))
+            for d in range(terrain.sx_deg.shape[0])
+        ],
+        axis=1,
+    )
+
+
+def _cell_sunlit(
+    cell, n: int, terrain, rows, cols, slope_deg, aspect_deg, settings: CellSettings
+) -> SunlitTable:
+    """The cells' sunlit-fraction tables on the settings' sun azimuth × elevation grid."""
+    sun_az = np.arange(0.0, 360.0 - 1e-9, settings.sun_azimuth_step_deg)
+    sun_el = np.arange(0.0, 90.0 + 1e-9, settings.sun_elevation_step_deg)
+    return sunlit_tables(
+        cell,
+        terrain.horizon_deg[:, rows, cols],
+        slope_deg,
+        aspect_deg,
+        terrain.horizon_azimuths_deg,
+        n,
+        sun_az,
+        sun_el,
+    )
+
+
+def _zone_pixels(dem, terrain, zones) -> tuple[np.ndarray, np.ndarray]:
+    """The zone index of each DEM pixel (-1 outside every zone) and the mask of valid
+    pixels (inside a zone, with elevation and slope).
+
+    Raises
+    ------
+    InputError
+        A zone covers no valid DEM pixel (named).
+    """
+    from rasterio.features import rasterize
+
+    z = dem.elevation_m
+    zone_idx = rasterize(
+        [(g, i) for i, g in enumerate(zones.geometry)],
+        out_shape=z.shape,
+        transform=dem.transform,
+        fill=-1,
+        dtype="int32",
+        all_touched=False,
+    )
+    valid = (zone_idx >= 0) & np.isfinite(z) & np.isfinite(terrain.slope_deg)
+    counts = np.bincount(zone_idx[valid], minlength=len(zones))
+    empty = [zones.zone.iloc[i] for i in np.flatnonzero(counts == 0)]
+    if empty:
+        raise InputError(
+            f"zones {empty}: no valid DEM pixel (pixel centre with data) inside; "
+            f"the zone is smaller than a pixel or lies on nodata of DEM {dem.path}"
+        )
+    return zone_idx, valid
+
+
+def _cell_keys(
+    zone_of_pixel: np.ndarray,
+    elevation_m: np.ndarray,
+    slope_deg: np.ndarray,
+    aspect_deg: np.ndarray,
+    band_edges: np.ndarray,
+    slope_class_edges_deg: np.ndarray,
+    settings: CellSettings,
+) -> np.ndarray:
+    """One int64 key per pixel that orders cells by zone, band, sector (N clockwise, then
+    flat) and slope class."""
+    band = np.searchsorted(band_edges, elevation_m, side="right")  # 0 = below the first edge
+    n_sec = settings.aspect_sectors
+    width = 360.0 / n_sec
+    flat = (slope_deg < settings.flat_below_deg) | np.isnan(aspect_deg)
+    sector = np.where(
+        flat, n_sec, np.floor(((np.nan_to_num(aspect_deg) + 0.5 * width) % 360.0) / width)
+    ).astype(np.int64)
+    sclass = (
+        np.searchsorted(slope_class_edges_deg, slope_deg, side="right")
+        if slope_class_edges_deg.size
+        else np.zeros(slope_deg.size, np.int64)
+    )
+    n_band = band_edges.size + 1
+    n_cls = slope_class_edges_deg.size + 1
+    return (
+        (zone_of_pixel.astype(np.int64) * n_band + band) * (n_sec + 1) + sector
+    ) * n_cls + sclass
+
+
+def _cell_mean(cell: np.ndarray, n: int, weights: np.ndarray, v: np.ndarray) -> np.ndarray:
+    """Weighted mean of the pixel values ``v`` per cell, over the finite ones (NaN if none)."""
+    ok = np.isfinite(v)
+    num = np.bincount(cell[ok], (v * weights)[ok], n)
+    den = np.bincount(cell[ok], weights[ok], n)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return np.where(den > 0, num / den, np.nan)
 
 
 # --------------------------------------------------------------------------- identity
