@@ -1166,6 +1166,15 @@ def layers_of_concern(
     )
 
 
+_CONCERN_MEANS = [
+    "depth_cm",
+    "slab_cm",
+    "thickness_cm",
+    "load_above_kg_m2",
+    "load_since_burial_kg_m2",
+    "load_24h_kg_m2",
+    "load_72h_kg_m2",
+]
 _CONCERN_COLUMNS = [
     "layer_id",
     "layer_name",
@@ -1179,24 +1188,9 @@ _CONCERN_COLUMNS = [
     "aspect_sector",
     "presence_frac",
     "area_km2",
-    "depth_cm",
-    "slab_cm",
-    "thickness_cm",
-    "load_above_kg_m2",
-    "load_since_burial_kg_m2",
-    "load_24h_kg_m2",
-    "load_72h_kg_m2",
+    *_CONCERN_MEANS,
     "valid_time",
     "is_forecast",
-]
-_CONCERN_MEANS = [
-    "depth_cm",
-    "slab_cm",
-    "thickness_cm",
-    "load_above_kg_m2",
-    "load_since_burial_kg_m2",
-    "load_24h_kg_m2",
-    "load_72h_kg_m2",
 ]
 
 
