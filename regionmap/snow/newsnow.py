@@ -69,8 +69,7 @@ def new_snow_density_vionnet2012(t_air_k, wind_m_s):
 
     References
     ----------
-    [1] Vionnet, V. et al. (2012), The detailed snowpack scheme Crocus and its
-        implementation in SURFEX v7.2, Geosci. Model Dev. 5, 773-791,
+    [1] Vionnet, V. et al. (2012), Geosci. Model Dev. 5, 773-791,
         doi:10.5194/gmd-5-773-2012
     """
     t_c = min(t_air_k - T_MELT_K, 0.0)
